@@ -1,0 +1,85 @@
+"""The domain errors, each with a message that says what is wrong and how to fix it.
+
+Every error a user can cause with a bad input is an :class:`AllowanceError`. The command
+line prints ``str(error)`` as one line and exits with code 1; no traceback reaches the user.
+The message names the file, and the row and column where they apply, so the user can go
+straight to the cell.
+
+Implements
+----------
+AllowanceError      base class: ``file``, ``row``, ``column``, ``reason``, ``hint``
+InputFileError      a file is missing, unreadable, too large, or of the wrong kind
+TapeError           a whole-tape problem (missing required column, no rows, ambiguous dates)
+AssumptionsError    the assumptions or an overlay file is malformed or inconsistent
+TieOutError         the accepted tape does not tie to the ledger control total
+OutputError         an output folder cannot be written
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+
+class AllowanceError(Exception):
+    """A problem with the user's inputs, worded so that the user can fix it.
+
+    Examples
+    --------
+    >>> str(TapeError("missing required column 'balance'", file="tape.csv",
+    ...               hint="add the column or map it in [tape.columns]"))
+    "tape.csv: missing required column 'balance' (fix: add the column or map it in [tape.columns])"
+    >>> str(AssumptionsError("weights sum to 0.9, not 1", file="a.toml", column="scenarios"))
+    'a.toml: column scenarios: weights sum to 0.9, not 1'
+    """
+
+    def __init__(
+        self,
+        reason: str,
+        *,
+        file: str | Path | None = None,
+        row: int | None = None,
+        column: str | None = None,
+        hint: str | None = None,
+    ) -> None:
+        self.reason = reason
+        self.file = None if file is None else str(file)
+        self.row = row
+        self.column = column
+        self.hint = hint
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        where = []
+        if self.row is not None:
+            where.append(f"row {self.row}")
+        if self.column is not None:
+            where.append(f"column {self.column}")
+        text = ", ".join(where) + ": " + self.reason if where else self.reason
+        if self.file is not None:
+            text = f"{self.file}: {text}"
+        if self.hint:
+            text = f"{text} (fix: {self.hint})"
+        return text
+
+
+class InputFileError(AllowanceError):
+    """An input file is missing, unreadable, too large, or not of a kind we read."""
+
+
+class TapeError(AllowanceError):
+    """The tape as a whole cannot be read (not a single bad row: those are rejected)."""
+
+
+class AssumptionsError(AllowanceError):
+    """The assumptions file, an overlay file or a file they name is malformed.
+
+    ``column`` carries the dotted key path (``segments.auto.lgd``) where one applies.
+    """
+
+
+class TieOutError(AllowanceError):
+    """The accepted tape balance differs from the ledger control total beyond tolerance."""
+
+
+class OutputError(AllowanceError):
+    """The output folder cannot be created or written."""

@@ -1,0 +1,56 @@
+"""Read the user's input files: loan tape, assumptions, overlays, charge-offs, prior runs.
+
+(Being written: the result types below are the contract other modules rely on.)
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import pandas as pd
+
+from allowance.schemas import InputFile
+
+
+@dataclass(frozen=True)
+class IntakeResult:
+    """A tape split into accepted and rejected rows; ``rows_read == accepted + rejected``.
+
+    accepted  the validated tape (see the tape-frame contract), one row per accepted loan
+    rejected  one row per rejected row: ``source_row``, ``reason_codes`` ("a;b"), ``reasons``
+              (the messages, "; "-joined), then every column exactly as read (text)
+    findings  long form, one row per finding: ``source_row, loan_id, column, code, severity``
+              ("reject" or "warning"), ``message``; warnings are findings on accepted rows
+    """
+
+    accepted: pd.DataFrame
+    rejected: pd.DataFrame
+    findings: pd.DataFrame
+    rows_read: int
+    file: InputFile
+
+    @property
+    def rows_accepted(self) -> int:
+        return len(self.accepted)
+
+    @property
+    def rows_rejected(self) -> int:
+        return len(self.rejected)
+
+    @property
+    def warnings(self) -> pd.DataFrame:
+        return self.findings[self.findings["severity"] == "warning"]
+
+
+@dataclass(frozen=True)
+class TieOut:
+    """The accepted tape's balance against the ledger control total."""
+
+    ledger_balance: float | None
+    accepted_balance: float
+    rejected_balance: float
+    difference: float  # accepted - ledger (0 when no ledger figure was given)
+    tolerance: float
+    within_tolerance: bool
+    accepted_by_user: bool  # the user passed the explicit acceptance flag
+    explanation: str
