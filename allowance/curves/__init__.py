@@ -1,0 +1,75 @@
+"""PD and LGD term structures: from 12-month PDs, cumulative curves and roll-rate matrices.
+
+Every PD source produces one primitive, the monthly marginal PD conditional on survival
+(:class:`PdTermStructure`); survival, unconditional marginal PD, cumulative PD and the PD
+over a horizon are derived from it in :mod:`allowance.curves.term_structure` only.
+
+Implements
+----------
+term_structure  PdTermStructure, survival, unconditional_marginal, cumulative_pd, pd_over
+pd_sources      pd_term_structure and the PD_SOURCES registry (12-month PD, cumulative curve,
+                by grade, transition matrix); hazard_from_pd_12m, marginal_from_curve
+roll_rates      delinquency buckets, bucket_index, validate_matrix, matrix_term_structure,
+                roll_rate_summary (Kemeny & Snell absorbing-chain analytics)
+lgd             collateral_lgd, recovery_discount_factor, effective_lgd, base_lgd, revolving_ead
+"""
+
+from allowance.curves.lgd import (
+    base_lgd,
+    collateral_lgd,
+    effective_lgd,
+    recovery_discount_factor,
+    revolving_ead,
+)
+from allowance.curves.pd_sources import (
+    PD_SOURCES,
+    PdSource,
+    hazard_from_pd_12m,
+    marginal_from_curve,
+    pd_term_structure,
+)
+from allowance.curves.roll_rates import (
+    CHARGE_OFF,
+    DELINQUENCY_BUCKETS,
+    PAID_OFF,
+    bucket_index,
+    delinquency_buckets,
+    expected_states,
+    matrix_term_structure,
+    roll_rate_summary,
+    validate_matrix,
+)
+from allowance.curves.term_structure import (
+    PdTermStructure,
+    cumulative_pd,
+    pd_over,
+    survival,
+    unconditional_marginal,
+)
+
+__all__ = [
+    "CHARGE_OFF",
+    "DELINQUENCY_BUCKETS",
+    "PAID_OFF",
+    "PD_SOURCES",
+    "PdSource",
+    "PdTermStructure",
+    "base_lgd",
+    "bucket_index",
+    "collateral_lgd",
+    "cumulative_pd",
+    "delinquency_buckets",
+    "effective_lgd",
+    "expected_states",
+    "hazard_from_pd_12m",
+    "marginal_from_curve",
+    "matrix_term_structure",
+    "pd_over",
+    "pd_term_structure",
+    "recovery_discount_factor",
+    "revolving_ead",
+    "roll_rate_summary",
+    "survival",
+    "unconditional_marginal",
+    "validate_matrix",
+]

@@ -1,0 +1,250 @@
+"""The one PD primitive, and every quantity derived from it.
+
+Every PD source (12-month PD, cumulative curve, roll-rate matrix) produces one thing: the
+monthly marginal PD conditional on survival, ``pd_t`` for months t = 1..T (column t - 1).
+Survival, the unconditional marginal PD, the cumulative PD and the PD over a horizon are
+derived from it here and nowhere else.
+
+Implements
+----------
+PdTermStructure         the marginal PDs (and payoff SMMs) of one segment, one row per key
+survival                S_t = prod_{k<=t} (1 - pd_k)(1 - smm_k)
+unconditional_marginal  S_{t-1} pd_t: probability of defaulting in month t
+cumulative_pd           running sum of the unconditional marginals
+pd_over                 cumulative PD at a horizon (the 12-month PD is ``pd_over(m, 12)``)
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Iterable
+
+import numpy as np
+
+from allowance.exceptions import AssumptionsError
+
+
+@dataclass(frozen=True, eq=False)
+class PdTermStructure:
+    r"""Monthly marginal PDs of one segment, one row per curve key.
+
+    Attributes
+    ----------
+    segment : str
+        The segment name (the ``[segments.<name>]`` table).
+    keys : tuple of str
+        What a row stands for: ``("*",)`` for one curve per segment, grade names, or
+        delinquency bucket state names (a loan starts in the bucket of its DPD).
+    marginal : ndarray, shape (len(keys), months)
+        ``marginal[k, t - 1]`` = P(default in month t | active at the start of month t).
+    smm : ndarray or None, same shape
+        Payoff probability in month t, conditional on being active and not defaulting that
+        month. Only roll-rate matrices with a ``paid_off`` state carry one.
+    source : str
+        The PD source key it was built from (``SegmentAssumptions.pd_source``).
+
+    Notes
+    -----
+    With defaults and payoffs competing within a month,
+
+    .. math::
+
+        S_t = \prod_{k=1}^{t} (1 - pd_k)(1 - smm_k), \qquad
+        P(\text{default in month } t) = S_{t-1}\, pd_t .
+
+    Examples
+    --------
+    >>> ts = PdTermStructure("auto", ("*",), np.full((1, 24), 0.01), None, "pd_12m")
+    >>> ts.months, ts.key_index(["*", "*"]).tolist()
+    (24, [0, 0])
+    """
+
+    segment: str
+    keys: tuple[str, ...]
+    marginal: np.ndarray
+    smm: np.ndarray | None
+    source: str
+
+    def __post_init__(self) -> None:
+        marginal = np.array(self.marginal, dtype=np.float64)
+        if marginal.ndim != 2 or marginal.shape[0] != len(self.keys):
+            raise ValueError(f"marginal must have shape (len(keys)={len(self.keys)}, months); got {marginal.shape}")
+        marginal.setflags(write=False)
+        object.__setattr__(self, "marginal", marginal)
+        object.__setattr__(self, "keys", tuple(self.keys))
+        if self.smm is not None:
+            smm = np.array(self.smm, dtype=np.float64)
+            if smm.shape != marginal.shape:
+                raise ValueError(f"smm must have the shape of marginal {marginal.shape}; got {smm.shape}")
+            smm.setflags(write=False)
+            object.__setattr__(self, "smm", smm)
+
+    @property
+    def months(self) -> int:
+        """Number of months covered (the last axis)."""
+        return int(self.marginal.shape[1])
+
+    def key_index(self, labels: Iterable[str]) -> np.ndarray:
+        """Row of ``marginal`` for each label (a grade name, ``"*"``, or a bucket state).
+
+        Raises
+        ------
+        AssumptionsError
+            A label has no curve in this segment (e.g. a grade the assumptions do not give).
+        """
+        lookup = {key: i for i, key in enumerate(self.keys)}
+        labels = np.asarray(list(labels), dtype=object)
+        uniques, inverse = np.unique(labels.astype(str), return_inverse=True)
+        missing = [u for u in uniques if u not in lookup]
+        if missing:
+            raise AssumptionsError(
+                f"no PD for {', '.join(repr(str(m)) for m in missing)}; the segment gives "
+                f"{', '.join(repr(k) for k in self.keys)}",
+                column=f"segments.{self.segment}.{self.source}",
+                hint="add the missing grades to the assumptions or correct the tape's grade column",
+            )
+        return np.array([lookup[u] for u in uniques], dtype=np.int64)[inverse].reshape(labels.shape)
+
+
+def _keep_factors(marginal: np.ndarray, smm: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """The marginal PD broadcast against ``smm``, and the monthly survival factor."""
+    pd_t = np.asarray(marginal, dtype=np.float64)
+    if pd_t.ndim == 0:
+        raise ValueError("marginal PDs need a months axis (the last axis)")
+    keep = 1.0 - pd_t
+    if smm is not None:
+        keep = keep * (1.0 - np.asarray(smm, dtype=np.float64))
+    return np.broadcast_to(pd_t, keep.shape), keep
+
+
+def survival(marginal: np.ndarray, smm: np.ndarray | None = None) -> np.ndarray:
+    r"""Probability of being active (not defaulted, not paid off) at the end of each month.
+
+    Parameters
+    ----------
+    marginal : array_like, shape (..., T)
+        Monthly marginal PD conditional on survival; the last axis is months 1..T.
+    smm : array_like, optional
+        Monthly payoff probability conditional on being active and not defaulting that month;
+        broadcasts against ``marginal``. None: no prepayment.
+
+    Returns
+    -------
+    ndarray, shape (..., T)
+        ``S_t`` for t = 1..T (``S_0 = 1`` is not included).
+
+    Notes
+    -----
+    .. math:: S_t = \prod_{k=1}^{t} (1 - pd_k)(1 - smm_k)
+
+    Examples
+    --------
+    >>> survival([0.1, 0.1, 0.1]).round(4).tolist()
+    [0.9, 0.81, 0.729]
+    >>> survival([0.1, 0.1], smm=[0.5, 0.5]).round(4).tolist()
+    [0.45, 0.2025]
+    """
+    _, keep = _keep_factors(np.asarray(marginal), smm)
+    return np.cumprod(keep, axis=-1)
+
+
+def unconditional_marginal(marginal: np.ndarray, smm: np.ndarray | None = None) -> np.ndarray:
+    r"""Probability of defaulting in month t, seen from today: ``S_{t-1} pd_t``.
+
+    Parameters
+    ----------
+    marginal, smm : array_like
+        As in :func:`survival`.
+
+    Notes
+    -----
+    Default in month t is measured on the loans active at the start of month t, so payoffs in
+    month t do not compete with defaults in month t:
+
+    .. math:: d_t = S_{t-1}\, pd_t, \qquad S_0 = 1 .
+
+    Examples
+    --------
+    >>> unconditional_marginal([0.1, 0.1, 0.1]).round(4).tolist()
+    [0.1, 0.09, 0.081]
+    >>> unconditional_marginal([0.1, 0.1], smm=[0.5, 0.5]).round(4).tolist()
+    [0.1, 0.045]
+    """
+    pd_t, keep = _keep_factors(np.asarray(marginal), smm)
+    before = np.empty(keep.shape, dtype=np.float64)
+    if keep.shape[-1]:
+        before[..., 0] = 1.0
+        before[..., 1:] = np.cumprod(keep[..., :-1], axis=-1)
+    return before * pd_t
+
+
+def cumulative_pd(marginal: np.ndarray, smm: np.ndarray | None = None) -> np.ndarray:
+    r"""Probability of defaulting (before paying off) by the end of each month.
+
+    Parameters
+    ----------
+    marginal, smm : array_like
+        As in :func:`survival`.
+
+    Returns
+    -------
+    ndarray, shape (..., T)
+        ``C_t`` for t = 1..T, non-decreasing, in [0, 1].
+
+    Notes
+    -----
+    .. math:: C_t = \sum_{k=1}^{t} S_{k-1}\, pd_k
+
+    Without payoffs :math:`C_t = 1 - S_t`. The running sum is capped at 1 against rounding.
+
+    Examples
+    --------
+    >>> cumulative_pd([0.1, 0.1, 0.1]).round(4).tolist()
+    [0.1, 0.19, 0.271]
+    >>> cumulative_pd([0.1, 0.1], smm=[0.5, 0.5]).round(4).tolist()
+    [0.1, 0.145]
+    """
+    return np.minimum(np.cumsum(unconditional_marginal(marginal, smm), axis=-1), 1.0)
+
+
+def pd_over(marginal: np.ndarray, months: int | np.ndarray, smm: np.ndarray | None = None) -> np.ndarray:
+    r"""Cumulative PD over a horizon of ``months`` (0 for a horizon of 0).
+
+    Parameters
+    ----------
+    marginal, smm : array_like
+        As in :func:`survival`.
+    months : int or array of int
+        The horizon; an array broadcasts against the leading axes of ``marginal`` (one
+        horizon per loan, say). Must not exceed the number of months given.
+
+    Returns
+    -------
+    ndarray
+        :math:`C_{months}`, with the leading shape of ``marginal`` broadcast against ``months``.
+
+    Notes
+    -----
+    The 12-month PD is ``pd_over(marginal, 12)``; the lifetime PD of a loan is its
+    ``pd_over`` at its horizon.
+
+    Examples
+    --------
+    >>> float(pd_over([0.1, 0.1, 0.1], 2).round(4))
+    0.19
+    >>> pd_over([[0.1, 0.1, 0.1], [0.2, 0.2, 0.2]], np.array([0, 3])).round(4).tolist()
+    [0.0, 0.488]
+    """
+    cum = cumulative_pd(marginal, smm)
+    horizon = np.asarray(months)
+    if horizon.dtype.kind not in "iu":
+        if not np.all(np.isfinite(horizon)) or np.any(horizon != np.round(horizon)):
+            raise ValueError("months must be whole numbers")
+        horizon = horizon.astype(np.int64)
+    if horizon.size and (horizon.min() < 0 or horizon.max() > cum.shape[-1]):
+        raise ValueError(f"horizon must lie in 0..{cum.shape[-1]} months; got {horizon.min()}..{horizon.max()}")
+    padded = np.concatenate([np.zeros(cum.shape[:-1] + (1,)), cum], axis=-1)
+    lead = np.broadcast_shapes(padded.shape[:-1], horizon.shape)
+    padded = np.broadcast_to(padded, lead + padded.shape[-1:])
+    index = np.broadcast_to(horizon, lead)[..., None]
+    return np.take_along_axis(padded, index, axis=-1)[..., 0]
