@@ -248,10 +248,14 @@ def _residual(chunk, segments, rate, months_left, age) -> np.ndarray:
             column=f"segments.{seg}.amortization_months",
             hint="add amortization_months to the segment, or the tape columns balloon_amount / amortization_months",
         )
-    amort_left = np.where(np.isnan(amort), 0, amort - age)
-    computed = cashflows.balloon_residual(chunk["balance"].to_numpy(float), rate, months_left, amort_left)
-    residual = np.where(np.isnan(given), computed, given)
-    return np.where(balloon, np.minimum(residual, chunk["balance"].to_numpy(float)), 0.0)
+    balance = chunk["balance"].to_numpy(float)
+    residual = np.zeros(len(chunk))
+    by_term = balloon & np.isnan(given)
+    residual[by_term] = cashflows.balloon_residual(
+        balance[by_term], rate[by_term], months_left[by_term], amort[by_term] - age[by_term]
+    )
+    residual[balloon & ~by_term] = given[balloon & ~by_term]
+    return np.minimum(residual, balance)
 
 
 def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> tuple[pd.DataFrame, pd.DataFrame]:
