@@ -85,12 +85,14 @@ def allocate_cents(total_cents: int, weights: np.ndarray) -> np.ndarray:
 
 
 def _percent(modelled_cents: np.ndarray, scope: np.ndarray, value: float) -> np.ndarray:
-    return np.where(scope, np.rint(modelled_cents * value), 0.0).astype(np.int64)
+    # a negative modelled figure (a POCI loan better than at purchase) is a gain, not a loss
+    # to scale: the overlay leaves it alone
+    return np.where(scope, np.rint(np.maximum(modelled_cents, 0) * value), 0.0).astype(np.int64)
 
 
 def _amount(modelled_cents: np.ndarray, scope: np.ndarray, value: float) -> np.ndarray:
     out = np.zeros(len(modelled_cents), dtype=np.int64)
-    out[scope] = allocate_cents(int(np.rint(value * 100.0)), modelled_cents[scope].astype(float))
+    out[scope] = allocate_cents(int(np.rint(value * 100.0)), np.maximum(modelled_cents[scope], 0).astype(float))
     return out
 
 
@@ -199,7 +201,8 @@ def apply_overlays(
             clipped_by_fw = []
             for fw in targets:
                 cents = _KINDS[ov.kind](modelled[fw], scope, ov.value)
-                floored = np.maximum(cents, -running[fw])  # final ECL never below 0
+                # a release never takes a loan's ECL below 0 (nor further below, for POCI gains)
+                floored = np.maximum(cents, np.minimum(0, -running[fw]))
                 clipped = int(np.count_nonzero(floored != cents))
                 if clipped:
                     clipped_by_fw.append(
