@@ -1,0 +1,497 @@
+"""The demo's small hand-shaped files and the plain writers ``generate.py`` uses.
+
+Implements
+----------
+write_csv            text columns to CSV (quoting only where needed; optional BOM / CRLF)
+write_rolls          ``cards_rolls.csv``: the card segment's monthly roll-rate matrix
+write_assumptions    ``assumptions_2026q3.toml`` / ``assumptions_2026q2.toml``
+write_what_if        ``downside_only.toml``: 100 % downside
+write_bad_tape       ``bad_tape.csv``: good rows and one row per fault
+write_messy          ``messy_extract.csv`` + ``messy_assumptions.toml``
+write_manifest       ``manifest.toml``: the one list of the bundled sample data
+
+Every name and figure is invented.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+ROLL_STATES = ("current", "dpd_1_29", "dpd_30_59", "dpd_60_89", "dpd_90_119",
+               "dpd_120_149", "dpd_150_179", "charge_off", "paid_off")
+#: Monthly roll rates of the card book in millionths; the paid_off column is the remainder,
+#: so each row sums to exactly 1 as written.
+ROLLS_PPM = (
+    # cur     1-29    30-59   60-89   90-119  120-149 150-179 c-off
+    (955000, 30000, 0, 0, 0, 0, 0, 0),
+    (420000, 260000, 300000, 0, 0, 0, 0, 4000),
+    (180000, 110000, 170000, 520000, 0, 0, 0, 6000),
+    (70000, 40000, 60000, 120000, 700000, 0, 0, 8000),
+    (30000, 20000, 20000, 40000, 70000, 810000, 0, 6000),
+    (20000, 10000, 10000, 20000, 30000, 50000, 852000, 5000),
+    (12000, 5000, 5000, 10000, 10000, 20000, 30000, 905000),
+    (0, 0, 0, 0, 0, 0, 0, 1000000),
+    (0, 0, 0, 0, 0, 0, 0, 0),
+)
+
+MESSY_HEADERS = {  # our column -> the extract's header, as the loan system prints it
+    "loan_id": "Acct No", "segment": "Product", "repayment": "Repay Type",
+    "origination_date": "Open Date", "maturity_date": "Maturity Dt", "balance": "Curr Bal ",
+    "interest_rate": "Int Rate", "days_past_due": "Days Delinquent", "credit_limit": "Credit Line",
+    "grade": "Risk Grade", "pd_12m_at_origination": "PD at Orig", "collateral_value": "Collateral Val",
+    "watchlist": "WATCH LIST", "bankrupt": "Bankrupt Y/N",
+}
+MESSY_EXTRA = ("Loan Officer", "Branch Name")
+OFFICERS = np.array(["T. Brannoch", "L. Okafor-Reyes", "M. Vellacott", "S. Iyengar-Holt", "P. Duvessa"])
+
+
+# --------------------------------------------------------------------------------------
+# writers
+# --------------------------------------------------------------------------------------
+
+
+def money(x):
+    """Cents as text; blank for NaN."""
+    return np.array(["" if np.isnan(v) else f"{v:.2f}" for v in np.asarray(x, float)], dtype=object)
+
+
+def rate(x):
+    """At most 6 decimals as text, trailing zeros dropped; blank for NaN."""
+    return np.array(["" if np.isnan(v) else f"{v:.6f}".rstrip("0").rstrip(".")
+                     for v in np.asarray(x, float)], dtype=object)
+
+
+def whole(x, keep):
+    """Integers as text where ``keep``, else blank."""
+    return np.where(keep, np.asarray(x, np.int64).astype(str), "").astype(object)
+
+
+def boolean(x):
+    return np.where(np.asarray(x, bool), "true", "false").astype(object)
+
+
+def _cell(value) -> str:
+    text = str(value)
+    return '"' + text.replace('"', '""') + '"' if any(c in text for c in ',"\n\r') else text
+
+
+def write_csv(path: Path, header, columns, *, newline: str = "\n", bom: bool = False) -> Path:
+    """Write text columns as CSV; quote cells that need it (RFC 4180)."""
+    lines = [",".join(_cell(h) for h in header)]
+    lines += [",".join(_cell(v) for v in row) for row in zip(*columns)]
+    text = newline.join(lines) + newline
+    path.write_bytes((b"\xef\xbb\xbf" if bom else b"") + text.encode("utf-8"))
+    return path
+
+
+def toml_value(value) -> str:
+    """A Python value as a TOML value (strings, bools, ints, floats, lists)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(toml_value(v) for v in value) + "]"
+    text = str(value).replace("\\", "\\\\").replace('"', '\\"')
+    return f'"{text}"'
+
+
+def _write_text(path: Path, text: str) -> Path:
+    path.write_bytes(text.encode("utf-8"))
+    return path
+
+
+# --------------------------------------------------------------------------------------
+# roll-rate matrix
+# --------------------------------------------------------------------------------------
+
+
+def roll_matrix() -> np.ndarray:
+    """The card roll-rate matrix as floats (rows sum to 1)."""
+    ppm = np.array([row + (1_000_000 - sum(row),) for row in ROLLS_PPM], dtype=np.int64)
+    return ppm / 1_000_000
+
+
+def write_rolls(out_dir: Path) -> Path:
+    rows = []
+    for state, row in zip(ROLL_STATES, ROLLS_PPM):
+        cells = list(row) + [1_000_000 - sum(row)]
+        rows.append([state] + [f"{c / 1_000_000:.6f}".rstrip("0").rstrip(".") for c in cells])
+    return write_csv(out_dir / "cards_rolls.csv", ("from",) + ROLL_STATES, list(zip(*rows)))
+
+
+# --------------------------------------------------------------------------------------
+# assumptions
+# --------------------------------------------------------------------------------------
+
+QUARTERS = {
+    "q3": dict(as_of="2026-09-30", weights=(0.6, 0.15, 0.25), downside=[1.6, 1.4, 1.2],
+               cre_overlay=0.10),
+    "q2": dict(as_of="2026-06-30", weights=(0.6, 0.2, 0.2), downside=[1.5, 1.3, 1.15],
+               cre_overlay=0.08),
+}
+
+
+def segments_toml(pd_by_grade, names=("mortgage", "auto", "personal", "cards", "cre", "heloc")) -> str:
+    auto, personal = ({g: float(p) for g, p in zip("ABCDE", pd_by_grade[s])} for s in ("auto", "personal"))
+    tables = {
+        "mortgage": f"""
+[segments.mortgage]
+# Residential first-lien mortgages, 30-year level pay. Cumulative PD by year from the as-of date.
+pd_curve = [0.006, 0.013, 0.02, 0.026, 0.031, 0.035, 0.039, 0.042, 0.045, 0.048]
+lgd = 0.2                          # used where a loan has no collateral value
+psa = 150
+retail_class = "residential_mortgage"
+
+[segments.mortgage.collateral_lgd]
+haircut = 0.2                      # forced-sale discount on the appraised value
+recovery_cost = 0.08
+floor = 0.05
+months_to_recovery = 18
+""",
+        "auto": f"""
+[segments.auto]
+# New and used vehicle loans, 5-6-year level pay.
+pd_12m_by_grade = {{ {", ".join(f"{g} = {p!r}" for g, p in auto.items())} }}
+lgd = 0.45
+cpr = 0.15
+retail_class = "other_retail"
+""",
+        "personal": f"""
+[segments.personal]
+# Unsecured personal loans, 3-year level pay.
+pd_12m_by_grade = {{ {", ".join(f"{g} = {p!r}" for g, p in personal.items())} }}
+lgd = 0.8
+cpr = 0.2
+retail_class = "other_retail"
+""",
+        "cards": """
+[segments.cards]
+# Credit cards (open-end revolving): monthly roll rates between delinquency buckets.
+transition_matrix = "cards_rolls.csv"
+charge_off_dpd = 180
+lgd = 0.87
+ccf = 0.45                         # IFRS 9: share of the undrawn limit drawn by default
+behavioural_life_months = 36
+payment_rate = 0.06                # CECL: monthly share of the drawn balance repaid
+unconditionally_cancellable = true
+retail_class = "qualifying_revolving"
+""",
+        "cre": """
+[segments.cre]
+# Commercial real estate: 5-10-year balloon loans on 25-30-year amortization.
+pd_12m = 0.02
+lgd = 0.35
+cpr = 0.05
+asset_correlation = 0.2            # not a retail class: set explicitly
+
+[segments.cre.collateral_lgd]
+haircut = 0.25
+recovery_cost = 0.1
+floor = 0.1
+months_to_recovery = 24
+""",
+        "heloc": """
+[segments.heloc]
+# Home-equity lines: 10 years interest only, then 15 years level pay.
+pd_12m = 0.007
+lgd = 0.4
+cpr = 0.1
+retail_class = "residential_mortgage"
+""",
+    }
+    return "".join(tables[n] for n in names)
+
+
+def rules_and_scenarios_toml(quarter: str) -> str:
+    q = QUARTERS[quarter]
+    base, up, down = q["weights"]
+    return f"""
+[ifrs9]
+sicr_backstop_dpd = 30             # stage 2 beyond 30 days past due (IFRS 9 5.5.11)
+default_dpd = 90                   # stage 3 at 90 days past due (IFRS 9 B5.5.37)
+sicr_pd_ratio = 2.0
+sicr_min_pd_increase = 0.001
+watchlist_is_sicr = true
+forborne_is_sicr = true
+probation_months_stage3 = 6
+probation_months_stage2 = 3
+
+[cecl]
+reasonable_supportable_months = 24
+reversion_months = 12
+reversion = "straight_line"
+discount = false
+
+[scenarios.base]
+weight = {base!r}
+pd_multiplier = [1.0, 1.0, 1.0]
+description = "Growth near trend; unemployment in the region steady at 4.1 %."
+
+[scenarios.upside]
+weight = {up!r}
+pd_multiplier = [0.85, 0.9, 0.95]
+collateral_index = [1.03, 1.05, 1.06]
+description = "Faster growth; house prices up 3 % in the first year."
+
+[scenarios.downside]
+weight = {down!r}
+pd_multiplier = {toml_value(q["downside"])}
+lgd_multiplier = [1.15, 1.1, 1.05]
+collateral_index = [0.9, 0.87, 0.9]
+description = "Regional recession; unemployment to 7 %, house prices down 13 % by year two."
+"""
+
+
+def overlays_toml(quarter: str) -> str:
+    q = QUARTERS[quarter]
+    text = f"""
+[[overlays]]
+name = "cre-office-vacancy"
+segment = "cre"
+kind = "percent"
+value = {q["cre_overlay"]!r}
+rationale = "Office vacancy in the Corrandale business district is rising faster than the scenarios capture."
+owner = "Credit Risk Committee"
+approved = {"2026-09-18" if quarter == "q3" else "2026-06-19"}
+expires = 2027-03-31
+"""
+    if quarter == "q3":
+        text += """
+[[overlays]]
+name = "auto-hail-storm"
+segment = "auto"
+kind = "amount"
+value = 250000.0
+rationale = "The August 2026 hail storm in the northern counties damaged many vehicles; losses are not yet in delinquency."
+owner = "Chief Credit Officer"
+approved = 2026-09-25
+expires = 2026-12-31
+"""
+    else:
+        text += """
+[[overlays]]
+name = "personal-payment-holiday"
+segment = "personal"
+kind = "amount"
+value = 150000.0
+rationale = "Borrowers leaving the spring 2026 payment-holiday programme may not resume payments."
+owner = "Chief Credit Officer"
+approved = 2026-06-19
+expires = 2026-09-30
+"""
+    return text
+
+
+def write_assumptions(out_dir: Path, quarter: str, ledger_cents: int, lender: str, pd_by_grade) -> Path:
+    q = QUARTERS[quarter]
+    head = f"""# {lender} (an invented lender): assumptions for the quarter-end allowance
+# at {q["as_of"]}. Every figure is invented for the demo. Written by demo/generate.py.
+
+[run]
+as_of = {q["as_of"]}
+frameworks = ["ifrs9", "cecl"]
+currency = "USD"
+label = "{lender} - quarter-end {q["as_of"]}"
+ledger_balance = {ledger_cents // 100}.{ledger_cents % 100:02d}   # general-ledger loan balance
+"""
+    text = head + segments_toml(pd_by_grade) + rules_and_scenarios_toml(quarter) + overlays_toml(quarter)
+    return _write_text(out_dir / f"assumptions_2026{quarter}.toml", text)
+
+
+def write_what_if(out_dir: Path) -> Path:
+    text = """# What if the downside comes true? Apply with --overlay: tables merge key by key, so only
+# the scenario weights change and every other assumption is the base file's.
+
+[scenarios.base]
+weight = 0.0
+
+[scenarios.upside]
+weight = 0.0
+
+[scenarios.downside]
+weight = 1.0
+"""
+    return _write_text(out_dir / "downside_only.toml", text)
+
+
+# --------------------------------------------------------------------------------------
+# the bad tape and the messy extract
+# --------------------------------------------------------------------------------------
+
+
+def _pick(rng, cols, columns, segment, count):
+    seg = cols[columns.index("segment")]
+    bal = cols[columns.index("balance")]
+    dpd = cols[columns.index("days_past_due")]
+    pool = np.flatnonzero((seg == segment) & (dpd == "0") & (bal != "0.00"))
+    return list(rng.choice(pool, size=count, replace=False))
+
+
+def write_bad_tape(out_dir: Path, rng, cols, columns) -> tuple[Path, dict]:
+    """Twelve good rows and one row per fault; returns the counts and faults for the manifest."""
+    idx = {c: i for i, c in enumerate(columns)}
+    good = (_pick(rng, cols, columns, "mortgage", 3) + _pick(rng, cols, columns, "auto", 3)
+            + _pick(rng, cols, columns, "personal", 2) + _pick(rng, cols, columns, "cards", 3)
+            + _pick(rng, cols, columns, "cre", 1))
+    rows = [[str(c[i]) for c in cols] for i in good]
+    spare = {s: _pick(rng, cols, columns, s, 3) for s in ("auto", "personal", "cards", "mortgage")}
+    faults = [  # (segment of the source row, column, new value, what is wrong)
+        ("auto", "loan_id", rows[1][idx["loan_id"]], "duplicate loan_id (both copies are rejected)"),
+        ("personal", "origination_date", "2021-02-30", "unparseable date (there is no 30 February)"),
+        ("mortgage", "balance", "-1250.00", "negative balance"),
+        ("auto", "interest_rate", "6.5", "interest rate given in percent (6.5 for 0.065)"),
+        ("personal", "segment", "boat", "segment with no assumptions"),
+        ("mortgage", "repayment", "monthly", "repayment not one of level, interest_only, balloon, revolving"),
+        ("cards", "days_past_due", "12.5", "fractional days past due"),
+        ("cards", "credit_limit", "", "revolving line without a credit limit"),
+        ("auto", "origination_date", "2026-11-15", "originated after the as-of date"),
+    ]
+    used = {s: 0 for s in spare}
+    bad_rows = []
+    for segment, column, value, what in faults:
+        row = [str(c[spare[segment][used[segment]]]) for c in cols]
+        used[segment] += 1
+        row[idx[column]] = value
+        bad_rows.append((row, column, what))
+    # Interleave: a bad row after each good row from the second on.
+    lines, listed = [], []
+    for k, row in enumerate(rows):
+        lines.append(row)
+        if 1 <= k <= len(bad_rows):
+            row, column, what = bad_rows[k - 1]
+            lines.append(row)
+            listed.append(dict(line=len(lines) + 1, loan_id=row[idx["loan_id"]], column=column, fault=what))
+    for row, column, what in bad_rows[len(rows) - 1:]:
+        lines.append(row)
+        listed.append(dict(line=len(lines) + 1, loan_id=row[idx["loan_id"]], column=column, fault=what))
+    dup_id = faults[0][2]
+    first = next(n for n, r in enumerate(lines, start=2) if r[idx["loan_id"]] == dup_id)
+    listed.append(dict(line=first, loan_id=dup_id, column="loan_id",
+                       fault="duplicate loan_id (the first copy; also rejected)"))
+    listed.sort(key=lambda f: f["line"])
+    path = write_csv(out_dir / "bad_tape.csv", columns, list(zip(*lines)))
+    return path, dict(rows=len(lines), rejected=len(listed), faults=listed)
+
+
+def _day_first(iso: str) -> str:
+    return "" if not iso else f"{iso[8:10]}/{iso[5:7]}/{iso[0:4]}"
+
+
+def write_messy(out_dir: Path, rng, cols, columns, lender, pd_by_grade) -> tuple[list[Path], dict]:
+    """A loan-system extract as it comes: odd headers, day-first dates, Y/N flags, a BOM, CRLF."""
+    idx = {c: i for i, c in enumerate(columns)}
+    seg = cols[idx["segment"]]
+    chosen = np.concatenate([rng.choice(np.flatnonzero(seg == s), size=k, replace=False)
+                             for s, k in (("mortgage", 50), ("auto", 55), ("personal", 44), ("cards", 50))])
+    chosen = chosen[rng.permutation(len(chosen))]
+    n = len(chosen)
+    ids = np.array([f"{v:08d}" for v in 310_000 + np.cumsum(rng.integers(1, 40, n))], dtype=object)
+    get = {c: np.asarray(cols[idx[c]])[chosen].astype(object) for c in MESSY_HEADERS if c != "loan_id"}
+    get["loan_id"] = ids
+    for c in ("origination_date", "maturity_date"):
+        get[c] = np.array([_day_first(v) for v in get[c]], dtype=object)
+    for c in ("watchlist", "bankrupt"):
+        get[c] = np.where(get[c] == "true", "Y", "N").astype(object)
+    officer = OFFICERS[rng.integers(0, len(OFFICERS), n)]
+    branch = np.asarray(cols[idx["branch"]])[chosen]
+    # The faults.
+    auto_rows = np.flatnonzero(get["segment"] == "auto")
+    percent_rows = auto_rows[:1].tolist() + np.flatnonzero(get["segment"] == "mortgage")[:1].tolist()
+    for r in percent_rows:
+        get["interest_rate"][r] = f"{float(get['interest_rate'][r]) * 100:.2f}".rstrip("0").rstrip(".")
+    formula_row = int(np.flatnonzero(get["segment"] == "personal")[0])
+    get["loan_id"][formula_row] = '=HYPERLINK("x")'
+    matured_row = int(auto_rows[1])
+    get["origination_date"][matured_row], get["maturity_date"][matured_row] = "14/05/2020", "14/05/2026"
+    get["balance"][matured_row], get["days_past_due"][matured_row] = "812.40", "139"
+    order = [c for c in MESSY_HEADERS]
+    columns_out = [get[c] for c in order] + [officer, branch]
+    rows = [list(r) for r in zip(*columns_out)]
+    dup_at = int(n // 2)
+    rows.insert(dup_at + 1, list(rows[dup_at]))
+    header = [MESSY_HEADERS[c] for c in order] + list(MESSY_EXTRA)
+    tape = write_csv(out_dir / "messy_extract.csv", header, list(zip(*rows)), newline="\r\n", bom=True)
+    # The control total the loan system prints under the extract: every row, as printed.
+    cents = sum(int(round(float(r[order.index("balance")]) * 100)) for r in rows)
+    mapping = "\n".join(f"{ours} = {toml_value(theirs.strip().lower())}" for ours, theirs in MESSY_HEADERS.items())
+    text = f"""# {lender} (an invented lender): a raw loan-system extract, read as it comes.
+# Headers are matched ignoring case and surrounding spaces; dates are day-first throughout.
+# The ledger balance is the extract's control total (every row as printed), so the tie-out
+# difference is the balance of the rejected rows. Written by demo/generate.py; all invented.
+
+[run]
+as_of = 2026-09-30
+frameworks = ["ifrs9", "cecl"]
+currency = "USD"
+label = "{lender} - raw extract check 2026-09-30"
+ledger_balance = {cents // 100}.{cents % 100:02d}
+
+[tape.columns]
+{mapping}
+""" + segments_toml(pd_by_grade, ("mortgage", "auto", "personal", "cards")) + rules_and_scenarios_toml("q3")
+    assumptions = _write_text(out_dir / "messy_assumptions.toml", text)
+
+    def line(r: int) -> int:  # file line of extract row r: the header is line 1, the copy shifts
+        return r + 2 + (1 if r > dup_at else 0)
+
+    faults = [dict(line=line(r), loan_id=str(get["loan_id"][r]), column="interest_rate",
+                   fault="interest rate in percent") for r in percent_rows]
+    faults += [dict(line=dup_at + 2, loan_id=str(rows[dup_at][0]), column="loan_id", fault="duplicate loan_id"),
+               dict(line=dup_at + 3, loan_id=str(rows[dup_at][0]), column="loan_id", fault="duplicate loan_id")]
+    info = dict(rows=len(rows), rejected=len(faults), formula_id=str(get["loan_id"][formula_row]),
+                formula_line=line(formula_row), matured_loan=str(get["loan_id"][matured_row]),
+                matured_line=line(matured_row), faults=sorted(faults, key=lambda f: f["line"]),
+                ledger_cents=cents)
+    return [tape, assumptions], info
+
+
+# --------------------------------------------------------------------------------------
+# the manifest
+# --------------------------------------------------------------------------------------
+
+DESCRIPTIONS = {
+    "tape_2026q3.csv": ("tape", "The loan tape at 2026-09-30: about 10,000 loans in six segments."),
+    "tape_2026q2.csv": ("tape", "The same book a quarter earlier, at 2026-06-30."),
+    "charge_offs_2026q3.csv": ("charge_offs", "Write-offs and recoveries booked in the third quarter of 2026."),
+    "assumptions_2026q3.toml": ("assumptions", "Assumptions for the 2026-09-30 run: segments, rules, three scenarios, two overlays."),
+    "assumptions_2026q2.toml": ("assumptions", "Assumptions for the 2026-06-30 run (other scenario weights and overlays)."),
+    "cards_rolls.csv": ("transition_matrix", "Monthly roll rates of the card book between delinquency buckets."),
+    "downside_only.toml": ("overlay", "What-if: 100 % weight on the downside scenario."),
+    "bad_tape.csv": ("tape", "A small tape with one deliberately bad row per fault, among good rows."),
+    "messy_extract.csv": ("tape", "A raw loan-system extract: odd headers, day-first dates, a BOM, faults."),
+    "messy_assumptions.toml": ("assumptions", "Assumptions for the raw extract, with its column mapping."),
+}
+
+
+def _table(name: str, values: dict) -> str:
+    body = "".join(f"{k} = {toml_value(v) if not k.startswith('as_of') else v}\n" for k, v in values.items())
+    return f"\n[{name}]\n{body}"
+
+
+def _array(name: str, items: list[dict]) -> str:
+    return "".join(f"\n[[{name}]]\n" + "".join(f"{k} = {toml_value(v)}\n" for k, v in item.items())
+                   for item in items)
+
+
+def write_manifest(out_dir: Path, seed: int, lender: str, current: dict, prior: dict, movement: dict,
+                   bad: dict, messy: dict) -> Path:
+    text = f"""# The bundled demo data: the one list that the tests, the docs and `allowance demo` read.
+# Written by demo/generate.py (python demo/generate.py). Every name and figure is invented.
+
+lender = {toml_value(lender)}
+seed = {seed}
+generator = "generate.py"
+invented = true
+"""
+    text += _table("current", current) + _table("prior", prior) + _table("movement", movement)
+    text += _table("what_if", {"overlay": "downside_only.toml", "applies_to": "current"})
+    text += _table("bad", {k: v for k, v in bad.items() if k != "faults"}) + _array("bad.faults", bad["faults"])
+    text += _table("messy", {k: v for k, v in messy.items() if k not in ("faults", "ledger_cents")})
+    text += _array("messy.faults", messy["faults"])
+    text += _array("files", [dict(name=k, role=r, description=d) for k, (r, d) in DESCRIPTIONS.items()])
+    return _write_text(out_dir / "manifest.toml", text)
