@@ -308,7 +308,9 @@ def test_q2_to_q3_has_payoffs_new_loans_write_offs_and_migrations(q2, q3, charge
 
 def test_charge_offs_are_in_q2_only_and_recoveries_on_earlier_write_offs_in_neither(q2, q3, charge_offs):
     assert charge_offs["loan_id"].is_unique
-    assert list(charge_offs.columns) == ["loan_id", "gross_charge_off", "recoveries"]
+    # the segment places recoveries on loans that are in neither tape
+    assert list(charge_offs.columns) == ["loan_id", "segment", "gross_charge_off", "recoveries"]
+    assert charge_offs["segment"].notna().all()
     now = charge_offs[charge_offs["gross_charge_off"] > 0]
     earlier = charge_offs[charge_offs["gross_charge_off"] == 0]
     assert now["loan_id"].isin(q2["loan_id"]).all() and not now["loan_id"].isin(q3["loan_id"]).any()
