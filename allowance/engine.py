@@ -409,7 +409,8 @@ def _payment_findings(chunk, balance, rate, remaining, payment) -> pd.DataFrame:
     given = ~np.isnan(payment)
     short = np.zeros(len(chunk))
     short[given] = cashflows.payment_shortfall(balance[given], rate[given], remaining[given], payment[given])
-    flagged = short > 0.005
+    # a payment rounded to the cent leaves a few cents; flag only a real final balloon
+    flagged = short > 0.5 * np.nan_to_num(payment)
     return pd.DataFrame(
         {
             "source_row": chunk["source_row"].to_numpy()[flagged] if "source_row" in chunk else np.nonzero(flagged)[0],

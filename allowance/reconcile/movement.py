@@ -1,0 +1,266 @@
+"""The movement of one framework from the prior run to the current run, tied to the cent.
+
+Implements
+----------
+Movement       one framework's movement tables (frozen)
+movement       prior + current (+ rerun at prior assumptions, + charge-offs)
+compare_runs   the movement of every framework two runs share
+
+How a loan moves
+----------------
+All arithmetic is in whole cents (int64) on the rounded loan figures of the two runs, so
+every line is an exact sum and every table foots exactly. For one loan, with P / C the
+prior / current allowance, P_m / C_m their modelled parts and A_m the modelled allowance of
+the current tape at the prior run's assumptions (A_m = C_m when that rerun is absent):
+
+=========================  ==========================================================
+new loans                  A_m (current only)
+derecognised               -P (prior only, no charge-off)
+written off                -P (prior only, charged off: the allowance utilised);
+                           -min(P, charge-off) for a partial charge-off of a continuing loan
+transfer to stage k        P less any write-off, out of the prior stage, into stage k
+remeasurement              A_m - P_m + write-off (continuing loans, at prior assumptions)
+assumptions or scenarios   C_m - A_m (every current loan)
+overlay changes            (C - C_m) - (P - P_m); C - C_m for new loans
+closing                    C
+=========================  ==========================================================
+
+Per loan the lines sum to C - P, so opening + movements = closing in every stage, segment
+and their crossing. The gross carrying amount moves the same way, with "other changes"
+(repayments, amortisation, drawings) taking the part of remeasurement.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import pandas as pd
+
+from allowance.reconcile.runs import MovementError, bridge, prepare_charge_offs, prepare_run
+from allowance.reconcile.tables import (
+    _ALLOWANCE_BODY, _GROSS_BODY, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
+    check_movement, journal, rollforward,
+)
+from allowance.schemas import FRAMEWORKS, Framework
+
+__all__ = ["Movement", "compare_runs", "movement"]
+
+
+@dataclass(frozen=True)
+class Movement:
+    """One framework's movement from the prior run to the current run.
+
+    allowance         wide: ``line, label``, one column per class (IFRS 9: ``stage 1``,
+                      ``stage 2``, ``stage 3``, ``POCI``; CECL: each segment), ``total``
+    gross             the same lines for the gross carrying amount (balance)
+    allowance_detail  long: ``segment, class, line, label, amount`` (segment x class)
+    gross_detail      long, the same for the gross carrying amount
+    rollforward       per segment and ``Total``: ``beginning, provision, charge_offs,
+                      recoveries, ending`` (charge-offs negative; provision the balancing figure)
+    journal           the provision as journal lines: ``segment, entry, account, debit, credit``
+    loans             per loan: status, prior and current class, every line's amount
+    assumptions_isolated  whether a rerun at prior assumptions separated that line
+    notes             things a reviewer should know (charge-offs of loans in neither run)
+    """
+
+    framework: Framework
+    allowance: pd.DataFrame
+    gross: pd.DataFrame
+    allowance_detail: pd.DataFrame
+    gross_detail: pd.DataFrame
+    rollforward: pd.DataFrame
+    journal: pd.DataFrame
+    loans: pd.DataFrame
+    assumptions_isolated: bool
+    notes: tuple[str, ...] = ()
+
+    @property
+    def net_provision(self) -> float:
+        """The period's provision charge (negative: a release), all segments."""
+        return float(self.rollforward.loc[self.rollforward["segment"] == "Total", "provision"].iloc[0])
+
+    def to_long(self) -> pd.DataFrame:
+        """Every table in one long frame (``movement.csv``): framework, table, segment, class, line."""
+        parts = []
+        for table, detail in (("allowance", self.allowance_detail), ("gross_carrying_amount", self.gross_detail)):
+            parts.append(detail.assign(table=table))
+        roll = self.rollforward.melt(id_vars="segment", var_name="line", value_name="amount")
+        roll = roll.assign(table="rollforward", **{"class": ""}, label=roll["line"].str.replace("_", " ").str.capitalize())
+        parts.append(roll)
+        out = pd.concat(parts, ignore_index=True)
+        out.insert(0, "framework", self.framework)
+        return out[["framework", "table", "segment", "class", "line", "label", "amount"]]
+
+
+
+def movement(
+    prior: pd.DataFrame,
+    current: pd.DataFrame,
+    current_at_prior_assumptions: pd.DataFrame | None,
+    charge_offs: pd.DataFrame | None,
+    framework: Framework,
+    *,
+    sources: Mapping[str, str] | None = None,
+) -> Movement:
+    """The allowance movement of one framework, prior run to current run, loan by loan.
+
+    Parameters
+    ----------
+    prior, current : DataFrame
+        Loan results of the two runs (``loans.csv``): ``loan_id, segment, balance,
+        ecl_<framework>`` and, where present, ``ecl_<framework>_modelled``, ``stage``
+        (required for IFRS 9) and ``poci``.
+    current_at_prior_assumptions : DataFrame or None
+        The current tape rerun with the prior run's assumptions (``loan_id`` and
+        ``ecl_<framework>_modelled``). None puts all of the change into remeasurement.
+    charge_offs : DataFrame or None
+        The period's charge-offs: ``loan_id, gross_charge_off`` and optionally
+        ``recoveries`` and ``segment`` (several rows per loan are summed).
+    framework : {"ifrs9", "cecl"}
+        IFRS 9 tables are by stage (POCI its own column); CECL tables by segment.
+    sources : mapping, optional
+        File names for messages, keys ``prior``, ``current``, ``current_at_prior_assumptions``,
+        ``charge_offs``.
+
+    Returns
+    -------
+    Movement
+
+    Raises
+    ------
+    MovementError
+        A loan appears twice, a figure is blank, a column is missing, or (a bug) a table
+        does not foot.
+
+    Notes
+    -----
+    Per loan the lines add to C - P exactly (see the module docstring); tables are sums of
+    those cents, and :func:`check_movement` proves each one foots before it is returned.
+    The roll-forward is ASC 326-20-50-13's: beginning + provision - charge-offs +
+    recoveries = ending, provision the balancing figure.
+
+    References
+    ----------
+    .. [1] IFRS 7 Financial Instruments: Disclosures, paragraphs 35H and 35I.
+    .. [2] FASB ASC 326-20-50-13 (allowance roll-forward by portfolio segment).
+
+    Examples
+    --------
+    >>> prior = pd.DataFrame({"loan_id": ["a", "b"], "segment": "auto", "stage": [1, 1],
+    ...                       "balance": [100.0, 50.0], "ecl_ifrs9": [1.0, 0.5]})
+    >>> current = pd.DataFrame({"loan_id": ["a", "c"], "segment": "auto", "stage": [2, 1],
+    ...                         "balance": [90.0, 70.0], "ecl_ifrs9": [4.0, 0.7]})
+    >>> m = movement(prior, current, None, None, "ifrs9")
+    >>> m.allowance.set_index("line")["total"].to_dict()  # doctest: +NORMALIZE_WHITESPACE
+    {'opening': 1.5, 'new': 0.7, 'derecognised': -0.5, 'written_off': 0.0, 'transfer_to_stage_1': 0.0,
+     'transfer_to_stage_2': 0.0, 'transfer_to_stage_3': 0.0, 'remeasurement': 3.0, 'assumptions': 0.0,
+     'overlays': 0.0, 'closing': 4.7}
+    >>> m.allowance.set_index("line").loc["transfer_to_stage_2", ["stage 1", "stage 2"]].tolist()
+    [-1.0, 1.0]
+    """
+    names = {"prior": "prior run", "current": "current run",
+             "current_at_prior_assumptions": "current tape at prior assumptions", "charge_offs": "charge-off file"}
+    names.update(sources or {})
+    if framework not in FRAMEWORKS:
+        raise MovementError(f"unknown framework {framework!r}", hint=f"use one of {', '.join(FRAMEWORKS)}")
+    p = prepare_run(prior, framework, names["prior"])
+    c = prepare_run(current, framework, names["current"])
+    a = (
+        None if current_at_prior_assumptions is None
+        else prepare_run(current_at_prior_assumptions, framework, names["current_at_prior_assumptions"], modelled_only=True)
+    )
+    co = prepare_charge_offs(charge_offs, names["charge_offs"])
+    loans = bridge(p, c, a, co, names)
+
+    # the class dimension of the detail is IFRS 9's stage / POCI, or CECL's PCD flag
+    detail_dims = ("segment", "class")
+    classes = sorted(set(p["klass"]) | set(c["klass"]))
+    if framework == "ifrs9":
+        classes = [k for k in ("stage 1", "stage 2", "stage 3", "POCI") if k in classes or k != "POCI"]
+        main_dim, main_cols = "class", classes
+    else:
+        main_dim = "segment"
+        main_cols = sorted(set(p["segment"]) | set(c["segment"]), key=str)
+    labels = {f"transfer_to_{_slug(k)}": k for k in classes}
+
+    main_lines = _transfer_lines(loans, (main_dim,), "class" if framework == "ifrs9" else None)
+    detail_lines = _transfer_lines(loans, detail_dims, "class")
+    main_transfers = classes if framework == "ifrs9" else []
+    tables = {}
+    for kind, body, prefix in (("allowance", _ALLOWANCE_BODY, ""), ("gross", _GROSS_BODY, "g_")):
+        order = _line_order(main_transfers, body, framework == "cecl")
+        wide = _wide(_ledger(loans, (main_dim,), body, prefix, main_lines), main_dim, main_cols, order, labels)
+        check_movement(wide, what=f"{framework} {kind} movement")
+        detail_order = _line_order(classes, body, True)
+        detail = _long(_ledger(loans, detail_dims, body, prefix, detail_lines), detail_order, labels, classes)
+        _check_long(detail, detail_order, f"{framework} {kind} movement by segment and class")
+        tables[kind] = (wide, detail)
+
+    opening_total, closing_total = int(p["ecl"].sum()), int(c["ecl"].sum())
+    allowance = tables["allowance"][0].set_index("line")["total"]
+    if round(allowance["opening"] * 100) != opening_total or round(allowance["closing"] * 100) != closing_total:
+        raise MovementError(f"{framework} movement: opening or closing differs from the runs' totals")
+    roll = rollforward(loans)
+    notes = []
+    outside = loans[~loans["in_prior"] & ~loans["in_current"]]
+    if len(outside):
+        where = ", ".join(sorted({str(s) for s in outside["segment_any"]}))
+        notes.append(
+            f"{len(outside)} row(s) of the charge-off file (charge-offs {int(outside['gross_charge_off'].sum()) / 100:,.2f}, "
+            f"recoveries {int(outside['recoveries'].sum()) / 100:,.2f}) are for loans in neither run (written off "
+            f"before the prior run, or opened and closed within the period); the roll-forward shows them under {where}"
+        )
+    return Movement(
+        framework=framework,
+        allowance=tables["allowance"][0],
+        gross=tables["gross"][0],
+        allowance_detail=tables["allowance"][1],
+        gross_detail=tables["gross"][1],
+        rollforward=roll,
+        journal=journal(roll, framework),
+        loans=_loan_table(loans),
+        assumptions_isolated=a is not None,
+        notes=tuple(notes),
+    )
+
+
+def _loan_table(rows: pd.DataFrame) -> pd.DataFrame:
+    money = ["opening", "new", "derecognised", "written_off", "transfer", "remeasurement", "assumptions",
+             "overlays", "closing", "g_opening", "g_closing", "gross_charge_off", "recoveries"]
+    out = rows[["loan_id", "status", "segment_prior", "segment", "class_prior", "class"]].copy()
+    for name in money:
+        out[name.replace("g_opening", "balance_prior").replace("g_closing", "balance")] = rows[name] / 100.0
+    return out
+
+
+def compare_runs(
+    prior_loans: pd.DataFrame,
+    current_loans: pd.DataFrame,
+    *,
+    charge_offs: pd.DataFrame | None = None,
+    current_at_prior_assumptions: pd.DataFrame | None = None,
+    frameworks: list[Framework] | None = None,
+    sources: Mapping[str, str] | None = None,
+) -> dict[Framework, Movement]:
+    """The movement of every framework both runs carry (``allowance compare PRIOR CURRENT``).
+
+    ``frameworks`` defaults to those with an ``ecl_<framework>`` column in both runs; a
+    framework asked for but absent from a run is a :class:`MovementError`.
+
+    Examples
+    --------
+    >>> prior = pd.DataFrame({"loan_id": ["a"], "segment": "card", "balance": [10.0], "ecl_cecl": [1.0]})
+    >>> current = prior.assign(ecl_cecl=[1.25])
+    >>> compare_runs(prior, current)["cecl"].rollforward.iloc[-1].to_dict()
+    {'segment': 'Total', 'beginning': 1.0, 'provision': 0.25, 'charge_offs': 0.0, 'recoveries': 0.0, 'ending': 1.25}
+    """
+    if frameworks is None:
+        frameworks = [f for f in FRAMEWORKS if f"ecl_{f}" in prior_loans.columns and f"ecl_{f}" in current_loans.columns]
+        if not frameworks:
+            raise MovementError("the two runs share no framework (no ecl_ifrs9 or ecl_cecl column in both)",
+                                hint="compare two runs of the same frameworks")
+    return {
+        f: movement(prior_loans, current_loans, current_at_prior_assumptions, charge_offs, f, sources=sources)
+        for f in frameworks
+    }

@@ -1,0 +1,229 @@
+"""Reading the two runs for the movement: validated columns in cents, and the loan-by-loan bridge.
+
+Implements
+----------
+MovementError   the two runs cannot be reconciled, or a table does not foot
+prepare_run     the columns a movement needs, in whole cents, keyed by the neutralised loan id
+prepare_charge_offs
+bridge          one row per loan in either run: every line's amount in cents
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from allowance.exceptions import AllowanceError
+from allowance.report.text import neutralise_text
+from allowance.schemas import Framework
+
+__all__ = ["UNASSIGNED_SEGMENT", "MovementError", "bridge", "prepare_charge_offs", "prepare_run"]
+
+
+class MovementError(AllowanceError):
+    """Two runs cannot be reconciled, or a movement table does not foot."""
+
+
+MovementError.__module__ = "allowance.reconcile"  # its public home
+
+#: the roll-forward segment of charge-offs for loans in neither run, when the file gives none
+UNASSIGNED_SEGMENT = "(in neither run)"
+
+
+def _show(value: object) -> str:
+    """A cell value as a message shows it: text quoted, numbers plain, blanks as 'blank'."""
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return "blank"
+    return repr(value) if isinstance(value, str) else str(value)
+
+
+def _cents(values: pd.Series, *, column: str, source: str, ids: pd.Series) -> np.ndarray:
+    """Money in currency units -> whole cents; a blank or non-number is a named error."""
+    numbers = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    bad = ~np.isfinite(numbers)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise MovementError(
+            f"loan {ids.iloc[i]!r}: {column} is blank or not a number ({_show(values.iloc[i])})",
+            file=source, column=column, hint="rerun that run so every loan carries its figures",
+        )
+    return np.rint(numbers * 100.0).astype(np.int64)
+
+
+def _flags(values: pd.Series) -> np.ndarray:
+    if pd.api.types.is_bool_dtype(values.dtype):
+        return values.to_numpy(dtype=bool)
+    text = values.astype(str).str.strip().str.lower()
+    return text.isin(["true", "1", "1.0", "y", "yes"]).to_numpy()
+
+
+def _class_labels(stage: np.ndarray, poci: np.ndarray, framework: Framework) -> np.ndarray:
+    if framework == "ifrs9":
+        labels = np.char.add("stage ", stage.astype(str)).astype(object)
+        return np.where(poci, "POCI", labels).astype(object)
+    return np.where(poci, "PCD", "non-PCD").astype(object)
+
+
+def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, modelled_only: bool = False) -> pd.DataFrame:
+    """The columns the movement needs, in cents, keyed by the neutralised loan id."""
+    final = f"ecl_{framework}"
+    modelled = f"ecl_{framework}_modelled"
+    need = ["loan_id", modelled if modelled_only else final]
+    if not modelled_only:
+        need += ["segment", "balance"] + (["stage"] if framework == "ifrs9" else [])
+    missing = [c for c in need if c not in frame.columns]
+    if modelled_only and missing == [modelled] and final in frame.columns:
+        missing, modelled = [], final
+    if missing:
+        raise MovementError(
+            f"the loans lack column(s) {', '.join(missing)} needed for the {framework} movement",
+            file=source, column=missing[0], hint=f"use a run that included {framework}",
+        )
+    ids = frame["loan_id"].astype(str)
+    out = pd.DataFrame({"key": neutralise_text(ids).to_numpy(dtype=object), "loan_id": ids.to_numpy(dtype=object)})
+    dupes = out["key"][out["key"].duplicated()]
+    if len(dupes):
+        raise MovementError(
+            f"loan {dupes.iloc[0]!r} appears more than once", file=source, column="loan_id",
+            hint="each loan must appear once in a run",
+        )
+    if modelled_only:
+        out["mod"] = _cents(frame[modelled], column=modelled, source=source, ids=ids)
+        return out.set_index("key")
+    out["segment"] = frame["segment"].astype(str).to_numpy(dtype=object)
+    out["ecl"] = _cents(frame[final], column=final, source=source, ids=ids)
+    out["mod"] = (
+        _cents(frame[modelled], column=modelled, source=source, ids=ids) if modelled in frame.columns else out["ecl"]
+    )
+    out["bal"] = _cents(frame["balance"], column="balance", source=source, ids=ids)
+    poci = _flags(frame["poci"]) if "poci" in frame.columns else np.zeros(len(frame), dtype=bool)
+    if framework == "ifrs9":
+        stage = pd.to_numeric(frame["stage"], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+        bad = ~np.isin(stage, (1.0, 2.0, 3.0))
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise MovementError(
+                f"loan {ids.iloc[i]!r}: stage {_show(frame['stage'].iloc[i])} is not 1, 2 or 3",
+                file=source, column="stage", hint="use the loans.csv the run wrote",
+            )
+        out["klass"] = _class_labels(stage.astype(np.int64), poci, framework)
+    else:
+        out["klass"] = _class_labels(np.ones(len(frame), dtype=np.int64), poci, framework)
+    return out.set_index("key")
+
+
+def prepare_charge_offs(frame: pd.DataFrame | None, source: str) -> pd.DataFrame:
+    """Charge-offs of the period, summed per loan: ``gco`` and ``rec`` in cents (+ ``segment``)."""
+    cols = ["gco", "rec", "segment"]
+    if frame is None or len(frame) == 0:
+        return pd.DataFrame(columns=cols, index=pd.Index([], name="key"))
+    missing = [c for c in ("loan_id", "gross_charge_off") if c not in frame.columns]
+    if missing:
+        raise MovementError(
+            f"the charge-off file lacks column {missing[0]}", file=source, column=missing[0],
+            hint="give loan_id, gross_charge_off and (optionally) recoveries and segment",
+        )
+    ids = frame["loan_id"].astype(str)
+    gco = _cents(frame["gross_charge_off"], column="gross_charge_off", source=source, ids=ids)
+    if "recoveries" in frame.columns:
+        raw = frame["recoveries"].astype(object)
+        blank = raw.isna().to_numpy() | (raw.astype(str).str.strip() == "").to_numpy()
+        raw = raw.where(~blank, 0.0)
+    rec = (
+        _cents(raw, column="recoveries", source=source, ids=ids)
+        if "recoveries" in frame.columns
+        else np.zeros(len(frame), dtype=np.int64)
+    )
+    for name, values in (("gross_charge_off", gco), ("recoveries", rec)):
+        if (values < 0).any():
+            i = int(np.flatnonzero(values < 0)[0])
+            raise MovementError(
+                f"loan {ids.iloc[i]!r}: {name} is negative", file=source, column=name,
+                hint="give charge-offs and recoveries as positive amounts",
+            )
+    segment = frame["segment"].astype(str) if "segment" in frame.columns else pd.Series(pd.NA, index=frame.index)
+    parts = pd.DataFrame({"key": neutralise_text(ids).to_numpy(dtype=object), "gco": gco, "rec": rec,
+                          "segment": segment.to_numpy(dtype=object)})
+    return parts.groupby("key", sort=False).agg(gco=("gco", "sum"), rec=("rec", "sum"), segment=("segment", "first"))
+
+
+# --------------------------------------------------------------------------------------
+# The loan-by-loan bridge
+# --------------------------------------------------------------------------------------
+
+
+def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.DataFrame, sources: dict) -> pd.DataFrame:
+    """One row per loan in either run (or charged off): every line's amount in cents."""
+    keys = p.index.union(c.index, sort=False).union(co.index, sort=False)
+    pr, cu, ch = p.reindex(keys), c.reindex(keys), co.reindex(keys)
+    in_p, in_c, in_co = keys.isin(p.index), keys.isin(c.index), keys.isin(co.index)
+
+    def ints(frame: pd.DataFrame, col: str) -> np.ndarray:
+        return frame[col].fillna(0).to_numpy(dtype=np.int64)
+
+    P, Pm, Bp = ints(pr, "ecl"), ints(pr, "mod"), ints(pr, "bal")
+    C, Cm, Bc = ints(cu, "ecl"), ints(cu, "mod"), ints(cu, "bal")
+    gco, rec = ints(ch, "gco"), ints(ch, "rec")
+    if a is not None:
+        lacking = c.index.difference(a.index)
+        if len(lacking):
+            raise MovementError(
+                f"loan {c.loc[lacking[0], 'loan_id']!r} of the current run is missing from the rerun at prior "
+                "assumptions", file=sources["current_at_prior_assumptions"],
+                hint="rerun the whole current tape with the prior run's assumptions",
+            )
+        A = a["mod"].reindex(keys).fillna(0).to_numpy(dtype=np.int64)
+    else:
+        A = Cm
+
+    cont, new = in_p & in_c, in_c & ~in_p
+    gone = in_p & ~in_c
+    written, derec = gone & in_co, gone & ~in_co
+    w = np.where(cont, np.minimum(P, gco), np.where(written, P, 0))
+    wg = np.where(in_p & in_co, np.minimum(Bp, gco), 0)
+
+    seg_p = pr["segment"].to_numpy(dtype=object)
+    seg_c = cu["segment"].to_numpy(dtype=object)
+    seg_any = np.where(in_p, seg_p, np.where(in_c, seg_c, ch["segment"].to_numpy(dtype=object)))
+    # a loan opened and charged off within the period is in neither run: its segment comes
+    # from the charge-off file when it has one, else it is shown apart
+    orphan = ~(in_p | in_c) & pd.isna(pd.Series(seg_any)).to_numpy()
+    seg_any = np.where(orphan, UNASSIGNED_SEGMENT, seg_any)
+    ids = np.where(in_c, cu["loan_id"].to_numpy(dtype=object), pr["loan_id"].to_numpy(dtype=object))
+    ids = np.where(pd.isna(pd.Series(ids)).to_numpy(), keys.to_numpy(dtype=object), ids)
+    status = np.select([cont, new, written, derec], ["continuing", "new", "written off", "derecognised"],
+                       "charged off outside both runs")
+    bridge = pd.DataFrame(
+        {
+            "loan_id": ids,
+            "status": status,
+            "segment_prior": seg_p,
+            "segment": seg_c,
+            "segment_any": seg_any,
+            "class_prior": pr["klass"].to_numpy(dtype=object),
+            "class": cu["klass"].to_numpy(dtype=object),
+            "in_prior": in_p,
+            "in_current": in_c,
+            # allowance, cents
+            "opening": P,
+            "new": np.where(new, A, 0),
+            "derecognised": np.where(derec, -P, 0),
+            "written_off": -w,
+            "transfer": np.where(cont, P - w, 0),
+            "remeasurement": np.where(cont, A - Pm + w, 0),
+            "assumptions": np.where(in_c, Cm - A, 0),
+            "overlays": np.where(cont, (C - Cm) - (P - Pm), np.where(new, C - Cm, 0)),
+            "closing": C,
+            # gross carrying amount, cents
+            "g_opening": Bp,
+            "g_new": np.where(new, Bc, 0),
+            "g_derecognised": np.where(gone, -(Bp - wg), 0),
+            "g_written_off": -wg,
+            "g_transfer": np.where(cont, Bp - wg, 0),
+            "g_other_changes": np.where(cont, Bc - (Bp - wg), 0),
+            "g_closing": Bc,
+            "gross_charge_off": gco,
+            "recoveries": rec,
+        }
+    )
+    return bridge

@@ -1,0 +1,218 @@
+"""Movement tables from the loan-by-loan bridge: ledgers, wide and long tables, the footing check,
+the roll-forward and the journal.
+
+Implements
+----------
+MOVEMENT_LINES   line codes and their labels
+check_movement   opening + movements = closing in every column, or a named error
+rollforward      beginning + provision + charge-offs + recoveries = ending, by segment
+journal          the provision (or release) as debit and credit lines
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+import pandas as pd
+
+from allowance.reconcile.runs import MovementError
+from allowance.schemas import Framework
+
+__all__ = ["MOVEMENT_LINES", "check_movement"]
+
+#: line code -> label, in the order the tables show them (transfer lines are added per class)
+MOVEMENT_LINES: dict[str, str] = {
+    "opening": "Opening",
+    "new": "New loans",
+    "derecognised": "Derecognised (repaid or sold)",
+    "written_off": "Written off",
+    "change_of_segment": "Moved between segments",
+    "remeasurement": "Remeasurement at prior assumptions",
+    "assumptions": "Changes in assumptions or scenarios",
+    "overlays": "Overlay changes",
+    "other_changes": "Other changes (repayments, amortisation, drawings)",
+    "closing": "Closing",
+}
+_ALLOWANCE_BODY = ("remeasurement", "assumptions", "overlays")
+_GROSS_BODY = ("other_changes",)
+_ROLLFORWARD = ("beginning", "provision", "charge_offs", "recoveries", "ending")
+_JOURNAL_ACCOUNTS: dict[Framework, tuple[str, str]] = {
+    "ifrs9": ("Impairment losses on loans (profit or loss)", "Loss allowance (balance sheet)"),
+    "cecl": ("Provision for credit losses (income statement)", "Allowance for credit losses (balance sheet)"),
+}
+
+
+
+def _slug(label: str) -> str:
+    return label.lower().replace(" ", "_").replace("-", "_")
+
+
+def _ledger(bridge: pd.DataFrame, dims: tuple[str, ...], body: tuple[str, ...], prefix: str,
+            transfer_line: np.ndarray) -> pd.DataFrame:
+    """Long entries ``dims..., line, cents``: each amount in the cell its loan sits in.
+
+    Opening, write-offs, derecognition and the transfer out sit in the prior cell; the rest
+    in the current cell.
+    """
+    parts = []
+
+    def add(mask: np.ndarray, side: str, line: str | np.ndarray, values: np.ndarray) -> None:
+        cells = {d: bridge[d + ("_prior" if side == "prior" else "")].to_numpy(dtype=object)[mask] for d in dims}
+        lines = line[mask] if isinstance(line, np.ndarray) else np.full(int(mask.sum()), line, dtype=object)
+        parts.append(pd.DataFrame({**cells, "line": lines, "cents": values[mask]}))
+
+    in_p, in_c = bridge["in_prior"].to_numpy(), bridge["in_current"].to_numpy()
+    col = lambda name: bridge[prefix + name].to_numpy(dtype=np.int64)  # noqa: E731
+    add(in_p, "prior", "opening", col("opening"))
+    add(in_c & ~in_p, "current", "new", col("new"))
+    add(in_p & ~in_c, "prior", "derecognised", col("derecognised"))
+    add(in_p, "prior", "written_off", col("written_off"))
+    moved = transfer_line != ""
+    add(moved, "prior", transfer_line, -col("transfer"))
+    add(moved, "current", transfer_line, col("transfer"))
+    for line in body:
+        add(in_c, "current", line, col(line))
+    add(in_c, "current", "closing", col("closing"))
+    return pd.concat(parts, ignore_index=True)
+
+
+def _transfer_lines(bridge: pd.DataFrame, dims: tuple[str, ...], class_dim: str | None) -> np.ndarray:
+    """Per loan, the transfer line it moves on ('' when it stays in its cell)."""
+    cont = (bridge["in_prior"] & bridge["in_current"]).to_numpy()
+    line = np.full(len(bridge), "", dtype=object)
+    if class_dim is not None and class_dim in dims:
+        changed = cont & (bridge[class_dim + "_prior"].to_numpy(dtype=object) != bridge[class_dim].to_numpy(dtype=object))
+        dest = np.array(["" if pd.isna(k) else "transfer_to_" + _slug(str(k)) for k in bridge[class_dim]], dtype=object)
+        line = np.where(changed, dest, line)
+    if "segment" in dims:
+        seg_changed = cont & (bridge["segment_prior"].to_numpy(dtype=object) != bridge["segment"].to_numpy(dtype=object))
+        line = np.where(seg_changed & (line == ""), "change_of_segment", line)
+    return line
+
+
+def _label(line: str, classes: Mapping[str, str]) -> str:
+    if line.startswith("transfer_to_"):
+        return f"Transfer to {classes.get(line, line[len('transfer_to_'):])}"
+    return MOVEMENT_LINES[line]
+
+
+def _line_order(classes: list[str], body: tuple[str, ...], segment_moves: bool) -> list[str]:
+    transfers = [f"transfer_to_{_slug(c)}" for c in classes]
+    moves = ["change_of_segment"] if segment_moves else []
+    return ["opening", "new", "derecognised", "written_off", *transfers, *moves, *body, "closing"]
+
+
+def check_movement(table: pd.DataFrame, *, what: str = "movement") -> None:
+    """Raise :class:`MovementError` unless every column foots and every transfer line nets to zero.
+
+    ``table`` is a wide movement table (``line`` column, one column per class, ``total``) in
+    currency units or cents; amounts are compared in whole cents, so a one-cent break fails.
+
+    Examples
+    --------
+    >>> t = pd.DataFrame({"line": ["opening", "new", "closing"], "stage 1": [10.0, 2.5, 12.5],
+    ...                   "total": [10.0, 2.5, 12.5]})
+    >>> check_movement(t)
+    >>> check_movement(t.assign(**{"stage 1": [10.0, 2.5, 12.51]}))
+    Traceback (most recent call last):
+    ...
+    allowance.reconcile.MovementError: movement: column stage 1: opening + movements = 12.50 but closing = 12.51 (a break of 0.01)
+    """
+    value_cols = [c for c in table.columns if c not in ("line", "label")]
+    cents = np.rint(table[value_cols].to_numpy(dtype=np.float64) * 100.0).astype(np.int64)
+    lines = table["line"].tolist()
+    if "opening" not in lines or "closing" not in lines:
+        raise MovementError(f"{what}: the table has no opening or closing line")
+    close = lines.index("closing")
+    body = [i for i, line in enumerate(lines) if line != "closing"]
+    for j, name in enumerate(value_cols):
+        total, closing = int(cents[body, j].sum()), int(cents[close, j])
+        if total != closing:
+            raise MovementError(
+                f"{what}: column {name}: opening + movements = {total / 100:.2f} but closing = "
+                f"{closing / 100:.2f} (a break of {(closing - total) / 100:.2f})"
+            )
+    inner = [j for j, name in enumerate(value_cols) if name != "total"]
+    for i, line in enumerate(lines):
+        if (line.startswith("transfer_to_") or line == "change_of_segment") and cents[i, inner].sum() != 0:
+            raise MovementError(f"{what}: line {line} does not net to zero across the columns "
+                                f"({cents[i, inner].sum() / 100:.2f})")
+    if "total" in value_cols and inner:
+        t = value_cols.index("total")
+        off = np.flatnonzero(cents[:, inner].sum(axis=1) != cents[:, t])
+        if len(off):
+            raise MovementError(f"{what}: line {lines[off[0]]}: the columns do not add to the total")
+
+
+def _wide(ledger: pd.DataFrame, dim: str, columns: list[str], order: list[str], labels: Mapping[str, str]) -> pd.DataFrame:
+    sums = ledger.groupby([dim, "line"], sort=False)["cents"].sum()
+    grid = sums.unstack(dim).reindex(index=order, columns=columns).fillna(0).astype(np.int64)
+    grid["total"] = grid.sum(axis=1)
+    out = (grid / 100.0).reset_index().rename(columns={"index": "line"})
+    out.columns.name = None
+    out.insert(1, "label", [_label(line, labels) for line in out["line"]])
+    return out
+
+
+def _long(ledger: pd.DataFrame, order: list[str], labels: Mapping[str, str], classes: list[str]) -> pd.DataFrame:
+    sums = ledger.groupby(["segment", "class", "line"], sort=True)["cents"].sum().reset_index()
+    rank = {line: i for i, line in enumerate(order)}
+    class_rank = {k: i for i, k in enumerate(classes)}
+    sums = sums.assign(_rank=sums["line"].map(rank), _class=sums["class"].map(class_rank))
+    sums = sums.sort_values(["segment", "_class", "_rank"], kind="stable")
+    out = sums.drop(columns=["_rank", "_class"]).reset_index(drop=True)
+    out["label"] = [_label(line, labels) for line in out["line"]]
+    out["amount"] = out.pop("cents") / 100.0
+    return out[["segment", "class", "line", "label", "amount"]]
+
+
+def _check_long(detail: pd.DataFrame, order: list[str], what: str) -> None:
+    """Pivot the long detail to one column per segment x class and check it as a whole."""
+    cell = detail["segment"].astype(str) + " / " + detail["class"].astype(str)
+    wide = detail.assign(cell=cell).pivot_table(index="line", columns="cell", values="amount", aggfunc="sum")
+    wide = wide.reindex(order).fillna(0.0).reset_index()
+    wide.columns.name = None
+    check_movement(wide, what=what)
+
+
+# --------------------------------------------------------------------------------------
+# Roll-forward and journal
+# --------------------------------------------------------------------------------------
+
+
+def rollforward(bridge: pd.DataFrame) -> pd.DataFrame:
+    """Per segment: beginning + provision + charge-offs + recoveries = ending (ASC 326-20-50-13)."""
+    def by(seg_col: str, mask: np.ndarray, values: str) -> pd.Series:
+        return pd.Series(bridge[values].to_numpy()[mask], index=bridge[seg_col].to_numpy(dtype=object)[mask]).groupby(level=0).sum()
+
+    begin = by("segment_prior", bridge["in_prior"].to_numpy(), "opening")
+    end = by("segment", bridge["in_current"].to_numpy(), "closing")
+    everyone = np.ones(len(bridge), dtype=bool)
+    chg = -by("segment_any", everyone, "gross_charge_off")
+    rec = by("segment_any", everyone, "recoveries")
+    segments = sorted(set(begin.index) | set(end.index) | set(chg.index), key=str)
+    roll = pd.DataFrame({"beginning": begin, "charge_offs": chg, "recoveries": rec, "ending": end}).reindex(segments)
+    roll = roll.fillna(0).astype(np.int64)
+    roll["provision"] = roll["ending"] - roll["beginning"] - roll["charge_offs"] - roll["recoveries"]
+    roll.loc["Total"] = roll.sum(axis=0)
+    out = (roll[list(_ROLLFORWARD)] / 100.0).rename_axis("segment").reset_index()
+    return out
+
+
+def journal(roll: pd.DataFrame, framework: Framework) -> pd.DataFrame:
+    """Debit expense / credit allowance for a provision; the reverse for a release."""
+    expense, allowance = _JOURNAL_ACCOUNTS[framework]
+    rows = []
+    for segment, provision in zip(roll["segment"], roll["provision"]):
+        if segment == "Total" or round(provision, 2) == 0:
+            continue
+        amount = abs(provision)
+        entry = "provision" if provision > 0 else "release"
+        debit, credit = (expense, allowance) if provision > 0 else (allowance, expense)
+        rows.append({"segment": segment, "entry": entry, "account": debit, "debit": amount, "credit": 0.0})
+        rows.append({"segment": segment, "entry": entry, "account": credit, "debit": 0.0, "credit": amount})
+    journal = pd.DataFrame(rows, columns=["segment", "entry", "account", "debit", "credit"])
+    cents = np.rint(journal[["debit", "credit"]].to_numpy(dtype=np.float64) * 100).astype(np.int64).sum(axis=0)
+    total = {"segment": "Total", "entry": "", "account": "", "debit": cents[0] / 100, "credit": cents[1] / 100}
+    return pd.concat([journal, pd.DataFrame([total])], ignore_index=True)

@@ -1,0 +1,245 @@
+"""What a run hands to the report writers, and the run record (``run.json``).
+
+Implements
+----------
+CAUTION         the caution printed in the workbook and quoted in the README
+RunReport       everything the outputs are written from (frozen)
+run_record      the run record: version, inputs and their hashes, counts, totals, assumptions
+scenario_table  each scenario's allowance at 100 % weight, and the weighted result
+money_total     the sum of rounded loan figures, in whole cents, as a number of currency units
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import getpass
+import os
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+import allowance
+from allowance.intake import IntakeResult, TieOut
+from allowance.schemas import Framework, InputFile, RunConfig
+
+if TYPE_CHECKING:
+    from allowance.reconcile import Movement, WhatIf
+
+__all__ = ["CAUTION", "RunReport", "money_total", "run_record", "scenario_table"]
+
+#: The caution shown on the workbook's summary sheet (the README quotes it word for word).
+CAUTION = (
+    "These figures are only as good as the assumptions fed into them: every PD, LGD, "
+    "prepayment rate, scenario, weight and overlay came from the assumptions file of this "
+    "run. Before any figure is booked or disclosed, the assumptions and the results must be "
+    "reviewed and approved under the entity's own governance and model-risk policy. Where "
+    "this output and the applicable accounting standard (ASC 326 or IFRS 9), the entity's "
+    "auditors or its regulators differ, they prevail over this tool."
+)
+
+
+def money_total(values: Iterable[float] | pd.Series | np.ndarray) -> float:
+    """Sum money already rounded to cents, exactly: through whole cents, back to units.
+
+    Examples
+    --------
+    >>> money_total([0.1, 0.2, 0.3]), sum([0.1, 0.2, 0.3])
+    (0.6, 0.6000000000000001)
+    """
+    array = np.asarray(pd.to_numeric(pd.Series(values), errors="raise"), dtype=np.float64)
+    if array.size == 0:
+        return 0.0
+    return int(np.rint(array * 100.0).astype(np.int64).sum()) / 100.0
+
+
+@dataclass(frozen=True)
+class RunReport:
+    """Everything a run's outputs are written from. Built by the engine; never changed.
+
+    ``movement`` takes one :class:`~allowance.reconcile.Movement`, a sequence of them or a
+    framework -> Movement mapping; :attr:`movements` always gives a tuple.
+    ``what_if`` is a :class:`~allowance.reconcile.WhatIf` (or None). Frames documented as
+    "may be empty" may also be passed empty with no columns.
+    """
+
+    config: RunConfig
+    intake: IntakeResult
+    tie_out: TieOut | None
+    loans: pd.DataFrame
+    overlays: pd.DataFrame = field(default_factory=pd.DataFrame)
+    scenarios: pd.DataFrame = field(default_factory=pd.DataFrame)
+    term_structures: pd.DataFrame = field(default_factory=pd.DataFrame)
+    roll_rates: pd.DataFrame = field(default_factory=pd.DataFrame)
+    reversion: pd.DataFrame = field(default_factory=pd.DataFrame)
+    schedules: pd.DataFrame = field(default_factory=pd.DataFrame)
+    movement: "Movement | tuple[Movement, ...] | Mapping[Framework, Movement] | None" = None
+    what_if: "WhatIf | pd.DataFrame | None" = None
+    record: dict = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def movements(self) -> "tuple[Movement, ...]":
+        """The movement of each framework, in the order given."""
+        m = self.movement
+        if m is None:
+            return ()
+        if isinstance(m, Mapping):
+            return tuple(m.values())
+        if isinstance(m, (list, tuple)):
+            return tuple(m)
+        return (m,)
+
+    @property
+    def frameworks(self) -> list[Framework]:
+        return self.config.frameworks
+
+    @property
+    def what_if_parts(self) -> "WhatIf | None":
+        """The what-if comparison; a bare summary frame is taken as one with no stage changes."""
+        if self.what_if is None or not isinstance(self.what_if, pd.DataFrame):
+            return self.what_if
+        from allowance.reconcile import WhatIf
+
+        return WhatIf(summary=self.what_if, stage_changes=pd.DataFrame())
+
+
+def scenario_table(loans: pd.DataFrame, config: RunConfig) -> pd.DataFrame:
+    """Each scenario's modelled allowance at 100 % weight, per framework, then the weighted result.
+
+    Columns ``framework, scenario, weight, ecl``; the weighted row has scenario
+    ``"weighted"``, weight 1 and the modelled allowance (the sum of rounded loan figures,
+    which can differ by a few cents from the weighted sum of scenario totals). A scenario
+    without its loan column shows NaN, which the workbook shows blank.
+    """
+    rows = []
+    for f in config.frameworks:
+        for name, scenario in config.assumptions.scenarios.items():
+            col = f"ecl_{f}_{name}"
+            rows.append({"framework": f, "scenario": name, "weight": scenario.weight,
+                         "ecl": money_total(loans[col]) if col in loans.columns else float("nan")})
+        modelled = f"ecl_{f}_modelled"
+        if modelled in loans.columns:
+            rows.append({"framework": f, "scenario": "weighted", "weight": 1.0, "ecl": money_total(loans[modelled])})
+    return pd.DataFrame(rows, columns=["framework", "scenario", "weight", "ecl"])
+
+
+def _user() -> str:
+    user = os.environ.get("ALLOWANCE_USER")
+    if user:
+        return user
+    try:
+        return getpass.getuser()
+    except (OSError, KeyError):  # no login name (containers, services)
+        return "unknown"
+
+
+def _jsonable(value: Any) -> Any:
+    """Numbers, dates and containers into what ``json`` writes; NaN becomes None."""
+    if isinstance(value, Mapping):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, set)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, (np.bool_, bool)):
+        return bool(value)
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return None if not np.isfinite(value) else float(value)
+    if hasattr(value, "isoformat"):
+        return value.isoformat()
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return _jsonable(dataclasses.asdict(value))
+    return value
+
+
+def run_record(
+    config: RunConfig,
+    intake: IntakeResult,
+    loans: pd.DataFrame,
+    *,
+    tie_out: TieOut | None = None,
+    warnings: Iterable[str] = (),
+    movements: "Iterable[Movement]" = (),
+    started: datetime | None = None,
+    extra: Mapping[str, Any] | None = None,
+) -> dict:
+    """The run record written to ``run.json``: enough to identify, repeat and tie out the run.
+
+    Parameters
+    ----------
+    config : RunConfig
+        The merged assumptions and the input files (role, path, SHA-256, bytes).
+    intake : IntakeResult
+        Rows read / accepted / rejected and the tape file.
+    loans : DataFrame
+        The loan results; totals are sums of its rounded loan figures.
+    tie_out : TieOut, optional
+        The ledger tie-out, recorded figure by figure.
+    warnings : iterable of str
+        Run-level warnings (counted; the lines go to ``warnings.csv``).
+    movements : iterable of Movement
+        When a prior run was given: each framework's opening, closing and provision.
+    started : datetime, optional
+        When the run started (UTC); the record's ``timestamp`` is now.
+    extra : mapping, optional
+        Further keys (``"what_if": {...}``, timings), merged in last.
+
+    Returns
+    -------
+    dict
+        JSON-ready: numbers, strings, lists and dicts only. ``assumptions`` is
+        ``config.assumptions.model_dump(mode="json")``, so a later run can rerun this one.
+    """
+    inputs: list[InputFile] = list(config.inputs)
+    if not any(i.role == "tape" and i.path == intake.file.path for i in inputs):
+        inputs.insert(0, intake.file)
+    totals: dict[str, dict[str, float]] = {}
+    for f in config.frameworks:
+        entry = {}
+        for key, col in (("allowance", f"ecl_{f}"), ("modelled", f"ecl_{f}_modelled"), ("overlays", f"overlay_{f}")):
+            if col in loans.columns:
+                entry[key] = money_total(loans[col])
+        if "stage" in loans.columns and f"ecl_{f}" in loans.columns and f == "ifrs9":
+            entry["by_stage"] = {
+                str(int(s)): money_total(g) for s, g in loans.groupby("stage")[f"ecl_{f}"]
+            }
+        if f"ecl_{f}" in loans.columns and "segment" in loans.columns:
+            entry["by_segment"] = {str(s): money_total(g) for s, g in loans.groupby("segment")[f"ecl_{f}"]}
+        totals[f] = entry
+    run = config.assumptions.run
+    record: dict[str, Any] = {
+        "package": "allowance",
+        "version": allowance.__version__,
+        "run_label": run.label,
+        "as_of": run.as_of.isoformat(),
+        "frameworks": list(config.frameworks),
+        "currency": run.currency,
+        "run_by": _user(),
+        "started": started.astimezone(timezone.utc).isoformat() if started else None,
+        "timestamp": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "inputs": [i.model_dump(mode="json") for i in inputs],
+        "rows": {"read": intake.rows_read, "accepted": intake.rows_accepted, "rejected": intake.rows_rejected},
+        "loans": len(loans),
+        "total_balance": money_total(loans["balance"]) if "balance" in loans.columns else None,
+        "total_allowance": {f: t.get("allowance") for f, t in totals.items()},
+        "totals": totals,
+        "warnings": len(list(warnings)) + len(intake.warnings),
+        "tie_out": _jsonable(tie_out) if tie_out is not None else None,
+        "movement": {
+            m.framework: {
+                "opening": float(m.allowance.set_index("line").loc["opening", "total"]),
+                "closing": float(m.allowance.set_index("line").loc["closing", "total"]),
+                "provision": m.net_provision,
+                "assumptions_isolated": m.assumptions_isolated,
+            }
+            for m in movements
+        },
+        "assumptions": config.assumptions.model_dump(mode="json"),
+    }
+    if extra:
+        record.update(_jsonable(dict(extra)))
+    return _jsonable(record)

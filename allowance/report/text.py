@@ -1,0 +1,118 @@
+"""Text safety for the files a spreadsheet opens: neutralise would-be formulas.
+
+Implements
+----------
+neutralise_text    prefix a quote to text that a spreadsheet would read as a formula
+neutralise_frame   the same over every text column (and the header) of a frame
+FORMULA_PREFIXES   the leading characters that trigger it
+"""
+
+from __future__ import annotations
+
+from typing import Any, overload
+
+import numpy as np
+import pandas as pd
+
+__all__ = ["FORMULA_PREFIXES", "neutralise_frame", "neutralise_text"]
+
+#: Leading characters that make a spreadsheet treat a text value as a formula or command.
+FORMULA_PREFIXES: tuple[str, ...] = ("=", "+", "-", "@", "\t", "\r")
+
+
+@overload
+def neutralise_text(values: str) -> str: ...
+@overload
+def neutralise_text(values: pd.Series) -> pd.Series: ...
+@overload
+def neutralise_text(values: pd.Index) -> pd.Index: ...
+
+
+def neutralise_text(values: Any) -> Any:
+    """Prefix ``'`` to every text value that starts with ``= + - @``, a tab or a carriage return.
+
+    Numbers, missing values and all other text pass through unchanged. A value already
+    neutralised starts with ``'`` and is left alone, so the function is idempotent.
+
+    Parameters
+    ----------
+    values : str, pandas.Series, pandas.Index or any other scalar
+        A scalar, or a Series / Index of (possibly mixed) values.
+
+    Returns
+    -------
+    The same kind of object, a new one where anything changed.
+
+    Notes
+    -----
+    A spreadsheet that opens a CSV or XLSX cell beginning with one of these characters may
+    evaluate it (``=HYPERLINK(...)``, ``@SUM(...)``, DDE payloads). Prefixing a single quote
+    makes it plain text; the quote is visible, which is the point: nothing is hidden.
+
+    References
+    ----------
+    .. [1] OWASP, "CSV Injection" (owasp.org/www-community/attacks/CSV_Injection).
+
+    Examples
+    --------
+    >>> neutralise_text('=HYPERLINK("x")')
+    '\\'=HYPERLINK("x")'
+    >>> neutralise_text("L-001"), neutralise_text(-5.0)
+    ('L-001', -5.0)
+    >>> neutralise_text(pd.Series(["@cmd", "ok", None, 3])).tolist()
+    ["'@cmd", 'ok', None, 3]
+    """
+    if isinstance(values, str):
+        return "'" + values if values.startswith(FORMULA_PREFIXES) else values
+    if isinstance(values, pd.Index):
+        return pd.Index(neutralise_text(pd.Series(values, dtype=object)), name=values.name)
+    if isinstance(values, pd.Series):
+        flagged = _flagged(values)
+        if not flagged.any():
+            return values
+        out = values.astype(object) if not _is_text_dtype(values) else values.copy()
+        out[flagged] = "'" + values[flagged].astype(str)
+        return out
+    return values
+
+
+def _is_text_dtype(series: pd.Series) -> bool:
+    return isinstance(series.dtype, pd.StringDtype) or pd.api.types.is_string_dtype(series.dtype)
+
+
+def _flagged(series: pd.Series) -> np.ndarray:
+    """Boolean mask of the text values to neutralise (vectorised over the column)."""
+    if pd.api.types.is_numeric_dtype(series.dtype) or pd.api.types.is_bool_dtype(series.dtype):
+        return np.zeros(len(series), dtype=bool)
+    if pd.api.types.is_datetime64_any_dtype(series.dtype):
+        return np.zeros(len(series), dtype=bool)
+    if isinstance(series.dtype, pd.StringDtype):  # pandas text: every value is a str or missing
+        first = series.str.slice(0, 1)
+        return first.isin(FORMULA_PREFIXES).to_numpy(dtype=bool, na_value=False) & series.notna().to_numpy()
+    is_str = series.map(lambda v: isinstance(v, str), na_action="ignore").fillna(False).astype(bool)
+    if not is_str.any():
+        return np.zeros(len(series), dtype=bool)
+    first = series[is_str].astype(str).str[:1]
+    mask = np.zeros(len(series), dtype=bool)
+    mask[np.flatnonzero(is_str.to_numpy())] = first.isin(FORMULA_PREFIXES).to_numpy()
+    return mask
+
+
+def neutralise_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    """A new frame with every text column and every column name passed through :func:`neutralise_text`.
+
+    Examples
+    --------
+    >>> f = pd.DataFrame({"loan_id": ["=1+1", "A"], "balance": [-1.0, 2.0], "+x": ["a", "b"]})
+    >>> g = neutralise_frame(f)
+    >>> g["loan_id"].tolist(), g["balance"].tolist(), list(g.columns)
+    (["'=1+1", 'A'], [-1.0, 2.0], ['loan_id', 'balance', "'+x"])
+    """
+    result = frame.copy()
+    for position in range(frame.shape[1]):
+        column = frame.iloc[:, position]
+        cleaned = neutralise_text(column)
+        if cleaned is not column:
+            result.isetitem(position, cleaned)
+    result.columns = [neutralise_text(str(c)) if isinstance(c, str) else c for c in frame.columns]
+    return result

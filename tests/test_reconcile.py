@@ -1,0 +1,338 @@
+"""The allowance movement: opening + movements = closing, to the cent, at every line and cell.
+
+The layout of the tables follows IFRS 7 35H-35I (reconciliation of the loss allowance by
+stage, with transfers between stages) and ASC 326-20-50-13 (roll-forward by portfolio
+segment: beginning, provision, charge-offs, recoveries, ending). The worked example is our
+own, computed by hand (common practice, no source). All comparisons are in whole cents
+(integers), so a one-cent break fails.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from allowance.reconcile import MovementError, check_movement, compare_runs, movement, what_if_comparison
+from allowance.report.text import neutralise_text
+from strategies import run_pairs
+
+
+def cents(x) -> np.ndarray:
+    return np.rint(np.asarray(x, dtype=np.float64) * 100).astype(np.int64)
+
+
+# --------------------------------------------------------------------------------------
+# A worked example of our own, computed by hand
+# --------------------------------------------------------------------------------------
+
+
+def _hand_runs():
+    prior = pd.DataFrame({
+        "loan_id": ["a", "b", "c", "d", "e"],
+        "segment": ["auto", "auto", "card", "card", "auto"],
+        "stage": [1, 1, 2, 3, 2],
+        "balance": [1000.0, 2000.0, 500.0, 300.0, 800.0],
+        "ecl_ifrs9_modelled": [10.0, 18.0, 50.0, 150.0, 40.0],
+        "overlay_ifrs9": [0.0, 2.0, 0.0, 0.0, 0.0],
+        "ecl_ifrs9": [10.0, 20.0, 50.0, 150.0, 40.0],
+    })
+    current = pd.DataFrame({
+        "loan_id": ["a", "b", "e", "f"],
+        "segment": ["auto", "auto", "auto", "card"],
+        "stage": [1, 2, 2, 1],
+        "balance": [900.0, 1900.0, 650.0, 700.0],
+        "ecl_ifrs9_modelled": [9.0, 55.0, 30.0, 7.0],
+        "overlay_ifrs9": [0.0, 5.0, 0.0, 0.0],
+        "ecl_ifrs9": [9.0, 60.0, 30.0, 7.0],
+    })
+    for frame in (prior, current):
+        for col in ("ecl_cecl_modelled", "overlay_cecl", "ecl_cecl"):
+            frame[col] = frame[col.replace("cecl", "ifrs9")]
+    rerun = pd.DataFrame({"loan_id": ["a", "b", "e", "f"], "ecl_ifrs9_modelled": [8.5, 50.0, 32.0, 6.0]})
+    rerun["ecl_cecl_modelled"] = rerun["ecl_ifrs9_modelled"]
+    charge_offs = pd.DataFrame({"loan_id": ["d", "e"], "gross_charge_off": [280.0, 100.0], "recoveries": [10.0, None]})
+    return prior, current, rerun, charge_offs
+
+
+def test_hand_example_ifrs9_by_stage():
+    prior, current, rerun, charge_offs = _hand_runs()
+    m = movement(prior, current, rerun, charge_offs, "ifrs9")
+    table = m.allowance.set_index("line")[["stage 1", "stage 2", "stage 3", "total"]]
+    expected = {  # computed by hand: see the module docstring of allowance.reconcile
+        "opening": [30.0, 90.0, 150.0, 270.0],
+        "new": [6.0, 0.0, 0.0, 6.0],
+        "derecognised": [0.0, -50.0, 0.0, -50.0],
+        "written_off": [0.0, -40.0, -150.0, -190.0],
+        "transfer_to_stage_1": [0.0, 0.0, 0.0, 0.0],
+        "transfer_to_stage_2": [-20.0, 20.0, 0.0, 0.0],
+        "transfer_to_stage_3": [0.0, 0.0, 0.0, 0.0],
+        "remeasurement": [-1.5, 64.0, 0.0, 62.5],
+        "assumptions": [1.5, 3.0, 0.0, 4.5],
+        "overlays": [0.0, 3.0, 0.0, 3.0],
+        "closing": [16.0, 90.0, 0.0, 106.0],
+    }
+    assert list(table.index) == list(expected)
+    for line, row in expected.items():
+        assert cents(table.loc[line]).tolist() == cents(row).tolist(), line
+    gross = m.gross.set_index("line")[["stage 1", "stage 2", "stage 3", "total"]]
+    expected_gross = {
+        "opening": [3000.0, 1300.0, 300.0, 4600.0],
+        "new": [700.0, 0.0, 0.0, 700.0],
+        "derecognised": [0.0, -500.0, -20.0, -520.0],
+        "written_off": [0.0, -100.0, -280.0, -380.0],
+        "transfer_to_stage_2": [-2000.0, 2000.0, 0.0, 0.0],
+        "other_changes": [-100.0, -150.0, 0.0, -250.0],
+        "closing": [1600.0, 2550.0, 0.0, 4150.0],
+    }
+    for line, row in expected_gross.items():
+        assert cents(gross.loc[line]).tolist() == cents(row).tolist(), line
+    assert m.assumptions_isolated
+
+
+def test_hand_example_rollforward_and_journal():
+    prior, current, rerun, charge_offs = _hand_runs()
+    m = movement(prior, current, rerun, charge_offs, "cecl")
+    roll = m.rollforward.set_index("segment")
+    # beginning + provision - charge-offs + recoveries = ending (ASC 326-20-50-13), by hand
+    assert cents(roll.loc["auto"]).tolist() == cents([70.0, 129.0, -100.0, 0.0, 99.0]).tolist()
+    assert cents(roll.loc["card"]).tolist() == cents([200.0, 77.0, -280.0, 10.0, 7.0]).tolist()
+    assert cents(roll.loc["Total"]).tolist() == cents([270.0, 206.0, -380.0, 10.0, 106.0]).tolist()
+    assert m.net_provision == 206.0
+    journal = m.journal
+    total = journal[journal["segment"] == "Total"].iloc[0]
+    assert total["debit"] == total["credit"] == 206.0
+    auto = journal[journal["segment"] == "auto"]
+    assert auto["debit"].sum() == auto["credit"].sum() == 129.0
+    assert auto.iloc[0]["account"].startswith("Provision for credit losses")  # the debit is the expense
+    # CECL's own table is by segment
+    table = m.allowance.set_index("line")[["auto", "card", "total"]]
+    assert cents(table.loc["remeasurement"]).tolist() == cents([62.5, 0.0, 62.5]).tolist()
+    assert cents(table.loc["assumptions"]).tolist() == cents([3.5, 1.0, 4.5]).tolist()
+    assert cents(table.loc["closing"]).tolist() == cents([99.0, 7.0, 106.0]).tolist()
+
+
+def test_release_reverses_the_journal():
+    prior = pd.DataFrame({"loan_id": ["a"], "segment": "card", "balance": [100.0], "ecl_cecl": [30.0]})
+    current = prior.assign(ecl_cecl=[12.5])
+    m = movement(prior, current, None, None, "cecl")
+    rows = m.journal[m.journal["segment"] == "card"]
+    assert rows["entry"].tolist() == ["release", "release"]
+    assert rows.iloc[0]["account"].startswith("Allowance") and rows.iloc[0]["debit"] == 17.5
+    assert m.net_provision == -17.5
+
+
+def test_without_rerun_all_change_is_remeasurement():
+    prior, current, _, charge_offs = _hand_runs()
+    m = movement(prior, current, None, charge_offs, "ifrs9")
+    table = m.allowance.set_index("line")
+    assert (cents(table.loc["assumptions", ["stage 1", "stage 2", "stage 3", "total"]]) == 0).all()
+    assert not m.assumptions_isolated
+    # the new loan enters at its modelled allowance when there is no rerun
+    assert cents(table.loc["new", "total"]) == 700
+
+
+# --------------------------------------------------------------------------------------
+# Generated pairs of runs
+# --------------------------------------------------------------------------------------
+
+
+def _foot(table: pd.DataFrame) -> None:
+    """Every column: lines before closing sum to closing, exactly in cents."""
+    values = table.drop(columns=["line", "label"])
+    body = cents(values[table["line"] != "closing"]).sum(axis=0)
+    closing = cents(values[table["line"] == "closing"]).sum(axis=0)
+    assert body.tolist() == closing.tolist()
+    for line in table["line"]:
+        if line.startswith("transfer_to_") or line == "change_of_segment":
+            row = values[table["line"] == line].drop(columns="total")
+            assert cents(row).sum() == 0, line
+
+
+def _class(frame: pd.DataFrame, framework: str) -> pd.Series:
+    if framework == "ifrs9":
+        return np.where(frame["poci"], "POCI", "stage " + frame["stage"].astype(str))
+    return np.where(frame["poci"], "PCD", "non-PCD")
+
+
+@settings(max_examples=50, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(pair=run_pairs(), framework=st.sampled_from(["ifrs9", "cecl"]))
+def test_movement_ties_to_the_cent(pair, framework):
+    prior, current, rerun, charge_offs = pair
+    m = movement(prior, current, rerun, charge_offs, framework)
+    _foot(m.allowance)
+    _foot(m.gross)
+    ecl = f"ecl_{framework}"
+    table = m.allowance.set_index("line")
+    assert cents(table.loc["opening", "total"]) == cents(prior[ecl]).sum()
+    assert cents(table.loc["closing", "total"]) == cents(current[ecl]).sum()
+    # each column's closing and opening are the runs' own sums for that stage / segment
+    dim_p = _class(prior, framework) if framework == "ifrs9" else prior["segment"]
+    dim_c = _class(current, framework) if framework == "ifrs9" else current["segment"]
+    for column in m.allowance.columns.drop(["line", "label", "total"]):
+        assert cents(table.loc["closing", column]) == cents(current.loc[np.asarray(dim_c == column), ecl]).sum()
+        assert cents(table.loc["opening", column]) == cents(prior.loc[np.asarray(dim_p == column), ecl]).sum()
+    gross = m.gross.set_index("line")
+    assert cents(gross.loc["closing", "total"]) == cents(current["balance"]).sum()
+
+    # every segment x class cell foots, and its closing is the current run's sum
+    detail = m.allowance_detail
+    cell_c = pd.Series(_class(current, framework), index=current.index)
+    for (segment, klass), part in detail.groupby(["segment", "class"]):
+        lines = part.set_index("line")["amount"]
+        body = cents(lines.drop("closing", errors="ignore")).sum()
+        closing = cents(lines.get("closing", 0.0))
+        assert body == closing, (segment, klass)
+        mask = (current["segment"] == segment) & (cell_c == klass)
+        assert closing == cents(current.loc[mask, ecl]).sum()
+
+    # lines that do not depend on the decomposition
+    co_ids = set() if charge_offs is None else set(neutralise_text(charge_offs["loan_id"].astype(str)))
+    p_ids = neutralise_text(prior["loan_id"].astype(str))
+    gone = ~p_ids.isin(set(neutralise_text(current["loan_id"].astype(str))))
+    derecognised = gone & ~p_ids.isin(co_ids)
+    assert cents(table.loc["derecognised", "total"]) == -cents(prior.loc[derecognised, ecl]).sum()
+    if rerun is None:
+        assert (cents(m.allowance.set_index("line").loc["assumptions"].drop("label")) == 0).all()
+
+    # roll-forward: beginning + provision + charge-offs + recoveries = ending, each segment
+    roll = m.rollforward
+    parts = cents(roll[["beginning", "provision", "charge_offs", "recoveries"]]).sum(axis=1)
+    assert parts.tolist() == cents(roll["ending"]).tolist()
+    total = roll[roll["segment"] == "Total"].iloc[0]
+    expected_co = 0 if charge_offs is None else cents(charge_offs["gross_charge_off"]).sum()
+    assert cents(total["charge_offs"]) == -expected_co
+    assert cents(total["ending"]) == cents(current[ecl]).sum()
+    journal = m.journal
+    assert cents(journal["debit"].iloc[:-1]).sum() == cents(journal["credit"].iloc[:-1]).sum()
+    assert cents(journal["debit"].iloc[-1]) == cents(roll.loc[roll["segment"] != "Total", "provision"].abs()).sum()
+
+    # the per-loan bridge adds up to the change of each loan
+    loans = m.loans
+    lines = ["opening", "new", "derecognised", "written_off", "remeasurement", "assumptions", "overlays"]
+    assert (cents(loans[lines]).sum(axis=1) == cents(loans["closing"])).all()
+
+
+@settings(max_examples=30, deadline=None)
+@given(pair=run_pairs(max_loans=25), data=st.data())
+def test_a_one_cent_break_is_caught(pair, data):
+    prior, current, rerun, charge_offs = pair
+    m = movement(prior, current, rerun, charge_offs, "ifrs9")
+    table = m.allowance
+    row = data.draw(st.integers(0, len(table) - 1))
+    column = data.draw(st.sampled_from(list(table.columns.drop(["line", "label"]))))
+    broken = table.copy()
+    broken.loc[row, column] = broken.loc[row, column] + 0.01
+    with pytest.raises(MovementError):
+        check_movement(broken)
+
+
+def test_check_movement_names_the_break():
+    table = pd.DataFrame({"line": ["opening", "new", "closing"], "label": "", "stage 2": [1.0, 2.0, 3.01],
+                          "total": [1.0, 2.0, 3.01]})
+    with pytest.raises(MovementError, match="column stage 2: .* break of 0.01"):
+        check_movement(table)
+
+
+def test_prior_ids_as_written_to_csv_still_join():
+    """loans.csv carries neutralised ids ('=L1 -> ''=L1'); the join must still match them."""
+    current = pd.DataFrame({"loan_id": ["=L1"], "segment": "auto", "stage": [1], "balance": [10.0],
+                            "ecl_ifrs9": [2.0]})
+    prior = current.assign(loan_id=neutralise_text(current["loan_id"]), ecl_ifrs9=[1.0])
+    m = movement(prior, current, None, None, "ifrs9")
+    assert m.loans["status"].tolist() == ["continuing"]
+
+
+# --------------------------------------------------------------------------------------
+# Errors a user can cause
+# --------------------------------------------------------------------------------------
+
+
+def _one(**changes) -> pd.DataFrame:
+    base = {"loan_id": ["a", "b"], "segment": "auto", "stage": [1, 2], "balance": [1.0, 2.0], "ecl_ifrs9": [0.1, 0.2]}
+    base.update(changes)
+    return pd.DataFrame(base)
+
+
+@pytest.mark.parametrize(
+    "prior, message",
+    [
+        (_one(loan_id=["a", "a"]), "appears more than once"),
+        (_one(ecl_ifrs9=[0.1, None]), "ecl_ifrs9 is blank"),
+        (_one(stage=[1, 4]), "stage 4"),
+        (_one().drop(columns="stage"), "lack column"),
+    ],
+)
+def test_bad_runs_are_named_errors(prior, message):
+    with pytest.raises(MovementError, match=message) as info:
+        movement(prior, _one(), None, None, "ifrs9", sources={"prior": "q2/loans.csv"})
+    assert "q2/loans.csv" in str(info.value)
+
+
+def test_rerun_must_cover_the_current_tape():
+    rerun = pd.DataFrame({"loan_id": ["a"], "ecl_ifrs9_modelled": [0.1]})
+    with pytest.raises(MovementError, match="missing from the rerun"):
+        movement(_one(), _one(), rerun, None, "ifrs9")
+
+
+def test_charge_off_of_a_loan_in_neither_run():
+    """Opened and charged off within the period: its segment from the file, else shown apart."""
+    from allowance.reconcile.runs import UNASSIGNED_SEGMENT
+
+    charge_offs = pd.DataFrame({"loan_id": ["zz"], "gross_charge_off": [5.0]})
+    m = movement(_one(), _one(), None, charge_offs, "ifrs9")
+    roll = m.rollforward.set_index("segment")
+    assert roll.loc[UNASSIGNED_SEGMENT, "charge_offs"] == -5.0 and roll.loc[UNASSIGNED_SEGMENT, "provision"] == 5.0
+    assert m.notes and "neither run" in m.notes[0]
+    m = movement(_one(), _one(), None, charge_offs.assign(segment="card"), "ifrs9")
+    assert m.rollforward.set_index("segment").loc["card", "charge_offs"] == -5.0
+
+
+def test_negative_charge_off_is_an_error():
+    with pytest.raises(MovementError, match="negative"):
+        movement(_one(), _one(), None, pd.DataFrame({"loan_id": ["a"], "gross_charge_off": [-1.0]}), "ifrs9")
+
+
+def test_compare_runs_finds_the_shared_frameworks():
+    prior, current, _, _ = _hand_runs()
+    out = compare_runs(prior, current.drop(columns=["ecl_cecl"]))
+    assert list(out) == ["ifrs9"]
+    with pytest.raises(MovementError, match="share no framework"):
+        compare_runs(prior.drop(columns=["ecl_ifrs9", "ecl_cecl"]), current)
+
+
+def test_long_form_sums_like_the_tables():
+    prior, current, rerun, charge_offs = _hand_runs()
+    m = movement(prior, current, rerun, charge_offs, "ifrs9")
+    long = m.to_long()
+    allowance = long[long["table"] == "allowance"]
+    assert cents(allowance.loc[allowance["line"] == "closing", "amount"]).sum() == cents(current["ecl_ifrs9"]).sum()
+    assert set(long["table"]) == {"allowance", "gross_carrying_amount", "rollforward"}
+
+
+# --------------------------------------------------------------------------------------
+# What-if comparison
+# --------------------------------------------------------------------------------------
+
+
+def test_what_if_by_segment_stage_and_scenario():
+    base = pd.DataFrame({"loan_id": ["a", "b", "c"], "segment": ["auto", "auto", "card"], "stage": [1, 1, 2],
+                         "stage_reason": ["performing"] * 2 + ["30 dpd"], "ecl_ifrs9": [1.0, 2.0, 3.0],
+                         "ecl_ifrs9_base": [1.0, 2.0, 3.0], "ecl_ifrs9_downside": [2.0, 4.0, 6.0]})
+    alt = base.assign(stage=[1, 2, 2], stage_reason=["performing", "PD ratio", "30 dpd"],
+                      ecl_ifrs9=[2.0, 9.0, 6.0], ecl_ifrs9_base=[1.0, 2.0, 3.0])
+    w = what_if_comparison(base, alt, ["ifrs9"])
+    s = w.summary
+    total = s[s["view"] == "total"].iloc[0]
+    assert (total["base"], total["what_if"], total["difference"]) == (6.0, 17.0, 11.0)
+    by = s[s["view"] == "segment and stage"].set_index(["segment", "stage"])
+    assert by.loc[("auto", 1), "base"] == 3.0 and by.loc[("auto", 1), "what_if"] == 2.0
+    assert by.loc[("auto", 2), "base"] == 0.0 and by.loc[("auto", 2), "what_if"] == 9.0
+    scen = s[s["view"] == "scenario"].set_index("scenario")
+    assert scen.loc["downside", "difference"] == 0.0
+    assert w.stage_changes["loan_id"].tolist() == ["b"]
+    assert w.stage_changes.iloc[0]["difference"] == 7.0
+    with pytest.raises(MovementError, match="same loans"):
+        what_if_comparison(base, alt.iloc[:2], ["ifrs9"])
