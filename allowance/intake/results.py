@@ -1,11 +1,8 @@
-"""Read the user's input files: loan tape, assumptions, overlays, charge-offs, prior runs.
-
-(Being written: the result types below are the contract other modules rely on.)
-"""
+"""The result types of intake: the split tape and the ledger tie-out."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import pandas as pd
 
@@ -21,6 +18,8 @@ class IntakeResult:
               (the messages, "; "-joined), then every column exactly as read (text)
     findings  long form, one row per finding: ``source_row, loan_id, column, code, severity``
               ("reject" or "warning"), ``message``; warnings are findings on accepted rows
+    blank_rows  lines of the file in which every field was empty; skipped, not counted as read
+    headers   our column name -> the header it was read from (a column of ``rejected``)
     """
 
     accepted: pd.DataFrame
@@ -28,6 +27,8 @@ class IntakeResult:
     findings: pd.DataFrame
     rows_read: int
     file: InputFile
+    blank_rows: int = 0
+    headers: dict[str, str] = field(default_factory=dict)
 
     @property
     def rows_accepted(self) -> int:

@@ -1,0 +1,3 @@
+from allowance.cli import main
+
+main()

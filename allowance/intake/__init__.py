@@ -1,0 +1,46 @@
+"""Read the user's input files: loan tape, assumptions, overlays, charge-offs, prior runs.
+
+Implements
+----------
+load_assumptions    TOML assumptions + overlay files -> validated RunConfig
+read_tape           CSV / XLSX / Parquet tape -> IntakeResult (accepted, rejected, findings)
+tie_out             accepted tape balance against the ledger control total -> TieOut
+check_table         the counts ``allowance check`` prints
+read_charge_offs    the period's charge-off file
+read_prior_run      a previous run's loans.csv and run.json -> PriorRun
+file_record         SHA-256 and size of an input file, for run.json
+bundled_path        the shipped demo/ or templates/ folder
+data_dictionary     the tape's columns: type, required, meaning (from LoanRecord)
+
+Layout: ``files`` (files as bytes), ``readers`` (bytes -> text table), ``fields`` (the tape
+columns from LoanRecord), ``parse`` (text -> values, column-wise), ``rules`` (the row rules),
+``tape`` (read_tape), ``assumptions``, ``tieout``, ``history``.
+"""
+
+from allowance.intake.assumptions import load_assumptions, read_transition_matrix
+from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
+from allowance.intake.files import bundled_path, file_record
+from allowance.intake.history import PriorRun, read_charge_offs, read_prior_run
+from allowance.intake.results import IntakeResult, TieOut
+from allowance.intake.rules import CODES
+from allowance.intake.tape import read_tape
+from allowance.intake.tieout import check_table, tie_out
+
+__all__ = [
+    "CODES",
+    "FIELDS",
+    "FieldSpec",
+    "IntakeResult",
+    "PriorRun",
+    "TieOut",
+    "bundled_path",
+    "check_table",
+    "data_dictionary",
+    "file_record",
+    "load_assumptions",
+    "read_charge_offs",
+    "read_prior_run",
+    "read_tape",
+    "read_transition_matrix",
+    "tie_out",
+]

@@ -1,0 +1,146 @@
+"""Read the period's charge-off file and a prior run's output folder."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from allowance.exceptions import InputFileError
+from allowance.intake.fields import FIELDS
+from allowance.intake.files import check_size, file_kind
+from allowance.intake.parse import NUMBER_PATTERN
+from allowance.intake.readers import read_raw
+
+CHARGE_OFF_COLUMNS = ("loan_id", "gross_charge_off", "recoveries")
+
+
+def read_charge_offs(path: Path, max_mb: float = 2048.0) -> pd.DataFrame:
+    """Read the period's charge-offs: one row per loan charged off or recovering this period.
+
+    Columns (headers matched ignoring case and surrounding spaces): ``loan_id``,
+    ``gross_charge_off`` (amount written off in the period, ≥ 0) and ``recoveries``
+    (amounts recovered in the period, ≥ 0; blank = 0); optionally ``segment``, which places
+    recoveries on loans written off in earlier periods (in neither run) in the roll-forward.
+    CSV, XLSX or Parquet.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``loan_id`` (text), ``gross_charge_off`` and ``recoveries`` (float64), and
+        ``segment`` (text) when the file has it.
+
+    Raises
+    ------
+    InputFileError
+        A missing column, or the first bad cell, naming its row and column.
+    """
+    path = Path(path)
+    check_size(path, max_mb)
+    raw = read_raw(path, file_kind(path))
+    if raw.malformed:
+        bad = raw.malformed[0]
+        raise InputFileError(
+            f"the line has {len(bad.fields)} fields but the header has {len(raw.headers)}",
+            file=path, row=bad.source_row,
+        )
+    where = {h.strip().casefold(): i for i, h in enumerate(raw.headers)}
+    missing = [c for c in CHARGE_OFF_COLUMNS if c not in where]
+    if missing:
+        raise InputFileError(
+            f"missing column{'s' if len(missing) > 1 else ''}: {', '.join(missing)}",
+            file=path,
+            hint="the header must be loan_id,gross_charge_off,recoveries",
+        )
+    text = {c: raw.table.column(where[c]).to_pylist() for c in CHARGE_OFF_COLUMNS}
+    rows = raw.source_row
+    ids = [(v or "").strip() for v in text["loan_id"]]
+    for line, loan_id in zip(rows, ids):
+        if not loan_id:
+            raise InputFileError("loan_id is blank", file=path, row=int(line), column="loan_id")
+    series = pd.Series(ids, dtype="str")
+    dup = np.flatnonzero(series.duplicated(keep=False).to_numpy())
+    if dup.size:
+        first = ids[dup[0]]
+        lines = [str(rows[i]) for i in dup if ids[i] == first]
+        raise InputFileError(
+            f"loan_id {first!r} appears on rows {', '.join(lines)}",
+            file=path, row=int(rows[dup[0]]), column="loan_id",
+            hint="give one row per loan (add partial charge-offs together)",
+        )
+    out = {"loan_id": series}
+    for column in CHARGE_OFF_COLUMNS[1:]:
+        values = pd.Series(text[column], dtype="str").str.strip()
+        blank = values.isna() | (values == "")
+        if column == "gross_charge_off" and blank.any():
+            line = int(rows[np.flatnonzero(blank.to_numpy())[0]])
+            raise InputFileError(f"{column} is blank", file=path, row=line, column=column, hint="write 0 if nothing")
+        good = values.str.fullmatch(NUMBER_PATTERN).fillna(False).astype(bool) | blank
+        numbers = pd.to_numeric(values.where(~blank, "0").where(good, "nan"), errors="coerce").to_numpy(np.float64)
+        bad = ~good.to_numpy() | (numbers < 0) | ~np.isfinite(numbers)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputFileError(
+                f"{column} {text[column][i]!r} is not an amount of at least 0",
+                file=path, row=int(rows[i]), column=column, hint="write plain decimals such as 1234.56",
+            )
+        out[column] = numbers
+    if "segment" in where:
+        seg = pd.Series(raw.table.column(where["segment"]).to_pylist(), dtype="str").str.strip()
+        out["segment"] = seg.where(seg != "")
+    return pd.DataFrame(out)
+
+
+@dataclass(frozen=True)
+class PriorRun:
+    """A previous run's output: its loan results and its run record."""
+
+    loans: pd.DataFrame
+    record: dict
+
+
+_TEXT_COLUMNS = {n for n, f in FIELDS.items() if f.kind in ("text", "choice")} | {"stage_reason"}
+
+
+def read_prior_run(folder: Path) -> PriorRun:
+    """Read ``loans.csv`` and ``run.json`` from a previous run's output folder.
+
+    ``loan_id`` and the other text columns are read as text; every numeric column as float64.
+
+    Raises
+    ------
+    InputFileError
+        The folder or either file is missing or unreadable.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputFileError("the prior run folder was not found", file=folder, hint="give the --out folder of that run")
+    loans_path, record_path = folder / "loans.csv", folder / "run.json"
+    for needed in (loans_path, record_path):
+        if not needed.is_file():
+            raise InputFileError(
+                "not found in the prior run folder", file=needed, hint="give the --out folder of a completed run"
+            )
+    try:
+        record = json.loads(record_path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as err:
+        raise InputFileError(f"cannot be read as JSON ({err})", file=record_path) from err
+    if not isinstance(record, dict):
+        raise InputFileError("is not a run record (expected a JSON object)", file=record_path)
+    try:
+        header = pd.read_csv(loans_path, nrows=0).columns
+        loans = pd.read_csv(
+            loans_path, dtype={c: "str" for c in header if c in _TEXT_COLUMNS}, keep_default_na=False, na_values=[""]
+        )
+    except (OSError, ValueError, pd.errors.ParserError) as err:
+        raise InputFileError(f"cannot be read as CSV ({err})", file=loans_path) from err
+    if "loan_id" not in loans.columns:
+        raise InputFileError("has no loan_id column", file=loans_path)
+    for name in loans.columns:
+        if pd.api.types.is_integer_dtype(loans[name]) or pd.api.types.is_float_dtype(loans[name]):
+            loans[name] = loans[name].astype(np.float64)
+    return PriorRun(loans=loans, record=record)
+

@@ -1,0 +1,380 @@
+"""Readers: a CSV, XLSX or Parquet tape into one table of text, with the line number of each row.
+
+Every reader returns a :class:`RawTape`: the headers as written, one Arrow string column per
+header (``null`` for an empty field), and each row's ``source_row`` (the line of the file,
+header = line 1; for XLSX the sheet row; for Parquet the row number + 1, as if a header
+were line 1). Workbook and Parquet values become the same text a CSV export would hold
+(``0.065``, ``2026-09-30``, ``true``), so the same tape in any format validates the same.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import re
+import threading
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from allowance.exceptions import InputFileError, TapeError
+from allowance.intake.files import FileKind, Scan, check_text, scan
+
+
+@dataclass(frozen=True)
+class Malformed:
+    """A CSV line whose number of fields differs from the header's."""
+
+    source_row: int
+    fields: list[str]
+
+
+@dataclass(frozen=True)
+class RawTape:
+    """A tape as text: ``table`` has one string column per header, in the file's order."""
+
+    headers: list[str]
+    table: pa.Table
+    source_row: np.ndarray
+    record: Scan
+    blank_rows: int = 0
+    malformed: list[Malformed] = field(default_factory=list)
+    text_columns: Callable[[], dict[int, pa.ChunkedArray]] | None = None  # columns read as numbers, as text
+
+    def text_rows(self, rows: np.ndarray) -> pa.Table:
+        """The given rows with every column as text, exactly as read."""
+        taken = self.table.take(pa.array(rows, pa.int64()))
+        if self.text_columns is not None and len(rows):
+            for i, column in self.text_columns().items():
+                taken = taken.set_column(i, taken.column_names[i], pc.take(column, pa.array(rows, pa.int64())))
+        return taken
+
+
+def _names(count: int) -> list[str]:
+    return [f"c{i}" for i in range(count)]
+
+
+def _drop_blank(table: pa.Table, source_row: np.ndarray) -> tuple[pa.Table, np.ndarray, int, np.ndarray | None]:
+    """Drop rows in which every field is empty (blank lines); return how many and the rows kept."""
+    if table.num_rows == 0 or table.num_columns == 0:
+        return table, source_row, 0, None
+    empty = None
+    for column in table.columns:
+        if column.null_count == 0:
+            return table, source_row, 0, None  # a column with a value on every row: no blank rows
+        is_null = pc.is_null(column)
+        empty = is_null if empty is None else pc.and_(empty, is_null)
+    blank = np.asarray(empty, dtype=bool)
+    if not blank.any():
+        return table, source_row, 0, None
+    return table.filter(pa.array(~blank)), source_row[~blank], int(blank.sum()), ~blank
+
+
+# --------------------------------------------------------------------------------------
+# CSV
+# --------------------------------------------------------------------------------------
+
+
+def _csv_header(path: Path) -> list[str]:
+    with path.open("r", encoding="utf-8-sig", newline="") as handle:
+        try:
+            header = next(csv.reader(handle), None)
+        except (UnicodeDecodeError, csv.Error) as err:
+            check_text(path)
+            raise InputFileError(f"the header line cannot be read ({err})", file=path) from err
+    if not header or not any(h.strip() for h in header):
+        raise TapeError("has no header line", file=path, hint="the first line must name the columns")
+    return header
+
+
+NumericColumns = Callable[[list[str]], set[int]]
+_ARROW_COLUMN = re.compile(r"In CSV column #(\d+)")
+
+
+def _scan_in_background(path: Path) -> tuple[threading.Thread, dict[str, object]]:
+    """Hash the file while Arrow parses it (hashlib releases the GIL)."""
+    box: dict[str, object] = {}
+
+    def work() -> None:
+        try:
+            box["scan"] = scan(path, "tape", text=True)
+        except BaseException as err:  # handed to the caller, which raises it
+            box["error"] = err
+
+    thread = threading.Thread(target=work, name="allowance-scan", daemon=True)
+    thread.start()
+    return thread, box
+
+
+def read_csv(path: Path, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
+    """Read a CSV tape with Arrow's multi-threaded reader.
+
+    Columns that ``numeric(headers)`` names are converted to float64 while reading; if any
+    value in them is not a plain number, the file is read again as text (the rules then say
+    which cells). ``RawTape.text_rows`` gives rows with every column as text, for the rejected rows.
+    Lines with the wrong number of fields send the whole file through :func:`read_csv_exact`,
+    which keeps them (to be rejected) and knows every line number.
+    """
+    import pyarrow.csv as pacsv
+
+    thread, box = _scan_in_background(path)
+
+    def scanned() -> Scan:
+        thread.join()
+        if "error" in box:
+            raise box["error"]  # type: ignore[misc]
+        return box["scan"]  # type: ignore[return-value]
+
+    try:
+        header = _csv_header(path)
+    except Exception:
+        scanned()  # a binary or non-UTF-8 file: its error is the clearer one
+        raise
+    names = _names(len(header))
+    typed = numeric(header) if numeric else set()
+    invalid: list[object] = []
+
+    def on_invalid(row: object) -> str:
+        invalid.append(row)
+        return "skip"
+
+    def arrow_read(newlines_in_values: bool, floats: set[int], only: list[str] | None = None) -> pa.Table:
+        invalid.clear()
+        return pacsv.read_csv(
+            path,
+            read_options=pacsv.ReadOptions(skip_rows=1, column_names=names, block_size=1 << 22),
+            parse_options=pacsv.ParseOptions(
+                newlines_in_values=newlines_in_values, ignore_empty_lines=False, invalid_row_handler=on_invalid
+            ),
+            convert_options=pacsv.ConvertOptions(
+                column_types={n: pa.float64() if i in floats else pa.string() for i, n in enumerate(names)},
+                null_values=[""],
+                strings_can_be_null=True,
+                quoted_strings_can_be_null=True,
+                include_columns=only,
+            ),
+        )
+
+    # Fast when no quoted value holds a line break; when one does and it crosses a block,
+    # Arrow raises (it never misreads) and the careful mode reads it.
+    newlines_in_values = False
+    table = None
+    retries = 0
+    for _ in range(5):
+        try:
+            table = arrow_read(newlines_in_values, typed)
+            break
+        except pa.ArrowInvalid as err:
+            message = str(err)
+            if "conversion error" in message and typed:
+                # A value that is not a plain number: read that column as text (the rules say
+                # which cells); after a few such columns, read every column as text.
+                column = _ARROW_COLUMN.search(message)
+                failed = int(column.group(1)) if column else -1
+                retries += 1
+                typed = typed - {failed} if failed in typed and retries < 3 else set()
+            elif "out of sync" in message and not newlines_in_values:
+                newlines_in_values = True
+            else:
+                record = scanned()
+                if "utf8" in message.lower() or "utf-8" in message.lower():
+                    check_text(path)
+                return read_csv_exact(path, record)
+    record = scanned()
+    if table is None or invalid:
+        return read_csv_exact(path, record)
+    rows = table.num_rows
+    lines = record.newlines + (0 if record.ends_with_newline else 1)
+    source_row = np.arange(2, rows + 2, dtype=np.int64)
+    if record.newlines >= 0 and lines != rows + 1:
+        # Quoted values hold line breaks: each row starts below the breaks of the rows before it.
+        breaks = np.zeros(rows, dtype=np.int64)
+        for column in table.columns:
+            if pa.types.is_string(column.type):
+                breaks += np.asarray(pc.fill_null(pc.count_substring(column, "\n"), 0), dtype=np.int64)
+        source_row += np.concatenate([[0], np.cumsum(breaks)[:-1]]) if rows else breaks
+    table, source_row, blank, keep = _drop_blank(table, source_row)
+    as_read = (newlines_in_values, keep, sorted(typed))
+
+    def text_columns() -> dict[int, pa.ChunkedArray]:
+        """The columns read as numbers, read again as text (only those columns)."""
+        again = arrow_read(as_read[0], set(), [names[i] for i in as_read[2]])
+        if as_read[1] is not None:
+            again = again.filter(pa.array(as_read[1]))
+        return {i: again.column(names[i]) for i in as_read[2]}
+
+    return RawTape(
+        headers=header, table=table, source_row=source_row, record=record, blank_rows=blank,
+        text_columns=text_columns if typed else None,
+    )
+
+
+def read_csv_exact(path: Path, record: Scan | None = None) -> RawTape:
+    """Read a CSV tape row by row with the standard library (slow, exact line numbers)."""
+    record = record or scan(path, "tape", text=True)
+    columns: list[list[str | None]] | None = None
+    malformed: list[Malformed] = []
+    source_rows: list[int] = []
+    blank = 0
+    with path.open("r", encoding="utf-8-sig", newline="") as handle:
+        reader = csv.reader(handle)
+        try:
+            header = next(reader, None)
+            if not header:
+                raise TapeError("has no header line", file=path, hint="the first line must name the columns")
+            width = len(header)
+            columns = [[] for _ in range(width)]
+            start = reader.line_num + 1
+            for fields in reader:
+                line, start = start, reader.line_num + 1
+                if not any(fields):
+                    blank += 1
+                elif len(fields) != width:
+                    malformed.append(Malformed(source_row=line, fields=fields))
+                else:
+                    source_rows.append(line)
+                    for target, value in zip(columns, fields):
+                        target.append(value if value != "" else None)
+        except UnicodeDecodeError as err:
+            check_text(path)
+            raise InputFileError(f"is not UTF-8 text ({err})", file=path) from err
+        except csv.Error as err:
+            raise InputFileError(
+                f"line {reader.line_num} cannot be read as CSV ({err})",
+                file=path,
+                row=reader.line_num,
+                hint="check the quotes on that line",
+            ) from err
+    table = pa.table({n: pa.array(c, pa.string()) for n, c in zip(_names(width), columns)})
+    return RawTape(
+        headers=header,
+        table=table,
+        source_row=np.asarray(source_rows, dtype=np.int64),
+        record=record,
+        blank_rows=blank,
+        malformed=malformed,
+    )
+
+
+# --------------------------------------------------------------------------------------
+# XLSX and Parquet: typed cells become the text a CSV export would hold
+# --------------------------------------------------------------------------------------
+
+
+def cell_text(value: object) -> str | None:
+    """The CSV text of a workbook cell.
+
+    Examples
+    --------
+    >>> [cell_text(v) for v in (0.065, 5.0, 7, True, dt.datetime(2026, 9, 30), None, " x ")]
+    ['0.065', '5', '7', 'true', '2026-09-30', None, ' x ']
+    """
+    if value is None:
+        return None
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        return str(int(value)) if value.is_integer() and abs(value) < 1e15 else repr(value)
+    if isinstance(value, dt.datetime):
+        return value.date().isoformat() if value.time() == dt.time(0) else value.isoformat(sep=" ")
+    if isinstance(value, (dt.date, dt.time)):
+        return value.isoformat()
+    text = str(value)
+    return text if text != "" else None
+
+
+def read_xlsx(path: Path, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
+    """Read a workbook sheet (``sheet`` or the first) in read-only mode; formulas arrive as text."""
+    import openpyxl  # parses through defusedxml when it is installed
+
+    record = scan(path, "tape")
+    with path.open("rb") as handle:  # a handle, so a workbook named .csv still opens
+        try:
+            book = openpyxl.load_workbook(handle, read_only=True, data_only=False)
+        except Exception as err:  # openpyxl raises many kinds for a damaged file
+            raise InputFileError(f"cannot be opened as a workbook ({err})", file=path) from err
+        try:
+            if sheet is None:
+                ws = book.worksheets[0]
+            elif sheet in book.sheetnames:
+                ws = book[sheet]
+            else:
+                raise TapeError(
+                    f"has no sheet {sheet!r}; its sheets are {', '.join(map(repr, book.sheetnames))}",
+                    file=path,
+                    hint="correct [tape] sheet in the assumptions file",
+                )
+            rows = [[cell_text(v) for v in row] for row in ws.iter_rows(min_row=1, values_only=True)]
+        finally:
+            book.close()
+    first = next((i for i, r in enumerate(rows) if any(v is not None for v in r)), None)
+    if first is None:
+        raise TapeError("the sheet is empty", file=path, hint="put the header in the first row")
+    width = max(len(r) for r in rows)
+    header = [h if h is not None else "" for h in rows[first]] + [""] * (width - len(rows[first]))
+    while width > 1 and not header[width - 1] and all(len(r) < width or r[width - 1] is None for r in rows):
+        width -= 1  # trailing columns with no header and no values
+    header = header[:width]
+    body = [r[:width] + [None] * (width - len(r)) for r in rows[first + 1:]]
+    table = pa.table({n: pa.array([r[i] for r in body], pa.string()) for i, n in enumerate(_names(width))})
+    source_row = np.arange(first + 2, first + 2 + len(body), dtype=np.int64)
+    table, source_row, blank, _ = _drop_blank(table, source_row)
+    return RawTape(headers=header, table=table, source_row=source_row, record=record, blank_rows=blank)
+
+
+def _arrow_text(column: pa.ChunkedArray, name: str, path: Path) -> pa.ChunkedArray:
+    kind = column.type
+    if pa.types.is_dictionary(kind):
+        column = pc.cast(column, kind.value_type)
+        kind = column.type
+    if pa.types.is_floating(kind):
+        finite = pc.is_finite(column)
+        return pc.if_else(finite, pc.cast(column, pa.string()), pa.scalar(None, pa.string()))
+    if pa.types.is_timestamp(kind) or pa.types.is_date(kind):
+        return pc.cast(column, pa.string())
+    if pa.types.is_string(kind) or pa.types.is_large_string(kind):
+        text = pc.cast(column, pa.string())
+        return pc.if_else(pc.equal(text, ""), pa.scalar(None, pa.string()), text)
+    if pa.types.is_integer(kind) or pa.types.is_boolean(kind) or pa.types.is_decimal(kind):
+        return pc.cast(column, pa.string())
+    raise TapeError(
+        f"column {name!r} holds {kind} values, which a tape cannot",
+        file=path,
+        column=name,
+        hint="store it as text, numbers or dates",
+    )
+
+
+def read_parquet(path: Path, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
+    """Read a Parquet tape; each column's values become their CSV text."""
+    import pyarrow.parquet as pq
+
+    record = scan(path, "tape")
+    try:
+        source = pq.read_table(path)
+    except (pa.ArrowException, OSError) as err:
+        raise InputFileError(f"cannot be read as Parquet ({err})", file=path) from err
+    header = list(source.column_names)
+    columns = {n: _arrow_text(source.column(i), header[i], path) for i, n in enumerate(_names(len(header)))}
+    table = pa.table(columns) if columns else pa.table({})
+    source_row = np.arange(2, table.num_rows + 2, dtype=np.int64)
+    table, source_row, blank, _ = _drop_blank(table, source_row)
+    return RawTape(headers=header, table=table, source_row=source_row, record=record, blank_rows=blank)
+
+
+#: Readers by file kind.
+READERS: dict[FileKind, Callable[[Path, str | None, NumericColumns | None], RawTape]] = {
+    "csv": read_csv,
+    "xlsx": read_xlsx,
+    "parquet": read_parquet,
+}
+
+
+def read_raw(path: Path, kind: FileKind, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
+    """Read a tape of the given kind; ``numeric(headers)`` names columns a reader may read as numbers."""
+    return READERS[kind](Path(path), sheet, numeric)
+

@@ -1,0 +1,387 @@
+"""The row rules of a loan tape, applied column-wise: every failure of every row is found.
+
+Each rule looks at whole parsed columns at once and returns :class:`Findings`: the failing row
+positions, the column, a reason code and one message per row. A row is rejected when any
+``reject`` finding names it; ``warning`` findings flag accepted rows. The field rules come from
+:class:`allowance.schemas.LoanRecord` (kinds, bounds, required values, descriptions); the cross-
+column rules need the assumptions (as-of date, segments, grades).
+
+Reason codes
+------------
+See :data:`CODES`: the code, and what it means (the summary ``allowance check`` prints).
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from allowance.intake.fields import FIELDS, FieldSpec
+from allowance.intake.parse import NO_DAY, Parsed
+from allowance.intake.readers import cell_text
+from allowance.schemas import Assumptions
+
+Severity = Literal["reject", "warning"]
+
+#: Reason codes and what they mean; ``{column}`` is the column the finding names.
+CODES: dict[str, str] = {
+    "missing_value": "{column} is blank but required",
+    "bad_number": "{column} is not a number",
+    "not_whole_number": "{column} is not a whole number",
+    "bad_date": "{column} is not a date (YYYY-MM-DD, years 1678 to 2261)",
+    "bad_boolean": "{column} is not one of true/false, yes/no, y/n, 1/0, t/f",
+    "bad_choice": "{column} is not one of the allowed values",
+    "out_of_range": "{column} is outside its allowed range",
+    "duplicate_loan_id": "loan_id appears on more than one row (every copy is rejected)",
+    "unknown_segment": "segment has no [segments.<name>] table in the assumptions",
+    "missing_grade": "grade is blank but the segment's PD is given by grade",
+    "unknown_grade": "grade is not one of the segment's grades",
+    "origination_after_as_of": "origination_date is after the as-of date",
+    "maturity_before_origination": "maturity_date is not after origination_date",
+    "matured": "term loan matured on or before the as-of date with no balance left",
+    "wrong_field_count": "the line has a different number of fields from the header",
+    "matured_with_balance": "term loan past maturity still carrying a balance (one-month horizon)",
+    "over_limit": "revolving balance above the credit limit",
+}
+
+_BAD_CODE: dict[str, str] = {
+    "number": "bad_number",
+    "whole": "bad_number",
+    "date": "bad_date",
+    "boolean": "bad_boolean",
+    "choice": "bad_choice",
+}
+
+
+@dataclass(frozen=True)
+class Findings:
+    """One rule's findings on one column: row positions and a message for each."""
+
+    rows: np.ndarray
+    column: str
+    code: str
+    severity: Severity
+    messages: list[str]
+
+
+@dataclass(frozen=True)
+class TapeColumns:
+    """What the rules look at: every tape column parsed, the raw text, the assumptions."""
+
+    parsed: dict[str, Parsed]
+    raw: dict[str, pa.ChunkedArray]
+    present: frozenset[str]
+    assumptions: Assumptions
+    source_row: np.ndarray
+
+    @property
+    def rows(self) -> int:
+        return len(self.source_row)
+
+    def text(self, column: str, rows: np.ndarray) -> list[str | None]:
+        """The text of ``column`` at ``rows`` (a number read as a number is written as a CSV would)."""
+        values = pc.take(self.raw[column], pa.array(rows, pa.int64())).to_pylist()
+        return [v if v is None or isinstance(v, str) else cell_text(v) for v in values]
+
+
+Rule = Callable[[TapeColumns], Iterator[Findings]]
+
+
+def _about(spec: FieldSpec) -> str:
+    """The field's description as a clause: 'outstanding principal ... at the as-of date'."""
+    text = spec.description.rstrip(".")
+    return text[:1].lower() + text[1:]
+
+
+def _date_text(days: np.ndarray) -> list[str]:
+    return [str(d) for d in days.astype("datetime64[D]")]
+
+
+def _findings(rows: np.ndarray, column: str, code: str, messages: list[str], severity: Severity = "reject") -> Findings:
+    return Findings(rows=rows, column=column, code=code, severity=severity, messages=messages)
+
+
+# --------------------------------------------------------------------------------------
+# Field rules: one column at a time, from LoanRecord
+# --------------------------------------------------------------------------------------
+
+
+def _percent_hint(spec: FieldSpec, parsed: Parsed) -> str:
+    """A hint when a decimal-share column looks like percents (most values above 1)."""
+    if not spec.is_probability:
+        return ""
+    valid = ~parsed.blank & ~parsed.bad
+    if not valid.any():
+        return ""
+    share = float(np.mean(parsed.values[valid] > 1.0))
+    if share <= 0.5:
+        return ""
+    return (
+        f"; the column looks like percents ({share:.0%} of its values are above 1): "
+        "give decimals, 6.5% as 0.065"
+    )
+
+
+def field_rules(cols: TapeColumns) -> Iterator[Findings]:
+    """Required values, readable values, whole numbers and bounds, column by column."""
+    for name, spec in FIELDS.items():
+        if name not in cols.present:
+            continue
+        parsed = cols.parsed[name]
+        if spec.required:
+            rows = np.flatnonzero(parsed.blank)
+            if rows.size:
+                yield _findings(rows, name, "missing_value", [f"{name} is blank but required ({_about(spec)})"] * rows.size)
+        rows = np.flatnonzero(parsed.bad)
+        if rows.size:
+            yield _findings(rows, name, _BAD_CODE[spec.kind], [_bad_message(spec, t) for t in cols.text(name, rows)])
+        if parsed.not_whole is not None:
+            rows = np.flatnonzero(parsed.not_whole)
+            if rows.size:
+                messages = [f"{name} {t!r} is not a whole number" for t in cols.text(name, rows)]
+                yield _findings(rows, name, "not_whole_number", messages)
+        if spec.kind in ("number", "whole") and spec.bounds_text:
+            yield from _bounds(cols, spec, parsed)
+
+
+def _bad_message(spec: FieldSpec, text: str | None) -> str:
+    words = {
+        "number": "is not a number (write plain decimals such as 1234.56)",
+        "whole": "is not a number (write a whole number such as 30)",
+        "date": "is not a date (write YYYY-MM-DD; years 1678 to 2261)",
+        "boolean": "is not true/false, yes/no, y/n, 1/0 or t/f",
+        "choice": f"is not one of {', '.join(spec.choices)}",
+    }
+    message = f"{spec.name} {text!r} {words[spec.kind]}"
+    given = (text or "").strip()
+    if given.startswith("="):
+        message += " (a formula: the tape holds the formula, not its value; paste values)"
+    elif spec.kind == "number" and given.endswith("%"):
+        message += f" (a percent: write it as a decimal{', 6.5% as 0.065' if spec.is_probability else ''})"
+    return message
+
+
+def _bounds(cols: TapeColumns, spec: FieldSpec, parsed: Parsed) -> Iterator[Findings]:
+    values = parsed.values
+    valid = ~parsed.blank & ~parsed.bad
+    outside = np.zeros(cols.rows, dtype=bool)
+    with np.errstate(invalid="ignore"):
+        for bound, test in ((spec.ge, np.less), (spec.gt, np.less_equal), (spec.le, np.greater), (spec.lt, np.greater_equal)):
+            if bound is not None:
+                outside |= valid & test(values, bound)
+    rows = np.flatnonzero(outside)
+    if rows.size:
+        hint = _percent_hint(spec, parsed)
+        messages = []
+        for t, v in zip(cols.text(spec.name, rows), values[rows]):
+            own = ""
+            if not hint and spec.is_probability and 1.0 < v <= 100.0:
+                own = f"; if it is a percent, write it as {v / 100:.10g}"
+            messages.append(f"{spec.name} {t!r} is outside its range: it must be {spec.bounds_text} ({_about(spec)}){hint}{own}")
+        yield _findings(rows, spec.name, "out_of_range", messages)
+
+
+# --------------------------------------------------------------------------------------
+# Cross-column rules
+# --------------------------------------------------------------------------------------
+
+
+_MIX = np.uint64(0x9E3779B97F4A7C15)
+_BUCKET_BITS = 22
+
+
+def _maybe_repeated(ids: pa.ChunkedArray) -> np.ndarray | None:
+    """Rows whose id may be repeated: a 64-bit hash of each id's bytes, compared in numpy.
+
+    The bytes are read eight at a time (unaligned little-endian words at each id's offset),
+    masked to the id's length and mixed. Equal ids always hash equal; the few rows that share
+    a hash are checked exactly by the caller. ``None`` when ids are longer than 64 bytes.
+    """
+    array = ids.combine_chunks()
+    rows = len(array)
+    if rows == 0:
+        return np.zeros(0, dtype=bool)
+    _, offsets_buffer, data_buffer = array.buffers()
+    offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=rows + 1, offset=array.offset * 4)
+    lengths = np.diff(offsets).astype(np.int64)
+    width = int(lengths.max())
+    if width > 64 or data_buffer is None:
+        return None
+    data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
+    padded = np.zeros(len(data) + 8, dtype=np.uint8)
+    padded[: len(data)] = data
+    windows = np.ndarray(shape=(len(data) + 1,), dtype="<u8", buffer=padded, strides=(1,))
+    start = (offsets[:-1] - offsets[0]).astype(np.int64)
+    hashed = lengths.astype(np.uint64) * _MIX
+    for word in range((width + 7) // 8):
+        left = np.clip(lengths - 8 * word, 0, 8)
+        if not left.any():
+            break
+        keep = np.where(left == 8, np.uint64(0xFFFFFFFFFFFFFFFF), (np.uint64(1) << (left * 8).astype(np.uint64)) - np.uint64(1))
+        value = windows[np.minimum(start + 8 * word, len(data))] & keep  # fancy indexing: no copy of the view
+        hashed = (hashed ^ value) * _MIX
+        hashed ^= hashed >> np.uint64(31)
+    # Bucket by the top bits first: only rows sharing a bucket need the full comparison.
+    buckets = (hashed >> np.uint64(64 - _BUCKET_BITS)).astype(np.intp)
+    crowded = np.flatnonzero(np.take(np.bincount(buckets, minlength=1 << _BUCKET_BITS), buckets) > 1)
+    repeated = np.zeros(rows, dtype=bool)
+    if crowded.size:
+        repeated[crowded] = np.asarray(pd.Series(hashed[crowded]).duplicated(keep=False))
+    return repeated
+
+
+def duplicate_ids(cols: TapeColumns) -> Iterator[Findings]:
+    """Every copy of a repeated loan_id is rejected, each naming the other rows."""
+    ids = cols.parsed["loan_id"].values
+    candidates = _maybe_repeated(ids)
+    if candidates is not None and not candidates.any():
+        return
+    series = ids.to_pandas()
+    if candidates is not None:  # equal ids share a hash: only those rows need the exact check
+        series = series.iloc[np.flatnonzero(candidates)]
+    dup = series.duplicated(keep=False) & series.notna()
+    rows = np.asarray(series.index[dup.to_numpy()], dtype=np.int64)
+    if not rows.size:
+        return
+    frame = pd.DataFrame({"id": series[dup].to_numpy(), "line": cols.source_row[rows]})
+    lines_by_id = frame.groupby("id", sort=False)["line"].agg(list).to_dict()
+    messages = []
+    for loan_id, line in zip(frame["id"], frame["line"]):
+        others = [str(x) for x in lines_by_id[loan_id] if x != line]
+        shown = ", ".join(others[:10]) + (f" and {len(others) - 10} more" if len(others) > 10 else "")
+        messages.append(f"loan_id {loan_id!r} is also on row{'s' if len(others) > 1 else ''} {shown}")
+    yield _findings(rows, "loan_id", "duplicate_loan_id", messages)
+
+
+def _close(word: str, choices: list[str]) -> str:
+    match = difflib.get_close_matches(word, choices, n=1)
+    return f" (did you mean {match[0]!r}?)" if match else ""
+
+
+def unknown_segments(cols: TapeColumns) -> Iterator[Findings]:
+    """The segment must have a ``[segments.<name>]`` table."""
+    segment = cols.parsed["segment"]
+    names = list(cols.assumptions.segments)
+    known = np.asarray(pc.fill_null(pc.is_in(segment.values, value_set=pa.array(names, pa.string())), True))
+    rows = np.flatnonzero(~known & ~segment.blank)
+    if rows.size:
+        values = pc.take(segment.values, pa.array(rows)).to_pylist()
+        advice = {v: _close(v, names) for v in set(values)}
+        messages = [f"segment {v!r} has no [segments.{v}] table in the assumptions{advice[v]}" for v in values]
+        yield _findings(rows, "segment", "unknown_segment", messages)
+
+
+def grades(cols: TapeColumns) -> Iterator[Findings]:
+    """Where a segment's PD is given by grade, the grade is required and must be one of them."""
+    segment = cols.parsed["segment"].values
+    grade = cols.parsed["grade"]
+    for name, seg in cols.assumptions.segments.items():
+        table = seg.pd_12m_by_grade or seg.pd_curve_by_grade
+        if table is None:
+            continue
+        in_segment = np.asarray(pc.fill_null(pc.equal(segment, name), False))
+        rows = np.flatnonzero(in_segment & grade.blank)
+        if rows.size:
+            message = f"grade is blank but segment {name!r} gives its PD by grade ({', '.join(table)})"
+            yield _findings(rows, "grade", "missing_grade", [message] * rows.size)
+        known = np.asarray(pc.fill_null(pc.is_in(grade.values, value_set=pa.array(list(table), pa.string())), True))
+        rows = np.flatnonzero(in_segment & ~grade.blank & ~known)
+        if rows.size:
+            messages = [
+                f"grade {g!r} is not one of segment {name!r}'s grades ({', '.join(table)})"
+                for g in pc.take(grade.values, pa.array(rows)).to_pylist()
+            ]
+            yield _findings(rows, "grade", "unknown_grade", messages)
+
+
+def dates(cols: TapeColumns) -> Iterator[Findings]:
+    """Origination on or before the as-of date; maturity after origination; term loans' maturity."""
+    as_of = int(np.datetime64(cols.assumptions.run.as_of, "D").astype(np.int64))
+    as_of_text = cols.assumptions.run.as_of.isoformat()
+    origination = cols.parsed["origination_date"].values
+    maturity = cols.parsed["maturity_date"]
+    repayment = cols.parsed["repayment"]
+    balance = cols.parsed["balance"]
+    has_origination = origination != NO_DAY
+    has_maturity = maturity.values != NO_DAY
+
+    rows = np.flatnonzero(has_origination & (origination > as_of))
+    if rows.size:
+        messages = [f"origination_date {d} is after the as-of date {as_of_text}" for d in _date_text(origination[rows])]
+        yield _findings(rows, "origination_date", "origination_after_as_of", messages)
+
+    rows = np.flatnonzero(has_origination & has_maturity & (maturity.values <= origination))
+    if rows.size:
+        messages = [
+            f"maturity_date {m} is not after origination_date {o}"
+            for m, o in zip(_date_text(maturity.values[rows]), _date_text(origination[rows]))
+        ]
+        yield _findings(rows, "maturity_date", "maturity_before_origination", messages)
+
+    known_repayment = ~repayment.blank & ~repayment.bad
+    term = known_repayment & np.asarray(pc.fill_null(pc.not_equal(repayment.values, "revolving"), False))
+    rows = np.flatnonzero(term & maturity.blank)
+    if rows.size:
+        about = _about(FIELDS["maturity_date"])
+        message = f"maturity_date is blank but required for level, interest_only and balloon loans ({about})"
+        yield _findings(rows, "maturity_date", "missing_value", [message] * rows.size)
+
+    valid_balance = ~balance.blank & ~balance.bad
+    matured = term & has_maturity & (maturity.values <= as_of) & valid_balance
+    with np.errstate(invalid="ignore"):
+        carrying = balance.values > 0
+    rows = np.flatnonzero(matured & carrying)
+    if rows.size:
+        messages = [
+            f"maturity_date {m} is on or before the as-of date {as_of_text} but the balance is "
+            f"{b:,.2f}; given a one-month horizon"
+            for m, b in zip(_date_text(maturity.values[rows]), balance.values[rows])
+        ]
+        yield _findings(rows, "maturity_date", "matured_with_balance", messages, "warning")
+    rows = np.flatnonzero(matured & ~carrying & (balance.values >= 0))
+    if rows.size:
+        messages = [
+            f"maturity_date {m} is on or before the as-of date {as_of_text} and the balance is 0: "
+            "the loan has ended (take it off the tape)"
+            for m in _date_text(maturity.values[rows])
+        ]
+        yield _findings(rows, "maturity_date", "matured", messages)
+
+
+def revolving_lines(cols: TapeColumns) -> Iterator[Findings]:
+    """Revolving lines need a credit limit; a balance above it is flagged, not rejected."""
+    repayment = cols.parsed["repayment"]
+    limit = cols.parsed["credit_limit"]
+    balance = cols.parsed["balance"]
+    revolving = np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
+    if not revolving.any():
+        return
+    rows = np.flatnonzero(revolving & limit.blank)
+    if rows.size:
+        message = f"credit_limit is blank but required for revolving lines ({_about(FIELDS['credit_limit'])})"
+        yield _findings(rows, "credit_limit", "missing_value", [message] * rows.size)
+    both = revolving & ~limit.blank & ~limit.bad & ~balance.blank & ~balance.bad
+    with np.errstate(invalid="ignore"):
+        rows = np.flatnonzero(both & (balance.values > limit.values) & (limit.values >= 0))
+    if rows.size:
+        messages = [
+            f"balance {b:,.2f} is above the credit_limit {c:,.2f}"
+            for b, c in zip(balance.values[rows], limit.values[rows])
+        ]
+        yield _findings(rows, "balance", "over_limit", messages, "warning")
+
+
+#: The rules, in the order their findings are listed for a row.
+ROW_RULES: tuple[Rule, ...] = (field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines)
+
+
+def apply_rules(cols: TapeColumns) -> list[Findings]:
+    """Every finding of every rule on the tape."""
+    return [finding for rule in ROW_RULES for finding in rule(cols)]

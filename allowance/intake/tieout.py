@@ -1,0 +1,142 @@
+"""Prove the tape to finance: the ledger tie-out and the intake count table."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from allowance.intake.results import IntakeResult, TieOut
+from allowance.intake.rules import CODES
+
+
+def _money(value: float) -> str:
+    return f"{value:,.2f}"
+
+
+def _rejected_balance(result: IntakeResult) -> tuple[float, int]:
+    """The balance on rejected rows that can be read as a number, and how many could not."""
+    rejected = result.rejected
+    column = _balance_header(result)
+    if column is None or rejected.empty:
+        return 0.0, len(rejected)
+    text = rejected[column].astype("str").str.strip()
+    values = pd.to_numeric(text, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    readable = np.isfinite(values)
+    return float(np.round(values[readable].sum(), 2)), int((~readable).sum())
+
+
+def _balance_header(result: IntakeResult) -> str | None:
+    """The rejected frame's column that holds the balance as read."""
+    name = result.headers.get("balance", "balance")
+    return name if name in result.rejected.columns else None
+
+
+def tie_out(
+    result: IntakeResult,
+    ledger_balance: float | None,
+    tolerance: float,
+    accept_difference: bool = False,
+) -> TieOut:
+    """Compare the accepted tape's balance with the ledger control total.
+
+    Parameters
+    ----------
+    result
+        The intake result.
+    ledger_balance
+        The general ledger's balance for the portfolio; ``None`` when none was given.
+    tolerance
+        The largest acceptable ``|accepted - ledger|``, in currency units.
+    accept_difference
+        The user's explicit acceptance of a difference beyond the tolerance (recorded).
+
+    Notes
+    -----
+    difference = Σ accepted balance − ledger. The explanation splits it into the balance on
+    rejected rows (what the tape would add if they were fixed) and the rest; a rest within a
+    cent per loan is reported as rounding of the extract.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from allowance.schemas import InputFile
+    >>> f = InputFile(role="tape", path="t.csv", sha256="0" * 64, bytes=1)
+    >>> r = IntakeResult(pd.DataFrame({"balance": [100.0, 50.0]}), pd.DataFrame({"balance": ["25"]}),
+    ...                  pd.DataFrame(), 3, f)
+    >>> t = tie_out(r, 175.0, 0.01)
+    >>> t.difference, t.rejected_balance, t.within_tolerance
+    (-25.0, 25.0, False)
+    """
+    accepted = float(np.round(result.accepted["balance"].to_numpy(dtype=np.float64).sum(), 2))
+    rejected, unreadable = _rejected_balance(result)
+    if ledger_balance is None:
+        return TieOut(
+            ledger_balance=None,
+            accepted_balance=accepted,
+            rejected_balance=rejected,
+            difference=0.0,
+            tolerance=tolerance,
+            within_tolerance=True,
+            accepted_by_user=accept_difference,
+            explanation=f"no ledger control total given; the accepted tape balance is {_money(accepted)}",
+        )
+    difference = round(accepted - ledger_balance, 2)
+    within = abs(difference) <= tolerance + 1e-9
+    parts = [
+        f"accepted tape balance {_money(accepted)} against ledger {_money(ledger_balance)}: "
+        f"difference {_money(difference)} ({'within' if within else 'beyond'} the tolerance {_money(tolerance)})"
+    ]
+    if difference != 0:
+        if result.rows_rejected:
+            unread = f"; {unreadable} rejected row(s) have no readable balance" if unreadable else ""
+            parts.append(f"{result.rows_rejected} rejected row(s) carry {_money(rejected)}{unread}")
+        rest = round(difference + rejected, 2)
+        cents = 0.01 * max(result.rows_read, 1)
+        if rest == 0:
+            parts.append("the rejected rows explain the whole difference")
+        elif abs(rest) <= cents:
+            parts.append(f"the remaining {_money(rest)} is within a cent per loan: rounding in the extract or ledger")
+        else:
+            parts.append(
+                f"{_money(rest)} is not explained by rejected rows or rounding: "
+                "check the extract's date and scope against the ledger"
+            )
+    if not within and accept_difference:
+        parts.append("the difference was accepted by the user")
+    return TieOut(
+        ledger_balance=float(ledger_balance),
+        accepted_balance=accepted,
+        rejected_balance=rejected,
+        difference=difference,
+        tolerance=tolerance,
+        within_tolerance=within,
+        accepted_by_user=accept_difference,
+        explanation="; ".join(parts),
+    )
+
+
+def check_table(result: IntakeResult) -> pd.DataFrame:
+    """The counts ``allowance check`` prints: rows, then rejections and warnings by reason.
+
+    Columns ``section`` (rows / rejected / warning), ``code``, ``column``, ``rows`` and
+    ``message``. A rejected row counts once under each distinct reason it has, so the
+    rejection lines may add up to more than the rejected rows.
+    """
+    lines = [
+        ("rows", "read", "", result.rows_read, "data rows in the file"),
+        ("rows", "accepted", "", result.rows_accepted, "rows that passed every rule"),
+        ("rows", "rejected", "", result.rows_rejected, "rows that failed at least one rule (see rejected.csv)"),
+    ]
+    if result.blank_rows:
+        lines.append(("rows", "blank", "", result.blank_rows, "empty lines skipped (not counted as read)"))
+    findings = result.findings
+    if len(findings):
+        for section, severity in (("rejected", "reject"), ("warning", "warning")):
+            part = findings[findings["severity"] == severity]
+            counts = part.groupby(["code", "column"], sort=True)["source_row"].nunique()
+            for (code, column), rows in counts.items():
+                summary = CODES.get(code, code).format(column=column or "line")
+                lines.append((section, code, column, int(rows), summary))
+    return pd.DataFrame(lines, columns=["section", "code", "column", "rows", "message"]).astype(
+        {"section": "str", "code": "str", "column": "str", "rows": np.int64, "message": "str"}
+    )

@@ -1,0 +1,196 @@
+"""End to end through the command line: the demo, bad inputs, check, init, schedule, what-if."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import openpyxl
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from allowance.cli import app
+from allowance.intake import bundled_path
+
+DEMO = bundled_path("demo")
+MANIFEST = tomllib.loads((DEMO / "manifest.toml").read_text())
+TAPE = DEMO / MANIFEST["current"]["tape"]
+ASSUMPTIONS = DEMO / MANIFEST["current"]["assumptions"]
+runner = CliRunner()
+
+
+def invoke(*args: str):
+    return runner.invoke(app, [str(a) for a in args], catch_exceptions=False)
+
+
+@pytest.fixture(scope="module")
+def demo_out(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("demo") / "demo-out"
+    result = invoke("demo", "--out", out)
+    assert result.exit_code == 0, result.output
+    return out
+
+
+def test_demo_writes_the_four_files(demo_out):
+    for name in ("loans.csv", "reserve.xlsx", "run.json", "rejected.csv"):
+        assert (demo_out / name).is_file(), name
+    assert (demo_out / "prior_quarter" / "loans.csv").is_file()
+
+
+def test_rows_read_equal_accepted_plus_rejected(demo_out):
+    record = json.loads((demo_out / "run.json").read_text())
+    rows = record["rows"]
+    assert rows["read"] == rows["accepted"] + rows["rejected"]
+    loans = pd.read_csv(demo_out / "loans.csv")
+    rejected = pd.read_csv(demo_out / "rejected.csv")
+    assert len(loans) == rows["accepted"] and len(rejected) == rows["rejected"]
+
+
+def test_run_record_totals_equal_the_loan_detail(demo_out):
+    record = json.loads((demo_out / "run.json").read_text())
+    loans = pd.read_csv(demo_out / "loans.csv")
+    for fw in record["frameworks"]:
+        cents = int(np.rint(loans[f"ecl_{fw}"].to_numpy() * 100).sum())
+        assert round(record["total_allowance"][fw] * 100) == cents
+    assert round(record["total_balance"] * 100) == int(np.rint(loans["balance"].to_numpy() * 100).sum())
+    assert {i["role"] for i in record["inputs"]} >= {"tape", "assumptions"}
+    assert all(len(i["sha256"]) == 64 for i in record["inputs"])
+
+
+def test_every_loan_respects_the_bounds(demo_out):
+    loans = pd.read_csv(demo_out / "loans.csv")
+    # IFRS 9 12-month ECL <= lifetime ECL, and ECL <= EAD, loan by loan
+    assert (loans["ecl_12m"] <= loans["ecl_lifetime"]).all()
+    assert (loans["ecl_lifetime"] <= loans["ead"]).all()
+    assert (loans["ecl_cecl_modelled"] <= loans["ead_cecl"]).all()
+
+
+def _sheet_values(path: Path) -> dict[str, list[tuple]]:
+    book = openpyxl.load_workbook(path, read_only=True, data_only=False)
+    return {ws.title: list(ws.iter_rows(values_only=True)) for ws in book.worksheets}
+
+
+def test_workbook_opens_and_carries_the_caution(demo_out):
+    from allowance.report import CAUTION
+
+    sheets = _sheet_values(demo_out / "reserve.xlsx")
+    text = " ".join(str(v) for rows in sheets.values() for row in rows for v in row if isinstance(v, str))
+    assert CAUTION in text
+    readme = (Path(__file__).parents[1] / "README.md").read_text()
+    assert CAUTION in readme.replace("\n> ", " ").replace("\n", " ")
+
+
+def test_demo_movement_ties(demo_out):
+    record = json.loads((demo_out / "run.json").read_text())
+    prior = json.loads((demo_out / "prior_quarter" / "run.json").read_text())
+    for fw, mv in record["movement"].items():
+        assert mv["opening"] == pytest.approx(prior["total_allowance"][fw], abs=0.001)
+        assert mv["closing"] == pytest.approx(record["total_allowance"][fw], abs=0.001)
+
+
+def test_what_if_downside_in_one_command(tmp_path):
+    out = tmp_path / "what-if"
+    result = invoke("run", TAPE, "--assumptions", ASSUMPTIONS, "--overlay", DEMO / MANIFEST["what_if"]["overlay"],
+                    "--out", out)
+    assert result.exit_code == 0, result.output
+    assert (out / "what_if.csv").is_file()
+    loans = pd.read_csv(out / "loans.csv")
+    # 100 % downside: the weighted result is the downside scenario's
+    assert np.allclose(loans["ecl_ifrs9_modelled"], loans["ecl_ifrs9_downside"], atol=0.011)
+
+
+def _one_line_error(result, *needles: str) -> None:
+    assert result.exit_code == 1, result.output
+    err = result.stderr if hasattr(result, "stderr") else result.output
+    assert "Traceback" not in result.output
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert len(lines) == 1, err
+    for needle in needles:
+        assert needle in lines[0], lines[0]
+
+
+def test_missing_tape_is_one_clear_line(tmp_path):
+    out = tmp_path / "out"
+    result = invoke("run", tmp_path / "nope.csv", "--assumptions", ASSUMPTIONS, "--out", out)
+    _one_line_error(result, "nope.csv")
+    assert not out.exists()
+
+
+def test_malformed_assumptions_name_the_file(tmp_path):
+    bad = tmp_path / "a.toml"
+    bad.write_text("[run\nas_of = 2026-09-30\n")
+    result = invoke("run", TAPE, "--assumptions", bad, "--out", tmp_path / "out")
+    _one_line_error(result, "a.toml")
+    assert not (tmp_path / "out").exists()
+
+
+def test_weights_that_do_not_sum_to_one(tmp_path):
+    text = ASSUMPTIONS.read_text().replace("weight = 0.6", "weight = 0.5", 1)
+    bad = tmp_path / "weights.toml"
+    bad.write_text(text)
+    shutil.copy(DEMO / "cards_rolls.csv", tmp_path / "cards_rolls.csv")
+    result = invoke("run", TAPE, "--assumptions", bad, "--out", tmp_path / "out")
+    _one_line_error(result, "weights.toml", "sum to 1")
+    assert not (tmp_path / "out").exists()
+
+
+def test_segment_without_assumptions_is_rejected_by_row(tmp_path):
+    tape = pd.read_csv(TAPE, dtype=str, keep_default_na=False)
+    tape.loc[0, "segment"] = "boats"
+    path = tmp_path / "tape.csv"
+    tape.to_csv(path, index=False)
+    result = invoke("check", path, "--assumptions", ASSUMPTIONS)
+    assert result.exit_code == 1
+    assert "boats" in result.output and "line 2" in result.output
+
+
+def test_check_passes_the_demo_and_fails_the_bad_tape():
+    good = invoke("check", TAPE, "--assumptions", ASSUMPTIONS)
+    assert good.exit_code == 0, good.output
+    bad = invoke("check", DEMO / MANIFEST["bad"]["tape"], "--assumptions", ASSUMPTIONS)
+    assert bad.exit_code == 1
+    assert "rejected" in bad.output
+
+
+def test_bad_tape_run_keeps_every_row(tmp_path):
+    out = tmp_path / "bad"
+    bad_tape = DEMO / MANIFEST["bad"]["tape"]
+    result = invoke("run", bad_tape, "--assumptions", ASSUMPTIONS, "--out", out, "--accept-ledger-difference")
+    assert result.exit_code == 0, result.output
+    read = len(pd.read_csv(bad_tape, dtype=str))
+    assert len(pd.read_csv(out / "loans.csv")) + len(pd.read_csv(out / "rejected.csv")) == read
+
+
+def test_init_copies_the_templates(tmp_path):
+    result = invoke("init", tmp_path / "q")
+    assert result.exit_code == 0, result.output
+    names = {p.name for p in (tmp_path / "q").iterdir()}
+    assert {"loan_tape.csv", "loan_tape.xlsx", "assumptions.toml"} <= names
+    again = invoke("init", tmp_path / "q")
+    assert again.exit_code == 1
+
+
+def test_schedule_prints_a_loan_to_zero():
+    tape = pd.read_csv(TAPE, dtype=str)
+    loan = tape.loc[(tape["repayment"] == "level") & (tape["days_past_due"] == "0"), "loan_id"].iloc[0]
+    result = invoke("schedule", TAPE, "--assumptions", ASSUMPTIONS, "--loan", loan)
+    assert result.exit_code == 0, result.output
+    last = result.output.strip().splitlines()[-1].split()
+    assert last[4] == "0.00"  # closing balance at maturity
+
+
+def test_usage_error_exits_2():
+    result = runner.invoke(app, ["run"])
+    assert result.exit_code == 2
+
+
+def test_the_console_entry_point_runs(tmp_path):
+    done = subprocess.run([sys.executable, "-m", "allowance", "check", str(TAPE), "--assumptions", str(ASSUMPTIONS)],
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
