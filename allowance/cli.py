@@ -333,6 +333,32 @@ def schedule(
         _say(shown.to_string(index=False))
 
 
+@app.command("roll-rates")
+def roll_rates(
+    assumptions: AssumptionsOption,
+    segment: Annotated[Optional[str], typer.Option("--segment", help="Only this segment.")] = None,
+) -> None:
+    """Print what each roll-rate matrix implies from every delinquency bucket.
+
+    12-month and lifetime PD (absorption into charge-off) and expected months to charge-off.
+    """
+    try:
+        config = intake.load_assumptions(assumptions)
+        table = engine.roll_rate_table(config)
+        if segment is not None:
+            if segment not in config.assumptions.segments:
+                raise AssumptionsError(f"no segment {segment!r}", column="segments",
+                                       hint=f"use one of {', '.join(config.assumptions.segments)}")
+            table = table[table["segment"] == segment] if not table.empty else table
+    except AllowanceError as err:
+        _fail(err)
+    if table.empty:
+        _say("no segment in these assumptions uses a transition_matrix")
+        return
+    with pd.option_context("display.width", 200, "display.float_format", "{:,.4f}".format):
+        _say(table.to_string(index=False))
+
+
 @app.command()
 def compare(
     prior: Annotated[Path, typer.Argument(help="Last quarter's output folder.")],

@@ -467,7 +467,7 @@ def run(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_SIZE, 
         overlays=applied.table,
         scenarios=_scenario_summary(loans, prep),
         term_structures=_term_structure_table(prep),
-        roll_rates=_roll_rates(config),
+        roll_rates=roll_rate_table(config),
         reversion=scenarios.reversion_table(prep.tables["cecl"]) if "cecl" in prep.tables else pd.DataFrame(),
         schedules=_schedule_sample(tape, loans, prep, schedule_sample),
         findings=pd.concat(found, ignore_index=True) if found else pd.DataFrame(),
@@ -529,7 +529,8 @@ def _term_structure_table(prep: Prepared) -> pd.DataFrame:
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
 
 
-def _roll_rates(config: RunConfig) -> pd.DataFrame:
+def roll_rate_table(config: RunConfig) -> pd.DataFrame:
+    """Roll-rate analytics of every segment whose PD comes from a transition matrix."""
     frames = [
         curves.roll_rate_summary(name, seg.transition_matrix, seg.charge_off_dpd)
         for name, seg in config.assumptions.segments.items()

@@ -194,3 +194,15 @@ def test_the_console_entry_point_runs(tmp_path):
     done = subprocess.run([sys.executable, "-m", "allowance", "check", str(TAPE), "--assumptions", str(ASSUMPTIONS)],
                           capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr
+
+
+def test_roll_rates_print_each_bucket():
+    result = invoke("roll-rates", "--assumptions", ASSUMPTIONS)
+    assert result.exit_code == 0, result.output
+    assert "dpd_150_179" in result.output and "expected_months_to_charge_off" in result.output
+
+
+def test_compare_two_finished_runs(demo_out):
+    result = invoke("compare", demo_out / "prior_quarter", demo_out)
+    assert result.exit_code == 0, result.output
+    assert "Opening" in result.output and "Closing" in result.output
