@@ -18,7 +18,7 @@ from typing import Annotated, Optional
 import pandas as pd
 import typer
 
-from allowance import __version__, engine, intake, reconcile, report
+from allowance import __version__, cashflows, engine, intake, reconcile, report
 from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
 from allowance.schemas import Assumptions, RunConfig
 
@@ -314,7 +314,7 @@ def schedule(
                                  hint="check the loan_id, or run 'allowance check' to see rejected rows")
         months = engine.tape_months(row, config)
         as_of = pd.Timestamp(config.as_of)
-        prep = engine.prepare(config, months, int(engine.cashflows.age_months(row["origination_date"], as_of).max()))
+        prep = engine.prepare(config, months, int(cashflows.age_months(row["origination_date"], as_of).max()))
         if framework is not None and framework not in prep.frameworks:
             raise AssumptionsError(f"framework {framework!r} is not run", column="run.frameworks",
                                    hint=f"use one of {', '.join(prep.frameworks)}")

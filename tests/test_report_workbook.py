@@ -12,10 +12,8 @@ import re
 import shutil
 import subprocess
 import zipfile
-from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
 from openpyxl import load_workbook
 

@@ -197,7 +197,7 @@ def _segment_stage(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> N
     money = [(c, label) for c, label in money if refs.has(c)]
     names = ["Segment", "Stage", "Loans"] + [label for _, label in money] + [f"{_FW_LABEL[f]} coverage" for f in fws]
     _header(ws, row + 1, 1, names, [22, 8, 10] + [18] * (len(names) - 3))
-    first = r = row + 2
+    r = row + 2
     segments = sorted(loans["segment"].dropna().unique(), key=str)
     classes = _classes(loans) if has_stage else [("", None, [])]
     for segment in segments:
