@@ -1,9 +1,12 @@
 """Cash flows: contractual balance paths for every repayment type, and expected prepayment.
 
-The maths is written once, as small scalar functions compiled with numba. The fused ECL loop
-(:mod:`allowance.ecl`) calls them per loan-month; the schedule view and the tests call the
-same functions through :func:`schedule`, so what an auditor checks by hand is what the engine
-computes.
+The maths is written once, as small scalar functions compiled with numba. Both the fused ECL
+loop (:mod:`allowance.ecl`) and the schedule view (:func:`schedule`) take a loan's level
+payment from :func:`contractual_payment`; the schedule then steps month by month
+(:func:`principal_step`: interest and principal for people to check), the loop follows the same
+path in closed form (:func:`path_terms`, :func:`balance_on_path`: no month waits on the last).
+The tests hold the two paths, and the stateless :func:`scheduled_principal`, equal for every
+repayment type, so what an auditor checks by hand is what the engine computes.
 
 Implements
 ----------
@@ -11,8 +14,13 @@ remaining_months     monthly payment dates after the as-of date up to and includ
 age_months           whole months from origination to the as-of date (PSA seasoning)
 smm_from_cpr         single monthly mortality from an annual constant prepayment rate
 psa_cpr              the PSA standard prepayment benchmark at a multiple
+level_payment        the level payment that amortizes a balance to a residual
 annuity_principal    scheduled principal of a level payment that amortizes to a residual
-scheduled_principal  one month's scheduled principal for any repayment type
+scheduled_principal  one month's scheduled principal for any repayment type (stateless)
+contractual_payment  a loan's level payment, once per loan, for the compiled loop
+principal_step       one month's scheduled principal given that payment (the schedule's form)
+path_terms           growth and payment of the closed-form balance path
+balance_on_path      the scheduled balance after t months in closed form (the loop's form)
 balloon_residual     the amount left at maturity of a balloon loan
 payment_shortfall    the balance a given payment leaves at maturity (a final balloon)
 schedule             one loan's month-by-month schedule, contractual and expected
@@ -64,15 +72,17 @@ def age_months(origination: pd.Series, as_of: pd.Timestamp) -> np.ndarray:
 
     Examples
     --------
-    >>> o = pd.Series(pd.to_datetime(["2026-09-01", "2024-09-30", "2024-10-01"]))
+    >>> o = pd.Series(pd.to_datetime(["2026-09-01", "2024-09-30", "2024-10-01", "2026-08-31"]))
     >>> age_months(o, pd.Timestamp("2026-09-30")).tolist()
-    [0, 24, 23]
+    [0, 24, 23, 1]
     """
     orig = pd.to_datetime(origination)
     whole = (as_of.year - orig.dt.year.to_numpy(np.int64)) * 12 + (
         as_of.month - orig.dt.month.to_numpy(np.int64)
     )
-    return np.maximum(whole - (orig.dt.day.to_numpy(np.int64) > as_of.day), 0).astype(np.int64)
+    # the monthly anniversary in the as-of month, clipped to that month's length (31 Aug -> 30 Sep)
+    anniversary = np.minimum(orig.dt.day.to_numpy(np.int64), as_of.days_in_month)
+    return np.maximum(whole - (anniversary > as_of.day), 0).astype(np.int64)
 
 
 @numba.njit(cache=True)
@@ -121,18 +131,45 @@ def psa_cpr(age: float, psa: float) -> float:
 
 
 @numba.njit(cache=True)
+def level_payment(balance: float, rate: float, months: int, residual: float) -> float:
+    r"""Level monthly payment that takes ``balance`` to ``residual`` in ``months`` payments.
+
+    Notes
+    -----
+    With monthly rate r, n payments and v = (1 + r)^{-1},
+
+    .. math:: P = \frac{(B - R v^n)\, r}{1 - v^n}
+
+    and P = (B - R)/n when r = 0; with n <= 1 the whole difference B - R is due now.
+
+    References
+    ----------
+    .. [1] Kellison, S. G., *The Theory of Interest*, chapter on amortization schedules
+       (the level-payment annuity); ``numpy_financial.pmt`` computes the same payment.
+
+    Examples
+    --------
+    >>> round(level_payment(100_000.0, 0.005, 360, 0.0), 2)
+    599.55
+    """
+    if months <= 1:
+        return balance * (1.0 + rate) - residual if months == 1 else balance - residual
+    if rate == 0.0:
+        return (balance - residual) / months
+    v_n = (1.0 + rate) ** (-months)
+    return (balance - residual * v_n) * rate / (1.0 - v_n)
+
+
+@numba.njit(cache=True)
 def annuity_principal(balance: float, rate: float, months: int, residual: float) -> float:
     r"""Scheduled principal this month of a level payment that takes ``balance`` to ``residual``.
 
     Notes
     -----
-    With monthly rate r, n payments left and v = (1 + r)^{-1}, the level payment is
-
-    .. math:: P = \frac{(B - R v^n)\, r}{1 - v^n}, \qquad \text{principal} = P - B r
-
-    and P = (B - R)/n when r = 0. Recomputing P every month from the current balance gives the
-    same payment as the original schedule (annuity invariance), so the loop needs no state.
-    The last payment retires what is left.
+    principal = P - B r with P the :func:`level_payment`. Recomputing P every month from the
+    current balance gives the same payment as the original schedule (annuity invariance), so
+    this stateless form and the loop's ``P`` computed once (:func:`principal_step`) agree. The
+    last payment retires what is left.
 
     Examples
     --------
@@ -141,11 +178,7 @@ def annuity_principal(balance: float, rate: float, months: int, residual: float)
     """
     if months <= 1:
         return balance - residual
-    if rate == 0.0:
-        return (balance - residual) / months
-    v_n = (1.0 + rate) ** (-months)
-    payment = (balance - residual * v_n) * rate / (1.0 - v_n)
-    return payment - balance * rate
+    return level_payment(balance, rate, months, residual) - balance * rate
 
 
 @numba.njit(cache=True)
@@ -159,7 +192,7 @@ def scheduled_principal(
     payment: float,
     paydown: float,
 ) -> float:
-    """One month's scheduled principal, from the opening ``balance``.
+    """One month's scheduled principal, from the opening ``balance`` alone (no state).
 
     Parameters
     ----------
@@ -177,7 +210,17 @@ def scheduled_principal(
     interest, never negative; whatever is left is due at maturity). interest_only: no
     principal during the interest-only months, then level payment over the rest (pure
     interest-only pays everything at maturity). balloon: level payment to the residual, which
-    is due at maturity. revolving: ``paydown`` × balance; no maturity.
+    is due at maturity. revolving: ``paydown`` x balance; no maturity.
+
+    This is the reference form; the compiled loop uses the equal, cheaper pair
+    :func:`contractual_payment` (once per loan) and :func:`principal_step` (per month).
+
+    Examples
+    --------
+    >>> round(scheduled_principal(LEVEL, 100_000.0, 0.005, 360, 0, 0.0, float("nan"), 0.0), 2)
+    99.55
+    >>> scheduled_principal(INTEREST_ONLY, 100_000.0, 0.005, 360, 24, 0.0, float("nan"), 0.0)
+    0.0
     """
     if code == REVOLVING:
         return balance * paydown
@@ -190,6 +233,109 @@ def scheduled_principal(
     if payment == payment:  # given on the tape (not NaN)
         return min(balance, max(payment - balance * rate, 0.0))
     return annuity_principal(balance, rate, months_left, 0.0)
+
+
+@numba.njit(cache=True)
+def contractual_payment(
+    code: int, balance: float, rate: float, months_left: int, io_left: int, residual: float, payment: float
+) -> float:
+    """The level payment of a loan's amortizing phase, from its state at the as-of date.
+
+    Notes
+    -----
+    balloon: the :func:`level_payment` to the residual over ``months_left``; level and
+    interest-only: the tape's ``payment`` when given, else the level payment to zero over the
+    months after the interest-only period (the balance does not move during it); revolving: 0
+    (its principal is a share of the balance).
+
+    Examples
+    --------
+    >>> round(contractual_payment(INTEREST_ONLY, 100_000.0, 0.005, 384, 24, 0.0, float("nan")), 2)
+    599.55
+    """
+    if code == REVOLVING:
+        return 0.0
+    if code == BALLOON:
+        return level_payment(balance, rate, months_left, residual)
+    if payment == payment:
+        return payment
+    return level_payment(balance, rate, max(months_left - max(io_left, 0), 1), 0.0)
+
+
+@numba.njit(cache=True)
+def principal_step(
+    code: int, balance: float, rate: float, months_left: int, io_left: int, level: float, paydown: float
+) -> float:
+    """One month's scheduled principal given the loan's ``level`` payment.
+
+    ``level`` is :func:`contractual_payment` of the loan at the as-of date; the other
+    arguments are as in :func:`scheduled_principal`, which this equals month by month (annuity
+    invariance) without a power per month.
+
+    Notes
+    -----
+    principal = min(B, max(P - B r, 0)); the whole balance at maturity; 0 during the
+    interest-only months; ``paydown`` x B for revolving lines.
+
+    Examples
+    --------
+    >>> p = contractual_payment(LEVEL, 100_000.0, 0.005, 360, 0, 0.0, float("nan"))
+    >>> round(principal_step(LEVEL, 100_000.0, 0.005, 360, 0, p, 0.0), 2)
+    99.55
+    """
+    if code == REVOLVING:
+        return balance * paydown
+    if months_left <= 1:
+        return balance
+    if io_left > 0:
+        return 0.0
+    return min(balance, max(level - balance * rate, 0.0))
+
+
+@numba.njit(cache=True)
+def path_terms(code: int, balance: float, rate: float, level: float, paydown: float) -> tuple[float, float]:
+    """Growth factor g and payment P of a loan's closed-form balance path.
+
+    See :func:`balance_on_path`. Amortizing loans: g = 1 + r and P = max(level, B r) (a tape
+    payment below the interest leaves the balance where it is, as :func:`principal_step`
+    does); revolving lines: g = 1 - paydown and P = 0.
+
+    Examples
+    --------
+    >>> path_terms(REVOLVING, 1_000.0, 0.01, 0.0, 0.05)
+    (0.95, 0.0)
+    """
+    if code == REVOLVING:
+        return 1.0 - paydown, 0.0
+    return 1.0 + rate, max(level, balance * rate)
+
+
+@numba.njit(cache=True)
+def balance_on_path(balance: float, growth_power: float, annuity_factor: float, payment: float) -> float:
+    r"""Scheduled balance after t amortizing months, in closed form.
+
+    Notes
+    -----
+    With g and P from :func:`path_terms`, :math:`x_t = g^t` and
+    :math:`s_t = \sum_{j<t} g^j = (g^t - 1)/(g - 1)` (``numpy_financial.fv`` of an annuity of 1),
+
+    .. math:: B_t = \max(B\, x_t - P\, s_t,\ 0)
+
+    which is the month-by-month recursion :math:`B_{t+1} = B_t - \text{principal}_t` of
+    :func:`principal_step` unrolled (the floor is its ``min(B, ...)``). The compiled loop
+    carries :math:`x_{t+1} = g x_t` and :math:`s_{t+1} = g s_t + 1`: two short recurrences
+    that do not wait on the balance, so the months pipeline. Interest-only months do not
+    advance t; at r = 0, :math:`s_t = t` (straight-line principal).
+
+    Examples
+    --------
+    12 monthly payments of 100 retire 1,200 at a zero rate; half-way, 600 is left:
+
+    >>> balance_on_path(1_200.0, 1.0, 6.0, 100.0)
+    600.0
+    """
+    left = balance * growth_power - payment * annuity_factor
+    return left if left > 0.0 else 0.0  # a compare, not max(): one instruction in the loop
 
 
 def balloon_residual(balance, rate, months_left, amortization_left):
@@ -247,8 +393,9 @@ def _schedule_arrays(code, balance, rate, months, io_left, residual, payment, pa
     out = np.empty((months, 8))
     bal = balance
     alive = 1.0  # survival: neither prepaid nor defaulted
+    level = contractual_payment(code, balance, rate, months, io_left, residual, payment)
     for t in range(months):
-        principal = scheduled_principal(code, bal, rate, months - t, io_left - t, residual, payment, paydown)
+        principal = principal_step(code, bal, rate, months - t, io_left - t, level, paydown)
         interest = bal * rate
         close = bal - principal
         default_share = pd[t]

@@ -1,0 +1,211 @@
+"""The fused ECL loop against worked examples, a per-loan numpy reference and invariants."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import numpy_financial as npf
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from allowance.curves.lgd import collateral_lgd
+from allowance.ecl import KernelInputs, KernelResult, expected_losses
+from tests.strategies import random_kernel_book
+
+
+def _one_loan(**over) -> KernelInputs:
+    """One loan, one framework, one scenario; keyword arguments replace fields."""
+    one = lambda v, dt=float: np.array([v], dtype=dt)  # noqa: E731
+    base = dict(
+        code=one(1, np.int64), balance=one(1e6), rate=one(0.0), months_left=one(60, np.int64),
+        io_left=one(60, np.int64), residual=one(0.0), payment=one(np.nan), curve=one(0, np.int64),
+        prepay=one(0, np.int64), prepay_offset=one(0, np.int64), in_default=np.zeros((1, 1), np.bool_),
+        lgd=one(0.25), collateral=one(0.0), haircut=one(0.0), recovery_cost=one(0.0), lgd_floor=one(0.0),
+        recovery_discount=one(1.0), cure=one(0.0), horizon=np.full((1, 1), 60, np.int64),
+        ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)), discount=np.ones((1, 1)),
+        pd=np.zeros((1, 1, 60, 1)), smm=np.zeros((1, 60)), lgd_multiplier=np.ones((1, 60, 1)),
+        collateral_index=np.ones((1, 60, 1)),
+    )
+    base.update(over)
+    return KernelInputs(**base)
+
+
+def _hazard(pd_12m: float) -> float:
+    """Constant monthly hazard reproducing a 12-month PD: 1 - (1 - PD)^(1/12)."""
+    return 1.0 - (1.0 - pd_12m) ** (1.0 / 12.0)
+
+
+def test_one_period_worked_example():
+    # 1,000,000 bullet exposure, 12-month PD 0.5 %, LGD 25 %, no prepayment, undiscounted:
+    # 12-month ECL = PD x LGD x EAD = 1,250; gross loss PD x EAD = 5,000 (common practice, no source)
+    pd_table = np.full((1, 1, 60, 1), _hazard(0.005))
+    net = expected_losses(_one_loan(pd=pd_table))
+    assert net.ecl_12m[0, 0, 0] == pytest.approx(1_250.0, rel=1e-12)
+    assert net.pd_12m[0, 0, 0] == pytest.approx(0.005, rel=1e-12)
+    assert net.ead[0, 0] == 1e6 and net.lgd[0, 0] == 0.25
+    gross = expected_losses(_one_loan(pd=pd_table, lgd=np.array([1.0])))
+    assert gross.ecl_12m[0, 0, 0] == pytest.approx(5_000.0, rel=1e-12)
+    # and as one monthly period: PD 0.5 % in the only month
+    one_month = _one_loan(pd=np.full((1, 1, 60, 1), 0.005), horizon=np.ones((1, 1), np.int64))
+    assert expected_losses(one_month).ecl_lifetime[0, 0, 0] == pytest.approx(1_250.0, rel=1e-12)
+
+
+def test_defaulted_loan_takes_lgd_times_ead():
+    k = _one_loan(in_default=np.ones((1, 1), np.bool_), pd=np.full((1, 1, 60, 1), 0.01), ead_add=np.full((1, 1), 5e4))
+    res = expected_losses(k)
+    # PD = 1 now: ECL = LGD x EAD_0 (common practice, no source)
+    assert res.ecl_12m[0, 0, 0] == res.ecl_lifetime[0, 0, 0] == pytest.approx(0.25 * 1.05e6)
+    assert res.pd_12m[0, 0, 0] == res.pd_lifetime[0, 0, 0] == 1.0
+
+
+def test_discounting_from_the_end_of_the_default_month():
+    v = 1 / 1.005
+    k = _one_loan(pd=np.full((1, 1, 60, 1), 0.01), horizon=np.full((1, 1), 3, np.int64), discount=np.full((1, 1), v))
+    res = expected_losses(k)
+    # sum over months t = 1..3 of S_{t-1} pd EAD LGD (1 + i)^-t (common practice, no source)
+    expected = sum(0.99 ** (t - 1) * 0.01 * 1e6 * 0.25 * v**t for t in (1, 2, 3))
+    assert res.ecl_lifetime[0, 0, 0] == pytest.approx(expected, rel=1e-12)
+
+
+# --------------------------------------------------------------------------------------
+# the loop against a straightforward per-loan numpy reference
+# --------------------------------------------------------------------------------------
+
+
+def _balance_path(k: KernelInputs, i: int, f: int, months: int) -> np.ndarray:
+    """Opening balance of months 1..months, from numpy_financial (or by definition)."""
+    b, r, n, io = k.balance[i], k.rate[i], int(k.months_left[i]), int(k.io_left[i])
+    t = np.arange(months)
+    with np.errstate(invalid="ignore", divide="ignore"):  # npf evaluates its rate-0 branch's twin
+        if k.code[i] == 3:  # revolving: a constant share repaid (common practice, no source)
+            return b * (1.0 - k.paydown[f, i]) ** t
+        if k.code[i] == 2:  # balloon: numpy_financial.pmt to the residual, then fv
+            return -npf.fv(r, t, npf.pmt(r, n, b, -k.residual[i]), b)
+        if k.code[i] == 1:  # interest-only months, then numpy_financial level pay over the rest
+            amort = max(n - io, 1)
+            return np.where(t < io, b, -npf.fv(r, np.maximum(t - io, 0), npf.pmt(r, amort, b), b))
+        return -npf.fv(r, t, npf.pmt(r, n, b), b)  # level: numpy_financial.pmt and fv
+
+
+def _loss_rate(k: KernelInputs, i, f, ead, t, s):
+    if k.collateral[i] > 0:
+        base = (1 - k.cure[i]) * collateral_lgd(
+            ead, k.collateral[i] * k.collateral_index[f, t, s], k.haircut[i], k.recovery_cost[i],
+            k.lgd_floor[i], k.recovery_discount[i],
+        )
+    else:
+        base = np.full_like(ead, k.lgd[i])
+    return np.minimum(1.0, base * k.lgd_multiplier[f, t, s])
+
+
+def reference(k: KernelInputs) -> KernelResult:
+    """ECL = sum_t S_{t-1} pd_t LGD_t EAD_t DF_t, loan by loan, vectorised over months."""
+    n, (n_fw, _, _, n_sc) = len(k.balance), k.pd.shape
+    out = {name: np.zeros((n, n_fw, n_sc)) for name in ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime")}
+    ead0, lgd0 = np.zeros((n, n_fw)), np.zeros((n, n_fw))
+    for i in range(n):
+        for f in range(n_fw):
+            e0 = np.array([k.balance[i] + k.ead_add[f, i]])
+            ead0[i, f] = e0[0]
+            lgd0[i, f] = _loss_rate(k, i, f, e0, 0, 0)[0]
+            if k.in_default[f, i]:
+                for s in range(n_sc):
+                    loss = e0[0] * _loss_rate(k, i, f, e0, 0, s)[0]
+                    out["ecl_12m"][i, f, s] = out["ecl_lifetime"][i, f, s] = loss
+                    out["pd_12m"][i, f, s] = out["pd_lifetime"][i, f, s] = 1.0
+                continue
+            h = int(k.horizon[f, i]) if k.code[i] == 3 else min(int(k.horizon[f, i]), int(k.months_left[i]))
+            t = np.arange(h)
+            ead = np.maximum(_balance_path(k, i, f, h), 0.0) + k.ead_add[f, i]
+            df = k.discount[f, i] ** (t + 1)
+            smm = k.smm[k.prepay[i], k.prepay_offset[i] + t]
+            for s in range(n_sc):
+                pd_t = k.pd[f, k.curve[i], :h, s]
+                alive = np.concatenate([[1.0], np.cumprod((1 - pd_t) * (1 - smm))[:-1]])  # S_{t-1}
+                default = alive * pd_t
+                loss = default * _loss_rate(k, i, f, ead, t, s) * ead * df
+                out["ecl_lifetime"][i, f, s] = loss.sum()
+                out["ecl_12m"][i, f, s] = loss[:12].sum()
+                out["pd_lifetime"][i, f, s] = default.sum()
+                out["pd_12m"][i, f, s] = default[:12].sum()
+    return KernelResult(**out, ead=ead0, lgd=lgd0)
+
+
+@settings(max_examples=20, deadline=None, derandomize=True)
+@given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.integers(1, 6), st.booleans())
+def test_loop_equals_the_numpy_reference(seed, frameworks, scenarios, secured):
+    k = random_kernel_book(seed, n=30, frameworks=frameworks, scenarios=scenarios, secured=secured,
+                           multipliers=secured)
+    got, want = expected_losses(k), reference(k)
+    for name in ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime", "ead", "lgd"):
+        np.testing.assert_allclose(getattr(got, name), getattr(want, name), rtol=1e-9, atol=1e-6, err_msg=name)
+
+
+def test_many_scenarios_use_every_lane():
+    """More scenarios than the loop carries at once (4): each group lands in its own column."""
+    k = random_kernel_book(7, n=25, frameworks=1, scenarios=9, secured=False, multipliers=True)
+    np.testing.assert_allclose(expected_losses(k).ecl_lifetime, reference(k).ecl_lifetime, rtol=1e-9, atol=1e-6)
+
+
+# --------------------------------------------------------------------------------------
+# invariants
+# --------------------------------------------------------------------------------------
+
+_INVARIANT = settings(max_examples=30, deadline=None, derandomize=True)
+
+
+@_INVARIANT
+@given(st.integers(0, 2**32 - 1))
+def test_ecl_bounded_by_exposure_and_twelve_months_by_lifetime(seed):
+    r = expected_losses(random_kernel_book(seed, n=40))
+    assert (r.ecl_lifetime <= r.ead[:, :, None] * (1 + 1e-12)).all()
+    assert (r.ecl_12m <= r.ecl_lifetime * (1 + 1e-12)).all()
+    assert (r.pd_12m <= r.pd_lifetime + 1e-15).all() and (r.pd_lifetime <= 1 + 1e-12).all()
+    assert (r.ecl_12m >= 0).all()
+
+
+@_INVARIANT
+@given(st.integers(0, 2**32 - 1), st.floats(1.0, 3.0), st.floats(0.0, 0.5))
+def test_monotone_in_pd_and_in_lgd(seed, pd_scale, lgd_step):
+    # flat LGD on a unit path: the loss severity EAD_t x DF_t never rises, so more PD means more
+    # loss even though fewer loans survive to default later
+    k = random_kernel_book(seed, n=40, secured=False, multipliers=False)
+    base = expected_losses(k)
+    more_pd = expected_losses(dataclasses.replace(k, pd=np.minimum(1.0, k.pd * pd_scale)))
+    more_lgd = expected_losses(dataclasses.replace(k, lgd=np.minimum(1.0, k.lgd + lgd_step)))
+    for bigger in (more_pd, more_lgd):
+        assert (bigger.ecl_lifetime >= base.ecl_lifetime * (1 - 1e-12)).all()
+        assert (bigger.ecl_12m >= base.ecl_12m * (1 - 1e-12)).all()
+
+
+def test_short_horizon_twelve_months_equal_lifetime():
+    k = _one_loan(pd=np.full((1, 1, 60, 1), 0.01), horizon=np.full((1, 1), 7, np.int64))
+    r = expected_losses(k)
+    assert r.ecl_12m[0, 0, 0] == r.ecl_lifetime[0, 0, 0] > 0
+    assert r.pd_12m[0, 0, 0] == pytest.approx(1 - 0.99**7, rel=1e-12)  # 1 - (1 - pd)^7 (definition)
+
+
+def test_empty_book():
+    k = random_kernel_book(1, n=1)
+    empty = KernelInputs(**{
+        f.name: (getattr(k, f.name)[..., :0] if f.name in ("in_default", "horizon", "ead_add", "paydown", "discount")
+                 else getattr(k, f.name)[:0] if getattr(k, f.name).ndim == 1 else getattr(k, f.name))
+        for f in dataclasses.fields(KernelInputs)
+    })
+    assert expected_losses(empty).ecl_lifetime.shape == (0, 2, 3)
+
+
+@pytest.mark.parametrize(
+    ("field", "value", "message"),
+    [
+        ("balance", np.array([np.nan]), "balance holds NaN"),
+        ("horizon", np.full((1, 1), 61, np.int64), "horizon lies outside"),
+        ("curve", np.array([3]), "curve key"),
+        ("prepay_offset", np.array([5]), "SMM table"),
+    ],
+)
+def test_bad_inputs_are_refused_not_read_past_the_tables(field, value, message):
+    with pytest.raises(ValueError, match=message):
+        expected_losses(_one_loan(**{field: value}))
