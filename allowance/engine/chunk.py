@@ -17,7 +17,7 @@ import pandas as pd
 from allowance import cashflows, curves, scenarios, staging
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, expected_losses
-from allowance.engine.tables import Prepared, _behavioural_life, _remaining, _segment_values
+from allowance.engine.tables import Prepared, _behavioural_life, _by_segment, _remaining, _segment_values
 from allowance.exceptions import AssumptionsError
 
 
@@ -105,7 +105,8 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     segments = prep.config.assumptions.segments
     as_of = pd.Timestamp(prep.config.as_of)
     repayment = chunk["repayment"].to_numpy()
-    code = np.array([cashflows.REPAYMENT_CODES[r] for r in repayment], dtype=np.int64)
+    kinds, names = pd.factorize(chunk["repayment"])
+    code = np.array([cashflows.REPAYMENT_CODES[k] for k in names] + [0], dtype=np.int64)[kinds]
     rate = monthly_rate(chunk["interest_rate"].to_numpy(float))
     eir = chunk["eir"].to_numpy(float)
     eir = np.where(np.isnan(eir), chunk["interest_rate"].to_numpy(float), eir)
@@ -189,14 +190,14 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> tuple[pd.DataFrame, pd.Dat
                 discount[f] = 1.0 / (1.0 + monthly_rate(eir))
 
     # LGD per loan
-    has_coll_lgd = np.array([segments[s].collateral_lgd is not None for s in chunk["segment"]], dtype=bool)
+    has_coll_lgd = _by_segment(chunk, {k: float(v.collateral_lgd is not None) for k, v in segments.items()}, 0.0) > 0
     collateral = np.where(has_coll_lgd, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0)
     cure = _segment_values(chunk, segments, "cure_rate", 0.0)
     flat = curves.effective_lgd(_segment_values(chunk, segments, "lgd"), cure)
 
     def coll_param(attr):
         table = {k: (getattr(s.collateral_lgd, attr) if s.collateral_lgd else 0.0) for k, s in segments.items()}
-        return chunk["segment"].map(table).to_numpy(dtype=float)
+        return _by_segment(chunk, table, 0.0)
 
     rec_df = curves.recovery_discount_factor(eir, coll_param("months_to_recovery"))
     inputs = KernelInputs(

@@ -43,10 +43,15 @@ class Prepared:
 # --------------------------------------------------------------------------------------
 
 
+def _by_segment(tape: pd.DataFrame, table: dict[str, object], default=np.nan) -> np.ndarray:
+    """One number per loan from a per-segment table (a lookup per segment, not per loan)."""
+    codes, names = pd.factorize(tape["segment"])
+    per_segment = np.array([default if table.get(n) is None else table[n] for n in names] + [default], dtype=float)
+    return per_segment[codes]  # code -1 (no segment) takes the default
+
+
 def _segment_values(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions], attr: str, default=np.nan):
-    table = {name: getattr(seg, attr) for name, seg in segments.items()}
-    values = tape["segment"].map(lambda s: table.get(s)).to_numpy(dtype=object)
-    return np.array([default if v is None else v for v in values], dtype=float)
+    return _by_segment(tape, {name: getattr(seg, attr) for name, seg in segments.items()}, default)
 
 
 def _behavioural_life(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions]) -> np.ndarray:
