@@ -17,7 +17,14 @@ import pandas as pd
 from allowance import cashflows, curves, scenarios, staging
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, expected_losses
-from allowance.engine.tables import Prepared, _behavioural_life, _by_segment, _remaining, _segment_values
+from allowance.engine.tables import (
+    Prepared,
+    _behavioural_life,
+    _by_segment,
+    _remaining,
+    _revolving_parameter,
+    _segment_values,
+)
 from allowance.exceptions import AssumptionsError
 
 
@@ -166,7 +173,6 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> tuple[pd.DataFrame, pd.Dat
     limit = chunk["credit_limit"].to_numpy(float)
     undrawn = np.where(revolving, np.maximum(np.nan_to_num(limit) - balance, 0.0), 0.0)
     ccf = _segment_values(chunk, segments, "ccf", 0.0)
-    pay_rate = _segment_values(chunk, segments, "payment_rate")
     cancellable = _segment_values(chunk, segments, "unconditionally_cancellable", 1.0) > 0
     ead_add = np.zeros((len(prep.frameworks), n))
     paydown = np.zeros((len(prep.frameworks), n))
@@ -177,15 +183,10 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> tuple[pd.DataFrame, pd.Dat
             discount[f] = 1.0 / (1.0 + monthly_rate(eir))
         else:
             ead_add[f] = np.where(cancellable, 0.0, ccf * undrawn)
-            missing = revolving & np.isnan(pay_rate)
-            if missing.any():
-                seg = chunk["segment"].to_numpy()[missing][0]
-                raise AssumptionsError(
-                    f"segment {seg!r} has revolving lines but no payment_rate for CECL",
-                    column=f"segments.{seg}.payment_rate",
-                    hint="state the monthly share of the drawn balance repaid (e.g. 0.05)",
-                )
-            paydown[f] = np.where(revolving, np.nan_to_num(pay_rate), 0.0)
+            paydown[f] = _revolving_parameter(
+                chunk, segments, "payment_rate", " for CECL",
+                "state the monthly share of the drawn balance repaid (e.g. 0.05)",
+            )
             if a.cecl.discount:
                 discount[f] = 1.0 / (1.0 + monthly_rate(eir))
 

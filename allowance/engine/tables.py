@@ -54,18 +54,23 @@ def _segment_values(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions],
     return _by_segment(tape, {name: getattr(seg, attr) for name, seg in segments.items()}, default)
 
 
-def _behavioural_life(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions]) -> np.ndarray:
-    life = _segment_values(tape, segments, "behavioural_life_months")
+def _revolving_parameter(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions], attr: str,
+                         why: str, hint: str) -> np.ndarray:
+    """A segment parameter revolving lines cannot do without; never assumed when missing."""
+    values = _segment_values(tape, segments, attr)
     revolving = (tape["repayment"] == "revolving").to_numpy()
-    missing = revolving & np.isnan(life)
+    missing = revolving & np.isnan(values)
     if missing.any():
         seg = tape["segment"].to_numpy()[missing][0]
-        raise AssumptionsError(
-            f"segment {seg!r} has revolving lines but no behavioural_life_months",
-            column=f"segments.{seg}.behavioural_life_months",
-            hint="state the behavioural life in months (IFRS 9 B5.5.40)",
-        )
-    return np.where(revolving, life, 0).astype(np.int64)
+        raise AssumptionsError(f"segment {seg!r} has revolving lines but no {attr}{why}",
+                               column=f"segments.{seg}.{attr}", hint=hint)
+    return np.where(revolving, values, 0.0)
+
+
+def _behavioural_life(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions]) -> np.ndarray:
+    return _revolving_parameter(
+        tape, segments, "behavioural_life_months", "", "state the behavioural life in months (IFRS 9 B5.5.40)"
+    ).astype(np.int64)
 
 
 def _remaining(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndarray) -> np.ndarray:

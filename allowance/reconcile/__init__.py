@@ -12,28 +12,8 @@ WhatIf            base run against a what-if rerun of the same tape
 what_if_comparison
 MOVEMENT_LINES    line codes and their labels
 
-How a loan moves
-----------------
-All arithmetic is in whole cents (int64) on the rounded loan figures of the two runs, so
-every line is an exact sum and every table foots exactly. For one loan, with P / C the
-prior / current allowance, P_m / C_m their modelled parts and A_m the modelled allowance of
-the current tape at the prior run's assumptions (A_m = C_m when that rerun is absent):
-
-=========================  ==========================================================
-new loans                  A_m (current only)
-derecognised               -P (prior only, no charge-off)
-written off                -P (prior only, charged off: the allowance utilised);
-                           -min(P, charge-off) for a partial charge-off of a continuing loan
-transfer to stage k        P less any write-off, out of the prior stage, into stage k
-remeasurement              A_m - P_m + write-off (continuing loans, at prior assumptions)
-assumptions or scenarios   C_m - A_m (every current loan)
-overlay changes            (C - C_m) - (P - P_m); C - C_m for new loans
-closing                    C
-=========================  ==========================================================
-
-Per loan the lines sum to C - P, so opening + movements = closing in every stage, segment
-and their crossing. The gross carrying amount moves the same way, with "other changes"
-(repayments, amortisation, drawings) taking the part of remeasurement.
+How each loan's change splits into the movement lines is set out in
+:mod:`allowance.reconcile.movement`.
 """
 
 from allowance.reconcile.movement import Movement, compare_runs, movement
