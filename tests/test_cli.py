@@ -206,3 +206,12 @@ def test_compare_two_finished_runs(demo_out):
     result = invoke("compare", demo_out / "prior_quarter", demo_out)
     assert result.exit_code == 0, result.output
     assert "Opening" in result.output and "Closing" in result.output
+
+
+def test_output_folders_take_the_users_usual_mode(demo_out):
+    import os
+
+    umask = os.umask(0)
+    os.umask(umask)
+    for folder in (demo_out, demo_out / "prior_quarter"):
+        assert folder.stat().st_mode & 0o777 == 0o777 & ~umask

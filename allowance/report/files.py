@@ -164,6 +164,10 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
     try:
         parent.mkdir(parents=True, exist_ok=True)
         partial = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=parent))
+        # mkdtemp makes the folder private; the finished folder gets the user's usual mode
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(partial, 0o777 & ~umask)
     except OSError as err:
         raise OutputError(f"cannot create the output folder ({err.strerror or err})", file=out_dir,
                           hint="check the path and that you may write there") from err
