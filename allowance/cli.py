@@ -329,8 +329,9 @@ def schedule(
          f"rate {r['interest_rate']:.4%}, {len(frame)} months; "
          f"{frame['framework'].iloc[0]} / scenario {frame['scenario'].iloc[0]}")
     shown = frame.drop(columns=["loan_id", "framework", "scenario"])
-    with pd.option_context("display.max_rows", 1000, "display.width", 200, "display.float_format", "{:,.2f}".format):
-        _say(shown.to_string(index=False))
+    money = "{:,.2f}".format
+    formats = {c: ("{:.6f}".format if c == "survival" else money) for c in shown.columns if c != "month"}
+    _say(shown.to_string(index=False, formatters=formats))
 
 
 @app.command("roll-rates")
