@@ -47,3 +47,19 @@ def test_loans_csv_contract_columns():
                 "lgd", "ecl_12m", "ecl_lifetime", "ecl_ifrs9", "ecl_cecl"]
     assert set(contract) <= set(loans.columns)
     assert {f"ecl_{fw}_{s}" for fw in ("ifrs9", "cecl") for s in ("base", "down")} <= set(loans.columns)
+
+
+def test_every_subpackage_ships_in_the_wheel():
+    # the tests import the checkout, so a package missing from pyproject would pass here and
+    # break 'pip install .'; this keeps the two in step
+    import tomllib
+    from pathlib import Path
+
+    root = Path(__file__).parents[1]
+    listed = set(tomllib.loads((root / "pyproject.toml").read_text())["tool"]["setuptools"]["packages"])
+    found = {
+        ".".join(p.parent.relative_to(root).parts)
+        for p in (root / "allowance").rglob("__init__.py")
+        if "__pycache__" not in p.parts
+    }
+    assert found <= listed, f"add to [tool.setuptools] packages: {sorted(found - listed)}"
