@@ -19,6 +19,7 @@ import pandas as pd
 import typer
 
 from allowance import __version__, cashflows, engine, intake, reconcile, report
+from allowance.report import clock
 from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
 from allowance.schemas import Assumptions, RunConfig
 
@@ -68,6 +69,7 @@ def run_quarter(
 ) -> Quarter:
     """A whole reserve run: read, validate, tie out, compute, explain the movement, write."""
     started = time.perf_counter()
+    started_at = clock.now()
     config = intake.load_assumptions(assumptions, overlays)
     if label is not None:
         config = _relabel(config, label)
@@ -114,7 +116,7 @@ def run_quarter(
     findings = pd.concat([taken.findings, result.findings], ignore_index=True)
     taken = dataclasses.replace(taken, findings=findings)
     record = report.run_record(config, taken, result.loans, tie_out=tie, warnings=warnings,
-                               movements=tuple((movements or {}).values()))
+                               movements=tuple((movements or {}).values()), started=started_at)
     run_report = report.RunReport(
         config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays,
         scenarios=result.scenarios, term_structures=result.term_structures,

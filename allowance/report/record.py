@@ -24,6 +24,7 @@ import pandas as pd
 
 import allowance
 from allowance.intake import IntakeResult, TieOut
+from allowance.report import clock
 from allowance.schemas import Framework, InputFile, RunConfig
 
 if TYPE_CHECKING:
@@ -184,7 +185,9 @@ def run_record(
     movements : iterable of Movement
         When a prior run was given: each framework's opening, closing and provision.
     started : datetime, optional
-        When the run started (UTC); the record's ``timestamp`` is now.
+        When the run started (from :func:`allowance.report.clock.now`); the record's
+        ``timestamp`` is :func:`~allowance.report.clock.now` when the record is built. Both
+        are ``SOURCE_DATE_EPOCH`` when that is set; ``started`` defaults to ``timestamp``.
     extra : mapping, optional
         Further keys (``"what_if": {...}``, timings), merged in last.
 
@@ -211,6 +214,7 @@ def run_record(
             entry["by_segment"] = {str(s): money_total(g) for s, g in loans.groupby("segment")[f"ecl_{f}"]}
         totals[f] = entry
     run = config.assumptions.run
+    finished = clock.now()
     record: dict[str, Any] = {
         "package": "allowance",
         "version": allowance.__version__,
@@ -219,8 +223,8 @@ def run_record(
         "frameworks": list(config.frameworks),
         "currency": run.currency,
         "run_by": _user(),
-        "started": started.astimezone(timezone.utc).isoformat() if started else None,
-        "timestamp": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "started": (started or finished).astimezone(timezone.utc).isoformat(timespec="seconds"),
+        "timestamp": finished.isoformat(timespec="seconds"),
         "inputs": [i.model_dump(mode="json") for i in inputs],
         "rows": {"read": intake.rows_read, "accepted": intake.rows_accepted, "rejected": intake.rows_rejected},
         "loans": len(loans),
