@@ -10,6 +10,7 @@ import importlib
 import pytest
 
 from allowance.cli import app
+from tests.books import engine_config, engine_tape
 
 PINNED = {
     "allowance.intake": {"IntakeResult", "PriorRun", "TieOut", "bundled_path", "check_table", "file_record",
@@ -38,11 +39,9 @@ def test_commands_stay():
 
 
 def test_loans_csv_contract_columns():
-    from tests.test_engine import config, tape
-
     from allowance import engine
 
-    loans = engine.run(tape(30), config()).loans
+    loans = engine.run(engine_tape(30), engine_config()).loans
     contract = ["loan_id", "segment", "stage", "horizon_months", "balance", "ead", "pd_12m", "pd_lifetime",
                 "lgd", "ecl_12m", "ecl_lifetime", "ecl_ifrs9", "ecl_cecl"]
     assert set(contract) <= set(loans.columns)

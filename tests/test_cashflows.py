@@ -142,7 +142,7 @@ def test_remaining_and_age_months_at_month_ends():
 # identities for every repayment type (property tests)
 # --------------------------------------------------------------------------------------
 
-_PROPERTY = settings(max_examples=50, deadline=None, derandomize=True)
+_PROPERTY = settings(max_examples=50)
 
 
 def _run(loan: dict, smm=0.0, pd_=0.0) -> pd.DataFrame:

@@ -69,7 +69,7 @@ def test_kernels_compile_with_numba_and_agree_with_numpy() -> None:
         assert ead_jit(ead[i], 250_000.0, 0.4) == pytest.approx(revolving_ead(ead, 250_000.0, 0.4)[i], rel=1e-15)
 
 
-@settings(max_examples=50, deadline=None)
+@settings(max_examples=50)
 @given(
     ead=st.floats(0.0, 1e9),
     collateral=st.floats(0.0, 1e9),

@@ -5,7 +5,6 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from hypothesis import given, settings
-from strategies import example_roll_matrix, transition_matrices
 
 from allowance.curves import (
     bucket_index,
@@ -22,6 +21,7 @@ from allowance.curves import (
 )
 from allowance.exceptions import AssumptionsError
 from allowance.schemas import SegmentAssumptions, TransitionMatrix
+from tests.strategies import example_roll_matrix, transition_matrices
 
 POLICIES = [(120, True), (120, False), (180, True), (180, False)]
 
@@ -115,7 +115,7 @@ def test_bucket_index() -> None:
         bucket_index(np.array([-1]), 120)
 
 
-@settings(max_examples=30, deadline=None)
+@settings(max_examples=30)
 @given(matrix=transition_matrices())
 def test_any_valid_matrix_matches_matrix_powers(matrix: TransitionMatrix) -> None:
     # Chapman-Kolmogorov: P(charged off by t | start i) = (P^t)[i, charge_off]; numpy.linalg.matrix_power

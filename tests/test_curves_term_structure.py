@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from strategies import example_roll_matrix, marginal_arrays, pd_12m_values, pd_curves, segment_assumptions
 
 import allowance.curves as curves
 from allowance.curves import (
@@ -24,6 +23,7 @@ from allowance.curves import (
 )
 from allowance.exceptions import AssumptionsError
 from allowance.schemas import SegmentAssumptions
+from tests.strategies import example_roll_matrix, marginal_arrays, pd_12m_values, pd_curves, segment_assumptions
 
 MONTHS = 120
 # an external prepayment (CPR 12 %/year as a monthly SMM), for the competing-risk cases
@@ -191,7 +191,7 @@ def test_public_api() -> None:
 # --------------------------------------------------------------------------------------
 
 
-@settings(max_examples=50, deadline=None)
+@settings(max_examples=50)
 @given(segment=segment_assumptions(), months=st.integers(1, 60))
 def test_any_source_gives_probabilities_and_a_falling_survival(segment: SegmentAssumptions, months: int) -> None:
     # properties of a survival model, common practice, no source
@@ -206,7 +206,7 @@ def test_any_source_gives_probabilities_and_a_falling_survival(segment: SegmentA
     assert np.all(cum + s <= 1.0 + 1e-12)
 
 
-@settings(max_examples=50, deadline=None)
+@settings(max_examples=50)
 @given(marginal=marginal_arrays(), data=st.data())
 def test_derived_quantities_are_consistent(marginal: np.ndarray, data: st.DataObject) -> None:
     # common practice, no source: C_t = sum S_{k-1} pd_k = 1 - S_t without payoffs
@@ -219,7 +219,7 @@ def test_derived_quantities_are_consistent(marginal: np.ndarray, data: st.DataOb
         np.testing.assert_allclose(cumulative_pd(marginal), 1.0 - s, rtol=0, atol=1e-12)
 
 
-@settings(max_examples=50, deadline=None)
+@settings(max_examples=50)
 @given(curve=pd_curves, extra_years=st.integers(0, 3))
 def test_curve_points_are_reproduced(curve: list[float], extra_years: int) -> None:
     # log-linear survival within each year passes through every given point, common practice, no source
@@ -232,7 +232,7 @@ def test_curve_points_are_reproduced(curve: list[float], extra_years: int) -> No
     assert np.all(pd_t[12 * len(curve) :] == pd_t[12 * len(curve) - 1])  # flat after the last year
 
 
-@settings(max_examples=50, deadline=None)
+@settings(max_examples=50)
 @given(pd_12m=pd_12m_values)
 def test_constant_hazard_returns_the_12_month_pd(pd_12m: float) -> None:
     # common practice, no source

@@ -34,7 +34,7 @@ def test_present_value_broadcasts_over_loans():
     assert pv.tolist() == pytest.approx([100 / 1.01 + 100 / 1.01**2, 50.0])  # (1 + i)^-t by hand
 
 
-@settings(max_examples=40, deadline=None, derandomize=True)
+@settings(max_examples=40)
 @given(contract_loans().filter(lambda x: x["repayment"] != "revolving"))
 def test_pv_of_any_contract_at_its_rate_is_its_balance(loan):
     """Every amortizing type's scheduled payments (interest + principal, the balloon included)

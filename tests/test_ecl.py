@@ -133,7 +133,7 @@ def reference(k: KernelInputs) -> KernelResult:
     return KernelResult(**out, ead=ead0, lgd=lgd0)
 
 
-@settings(max_examples=20, deadline=None, derandomize=True)
+@settings(max_examples=20)
 @given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.integers(1, 6), st.booleans())
 def test_loop_equals_the_numpy_reference(seed, frameworks, scenarios, secured):
     k = random_kernel_book(seed, n=30, frameworks=frameworks, scenarios=scenarios, secured=secured,
@@ -153,7 +153,7 @@ def test_many_scenarios_use_every_lane():
 # invariants
 # --------------------------------------------------------------------------------------
 
-_INVARIANT = settings(max_examples=30, deadline=None, derandomize=True)
+_INVARIANT = settings(max_examples=30)
 
 
 @_INVARIANT

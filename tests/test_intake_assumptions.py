@@ -14,7 +14,7 @@ import pytest
 from allowance.exceptions import AssumptionsError
 from allowance.intake import load_assumptions, read_tape
 from allowance.schemas import TransitionMatrix
-from strategies import INTAKE_ASSUMPTIONS
+from tests.strategies import INTAKE_ASSUMPTIONS
 
 OVERLAY_ENTRY = """
 [[overlays]]

@@ -24,7 +24,7 @@ from allowance.intake import (
     tie_out,
 )
 from allowance.schemas import OPTIONAL_COLUMNS, REQUIRED_COLUMNS
-from strategies import INTAKE_ASSUMPTIONS
+from tests.strategies import INTAKE_ASSUMPTIONS
 
 HEADER = "loan_id,segment,repayment,origination_date,maturity_date,balance,interest_rate,days_past_due"
 

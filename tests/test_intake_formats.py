@@ -12,8 +12,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from allowance.exceptions import InputFileError, TapeError
-from allowance.intake import load_assumptions, read_tape
-from strategies import INTAKE_ASSUMPTIONS
+from allowance.intake import read_tape
 
 COLUMNS = ["loan_id", "segment", "repayment", "origination_date", "maturity_date", "balance",
            "interest_rate", "days_past_due", "credit_limit", "grade", "watchlist", "prior_stage", "branch"]
@@ -27,10 +26,8 @@ ROWS = [
 
 
 @pytest.fixture()
-def config(tmp_path: Path):
-    path = tmp_path / "assumptions.toml"
-    path.write_text(INTAKE_ASSUMPTIONS, encoding="utf-8")
-    return load_assumptions(path)
+def config(intake_config):
+    return intake_config
 
 
 def _text(value: object) -> str:

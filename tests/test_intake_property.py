@@ -11,11 +11,12 @@ import csv
 import tempfile
 from pathlib import Path
 
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from allowance.intake import load_assumptions, read_tape
-from strategies import INTAKE_ASSUMPTIONS, INTAKE_COLUMNS, TAPE_FAULTS, fault_applies, intake_tapes
+from tests.strategies import INTAKE_ASSUMPTIONS, INTAKE_COLUMNS, TAPE_FAULTS, fault_applies, intake_tapes
 
 _FOLDER = tempfile.TemporaryDirectory(prefix="intake-property-")
 _ASSUMPTIONS = Path(_FOLDER.name) / "assumptions.toml"
@@ -63,7 +64,8 @@ def spoiled_tapes(draw):
     return rows, expected
 
 
-@settings(max_examples=40, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
+@pytest.mark.slow
+@settings(max_examples=40, suppress_health_check=[HealthCheck.too_slow])
 @given(spoiled_tapes())
 def test_every_fault_is_rejected_with_its_code_and_nothing_is_lost(case):
     rows, expected = case
@@ -87,7 +89,7 @@ def test_every_fault_is_rejected_with_its_code_and_nothing_is_lost(case):
     assert accepted_lines.isdisjoint(rejected)
 
 
-@settings(max_examples=25, deadline=None, derandomize=True)
+@settings(max_examples=25)
 @given(intake_tapes(min_rows=1, max_rows=20))
 def test_a_valid_tape_is_accepted_whole_and_its_extras_carried_through(rows):
     result = read_tape(_write(rows), CONFIG)

@@ -16,7 +16,7 @@ import pytest
 from allowance.exceptions import InputFileError, TapeError
 from allowance.intake import check_table, load_assumptions, read_tape
 from allowance.schemas import OPTIONAL_COLUMNS, REQUIRED_COLUMNS
-from strategies import INTAKE_ASSUMPTIONS
+from tests.strategies import INTAKE_ASSUMPTIONS
 
 HEADER = "loan_id,segment,repayment,origination_date,maturity_date,balance,interest_rate,days_past_due,credit_limit,grade"
 GOOD = "L1,retail,level,2024-01-15,2030-01-15,1000.50,0.065,0,,"
@@ -24,10 +24,8 @@ CARD = "C1,cards,revolving,2020-03-01,,500,0.2,0,2000,"
 
 
 @pytest.fixture()
-def config(tmp_path: Path):
-    path = tmp_path / "assumptions.toml"
-    path.write_text(INTAKE_ASSUMPTIONS, encoding="utf-8")
-    return load_assumptions(path)
+def config(intake_config):
+    return intake_config
 
 
 def tape(tmp_path: Path, *lines: str, header: str = HEADER, name: str = "tape.csv") -> Path:

@@ -9,10 +9,10 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from strategies import ecl_vectors
 
 from allowance.overlays import TABLE_COLUMNS, OverlayResult, allocate_cents, apply_overlays
 from allowance.schemas import Overlay
+from tests.strategies import ecl_vectors
 
 AS_OF = date(2026, 9, 30)
 
@@ -62,7 +62,7 @@ def test_amount_overlay_on_zero_ecl_splits_equally():
     assert _cents(res.adjustments["ifrs9"]).tolist() == [34, 33, 33]  # largest remainder, by hand
 
 
-@settings(max_examples=50, deadline=None, derandomize=True)
+@settings(max_examples=50)
 @given(modelled=ecl_vectors(), amount_cents=st.integers(-10**10, 10**10))
 def test_allocation_sums_exactly(modelled, amount_cents):
     # largest-remainder apportionment: the shares always sum to the total (common practice, no source)
@@ -74,7 +74,7 @@ def test_allocation_sums_exactly(modelled, amount_cents):
         assert np.all(np.abs(shares - exact) < 1.0 + 1e-6 * abs(amount_cents))  # within a cent of pro rata
 
 
-@settings(max_examples=50, deadline=None, derandomize=True)
+@settings(max_examples=50)
 @given(modelled=ecl_vectors(), amount=st.decimals(0, 10**7, places=2))
 def test_amount_overlay_allocation_sums_exactly(modelled, amount):
     loans = pd.DataFrame({"segment": "auto", "stage": 1, "ecl_ifrs9_modelled": modelled})

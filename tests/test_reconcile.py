@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 
 from allowance.reconcile import MovementError, check_movement, compare_runs, movement, what_if_comparison
 from allowance.report.text import neutralise_text
-from strategies import run_pairs
+from tests.strategies import run_pairs
 
 
 def cents(x) -> np.ndarray:
@@ -157,7 +157,8 @@ def _class(frame: pd.DataFrame, framework: str) -> pd.Series:
     return np.where(frame["poci"], "PCD", "non-PCD")
 
 
-@settings(max_examples=50, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@pytest.mark.slow
+@settings(max_examples=50, suppress_health_check=[HealthCheck.too_slow])
 @given(pair=run_pairs(), framework=st.sampled_from(["ifrs9", "cecl"]))
 def test_movement_ties_to_the_cent(pair, framework):
     prior, current, rerun, charge_offs = pair
@@ -215,7 +216,8 @@ def test_movement_ties_to_the_cent(pair, framework):
     assert (cents(loans[lines]).sum(axis=1) == cents(loans["closing"])).all()
 
 
-@settings(max_examples=30, deadline=None)
+@pytest.mark.slow
+@settings(max_examples=30)
 @given(pair=run_pairs(max_loans=25), data=st.data())
 def test_a_one_cent_break_is_caught(pair, data):
     prior, current, rerun, charge_offs = pair

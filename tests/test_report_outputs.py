@@ -15,7 +15,7 @@ import allowance.report.files as files
 from allowance.exceptions import OutputError
 from allowance.reconcile import compare_runs
 from allowance.report import write_outputs
-from strategies import example_loans, example_report
+from tests.strategies import example_loans, example_report
 
 
 def cents(x) -> int:

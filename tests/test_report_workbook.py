@@ -19,7 +19,7 @@ from openpyxl import load_workbook
 
 from allowance.reconcile import compare_runs, what_if_comparison
 from allowance.report import CAUTION, SHEETS, write_workbook
-from strategies import example_loans, example_report
+from tests.strategies import example_loans, example_report
 
 
 def cents(x) -> int:
@@ -162,6 +162,7 @@ def test_single_framework_and_no_extras(tmp_path):
     assert "IFRS 9 allowance" not in " ".join(str(c.value) for row in wb["Summary"].iter_rows() for c in row if c.value)
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(shutil.which("soffice") is None, reason="LibreOffice (soffice) is not installed")
 def test_libreoffice_recalculation_matches_python(book, tmp_path):
     path, _, ledger = book

@@ -10,7 +10,6 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.polynomial.hermite_e import hermegauss
 from scipy.stats import norm
-from strategies import asset_correlations, interior_pds, monthly_pd_tables, z_values
 
 from allowance.exceptions import AssumptionsError
 from allowance.scenarios import (
@@ -26,6 +25,7 @@ from allowance.scenarios import (
     weighted,
 )
 from allowance.schemas import Assumptions, Scenario, SegmentAssumptions
+from tests.strategies import asset_correlations, interior_pds, monthly_pd_tables, z_values
 
 
 def _assumptions(scenarios: dict, frameworks=("ifrs9", "cecl"), cecl=None) -> Assumptions:
@@ -105,7 +105,7 @@ def test_vasicek_edges_and_scalars():
             vasicek_conditional_pd(**bad)
 
 
-@settings(max_examples=50, deadline=None, derandomize=True)
+@settings(max_examples=50)
 @given(pd=interior_pds, rho=asset_correlations, z1=z_values, z2=z_values)
 def test_vasicek_monotone_decreasing_in_z_and_a_probability(pd, rho, z1, z2):
     lo, hi = min(z1, z2), max(z1, z2)
@@ -191,14 +191,14 @@ def test_z_path_without_correlation_is_an_error():
         scenario_marginals(np.full((1, 12), 0.01), Scenario(weight=1.0, z=[-1.0]), None)
 
 
-@settings(max_examples=50, deadline=None, derandomize=True)
+@settings(max_examples=50)
 @given(base=monthly_pd_tables(), multipliers=st.lists(st.floats(1.0, 10.0), max_size=5))
 def test_multipliers_of_at_least_one_never_lower_a_pd(base, multipliers):
     out = scenario_marginals(base, Scenario(weight=1.0, pd_multiplier=multipliers), None)
     assert np.all(out >= base) and np.all(out <= 1.0)
 
 
-@settings(max_examples=50, deadline=None, derandomize=True)
+@settings(max_examples=50)
 @given(base=monthly_pd_tables(), z=st.lists(z_values, min_size=1, max_size=5), rho=asset_correlations)
 def test_z_paths_stay_probabilities(base, z, rho):
     out = scenario_marginals(base, Scenario(weight=1.0, z=z), np.full(base.shape[0], rho))
