@@ -13,7 +13,7 @@ import time
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Optional
+from typing import Annotated
 
 import pandas as pd
 import typer
@@ -183,20 +183,20 @@ def run(
     assumptions: AssumptionsOption,
     out: OutOption,
     overlay: Annotated[
-        Optional[list[Path]],
+        list[Path] | None,
         typer.Option("--overlay", help="What-if file(s) merged over the assumptions; the base run is compared."),
     ] = None,
-    prior: Annotated[Optional[Path], typer.Option("--prior", help="Last quarter's output folder: explain the movement.")] = None,
+    prior: Annotated[Path | None, typer.Option("--prior", help="Last quarter's output folder: explain the movement.")] = None,
     charge_offs: Annotated[
-        Optional[Path], typer.Option("--charge-offs", help="The period's write-offs: loan_id, gross_charge_off, recoveries.")
+        Path | None, typer.Option("--charge-offs", help="The period's write-offs: loan_id, gross_charge_off, recoveries.")
     ] = None,
     ledger_balance: Annotated[
-        Optional[float], typer.Option("--ledger-balance", help="Ledger control total (overrides [run] ledger_balance).")
+        float | None, typer.Option("--ledger-balance", help="Ledger control total (overrides [run] ledger_balance).")
     ] = None,
     accept_ledger_difference: Annotated[
         bool, typer.Option("--accept-ledger-difference", help="Go on when the tape does not tie to the ledger (recorded).")
     ] = False,
-    label: Annotated[Optional[str], typer.Option("--label", help="A name for this run, kept in the run record.")] = None,
+    label: Annotated[str | None, typer.Option("--label", help="A name for this run, kept in the run record.")] = None,
     parquet: Annotated[bool, typer.Option("--parquet", help="Also write loans.parquet.")] = False,
 ) -> None:
     """Compute the allowance for a tape and write the workbook, loan detail and run record."""
@@ -250,7 +250,7 @@ def demo(
 def check(
     tape: Annotated[Path, typer.Argument(help="The loan tape to validate.")],
     assumptions: AssumptionsOption,
-    ledger_balance: Annotated[Optional[float], typer.Option("--ledger-balance", help="Ledger control total.")] = None,
+    ledger_balance: Annotated[float | None, typer.Option("--ledger-balance", help="Ledger control total.")] = None,
 ) -> None:
     """Validate a tape only: rows read / accepted / rejected by reason, and the ledger tie-out.
 
@@ -303,8 +303,8 @@ def schedule(
     tape: Annotated[Path, typer.Argument(help="The loan tape.")],
     assumptions: AssumptionsOption,
     loan: Annotated[str, typer.Option("--loan", help="The loan_id to schedule.")],
-    framework: Annotated[Optional[str], typer.Option("--framework", help="ifrs9 or cecl (default: the first listed).")] = None,
-    scenario: Annotated[Optional[str], typer.Option("--scenario", help="Scenario whose PDs are shown (default: the first).")] = None,
+    framework: Annotated[str | None, typer.Option("--framework", help="ifrs9 or cecl (default: the first listed).")] = None,
+    scenario: Annotated[str | None, typer.Option("--scenario", help="Scenario whose PDs are shown (default: the first).")] = None,
 ) -> None:
     """Print one loan's projected schedule, contractual and expected, to check by hand."""
     try:
@@ -339,7 +339,7 @@ def schedule(
 @app.command("roll-rates")
 def roll_rates(
     assumptions: AssumptionsOption,
-    segment: Annotated[Optional[str], typer.Option("--segment", help="Only this segment.")] = None,
+    segment: Annotated[str | None, typer.Option("--segment", help="Only this segment.")] = None,
 ) -> None:
     """Print what each roll-rate matrix implies from every delinquency bucket.
 
@@ -366,7 +366,7 @@ def roll_rates(
 def compare(
     prior: Annotated[Path, typer.Argument(help="Last quarter's output folder.")],
     current: Annotated[Path, typer.Argument(help="This quarter's output folder.")],
-    charge_offs: Annotated[Optional[Path], typer.Option("--charge-offs", help="The period's write-offs file.")] = None,
+    charge_offs: Annotated[Path | None, typer.Option("--charge-offs", help="The period's write-offs file.")] = None,
 ) -> None:
     """Explain the allowance movement between two finished runs, loan by loan."""
     try:

@@ -238,7 +238,7 @@ class SegmentAssumptions(_Strict):
     asset_correlation: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None
 
     @model_validator(mode="after")
-    def _one_source_each(self) -> "SegmentAssumptions":
+    def _one_source_each(self) -> SegmentAssumptions:
         pd_sources = [
             k
             for k in ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix")
@@ -291,7 +291,7 @@ class Ifrs9Rules(_Strict):
     )
 
     @model_validator(mode="after")
-    def _ordered(self) -> "Ifrs9Rules":
+    def _ordered(self) -> Ifrs9Rules:
         if self.default_dpd <= self.sicr_backstop_dpd:
             raise ValueError("default_dpd must be greater than sicr_backstop_dpd")
         return self
@@ -326,7 +326,7 @@ class Scenario(_Strict):
     description: str = ""
 
     @model_validator(mode="after")
-    def _one_pd_path(self) -> "Scenario":
+    def _one_pd_path(self) -> Scenario:
         if self.pd_multiplier and self.z:
             raise ValueError("give pd_multiplier or z, not both")
         return self
@@ -359,7 +359,7 @@ class Assumptions(_Strict):
     overlays: list[Overlay] = Field(default_factory=list)
 
     @model_validator(mode="after")
-    def _consistent(self) -> "Assumptions":
+    def _consistent(self) -> Assumptions:
         if "ifrs9" in self.run.frameworks and self.ifrs9 is None:
             raise ValueError("frameworks lists ifrs9 but there is no [ifrs9] table")
         if "cecl" in self.run.frameworks and self.cecl is None:

@@ -139,7 +139,7 @@ QUARTERS = {
 def segments_toml(pd_by_grade, names=("mortgage", "auto", "personal", "cards", "cre", "heloc")) -> str:
     auto, personal = ({g: float(p) for g, p in zip("ABCDE", pd_by_grade[s])} for s in ("auto", "personal"))
     tables = {
-        "mortgage": f"""
+        "mortgage": """
 [segments.mortgage]
 # Residential first-lien mortgages, 30-year level pay. Cumulative PD by year from the as-of date.
 pd_curve = [0.006, 0.013, 0.02, 0.026, 0.031, 0.035, 0.039, 0.042, 0.045, 0.048]

@@ -13,7 +13,8 @@ PD_SOURCES             pd_source key -> builder
 
 from __future__ import annotations
 
-from typing import Callable, Literal
+from typing import Literal
+from collections.abc import Callable
 
 import numpy as np
 

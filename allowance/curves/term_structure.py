@@ -17,7 +17,7 @@ pd_over                 cumulative PD at a horizon (the 12-month PD is ``pd_over
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Iterable
+from collections.abc import Iterable
 
 import numpy as np
 

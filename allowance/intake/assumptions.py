@@ -362,7 +362,7 @@ def _check_columns(merged: _Merged) -> None:
     columns = tape.get("columns") if isinstance(tape, dict) else None
     if not isinstance(columns, dict):
         return
-    for ours, header in columns.items():
+    for ours in columns:
         if ours not in FIELDS:
             close = difflib.get_close_matches(ours, list(FIELDS), n=1)
             key: Key = ("tape", "columns", ours)

@@ -44,7 +44,7 @@ OUTPUT_FILES: tuple[str, ...] = (
 def _arrow_ready(frame: pd.DataFrame) -> pd.DataFrame:
     """Dates without a time of day as dates (``2026-09-30``, not a timestamp)."""
     out = frame
-    for position, name in enumerate(frame.columns):
+    for position in range(frame.shape[1]):
         column = frame.iloc[:, position]
         if pd.api.types.is_datetime64_any_dtype(column.dtype) and not getattr(column.dtype, "tz", None):
             stamps = column.to_numpy(dtype="datetime64[ns]")

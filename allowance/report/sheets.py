@@ -56,7 +56,7 @@ def _movement_table(ws: Any, row: int, table: pd.DataFrame, title: str, led: Led
     return last + 2
 
 
-def movement_sheet(ws: Any, movements: "tuple[Movement, ...]", led: Ledger) -> None:
+def movement_sheet(ws: Any, movements: tuple[Movement, ...], led: Ledger) -> None:
     """Each framework's allowance and gross carrying amount movement, and the roll-forward."""
     ws.column_dimensions["A"].width = 44
     row = 1
@@ -84,7 +84,7 @@ def movement_sheet(ws: Any, movements: "tuple[Movement, ...]", led: Ledger) -> N
         row = last + 2
 
 
-def journal_sheet(ws: Any, movements: "tuple[Movement, ...]", led: Ledger) -> None:
+def journal_sheet(ws: Any, movements: tuple[Movement, ...], led: Ledger) -> None:
     """The journal summary that books the period's provision (or release), by segment."""
     row = 1
     for m in movements:
@@ -106,7 +106,7 @@ def journal_sheet(ws: Any, movements: "tuple[Movement, ...]", led: Ledger) -> No
     ws.column_dimensions["C"].width = 48
 
 
-def what_if_sheet(ws: Any, what_if: "WhatIf") -> None:
+def what_if_sheet(ws: Any, what_if: WhatIf) -> None:
     summary = what_if.summary
     ws.cell(row=1, column=1, value=clean_text(
         f"What-if rerun against the base run: {len(what_if.stage_changes):,} loans change stage "
@@ -115,11 +115,11 @@ def what_if_sheet(ws: Any, what_if: "WhatIf") -> None:
     ws.freeze_panes = "A5"
 
 
-def stage_changes_frame(what_if: "WhatIf") -> pd.DataFrame:
+def stage_changes_frame(what_if: WhatIf) -> pd.DataFrame:
     return what_if.stage_changes
 
 
-def warnings_frame(report: "RunReport") -> pd.DataFrame:
+def warnings_frame(report: RunReport) -> pd.DataFrame:
     """Intake findings on accepted rows, then the run's own warnings."""
     cols = ["source_row", "loan_id", "column", "code", "message"]
     intake = report.intake.warnings
@@ -129,7 +129,7 @@ def warnings_frame(report: "RunReport") -> pd.DataFrame:
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
 
 
-def intake_sheet(ws: Any, report: "RunReport", refs: LoanRefs, led: Ledger) -> None:
+def intake_sheet(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
     """Rows read, accepted and rejected (by reason), warnings by code, and the ledger tie-out."""
     intake = report.intake
     ws.column_dimensions["A"].width = 42
@@ -193,7 +193,7 @@ def _key_values(ws: Any, row: int, title: str, data: dict) -> int:
     return row + 1
 
 
-def assumptions_sheet(ws: Any, report: "RunReport") -> None:
+def assumptions_sheet(ws: Any, report: RunReport) -> None:
     """The assumptions the run used, as the engine saw them after every overlay file was merged."""
     a = report.config.assumptions
     ws.column_dimensions["A"].width = 30
@@ -241,7 +241,7 @@ def assumptions_sheet(ws: Any, report: "RunReport") -> None:
         row = last + 2
 
 
-def term_structure_sheet(ws: Any, report: "RunReport") -> None:
+def term_structure_sheet(ws: Any, report: RunReport) -> None:
     """Cumulative PD at fixed months, one row per segment / curve key / framework / scenario."""
     ts = report.term_structures
     ws.cell(row=1, column=1, value="Cumulative PD term structures (full monthly curves on 'Monthly PD curves')").font = TITLE_FONT
@@ -261,7 +261,7 @@ def term_structure_sheet(ws: Any, report: "RunReport") -> None:
     ws.freeze_panes = "A4"
 
 
-def record_sheet(ws: Any, report: "RunReport") -> None:
+def record_sheet(ws: Any, report: RunReport) -> None:
     """The run record: who, when, what version, which files (with SHA-256), counts and totals."""
     record = report.record or {}
     ws.column_dimensions["A"].width = 26

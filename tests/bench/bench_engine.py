@@ -158,12 +158,12 @@ def materialise_pass(horizons: np.ndarray, scenarios: int, chunk: int = 1000) ->
 def fresh_process_first_call(cache_dir: str) -> float:
     """Seconds for the first expected_losses call in a new process with this numba cache."""
     code = (
-        "import sys, time; sys.path.insert(0, %r)\n"
+        f"import sys, time; sys.path.insert(0, {str(ROOT)!r})\n"
         "from tests.strategies import random_kernel_book\n"
         "from allowance.ecl import expected_losses\n"
         "k = random_kernel_book(1, n=1000, secured=True)\n"
         "t = time.perf_counter(); expected_losses(k); print(time.perf_counter() - t)\n"
-    ) % str(ROOT)
+    )
     env = dict(os.environ, NUMBA_CACHE_DIR=cache_dir)
     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, check=True)
     return float(out.stdout.strip().splitlines()[-1])
