@@ -9,7 +9,7 @@ import pytest
 
 from allowance.exceptions import AllowanceError
 from allowance.report import clock, write_outputs
-from strategies import example_report
+from tests.strategies import example_report
 
 # 1790812800 s after 1970-01-01 UTC is 2026-10-01T00:00:00Z (computed with Python's datetime).
 PINNED = "1790812800"
