@@ -563,3 +563,37 @@ def random_kernel_book(seed: int, n: int = 40, frameworks: int = 2, scenarios: i
         lgd_multiplier=rng.uniform(0.8, 1.5, shape) if multipliers else _np.ones(shape),
         collateral_index=rng.uniform(0.7, 1.1, shape) if multipliers else _np.ones(shape),
     )
+
+
+# --------------------------------------------------------------------------------------
+# loss-rate methods: a random book for the loss-rate loop
+# --------------------------------------------------------------------------------------
+
+
+def random_loss_rate_book(seed: int, n: int = 40, frameworks: int = 2, scenarios: int = 3, months: int = 72):
+    """A small random book as ``allowance.loss_rates.LossRateInputs``: all three methods,
+    every repayment type (vintage only on term loans), prepayment rows by age, loans in
+    default with and without a stated LGD, scenario multipliers. Seeded."""
+    from allowance.loss_rates import LossRateInputs
+
+    k = random_kernel_book(seed, n=n, frameworks=frameworks, scenarios=scenarios, months=months,
+                           secured=False, multipliers=True)
+    rng = _np.random.default_rng(seed + 1)
+    method = rng.integers(0, 3, n)
+    method = _np.where((method == 2) & (k.code == 3), 1, method)  # no vintage curve for revolving lines
+    ages = int(k.smm.shape[1] - months)
+    n_curves = 2
+    curves = _np.sort(rng.uniform(0.0, 0.08, (n_curves, 8)), axis=1)
+    from allowance.loss_rates import vintage_curve_by_month
+
+    table = _np.stack([vintage_curve_by_month(c, ages + months + 1) for c in curves])
+    return LossRateInputs(
+        method=method, loss_rate=_np.where(method == 0, rng.uniform(0.0, 0.1, n), rng.uniform(0.0, 0.05, n)),
+        vintage=rng.integers(0, n_curves, n), original_balance=k.balance * rng.uniform(1.0, 2.0, n),
+        age=k.prepay_offset.copy(), default_lgd=_np.where(rng.random(n) < 0.5, rng.uniform(0.2, 0.9, n), _np.nan),
+        code=k.code, balance=k.balance, rate=k.rate, months_left=k.months_left, io_left=k.io_left,
+        residual=k.residual, payment=k.payment, prepay=k.prepay, prepay_offset=k.prepay_offset,
+        in_default=k.in_default, horizon=k.horizon, ead_add=k.ead_add, paydown=k.paydown, discount=k.discount,
+        multiplier=rng.uniform(0.7, 2.0, (frameworks, months, scenarios)), lgd_multiplier=k.lgd_multiplier,
+        vintage_curve=table, smm=k.smm,
+    )
