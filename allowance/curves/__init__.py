@@ -11,6 +11,7 @@ pd_sources      pd_term_structure and the PD_SOURCES registry (12-month PD, cumu
                 by grade, transition matrix); hazard_from_pd_12m, marginal_from_curve
 roll_rates      delinquency buckets, bucket_index, validate_matrix, matrix_term_structure,
                 roll_rate_summary (Kemeny & Snell absorbing-chain analytics)
+roll_forecast   bucket_balances, roll_forecast, roll_forecast_check (balance roll-rate forecast)
 lgd             collateral_lgd, recovery_discount_factor, effective_lgd, base_lgd, revolving_ead
 """
 
@@ -27,6 +28,12 @@ from allowance.curves.pd_sources import (
     hazard_from_pd_12m,
     marginal_from_curve,
     pd_term_structure,
+)
+from allowance.curves.roll_forecast import (
+    RollForecast,
+    bucket_balances,
+    roll_forecast,
+    roll_forecast_check,
 )
 from allowance.curves.roll_rates import (
     CHARGE_OFF,
@@ -54,7 +61,9 @@ __all__ = [
     "PD_SOURCES",
     "PdSource",
     "PdTermStructure",
+    "RollForecast",
     "base_lgd",
+    "bucket_balances",
     "bucket_index",
     "collateral_lgd",
     "cumulative_pd",
@@ -68,6 +77,8 @@ __all__ = [
     "pd_term_structure",
     "recovery_discount_factor",
     "revolving_ead",
+    "roll_forecast",
+    "roll_forecast_check",
     "roll_rate_summary",
     "survival",
     "unconditional_marginal",
