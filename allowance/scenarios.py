@@ -8,7 +8,8 @@ Implements
 vasicek_conditional_pd  PD conditional on the systematic factor z (single-factor model)
 asset_correlation       ρ per segment: stated, or the Basel II retail correlation
 by_year                 a by-year list spread over months, with a value after it ends
-scenario_marginals      one scenario's monthly marginal PDs from the base (unconditional) PDs
+scenario_marginals      one scenario's monthly marginal PDs from the base (unconditional) PDs:
+                        PD multipliers, a z path, or macro paths (:mod:`allowance.macro`)
 reversion_weights       CECL: weight on the scenario adjustment by month (ASC 326-20-30-9)
 revert                  base + weight × (adjusted − base)
 ScenarioTables          the stacked PD table ``pd[K, S, T]`` and its companion paths
@@ -27,13 +28,15 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from statistics import NormalDist
 from typing import Literal
 
 import numpy as np
 import pandas as pd
 
+from allowance import macro
 from allowance.exceptions import AssumptionsError
+from allowance.links import norm_cdf as _norm_cdf
+from allowance.links import norm_ppf as _norm_ppf
 from allowance.schemas import Assumptions, Framework, Reversion, Scenario, SegmentAssumptions
 
 __all__ = [
@@ -48,31 +51,6 @@ __all__ = [
     "vasicek_conditional_pd",
     "weighted",
 ]
-
-_STANDARD_NORMAL = NormalDist()
-
-
-def _elementwise(func: Callable[[float], float], x: np.ndarray) -> np.ndarray:
-    """Apply a scalar function over an array, once per distinct value (tables repeat a lot)."""
-    flat = np.asarray(x, dtype=float).ravel()
-    uniq, inverse = np.unique(flat, return_inverse=True)
-    out = np.fromiter((func(float(v)) for v in uniq), dtype=float, count=len(uniq))
-    return out[inverse].reshape(np.shape(x))
-
-
-def _phi(x: float) -> float:
-    # erfc, not 1 + erf (as NormalDist.cdf does): keeps full relative accuracy in the lower tail
-    return 0.5 * math.erfc(-x / math.sqrt(2.0))
-
-
-def _norm_cdf(x: np.ndarray) -> np.ndarray:
-    return _elementwise(_phi, x)
-
-
-def _norm_ppf(p: np.ndarray) -> np.ndarray:
-    # NormalDist.inv_cdf is Wichura's AS241 (about 1e-16 relative); p must be inside (0, 1)
-    return _elementwise(_STANDARD_NORMAL.inv_cdf, p)
-
 
 # --------------------------------------------------------------------------------------
 # The single-factor model
@@ -243,12 +221,14 @@ def by_year(values: Sequence[float], months: int, after: float) -> np.ndarray:
     return table[np.minimum(year, len(values))]
 
 
-def _multiplier_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None) -> np.ndarray:
+def _multiplier_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None,
+                     links: macro.MacroLinks | None) -> np.ndarray:
     factor = by_year(scenario.pd_multiplier, base.shape[-1], after=1.0)
     return np.minimum(1.0, base * factor)
 
 
-def _z_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None) -> np.ndarray:
+def _z_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None,
+            links: macro.MacroLinks | None) -> np.ndarray:
     months = base.shape[-1]
     years = min(len(scenario.z), -(-months // 12))
     if years == 0:
@@ -276,24 +256,34 @@ def _z_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None) -> np.
     return out
 
 
-def _unchanged(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None) -> np.ndarray:
+def _macro_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None,
+                links: macro.MacroLinks | None) -> np.ndarray:
+    if links is None:
+        raise ValueError("scenario_marginals: a scenario with macro paths needs links (macro.MacroLinks)")
+    return macro.macro_marginals(base, scenario, links)
+
+
+def _unchanged(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None,
+               links: macro.MacroLinks | None) -> np.ndarray:
     return base.copy()
 
 
-PathKind = Literal["pd_multiplier", "z", "none"]
+PathKind = Literal["pd_multiplier", "z", "macro", "none"]
 
-_PATHS: dict[PathKind, Callable[[np.ndarray, Scenario, np.ndarray | None], np.ndarray]] = {
+_PATHS: dict[PathKind, Callable[[np.ndarray, Scenario, np.ndarray | None, macro.MacroLinks | None], np.ndarray]] = {
     "pd_multiplier": _multiplier_path,
     "z": _z_path,
+    "macro": _macro_path,
     "none": _unchanged,
 }
 
 
 def _path_kind(scenario: Scenario) -> PathKind:
-    return "pd_multiplier" if scenario.pd_multiplier else "z" if scenario.z else "none"
+    return scenario.pd_path_kind  # type: ignore[return-value]
 
 
-def scenario_marginals(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None) -> np.ndarray:
+def scenario_marginals(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None,
+                       links: macro.MacroLinks | None = None) -> np.ndarray:
     r"""One scenario's monthly marginal PDs from the base (unconditional) marginal PDs.
 
     Parameters
@@ -301,9 +291,12 @@ def scenario_marginals(base: np.ndarray, scenario: Scenario, rho: np.ndarray | N
     base : ndarray, shape (K, T)
         Monthly marginal PD conditional on survival, per curve key and month.
     scenario : Scenario
-        Its ``pd_multiplier`` or ``z`` path (by year); neither leaves the base unchanged.
+        Its ``pd_multiplier`` or ``z`` path (by year) or its ``macro`` paths (by quarter);
+        none leaves the base unchanged.
     rho : ndarray, shape (K,), optional
         Asset correlation per curve key; needed only for a z path.
+    links : macro.MacroLinks, optional
+        The calendar, baseline and satellite models; needed only for macro paths.
 
     Returns
     -------
@@ -318,7 +311,9 @@ def scenario_marginals(base: np.ndarray, scenario: Scenario, rho: np.ndarray | N
 
     .. math:: pd_t(z) = 1 - (1 - base_t)^{\ln(1 - q_y(z_y)) / \ln(1 - q_y)}
 
-    (a year with :math:`q_y = 0` stays 0); after the z list, the base.
+    (a year with :math:`q_y = 0` stays 0); after the z list, the base. Macro paths: each
+    segment's satellite model shifts the base along its probit or logit link
+    (:func:`allowance.macro.macro_marginals`).
 
     Examples
     --------
@@ -330,7 +325,7 @@ def scenario_marginals(base: np.ndarray, scenario: Scenario, rho: np.ndarray | N
     base = np.asarray(base, dtype=float)
     if base.ndim != 2 or not np.all((base >= 0.0) & (base <= 1.0)):
         raise ValueError("scenario_marginals: base must be a (keys, months) table of PDs in [0, 1]")
-    return _PATHS[_path_kind(scenario)](base, scenario, rho)
+    return _PATHS[_path_kind(scenario)](base, scenario, rho, links)
 
 
 # --------------------------------------------------------------------------------------
@@ -409,9 +404,13 @@ class ScenarioTables:
     weights          shape (S,), summing to 1
     pd               shape (K, S, T): monthly marginal PD per curve key, scenario and month
     lgd_multiplier   shape (S, T)
-    collateral_index shape (S, T): collateral value relative to today
+    collateral_index shape (S, T): collateral value relative to today (the by-year path)
     reversion        shape (T,): CECL weight on the scenario adjustment; None for IFRS 9
-    pd_multiplier    shape (S, T): the PD multiplier used (after reversion); NaN for a z path
+    pd_multiplier    shape (S, T): the PD multiplier used (after reversion); NaN for a z or
+                     macro path
+    collateral_by_key shape (K, S, T): the collateral index per curve key, where a segment's
+                     satellite model links it to a price variable (else the by-year path);
+                     None when no scenario gives macro paths
     """
 
     names: tuple[str, ...]
@@ -421,10 +420,17 @@ class ScenarioTables:
     collateral_index: np.ndarray
     reversion: np.ndarray | None
     pd_multiplier: np.ndarray | None = None
+    collateral_by_key: np.ndarray | None = None
+
+    def collateral_per_key(self, keys: int) -> np.ndarray:
+        """The collateral index per curve key, shape (K, S, T)."""
+        if self.collateral_by_key is not None:
+            return self.collateral_by_key
+        return np.broadcast_to(self.collateral_index, (keys, *self.collateral_index.shape))
 
 
 def _multiplier_shown(scenario: Scenario, months: int) -> np.ndarray:
-    if _path_kind(scenario) == "z":
+    if _path_kind(scenario) in ("z", "macro"):
         return np.full(months, np.nan)
     return by_year(scenario.pd_multiplier, months, after=1.0)
 
@@ -451,6 +457,7 @@ def _reasonable_supportable(tables: ScenarioTables, base: np.ndarray, assumption
         collateral_index=revert(1.0, tables.collateral_index, w),
         reversion=w,
         pd_multiplier=revert(1.0, tables.pd_multiplier, w),
+        collateral_by_key=None if tables.collateral_by_key is None else revert(1.0, tables.collateral_by_key, w),
     )
 
 
@@ -465,6 +472,7 @@ def scenario_tables(
     rho: np.ndarray | None,
     assumptions: Assumptions,
     framework: Framework,
+    key_segments: Sequence[str] | None = None,
 ) -> ScenarioTables:
     """Every scenario's paths for one framework.
 
@@ -478,6 +486,9 @@ def scenario_tables(
     assumptions : Assumptions
         Scenarios, weights and (CECL) the ``[cecl]`` reversion rules.
     framework : {"ifrs9", "cecl"}
+    key_segments : sequence of str, optional
+        The segment of each curve key (row of ``base``); needed only when a scenario gives
+        macro paths (each segment's satellite model shifts its own rows).
 
     Returns
     -------
@@ -486,9 +497,10 @@ def scenario_tables(
     Notes
     -----
     IFRS 9: the scenario paths for the whole life (PD multiplier and LGD multiplier 1.0,
-    z the base, after the lists end; the collateral index holds its last value). CECL: the
-    same paths for the reasonable and supportable period, then reverted to the base PDs and
-    to multipliers of 1 with :func:`reversion_weights`.
+    z the base, after the lists end; the collateral index holds its last value; macro paths
+    at their baseline after they end). CECL: the same paths for the reasonable and
+    supportable period, then reverted to the base PDs and to multipliers of 1 with
+    :func:`reversion_weights` (ASC 326-20-30-9), whatever kind of path the scenario states.
 
     Examples
     --------
@@ -510,14 +522,21 @@ def scenario_tables(
     scenarios = list(assumptions.scenarios.values())
     collateral = [by_year(s.collateral_index, months, after=s.collateral_index[-1] if s.collateral_index else 1.0)
                   for s in scenarios]
+    links = None
+    if any(s.macro for s in scenarios):
+        if key_segments is None or len(key_segments) != base.shape[0]:
+            raise ValueError("scenario_tables: macro paths need key_segments, the segment of each row of base")
+        links = macro.MacroLinks.from_assumptions(assumptions, key_segments)
     whole_life = ScenarioTables(
         names=tuple(assumptions.scenarios),
         weights=np.asarray(assumptions.weights, dtype=float),
-        pd=np.stack([scenario_marginals(base, s, rho_a) for s in scenarios], axis=1),
+        pd=np.stack([scenario_marginals(base, s, rho_a, links) for s in scenarios], axis=1),
         lgd_multiplier=np.stack([by_year(s.lgd_multiplier, months, after=1.0) for s in scenarios]),
         collateral_index=np.stack(collateral),
         reversion=None,
         pd_multiplier=np.stack([_multiplier_shown(s, months) for s in scenarios]),
+        collateral_by_key=None if links is None else np.stack(
+            [macro.macro_collateral(s, c, links) for s, c in zip(scenarios, collateral)], axis=1),
     )
     return _FRAMEWORK_PATHS[framework](whole_life, base, assumptions)
 
