@@ -69,7 +69,8 @@ class KernelInputs:
     ``paydown`` (revolving monthly repayment share), ``discount`` (monthly discount multiplier
     v = 1/(1 + EIR/12), or 1 where the framework does not discount).
     Tables: ``pd[F, K, T, S]``, ``smm[P, L]``, ``lgd_multiplier[F, T, S]``,
-    ``collateral_index[F, T, S]``.
+    ``collateral_index[F, K, T, S]`` (per curve key: a satellite model may link a segment's
+    collateral to a price variable).
     """
 
     code: np.ndarray
@@ -243,13 +244,13 @@ def _kernel(
                 ead = balance[i] + add
                 ead0[i, f] = ead
                 lgd0[i, f] = _loss_given_default(
-                    ead, lgd_i, coll_i, collateral_index[f, 0, 0], cut_i, cost_i, floor_i, rec_i, cure_i,
+                    ead, lgd_i, coll_i, collateral_index[f, k, 0, 0], cut_i, cost_i, floor_i, rec_i, cure_i,
                     lgd_multiplier[f, 0, 0],
                 )
                 if in_default[f, i]:
                     for s in range(n_sc):
                         loss = ead * _loss_given_default(
-                            ead, lgd_i, coll_i, collateral_index[f, 0, s], cut_i, cost_i, floor_i, rec_i,
+                            ead, lgd_i, coll_i, collateral_index[f, k, 0, s], cut_i, cost_i, floor_i, rec_i,
                             cure_i, lgd_multiplier[f, 0, s],
                         )
                         ecl12[i, f, s] = loss
@@ -292,7 +293,7 @@ def _kernel(
                     for s in range(n_sc):
                         h = pd[f, k, t, s]
                         loss_rate = _loss_given_default(
-                            ead, lgd_i, coll_i, collateral_index[f, t, s], cut_i, cost_i, floor_i,
+                            ead, lgd_i, coll_i, collateral_index[f, k, t, s], cut_i, cost_i, floor_i,
                             rec_i, cure_i, lgd_multiplier[f, t, s],
                         )
                         default_now = survival[s] * h
@@ -339,7 +340,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     ...     recovery_cost=one(0.0), lgd_floor=one(0.0), recovery_discount=one(1.0), cure=one(0.0),
     ...     horizon=np.ones((1, 1), np.int64), ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)),
     ...     discount=np.ones((1, 1)), pd=np.full((1, 1, 1, 1), 0.005), smm=np.zeros((1, 1)),
-    ...     lgd_multiplier=np.ones((1, 1, 1)), collateral_index=np.ones((1, 1, 1)))
+    ...     lgd_multiplier=np.ones((1, 1, 1)), collateral_index=np.ones((1, 1, 1, 1)))
     >>> round(float(expected_losses(k).ecl_12m[0, 0, 0]), 6)
     1250.0
     """
@@ -397,9 +398,10 @@ def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
     for name in ("in_default", "horizon", "ead_add", "paydown", "discount"):
         if a[name].shape != (n_fw, n):
             problems.append(f"{name} has shape {a[name].shape}, not (frameworks, loans) = {(n_fw, n)}")
-    for name in ("lgd_multiplier", "collateral_index"):
-        if a[name].shape != (n_fw, n_months, n_sc):
-            problems.append(f"{name} has shape {a[name].shape}, not {(n_fw, n_months, n_sc)}")
+    if a["lgd_multiplier"].shape != (n_fw, n_months, n_sc):
+        problems.append(f"lgd_multiplier has shape {a['lgd_multiplier'].shape}, not {(n_fw, n_months, n_sc)}")
+    if a["collateral_index"].shape != (n_fw, n_keys, n_months, n_sc):
+        problems.append(f"collateral_index has shape {a['collateral_index'].shape}, not {(n_fw, n_keys, n_months, n_sc)}")
     if n and not problems:
         if a["horizon"].min() < 0 or a["horizon"].max() > n_months:
             problems.append(f"a horizon lies outside 0..{n_months} (the months of the PD table)")

@@ -8,7 +8,10 @@ Implements
 LoanRecord          one tape row, its columns, types, bounds and meaning
 Assumptions         the TOML assumptions file: run, tape, segments, ifrs9, cecl, scenarios, overlays
 SegmentAssumptions  per-segment PD source, LGD, EAD/CCF, prepayment, revolving behaviour
-Scenario            a weighted economic scenario (PD / LGD multipliers, collateral path or z path)
+Scenario            a weighted economic scenario (PD / LGD multipliers, collateral path, z path
+                    or macroeconomic variable paths)
+MacroSection        ``[macro]``: the baseline macro paths, their first quarter, quarter -> month
+SatelliteModel      per segment: the link from macro variables to the monthly PD (and collateral)
 Overlay             a documented post-model adjustment
 RunConfig           a validated Assumptions plus the input files that made it (paths, SHA-256)
 TransitionMatrix    a monthly roll-rate matrix over delinquency buckets, loaded from CSV
@@ -22,6 +25,8 @@ counted from the as-of date: element 0 applies to months 1-12, element 1 to mont
 
 from __future__ import annotations
 
+import math
+import re
 from datetime import date
 from pathlib import Path
 from typing import Annotated, Literal
@@ -33,6 +38,10 @@ Repayment = Literal["level", "interest_only", "balloon", "revolving"]
 OverlayKind = Literal["percent", "amount"]
 Reversion = Literal["straight_line", "immediate"]
 RetailClass = Literal["residential_mortgage", "qualifying_revolving", "other_retail"]
+Link = Literal["probit", "logit"]
+Interpolation = Literal["step", "linear"]
+CollateralForm = Literal["level", "annual_growth", "annual_growth_percent"]
+CollateralReference = Literal["baseline", "as_of"]
 
 FRAMEWORKS: tuple[Framework, ...] = ("ifrs9", "cecl")
 REPAYMENTS: tuple[Repayment, ...] = ("level", "interest_only", "balloon", "revolving")
@@ -193,6 +202,78 @@ class CollateralLgd(_Strict):
     months_to_recovery: Annotated[int, Field(ge=0)] = 12
 
 
+_QUARTER = re.compile(r"^(\d{4})\s*-?\s*Q([1-4])$", re.IGNORECASE)
+
+
+def quarter_number(label: str) -> int:
+    """A calendar quarter label (``2026Q4``, ``2026-Q4``) as a running number: 4 × year + q − 1.
+
+    Examples
+    --------
+    >>> quarter_number("2026Q4") - quarter_number("2025Q4")
+    4
+    """
+    match = _QUARTER.match(str(label).strip())
+    if match is None:
+        raise ValueError(f"{label!r} is not a calendar quarter such as 2026Q4")
+    return 4 * int(match.group(1)) + int(match.group(2)) - 1
+
+
+class CollateralLink(_Strict):
+    """``[segments.<name>.satellite.collateral]``: the collateral value follows a price variable.
+
+    The collateral index (collateral value relative to today's, which scales the tape's
+    ``collateral_value`` in the collateral LGD) is computed from the named macro variable
+    instead of the scenario's by-year ``collateral_index`` list.
+    """
+
+    variable: str = Field(min_length=1, description="The macro variable: a house-price or property-price series.")
+    form: CollateralForm = Field(
+        description="level: a price index; annual_growth: growth at an annual rate, decimal (0.03); "
+        "annual_growth_percent: the same in percent (3.0)."
+    )
+    relative_to: CollateralReference = Field(
+        description="baseline: the scenario's prices relative to the baseline path's (the baseline "
+        "leaves collateral at today's value); as_of: the scenario's own price change since the as-of date."
+    )
+
+
+class SatelliteModel(_Strict):
+    r"""``[segments.<name>.satellite]``: macro variables -> the segment's monthly PD.
+
+    pd_t = F(F^-1(pd_t^long-run) + sum_j beta_j (x_j(t - L_j) - baseline_j(t - L_j))), F the
+    standard normal CDF (probit) or the logistic function (logit); see :mod:`allowance.macro`.
+    """
+
+    link: Link
+    coefficients: dict[str, float] = Field(
+        description="beta per macro variable, on the link scale of the monthly PD, per unit of the variable."
+    )
+    lag_months: dict[str, Annotated[int, Field(ge=0, le=120)]] = Field(
+        default_factory=dict, description="Months by which the PD lags each variable; 0 when not listed."
+    )
+    collateral: CollateralLink | None = None
+    source: str = Field(default="", description="Where the coefficients come from (calibration run, model document).")
+
+    @model_validator(mode="after")
+    def _lags_name_coefficients(self) -> SatelliteModel:
+        extra = sorted(set(self.lag_months) - set(self.coefficients))
+        if extra:
+            raise ValueError(f"lag_months names {', '.join(map(repr, extra))}, which has no coefficient")
+        bad = [k for k, v in self.coefficients.items() if not math.isfinite(v)]
+        if bad:
+            raise ValueError(f"coefficient {bad[0]!r} must be a finite number")
+        return self
+
+    @property
+    def variables(self) -> list[str]:
+        """Every macro variable the model reads (coefficients, then the collateral link)."""
+        names = list(self.coefficients)
+        if self.collateral is not None and self.collateral.variable not in names:
+            names.append(self.collateral.variable)
+        return names
+
+
 class SegmentAssumptions(_Strict):
     """``[segments.<name>]``: the risk parameters of one portfolio segment.
 
@@ -236,6 +317,9 @@ class SegmentAssumptions(_Strict):
         default=None, description="Basel II retail class, for the Vasicek asset correlation."
     )
     asset_correlation: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None
+    satellite: SatelliteModel | None = Field(
+        default=None, description="Link from macro variables to the monthly PD, for scenarios given as macro paths."
+    )
 
     @model_validator(mode="after")
     def _one_source_each(self) -> SegmentAssumptions:
@@ -309,11 +393,17 @@ class CeclRules(_Strict):
     discount: bool = Field(default=False, description="true: discounted cash-flow method at the EIR.")
 
 
+#: The kinds of PD path a scenario may state (at most one of them).
+PD_PATH_KEYS: tuple[str, ...] = ("pd_multiplier", "z", "macro")
+
+
 class Scenario(_Strict):
     """``[scenarios.<name>]``: one weighted economic scenario.
 
-    Give ``pd_multiplier`` (by year, scaling the monthly marginal PD, capped at 1) or ``z``
-    (systematic factor by year, through the Vasicek conditional PD), not both.
+    Give at most one kind of PD path: ``pd_multiplier`` (by year, scaling the monthly
+    marginal PD, capped at 1), ``z`` (systematic factor by year, through the Vasicek
+    conditional PD) or ``macro`` (macroeconomic variable paths by quarter, through each
+    segment's satellite model). None leaves the long-run PDs.
     """
 
     weight: Probability
@@ -323,13 +413,66 @@ class Scenario(_Strict):
     collateral_index: list[NonNegative] = Field(
         default_factory=list, description="Collateral value by year relative to today (1.0 = today)."
     )
+    macro: dict[str, list[float]] = Field(
+        default_factory=dict,
+        description="Macro variable paths by quarter from [macro] start, measured against [macro.baseline].",
+    )
     description: str = ""
 
     @model_validator(mode="after")
     def _one_pd_path(self) -> Scenario:
-        if self.pd_multiplier and self.z:
-            raise ValueError("give pd_multiplier or z, not both")
+        given = [k for k in PD_PATH_KEYS if getattr(self, k)]
+        if len(given) > 1:
+            raise ValueError(
+                f"give one kind of PD path (pd_multiplier, z or macro), not {' and '.join(given)}: "
+                "a scenario is stated either as multipliers, as a z path or as macro paths"
+            )
+        for name, path in self.macro.items():
+            if not path:
+                raise ValueError(f"macro.{name} is an empty path")
+            if not all(math.isfinite(v) for v in path):
+                raise ValueError(f"macro.{name} holds a value that is not a finite number")
         return self
+
+    @property
+    def pd_path_kind(self) -> str:
+        """``pd_multiplier``, ``z``, ``macro`` or ``none``."""
+        return next((k for k in PD_PATH_KEYS if getattr(self, k)), "none")
+
+
+class MacroSection(_Strict):
+    """``[macro]``: the baseline macro paths scenarios are measured against, and their calendar.
+
+    Paths are by calendar quarter from ``start``; quarters up to the as-of date are history
+    (they feed the lags). ``interpolation`` states how a quarter's value becomes monthly values.
+    """
+
+    start: str = Field(description="Calendar quarter of every path's first value, e.g. 2026Q1.")
+    interpolation: Interpolation = Field(
+        description="step: each month takes its quarter's value; linear: straight lines between "
+        "quarter mid-months, the outer months of the first and last quarters held flat."
+    )
+    baseline: dict[str, list[float]] = Field(
+        min_length=1,
+        description="The path of each variable at which every satellite model gives the long-run PD.",
+    )
+    source: str = Field(default="", description="Where the paths come from (forecast vintage, provider).")
+
+    @field_validator("start")
+    @classmethod
+    def _quarter(cls, value: str) -> str:
+        quarter_number(value)
+        return value.strip().upper().replace("-", "").replace(" ", "")
+
+    @field_validator("baseline")
+    @classmethod
+    def _finite(cls, value: dict[str, list[float]]) -> dict[str, list[float]]:
+        for name, path in value.items():
+            if not path:
+                raise ValueError(f"baseline.{name} is an empty path")
+            if not all(math.isfinite(v) for v in path):
+                raise ValueError(f"baseline.{name} holds a value that is not a finite number")
+        return value
 
 
 class Overlay(_Strict):
@@ -355,6 +498,7 @@ class Assumptions(_Strict):
     segments: dict[str, SegmentAssumptions] = Field(min_length=1)
     ifrs9: Ifrs9Rules | None = None
     cecl: CeclRules | None = None
+    macro: MacroSection | None = None
     scenarios: dict[str, Scenario] = Field(min_length=1)
     overlays: list[Overlay] = Field(default_factory=list)
 
@@ -378,7 +522,67 @@ class Assumptions(_Strict):
         for name, seg in self.segments.items():
             if seg.behavioural_life_months is None and seg.payment_rate is not None:
                 raise ValueError(f"segment {name!r}: payment_rate needs behavioural_life_months")
+        self._macro_consistent()
         return self
+
+    def _macro_consistent(self) -> None:
+        """Macro paths, baseline and satellite models must name the same variables."""
+        macro_scenarios = [n for n, s in self.scenarios.items() if s.macro]
+        if not macro_scenarios:
+            return
+        if self.macro is None:
+            raise ValueError(
+                f"scenario {macro_scenarios[0]!r} gives macro paths but there is no [macro] table "
+                "(start, interpolation and the baseline paths they are measured against)"
+            )
+        baseline = self.macro.baseline
+        start = quarter_number(self.macro.start)
+        first_month = self.run.as_of.year * 12 + self.run.as_of.month  # month 1 after the as-of month
+        if 3 * start > first_month:
+            raise ValueError(
+                f"macro.start {self.macro.start} begins after the first projected month "
+                f"({first_month // 12}-{first_month % 12 + 1:02d}); start the paths at the quarter "
+                "after the as-of date or earlier"
+            )
+        for sname in macro_scenarios:
+            for var, path in self.scenarios[sname].macro.items():
+                if var not in baseline:
+                    raise ValueError(f"scenarios.{sname}.macro.{var} has no baseline path in [macro.baseline]")
+                if len(path) > len(baseline[var]):
+                    raise ValueError(
+                        f"scenarios.{sname}.macro.{var} has {len(path)} quarters but macro.baseline.{var} "
+                        f"only {len(baseline[var])}: the baseline must cover every quarter of the scenario"
+                    )
+        as_of_month = first_month - 1
+        history = [q for q in range(max(len(p) for p in baseline.values())) if 3 * (start + q) + 2 <= as_of_month]
+        for var in baseline:
+            given = [(n, self.scenarios[n].macro[var]) for n in macro_scenarios if var in self.scenarios[n].macro]
+            for q in history:
+                values = {n: p[q] for n, p in given if q < len(p)}
+                if len(set(values.values())) > 1:
+                    shown = ", ".join(f"{n} {v:g}" for n, v in values.items())
+                    label = f"{(start + q) // 4}Q{(start + q) % 4 + 1}"
+                    raise ValueError(
+                        f"the scenarios' paths of {var!r} differ in {label}, which is history at the "
+                        f"as-of date ({shown}); give every scenario the observed value"
+                    )
+        for name, seg in self.segments.items():
+            if seg.satellite is None:
+                raise ValueError(
+                    f"scenario {macro_scenarios[0]!r} gives macro paths but segment {name!r} has no "
+                    f"[segments.{name}.satellite] model (state one; zero coefficients keep the long-run PD)"
+                )
+            for var in seg.satellite.variables:
+                if var not in baseline:
+                    raise ValueError(
+                        f"segments.{name}.satellite uses {var!r}, which has no path in [macro.baseline]"
+                    )
+                for sname in macro_scenarios:
+                    if var not in self.scenarios[sname].macro:
+                        raise ValueError(
+                            f"scenarios.{sname}.macro gives no path for {var!r}, which segment "
+                            f"{name!r}'s satellite model uses"
+                        )
 
     @property
     def scenario_names(self) -> list[str]:

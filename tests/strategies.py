@@ -561,7 +561,8 @@ def random_kernel_book(seed: int, n: int = 40, frameworks: int = 2, scenarios: i
         pd=rng.uniform(0.0, 0.03, (frameworks, n_keys, months, scenarios)),
         smm=rng.uniform(0.0, 0.02, (n_rows, ages + months)),
         lgd_multiplier=rng.uniform(0.8, 1.5, shape) if multipliers else _np.ones(shape),
-        collateral_index=rng.uniform(0.7, 1.1, shape) if multipliers else _np.ones(shape),
+        collateral_index=(rng.uniform(0.7, 1.1, (frameworks, n_keys, months, scenarios)) if multipliers
+                          else _np.ones((frameworks, n_keys, months, scenarios))),
     )
 
 

@@ -26,7 +26,7 @@ def _one_loan(**over) -> KernelInputs:
         recovery_discount=one(1.0), cure=one(0.0), horizon=np.full((1, 1), 60, np.int64),
         ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)), discount=np.ones((1, 1)),
         pd=np.zeros((1, 1, 60, 1)), smm=np.zeros((1, 60)), lgd_multiplier=np.ones((1, 60, 1)),
-        collateral_index=np.ones((1, 60, 1)),
+        collateral_index=np.ones((1, 1, 60, 1)),
     )
     base.update(over)
     return KernelInputs(**base)
@@ -92,7 +92,7 @@ def _balance_path(k: KernelInputs, i: int, f: int, months: int) -> np.ndarray:
 def _loss_rate(k: KernelInputs, i, f, ead, t, s):
     if k.collateral[i] > 0:
         base = (1 - k.cure[i]) * collateral_lgd(
-            ead, k.collateral[i] * k.collateral_index[f, t, s], k.haircut[i], k.recovery_cost[i],
+            ead, k.collateral[i] * k.collateral_index[f, k.curve[i], t, s], k.haircut[i], k.recovery_cost[i],
             k.lgd_floor[i], k.recovery_discount[i],
         )
     else:

@@ -90,9 +90,17 @@ def test_assumptions_template_mentions_every_key():
         fields = getattr(annotation, "model_fields", None)
         for key in fields or ():
             assert key in text, f"[{section}] {key} is not in the template"
-    from allowance.schemas import CollateralLgd, Overlay, Scenario, SegmentAssumptions
+    from allowance.schemas import (
+        CollateralLgd,
+        CollateralLink,
+        MacroSection,
+        Overlay,
+        SatelliteModel,
+        Scenario,
+        SegmentAssumptions,
+    )
 
-    for model in (SegmentAssumptions, Scenario, Overlay, CollateralLgd):
+    for model in (SegmentAssumptions, Scenario, Overlay, CollateralLgd, SatelliteModel, CollateralLink, MacroSection):
         for key in model.model_fields:
             assert key in text, f"{model.__name__}.{key} is not in the template"
 

@@ -34,7 +34,7 @@ class Prepared:
     pd: np.ndarray  # [F, K, T, S]
     smm: np.ndarray  # [P, L]
     lgd_multiplier: np.ndarray  # [F, T, S]
-    collateral_index: np.ndarray  # [F, T, S]
+    collateral_index: np.ndarray  # [F, K, T, S]
     tables: dict[Framework, scenarios.ScenarioTables]
     pd_12m_now: np.ndarray  # [K]: IFRS 9 probability-weighted 12-month PD, for staging
 
@@ -157,10 +157,12 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
                 for n, seg in a.segments.items()
             ]
         )
-    tables = {fw: scenarios.scenario_tables(base, rho, a, fw) for fw in frameworks}
+    key_segments = [name for name, ts in structures.items() for _ in ts.keys]
+    tables = {fw: scenarios.scenario_tables(base, rho, a, fw, key_segments) for fw in frameworks}
     pd_table = np.ascontiguousarray(np.stack([tables[fw].pd.transpose(0, 2, 1) for fw in frameworks]))
     lgd_mult = np.ascontiguousarray(np.stack([tables[fw].lgd_multiplier.T for fw in frameworks]))
-    coll_idx = np.ascontiguousarray(np.stack([tables[fw].collateral_index.T for fw in frameworks]))
+    coll_idx = np.ascontiguousarray(
+        np.stack([tables[fw].collateral_per_key(base.shape[0]).transpose(0, 2, 1) for fw in frameworks]))
     weights = np.asarray(a.weights, float)
     first = tables["ifrs9"] if "ifrs9" in tables else tables[frameworks[0]]
     pd_12m_now = scenarios.weighted(curves.pd_over(first.pd, 12), weights)
