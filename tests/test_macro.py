@@ -477,6 +477,7 @@ def test_zero_coefficients_give_the_long_run_run_whatever_the_path():
         assert (loans[col].to_numpy() == plain[col].to_numpy()).all(), col
 
 
+@pytest.mark.slow
 @settings(max_examples=12, deadline=None, derandomize=True)
 @given(
     beta=st.floats(0.01, 0.5),
