@@ -253,7 +253,7 @@ def test_warm_is_the_pd_loop_with_unconditional_monthly_losses_of_r_over_12(seed
         haircut=np.zeros(30), recovery_cost=np.zeros(30), lgd_floor=np.zeros(30), recovery_discount=np.ones(30),
         cure=np.zeros(30), horizon=k.horizon, ead_add=k.ead_add, paydown=k.paydown, discount=k.discount,
         pd=pd_t[None, None, :, None], smm=k.smm, lgd_multiplier=np.ones((1, months, 1)),
-        collateral_index=np.ones((1, months, 1)),
+        collateral_index=np.ones((1, 1, months, 1)),
     ))
     np.testing.assert_allclose(loss_rate_losses(k).ecl_lifetime, pd_loop.ecl_lifetime, rtol=1e-9, atol=1e-6)
 
