@@ -8,19 +8,21 @@ tie_out             accepted tape balance against the ledger control total -> Ti
 check_table         the counts ``allowance check`` prints
 read_charge_offs    the period's charge-off file
 read_prior_run      a previous run's loans.csv and run.json -> PriorRun
+read_macro_history  a monthly or quarterly macro history file -> MacroHistory
 file_record         SHA-256 and size of an input file, for run.json
 bundled_path        the shipped demo/ or templates/ folder
 data_dictionary     the tape's columns: type, required, meaning (from LoanRecord)
 
 Layout: ``files`` (files as bytes), ``readers`` (bytes -> text table), ``fields`` (the tape
 columns from LoanRecord), ``parse`` (text -> values, column-wise), ``rules`` (the row rules),
-``tape`` (read_tape), ``assumptions``, ``tieout``, ``history``.
+``tape`` (read_tape), ``assumptions``, ``tieout``, ``history``, ``macro_series``.
 """
 
 from allowance.intake.assumptions import load_assumptions, read_transition_matrix
 from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
 from allowance.intake.files import bundled_path, file_record
 from allowance.intake.history import PriorRun, read_charge_offs, read_prior_run
+from allowance.intake.macro_series import MacroHistory, read_macro_history
 from allowance.intake.results import IntakeResult, TieOut
 from allowance.intake.rules import CODES
 from allowance.intake.tape import read_tape
@@ -31,6 +33,7 @@ __all__ = [
     "FIELDS",
     "FieldSpec",
     "IntakeResult",
+    "MacroHistory",
     "PriorRun",
     "TieOut",
     "bundled_path",
@@ -39,6 +42,7 @@ __all__ = [
     "file_record",
     "load_assumptions",
     "read_charge_offs",
+    "read_macro_history",
     "read_prior_run",
     "read_tape",
     "read_transition_matrix",
