@@ -18,7 +18,7 @@ from typing import Annotated
 import pandas as pd
 import typer
 
-from allowance import __version__, cashflows, engine, intake, reconcile, report
+from allowance import __version__, cashflows, engine, intake, macro, reconcile, report
 from allowance.report import clock
 from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
 from allowance.schemas import Assumptions, RunConfig
@@ -66,8 +66,13 @@ def run_quarter(
     accept_ledger_difference: bool = False,
     label: str | None = None,
     parquet: bool = False,
+    sensitivities: bool = True,
 ) -> Quarter:
-    """A whole reserve run: read, validate, tie out, compute, explain the movement, write."""
+    """A whole reserve run: read, validate, tie out, compute, explain the movement, write.
+
+    ``sensitivities``: rerun the book once per scenario, that scenario alone at weight 1
+    (restaged), for the sensitivity table.
+    """
     started = time.perf_counter()
     started_at = clock.now()
     config = intake.load_assumptions(assumptions, overlays)
@@ -85,6 +90,12 @@ def run_quarter(
         )
     result = engine.run(taken.accepted, config)
     inputs = list(config.inputs)
+    sensitivity = pd.DataFrame()
+    if sensitivities and len(config.assumptions.scenarios) > 1:
+        alone = {name: engine.run(taken.accepted, reconcile.single_scenario(config, name), schedule_sample=0).loans
+                 for name in config.assumptions.scenarios}
+        sensitivity = reconcile.sensitivity_table(result.loans, alone, config)
+    macro_paths = macro.macro_path_table(config.assumptions, engine.tape_months(taken.accepted, config))
 
     what_if = None
     if overlays:
@@ -121,7 +132,7 @@ def run_quarter(
         config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays,
         scenarios=result.scenarios, term_structures=result.term_structures,
         roll_rates=result.roll_rates, reversion=result.reversion, schedules=result.schedules,
-        movement=movements, what_if=what_if, record=record, warnings=warnings,
+        sensitivity=sensitivity, macro_paths=macro_paths, movement=movements, what_if=what_if, record=record, warnings=warnings,
     )
     report.write_outputs(out, run_report, parquet=parquet)
     return Quarter(out=out, report=run_report, seconds=time.perf_counter() - started)
@@ -167,6 +178,12 @@ def _print_summary(q: Quarter) -> None:
             by = loans.groupby("stage")[col].sum()
             line += "   " + "  ".join(f"stage {int(s)} {v:,.2f}" for s, v in by.items())
         _say(line)
+    sens = r.sensitivity
+    if sens is not None and not sens.empty:
+        for fw in rec["frameworks"]:
+            alone = sens[(sens["framework"] == fw) & (sens["scenario"] != "weighted")]
+            parts = "  ".join(f"{s} {v:,.2f}" for s, v in zip(alone["scenario"], alone["allowance"]))
+            _say(f"  {fw.upper()} with each scenario at 100 %: {parts}")
     for w in r.warnings:
         _say(f"warning: {w}")
     _say(f"wrote {q.out}  ({q.seconds:.1f} s)")
@@ -198,13 +215,17 @@ def run(
     ] = False,
     label: Annotated[str | None, typer.Option("--label", help="A name for this run, kept in the run record.")] = None,
     parquet: Annotated[bool, typer.Option("--parquet", help="Also write loans.parquet.")] = False,
+    sensitivities: Annotated[
+        bool, typer.Option("--sensitivities/--no-sensitivities",
+                           help="Also rerun with each scenario alone at 100 % weight (restaged).")
+    ] = True,
 ) -> None:
     """Compute the allowance for a tape and write the workbook, loan detail and run record."""
     try:
         q = run_quarter(
             tape, assumptions, out, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
             ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,
-            label=label, parquet=parquet,
+            label=label, parquet=parquet, sensitivities=sensitivities,
         )
     except AllowanceError as err:
         _fail(err)

@@ -101,6 +101,24 @@ def test_what_if_downside_in_one_command(tmp_path):
     assert np.allclose(loans["ecl_ifrs9_modelled"], loans["ecl_ifrs9_downside"], atol=0.011)
 
 
+@pytest.mark.slow
+def test_each_scenario_at_100_percent_beside_the_weighted_run(demo_out):
+    table = pd.read_csv(demo_out / "sensitivity.csv")
+    record = json.loads((demo_out / "run.json").read_text())
+    for fw in record["frameworks"]:
+        rows = table[table.framework == fw].set_index("scenario")
+        assert rows.loc["weighted", "allowance"] == pytest.approx(record["total_allowance"][fw], abs=0.005)
+        assert rows.loc["downside", "allowance"] > rows.loc["weighted", "allowance"] > rows.loc["upside", "allowance"]
+
+
+@pytest.mark.slow
+def test_no_sensitivities_skips_the_reruns(tmp_path):
+    out = tmp_path / "plain"
+    result = invoke("run", TAPE, "--assumptions", ASSUMPTIONS, "--no-sensitivities", "--out", out)
+    assert result.exit_code == 0, result.output
+    assert not (out / "sensitivity.csv").exists() and "at 100 %" not in result.output
+
+
 def _one_line_error(result, *needles: str) -> None:
     assert result.exit_code == 1, result.output
     err = result.stderr if hasattr(result, "stderr") else result.output

@@ -10,6 +10,8 @@ compare_runs      the movement of every framework the two runs share
 check_movement    opening + movements = closing in every column, or a named error
 WhatIf            base run against a what-if rerun of the same tape
 what_if_comparison
+single_scenario   one scenario alone at weight 1, for a sensitivity rerun
+sensitivity_table the allowance with each scenario at 100 % weight, beside the weighted one
 MOVEMENT_LINES    line codes and their labels
 
 How each loan's change splits into the movement lines is set out in
@@ -18,10 +20,11 @@ How each loan's change splits into the movement lines is set out in
 
 from allowance.reconcile.movement import Movement, compare_runs, movement
 from allowance.reconcile.runs import MovementError
+from allowance.reconcile.sensitivity import sensitivity_table, single_scenario
 from allowance.reconcile.tables import MOVEMENT_LINES, check_movement
 from allowance.reconcile.whatif import WhatIf, what_if_comparison
 
 __all__ = [
     "MOVEMENT_LINES", "Movement", "MovementError", "WhatIf", "check_movement", "compare_runs",
-    "movement", "what_if_comparison",
+    "movement", "sensitivity_table", "single_scenario", "what_if_comparison",
 ]

@@ -37,7 +37,7 @@ __all__ = ["OUTPUT_FILES", "write_outputs"]
 
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
-    "what_if.csv", "what_if_stage_changes.csv", "reserve.xlsx", "run.json",
+    "what_if.csv", "what_if_stage_changes.csv", "sensitivity.csv", "macro_paths.csv", "reserve.xlsx", "run.json",
 )
 
 
@@ -96,6 +96,12 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
         done("what_if.csv")
         _csv(report.what_if_parts.stage_changes, folder / "what_if_stage_changes.csv")
         done("what_if_stage_changes.csv")
+    if report.sensitivity is not None and not report.sensitivity.empty:
+        _csv(report.sensitivity, folder / "sensitivity.csv")
+        done("sensitivity.csv")
+    if report.macro_paths is not None and not report.macro_paths.empty:
+        _csv(report.macro_paths, folder / "macro_paths.csv")
+        done("macro_paths.csv")
     write_workbook(folder / "reserve.xlsx", report)
     done("reserve.xlsx")
     record = report.record or run_record(
