@@ -17,6 +17,7 @@ macro_marginals      one scenario's monthly marginal PDs for every curve key
 collateral_path      a segment's collateral index from a price variable
 macro_collateral     one scenario's collateral index for every curve key
 macro_path_table     the monthly paths used, long form, for the workbook
+pd_path_table        the PD paths the scenarios produce, by segment, for the workbook
 
 The satellite model
 -------------------
@@ -89,6 +90,7 @@ __all__ = [
     "macro_path_table",
     "monthly_from_quarterly",
     "on_months",
+    "pd_path_table",
     "pd_shift",
 ]
 
@@ -498,3 +500,57 @@ def macro_path_table(assumptions: Assumptions, months: int) -> pd.DataFrame:
             }))
     out = pd.concat(frames, ignore_index=True)
     return out[~out["value"].isna() | ~out["baseline"].isna()].reset_index(drop=True)
+
+
+def pd_path_table(pd_table: np.ndarray, names: Sequence[str], key_segments: Sequence[str],
+                  key_weights: np.ndarray | None = None, framework: str = "") -> pd.DataFrame:
+    r"""The monthly PD path of each segment under each scenario, long form, for the workbook.
+
+    Parameters
+    ----------
+    pd_table : ndarray, shape (K, S, T)
+        Monthly marginal PDs per curve key, scenario and month (``ScenarioTables.pd``).
+    names : sequence of str
+        The scenario names.
+    key_segments : sequence of str
+        The segment of each curve key.
+    key_weights : ndarray, shape (K,), optional
+        Weight of each curve key within its segment (the book's balance on it); equal
+        weights where a segment's weights are all 0 or none are given.
+    framework : str
+        Carried into the table.
+
+    Returns
+    -------
+    DataFrame
+        ``framework, scenario, segment, month, marginal_pd`` (the weighted average of the
+        segment's keys) and ``annualised_pd`` :math:`= 1 - (1 - pd_t)^{12}`, the PD at an
+        annual rate in month t.
+
+    Examples
+    --------
+    >>> table = np.array([[[0.001, 0.002]], [[0.003, 0.004]]])   # 2 keys, 1 scenario, 2 months
+    >>> t = pd_path_table(table, ["base"], ["auto", "auto"], np.array([3.0, 1.0]))
+    >>> t["marginal_pd"].round(6).tolist()
+    [0.0015, 0.0025]
+    """
+    pd_table = np.asarray(pd_table, dtype=float)
+    n_keys, n_scenarios, months = pd_table.shape
+    weights = np.ones(n_keys) if key_weights is None else np.asarray(key_weights, dtype=float)
+    segments = np.asarray(key_segments, dtype=object)
+    frames = []
+    for name in dict.fromkeys(key_segments):
+        rows = segments == name
+        w = weights[rows]
+        w = np.ones(rows.sum()) if w.sum() <= 0 else w
+        average = np.einsum("k,kst->st", w / w.sum(), pd_table[rows])
+        with np.errstate(divide="ignore"):  # a monthly PD of 1 is an annualised PD of 1
+            annual = -np.expm1(12.0 * np.log1p(-np.minimum(average, 1.0)))
+        for s, scenario in enumerate(names):
+            frames.append(pd.DataFrame({
+                "framework": framework, "scenario": scenario, "segment": name,
+                "month": np.arange(1, months + 1), "marginal_pd": average[s],
+                "annualised_pd": annual[s],
+            }))
+    columns = ["framework", "scenario", "segment", "month", "marginal_pd", "annualised_pd"]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)

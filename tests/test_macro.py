@@ -523,3 +523,19 @@ def test_macro_path_table_lists_scenarios_and_the_baseline():
     assert down["month"].min() == -11 and down["calendar_month"].iloc[0] == "2025-10"
     np.testing.assert_allclose(down.loc[down.month.between(1, 12), "deviation"], 1.9)
     assert set(t.scenario) == {"(baseline)", "down"}
+
+
+def test_pd_path_table_weights_keys_by_balance_and_annualises():
+    from allowance.macro import pd_path_table
+
+    table = np.zeros((3, 2, 4))
+    table[0], table[1], table[2] = 0.001, 0.003, 0.01  # a, a, b
+    table[:, 1] *= 2.0  # the second scenario doubles every PD
+    t = pd_path_table(table, ["base", "down"], ["a", "a", "b"], np.array([1.0, 3.0, 0.0]), framework="ifrs9")
+    a = t[(t.segment == "a") & (t.scenario == "base")]
+    np.testing.assert_allclose(a["marginal_pd"], 0.25 * 0.001 + 0.75 * 0.003)
+    b = t[(t.segment == "b") & (t.scenario == "down")]  # no balance on b: its keys weigh equally
+    np.testing.assert_allclose(b["marginal_pd"], 0.02)
+    # the monthly PD at an annual rate: 1 - (1 - 0.02)^12 (common practice, no source)
+    np.testing.assert_allclose(b["annualised_pd"], 1 - 0.98 ** 12, rtol=1e-12)
+    assert set(t.framework) == {"ifrs9"} and t["month"].max() == 4
