@@ -5,8 +5,8 @@ loop (:mod:`allowance.ecl`) and the schedule view (:func:`schedule`) take a loan
 payment from :func:`contractual_payment`; the schedule then steps month by month
 (:func:`principal_step`: interest and principal for people to check), the loop follows the same
 path in closed form (:func:`path_terms`, :func:`balance_on_path`: no month waits on the last).
-The tests hold the two paths, and the stateless :func:`scheduled_principal`, equal for every
-repayment type, so what an auditor checks by hand is what the engine computes.
+The tests hold the two paths equal for every repayment type, and both against
+numpy-financial, so what an auditor checks by hand is what the engine computes.
 
 Implements
 ----------
@@ -15,8 +15,6 @@ age_months           whole months from origination to the as-of date (PSA season
 smm_from_cpr         single monthly mortality from an annual constant prepayment rate
 psa_cpr              the PSA standard prepayment benchmark at a multiple
 level_payment        the level payment that amortizes a balance to a residual
-annuity_principal    scheduled principal of a level payment that amortizes to a residual
-scheduled_principal  one month's scheduled principal for any repayment type (stateless)
 contractual_payment  a loan's level payment, once per loan, for the compiled loop
 principal_step       one month's scheduled principal given that payment (the schedule's form)
 path_terms           growth and payment of the closed-form balance path
@@ -161,81 +159,6 @@ def level_payment(balance: float, rate: float, months: int, residual: float) -> 
 
 
 @numba.njit(cache=True)
-def annuity_principal(balance: float, rate: float, months: int, residual: float) -> float:
-    r"""Scheduled principal this month of a level payment that takes ``balance`` to ``residual``.
-
-    Notes
-    -----
-    principal = P - B r with P the :func:`level_payment`. Recomputing P every month from the
-    current balance gives the same payment as the original schedule (annuity invariance), so
-    this stateless form and the loop's ``P`` computed once (:func:`principal_step`) agree. The
-    last payment retires what is left.
-
-    Examples
-    --------
-    >>> round(annuity_principal(100_000.0, 0.005, 360, 0.0), 2)
-    99.55
-    """
-    if months <= 1:
-        return balance - residual
-    return level_payment(balance, rate, months, residual) - balance * rate
-
-
-@numba.njit(cache=True)
-def scheduled_principal(
-    code: int,
-    balance: float,
-    rate: float,
-    months_left: int,
-    io_left: int,
-    residual: float,
-    payment: float,
-    paydown: float,
-) -> float:
-    """One month's scheduled principal, from the opening ``balance`` alone (no state).
-
-    Parameters
-    ----------
-    code : repayment code (LEVEL, INTEREST_ONLY, BALLOON, REVOLVING)
-    rate : monthly contract rate (interest_rate / 12)
-    months_left : payments left including this one (1 = maturity month)
-    io_left : interest-only months left including this one
-    residual : balloon amount due at maturity (balloon loans), else 0
-    payment : the tape's payment when given, else NaN (recomputed from the schedule)
-    paydown : revolving lines: monthly share of the drawn balance repaid
-
-    Notes
-    -----
-    level: level payment to zero by maturity, or the tape's payment (principal = payment -
-    interest, never negative; whatever is left is due at maturity). interest_only: no
-    principal during the interest-only months, then level payment over the rest (pure
-    interest-only pays everything at maturity). balloon: level payment to the residual, which
-    is due at maturity. revolving: ``paydown`` x balance; no maturity.
-
-    This is the reference form; the compiled loop uses the equal, cheaper pair
-    :func:`contractual_payment` (once per loan) and :func:`principal_step` (per month).
-
-    Examples
-    --------
-    >>> round(scheduled_principal(LEVEL, 100_000.0, 0.005, 360, 0, 0.0, float("nan"), 0.0), 2)
-    99.55
-    >>> scheduled_principal(INTEREST_ONLY, 100_000.0, 0.005, 360, 24, 0.0, float("nan"), 0.0)
-    0.0
-    """
-    if code == REVOLVING:
-        return balance * paydown
-    if months_left <= 1:
-        return balance
-    if io_left > 0:
-        return 0.0
-    if code == BALLOON:
-        return annuity_principal(balance, rate, months_left, residual)
-    if payment == payment:  # given on the tape (not NaN)
-        return min(balance, max(payment - balance * rate, 0.0))
-    return annuity_principal(balance, rate, months_left, 0.0)
-
-
-@numba.njit(cache=True)
 def contractual_payment(
     code: int, balance: float, rate: float, months_left: int, io_left: int, residual: float, payment: float
 ) -> float:
@@ -268,14 +191,26 @@ def principal_step(
 ) -> float:
     """One month's scheduled principal given the loan's ``level`` payment.
 
-    ``level`` is :func:`contractual_payment` of the loan at the as-of date; the other
-    arguments are as in :func:`scheduled_principal`, which this equals month by month (annuity
-    invariance) without a power per month.
+    Parameters
+    ----------
+    code : repayment code (LEVEL, INTEREST_ONLY, BALLOON, REVOLVING)
+    rate : monthly contract rate (interest_rate / 12)
+    months_left : payments left including this one (1 = maturity month)
+    io_left : interest-only months left including this one
+    level : :func:`contractual_payment` of the loan at the as-of date
+    paydown : revolving lines: monthly share of the drawn balance repaid
 
     Notes
     -----
     principal = min(B, max(P - B r, 0)); the whole balance at maturity; 0 during the
-    interest-only months; ``paydown`` x B for revolving lines.
+    interest-only months; ``paydown`` x B for revolving lines. Recomputing the level payment
+    every month from the current balance would give the same payment (annuity invariance),
+    so the payment is computed once per loan and no month needs a power.
+
+    level: level payment to zero by maturity, or the tape's payment (whatever it leaves is
+    due at maturity). interest_only: no principal during the interest-only months, then level
+    payment over the rest (pure interest-only pays everything at maturity). balloon: level
+    payment to the residual, which is due at maturity. revolving: ``paydown`` x balance.
 
     Examples
     --------

@@ -21,6 +21,7 @@ import typer
 from allowance import __version__, cashflows, engine, intake, macro, reconcile, report
 from allowance.report import clock
 from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
+from allowance.frameworks import FRAMEWORK_RULES
 from allowance.schemas import Assumptions, RunConfig
 
 app = typer.Typer(
@@ -174,7 +175,7 @@ def _print_summary(q: Quarter) -> None:
         col = f"ecl_{fw}"
         total = loans[col].sum()
         line = f"allowance {fw.upper():6s} {total:>18,.2f}"
-        if fw == "ifrs9" and "stage" in loans:
+        if FRAMEWORK_RULES[fw].staged and "stage" in loans:
             by = loans.groupby("stage")[col].sum()
             line += "   " + "  ".join(f"stage {int(s)} {v:,.2f}" for s, v in by.items())
         _say(line)

@@ -3,20 +3,24 @@
 Implements
 ----------
 monthly_rate       nominal annual rate -> monthly rate (rate / 12)
-discount_factor    DF_t = (1 + eir/12)^-t, for a loss in month t (discounted from its end)
-present_value      PV of a stream of monthly amounts at the EIR
+monthly_discount   v = 1 / (1 + eir/12): one month's discount, which the ECL loop compounds
+discount_factor    DF_t = (1 + eir/12)^-t, for an amount at the end of month t
 
 Conventions: the EIR defaults to the contract rate (no fees). IFRS 9 discounts expected
 credit losses at the EIR to the reporting date (IFRS 9 B5.5.44); CECL's PD/LGD method is
-undiscounted unless the discounted cash-flow option is chosen (ASC 326-20-30-4).
+undiscounted unless the discounted cash-flow option is chosen (ASC 326-20-30-4). Which
+framework discounts is a rule of :mod:`allowance.frameworks`.
+
+The functions work on scalars and on numpy arrays, and compile with numba where a compiled
+loop calls them.
 """
 
 from __future__ import annotations
 
-import numba
-import numpy as np
+from numba.extending import register_jitable
 
 
+@register_jitable
 def monthly_rate(annual_rate):
     """Monthly rate of a nominal annual rate compounded monthly.
 
@@ -28,13 +32,31 @@ def monthly_rate(annual_rate):
     return annual_rate / 12.0
 
 
-@numba.njit(cache=True)
-def discount_factor(eir_monthly: float, month: float) -> float:
+def monthly_discount(eir_annual):
+    r"""One month's discount factor at the EIR: :math:`v = 1 / (1 + EIR/12)`.
+
+    Notes
+    -----
+    The ECL loop carries :math:`DF_t = v^t` as a running product, one multiplication a month
+    (:mod:`allowance.ecl`); :func:`discount_factor` is the same factor in closed form.
+
+    Examples
+    --------
+    >>> round(monthly_discount(0.06) ** 12, 6)
+    0.941905
+    """
+    return 1.0 / (1.0 + monthly_rate(eir_annual))
+
+
+@register_jitable
+def discount_factor(eir_monthly, month):
     r"""Discount factor for an amount at the end of ``month`` at the monthly EIR.
 
     Notes
     -----
     .. math:: DF_t = (1 + i)^{-t}, \qquad i = EIR / 12
+
+    Works on scalars and broadcasts over arrays.
 
     References
     ----------
@@ -47,21 +69,3 @@ def discount_factor(eir_monthly: float, month: float) -> float:
     0.941905
     """
     return (1.0 + eir_monthly) ** (-month)
-
-
-def present_value(amounts, eir_annual):
-    """PV at the EIR of monthly amounts paid at the end of months 1..n (last axis).
-
-    Examples
-    --------
-    A level-pay loan's payments at its own contract rate are worth its balance:
-
-    >>> import numpy_financial as npf
-    >>> pay = -npf.pmt(0.06 / 12, 36, 10_000.0)
-    >>> round(float(present_value(np.full(36, pay), 0.06)), 6)
-    10000.0
-    """
-    amounts = np.asarray(amounts, float)
-    months = np.arange(1, amounts.shape[-1] + 1)
-    factors = (1.0 + monthly_rate(np.asarray(eir_annual, float))[..., None]) ** (-months)
-    return (amounts * factors).sum(axis=-1)

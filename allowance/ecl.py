@@ -12,8 +12,9 @@ where :math:`pd_t` is the marginal PD conditional on survival, :math:`EAD_t` the
 start of month t, :math:`DF_t = (1 + EIR/12)^{-t}` (1 where the framework does not discount)
 and :math:`smm_t` the prepayment rate (competing risk). The 12-month ECL sums t ≤ 12. A loan
 in default takes PD = 1 now: ECL = LGD · EAD_0. The formulas live in the concept modules
-(:mod:`~allowance.cashflows`, :mod:`~allowance.curves`, :mod:`~allowance.discounting`); this
-module only composes them, and never allocates a loans × months array.
+(:mod:`~allowance.cashflows` for the balance path, :func:`~allowance.curves.lgd.loss_given_default`
+for LGD_t, :func:`~allowance.discounting.monthly_discount` for the v of DF_t = v^t); this module
+compiles and composes them, and never allocates a loans × months array.
 
 How the loop is made fast (``tests/bench/bench_engine.py`` measures it): the level payment
 is computed once per loan (:func:`~allowance.cashflows.contractual_payment`) and the balance
@@ -44,9 +45,16 @@ import numba
 import numpy as np
 
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
-from allowance.curves.lgd import collateral_lgd as _collateral_lgd_py
+from allowance.curves.lgd import loss_given_default
 
-_collateral_lgd = numba.njit(cache=True)(_collateral_lgd_py)
+#: the LGD of a loan-month (:func:`allowance.curves.lgd.loss_given_default`), compiled into the loop
+_loss_given_default = numba.njit(cache=True, inline="always")(loss_given_default)
+
+
+@numba.njit(cache=True, inline="always")
+def _flat_lgd(lgd, multiplier):
+    """:func:`loss_given_default` of a loan without collateral (its collateral branch folds away)."""
+    return _loss_given_default(0.0, lgd, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, multiplier)
 
 
 #: Loans per parallel task: large enough that scheduling and scratch allocation vanish,
@@ -115,15 +123,6 @@ class KernelResult:
     lgd: np.ndarray
 
 
-@numba.njit(cache=True, inline="always")
-def _loss_given_default(ead, lgd_flat, collateral, index, haircut, cost, floor, rec_df, cure, mult):
-    if collateral > 0.0:
-        base = (1.0 - cure) * _collateral_lgd(ead, collateral * index, haircut, cost, floor, rec_df)
-    else:
-        base = lgd_flat
-    return min(1.0, base * mult)
-
-
 @numba.njit(cache=True, inline="always", fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
@@ -143,7 +142,7 @@ def _flat_lanes(
     c0 = c1 = c2 = c3 = 0.0  # cumulative PD so far
     y0 = y1 = y2 = y3 = 0.0  # 12-month ECL
     q0 = q1 = q2 = q3 = 0.0  # 12-month PD
-    lgd_c = min(1.0, lgd_i)
+    lgd_c = _flat_lgd(lgd_i, 1.0)
     growth, pay = path_terms(code, balance, rate, level, paydown)
     x = 1.0  # g^t
     annuity = 0.0  # sum of g^j, j < t
@@ -162,10 +161,10 @@ def _flat_lanes(
         if unit:
             w0 = w1 = w2 = w3 = w * lgd_c
         else:
-            w0 = w * min(1.0, lgd_i * lgd_multiplier[f, t, s0])
-            w1 = w * min(1.0, lgd_i * lgd_multiplier[f, t, j1])
-            w2 = w * min(1.0, lgd_i * lgd_multiplier[f, t, j2])
-            w3 = w * min(1.0, lgd_i * lgd_multiplier[f, t, j3])
+            w0 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, s0])
+            w1 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, j1])
+            w2 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, j2])
+            w3 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, j3])
         # S_t = (S_{t-1} - S_{t-1} pd_t)(1 - smm_t): the default share d is computed anyway
         d0 = a0 * pd[f, k, t, s0]
         l0 += d0 * w0

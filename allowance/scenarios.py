@@ -13,7 +13,7 @@ scenario_marginals      one scenario's monthly marginal PDs from the base (uncon
 reversion_weights       CECL: weight on the scenario adjustment by month (ASC 326-20-30-9)
 revert                  base + weight × (adjusted − base)
 ScenarioTables          the stacked PD table ``pd[K, S, T]`` and its companion paths
-scenario_tables         all scenarios of an assumptions file, for one framework
+scenario_tables         all scenarios of an assumptions file, whole life or reverting (CECL)
 weighted                probability-weighted sum over the scenario axis (on losses)
 reversion_table         the paths used, long form, for the workbook
 
@@ -37,7 +37,7 @@ from allowance import macro
 from allowance.exceptions import AssumptionsError
 from allowance.links import norm_cdf as _norm_cdf
 from allowance.links import norm_ppf as _norm_ppf
-from allowance.schemas import Assumptions, Framework, Reversion, Scenario, SegmentAssumptions
+from allowance.schemas import Assumptions, CeclRules, Reversion, Scenario, SegmentAssumptions
 
 __all__ = [
     "ScenarioTables",
@@ -435,18 +435,7 @@ def _multiplier_shown(scenario: Scenario, months: int) -> np.ndarray:
     return by_year(scenario.pd_multiplier, months, after=1.0)
 
 
-def _whole_life(tables: ScenarioTables, base: np.ndarray, assumptions: Assumptions) -> ScenarioTables:
-    return tables
-
-
-def _reasonable_supportable(tables: ScenarioTables, base: np.ndarray, assumptions: Assumptions) -> ScenarioTables:
-    rules = assumptions.cecl
-    if rules is None:
-        raise AssumptionsError(
-            "CECL is asked for but there is no [cecl] table",
-            column="cecl",
-            hint="add [cecl] with reasonable_supportable_months, reversion_months and reversion",
-        )
+def _reverted(tables: ScenarioTables, base: np.ndarray, rules: CeclRules) -> ScenarioTables:
     months = base.shape[-1]
     w = reversion_weights(rules.reasonable_supportable_months, rules.reversion_months, rules.reversion, months)
     return ScenarioTables(
@@ -461,20 +450,14 @@ def _reasonable_supportable(tables: ScenarioTables, base: np.ndarray, assumption
     )
 
 
-_FRAMEWORK_PATHS: dict[Framework, Callable[[ScenarioTables, np.ndarray, Assumptions], ScenarioTables]] = {
-    "ifrs9": _whole_life,
-    "cecl": _reasonable_supportable,
-}
-
-
 def scenario_tables(
     base: np.ndarray,
     rho: np.ndarray | None,
     assumptions: Assumptions,
-    framework: Framework,
+    reversion: CeclRules | None = None,
     key_segments: Sequence[str] | None = None,
 ) -> ScenarioTables:
-    """Every scenario's paths for one framework.
+    """Every scenario's paths, for the whole life or reverting after a forecast period.
 
     Parameters
     ----------
@@ -484,8 +467,11 @@ def scenario_tables(
         Asset correlation per curve key (:func:`asset_correlation`); needed only when a
         scenario gives a z path.
     assumptions : Assumptions
-        Scenarios, weights and (CECL) the ``[cecl]`` reversion rules.
-    framework : {"ifrs9", "cecl"}
+        Scenarios and weights.
+    reversion : CeclRules, optional
+        The reasonable and supportable period and the reversion after it (the ``[cecl]``
+        table); ``None`` keeps the scenario paths for the whole life. Which framework reverts
+        is a rule of :mod:`allowance.frameworks`.
     key_segments : sequence of str, optional
         The segment of each curve key (row of ``base``); needed only when a scenario gives
         macro paths (each segment's satellite model shifts its own rows).
@@ -496,11 +482,12 @@ def scenario_tables(
 
     Notes
     -----
-    IFRS 9: the scenario paths for the whole life (PD multiplier and LGD multiplier 1.0,
-    z the base, after the lists end; the collateral index holds its last value; macro paths
-    at their baseline after they end). CECL: the same paths for the reasonable and
-    supportable period, then reverted to the base PDs and to multipliers of 1 with
-    :func:`reversion_weights` (ASC 326-20-30-9), whatever kind of path the scenario states.
+    Whole life (IFRS 9): the scenario paths for the whole life (PD multiplier and LGD
+    multiplier 1.0, z the base, after the lists end; the collateral index holds its last
+    value; macro paths at their baseline after they end). With ``reversion`` (CECL): the same
+    paths for the reasonable and supportable period, then reverted to the base PDs and to
+    multipliers of 1 with :func:`reversion_weights` (ASC 326-20-30-9), whatever kind of path
+    the scenario states.
 
     Examples
     --------
@@ -510,7 +497,7 @@ def scenario_tables(
     ...     "segments": {"auto": {"pd_12m": 0.02, "lgd": 0.4}},
     ...     "cecl": {"reasonable_supportable_months": 12, "reversion_months": 12},
     ...     "scenarios": {"down": {"weight": 1.0, "pd_multiplier": [2.0, 2.0, 2.0]}}})
-    >>> t = scenario_tables(np.full((1, 36), 0.001), None, a, "cecl")
+    >>> t = scenario_tables(np.full((1, 36), 0.001), None, a, a.cecl)
     >>> (t.pd[0, 0, [0, 11, 17, 23, 35]] / 0.001).round(4).tolist()
     [2.0, 2.0, 1.5, 1.0, 1.0]
     """
@@ -538,7 +525,7 @@ def scenario_tables(
         collateral_by_key=None if links is None else np.stack(
             [macro.macro_collateral(s, c, links) for s, c in zip(scenarios, collateral)], axis=1),
     )
-    return _FRAMEWORK_PATHS[framework](whole_life, base, assumptions)
+    return whole_life if reversion is None else _reverted(whole_life, base, reversion)
 
 
 def weighted(values, weights) -> np.ndarray:

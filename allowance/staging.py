@@ -4,7 +4,9 @@ Implements
 ----------
 assign_stages    IFRS 9 stage 1/2/3 per loan with the reason, probation and POCI
 in_default       the PD = 1 test (days past due at the default threshold, defaulted, bankrupt)
-horizon_months   months of expected loss per loan: IFRS 9 12-month or lifetime, CECL lifetime
+lifetime_months  each loan's life: remaining term, or a revolving line's behavioural life
+stage_horizon    IFRS 9: 12 months in stage 1 (or the life if shorter), else the life
+lifetime_horizon CECL: the life of every loan
 
 Every rule is vectorised over the tape; the only Python loops run over segments or rule
 codes, never over loans.
@@ -12,15 +14,13 @@ codes, never over loans.
 
 from __future__ import annotations
 
-from collections.abc import Callable
-
 import numpy as np
 import pandas as pd
 
 from allowance.exceptions import AssumptionsError
-from allowance.schemas import Framework, Ifrs9Rules, SegmentAssumptions
+from allowance.schemas import Ifrs9Rules, SegmentAssumptions
 
-__all__ = ["assign_stages", "horizon_months", "in_default"]
+__all__ = ["assign_stages", "in_default", "lifetime_horizon", "lifetime_months", "stage_horizon"]
 
 _SLACK = 1e-12
 
@@ -226,32 +226,18 @@ def _join_codes(codes: list[str], masks: list[np.ndarray], n: int) -> np.ndarray
     return text[inverse]
 
 
-def _ifrs9_horizon(stage, remaining, revolving, behavioural_life) -> np.ndarray:
-    life = np.where(revolving, behavioural_life, remaining)
-    return np.where(stage == 1, np.minimum(12, life), life)
-
-
-def _cecl_horizon(stage, remaining, revolving, behavioural_life) -> np.ndarray:
-    return np.where(revolving, behavioural_life, remaining)
-
-
-_HORIZONS: dict[Framework, Callable[..., np.ndarray]] = {"ifrs9": _ifrs9_horizon, "cecl": _cecl_horizon}
-
-
-def horizon_months(stage, remaining_months, repayment, behavioural_life, framework: Framework) -> np.ndarray:
-    """Months of expected credit loss per loan.
+def lifetime_months(remaining_months, repayment, behavioural_life) -> np.ndarray:
+    """Each loan's life in months: the remaining contractual term, or a revolving line's
+    behavioural life.
 
     Parameters
     ----------
-    stage : array_like of int
-        IFRS 9 stage (ignored for CECL).
     remaining_months : array_like of int
         Remaining contractual term, at least 1.
     repayment : array_like of str
         ``revolving`` lines take their behavioural life.
     behavioural_life : array_like of int
         Behavioural life in months (used for revolving lines; at least 1 there).
-    framework : {"ifrs9", "cecl"}
 
     Returns
     -------
@@ -260,30 +246,19 @@ def horizon_months(stage, remaining_months, repayment, behavioural_life, framewo
     Raises
     ------
     AssumptionsError
-        A revolving line with no behavioural life.
-
-    Notes
-    -----
-    IFRS 9: stage 1 ``min(12, life)``, stages 2 and 3 (POCI included) the life, where the
-    life is the remaining contractual term or, for revolving lines, the behavioural life.
-    CECL: the remaining contractual term for every loan, prepayments being applied through
-    survival and no extensions assumed; revolving lines their behavioural life.
+        A revolving line with no behavioural life (intake refuses such a segment first).
 
     References
     ----------
-    .. [1] IFRS 9 Financial Instruments, paragraphs 5.5.3, 5.5.5, B5.5.38 and B5.5.40.
-    .. [2] FASB ASC 326-20-30-6 (contractual term adjusted for prepayments).
+    .. [1] IFRS 9 Financial Instruments, paragraph B5.5.40 (revolving facilities: the period
+       over which the entity is exposed to credit risk).
+    .. [2] FASB ASC 326-20-30-6 (the contractual term adjusted for prepayments).
 
     Examples
     --------
-    >>> horizon_months([1, 2, 1, 1], [200, 200, 6, 1], ["level", "level", "level", "revolving"],
-    ...                [0, 0, 0, 36], "ifrs9").tolist()
-    [12, 200, 6, 12]
-    >>> horizon_months([1, 2, 1, 1], [200, 200, 6, 1], ["level", "level", "level", "revolving"],
-    ...                [0, 0, 0, 36], "cecl").tolist()
-    [200, 200, 6, 36]
+    >>> lifetime_months([200, 6, 1], ["level", "level", "revolving"], [0, 0, 36]).tolist()
+    [200, 6, 36]
     """
-    stage = np.asarray(stage, dtype=np.int64)
     remaining = np.asarray(remaining_months, dtype=np.int64)
     life = np.asarray(behavioural_life, dtype=np.int64)
     revolving = np.asarray(repayment, dtype=object) == "revolving"
@@ -293,4 +268,38 @@ def horizon_months(stage, remaining_months, repayment, behavioural_life, framewo
             column="behavioural_life_months",
             hint="set behavioural_life_months in every segment that holds revolving lines",
         )
-    return _HORIZONS[framework](stage, remaining, revolving, life).astype(np.int64)
+    return np.where(revolving, life, remaining).astype(np.int64)
+
+
+def stage_horizon(stage, life) -> np.ndarray:
+    """Months of expected credit loss by IFRS 9 stage: stage 1 ``min(12, life)``, stages 2 and
+    3 (POCI included) the whole life.
+
+    References
+    ----------
+    .. [1] IFRS 9 Financial Instruments, paragraphs 5.5.3 (lifetime), 5.5.5 (12 months) and
+       B5.5.38 (12 months or the life if shorter).
+
+    Examples
+    --------
+    >>> stage_horizon([1, 2, 1, 3], [200, 200, 6, 36]).tolist()
+    [12, 200, 6, 36]
+    """
+    life = np.asarray(life, dtype=np.int64)
+    return np.where(np.asarray(stage, dtype=np.int64) == 1, np.minimum(12, life), life).astype(np.int64)
+
+
+def lifetime_horizon(stage, life) -> np.ndarray:
+    """Months of expected credit loss when every loan takes its whole life (CECL; the stage is
+    not used).
+
+    References
+    ----------
+    .. [1] FASB ASC 326-20-30-6 (expected credit losses over the contractual term).
+
+    Examples
+    --------
+    >>> lifetime_horizon([1, 2], [200, 36]).tolist()
+    [200, 36]
+    """
+    return np.asarray(life, dtype=np.int64).copy()

@@ -255,7 +255,8 @@ def example_report(n: int = 50, seed: int = 7, *, frameworks=("ifrs9", "cecl"), 
                    what_if=None, loan_detail_sheet_limit: int = 200_000, warnings=("an example run warning",)):
     """A RunReport built from example parts (no engine involved)."""
     from allowance.intake import IntakeResult, TieOut
-    from allowance.report import RunReport, run_record, scenario_table
+    from allowance.engine import scenario_summary
+    from allowance.report import RunReport, run_record
     from allowance.schemas import InputFile, RunConfig
 
     assumptions = example_assumptions(frameworks, loan_detail_sheet_limit)
@@ -296,7 +297,7 @@ def example_report(n: int = 50, seed: int = 7, *, frameworks=("ifrs9", "cecl"), 
                                   "prepayment": [1.0, 1.0, 1.0], "closing_balance": [90.0, 80.0, 70.0],
                                   "survival": [0.99, 0.98, 0.97], "expected_balance": [89.1, 78.4, 67.9]})
     parts = dict(config=config, intake=intake, tie_out=tie, loans=loans, overlays=overlays,
-                 scenarios=scenario_table(loans, config), term_structures=term, roll_rates=rolls,
+                 scenarios=scenario_summary(loans, config), term_structures=term, roll_rates=rolls,
                  reversion=reversion, schedules=schedules, movement=movement, what_if=what_if,
                  warnings=list(warnings))
     movements = RunReport(**parts).movements

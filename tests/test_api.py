@@ -15,7 +15,9 @@ from tests.books import engine_config, engine_tape
 PINNED = {
     "allowance.intake": {"IntakeResult", "PriorRun", "TieOut", "bundled_path", "check_table", "file_record",
                          "load_assumptions", "read_charge_offs", "read_prior_run", "read_tape", "tie_out"},
-    "allowance.engine": {"EngineResult", "Prepared", "loan_schedule", "prepare", "run", "run_chunk", "tape_months"},
+    "allowance.engine": {"ChunkResult", "EngineResult", "Prepared", "loan_schedule", "prepare", "run", "run_chunk",
+                         "scenario_summary", "tape_months"},
+    "allowance.frameworks": {"FRAMEWORK_RULES", "FrameworkRules", "rules_for"},
     "allowance.curves": {"PdTermStructure", "pd_term_structure", "survival", "unconditional_marginal",
                          "cumulative_pd", "pd_over", "roll_rate_summary", "collateral_lgd", "bucket_index"},
     "allowance.report": {"CAUTION", "RunReport", "run_record", "write_outputs", "neutralise_text"},

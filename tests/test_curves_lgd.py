@@ -10,13 +10,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from allowance.curves import (
-    base_lgd,
     collateral_lgd,
     effective_lgd,
+    loss_given_default,
     recovery_discount_factor,
     revolving_ead,
+    undrawn_exposure,
 )
-from allowance.schemas import SegmentAssumptions
+from allowance.ecl import _loss_given_default
 
 
 def test_collateral_lgd_worked_example() -> None:
@@ -92,18 +93,22 @@ def test_revolving_ead() -> None:
     assert revolving_ead(3_000.0, 10_000.0, 0.0) == 3_000.0  # CECL, unconditionally cancellable
 
 
-def test_base_lgd_flat_collateral_and_fallback() -> None:
-    # by hand: flat 0.40 with 25 % cures -> 0.30
-    flat = SegmentAssumptions(pd_12m=0.02, lgd=0.40, cure_rate=0.25)
-    out = base_lgd(flat, np.array([1_000.0, 2_000.0]), np.array([np.nan, 5_000.0]), np.array([0.05, 0.05]))
-    np.testing.assert_allclose(out, [0.30, 0.30], rtol=1e-15)
-    # secured: the worked example above (0.2582495) x (1 - 0.25) for the loan with collateral;
-    # the loan without a collateral value falls back to the flat 0.40 x 0.75
-    secured = SegmentAssumptions(
-        pd_12m=0.02, lgd=0.40, cure_rate=0.25,
-        collateral_lgd={"haircut": 0.30, "recovery_cost": 0.10, "floor": 0.10, "months_to_recovery": 12},
-    )
-    out = base_lgd(secured, np.array([200_000.0, 200_000.0]), np.array([250_000.0, np.nan]), np.array([0.06, np.nan]))
-    np.testing.assert_allclose(out, [0.2582495 * 0.75, 0.30], atol=1e-7)
-    with pytest.raises(ValueError, match="EIR"):
-        base_lgd(secured, np.array([1.0]), np.array([1.0]), np.array([np.nan]))
+def test_loss_given_default_flat_collateral_and_fallback() -> None:
+    """The LGD the ECL loop computes per loan-month (compiled), flat or secured, after cures."""
+    for lgd in (loss_given_default, _loss_given_default):
+        # by hand: flat 0.40 with 25 % cures -> 0.30 (loans without collateral take the flat LGD)
+        flat = effective_lgd(0.40, 0.25)
+        assert lgd(1_000.0, flat, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.25, 1.0) == pytest.approx(0.30, rel=1e-15)
+        # secured: the worked example above (0.2582495) x (1 - 0.25) for the loan with collateral
+        df = recovery_discount_factor(0.06, 12)
+        got = lgd(200_000.0, flat, 250_000.0, 1.0, 0.30, 0.10, 0.10, df, 0.25, 1.0)
+        assert got == pytest.approx(0.2582495 * 0.75, abs=1e-7)
+        # a scenario's LGD multiplier scales it, capped at 1
+        assert lgd(1_000.0, flat, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.25, 4.0) == 1.0
+
+
+def test_undrawn_exposure_is_the_add_on_of_revolving_ead() -> None:
+    # by hand: 0.5 x (10,000 - 3,000) = 3,500; nothing undrawn over the limit
+    assert undrawn_exposure(3_000.0, 10_000.0, 0.5) == 3_500.0
+    assert undrawn_exposure(12_000.0, 10_000.0, 0.5) == 0.0
+    assert revolving_ead(3_000.0, 10_000.0, 0.5) == 3_000.0 + undrawn_exposure(3_000.0, 10_000.0, 0.5)

@@ -181,7 +181,7 @@ def test_public_api() -> None:
     assert {
         "PdTermStructure", "survival", "unconditional_marginal", "cumulative_pd", "pd_over",
         "pd_term_structure", "PD_SOURCES", "bucket_index", "validate_matrix", "roll_rate_summary",
-        "collateral_lgd", "recovery_discount_factor", "effective_lgd", "base_lgd",
+        "collateral_lgd", "recovery_discount_factor", "effective_lgd", "loss_given_default",
     } <= set(curves.__all__)
     assert all(hasattr(curves, name) for name in curves.__all__)
 

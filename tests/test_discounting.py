@@ -1,4 +1,9 @@
-"""Discounting at the EIR: present values against numpy-financial."""
+"""Discounting at the EIR: present values against numpy-financial.
+
+A present value here is Σ amount_t × DF_t with DF_t from :func:`discount_factor`, the function
+the engine discounts collateral recoveries with; the ECL loop's running product v^t is held to
+it in tests/test_ecl.py.
+"""
 
 from __future__ import annotations
 
@@ -8,8 +13,15 @@ import pytest
 from hypothesis import given, settings
 
 from allowance import cashflows as cf
-from allowance.discounting import discount_factor, monthly_rate, present_value
+from allowance.discounting import discount_factor, monthly_discount, monthly_rate
 from tests.strategies import contract_loans
+
+
+def present_value(amounts, eir_annual):
+    """PV at the EIR of monthly amounts paid at the end of months 1..n (last axis)."""
+    amounts = np.asarray(amounts, float)
+    months = np.arange(1, amounts.shape[-1] + 1)
+    return (amounts * discount_factor(monthly_rate(np.asarray(eir_annual, float))[..., None], months)).sum(axis=-1)
 
 
 @pytest.mark.parametrize(("balance", "annual", "n"), [(10_000.0, 0.06, 36), (350_000.0, 0.041, 360), (7_500.0, 0.199, 60)])
@@ -25,6 +37,8 @@ def test_discount_factor_is_the_pv_of_one():
         with np.errstate(invalid="ignore", divide="ignore"):  # npf's rate-0 branch's twin
             expected = -npf.pv(i, t, 0.0, 1.0)  # numpy_financial.pv of 1 due at the end of month t
         assert discount_factor(i, t) == pytest.approx(expected, rel=1e-13)
+        # the loop's monthly multiplier compounds to the same factor
+        assert monthly_discount(12 * i) ** t == pytest.approx(expected, rel=1e-12)
     assert monthly_rate(0.06) == 0.005
 
 

@@ -174,3 +174,103 @@ def test_allowance_is_monotone_in_pd_and_lgd(pd12, bump, lgd, lgd_bump):
         assert (b >= a - 0.01).all()
     for a, b in zip(lo, hi_lgd):
         assert (b >= a - 0.01).all()
+
+
+# --------------------------------------------------------------------------------------
+# The chunk boundary: a pure function, a frozen result, any executor-style map
+# --------------------------------------------------------------------------------------
+
+
+def test_a_chunk_gives_a_frozen_result_of_its_own_loans():
+    import dataclasses
+
+    from allowance.engine.tables import prepare
+
+    t, cfg = tape(40), config()
+    prep = prepare(cfg, engine.tape_months(t, cfg), 60)
+    part = engine.run_chunk(t.iloc[10:25], prep)
+    assert isinstance(part, engine.ChunkResult)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        part.loans = part.loans  # type: ignore[misc]
+    assert list(part.loans.index) == list(range(10, 25))
+    assert list(part.loans["loan_id"]) == list(t["loan_id"].iloc[10:25])
+
+
+def test_segment_parameters_are_looked_up_by_segment_code():
+    from allowance.engine.tables import prepare
+
+    t, cfg = tape(60), config()
+    prep = prepare(cfg, engine.tape_months(t, cfg), 60)
+    terms = engine.loan_terms(t, prep)
+    segments = cfg.assumptions.segments
+    for name in ("auto", "mort", "cards"):
+        rows = (t["segment"] == name).to_numpy()
+        assert (np.asarray(prep.segments.names)[terms.segment[rows]] == name).all()
+        # lgd after cures, ccf: each loan carries its segment's figure (the assumptions, no source)
+        assert np.allclose(terms.lgd[rows], segments[name].lgd * (1 - segments[name].cure_rate))
+        assert np.allclose(terms.ccf[rows], segments[name].ccf)
+    assert (terms.collateral[(t["segment"] != "mort").to_numpy()] == 0).all()
+
+
+def test_any_map_gives_the_same_answer_and_progress_is_told(result):
+    calls = []
+    seen = []
+
+    def recording_map(function, chunks):
+        for chunk in chunks:
+            seen.append(len(chunk))
+            yield function(chunk)
+
+    again = engine.run(tape(), config(), chunk_size=70, map=recording_map,
+                       progress=lambda phase, done, total: calls.append((phase, done, total)))
+    pd.testing.assert_frame_equal(again.loans, result.loans)
+    assert seen == [70, 70, 70, 70, 20]
+    assert calls == [("loans", d, 300) for d in (70, 140, 210, 280, 300)]
+
+
+@pytest.mark.slow
+def test_chunks_run_in_other_processes():
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    t, cfg = tape(120), config()
+    here = engine.run(t, cfg)
+    # spawn: a fresh interpreter per worker, as a cluster's would be (no state shared by fork)
+    with ProcessPoolExecutor(max_workers=2, mp_context=multiprocessing.get_context("spawn")) as pool:
+        there = engine.run(t, cfg, chunk_size=50, map=pool.map)
+    pd.testing.assert_frame_equal(there.loans, here.loans)
+
+
+# --------------------------------------------------------------------------------------
+# One home per framework difference
+# --------------------------------------------------------------------------------------
+
+
+def test_no_module_branches_on_a_framework_name():
+    """What differs between IFRS 9 and CECL is asked of allowance.frameworks, never tested by name."""
+    import ast
+    from pathlib import Path
+
+    import allowance
+    from allowance.schemas import FRAMEWORKS
+
+    root = Path(allowance.__file__).parent
+    found = []
+    for path in root.rglob("*.py"):
+        if path.name in ("frameworks.py", "schemas.py"):
+            continue
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.Compare):
+                names = [c.value for c in [node.left, *node.comparators] if isinstance(c, ast.Constant)]
+                if any(n in FRAMEWORKS for n in names):
+                    found.append(f"{path.relative_to(root)}:{node.lineno}")
+    assert not found, f"framework names tested in {found}: ask allowance.frameworks instead"
+
+
+def test_every_framework_has_its_rules():
+    from allowance.frameworks import FRAMEWORK_RULES
+    from allowance.schemas import FRAMEWORKS
+
+    assert tuple(FRAMEWORK_RULES) == FRAMEWORKS
+    assert [r.name for r in FRAMEWORK_RULES.values()] == list(FRAMEWORKS)
+    assert sum(r.staged for r in FRAMEWORK_RULES.values()) == 1  # IFRS 9 alone stages loans

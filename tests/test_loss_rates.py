@@ -138,7 +138,7 @@ def test_scenarios_scale_the_loss_rate_then_revert():
         "cecl": {"reasonable_supportable_months": 12, "reversion_months": 12},
         "scenarios": {"down": {"weight": 1.0, "pd_multiplier": [2.0, 2.0], "lgd_multiplier": [1.1]}},
     })
-    tables = scenarios.scenario_tables(np.zeros((1, 36)), None, a, "cecl")
+    tables = scenarios.scenario_tables(np.zeros((1, 36)), None, a, a.cecl)
     mult = loss_rate_multipliers(tables)
     # months 1-12: 2.0 x 1.1; months 13-24: 2 - k/12 (straight-line reversion, ASC 326-20-30-9); then 1
     assert mult[0, :12] == pytest.approx(2.2) and mult[0, 24:] == pytest.approx(1.0)

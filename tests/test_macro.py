@@ -327,8 +327,8 @@ def test_cecl_reverts_macro_paths_to_the_long_run_pd():
     a = _assumptions({"down": {"weight": 1.0, "macro": {"u": HISTORY + worse, "hpi": BASELINE_HPI}}})
     keys = ["auto", "mort", "cards", "cards"]
     base = np.array([np.full(60, v) for v in (0.002, 0.001, 0.003, 0.008)])
-    ifrs9 = scenario_tables(base, None, a, "ifrs9", keys)
-    cecl = scenario_tables(base, None, a, "cecl", keys)
+    ifrs9 = scenario_tables(base, None, a, None, keys)
+    cecl = scenario_tables(base, None, a, a.cecl, keys)
     w = reversion_weights(24, 12, "straight_line", 60)
     np.testing.assert_allclose(cecl.pd, revert(base[:, None, :], ifrs9.pd, w), rtol=0, atol=0)
     assert (cecl.pd[:, 0, 36:] == base[:, 36:]).all()  # fully reverted after 24 + 12 months
@@ -343,7 +343,7 @@ def test_scenarios_may_mix_kinds_across_a_run_but_not_within_one():
         "base": {"weight": 0.5, "macro": {"u": BASELINE_U, "hpi": BASELINE_HPI}},
         "management": {"weight": 0.5, "pd_multiplier": [1.3]},
     })
-    t = scenario_tables(np.full((4, 24), 0.002), None, a, "ifrs9", ["auto", "mort", "cards", "cards"])
+    t = scenario_tables(np.full((4, 24), 0.002), None, a, None, ["auto", "mort", "cards", "cards"])
     assert (t.pd[:, 0] == 0.002).all() and np.allclose(t.pd[:, 1, :12], 0.0026)
 
 
@@ -499,7 +499,7 @@ def test_a_higher_unemployment_path_gives_higher_pds_and_a_higher_allowance(beta
     for name, path in (("low", low), ("high", high)):
         a = _assumptions({"s": {"weight": 1.0, "macro": {"u": path, "hpi": BASELINE_HPI}}}, segments=segments)
         keys = ["auto", "cards", "cards", "mort"]
-        runs[name] = (scenario_tables(np.full((4, 48), 0.003), None, a, "ifrs9", keys), _run(a))
+        runs[name] = (scenario_tables(np.full((4, 48), 0.003), None, a, None, keys), _run(a))
     pd_low, pd_high = runs["low"][0].pd, runs["high"][0].pd
     assert (pd_high >= pd_low).all() and (pd_high > pd_low).any()
     for fw in ("ifrs9", "cecl"):

@@ -218,7 +218,7 @@ def test_immediate_reversion_is_one_from_the_first_month_after_the_period():
     assert w.tolist() == [1.0] * 24 + [0.0] * 12
     a = _assumptions({"down": {"weight": 1.0, "pd_multiplier": [1.8, 1.8, 1.8]}},
                      cecl={"reasonable_supportable_months": 24, "reversion_months": 12, "reversion": "immediate"})
-    tables = scenario_tables(np.full((1, 36), 0.002), None, a, "cecl")
+    tables = scenario_tables(np.full((1, 36), 0.002), None, a, a.cecl)
     np.testing.assert_allclose(tables.pd_multiplier[0], [1.8] * 24 + [1.0] * 12)
     np.testing.assert_allclose(tables.pd[0, 0], [0.0036] * 24 + [0.002] * 12)
 
@@ -229,7 +229,7 @@ def test_straight_line_reversion_hand_computed():
     assert w.tolist() == [1.0, 1.0, 1.0, 0.75, 0.5, 0.25, 0.0, 0.0]
     a = _assumptions({"down": {"weight": 1.0, "pd_multiplier": [1.8]}},
                      cecl={"reasonable_supportable_months": 3, "reversion_months": 4})
-    tables = scenario_tables(np.full((2, 8), 0.001), None, a, "cecl")
+    tables = scenario_tables(np.full((2, 8), 0.001), None, a, a.cecl)
     # multiplier moves linearly from 1.8 to 1: 1.8, 1.8, 1.8, 1.6, 1.4, 1.2, 1.0, 1.0
     np.testing.assert_allclose(tables.pd_multiplier[0], [1.8, 1.8, 1.8, 1.6, 1.4, 1.2, 1.0, 1.0])
     np.testing.assert_allclose(tables.pd[:, 0] / 0.001, [[1.8, 1.8, 1.8, 1.6, 1.4, 1.2, 1.0, 1.0]] * 2)
@@ -254,7 +254,7 @@ def test_scenario_tables_ifrs9_and_cecl_side_paths():
     )
     base = np.full((3, 48), 0.002)
     rho = np.array([0.15, 0.04, 0.1])
-    ifrs9 = scenario_tables(base, rho, a, "ifrs9")
+    ifrs9 = scenario_tables(base, rho, a)
     assert ifrs9.names == ("base", "down", "macro") and ifrs9.weights.tolist() == [0.5, 0.3, 0.2]
     assert ifrs9.pd.shape == (3, 3, 48) and ifrs9.reversion is None
     np.testing.assert_allclose(ifrs9.lgd_multiplier[1], [1.2] * 12 + [1.0] * 36)
@@ -262,7 +262,7 @@ def test_scenario_tables_ifrs9_and_cecl_side_paths():
     np.testing.assert_allclose(ifrs9.collateral_index[0], 1.0)
     assert np.isnan(ifrs9.pd_multiplier[2]).all()
     np.testing.assert_allclose(ifrs9.pd[:, 2, 24:], base[:, 24:])
-    cecl = scenario_tables(base, rho, a, "cecl")
+    cecl = scenario_tables(base, rho, a, a.cecl)
     # after 24 months every path is back to the base and the side paths to 1
     np.testing.assert_allclose(cecl.pd[:, :, 24:], np.broadcast_to(base[:, None, 24:], (3, 3, 24)))
     np.testing.assert_allclose(cecl.collateral_index[1, [0, 17, 30]], [0.9, 0.9, 1.0])  # 0.8 + 0.5 * 0.2
@@ -271,7 +271,7 @@ def test_scenario_tables_ifrs9_and_cecl_side_paths():
 
 def test_reversion_table_long_form():
     a = _assumptions({"base": {"weight": 0.6}, "macro": {"weight": 0.4, "z": [-1.0]}})
-    tables = scenario_tables(np.full((1, 40), 0.001), np.array([0.15]), a, "cecl")
+    tables = scenario_tables(np.full((1, 40), 0.001), np.array([0.15]), a, a.cecl)
     frame = reversion_table(tables)
     assert list(frame.columns) == ["scenario", "month", "weight_on_scenario", "pd_multiplier",
                                    "lgd_multiplier", "collateral_index"]
@@ -296,7 +296,7 @@ def test_weighted_loss_differs_from_loss_at_the_weighted_pd():
         {"up": {"weight": 0.3, "z": [1.5] * 5}, "mid": {"weight": 0.4, "z": [0.0] * 5},
          "down": {"weight": 0.3, "z": [-1.5] * 5}},
     )
-    tables = scenario_tables(np.full((1, 60), 0.004), np.array([0.15]), a, "ifrs9")
+    tables = scenario_tables(np.full((1, 60), 0.004), np.array([0.15]), a)
     losses = _lifetime_loss(tables.pd[0])  # one per scenario
     weighted_loss = float(weighted(losses, tables.weights))
     loss_at_weighted_pd = float(_lifetime_loss(weighted(tables.pd[0].T, tables.weights)))
@@ -309,7 +309,7 @@ def test_weighted_loss_differs_from_loss_at_the_weighted_pd():
 def test_weighting_with_a_cap():
     # PD multiplier 3 on a monthly PD of 0.4 caps at 1: the weighted loss is not the loss at the weighted multiplier
     a = _assumptions({"down": {"weight": 0.5, "pd_multiplier": [3.0]}, "up": {"weight": 0.5, "pd_multiplier": [0.5]}})
-    tables = scenario_tables(np.full((1, 1), 0.4), None, a, "ifrs9")
+    tables = scenario_tables(np.full((1, 1), 0.4), None, a)
     losses = _lifetime_loss(tables.pd[0])
     assert float(weighted(losses, tables.weights)) == pytest.approx(0.5 * 500.0 + 0.5 * 100.0)  # by hand
     at_mean_multiplier = _lifetime_loss(np.minimum(1.0, np.array([0.4 * 1.75])))
@@ -320,7 +320,7 @@ def test_a_scenario_at_weight_one_equals_that_scenario():
     a = _assumptions({"up": {"weight": 0.0, "pd_multiplier": [0.8]}, "down": {"weight": 1.0, "z": [-2.0, -1.0]},
                       "base": {"weight": 0.0}})
     base = np.full((2, 36), 0.003)
-    tables = scenario_tables(base, np.array([0.15, 0.04]), a, "ifrs9")
+    tables = scenario_tables(base, np.array([0.15, 0.04]), a)
     losses = _lifetime_loss(tables.pd)  # (K, S)
     np.testing.assert_array_equal(weighted(losses, tables.weights), losses[:, 1])
     alone = scenario_marginals(base, a.scenarios["down"], np.array([0.15, 0.04]))
@@ -333,7 +333,7 @@ def test_weighted_checks_the_scenario_axis():
 
 
 def test_scenario_tables_is_a_frozen_result():
-    tables = scenario_tables(np.full((1, 2), 0.01), None, _assumptions({"b": {"weight": 1.0}}), "ifrs9")
+    tables = scenario_tables(np.full((1, 2), 0.01), None, _assumptions({"b": {"weight": 1.0}}))
     assert isinstance(tables, ScenarioTables)
     with pytest.raises(AttributeError):
         tables.names = ("x",)  # type: ignore[misc]

@@ -9,7 +9,8 @@ from hypothesis import given, settings
 
 from allowance.exceptions import AssumptionsError
 from allowance.schemas import Ifrs9Rules, SegmentAssumptions
-from allowance.staging import assign_stages, horizon_months, in_default
+from allowance.frameworks import rules_for
+from allowance.staging import assign_stages, in_default, lifetime_months
 from tests.strategies import staging_tapes
 
 RULES = Ifrs9Rules(sicr_pd_ratio=2.0)
@@ -209,26 +210,25 @@ def test_stage_invariants(case):
 
 def test_ifrs9_horizons():
     # IFRS 9 5.5.5 (12 months for stage 1), 5.5.3 (lifetime), B5.5.40 (revolving: behavioural life)
-    out = horizon_months(
+    out = rules_for("ifrs9").horizon_months(
         stage=[1, 1, 2, 3, 1, 2],
         remaining_months=[300, 7, 300, 300, 1, 1],
         repayment=np.array(["level", "level", "balloon", "level", "revolving", "revolving"], dtype=object),
         behavioural_life=[0, 0, 0, 0, 36, 36],
-        framework="ifrs9",
     )
     assert out.tolist() == [12, 7, 300, 300, 12, 36]
     assert out.dtype == np.int64
-    short = horizon_months([1], [1], pd.Series(["revolving"]), [6], "ifrs9")
+    short = rules_for("ifrs9").horizon_months([1], [1], pd.Series(["revolving"]), [6])
     assert short.tolist() == [6]
 
 
 def test_cecl_horizons_are_lifetime_for_every_loan():
     # ASC 326-20-30-6: the contractual term (prepayments through survival, no extensions)
-    out = horizon_months([1, 2, 3, 1], [300, 300, 5, 1], ["level", "level", "level", "revolving"],
-                         [0, 0, 0, 24], "cecl")
+    out = rules_for("cecl").horizon_months([1, 2, 3, 1], [300, 300, 5, 1], ["level", "level", "level", "revolving"],
+                                           [0, 0, 0, 24])
     assert out.tolist() == [300, 300, 5, 24]
 
 
 def test_revolving_without_behavioural_life_is_an_error():
     with pytest.raises(AssumptionsError, match="behavioural"):
-        horizon_months([1], [1], ["revolving"], [0], "ifrs9")
+        lifetime_months([1], ["revolving"], [0])

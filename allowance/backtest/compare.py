@@ -32,6 +32,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from allowance.frameworks import rules_for
 from allowance.backtest.realised import realised_outcomes, window_months
 from allowance.backtest.statistics import LIGHTS, BacktestOptions, calibration_table, segment_verdicts
 
@@ -87,7 +88,9 @@ def event_dpd(assumptions: Mapping[str, Any]) -> dict[str, int]:
     {'auto': 90, 'cards': 180}
     """
     frameworks = assumptions.get("run", {}).get("frameworks", [])
-    rules = assumptions.get("ifrs9") if "ifrs9" in frameworks else assumptions.get("cecl")
+    # the staged framework (IFRS 9) leads loans.csv's shared PD columns when it is run
+    lead = next((f for f in frameworks if rules_for(f).staged), frameworks[0] if frameworks else None)
+    rules = assumptions.get(lead) if lead else None
     default = int((rules or {}).get("default_dpd") or 90)
     out = {}
     for name, seg in assumptions.get("segments", {}).items():

@@ -12,15 +12,17 @@ pd_sources      pd_term_structure and the PD_SOURCES registry (12-month PD, cumu
 roll_rates      delinquency buckets, bucket_index, validate_matrix, matrix_term_structure,
                 roll_rate_summary (Kemeny & Snell absorbing-chain analytics)
 roll_forecast   bucket_balances, roll_forecast, roll_forecast_check (balance roll-rate forecast)
-lgd             collateral_lgd, recovery_discount_factor, effective_lgd, base_lgd, revolving_ead
+lgd             collateral_lgd, recovery_discount_factor, effective_lgd, loss_given_default,
+                undrawn_exposure, revolving_ead
 """
 
 from allowance.curves.lgd import (
-    base_lgd,
     collateral_lgd,
     effective_lgd,
+    loss_given_default,
     recovery_discount_factor,
     revolving_ead,
+    undrawn_exposure,
 )
 from allowance.curves.pd_sources import (
     PD_SOURCES,
@@ -62,7 +64,6 @@ __all__ = [
     "PdSource",
     "PdTermStructure",
     "RollForecast",
-    "base_lgd",
     "bucket_balances",
     "bucket_index",
     "collateral_lgd",
@@ -71,6 +72,7 @@ __all__ = [
     "effective_lgd",
     "expected_states",
     "hazard_from_pd_12m",
+    "loss_given_default",
     "marginal_from_curve",
     "matrix_term_structure",
     "pd_over",
@@ -82,5 +84,6 @@ __all__ = [
     "roll_rate_summary",
     "survival",
     "unconditional_marginal",
+    "undrawn_exposure",
     "validate_matrix",
 ]

@@ -2,47 +2,70 @@
 
 The engine composes the concept modules in one direction: loan terms (cash flows) -> PD
 term structures (curves) -> scenario paths per framework (scenarios) -> stages and horizons
-(staging) -> the fused ECL loop (ecl) -> rounding to cents -> overlays. Book-level tables
-(term structures, scenario paths, prepayment curves) are built once by :func:`prepare`;
-:func:`run_chunk` is a pure function of a chunk of loans and those tables, so chunks can run
-in-process, on several cores or on a cluster without change.
+(staging) -> the fused ECL loop (ecl) -> rounding to cents -> overlays. What differs between
+the frameworks comes from their rules (:mod:`allowance.frameworks`). Book-level tables (term
+structures, scenario paths, prepayment curves, segment parameters) are built once by
+:func:`prepare`; :func:`run_chunk` is a pure function of a chunk of loans and those tables,
+returning a frozen :class:`ChunkResult`, and :func:`run` hands the chunks to any
+executor-style ``map`` (the builtin, ``ProcessPoolExecutor.map``, a cluster's), so the same
+function runs in-process, on several cores or on several machines. The book-wide steps
+(rounding to cents, overlays, summaries) run after the map, in the calling process.
 
 Implements
 ----------
 Prepared      the book-level tables a chunk needs
+ChunkResult   a chunk's modelled loan results and findings
 EngineResult  loan results plus the tables the workbook shows
 prepare       build the tables for a tape
 run_chunk     loan results (modelled, unrounded) for a chunk of loans
-run           the whole book: chunks, rounding to cents, overlays, summaries
+run           the whole book: chunks through a map, rounding to cents, overlays, summaries
+Progress      the progress callback: ``progress(phase, done, total)``
 """
 
 from __future__ import annotations
 
+import builtins
+import functools
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
+from typing import Any, Protocol
 
 import numpy as np
 import pandas as pd
 
 from allowance import cashflows, overlays, scenarios
-from allowance.engine.chunk import LoanTerms, loan_terms, run_chunk
-from allowance.engine.tables import Prepared, prepare, tape_months
+from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, run_chunk
+from allowance.engine.tables import Prepared, SegmentTable, prepare, segment_table, tape_months
 from allowance.engine.views import (
-    _scenario_summary,
-    _schedule_sample,
-    _term_structure_table,
     loan_schedule,
     roll_rate_table,
+    scenario_summary,
+    term_structure_table,
 )
+from allowance.engine.views import schedule_sample as _schedule_sample
+from allowance.money import CENT_DECIMALS
 from allowance.schemas import LoanRecord, RunConfig
 
 __all__ = [
-    "CHUNK_SIZE", "EngineResult", "LoanTerms", "Prepared", "loan_schedule", "loan_terms",
-    "prepare", "roll_rate_table", "run", "run_chunk", "tape_months",
+    "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "Prepared", "Progress", "SegmentTable",
+    "loan_schedule", "loan_terms", "prepare", "roll_rate_table", "run", "run_chunk", "scenario_summary",
+    "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
 
-_MONEY = 2  # decimals: money is rounded to cents once, per loan, at the end
+#: an executor-style map: ``map(function, chunks)`` yields the results in the chunks' order
+Map = Callable[[Callable[[pd.DataFrame], ChunkResult], Iterable[pd.DataFrame]], Iterable[ChunkResult]]
+
+
+class Progress(Protocol):
+    """Told how far a run is: ``phase`` names the step, ``done`` of ``total`` units are done.
+
+    The engine reports ``"loans"`` (loans computed, of the tape's loans) after each chunk.
+    """
+
+    def __call__(self, phase: str, done: int, total: int) -> Any: ...
+
 
 @dataclass(frozen=True)
 class EngineResult:
@@ -67,15 +90,48 @@ class EngineResult:
 def _round_money(loans: pd.DataFrame) -> pd.DataFrame:
     money = [c for c in loans.columns if c.startswith("ecl_") or c.startswith("ead") or c == "balance"]
     rounded = loans.copy()
-    rounded[money] = rounded[money].round(_MONEY)
+    rounded[money] = rounded[money].round(CENT_DECIMALS)
     return rounded
 
 
-def run(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_SIZE, schedule_sample: int = 2) -> EngineResult:
+def _chunks(tape: pd.DataFrame, chunk_size: int) -> Iterator[pd.DataFrame]:
+    for start in range(0, max(len(tape), 1), chunk_size):
+        yield tape.iloc[start: start + chunk_size]
+
+
+def run(
+    tape: pd.DataFrame,
+    config: RunConfig,
+    *,
+    chunk_size: int = CHUNK_SIZE,
+    schedule_sample: int = 2,
+    map: Map = builtins.map,  # the executor's word for it
+    progress: Progress | None = None,
+) -> EngineResult:
     """Compute the allowance for an accepted tape.
 
+    Parameters
+    ----------
+    tape : DataFrame
+        The accepted tape, as intake hands it over.
+    config : RunConfig
+        The validated assumptions.
+    chunk_size : int
+        Loans per chunk (the unit of work a ``map`` hands out).
+    schedule_sample : int
+        Performing loans per segment whose schedules the workbook shows.
+    map : callable
+        Runs :func:`run_chunk` over the chunks: the builtin ``map`` (in-process, the
+        default), ``concurrent.futures.ProcessPoolExecutor(...).map`` or any map with the
+        same contract (results in the chunks' order).
+    progress : callable, optional
+        ``progress("loans", done, total)`` after each chunk.
+
+    Notes
+    -----
     Money is computed unrounded and rounded to cents once per loan; overlays are applied to
-    the rounded modelled figures; every total is the sum of rounded loan figures.
+    the rounded modelled figures; every total is the sum of rounded loan figures. Rounding,
+    overlays and summaries are book-wide and run after the map.
     """
     a = config.assumptions
     months = tape_months(tape, config)
@@ -83,34 +139,35 @@ def run(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_SIZE, 
     max_age = int(cashflows.age_months(tape["origination_date"], as_of).max()) if len(tape) else 0
     prep = prepare(config, months, max_age)
 
-    parts, found = [], []
-    for start in range(0, max(len(tape), 1), chunk_size):
-        chunk = tape.iloc[start: start + chunk_size]
-        out, fnd = run_chunk(chunk, prep)
-        parts.append(out)
-        found.append(fnd)
-    loans = _round_money(pd.concat(parts) if parts else pd.DataFrame())
+    chunks = list(_chunks(tape, chunk_size))
+    parts: list[ChunkResult] = []
+    done = 0
+    for chunk, part in zip(chunks, map(functools.partial(run_chunk, prep=prep), chunks)):
+        parts.append(part)
+        done += len(chunk)
+        if progress is not None:
+            progress("loans", done, len(tape))
+    loans = _round_money(pd.concat([p.loans for p in parts]) if parts else pd.DataFrame())
 
     applied = overlays.apply_overlays(loans, list(a.overlays), config.as_of, list(prep.frameworks))
     for fw in prep.frameworks:
         adj = np.asarray(applied.adjustments[fw], float)
         loans[f"overlay_{fw}"] = adj
-        loans[f"ecl_{fw}"] = (loans[f"ecl_{fw}_modelled"] + adj).round(_MONEY)
+        loans[f"ecl_{fw}"] = (loans[f"ecl_{fw}_modelled"] + adj).round(CENT_DECIMALS)
     loans = _order_columns(loans, tape, prep)
+    reverting = next((r.name for r in prep.rules if r.reversion(a) is not None), None)
 
     return EngineResult(
         loans=loans,
         overlays=applied.table,
-        scenarios=_scenario_summary(loans, prep),
-        term_structures=_term_structure_table(prep),
+        scenarios=scenario_summary(loans, config),
+        term_structures=term_structure_table(prep),
         roll_rates=roll_rate_table(config),
-        reversion=scenarios.reversion_table(prep.tables["cecl"]) if "cecl" in prep.tables else pd.DataFrame(),
+        reversion=scenarios.reversion_table(prep.tables[reverting]) if reverting else pd.DataFrame(),
         schedules=_schedule_sample(tape, loans, prep, schedule_sample),
-        findings=pd.concat(found, ignore_index=True) if found else pd.DataFrame(),
+        findings=pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame(),
         warnings=list(applied.warnings),
     )
-
-
 def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     first = [
         "loan_id", "segment", "repayment", "grade", "stage", "stage_reason", "poci",

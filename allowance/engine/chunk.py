@@ -1,10 +1,15 @@
 """One chunk of loans: their terms at the as-of date, their stages, and the fused ECL loop.
 
+:func:`run_chunk` is a pure function of a chunk of accepted loans and the book-level tables
+(:class:`~allowance.engine.tables.Prepared`); it returns a frozen :class:`ChunkResult`. That
+is the boundary an executor's ``map`` crosses: in-process, to a process pool or to a cluster.
+
 Implements
 ----------
-LoanTerms   each loan's state as the loop reads it
-loan_terms  remaining term, seasoning, schedule inputs and curve rows of every loan
-run_chunk   modelled (unrounded) results and engine findings for a chunk
+LoanTerms    each loan's state and segment parameters, as the loop reads them (looked up once)
+loan_terms   remaining term, seasoning, schedule inputs, curve rows and segment parameters
+ChunkResult  the modelled (unrounded) loan results and the engine's findings for a chunk
+run_chunk    a chunk of loans -> ChunkResult
 """
 
 from __future__ import annotations
@@ -16,24 +21,52 @@ import pandas as pd
 
 from allowance import cashflows, curves, scenarios, staging
 from allowance.discounting import monthly_rate
-from allowance.ecl import KernelInputs, expected_losses
-from allowance.engine.tables import (
-    Prepared,
-    _behavioural_life,
-    _by_segment,
-    _remaining,
-    _revolving_parameter,
-    _segment_values,
-)
+from allowance.ecl import KernelInputs, KernelResult, expected_losses
+from allowance.engine.tables import Prepared, remaining_life, revolving_parameter
 from allowance.exceptions import AssumptionsError
 
+__all__ = ["ChunkResult", "LoanTerms", "loan_terms", "run_chunk"]
 
-def _curve_keys(chunk: pd.DataFrame, prep: Prepared) -> np.ndarray:
+
+@dataclass(frozen=True)
+class LoanTerms:
+    """Each loan's state at the as-of date, as the fused loop reads it (arrays of length n).
+
+    The segment parameters (``lgd`` to ``recovery_discount``) are taken from the book's
+    :class:`~allowance.engine.tables.SegmentTable` by each loan's segment code, once.
+    """
+
+    segment: np.ndarray  # segment code: the row of the book's SegmentTable
+    repayment: np.ndarray
+    code: np.ndarray
+    balance: np.ndarray
+    rate: np.ndarray  # monthly contract rate
+    eir: np.ndarray  # nominal annual, defaulted to the contract rate
+    age: np.ndarray
+    behavioural: np.ndarray
+    remaining: np.ndarray
+    io_left: np.ndarray
+    residual: np.ndarray
+    payment: np.ndarray
+    curve: np.ndarray
+    prepay: np.ndarray
+    prepay_offset: np.ndarray
+    lgd: np.ndarray  # flat LGD after cures
+    cure: np.ndarray
+    ccf: np.ndarray
+    cancellable: np.ndarray
+    collateral: np.ndarray  # 0 where the loan has none or its segment has no collateral LGD
+    haircut: np.ndarray
+    recovery_cost: np.ndarray
+    lgd_floor: np.ndarray
+    recovery_discount: np.ndarray
+
+
+def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.ndarray:
     """Row of the stacked PD table for every loan (by segment, grade or DPD bucket)."""
     out = np.zeros(len(chunk), dtype=np.int64)
-    seg_col = chunk["segment"].to_numpy()
-    for name, ts in prep.structures.items():
-        mask = seg_col == name
+    for j, (name, ts) in enumerate(prep.structures.items()):
+        mask = segment == j
         if not mask.any():
             continue
         seg = prep.config.assumptions.segments[name]
@@ -47,16 +80,15 @@ def _curve_keys(chunk: pd.DataFrame, prep: Prepared) -> np.ndarray:
     return out
 
 
-def _prepay_keys(chunk: pd.DataFrame, prep: Prepared, curve: np.ndarray, age: np.ndarray):
-    row = np.zeros(len(chunk), dtype=np.int64)
-    offset = np.zeros(len(chunk), dtype=np.int64)
-    seg_col = chunk["segment"].to_numpy()
-    for name, ts in prep.structures.items():
-        mask = seg_col == name
+def _prepay_keys(prep: Prepared, segment: np.ndarray, curve: np.ndarray, age: np.ndarray):
+    """Row and first column of the SMM table for every loan (by age, or by roll-rate bucket)."""
+    row = np.zeros(len(segment), dtype=np.int64)
+    offset = np.zeros(len(segment), dtype=np.int64)
+    for j, (name, ts) in enumerate(prep.structures.items()):
+        mask = segment == j
         if not mask.any():
             continue
-        by_bucket = ts.smm is not None and np.any(ts.smm > 0)
-        if by_bucket:
+        if ts.smm is not None and np.any(ts.smm > 0):
             row[mask] = prep.prepay_row[name] + (curve[mask] - prep.key_offset[name])
         else:
             row[mask] = prep.prepay_row[name]
@@ -64,13 +96,14 @@ def _prepay_keys(chunk: pd.DataFrame, prep: Prepared, curve: np.ndarray, age: np
     return row, offset
 
 
-def _residual(chunk, segments, rate, months_left, age) -> np.ndarray:
+def _residual(chunk: pd.DataFrame, amortization: np.ndarray, rate, months_left, age) -> np.ndarray:
+    """Balloon loans: the amount due at maturity (the tape's, or from the amortization term)."""
     balloon = (chunk["repayment"] == "balloon").to_numpy()
     given = chunk["balloon_amount"].to_numpy(dtype=float)
     amort = chunk["amortization_months"].to_numpy(dtype=float)
-    amort = np.where(np.isnan(amort), _segment_values(chunk, segments, "amortization_months"), amort)
+    amort = np.where(np.isnan(amort), amortization, amort)
     lacking = balloon & np.isnan(given) & np.isnan(amort)
-    if lacking.any():
+    if lacking.any():  # intake rejects such rows; a direct caller of the engine gets this
         seg = chunk["segment"].to_numpy()[lacking][0]
         raise AssumptionsError(
             f"balloon loans in segment {seg!r} give neither balloon_amount nor amortization_months",
@@ -87,30 +120,11 @@ def _residual(chunk, segments, rate, months_left, age) -> np.ndarray:
     return np.minimum(residual, balance)
 
 
-@dataclass(frozen=True)
-class LoanTerms:
-    """Each loan's state at the as-of date, as the fused loop reads it (arrays of length n)."""
-
-    repayment: np.ndarray
-    code: np.ndarray
-    balance: np.ndarray
-    rate: np.ndarray  # monthly contract rate
-    eir: np.ndarray  # nominal annual, defaulted to the contract rate
-    age: np.ndarray
-    behavioural: np.ndarray
-    remaining: np.ndarray
-    io_left: np.ndarray
-    residual: np.ndarray
-    payment: np.ndarray
-    curve: np.ndarray
-    prepay: np.ndarray
-    prepay_offset: np.ndarray
-
-
 def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
-    """Remaining term, seasoning, repayment schedule inputs and curve rows of every loan."""
-    segments = prep.config.assumptions.segments
+    """Remaining term, seasoning, repayment schedule inputs, curve rows and segment parameters."""
+    table = prep.segments
     as_of = pd.Timestamp(prep.config.as_of)
+    segment = table.codes(chunk["segment"])  # the one segment lookup of the chunk
     repayment = chunk["repayment"].to_numpy()
     kinds, names = pd.factorize(chunk["repayment"])
     code = np.array([cashflows.REPAYMENT_CODES[k] for k in names] + [0], dtype=np.int64)[kinds]
@@ -118,147 +132,149 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     eir = chunk["eir"].to_numpy(float)
     eir = np.where(np.isnan(eir), chunk["interest_rate"].to_numpy(float), eir)
     age = cashflows.age_months(chunk["origination_date"], as_of)
-    behavioural = _behavioural_life(chunk, segments)
-    remaining = _remaining(chunk, as_of, behavioural)
+    behavioural = revolving_parameter(chunk, table, segment, "behavioural_life").astype(np.int64)
+    remaining = remaining_life(chunk, as_of, behavioural)
     io_months = chunk["interest_only_months"].to_numpy(float)
     io_left = np.where(
         code == cashflows.INTEREST_ONLY,
         np.where(np.isnan(io_months), remaining, np.maximum(np.nan_to_num(io_months) - age, 0)),
         0,
     ).astype(np.int64)
-    curve = _curve_keys(chunk, prep)
-    prepay, prepay_offset = _prepay_keys(chunk, prep, curve, age)
+    curve = _curve_keys(chunk, prep, segment)
+    prepay, prepay_offset = _prepay_keys(prep, segment, curve, age)
+    secured = table.collateral[segment]
     return LoanTerms(
-        repayment=repayment, code=code, balance=chunk["balance"].to_numpy(float), rate=rate, eir=eir,
-        age=age, behavioural=behavioural, remaining=remaining, io_left=io_left,
-        residual=_residual(chunk, segments, rate, remaining, age),
+        segment=segment, repayment=repayment, code=code, balance=chunk["balance"].to_numpy(float), rate=rate,
+        eir=eir, age=age, behavioural=behavioural, remaining=remaining, io_left=io_left,
+        residual=_residual(chunk, table.amortization_months[segment], rate, remaining, age),
         payment=np.where(code == cashflows.LEVEL, chunk["payment"].to_numpy(float), np.nan),
         curve=curve, prepay=prepay, prepay_offset=prepay_offset,
+        lgd=table.lgd[segment], cure=table.cure_rate[segment], ccf=table.ccf[segment],
+        cancellable=table.cancellable[segment],
+        collateral=np.where(secured, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0),
+        haircut=table.haircut[segment], recovery_cost=table.recovery_cost[segment], lgd_floor=table.lgd_floor[segment],
+        recovery_discount=np.asarray(curves.recovery_discount_factor(eir, table.months_to_recovery[segment]), float),
     )
 
 
-def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Modelled results (unrounded) for a chunk of accepted loans, and engine findings.
+@dataclass(frozen=True)
+class ChunkResult:
+    """What :func:`run_chunk` returns for a chunk of loans.
 
-    Returns the per-loan frame (stage, horizons, EAD, PDs, LGD, ECL per framework and
-    scenario, modelled weighted ECL) and a findings frame (``payment_short`` warnings).
+    loans     one row per loan, in the chunk's order and index: stage, horizons, EAD, PDs, LGD,
+              ECL per framework and scenario and the modelled weighted ECL, unrounded
+    findings  the engine's findings on these loans (``payment_short`` warnings), in the
+              intake findings' columns
     """
+
+    loans: pd.DataFrame
+    findings: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class _Frameworks:
+    """Per framework and loan ``[F, n]``: what the loop reads besides the loan terms."""
+
+    in_default: np.ndarray
+    horizon: np.ndarray
+    ead_add: np.ndarray
+    paydown: np.ndarray
+    discount: np.ndarray
+
+
+def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray | None, prep: Prepared) -> _Frameworks:
     a = prep.config.assumptions
-    segments = a.segments
-    n = len(chunk)
-    terms = loan_terms(chunk, prep)
-    repayment, revolving = terms.repayment, terms.repayment == "revolving"
-    code, balance, rate, eir = terms.code, terms.balance, terms.rate, terms.eir
-    behavioural, remaining = terms.behavioural, terms.remaining
-    io_left, residual, payment = terms.io_left, terms.residual, terms.payment
-    curve, prepay, prepay_offset = terms.curve, terms.prepay, terms.prepay_offset
-
-    # staging (IFRS 9) and the PD = 1 test per framework
-    pd_now = prep.pd_12m_now[curve]
-    in_default = np.zeros((len(prep.frameworks), n), dtype=np.bool_)
-    horizon = np.zeros((len(prep.frameworks), n), dtype=np.int64)
-    stage_frame = None
-    if "ifrs9" in prep.frameworks:
-        stage_frame = staging.assign_stages(chunk, pd_now, a.ifrs9, segments)
-    for f, fw in enumerate(prep.frameworks):
-        if fw == "ifrs9":
-            in_default[f] = stage_frame["stage"].to_numpy() == 3
-            # the loop runs over the whole life; stage 1 takes its first 12 months
-            horizon[f] = staging.horizon_months(np.full(n, 2), remaining, repayment, behavioural, "ifrs9")
-        else:
-            in_default[f] = staging.in_default(chunk, a.cecl.default_dpd)
-            horizon[f] = staging.horizon_months(np.ones(n), remaining, repayment, behavioural, "cecl")
-
-    # revolving exposure: IFRS 9 drawn + CCF x undrawn; CECL drawn paying down
-    limit = chunk["credit_limit"].to_numpy(float)
-    undrawn = np.where(revolving, np.maximum(np.nan_to_num(limit) - balance, 0.0), 0.0)
-    ccf = _segment_values(chunk, segments, "ccf", 0.0)
-    cancellable = _segment_values(chunk, segments, "unconditionally_cancellable", 1.0) > 0
-    ead_add = np.zeros((len(prep.frameworks), n))
-    paydown = np.zeros((len(prep.frameworks), n))
-    discount = np.ones((len(prep.frameworks), n))
-    for f, fw in enumerate(prep.frameworks):
-        if fw == "ifrs9":
-            ead_add[f] = ccf * undrawn
-            discount[f] = 1.0 / (1.0 + monthly_rate(eir))
-        else:
-            ead_add[f] = np.where(cancellable, 0.0, ccf * undrawn)
-            paydown[f] = _revolving_parameter(
-                chunk, segments, "payment_rate", " for CECL",
-                "state the monthly share of the drawn balance repaid (e.g. 0.05)",
-            )
-            if a.cecl.discount:
-                discount[f] = 1.0 / (1.0 + monthly_rate(eir))
-
-    # LGD per loan
-    has_coll_lgd = _by_segment(chunk, {k: float(v.collateral_lgd is not None) for k, v in segments.items()}, 0.0) > 0
-    collateral = np.where(has_coll_lgd, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0)
-    cure = _segment_values(chunk, segments, "cure_rate", 0.0)
-    flat = curves.effective_lgd(_segment_values(chunk, segments, "lgd"), cure)
-
-    def coll_param(attr):
-        table = {k: (getattr(s.collateral_lgd, attr) if s.collateral_lgd else 0.0) for k, s in segments.items()}
-        return _by_segment(chunk, table, 0.0)
-
-    rec_df = curves.recovery_discount_factor(eir, coll_param("months_to_recovery"))
-    inputs = KernelInputs(
-        code=code, balance=balance, rate=rate, months_left=remaining, io_left=io_left,
-        residual=residual, payment=payment, curve=curve, prepay=prepay, prepay_offset=prepay_offset,
-        in_default=in_default, lgd=flat, collateral=collateral, haircut=coll_param("haircut"),
-        recovery_cost=coll_param("recovery_cost"), lgd_floor=coll_param("floor"),
-        recovery_discount=np.asarray(rec_df, float), cure=cure, horizon=horizon, ead_add=ead_add,
-        paydown=paydown, discount=discount, pd=prep.pd, smm=prep.smm,
-        lgd_multiplier=prep.lgd_multiplier, collateral_index=prep.collateral_index,
+    n, n_fw = len(chunk), len(prep.rules)
+    revolving = terms.repayment == "revolving"
+    limit = np.where(revolving, np.nan_to_num(chunk["credit_limit"].to_numpy(float)), terms.balance)
+    out = _Frameworks(
+        in_default=np.zeros((n_fw, n), dtype=np.bool_), horizon=np.zeros((n_fw, n), dtype=np.int64),
+        ead_add=np.zeros((n_fw, n)), paydown=np.zeros((n_fw, n)), discount=np.ones((n_fw, n)),
     )
-    k = expected_losses(inputs)
+    for f, rules in enumerate(prep.rules):
+        out.in_default[f] = rules.in_default(chunk, stage, a)
+        # the loop runs over the whole life; a 12-month horizon takes its first 12 months
+        out.horizon[f] = terms.remaining
+        out.ead_add[f] = rules.exposure_add_on(terms.balance, limit, terms.ccf, terms.cancellable)
+        if rules.revolving_paydown:
+            out.paydown[f] = revolving_parameter(chunk, prep.segments, terms.segment, "payment_rate")
+        out.discount[f] = rules.discount(a, terms.eir)
+    return out
 
+
+def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelInputs:
+    return KernelInputs(
+        code=terms.code, balance=terms.balance, rate=terms.rate, months_left=terms.remaining, io_left=terms.io_left,
+        residual=terms.residual, payment=terms.payment, curve=terms.curve, prepay=terms.prepay,
+        prepay_offset=terms.prepay_offset, in_default=fw.in_default, lgd=terms.lgd, collateral=terms.collateral,
+        haircut=terms.haircut, recovery_cost=terms.recovery_cost, lgd_floor=terms.lgd_floor,
+        recovery_discount=terms.recovery_discount, cure=terms.cure, horizon=fw.horizon, ead_add=fw.ead_add,
+        paydown=fw.paydown, discount=fw.discount, pd=prep.pd, smm=prep.smm, lgd_multiplier=prep.lgd_multiplier,
+        collateral_index=prep.collateral_index,
+    )
+
+
+def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | None, k: KernelResult,
+                  prep: Prepared) -> pd.DataFrame:
+    """The per-loan frame: the first staged framework leads the shared columns (ead, PDs, LGD)."""
     out = pd.DataFrame(
         {"loan_id": chunk["loan_id"].to_numpy(), "segment": chunk["segment"].to_numpy(),
-         "repayment": repayment, "grade": chunk["grade"].to_numpy()},
+         "repayment": terms.repayment, "grade": chunk["grade"].to_numpy()},
         index=chunk.index,
     )
     w = prep.weights
-    primary = 0  # IFRS 9 when run (frameworks are listed in the order given; see below)
-    if "ifrs9" in prep.frameworks:
-        primary = prep.frameworks.index("ifrs9")
-        stage = stage_frame["stage"].to_numpy()
-        out["stage"] = stage
-        out["stage_reason"] = stage_frame["stage_reason"].to_numpy()
-        out["poci"] = stage_frame["poci"].to_numpy()
-        out["horizon_months"] = staging.horizon_months(stage, remaining, repayment, behavioural, "ifrs9")
+    staged = prep.staged
+    primary = prep.rules.index(staged) if staged is not None else 0
+    lead = prep.rules[primary]
+    if stages is not None:
+        out["stage"] = stages["stage"].to_numpy()
+        out["stage_reason"] = stages["stage_reason"].to_numpy()
+        out["poci"] = stages["poci"].to_numpy()
     else:
         out["poci"] = chunk["credit_impaired_at_purchase"].to_numpy(bool)
-    if "cecl" in prep.frameworks:
-        f = prep.frameworks.index("cecl")
-        out["horizon_months_cecl"] = horizon[f]
-        if "ifrs9" not in prep.frameworks:
-            out["horizon_months"] = horizon[f]
-    out["remaining_months"] = remaining
-    out["balance"] = balance
+    stage = out["stage"].to_numpy() if stages is not None else np.ones(len(chunk), dtype=np.int64)
+    out["horizon_months"] = lead.horizon(stage, terms.remaining)
+    for rules in prep.rules:  # a framework without stages also shows its own horizon column
+        if not rules.staged:
+            out[f"horizon_months_{rules.name}"] = rules.horizon(stage, terms.remaining)
+    out["remaining_months"] = terms.remaining
+    out["balance"] = terms.balance
     out["ead"] = k.ead[:, primary]
-    for f, fw in enumerate(prep.frameworks):
-        out[f"ead_{fw}"] = k.ead[:, f]
+    for f, rules in enumerate(prep.rules):
+        out[f"ead_{rules.name}"] = k.ead[:, f]
     out["pd_12m"] = scenarios.weighted(k.pd_12m[:, primary, :], w)
     out["pd_lifetime"] = scenarios.weighted(k.pd_lifetime[:, primary, :], w)
     out["lgd"] = k.lgd[:, primary]
     out["ecl_12m"] = scenarios.weighted(k.ecl_12m[:, primary, :], w)
     out["ecl_lifetime"] = scenarios.weighted(k.ecl_lifetime[:, primary, :], w)
     purchase = chunk["lifetime_ecl_at_purchase"].to_numpy(float)
-    for f, fw in enumerate(prep.frameworks):
-        if fw == "ifrs9":
-            twelve = (out["stage"].to_numpy() == 1) & ~out["poci"].to_numpy()
-            per_scenario = np.where(twelve[:, None], k.ecl_12m[:, f, :], k.ecl_lifetime[:, f, :])
-            # POCI: the allowance is the change in lifetime ECL since purchase (IFRS 9 5.5.13)
-            poci_shift = np.where(out["poci"].to_numpy() & ~np.isnan(purchase), purchase, 0.0)
-            per_scenario = per_scenario - poci_shift[:, None]
-        else:
-            per_scenario = k.ecl_lifetime[:, f, :]
+    poci = out["poci"].to_numpy()
+    for f, rules in enumerate(prep.rules):
+        per_scenario = rules.allowance(k.ecl_12m[:, f, :], k.ecl_lifetime[:, f, :], stage, poci, purchase)
         for s, name in enumerate(prep.scenario_names):
-            out[f"ecl_{fw}_{name}"] = per_scenario[:, s]
-        out[f"ecl_{fw}_modelled"] = scenarios.weighted(per_scenario, w)
+            out[f"ecl_{rules.name}_{name}"] = per_scenario[:, s]
+        out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, w)
+    return out
 
-    findings = _payment_findings(chunk, balance, rate, remaining, payment)
-    return out, findings
+
+def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
+    """Modelled results (unrounded) for a chunk of accepted loans, and the engine's findings.
+
+    A pure function of its arguments: the same chunk and tables give the same result in any
+    process, so an executor's ``map`` may run chunks anywhere (:func:`allowance.engine.run`).
+    """
+    a = prep.config.assumptions
+    terms = loan_terms(chunk, prep)
+    stages = None
+    if prep.staged is not None:
+        stages = staging.assign_stages(chunk, prep.pd_12m_now[terms.curve], a.ifrs9, a.segments)
+    stage = None if stages is None else stages["stage"].to_numpy()
+    fw = _framework_inputs(chunk, terms, stage, prep)
+    k = expected_losses(_kernel_inputs(terms, fw, prep))
+    return ChunkResult(
+        loans=_loan_results(chunk, terms, stages, k, prep),
+        findings=_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
+    )
 
 
 def _payment_findings(chunk, balance, rate, remaining, payment) -> pd.DataFrame:

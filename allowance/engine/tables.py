@@ -2,9 +2,11 @@
 
 Implements
 ----------
-Prepared     the tables every chunk of loans reads (shapes in :class:`allowance.ecl.KernelInputs`)
-prepare      build them for a book
-tape_months  the longest horizon on a tape (how many months the tables must cover)
+SegmentTable     every per-segment parameter as arrays, looked up by segment code
+Prepared         the tables every chunk of loans reads (shapes in :class:`allowance.ecl.KernelInputs`)
+prepare          build them for a book
+remaining_life   each loan's months left (contractual term, or a line's behavioural life)
+tape_months      the longest horizon on a tape (how many months the tables must cover)
 """
 
 from __future__ import annotations
@@ -14,20 +16,84 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, curves, scenarios
+from allowance import cashflows, curves, scenarios, staging
 from allowance.exceptions import AssumptionsError
+from allowance.frameworks import FrameworkRules, rules_for
 from allowance.schemas import Framework, RunConfig, SegmentAssumptions
 
 
 @dataclass(frozen=True)
+class SegmentTable:
+    """Every per-segment number the engine reads, one array entry per segment.
+
+    Entry ``j`` belongs to the segment ``names[j]``; the extra last entry holds the default a
+    loan of an unknown segment would take (intake rejects such loans, so it is never used by
+    a run). A chunk looks each loan's segment up once (:meth:`codes`) and takes every
+    parameter by that code.
+    """
+
+    names: tuple[str, ...]
+    lgd: np.ndarray  # flat LGD after cures
+    cure_rate: np.ndarray
+    ccf: np.ndarray
+    cancellable: np.ndarray  # bool: unconditionally cancellable (CECL: no allowance on undrawn)
+    payment_rate: np.ndarray  # NaN when not given
+    behavioural_life: np.ndarray  # NaN when not given
+    amortization_months: np.ndarray  # NaN when not given
+    collateral: np.ndarray  # bool: the segment has a collateral LGD
+    haircut: np.ndarray
+    recovery_cost: np.ndarray
+    lgd_floor: np.ndarray
+    months_to_recovery: np.ndarray
+
+    def codes(self, segment: pd.Series | np.ndarray) -> np.ndarray:
+        """The code of each loan's segment: its position in ``names``; -1 (the last entry) if unknown."""
+        return np.asarray(pd.Categorical(np.asarray(segment, dtype=object), categories=list(self.names)).codes,
+                          dtype=np.int64)
+
+
+def segment_table(segments: dict[str, SegmentAssumptions]) -> SegmentTable:
+    """The per-segment parameters as arrays (see :class:`SegmentTable`)."""
+
+    def column(get, default=np.nan, dtype=float) -> np.ndarray:
+        values = [get(seg) for seg in segments.values()]
+        return np.array([default if v is None else v for v in values] + [default], dtype=dtype)
+
+    def collateral(attr: str) -> np.ndarray:
+        return column(lambda s: getattr(s.collateral_lgd, attr) if s.collateral_lgd else 0.0, 0.0)
+
+    return SegmentTable(
+        names=tuple(segments),
+        lgd=curves.effective_lgd(column(lambda s: s.lgd), column(lambda s: s.cure_rate, 0.0)),
+        cure_rate=column(lambda s: s.cure_rate, 0.0),
+        ccf=column(lambda s: s.ccf, 0.0),
+        cancellable=column(lambda s: s.unconditionally_cancellable, 1.0) > 0,
+        payment_rate=column(lambda s: s.payment_rate),
+        behavioural_life=column(lambda s: s.behavioural_life_months),
+        amortization_months=column(lambda s: s.amortization_months),
+        collateral=column(lambda s: float(s.collateral_lgd is not None), 0.0) > 0,
+        haircut=collateral("haircut"),
+        recovery_cost=collateral("recovery_cost"),
+        lgd_floor=collateral("floor"),
+        months_to_recovery=collateral("months_to_recovery"),
+    )
+
+
+@dataclass(frozen=True)
 class Prepared:
-    """Book-level tables for a run (see :class:`allowance.ecl.KernelInputs` for shapes)."""
+    """Book-level tables for a run (see :class:`allowance.ecl.KernelInputs` for shapes).
+
+    Built once per run by :func:`prepare`; every chunk of loans reads it and none changes it,
+    so it is what a process pool or a cluster ships to each worker with the chunk.
+    """
 
     config: RunConfig
     months: int
     frameworks: tuple[Framework, ...]
+    rules: tuple[FrameworkRules, ...]  # the rules of each framework, in the same order
     scenario_names: tuple[str, ...]
     weights: np.ndarray
+    segments: SegmentTable
     structures: dict[str, curves.PdTermStructure]
     key_offset: dict[str, int]
     prepay_row: dict[str, int]
@@ -36,57 +102,55 @@ class Prepared:
     lgd_multiplier: np.ndarray  # [F, T, S]
     collateral_index: np.ndarray  # [F, K, T, S]
     tables: dict[Framework, scenarios.ScenarioTables]
-    pd_12m_now: np.ndarray  # [K]: IFRS 9 probability-weighted 12-month PD, for staging
+    pd_12m_now: np.ndarray  # [K]: the staged framework's probability-weighted 12-month PD, for staging
+
+    @property
+    def staged(self) -> FrameworkRules | None:
+        """The rules of the framework whose loans carry stages (IFRS 9), if it is run."""
+        return next((r for r in self.rules if r.staged), None)
+
 
 # --------------------------------------------------------------------------------------
 # Loan terms
 # --------------------------------------------------------------------------------------
 
 
-def _by_segment(tape: pd.DataFrame, table: dict[str, object], default=np.nan) -> np.ndarray:
-    """One number per loan from a per-segment table (a lookup per segment, not per loan)."""
-    codes, names = pd.factorize(tape["segment"])
-    per_segment = np.array([default if table.get(n) is None else table[n] for n in names] + [default], dtype=float)
-    return per_segment[codes]  # code -1 (no segment) takes the default
+def remaining_life(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndarray) -> np.ndarray:
+    """Months left of every loan: the contractual term (at least 1), a line's behavioural life."""
+    term = cashflows.remaining_months(as_of, tape["maturity_date"])
+    # a matured loan still carrying a balance gets a one-month horizon (intake flags it)
+    return staging.lifetime_months(np.maximum(term, 1), tape["repayment"].to_numpy(), behavioural)
 
 
-def _segment_values(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions], attr: str, default=np.nan):
-    return _by_segment(tape, {name: getattr(seg, attr) for name, seg in segments.items()}, default)
+def revolving_parameter(tape: pd.DataFrame, table: SegmentTable, codes: np.ndarray, attr: str) -> np.ndarray:
+    """A segment parameter revolving lines cannot do without (0 for other loans).
 
-
-def _revolving_parameter(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions], attr: str,
-                         why: str, hint: str) -> np.ndarray:
-    """A segment parameter revolving lines cannot do without; never assumed when missing."""
-    values = _segment_values(tape, segments, attr)
+    Intake refuses a segment that holds revolving lines and lacks it; this guard keeps a
+    direct caller of the engine from computing with a value nobody stated.
+    """
+    values = getattr(table, attr)[codes]
     revolving = (tape["repayment"] == "revolving").to_numpy()
     missing = revolving & np.isnan(values)
     if missing.any():
         seg = tape["segment"].to_numpy()[missing][0]
-        raise AssumptionsError(f"segment {seg!r} has revolving lines but no {attr}{why}",
-                               column=f"segments.{seg}.{attr}", hint=hint)
+        key = {"behavioural_life": "behavioural_life_months"}.get(attr, attr)
+        raise AssumptionsError(f"segment {seg!r} has revolving lines but no {key}",
+                               column=f"segments.{seg}.{key}", hint=f"state {key} in [segments.{seg}]")
     return np.where(revolving, values, 0.0)
 
 
-def _behavioural_life(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions]) -> np.ndarray:
-    return _revolving_parameter(
-        tape, segments, "behavioural_life_months", "", "state the behavioural life in months (IFRS 9 B5.5.40)"
-    ).astype(np.int64)
-
-
-def _remaining(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndarray) -> np.ndarray:
-    revolving = (tape["repayment"] == "revolving").to_numpy()
-    term = cashflows.remaining_months(as_of, tape["maturity_date"])
-    # a matured loan still carrying a balance gets a one-month horizon (intake flags it)
-    return np.where(revolving, behavioural, np.maximum(term, 1)).astype(np.int64)
+def behavioural_life(tape: pd.DataFrame, table: SegmentTable, codes: np.ndarray | None = None) -> np.ndarray:
+    """Each revolving line's behavioural life from its segment (0 for other loans)."""
+    codes = table.codes(tape["segment"]) if codes is None else codes
+    return revolving_parameter(tape, table, codes, "behavioural_life").astype(np.int64)
 
 
 def tape_months(tape: pd.DataFrame, config: RunConfig) -> int:
     """Months the book's tables must cover: the longest horizon on the tape (at least 12)."""
     if tape.empty:
         return 12
-    segments = config.assumptions.segments
-    as_of = pd.Timestamp(config.as_of)
-    life = _remaining(tape, as_of, _behavioural_life(tape, segments))
+    table = segment_table(config.assumptions.segments)
+    life = remaining_life(tape, pd.Timestamp(config.as_of), behavioural_life(tape, table))
     return int(max(12, life.max()))
 
 
@@ -158,17 +222,20 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
             ]
         )
     key_segments = [name for name, ts in structures.items() for _ in ts.keys]
-    tables = {fw: scenarios.scenario_tables(base, rho, a, fw, key_segments) for fw in frameworks}
+    rules = tuple(rules_for(fw) for fw in frameworks)
+    tables = {r.name: scenarios.scenario_tables(base, rho, a, r.reversion(a), key_segments) for r in rules}
     pd_table = np.ascontiguousarray(np.stack([tables[fw].pd.transpose(0, 2, 1) for fw in frameworks]))
     lgd_mult = np.ascontiguousarray(np.stack([tables[fw].lgd_multiplier.T for fw in frameworks]))
     coll_idx = np.ascontiguousarray(
         np.stack([tables[fw].collateral_per_key(base.shape[0]).transpose(0, 2, 1) for fw in frameworks]))
     weights = np.asarray(a.weights, float)
-    first = tables["ifrs9"] if "ifrs9" in tables else tables[frameworks[0]]
-    pd_12m_now = scenarios.weighted(curves.pd_over(first.pd, 12), weights)
+    # staging compares the staged framework's 12-month PD now with the PD at origination
+    staged = next((r.name for r in rules if r.staged), frameworks[0])
+    pd_12m_now = scenarios.weighted(curves.pd_over(tables[staged].pd, 12), weights)
     return Prepared(
-        config=config, months=months, frameworks=frameworks, scenario_names=tuple(a.scenarios),
-        weights=weights, structures=structures, key_offset=key_offset, prepay_row=prepay_row,
+        config=config, months=months, frameworks=frameworks, rules=rules, scenario_names=tuple(a.scenarios),
+        weights=weights, segments=segment_table(a.segments), structures=structures, key_offset=key_offset,
+        prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
         pd_12m_now=pd_12m_now,
     )

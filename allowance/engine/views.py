@@ -1,9 +1,15 @@
 """What a run shows people beside the loan results: scenario totals, the term structures
 used, roll-rate analytics and sample loan schedules.
+
+Implements
+----------
+scenario_summary      each scenario's allowance at 100 % weight, the weighted and the final result
+term_structure_table  the monthly PD curves used, long form
+roll_rate_table       roll-rate analytics of every segment with a transition matrix
+loan_schedule         one loan's schedule on the engine's own terms and curves
 """
 
 from __future__ import annotations
-
 
 import numpy as np
 import pandas as pd
@@ -11,23 +17,52 @@ import pandas as pd
 from allowance import cashflows, curves
 from allowance.engine.chunk import loan_terms
 from allowance.engine.tables import Prepared
+from allowance.frameworks import rules_for
+from allowance.money import money_total
 from allowance.schemas import Framework, RunConfig
 
 
-def _scenario_summary(loans: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
+def scenario_summary(loans: pd.DataFrame, config: RunConfig) -> pd.DataFrame:
+    """Each scenario's allowance at 100 % weight per framework, then the weighted and final results.
+
+    Columns ``framework, scenario, weight, ecl``. The rows ``weighted (modelled)`` (weight:
+    the sum of the weights, 1) and ``final (after overlays)`` (weight blank) follow each
+    framework's scenarios. Every figure is the sum of the rounded loan figures in whole cents
+    (the weighted row can differ by a few cents from the weighted sum of the scenario rows);
+    a column missing from ``loans`` shows NaN.
+
+    Examples
+    --------
+    >>> from allowance.schemas import Assumptions
+    >>> config = RunConfig(assumptions=Assumptions.model_validate({
+    ...     "run": {"as_of": "2026-09-30", "frameworks": ["cecl"]},
+    ...     "segments": {"auto": {"pd_12m": 0.02, "lgd": 0.4}},
+    ...     "cecl": {"reasonable_supportable_months": 12},
+    ...     "scenarios": {"base": {"weight": 0.6}, "down": {"weight": 0.4, "pd_multiplier": [2.0]}}}))
+    >>> loans = pd.DataFrame({"ecl_cecl_base": [1.0, 2.0], "ecl_cecl_down": [3.0, 4.0],
+    ...                       "ecl_cecl_modelled": [1.8, 2.8], "ecl_cecl": [1.8, 2.8]})
+    >>> table = scenario_summary(loans, config)
+    >>> table[["scenario", "weight", "ecl"]].values.tolist()
+    [['base', 0.6, 3.0], ['down', 0.4, 7.0], ['weighted (modelled)', 1.0, 4.6], ['final (after overlays)', nan, 4.6]]
+    """
+    scenarios = config.assumptions.scenarios
+
+    def total(column: str) -> float:
+        return money_total(loans[column]) if column in loans.columns else float("nan")
+
     rows = []
-    for fw in prep.frameworks:
-        for s, name in enumerate(prep.scenario_names):
-            rows.append({"framework": fw, "scenario": name, "weight": float(prep.weights[s]),
-                         "ecl": round(float(loans[f"ecl_{fw}_{name}"].sum()), 2)})
-        rows.append({"framework": fw, "scenario": "weighted (modelled)", "weight": float(prep.weights.sum()),
-                     "ecl": round(float(loans[f"ecl_{fw}_modelled"].sum()), 2)})
-        rows.append({"framework": fw, "scenario": "final (after overlays)", "weight": np.nan,
-                     "ecl": round(float(loans[f"ecl_{fw}"].sum()), 2)})
-    return pd.DataFrame(rows)
+    for fw in config.frameworks:
+        for name, scenario in scenarios.items():
+            rows.append({"framework": fw, "scenario": name, "weight": float(scenario.weight),
+                         "ecl": total(f"ecl_{fw}_{name}")})
+        rows.append({"framework": fw, "scenario": "weighted (modelled)",
+                     "weight": float(sum(s.weight for s in scenarios.values())), "ecl": total(f"ecl_{fw}_modelled")})
+        rows.append({"framework": fw, "scenario": "final (after overlays)", "weight": np.nan, "ecl": total(f"ecl_{fw}")})
+    return pd.DataFrame(rows, columns=["framework", "scenario", "weight", "ecl"])
 
 
-def _term_structure_table(prep: Prepared) -> pd.DataFrame:
+def term_structure_table(prep: Prepared) -> pd.DataFrame:
+    """The monthly PD curves of every segment key, framework and scenario, long form."""
     frames = []
     months = np.arange(1, prep.months + 1)
     for f, fw in enumerate(prep.frameworks):
@@ -55,7 +90,7 @@ def roll_rate_table(config: RunConfig) -> pd.DataFrame:
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
 
 
-def _schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per_segment: int) -> pd.DataFrame:
+def schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per_segment: int) -> pd.DataFrame:
     """A few performing loans per segment, scheduled month by month (first scenario's PDs)."""
     if per_segment <= 0 or tape.empty:
         return pd.DataFrame()
@@ -77,7 +112,8 @@ def loan_schedule(row: pd.DataFrame, prep: Prepared, framework: Framework | None
     months = int(t.remaining[0])
     cols = np.minimum(t.prepay_offset[0] + np.arange(months), prep.smm.shape[1] - 1)
     repayment = t.repayment[0]
-    paydown = (seg.payment_rate or 0.0) if (repayment == "revolving" and fw == "cecl") else 0.0
+    revolving_pays_down = repayment == "revolving" and rules_for(fw).revolving_paydown
+    paydown = (seg.payment_rate or 0.0) if revolving_pays_down else 0.0
     frame = cashflows.schedule(
         repayment, float(t.balance[0]), float(row["interest_rate"].iloc[0]), months,
         interest_only_months_left=int(t.io_left[0]), residual=float(t.residual[0]),

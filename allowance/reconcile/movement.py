@@ -37,6 +37,7 @@ from dataclasses import dataclass
 
 import pandas as pd
 
+from allowance.frameworks import rules_for
 from allowance.reconcile.runs import MovementError, bridge, prepare_charge_offs, prepare_run
 from allowance.reconcile.tables import (
     _ALLOWANCE_BODY, _GROSS_BODY, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
@@ -173,23 +174,26 @@ def movement(
     co = prepare_charge_offs(charge_offs, names["charge_offs"])
     loans = bridge(p, c, a, co, names)
 
-    # the class dimension of the detail is IFRS 9's stage / POCI, or CECL's PCD flag
+    # the class dimension of the detail is the framework's class (IFRS 9: stage or POCI;
+    # CECL: PCD or not); its main table is by class (IFRS 7 35H) or by segment (ASC 326-20-50-13)
+    rules = rules_for(framework)
     detail_dims = ("segment", "class")
     classes = sorted(set(p["klass"]) | set(c["klass"]))
-    if framework == "ifrs9":
-        classes = [k for k in ("stage 1", "stage 2", "stage 3", "POCI") if k in classes or k != "POCI"]
+    by_class = rules.class_order is not None
+    if by_class:
+        classes = [k for k in rules.class_order if k in classes or k != rules.credit_impaired]
         main_dim, main_cols = "class", classes
     else:
         main_dim = "segment"
         main_cols = sorted(set(p["segment"]) | set(c["segment"]), key=str)
     labels = {f"transfer_to_{_slug(k)}": k for k in classes}
 
-    main_lines = _transfer_lines(loans, (main_dim,), "class" if framework == "ifrs9" else None)
+    main_lines = _transfer_lines(loans, (main_dim,), "class" if by_class else None)
     detail_lines = _transfer_lines(loans, detail_dims, "class")
-    main_transfers = classes if framework == "ifrs9" else []
+    main_transfers = classes if by_class else []
     tables = {}
     for kind, body, prefix in (("allowance", _ALLOWANCE_BODY, ""), ("gross", _GROSS_BODY, "g_")):
-        order = _line_order(main_transfers, body, framework == "cecl")
+        order = _line_order(main_transfers, body, not by_class)
         wide = _wide(_ledger(loans, (main_dim,), body, prefix, main_lines), main_dim, main_cols, order, labels)
         check_movement(wide, what=f"{framework} {kind} movement")
         detail_order = _line_order(classes, body, True)

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from allowance.exceptions import AllowanceError
+from allowance.frameworks import rules_for
 from allowance.report.text import neutralise_text
 from allowance.schemas import Framework
 
@@ -57,20 +58,14 @@ def _flags(values: pd.Series) -> np.ndarray:
     return text.isin(["true", "1", "1.0", "y", "yes"]).to_numpy()
 
 
-def _class_labels(stage: np.ndarray, poci: np.ndarray, framework: Framework) -> np.ndarray:
-    if framework == "ifrs9":
-        labels = np.char.add("stage ", stage.astype(str)).astype(object)
-        return np.where(poci, "POCI", labels).astype(object)
-    return np.where(poci, "PCD", "non-PCD").astype(object)
-
-
 def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, modelled_only: bool = False) -> pd.DataFrame:
     """The columns the movement needs, in cents, keyed by the neutralised loan id."""
+    rules = rules_for(framework)
     final = f"ecl_{framework}"
     modelled = f"ecl_{framework}_modelled"
     need = ["loan_id", modelled if modelled_only else final]
     if not modelled_only:
-        need += ["segment", "balance"] + (["stage"] if framework == "ifrs9" else [])
+        need += ["segment", "balance"] + (["stage"] if rules.staged else [])
     missing = [c for c in need if c not in frame.columns]
     if modelled_only and missing == [modelled] and final in frame.columns:
         missing, modelled = [], final
@@ -97,7 +92,7 @@ def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, model
     )
     out["bal"] = _cents(frame["balance"], column="balance", source=source, ids=ids)
     poci = _flags(frame["poci"]) if "poci" in frame.columns else np.zeros(len(frame), dtype=bool)
-    if framework == "ifrs9":
+    if rules.staged:
         stage = pd.to_numeric(frame["stage"], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
         bad = ~np.isin(stage, (1.0, 2.0, 3.0))
         if bad.any():
@@ -106,9 +101,9 @@ def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, model
                 f"loan {ids.iloc[i]!r}: stage {_show(frame['stage'].iloc[i])} is not 1, 2 or 3",
                 file=source, column="stage", hint="use the loans.csv the run wrote",
             )
-        out["klass"] = _class_labels(stage.astype(np.int64), poci, framework)
+        out["klass"] = rules.class_labels(stage.astype(np.int64), poci)
     else:
-        out["klass"] = _class_labels(np.ones(len(frame), dtype=np.int64), poci, framework)
+        out["klass"] = rules.class_labels(np.ones(len(frame), dtype=np.int64), poci)
     return out.set_index("key")
 
 

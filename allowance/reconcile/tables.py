@@ -16,6 +16,7 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
+from allowance.frameworks import rules_for
 from allowance.reconcile.runs import MovementError
 from allowance.schemas import Framework
 
@@ -37,10 +38,6 @@ MOVEMENT_LINES: dict[str, str] = {
 _ALLOWANCE_BODY = ("remeasurement", "assumptions", "overlays")
 _GROSS_BODY = ("other_changes",)
 _ROLLFORWARD = ("beginning", "provision", "charge_offs", "recoveries", "ending")
-_JOURNAL_ACCOUNTS: dict[Framework, tuple[str, str]] = {
-    "ifrs9": ("Impairment losses on loans (profit or loss)", "Loss allowance (balance sheet)"),
-    "cecl": ("Provision for credit losses (income statement)", "Allowance for credit losses (balance sheet)"),
-}
 
 
 
@@ -202,7 +199,7 @@ def rollforward(bridge: pd.DataFrame) -> pd.DataFrame:
 
 def journal(roll: pd.DataFrame, framework: Framework) -> pd.DataFrame:
     """Debit expense / credit allowance for a provision; the reverse for a release."""
-    expense, allowance = _JOURNAL_ACCOUNTS[framework]
+    expense, allowance = rules_for(framework).journal_accounts
     rows = []
     for segment, provision in zip(roll["segment"], roll["provision"]):
         if segment == "Total" or round(provision, 2) == 0:

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from allowance.frameworks import rules_for
 from allowance.reconcile.runs import MovementError
 from allowance.report.text import neutralise_text
 from allowance.schemas import Framework
@@ -74,13 +75,14 @@ def what_if_comparison(base: pd.DataFrame, what_if: pd.DataFrame, frameworks: li
                                     hint=f"run both with {f} in [run] frameworks")
         rows.append({"framework": f, "view": "total", "segment": "", "stage": "", "scenario": "",
                      "base": int(cents(base, col).sum()), "what_if": int(cents(what_if, col).sum())})
-        keys = ["segment"] + (["stage"] if f == "ifrs9" else [])
+        staged = rules_for(f).staged
+        keys = ["segment"] + (["stage"] if staged else [])
         b = base.assign(_c=cents(base, col)).groupby(keys)["_c"].sum()
         w = what_if.assign(_c=cents(what_if, col)).groupby(keys)["_c"].sum()
         both = pd.concat({"base": b, "what_if": w}, axis=1).fillna(0).astype(np.int64).reset_index()
         for r in both.itertuples(index=False):
             rows.append({"framework": f, "view": "segment and stage", "segment": r.segment,
-                         "stage": int(r.stage) if f == "ifrs9" else "", "scenario": "",
+                         "stage": int(r.stage) if staged else "", "scenario": "",
                          "base": r.base, "what_if": r.what_if})
         scen_b, scen_w = _scenario_columns(base, f), _scenario_columns(what_if, f)
         for sc in dict.fromkeys(scen_b + scen_w):

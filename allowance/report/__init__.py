@@ -6,18 +6,17 @@ neutralise_text, neutralise_frame   text safety for CSV and XLSX (OWASP CSV inje
 CAUTION                             the caution shown on the workbook (the README quotes it)
 RunReport                           everything the outputs are written from
 run_record                          the run record (``run.json``)
-scenario_table                      each scenario's allowance at 100 % and the weighted result
 write_workbook                      ``reserve.xlsx``
 write_outputs                       the whole output folder, written safely
 OUTPUT_FILES, SHEETS                the files and sheet names
 """
 
 from allowance.report.files import OUTPUT_FILES, write_outputs
-from allowance.report.record import CAUTION, RunReport, money_total, run_record, scenario_table
+from allowance.report.record import CAUTION, RunReport, money_total, run_record
 from allowance.report.text import FORMULA_PREFIXES, neutralise_frame, neutralise_text
 from allowance.report.workbook import SHEETS, write_workbook
 
 __all__ = [
     "CAUTION", "FORMULA_PREFIXES", "OUTPUT_FILES", "SHEETS", "RunReport", "money_total", "neutralise_frame",
-    "neutralise_text", "run_record", "scenario_table", "write_outputs", "write_workbook",
+    "neutralise_text", "run_record", "write_outputs", "write_workbook",
 ]

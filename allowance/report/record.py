@@ -5,8 +5,7 @@ Implements
 CAUTION         the caution printed in the workbook and quoted in the README
 RunReport       everything the outputs are written from (frozen)
 run_record      the run record: version, inputs and their hashes, counts, totals, assumptions
-scenario_table  each scenario's allowance at 100 % weight, and the weighted result
-money_total     the sum of rounded loan figures, in whole cents, as a number of currency units
+money_total     the sum of rounded loan figures, in whole cents (from allowance.money)
 """
 
 from __future__ import annotations
@@ -23,14 +22,16 @@ import numpy as np
 import pandas as pd
 
 import allowance
+from allowance.frameworks import FRAMEWORK_RULES
 from allowance.intake import IntakeResult, TieOut
+from allowance.money import money_total
 from allowance.report import clock
 from allowance.schemas import Framework, InputFile, RunConfig
 
 if TYPE_CHECKING:
     from allowance.reconcile import Movement, WhatIf
 
-__all__ = ["CAUTION", "RunReport", "money_total", "run_record", "scenario_table"]
+__all__ = ["CAUTION", "RunReport", "money_total", "run_record"]
 
 #: The caution shown on the workbook's summary sheet (the README quotes it word for word).
 CAUTION = (
@@ -41,20 +42,6 @@ CAUTION = (
     "this output and the applicable accounting standard (ASC 326 or IFRS 9), the entity's "
     "auditors or its regulators differ, they prevail over this tool."
 )
-
-
-def money_total(values: Iterable[float] | pd.Series | np.ndarray) -> float:
-    """Sum money already rounded to cents, exactly: through whole cents, back to units.
-
-    Examples
-    --------
-    >>> money_total([0.1, 0.2, 0.3]), sum([0.1, 0.2, 0.3])
-    (0.6, 0.6000000000000001)
-    """
-    array = np.asarray(pd.to_numeric(pd.Series(values), errors="raise"), dtype=np.float64)
-    if array.size == 0:
-        return 0.0
-    return int(np.rint(array * 100.0).astype(np.int64).sum()) / 100.0
 
 
 @dataclass(frozen=True)
@@ -108,26 +95,6 @@ class RunReport:
         from allowance.reconcile import WhatIf
 
         return WhatIf(summary=self.what_if, stage_changes=pd.DataFrame())
-
-
-def scenario_table(loans: pd.DataFrame, config: RunConfig) -> pd.DataFrame:
-    """Each scenario's modelled allowance at 100 % weight, per framework, then the weighted result.
-
-    Columns ``framework, scenario, weight, ecl``; the weighted row has scenario
-    ``"weighted"``, weight 1 and the modelled allowance (the sum of rounded loan figures,
-    which can differ by a few cents from the weighted sum of scenario totals). A scenario
-    without its loan column shows NaN, which the workbook shows blank.
-    """
-    rows = []
-    for f in config.frameworks:
-        for name, scenario in config.assumptions.scenarios.items():
-            col = f"ecl_{f}_{name}"
-            rows.append({"framework": f, "scenario": name, "weight": scenario.weight,
-                         "ecl": money_total(loans[col]) if col in loans.columns else float("nan")})
-        modelled = f"ecl_{f}_modelled"
-        if modelled in loans.columns:
-            rows.append({"framework": f, "scenario": "weighted", "weight": 1.0, "ecl": money_total(loans[modelled])})
-    return pd.DataFrame(rows, columns=["framework", "scenario", "weight", "ecl"])
 
 
 def _user() -> str:
@@ -208,7 +175,7 @@ def run_record(
         for key, col in (("allowance", f"ecl_{f}"), ("modelled", f"ecl_{f}_modelled"), ("overlays", f"overlay_{f}")):
             if col in loans.columns:
                 entry[key] = money_total(loans[col])
-        if "stage" in loans.columns and f"ecl_{f}" in loans.columns and f == "ifrs9":
+        if "stage" in loans.columns and f"ecl_{f}" in loans.columns and FRAMEWORK_RULES[f].staged:
             entry["by_stage"] = {
                 str(int(s)): money_total(g) for s, g in loans.groupby("stage")[f"ecl_{f}"]
             }

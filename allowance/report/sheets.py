@@ -20,6 +20,7 @@ import pandas as pd
 from openpyxl.styles import Font
 from openpyxl.utils import get_column_letter
 
+from allowance.frameworks import FRAMEWORK_RULES
 from allowance.report.figures import Figure, Ledger, LoanRefs
 from allowance.report.xlsx import INTEGER, MONEY, RATE, TITLE_FONT, clean_text, put_table
 
@@ -32,7 +33,7 @@ __all__ = [
     "stage_changes_frame", "term_structure_sheet", "warnings_frame", "what_if_sheet",
 ]
 
-_FW_LABEL = {"ifrs9": "IFRS 9", "cecl": "CECL"}
+_FW_LABEL = {name: rules.label for name, rules in FRAMEWORK_RULES.items()}
 #: months at which the term-structure sheet shows cumulative PD
 PD_MONTHS: tuple[int, ...] = (12, 24, 36, 60, 120)
 
@@ -62,7 +63,7 @@ def movement_sheet(ws: Any, movements: tuple[Movement, ...], led: Ledger) -> Non
     row = 1
     for m in movements:
         fw = _FW_LABEL[m.framework]
-        by = "stage" if m.framework == "ifrs9" else "segment"
+        by = "stage" if FRAMEWORK_RULES[m.framework].class_order else "segment"
         note = "" if m.assumptions_isolated else " (no rerun at prior assumptions: remeasurement holds every change)"
         for text in m.notes:
             ws.cell(row=row, column=1, value=clean_text(f"Note: {text}.")).font = Font(italic=True)

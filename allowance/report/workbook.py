@@ -23,6 +23,7 @@ from openpyxl.chart import BarChart, Reference
 from openpyxl.styles import Alignment, Font
 from openpyxl.utils import get_column_letter
 
+from allowance.frameworks import FRAMEWORK_RULES
 from allowance.report.figures import Figure, Ledger, LoanRefs
 from allowance.report.record import CAUTION, RunReport
 from allowance.report.sheets import (
@@ -41,7 +42,12 @@ SHEETS: tuple[str, ...] = (
     "Stage changes", "Intake", "Warnings", "Assumptions", "Term structures", "Monthly PD curves",
     "Schedules", "Run record", "Loans",
 )
-_FW_LABEL = {"ifrs9": "IFRS 9", "cecl": "CECL"}
+_FW_LABEL = {name: rules.label for name, rules in FRAMEWORK_RULES.items()}
+
+
+def _staged(frameworks: list[str]) -> str | None:
+    """The framework of the run whose loans carry stages (IFRS 9), if any."""
+    return next((f for f in frameworks if FRAMEWORK_RULES[f].staged), None)
 
 
 def _header(ws: Any, row: int, col: int, names: list[str], widths: list[float] | None = None) -> None:
@@ -117,8 +123,9 @@ def _summary(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
         r += 1
     r += 1
 
-    if "ifrs9" in report.frameworks and "stage" in loans.columns:
-        ws.cell(row=r, column=1, value="IFRS 9 allowance by stage").font = TITLE_FONT
+    staged = _staged(report.frameworks)
+    if staged is not None and "stage" in loans.columns:
+        ws.cell(row=r, column=1, value=f"{_FW_LABEL[staged]} allowance by stage").font = TITLE_FONT
         _header(ws, r + 1, 1, ["Stage", "Loans", "Balance", "12-month ECL", "Lifetime ECL", "Allowance", "Coverage"])
         r += 2
         first = r
@@ -128,11 +135,12 @@ def _summary(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
             bal = led.put(ws, r, 3, refs.total("balance", crit), MONEY)
             led.put(ws, r, 4, refs.total("ecl_12m", crit), MONEY)
             led.put(ws, r, 5, refs.total("ecl_lifetime", crit), MONEY)
-            allowance = led.put(ws, r, 6, refs.total("ecl_ifrs9", crit), MONEY)
+            allowance = led.put(ws, r, 6, refs.total(f"ecl_{staged}", crit), MONEY)
             led.put(ws, r, 7, _coverage(allowance, bal, led.local(ws, allowance), led.local(ws, bal)), RATE)
             r += 1
         _total_row(ws, r, first, r - 1, refs, led, [(2, None, INTEGER), (3, "balance", MONEY), (4, "ecl_12m", MONEY),
-                                                    (5, "ecl_lifetime", MONEY), (6, "ecl_ifrs9", MONEY)], coverage=(6, 3, 7))
+                                                    (5, "ecl_lifetime", MONEY), (6, f"ecl_{staged}", MONEY)],
+                   coverage=(6, 3, 7))
         r += 2
 
     ws.cell(row=r, column=1, value="Allowance by segment").font = TITLE_FONT
@@ -217,11 +225,12 @@ def _segment_stage(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> N
     ws.auto_filter.ref = f"A{row + 1}:{get_column_letter(len(names))}{max(r - 1, row + 1)}"
     ws.freeze_panes = f"A{row + 2}"
 
-    # the grid behind the chart: segments down, stages across, the allowance of the first framework
-    f = "ifrs9" if "ifrs9" in fws else fws[0]
+    # the grid behind the chart: segments down, stages across, the allowance of the staged
+    # framework (else the first)
+    f = _staged(fws) or fws[0]
     gr = r + 2
     ws.cell(row=gr, column=1, value=f"{_FW_LABEL[f]} allowance by segment and stage (chart data)").font = TITLE_FONT
-    by_class = has_stage and f == "ifrs9"
+    by_class = has_stage and FRAMEWORK_RULES[f].staged
     chart_classes = classes if by_class else [("Allowance", None, [])]
     heads = ["Segment"] + [label for label, _, _ in chart_classes]
     _header(ws, gr + 1, 1, heads)

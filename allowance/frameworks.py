@@ -1,0 +1,242 @@
+"""What differs between IFRS 9 and CECL, in one place: one rules object per framework.
+
+The engine, the movement and the reports ask the framework's :class:`FrameworkRules` instead
+of testing its name. Adding a framework (or a policy variant of one) is a new entry in
+:data:`FRAMEWORK_RULES`; the maths each rule names lives in its concept module
+(:mod:`~allowance.staging`, :mod:`~allowance.scenarios`, :mod:`~allowance.curves`,
+:mod:`~allowance.discounting`).
+
+=======================  ======================================  ===============================
+rule                     IFRS 9                                  CECL
+=======================  ======================================  ===============================
+stages                   1 / 2 / 3 and POCI (5.5.3-5.5.5, 5.5.13) none: lifetime for every loan
+horizon reported         12 months in stage 1, else the life     the life (ASC 326-20-30-6)
+PD = 1 now               stage 3 (default or probation)          ``[cecl] default_dpd``, flags
+undrawn limit            CCF × undrawn (B5.5.31, B5.5.40)        none when unconditionally
+                                                                 cancellable (326-20-30-11)
+revolving lines          drawn balance at the behavioural life   drawn balance paying down at
+                                                                 the segment's payment_rate
+discounting              at the EIR (B5.5.44)                    only with ``discount = true``
+                                                                 (the DCF method, 326-20-30-4)
+scenario paths           the whole life                          reverting to the long-run PDs
+                                                                 after the reasonable and
+                                                                 supportable period (30-9)
+allowance per loan       12-month ECL in stage 1, lifetime in    lifetime ECL
+                         2 and 3; POCI: the change since
+                         purchase (5.5.13)
+movement columns         by class: stage 1-3, POCI (IFRS 7 35H)  by segment (ASC 326-20-50-13)
+journal accounts         impairment losses / loss allowance      provision / allowance
+=======================  ======================================  ===============================
+
+Implements
+----------
+FrameworkRules    the rules of one framework (frozen)
+FRAMEWORK_RULES   framework name -> its rules
+rules_for         the rules of a framework, or a domain error naming the known ones
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from allowance import staging
+from allowance.curves.lgd import undrawn_exposure
+from allowance.discounting import monthly_discount
+from allowance.exceptions import AssumptionsError
+from allowance.schemas import FRAMEWORKS, Assumptions, CeclRules, Framework
+
+__all__ = ["FRAMEWORK_RULES", "FrameworkRules", "rules_for"]
+
+
+@dataclass(frozen=True)
+class FrameworkRules:
+    """The rules of one framework (see the table in the module docstring).
+
+    Every rule is a module-level function, so the rules pickle (by reference) with the
+    book-level tables a process pool or a cluster ships to its workers.
+
+    name                 ``ifrs9`` or ``cecl``: the suffix of its loans.csv columns
+    label                how people write it (workbook, messages)
+    staged               loans carry IFRS 9 stages and the allowance is reported by stage
+    horizon              ``(stage, life) -> months``: the horizon reported per loan
+    in_default           ``(tape, stage or None, assumptions) -> bool``: PD = 1 now
+    exposure_add_on      ``(drawn, limit, ccf, unconditionally_cancellable) -> add-on`` to EAD
+    revolving_paydown    revolving lines pay down at the segment's ``payment_rate``
+    discounted           ``assumptions -> bool``: discount at the EIR
+    reversion            ``assumptions -> CeclRules or None``: revert the scenario paths after
+                         the reasonable and supportable period (None: whole life)
+    allowance            ``(ecl_12m, ecl_lifetime, stage, poci, ecl_at_purchase) -> ecl``, per
+                         loan and scenario (arrays ``[n, S]``)
+    credit_impaired      the label of purchased credit-impaired / credit-deteriorated assets
+    class_labels         ``(stage, poci) -> labels``: each loan's class in the movement
+    class_order          the classes in the order the movement's columns show them (None:
+                         the movement's columns are the segments)
+    journal_accounts     (expense account, allowance account) of the provision
+    """
+
+    name: Framework
+    label: str
+    staged: bool
+    horizon: Callable[[np.ndarray, np.ndarray], np.ndarray]
+    in_default: Callable[[pd.DataFrame, np.ndarray | None, Assumptions], np.ndarray]
+    exposure_add_on: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
+    revolving_paydown: bool
+    discounted: Callable[[Assumptions], bool]
+    reversion: Callable[[Assumptions], CeclRules | None]
+    allowance: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
+    credit_impaired: str
+    class_labels: Callable[[np.ndarray, np.ndarray], np.ndarray]
+    class_order: tuple[str, ...] | None
+    journal_accounts: tuple[str, str]
+
+    def discount(self, assumptions: Assumptions, eir: np.ndarray) -> np.ndarray:
+        """The monthly discount multiplier of every loan: v = 1/(1 + EIR/12), or 1."""
+        if self.discounted(assumptions):
+            return monthly_discount(eir)
+        return np.ones(len(eir))
+
+    def horizon_months(self, stage, remaining_months, repayment, behavioural_life) -> np.ndarray:
+        """Months of expected credit loss per loan (see :func:`allowance.staging.lifetime_months`).
+
+        Examples
+        --------
+        >>> rules_for("ifrs9").horizon_months([1, 2], [200, 200], ["level", "level"], [0, 0]).tolist()
+        [12, 200]
+        >>> rules_for("cecl").horizon_months([1, 2], [200, 200], ["level", "level"], [0, 0]).tolist()
+        [200, 200]
+        """
+        return self.horizon(np.asarray(stage), staging.lifetime_months(remaining_months, repayment, behavioural_life))
+
+
+# --------------------------------------------------------------------------------------
+# IFRS 9
+# --------------------------------------------------------------------------------------
+
+
+def _ifrs9_default(tape: pd.DataFrame, stage: np.ndarray | None, assumptions: Assumptions) -> np.ndarray:
+    # stage 3 is the credit-impaired class: the default test plus probation (B5.5.37)
+    return np.asarray(stage) == 3
+
+
+def _drawn_plus_ccf(drawn, limit, ccf, cancellable) -> np.ndarray:
+    return undrawn_exposure(drawn, limit, ccf)
+
+
+def _ifrs9_allowance(ecl_12m, ecl_lifetime, stage, poci, at_purchase) -> np.ndarray:
+    twelve = (np.asarray(stage) == 1) & ~np.asarray(poci, dtype=bool)
+    per_scenario = np.where(twelve[:, None], ecl_12m, ecl_lifetime)
+    # POCI: the allowance is the change in lifetime ECL since purchase (IFRS 9 5.5.13)
+    shift = np.where(np.asarray(poci, dtype=bool) & ~np.isnan(at_purchase), at_purchase, 0.0)
+    return per_scenario - shift[:, None]
+
+
+def _always(assumptions: Assumptions) -> bool:
+    return True
+
+
+def _whole_life(assumptions: Assumptions) -> None:
+    return None
+
+
+def _ifrs9_classes(stage, poci) -> np.ndarray:
+    labels = np.char.add("stage ", np.asarray(stage).astype(str)).astype(object)
+    return np.where(poci, "POCI", labels).astype(object)
+
+
+IFRS9 = FrameworkRules(
+    name="ifrs9",
+    label="IFRS 9",
+    staged=True,
+    horizon=staging.stage_horizon,
+    in_default=_ifrs9_default,
+    exposure_add_on=_drawn_plus_ccf,
+    revolving_paydown=False,
+    discounted=_always,
+    reversion=_whole_life,
+    allowance=_ifrs9_allowance,
+    credit_impaired="POCI",
+    class_labels=_ifrs9_classes,
+    class_order=("stage 1", "stage 2", "stage 3", "POCI"),
+    journal_accounts=("Impairment losses on loans (profit or loss)", "Loss allowance (balance sheet)"),
+)
+
+# --------------------------------------------------------------------------------------
+# CECL
+# --------------------------------------------------------------------------------------
+
+
+def _cecl_rules(assumptions: Assumptions) -> CeclRules:
+    if assumptions.cecl is None:
+        raise AssumptionsError(
+            "CECL is asked for but there is no [cecl] table",
+            column="cecl",
+            hint="add [cecl] with reasonable_supportable_months, reversion_months and reversion",
+        )
+    return assumptions.cecl
+
+
+def _cecl_discounts(assumptions: Assumptions) -> bool:
+    return _cecl_rules(assumptions).discount
+
+
+def _cecl_default(tape: pd.DataFrame, stage: np.ndarray | None, assumptions: Assumptions) -> np.ndarray:
+    return staging.in_default(tape, _cecl_rules(assumptions).default_dpd)
+
+
+def _cecl_add_on(drawn, limit, ccf, cancellable) -> np.ndarray:
+    # an unconditionally cancellable commitment carries no allowance (ASC 326-20-30-11)
+    return np.where(cancellable, 0.0, undrawn_exposure(drawn, limit, ccf))
+
+
+def _lifetime_allowance(ecl_12m, ecl_lifetime, stage, poci, at_purchase) -> np.ndarray:
+    return ecl_lifetime
+
+
+def _cecl_classes(stage, poci) -> np.ndarray:
+    return np.where(poci, "PCD", "non-PCD").astype(object)
+
+
+CECL = FrameworkRules(
+    name="cecl",
+    label="CECL",
+    staged=False,
+    horizon=staging.lifetime_horizon,
+    in_default=_cecl_default,
+    exposure_add_on=_cecl_add_on,
+    revolving_paydown=True,
+    discounted=_cecl_discounts,
+    reversion=_cecl_rules,
+    allowance=_lifetime_allowance,
+    credit_impaired="PCD",
+    class_labels=_cecl_classes,
+    class_order=None,
+    journal_accounts=("Provision for credit losses (income statement)", "Allowance for credit losses (balance sheet)"),
+)
+
+#: framework name -> its rules
+FRAMEWORK_RULES: dict[Framework, FrameworkRules] = {"ifrs9": IFRS9, "cecl": CECL}
+assert tuple(FRAMEWORK_RULES) == FRAMEWORKS  # one entry per framework the schemas accept
+
+
+def rules_for(framework: str) -> FrameworkRules:
+    """The rules of ``framework``.
+
+    Raises
+    ------
+    AssumptionsError
+        An unknown framework, naming the known ones.
+
+    Examples
+    --------
+    >>> rules_for("cecl").label
+    'CECL'
+    """
+    try:
+        return FRAMEWORK_RULES[framework]  # type: ignore[index]
+    except KeyError:
+        raise AssumptionsError(f"unknown framework {framework!r}", column="run.frameworks",
+                               hint=f"use one of {', '.join(FRAMEWORK_RULES)}") from None

@@ -1,0 +1,36 @@
+"""Money: rounded to cents once per loan, and totals that foot exactly.
+
+Implements
+----------
+CENT_DECIMALS  decimals money is rounded to (2: cents)
+money_total    the sum of figures already rounded to cents, exactly (through whole cents)
+
+Every total a run reports is the sum of its rounded loan figures, added in whole cents
+(int64) so that no floating-point residue makes a report miss its footing by a cent.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+import numpy as np
+import pandas as pd
+
+__all__ = ["CENT_DECIMALS", "money_total"]
+
+#: money is rounded to cents once, per loan, at the end
+CENT_DECIMALS = 2
+
+
+def money_total(values: Iterable[float] | pd.Series | np.ndarray) -> float:
+    """Sum money already rounded to cents, exactly: through whole cents, back to units.
+
+    Examples
+    --------
+    >>> money_total([0.1, 0.2, 0.3]), sum([0.1, 0.2, 0.3])
+    (0.6, 0.6000000000000001)
+    """
+    array = np.asarray(pd.to_numeric(pd.Series(values), errors="raise"), dtype=np.float64)
+    if array.size == 0:
+        return 0.0
+    return int(np.rint(array * 100.0).astype(np.int64).sum()) / 100.0
