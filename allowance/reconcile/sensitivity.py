@@ -21,6 +21,7 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
+from allowance.frameworks import rules_for
 from allowance.schemas import RunConfig
 
 __all__ = ["SENSITIVITY_COLUMNS", "sensitivity_table", "single_scenario"]
@@ -72,7 +73,7 @@ def _row(frame: pd.DataFrame, framework: str, scenario: str, weight: float) -> d
            "allowance_modelled": _cents(frame, f"ecl_{framework}_modelled"),
            "overlays": _cents(frame, f"overlay_{framework}"),
            "allowance": _cents(frame, f"ecl_{framework}")}
-    staged = framework == "ifrs9" and "stage" in frame.columns
+    staged = rules_for(framework).staged and "stage" in frame.columns
     for s in (1, 2, 3):
         mask = frame["stage"].to_numpy() == s if staged else None
         row[f"stage_{s}"] = _cents(frame[mask], f"ecl_{framework}") if staged else np.nan
