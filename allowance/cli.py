@@ -99,10 +99,13 @@ def run_quarter(
     macro_paths = macro.macro_path_table(config.assumptions, engine.tape_months(taken.accepted, config))
 
     what_if = None
+    what_if_paths = pd.DataFrame()
     if overlays:
         base_config = intake.load_assumptions(assumptions)
         base = engine.run(taken.accepted, base_config)
         what_if = reconcile.what_if_comparison(base.loans, result.loans, config.frameworks)
+        what_if_paths = macro.path_changes(base_config.assumptions, config.assumptions,
+                                           engine.tape_months(taken.accepted, config))
 
     movements = None
     if prior is not None:
@@ -133,7 +136,7 @@ def run_quarter(
         config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays,
         scenarios=result.scenarios, term_structures=result.term_structures,
         roll_rates=result.roll_rates, reversion=result.reversion, schedules=result.schedules,
-        sensitivity=sensitivity, macro_paths=macro_paths, movement=movements, what_if=what_if, record=record, warnings=warnings,
+        sensitivity=sensitivity, macro_paths=macro_paths, what_if_paths=what_if_paths, movement=movements, what_if=what_if, record=record, warnings=warnings,
     )
     report.write_outputs(out, run_report, parquet=parquet)
     return Quarter(out=out, report=run_report, seconds=time.perf_counter() - started)

@@ -18,6 +18,7 @@ collateral_path      a segment's collateral index from a price variable
 macro_collateral     one scenario's collateral index for every curve key
 macro_path_table     the monthly paths used, long form, for the workbook
 pd_path_table        the PD paths the scenarios produce, by segment, for the workbook
+path_changes         a what-if's macro paths against the base run's, where they differ
 
 The satellite model
 -------------------
@@ -90,6 +91,7 @@ __all__ = [
     "macro_path_table",
     "monthly_from_quarterly",
     "on_months",
+    "path_changes",
     "pd_path_table",
     "pd_shift",
 ]
@@ -554,3 +556,41 @@ def pd_path_table(pd_table: np.ndarray, names: Sequence[str], key_segments: Sequ
             }))
     columns = ["framework", "scenario", "segment", "month", "marginal_pd", "annualised_pd"]
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
+
+
+def path_changes(base: Assumptions, what_if: Assumptions, months: int) -> pd.DataFrame:
+    """A what-if's macro paths against the base run's: every scenario and variable that differs.
+
+    Columns ``scenario, variable, month, calendar_month, base, what_if, change``; a
+    (scenario, variable) pair appears with its whole path when any month differs (the
+    baseline as scenario ``"(baseline)"``). Empty when neither run gives macro paths or
+    nothing changed.
+
+    Examples
+    --------
+    >>> from allowance.schemas import Assumptions
+    >>> data = {"run": {"as_of": "2026-09-30", "frameworks": ["cecl"]},
+    ...         "segments": {"a": {"pd_12m": 0.02, "lgd": 0.4,
+    ...                            "satellite": {"link": "probit", "coefficients": {"u": 0.1}}}},
+    ...         "cecl": {"reasonable_supportable_months": 12},
+    ...         "macro": {"start": "2026Q4", "interpolation": "step", "baseline": {"u": [4.0, 4.0]}},
+    ...         "scenarios": {"down": {"weight": 1.0, "macro": {"u": [5.0, 6.0]}}}}
+    >>> worse = {**data, "scenarios": {"down": {"weight": 1.0, "macro": {"u": [5.0, 7.0]}}}}
+    >>> t = path_changes(Assumptions.model_validate(data), Assumptions.model_validate(worse), 6)
+    >>> t[["month", "base", "what_if", "change"]].iloc[2:4].to_dict("split")["data"]
+    [[3, 5.0, 5.0, 0.0], [4, 6.0, 7.0, 1.0]]
+    """
+    keys = ["scenario", "variable", "month", "calendar_month"]
+    columns = [*keys, "base", "what_if", "change"]
+    before = macro_path_table(base, months)
+    after = macro_path_table(what_if, months)
+    if before.empty and after.empty:
+        return pd.DataFrame(columns=columns)
+    joined = before[[*keys, "value"]].merge(after[[*keys, "value"]], on=keys, how="outer",
+                                          suffixes=("_base", "_what_if"))
+    joined = joined.rename(columns={"value_base": "base", "value_what_if": "what_if"})
+    joined["change"] = joined["what_if"] - joined["base"]
+    differs = ~((joined["base"] == joined["what_if"]) | (joined["base"].isna() & joined["what_if"].isna()))
+    changed = joined.loc[differs, ["scenario", "variable"]].drop_duplicates()
+    out = joined.merge(changed, on=["scenario", "variable"], how="inner")
+    return out.sort_values(["scenario", "variable", "month"]).reset_index(drop=True)[columns]

@@ -539,3 +539,18 @@ def test_pd_path_table_weights_keys_by_balance_and_annualises():
     # the monthly PD at an annual rate: 1 - (1 - 0.02)^12 (common practice, no source)
     np.testing.assert_allclose(b["annualised_pd"], 1 - 0.98 ** 12, rtol=1e-12)
     assert set(t.framework) == {"ifrs9"} and t["month"].max() == 4
+
+
+def test_path_changes_list_only_the_paths_a_what_if_moved():
+    from allowance.macro import path_changes
+
+    base = _assumptions({"base": {"weight": 0.5, "macro": {"u": BASELINE_U, "hpi": BASELINE_HPI}},
+                         "down": {"weight": 0.5, "macro": {"u": HISTORY + [6.0] * 8, "hpi": BASELINE_HPI}}})
+    worse = _assumptions({"base": {"weight": 0.5, "macro": {"u": BASELINE_U, "hpi": BASELINE_HPI}},
+                          "down": {"weight": 0.5, "macro": {"u": HISTORY + [7.0] * 8, "hpi": BASELINE_HPI}}})
+    t = path_changes(base, worse, 36)
+    assert set(zip(t.scenario, t.variable)) == {("down", "u")}
+    future = t[t.month.between(1, 24)]
+    np.testing.assert_allclose(future["change"], 1.0)
+    assert (t[t.month <= 0]["change"] == 0).all()  # history is the same in both
+    assert path_changes(base, base, 36).empty

@@ -37,7 +37,8 @@ __all__ = ["OUTPUT_FILES", "write_outputs"]
 
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
-    "what_if.csv", "what_if_stage_changes.csv", "sensitivity.csv", "macro_paths.csv", "reserve.xlsx", "run.json",
+    "what_if.csv", "what_if_stage_changes.csv", "what_if_macro_paths.csv", "sensitivity.csv", "macro_paths.csv",
+    "reserve.xlsx", "run.json",
 )
 
 
@@ -96,6 +97,9 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
         done("what_if.csv")
         _csv(report.what_if_parts.stage_changes, folder / "what_if_stage_changes.csv")
         done("what_if_stage_changes.csv")
+    if report.what_if_paths is not None and not report.what_if_paths.empty:
+        _csv(report.what_if_paths, folder / "what_if_macro_paths.csv")
+        done("what_if_macro_paths.csv")
     if report.sensitivity is not None and not report.sensitivity.empty:
         _csv(report.sensitivity, folder / "sensitivity.csv")
         done("sensitivity.csv")
