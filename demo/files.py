@@ -6,6 +6,7 @@ write_csv            text columns to CSV (quoting only where needed; optional BO
 write_rolls          ``cards_rolls.csv``: the card segment's monthly roll-rate matrix
 write_assumptions    ``assumptions_2026q3.toml`` / ``assumptions_2026q2.toml``
 write_what_if        ``downside_only.toml``: 100 % downside
+write_outlook_what_if ``worse_unemployment.toml``: a worse unemployment outlook
 write_bad_tape       ``bad_tape.csv``: good rows and one row per fault
 write_messy          ``messy_extract.csv`` + ``messy_assumptions.toml``
 write_manifest       ``manifest.toml``: the one list of the bundled sample data
@@ -204,7 +205,123 @@ cpr = 0.1
 retail_class = "residential_mortgage"
 """,
     }
-    return "".join(tables[n] for n in names)
+    return "".join(tables[n] + SATELLITES[n] for n in names)
+
+
+# --------------------------------------------------------------------------------------
+# scenarios as macro paths: the regional outlook and each segment's satellite model
+# --------------------------------------------------------------------------------------
+
+#: Each segment's satellite model (stated coefficients: probit shifts of the monthly PD per
+#: point of unemployment and per index point of property prices, with their lags).
+SATELLITES = {
+    "mortgage": """
+[segments.mortgage.satellite]
+link = "probit"
+coefficients = { unemployment_rate = 0.08, house_price_index = -0.006 }
+lag_months = { unemployment_rate = 6, house_price_index = 3 }
+source = "stated for the demo: Corrandale model inventory SAT-MTG-02"
+
+[segments.mortgage.satellite.collateral]
+variable = "house_price_index"     # collateral values follow the regional house-price index
+form = "level"
+relative_to = "as_of"              # the scenario's own price change since the as-of date
+""",
+    "auto": """
+[segments.auto.satellite]
+link = "probit"
+coefficients = { unemployment_rate = 0.06 }
+lag_months = { unemployment_rate = 3 }
+source = "stated for the demo: Corrandale model inventory SAT-AUT-01"
+""",
+    "personal": """
+[segments.personal.satellite]
+link = "probit"
+coefficients = { unemployment_rate = 0.07 }
+lag_months = { unemployment_rate = 3 }
+source = "stated for the demo: Corrandale model inventory SAT-PER-01"
+""",
+    "cards": """
+[segments.cards.satellite]
+link = "logit"
+coefficients = { unemployment_rate = 0.09 }
+lag_months = { unemployment_rate = 3 }
+source = "stated for the demo: Corrandale model inventory SAT-CRD-03"
+""",
+    "cre": """
+[segments.cre.satellite]
+link = "probit"
+coefficients = { unemployment_rate = 0.03, commercial_property_index = -0.012 }
+lag_months = { unemployment_rate = 6, commercial_property_index = 3 }
+source = "stated for the demo: Corrandale model inventory SAT-CRE-01"
+
+[segments.cre.satellite.collateral]
+variable = "commercial_property_index"
+form = "level"
+relative_to = "as_of"
+""",
+    "heloc": """
+[segments.heloc.satellite]
+link = "probit"
+coefficients = { unemployment_rate = 0.07, house_price_index = -0.005 }
+lag_months = { unemployment_rate = 6, house_price_index = 3 }
+source = "stated for the demo: Corrandale model inventory SAT-HEL-01"
+""",
+}
+
+#: The regional outlook by quarter: four quarters of history up to the as-of quarter, then
+#: twelve forecast quarters. Unemployment in percent; price indices 2026Q3 = 100.
+OUTLOOK = {
+    "unemployment_rate": {
+        "history": [4.5, 4.4, 4.3, 4.2, 4.1],
+        "base": [4.1] * 12,
+        "upside": [4.0, 3.9, 3.8, 3.7, 3.7, 3.7, 3.8, 3.8, 3.9, 3.9, 4.0, 4.0],
+        "downside": [4.6, 5.4, 6.2, 6.8, 7.0, 6.9, 6.6, 6.2, 5.8, 5.4, 5.0, 4.7],
+    },
+    "house_price_index": {
+        "history": [96.8, 97.6, 98.4, 99.2, 100.0],
+        "base": [round(100.0 + 0.8 * q, 1) for q in range(1, 13)],
+        "upside": [101.2, 102.3, 103.0, 103.6, 104.4, 105.2, 106.0, 106.8, 107.6, 108.4, 109.2, 110.0],
+        "downside": [98.5, 96.0, 93.0, 90.5, 88.5, 87.2, 87.0, 87.4, 88.0, 88.8, 89.6, 90.5],
+    },
+    "commercial_property_index": {
+        "history": [102.0, 101.5, 101.0, 100.5, 100.0],
+        "base": [100.0, 100.2, 100.4, 100.6, 100.8, 101.0, 101.2, 101.4, 101.6, 101.8, 102.0, 102.2],
+        "upside": [100.5, 101.2, 101.9, 102.5, 103.0, 103.5, 104.0, 104.4, 104.8, 105.2, 105.6, 106.0],
+        "downside": [97.0, 93.0, 89.0, 86.0, 84.0, 83.0, 83.5, 84.5, 86.0, 87.5, 89.0, 90.0],
+    },
+}
+#: The first quarter of the paths for each quarter-end (four quarters of history before it).
+MACRO_START = {"q3": "2025Q4", "q2": "2025Q3"}
+
+
+def _path(variable: str, scenario: str, quarter: str) -> list[float]:
+    """History up to the as-of quarter, then the forecast (the prior quarter's history is one quarter earlier)."""
+    table = OUTLOOK[variable]
+    history = table["history"][1:] if quarter == "q3" else table["history"][:-1]
+    forecast = table[scenario] if quarter == "q3" else [table["history"][-1], *table[scenario][:-1]]
+    return history + forecast
+
+
+def macro_toml(quarter: str) -> str:
+    rows = "\n".join(f"{v} = {toml_value(_path(v, 'base', quarter))}" for v in OUTLOOK)
+    return f"""
+# Scenarios are stated as macro paths: the regional outlook by calendar quarter, from
+# {MACRO_START[quarter]} (four quarters of history, then twelve of forecast). The baseline is the
+# consensus path the long-run PDs were set at: every satellite model gives the long-run PD on it.
+[macro]
+start = "{MACRO_START[quarter]}"
+interpolation = "step"             # each month takes its quarter's value
+source = "Corrandale regional outlook (invented for the demo)"
+
+[macro.baseline]
+{rows}
+"""
+
+
+def _scenario_macro(name: str, quarter: str) -> str:
+    rows = "\n".join(f"{v} = {toml_value(_path(v, name, quarter))}" for v in OUTLOOK)
+    return f"\n[scenarios.{name}.macro]\n{rows}\n"
 
 
 def rules_and_scenarios_toml(quarter: str) -> str:
@@ -227,24 +344,20 @@ reversion_months = 12
 reversion = "straight_line"
 discount = false
 
+""" + macro_toml(quarter) + f"""
 [scenarios.base]
 weight = {base!r}
-pd_multiplier = [1.0, 1.0, 1.0]
-description = "Growth near trend; unemployment in the region steady at 4.1 %."
-
+description = "Growth near trend; unemployment in the region steady at 4.1 %, house prices up 3 % a year."
+""" + _scenario_macro("base", quarter) + f"""
 [scenarios.upside]
 weight = {up!r}
-pd_multiplier = [0.85, 0.9, 0.95]
-collateral_index = [1.03, 1.05, 1.06]
-description = "Faster growth; house prices up 3 % in the first year."
-
+description = "Faster growth; unemployment to 3.7 %, house prices up 3.6 % in the first year."
+""" + _scenario_macro("upside", quarter) + f"""
 [scenarios.downside]
 weight = {down!r}
-pd_multiplier = {toml_value(q["downside"])}
 lgd_multiplier = [1.15, 1.1, 1.05]
-collateral_index = [0.9, 0.87, 0.9]
 description = "Regional recession; unemployment to 7 %, house prices down 13 % by year two."
-"""
+""" + _scenario_macro("downside", quarter)
 
 
 def overlays_toml(quarter: str) -> str:
@@ -301,6 +414,24 @@ ledger_balance = {ledger_cents // 100}.{ledger_cents % 100:02d}   # general-ledg
 """
     text = head + segments_toml(pd_by_grade) + rules_and_scenarios_toml(quarter) + overlays_toml(quarter)
     return _write_text(out_dir / f"assumptions_2026{quarter}.toml", text)
+
+
+def write_outlook_what_if(out_dir: Path) -> Path:
+    """``worse_unemployment.toml``: the outlook changed; the what-if an analyst runs in one command."""
+    base = _path("unemployment_rate", "base", "q3")[:4] + [4.2, 4.4, 4.6, 4.8, 4.9, 5.0, 5.0, 4.9, 4.8, 4.7, 4.6, 4.5]
+    down = _path("unemployment_rate", "downside", "q3")[:4] + [4.9, 6.0, 7.1, 8.0, 8.5, 8.4, 8.0, 7.4, 6.8, 6.2, 5.6, 5.1]
+    text = f"""# What if the outlook for regional unemployment worsens? The October outlook moves the
+# consensus up half a point and deepens the recession path to 8.5 %. Apply with --overlay:
+# tables merge key by key, so only these two unemployment paths change; house prices, the
+# weights and every other assumption stay the base file's.
+
+[scenarios.base.macro]
+unemployment_rate = {toml_value(base)}
+
+[scenarios.downside.macro]
+unemployment_rate = {toml_value(down)}
+"""
+    return _write_text(out_dir / "worse_unemployment.toml", text)
 
 
 def write_what_if(out_dir: Path) -> Path:
@@ -462,6 +593,7 @@ DESCRIPTIONS = {
     "assumptions_2026q2.toml": ("assumptions", "Assumptions for the 2026-06-30 run (other scenario weights and overlays)."),
     "cards_rolls.csv": ("transition_matrix", "Monthly roll rates of the card book between delinquency buckets."),
     "downside_only.toml": ("overlay", "What-if: 100 % weight on the downside scenario."),
+    "worse_unemployment.toml": ("overlay", "What-if: a worse unemployment outlook (base and downside paths)."),
     "bad_tape.csv": ("tape", "A small tape with one deliberately bad row per fault, among good rows."),
     "messy_extract.csv": ("tape", "A raw loan-system extract: odd headers, day-first dates, a BOM, faults."),
     "messy_assumptions.toml": ("assumptions", "Assumptions for the raw extract, with its column mapping."),
@@ -489,7 +621,8 @@ generator = "generate.py"
 invented = true
 """
     text += _table("current", current) + _table("prior", prior) + _table("movement", movement)
-    text += _table("what_if", {"overlay": "downside_only.toml", "applies_to": "current"})
+    text += _table("what_if", {"overlay": "downside_only.toml", "outlook": "worse_unemployment.toml",
+                               "applies_to": "current"})
     text += _table("bad", {k: v for k, v in bad.items() if k != "faults"}) + _array("bad.faults", bad["faults"])
     text += _table("messy", {k: v for k, v in messy.items() if k not in ("faults", "ledger_cents")})
     text += _array("messy.faults", messy["faults"])

@@ -518,6 +518,7 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     written.append(files.write_assumptions(out_dir, "q3", cents["tape_2026q3.csv"], LENDER, PD_BY_GRADE))
     written.append(files.write_assumptions(out_dir, "q2", cents["tape_2026q2.csv"], LENDER, PD_BY_GRADE))
     written.append(files.write_what_if(out_dir))
+    written.append(files.write_outlook_what_if(out_dir))
     bad_path, bad = files.write_bad_tape(out_dir, rng, q3, TAPE_COLUMNS)
     messy_paths, messy = files.write_messy(out_dir, rng, q3, TAPE_COLUMNS, LENDER, PD_BY_GRADE)
     written += [bad_path, *messy_paths]

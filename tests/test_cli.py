@@ -102,6 +102,27 @@ def test_what_if_downside_in_one_command(tmp_path):
 
 
 @pytest.mark.slow
+def test_a_worse_unemployment_outlook_in_one_command(tmp_path):
+    out = tmp_path / "outlook"
+    result = invoke("run", TAPE, "--assumptions", ASSUMPTIONS, "--overlay", DEMO / MANIFEST["what_if"]["outlook"],
+                    "--no-sensitivities", "--out", out)
+    assert result.exit_code == 0, result.output
+    summary = pd.read_csv(out / "what_if.csv")
+    total = summary[summary.view == "total"].set_index("framework")
+    # a positive unemployment coefficient and a higher path: a higher allowance in both frameworks
+    assert (total["what_if"] > total["base"]).all()
+    scenario = summary[summary.view == "scenario"].set_index(["framework", "scenario"])
+    for fw in ("ifrs9", "cecl"):
+        assert scenario.loc[(fw, "downside"), "difference"] > 0
+    # the upside's paths did not change: under CECL (no stages) neither did its allowance; under
+    # IFRS 9 its column moves only with the loans the weighted PD moved between stages
+    assert scenario.loc[("cecl", "upside"), "difference"] == 0
+    paths = pd.read_csv(out / "what_if_macro_paths.csv")
+    assert set(zip(paths.scenario, paths.variable)) == {("base", "unemployment_rate"), ("downside", "unemployment_rate")}
+    assert (paths["change"] >= 0).all() and paths["what_if"].max() == 8.5
+
+
+@pytest.mark.slow
 def test_each_scenario_at_100_percent_beside_the_weighted_run(demo_out):
     table = pd.read_csv(demo_out / "sensitivity.csv")
     record = json.loads((demo_out / "run.json").read_text())

@@ -134,7 +134,22 @@ def test_downside_what_if_merges_to_a_valid_100_percent_downside():
     merged = _merge(_assumptions(MANIFEST["current"]["assumptions"]), _assumptions(MANIFEST["what_if"]["overlay"]))
     a = Assumptions.model_validate(merged)
     assert dict(zip(a.scenario_names, a.weights)) == {"base": 0.0, "upside": 0.0, "downside": 1.0}
-    assert a.scenarios["downside"].pd_multiplier  # the path itself comes from the base file
+    assert a.scenarios["downside"].macro["unemployment_rate"]  # the path itself comes from the base file
+
+
+def test_worse_unemployment_what_if_changes_only_two_unemployment_paths():
+    base = Assumptions.model_validate(_assumptions(MANIFEST["current"]["assumptions"]))
+    merged = Assumptions.model_validate(
+        _merge(_assumptions(MANIFEST["current"]["assumptions"]), _assumptions(MANIFEST["what_if"]["outlook"])))
+    for name, scenario in merged.scenarios.items():
+        before = base.scenarios[name]
+        assert scenario.weight == before.weight
+        for variable, path in scenario.macro.items():
+            changed = name in ("base", "downside") and variable == "unemployment_rate"
+            assert (path != before.macro[variable]) == changed, (name, variable)
+            assert path[:4] == before.macro[variable][:4]  # the history quarters are not changed
+    worse = merged.scenarios["downside"].macro["unemployment_rate"]
+    assert max(worse) == 8.5 and all(w >= b for w, b in zip(worse, base.scenarios["downside"].macro["unemployment_rate"]))
 
 
 @pytest.mark.parametrize("section", ["current", "prior"])
