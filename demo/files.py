@@ -327,7 +327,7 @@ def _scenario_macro(name: str, quarter: str) -> str:
 def rules_and_scenarios_toml(quarter: str) -> str:
     q = QUARTERS[quarter]
     base, up, down = q["weights"]
-    return f"""
+    return """
 [ifrs9]
 sicr_backstop_dpd = 30             # stage 2 beyond 30 days past due (IFRS 9 5.5.11)
 default_dpd = 90                   # stage 3 at 90 days past due (IFRS 9 B5.5.37)
