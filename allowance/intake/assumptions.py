@@ -13,11 +13,13 @@ from __future__ import annotations
 import copy
 import csv
 import difflib
+import hashlib
+import json
 import re
 import tomllib
 import types
 import typing
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -87,10 +89,15 @@ def _read_toml(path: Path) -> dict[str, Any]:
 class _Merged:
     """The merged data and, for each key path, the file that last set it."""
 
-    def __init__(self, data: dict[str, Any], file: Path) -> None:
+    def __init__(self, data: dict[str, Any], file: Path, folder: Path | None = None) -> None:
         self.data = data
         self.origin: dict[Key, Path] = {(): file}
         self.overlay_files: list[Path] = []
+        # the folder a file's relative paths resolve against (a mapping has no file of its own)
+        self.folders: dict[Path, Path] = {file: folder if folder is not None else file.parent}
+
+    def folder_of(self, file: Path) -> Path:
+        return self.folders.get(file, file.parent)
 
     def file_of(self, path: Key) -> Path:
         """The file that set ``path`` (the longest prefix on record)."""
@@ -104,7 +111,7 @@ class _Merged:
             del self.origin[key]
         self.origin[path] = file
 
-    def merge(self, overlay: dict[str, Any], file: Path) -> None:
+    def merge(self, overlay: dict[str, Any], file: Path, folder: Path | None = None) -> None:
         new = overlay.get("overlays")
         if isinstance(new, list):  # within one file a name is given once (a later file replaces it)
             names = [e.get("name") for e in new if isinstance(e, dict) and e.get("name") is not None]
@@ -115,6 +122,7 @@ class _Merged:
                     file=file, column="overlays",
                 )
         self.overlay_files.append(file)
+        self.folders[file] = folder if folder is not None else file.parent
         self._merge(self.data, overlay, (), file)
 
     def _merge(self, base: dict[str, Any], overlay: dict[str, Any], path: Key, file: Path) -> None:
@@ -202,16 +210,40 @@ def read_transition_matrix(path: Path) -> dict[str, Any]:
     return {"states": states, "probabilities": probabilities, "source": str(path)}
 
 
+def _is_frame(value: object) -> bool:
+    return type(value).__name__ == "DataFrame" and hasattr(value, "to_numpy")
+
+
+def _matrix_from_frame(frame: Any, named_in: Path, key: Key) -> dict[str, Any]:
+    """A roll-rate matrix given inline as a DataFrame: one column per state, one row per
+    from-state in the same order, the from-states in a ``from`` column or in the index."""
+    table = frame.set_index("from") if "from" in frame.columns else frame
+    states = [str(c).strip() for c in table.columns]
+    rows = [str(i).strip() for i in table.index]
+    if rows != states:
+        raise AssumptionsError(
+            f"the matrix's rows ({', '.join(rows)}) are not its columns' states ({', '.join(states)}) in order",
+            file=named_in, column=dotted(key), hint="one row per state, in the columns' order (index or a 'from' column)",
+        )
+    try:
+        values = table.to_numpy(dtype=float)
+    except (TypeError, ValueError) as err:
+        raise AssumptionsError(f"holds a value that is not a number ({err})", file=named_in, column=dotted(key)) from err
+    return {"states": states, "probabilities": values.tolist(), "source": f"{named_in} ({dotted(key)})"}
+
+
 def _resolve_matrices(merged: _Merged) -> list[InputFile]:
     records = []
     segments = merged.data.get("segments")
     if not isinstance(segments, dict):
         return records
     for name, table in segments.items():
-        if isinstance(table, dict) and isinstance(table.get("transition_matrix"), str):
-            key: Key = ("segments", name, "transition_matrix")
+        key: Key = ("segments", name, "transition_matrix")
+        if isinstance(table, dict) and _is_frame(table.get("transition_matrix")):
+            table["transition_matrix"] = _matrix_from_frame(table["transition_matrix"], merged.file_of(key), key)
+        elif isinstance(table, dict) and isinstance(table.get("transition_matrix"), str):
             named_in = merged.file_of(key)
-            path = (named_in.parent / table["transition_matrix"]).resolve()
+            path = (merged.folder_of(named_in) / table["transition_matrix"]).resolve()
             if not path.is_file():
                 raise AssumptionsError(
                     f"the transition matrix file {str(path)!r} was not found",
@@ -383,38 +415,75 @@ def _check_columns(merged: _Merged) -> None:
             )
 
 
-def load_assumptions(path: Path, overlays: Sequence[Path] = ()) -> RunConfig:
+#: A source of assumptions: a TOML file, or a mapping in the file's shape.
+Source = str | Path | Mapping[str, Any]
+
+
+def _read_source(source: Source, role: str) -> tuple[dict[str, Any], Path, Path | None, InputFile]:
+    """The data of a file or a mapping, the name its errors carry, its folder and its record."""
+    if isinstance(source, Mapping):
+        label = Path(f"<{role} mapping>")
+        data = _plain(source)
+        text = json.dumps(data, sort_keys=True, default=_json_value).encode("utf-8")
+        record = InputFile(role=role, path=str(label), sha256=hashlib.sha256(text).hexdigest(), bytes=len(text))
+        return data, label, Path.cwd(), record
+    path = Path(source)
+    return _read_toml(path), path, None, file_record(path, role)
+
+
+def _json_value(value: Any) -> Any:
+    if _is_frame(value):  # an inline matrix: its labels and every value
+        return json.loads(value.to_json(orient="split"))
+    return value.isoformat() if hasattr(value, "isoformat") else str(value)
+
+
+def _plain(value: Any) -> Any:
+    """A deep copy of a mapping in the file's shape (inline DataFrames kept as they are)."""
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    return value if _is_frame(value) else copy.deepcopy(value)
+
+
+def load_assumptions(path: Source, overlays: Sequence[Source] = ()) -> RunConfig:
     """Read, merge and validate the assumptions file and any overlay files.
 
     Parameters
     ----------
     path
-        The assumptions file (TOML).
+        The assumptions file (TOML), or a mapping in the same shape (``{"run": {...},
+        "segments": {...}, ...}``; dates as ``datetime.date`` or ISO text). In a mapping a
+        segment's ``transition_matrix`` may be a DataFrame (one column per state, the
+        from-states in its index or a ``from`` column) or a CSV path relative to the working
+        folder.
     overlays
-        Overlay files, merged in order (see the module notes for the merge rules).
+        Overlay files or mappings, merged in order (see the module notes for the merge rules).
 
     Returns
     -------
     RunConfig
         The validated assumptions, every file read (assumptions, overlays, transition
-        matrices, with SHA-256) and the base folder (the assumptions file's).
+        matrices, with SHA-256; a mapping is fingerprinted as its canonical JSON) and the base
+        folder (the assumptions file's, or the working folder for a mapping).
 
     Raises
     ------
     AssumptionsError
         Naming the file, the key (``segments.auto.lgd``) and the reason in plain words.
     """
-    path = Path(path)
-    merged = _Merged(_read_toml(path), path)
-    inputs = [file_record(path, "assumptions")]
+    data, label, folder, record = _read_source(path, "assumptions")
+    merged = _Merged(data, label, folder)
+    inputs = [record]
     for overlay in overlays:
-        overlay = Path(overlay)
-        merged.merge(_read_toml(overlay), overlay)
-        inputs.append(file_record(overlay, "overlay"))
+        data, overlay_label, overlay_folder, overlay_record = _read_source(overlay, "overlay")
+        merged.merge(data, overlay_label, overlay_folder)
+        inputs.append(overlay_record)
     _check_columns(merged)
     inputs.extend(_resolve_matrices(merged))
     try:
         assumptions = Assumptions.model_validate(merged.data)
     except ValidationError as err:
         _raise_validation(err, merged)
-    return RunConfig(assumptions=assumptions, inputs=inputs, base_dir=path.resolve().parent)
+    base = folder if folder is not None else label.resolve().parent
+    return RunConfig(assumptions=assumptions, inputs=inputs, base_dir=base)

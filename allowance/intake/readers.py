@@ -23,6 +23,7 @@ import pyarrow.compute as pc
 
 from allowance.exceptions import InputFileError, TapeError
 from allowance.intake.files import FileKind, Scan, check_text, scan
+from allowance.schemas import InputFile
 
 
 @dataclass(frozen=True)
@@ -364,6 +365,42 @@ def read_parquet(path: Path, sheet: str | None = None, numeric: NumericColumns |
     source_row = np.arange(2, table.num_rows + 2, dtype=np.int64)
     table, source_row, blank, _ = _drop_blank(table, source_row)
     return RawTape(headers=header, table=table, source_row=source_row, record=record, blank_rows=blank)
+
+
+def read_frame(frame, label: str = "DataFrame") -> RawTape:
+    """A tape handed over as a pandas DataFrame, read like a Parquet file: each column's values
+    become their CSV text (dates without a time of day as ``2026-09-30``), row n as line n + 1.
+
+    The run record fingerprints it with the SHA-256 of its Arrow IPC stream (the values and
+    their types), under the path ``<label>``.
+    """
+    import hashlib
+
+    path = Path(f"<{label}>")
+    try:
+        source = pa.Table.from_pandas(frame, preserve_index=False)
+    except (pa.ArrowException, TypeError, ValueError) as err:
+        raise TapeError(f"cannot be read as a tape ({err})", file=path,
+                        hint="give text, numbers, dates or true/false in every column") from err
+    header = [str(c) for c in frame.columns]
+    columns = {}
+    for i, n in enumerate(_names(len(header))):
+        column = source.column(i)
+        if pa.types.is_timestamp(column.type):
+            days = pc.cast(pc.cast(column, pa.date32()), column.type)
+            if pc.all(pc.or_kleene(pc.equal(days, column), pc.is_null(column))).as_py() is not False:
+                column = pc.cast(column, pa.date32())  # midnight throughout: a date
+        columns[n] = _arrow_text(column, header[i], path)
+    table = pa.table(columns) if columns else pa.table({})
+    sink = pa.BufferOutputStream()
+    with pa.ipc.new_stream(sink, source.schema.remove_metadata()) as writer:
+        writer.write_table(source.replace_schema_metadata(None))
+    data = sink.getvalue()
+    record = InputFile(role="tape", path=str(path), sha256=hashlib.sha256(memoryview(data)).hexdigest(), bytes=data.size)
+    source_row = np.arange(2, table.num_rows + 2, dtype=np.int64)
+    table, source_row, blank, _ = _drop_blank(table, source_row)
+    return RawTape(headers=header, table=table, source_row=source_row,
+                   record=Scan(record=record, newlines=-1, ends_with_newline=False), blank_rows=blank)
 
 
 #: Readers by file kind.

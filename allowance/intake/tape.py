@@ -20,7 +20,7 @@ from allowance.exceptions import TapeError
 from allowance.intake.fields import FIELDS, INT_COLUMNS
 from allowance.intake.files import check_size, file_kind
 from allowance.intake.parse import PARSERS, Parsed, parse_dates
-from allowance.intake.readers import RawTape, read_raw
+from allowance.intake.readers import RawTape, read_frame, read_raw
 from allowance.intake.results import IntakeResult
 from allowance.intake.rules import Findings, TapeColumns, apply_rules
 from allowance.schemas import REQUIRED_COLUMNS, RunConfig
@@ -243,14 +243,15 @@ def _malformed_findings(raw: RawTape, colmap: ColumnMap) -> pd.DataFrame:
     })
 
 
-def read_tape(path: Path, config: RunConfig, *, max_mb: float | None = None) -> IntakeResult:
-    """Read, parse and validate a loan tape (CSV, XLSX or Parquet).
+def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: float | None = None) -> IntakeResult:
+    """Read, parse and validate a loan tape (CSV, XLSX, Parquet or a DataFrame).
 
     Parameters
     ----------
     path
         The tape. CSV must be UTF-8 (a BOM is fine); XLSX is read from ``[tape] sheet`` or its
-        first sheet; Parquet columns may be typed.
+        first sheet; Parquet columns may be typed. A pandas DataFrame is read like a Parquet
+        file (row n is line n + 1, as if a header were line 1) and goes through the same rules.
     config
         The run configuration: ``[tape]`` (column mapping, date format, sheet), the as-of date
         and the segments the rows are checked against.
@@ -276,16 +277,20 @@ def read_tape(path: Path, config: RunConfig, *, max_mb: float | None = None) -> 
     rules and every failure is reported. ``rows_read`` counts the data rows of the file;
     lines in which every field is empty are skipped and counted in ``blank_rows``.
     """
-    path = Path(path)
     assumptions = config.assumptions
-    check_size(path, max_mb if max_mb is not None else assumptions.run.max_input_mb)
     mapping = assumptions.tape.columns
+    if isinstance(path, pd.DataFrame):
+        raw = read_frame(path)
+        path = Path(raw.record.record.path)
+    else:
+        path = Path(path)
+        check_size(path, max_mb if max_mb is not None else assumptions.run.max_input_mb)
 
-    def numeric(headers: list[str]) -> set[int]:
-        ours = map_columns(headers, mapping, path).ours
-        return {i for name, i in ours.items() if FIELDS[name].kind in ("number", "whole")}
+        def numeric(headers: list[str]) -> set[int]:
+            ours = map_columns(headers, mapping, path).ours
+            return {i for name, i in ours.items() if FIELDS[name].kind in ("number", "whole")}
 
-    raw = read_raw(path, file_kind(path), assumptions.tape.sheet, numeric)
+        raw = read_raw(path, file_kind(path), assumptions.tape.sheet, numeric)
     rows_read = raw.table.num_rows + len(raw.malformed)
     if rows_read == 0:
         raise TapeError("has a header but no data rows", file=path, hint="export the tape again with its loans")

@@ -1,0 +1,458 @@
+"""The library API: a whole reserve run from a tape and assumptions, frames in and frames out.
+
+``import allowance`` gives these functions; the command line calls them and nothing deeper.
+
+Implements
+----------
+run             read, validate, tie out, compute, explain the movement and the what-if -> Result
+check           read and validate a tape only -> CheckResult
+schedule        one loan's month-by-month schedule on the engine's own terms and curves
+roll_rates      what each roll-rate matrix implies from every delinquency bucket
+compare         the allowance movement between two finished runs
+copy_templates  the blank input templates into a folder
+demo            the shipped demo quarter end: last quarter, then this quarter with its movement
+
+Inputs
+------
+A tape is a path (CSV, XLSX, Parquet) or a pandas DataFrame with the tape's columns; it goes
+through the same rules either way. Assumptions are a path (TOML) or a mapping in the file's
+shape, where a segment's ``transition_matrix`` may be a DataFrame. Overlays are paths or
+mappings, merged over the assumptions in order.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import shutil
+import time
+import tomllib
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from allowance import cashflows, engine, intake, macro, reconcile, report
+from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
+from allowance.report import clock
+from allowance.result import CheckResult, Result
+from allowance.schemas import Assumptions, Framework, RunConfig
+
+__all__ = ["Demo", "Schedule", "check", "compare", "copy_templates", "demo", "roll_rates", "run", "schedule"]
+
+Tape = str | os.PathLike | pd.DataFrame
+Source = str | os.PathLike | Mapping[str, Any]
+Progress = Callable[[str, int, int], Any]
+
+
+def _config(assumptions: Source, overlays: Sequence[Source] = ()) -> RunConfig:
+    source = assumptions if isinstance(assumptions, Mapping) else Path(assumptions)
+    return intake.load_assumptions(source, [o if isinstance(o, Mapping) else Path(o) for o in overlays])
+
+
+def _tape(tape: Tape) -> Path | pd.DataFrame:
+    return tape if isinstance(tape, pd.DataFrame) else Path(tape)
+
+
+def _relabel(config: RunConfig, label: str) -> RunConfig:
+    run_section = config.assumptions.run.model_copy(update={"label": label})
+    return config.model_copy(update={"assumptions": config.assumptions.model_copy(update={"run": run_section})})
+
+
+def _tie_out(taken: intake.IntakeResult, config: RunConfig, ledger_balance: float | None,
+             accept: bool = False) -> intake.TieOut:
+    run_section = config.assumptions.run
+    ledger = ledger_balance if ledger_balance is not None else run_section.ledger_balance
+    return intake.tie_out(taken, ledger, run_section.ledger_tolerance, accept)
+
+
+# --------------------------------------------------------------------------------------
+# check
+# --------------------------------------------------------------------------------------
+
+
+def check(tape: Tape, assumptions: Source, *, overlays: Sequence[Source] = (),
+          ledger_balance: float | None = None) -> CheckResult:
+    """Validate a tape against the assumptions without computing anything.
+
+    Every rule :func:`run` applies is applied here (the same intake), so a tape that passes
+    ``check`` is one ``run`` can compute, and a row ``check`` rejects is the row ``run``
+    rejects.
+
+    Parameters
+    ----------
+    tape
+        A path (CSV, XLSX, Parquet) or a DataFrame with the tape's columns.
+    assumptions
+        A path (TOML) or a mapping in the assumptions file's shape.
+    overlays
+        Overlay files or mappings merged over the assumptions.
+    ledger_balance
+        The ledger control total (overrides ``[run] ledger_balance``).
+
+    Returns
+    -------
+    CheckResult
+        ``ok``, ``table`` (counts by reason), ``rejected``, ``findings``, ``tie_out``.
+
+    Raises
+    ------
+    AllowanceError
+        A file cannot be read, or the assumptions are invalid (naming the file and key).
+    """
+    config = _config(assumptions, overlays)
+    taken = intake.read_tape(_tape(tape), config)
+    return CheckResult(intake=taken, tie_out=_tie_out(taken, config, ledger_balance))
+
+
+# --------------------------------------------------------------------------------------
+# run
+# --------------------------------------------------------------------------------------
+
+
+def _prior_frameworks(record: Mapping) -> list[str]:
+    return list(record.get("frameworks") or record.get("assumptions", {}).get("run", {}).get("frameworks", []))
+
+
+def _rerun_at_prior_assumptions(tape: pd.DataFrame, config: RunConfig, record: Mapping,
+                                compute: Callable[..., engine.EngineResult]) -> engine.EngineResult | None:
+    """This quarter's tape under last quarter's assumptions: isolates assumption changes."""
+    data = record.get("assumptions")
+    if not data:
+        return None
+    try:
+        data = dict(data)
+        data["run"] = {**data["run"], "as_of": config.as_of.isoformat(),
+                       "frameworks": [fw for fw in config.frameworks if fw in data["run"]["frameworks"]]}
+        prior_config = RunConfig(assumptions=Assumptions.model_validate(data), base_dir=config.base_dir)
+        return compute(tape, prior_config, schedule_sample=0)
+    except (AllowanceError, ValueError):
+        # pydantic's ValidationError is a ValueError: the prior assumptions no longer validate
+        return None
+
+
+@dataclass(frozen=True)
+class _Prior:
+    loans: pd.DataFrame
+    record: Mapping
+    source: str
+
+
+def _prior(prior: str | os.PathLike | Result) -> tuple[_Prior, list]:
+    if isinstance(prior, Result):
+        return _Prior(prior.loans, prior.record, "the prior result"), []
+    folder = Path(prior)
+    previous = intake.read_prior_run(folder)
+    return _Prior(previous.loans, previous.record, str(folder / "loans.csv")), [
+        intake.file_record(folder / "loans.csv", "prior")]
+
+
+def _charge_offs(charge_offs: str | os.PathLike | pd.DataFrame | None) -> tuple[pd.DataFrame | None, list, str | None]:
+    if charge_offs is None:
+        return None, [], None
+    if isinstance(charge_offs, pd.DataFrame):
+        return charge_offs, [], "the charge-off frame"
+    path = Path(charge_offs)
+    return intake.read_charge_offs(path), [intake.file_record(path, "charge_offs")], str(path)
+
+
+def run(
+    tape: Tape,
+    assumptions: Source,
+    *,
+    overlays: Sequence[Source] = (),
+    prior: str | os.PathLike | Result | None = None,
+    charge_offs: str | os.PathLike | pd.DataFrame | None = None,
+    ledger_balance: float | None = None,
+    accept_ledger_difference: bool = False,
+    label: str | None = None,
+    sensitivities: bool = True,
+    map: Callable | None = None,  # the executor's word for it
+    chunk_size: int | None = None,
+    progress: Progress | None = None,
+) -> Result:
+    """A whole reserve run: read, validate, tie out, compute, explain the movement and the what-if.
+
+    Parameters
+    ----------
+    tape
+        A path (CSV, XLSX, Parquet) or a DataFrame with the tape's columns.
+    assumptions
+        A path (TOML) or a mapping in the assumptions file's shape.
+    overlays
+        What-if files or mappings merged over the assumptions; the base run (without them) is
+        computed too and compared (``Result.what_if``).
+    prior
+        Last quarter's output folder, or its :class:`Result`: the movement is explained loan
+        by loan (``Result.movement``).
+    charge_offs
+        The period's write-offs (a path or a frame: ``loan_id, gross_charge_off,
+        recoveries``), for the movement.
+    ledger_balance
+        The ledger control total (overrides ``[run] ledger_balance``).
+    accept_ledger_difference
+        Go on when the tape does not tie to the ledger (recorded in the run record).
+    label
+        A name for the run, kept in the run record.
+    sensitivities
+        Also rerun with each scenario alone at 100 % weight, restaged (``Result.sensitivity``).
+    map
+        An executor-style map the engine hands its chunks to (``ProcessPoolExecutor().map``);
+        the builtin ``map`` when None.
+    chunk_size
+        Loans per chunk (default :data:`allowance.engine.CHUNK_SIZE`).
+    progress
+        Called as ``progress(phase, done, total)``: ``"read"`` (the tape), ``"loans"`` (loans
+        computed, of all loans), ``"sensitivities"`` (scenarios rerun), ``"what-if"`` and
+        ``"prior"`` (the extra runs, 0 of 1 then 1 of 1).
+
+    Returns
+    -------
+    Result
+        ``loans``, ``rejected``, ``totals``, ``summary``, ``movement``, ``what_if``; write
+        the outputs with ``write(out_dir)`` or the workbook alone with ``workbook(path)``.
+
+    Raises
+    ------
+    AllowanceError
+        A file cannot be read, the assumptions are invalid, or the tape does not tie to the
+        ledger (:class:`TieOutError`) and the difference was not accepted.
+    """
+    started = time.perf_counter()
+    started_at = clock.now()
+    told = progress or (lambda phase, done, total: None)
+    options: dict[str, Any] = {"progress": progress}
+    if map is not None:
+        options["map"] = map
+    if chunk_size is not None:
+        options["chunk_size"] = chunk_size
+
+    def compute(frame: pd.DataFrame, config: RunConfig, **more) -> engine.EngineResult:
+        return engine.run(frame, config, **{**options, **more})
+
+    config = _config(assumptions, overlays)
+    if label is not None:
+        config = _relabel(config, label)
+    told("read", 0, 1)
+    source = _tape(tape)
+    taken = intake.read_tape(source, config)
+    told("read", 1, 1)
+    tie = _tie_out(taken, config, ledger_balance, accept_ledger_difference)
+    if not tie.within_tolerance and not tie.accepted_by_user:
+        raise TieOutError(
+            tie.explanation, file=taken.file.path,
+            hint="correct the tape or the ledger figure, or accept the difference "
+                 "(--accept-ledger-difference) to record it and go on",
+        )
+    result = compute(taken.accepted, config)
+    inputs = list(config.inputs)
+
+    sensitivity = pd.DataFrame()
+    names = list(config.assumptions.scenarios)
+    if sensitivities and len(names) > 1:
+        alone = {}
+        for i, name in enumerate(names):
+            told("sensitivities", i, len(names))
+            alone[name] = compute(taken.accepted, reconcile.single_scenario(config, name), schedule_sample=0,
+                                  progress=None).loans
+        told("sensitivities", len(names), len(names))
+        sensitivity = reconcile.sensitivity_table(result.loans, alone, config)
+    macro_paths = macro.macro_path_table(config.assumptions, engine.tape_months(taken.accepted, config))
+
+    what_if = None
+    what_if_paths = pd.DataFrame()
+    if overlays:
+        told("what-if", 0, 1)
+        base_config = _config(assumptions)
+        base = compute(taken.accepted, base_config, progress=None)
+        what_if = reconcile.what_if_comparison(base.loans, result.loans, config.frameworks)
+        what_if_paths = macro.path_changes(base_config.assumptions, config.assumptions,
+                                           engine.tape_months(taken.accepted, config))
+        told("what-if", 1, 1)
+
+    movements = None
+    at_prior = None
+    if prior is not None:
+        told("prior", 0, 1)
+        previous, prior_inputs = _prior(prior)
+        cos, co_inputs, co_source = _charge_offs(charge_offs)
+        inputs += co_inputs + prior_inputs
+        at_prior = _rerun_at_prior_assumptions(taken.accepted, config, previous.record,
+                                               lambda *a, **k: compute(*a, progress=None, **k))
+        movements = reconcile.compare_runs(
+            previous.loans, result.loans, charge_offs=cos,
+            current_at_prior_assumptions=None if at_prior is None else at_prior.loans,
+            frameworks=[fw for fw in config.frameworks if fw in _prior_frameworks(previous.record)],
+            sources={"prior": previous.source, "current": "this run", **({"charge_offs": co_source} if co_source else {})},
+        )
+        told("prior", 1, 1)
+
+    config = config.model_copy(update={"inputs": inputs})
+    warnings = list(result.warnings)
+    if movements is not None and at_prior is None:
+        warnings.append("the prior run's assumptions could not be applied to this tape; "
+                        "assumption changes are included in remeasurement")
+    findings = pd.concat([taken.findings, result.findings], ignore_index=True)
+    taken = dataclasses.replace(taken, findings=findings)
+    record = report.run_record(config, taken, result.loans, tie_out=tie, warnings=warnings,
+                               movements=tuple((movements or {}).values()), started=started_at)
+    run_report = report.RunReport(
+        config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays,
+        scenarios=result.scenarios, term_structures=result.term_structures,
+        roll_rates=result.roll_rates, reversion=result.reversion, schedules=result.schedules,
+        sensitivity=sensitivity, macro_paths=macro_paths, what_if_paths=what_if_paths, movement=movements,
+        what_if=what_if, record=record, warnings=warnings,
+    )
+    return Result(report=run_report, seconds=time.perf_counter() - started)
+
+
+# --------------------------------------------------------------------------------------
+# One loan, the matrices, two finished runs
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Schedule:
+    """One loan's schedule: ``loan`` (its accepted tape row) and ``table`` (month by month)."""
+
+    loan: pd.Series
+    table: pd.DataFrame
+
+    def __repr__(self) -> str:
+        return f"<Schedule of loan {self.loan['loan_id']} ({len(self.table)} months)>\n{self.table.to_string(index=False)}"
+
+
+def schedule(tape: Tape, assumptions: Source, loan: str, *, framework: Framework | None = None,
+             scenario: str | None = None) -> Schedule:
+    """One loan's projected schedule, contractual and expected, on the engine's own terms.
+
+    ``table`` has the columns ``loan_id, framework, scenario, month, opening_balance,
+    interest, scheduled_principal, closing_balance, expected_prepayment, expected_default,
+    survival, expected_balance``; ``framework`` defaults to the first listed, ``scenario`` to
+    the first.
+
+    Raises
+    ------
+    AllowanceError
+        The loan is not among the accepted rows, or the framework or scenario is not run.
+    """
+    config = _config(assumptions)
+    taken = intake.read_tape(_tape(tape), config)
+    row = taken.accepted[taken.accepted["loan_id"] == loan]
+    if row.empty:
+        raise InputFileError(f"loan {loan!r} is not among the accepted rows", file=taken.file.path,
+                             hint="check the loan_id, or run 'allowance check' to see rejected rows")
+    as_of = pd.Timestamp(config.as_of)
+    prep = engine.prepare(config, engine.tape_months(row, config),
+                          int(cashflows.age_months(row["origination_date"], as_of).max()))
+    if framework is not None and framework not in prep.frameworks:
+        raise AssumptionsError(f"framework {framework!r} is not run", column="run.frameworks",
+                               hint=f"use one of {', '.join(prep.frameworks)}")
+    names = list(prep.scenario_names)
+    if scenario is not None and scenario not in names:
+        raise AssumptionsError(f"no scenario {scenario!r}", column="scenarios", hint=f"use one of {', '.join(names)}")
+    table = engine.loan_schedule(row, prep, framework, names.index(scenario) if scenario else 0)
+    return Schedule(loan=row.iloc[0], table=table)
+
+
+def roll_rates(assumptions: Source, *, segment: str | None = None) -> pd.DataFrame:
+    """What each roll-rate matrix implies from every delinquency bucket: 12-month and lifetime
+    PD (absorption into charge-off) and expected months to charge-off (empty without matrices)."""
+    config = _config(assumptions)
+    if segment is not None and segment not in config.assumptions.segments:
+        raise AssumptionsError(f"no segment {segment!r}", column="segments",
+                               hint=f"use one of {', '.join(config.assumptions.segments)}")
+    table = engine.roll_rate_table(config)
+    if segment is not None and not table.empty:
+        table = table[table["segment"] == segment]
+    return table
+
+
+def compare(prior: str | os.PathLike | Result, current: str | os.PathLike | Result, *,
+            charge_offs: str | os.PathLike | pd.DataFrame | None = None) -> dict[str, reconcile.Movement]:
+    """The allowance movement between two finished runs (output folders or results), per framework."""
+    before, _ = _prior(prior)
+    after, _ = _prior(current)
+    cos, _, _ = _charge_offs(charge_offs)
+    frameworks = [fw for fw in _prior_frameworks(after.record) if fw in _prior_frameworks(before.record)]
+    return reconcile.compare_runs(before.loans, after.loans, charge_offs=cos, frameworks=frameworks,
+                                  sources={"prior": str(prior) if not isinstance(prior, Result) else "prior",
+                                           "current": str(current) if not isinstance(current, Result) else "current"})
+
+
+# --------------------------------------------------------------------------------------
+# Templates and the demo
+# --------------------------------------------------------------------------------------
+
+
+def copy_templates(folder: str | os.PathLike) -> list[Path]:
+    """Copy the blank input templates (tape CSV/XLSX, assumptions, what-if overlay) into
+    ``folder`` (created); a file already there is an error, never overwritten."""
+    folder = Path(folder)
+    source = intake.bundled_path("templates")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        copied = []
+        for f in sorted(source.iterdir()):
+            if f.is_file() and f.suffix in {".csv", ".xlsx", ".toml"}:
+                target = folder / f.name
+                if target.exists():
+                    raise InputFileError("exists already; not overwritten", file=target, hint="choose an empty folder")
+                shutil.copyfile(f, target)
+                copied.append(target)
+    except OSError as err:
+        raise InputFileError(str(err), file=folder) from err
+    return copied
+
+
+@dataclass(frozen=True)
+class Demo:
+    """The demo quarter end: the invented lender, last quarter's run, this quarter's run, and
+    the files of the one-command what-if."""
+
+    lender: str
+    prior: Result
+    current: Result
+    prior_out: Path
+    out: Path
+    what_if: dict[str, Path]
+
+
+def _demo_manifest() -> tuple[Path, dict]:
+    folder = intake.bundled_path("demo")
+    manifest = folder / "manifest.toml"
+    try:
+        with manifest.open("rb") as fh:
+            return folder, tomllib.load(fh)
+    except (OSError, tomllib.TOMLDecodeError) as err:
+        raise InputFileError(f"cannot read the demo manifest: {err}", file=manifest) from err
+
+
+def demo(out: str | os.PathLike, *, parquet: bool = False, progress: Progress | None = None,
+         on_start: Callable[[str, Path], Any] | None = None,
+         on_prior: Callable[[Result, Path], Any] | None = None) -> Demo:
+    """Run the shipped demo: last quarter into ``out/prior_quarter``, then this quarter into
+    ``out`` with the movement from last quarter and its charge-offs.
+
+    ``on_start(lender, prior_folder)`` is called before anything runs and
+    ``on_prior(result, prior_folder)`` once last quarter is written (the command line prints
+    as it goes).
+    """
+    out = Path(out)
+    folder, m = _demo_manifest()
+    prior_out = out / "prior_quarter"
+    if on_start is not None:
+        on_start(m.get("lender", "invented"), prior_out)
+    before = run(folder / m["prior"]["tape"], folder / m["prior"]["assumptions"], progress=progress)
+    before.write(prior_out)
+    if on_prior is not None:
+        on_prior(before, prior_out)
+    now = run(folder / m["current"]["tape"], folder / m["current"]["assumptions"], prior=prior_out,
+              charge_offs=folder / m["current"]["charge_offs"], progress=progress)
+    now.write(out, parquet=parquet)
+    what_if = {"tape": folder / m["current"]["tape"], "assumptions": folder / m["current"]["assumptions"],
+               "overlay": folder / m["what_if"]["overlay"]}
+    return Demo(lender=m.get("lender", "invented"), prior=before, current=now, prior_out=prior_out, out=out,
+                what_if=what_if)

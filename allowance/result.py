@@ -1,0 +1,262 @@
+"""What the library API hands back: a run's result and a tape check, readable in a notebook.
+
+Implements
+----------
+Result        a reserve run: loans, rejected rows, totals, movement, what-if; writes its outputs
+CheckResult   a tape checked against the assumptions: counts by reason, rejected rows, tie-out
+totals_table  allowance per framework by stage and segment (the ``totals`` of a Result)
+"""
+
+from __future__ import annotations
+
+import html
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pandas as pd
+
+from allowance.frameworks import rules_for
+from allowance.intake import IntakeResult, TieOut, check_table
+from allowance.money import money_total
+from allowance.report import RunReport, write_outputs, write_workbook
+
+if TYPE_CHECKING:
+    from allowance.reconcile import Movement, WhatIf
+    from allowance.schemas import RunConfig
+
+__all__ = ["CheckResult", "Result", "totals_table"]
+
+TOTAL = "Total"
+
+
+def _cents(values: pd.Series) -> int:
+    return int(np.rint(values.to_numpy(dtype=np.float64) * 100.0).astype(np.int64).sum())
+
+
+def totals_table(loans: pd.DataFrame, frameworks: list[str]) -> pd.DataFrame:
+    """Allowance per framework, by stage (where the framework stages loans) and segment.
+
+    One row per framework, stage and segment, then one per framework and stage over all
+    segments, then the framework's total (``segment`` and ``stage`` "Total"). Columns
+    ``framework, stage, segment, loans, balance, allowance, coverage``; money is the sum of
+    the rounded loan figures in whole cents. ``stage`` is "1", "2", "3" for IFRS 9 and
+    "Total" for a framework without stages.
+
+    Examples
+    --------
+    >>> loans = pd.DataFrame({"segment": ["auto", "auto", "card"], "stage": [1, 2, 1],
+    ...                       "balance": [100.0, 50.0, 10.0], "ecl_ifrs9": [1.0, 5.0, 0.5]})
+    >>> totals_table(loans, ["ifrs9"])[["stage", "segment", "allowance"]].values.tolist()
+    [['1', 'auto', 1.0], ['1', 'card', 0.5], ['2', 'auto', 5.0], ['1', 'Total', 1.5], ['2', 'Total', 5.0], ['Total', 'Total', 6.5]]
+    """
+    rows = []
+    for fw in frameworks:
+        column = f"ecl_{fw}"
+        if column not in loans.columns:
+            continue
+        staged = rules_for(fw).staged and "stage" in loans.columns
+        stage = loans["stage"].astype("Int64").astype(str) if staged else pd.Series(TOTAL, index=loans.index)
+        frame = pd.DataFrame({"stage": stage.to_numpy(), "segment": loans["segment"].astype(str).to_numpy(),
+                              "balance": loans["balance"].to_numpy(), "allowance": loans[column].to_numpy()})
+        groups = [(["stage", "segment"], None)] if not staged else [(["stage", "segment"], None), (["stage"], TOTAL)]
+        for keys, segment in groups:
+            for key, part in frame.groupby(keys, sort=True):
+                key = key if isinstance(key, tuple) else (key,)
+                rows.append({"framework": fw, "stage": key[0], "segment": segment or key[1], "loans": len(part),
+                             "balance": _cents(part["balance"]) / 100, "allowance": _cents(part["allowance"]) / 100})
+        rows.append({"framework": fw, "stage": TOTAL, "segment": TOTAL, "loans": len(frame),
+                     "balance": _cents(frame["balance"]) / 100, "allowance": _cents(frame["allowance"]) / 100})
+    out = pd.DataFrame(rows, columns=["framework", "stage", "segment", "loans", "balance", "allowance"])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["coverage"] = np.where(out["balance"] > 0, out["allowance"] / out["balance"], 0.0)
+    return out
+
+
+def _html_table(frame: pd.DataFrame, money: list[str], rates: list[str]) -> str:
+    formats = {c: "{:,.2f}".format for c in money} | {c: "{:.2%}".format for c in rates}
+    return frame.to_html(index=False, formatters=formats, border=0)
+
+
+@dataclass(frozen=True)
+class Result:
+    """A reserve run. Nothing is written until :meth:`write` or :meth:`workbook` is called.
+
+    Attributes
+    ----------
+    report : RunReport
+        Everything the outputs are written from (the workbook's sheets read it).
+    seconds : float
+        Wall time of the run.
+    """
+
+    report: RunReport
+    seconds: float = 0.0
+
+    # -- what people look at ----------------------------------------------------------
+
+    @property
+    def loans(self) -> pd.DataFrame:
+        """One row per accepted loan: the ``loans.csv`` columns, rounded to cents."""
+        return self.report.loans
+
+    @property
+    def rejected(self) -> pd.DataFrame:
+        """Every rejected row as read, with its line number and every reason."""
+        return self.report.intake.rejected
+
+    @property
+    def findings(self) -> pd.DataFrame:
+        """Every finding on the tape (rejections and warnings), one row each."""
+        return self.report.intake.findings
+
+    @property
+    def warnings(self) -> list[str]:
+        """Run-level warnings (expired overlays, assumption changes not isolated, ...)."""
+        return list(self.report.warnings)
+
+    @property
+    def totals(self) -> pd.DataFrame:
+        """Allowance per framework, by stage and segment (:func:`totals_table`)."""
+        return totals_table(self.loans, self.frameworks)
+
+    @property
+    def summary(self) -> pd.DataFrame:
+        """One row per framework: loans, balance, modelled allowance, overlays, allowance, coverage."""
+        rows = []
+        for fw in self.frameworks:
+            loans = self.loans
+            rows.append({
+                "framework": rules_for(fw).label, "loans": len(loans), "balance": money_total(loans["balance"]),
+                "modelled": money_total(loans.get(f"ecl_{fw}_modelled", pd.Series(dtype=float))),
+                "overlays": money_total(loans.get(f"overlay_{fw}", pd.Series(dtype=float))),
+                "allowance": money_total(loans[f"ecl_{fw}"]),
+            })
+        out = pd.DataFrame(rows, columns=["framework", "loans", "balance", "modelled", "overlays", "allowance"])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out["coverage"] = np.where(out["balance"] > 0, out["allowance"] / out["balance"], 0.0)
+        return out
+
+    @property
+    def movement(self) -> dict[str, Movement]:
+        """The movement from the prior run, per framework (empty without ``prior``)."""
+        return {m.framework: m for m in self.report.movements}
+
+    @property
+    def what_if(self) -> WhatIf | None:
+        """The what-if comparison against the base run (with ``overlays``), else None."""
+        return self.report.what_if_parts
+
+    @property
+    def sensitivity(self) -> pd.DataFrame:
+        """Each scenario alone at 100 % weight, restaged, beside the weighted run."""
+        return self.report.sensitivity
+
+    @property
+    def scenarios(self) -> pd.DataFrame:
+        """Each scenario's allowance at 100 % weight on the run's stages, and the weighted result."""
+        return self.report.scenarios
+
+    @property
+    def config(self) -> RunConfig:
+        return self.report.config
+
+    @property
+    def record(self) -> dict:
+        """The run record (``run.json``)."""
+        return self.report.record
+
+    @property
+    def frameworks(self) -> list[str]:
+        return list(self.report.config.frameworks)
+
+    @property
+    def intake(self) -> IntakeResult:
+        return self.report.intake
+
+    @property
+    def tie_out(self) -> TieOut | None:
+        return self.report.tie_out
+
+    # -- writers -----------------------------------------------------------------------
+
+    def write(self, out_dir: str | Path, *, parquet: bool = False) -> list[Path]:
+        """Write every output (``loans.csv``, ``reserve.xlsx``, ``run.json``, ...) into ``out_dir``,
+        all or nothing; return the files written."""
+        return write_outputs(Path(out_dir), self.report, parquet=parquet)
+
+    def workbook(self, path: str | Path) -> Path:
+        """Write the reserve workbook alone to ``path`` (its folder must exist); return the path."""
+        path = Path(path)
+        write_workbook(path, self.report)
+        return path
+
+    # -- display -----------------------------------------------------------------------
+
+    def _heading(self) -> tuple[str, str]:
+        run = self.config.assumptions.run
+        rows = self.report.intake
+        label = f" · {run.label}" if run.label else ""
+        title = f"Allowance as of {run.as_of.isoformat()} ({', '.join(self.frameworks)}, {run.currency}){label}"
+        counts = (f"rows read {rows.rows_read:,}, accepted {rows.rows_accepted:,}, rejected {rows.rows_rejected:,}; "
+                  f"{len(self.warnings)} warning(s)")
+        return title, counts
+
+    def __repr__(self) -> str:
+        title, counts = self._heading()
+        table = self.summary.to_string(index=False, formatters={
+            "balance": "{:,.2f}".format, "modelled": "{:,.2f}".format, "overlays": "{:,.2f}".format,
+            "allowance": "{:,.2f}".format, "coverage": "{:.2%}".format})
+        return f"<Result {title}\n{counts}\n{table}>"
+
+    def _repr_html_(self) -> str:
+        title, counts = self._heading()
+        summary = _html_table(self.summary, ["balance", "modelled", "overlays", "allowance"], ["coverage"])
+        by_stage = self.totals[self.totals["segment"] == TOTAL]
+        stages = _html_table(by_stage.drop(columns="segment"), ["balance", "allowance"], ["coverage"])
+        warnings = "".join(f"<li>{html.escape(w)}</li>" for w in self.warnings)
+        return (f"<div><strong>{html.escape(title)}</strong><p>{html.escape(counts)}</p>{summary}"
+                f"<p>By stage:</p>{stages}" + (f"<p>Warnings:</p><ul>{warnings}</ul>" if warnings else "") + "</div>")
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """A tape checked against the assumptions: what ``allowance check`` prints.
+
+    ``ok`` is true when no row is rejected and the tape ties to the ledger.
+    """
+
+    intake: IntakeResult
+    tie_out: TieOut
+
+    @property
+    def ok(self) -> bool:
+        return not self.intake.rows_rejected and self.tie_out.within_tolerance
+
+    @property
+    def accepted(self) -> pd.DataFrame:
+        return self.intake.accepted
+
+    @property
+    def rejected(self) -> pd.DataFrame:
+        return self.intake.rejected
+
+    @property
+    def findings(self) -> pd.DataFrame:
+        return self.intake.findings
+
+    @property
+    def table(self) -> pd.DataFrame:
+        """Rows read / accepted / rejected, then rejections and warnings by reason."""
+        return check_table(self.intake)
+
+    def __repr__(self) -> str:
+        verdict = "ok" if self.ok else "problems"
+        return (f"<CheckResult {verdict}: {self.table.to_string(index=False)}\n"
+                f"ledger tie-out: {self.tie_out.explanation}>")
+
+    def _repr_html_(self) -> str:
+        verdict = "ok" if self.ok else "problems found"
+        return (f"<div><strong>Tape check: {verdict}</strong>{self.table.to_html(index=False, border=0)}"
+                f"<p>Ledger tie-out: {html.escape(self.tie_out.explanation)}</p></div>")

@@ -1,0 +1,134 @@
+"""The library API: allowance.run / allowance.check with frames and mappings in, frames out.
+
+The command line is wiring over these functions, so the demo through them must give the
+command line's figures to the cent (common practice, no source: the same computation).
+"""
+
+from __future__ import annotations
+
+import json
+import tomllib
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import allowance
+from tests import books
+
+#: the public names of ``import allowance``; adding one is fine, removing or renaming one
+#: breaks users' notebooks and must be a decision made here
+PUBLIC = {"AllowanceError", "CheckResult", "Result", "__version__", "check", "compare", "copy_templates", "demo",
+          "roll_rates", "run", "schedule"}
+
+
+def test_the_public_api_is_pinned():
+    assert PUBLIC <= set(allowance.__all__)
+    for name in allowance.__all__:
+        assert getattr(allowance, name) is not None
+
+
+def test_import_allowance_loads_no_heavy_library():
+    import subprocess
+    import sys
+
+    code = ("import sys, allowance; heavy = [m for m in ('numpy', 'pandas', 'numba') if m in sys.modules]; "
+            "print(','.join(heavy))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, timeout=120)
+    assert done.stdout.strip() == ""
+
+
+def _tape_frame() -> pd.DataFrame:
+    return pd.read_csv(books.DEMO_TAPE, dtype=str, keep_default_na=False)
+
+
+def _assumptions_mapping() -> dict:
+    data = tomllib.loads(books.DEMO_ASSUMPTIONS.read_text(encoding="utf-8"))
+    # the roll-rate matrix inline, as a frame: from-states in a 'from' column
+    data["segments"]["cards"]["transition_matrix"] = pd.read_csv(books.DEMO / "cards_rolls.csv")
+    return data
+
+
+@pytest.fixture(scope="module")
+def from_files():
+    return allowance.run(books.DEMO_TAPE, books.DEMO_ASSUMPTIONS, sensitivities=False)
+
+
+@pytest.mark.slow
+def test_frames_and_mappings_give_the_files_result(from_files):
+    from_frames = allowance.run(_tape_frame(), _assumptions_mapping(), sensitivities=False)
+    shared = [c for c in from_files.loans.columns if c in from_frames.loans.columns]
+    money = [c for c in shared if c.startswith(("ecl_", "ead", "overlay_")) or c == "balance"]
+    pd.testing.assert_frame_equal(from_frames.loans[money], from_files.loans[money], check_exact=True)
+    assert from_frames.record["inputs"][0]["path"] == "<DataFrame>"
+    assert {i["path"] for i in from_frames.record["inputs"]} >= {"<DataFrame>", "<assumptions mapping>"}
+
+
+def test_totals_by_framework_stage_and_segment(from_files):
+    totals = from_files.totals
+    loans = from_files.loans
+    for fw in ("ifrs9", "cecl"):
+        mine = totals[totals["framework"] == fw]
+        whole = mine[(mine["stage"] == "Total") & (mine["segment"] == "Total")].iloc[0]
+        # the sum of the rounded loan figures, in whole cents
+        assert round(whole["allowance"] * 100) == int(np.rint(loans[f"ecl_{fw}"] * 100).sum())
+        assert whole["loans"] == len(loans)
+        cells = mine[(mine["stage"] != "Total") | (mine["segment"] != "Total")]
+        detail = cells[cells["segment"] != "Total"]
+        assert round(detail["allowance"].sum() * 100) == round(whole["allowance"] * 100)
+    ifrs9 = totals[(totals["framework"] == "ifrs9") & (totals["segment"] == "Total") & (totals["stage"] != "Total")]
+    assert list(ifrs9["stage"]) == ["1", "2", "3"]
+    cecl = totals[totals["framework"] == "cecl"]
+    assert set(cecl["stage"]) == {"Total"}  # CECL does not stage loans
+
+
+def test_readable_in_a_notebook(from_files):
+    text = repr(from_files)
+    assert "as of 2026-09-30" in text and "IFRS 9" in text and "CECL" in text
+    page = from_files._repr_html_()
+    assert page.startswith("<div>") and "<table" in page and "Allowance as of 2026-09-30" in page
+
+
+@pytest.mark.slow
+def test_write_and_workbook(from_files, tmp_path):
+    written = from_files.write(tmp_path / "q3")
+    assert {p.name for p in written} >= {"loans.csv", "reserve.xlsx", "run.json", "rejected.csv"}
+    record = json.loads((tmp_path / "q3" / "run.json").read_text())
+    assert record["total_allowance"]["ifrs9"] == from_files.record["total_allowance"]["ifrs9"]
+    book = from_files.workbook(tmp_path / "alone.xlsx")
+    assert book.is_file() and book.stat().st_size > 0
+
+
+def test_check_with_a_frame():
+    frame = _tape_frame()
+    frame.loc[3, "balance"] = "-5"
+    checked = allowance.check(frame, books.DEMO_ASSUMPTIONS)
+    assert not checked.ok
+    assert list(checked.rejected["source_row"]) == [5]  # row n of a frame is line n + 1 after a header
+    assert "balance" in checked.rejected["reasons"].iloc[0]
+    assert "problems" in repr(checked) and "<table" in checked._repr_html_()
+
+
+@pytest.mark.slow
+def test_prior_and_charge_offs_as_objects(from_files, tmp_path):
+    m = books.MANIFEST
+    before = allowance.run(books.DEMO / m["prior"]["tape"], books.DEMO / m["prior"]["assumptions"], sensitivities=False)
+    charge_offs = pd.read_csv(books.DEMO / m["current"]["charge_offs"], dtype={"loan_id": str})
+    now = allowance.run(books.DEMO_TAPE, books.DEMO_ASSUMPTIONS, prior=before, charge_offs=charge_offs,
+                        sensitivities=False)
+    for fw, mv in now.movement.items():
+        table = mv.allowance.set_index("line")["total"]
+        assert round(table["opening"] * 100) == round(before.record["total_allowance"][fw] * 100)
+        assert round(table["closing"] * 100) == round(now.record["total_allowance"][fw] * 100)
+
+
+def test_progress_is_told_and_a_partial_tape_must_be_accepted_against_the_ledger():
+    part = _tape_frame().head(200)
+    with pytest.raises(allowance.AllowanceError, match="ledger"):
+        allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False)
+    calls = []
+    allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, accept_ledger_difference=True,
+                  chunk_size=64, progress=lambda phase, done, total: calls.append((phase, done, total)))
+    phases = [c[0] for c in calls]
+    assert phases[0] == "read" and "loans" in phases
+    assert [c for c in calls if c[0] == "loans"] == [("loans", d, 200) for d in (64, 128, 192, 200)]
