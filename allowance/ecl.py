@@ -46,6 +46,7 @@ import numpy as np
 
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
 from allowance.curves.lgd import loss_given_default
+from allowance.exceptions import InvalidInputError
 
 #: the LGD of a loan-month (:func:`allowance.curves.lgd.loss_given_default`), compiled into the loop
 _loss_given_default = numba.njit(cache=True, inline="always")(loss_given_default)
@@ -368,7 +369,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
             numba.set_parallel_chunksize(previous)
         bad = ~np.isfinite(ecllife).all(axis=(1, 2))
         if bad.any():
-            raise ValueError(
+            raise InvalidInputError(
                 f"the ECL of loan {int(np.argmax(bad))} (position in the chunk) is not finite: "
                 "an input array or table holds NaN or inf (the engine fills blanks before the loop)"
             )
@@ -416,5 +417,5 @@ def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
             where = np.argwhere(~np.isfinite(value))[0].tolist()
             problems.append(f"{name} holds NaN or inf at {where} (the engine fills blanks before the loop)")
     if problems:
-        raise ValueError("KernelInputs: " + "; ".join(problems))
+        raise InvalidInputError("KernelInputs: " + "; ".join(problems))
     return out

@@ -13,6 +13,8 @@ TapeError           a whole-tape problem (missing required column, no rows, ambi
 AssumptionsError    the assumptions or an overlay file is malformed or inconsistent
 TieOutError         the accepted tape does not tie to the ledger control total
 OutputError         an output folder cannot be written
+MovementError       two runs cannot be reconciled, or a movement table does not foot
+InvalidInputError   a library function was given values outside its contract (also a ValueError)
 """
 
 from __future__ import annotations
@@ -83,3 +85,16 @@ class TieOutError(AllowanceError):
 
 class OutputError(AllowanceError):
     """The output folder cannot be created or written."""
+
+
+class MovementError(AllowanceError):
+    """Two runs cannot be reconciled, or a movement table does not foot."""
+
+
+class InvalidInputError(AllowanceError, ValueError):
+    """A function of the library was given values outside its documented contract.
+
+    A shape that does not match, a probability outside [0, 1], NaN where a number is needed:
+    intake refuses such values in the user's files first, so a run meets this only when a
+    function is called directly. It is also a ``ValueError``, for callers that catch that.
+    """

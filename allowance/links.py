@@ -22,6 +22,7 @@ from statistics import NormalDist
 import numpy as np
 
 from allowance.schemas import Link as LinkName
+from allowance.exceptions import InvalidInputError
 
 __all__ = ["LINKS", "Link", "logistic_cdf", "logit", "norm_cdf", "norm_ppf", "shift_probability"]
 
@@ -143,9 +144,9 @@ def shift_probability(p, shift, link: LinkName) -> np.ndarray:
     p = np.asarray(p, dtype=float)
     shift = np.asarray(shift, dtype=float)
     if not np.all((p >= 0.0) & (p <= 1.0)):
-        raise ValueError("shift_probability: every probability must be in [0, 1] (no NaN)")
+        raise InvalidInputError("shift_probability: every probability must be in [0, 1] (no NaN)")
     if not np.all(np.isfinite(shift)):
-        raise ValueError("shift_probability: every shift must be finite")
+        raise InvalidInputError("shift_probability: every shift must be finite")
     p, shift = np.broadcast_arrays(p, shift)
     moved = (shift != 0.0) & (p > 0.0) & (p < 1.0)
     out = p.copy()

@@ -68,7 +68,7 @@ import numba
 import numpy as np
 
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
-from allowance.exceptions import AssumptionsError
+from allowance.exceptions import AssumptionsError, InvalidInputError
 
 LossRateMethod = Literal["lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve"]
 
@@ -452,7 +452,7 @@ def _checked(inputs: LossRateInputs) -> dict[str, np.ndarray]:
             where = np.argwhere(~np.isfinite(value))[0].tolist()
             problems.append(f"{name} holds NaN or inf at {where} (the engine fills blanks before the loop)")
     if problems:
-        raise ValueError("LossRateInputs: " + "; ".join(problems))
+        raise InvalidInputError("LossRateInputs: " + "; ".join(problems))
     return a
 
 

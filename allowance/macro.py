@@ -70,7 +70,7 @@ from datetime import date
 import numpy as np
 import pandas as pd
 
-from allowance.exceptions import AssumptionsError
+from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.links import shift_probability
 from allowance.schemas import (
     Assumptions,
@@ -318,7 +318,7 @@ def macro_marginals(base: np.ndarray, scenario: Scenario, links: MacroLinks) -> 
     """
     base = np.asarray(base, dtype=float)
     if base.ndim != 2 or base.shape[0] != len(links.key_segments):
-        raise ValueError("macro_marginals: base must have one row per curve key of links.key_segments")
+        raise InvalidInputError("macro_marginals: base must have one row per curve key of links.key_segments")
     out = base.copy()
     segments = np.asarray(links.key_segments, dtype=object)
     for name in dict.fromkeys(links.key_segments):

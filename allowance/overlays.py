@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from allowance.schemas import FRAMEWORKS, Framework, Overlay, OverlayKind
+from allowance.exceptions import InvalidInputError
 
 __all__ = ["TABLE_COLUMNS", "OverlayResult", "allocate_cents", "apply_overlays"]
 
@@ -68,7 +69,7 @@ def allocate_cents(total_cents: int, weights: np.ndarray) -> np.ndarray:
     """
     w = np.clip(np.asarray(weights, dtype=float), 0.0, None)
     if w.size == 0:
-        raise ValueError("allocate_cents: nothing to allocate to")
+        raise InvalidInputError("allocate_cents: nothing to allocate to")
     if not w.sum() > 0.0:
         w = np.ones_like(w)
     magnitude = abs(int(total_cents))
@@ -109,10 +110,10 @@ def _matches(column: pd.Series, value: object) -> np.ndarray:
 def _cents(loans: pd.DataFrame, framework: Framework) -> np.ndarray:
     column = f"ecl_{framework}_modelled"
     if column not in loans.columns:
-        raise ValueError(f"apply_overlays: the loans frame has no {column} column")
+        raise InvalidInputError(f"apply_overlays: the loans frame has no {column} column")
     values = loans[column].to_numpy(dtype=float, na_value=np.nan)
     if not np.all(np.isfinite(values)):
-        raise ValueError(f"apply_overlays: {column} has missing or non-finite values")
+        raise InvalidInputError(f"apply_overlays: {column} has missing or non-finite values")
     return np.rint(values * 100.0).astype(np.int64)
 
 

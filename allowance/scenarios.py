@@ -34,7 +34,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import macro
-from allowance.exceptions import AssumptionsError
+from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.links import norm_cdf as _norm_cdf
 from allowance.links import norm_ppf as _norm_ppf
 from allowance.schemas import Assumptions, CeclRules, Reversion, Scenario, SegmentAssumptions
@@ -115,11 +115,11 @@ def vasicek_conditional_pd(pd: np.ndarray | float, rho: np.ndarray | float, z: n
     rho_a = np.asarray(rho, dtype=float)
     z_a = np.asarray(z, dtype=float)
     if not np.all((pd_a >= 0.0) & (pd_a <= 1.0)):
-        raise ValueError("vasicek_conditional_pd: every PD must be in [0, 1] (no NaN)")
+        raise InvalidInputError("vasicek_conditional_pd: every PD must be in [0, 1] (no NaN)")
     if not np.all((rho_a >= 0.0) & (rho_a < 1.0)):
-        raise ValueError("vasicek_conditional_pd: every asset correlation must be in [0, 1)")
+        raise InvalidInputError("vasicek_conditional_pd: every asset correlation must be in [0, 1)")
     if not np.all(np.isfinite(z_a)):
-        raise ValueError("vasicek_conditional_pd: every z must be finite")
+        raise InvalidInputError("vasicek_conditional_pd: every z must be finite")
     pd_a, rho_a, z_a = np.broadcast_arrays(pd_a, rho_a, z_a)
     interior = (pd_a > 0.0) & (pd_a < 1.0)
     threshold = _norm_ppf(np.where(interior, pd_a, 0.5))
@@ -259,7 +259,7 @@ def _z_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None,
 def _macro_path(base: np.ndarray, scenario: Scenario, rho: np.ndarray | None,
                 links: macro.MacroLinks | None) -> np.ndarray:
     if links is None:
-        raise ValueError("scenario_marginals: a scenario with macro paths needs links (macro.MacroLinks)")
+        raise InvalidInputError("scenario_marginals: a scenario with macro paths needs links (macro.MacroLinks)")
     return macro.macro_marginals(base, scenario, links)
 
 
@@ -324,7 +324,7 @@ def scenario_marginals(base: np.ndarray, scenario: Scenario, rho: np.ndarray | N
     """
     base = np.asarray(base, dtype=float)
     if base.ndim != 2 or not np.all((base >= 0.0) & (base <= 1.0)):
-        raise ValueError("scenario_marginals: base must be a (keys, months) table of PDs in [0, 1]")
+        raise InvalidInputError("scenario_marginals: base must be a (keys, months) table of PDs in [0, 1]")
     return _PATHS[_path_kind(scenario)](base, scenario, rho, links)
 
 
@@ -503,7 +503,7 @@ def scenario_tables(
     """
     base = np.asarray(base, dtype=float)
     if base.ndim != 2:
-        raise ValueError("scenario_tables: base must be a (keys, months) table")
+        raise InvalidInputError("scenario_tables: base must be a (keys, months) table")
     months = base.shape[-1]
     rho_a = None if rho is None else np.asarray(rho, dtype=float)
     scenarios = list(assumptions.scenarios.values())
@@ -512,7 +512,7 @@ def scenario_tables(
     links = None
     if any(s.macro for s in scenarios):
         if key_segments is None or len(key_segments) != base.shape[0]:
-            raise ValueError("scenario_tables: macro paths need key_segments, the segment of each row of base")
+            raise InvalidInputError("scenario_tables: macro paths need key_segments, the segment of each row of base")
         links = macro.MacroLinks.from_assumptions(assumptions, key_segments)
     whole_life = ScenarioTables(
         names=tuple(assumptions.scenarios),
@@ -545,7 +545,7 @@ def weighted(values, weights) -> np.ndarray:
     values = np.asarray(values, dtype=float)
     w = np.asarray(weights, dtype=float)
     if values.shape[-1:] != w.shape:
-        raise ValueError(f"weighted: {values.shape[-1]} scenarios in the values but {w.size} weights")
+        raise InvalidInputError(f"weighted: {values.shape[-1]} scenarios in the values but {w.size} weights")
     return values @ w
 
 

@@ -15,6 +15,7 @@ SatelliteModel      per segment: the link from macro variables to the monthly PD
 Overlay             a documented post-model adjustment
 RunConfig           a validated Assumptions plus the input files that made it (paths, SHA-256)
 TransitionMatrix    a monthly roll-rate matrix over delinquency buckets, loaded from CSV
+RunRecord           the run record written to run.json (and read back from a prior run)
 
 Conventions
 -----------
@@ -620,3 +621,65 @@ class RunConfig(BaseModel):
     @property
     def frameworks(self) -> list[Framework]:
         return list(self.assumptions.run.frameworks)
+
+
+# --------------------------------------------------------------------------------------
+# The run record (run.json)
+# --------------------------------------------------------------------------------------
+
+
+class RowCounts(BaseModel):
+    """Rows of the tape: read = accepted + rejected."""
+
+    model_config = ConfigDict(frozen=True)
+
+    read: Annotated[int, Field(ge=0)]
+    accepted: Annotated[int, Field(ge=0)]
+    rejected: Annotated[int, Field(ge=0)]
+
+    @model_validator(mode="after")
+    def _nothing_lost(self) -> RowCounts:
+        if self.read != self.accepted + self.rejected:
+            raise ValueError(f"rows read ({self.read}) must equal accepted ({self.accepted}) + rejected ({self.rejected})")
+        return self
+
+
+class MovementTotals(BaseModel):
+    """One framework's movement from the prior run, as the record keeps it."""
+
+    model_config = ConfigDict(frozen=True, extra="allow")
+
+    opening: float
+    closing: float
+    provision: float
+    assumptions_isolated: bool
+
+
+class RunRecord(BaseModel):
+    """``run.json``: enough to identify, repeat and tie out a run.
+
+    Extra keys are kept (a later release may add some, and a prior run's record is read back
+    with the model), but these are always there and always of these types.
+    """
+
+    model_config = ConfigDict(frozen=True, extra="allow")
+
+    package: Literal["allowance"] = "allowance"
+    version: str
+    run_label: str | None = None
+    as_of: date
+    frameworks: list[Framework] = Field(min_length=1)
+    currency: str
+    run_by: str
+    started: str | None = None
+    timestamp: str
+    inputs: list[InputFile]
+    rows: RowCounts
+    loans: Annotated[int, Field(ge=0)]
+    total_balance: float | None
+    total_allowance: dict[Framework, float | None]
+    totals: dict[Framework, dict]
+    warnings: Annotated[int, Field(ge=0)]
+    tie_out: dict | None = None
+    movement: dict[Framework, MovementTotals] = Field(default_factory=dict)
+    assumptions: dict

@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from allowance.exceptions import AssumptionsError
+from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.schemas import Ifrs9Rules, SegmentAssumptions
 
 __all__ = ["assign_stages", "in_default", "lifetime_horizon", "lifetime_months", "stage_horizon"]
@@ -158,7 +158,7 @@ def assign_stages(
     n = len(tape)
     pd_now = np.asarray(pd_12m_now, dtype=float)
     if pd_now.shape != (n,) or not np.all((pd_now >= 0.0) & (pd_now <= 1.0)):
-        raise ValueError(f"assign_stages: pd_12m_now must be {n} PDs in [0, 1], one per loan (no NaN)")
+        raise InvalidInputError(f"assign_stages: pd_12m_now must be {n} PDs in [0, 1], one per loan (no NaN)")
     _segment_lookup(tape, segments)
 
     dpd = tape["days_past_due"].to_numpy()

@@ -378,14 +378,19 @@ frameworks = ["cecl"]
 [segments.retail]
 pd_12m = 0.02
 lgd = 0.4
+amortization_months = 360       # balloon loans without the tape column amortize over this
 
 [segments.cards]
 pd_12m = 0.05
 lgd = 0.8
+amortization_months = 360
+behavioural_life_months = 36       # revolving lines need it, and CECL the payment rate
+payment_rate = 0.05
 
 [segments.graded]
 pd_12m_by_grade = { A = 0.01, B = 0.04 }
 lgd = 0.3
+amortization_months = 360
 
 [cecl]
 reasonable_supportable_months = 12

@@ -16,7 +16,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from allowance.reconcile import MovementError, check_movement, compare_runs, movement, what_if_comparison
-from allowance.report.text import neutralise_text
+from allowance.text import neutralise_text
 from tests.strategies import run_pairs
 
 

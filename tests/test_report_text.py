@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from allowance.report.text import FORMULA_PREFIXES, neutralise_frame, neutralise_text
+from allowance.text import FORMULA_PREFIXES, neutralise_frame, neutralise_text
 
 
 @pytest.mark.parametrize("prefix", ["=", "+", "-", "@", "\t", "\r"])  # the OWASP list of trigger characters

@@ -34,3 +34,19 @@ def test_run_json_timestamps_come_from_source_date_epoch(tmp_path, monkeypatch):
     write_outputs(tmp_path / "out", example_report())
     record = json.loads((tmp_path / "out" / "run.json").read_text())
     assert record["timestamp"] == record["started"] == "2026-10-01T00:00:00+00:00"
+
+
+def test_the_run_record_is_a_pydantic_model():
+    import pytest
+    from pydantic import ValidationError
+
+    from allowance.report import run_record
+    from allowance.schemas import RunRecord
+
+    report = example_report(20)
+    record = run_record(report.config, report.intake, report.loans)
+    model = RunRecord.model_validate(record)
+    assert model.rows.read == model.rows.accepted + model.rows.rejected
+    broken = dict(record, rows={"read": 5, "accepted": 3, "rejected": 1})
+    with pytest.raises(ValidationError, match="must equal accepted"):
+        RunRecord.model_validate(broken)

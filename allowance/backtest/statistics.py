@@ -50,6 +50,8 @@ import numpy as np
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from allowance.exceptions import InvalidInputError
+
 Light = Literal["green", "yellow", "red"]
 LIGHTS: tuple[Light, ...] = ("green", "yellow", "red")
 
@@ -85,9 +87,9 @@ class BacktestOptions(BaseModel):
     @model_validator(mode="after")
     def _ordered(self) -> "BacktestOptions":
         if self.red_p >= self.yellow_p:
-            raise ValueError("red_p must be below yellow_p (red is the stronger evidence)")
+            raise InvalidInputError("red_p must be below yellow_p (red is the stronger evidence)")
         if self.loss_red < self.loss_yellow:
-            raise ValueError("loss_red must be at least loss_yellow")
+            raise InvalidInputError("loss_red must be at least loss_yellow")
         return self
 
 
@@ -95,7 +97,7 @@ def _counts(defaults, n) -> tuple[np.ndarray, np.ndarray]:
     d = np.asarray(defaults, dtype=float)
     total = np.asarray(n, dtype=float)
     if np.any(total < 0) or np.any(d < 0) or np.any(d > total) or np.any(d != np.round(d)):
-        raise ValueError("defaults must be whole numbers between 0 and the number of loans")
+        raise InvalidInputError("defaults must be whole numbers between 0 and the number of loans")
     return np.broadcast_arrays(d, total)
 
 

@@ -26,6 +26,7 @@ from allowance.curves.lgd import (
 )
 from allowance.curves.pd_sources import (
     PD_SOURCES,
+    check_one_prepayment_source,
     PdSource,
     hazard_from_pd_12m,
     marginal_from_curve,
@@ -66,6 +67,7 @@ __all__ = [
     "RollForecast",
     "bucket_balances",
     "bucket_index",
+    "check_one_prepayment_source",
     "collateral_lgd",
     "cumulative_pd",
     "delinquency_buckets",

@@ -8,6 +8,7 @@ Implements
 hazard_from_pd_12m     constant monthly hazard that reproduces a 12-month PD
 marginal_from_curve    monthly marginals from a cumulative PD curve by year
 pd_term_structure      the registry lookup: segment assumptions -> PdTermStructure
+check_one_prepayment_source  a roll-rate matrix's payoffs or a stated CPR/PSA, not both
 PD_SOURCES             pd_source key -> builder
 """
 
@@ -20,7 +21,7 @@ import numpy as np
 
 from allowance.curves.roll_rates import matrix_term_structure
 from allowance.curves.term_structure import PdTermStructure
-from allowance.exceptions import AssumptionsError
+from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.schemas import SegmentAssumptions, TransitionMatrix
 
 PdSource = Literal["pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix"]
@@ -206,5 +207,24 @@ def pd_term_structure(name: str, segment: SegmentAssumptions, months: int) -> Pd
     (('A', 'B'), (2, 36), 'pd_curve_by_grade')
     """
     if months < 0:
-        raise ValueError(f"months must be >= 0; got {months}")
+        raise InvalidInputError(f"months must be >= 0; got {months}")
     return PD_SOURCES[segment.pd_source](name, segment, int(months))
+
+
+def check_one_prepayment_source(name: str, segment: SegmentAssumptions, structure: PdTermStructure) -> None:
+    """A segment models prepayment once: a roll-rate matrix with a ``paid_off`` state, or a
+    stated ``cpr`` / ``psa`` / ``cpr_by_age``, never both (payoffs would count twice).
+
+    Raises
+    ------
+    AssumptionsError
+        Naming the segment.
+    """
+    stated = any(getattr(segment, k) is not None for k in ("cpr", "psa", "cpr_by_age"))
+    if stated and structure.smm is not None and np.any(structure.smm > 0):
+        raise AssumptionsError(
+            f"segment {name!r} gives prepayment twice: its roll-rate matrix has a paid_off "
+            "state and it also states cpr/psa/cpr_by_age",
+            column=f"segments.{name}",
+            hint="drop the cpr/psa key, or the paid_off column of the matrix",
+        )

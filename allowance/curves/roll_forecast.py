@@ -41,6 +41,7 @@ from allowance.curves.roll_rates import (
     validate_matrix,
 )
 from allowance.schemas import TransitionMatrix
+from allowance.exceptions import InvalidInputError
 
 
 def bucket_balances(days_past_due, balance, charge_off_dpd: int) -> np.ndarray:
@@ -130,7 +131,7 @@ def roll_forecast(opening, matrix: TransitionMatrix, charge_off_dpd: int, months
     nb = len(delinquency_buckets(charge_off_dpd))
     b = np.asarray(opening, dtype=float)
     if b.shape != (nb,) or not np.all(np.isfinite(b)) or np.any(b < 0):
-        raise ValueError(f"opening must be {nb} balances >= 0, one per bucket; got {b!r}")
+        raise InvalidInputError(f"opening must be {nb} balances >= 0, one per bucket; got {b!r}")
     q, to_charge_off = probs[:nb, :nb], probs[:nb, nb]
     to_payoff = probs[:nb, nb + 1] if PAID_OFF in matrix.states else np.zeros(nb)
     rows = np.empty((months, nb))

@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from allowance.curves.term_structure import PdTermStructure
-from allowance.exceptions import AssumptionsError
+from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.schemas import TransitionMatrix
 
 CHARGE_OFF = "charge_off"
@@ -55,7 +55,7 @@ def delinquency_buckets(charge_off_dpd: int) -> tuple[str, ...]:
         return DELINQUENCY_BUCKETS[charge_off_dpd]
     except KeyError:
         known = sorted(DELINQUENCY_BUCKETS)
-        raise ValueError(f"charge_off_dpd must be one of {known}; got {charge_off_dpd!r}") from None
+        raise InvalidInputError(f"charge_off_dpd must be one of {known}; got {charge_off_dpd!r}") from None
 
 
 def expected_states(charge_off_dpd: int, paid_off: bool) -> tuple[str, ...]:
@@ -84,7 +84,7 @@ def bucket_index(days_past_due: np.ndarray, charge_off_dpd: int) -> np.ndarray:
     """
     dpd = np.asarray(days_past_due)
     if dpd.size and dpd.min() < 0:
-        raise ValueError("days past due must be >= 0 (intake rejects negative values)")
+        raise InvalidInputError("days past due must be >= 0 (intake rejects negative values)")
     last = len(delinquency_buckets(charge_off_dpd)) - 1
     index = np.where(dpd <= 0, 0, 1 + dpd // 30)
     return np.minimum(index, last).astype(np.int64)

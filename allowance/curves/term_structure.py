@@ -21,7 +21,7 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from allowance.exceptions import AssumptionsError
+from allowance.exceptions import AssumptionsError, InvalidInputError
 
 
 @dataclass(frozen=True, eq=False)
@@ -68,14 +68,14 @@ class PdTermStructure:
     def __post_init__(self) -> None:
         marginal = np.array(self.marginal, dtype=np.float64)
         if marginal.ndim != 2 or marginal.shape[0] != len(self.keys):
-            raise ValueError(f"marginal must have shape (len(keys)={len(self.keys)}, months); got {marginal.shape}")
+            raise InvalidInputError(f"marginal must have shape (len(keys)={len(self.keys)}, months); got {marginal.shape}")
         marginal.setflags(write=False)
         object.__setattr__(self, "marginal", marginal)
         object.__setattr__(self, "keys", tuple(self.keys))
         if self.smm is not None:
             smm = np.array(self.smm, dtype=np.float64)
             if smm.shape != marginal.shape:
-                raise ValueError(f"smm must have the shape of marginal {marginal.shape}; got {smm.shape}")
+                raise InvalidInputError(f"smm must have the shape of marginal {marginal.shape}; got {smm.shape}")
             smm.setflags(write=False)
             object.__setattr__(self, "smm", smm)
 
@@ -110,7 +110,7 @@ def _keep_factors(marginal: np.ndarray, smm: np.ndarray | None) -> tuple[np.ndar
     """The marginal PD broadcast against ``smm``, and the monthly survival factor."""
     pd_t = np.asarray(marginal, dtype=np.float64)
     if pd_t.ndim == 0:
-        raise ValueError("marginal PDs need a months axis (the last axis)")
+        raise InvalidInputError("marginal PDs need a months axis (the last axis)")
     keep = 1.0 - pd_t
     if smm is not None:
         keep = keep * (1.0 - np.asarray(smm, dtype=np.float64))
@@ -239,10 +239,10 @@ def pd_over(marginal: np.ndarray, months: int | np.ndarray, smm: np.ndarray | No
     horizon = np.asarray(months)
     if horizon.dtype.kind not in "iu":
         if not np.all(np.isfinite(horizon)) or np.any(horizon != np.round(horizon)):
-            raise ValueError("months must be whole numbers")
+            raise InvalidInputError("months must be whole numbers")
         horizon = horizon.astype(np.int64)
     if horizon.size and (horizon.min() < 0 or horizon.max() > cum.shape[-1]):
-        raise ValueError(f"horizon must lie in 0..{cum.shape[-1]} months; got {horizon.min()}..{horizon.max()}")
+        raise InvalidInputError(f"horizon must lie in 0..{cum.shape[-1]} months; got {horizon.min()}..{horizon.max()}")
     padded = np.concatenate([np.zeros(cum.shape[:-1] + (1,)), cum], axis=-1)
     lead = np.broadcast_shapes(padded.shape[:-1], horizon.shape)
     padded = np.broadcast_to(padded, lead + padded.shape[-1:])

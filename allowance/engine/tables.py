@@ -192,15 +192,8 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
     rows, prepay_row = [], {}
     for name, seg in a.segments.items():
         ts = structures[name]
-        stated = any(getattr(seg, k) is not None for k in ("cpr", "psa", "cpr_by_age"))
+        curves.check_one_prepayment_source(name, seg, ts)  # intake checks it first; a guard here
         if ts.smm is not None and np.any(ts.smm > 0):
-            if stated:
-                raise AssumptionsError(
-                    f"segment {name!r} gives prepayment twice: its roll-rate matrix has a paid_off "
-                    "state and it also states cpr/psa/cpr_by_age",
-                    column=f"segments.{name}",
-                    hint="drop the cpr/psa key, or the paid_off column of the matrix",
-                )
             prepay_row[name] = len(rows)  # one row per bucket key, indexed by month
             for k in range(len(ts.keys)):
                 row = np.zeros(length)

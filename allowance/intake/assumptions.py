@@ -25,6 +25,7 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
+from allowance import curves, scenarios
 from allowance.exceptions import AssumptionsError
 from allowance.intake.fields import FIELDS
 from allowance.intake.files import file_record
@@ -415,6 +416,26 @@ def _check_columns(merged: _Merged) -> None:
             )
 
 
+def _check_what_segments_need(assumptions: Assumptions, merged: _Merged) -> None:
+    """What the engine needs of every segment, checked now by the concept modules' own rules,
+    so that ``check`` refuses what ``run`` could not compute: each PD source builds (a curve
+    that falls, a matrix whose rows do not sum to 1), prepayment is modelled once, and a z
+    path finds an asset correlation for every segment."""
+    uses_z = any(s.z for s in assumptions.scenarios.values())
+    for name, segment in assumptions.segments.items():
+        key: Key = ("segments", name)
+        try:
+            structure = curves.pd_term_structure(name, segment, 12)
+            curves.check_one_prepayment_source(name, segment, structure)
+            if uses_z:
+                scenarios.asset_correlation(segment, 0.01, name=name)
+        except AssumptionsError as err:
+            if err.file is not None:
+                raise
+            raise AssumptionsError(err.reason, file=merged.file_of(key), row=err.row, column=err.column,
+                                   hint=err.hint) from err
+
+
 #: A source of assumptions: a TOML file, or a mapping in the file's shape.
 Source = str | Path | Mapping[str, Any]
 
@@ -485,5 +506,6 @@ def load_assumptions(path: Source, overlays: Sequence[Source] = ()) -> RunConfig
         assumptions = Assumptions.model_validate(merged.data)
     except ValidationError as err:
         _raise_validation(err, merged)
+    _check_what_segments_need(assumptions, merged)
     base = folder if folder is not None else label.resolve().parent
     return RunConfig(assumptions=assumptions, inputs=inputs, base_dir=base)

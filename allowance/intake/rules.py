@@ -23,6 +23,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from allowance.exceptions import AssumptionsError
 from allowance.intake.fields import FIELDS, FieldSpec
 from allowance.intake.parse import NO_DAY, Parsed
 from allowance.intake.readers import cell_text
@@ -49,6 +50,7 @@ CODES: dict[str, str] = {
     "wrong_field_count": "the line has a different number of fields from the header",
     "matured_with_balance": "term loan past maturity still carrying a balance (one-month horizon)",
     "over_limit": "revolving balance above the credit limit",
+    "missing_amortization": "balloon loan with no balloon_amount or amortization_months, in a segment without one",
 }
 
 _BAD_CODE: dict[str, str] = {
@@ -378,8 +380,62 @@ def revolving_lines(cols: TapeColumns) -> Iterator[Findings]:
         yield _findings(rows, "balance", "over_limit", messages, "warning")
 
 
+def balloon_terms(cols: TapeColumns) -> Iterator[Findings]:
+    """A balloon loan needs its ``balloon_amount``, its ``amortization_months`` or its segment's."""
+    repayment = cols.parsed["repayment"]
+    balloon = np.asarray(pc.fill_null(pc.equal(repayment.values, "balloon"), False))
+    if not balloon.any():
+        return
+    segment = cols.parsed["segment"].values
+    segments = cols.assumptions.segments
+    stated = [name for name, seg in segments.items() if seg.amortization_months is not None]
+    known = np.asarray(pc.fill_null(pc.is_in(segment, value_set=pa.array(list(segments), pa.string())), False))
+    covered = np.asarray(pc.fill_null(pc.is_in(segment, value_set=pa.array(stated, pa.string())), False))
+    amount, months = cols.parsed["balloon_amount"], cols.parsed["amortization_months"]
+    rows = np.flatnonzero(balloon & known & ~covered & amount.blank & months.blank)
+    if rows.size:
+        messages = [
+            f"balloon loan with neither balloon_amount nor amortization_months, and segment {v!r} states no "
+            "amortization_months (give either column, or amortization_months in the segment)"
+            for v in pc.take(segment, pa.array(rows)).to_pylist()
+        ]
+        yield _findings(rows, "amortization_months", "missing_amortization", messages)
+
+
+def segment_requirements(cols: TapeColumns, paydown_frameworks: list[str], file: str | None = None) -> None:
+    """Raise :class:`AssumptionsError` when a segment holding revolving lines lacks a key they need.
+
+    Every revolving line needs its segment's ``behavioural_life_months`` (IFRS 9 B5.5.40);
+    where a framework runs a line's drawn balance off (CECL), its ``payment_rate`` too. The
+    fix is in the assumptions, not in the rows, so it is one error naming the key.
+    """
+    repayment = cols.parsed["repayment"]
+    revolving = np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
+    if not revolving.any():
+        return
+    segment = cols.parsed["segment"].values
+    needs = ["behavioural_life_months"] + (["payment_rate"] if paydown_frameworks else [])
+    for name, seg in cols.assumptions.segments.items():
+        missing = [key for key in needs if getattr(seg, key) is None]
+        if not missing:
+            continue
+        rows = np.flatnonzero(revolving & np.asarray(pc.fill_null(pc.equal(segment, name), False)))
+        if not rows.size:
+            continue
+        key = missing[0]
+        lines = ", ".join(str(r) for r in cols.source_row[rows[:5]]) + (" ..." if rows.size > 5 else "")
+        why = "" if key == "behavioural_life_months" else f" ({', '.join(paydown_frameworks)} runs the drawn balance off)"
+        raise AssumptionsError(
+            f"segment {name!r} holds {rows.size} revolving line(s) (tape lines {lines}) but states no {key}{why}",
+            file=file, column=f"segments.{name}.{key}",
+            hint=f"add {key} to [segments.{name}]"
+                 + (" (months; IFRS 9 B5.5.40)" if key == "behavioural_life_months" else " (monthly share of the drawn balance repaid, e.g. 0.05)"),
+        )
+
+
 #: The rules, in the order their findings are listed for a row.
-ROW_RULES: tuple[Rule, ...] = (field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines)
+ROW_RULES: tuple[Rule, ...] = (field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines,
+                               balloon_terms)
 
 
 def apply_rules(cols: TapeColumns) -> list[Findings]:

@@ -22,7 +22,8 @@ from allowance.intake.files import check_size, file_kind
 from allowance.intake.parse import PARSERS, Parsed, parse_dates
 from allowance.intake.readers import RawTape, read_frame, read_raw
 from allowance.intake.results import IntakeResult
-from allowance.intake.rules import Findings, TapeColumns, apply_rules
+from allowance.frameworks import rules_for
+from allowance.intake.rules import Findings, TapeColumns, apply_rules, segment_requirements
 from allowance.schemas import REQUIRED_COLUMNS, RunConfig
 
 FINDING_COLUMNS = ["source_row", "loan_id", "column", "code", "severity", "message"]
@@ -296,6 +297,9 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
         raise TapeError("has a header but no data rows", file=path, hint="export the tape again with its loans")
     colmap = map_columns(raw.headers, mapping, path)
     cols = _parse(raw, colmap, config, str(path))
+    # a segment the rows need a key of: one error naming the key (the fix is in the assumptions)
+    paydown = [fw for fw in config.frameworks if rules_for(fw).revolving_paydown]
+    segment_requirements(cols, paydown, next((i.path for i in config.inputs if i.role == "assumptions"), None))
     chunks = apply_rules(cols)
     reject = np.zeros(cols.rows, dtype=bool)
     for chunk in chunks:

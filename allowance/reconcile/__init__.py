@@ -19,7 +19,7 @@ How each loan's change splits into the movement lines is set out in
 """
 
 from allowance.reconcile.movement import Movement, compare_runs, movement
-from allowance.reconcile.runs import MovementError
+from allowance.exceptions import MovementError
 from allowance.reconcile.sensitivity import sensitivity_table, single_scenario
 from allowance.reconcile.tables import MOVEMENT_LINES, check_movement
 from allowance.reconcile.whatif import WhatIf, what_if_comparison

@@ -38,7 +38,8 @@ from dataclasses import dataclass
 import pandas as pd
 
 from allowance.frameworks import rules_for
-from allowance.reconcile.runs import MovementError, bridge, prepare_charge_offs, prepare_run
+from allowance.exceptions import MovementError
+from allowance.reconcile.runs import bridge, prepare_charge_offs, prepare_run
 from allowance.reconcile.tables import (
     _ALLOWANCE_BODY, _GROSS_BODY, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
     check_movement, journal, rollforward,

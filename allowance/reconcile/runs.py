@@ -2,7 +2,6 @@
 
 Implements
 ----------
-MovementError   the two runs cannot be reconciled, or a table does not foot
 prepare_run     the columns a movement needs, in whole cents, keyed by the neutralised loan id
 prepare_charge_offs
 bridge          one row per loan in either run: every line's amount in cents
@@ -13,19 +12,13 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from allowance.exceptions import AllowanceError
+from allowance.exceptions import MovementError
 from allowance.frameworks import rules_for
-from allowance.report.text import neutralise_text
+from allowance.text import neutralise_text
 from allowance.schemas import Framework
 
-__all__ = ["UNASSIGNED_SEGMENT", "MovementError", "bridge", "prepare_charge_offs", "prepare_run"]
+__all__ = ["UNASSIGNED_SEGMENT", "bridge", "prepare_charge_offs", "prepare_run"]
 
-
-class MovementError(AllowanceError):
-    """Two runs cannot be reconciled, or a movement table does not foot."""
-
-
-MovementError.__module__ = "allowance.reconcile"  # its public home
 
 #: the roll-forward segment of charge-offs for loans in neither run, when the file gives none
 UNASSIGNED_SEGMENT = "(in neither run)"

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 
 from allowance.frameworks import rules_for
-from allowance.reconcile.runs import MovementError
+from allowance.exceptions import MovementError
 from allowance.schemas import Framework
 
 __all__ = ["MOVEMENT_LINES", "check_movement"]
@@ -114,7 +114,7 @@ def check_movement(table: pd.DataFrame, *, what: str = "movement") -> None:
     >>> check_movement(t.assign(**{"stage 1": [10.0, 2.5, 12.51]}))
     Traceback (most recent call last):
     ...
-    allowance.reconcile.MovementError: movement: column stage 1: opening + movements = 12.50 but closing = 12.51 (a break of 0.01)
+    allowance.exceptions.MovementError: movement: column stage 1: opening + movements = 12.50 but closing = 12.51 (a break of 0.01)
     """
     value_cols = [c for c in table.columns if c not in ("line", "label")]
     cents = np.rint(table[value_cols].to_numpy(dtype=np.float64) * 100.0).astype(np.int64)

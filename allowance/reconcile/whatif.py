@@ -14,8 +14,8 @@ import numpy as np
 import pandas as pd
 
 from allowance.frameworks import rules_for
-from allowance.reconcile.runs import MovementError
-from allowance.report.text import neutralise_text
+from allowance.exceptions import MovementError
+from allowance.text import neutralise_text
 from allowance.schemas import Framework
 
 __all__ = ["WhatIf", "what_if_comparison"]

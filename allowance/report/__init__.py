@@ -13,7 +13,7 @@ OUTPUT_FILES, SHEETS                the files and sheet names
 
 from allowance.report.files import OUTPUT_FILES, write_outputs
 from allowance.report.record import CAUTION, RunReport, money_total, run_record
-from allowance.report.text import FORMULA_PREFIXES, neutralise_frame, neutralise_text
+from allowance.text import FORMULA_PREFIXES, neutralise_frame, neutralise_text
 from allowance.report.workbook import SHEETS, write_workbook
 
 __all__ = [

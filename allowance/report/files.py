@@ -30,7 +30,7 @@ import pyarrow.csv as pa_csv
 from allowance.exceptions import OutputError
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
-from allowance.report.text import neutralise_frame
+from allowance.text import neutralise_frame
 from allowance.report.workbook import write_workbook
 
 __all__ = ["OUTPUT_FILES", "write_outputs"]
@@ -164,7 +164,7 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
     -----
     ``loans.csv``, ``rejected.csv``, ``warnings.csv``, ``movement*.csv``, ``what_if*.csv``
     and the workbook neutralise text that a spreadsheet would read as a formula
-    (:func:`~allowance.report.text.neutralise_text`).
+    (:func:`~allowance.text.neutralise_text`).
     """
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():

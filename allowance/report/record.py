@@ -26,7 +26,7 @@ from allowance.frameworks import FRAMEWORK_RULES
 from allowance.intake import IntakeResult, TieOut
 from allowance.money import money_total
 from allowance.report import clock
-from allowance.schemas import Framework, InputFile, RunConfig
+from allowance.schemas import Framework, InputFile, RunConfig, RunRecord
 
 if TYPE_CHECKING:
     from allowance.reconcile import Movement, WhatIf
@@ -216,4 +216,5 @@ def run_record(
     }
     if extra:
         record.update(_jsonable(dict(extra)))
-    return _jsonable(record)
+    # the record's contract is a pydantic model: a field of the wrong type or a lost row fails here
+    return RunRecord.model_validate(_jsonable(record)).model_dump(mode="json")

@@ -34,7 +34,8 @@ import pandas as pd
 from openpyxl.styles import Alignment, Font, PatternFill
 from openpyxl.utils import get_column_letter
 
-from allowance.report.text import neutralise_text
+from allowance.text import neutralise_text
+from allowance.exceptions import InvalidInputError
 
 __all__ = [
     "BulkSheet", "Formula", "MONEY", "RATE", "INTEGER", "DATE", "cell_value", "column_format", "inject_bulk",
@@ -331,7 +332,7 @@ def inject_bulk(path: Path, sheets: list[BulkSheet]) -> None:
             xml = data.decode("utf-8")
             match = _SHEET_DATA.search(xml)
             if match is None:  # pragma: no cover - openpyxl always writes sheetData
-                raise ValueError(f"no sheetData in {info.filename}")
+                raise InvalidInputError(f"no sheetData in {info.filename}")
             head = _DIMENSION.sub(f'<dimension ref="{bulk.dimension}"/>', xml[: match.start()], count=1)
             with zout.open(info.filename, "w") as out:
                 out.write(head.encode("utf-8"))

@@ -1,5 +1,8 @@
 """Text safety for the files a spreadsheet opens: neutralise would-be formulas.
 
+A leaf module (it imports nothing of ours): intake, the movement (for join keys of ids as a
+prior run wrote them) and the report writers all read it, so no stage imports a later one.
+
 Implements
 ----------
 neutralise_text    prefix a quote to text that a spreadsheet would read as a formula
