@@ -18,7 +18,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("exceptions", "text", "money"),  # leaves: the domain errors, text safety, cents
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
     ("links", "discounting", "cashflows"),  # maths with no other concept beneath it
-    ("macro", "curves", "staging", "loss_rates"),  # PD/LGD/EAD term structures, stages, macro links
+    ("macro", "satellite_fit", "curves", "staging", "loss_rates"),  # term structures, stages, macro links and their fit
     ("scenarios",),  # scenario paths over the term structures
     ("frameworks",),  # what differs between IFRS 9 and CECL
     ("intake",),  # the reading edge: files into contracts, validated
