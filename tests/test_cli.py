@@ -254,3 +254,29 @@ def test_output_folders_take_the_users_usual_mode(demo_out):
     os.umask(umask)
     for folder in (demo_out, demo_out / "prior_quarter"):
         assert folder.stat().st_mode & 0o777 == 0o777 & ~umask
+
+
+def test_version_and_short_help():
+    from allowance import __version__
+
+    for flag in ("--version", "-V"):
+        result = runner.invoke(app, [flag])
+        assert result.exit_code == 0 and result.output.strip() == __version__
+    short = runner.invoke(app, ["run", "-h"])
+    assert short.exit_code == 0 and "--assumptions" in short.output
+    assert runner.invoke(app, ["-h"]).output == runner.invoke(app, ["--help"]).output
+
+
+def test_a_fixed_choice_is_a_choice_in_the_help_and_a_bad_one_is_a_usage_error():
+    assert "ifrs9|cecl" in runner.invoke(app, ["schedule", "-h"]).output
+    result = runner.invoke(app, ["schedule", str(TAPE), "-a", str(ASSUMPTIONS), "--loan", "x", "--framework", "ifrs10"])
+    assert result.exit_code == 2
+
+
+def test_help_loads_no_heavy_library():
+    # the command line answers --help before numpy, pandas or numba are imported
+    code = ("import sys\nfrom allowance.cli import app\ntry:\n    app(['--help'])\nexcept SystemExit:\n    pass\n"
+            "print('|' + ','.join(m for m in ('numpy', 'pandas', 'numba') if m in sys.modules))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().endswith("|"), done.stdout
