@@ -35,7 +35,7 @@ def test_writes_every_file_and_totals_tie(tmp_path):
     written = write_outputs(out, report, parquet=True)
     names = [p.name for p in written]
     assert names == ["loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv",
-                     "movement_loans.csv", "reserve.xlsx", "run.json"]
+                     "movement_loans.csv", "reserve.xlsx", "summary.xlsx", "run.json"]
     assert all(p.exists() for p in written) and _no_partials(tmp_path)
 
     csv = pd.read_csv(out / "loans.csv", dtype={"loan_id": str})
@@ -52,7 +52,7 @@ def test_writes_every_file_and_totals_tie(tmp_path):
 
     # the hostile id: neutralised text in loans.csv and in the workbook; raw in Parquet
     assert csv.loc[0, "loan_id"] == "'=HYPERLINK(\"x\")"
-    cell = load_workbook(out / "reserve.xlsx")["Loans"]["A2"]
+    cell = load_workbook(out / "reserve.xlsx")["Loans"]["A5"]  # title rows, note, header, then loans
     assert cell.data_type == "s" and cell.value == "'=HYPERLINK(\"x\")"
     assert pd.read_parquet(out / "loans.parquet")["loan_id"].iloc[0] == '=HYPERLINK("x")'
 

@@ -7,6 +7,7 @@ CAUTION                             the caution shown on the workbook (the READM
 RunReport                           everything the outputs are written from
 run_record                          the run record (``run.json``)
 write_workbook                      ``reserve.xlsx``
+write_summary_workbook              ``summary.xlsx``: the printed sheets, standing alone
 write_outputs                       the whole output folder, written safely
 OUTPUT_FILES, SHEETS                the files and sheet names
 """
@@ -14,9 +15,9 @@ OUTPUT_FILES, SHEETS                the files and sheet names
 from allowance.report.files import OUTPUT_FILES, write_outputs
 from allowance.report.record import CAUTION, RunReport, money_total, run_record
 from allowance.text import FORMULA_PREFIXES, neutralise_frame, neutralise_text
-from allowance.report.workbook import SHEETS, write_workbook
+from allowance.report.workbook import SHEETS, write_summary_workbook, write_workbook
 
 __all__ = [
     "CAUTION", "FORMULA_PREFIXES", "OUTPUT_FILES", "SHEETS", "RunReport", "money_total", "neutralise_frame",
-    "neutralise_text", "run_record", "write_outputs", "write_workbook",
+    "neutralise_text", "run_record", "write_outputs", "write_summary_workbook", "write_workbook",
 ]

@@ -1,25 +1,42 @@
-"""Figures that are live formulas over the loan sheet, with the value Python computed for each.
+"""Figures that are live formulas over the loan sheet, each stored with the value Python computed.
 
 Implements
 ----------
 Figure     a formula (or None) and its value
-LoanRefs   SUM / SUMIFS / COUNTIFS over the loan-detail sheet, or plain values when the
-           loan detail is not in the workbook
-Ledger     records every figure written, by cell, so tests can compare a recalculation
+LoanRefs   SUM / SUMIFS / COUNTIFS over the loan-detail sheet (exact-match SUMPRODUCT for
+           labels a criterion would misread), or plain values when the loan detail is not
+           in the workbook
+Ledger     writes figures (formula + cached value) and records each by cell, so tests can
+           compare a recalculation and a non-calculating read with Python's figures
+needs_exact_match  whether a label must be compared exactly rather than as a SUMIFS criterion
+
+Why exact matching
+------------------
+A SUMIFS / COUNTIFS criterion is not plain text: a leading ``<``, ``>`` or ``=`` is a
+comparison, ``*``, ``?`` and ``~`` are wildcards, text that looks like a number, a date or
+TRUE / FALSE matches those, and matching ignores case. A segment named ``<auto``, ``a*`` or
+``2026-01`` would be summed with the wrong loans. Such labels (and labels that differ only by
+case) are compared with ``EXACT`` inside ``SUMPRODUCT``, which compares text as text, case
+included, as Python does.
 """
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from openpyxl.utils import get_column_letter
 
-from allowance.report.xlsx import Formula, cell_value
+from allowance.report.cells import clean_text
+from allowance.report.xlsx import Sheet, col_letter
 
-__all__ = ["Figure", "Ledger", "LoanRefs"]
+__all__ = ["Figure", "Ledger", "LoanRefs", "needs_exact_match", "quote_sheet"]
+
+# A label every SUMIFS implementation reads as itself: a letter first, then letters, digits,
+# spaces and a few punctuation marks that carry no meaning in a criterion.
+_PLAIN_LABEL = re.compile(r"[A-Za-z][A-Za-z0-9 _.\-/()]*")
 
 
 @dataclass(frozen=True)
@@ -35,25 +52,52 @@ def quote_sheet(name: str) -> str:
     return name if name.isidentifier() else "'" + name.replace("'", "''") + "'"
 
 
+def needs_exact_match(label: str, others: set[str] = frozenset()) -> bool:  # type: ignore[assignment]
+    """Whether a text label must be matched with EXACT rather than as a SUMIFS criterion.
+
+    ``others`` are the other labels of the same column (labels equal but for case collide).
+
+    Examples
+    --------
+    >>> [needs_exact_match(x) for x in ("auto", "heloc 2", "<auto", "=x", "a*", "2026-01", "TRUE")]
+    [False, False, True, True, True, True, True]
+    >>> needs_exact_match("Auto", {"auto", "Auto"})
+    True
+    """
+    if not _PLAIN_LABEL.fullmatch(label) or label.upper() in ("TRUE", "FALSE"):
+        return True
+    folded = label.casefold()
+    return any(o != label and o.casefold() == folded for o in others)
+
+
 class LoanRefs:
     """Formulas over the loan sheet (``live``) or the same figures as values.
 
     Criteria are ``(column, cell reference, python value)``: the formula compares the loan
-    column with the label cell on the same row, so a reviewer can follow it; Python
-    compares with the value.
+    column with the label cell on the same row, so a reviewer can follow it; Python compares
+    with the value. ``first_row`` / ``last_row`` are the loan rows of the loan sheet.
     """
 
-    def __init__(self, loans: pd.DataFrame, *, live: bool, sheet: str = "Loans") -> None:
+    def __init__(self, loans: pd.DataFrame, *, live: bool, sheet: str = "Loans", first_row: int = 2) -> None:
         self.loans = loans
         self.live = live and len(loans) > 0
         self.sheet = quote_sheet(sheet)
-        self.last_row = len(loans) + 1
-        self.letters = {name: get_column_letter(j + 1) for j, name in enumerate(loans.columns)}
+        self.first_row = first_row
+        self.last_row = first_row + len(loans) - 1
+        self.letters = {name: col_letter(j + 1) for j, name in enumerate(loans.columns)}
         self._arrays: dict[str, tuple[np.ndarray, dict]] = {}
         self._cents: dict[str, np.ndarray] = {}
+        self._labels: dict[str, set[str]] = {}
+        self._seen: dict[tuple[str, Any], np.ndarray] = {}
 
     def _matches(self, column: str, value: Any) -> np.ndarray:
         """Loans whose ``column`` equals ``value`` (text through integer codes: fast on big tapes)."""
+        key = (column, value)
+        if key not in self._seen:
+            self._seen[key] = self._compare(column, value)
+        return self._seen[key]
+
+    def _compare(self, column: str, value: Any) -> np.ndarray:
         series = self.loans[column]
         if pd.api.types.is_numeric_dtype(series.dtype) or pd.api.types.is_bool_dtype(series.dtype):
             return series.to_numpy() == value
@@ -75,37 +119,52 @@ class LoanRefs:
 
     def range(self, column: str) -> str:
         letter = self.letters[column]
-        return f"{self.sheet}!${letter}$2:${letter}${self.last_row}"
+        return f"{self.sheet}!${letter}${self.first_row}:${letter}${self.last_row}"
 
-    def _mask(self, criteria: list[tuple[str, str, Any]]) -> np.ndarray:
+    def mask(self, criteria: list[tuple[str, str, Any]]) -> np.ndarray:
         mask = np.ones(len(self.loans), dtype=bool)
         for column, _, value in criteria:
             mask &= self._matches(column, value)
         return mask
+
+    def _exact(self, column: str, value: Any) -> bool:
+        if not isinstance(value, str):
+            return False
+        if column not in self._labels:
+            self._labels[column] = {clean_text(v) for v in pd.unique(self.loans[column].dropna()) if isinstance(v, str)}
+        return needs_exact_match(clean_text(value), self._labels[column])
+
+    def _criteria_formula(self, criteria: list[tuple[str, str, Any]], values: str | None) -> str:
+        """SUMIFS / COUNTIFS, or SUMPRODUCT with EXACT when a label is not a plain criterion."""
+        if any(self._exact(c, v) for c, _, v in criteria):
+            terms = [f"EXACT({self.range(c)},{ref})" if self._exact(c, v) else f"({self.range(c)}={ref})"
+                     for c, ref, v in criteria]
+            product = "*".join(terms)
+            return f"=SUMPRODUCT({product},{values})" if values else f"=SUMPRODUCT({product}*1)"
+        parts = ",".join(f"{self.range(c)},{ref}" for c, ref, _ in criteria)
+        return f"=SUMIFS({values},{parts})" if values else f"=COUNTIFS({parts})"
 
     def total(self, column: str, criteria: list[tuple[str, str, Any]] | None = None) -> Figure:
         """SUM (no criteria) or SUMIFS of a money column."""
         if not self.has(column):
             return Figure(None, 0.0)
         criteria = criteria or []
-        value = int(self._money(column)[self._mask(criteria)].sum()) / 100.0
+        value = int(self._money(column)[self.mask(criteria)].sum()) / 100.0
         if not self.live:
             return Figure(None, value)
         if not criteria:
             return Figure(f"=SUM({self.range(column)})", value)
-        parts = ",".join(f"{self.range(c)},{ref}" for c, ref, _ in criteria)
-        return Figure(f"=SUMIFS({self.range(column)},{parts})", value)
+        return Figure(self._criteria_formula(criteria, self.range(column)), value)
 
     def count(self, criteria: list[tuple[str, str, Any]] | None = None) -> Figure:
         """Number of loans (COUNTA of the loan id) or COUNTIFS."""
         criteria = criteria or []
-        value = float(self._mask(criteria).sum())
+        value = float(self.mask(criteria).sum())
         if not self.live:
             return Figure(None, value)
         if not criteria:
             return Figure(f"=COUNTA({self.range(self.loans.columns[0])})", value)
-        parts = ",".join(f"{self.range(c)},{ref}" for c, ref, _ in criteria)
-        return Figure(f"=COUNTIFS({parts})", value)
+        return Figure(self._criteria_formula(criteria, None), value)
 
 
 @dataclass
@@ -115,29 +174,26 @@ class Ledger:
     values: dict[str, float] = field(default_factory=dict)
     formulas: dict[str, str] = field(default_factory=dict)
 
-    def put(self, ws: Any, row: int, col: int, figure: Figure | float | None, number_format: str | None = None,
-            *, bold: bool = False) -> str:
-        """Write a figure (formula when it has one, else its value) and record it; return its reference."""
-        ref = f"{get_column_letter(col)}{row}"
+    def put(self, sheet: Sheet, row: int, col: int, figure: Figure | float | None, kind: str = "money",
+            *, total: bool = False) -> str:
+        """Write a figure (a formula with its value cached, or the value) and record it; return its cell."""
+        ref = f"{col_letter(col)}{row}"
+        key = f"{sheet.name}!{ref}"
         if isinstance(figure, Figure):
-            value = figure.value
-            cell = ws.cell(row=row, column=col, value=Formula(figure.formula) if figure.formula else cell_value(value))
-            key = f"{ws.title}!{ref}"
-            self.values[key] = value
+            if kind == "money":  # a difference of cent amounts is a cent amount: no binary noise
+                figure = Figure(figure.formula, round(float(figure.value), 2))
             if figure.formula:
+                sheet.formula(row, col, figure.formula, figure.value, kind, total=total)
                 self.formulas[key] = figure.formula
-        else:
-            value = cell_value(figure)
-            cell = ws.cell(row=row, column=col, value=value)
-            if isinstance(value, (int, float)) and not isinstance(value, bool):
-                self.values[f"{ws.title}!{ref}"] = float(value)
-        if number_format:
-            cell.number_format = number_format
-        if bold:
-            from allowance.report.xlsx import TOTAL_FONT
-
-            cell.font = TOTAL_FONT
+            else:
+                sheet.put(row, col, figure.value, kind, total=total)
+            self.values[key] = float(figure.value)
+            return ref
+        sheet.put(row, col, figure, kind, total=total)
+        if isinstance(figure, (int, float, np.integer, np.floating)) and not isinstance(figure, bool) \
+                and np.isfinite(figure):
+            self.values[key] = float(figure)
         return ref
 
-    def local(self, ws: Any, ref: str) -> float:
-        return self.values[f"{ws.title}!{ref}"]
+    def local(self, sheet: Sheet, ref: str) -> float:
+        return self.values[f"{sheet.name}!{ref}"]

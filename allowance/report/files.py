@@ -30,15 +30,15 @@ import pyarrow.csv as pa_csv
 from allowance.exceptions import OutputError
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
+from allowance.report.workbook import write_summary_workbook, write_workbook
 from allowance.text import neutralise_frame
-from allowance.report.workbook import write_workbook
 
 __all__ = ["OUTPUT_FILES", "write_outputs"]
 
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
     "what_if.csv", "what_if_stage_changes.csv", "what_if_macro_paths.csv", "sensitivity.csv", "macro_paths.csv",
-    "reserve.xlsx", "run.json",
+    "reserve.xlsx", "summary.xlsx", "run.json",
 )
 
 
@@ -108,6 +108,8 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
         done("macro_paths.csv")
     write_workbook(folder / "reserve.xlsx", report)
     done("reserve.xlsx")
+    write_summary_workbook(folder / "summary.xlsx", report)
+    done("summary.xlsx")
     record = report.record or run_record(
         report.config, report.intake, report.loans, tie_out=report.tie_out, warnings=report.warnings,
         movements=report.movements,

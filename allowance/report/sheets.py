@@ -1,285 +1,349 @@
-"""The workbook's supporting sheets: movement, journal, what-if, intake, assumptions, record.
+"""The workbook's supporting sheets: movement, journal, what-if, intake, run record.
 
 Implements
 ----------
-movement_sheet, journal_sheet   the period's movement and the journal to book it
+movement_sheet, journal_sheet   the period's movement and the journal that books it
 what_if_sheet, stage_changes_frame
-intake_sheet, warnings_frame    rows read / accepted / rejected, the ledger tie-out, warnings
-assumptions_sheet               segments, staging rules, CECL period, scenario paths, reversion, roll rates
-term_structure_sheet            cumulative PD at 12 / 24 / 36 / 60 / 120 months
+intake_sheet, warnings_frame    rows read / accepted / rejected, date formats, the ledger tie-out
 record_sheet                    the run record
 """
 
 from __future__ import annotations
 
-import json
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-from openpyxl.styles import Font
-from openpyxl.utils import get_column_letter
 
 from allowance.frameworks import FRAMEWORK_RULES
+from allowance.report.cells import human
 from allowance.report.figures import Figure, Ledger, LoanRefs
-from allowance.report.xlsx import INTEGER, MONEY, RATE, TITLE_FONT, clean_text, put_table
+from allowance.report.xlsx import Sheet, col_letter
 
 if TYPE_CHECKING:
     from allowance.reconcile import Movement, WhatIf
     from allowance.report.record import RunReport
 
 __all__ = [
-    "assumptions_sheet", "intake_sheet", "journal_sheet", "movement_sheet", "record_sheet",
-    "stage_changes_frame", "term_structure_sheet", "warnings_frame", "what_if_sheet",
+    "intake_sheet", "journal_sheet", "movement_sheet", "record_sheet", "stage_changes_frame", "warnings_frame",
+    "what_if_sheet",
 ]
 
 _FW_LABEL = {name: rules.label for name, rules in FRAMEWORK_RULES.items()}
-#: months at which the term-structure sheet shows cumulative PD
-PD_MONTHS: tuple[int, ...] = (12, 24, 36, 60, 120)
+_TOP = 4
 
 
-def _title(ws: Any, row: int, text: str) -> int:
-    ws.cell(row=row, column=1, value=clean_text(text)).font = TITLE_FONT
-    return row + 1
+def _class_header(name: Any) -> str:
+    text = str(name)
+    return text[:1].upper() + text[1:] if text.startswith("stage") else text
 
 
-def _movement_table(ws: Any, row: int, table: pd.DataFrame, title: str, led: Ledger) -> int:
+def _movement_table(sheet: Sheet, row: int, table: pd.DataFrame, title: str, led: Ledger) -> int:
     """A wide movement table whose closing row is a SUM of the lines above it."""
-    shown = table.drop(columns="line").rename(columns={"label": "Line", "total": "Total"})
-    shown.columns = [c[:1].upper() + c[1:] if str(c).startswith("stage") else c for c in shown.columns]
-    first, last = put_table(ws, shown, row, 1, title=title, formats={c: MONEY for c in shown.columns[1:]})
-    closing = last  # the closing line is last
-    ws.cell(row=closing, column=1).font = Font(bold=True)
-    for j, column in enumerate(shown.columns[1:], start=2):
-        letter = get_column_letter(j)
-        value = float(shown[column].iloc[-1])
-        led.put(ws, closing, j, Figure(f"=SUM({letter}{first}:{letter}{closing - 1})", value), MONEY, bold=True)
-    return last + 2
+    shown = table.drop(columns="line")
+    classes = [c for c in shown.columns if c != "label"]
+    row = sheet.section(row, title)
+    sheet.header(row, 1, ["Line"] + [_class_header(c) if c != "total" else "Total" for c in classes],
+                 ["text"] + ["money"] * len(classes))
+    first = row + 1
+    for i, record in enumerate(shown.itertuples(index=False)):
+        r = first + i
+        closing = i == len(shown) - 1
+        sheet.label(r, 1, record[0], total=closing)
+        for j, column in enumerate(classes, start=2):
+            value = float(shown[column].iloc[i])
+            if closing:
+                letter = col_letter(j)
+                led.put(sheet, r, j, Figure(f"=SUM({letter}{first}:{letter}{r - 1})", value), "money", total=True)
+            else:
+                led.put(sheet, r, j, value, "money")
+    return first + len(shown) + 1
 
 
-def movement_sheet(ws: Any, movements: tuple[Movement, ...], led: Ledger) -> None:
+def _detail_table(sheet: Sheet, row: int, detail: pd.DataFrame, title: str, led: Ledger) -> int:
+    """The movement by segment and class: each segment's lines under its name, classes across."""
+    if detail.empty:
+        return row
+    order = list(dict.fromkeys(detail["label"]))
+    grid = detail.pivot_table(index=["segment", "label"], columns="class", values="amount", aggfunc="sum",
+                              fill_value=0.0, sort=False)
+    classes = sorted(grid.columns, key=lambda c: (str(c) == "POCI", str(c)))
+    row = sheet.section(row, title)
+    sheet.header(row, 1, ["Segment and line"] + [_class_header(c) for c in classes] + ["Total"],
+                 ["text"] + ["money"] * (len(classes) + 1))
+    r = row + 1
+    for segment in sorted(grid.index.get_level_values(0).unique(), key=str):
+        sheet.put(r, 1, str(segment), style=sheet.styles.named("subhead"))
+        r += 1
+        part = grid.loc[segment]
+        for label in [x for x in order if x in part.index]:
+            values = [float(part.loc[label, c]) for c in classes]
+            closing = str(label).lower() == "closing"
+            sheet.label(r, 1, f"   {label}", total=closing)
+            for j, value in enumerate(values + [sum(values)], start=2):
+                led.put(sheet, r, j, round(value, 2), "money", total=closing)
+            r += 1
+    return r + 1
+
+
+def movement_sheet(sheet: Sheet, movements: "tuple[Movement, ...]", led: Ledger) -> None:
     """Each framework's allowance and gross carrying amount movement, and the roll-forward."""
-    ws.column_dimensions["A"].width = 44
-    row = 1
+    row = _TOP
     for m in movements:
         fw = _FW_LABEL[m.framework]
         by = "stage" if FRAMEWORK_RULES[m.framework].class_order else "segment"
-        note = "" if m.assumptions_isolated else " (no rerun at prior assumptions: remeasurement holds every change)"
         for text in m.notes:
-            ws.cell(row=row, column=1, value=clean_text(f"Note: {text}.")).font = Font(italic=True)
-            row += 1
-        row = _movement_table(ws, row, m.allowance, f"{fw} allowance: opening to closing, by {by}{note}", led)
-        row = _movement_table(ws, row, m.gross, f"{fw} gross carrying amount: opening to closing, by {by}", led)
+            row = sheet.note(row, f"Note: {text}.", span=7)
+        if not m.assumptions_isolated:
+            row = sheet.note(row, "No rerun at the prior assumptions was possible: remeasurement holds every "
+                             "change, assumptions included.", span=7)
+        row = _movement_table(sheet, row, m.allowance, f"{fw} allowance: opening to closing, by {by}", led)
+        row = _movement_table(sheet, row, m.gross, f"{fw} gross carrying amount: opening to closing, by {by}", led)
+        rules = _ledger_rules(m.framework)
         roll = m.rollforward.rename(columns={
-            "segment": "Segment", "beginning": "Beginning allowance", "provision": "Provision for credit losses",
-            "charge_offs": "Charge-offs", "recoveries": "Recoveries", "ending": "Ending allowance"})
-        first, last = put_table(ws, roll, row, 1, title=f"{fw} allowance roll-forward by segment",
-                                formats={c: MONEY for c in roll.columns[1:]}, total_rows=1)
-        for r in range(first, last + 1):
-            led.put(ws, r, 6, Figure(f"=SUM(B{r}:E{r})", float(roll["Ending allowance"].iloc[r - first])), MONEY,
-                    bold=r == last)
+            "segment": "Segment", "beginning": "Beginning allowance",
+            "initial_allowance_pcd": "Initial allowance on PCD assets (gross-up)",
+            "provision": "Provision for credit losses",
+            "charge_offs": getattr(rules, "charge_off_label", "Charge-offs"),
+            "recoveries": "Recoveries", "ending": "Ending allowance"})
+        first, last = sheet.table(row, roll, title=f"{fw} allowance roll-forward by segment",
+                                  kinds={c: "money" for c in roll.columns[1:]}, total_rows=1)
+        end_col = list(roll.columns).index("Ending allowance") + 1
+        for r in range(first, last + 1):  # ending = the sum of the lines before it
+            led.put(sheet, r, end_col, Figure(f"=SUM(B{r}:{col_letter(end_col - 1)}{r})",
+                                              float(roll["Ending allowance"].iloc[r - first])), "money",
+                    total=r == last)
         row = last + 2
-        detail = m.allowance_detail.drop(columns="line").rename(columns={
-            "segment": "Segment", "class": "Class", "label": "Line", "amount": "Amount"})
-        _, last = put_table(ws, detail, row, 1, title=f"{fw} allowance movement by segment and class")
-        row = last + 2
+        write_offs = getattr(m, "write_offs", None)
+        if write_offs is not None and not write_offs.empty:
+            bridge = write_offs.rename(columns=lambda c: c[:1].upper() + c[1:].replace("_", " "))
+            kinds = {c: "money" for c in bridge.columns if c not in ("Segment", "Recoveries treatment")}
+            kinds["Recoveries treatment"] = "wrap"
+            _, last = sheet.table(row, bridge, title=f"{fw}: allowance written off to gross charge-offs; recoveries "
+                                  f"{getattr(rules, 'recoveries_treatment', '')}".rstrip("; "), kinds=kinds)
+            row = last + 2
+        for text in getattr(m, "not_isolated", ()):
+            row = sheet.note(row, f"Not isolated: {text}.", span=7)
+        row = _detail_table(sheet, row, m.allowance_detail, f"{fw} allowance movement by segment and class", led)
 
 
-def journal_sheet(ws: Any, movements: tuple[Movement, ...], led: Ledger) -> None:
-    """The journal summary that books the period's provision (or release), by segment."""
-    row = 1
-    for m in movements:
-        fw = _FW_LABEL[m.framework]
-        row = _title(ws, row, f"{fw}: journal for the period's provision")
-        ws.cell(row=row, column=1, value=clean_text(
-            "Provision = ending - beginning allowance + charge-offs - recoveries, per segment. A positive provision "
-            "debits the expense and credits the allowance; a release is the reverse."))
-        row += 1
-        journal = m.journal.rename(columns=str.capitalize)
-        first, last = put_table(ws, journal, row, 1, formats={"Debit": MONEY, "Credit": MONEY}, total_rows=1)
-        for j, column in ((4, "Debit"), (5, "Credit")):
-            letter = get_column_letter(j)
-            led.put(ws, last, j, Figure(f"=SUM({letter}{first}:{letter}{last - 1})", float(journal[column].iloc[-1])),
-                    MONEY, bold=True)
-        ws.cell(row=last + 1, column=1, value="Net provision (release negative)").font = Font(bold=True)
-        led.put(ws, last + 1, 4, m.net_provision, MONEY, bold=True)
-        row = last + 3
-    ws.column_dimensions["C"].width = 48
+def _ledger_rules(framework: str) -> Any:
+    """The framework's ledger wording (charge-off line, recoveries treatment), when reconcile has it."""
+    try:
+        from allowance.reconcile.tables import LEDGER  # here: reconcile imports report's text helpers
+    except ImportError:
+        return None
+    return LEDGER.get(framework)
 
 
-def what_if_sheet(ws: Any, what_if: WhatIf) -> None:
+def journal_sheet(sheet: Sheet, report: "RunReport", led: Ledger) -> None:
+    """The journal that books the period's provision (or release), by segment, with account codes."""
+    accounts = getattr(report.config.assumptions, "gl_accounts", None) or {}
+    row = _TOP
+    row = sheet.note(row, "Provision = ending - beginning allowance - PCD gross-up + charge-offs - recoveries, per "
+                     "segment. A provision debits the expense and credits the allowance; a release is the reverse. A "
+                     "PCD gross-up debits the loans' amortised cost, not the expense.", span=6)
+    if not accounts:
+        row = sheet.note(row, "Account codes: none given. Set them in the assumptions file under "
+                         "[gl_accounts.<framework>] (expense, allowance; per segment under segments.<name>).", span=6)
+    row += 1
+    for m in report.movements:
+        codes = accounts.get(m.framework)
+        row = sheet.section(row, f"{_FW_LABEL[m.framework]}: journal for the period's provision")
+        journal = m.journal
+        sheet.header(row, 1, ["Segment", "Entry", "Account code", "Account", "Debit", "Credit"],
+                     ["text", "text", "text", "text", "money", "money"])
+        first = row + 1
+        r = first
+        rules = _ledger_rules(m.framework)
+        for rec in journal.iloc[:-1].itertuples(index=False):
+            if rules is not None and hasattr(rules, "expense_account"):
+                side = {rules.expense_account: "expense", rules.allowance_account: "allowance"}.get(rec.account)
+            else:  # a provision debits the expense; a release credits it
+                side = "expense" if (rec.entry == "provision") == (float(rec.debit) > 0) else "allowance"
+            sheet.label(r, 1, rec.segment)
+            sheet.put(r, 2, rec.entry)
+            sheet.put(r, 3, _account_code(codes, str(rec.segment), side) if side else None)
+            sheet.put(r, 4, rec.account)
+            led.put(sheet, r, 5, float(rec.debit), "money")
+            led.put(sheet, r, 6, float(rec.credit), "money")
+            r += 1
+        total = journal.iloc[-1]
+        sheet.label(r, 1, "Total", total=True)
+        for c in (2, 3, 4):
+            sheet.put(r, c, None, total=True)
+        for j, column in ((5, "debit"), (6, "credit")):
+            letter = col_letter(j)
+            led.put(sheet, r, j, Figure(f"=SUM({letter}{first}:{letter}{r - 1})", float(total[column])), "money",
+                    total=True)
+        sheet.label(r + 1, 1, "Net provision (a release is negative)", total=True)
+        led.put(sheet, r + 1, 5, m.net_provision, "money", total=True)
+        row = r + 3
+
+
+def _account_code(codes: Any, segment: str, side: str) -> str | None:
+    if codes is None:
+        return None
+    per_segment = (getattr(codes, "segments", None) or {}).get(segment)
+    if per_segment is not None and getattr(per_segment, side, None):
+        return getattr(per_segment, side)
+    return getattr(codes, side, None)
+
+
+def what_if_sheet(sheet: Sheet, what_if: "WhatIf") -> None:
+    """Base against what-if: totals, by segment and stage, by scenario."""
     summary = what_if.summary
-    ws.cell(row=1, column=1, value=clean_text(
-        f"What-if rerun against the base run: {len(what_if.stage_changes):,} loans change stage "
-        "(listed on the Stage changes sheet)."))
-    put_table(ws, summary, 3, 1, title="Allowance, base against what-if", autofilter=True)
-    ws.freeze_panes = "A5"
+    row = sheet.note(_TOP, f"{len(what_if.stage_changes):,} loans change stage under the what-if"
+                     + (" (listed on the Stage changes sheet and in what_if_stage_changes.csv)."
+                        if len(what_if.stage_changes) else "."), span=7)
+    row += 1
+    for view, title in (("total", "Total allowance"), ("segment and stage", "By segment and stage"),
+                        ("scenario", "Each scenario at 100 % weight")):
+        part = summary[summary["view"] == view].drop(columns="view")
+        if part.empty:
+            continue
+        part = part.assign(framework=part["framework"].map(lambda f: _FW_LABEL.get(f, f)))
+        part["change_percent"] = np.where(part["base"] != 0, part["difference"] / part["base"].where(part["base"] != 0, 1),
+                                          0.0)
+        keep = ["framework"] + [c for c in ("segment", "stage", "scenario") if part[c].astype(str).ne("").any()]
+        part = part[keep + ["base", "what_if", "difference", "change_percent"]]
+        _, last = sheet.table(row, part.reset_index(drop=True), title=title,
+                              kinds={"stage": "center", "change_percent": "rate"},
+                              headers={"change_percent": "Change %", "difference": "Change"})
+        row = last + 2
 
 
-def stage_changes_frame(what_if: WhatIf) -> pd.DataFrame:
+def stage_changes_frame(what_if: "WhatIf") -> pd.DataFrame:
     return what_if.stage_changes
 
 
-def warnings_frame(report: RunReport) -> pd.DataFrame:
+def warnings_frame(report: "RunReport") -> pd.DataFrame:
     """Intake findings on accepted rows, then the run's own warnings."""
     cols = ["source_row", "loan_id", "column", "code", "message"]
     intake = report.intake.warnings
     parts = [intake.reindex(columns=cols)] if len(intake) else []
     if report.warnings:
         parts.append(pd.DataFrame({"code": "run", "message": list(report.warnings)}).reindex(columns=cols))
-    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
+    frame = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
+    if len(frame):
+        frame["source_row"] = pd.to_numeric(frame["source_row"], errors="coerce").astype("Int64")
+    return frame
 
 
-def intake_sheet(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
-    """Rows read, accepted and rejected (by reason), warnings by code, and the ledger tie-out."""
-    intake = report.intake
-    ws.column_dimensions["A"].width = 42
-    ws.column_dimensions["B"].width = 20
-    row = _title(ws, 1, f"Loan tape: {intake.file.path}")
-    for label, value in (("Rows read", intake.rows_read), ("Accepted", intake.rows_accepted),
-                         ("Rejected", intake.rows_rejected)):
-        ws.cell(row=row, column=1, value=label)
-        led.put(ws, row, 2, value, INTEGER)
-        row += 1
-    ws.cell(row=row, column=1, value="Read - accepted - rejected (must be 0)")
-    led.put(ws, row, 2, Figure(f"=B{row - 3}-B{row - 2}-B{row - 1}", 0.0), INTEGER)
-    row += 1
-    ws.cell(row=row, column=1, value="Balance of the accepted loans (sum of the Loans sheet)")
-    led.put(ws, row, 2, refs.total("balance"), MONEY)
-    row += 2
-
-    rejected = intake.rejected
-    if len(rejected) and "reason_codes" in rejected.columns:
-        codes = rejected["reason_codes"].astype(str).str.split(";").explode().str.strip()
-        counts = codes[codes != ""].value_counts().rename_axis("reason").reset_index(name="rows")
-        _, last = put_table(ws, counts, row, 1, title="Rejected rows by reason (a row can fail several rules)",
-                            formats={"rows": INTEGER})
-        row = last + 2
-    warnings = intake.warnings
-    if len(warnings):
-        counts = warnings["code"].astype(str).value_counts().rename_axis("warning").reset_index(name="rows")
-        _, last = put_table(ws, counts, row, 1, title="Warnings on accepted rows, by code", formats={"rows": INTEGER})
-        row = last + 2
-    tie = report.tie_out
-    row = _title(ws, row, "Ledger tie-out")
-    if tie is None:
-        ws.cell(row=row, column=1, value="No ledger control total was given ([run] ledger_balance).")
-        return
-    items = [("Ledger balance", tie.ledger_balance, MONEY), ("Accepted tape balance", tie.accepted_balance, MONEY),
-             ("Rejected rows' balance", tie.rejected_balance, MONEY), ("Difference (accepted - ledger)", tie.difference, MONEY),
-             ("Tolerance", tie.tolerance, MONEY), ("Within tolerance", tie.within_tolerance, None),
-             ("Accepted by the user despite the difference", tie.accepted_by_user, None),
-             ("Explanation", tie.explanation, None)]
-    for label, value, fmt in items:
-        ws.cell(row=row, column=1, value=label)
-        led.put(ws, row, 2, value, fmt)
-        row += 1
-
-
-def _text(value: Any) -> Any:
-    """Scalars as they are; lists and tables as compact text."""
-    if isinstance(value, (dict, list)):
-        return json.dumps(value, separators=(", ", ": "), default=str)
-    return value
-
-
-def _key_values(ws: Any, row: int, title: str, data: dict) -> int:
-    row = _title(ws, row, title)
-    for key, value in data.items():
-        ws.cell(row=row, column=1, value=clean_text(str(key)))
-        cell = ws.cell(row=row, column=2)
-        value = _text(value)
-        cell.value = clean_text(value) if isinstance(value, str) else value
+def _key_values(sheet: Sheet, row: int, items: list[tuple[str, Any, str]], *, title: str | None = None) -> int:
+    """Label / value rows (each value in its display kind); returns the row after a gap."""
+    if title:
+        row = sheet.section(row, title)
+    for label, value, kind in items:
+        sheet.label(row, 1, label)
+        sheet.put(row, 2, value, kind, align="left", fit=kind != "wrap")
         row += 1
     return row + 1
 
 
-def assumptions_sheet(ws: Any, report: RunReport) -> None:
-    """The assumptions the run used, as the engine saw them after every overlay file was merged."""
-    a = report.config.assumptions
-    ws.column_dimensions["A"].width = 30
-    ws.column_dimensions["B"].width = 24
-    row = _key_values(ws, 1, "Run", a.run.model_dump(mode="json"))
-    segments = pd.DataFrame(
-        [{"segment": name, "pd_source": seg.pd_source,
-          **{k: _text(v) for k, v in seg.model_dump(mode="json", exclude_none=True).items()}}
-         for name, seg in a.segments.items()]
-    )
-    _, last = put_table(ws, segments, row, 1, title="Segments: PD source, LGD, EAD / CCF, prepayment")
-    row = last + 2
-    if a.ifrs9 is not None:
-        row = _key_values(ws, row, "IFRS 9 staging rules", a.ifrs9.model_dump(mode="json"))
-    if a.cecl is not None:
-        row = _key_values(ws, row, "CECL: reasonable and supportable period and reversion", a.cecl.model_dump(mode="json"))
-    paths = []
-    for name, s in a.scenarios.items():
-        for kind in ("pd_multiplier", "z", "lgd_multiplier", "collateral_index"):
-            values = getattr(s, kind)
-            if values:
-                paths.append({"scenario": name, "weight": s.weight, "path": kind,
-                              **{f"year {i + 1}": v for i, v in enumerate(values)}})
-        if not any(getattr(s, k) for k in ("pd_multiplier", "z", "lgd_multiplier", "collateral_index")):
-            paths.append({"scenario": name, "weight": s.weight, "path": "none (long-run PDs)"})
-    scen = pd.DataFrame(paths)
-    year_cols = {c: "0.0000" for c in scen.columns if c.startswith("year")}
-    _, last = put_table(ws, scen, row, 1, title="Scenario paths by year from the as-of date", formats=year_cols)
-    row = last + 2
-    descriptions = {n: s.description for n, s in a.scenarios.items() if s.description}
-    if descriptions:
-        row = _key_values(ws, row, "Scenario descriptions", descriptions)
-    reversion = report.reversion
-    if reversion is not None and not reversion.empty:
-        grid = reversion.pivot_table(index="month", columns="scenario", values="weight_on_scenario", aggfunc="first")
-        grid = grid.reset_index()
-        grid.columns = [str(c) for c in grid.columns]
-        _, last = put_table(ws, grid, row, 1, title="CECL reversion path: weight on the scenario path by month",
-                            formats={c: RATE for c in grid.columns[1:]})
-        row = last + 2
-    rolls = report.roll_rates
-    if rolls is not None and not rolls.empty:
-        _, last = put_table(ws, rolls, row, 1, title="Roll-rate summary by delinquency bucket",
-                            formats={"expected_months_to_charge_off": "0.0"})
-        row = last + 2
+def intake_sheet(sheet: Sheet, report: "RunReport", refs: LoanRefs, led: Ledger) -> None:
+    """Rows read, accepted and rejected (by reason), the date formats read, warnings and the tie-out."""
+    intake = report.intake
+    row = sheet.section(_TOP, f"Loan tape: {Path(intake.file.path).name}")
+    first = row
+    for label, value in (("Rows read", intake.rows_read), ("Accepted", intake.rows_accepted),
+                         ("Rejected", intake.rows_rejected)):
+        sheet.label(row, 1, label)
+        led.put(sheet, row, 2, value, "count")
+        row += 1
+    sheet.label(row, 1, "Rows read - accepted - rejected (must be 0)", total=True)
+    led.put(sheet, row, 2, Figure(f"=B{first}-B{first + 1}-B{first + 2}", 0.0), "count", total=True)
+    row += 1
+    if getattr(intake, "blank_rows", 0):
+        sheet.label(row, 1, "Blank lines skipped (not counted as rows)")
+        led.put(sheet, row, 2, intake.blank_rows, "count")
+        row += 1
+    sheet.label(row, 1, "Balance of the accepted loans")
+    led.put(sheet, row, 2, refs.total("balance"), "money")
+    row += 2
 
-
-def term_structure_sheet(ws: Any, report: RunReport) -> None:
-    """Cumulative PD at fixed months, one row per segment / curve key / framework / scenario."""
-    ts = report.term_structures
-    ws.cell(row=1, column=1, value="Cumulative PD term structures (full monthly curves on 'Monthly PD curves')").font = TITLE_FONT
-    if ts is None or ts.empty:
-        ws.cell(row=2, column=1, value="No term structures were recorded for this run.")
+    formats = getattr(intake, "date_formats", None) or {}
+    if formats:
+        frame = pd.DataFrame([{"column": c, **(v if isinstance(v, dict) else {"format": v})} for c, v in formats.items()])
+        _, last = sheet.table(row, frame, title="Date columns: the format each was read in",
+                              headers={"format": "Format read", "example": "Example as written"})
+        row = last + 2
+    rejected = intake.rejected
+    if len(rejected) and "reason_codes" in rejected.columns:
+        codes = rejected["reason_codes"].astype(str).str.split(";").explode().str.strip()
+        counts = codes[codes != ""].value_counts().rename_axis("reason").reset_index(name="rows")
+        _, last = sheet.table(row, counts, title="Rejected rows by reason (a row can fail several rules)")
+        row = last + 2
+    warnings = intake.warnings
+    if len(warnings):
+        counts = warnings["code"].astype(str).value_counts().rename_axis("warning").reset_index(name="rows")
+        _, last = sheet.table(row, counts, title="Warnings on accepted rows, by code")
+        row = last + 2
+    tie = report.tie_out
+    row = sheet.section(row, "Ledger tie-out")
+    if tie is None:
+        sheet.note(row, "No ledger control total was given ([run] ledger_balance).", span=2)
         return
-    keys = [c for c in ("segment", "key", "framework", "scenario") if c in ts.columns]
-    picked = ts[ts["month"].isin(PD_MONTHS)]
-    grid = picked.pivot_table(index=keys, columns="month", values="cumulative_pd", aggfunc="first")
-    grid = grid.reindex(columns=[m for m in PD_MONTHS if m in grid.columns])
-    grid.columns = [f"cumulative_pd_{m}m" for m in grid.columns]
-    last = ts.sort_values("month").groupby(keys, sort=False).tail(1).set_index(keys)
-    grid = grid.reindex(last.index)
-    grid["horizon_months"] = last["month"].astype(np.int64)
-    grid["cumulative_pd_horizon"] = last["cumulative_pd"]
-    put_table(ws, grid.reset_index(), 3, 1, autofilter=True)
-    ws.freeze_panes = "A4"
+    items = [("Ledger balance", tie.ledger_balance, "money"), ("Accepted tape balance", tie.accepted_balance, "money"),
+             ("Rejected rows' balance", tie.rejected_balance, "money"),
+             ("Difference (accepted - ledger)", tie.difference, "money"), ("Tolerance", tie.tolerance, "money"),
+             ("Within tolerance", "yes" if tie.within_tolerance else "no", "text"),
+             ("Accepted by the user despite the difference", "yes" if tie.accepted_by_user else "no", "text")]
+    for label, value, kind in items:
+        sheet.label(row, 1, label)
+        led.put(sheet, row, 2, value, kind)
+        row += 1
+    sheet.note(row + 1, f"Explanation: {tie.explanation}", span=2, style="paragraph")
 
 
-def record_sheet(ws: Any, report: RunReport) -> None:
+_RECORD_LABELS = {
+    "package": "Package", "version": "Version", "run_label": "Run label", "as_of": "As-of date",
+    "currency": "Currency", "run_by": "Run by", "started": "Started (UTC)", "timestamp": "Finished (UTC)",
+    "loans": "Loans", "total_balance": "Total balance", "warnings": "Warnings",
+}
+
+
+def _record_kind(key: str, value: Any) -> str:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return "text"
+    return "money" if key in ("total_balance",) or "balance" in key or "allowance" in key else "count"
+
+
+def record_sheet(sheet: Sheet, report: "RunReport") -> None:
     """The run record: who, when, what version, which files (with SHA-256), counts and totals."""
     record = report.record or {}
-    ws.column_dimensions["A"].width = 26
-    ws.column_dimensions["B"].width = 70
-    scalars = {k: v for k, v in record.items() if not isinstance(v, (dict, list)) and k != "assumptions"}
-    row = _key_values(ws, 1, "Run record (run.json)", scalars)
+    skip = {"assumptions"}
+    scalars = [(_RECORD_LABELS.get(k, human(k)), v if not isinstance(v, list) else ", ".join(map(str, v)),
+                _record_kind(k, v))
+               for k, v in record.items() if k not in skip and not isinstance(v, dict)
+               and not (isinstance(v, list) and v and isinstance(v[0], dict))]
+    row = _key_values(sheet, _TOP, scalars, title="The run")
     rows = record.get("rows")
     if isinstance(rows, dict):
-        row = _key_values(ws, row, "Rows", rows)
+        row = _key_values(sheet, row, [(human(k), v, "count") for k, v in rows.items()], title="Rows")
     inputs = pd.DataFrame(record.get("inputs") or [])
-    if not inputs.empty:
-        _, last = put_table(ws, inputs, row, 1, title="Input files", formats={"bytes": "#,##0"}, widths=False)
-        ws.column_dimensions["C"].width = 66
+    if not inputs.empty and "path" in inputs.columns:
+        shown = pd.DataFrame({"role": inputs["role"].map(human),
+                              "file": inputs["path"].map(lambda p: Path(str(p)).name),
+                              "sha256": inputs.get("sha256"), "bytes": inputs.get("bytes"),
+                              "folder": inputs["path"].map(lambda p: str(Path(str(p)).parent))})
+        _, last = sheet.table(row, shown, title="Input files", kinds={"bytes": "count", "folder": "wrap"})
+        sheet.width(5, 40)
         row = last + 2
     totals = record.get("total_allowance")
     if isinstance(totals, dict):
-        row = _key_values(ws, row, "Total allowance by framework", totals)
+        row = _key_values(sheet, row, [(_FW_LABEL.get(k, k), v, "money") for k, v in totals.items()],
+                          title="Total allowance by framework")
     tie = record.get("tie_out")
     if isinstance(tie, dict):
-        _key_values(ws, row, "Ledger tie-out", tie)
+        row = _key_values(sheet, row, [(human(k), v if not isinstance(v, bool) else ("yes" if v else "no"),
+                                        "money" if isinstance(v, (int, float)) and not isinstance(v, bool) else "wrap")
+                                       for k, v in tie.items()], title="Ledger tie-out")
+    for key, value in record.items():
+        if key in ("rows", "inputs", "total_allowance", "tie_out", "totals", "movement", "assumptions"):
+            continue
+        if isinstance(value, dict) and value and all(not isinstance(v, (dict, list)) for v in value.values()):
+            row = _key_values(sheet, row, [(str(k), v, _record_kind(str(k), v)) for k, v in value.items()],
+                              title=human(key))
+    sheet.width(2, max(sheet.fit.get(2, 0), 30))

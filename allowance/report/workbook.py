@@ -1,75 +1,68 @@
-"""The reserve workbook (``reserve.xlsx``): summary to loan detail, every figure traceable.
+"""The reserve workbook (``reserve.xlsx``) and the summary workbook (``summary.xlsx``).
 
 Implements
 ----------
-SHEETS          the sheet names, in order
-write_workbook  write the workbook for a :class:`~allowance.report.record.RunReport`
+SHEETS                 the sheet names, in order
+write_workbook         the full workbook: summary to loan detail, every figure traceable
+write_summary_workbook the printed sheets only, standing alone: no loan detail, no formula
+                       that points at a sheet it does not hold
 
-The summary, segment x stage and scenario figures are live SUM / SUMIFS / COUNTIFS formulas
-over the ``Loans`` sheet, so a reviewer can click from a total to its loans. When the run has
-more loans than ``[run] loan_detail_sheet_limit`` (or than a sheet holds), the loan detail is
-in ``loans.csv`` only, the ``Loans`` sheet says so, and the same cells carry values, each
-table noting the ``loans.csv`` column it ties to.
+The summary, segment x stage and scenario figures of ``reserve.xlsx`` are live formulas
+(SUM / SUMIFS / COUNTIFS, or an exact-match SUMPRODUCT, see :mod:`allowance.report.figures`)
+over the ``Loans`` sheet, so a reviewer can click from a total to its loans; every formula
+carries its computed value, so a reader that does not calculate sees the same numbers. When
+the run has more loans than ``[run] loan_detail_sheet_limit`` (or than a sheet holds), and
+always in ``summary.xlsx``, the same cells hold values, each table naming the ``loans.csv``
+column it ties to.
 """
 
 from __future__ import annotations
 
+from datetime import datetime
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
-from openpyxl import Workbook
-from openpyxl.chart import BarChart, Reference
-from openpyxl.styles import Alignment, Font
-from openpyxl.utils import get_column_letter
 
 from allowance.frameworks import FRAMEWORK_RULES
+from allowance.report import clock
+from allowance.report.bulk import BULK_HEADER_ROW, BulkSheet, save
+from allowance.report.cells import human
 from allowance.report.figures import Figure, Ledger, LoanRefs
 from allowance.report.record import CAUTION, RunReport
 from allowance.report.sheets import (
-    assumptions_sheet, intake_sheet, journal_sheet, movement_sheet, record_sheet, stage_changes_frame,
-    term_structure_sheet, warnings_frame, what_if_sheet,
+    intake_sheet, journal_sheet, movement_sheet, record_sheet, stage_changes_frame, warnings_frame, what_if_sheet,
 )
-from allowance.report.xlsx import (
-    EXCEL_MAX_ROWS, HEADER_FILL, HEADER_FONT, INTEGER, MONEY, RATE, TITLE_FONT, BulkSheet,
-    clean_text, inject_bulk,
-)
+from allowance.report.assumptions_sheet import assumptions_sheet, monthly_curves_frame, term_structure_sheet
+from allowance.report.xlsx import Book, Context, Sheet, col_letter, nice_axis
 
-__all__ = ["SHEETS", "write_workbook"]
+__all__ = ["SHEETS", "write_summary_workbook", "write_workbook"]
 
 SHEETS: tuple[str, ...] = (
     "Summary", "By segment and stage", "Scenarios", "Overlays", "Movement", "Journal", "What-if",
     "Stage changes", "Intake", "Warnings", "Assumptions", "Term structures", "Monthly PD curves",
     "Schedules", "Run record", "Loans",
 )
-_FW_LABEL = {name: rules.label for name, rules in FRAMEWORK_RULES.items()}
+#: tables longer than this go on a sheet of their own that is not printed by default
+PRINT_ROW_LIMIT = 250
+EXCEL_MAX_ROWS = 1_048_576
+FW_LABEL = {name: rules.label for name, rules in FRAMEWORK_RULES.items()}
 
 
 def _staged(frameworks: list[str]) -> str | None:
     """The framework of the run whose loans carry stages (IFRS 9), if any."""
     return next((f for f in frameworks if FRAMEWORK_RULES[f].staged), None)
-
-
-def _header(ws: Any, row: int, col: int, names: list[str], widths: list[float] | None = None) -> None:
-    for j, name in enumerate(names):
-        cell = ws.cell(row=row, column=col + j, value=clean_text(name))
-        cell.font, cell.fill = HEADER_FONT, HEADER_FILL
-        cell.alignment = Alignment(wrap_text=True, vertical="top")
-        if widths:
-            letter = get_column_letter(col + j)
-            ws.column_dimensions[letter].width = max(ws.column_dimensions[letter].width or 0, widths[j])
+_TOP = 4  # the first row under the title rows and a blank row
 
 
 def _coverage(allowance_ref: str, balance_ref: str, allowance: float, balance: float) -> Figure:
     return Figure(f"=IF({balance_ref}=0,0,{allowance_ref}/{balance_ref})", allowance / balance if balance else 0.0)
 
 
-def _tie_note(ws: Any, row: int, refs: LoanRefs, what: str) -> int:
-    if not refs.live:
-        ws.cell(row=row, column=1, value=clean_text(
-            f"Values, not formulas: the loan detail is in loans.csv only. {what}")).font = Font(italic=True)
-        return row + 1
-    return row
+def _tie_note(sheet: Sheet, row: int, refs: LoanRefs, what: str) -> int:
+    if refs.live:
+        return row
+    return sheet.note(row, f"Values, not formulas: the loan detail is not in this workbook. {what}")
 
 
 def _classes(loans: pd.DataFrame) -> list[tuple[str, Any, list[tuple[str, str, Any]]]]:
@@ -82,11 +75,53 @@ def _classes(loans: pd.DataFrame) -> list[tuple[str, Any, list[tuple[str, str, A
     stages = sorted(int(s) for s in loans["stage"].dropna().unique()) if "stage" in loans.columns else []
     out = []
     for stage in sorted(set(stages) | {1, 2, 3}):
-        crit = [("stage", str(stage), stage)] + ([("poci", "FALSE", False)] if poci else [])
+        crit = [("stage", "", stage)] + ([("poci", "FALSE", False)] if poci else [])
         out.append((f"Stage {stage}", stage, crit))
     if poci:
         out.append(("POCI", "POCI", [("poci", "TRUE", True)]))
     return out
+
+
+def _with_ref(crit: list[tuple[str, str, Any]], column: str, ref: str) -> list[tuple[str, str, Any]]:
+    """The criteria with ``column``'s cell reference filled in."""
+    return [(c, ref if c == column else r, v) for c, r, v in crit]
+
+
+def _segments(loans: pd.DataFrame) -> list[Any]:
+    return sorted(loans["segment"].dropna().unique(), key=str) if "segment" in loans.columns else []
+
+
+# --------------------------------------------------------------------------------------
+# Prior-quarter figures (from the movement, when a prior run was given)
+# --------------------------------------------------------------------------------------
+
+
+def _prior(report: RunReport) -> dict[str, dict[str, Any]]:
+    """Per framework: the prior run's total, by class (IFRS 9 stage / POCI) and by segment."""
+    out: dict[str, dict[str, Any]] = {}
+    for m in report.movements:
+        table = m.allowance.set_index("line")
+        opening = table.loc["opening"]
+        classes = {str(c).capitalize() if str(c).startswith("stage") else str(c): float(opening[c])
+                   for c in table.columns if c not in ("label", "total")}
+        roll = m.rollforward.set_index("segment")
+        out[m.framework] = {"total": float(opening["total"]), "by_class": classes,
+                            "by_segment": {str(s): float(v) for s, v in roll["beginning"].items() if s != "Total"},
+                            "roll": m.rollforward}
+    return out
+
+
+def _prior_columns(sheet: Sheet, led: Ledger, row: int, col: int, current_ref: str, prior: float | None,
+                   *, total: bool = False) -> None:
+    """Prior quarter, change and change in percent beside a current figure."""
+    if prior is None:
+        return
+    led.put(sheet, row, col, prior, "money", total=total)
+    current = led.local(sheet, current_ref)
+    prior_ref = f"{col_letter(col)}{row}"
+    change = led.put(sheet, row, col + 1, Figure(f"={current_ref}-{prior_ref}", current - prior), "money", total=total)
+    led.put(sheet, row, col + 2, Figure(f"=IF({prior_ref}=0,0,{change}/{prior_ref})",
+                                        (current - prior) / prior if prior else 0.0), "rate", total=total)
 
 
 # --------------------------------------------------------------------------------------
@@ -94,97 +129,210 @@ def _classes(loans: pd.DataFrame) -> list[tuple[str, Any, list[tuple[str, str, A
 # --------------------------------------------------------------------------------------
 
 
-def _summary(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
-    run = report.config.assumptions.run
+def _summary(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger, *, full: bool) -> None:
     loans = report.loans
-    ws.cell(row=1, column=1, value="Credit-loss allowance: reserve summary").font = Font(bold=True, size=15)
-    label = f" · run {run.label}" if run.label else ""
-    ws.cell(row=2, column=1, value=clean_text(f"As of {run.as_of.isoformat()} · amounts in {run.currency}{label}"))
-    ws.merge_cells("A3:H3")
-    caution = ws.cell(row=3, column=1, value=clean_text("Caution: " + CAUTION))
-    caution.alignment = Alignment(wrap_text=True, vertical="top")
-    caution.font = Font(italic=True, color="9C0006")
-    ws.row_dimensions[3].height = 78
-    for letter, width in zip("ABCDEFGH", (30, 10, 18, 19, 16, 18, 16, 16)):
-        ws.column_dimensions[letter].width = width
-    row = _tie_note(ws, 5, refs, "Each total is the sum of the named loans.csv column (over the rows named).")
+    prior = _prior(report)
+    what_if = report.what_if_parts is not None
+    row = sheet.note(_TOP - 1, "Caution: " + CAUTION, style="caution")
+    row += 1
+    if what_if:
+        files = _overlay_files(report)
+        row = sheet.note(row, "What-if run, not for booking: the assumptions with "
+                         + (", ".join(files) if files else "overlay files")
+                         + " merged over them, compared with the base run on the What-if sheet.", style="caution")
+        row += 1
+    row = _tie_note(sheet, row, refs, "Each total is the sum of the named loans.csv column (over the rows named).")
+    prior_heads = ["Prior quarter", "Change", "Change %"]
+    prior_kinds = ["money", "money", "rate"]
 
-    ws.cell(row=row, column=1, value="Allowance by framework").font = TITLE_FONT
-    _header(ws, row + 1, 1, ["Framework", "Loans", "Balance", "Modelled allowance", "Overlays", "Allowance", "Coverage"])
-    r = row + 2
+    row = sheet.section(row, "Allowance by framework")
+    heads = ["Framework", "Loans", "Balance", "Modelled allowance", "Overlays", "Allowance", "Coverage"]
+    kinds = ["text", "count", "money", "money", "money", "money", "rate"]
+    has_prior = any(f in prior for f in report.frameworks)
+    sheet.header(row, 1, heads + (prior_heads if has_prior else []), kinds + (prior_kinds if has_prior else []))
+    r = row + 1
     for f in report.frameworks:
-        ws.cell(row=r, column=1, value=_FW_LABEL[f])
-        led.put(ws, r, 2, refs.count(), INTEGER)
-        bal = led.put(ws, r, 3, refs.total("balance"), MONEY)
-        led.put(ws, r, 4, refs.total(f"ecl_{f}_modelled"), MONEY)
-        led.put(ws, r, 5, refs.total(f"overlay_{f}"), MONEY)
-        allowance = led.put(ws, r, 6, refs.total(f"ecl_{f}"), MONEY)
-        led.put(ws, r, 7, _coverage(allowance, bal, led.local(ws, allowance), led.local(ws, bal)), RATE)
+        sheet.label(r, 1, FW_LABEL[f])
+        led.put(sheet, r, 2, refs.count(), "count")
+        bal = led.put(sheet, r, 3, refs.total("balance"), "money")
+        led.put(sheet, r, 4, refs.total(f"ecl_{f}_modelled"), "money")
+        led.put(sheet, r, 5, refs.total(f"overlay_{f}"), "money")
+        allowance = led.put(sheet, r, 6, refs.total(f"ecl_{f}"), "money")
+        led.put(sheet, r, 7, _coverage(allowance, bal, led.local(sheet, allowance), led.local(sheet, bal)), "rate")
+        _prior_columns(sheet, led, r, 8, allowance, prior.get(f, {}).get("total"))
         r += 1
     r += 1
 
     staged = _staged(report.frameworks)
     if staged is not None and "stage" in loans.columns:
-        ws.cell(row=r, column=1, value=f"{_FW_LABEL[staged]} allowance by stage").font = TITLE_FONT
-        _header(ws, r + 1, 1, ["Stage", "Loans", "Balance", "12-month ECL", "Lifetime ECL", "Allowance", "Coverage"])
-        r += 2
-        first = r
+        r = sheet.section(r, f"{FW_LABEL[staged]} allowance by stage")
+        p = prior.get(staged)
+        sheet.header(r, 1, ["Stage", "Loans", "Balance", "12-month ECL", "Lifetime ECL", "Allowance", "Coverage"]
+                     + (prior_heads if p else []), kinds + (prior_kinds if p else []))
+        r += 1
         for label, _, crit in _classes(loans):
-            ws.cell(row=r, column=1, value=label)
-            led.put(ws, r, 2, refs.count(crit), INTEGER)
-            bal = led.put(ws, r, 3, refs.total("balance", crit), MONEY)
-            led.put(ws, r, 4, refs.total("ecl_12m", crit), MONEY)
-            led.put(ws, r, 5, refs.total("ecl_lifetime", crit), MONEY)
-            allowance = led.put(ws, r, 6, refs.total(f"ecl_{staged}", crit), MONEY)
-            led.put(ws, r, 7, _coverage(allowance, bal, led.local(ws, allowance), led.local(ws, bal)), RATE)
+            sheet.label(r, 1, label)
+            crit = _with_ref(crit, "stage", f"{_stage_number_ref(label)}")
+            led.put(sheet, r, 2, refs.count(crit), "count")
+            bal = led.put(sheet, r, 3, refs.total("balance", crit), "money")
+            led.put(sheet, r, 4, refs.total("ecl_12m", crit), "money")
+            led.put(sheet, r, 5, refs.total("ecl_lifetime", crit), "money")
+            allowance = led.put(sheet, r, 6, refs.total(f"ecl_{staged}", crit), "money")
+            led.put(sheet, r, 7, _coverage(allowance, bal, led.local(sheet, allowance), led.local(sheet, bal)), "rate")
+            if p:
+                _prior_columns(sheet, led, r, 8, allowance, p["by_class"].get(label, 0.0))
             r += 1
-        _total_row(ws, r, first, r - 1, refs, led, [(2, None, INTEGER), (3, "balance", MONEY), (4, "ecl_12m", MONEY),
-                                                    (5, "ecl_lifetime", MONEY), (6, f"ecl_{staged}", MONEY)],
-                   coverage=(6, 3, 7))
+        allowance = _total_row(sheet, r, refs, led, [(2, None, "count"), (3, "balance", "money"),
+                                                     (4, "ecl_12m", "money"), (5, "ecl_lifetime", "money"),
+                                                     (6, f"ecl_{staged}", "money")], coverage=[(6, 3, 7)])
+        if p:
+            _prior_columns(sheet, led, r, 8, "F" + str(r), p["total"], total=True)
         r += 2
 
-    ws.cell(row=r, column=1, value="Allowance by segment").font = TITLE_FONT
-    cols = ["Segment", "Loans", "Balance"]
+    r = sheet.section(r, "Allowance by segment")
+    cols, col_kinds = ["Segment", "Loans", "Balance"], ["text", "count", "money"]
     for f in report.frameworks:
-        cols += [f"{_FW_LABEL[f]} allowance", f"{_FW_LABEL[f]} coverage"]
-    _header(ws, r + 1, 1, cols)
-    r += 2
-    first = r
-    specs: list[tuple[int, str | None, str]] = [(2, None, INTEGER), (3, "balance", MONEY)]
-    for segment in sorted(loans["segment"].dropna().unique(), key=str) if "segment" in loans.columns else []:
-        ws.cell(row=r, column=1, value=clean_text(str(segment)))
+        cols += [f"{FW_LABEL[f]} allowance", f"{FW_LABEL[f]} coverage"]
+        col_kinds += ["money", "rate"]
+        if f in prior:
+            cols += [f"{FW_LABEL[f]} prior quarter", f"{FW_LABEL[f]} change"]
+            col_kinds += ["money", "money"]
+    sheet.header(r, 1, cols, col_kinds)
+    r += 1
+    positions = {}
+    c = 4
+    for f in report.frameworks:
+        positions[f] = c
+        c += 4 if f in prior else 2
+    for segment in _segments(loans):
+        sheet.label(r, 1, str(segment))
         crit = [("segment", f"$A{r}", segment)]
-        led.put(ws, r, 2, refs.count(crit), INTEGER)
-        bal = led.put(ws, r, 3, refs.total("balance", crit), MONEY)
-        for k, f in enumerate(report.frameworks):
-            allowance = led.put(ws, r, 4 + 2 * k, refs.total(f"ecl_{f}", crit), MONEY)
-            led.put(ws, r, 5 + 2 * k, _coverage(allowance, bal, led.local(ws, allowance), led.local(ws, bal)), RATE)
+        led.put(sheet, r, 2, refs.count(crit), "count")
+        bal = led.put(sheet, r, 3, refs.total("balance", crit), "money")
+        for f in report.frameworks:
+            c = positions[f]
+            allowance = led.put(sheet, r, c, refs.total(f"ecl_{f}", crit), "money")
+            led.put(sheet, r, c + 1, _coverage(allowance, bal, led.local(sheet, allowance), led.local(sheet, bal)), "rate")
+            if f in prior:
+                before = prior[f]["by_segment"].get(str(segment), 0.0)
+                led.put(sheet, r, c + 2, before, "money")
+                led.put(sheet, r, c + 3, Figure(f"={allowance}-{col_letter(c + 2)}{r}",
+                                                led.local(sheet, allowance) - before), "money")
         r += 1
-    for k, f in enumerate(report.frameworks):
-        specs.append((4 + 2 * k, f"ecl_{f}", MONEY))
-    _total_row(ws, r, first, r - 1, refs, led, specs,
-               coverage=[(4 + 2 * k, 3, 5 + 2 * k) for k in range(len(report.frameworks))])
+    specs: list[tuple[int, str | None, str]] = [(2, None, "count"), (3, "balance", "money")]
+    specs += [(positions[f], f"ecl_{f}", "money") for f in report.frameworks]
+    _total_row(sheet, r, refs, led, specs, coverage=[(positions[f], 3, positions[f] + 1) for f in report.frameworks])
+    for f in report.frameworks:
+        if f in prior:
+            c = positions[f]
+            led.put(sheet, r, c + 2, prior[f]["total"], "money", total=True)
+            cur = led.local(sheet, f"{col_letter(c)}{r}")
+            led.put(sheet, r, c + 3, Figure(f"={col_letter(c)}{r}-{col_letter(c + 2)}{r}", cur - prior[f]["total"]),
+                    "money", total=True)
     r += 2
-    for m in report.movements:
-        table = m.allowance.set_index("line")["total"]
-        ws.cell(row=r, column=1, value=clean_text(
-            f"{_FW_LABEL[m.framework]} movement since the prior run: opening {table['opening']:,.2f}, "
-            f"provision {m.net_provision:,.2f}, closing {table['closing']:,.2f} (see Movement and Journal)"))
+
+    if report.movements:
+        r = sheet.section(r, "Movement since the prior quarter (details on the Movement and Journal sheets)")
+        sheet.header(r, 1, ["Framework", "Opening allowance", "Provision for credit losses", "Charge-offs",
+                            "Recoveries", "Closing allowance"], ["text"] + ["money"] * 5)
         r += 1
-    ws.freeze_panes = "A4"
+        for m in report.movements:
+            total = m.rollforward[m.rollforward["segment"] == "Total"].iloc[0]
+            sheet.label(r, 1, FW_LABEL[m.framework])
+            for j, key in enumerate(("beginning", "provision", "charge_offs", "recoveries")):
+                led.put(sheet, r, 2 + j, float(total[key]), "money")
+            led.put(sheet, r, 6, Figure(f"=SUM(B{r}:E{r})", float(total["ending"])), "money")
+            r += 1
+        r += 1
+
+    if what_if:
+        r = _what_if_summary(sheet, r, report, led)
+
+    r = sheet.section(r, "What this workbook holds")
+    for name, what, printed in _contents(report, full=full):
+        sheet.label(r, 1, name)
+        sheet.put(r, 2, what + ("" if printed else " Not printed by default."), "text", fit=False)
+        r += 1
+    sheet.ws.freeze_panes(2, 0)
 
 
-def _total_row(ws: Any, r: int, first: int, last: int, refs: LoanRefs, led: Ledger,
-               specs: list[tuple[int, str | None, str]], coverage: Any = None) -> None:
+def _stage_number_ref(label: str) -> str:
+    return "" if label == "POCI" else f"{label.split()[-1]}"
+
+
+def _total_row(sheet: Sheet, r: int, refs: LoanRefs, led: Ledger, specs: list[tuple[int, str | None, str]],
+               coverage: list[tuple[int, int, int]] = ()) -> str:
     """A Total row: SUM over the loan sheet column (not over the rows above), so it ties directly."""
-    ws.cell(row=r, column=1, value="Total").font = Font(bold=True)
-    for col, column, fmt in specs:
+    sheet.label(r, 1, "Total", total=True)
+    last = ""
+    for col, column, kind in specs:
         figure = refs.count() if column is None else refs.total(column)
-        led.put(ws, r, col, figure, fmt, bold=True)
-    pairs = coverage if isinstance(coverage, list) else ([coverage] if coverage else [])
-    for a_col, b_col, out_col in pairs:
-        a, b = f"{get_column_letter(a_col)}{r}", f"{get_column_letter(b_col)}{r}"
-        led.put(ws, r, out_col, _coverage(a, b, led.local(ws, a), led.local(ws, b)), RATE, bold=True)
+        last = led.put(sheet, r, col, figure, kind, total=True)
+    for a_col, b_col, out_col in coverage:
+        a, b = f"{col_letter(a_col)}{r}", f"{col_letter(b_col)}{r}"
+        led.put(sheet, r, out_col, _coverage(a, b, led.local(sheet, a), led.local(sheet, b)), "rate", total=True)
+    return last
+
+
+def _overlay_files(report: RunReport) -> list[str]:
+    return [Path(i.path).name for i in report.config.inputs if i.role == "overlay"]
+
+
+def _what_if_summary(sheet: Sheet, r: int, report: RunReport, led: Ledger) -> int:
+    """The what-if's effect on each framework's total, and the overlay files that made it."""
+    parts = report.what_if_parts
+    totals = parts.summary[parts.summary["view"] == "total"]
+    r = sheet.section(r, "What-if against the base run")
+    sheet.header(r, 1, ["Framework", "Base allowance", "What-if allowance", "Change", "Change %"],
+                 ["text", "money", "money", "money", "rate"])
+    r += 1
+    for row in totals.itertuples(index=False):
+        sheet.label(r, 1, FW_LABEL.get(row.framework, row.framework))
+        led.put(sheet, r, 2, float(row.base), "money")
+        led.put(sheet, r, 3, float(row.what_if), "money")
+        led.put(sheet, r, 4, Figure(f"=C{r}-B{r}", float(row.what_if) - float(row.base)), "money")
+        led.put(sheet, r, 5, Figure(f"=IF(B{r}=0,0,D{r}/B{r})",
+                                    (float(row.what_if) - float(row.base)) / float(row.base) if row.base else 0.0), "rate")
+        r += 1
+    files = [i for i in report.config.inputs if i.role == "overlay"]
+    if files:
+        r += 1
+        sheet.header(r, 1, ["Overlay file", "SHA-256"], ["text", "text"])
+        r += 1
+        for i in files:
+            sheet.label(r, 1, Path(i.path).name)
+            sheet.put(r, 2, i.sha256, "text", fit=False)
+            r += 1
+    return r + 1
+
+
+def _contents(report: RunReport, *, full: bool) -> list[tuple[str, str, bool]]:
+    rows = [
+        ("By segment and stage", "Loans, balance, EAD, modelled and final allowance, coverage; a chart.", True),
+        ("Scenarios", "Each scenario at 100 % weight, the weighted result, overlays; a chart.", True),
+        ("Overlays", "Post-model adjustments: terms, rationale, owner, effect.", True),
+    ]
+    if report.movements:
+        rows += [("Movement", "Opening to closing allowance and gross carrying amount; roll-forward.", True),
+                 ("Journal", "The entries that book the period's provision.", True)]
+    if report.what_if_parts is not None:
+        rows += [("What-if", "Base against what-if by segment, stage and scenario.", True)]
+        if full:
+            rows += [("Stage changes", "Loans whose stage differs under the what-if.", False)]
+    rows += [("Intake", "Rows read, accepted and rejected; dates; the ledger tie-out.", True)]
+    if full:
+        rows += [("Warnings", "Findings on accepted rows.", len(warnings_frame(report)) <= PRINT_ROW_LIMIT)]
+    rows += [("Assumptions", "Every assumption the run used, as grids.", True),
+             ("Term structures", "Cumulative PD at 1, 2, 3, 5 and 10 years by segment and grade.", True)]
+    if full:
+        rows += [("Monthly PD curves", "Marginal and cumulative PD month by month.", False),
+                 ("Schedules", "Representative loans' schedules, month by month.", False)]
+    rows += [("Run record", "Version, input files with SHA-256, counts and totals (run.json).", True)]
+    if full:
+        rows += [("Loans", "One row per loan, as loans.csv.", False)]
+    else:
+        rows += [("(loan detail)", "Not in this file: see reserve.xlsx and loans.csv.", True)]
+    return rows
 
 
 # --------------------------------------------------------------------------------------
@@ -192,66 +340,98 @@ def _total_row(ws: Any, r: int, first: int, last: int, refs: LoanRefs, led: Ledg
 # --------------------------------------------------------------------------------------
 
 
-def _segment_stage(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
+def _segment_stage(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
     loans = report.loans
     fws = report.frameworks
     has_stage = "stage" in loans.columns
-    row = _tie_note(ws, 1, refs, "Each figure is the sum of the named loans.csv column for the segment and stage.")
-    ws.cell(row=row, column=1, value="Allowance by segment and stage").font = TITLE_FONT
+    row = _tie_note(sheet, _TOP, refs, "Each figure is the sum of the named loans.csv column for the segment "
+                    "and stage.")
     money = [("balance", "Balance"), ("ead", "EAD")]
     for f in fws:
-        money += [(f"ecl_{f}_modelled", f"{_FW_LABEL[f]} modelled"), (f"overlay_{f}", f"{_FW_LABEL[f]} overlays"),
-                  (f"ecl_{f}", f"{_FW_LABEL[f]} allowance")]
+        money += [(f"ecl_{f}_modelled", f"{FW_LABEL[f]} modelled"), (f"overlay_{f}", f"{FW_LABEL[f]} overlays"),
+                  (f"ecl_{f}", f"{FW_LABEL[f]} allowance")]
     money = [(c, label) for c, label in money if refs.has(c)]
-    names = ["Segment", "Stage", "Loans"] + [label for _, label in money] + [f"{_FW_LABEL[f]} coverage" for f in fws]
-    _header(ws, row + 1, 1, names, [22, 8, 10] + [18] * (len(names) - 3))
-    r = row + 2
-    segments = sorted(loans["segment"].dropna().unique(), key=str)
+    names = ["Segment", "Stage", "Loans"] + [label for _, label in money] + [f"{FW_LABEL[f]} coverage" for f in fws]
+    kinds = ["text", "center", "count"] + ["money"] * len(money) + ["rate"] * len(fws)
+    head = row
+    sheet.header(head, 1, names, kinds)
+    sheet.repeat_to = head
+    r = head + 1
+    segments = _segments(loans)
     classes = _classes(loans) if has_stage else [("", None, [])]
     for segment in segments:
-        for _, stage_cell, class_crit in classes:
-            ws.cell(row=r, column=1, value=clean_text(str(segment)))
-            crit = [("segment", f"$A{r}", segment)] + class_crit
+        seg_mask = refs.mask([("segment", "", segment)])
+        for label, stage_cell, class_crit in classes:
+            if label == "POCI" and not (seg_mask & refs.mask(class_crit)).any():
+                continue  # no POCI loans in this segment: no empty row
+            sheet.label(r, 1, str(segment))
+            crit = [("segment", f"$A{r}", segment)] + _with_ref(class_crit, "stage", f"$B{r}")
             if stage_cell is not None:
-                ws.cell(row=r, column=2, value=stage_cell)
-            led.put(ws, r, 3, refs.count(crit), INTEGER)
-            refs_by_col = {}
+                sheet.put(r, 2, stage_cell, "center")
+            led.put(sheet, r, 3, refs.count(crit), "count")
+            by_col = {}
             for j, (column, _) in enumerate(money):
-                refs_by_col[column] = led.put(ws, r, 4 + j, refs.total(column, crit), MONEY)
+                by_col[column] = led.put(sheet, r, 4 + j, refs.total(column, crit), "money")
             for k, f in enumerate(fws):
-                a, b = refs_by_col[f"ecl_{f}"], refs_by_col["balance"]
-                led.put(ws, r, 4 + len(money) + k, _coverage(a, b, led.local(ws, a), led.local(ws, b)), RATE)
+                a, b = by_col[f"ecl_{f}"], by_col["balance"]
+                led.put(sheet, r, 4 + len(money) + k, _coverage(a, b, led.local(sheet, a), led.local(sheet, b)), "rate")
             r += 1
-    ws.auto_filter.ref = f"A{row + 1}:{get_column_letter(len(names))}{max(r - 1, row + 1)}"
-    ws.freeze_panes = f"A{row + 2}"
+    sheet.ws.autofilter(head - 1, 0, r - 2, len(names) - 1)
+    _total_row(sheet, r, refs, led, [(3, None, "count")] + [(4 + j, c, "money") for j, (c, _) in enumerate(money)],
+               coverage=[(4 + [c for c, _ in money].index(f"ecl_{f}"), 4, 4 + len(money) + k) for k, f in enumerate(fws)])
+    sheet.ws.freeze_panes(head, 1)
 
-    # the grid behind the chart: segments down, stages across, the allowance of the staged
-    # framework (else the first)
+    # the grid behind the chart: segments down, classes across, the allowance of the first framework
     f = _staged(fws) or fws[0]
-    gr = r + 2
-    ws.cell(row=gr, column=1, value=f"{_FW_LABEL[f]} allowance by segment and stage (chart data)").font = TITLE_FONT
+    gr = r + 3
     by_class = has_stage and FRAMEWORK_RULES[f].staged
     chart_classes = classes if by_class else [("Allowance", None, [])]
+    gr = sheet.section(gr, f"{FW_LABEL[f]} allowance by segment and stage (the chart's data)")
     heads = ["Segment"] + [label for label, _, _ in chart_classes]
-    _header(ws, gr + 1, 1, heads)
+    sheet.header(gr, 1, heads, ["text"] + ["money"] * len(chart_classes))
+    lows, highs = [], []
     for i, segment in enumerate(segments):
-        rr = gr + 2 + i
-        ws.cell(row=rr, column=1, value=clean_text(str(segment)))
-        for j, (_, _, class_crit) in enumerate(chart_classes):
-            crit = [("segment", f"$A{rr}", segment)] + class_crit
-            led.put(ws, rr, 2 + j, refs.total(f"ecl_{f}", crit), MONEY)
-    if segments:
-        chart = BarChart()
-        chart.type, chart.grouping, chart.overlap = "col", "stacked", 100
-        chart.title = f"{_FW_LABEL[f]} allowance by segment and stage"
-        chart.y_axis.title, chart.x_axis.title = "Allowance", "Segment"
-        chart.y_axis.numFmt = "#,##0"
-        data = Reference(ws, min_col=2, max_col=len(heads), min_row=gr + 1, max_row=gr + 1 + len(segments))
-        cats = Reference(ws, min_col=1, min_row=gr + 2, max_row=gr + 1 + len(segments))
-        chart.add_data(data, titles_from_data=True)
-        chart.set_categories(cats)
-        chart.height, chart.width = 9, 18
-        ws.add_chart(chart, f"{get_column_letter(len(names) + 2)}{row + 1}")
+        rr = gr + 1 + i
+        sheet.label(rr, 1, str(segment))
+        neg = pos = 0.0
+        for j, (label, _, class_crit) in enumerate(chart_classes):
+            crit = [("segment", f"$A{rr}", segment)] + _with_ref(class_crit, "stage", str(_stage_number_ref(label)))
+            ref = led.put(sheet, rr, 2 + j, refs.total(f"ecl_{f}", crit), "money")
+            value = led.local(sheet, ref)
+            neg, pos = neg + min(value, 0.0), pos + max(value, 0.0)
+        lows.append(neg)
+        highs.append(pos)
+    if not segments:
+        return
+    book = sheet.book.workbook
+    chart = book.add_chart({"type": "column", "subtype": "stacked"})
+    last = gr + len(segments)
+    for j in range(len(chart_classes)):
+        chart.add_series({
+            "name": [sheet.name, gr - 1, 1 + j],
+            "categories": [sheet.name, gr, 0, last - 1, 0],
+            "values": [sheet.name, gr, 1 + j, last - 1, 1 + j],
+            "fill": {"color": _SERIES_COLOURS[j % len(_SERIES_COLOURS)]},
+            "gap": 60,
+        })
+    low, high = nice_axis(min(lows), max(highs))
+    chart.set_title({"name": f"{FW_LABEL[f]} allowance by segment and stage", "name_font": {"size": 11}})
+    chart.set_y_axis({"name": f"Allowance ({report.config.assumptions.run.currency})", "num_format": "#,##0",
+                      "min": low, "max": high, "major_gridlines": {"visible": True, "line": {"color": "#D9DEE3"}}})
+    chart.set_x_axis({"name": "Segment"})
+    chart.set_legend({"position": "bottom"})
+    # beside its data when the table above leaves room (7 pixels a character), else below it
+    room = sum(sheet.fit.get(c, 8.43) for c in range(len(heads) + 2, len(names) + 1)) * 7
+    if room >= 520:
+        r = max(sheet.chart(gr - 1, len(heads) + 2, chart, width=int(min(room, 760)) - 12, height=300), last + 2)
+    else:
+        r = sheet.chart(last + 2, 1, chart, width=720, height=340)
+    if min(lows) < 0 and low == 0:
+        sheet.note(r, f"Negative amounts (POCI gains, {min(lows):,.2f} in total at most per segment) are too "
+                   "small to show at this scale; they are in the tables above.")
+
+
+_SERIES_COLOURS = ("#2E4A62", "#5B8DB8", "#C9853A", "#8C5E8F", "#6E9A5B", "#A35B4F")
 
 
 # --------------------------------------------------------------------------------------
@@ -259,68 +439,74 @@ def _segment_stage(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> N
 # --------------------------------------------------------------------------------------
 
 
-def _scenarios(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
+def _scenarios(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
     scenarios = report.config.assumptions.scenarios
-    row = _tie_note(ws, 1, refs, "Each scenario figure is the sum of loans.csv column ecl_<framework>_<scenario>.")
-    ws.column_dimensions["A"].width = 46
-    for letter in "BCDEF":
-        ws.column_dimensions[letter].width = 20
+    row = _tie_note(sheet, _TOP, refs, "Each scenario figure is the sum of loans.csv column "
+                    "ecl_<framework>_<scenario>.")
     at_100: dict[str, dict[str, str]] = {}
     weighted_ref: dict[str, str] = {}
     for f in report.frameworks:
-        ws.cell(row=row, column=1, value=f"{_FW_LABEL[f]}: allowance under each scenario").font = TITLE_FONT
-        _header(ws, row + 1, 1, ["Scenario", "Weight", "Allowance at 100 % weight", "Weight x allowance",
-                                 "Difference from weighted"])
-        r = first = row + 2
+        row = sheet.section(row, f"{FW_LABEL[f]}: allowance under each scenario")
+        sheet.header(row, 1, ["Scenario", "Weight", "Allowance at 100 % weight", "Weight x allowance",
+                              "Difference from the weighted allowance"], ["text", "rate", "money", "money", "money"])
+        r = first = row + 1
         at_100[f] = {}
         weighted_row = first + len(scenarios)
         for name, scenario in scenarios.items():
-            ws.cell(row=r, column=1, value=clean_text(name))
-            led.put(ws, r, 2, scenario.weight, RATE)
+            sheet.label(r, 1, name)
+            led.put(sheet, r, 2, scenario.weight, "rate")
             fig = refs.total(f"ecl_{f}_{name}")
-            at_100[f][name] = led.put(ws, r, 3, fig, MONEY)
-            led.put(ws, r, 4, Figure(f"=B{r}*C{r}", scenario.weight * fig.value), MONEY)
+            at_100[f][name] = led.put(sheet, r, 3, fig, "money")
+            led.put(sheet, r, 4, Figure(f"=B{r}*C{r}", scenario.weight * fig.value), "money")
             r += 1
-        w_sum = sum(s.weight * led.local(ws, at_100[f][n]) for n, s in scenarios.items())
-        ws.cell(row=r, column=1, value="Probability-weighted (sum of weight x allowance)").font = Font(bold=True)
-        led.put(ws, r, 2, Figure(f"=SUM(B{first}:B{r - 1})", sum(s.weight for s in scenarios.values())), RATE, bold=True)
-        led.put(ws, r, 4, Figure(f"=SUM(D{first}:D{r - 1})", w_sum), MONEY, bold=True)
+        w_sum = sum(s.weight * led.local(sheet, at_100[f][n]) for n, s in scenarios.items())
+        sheet.label(r, 1, "Probability-weighted", total=True)
+        led.put(sheet, r, 2, Figure(f"=SUM(B{first}:B{r - 1})", sum(s.weight for s in scenarios.values())), "rate",
+                total=True)
+        sheet.put(r, 3, None, "money", total=True)
+        led.put(sheet, r, 4, Figure(f"=SUM(D{first}:D{r - 1})", w_sum), "money", total=True)
+        sheet.put(r, 5, None, "money", total=True)
         for i, name in enumerate(scenarios):
-            led.put(ws, first + i, 5, Figure(f"=C{first + i}-$D${weighted_row}",
-                                             led.local(ws, at_100[f][name]) - w_sum), MONEY)
+            led.put(sheet, first + i, 5, Figure(f"=C{first + i}-$D${weighted_row}",
+                                                led.local(sheet, at_100[f][name]) - w_sum), "money")
         modelled = refs.total(f"ecl_{f}_modelled")
-        overlays = refs.total(f"overlay_{f}")
-        final = refs.total(f"ecl_{f}")
-        ws.cell(row=r + 1, column=1, value="Modelled allowance (sum of loans)")
-        weighted_ref[f] = led.put(ws, r + 1, 4, modelled, MONEY)
-        ws.cell(row=r + 2, column=1, value="Rounding to cents, loan by loan")
-        led.put(ws, r + 2, 4, Figure(f"=D{r + 1}-D{r}", modelled.value - w_sum), MONEY)
-        ws.cell(row=r + 3, column=1, value="Overlays")
-        led.put(ws, r + 3, 4, overlays, MONEY)
-        ws.cell(row=r + 4, column=1, value="Final allowance").font = Font(bold=True)
-        led.put(ws, r + 4, 4, final, MONEY, bold=True)
+        sheet.label(r + 1, 1, "Modelled allowance (sum of loans)")
+        weighted_ref[f] = led.put(sheet, r + 1, 4, modelled, "money")
+        sheet.label(r + 2, 1, "Rounding to cents, loan by loan")
+        led.put(sheet, r + 2, 4, Figure(f"=D{r + 1}-D{r}", modelled.value - w_sum), "money")
+        sheet.label(r + 3, 1, "Overlays")
+        led.put(sheet, r + 3, 4, refs.total(f"overlay_{f}"), "money")
+        sheet.label(r + 4, 1, "Allowance", total=True)
+        for c in (2, 3, 5):
+            sheet.put(r + 4, c, None, "money", total=True)
+        led.put(sheet, r + 4, 4, refs.total(f"ecl_{f}"), "money", total=True)
         row = r + 6
 
-    # sensitivity: one row per scenario, one column per framework (the chart's data)
-    ws.cell(row=row, column=1, value="Sensitivity: the allowance at 100 % of each scenario").font = TITLE_FONT
-    _header(ws, row + 1, 1, ["Scenario"] + [_FW_LABEL[f] for f in report.frameworks])
-    r = row + 2
+    row = sheet.section(row, "Sensitivity: the allowance at 100 % of each scenario")
+    sheet.header(row, 1, ["Scenario"] + [FW_LABEL[f] for f in report.frameworks], ["text"] + ["money"] * len(report.frameworks))
+    r = row + 1
     for name in list(scenarios) + ["weighted"]:
-        ws.cell(row=r, column=1, value=clean_text(name if name != "weighted" else "probability-weighted (modelled)"))
+        sheet.label(r, 1, name if name != "weighted" else "probability-weighted (modelled)")
         for k, f in enumerate(report.frameworks):
             ref = at_100[f][name] if name != "weighted" else weighted_ref[f]
-            led.put(ws, r, 2 + k, Figure(f"={ref}", led.local(ws, ref)), MONEY)
+            led.put(sheet, r, 2 + k, Figure(f"={ref}", led.local(sheet, ref)), "money")
         r += 1
-    chart = BarChart()
-    chart.type = "col"
-    chart.title = "Allowance at 100 % of each scenario"
-    chart.y_axis.title, chart.x_axis.title = "Allowance", "Scenario"
-    chart.y_axis.numFmt = "#,##0"
-    data = Reference(ws, min_col=2, max_col=1 + len(report.frameworks), min_row=row + 1, max_row=r - 1)
-    chart.add_data(data, titles_from_data=True)
-    chart.set_categories(Reference(ws, min_col=1, min_row=row + 2, max_row=r - 1))
-    chart.height, chart.width = 9, 18
-    ws.add_chart(chart, "H2")
+    chart = sheet.book.workbook.add_chart({"type": "column"})
+    for k in range(len(report.frameworks)):
+        chart.add_series({
+            "name": [sheet.name, row - 1, 1 + k],
+            "categories": [sheet.name, row, 0, r - 2, 0],
+            "values": [sheet.name, row, 1 + k, r - 2, 1 + k],
+            "fill": {"color": _SERIES_COLOURS[k % len(_SERIES_COLOURS)]},
+        })
+    values = [led.local(sheet, at_100[f][n]) for f in report.frameworks for n in scenarios]
+    low, high = nice_axis(min(values + [0.0]), max(values + [0.0]))
+    chart.set_title({"name": "Allowance at 100 % of each scenario", "name_font": {"size": 11}})
+    chart.set_y_axis({"name": f"Allowance ({report.config.assumptions.run.currency})", "num_format": "#,##0",
+                      "min": low, "max": high, "major_gridlines": {"visible": True, "line": {"color": "#D9DEE3"}}})
+    chart.set_x_axis({"name": "Scenario"})
+    chart.set_legend({"position": "bottom"})
+    sheet.chart(r + 1, 1, chart, width=620, height=320)
 
 
 # --------------------------------------------------------------------------------------
@@ -328,44 +514,183 @@ def _scenarios(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
 # --------------------------------------------------------------------------------------
 
 
-def _overlays(ws: Any, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
-    from allowance.report.xlsx import put_table
+def overlay_frames(table: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The overlay table for people, in two parts: terms and effect; rationale and governance.
 
-    ws.cell(row=1, column=1, value="Modelled and final allowance").font = TITLE_FONT
-    _header(ws, 2, 1, ["Framework", "Modelled", "Overlays", "Final", "Final - modelled - overlays"], [22, 18, 18, 18, 18])
-    r = 3
+    Percent and amount overlays have their own columns, each in its own format.
+    """
+    scope = [
+        " · ".join([f"segment {seg}" if seg != "*" else "all segments",
+                    f"stage {int(st)}" if pd.notna(st) else "all stages",
+                    FW_LABEL.get(fw, fw) if fw not in ("both", None) else "both frameworks"])
+        for seg, st, fw in zip(table["segment"], table["stage"], table["framework"])
+    ]
+    terms = pd.DataFrame({
+        "Overlay": table["name"], "Applies to": scope,
+        "Percent of modelled ECL": table["value"].where(table["kind"] == "percent"),
+        "Amount": table["value"].where(table["kind"] == "amount"),
+        "Status": table["status"], "Loans in scope": table["loans_in_scope"],
+        "Effect, IFRS 9": table["effect_ifrs9"], "Effect, CECL": table["effect_cecl"],
+    })
+    governance = pd.DataFrame({
+        "Overlay": table["name"], "Rationale": table["rationale"], "Owner": table["owner"],
+        "Approved": pd.to_datetime(table["approved"], errors="coerce"),
+        "Expires": pd.to_datetime(table["expires"], errors="coerce"),
+    })
+    if "note" in table.columns and table["note"].fillna("").astype(str).str.strip().ne("").any():
+        governance["Note"] = table["note"]
+    return terms, governance
+
+
+_OVERLAY_KINDS = {"Applies to": "wrap", "Percent of modelled ECL": "rate", "Amount": "money", "Rationale": "wrap",
+                  "Note": "wrap", "Approved": "date", "Expires": "date", "Effect, IFRS 9": "money",
+                  "Effect, CECL": "money", "Loans in scope": "count", "Owner": "wrap"}
+
+
+def _overlays(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
+    row = sheet.section(_TOP, "Modelled and final allowance")
+    sheet.header(row, 1, ["Framework", "Modelled", "Overlays", "Allowance", "Check: allowance - modelled - overlays"],
+                 ["text", "money", "money", "money", "money"])
+    r = row + 1
     for f in report.frameworks:
-        ws.cell(row=r, column=1, value=_FW_LABEL[f])
-        m = led.put(ws, r, 2, refs.total(f"ecl_{f}_modelled"), MONEY)
-        o = led.put(ws, r, 3, refs.total(f"overlay_{f}"), MONEY)
-        fin = led.put(ws, r, 4, refs.total(f"ecl_{f}"), MONEY)
-        led.put(ws, r, 5, Figure(f"={fin}-{m}-{o}", led.local(ws, fin) - led.local(ws, m) - led.local(ws, o)), MONEY)
+        sheet.label(r, 1, FW_LABEL[f])
+        m = led.put(sheet, r, 2, refs.total(f"ecl_{f}_modelled"), "money")
+        o = led.put(sheet, r, 3, refs.total(f"overlay_{f}"), "money")
+        fin = led.put(sheet, r, 4, refs.total(f"ecl_{f}"), "money")
+        led.put(sheet, r, 5, Figure(f"={fin}-{m}-{o}", led.local(sheet, fin) - led.local(sheet, m)
+                                    - led.local(sheet, o)), "money")
         r += 1
     table = report.overlays if report.overlays is not None else pd.DataFrame()
-    start = r + 1
+    r += 1
     if table.empty:
-        ws.cell(row=start, column=1, value="No overlays in this run.")
+        sheet.note(r, "No overlays in this run.", span=5)
         return
-    put_table(ws, table.reset_index(drop=True), start, 1, title="Overlays (post-model adjustments)", autofilter=True,
-              formats={"value": None})
-    ws.freeze_panes = None
+    terms, governance = overlay_frames(table.reset_index(drop=True))
+    _, last = sheet.table(r, terms, title="Overlays (post-model adjustments): terms and effect", kinds=_OVERLAY_KINDS,
+                          headers={c: c for c in terms.columns})
+    sheet.table(last + 2, governance, title="Why, who and until when", kinds=_OVERLAY_KINDS,
+                headers={c: c for c in governance.columns})
+    sheet.width(2, 46)  # "Applies to" and "Rationale" share the column; both wrap
 
 
 # --------------------------------------------------------------------------------------
-# The workbook
+# The workbooks
 # --------------------------------------------------------------------------------------
 
 
-def _bulk_or_note(wb: Workbook, title: str, frame: pd.DataFrame | None, note: str, bulks: list[BulkSheet]) -> None:
+def _context(report: RunReport) -> Context:
+    run = report.config.assumptions.run
+    return Context(as_of=run.as_of.isoformat(), currency=run.currency, label=run.label,
+                   what_if=report.what_if_parts is not None, what_if_files=tuple(_overlay_files(report)))
+
+
+def _created(report: RunReport) -> datetime:
+    """The run's time (the run record's timestamp), so the workbook and run.json agree."""
+    stamp = (report.record or {}).get("timestamp")
+    if isinstance(stamp, str):
+        try:
+            return datetime.fromisoformat(stamp)
+        except ValueError:
+            pass
+    return clock.now()
+
+
+def _long(book: Book, name: str, title: str, frame: pd.DataFrame | None, note: str, bulks: list[BulkSheet],
+          *, headers: dict[str, str] | None = None, freeze_columns: int = 0) -> None:
+    """A long table on its own sheet, not printed by default (the sheet says so)."""
     if frame is None or frame.empty:
         return
-    ws = wb.create_sheet(title)
-    if len(frame) + 1 > EXCEL_MAX_ROWS:
-        ws.cell(row=1, column=1, value=clean_text(note))
+    sheet = book.sheet(name, title=title, printed=False)
+    if len(frame) + BULK_HEADER_ROW > EXCEL_MAX_ROWS:
+        sheet.note(_TOP, f"{len(frame):,} rows: too many for a sheet. {note}", span=8)
         return
-    bulk = BulkSheet(ws, frame.reset_index(drop=True))
-    bulk.prepare()
-    bulks.append(bulk)
+    bulks.append(BulkSheet(sheet, frame.reset_index(drop=True), note=note, headers=headers or {},
+                           freeze_columns=freeze_columns))
+
+
+def _short_or_long(book: Book, name: str, title: str, frame: pd.DataFrame, note: str, bulks: list[BulkSheet],
+                   kinds: dict[str, str] | None = None, wide: dict[str, float] | None = None) -> None:
+    """A table printed on its own sheet when short; a long one is not printed by default."""
+    if frame is None or frame.empty:
+        return
+    headers = {c: human(c) for c in frame.columns}
+    if len(frame) > PRINT_ROW_LIMIT:
+        _long(book, name, title, frame, note, bulks, headers=headers)
+        return
+    sheet = book.sheet(name, title=title)
+    sheet.table(_TOP, frame.reset_index(drop=True), kinds=kinds, headers=headers, autofilter=True)
+    for column, width in (wide or {}).items():
+        sheet.width(list(frame.columns).index(column) + 1, width)
+    sheet.repeat_to = _TOP
+    sheet.ws.freeze_panes(_TOP, 0)
+
+
+def _build(path: Path, report: RunReport, *, full: bool) -> Ledger:
+    loans = report.loans.reset_index(drop=True)
+    limit = min(report.config.assumptions.run.loan_detail_sheet_limit, EXCEL_MAX_ROWS - BULK_HEADER_ROW)
+    live = full and 0 < len(loans) <= limit
+    refs = LoanRefs(loans, live=live, first_row=BULK_HEADER_ROW + 1)
+    led = Ledger()
+    book = Book(_context(report))
+    bulks: list[BulkSheet] = []
+    what = "What-if (not for booking)" if report.what_if_parts is not None else "Credit-loss allowance"
+
+    _summary(book.sheet("Summary", title="Credit-loss allowance: reserve summary"), report, refs, led, full=full)
+    _segment_stage(book.sheet("By segment and stage", title="Allowance by segment and stage"), report, refs, led)
+    _scenarios(book.sheet("Scenarios", title="Allowance under each economic scenario"), report, refs, led)
+    _overlays(book.sheet("Overlays", title="Overlays: post-model adjustments"), report, refs, led)
+    if report.movements:
+        movement_sheet(book.sheet("Movement", title="Movement from the prior quarter"), report.movements, led)
+        journal_sheet(book.sheet("Journal", title="Journal for the period's provision"), report, led)
+    if report.what_if_parts is not None:
+        what_if_sheet(book.sheet("What-if", title="What-if against the base run"), report.what_if_parts)
+        if full:
+            _short_or_long(book, "Stage changes", "Loans whose stage changes under the what-if",
+                           stage_changes_frame(report.what_if_parts), "They are also in what_if_stage_changes.csv.",
+                           bulks, kinds={"base_stage": "code", "what_if_stage": "code"})
+    intake_sheet(book.sheet("Intake", title="Intake: the tape read, checked and tied to the ledger"), report, refs, led)
+    if full:
+        _short_or_long(book, "Warnings", "Warnings on accepted rows and on the run", warnings_frame(report),
+                       "They are also in warnings.csv.", bulks, kinds={"message": "wrap"}, wide={"message": 70})
+    assumptions_sheet(book.sheet("Assumptions", title="Assumptions used in this run"), report)
+    term_structure_sheet(book.sheet("Term structures", title="Cumulative PD term structures"), report)
+    if full:
+        curves = monthly_curves_frame(report)
+        _long(book, "Monthly PD curves", "Monthly PD curves", curves, "Marginal and cumulative PD by month from the "
+              "as-of date, by segment, grade or bucket, framework and scenario.", bulks,
+              headers={c: human(c) for c in curves.columns})
+        schedules = report.schedules
+        if schedules is not None and not schedules.empty:
+            _long(book, "Schedules", "Schedules of representative loans", schedules, _chosen(schedules), bulks,
+                  headers={c: human(c) for c in schedules.columns})
+    record_sheet(book.sheet("Run record", title="Run record (run.json)"), report)
+    if full:
+        _loans_sheet(book, loans, live, limit, bulks)
+    save(book, path, bulks, created=_created(report), title=f"{what} as of {report.config.as_of.isoformat()}")
+    return led
+
+
+def _chosen(schedules: pd.DataFrame) -> str:
+    """How the loans were chosen, as the engine recorded it."""
+    if "chosen" in schedules.columns and len(schedules):
+        return "Month by month, contractual and expected. " + "; ".join(
+            f"{loan}: {why}" for loan, why in schedules.groupby("loan_id", sort=False)["chosen"].first().items()) + "."
+    return "Month by month, contractual and expected, for a few loans of each segment."
+
+
+def _loans_sheet(book: Book, loans: pd.DataFrame, live: bool, limit: int, bulks: list[BulkSheet]) -> None:
+    if live:
+        sheet = book.sheet("Loans", title="Loan detail", printed=False)
+        bulks.append(BulkSheet(sheet, loans, note="One row per loan, with the column names of loans.csv; every "
+                               "figure on the summary sheets is a formula over these rows.", freeze_columns=1))
+        return
+    sheet = book.sheet("Loans", title="Loan detail")
+    sheet.width(1, 110)
+    sheet.note(_TOP, (
+        f"The loan detail of this run ({len(loans):,} loans) is not in this workbook: it exceeds the limit of "
+        f"{limit:,} loans per sheet ([run] loan_detail_sheet_limit). It is in loans.csv (and loans.parquet when "
+        "asked for); every figure in this workbook is the sum of a column there.")
+        if len(loans) else "This run has no accepted loans.", span=1)
 
 
 def write_workbook(path: Path, report: RunReport) -> Ledger:
@@ -381,56 +706,17 @@ def write_workbook(path: Path, report: RunReport) -> Ledger:
     Returns
     -------
     Ledger
-        ``values``: every figure written as ``"Sheet!B7" -> value`` (what Python computed),
-        ``formulas``: those that are formulas. A recalculation of the workbook must give the
-        same values.
+        ``values``: every figure written as ``"Sheet!B7" -> value`` (what Python computed,
+        also cached in the cell), ``formulas``: those that are formulas. A recalculation of
+        the workbook must give the same values.
     """
-    loans = report.loans.reset_index(drop=True)
-    limit = min(report.config.assumptions.run.loan_detail_sheet_limit, EXCEL_MAX_ROWS - 1)
-    live = 0 < len(loans) <= limit
-    refs = LoanRefs(loans, live=live)
-    led = Ledger()
-    wb = Workbook()
-    wb.remove(wb.active)
-    bulks: list[BulkSheet] = []
+    return _build(Path(path), report, full=True)
 
-    _summary(wb.create_sheet("Summary"), report, refs, led)
-    _segment_stage(wb.create_sheet("By segment and stage"), report, refs, led)
-    _scenarios(wb.create_sheet("Scenarios"), report, refs, led)
-    _overlays(wb.create_sheet("Overlays"), report, refs, led)
-    if report.movements:
-        movement_sheet(wb.create_sheet("Movement"), report.movements, led)
-        journal_sheet(wb.create_sheet("Journal"), report.movements, led)
-    if report.what_if_parts is not None:
-        what_if_sheet(wb.create_sheet("What-if"), report.what_if_parts)
-        _bulk_or_note(wb, "Stage changes", stage_changes_frame(report.what_if_parts), "Too many rows for a sheet; see what_if_stage_changes.csv.", bulks)
-    intake_sheet(wb.create_sheet("Intake"), report, refs, led)
-    _bulk_or_note(wb, "Warnings", warnings_frame(report), "Too many warnings for a sheet; see warnings.csv.", bulks)
-    assumptions_sheet(wb.create_sheet("Assumptions"), report)
-    term_structure_sheet(wb.create_sheet("Term structures"), report)
-    _bulk_or_note(wb, "Monthly PD curves", report.term_structures, "Too many rows for a sheet.", bulks)
-    _bulk_or_note(wb, "Schedules", report.schedules, "Too many rows for a sheet.", bulks)
-    record_sheet(wb.create_sheet("Run record"), report)
 
-    ws = wb.create_sheet("Loans")
-    if live:
-        bulk = BulkSheet(ws, loans)
-        bulk.prepare()
-        bulks.append(bulk)
-    else:
-        ws.column_dimensions["A"].width = 110
-        ws.cell(row=1, column=1, value=clean_text(
-            f"The loan detail of this run ({len(loans):,} loans) is not in this workbook: it exceeds the "
-            f"limit of {limit:,} loans per sheet ([run] loan_detail_sheet_limit). It is in loans.csv "
-            "(and loans.parquet when asked for); every figure in this workbook is the sum of a column there."
-            if len(loans) else "This run has no accepted loans."))
-    bulk_titles = {b.ws.title for b in bulks}
-    for sheet in wb.worksheets:
-        if sheet.title not in bulk_titles:  # print a sheet across one page wide
-            sheet.page_setup.orientation = "landscape"
-            sheet.sheet_properties.pageSetUpPr.fitToPage = True
-            sheet.page_setup.fitToWidth, sheet.page_setup.fitToHeight = 1, 0
-    wb.save(path)
-    inject_bulk(path, bulks)
-    return led
+def write_summary_workbook(path: Path, report: RunReport) -> Ledger:
+    """Write ``summary.xlsx``: the printed sheets of the reserve workbook, standing alone.
 
+    No loan detail, monthly curves or schedules; every figure is a value (or a formula over
+    cells of its own sheet), so the file can be mailed on its own and opens the same everywhere.
+    """
+    return _build(Path(path), report, full=False)

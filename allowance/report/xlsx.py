@@ -1,342 +1,494 @@
-"""Low-level workbook writing: cell values, number formats, small tables, and bulk sheets.
+"""Writing a workbook: styles, sheets addressed like a reader does (row 1, column 1 = A1),
+tables with human headers, and the page setup of every sheet.
 
 Implements
 ----------
-Formula        a string the workbook must read as a formula (every other string is text)
-cell_value     a Python / numpy / pandas value as a safe cell value
-column_format  the number format a column takes from its name and dtype
-put_table      write a small frame as a formatted table on an openpyxl worksheet
-BulkSheet      a large frame streamed into a worksheet's XML after openpyxl has saved the book
-inject_bulk    rewrite the saved workbook with every bulk sheet's rows
+Book       an XlsxWriter workbook plus what it needs at the end (widths, heights, printing)
+Sheet      one worksheet: cells, tables, notes, charts; fits its columns and rows when closed
+Styles     the workbook's formats, one per (kind, role), made once
+Context    what every sheet's title rows and page footer say (as-of, run label, what-if)
+KIND_FORMAT  the number format of each display kind
 
-Why bulk sheets
----------------
-openpyxl without lxml writes about 100,000 cells a second; the loan sheet of a 10,000-loan
-tape has ~400,000. A bulk sheet is laid out by openpyxl (header, one styled sample row,
-column widths, frozen header, filter), so its styles are registered in the workbook; after
-saving, its ``<sheetData>`` is replaced by rows generated column-wise with numpy and
-pandas. Text goes in as inline strings (``t="inlineStr"``), which every reader takes as
-text, never as a formula.
+Why XlsxWriter
+--------------
+It stores a cached value with every formula (``write_formula(..., value)``), so a reader
+that does not calculate (pandas, openpyxl ``data_only``, previews, mail clients) sees the
+numbers, while a spreadsheet that recalculates gets the live formula.
+
+Layout of every sheet
+---------------------
+Row 1 is the sheet's title (on a what-if run: "What-if, not for booking" in a banner), row
+2 the run it belongs to (as-of date, currency, label). Both repeat on every printed page; a
+sheet with one table also repeats the table's header row. The page footer carries the
+as-of date, the run label, the sheet name and "page n of m".
 """
 
 from __future__ import annotations
 
-import os
-import re
-import zipfile
-from dataclasses import dataclass
-from datetime import date, datetime
-from pathlib import Path
+import datetime as _dt
+import math
+import textwrap
+from collections import defaultdict
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from openpyxl.styles import Alignment, Font, PatternFill
-from openpyxl.utils import get_column_letter
+from xlsxwriter.utility import xl_col_to_name, xl_rowcol_to_cell
 
-from allowance.text import neutralise_text
-from allowance.exceptions import InvalidInputError
+from allowance.report.cells import clean_text, human, is_missing, number_kind
 
-__all__ = [
-    "BulkSheet", "Formula", "MONEY", "RATE", "INTEGER", "DATE", "cell_value", "column_format", "inject_bulk",
-    "put_table", "HEADER_FONT", "HEADER_FILL", "TITLE_FONT",
-]
+__all__ = ["KIND_FORMAT", "Book", "Context", "Sheet", "Styles", "col_letter", "nice_axis", "value_width"]
 
-MONEY = "#,##0.00"
-RATE = "0.00%"
-FINE_RATE = "0.0000%"
-INTEGER = "0"
-DATE = "yyyy-mm-dd"
-HEADER_FONT = Font(bold=True, color="FFFFFF")
-HEADER_FILL = PatternFill("solid", fgColor="305496")
-TITLE_FONT = Font(bold=True, size=13)
-TOTAL_FONT = Font(bold=True)
-EXCEL_MAX_ROWS = 1_048_576
-_CELL_TEXT_LIMIT = 32_767
-_ILLEGAL = re.compile(r"[\000-\010\013\014\016-\037]")
-_EXCEL_EPOCH = np.datetime64("1899-12-30", "D")
-
-_MONEY_NAMES = {
-    "balance", "ead", "credit_limit", "payment", "collateral_value", "balloon_amount",
-    "lifetime_ecl_at_purchase", "opening_balance", "interest", "scheduled_principal", "prepayment",
-    "closing_balance", "expected_balance", "amount", "debit", "credit", "base", "what_if", "difference",
-    "value_amount", "ledger_balance", "accepted_balance", "rejected_balance", "tolerance", "beginning",
-    "provision", "charge_offs", "recoveries", "ending", "gross_charge_off", "opening", "closing",
+KIND_FORMAT: dict[str, str | None] = {
+    "money": "#,##0.00", "count": "#,##0", "code": "0", "rate": "0.00%", "fine_rate": "0.0000%",
+    "decimal": "#,##0.00##", "multiplier": "0.00", "factor": "0.0000", "date": "yyyy-mm-dd",
+    "text": None, "wrap": None, "bool": None, "center": "0",
 }
-_RATE_NAMES = {
-    "pd_12m", "pd_lifetime", "lgd", "interest_rate", "eir", "coverage", "weight", "cpr", "ccf", "cure_rate",
-    "pd_12m_at_origination", "weight_on_scenario", "survival", "pd_lifetime_cecl", "payment_rate",
-}
-_FINE_RATE_NAMES = {"marginal_pd", "cumulative_pd"}
+_NUMERIC = {"money", "count", "code", "rate", "fine_rate", "decimal", "multiplier", "factor", "date"}
+_CENTRED = {"code", "bool", "center"}
+
+# Our palette: slate headers, a pale total band, a burnt-orange what-if banner.
+_INK = "#1B2A38"
+_HEADER_FILL = "#2E4A62"
+_TOTAL_FILL = "#E8EDF2"
+_RULE = "#8CA0B3"
+_NOTE = "#5A6672"
+_CAUTION = "#8B1A1A"
+_WHAT_IF_FILL = "#B4441C"
+
+#: widths are in characters of the default font; a line of wrapped text holds about this many
+_CHARS_PER_WIDTH = 1.15
+_LINE_POINTS = 13.0
+_ROW_POINTS = 13.5
+_MAX_WIDTH = 60.0
 
 
-class Formula(str):
-    """A formula of our own making (``=SUM(...)``); plain ``str`` values are always text."""
+def col_letter(col: int) -> str:
+    """The letter of a 1-based column (1 -> A)."""
+    return xl_col_to_name(col - 1)
 
 
-def column_format(name: str, dtype: Any) -> str | None:
-    """The number format of a column: money, rate, date, integer, or None (general / text).
+class Styles:
+    """The workbook's formats, each made once (XlsxWriter formats are workbook objects)."""
 
-    Examples
-    --------
-    >>> column_format("ecl_ifrs9_base", np.float64), column_format("pd_12m", np.float64)
-    ('#,##0.00', '0.00%')
-    >>> column_format("stage", np.int64), column_format("loan_id", object) is None
-    ('0', True)
+    def __init__(self, workbook: Any) -> None:
+        self._wb = workbook
+        self._cache: dict[tuple, Any] = {}
+
+    def _make(self, key: tuple, props: dict) -> Any:
+        if key not in self._cache:
+            self._cache[key] = self._wb.add_format({"font_name": "Calibri", "font_size": 10, "font_color": _INK,
+                                                    **props})
+        return self._cache[key]
+
+    def cell(self, kind: str, *, total: bool = False, align: str | None = None) -> Any:
+        """A body cell of a display kind; ``align="left"`` for a value in a label / value list."""
+        props: dict[str, Any] = {"valign": "top"}
+        fmt = KIND_FORMAT.get(kind)
+        if fmt:
+            props["num_format"] = fmt
+        if align is not None:
+            props["align"] = align
+        elif kind in _CENTRED:
+            props["align"] = "center"
+        if kind == "wrap":
+            props["text_wrap"] = True
+        if kind in ("text", "wrap") or align == "left":
+            props["indent"] = 1  # text never runs into the right-aligned number before it
+        if total:
+            props.update(bold=True, top=1, top_color=_RULE, bg_color=_TOTAL_FILL)
+        return self._make(("cell", kind, total, align), props)
+
+    def header(self, kind: str = "text") -> Any:
+        align = "right" if kind in _NUMERIC and kind not in _CENTRED else ("center" if kind in _CENTRED else "left")
+        props = {"bold": True, "font_color": "#FFFFFF", "bg_color": _HEADER_FILL, "text_wrap": True,
+                 "valign": "bottom", "align": align, "border": 1, "border_color": "#FFFFFF"}
+        if align == "left":
+            props["indent"] = 1
+        return self._make(("header", align), props)
+
+    def named(self, name: str) -> Any:
+        props = {
+            "title": {"bold": True, "font_size": 14},
+            "what_if": {"bold": True, "font_size": 13, "font_color": "#FFFFFF", "bg_color": _WHAT_IF_FILL,
+                        "valign": "vcenter"},
+            "context": {"font_color": _NOTE, "italic": False},
+            "section": {"bold": True, "font_size": 12, "font_color": _HEADER_FILL},
+            "note": {"italic": True, "font_color": _NOTE, "text_wrap": True, "valign": "top"},
+            "paragraph": {"text_wrap": True, "valign": "top", "indent": 1},
+            "caution": {"italic": True, "font_color": _CAUTION, "text_wrap": True, "valign": "top",
+                        "border": 1, "border_color": _CAUTION},
+            "label": {"valign": "top", "indent": 1},
+            "label_total": {"bold": True, "valign": "top", "indent": 1, "top": 1, "top_color": _RULE,
+                            "bg_color": _TOTAL_FILL},
+            "subhead": {"bold": True, "valign": "top", "indent": 1},
+        }[name]
+        return self._make(("named", name), props)
+
+
+@dataclass(frozen=True)
+class Context:
+    """What every sheet's title rows and page footer carry."""
+
+    as_of: str
+    currency: str
+    label: str | None
+    what_if: bool = False
+    what_if_files: tuple[str, ...] = ()
+
+    @property
+    def line(self) -> str:
+        parts = [f"As of {self.as_of}", f"amounts in {self.currency}"]
+        if self.label:
+            parts.append(f"run: {self.label}")
+        if self.what_if:
+            parts.append("what-if with " + ", ".join(self.what_if_files) if self.what_if_files else "what-if")
+        return " · ".join(parts)
+
+
+def _footer_text(text: str, limit: int) -> str:
+    """Text for a page header/footer: '&' doubled (it starts a code there), within ``limit``."""
+    text = clean_text(text).replace("&", "&&")
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def value_width(value: Any, kind: str) -> float:
+    """Characters a value needs in its display format."""
+    if isinstance(value, bool) or kind == "bool":
+        return 7
+    if isinstance(value, (int, float, np.integer, np.floating)):
+        v = float(value)
+        if kind in ("rate", "fine_rate"):
+            return len(f"{v * 100:.{4 if kind == 'fine_rate' else 2}f}%") + 2
+        if kind == "code":
+            return len(f"{v:.0f}") + 3
+        if kind == "count":
+            return len(f"{v:,.0f}") + 2
+        if kind in ("multiplier", "factor"):
+            return len(f"{v:.4f}") + 2
+        return len(f"{v:,.2f}") + 2
+    if isinstance(value, (_dt.date, pd.Timestamp)):
+        return 12
+    return min(len(str(value)), _MAX_WIDTH) + 2
+
+
+def _header_width(text: str) -> float:
+    """The narrowest width at which a header wraps onto at most two lines."""
+    longest = max((len(w) for w in text.split()), default=0)
+    for width in range(max(longest, 4), len(text) + 1):
+        if len(textwrap.wrap(text, width)) <= 2:
+            return width + 2
+    return len(text) + 2
+
+
+def _lines(text: str, width: float) -> int:
+    per_line = max(int(width * _CHARS_PER_WIDTH) - 1, 8)
+    return sum(max(len(textwrap.wrap(part, per_line)), 1) for part in str(text).split("\n"))
+
+
+class Sheet:
+    """One worksheet, addressed 1-based (``put(1, 1, ...)`` is A1).
+
+    It remembers what it needs when the book closes: the width each column's content needs,
+    which cells wrap (for row heights), the used range (print area), the rows to repeat on
+    printed pages and whether the sheet is printed at all.
     """
-    lowered = str(name).lower()
-    if pd.api.types.is_datetime64_any_dtype(dtype):
-        return DATE
-    if pd.api.types.is_bool_dtype(dtype) or not pd.api.types.is_numeric_dtype(dtype):
-        return None
-    if lowered in _FINE_RATE_NAMES or lowered.startswith("cumulative_pd_"):
-        return FINE_RATE
-    if lowered in _RATE_NAMES or lowered.startswith(("pd_", "coverage", "weight")):
-        return RATE
-    if lowered in _MONEY_NAMES or lowered.startswith(("ecl_", "overlay_", "effect_", "balance_", "g_")):
-        return MONEY
-    if pd.api.types.is_integer_dtype(dtype):
-        return INTEGER
-    return None
 
+    def __init__(self, book: "Book", name: str, *, printed: bool = True) -> None:
+        self.book = book
+        self.name = name
+        self.ws = book.workbook.add_worksheet(name)
+        self.styles = book.styles
+        self.printed = printed
+        self.not_printed_note: str | None = None
+        self.last_row = 0
+        self.last_col = 0
+        self.fit: dict[int, float] = defaultdict(float)
+        self.widths: dict[int, float] = {}
+        self.wrapped: list[tuple[int, int, int, str]] = []  # row, first col, last col, text
+        self.heights: dict[int, float] = {}
+        self.repeat_to = 2  # rows 1..repeat_to repeat on every printed page
+        self.tables = 0
+        self.first_header: int | None = None
+        self.landscape: bool | None = None
+        self.context = book.context
+        self.title = name
+        self._notes: list[tuple[int, int, str, int | None, str]] = []
+        self.blocks: list[tuple[int, int]] = []  # rows kept on one printed page (charts)
+        self.note_rows = 3  # a sheet not printed by default prints rows 1..note_rows
 
-def clean_text(value: str) -> str:
-    """Neutralised, without the control characters XML cannot carry, within Excel's cell limit."""
-    return _ILLEGAL.sub("", neutralise_text(value))[:_CELL_TEXT_LIMIT]
+    # -- cells ---------------------------------------------------------------------------
 
+    def _used(self, row: int, col: int) -> None:
+        self.last_row = max(self.last_row, row)
+        self.last_col = max(self.last_col, col)
 
-def cell_value(value: Any) -> Any:
-    """A value openpyxl writes safely: text neutralised, NaN / NaT / NA empty, numpy unwrapped."""
-    if value is None:
-        return None
-    if isinstance(value, Formula):
-        return str(value)
-    if isinstance(value, str):
-        return clean_text(value)
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value) if np.isfinite(value) else None
-    if isinstance(value, pd.Timestamp):
-        return None if pd.isna(value) else value.to_pydatetime()
-    if isinstance(value, (datetime, date)):
-        return value
-    try:
-        if pd.isna(value):
-            return None
-    except (TypeError, ValueError):
-        pass
-    return clean_text(str(value))
-
-
-def _width(frame: pd.DataFrame, column: Any) -> float:
-    """A column width from the header and the first values (numbers: a fixed money width)."""
-    series = frame[column]
-    if pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype):
-        longest = 14 if pd.api.types.is_float_dtype(series.dtype) else 8
-    elif pd.api.types.is_datetime64_any_dtype(series.dtype):
-        longest = 11
-    else:
-        longest = max((len(str(v)) for v in series.head(200).tolist()), default=0)
-    return float(min(max(len(str(column)) + 2, min(longest, 40) + 2, 9), 50))
-
-
-def put_table(
-    ws: Any,
-    frame: pd.DataFrame,
-    row: int = 1,
-    col: int = 1,
-    *,
-    title: str | None = None,
-    formats: dict[str, str | None] | None = None,
-    autofilter: bool = False,
-    total_rows: int = 0,
-    widths: bool = True,
-) -> tuple[int, int]:
-    """Write ``frame`` (header + rows) at (row, col); return (first data row, last data row).
-
-    ``formats`` overrides :func:`column_format` per column; values that are :class:`Formula`
-    are written as formulas, all other text as (neutralised) text. The last ``total_rows``
-    rows are bold.
-    """
-    if title:
-        ws.cell(row=row, column=col, value=clean_text(title)).font = TITLE_FONT
-        row += 1
-    formats = formats or {}
-    for j, name in enumerate(frame.columns):
-        cell = ws.cell(row=row, column=col + j, value=clean_text(str(name)))
-        cell.font, cell.fill = HEADER_FONT, HEADER_FILL
-        cell.alignment = Alignment(wrap_text=True, vertical="top")
-    fmts = [formats.get(name, column_format(name, frame[name].dtype)) for name in frame.columns]
-    first = row + 1
-    for i, record in enumerate(frame.itertuples(index=False, name=None)):
-        bold = i >= len(frame) - total_rows
-        for j, value in enumerate(record):
-            cell = ws.cell(row=first + i, column=col + j, value=cell_value(value))
-            if fmts[j] is not None:
-                cell.number_format = fmts[j]
-            if bold:
-                cell.font = TOTAL_FONT
-    last = first + len(frame) - 1
-    if widths:
-        for j, name in enumerate(frame.columns):
-            letter = get_column_letter(col + j)
-            current = ws.column_dimensions[letter].width or 0
-            ws.column_dimensions[letter].width = max(current, _width(frame, name))
-    if autofilter and len(frame.columns):
-        ws.auto_filter.ref = f"{get_column_letter(col)}{row}:{get_column_letter(col + len(frame.columns) - 1)}{max(last, row)}"
-    return first, last
-
-
-# --------------------------------------------------------------------------------------
-# Bulk sheets
-# --------------------------------------------------------------------------------------
-
-
-def _escape(values: list[str]) -> list[str]:
-    """XML-escape text (and drop the control characters XML cannot carry)."""
-    out = []
-    for text in values:
-        if _ILLEGAL.search(text):
-            text = _ILLEGAL.sub("", text)
-        if "&" in text or "<" in text or ">" in text:
-            text = text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-        out.append(text[:_CELL_TEXT_LIMIT])
-    return out
-
-
-def _column_cells(series: pd.Series, letter: str, rows: list[str], style: int) -> list[str]:
-    """The ``<c>`` element of every cell of one column ('' for a blank cell).
-
-    One pass per column in a comprehension; a value that repeats (segments, stages, zeros)
-    is formatted once.
-    """
-    pre = f'<c r="{letter}'
-    if pd.api.types.is_bool_dtype(series.dtype):
-        mid = f'" s="{style}" t="b"><v>'
-        return [f"{pre}{r}{mid}{1 if v else 0}</v></c>" for r, v in zip(rows, series.to_numpy(dtype=bool).tolist())]
-    if pd.api.types.is_datetime64_any_dtype(series.dtype):
-        stamps = series.to_numpy(dtype="datetime64[ns]")
-        blank = np.isnat(stamps)
-        numbers = (stamps.astype("datetime64[s]") - _EXCEL_EPOCH.astype("datetime64[s]")).astype(np.float64) / 86400.0
-        kind = "number"
-    elif pd.api.types.is_numeric_dtype(series.dtype):
-        if pd.api.types.is_integer_dtype(series.dtype) and not series.hasnans:
-            numbers, blank = series.to_numpy(dtype=np.int64), None
+    def put(self, row: int, col: int, value: Any, kind: str = "text", *, total: bool = False, fit: bool = True,
+            style: Any = None, align: str | None = None) -> None:
+        """Write one value (text is cleaned; NaN / None leave a blank cell that keeps its style)."""
+        fmt = style if style is not None else self.styles.cell(kind, total=total, align=align)
+        r, c = row - 1, col - 1
+        self._used(row, col)
+        if is_missing(value):
+            self.ws.write_blank(r, c, None, fmt)
+            return
+        if isinstance(value, (bool, np.bool_)):
+            self.ws.write_boolean(r, c, bool(value), fmt)
+        elif isinstance(value, (int, float, np.integer, np.floating)):
+            self.ws.write_number(r, c, float(value), fmt)
+        elif isinstance(value, (pd.Timestamp, _dt.datetime, _dt.date)):
+            stamp = pd.Timestamp(value)
+            if stamp.tzinfo is not None:
+                stamp = stamp.tz_convert("UTC").tz_localize(None)
+            dfmt = fmt if kind == "date" else self.styles.cell("date", total=total, align=align)
+            self.ws.write_datetime(r, c, stamp.to_pydatetime(), dfmt)
         else:
-            numbers = series.to_numpy(dtype=np.float64, na_value=np.nan)
-            blank = ~np.isfinite(numbers)
-        kind = "number"
-    else:
-        kind = "text"
-    if kind == "text":
-        # escape each distinct value once (ids are unique, segments and grades repeat)
-        codes, uniques = pd.factorize(series, use_na_sentinel=True)
-        texts = _escape([clean_text(v) if isinstance(v, str) else clean_text(str(v)) for v in uniques.tolist()])
-        tail = [f'" s="{style}" t="inlineStr"><is><t xml:space="preserve">{t}</t></is></c>' for t in texts]
-        return [pre + r + tail[c] if c >= 0 else "" for r, c in zip(rows, codes.tolist())]
-    mid = f'" s="{style}"><v>'
-    if blank is not None and blank.any():
-        numbers = np.where(blank, 0.0, numbers)
-    else:
-        blank = None
-    codes, uniques = pd.factorize(numbers)
-    if len(uniques) * 4 < len(numbers):  # repeated values: format each once
-        formatted = [repr(u) for u in uniques.tolist()]
-        values = [formatted[c] for c in codes.tolist()]
-    else:
-        values = [repr(v) for v in numbers.tolist()]
-    if blank is None:
-        return [f"{pre}{r}{mid}{v}</v></c>" for r, v in zip(rows, values)]
-    return [f"{pre}{r}{mid}{v}</v></c>" if not b else "" for r, v, b in zip(rows, values, blank.tolist())]
+            text = clean_text(value)
+            self.ws.write_string(r, c, text, fmt)
+            if kind == "wrap":
+                self.wrapped.append((row, col, col, text))
+        if fit:
+            self.fit[col] = max(self.fit[col], value_width(value, kind))
+
+    def formula(self, row: int, col: int, formula: str, value: float, kind: str, *, total: bool = False) -> None:
+        """A formula with its computed value cached (what non-calculating readers show)."""
+        self._used(row, col)
+        cached = float(value) if value is not None and np.isfinite(value) else 0
+        self.ws.write_formula(row - 1, col - 1, formula, self.styles.cell(kind, total=total), cached)
+        self.fit[col] = max(self.fit[col], value_width(cached, kind))
+
+    def label(self, row: int, col: int, text: str, *, total: bool = False, fit: bool = True) -> None:
+        self.put(row, col, text, "text", style=self.styles.named("label_total" if total else "label"), fit=fit)
+
+    def section(self, row: int, text: str) -> int:
+        """A section heading; returns the next row."""
+        self.put(row, 1, text, style=self.styles.named("section"), fit=False)
+        self.heights[row] = 18
+        return row + 1
+
+    def note(self, row: int, text: str, *, span: int | None = None, style: str = "note", col: int = 1) -> int:
+        """A paragraph from column ``col`` across ``span`` columns (default: to the used width at
+        close), wrapped; the row grows to hold it. Returns the next row."""
+        self._used(row, col)
+        self._notes.append((row, col, text, span, style))
+        return row + 1
+
+    def header(self, row: int, col: int, names: list[str], kinds: list[str]) -> None:
+        """A table's header row: numeric columns' headers aligned right, over their numbers."""
+        for j, (name, kind) in enumerate(zip(names, kinds)):
+            text = clean_text(name)
+            self.ws.write_string(row - 1, col - 1 + j, text, self.styles.header(kind))
+            self.fit[col + j] = max(self.fit[col + j], _header_width(text))
+            self.wrapped.append((row, col + j, col + j, text))
+        self._used(row, col + len(names) - 1)
+        self.tables += 1
+        if self.first_header is None:
+            self.first_header = row
+
+    def table(self, row: int, frame: pd.DataFrame, *, col: int = 1, title: str | None = None,
+              kinds: dict[str, str] | None = None, headers: dict[str, str] | None = None,
+              total_rows: int = 0, autofilter: bool = False) -> tuple[int, int]:
+        """Write a frame (human headers, a display kind per column); return (first data row, last).
+
+        ``kinds`` overrides :func:`~allowance.report.cells.number_kind`; ``headers`` overrides
+        :func:`~allowance.report.cells.human`. The last ``total_rows`` rows are total rows.
+        """
+        if title:
+            row = self.section(row, title)
+        kinds = kinds or {}
+        headers = headers or {}
+        names = list(frame.columns)
+        col_kinds = [kinds.get(n, number_kind(n, frame[n].dtype)) for n in names]
+        self.header(row, col, [headers.get(n, human(n)) for n in names], col_kinds)
+        first = row + 1
+        for i, record in enumerate(frame.itertuples(index=False, name=None)):
+            total = i >= len(frame) - total_rows
+            for j, value in enumerate(record):
+                self.put(first + i, col + j, value, col_kinds[j], total=total)
+        last = first + len(frame) - 1
+        if autofilter and len(frame):
+            self.ws.autofilter(row - 1, col - 1, last - 1, col - 2 + len(names))
+        return first, max(last, row)
+
+    def width(self, col: int, width: float) -> None:
+        """Fix a column's width (characters)."""
+        self.widths[col] = width
+
+    def chart(self, row: int, col: int, chart: Any, *, width: int, height: int) -> int:
+        """Place a chart (size in pixels) with its top-left at (row, col); it counts as used range and
+        is kept on one printed page. Returns the next free row."""
+        chart.set_size({"width": width, "height": height})
+        rows = math.ceil((height + 8) / (_ROW_POINTS * 96 / 72)) + 1
+        self.ws.insert_chart(row - 1, col - 1, chart, {"x_offset": 4, "y_offset": 4})
+        self._used(row + rows, col)
+        self.blocks.append((row, row + rows))
+        return row + rows + 1
+
+    # -- closing -------------------------------------------------------------------------
+
+    def finish(self) -> None:
+        """Column widths, row heights, title rows, notes and the page setup."""
+        ws, ctx = self.ws, self.context
+        span = max(self.last_col, 1)
+        widths = {c: min(max(self.fit.get(c, 0), 6.0), _MAX_WIDTH) for c in range(1, span + 1)}
+        widths.update(self.widths)
+        total_width = sum(widths.values())
+        # title rows: a what-if run says so on every sheet, in a banner across the sheet
+        title = self.title
+        if ctx.what_if:
+            text = f"WHAT-IF, NOT FOR BOOKING · {title}"
+            if span > 1:
+                ws.merge_range(0, 0, 0, span - 1, clean_text(text), self.styles.named("what_if"))
+            else:
+                ws.write_string(0, 0, clean_text(text), self.styles.named("what_if"))
+            ws.set_row(0, 22)
+        else:
+            ws.write_string(0, 0, clean_text(title), self.styles.named("title"))
+            ws.set_row(0, 20)
+        ws.write_string(1, 0, clean_text(ctx.line), self.styles.named("context"))
+        for row, first, text, note_span, style in self._notes:
+            last = min(first - 1 + note_span, span) if note_span else span
+            last = max(last, first)
+            width = sum(widths.get(c, 8.43) for c in range(first, last + 1))
+            cleaned = clean_text(text)
+            if last > first:
+                ws.merge_range(row - 1, first - 1, row - 1, last - 1, cleaned, self.styles.named(style))
+            else:
+                ws.write_string(row - 1, first - 1, cleaned, self.styles.named(style))
+            self.heights[row] = max(self.heights.get(row, 0), _lines(cleaned, width) * _LINE_POINTS + 2)
+        for c, w in widths.items():
+            ws.set_column(c - 1, c - 1, w)
+        for row, first, last, text in self.wrapped:
+            width = sum(widths.get(c, 8.43) for c in range(first, last + 1))
+            lines = _lines(text, width - 1)
+            if lines > 1:
+                self.heights[row] = max(self.heights.get(row, 0), lines * _LINE_POINTS + 2)
+        ws.set_default_row(_ROW_POINTS)
+        for row, height in self.heights.items():
+            ws.set_row(row - 1, height)
+        self._page_setup(span, total_width)
+
+    def _pagination(self, landscape: bool, total_width: float) -> tuple[list[int], int]:
+        """Manual page breaks that keep each chart on one page, and the number of pages printed.
+
+        Estimated with Excel's metrics on US Letter with half-inch side margins: a page holds
+        about 103 (portrait) or 137 (landscape) characters of column width; fitting the width
+        scales the page down, so it holds proportionally more rows. A little room is kept for
+        error. Another program or font paginates differently (a missing font changes every
+        width), so when the sheet takes more than one page every chart starts a page of its
+        own: it can then never be cut, whoever prints it.
+        """
+        width_chars = 137.0 if landscape else 103.0
+        scale = min(1.0, width_chars / max(total_width, 1.0))
+        usable = (511.0 if landscape else 691.0) * 0.93 / scale
+        repeated = sum(self._height(r) for r in range(1, self.repeat_to + 1))
+        breaks, used, pages = [], 0.0, 1
+        starts = {first: last for first, last in self.blocks}
+        for row in range(1, max(self.last_row, 1) + 1):
+            if row in starts:
+                block = sum(self._height(r) for r in range(row, starts[row] + 1))
+                if used + block > usable and used > repeated:
+                    breaks.append(row)
+                    used, pages = repeated, pages + 1
+            height = self._height(row)
+            if used + height > usable:
+                used, pages = repeated, pages + 1
+            used += height
+        if pages > 1:
+            first = self.repeat_to + 2
+            breaks = [start for start, _ in self.blocks if start > first]
+            pages = max(pages, 1 + len(breaks))
+        return breaks, pages
+
+    def _height(self, row: int) -> float:
+        return self.heights.get(row, 20.0 if row == 1 else _ROW_POINTS)
+
+    def _page_setup(self, span: int, total_width: float) -> None:
+        ws, ctx = self.ws, self.context
+        ws.hide_gridlines(1)
+        left = _footer_text(f"As of {ctx.as_of}" + (f" · {ctx.label}" if ctx.label else ""), 110)
+        ws.set_footer(f"&L&8{left}&C&8&A&R&8Page &P of &N")
+        if ctx.what_if:
+            ws.set_header('&C&"Calibri,Bold"&11WHAT-IF, NOT FOR BOOKING')
+        ws.set_margins(left=0.5, right=0.5, top=0.7, bottom=0.7)
+        if not self.printed:
+            # a long sheet: printing it gives its title rows and the note saying how to print it all
+            ws.print_area(0, 0, self.note_rows - 1, max(min(span, 10), 1) - 1)
+            ws.set_portrait()
+            ws.fit_to_pages(1, 1)
+            return
+        ws.print_area(0, 0, max(self.last_row, 2) - 1, span - 1)
+        landscape = self.landscape
+        if landscape is None:  # the orientation that prints fewer pages; on a tie, the larger print
+            portrait_pages = self._pagination(False, total_width)[1]
+            landscape_pages = self._pagination(True, total_width)[1]
+            landscape = landscape_pages < portrait_pages or (landscape_pages == portrait_pages and total_width > 103)
+        if landscape:
+            ws.set_landscape()
+        else:
+            ws.set_portrait()
+        ws.fit_to_pages(1, 0)
+        ws.repeat_rows(0, self.repeat_to - 1)
+        breaks = self._pagination(landscape, total_width)[0]
+        if breaks:
+            ws.set_h_pagebreaks([r - 1 for r in breaks])
 
 
 @dataclass
-class BulkSheet:
-    """A frame to stream into a worksheet laid out by :meth:`prepare`.
+class Book:
+    """An XlsxWriter workbook being built in memory; :mod:`allowance.report.bulk` writes it out."""
 
-    Call :meth:`prepare` before the workbook is saved (it writes the header and one styled
-    sample row and records each column's style id), then :func:`inject_bulk` after.
+    context: Context
+    workbook: Any = None
+    styles: Styles = None  # type: ignore[assignment]
+    sheets: list[Sheet] = field(default_factory=list)
+    buffer: Any = None
+
+    def __post_init__(self) -> None:
+        import io
+
+        import xlsxwriter
+
+        self.buffer = io.BytesIO()
+        self.workbook = xlsxwriter.Workbook(self.buffer, {
+            "in_memory": True, "strings_to_formulas": False, "strings_to_urls": False,
+            "strings_to_numbers": False, "nan_inf_to_errors": False,
+        })
+        self.styles = Styles(self.workbook)
+
+    def sheet(self, name: str, *, title: str | None = None, printed: bool = True) -> Sheet:
+        sheet = Sheet(self, name, printed=printed)
+        sheet.title = title or name
+        self.sheets.append(sheet)
+        return sheet
+
+    def cell(self, sheet: Sheet, row: int, col: int, *, absolute: bool = False) -> str:
+        """A reference to a cell (``B7`` or ``$B$7``)."""
+        return xl_rowcol_to_cell(row - 1, col - 1, row_abs=absolute, col_abs=absolute)
+
+
+def nice_axis(low: float, high: float) -> tuple[float, float]:
+    """Axis bounds that include 0, ``low`` and ``high``, rounded out to a 1-2-5 step.
+
+    A negative part smaller than 1 % of the positive range is not given room (the axis
+    starts at 0), so one small negative cell cannot stretch the axis.
+
+    Examples
+    --------
+    >>> nice_axis(-143.0, 4_700_000.0)
+    (0.0, 5000000.0)
+    >>> nice_axis(-60_000.0, 250_000.0)
+    (-100000.0, 300000.0)
     """
-
-    ws: Any
-    frame: pd.DataFrame
-    styles: list[int] | None = None
-    header_style: int = 0
-    chunk_rows: int = 20_000
-
-    def prepare(self) -> None:
-        frame, ws = self.frame, self.ws
-        fmts = [column_format(name, frame[name].dtype) for name in frame.columns]
-        head = frame.head(1)
-        put_table(ws, head, 1, 1, formats=dict(zip(frame.columns, fmts)), autofilter=False, widths=False)
-        for j, name in enumerate(frame.columns):
-            ws.column_dimensions[get_column_letter(j + 1)].width = _width(frame, name)
-        self.header_style = ws.cell(row=1, column=1).style_id if len(frame.columns) else 0
-        sample_row = 2
-        self.styles = []
-        for j, fmt in enumerate(fmts):
-            cell = ws.cell(row=sample_row, column=j + 1)
-            if cell.value is None:  # a blank first value: still register the column's format
-                cell.value = 0
-            if fmt is not None:
-                cell.number_format = fmt
-            self.styles.append(cell.style_id)
-        ws.freeze_panes = "A2"
-        if len(frame.columns):
-            ws.auto_filter.ref = f"A1:{get_column_letter(len(frame.columns))}{len(frame) + 1}"
-
-    def sheet_data(self):
-        """Yield the ``<sheetData>`` element in pieces: the header row, then chunks of rows."""
-        frame = self.frame
-        letters = [get_column_letter(j + 1) for j in range(len(frame.columns))]
-        header = "".join(
-            f'<c r="{letter}1" s="{self.header_style}" t="inlineStr"><is><t xml:space="preserve">'
-            f"{_escape([clean_text(str(name))])[0]}</t></is></c>"
-            for letter, name in zip(letters, frame.columns)
-        )
-        yield f'<sheetData><row r="1">{header}</row>'
-        for start in range(0, len(frame), self.chunk_rows):
-            part = frame.iloc[start:start + self.chunk_rows]
-            rows = [str(r) for r in range(start + 2, start + 2 + len(part))]
-            starts = [f'<row r="{r}">' for r in rows]
-            columns = [_column_cells(part.iloc[:, j], letters[j], rows, self.styles[j]) for j in range(len(letters))]
-            yield "".join(["".join(cells) + "</row>" for cells in zip(starts, *columns)])
-        yield "</sheetData>"
-
-    @property
-    def dimension(self) -> str:
-        cols = max(len(self.frame.columns), 1)
-        return f"A1:{get_column_letter(cols)}{len(self.frame) + 1}"
-
-
-_SHEET_DATA = re.compile(r"<sheetData>.*?</sheetData>|<sheetData\s*/>", re.S)
-_DIMENSION = re.compile(r'<dimension ref="[^"]*"\s*/>')
-
-
-def inject_bulk(path: Path, sheets: list[BulkSheet]) -> None:
-    """Replace each bulk sheet's placeholder rows in the saved workbook at ``path`` (in place)."""
-    if not sheets:
-        return
-    targets = {bulk.ws.path.lstrip("/"): bulk for bulk in sheets}
-    tmp = path.with_name(path.name + ".bulk")
-    with zipfile.ZipFile(path) as zin, zipfile.ZipFile(tmp, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as zout:
-        for info in zin.infolist():
-            data = zin.read(info.filename)
-            bulk = targets.get(info.filename)
-            if bulk is None:
-                zout.writestr(info, data, compress_type=info.compress_type)
-                continue
-            xml = data.decode("utf-8")
-            match = _SHEET_DATA.search(xml)
-            if match is None:  # pragma: no cover - openpyxl always writes sheetData
-                raise InvalidInputError(f"no sheetData in {info.filename}")
-            head = _DIMENSION.sub(f'<dimension ref="{bulk.dimension}"/>', xml[: match.start()], count=1)
-            with zout.open(info.filename, "w") as out:
-                out.write(head.encode("utf-8"))
-                for piece in bulk.sheet_data():
-                    out.write(piece.encode("utf-8"))
-                out.write(xml[match.end():].encode("utf-8"))
-    os.replace(tmp, path)
+    high = max(high, 0.0)
+    low = min(low, 0.0)
+    if high == low == 0.0:
+        return 0.0, 1.0
+    if high > 0 and -low < 0.01 * high:
+        low = 0.0
+    span = max(high - low, 1.0)
+    raw = span / 5
+    magnitude = 10 ** math.floor(math.log10(raw))
+    step = next(m * magnitude for m in (1, 2, 5, 10) if m * magnitude >= raw)
+    return (float(math.floor(low / step) * step) if low < 0 else 0.0), float(math.ceil(high / step) * step)
