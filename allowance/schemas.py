@@ -13,6 +13,7 @@ Scenario            a weighted economic scenario (PD / LGD multipliers, collater
 MacroSection        ``[macro]``: the baseline macro paths, their first quarter, quarter -> month
 SatelliteModel      per segment: the link from macro variables to the monthly PD (and collateral)
 Overlay             a documented post-model adjustment
+GlAccounts          ledger account codes the journal books the provision to
 RunConfig           a validated Assumptions plus the input files that made it (paths, SHA-256)
 TransitionMatrix    a monthly roll-rate matrix over delinquency buckets, loaded from CSV
 RunRecord           the run record written to run.json (and read back from a prior run)
@@ -491,6 +492,27 @@ class Overlay(_Strict):
     expires: date | None = None
 
 
+class GlAccountPair(_Strict):
+    """The two ledger accounts a provision is booked to."""
+
+    expense: str | None = Field(
+        default=None, min_length=1, description="Provision for credit losses / impairment expense (profit or loss)."
+    )
+    allowance: str | None = Field(
+        default=None, min_length=1, description="Allowance for credit losses (contra-asset, balance sheet)."
+    )
+
+
+class GlAccounts(GlAccountPair):
+    """``[gl_accounts.<framework>]``: the account codes the Journal sheet books the provision to.
+
+    ``segments.<name>`` overrides either account for one segment (a ledger that keeps an
+    allowance account per product).
+    """
+
+    segments: dict[str, GlAccountPair] = Field(default_factory=dict)
+
+
 class Assumptions(_Strict):
     """The whole assumptions file (after any overlay files are merged into it)."""
 
@@ -502,6 +524,9 @@ class Assumptions(_Strict):
     macro: MacroSection | None = None
     scenarios: dict[str, Scenario] = Field(min_length=1)
     overlays: list[Overlay] = Field(default_factory=list)
+    gl_accounts: dict[Framework, GlAccounts] = Field(
+        default_factory=dict, description="Ledger account codes for the journal, by framework."
+    )
 
     @model_validator(mode="after")
     def _consistent(self) -> Assumptions:
@@ -520,6 +545,10 @@ class Assumptions(_Strict):
         for o in self.overlays:
             if o.segment != "*" and o.segment not in self.segments:
                 raise ValueError(f"overlay {o.name!r} names segment {o.segment!r}, which has no [segments] table")
+        for fw, accounts in self.gl_accounts.items():
+            for name in accounts.segments:
+                if name not in self.segments:
+                    raise ValueError(f"gl_accounts.{fw} names segment {name!r}, which has no [segments] table")
         for name, seg in self.segments.items():
             if seg.behavioural_life_months is None and seg.payment_rate is not None:
                 raise ValueError(f"segment {name!r}: payment_rate needs behavioural_life_months")

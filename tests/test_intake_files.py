@@ -93,6 +93,7 @@ def test_assumptions_template_mentions_every_key():
     from allowance.schemas import (
         CollateralLgd,
         CollateralLink,
+        GlAccounts,
         MacroSection,
         Overlay,
         SatelliteModel,
@@ -100,7 +101,8 @@ def test_assumptions_template_mentions_every_key():
         SegmentAssumptions,
     )
 
-    for model in (SegmentAssumptions, Scenario, Overlay, CollateralLgd, SatelliteModel, CollateralLink, MacroSection):
+    for model in (SegmentAssumptions, Scenario, Overlay, CollateralLgd, SatelliteModel, CollateralLink, MacroSection,
+                  GlAccounts):
         for key in model.model_fields:
             assert key in text, f"{model.__name__}.{key} is not in the template"
 
