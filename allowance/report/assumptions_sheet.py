@@ -208,16 +208,64 @@ _CECL_LABELS = {
 }
 _PATH_LABEL = {"pd_multiplier": "PD multiplier", "z": "Systematic factor z", "lgd_multiplier": "LGD multiplier",
                "collateral_index": "Collateral index"}
+_QUARTER_LABEL = "Quarter"
 
 
 def _scenario_paths(scenarios: dict) -> pd.DataFrame:
     rows = []
     for name, s in scenarios.items():
-        kinds = [k for k in _PATH_LABEL if getattr(s, k)]
-        for kind in kinds or [None]:
+        kinds = [k for k in _PATH_LABEL if getattr(s, k, None)]
+        if getattr(s, "macro", None):
+            rows.append({"Scenario": name, "Weight": s.weight,
+                         "Path": "Macro paths: " + ", ".join(s.macro) + " (by quarter, below)"})
+        for kind in kinds or ([] if getattr(s, "macro", None) else [None]):
             values = getattr(s, kind) if kind else []
             rows.append({"Scenario": name, "Weight": s.weight, "Path": _PATH_LABEL[kind] if kind else "none (long-run PDs)",
                          **{f"Year {i + 1}": v for i, v in enumerate(values)}})
+    return pd.DataFrame(rows)
+
+
+def _quarter_label(start: str, offset: int) -> str:
+    year, quarter = int(start[:4]), int(start[-1])
+    n = year * 4 + quarter - 1 + offset
+    return f"{n // 4}Q{n % 4 + 1}"
+
+
+def _macro_grids(a: Any) -> list[tuple[str, pd.DataFrame]]:
+    """Per macro variable: the baseline and each scenario's path, quarters down."""
+    macro = getattr(a, "macro", None)
+    if macro is None:
+        return []
+    out = []
+    for variable, baseline in macro.baseline.items():
+        paths = {"baseline": list(baseline)}
+        for name, s in a.scenarios.items():
+            if variable in (getattr(s, "macro", None) or {}):
+                paths[name] = list(s.macro[variable])
+        length = max(len(p) for p in paths.values())
+        frame = pd.DataFrame({_QUARTER_LABEL: [_quarter_label(macro.start, i) for i in range(length)]})
+        for name, path in paths.items():
+            frame[name] = path + [np.nan] * (length - len(path))
+        out.append((variable, frame))
+    return out
+
+
+def _satellites(segments: dict) -> pd.DataFrame:
+    rows = []
+    for name, seg in segments.items():
+        model = getattr(seg, "satellite", None)
+        if model is None:
+            continue
+        for variable, beta in model.coefficients.items():
+            rows.append({"Segment": name, "Link": model.link, "Variable": variable, "Coefficient": beta,
+                         "Lag (months)": model.lag_months.get(variable, 0),
+                         "Collateral follows": "", "Source": model.source or None})
+        if model.collateral is not None:
+            c = model.collateral
+            rows.append({"Segment": name, "Link": model.link, "Variable": c.variable, "Coefficient": None,
+                         "Lag (months)": None,
+                         "Collateral follows": f"{c.form.replace('_', ' ')}, relative to {c.relative_to.replace('_', '-')}",
+                         "Source": model.source or None})
     return pd.DataFrame(rows)
 
 
@@ -267,6 +315,13 @@ def assumptions_sheet(sheet: Sheet, report: "RunReport") -> None:
     paths = _scenario_paths(a.scenarios)
     row = _grid(sheet, row, paths, "Scenario paths by year from the as-of date",
                 {"Weight": "rate", **{c: "multiplier" for c in paths.columns[3:]}})
+    macro = getattr(a, "macro", None)
+    for variable, frame in _macro_grids(a):
+        row = _grid(sheet, row, frame, f"Macro path: {variable} by quarter" + (
+            f" ({macro.interpolation} within the quarter; {macro.source})" if macro.source
+            else f" ({macro.interpolation} within the quarter)"), {c: "factor" for c in frame.columns[1:]})
+    row = _grid(sheet, row, _satellites(segs), "Satellite models: macro variables to the monthly PD",
+                {"Coefficient": "factor", "Lag (months)": "count", "Source": "wrap", "Collateral follows": "wrap"})
     descriptions = [(n, s.description) for n, s in a.scenarios.items() if s.description]
     if descriptions:
         row = sheet.section(row, "Scenario descriptions")

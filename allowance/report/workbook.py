@@ -482,7 +482,8 @@ def _scenarios(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger) -> 
         led.put(sheet, r + 4, 4, refs.total(f"ecl_{f}"), "money", total=True)
         row = r + 6
 
-    row = sheet.section(row, "Sensitivity: the allowance at 100 % of each scenario")
+    row = _restaged(sheet, row, report)
+    row = sheet.section(row, "The allowance at 100 % of each scenario (this run's stages)")
     sheet.header(row, 1, ["Scenario"] + [FW_LABEL[f] for f in report.frameworks], ["text"] + ["money"] * len(report.frameworks))
     r = row + 1
     for name in list(scenarios) + ["weighted"]:
@@ -507,6 +508,26 @@ def _scenarios(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger) -> 
     chart.set_x_axis({"name": "Scenario"})
     chart.set_legend({"position": "bottom"})
     sheet.chart(r + 1, 1, chart, width=620, height=320)
+
+
+def _restaged(sheet: Sheet, row: int, report: RunReport) -> int:
+    """Each scenario alone at 100 % weight with the book restaged under it (when the run made them)."""
+    table = getattr(report, "sensitivity", None)
+    if table is None or table.empty:
+        return row
+    shown = table.copy()
+    shown["framework"] = shown["framework"].map(lambda f: FW_LABEL.get(f, f))
+    keep = [c for c in ("framework", "scenario", "weight", "allowance_modelled", "overlays", "allowance",
+                        "difference_from_weighted", "difference_pct", "loans_stage_2", "loans_stage_3")
+            if c in shown.columns]
+    headers = {"framework": "Framework", "scenario": "Scenario", "weight": "Weight",
+               "allowance_modelled": "Modelled", "overlays": "Overlays", "allowance": "Allowance",
+               "difference_from_weighted": "Difference from the weighted run", "difference_pct": "Difference %",
+               "loans_stage_2": "Loans in stage 2", "loans_stage_3": "Loans in stage 3"}
+    kinds = {"weight": "rate", "difference_pct": "rate", "loans_stage_2": "count", "loans_stage_3": "count"}
+    row = sheet.section(row, "Each scenario alone at 100 % weight, the book restaged under it (sensitivity.csv)")
+    _, last = sheet.table(row, shown[keep].reset_index(drop=True), kinds=kinds, headers=headers)
+    return last + 2
 
 
 # --------------------------------------------------------------------------------------
@@ -671,11 +692,12 @@ def _build(path: Path, report: RunReport, *, full: bool) -> Ledger:
 
 
 def _chosen(schedules: pd.DataFrame) -> str:
-    """How the loans were chosen, as the engine recorded it."""
-    if "chosen" in schedules.columns and len(schedules):
-        return "Month by month, contractual and expected. " + "; ".join(
-            f"{loan}: {why}" for loan, why in schedules.groupby("loan_id", sort=False)["chosen"].first().items()) + "."
-    return "Month by month, contractual and expected, for a few loans of each segment."
+    """How the loans were chosen (the engine records it per loan)."""
+    loans = schedules["loan_id"].nunique() if "loan_id" in schedules.columns else 0
+    if "chosen" in schedules.columns:
+        return (f"{loans} loans, month by month, contractual and expected: in each segment the stage 1 loans "
+                "nearest the segment's median balance and median remaining term (the 'Why this loan' column).")
+    return f"{loans} loans, month by month, contractual and expected."
 
 
 def _loans_sheet(book: Book, loans: pd.DataFrame, live: bool, limit: int, bulks: list[BulkSheet]) -> None:
