@@ -90,16 +90,53 @@ def roll_rate_table(config: RunConfig) -> pd.DataFrame:
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
 
 
-def schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per_segment: int) -> pd.DataFrame:
-    """A few performing loans per segment, scheduled month by month (first scenario's PDs)."""
-    if per_segment <= 0 or tape.empty:
-        return pd.DataFrame()
-    frames = []
+def representative_loans(loans: pd.DataFrame, per_segment: int) -> pd.DataFrame:
+    """The loans whose schedules the workbook shows: typical of their segment, and why.
+
+    For each segment, among its stage 1 loans (all its loans if none is in stage 1), the
+    ``per_segment`` loans nearest the segment's median balance and median remaining term,
+    distance measured in centred ranks, p = (rank - 1/2) / n, as |p(balance) - 1/2| +
+    |p(term) - 1/2| (the median scores 0), so neither a loan maturing next month nor an
+    outlier balance is picked. Ties go to the earlier loan. Common practice for a sample shown
+    to reviewers, no source. Returns the positions of the loans in ``loans`` and a ``chosen``
+    text per loan.
+    """
+    if per_segment <= 0 or loans.empty:
+        return pd.DataFrame(columns=["position", "chosen"])
+    segment = loans["segment"].to_numpy(dtype=object)
     performing = loans["stage"].to_numpy() == 1 if "stage" in loans else np.ones(len(loans), bool)
-    for name in prep.structures:
-        picks = np.nonzero((tape["segment"].to_numpy() == name) & performing)[0][:per_segment]
-        for i in picks:
-            frames.append(loan_schedule(tape.iloc[[i]], prep))
+    term = loans["remaining_months"].to_numpy(dtype=float) if "remaining_months" in loans else np.zeros(len(loans))
+    balance = loans["balance"].to_numpy(dtype=float)
+    rows = []
+    for name in pd.unique(segment):
+        members = np.flatnonzero(segment == name)
+        pool = members[performing[members]] if performing[members].any() else members
+        b = (pd.Series(balance[pool]).rank().to_numpy() - 0.5) / len(pool)
+        t = (pd.Series(term[pool]).rank().to_numpy() - 0.5) / len(pool)
+        distance = np.abs(b - 0.5) + np.abs(t - 0.5)
+        picks = pool[np.argsort(distance, kind="stable")[:per_segment]]
+        why = (f"nearest its segment's median balance ({np.median(balance[pool]):,.0f}) and remaining term "
+               f"({np.median(term[pool]):.0f} months) among {'stage 1' if performing[members].any() else 'all'} "
+               f"{name} loans")
+        rows += [{"position": int(i), "chosen": why} for i in picks]
+    return pd.DataFrame(rows, columns=["position", "chosen"])
+
+
+def schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per_segment: int) -> pd.DataFrame:
+    """Representative loans per segment (:func:`representative_loans`), scheduled month by month
+    on the first scenario's PDs."""
+    picks = representative_loans(loans, per_segment)
+    if picks.empty:
+        return pd.DataFrame()
+    known = set(prep.structures)
+    frames = []
+    for position, why in zip(picks["position"], picks["chosen"]):
+        row = tape.iloc[[position]]
+        if row["segment"].iloc[0] not in known:
+            continue
+        frame = loan_schedule(row, prep)
+        frame.insert(1, "chosen", why)
+        frames.append(frame)
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
 
 
