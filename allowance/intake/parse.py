@@ -47,6 +47,7 @@ class Parsed:
     blank: np.ndarray
     bad: np.ndarray
     not_whole: np.ndarray | None = None
+    form: str = ""  # dates: the format the column was read in, and why (see parse_dates)
 
 
 def _mask(array: Column) -> np.ndarray:
@@ -343,9 +344,11 @@ def parse_dates(
     """
     results: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
     pending: dict[str, _Pending] = {}
+    year_first_seen: dict[str, bool] = {}
     for name, column in columns.items():
         days, ok = _fast_iso(column)
         blank = _nulls(column)
+        year_first_seen[name] = False
         rest = np.flatnonzero(~ok & ~blank)
         if rest.size:
             text, rest_blank = trimmed_text(pc.take(column, pa.array(rest)))
@@ -354,6 +357,7 @@ def parse_dates(
             rest, text = rest[keep], pc.filter(text, pa.array(keep))
             year_first_days, year_first = _year_first(text)
             days[rest] = year_first_days
+            year_first_seen[name] = bool(year_first.any())
             if date_format != "iso":
                 parts = pc.extract_regex(text, _YEAR_LAST)
                 found = _mask(pc.is_valid(parts)) & ~year_first
@@ -367,23 +371,40 @@ def parse_dates(
                         text=pc.filter(text, pa.array(found)),
                     )
         results[name] = (days, blank, ok)
-    order = date_format if date_format in ("day_first", "month_first") else _decide_order(pending, file, source_row)
+    if date_format in ("day_first", "month_first"):
+        order, why = date_format, "as [tape] date_format says"
+    else:
+        order, evidence = _decide_order(pending, file, source_row)
+        why = (f"inferred from {evidence[2]!r} ({evidence[0]}, row {evidence[1]})" if evidence
+               else "every such date reads the same either way")
     for name, waiting in pending.items():
         day, month = (waiting.a, waiting.b) if order == "day_first" else (waiting.b, waiting.a)
         days, ok = _days(waiting.year, month, day)
         results[name][0][waiting.index] = np.where(ok, days, NO_DAY)
     parsed = {}
-    for name, (days, blank, _) in results.items():
+    for name, (days, blank, ok) in results.items():
         in_range = (days >= _FIRST_DAY) & (days <= _LAST_DAY)
         days = np.where(in_range, days, NO_DAY)
-        parsed[name] = Parsed(values=days, blank=blank, bad=~blank & ~in_range)
+        forms = []
+        if ok.any() or year_first_seen[name]:
+            forms.append("year first (YYYY-MM-DD)")
+        if name in pending:
+            forms.append(f"{DATE_FORMS[order]}, {why}")
+        parsed[name] = Parsed(values=days, blank=blank, bad=~blank & ~in_range,
+                              form="; ".join(forms) if forms else "blank")
     return parsed
 
 
-def _decide_order(pending: Mapping[str, _Pending], file: str, source_row: np.ndarray) -> str:
-    """Day-first or month-first from the evidence in the file; :class:`TapeError` if it is unclear."""
+#: How the two-number date forms are written out for people.
+DATE_FORMS = {"day_first": "day first (DD/MM/YYYY)", "month_first": "month first (MM/DD/YYYY)"}
+
+
+def _decide_order(pending: Mapping[str, _Pending], file: str,
+                  source_row: np.ndarray) -> tuple[str, tuple[str, int, str] | None]:
+    """Day-first or month-first from the evidence in the file, with the first date that shows it
+    (column, row, text); :class:`TapeError` if it is unclear."""
     if not pending:
-        return "day_first"  # nothing to decide
+        return "day_first", None  # nothing to decide
     day_first: tuple[str, int, str] | None = None
     month_first: tuple[str, int, str] | None = None
     undecided: tuple[str, int, str] | None = None
@@ -407,9 +428,9 @@ def _decide_order(pending: Mapping[str, _Pending], file: str, source_row: np.nda
             hint="export the dates as YYYY-MM-DD",
         )
     if day_first:
-        return "day_first"
+        return "day_first", day_first
     if month_first:
-        return "month_first"
+        return "month_first", month_first
     if undecided:
         raise TapeError(
             f"cannot tell whether dates such as {undecided[2]!r} ({undecided[0]}, row {undecided[1]}) "
@@ -419,4 +440,4 @@ def _decide_order(pending: Mapping[str, _Pending], file: str, source_row: np.nda
             column=undecided[0],
             hint='set date_format = "day_first" or "month_first" in [tape] of the assumptions file',
         )
-    return "day_first"  # every such date reads the same either way (01/01/2026)
+    return "day_first", None  # every such date reads the same either way (01/01/2026)

@@ -20,6 +20,8 @@ class IntakeResult:
               ("reject" or "warning"), ``message``; warnings are findings on accepted rows
     blank_rows  lines of the file in which every field was empty; skipped, not counted as read
     headers   our column name -> the header it was read from (a column of ``rejected``)
+    date_formats  each date column of the file -> the format it was read in, and why
+              (``year first (YYYY-MM-DD)``, ``day first (DD/MM/YYYY), inferred from ...``)
     """
 
     accepted: pd.DataFrame
@@ -29,6 +31,7 @@ class IntakeResult:
     file: InputFile
     blank_rows: int = 0
     headers: dict[str, str] = field(default_factory=dict)
+    date_formats: dict[str, str] = field(default_factory=dict)
 
     @property
     def rows_accepted(self) -> int:

@@ -31,7 +31,14 @@ _REJECTED_LEAD = ["source_row", "reason_codes", "reasons"]
 
 
 def _norm(header: str) -> str:
-    return header.strip().casefold()
+    """A header as matched: case, spaces and underscores ignored (``Loan ID`` is ``loan_id``).
+
+    Examples
+    --------
+    >>> _norm(" Loan ID"), _norm("loan_id"), _norm("Days Past_Due")
+    ('loanid', 'loanid', 'dayspastdue')
+    """
+    return "".join(header.split()).replace("_", "").casefold()
 
 
 @dataclass(frozen=True)
@@ -56,7 +63,7 @@ def _unique(names: list[str], taken: set[str]) -> list[str]:
 
 
 def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -> ColumnMap:
-    """Match the file's headers to our columns (ignoring case and surrounding spaces).
+    """Match the file's headers to our columns (ignoring case, spaces and underscores).
 
     ``mapping`` is ``[tape.columns]``: our name -> the extract's header. A missing required
     column is one :class:`TapeError` naming every missing column with its close matches.
@@ -65,9 +72,12 @@ def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -
     --------
     >>> headers = [" Loan ID", "Segment", "repayment", "origination_date", "maturity_date", "Bal",
     ...            "interest_rate", "days_past_due", "branch"]
-    >>> m = map_columns(headers, {"loan_id": "loan id", "balance": "bal"}, "t.csv")
+    >>> m = map_columns(headers, {"balance": "bal"}, "t.csv")
     >>> m.ours["loan_id"], m.ours["balance"], m.extras
     (0, 5, {'branch': 8})
+    >>> map_columns(["Loan ID", "SEGMENT", "Repayment", "Origination Date", "maturity date", "balance",
+    ...              "Interest_Rate", "days past due"], {}, "t.csv").ours["origination_date"]
+    3
     """
     positions: dict[str, list[int]] = {}
     for i, header in enumerate(headers):
@@ -104,7 +114,8 @@ def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -
     used = set(ours.values())
     rest = [i for i in range(len(headers)) if i not in used]
     names = [headers[i].strip() or f"column_{i + 1}" for i in rest]
-    names = [f"extract_{n}" if _norm(n) in FIELDS or _norm(n) == "source_row" else n for n in names]
+    ours_normalised = {_norm(f) for f in (*FIELDS, "source_row")}
+    names = [f"extract_{n}" if _norm(n) in ours_normalised else n for n in names]
     return ColumnMap(ours=ours, extras=dict(zip(_unique(names, {*FIELDS, "source_row"}), rest)))
 
 
@@ -320,4 +331,6 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
         file=raw.record.record,
         blank_rows=raw.blank_rows,
         headers={name: rejected_headers(raw)[i] for name, i in colmap.ours.items()},
+        date_formats={name: cols.parsed[name].form for name in FIELDS
+                      if FIELDS[name].kind == "date" and name in colmap.ours},
     )

@@ -118,8 +118,9 @@ def tie_out(
 def check_table(result: IntakeResult) -> pd.DataFrame:
     """The counts ``allowance check`` prints: rows, then rejections and warnings by reason.
 
-    Columns ``section`` (rows / rejected / warning), ``code``, ``column``, ``rows`` and
-    ``message``. A rejected row counts once under each distinct reason it has, so the
+    Columns ``section`` (rows / dates / rejected / warning), ``code``, ``column``, ``rows``
+    and ``message``; a ``dates`` line says how each date column was read (code
+    ``month_first`` when month-first, so it stands out). A rejected row counts once under each distinct reason it has, so the
     rejection lines may add up to more than the rejected rows.
     """
     lines = [
@@ -129,6 +130,9 @@ def check_table(result: IntakeResult) -> pd.DataFrame:
     ]
     if result.blank_rows:
         lines.append(("rows", "blank", "", result.blank_rows, "empty lines skipped (not counted as read)"))
+    for column, form in result.date_formats.items():
+        flag = "month_first" if "month first" in form else "date_format"
+        lines.append(("dates", flag, column, result.rows_read, f"read as {form}"))
     findings = result.findings
     if len(findings):
         for section, severity in (("rejected", "reject"), ("warning", "warning")):

@@ -197,6 +197,7 @@ def run_record(
         "timestamp": finished.isoformat(timespec="seconds"),
         "inputs": [i.model_dump(mode="json") for i in inputs],
         "rows": {"read": intake.rows_read, "accepted": intake.rows_accepted, "rejected": intake.rows_rejected},
+        "date_formats": dict(getattr(intake, "date_formats", {}) or {}),
         "loans": len(loans),
         "total_balance": money_total(loans["balance"]) if "balance" in loans.columns else None,
         "total_allowance": {f: t.get("allowance") for f, t in totals.items()},

@@ -265,9 +265,10 @@ def intake_sheet(sheet: Sheet, report: "RunReport", refs: LoanRefs, led: Ledger)
 
     formats = getattr(intake, "date_formats", None) or {}
     if formats:
-        frame = pd.DataFrame([{"column": c, **(v if isinstance(v, dict) else {"format": v})} for c, v in formats.items()])
+        frame = pd.DataFrame({"column": list(formats), "format": list(formats.values())})
         _, last = sheet.table(row, frame, title="Date columns: the format each was read in",
-                              headers={"format": "Format read", "example": "Example as written"})
+                              headers={"format": "Format read (and why)"}, kinds={"format": "wrap"})
+        sheet.width(2, max(sheet.widths.get(2, 0), 48))
         row = last + 2
     rejected = intake.rejected
     if len(rejected) and "reason_codes" in rejected.columns:
