@@ -280,6 +280,7 @@ def test_scenario_table_and_sensitivity(book):
     assert cents(base["ecl"]) == cents(report.loans["ecl_ifrs9_base"]) and base["weight"] == 0.6
     weighted = table[(table["framework"] == "cecl") & (table["scenario"] == "weighted (modelled)")].iloc[0]
     assert cents(weighted["ecl"]) == cents(report.loans["ecl_cecl_modelled"])
+    # each scenario at 100 % is on the Scenarios sheet, as a figure over the loan sheet
     scenario_figures = {cents(v) for k, v in ledger.values.items() if k.startswith("Scenarios!")}
     for name in ("base", "upside", "downside"):
         assert cents(report.loans[f"ecl_ifrs9_{name}"]) in scenario_figures
