@@ -84,7 +84,10 @@ def test_unknown_key_names_file_key_and_suggestion(tmp_path):
         load_assumptions(path)
     assert err.value.column == "segments.retail.lgdd"
     assert str(err.value).startswith(f"{path}: column segments.retail.lgdd: unknown key 'lgdd' (did you mean 'lgd'?)")
-    assert "segments.retail.lgd: required key 'lgd' is missing" in str(err.value)
+    # lgd is optional for a loss-rate segment, so its absence shows once the typo is gone
+    path = write(tmp_path, "b.toml", INTAKE_ASSUMPTIONS.replace("lgd = 0.4\n", ""))
+    with pytest.raises(AssumptionsError, match=r"column segments\.retail: pd_\w+ needs lgd") as err:
+        load_assumptions(path)
 
 
 def test_error_in_an_overlay_names_the_overlay(tmp_path):
