@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, curves, scenarios, staging
+from allowance import cashflows, curves, loss_rates, scenarios, staging
 from allowance.exceptions import AssumptionsError
 from allowance.frameworks import FrameworkRules, rules_for
 from allowance.schemas import Framework, RunConfig, SegmentAssumptions
@@ -103,11 +103,70 @@ class Prepared:
     collateral_index: np.ndarray  # [F, K, T, S]
     tables: dict[Framework, scenarios.ScenarioTables]
     pd_12m_now: np.ndarray  # [K]: the staged framework's probability-weighted 12-month PD, for staging
+    loss_rates: LossRateTables | None = None  # the loss-rate segments' tables (None: there are none)
 
     @property
     def staged(self) -> FrameworkRules | None:
         """The rules of the framework whose loans carry stages (IFRS 9), if it is run."""
         return next((r for r in self.rules if r.staged), None)
+
+
+@dataclass(frozen=True)
+class LossRateTables:
+    """What the loss-rate loop reads besides the loan terms (see :mod:`allowance.loss_rates`).
+
+    Per segment name: ``method`` (code), ``rate`` (pool: lifetime rate; WARM: annual rate),
+    ``vintage`` (row of ``curve``). Tables: ``multiplier[F, T, S]`` (the scenarios' loss-rate
+    multipliers), ``curve[V, A]`` (vintage curves by month of age; one zero row when none).
+    """
+
+    method: dict[str, int]
+    rate: dict[str, float]
+    vintage: dict[str, int]
+    multiplier: np.ndarray
+    curve: np.ndarray
+
+
+def _loss_rate_structure(name: str, seg: SegmentAssumptions, months: int) -> curves.PdTermStructure:
+    """A loss-rate segment has no PD: one key with zero PDs keeps the stacked tables aligned."""
+    return curves.PdTermStructure(name, ("*",), np.zeros((1, months)), None, seg.loss_rate_method)
+
+
+def _refuse_moving_paths(a) -> None:
+    """A z or macro scenario moves PDs; a loss-rate segment has none to move."""
+    named = [n for n, s in a.segments.items() if s.loss_rate_method is not None]
+    moving = [n for n, s in a.scenarios.items() if s.pd_path_kind in ("z", "macro")]
+    if named and moving:
+        raise AssumptionsError(
+            f"scenario {moving[0]!r} moves PDs through a {a.scenarios[moving[0]].pd_path_kind} path, but segment "
+            f"{named[0]!r} uses a loss rate, which a scenario scales by its multipliers",
+            column=f"scenarios.{moving[0]}",
+            hint="give the scenario a pd_multiplier by year (it scales loss rates too), or give the segment a PD source",
+        )
+
+
+def _loss_rate_tables(config: RunConfig, months: int, max_age: int, frameworks, tables) -> LossRateTables | None:
+    """The loss-rate segments' methods, rates, vintage curves and the scenarios' multipliers."""
+    a = config.assumptions
+    named = {n: s for n, s in a.segments.items() if s.loss_rate_method is not None}
+    if not named:
+        return None
+    first = next(iter(named))
+    # the same reverted PD and LGD multiplier paths the PD method uses (the maths lives once)
+    multipliers = [loss_rates.loss_rate_multipliers(tables[fw], first).T for fw in frameworks]
+    ages = max_age + months + 1
+    curve_rows = [np.zeros(ages + 1)]
+    method, rate, vintage = {}, {}, {}
+    for name, seg in named.items():
+        key = seg.loss_rate_method
+        method[name] = loss_rates.LOSS_RATE_METHODS[key]
+        rate[name] = float(getattr(seg, key)) if key != "vintage_loss_curve" else 0.0
+        vintage[name] = 0
+        if key == "vintage_loss_curve":
+            vintage[name] = len(curve_rows)
+            curve_rows.append(loss_rates.vintage_curve_by_month(seg.vintage_loss_curve, ages))
+    return LossRateTables(method=method, rate=rate, vintage=vintage,
+                          multiplier=np.ascontiguousarray(np.stack(multipliers)), curve=np.vstack(curve_rows))
 
 
 # --------------------------------------------------------------------------------------
@@ -181,7 +240,10 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
     structures, key_offset, bases, key_smm = {}, {}, [], []
     offset = 0
     for name, seg in a.segments.items():
-        ts = curves.pd_term_structure(name, seg, months)
+        if seg.loss_rate_method is not None:
+            ts = _loss_rate_structure(name, seg, months)
+        else:
+            ts = curves.pd_term_structure(name, seg, months)
         structures[name], key_offset[name] = ts, offset
         offset += len(ts.keys)
         bases.append(ts.marginal)
@@ -204,6 +266,7 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
             rows.append(_prepayment_row(seg, length))
     smm = np.vstack(rows)
 
+    _refuse_moving_paths(a)
     uses_z = any(s.z for s in a.scenarios.values())
     rho = None
     if uses_z:
@@ -230,5 +293,5 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
         weights=weights, segments=segment_table(a.segments), structures=structures, key_offset=key_offset,
         prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
-        pd_12m_now=pd_12m_now,
+        pd_12m_now=pd_12m_now, loss_rates=_loss_rate_tables(config, months, max_age, frameworks, tables),
     )
