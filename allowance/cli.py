@@ -284,6 +284,40 @@ def compare(
 
 
 @app.command()
+def backtest(
+    run_dir: Annotated[Path, typer.Argument(help="A finished run's output folder (loans.csv, run.json).")],
+    history: Annotated[Path, typer.Argument(help="Monthly performance history since that run (CSV or Parquet).")],
+    out: OutOption,
+    confidence: Annotated[float, typer.Option(help="Two-sided confidence of the default-rate intervals.")] = 0.95,
+    yellow_p: Annotated[float, typer.Option(help="Yellow light below this p-value.")] = 0.05,
+    red_p: Annotated[float, typer.Option(help="Red light below this p-value.")] = 0.001,
+    test: Annotated[str, typer.Option(help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
+) -> None:
+    """Compare a past run's 12-month PDs and expected losses with what happened since."""
+    from pydantic import ValidationError
+
+    from allowance.backtest import BacktestOptions
+    from allowance.backtest.run import backtest_files
+    from allowance.report.backtest import write_backtest
+
+    try:
+        options = BacktestOptions(confidence=confidence, yellow_p=yellow_p, red_p=red_p, test=test)
+    except ValidationError as err:
+        typer.echo(f"usage: {err.errors()[0]['msg']}", err=True)
+        raise typer.Exit(2) from err
+    try:
+        result, record = backtest_files(run_dir, history, options)
+        write_backtest(out, result, record)
+    except AllowanceError as err:
+        _fail(err)
+    with pd.option_context("display.width", 200, "display.max_columns", 20, "display.float_format", "{:,.4f}".format):
+        shown = ["segment", "method", "verdict", "pd_light", "loss_light", "defaults", "expected_defaults",
+                 "expected_loss_12m", "realised_ncl"]
+        _say(result.segments[[c for c in shown if c in result.segments]].to_string(index=False))
+    _say(f"wrote {out}")
+
+
+@app.command()
 def version() -> None:
     """Print the version."""
     _say(__version__)

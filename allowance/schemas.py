@@ -640,7 +640,7 @@ class InputFile(BaseModel):
 
     model_config = ConfigDict(frozen=True)
 
-    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior"]
+    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior", "history"]
     path: str
     sha256: str
     bytes: int

@@ -1,0 +1,97 @@
+"""`allowance backtest` end to end, and `allowance run` with a loss-rate segment."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+from openpyxl import load_workbook
+from typer.testing import CliRunner
+
+from allowance.cli import app
+from tests.test_backtest import ASSUMPTIONS, AS_OF, history_from, run_loans
+
+runner = CliRunner()
+
+
+def invoke(*args):
+    return runner.invoke(app, [str(a) for a in args], catch_exceptions=False)
+
+
+def _run_dir(tmp_path, loans: pd.DataFrame):
+    folder = tmp_path / "run-2025q3"
+    folder.mkdir()
+    loans.to_csv(folder / "loans.csv", index=False)
+    (folder / "run.json").write_text(json.dumps({"as_of": AS_OF.isoformat(), "assumptions": ASSUMPTIONS}))
+    return folder
+
+
+@pytest.mark.parametrize("factor,light", [(1.0, "green"), (2.0, "red")])
+def test_backtest_from_the_command_line(tmp_path, factor, light):
+    loans = run_loans(per_grade=5_000)
+    folder = _run_dir(tmp_path, loans)
+    history = tmp_path / "history.csv"
+    frame = history_from(loans, factor, seed=4)
+    frame["month"] = frame["month"].dt.strftime("%Y-%m")
+    frame.to_csv(history, index=False)
+    result = invoke("backtest", folder, history, "--out", tmp_path / "bt")
+    assert result.exit_code == 0, result.output
+    segments = pd.read_csv(tmp_path / "bt" / "backtest_segments.csv").set_index("segment")
+    assert segments.loc["auto", "pd_light"] == light
+    grades = pd.read_csv(tmp_path / "bt" / "backtest_grades.csv")
+    assert set(grades.loc[grades["segment"] == "auto", "pd_position"]) == {"inside" if factor == 1 else "below"}
+    record = json.loads((tmp_path / "bt" / "backtest.json").read_text())
+    assert record["verdicts"]["auto"] == segments.loc["auto", "verdict"]
+    book = load_workbook(tmp_path / "bt" / "backtest.xlsx")
+    assert book.sheetnames == ["Back-test", "Grades"] and book["Grades"]._charts
+    assert "auto" in result.output
+
+
+def test_backtest_needs_a_full_year_of_history(tmp_path):
+    loans = run_loans(per_grade=50)
+    folder = _run_dir(tmp_path, loans)
+    history = tmp_path / "history.csv"
+    short = history_from(loans, 1.0)
+    short[short["month"] <= "2026-03-31"].to_csv(history, index=False)
+    result = invoke("backtest", folder, history, "--out", tmp_path / "bt")
+    assert result.exit_code == 1 and "needs every month end up to 2026-09-30" in result.output
+    assert not (tmp_path / "bt").exists()
+
+
+def test_a_bad_history_value_names_the_line(tmp_path):
+    loans = run_loans(per_grade=10)
+    folder = _run_dir(tmp_path, loans)
+    history = tmp_path / "history.csv"
+    frame = history_from(loans, 1.0)
+    frame["days_past_due"] = frame["days_past_due"].astype(object)
+    frame.loc[3, "days_past_due"] = "ninety"
+    frame.to_csv(history, index=False)
+    result = invoke("backtest", folder, history, "--out", tmp_path / "bt")
+    assert result.exit_code == 1
+    assert "row 5, column days_past_due: days_past_due 'ninety' is not a whole number" in result.output
+
+
+
+
+@pytest.mark.slow
+def test_run_with_a_loss_rate_segment_from_the_command_line(tmp_path):
+    """The demo quarter with its personal loans on the remaining-life (WARM) method."""
+    from allowance.intake import bundled_path
+
+    demo = bundled_path("demo")
+    text = (demo / "assumptions_2026q3.toml").read_text(encoding="utf-8")
+    old = "pd_12m_by_grade = { A = 0.008, B = 0.018, C = 0.035, D = 0.065, E = 0.12 }\nlgd = 0.8\n"
+    assert old in text
+    text = text.replace(old, "annual_loss_rate = 0.031\nlgd = 0.8\n")  # the LGD of loans in default
+    (tmp_path / "a.toml").write_text(text, encoding="utf-8")
+    (tmp_path / "cards_rolls.csv").write_bytes((demo / "cards_rolls.csv").read_bytes())
+    result = invoke("run", demo / "tape_2026q3.csv", "-a", tmp_path / "a.toml", "--out", tmp_path / "out")
+    assert result.exit_code == 0, result.output
+    loans = pd.read_csv(tmp_path / "out" / "loans.csv")
+    personal = loans[loans["segment"] == "personal"]
+    assert personal["pd_12m"].isna().all() and (personal["ecl_cecl"] > 0).all()
+    performing = personal[personal["stage"] == 1]
+    # stage 1: 12 months of the annual rate on a balance that amortises and prepays: below 3.1 % of it
+    assert (performing["ecl_ifrs9"] < 0.031 * performing["ead"] + 0.01).all()
+    assert loans.loc[loans["segment"] != "personal", "pd_12m"].notna().all()
