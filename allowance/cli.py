@@ -240,16 +240,22 @@ def schedule(
 def roll_rates(
     assumptions: AssumptionsOption,
     segment: Annotated[str | None, typer.Option("--segment", help="Only this segment.")] = None,
+    tape: Annotated[Path | None, typer.Option("--tape", help="Also roll this tape's bucket balances forward.")] = None,
+    months: Annotated[int, typer.Option("--months", min=1, help="Months of the balance forecast.")] = 12,
 ) -> None:
     """Print what each roll-rate matrix implies from every delinquency bucket.
 
     12-month and lifetime PD (absorption into charge-off) and expected months to charge-off.
+    With --tape: the tape's delinquency-bucket balances rolled forward month by month (the
+    charge-off forecast) beside the loan-level allowance of the same segment.
     """
     from allowance import api
     from allowance.exceptions import AllowanceError
 
     try:
         table = api.roll_rates(assumptions, segment=segment)
+        if tape is not None:
+            by_month, check = api.roll_forecast(tape, assumptions, segment=segment, months=months)
     except AllowanceError as err:
         _fail(err)
     if table.empty:
@@ -259,6 +265,12 @@ def roll_rates(
 
     with pd.option_context("display.width", 200, "display.float_format", "{:,.4f}".format):
         _say(table.to_string(index=False))
+    if tape is not None:
+        with pd.option_context("display.width", 250, "display.max_columns", 30, "display.float_format", "{:,.2f}".format):
+            _say("\n-- balance roll-rate forecast: charge-offs by month")
+            _say(by_month.to_string(index=False))
+            _say("\n-- the forecast (charge-offs x LGD) beside the loan-level allowance")
+            _say(check.to_string(index=False))
 
 
 @app.command()

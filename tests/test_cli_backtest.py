@@ -95,3 +95,15 @@ def test_run_with_a_loss_rate_segment_from_the_command_line(tmp_path):
     # stage 1: 12 months of the annual rate on a balance that amortises and prepays: below 3.1 % of it
     assert (performing["ecl_ifrs9"] < 0.031 * performing["ead"] + 0.01).all()
     assert loans.loc[loans["segment"] != "personal", "pd_12m"].notna().all()
+
+
+@pytest.mark.slow
+def test_roll_rates_with_a_tape_prints_the_forecast_and_the_check():
+    from allowance.intake import bundled_path
+
+    demo = bundled_path("demo")
+    result = invoke("roll-rates", "-a", demo / "assumptions_2026q3.toml", "--tape", demo / "tape_2026q3.csv",
+                    "--months", "3")
+    assert result.exit_code == 0, result.output
+    assert "balance roll-rate forecast" in result.output and "loan_level_ecl" in result.output
+    assert "12 months" in result.output and "lifetime" in result.output
