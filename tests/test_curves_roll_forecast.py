@@ -115,7 +115,7 @@ def test_segment_forecasts_roll_each_matrix_segment_of_a_book():
     loans = pd.DataFrame({"segment": ["cards", "cards", "auto"], "ecl_12m": [10.0, 200.0, 5.0],
                           "ecl_lifetime": [40.0, 260.0, 9.0]})
     by_month, check = segment_roll_forecasts(tape, segments, loans, months=6)
-    direct = roll_forecast([1_000.0, 0, 0, 500.0, 0, 0, 0], example_roll_matrix(180), 180, 6)
+    direct = roll_forecast([1_000.0, 0, 0, 0, 500.0, 0, 0], example_roll_matrix(180), 180, 6)  # 100 dpd: 90-119
     assert by_month["segment"].unique().tolist() == ["cards"]
     np.testing.assert_allclose(by_month["charge_offs"], direct.by_month["charge_offs"])
     assert check["loan_level_ecl"].tolist() == [210.0, 300.0] and check["lgd"].tolist() == [0.9, 0.9]
