@@ -76,25 +76,23 @@ def test_a_bad_history_value_names_the_line(tmp_path):
 
 @pytest.mark.slow
 def test_run_with_a_loss_rate_segment_from_the_command_line(tmp_path):
-    """The demo quarter with its personal loans on the remaining-life (WARM) method."""
+    """The demo quarter with the shipped what-if moving personal loans to the WARM method."""
     from allowance.intake import bundled_path
 
     demo = bundled_path("demo")
-    text = (demo / "assumptions_2026q3.toml").read_text(encoding="utf-8")
-    old = "pd_12m_by_grade = { A = 0.008, B = 0.018, C = 0.035, D = 0.065, E = 0.12 }\nlgd = 0.8\n"
-    assert old in text
-    text = text.replace(old, "annual_loss_rate = 0.031\nlgd = 0.8\n")  # the LGD of loans in default
-    (tmp_path / "a.toml").write_text(text, encoding="utf-8")
-    (tmp_path / "cards_rolls.csv").write_bytes((demo / "cards_rolls.csv").read_bytes())
-    result = invoke("run", demo / "tape_2026q3.csv", "-a", tmp_path / "a.toml", "--out", tmp_path / "out")
+    result = invoke("run", demo / "tape_2026q3.csv", "-a", demo / "assumptions_2026q3.toml",
+                    "--overlay", demo / "personal_on_loss_rates.toml", "--out", tmp_path / "out")
     assert result.exit_code == 0, result.output
     loans = pd.read_csv(tmp_path / "out" / "loans.csv")
     personal = loans[loans["segment"] == "personal"]
     assert personal["pd_12m"].isna().all() and (personal["ecl_cecl"] > 0).all()
     performing = personal[personal["stage"] == 1]
-    # stage 1: 12 months of the annual rate on a balance that amortises and prepays: below 3.1 % of it
-    assert (performing["ecl_ifrs9"] < 0.031 * performing["ead"] + 0.01).all()
+    # stage 1: 12 months of the annual rate on a balance that amortises and prepays: below 2.6 % of it
+    assert (performing["ecl_ifrs9"] < 0.026 * performing["ead"] + 0.01).all()
     assert loans.loc[loans["segment"] != "personal", "pd_12m"].notna().all()
+    what_if = pd.read_csv(tmp_path / "out" / "what_if.csv")
+    moved = what_if[(what_if["difference"] != 0) & what_if["segment"].notna()]
+    assert set(moved["segment"]) == {"personal"}  # only the segment that changed method moves
 
 
 @pytest.mark.slow
