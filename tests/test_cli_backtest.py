@@ -94,6 +94,19 @@ def test_run_with_a_loss_rate_segment_from_the_command_line(tmp_path):
     moved = what_if[(what_if["difference"] != 0) & what_if["segment"].notna()]
     assert set(moved["segment"]) == {"personal"}  # only the segment that changed method moves
 
+    # the demo's back-test: an invented year after the quarter, CRE defaulting at twice its PDs
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location("next_year", demo / "next_year.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    module.main([str(tmp_path / "out" / "loans.csv"), str(tmp_path / "next.csv")])
+    result = invoke("backtest", tmp_path / "out", tmp_path / "next.csv", "--out", tmp_path / "bt")
+    assert result.exit_code == 0, result.output
+    verdicts = pd.read_csv(tmp_path / "bt" / "backtest_segments.csv").set_index("segment")
+    assert verdicts.loc["cre", "verdict"] in ("yellow", "red") and verdicts.loc["cre", "pd_light"] != "green"
+    assert verdicts.loc["personal", "method"] == "loss rate"
+
 
 @pytest.mark.slow
 def test_roll_rates_with_a_tape_prints_the_forecast_and_the_check():
