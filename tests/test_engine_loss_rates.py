@@ -7,7 +7,6 @@ import numpy_financial as npf
 import pytest
 
 from allowance import engine
-from allowance.exceptions import AssumptionsError
 from allowance.schemas import Assumptions, RunConfig
 from tests.books import engine_tape as tape
 
@@ -22,8 +21,8 @@ BASE = {
 def config(auto: dict, scenarios: dict | None = None, overlays: list | None = None) -> RunConfig:
     data = dict(BASE, segments={
         "auto": auto,
-        "mort": {"pd_curve": [0.005, 0.012, 0.02], "lgd": 0.2, "psa": 150},
-        "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3,
+        "mort": {"pd_curve": [0.005, 0.012, 0.02], "lgd": 0.2, "psa": 150, "asset_correlation": 0.15},
+        "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3, "asset_correlation": 0.04,
                   "behavioural_life_months": 36, "payment_rate": 0.05},
     })
     if scenarios:
@@ -109,7 +108,13 @@ def test_vintage_curve_through_the_engine_and_overlays_apply():
     assert np.allclose(out["ecl_cecl"], (out["ecl_cecl_modelled"] * 1.1).round(2), atol=0.011)
 
 
-def test_a_z_path_is_refused_for_a_loss_rate_segment():
-    scen = {"stress": {"weight": 1.0, "z": [-1.5]}}
-    with pytest.raises(AssumptionsError, match="z path.*loss rate"):
-        engine.run(book(), config({"annual_loss_rate": 0.01, "retail_class": "other_retail"}, scen))
+def test_a_z_path_moves_the_reference_loss_rate_like_a_pd():
+    # a z path moves the segment's reference monthly rate (annual rate / 12) through the Vasicek
+    # conditional rate, as it moves a PD; z = -1.5 (a bad year) raises the allowance, z = 0 is
+    # the median economy and lowers it against the unconditional rate
+    t = book()
+    auto = (t["segment"] == "auto").to_numpy()
+    seg = {"annual_loss_rate": 0.012, "retail_class": "other_retail"}
+    plain = engine.run(t, config(seg)).loans[auto]["ecl_cecl"].sum()
+    bad = engine.run(t, config(seg, {"stress": {"weight": 1.0, "z": [-1.5]}})).loans[auto]["ecl_cecl"].sum()
+    assert bad > plain * 1.3

@@ -272,9 +272,8 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
     stage = None if stages is None else stages["stage"].to_numpy()
     fw = _framework_inputs(chunk, terms, stage, prep)
     k = expected_losses(_kernel_inputs(terms, fw, prep))
-    by_rate = _loss_rate_loans(chunk, prep, terms, fw)
-    if by_rate is not None:  # loss-rate segments: their own loop, same terms (a loss rate has no PD or LGD)
-        rows, lr = by_rate
+    # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
+    for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
         k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
         k.pd_12m[rows] = k.pd_lifetime[rows] = np.nan
         k.lgd[rows] = np.nan
@@ -285,34 +284,36 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
 
 
 def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: _Frameworks):
-    """The loans of loss-rate segments through the loss-rate loop: (their rows, its result).
+    """The loans of loss-rate segments through the loss-rate loop: (their rows, ecl_12m, ecl_lifetime).
 
     They share the PD method's loan terms, horizons, prepayment rows, exposure add-ons and
-    discounting; a loan in default takes the segment's stated LGD, or stays in the pool.
+    discounting; a loan in default takes the segment's stated LGD, or stays in the pool. Each
+    segment runs with its own scenario multipliers.
     """
     tables = prep.loss_rates
     if tables is None:
         return None
     segment = chunk["segment"].to_numpy()
-    rows = np.flatnonzero(pd.Series(segment).isin(list(tables.method)).to_numpy())
-    if not rows.size:
-        return None
-
-    def per_segment(table: dict) -> np.ndarray:
-        return np.array([table[s] for s in segment[rows]])
-
-    original = chunk["original_balance"].to_numpy(float)[rows] if "original_balance" in chunk else np.zeros(rows.size)
-    inputs = loss_rates.LossRateInputs(
-        method=per_segment(tables.method), loss_rate=per_segment(tables.rate), vintage=per_segment(tables.vintage),
-        original_balance=np.nan_to_num(original), age=terms.age[rows], default_lgd=terms.lgd[rows],
-        code=terms.code[rows], balance=terms.balance[rows], rate=terms.rate[rows], months_left=terms.remaining[rows],
-        io_left=terms.io_left[rows], residual=terms.residual[rows], payment=terms.payment[rows],
-        prepay=terms.prepay[rows], prepay_offset=terms.prepay_offset[rows], in_default=fw.in_default[:, rows],
-        horizon=fw.horizon[:, rows], ead_add=fw.ead_add[:, rows], paydown=fw.paydown[:, rows],
-        discount=fw.discount[:, rows], multiplier=tables.multiplier, lgd_multiplier=prep.lgd_multiplier,
-        vintage_curve=tables.curve, smm=prep.smm,
-    )
-    return rows, loss_rates.loss_rate_losses(inputs)
+    original = chunk["original_balance"].to_numpy(float) if "original_balance" in chunk else np.zeros(len(chunk))
+    parts = []
+    for name in tables.method:
+        rows = np.flatnonzero(segment == name)
+        if not rows.size:
+            continue
+        n = rows.size
+        inputs = loss_rates.LossRateInputs(
+            method=np.full(n, tables.method[name]), loss_rate=np.full(n, tables.rate[name]),
+            vintage=np.full(n, tables.vintage[name]), original_balance=np.nan_to_num(original[rows]),
+            age=terms.age[rows], default_lgd=terms.lgd[rows], code=terms.code[rows], balance=terms.balance[rows],
+            rate=terms.rate[rows], months_left=terms.remaining[rows], io_left=terms.io_left[rows],
+            residual=terms.residual[rows], payment=terms.payment[rows], prepay=terms.prepay[rows],
+            prepay_offset=terms.prepay_offset[rows], in_default=fw.in_default[:, rows], horizon=fw.horizon[:, rows],
+            ead_add=fw.ead_add[:, rows], paydown=fw.paydown[:, rows], discount=fw.discount[:, rows],
+            multiplier=tables.multiplier[name], lgd_multiplier=prep.lgd_multiplier, vintage_curve=tables.curve,
+            smm=prep.smm,
+        )
+        parts.append((rows, loss_rates.loss_rate_losses(inputs)))
+    return parts or None
 
 
 def _payment_findings(chunk, balance, rate, remaining, payment) -> pd.DataFrame:

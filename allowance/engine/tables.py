@@ -116,47 +116,35 @@ class LossRateTables:
     """What the loss-rate loop reads besides the loan terms (see :mod:`allowance.loss_rates`).
 
     Per segment name: ``method`` (code), ``rate`` (pool: lifetime rate; WARM: annual rate),
-    ``vintage`` (row of ``curve``). Tables: ``multiplier[F, T, S]`` (the scenarios' loss-rate
-    multipliers), ``curve[V, A]`` (vintage curves by month of age; one zero row when none).
+    ``vintage`` (row of ``curve``) and ``multiplier[F, T, S]`` (the scenarios' loss-rate
+    multipliers). ``curve[V, A]``: vintage curves by month of age (one zero row when none).
     """
 
     method: dict[str, int]
     rate: dict[str, float]
     vintage: dict[str, int]
-    multiplier: np.ndarray
+    multiplier: dict[str, np.ndarray]
     curve: np.ndarray
 
 
 def _loss_rate_structure(name: str, seg: SegmentAssumptions, months: int) -> curves.PdTermStructure:
-    """A loss-rate segment has no PD: one key with zero PDs keeps the stacked tables aligned."""
-    return curves.PdTermStructure(name, ("*",), np.zeros((1, months)), None, seg.loss_rate_method)
+    """A loss-rate segment's reference monthly rate, as one curve key: the scenario paths move
+    it like a PD (its ratio is the loss-rate multiplier); staging and the PD loop ignore it."""
+    key = seg.loss_rate_method
+    q = min(1.0, loss_rates.reference_monthly_rate(key, getattr(seg, key)))
+    return curves.PdTermStructure(name, ("*",), np.full((1, months), q), None, key)
 
 
-def _refuse_moving_paths(a) -> None:
-    """A z or macro scenario moves PDs; a loss-rate segment has none to move."""
-    named = [n for n, s in a.segments.items() if s.loss_rate_method is not None]
-    moving = [n for n, s in a.scenarios.items() if s.pd_path_kind in ("z", "macro")]
-    if named and moving:
-        raise AssumptionsError(
-            f"scenario {moving[0]!r} moves PDs through a {a.scenarios[moving[0]].pd_path_kind} path, but segment "
-            f"{named[0]!r} uses a loss rate, which a scenario scales by its multipliers",
-            column=f"scenarios.{moving[0]}",
-            hint="give the scenario a pd_multiplier by year (it scales loss rates too), or give the segment a PD source",
-        )
-
-
-def _loss_rate_tables(config: RunConfig, months: int, max_age: int, frameworks, tables) -> LossRateTables | None:
+def _loss_rate_tables(config: RunConfig, months: int, max_age: int, tables, structures,
+                      key_offset) -> LossRateTables | None:
     """The loss-rate segments' methods, rates, vintage curves and the scenarios' multipliers."""
     a = config.assumptions
     named = {n: s for n, s in a.segments.items() if s.loss_rate_method is not None}
     if not named:
         return None
-    first = next(iter(named))
-    # the same reverted PD and LGD multiplier paths the PD method uses (the maths lives once)
-    multipliers = [loss_rates.loss_rate_multipliers(tables[fw], first).T for fw in frameworks]
     ages = max_age + months + 1
     curve_rows = [np.zeros(ages + 1)]
-    method, rate, vintage = {}, {}, {}
+    method, rate, vintage, multiplier = {}, {}, {}, {}
     for name, seg in named.items():
         key = seg.loss_rate_method
         method[name] = loss_rates.LOSS_RATE_METHODS[key]
@@ -165,8 +153,14 @@ def _loss_rate_tables(config: RunConfig, months: int, max_age: int, frameworks, 
         if key == "vintage_loss_curve":
             vintage[name] = len(curve_rows)
             curve_rows.append(loss_rates.vintage_curve_by_month(seg.vintage_loss_curve, ages))
-    return LossRateTables(method=method, rate=rate, vintage=vintage,
-                          multiplier=np.ascontiguousarray(np.stack(multipliers)), curve=np.vstack(curve_rows))
+        # the scenario paths the PD method's tables already hold for this key (the maths lives once)
+        k = key_offset[name]
+        multiplier[name] = np.ascontiguousarray(np.stack([
+            loss_rates.loss_rate_multipliers(t.pd[k], structures[name].marginal[0], t.lgd_multiplier).T
+            for t in tables.values()
+        ]))
+    return LossRateTables(method=method, rate=rate, vintage=vintage, multiplier=multiplier,
+                          curve=np.vstack(curve_rows))
 
 
 # --------------------------------------------------------------------------------------
@@ -266,7 +260,6 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
             rows.append(_prepayment_row(seg, length))
     smm = np.vstack(rows)
 
-    _refuse_moving_paths(a)
     uses_z = any(s.z for s in a.scenarios.values())
     rho = None
     if uses_z:
@@ -288,10 +281,13 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
     # staging compares the staged framework's 12-month PD now with the PD at origination
     staged = next((r.name for r in rules if r.staged), frameworks[0])
     pd_12m_now = scenarios.weighted(curves.pd_over(tables[staged].pd, 12), weights)
+    for name, seg in a.segments.items():  # a loss-rate segment has no PD for the PD-ratio test
+        if seg.loss_rate_method is not None:
+            pd_12m_now[key_offset[name]] = 0.0
     return Prepared(
         config=config, months=months, frameworks=frameworks, rules=rules, scenario_names=tuple(a.scenarios),
         weights=weights, segments=segment_table(a.segments), structures=structures, key_offset=key_offset,
         prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
-        pd_12m_now=pd_12m_now, loss_rates=_loss_rate_tables(config, months, max_age, frameworks, tables),
+        pd_12m_now=pd_12m_now, loss_rates=_loss_rate_tables(config, months, max_age, tables, structures, key_offset),
     )
