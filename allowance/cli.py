@@ -306,9 +306,11 @@ def backtest(
     test: Annotated[str, typer.Option(help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
 ) -> None:
     """Compare a past run's 12-month PDs and expected losses with what happened since."""
+    import pandas as pd
     from pydantic import ValidationError
 
     from allowance.backtest import BacktestOptions
+    from allowance.exceptions import AllowanceError
     from allowance.backtest.run import backtest_files
     from allowance.report.backtest import write_backtest
 
