@@ -370,6 +370,28 @@ def roll_rates(assumptions: Source, *, segment: str | None = None) -> pd.DataFra
     return table
 
 
+def roll_forecast(tape: Tape, assumptions: Source, *, segment: str | None = None,
+                  months: int = 12) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The tape's delinquency-bucket balances rolled forward through each roll-rate matrix.
+
+    Returns ``(by_month, check)``: charge-offs, payoffs and bucket balances by month per
+    roll-rate segment, and the forecast's losses (charge-offs × LGD, 12 months and lifetime)
+    beside the segment's loan-level allowance (:func:`allowance.curves.segment_roll_forecasts`).
+    """
+    from allowance import curves
+
+    config = _config(assumptions)
+    if segment is not None and segment not in config.assumptions.segments:
+        raise AssumptionsError(f"no segment {segment!r}", column="segments",
+                               hint=f"use one of {', '.join(config.assumptions.segments)}")
+    taken = intake.read_tape(_tape(tape), config)
+    loans = engine.run(taken.accepted, config).loans
+    by_month, check = curves.segment_roll_forecasts(taken.accepted, config.assumptions.segments, loans, months)
+    if segment is not None and not by_month.empty:
+        by_month, check = by_month[by_month["segment"] == segment], check[check["segment"] == segment]
+    return by_month, check
+
+
 def compare(prior: str | os.PathLike | Result, current: str | os.PathLike | Result, *,
             charge_offs: str | os.PathLike | pd.DataFrame | None = None) -> dict[str, reconcile.Movement]:
     """The allowance movement between two finished runs (output folders or results), per framework."""

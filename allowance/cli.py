@@ -240,16 +240,22 @@ def schedule(
 def roll_rates(
     assumptions: AssumptionsOption,
     segment: Annotated[str | None, typer.Option("--segment", help="Only this segment.")] = None,
+    tape: Annotated[Path | None, typer.Option("--tape", help="Also roll this tape's bucket balances forward.")] = None,
+    months: Annotated[int, typer.Option("--months", min=1, help="Months of the balance forecast.")] = 12,
 ) -> None:
     """Print what each roll-rate matrix implies from every delinquency bucket.
 
     12-month and lifetime PD (absorption into charge-off) and expected months to charge-off.
+    With --tape: the tape's delinquency-bucket balances rolled forward month by month (the
+    charge-off forecast) beside the loan-level allowance of the same segment.
     """
     from allowance import api
     from allowance.exceptions import AllowanceError
 
     try:
         table = api.roll_rates(assumptions, segment=segment)
+        if tape is not None:
+            by_month, check = api.roll_forecast(tape, assumptions, segment=segment, months=months)
     except AllowanceError as err:
         _fail(err)
     if table.empty:
@@ -259,6 +265,12 @@ def roll_rates(
 
     with pd.option_context("display.width", 200, "display.float_format", "{:,.4f}".format):
         _say(table.to_string(index=False))
+    if tape is not None:
+        with pd.option_context("display.width", 250, "display.max_columns", 30, "display.float_format", "{:,.2f}".format):
+            _say("\n-- balance roll-rate forecast: charge-offs by month")
+            _say(by_month.to_string(index=False))
+            _say("\n-- the forecast (charge-offs x LGD) beside the loan-level allowance")
+            _say(check.to_string(index=False))
 
 
 @app.command()
@@ -281,6 +293,42 @@ def compare(
         for fw, mv in moves.items():
             _say(f"-- {fw.upper()} allowance movement")
             _say(mv.allowance.to_string(index=False))
+
+
+@app.command()
+def backtest(
+    run_dir: Annotated[Path, typer.Argument(help="A finished run's output folder (loans.csv, run.json).")],
+    history: Annotated[Path, typer.Argument(help="Monthly performance history since that run (CSV or Parquet).")],
+    out: OutOption,
+    confidence: Annotated[float, typer.Option(help="Two-sided confidence of the default-rate intervals.")] = 0.95,
+    yellow_p: Annotated[float, typer.Option(help="Yellow light below this p-value.")] = 0.05,
+    red_p: Annotated[float, typer.Option(help="Red light below this p-value.")] = 0.001,
+    test: Annotated[str, typer.Option(help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
+) -> None:
+    """Compare a past run's 12-month PDs and expected losses with what happened since."""
+    import pandas as pd
+    from pydantic import ValidationError
+
+    from allowance.backtest import BacktestOptions
+    from allowance.exceptions import AllowanceError
+    from allowance.backtest.run import backtest_files
+    from allowance.report.backtest import write_backtest
+
+    try:
+        options = BacktestOptions(confidence=confidence, yellow_p=yellow_p, red_p=red_p, test=test)
+    except ValidationError as err:
+        typer.echo(f"usage: {err.errors()[0]['msg']}", err=True)
+        raise typer.Exit(2) from err
+    try:
+        result, record = backtest_files(run_dir, history, options)
+        write_backtest(out, result, record)
+    except AllowanceError as err:
+        _fail(err)
+    with pd.option_context("display.width", 200, "display.max_columns", 20, "display.float_format", "{:,.4f}".format):
+        shown = ["segment", "method", "verdict", "pd_light", "loss_light", "defaults", "expected_defaults",
+                 "expected_loss_12m", "realised_ncl"]
+        _say(result.segments[[c for c in shown if c in result.segments]].to_string(index=False))
+    _say(f"wrote {out}")
 
 
 @app.command()

@@ -18,9 +18,10 @@ measures losses against the balance outstanding). :math:`O` is the loan's origin
 
     ECL_{s} = \sum_{t=1}^{H} \ell_t \, m_{s,t} \, DF_t, \qquad ECL^{12}_{s} = \sum_{t \le 12} \ell_t \, m_{s,t} \, DF_t
 
-where :math:`m_{s,t}` is the scenario's loss-rate multiplier in month t (its PD multiplier times
-its LGD multiplier, each reverted after the reasonable and supportable period under CECL by
-:mod:`allowance.scenarios`), :math:`DF_t` the discount factor (1 where the framework does not
+where :math:`m_{s,t}` is the scenario's loss-rate multiplier in month t: how far the scenario's
+path moves the segment's reference monthly rate (a PD multiplier path scales it by the
+multiplier; a z or macro path moves it as it would a PD), times its LGD multiplier, each
+reverted after the reasonable and supportable period under CECL by :mod:`allowance.scenarios`, :math:`DF_t` the discount factor (1 where the framework does not
 discount) and H the loan's horizon. With no scenario adjustment and no discounting the three
 reduce to the textbook forms: :math:`L \cdot EAD_0` (:func:`pool_loss`),
 :math:`r \sum_t B_{t-1}/12` (:func:`warm_loss`) and :math:`O\,(C(a+H) - C(a))`
@@ -53,7 +54,8 @@ pool_loss              L × amortised cost
 warm_loss              r × Σ_t B_{t-1} / 12 over a given balance path
 vintage_loss           O × (C(end of life) − C(age))
 vintage_curve_by_month a cumulative loss curve by year of age, spread over months
-loss_rate_multipliers  a framework's scenario multipliers for loss rates, by scenario and month
+reference_monthly_rate the monthly rate a scenario path moves, per loss-rate method
+loss_rate_multipliers  a segment's scenario multipliers for its loss rate, by scenario and month
 LossRateInputs         per-loan arrays and the tables the loop reads
 LossRateResult         per loan, framework and scenario: ecl_12m, ecl_lifetime; ead
 loss_rate_losses       check the inputs and run the loop
@@ -68,7 +70,7 @@ import numba
 import numpy as np
 
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
-from allowance.exceptions import AssumptionsError, InvalidInputError
+from allowance.exceptions import InvalidInputError
 
 LossRateMethod = Literal["lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve"]
 
@@ -220,54 +222,59 @@ def vintage_loss(original_balance, age, life, curve_by_month):
 # --------------------------------------------------------------------------------------
 
 
-def loss_rate_multipliers(tables, segment: str = "") -> np.ndarray:
-    r"""A framework's loss-rate multiplier by scenario and month, from its scenario tables.
-
-    Parameters
-    ----------
-    tables : allowance.scenarios.ScenarioTables
-        The framework's scenario paths (CECL: already reverted after the reasonable and
-        supportable period).
-    segment : str
-        The loss-rate segment asking (for the error message).
-
-    Returns
-    -------
-    ndarray, shape (S, T)
+def reference_monthly_rate(method: LossRateMethod, value) -> float:
+    r"""The monthly loss rate a scenario path moves, for a segment's loss rate.
 
     Notes
     -----
-    A loss rate is a default rate times a severity, so a scenario scales it by its PD
-    multiplier times its LGD multiplier: :math:`m_{s,t} = m^{PD}_{s,t} \, m^{LGD}_{s,t}`,
-    each being the path the PD method uses (1.0 after the list ends; under CECL reverted to 1
-    by :func:`allowance.scenarios.reversion_weights`, ASC 326-20-30-9). A scenario given as a
-    z path moves PDs through the Vasicek model and has no multiplier for a loss rate.
-
-    Raises
-    ------
-    AssumptionsError
-        A scenario gives a z path.
+    A scenario moves a monthly rate through the same path a PD takes (a multiplier, the
+    Vasicek conditional rate for a z path, a satellite model for macro paths). The reference
+    level is ``annual_loss_rate`` / 12, ``lifetime_loss_rate`` / 12, or the vintage curve's
+    last point spread evenly over its years, :math:`C_Y / 12Y`. For a multiplier path the
+    level does not matter (the ratio is the multiplier); for the non-linear paths it is the
+    level the shift is applied at (a stated convention).
 
     Examples
     --------
-    >>> from allowance.scenarios import ScenarioTables
-    >>> t = ScenarioTables(("down",), np.ones(1), np.zeros((1, 1, 3)), np.array([[1.1, 1.1, 1.0]]),
-    ...                    np.ones((1, 3)), np.array([1.0, 0.5, 0.0]), np.array([[2.0, 1.5, 1.0]]))
-    >>> loss_rate_multipliers(t).round(4).tolist()
+    >>> reference_monthly_rate("annual_loss_rate", 0.024), reference_monthly_rate("vintage_loss_curve", [0.01, 0.024])
+    (0.002, 0.001)
+    """
+    if method == "vintage_loss_curve":
+        curve = list(value)
+        return float(curve[-1]) / (12.0 * len(curve))
+    return float(value) / 12.0
+
+
+def loss_rate_multipliers(shifted, reference, lgd_multiplier) -> np.ndarray:
+    r"""A loss-rate segment's multiplier by scenario and month.
+
+    Parameters
+    ----------
+    shifted : array_like, shape (S, T)
+        The scenario paths of the reference monthly rate (:func:`reference_monthly_rate`), as
+        :func:`allowance.scenarios.scenario_tables` moves it (CECL: already reverted after the
+        reasonable and supportable period, ASC 326-20-30-9).
+    reference : array_like, shape (T,)
+        The unshifted reference rate.
+    lgd_multiplier : array_like, shape (S, T)
+        The scenarios' LGD multiplier paths (reverted likewise).
+
+    Notes
+    -----
+    A loss rate is a default rate times a severity, so month t of scenario s scales it by
+    :math:`m_{s,t} = \frac{q^{s}_t}{q_t}\, m^{LGD}_{s,t}`: for a PD multiplier path
+    :math:`q^s_t / q_t` is the multiplier itself; for a z or macro path it is how far the path
+    moves the reference rate. A zero reference rate takes a multiplier of 1.
+
+    Examples
+    --------
+    >>> loss_rate_multipliers([[0.004, 0.003, 0.002]], [0.002] * 3, [[1.1, 1.1, 1.0]]).round(4).tolist()
     [[2.2, 1.65, 1.0]]
     """
-    pd_mult = np.asarray(tables.pd_multiplier, dtype=float)
-    bad = ~np.isfinite(pd_mult).all(axis=1)
-    if bad.any():
-        name = tables.names[int(np.argmax(bad))]
-        where = f"segment {segment!r} uses a loss rate" if segment else "a segment uses a loss rate"
-        raise AssumptionsError(
-            f"scenario {name!r} gives a z path, which moves PDs, but {where}",
-            column=f"scenarios.{name}.z",
-            hint="give the scenario a pd_multiplier by year (it scales loss rates too), "
-            "or give the segment a PD source",
-        )
-    return pd_mult * np.asarray(tables.lgd_multiplier, dtype=float)
+    q = np.asarray(reference, dtype=float)
+    moved = np.asarray(shifted, dtype=float)
+    ratio = np.divide(moved, q, out=np.ones(np.broadcast_shapes(moved.shape, q.shape)), where=q > 0)
+    return ratio * np.asarray(lgd_multiplier, dtype=float)
 
 
 # --------------------------------------------------------------------------------------

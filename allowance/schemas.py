@@ -121,6 +121,9 @@ class LoanRecord(BaseModel):
     lifetime_ecl_at_purchase: NonNegative | None = Field(
         default=None, description="POCI assets: lifetime ECL at purchase (allowance is the change since)."
     )
+    original_balance: NonNegative | None = Field(
+        default=None, description="Amount lent at origination; needed where the segment uses a vintage loss curve."
+    )
 
 
 #: The columns a tape must have (after column mapping). ``maturity_date`` must be present
@@ -276,11 +279,17 @@ class SatelliteModel(_Strict):
         return names
 
 
+_PD_KEYS = ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix")
+_LOSS_RATE_KEYS = ("lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve")
+
+
 class SegmentAssumptions(_Strict):
     """``[segments.<name>]``: the risk parameters of one portfolio segment.
 
-    Exactly one PD source: ``pd_12m``, ``pd_12m_by_grade``, ``pd_curve``, ``pd_curve_by_grade``
-    or ``transition_matrix``. At most one prepayment source: ``cpr``, ``psa`` or
+    Exactly one method: a PD source (``pd_12m``, ``pd_12m_by_grade``, ``pd_curve``,
+    ``pd_curve_by_grade`` or ``transition_matrix``, with ``lgd``), or a loss rate
+    (``lifetime_loss_rate``, ``annual_loss_rate`` or ``vintage_loss_curve``; see
+    :mod:`allowance.loss_rates`). At most one prepayment source: ``cpr``, ``psa`` or
     ``cpr_by_age`` (none means no prepayment).
     """
 
@@ -294,7 +303,20 @@ class SegmentAssumptions(_Strict):
     charge_off_dpd: Literal[120, 180] | None = Field(
         default=None, description="Roll-rate segments: 120 closed-end, 180 open-end revolving."
     )
-    lgd: Probability
+    lifetime_loss_rate: Probability | None = Field(
+        default=None, description="Pool method: expected lifetime net loss as a share of amortised cost."
+    )
+    annual_loss_rate: Probability | None = Field(
+        default=None, description="Remaining-life (WARM) method: annual net loss rate on the projected balance."
+    )
+    vintage_loss_curve: list[Probability] | None = Field(
+        default=None, description="Vintage method: cumulative net loss / original balance at ages 1, 2, ... years."
+    )
+    lgd: Probability | None = Field(
+        default=None,
+        description="Required with a PD source. With a loss rate: the LGD of loans already in default "
+        "(blank: they stay in the pool at the loss rate).",
+    )
     collateral_lgd: CollateralLgd | None = None
     cure_rate: Probability = Field(default=0.0, description="Share of defaults that cure with no loss.")
     cpr: Probability | None = None
@@ -325,17 +347,29 @@ class SegmentAssumptions(_Strict):
 
     @model_validator(mode="after")
     def _one_source_each(self) -> SegmentAssumptions:
-        pd_sources = [
-            k
-            for k in ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix")
-            if getattr(self, k) is not None
-        ]
-        if len(pd_sources) != 1:
-            found = ", ".join(pd_sources) or "none"
+        pd_sources = [k for k in _PD_KEYS if getattr(self, k) is not None]
+        loss_rates = [k for k in _LOSS_RATE_KEYS if getattr(self, k) is not None]
+        if len(pd_sources) + len(loss_rates) != 1:
+            found = ", ".join(pd_sources + loss_rates) or "none"
             raise ValueError(
                 "give exactly one PD source (pd_12m, pd_12m_by_grade, pd_curve, pd_curve_by_grade "
-                f"or transition_matrix); found {found}"
+                "or transition_matrix) or one loss rate (lifetime_loss_rate, annual_loss_rate or "
+                f"vintage_loss_curve); found {found}"
             )
+        if pd_sources and self.lgd is None:
+            raise ValueError(f"{pd_sources[0]} needs lgd (the loss given default, a decimal such as 0.45)")
+        if loss_rates and self.collateral_lgd is not None:
+            raise ValueError(f"{loss_rates[0]} is a loss rate; collateral_lgd applies only with a PD source")
+        curve = self.vintage_loss_curve
+        if curve is not None:
+            if not curve:
+                raise ValueError("vintage_loss_curve is empty: give the cumulative loss rate at age 1, 2, ... years")
+            falls = next((y for y in range(1, len(curve)) if curve[y] < curve[y - 1]), None)
+            if falls is not None:
+                raise ValueError(
+                    f"vintage_loss_curve falls at year {falls + 1} ({curve[falls]:g} after {curve[falls - 1]:g}); "
+                    "give cumulative loss rates, each at least the one before"
+                )
         prepay = [k for k in ("cpr", "psa", "cpr_by_age") if getattr(self, k) is not None]
         if len(prepay) > 1:
             raise ValueError(f"give at most one prepayment source; found {', '.join(prepay)}")
@@ -344,12 +378,19 @@ class SegmentAssumptions(_Strict):
         return self
 
     @property
-    def pd_source(self) -> str:
-        """The name of the key that carries this segment's PD."""
-        for key in ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix"):
-            if getattr(self, key) is not None:
-                return key
-        raise AssertionError("validated: exactly one PD source")  # pragma: no cover
+    def pd_source(self) -> str | None:
+        """The name of the key that carries this segment's PD (None for a loss-rate segment)."""
+        return next((key for key in _PD_KEYS if getattr(self, key) is not None), None)
+
+    @property
+    def loss_rate_method(self) -> str | None:
+        """The loss-rate key of a loss-rate segment (None for a PD segment)."""
+        return next((key for key in _LOSS_RATE_KEYS if getattr(self, key) is not None), None)
+
+    @property
+    def method(self) -> str:
+        """The key that carries this segment's credit-loss estimate: PD source or loss rate."""
+        return self.pd_source or self.loss_rate_method  # type: ignore[return-value]
 
 
 class Ifrs9Rules(_Strict):
@@ -628,7 +669,7 @@ class InputFile(BaseModel):
 
     model_config = ConfigDict(frozen=True)
 
-    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior"]
+    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior", "history"]
     path: str
     sha256: str
     bytes: int

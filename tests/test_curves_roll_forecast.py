@@ -98,3 +98,24 @@ def test_bucket_balances_and_the_check_table():
 def test_bad_opening_balances_are_refused():
     with pytest.raises(ValueError, match="one per bucket"):
         roll_forecast([1.0, 2.0], example_roll_matrix(180), 180)
+
+
+def test_segment_forecasts_roll_each_matrix_segment_of_a_book():
+    import pandas as pd
+
+    from allowance.curves import segment_roll_forecasts
+    from allowance.schemas import SegmentAssumptions
+
+    segments = {
+        "cards": SegmentAssumptions(transition_matrix=example_roll_matrix(180), charge_off_dpd=180, lgd=0.9),
+        "auto": SegmentAssumptions(pd_12m=0.02, lgd=0.4),
+    }
+    tape = pd.DataFrame({"segment": ["cards", "cards", "auto"], "days_past_due": [0, 100, 0],
+                         "balance": [1_000.0, 500.0, 9_999.0]})
+    loans = pd.DataFrame({"segment": ["cards", "cards", "auto"], "ecl_12m": [10.0, 200.0, 5.0],
+                          "ecl_lifetime": [40.0, 260.0, 9.0]})
+    by_month, check = segment_roll_forecasts(tape, segments, loans, months=6)
+    direct = roll_forecast([1_000.0, 0, 0, 0, 500.0, 0, 0], example_roll_matrix(180), 180, 6)  # 100 dpd: 90-119
+    assert by_month["segment"].unique().tolist() == ["cards"]
+    np.testing.assert_allclose(by_month["charge_offs"], direct.by_month["charge_offs"])
+    assert check["loan_level_ecl"].tolist() == [210.0, 300.0] and check["lgd"].tolist() == [0.9, 0.9]

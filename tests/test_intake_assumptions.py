@@ -84,7 +84,10 @@ def test_unknown_key_names_file_key_and_suggestion(tmp_path):
         load_assumptions(path)
     assert err.value.column == "segments.retail.lgdd"
     assert str(err.value).startswith(f"{path}: column segments.retail.lgdd: unknown key 'lgdd' (did you mean 'lgd'?)")
-    assert "segments.retail.lgd: required key 'lgd' is missing" in str(err.value)
+    # lgd is optional for a loss-rate segment, so its absence shows once the typo is gone
+    path = write(tmp_path, "b.toml", INTAKE_ASSUMPTIONS.replace("lgd = 0.4\n", ""))
+    with pytest.raises(AssumptionsError, match=r"column segments\.retail: pd_\w+ needs lgd") as err:
+        load_assumptions(path)
 
 
 def test_error_in_an_overlay_names_the_overlay(tmp_path):
@@ -212,3 +215,11 @@ def test_templates_validate_and_the_template_tape_is_accepted():
     with_overlay = load_assumptions(folder / "assumptions.toml", [folder / "overlay.toml"])
     assert abs(sum(with_overlay.assumptions.weights) - 1.0) < 1e-12
     assert [o.name for o in with_overlay.assumptions.overlays] == ["auto_used_car_prices"]
+
+
+def test_an_overlay_giving_a_method_replaces_the_segments_method(tmp_path):
+    # a what-if may move a segment from its PD source to a loss rate: the base's PD key goes
+    base = write(tmp_path, "a.toml", INTAKE_ASSUMPTIONS)
+    overlay = write(tmp_path, "o.toml", "[segments.retail]\nannual_loss_rate = 0.02\n")
+    seg = load_assumptions(base, [overlay]).assumptions.segments["retail"]
+    assert seg.method == "annual_loss_rate" and seg.pd_source is None and seg.lgd == 0.4

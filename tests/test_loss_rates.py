@@ -13,7 +13,6 @@ from hypothesis import strategies as st
 
 from allowance import scenarios
 from allowance.ecl import KernelInputs, expected_losses
-from allowance.exceptions import AssumptionsError
 from allowance.loss_rates import (
     POOL,
     VINTAGE,
@@ -22,6 +21,7 @@ from allowance.loss_rates import (
     loss_rate_losses,
     loss_rate_multipliers,
     pool_loss,
+    reference_monthly_rate,
     vintage_curve_by_month,
     vintage_loss,
     warm_loss,
@@ -134,12 +134,13 @@ def test_discounting_from_the_end_of_each_month():
 def test_scenarios_scale_the_loss_rate_then_revert():
     a = Assumptions.model_validate({
         "run": {"as_of": "2026-09-30", "frameworks": ["cecl"]},
-        "segments": {"pool": {"pd_12m": 0.01, "lgd": 0.5}},  # the scenario paths do not depend on it
+        "segments": {"pool": {"annual_loss_rate": 0.012}},
         "cecl": {"reasonable_supportable_months": 12, "reversion_months": 12},
         "scenarios": {"down": {"weight": 1.0, "pd_multiplier": [2.0, 2.0], "lgd_multiplier": [1.1]}},
     })
-    tables = scenarios.scenario_tables(np.zeros((1, 36)), None, a, a.cecl)
-    mult = loss_rate_multipliers(tables)
+    q = np.full((1, 36), reference_monthly_rate("annual_loss_rate", 0.012))
+    tables = scenarios.scenario_tables(q, None, a, a.cecl)
+    mult = loss_rate_multipliers(tables.pd[0], q[0], tables.lgd_multiplier)
     # months 1-12: 2.0 x 1.1; months 13-24: 2 - k/12 (straight-line reversion, ASC 326-20-30-9); then 1
     assert mult[0, :12] == pytest.approx(2.2) and mult[0, 24:] == pytest.approx(1.0)
     assert mult[0, 12:24] == pytest.approx(2.0 - np.arange(1, 13) / 12)
@@ -149,11 +150,8 @@ def test_scenarios_scale_the_loss_rate_then_revert():
     assert got.ecl_lifetime[0, 0, 0] == pytest.approx(55_900.0, rel=1e-12)
 
 
-def test_a_z_path_has_no_loss_rate_multiplier():
-    t = scenarios.ScenarioTables(("stress",), np.ones(1), np.zeros((1, 1, 3)), np.ones((1, 3)), np.ones((1, 3)),
-                                 None, np.full((1, 3), np.nan))
-    with pytest.raises(AssumptionsError, match="z path.*pool.*pd_multiplier"):
-        loss_rate_multipliers(t, "pool")
+def test_a_zero_reference_rate_takes_no_multiplier():
+    assert loss_rate_multipliers([[0.0, 0.5]], [0.0, 0.25], [[1.0, 1.0]]).tolist() == [[1.0, 2.0]]
 
 
 def test_loans_in_default_take_the_stated_lgd_or_stay_in_the_pool():

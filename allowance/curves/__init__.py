@@ -11,7 +11,8 @@ pd_sources      pd_term_structure and the PD_SOURCES registry (12-month PD, cumu
                 by grade, transition matrix); hazard_from_pd_12m, marginal_from_curve
 roll_rates      delinquency buckets, bucket_index, validate_matrix, matrix_term_structure,
                 roll_rate_summary (Kemeny & Snell absorbing-chain analytics)
-roll_forecast   bucket_balances, roll_forecast, roll_forecast_check (balance roll-rate forecast)
+roll_forecast   bucket_balances, roll_forecast, roll_forecast_check, segment_roll_forecasts
+                (the balance roll-rate forecast)
 lgd             collateral_lgd, recovery_discount_factor, effective_lgd, loss_given_default,
                 undrawn_exposure, revolving_ead
 """
@@ -37,6 +38,7 @@ from allowance.curves.roll_forecast import (
     bucket_balances,
     roll_forecast,
     roll_forecast_check,
+    segment_roll_forecasts,
 )
 from allowance.curves.roll_rates import (
     CHARGE_OFF,
@@ -84,6 +86,7 @@ __all__ = [
     "roll_forecast",
     "roll_forecast_check",
     "roll_rate_summary",
+    "segment_roll_forecasts",
     "survival",
     "unconditional_marginal",
     "undrawn_exposure",

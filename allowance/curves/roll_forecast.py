@@ -215,3 +215,45 @@ def roll_forecast_check(forecast: RollForecast, lgd: float, ecl_12m: float, ecl_
             "ratio": ratio.round(3),
         }
     )
+
+
+def segment_roll_forecasts(tape: pd.DataFrame, segments: dict, loans: pd.DataFrame | None = None,
+                           months: int = 12) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The forecast of every roll-rate segment of a book, and its check on the loan-level figure.
+
+    Parameters
+    ----------
+    tape : DataFrame
+        Accepted loans: ``segment, days_past_due, balance``.
+    segments : dict of SegmentAssumptions
+        The run's segments; those with a (read) ``transition_matrix`` are forecast.
+    loans : DataFrame, optional
+        The run's loan results (``segment, ecl_12m, ecl_lifetime``) for the check; without
+        them the check's loan-level columns are 0.
+    months : int
+        Months forecast.
+
+    Returns
+    -------
+    (by_month, check) : DataFrame, DataFrame
+        ``by_month``: :attr:`RollForecast.by_month` of each segment with a ``segment`` column
+        first; ``check``: :func:`roll_forecast_check` of each segment.
+    """
+    by_month, checks = [], []
+    for name, seg in segments.items():
+        if seg.pd_source != "transition_matrix" or not isinstance(seg.transition_matrix, TransitionMatrix):
+            continue
+        mine = (tape["segment"] == name).to_numpy()
+        opening = bucket_balances(tape["days_past_due"].to_numpy()[mine], tape["balance"].to_numpy(float)[mine],
+                                  seg.charge_off_dpd)
+        forecast = roll_forecast(opening, seg.transition_matrix, seg.charge_off_dpd, months, name)
+        by_month.append(forecast.by_month.assign(segment=name)[["segment", *forecast.by_month.columns]])
+        if loans is not None:
+            theirs = loans[loans["segment"] == name]
+            twelve, life = float(theirs["ecl_12m"].sum()), float(theirs["ecl_lifetime"].sum())
+        else:
+            twelve = life = 0.0
+        checks.append(roll_forecast_check(forecast, float(seg.lgd), twelve, life, name))
+    if not by_month:
+        return pd.DataFrame(), pd.DataFrame()
+    return pd.concat(by_month, ignore_index=True), pd.concat(checks, ignore_index=True)

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, curves, scenarios, staging
+from allowance import cashflows, curves, loss_rates, scenarios, staging
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, KernelResult, expected_losses
 from allowance.engine.tables import Prepared, remaining_life, revolving_parameter
@@ -206,7 +206,8 @@ def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelI
     return KernelInputs(
         code=terms.code, balance=terms.balance, rate=terms.rate, months_left=terms.remaining, io_left=terms.io_left,
         residual=terms.residual, payment=terms.payment, curve=terms.curve, prepay=terms.prepay,
-        prepay_offset=terms.prepay_offset, in_default=fw.in_default, lgd=terms.lgd, collateral=terms.collateral,
+        prepay_offset=terms.prepay_offset, in_default=fw.in_default, lgd=np.nan_to_num(terms.lgd),
+        collateral=terms.collateral,
         haircut=terms.haircut, recovery_cost=terms.recovery_cost, lgd_floor=terms.lgd_floor,
         recovery_discount=terms.recovery_discount, cure=terms.cure, horizon=fw.horizon, ead_add=fw.ead_add,
         paydown=fw.paydown, discount=fw.discount, pd=prep.pd, smm=prep.smm, lgd_multiplier=prep.lgd_multiplier,
@@ -271,10 +272,48 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
     stage = None if stages is None else stages["stage"].to_numpy()
     fw = _framework_inputs(chunk, terms, stage, prep)
     k = expected_losses(_kernel_inputs(terms, fw, prep))
+    # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
+    for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
+        k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
+        k.pd_12m[rows] = k.pd_lifetime[rows] = np.nan
+        k.lgd[rows] = np.nan
     return ChunkResult(
         loans=_loan_results(chunk, terms, stages, k, prep),
         findings=_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
     )
+
+
+def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: _Frameworks):
+    """The loans of loss-rate segments through the loss-rate loop: (their rows, ecl_12m, ecl_lifetime).
+
+    They share the PD method's loan terms, horizons, prepayment rows, exposure add-ons and
+    discounting; a loan in default takes the segment's stated LGD, or stays in the pool. Each
+    segment runs with its own scenario multipliers.
+    """
+    tables = prep.loss_rates
+    if tables is None:
+        return None
+    segment = chunk["segment"].to_numpy()
+    original = chunk["original_balance"].to_numpy(float) if "original_balance" in chunk else np.zeros(len(chunk))
+    parts = []
+    for name in tables.method:
+        rows = np.flatnonzero(segment == name)
+        if not rows.size:
+            continue
+        n = rows.size
+        inputs = loss_rates.LossRateInputs(
+            method=np.full(n, tables.method[name]), loss_rate=np.full(n, tables.rate[name]),
+            vintage=np.full(n, tables.vintage[name]), original_balance=np.nan_to_num(original[rows]),
+            age=terms.age[rows], default_lgd=terms.lgd[rows], code=terms.code[rows], balance=terms.balance[rows],
+            rate=terms.rate[rows], months_left=terms.remaining[rows], io_left=terms.io_left[rows],
+            residual=terms.residual[rows], payment=terms.payment[rows], prepay=terms.prepay[rows],
+            prepay_offset=terms.prepay_offset[rows], in_default=fw.in_default[:, rows], horizon=fw.horizon[:, rows],
+            ead_add=fw.ead_add[:, rows], paydown=fw.paydown[:, rows], discount=fw.discount[:, rows],
+            multiplier=tables.multiplier[name], lgd_multiplier=prep.lgd_multiplier, vintage_curve=tables.curve,
+            smm=prep.smm,
+        )
+        parts.append((rows, loss_rates.loss_rate_losses(inputs)))
+    return parts or None
 
 
 def _payment_findings(chunk, balance, rate, remaining, payment) -> pd.DataFrame:

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, curves, scenarios, staging
+from allowance import cashflows, curves, loss_rates, scenarios, staging
 from allowance.exceptions import AssumptionsError
 from allowance.frameworks import FrameworkRules, rules_for
 from allowance.schemas import Framework, RunConfig, SegmentAssumptions
@@ -103,11 +103,64 @@ class Prepared:
     collateral_index: np.ndarray  # [F, K, T, S]
     tables: dict[Framework, scenarios.ScenarioTables]
     pd_12m_now: np.ndarray  # [K]: the staged framework's probability-weighted 12-month PD, for staging
+    loss_rates: LossRateTables | None = None  # the loss-rate segments' tables (None: there are none)
 
     @property
     def staged(self) -> FrameworkRules | None:
         """The rules of the framework whose loans carry stages (IFRS 9), if it is run."""
         return next((r for r in self.rules if r.staged), None)
+
+
+@dataclass(frozen=True)
+class LossRateTables:
+    """What the loss-rate loop reads besides the loan terms (see :mod:`allowance.loss_rates`).
+
+    Per segment name: ``method`` (code), ``rate`` (pool: lifetime rate; WARM: annual rate),
+    ``vintage`` (row of ``curve``) and ``multiplier[F, T, S]`` (the scenarios' loss-rate
+    multipliers). ``curve[V, A]``: vintage curves by month of age (one zero row when none).
+    """
+
+    method: dict[str, int]
+    rate: dict[str, float]
+    vintage: dict[str, int]
+    multiplier: dict[str, np.ndarray]
+    curve: np.ndarray
+
+
+def _loss_rate_structure(name: str, seg: SegmentAssumptions, months: int) -> curves.PdTermStructure:
+    """A loss-rate segment's reference monthly rate, as one curve key: the scenario paths move
+    it like a PD (its ratio is the loss-rate multiplier); staging and the PD loop ignore it."""
+    key = seg.loss_rate_method
+    q = min(1.0, loss_rates.reference_monthly_rate(key, getattr(seg, key)))
+    return curves.PdTermStructure(name, ("*",), np.full((1, months), q), None, key)
+
+
+def _loss_rate_tables(config: RunConfig, months: int, max_age: int, tables, structures,
+                      key_offset) -> LossRateTables | None:
+    """The loss-rate segments' methods, rates, vintage curves and the scenarios' multipliers."""
+    a = config.assumptions
+    named = {n: s for n, s in a.segments.items() if s.loss_rate_method is not None}
+    if not named:
+        return None
+    ages = max_age + months + 1
+    curve_rows = [np.zeros(ages + 1)]
+    method, rate, vintage, multiplier = {}, {}, {}, {}
+    for name, seg in named.items():
+        key = seg.loss_rate_method
+        method[name] = loss_rates.LOSS_RATE_METHODS[key]
+        rate[name] = float(getattr(seg, key)) if key != "vintage_loss_curve" else 0.0
+        vintage[name] = 0
+        if key == "vintage_loss_curve":
+            vintage[name] = len(curve_rows)
+            curve_rows.append(loss_rates.vintage_curve_by_month(seg.vintage_loss_curve, ages))
+        # the scenario paths the PD method's tables already hold for this key (the maths lives once)
+        k = key_offset[name]
+        multiplier[name] = np.ascontiguousarray(np.stack([
+            loss_rates.loss_rate_multipliers(t.pd[k], structures[name].marginal[0], t.lgd_multiplier).T
+            for t in tables.values()
+        ]))
+    return LossRateTables(method=method, rate=rate, vintage=vintage, multiplier=multiplier,
+                          curve=np.vstack(curve_rows))
 
 
 # --------------------------------------------------------------------------------------
@@ -181,7 +234,10 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
     structures, key_offset, bases, key_smm = {}, {}, [], []
     offset = 0
     for name, seg in a.segments.items():
-        ts = curves.pd_term_structure(name, seg, months)
+        if seg.loss_rate_method is not None:
+            ts = _loss_rate_structure(name, seg, months)
+        else:
+            ts = curves.pd_term_structure(name, seg, months)
         structures[name], key_offset[name] = ts, offset
         offset += len(ts.keys)
         bases.append(ts.marginal)
@@ -225,10 +281,13 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
     # staging compares the staged framework's 12-month PD now with the PD at origination
     staged = next((r.name for r in rules if r.staged), frameworks[0])
     pd_12m_now = scenarios.weighted(curves.pd_over(tables[staged].pd, 12), weights)
+    for name, seg in a.segments.items():  # a loss-rate segment has no PD for the PD-ratio test
+        if seg.loss_rate_method is not None:
+            pd_12m_now[key_offset[name]] = 0.0
     return Prepared(
         config=config, months=months, frameworks=frameworks, rules=rules, scenario_names=tuple(a.scenarios),
         weights=weights, segments=segment_table(a.segments), structures=structures, key_offset=key_offset,
         prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
-        pd_12m_now=pd_12m_now,
+        pd_12m_now=pd_12m_now, loss_rates=_loss_rate_tables(config, months, max_age, tables, structures, key_offset),
     )

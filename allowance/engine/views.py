@@ -67,6 +67,8 @@ def term_structure_table(prep: Prepared) -> pd.DataFrame:
     months = np.arange(1, prep.months + 1)
     for f, fw in enumerate(prep.frameworks):
         for name, ts in prep.structures.items():
+            if prep.loss_rates is not None and name in prep.loss_rates.method:
+                continue  # a loss-rate segment has no PD term structure
             off = prep.key_offset[name]
             for k, key in enumerate(ts.keys):
                 marg = prep.pd[f, off + k].T  # [S, T]

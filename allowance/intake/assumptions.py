@@ -3,7 +3,8 @@
 The files are TOML. Overlay files are merged into the base file in the order given: tables
 merge key by key, any other value (arrays included) replaces the one before, and
 ``[[overlays]]`` entries are appended, an entry with the same ``name`` as an earlier one
-replacing it. A segment's ``transition_matrix`` names a CSV file, relative to the file that
+replacing it. A segment table that gives a method key (a PD source or a loss rate) replaces
+the segment's method: the base file's other method keys are dropped. A segment's ``transition_matrix`` names a CSV file, relative to the file that
 named it, which is read here. Every problem is one :class:`AssumptionsError` naming the file
 and the key (``segments.auto.lgd``; list positions count from 1, ``overlays[2].kind``).
 """
@@ -87,6 +88,12 @@ def _read_toml(path: Path) -> dict[str, Any]:
 # --------------------------------------------------------------------------------------
 
 
+#: The keys that carry a segment's method (a PD source or a loss rate): an overlay that gives
+#: one replaces the base file's.
+_METHOD_KEYS = ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix",
+                "lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve")
+
+
 class _Merged:
     """The merged data and, for each key path, the file that last set it."""
 
@@ -132,6 +139,11 @@ class _Merged:
             if here == ("overlays",) and isinstance(value, list) and isinstance(base.get(key), list):
                 self._merge_overlays(base[key], value, file)
             elif isinstance(value, dict) and isinstance(base.get(key), dict):
+                if path == ("segments",) and any(k in value for k in _METHOD_KEYS):
+                    # a segment's method is replaced whole: a what-if may move it to a loss rate
+                    for old in _METHOD_KEYS:
+                        if old not in value and base[key].pop(old, None) is not None:
+                            self._set((*here, old), file)
                 self._merge(base[key], value, here, file)
             else:
                 base[key] = copy.deepcopy(value)

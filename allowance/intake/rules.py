@@ -51,6 +51,7 @@ CODES: dict[str, str] = {
     "matured_with_balance": "term loan past maturity still carrying a balance (one-month horizon)",
     "over_limit": "revolving balance above the credit limit",
     "missing_amortization": "balloon loan with no balloon_amount or amortization_months, in a segment without one",
+    "revolving_on_vintage_curve": "a revolving line in a segment that uses a vintage loss curve",
 }
 
 _BAD_CODE: dict[str, str] = {
@@ -431,11 +432,32 @@ def segment_requirements(cols: TapeColumns, paydown_frameworks: list[str], file:
             hint=f"add {key} to [segments.{name}]"
                  + (" (months; IFRS 9 B5.5.40)" if key == "behavioural_life_months" else " (monthly share of the drawn balance repaid, e.g. 0.05)"),
         )
+def vintage_segments(cols: TapeColumns) -> Iterator[Findings]:
+    """A segment with a vintage loss curve needs each loan's original balance; a revolving line
+    has none (its balance is redrawn), so it cannot be placed on a vintage curve."""
+    segment = cols.parsed["segment"].values
+    original = cols.parsed["original_balance"]
+    repayment = cols.parsed["repayment"]
+    for name, seg in cols.assumptions.segments.items():
+        if seg.vintage_loss_curve is None:
+            continue
+        in_segment = np.asarray(pc.fill_null(pc.equal(segment, name), False))
+        revolving = in_segment & np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
+        rows = np.flatnonzero(revolving)
+        if rows.size:
+            message = (f"segment {name!r} uses a vintage loss curve, which needs an original balance; "
+                       "a revolving line has none (give its segment an annual_loss_rate instead)")
+            yield _findings(rows, "repayment", "revolving_on_vintage_curve", [message] * rows.size)
+        rows = np.flatnonzero(in_segment & ~revolving & original.blank)
+        if rows.size:
+            message = (f"original_balance is blank but segment {name!r} uses a vintage loss curve "
+                       f"({_about(FIELDS['original_balance'])})")
+            yield _findings(rows, "original_balance", "missing_value", [message] * rows.size)
 
 
 #: The rules, in the order their findings are listed for a row.
 ROW_RULES: tuple[Rule, ...] = (field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines,
-                               balloon_terms)
+                               balloon_terms, vintage_segments)
 
 
 def apply_rules(cols: TapeColumns) -> list[Findings]:
