@@ -136,6 +136,62 @@ OPTIONAL_COLUMNS: tuple[str, ...] = tuple(
 
 
 # --------------------------------------------------------------------------------------
+# The performance history (calibration input)
+# --------------------------------------------------------------------------------------
+
+
+class HistoryRecord(BaseModel):
+    """One row of the monthly performance history: one loan in one month.
+
+    A loan leaves the history in the month it is written off (``charge_off`` or
+    ``bankruptcy_loss``) or paid off (``paid_off``); later rows of a written-off loan carry
+    only the ``recoveries`` and ``asset_sales`` of that month. The field descriptions are the
+    data dictionary of the history; the bounds are the row rules intake applies.
+    """
+
+    model_config = ConfigDict(extra="allow", frozen=True)
+
+    loan_id: str = Field(min_length=1, description="Loan or account identifier, the same in every month.")
+    segment: str = Field(min_length=1, description="Portfolio segment of the loan that month.")
+    month: date = Field(description="The month: its month-end date (2026-09-30) or YYYY-MM.")
+    balance: NonNegative = Field(description="Outstanding balance at the month end (0 once written off or paid off).")
+    days_past_due: Annotated[int, Field(ge=0, le=36_525)] = Field(
+        description="Whole days past due at the month end (at most 100 years)."
+    )
+    grade: str | None = Field(default=None, description="Risk grade that month.")
+    origination_date: date | None = Field(default=None, description="Date the loan was originated.")
+    original_balance: NonNegative | None = Field(default=None, description="Amount lent at origination.")
+    credit_limit: NonNegative | None = Field(default=None, description="Revolving lines: the limit that month.")
+    interest_rate: Probability | None = Field(
+        default=None, description="Nominal annual contract rate that month, decimal (0.065)."
+    )
+    charge_off: NonNegative | None = Field(
+        default=None, description="Amount charged off that month (blank = 0)."
+    )
+    bankruptcy_loss: NonNegative | None = Field(
+        default=None, description="Amount written off on a bankruptcy that month (blank = 0)."
+    )
+    recoveries: NonNegative | None = Field(
+        default=None, description="Cash recovered that month on an amount charged off earlier (blank = 0)."
+    )
+    asset_sales: NonNegative | None = Field(
+        default=None, description="Proceeds that month of charged-off debt sold (blank = 0)."
+    )
+    paid_off: bool = Field(default=False, description="The loan was repaid in full that month.")
+    collateral_value: NonNegative | None = Field(default=None, description="Collateral value that month.")
+
+
+#: The columns a performance history must have.
+HISTORY_REQUIRED_COLUMNS: tuple[str, ...] = tuple(
+    name for name, field in HistoryRecord.model_fields.items() if field.is_required()
+)
+#: The columns a performance history may have; anything else is ignored (and listed).
+HISTORY_OPTIONAL_COLUMNS: tuple[str, ...] = tuple(
+    name for name in HistoryRecord.model_fields if name not in HISTORY_REQUIRED_COLUMNS
+)
+
+
+# --------------------------------------------------------------------------------------
 # The assumptions file
 # --------------------------------------------------------------------------------------
 
@@ -599,7 +655,7 @@ class InputFile(BaseModel):
 
     model_config = ConfigDict(frozen=True)
 
-    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior"]
+    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior", "history", "policy"]
     path: str
     sha256: str
     bytes: int
