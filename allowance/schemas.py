@@ -331,11 +331,17 @@ class SatelliteModel(_Strict):
         return names
 
 
+#: The keys that carry a segment's PD; a segment gives exactly one.
+PD_SOURCE_KEYS: tuple[str, ...] = (
+    "pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "pd_curve_by_age", "transition_matrix",
+)
+
+
 class SegmentAssumptions(_Strict):
     """``[segments.<name>]``: the risk parameters of one portfolio segment.
 
-    Exactly one PD source: ``pd_12m``, ``pd_12m_by_grade``, ``pd_curve``, ``pd_curve_by_grade``
-    or ``transition_matrix``. At most one prepayment source: ``cpr``, ``psa`` or
+    Exactly one PD source: ``pd_12m``, ``pd_12m_by_grade``, ``pd_curve``, ``pd_curve_by_grade``,
+    ``pd_curve_by_age`` or ``transition_matrix``. At most one prepayment source: ``cpr``, ``psa`` or
     ``cpr_by_age`` (none means no prepayment).
     """
 
@@ -343,6 +349,10 @@ class SegmentAssumptions(_Strict):
     pd_12m_by_grade: dict[str, Probability] | None = None
     pd_curve: list[Probability] | None = Field(default=None, description="Cumulative PD by year.")
     pd_curve_by_grade: dict[str, list[Probability]] | None = None
+    pd_curve_by_age: list[Probability] | None = Field(
+        default=None,
+        description="Cumulative PD by year of loan age (from origination, not from the as-of date).",
+    )
     transition_matrix: str | TransitionMatrix | None = Field(
         default=None, description="CSV path (relative to the assumptions file) of a monthly roll-rate matrix."
     )
@@ -382,13 +392,13 @@ class SegmentAssumptions(_Strict):
     def _one_source_each(self) -> SegmentAssumptions:
         pd_sources = [
             k
-            for k in ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix")
+            for k in PD_SOURCE_KEYS
             if getattr(self, k) is not None
         ]
         if len(pd_sources) != 1:
             found = ", ".join(pd_sources) or "none"
             raise ValueError(
-                "give exactly one PD source (pd_12m, pd_12m_by_grade, pd_curve, pd_curve_by_grade "
+                "give exactly one PD source (pd_12m, pd_12m_by_grade, pd_curve, pd_curve_by_grade, pd_curve_by_age "
                 f"or transition_matrix); found {found}"
             )
         prepay = [k for k in ("cpr", "psa", "cpr_by_age") if getattr(self, k) is not None]
@@ -401,7 +411,7 @@ class SegmentAssumptions(_Strict):
     @property
     def pd_source(self) -> str:
         """The name of the key that carries this segment's PD."""
-        for key in ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix"):
+        for key in PD_SOURCE_KEYS:
             if getattr(self, key) is not None:
                 return key
         raise AssertionError("validated: exactly one PD source")  # pragma: no cover

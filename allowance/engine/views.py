@@ -68,7 +68,9 @@ def term_structure_table(prep: Prepared) -> pd.DataFrame:
     for f, fw in enumerate(prep.frameworks):
         for name, ts in prep.structures.items():
             off = prep.key_offset[name]
-            for k, key in enumerate(ts.keys):
+            shown = range(0, len(ts.keys), 12) if ts.source == "pd_curve_by_age" else range(len(ts.keys))
+            for k in shown:  # by age: whole years of age only (one row per month of age is too many)
+                key = ts.keys[k]
                 marg = prep.pd[f, off + k].T  # [S, T]
                 smm = ts.smm[k] if ts.smm is not None else None
                 cum = curves.cumulative_pd(marg, smm)
