@@ -21,12 +21,13 @@ ccf            credit conversion factor of revolving lines
 payment_rates  monthly payment rates
 prepayment     CPR by age, pooled CPR, expected life of revolving lines
 assumptions    the assumptions draft, every figure with how it was made
-pipeline       calibrate (the entry point), Calibration, the ESTIMATORS registry
+pipeline       estimate (history -> estimates), calibrate (-> assumptions too), the ESTIMATORS registry
 
 To add an estimate, see :mod:`allowance.calibrate.pipeline`.
 """
 
-from allowance.calibrate.pipeline import ESTIMATORS, Calibration, Estimator, calibrate
+from allowance.calibrate.pipeline import ESTIMATORS, Calibration, Estimates, Estimator, calibrate, estimate
 from allowance.calibrate.settings import CalibrationSettings, Choice
 
-__all__ = ["ESTIMATORS", "Calibration", "CalibrationSettings", "Choice", "Estimator", "calibrate"]
+__all__ = ["ESTIMATORS", "Calibration", "CalibrationSettings", "Choice", "Estimates", "Estimator", "calibrate",
+           "estimate"]

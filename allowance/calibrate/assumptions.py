@@ -191,7 +191,8 @@ def _lgd_entry(name: str, frame: Frame, results: dict, choices: list[Choice]) ->
                      f"no charge-off with {workout} months of recoveries observed: net / gross credit loss "
                      f"{start} to {end} (a proxy; review)")
     raise HistoryError(
-        f"segment {name!r} has no charge-off in the history, so its LGD cannot be estimated",
+        f"segment {name!r} has no amount written off (charge_off or bankruptcy_loss) in the history, "
+        "so its LGD cannot be estimated",
         hint=f"give segments.{name}.lgd in the policy file",
     )
 
@@ -421,10 +422,11 @@ def build_assumptions(results: dict[str, Any], frame: Frame, policy: Mapping[str
     _validate(data, matrices, policy_file)
     start, end = frame.window
     header = (
-        f"Assumptions calibrated from a monthly performance history by `allowance calibrate`.",
-        f"History: {history.name} (SHA-256 {intake.file.sha256[:16]}...), {intake.rows_read:,} rows read, "
-        f"{intake.rows_accepted:,} accepted, {intake.rows_rejected:,} rejected; months "
-        f"{month_label(frame.first_month)} to {month_label(frame.as_of)} used.",
+        "Assumptions calibrated from a monthly performance history by `allowance calibrate`.",
+        f"History: {history.name}, {intake.rows_read:,} rows read, {intake.rows_accepted:,} accepted, "
+        f"{intake.rows_rejected:,} rejected; months {month_label(frame.first_month)} to "
+        f"{month_label(frame.as_of)} used (its SHA-256 is in calibration.json).",
+        f"Policy: {policy_file.name}." if policy_file else "Policy: none given; the POLICY figures are placeholders.",
         f"As of {month_label(frame.as_of)}; window {start} to {end} ({frame.settings.window_months} months). "
         "The evidence, and every choice made, is in calibration.xlsx.",
         "Each estimated figure says how it was made; figures marked POLICY are not estimated from history.",

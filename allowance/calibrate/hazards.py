@@ -58,7 +58,7 @@ def annual_pd(hazard: float | np.ndarray) -> np.ndarray:
     Examples
     --------
     >>> round(float(annual_pd(0.001)), 8)
-    0.01193431
+    0.01193422
     """
     h = np.asarray(hazard, dtype=np.float64)
     return -np.expm1(12.0 * np.log1p(-h))
@@ -142,9 +142,11 @@ def estimate(stats: dict[str, np.ndarray], frame: Frame) -> Hazards:
     rows, pooled_rows = [], []
     by_grade: dict[str, dict[str, float]] = {}
     pd_12m: dict[str, float] = {}
+    order = sorted(range(len(grades)), key=lambda g: (grades[g] == "", grades[g]))  # A, B, ... then blank
     for s, name in enumerate(frame.segments):
         table: dict[str, float] = {}
-        for g, grade in enumerate(grades):
+        for g in order:
+            grade = grades[g]
             e, d = int(exposure[s, g]), int(defaults[s, g])
             if e == 0:
                 continue

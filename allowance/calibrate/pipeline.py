@@ -22,13 +22,14 @@ Implements
 ----------
 Estimator    a named (collect, estimate) pair
 ESTIMATORS   the built-in estimators, by name
+Estimates    the estimates of a history (no assumptions drafted)
+estimate     history -> Estimates
 Calibration  everything a calibration produced
-calibrate    the library entry point
+calibrate    the library entry point: history (+ policy) -> Calibration
 """
 
 from __future__ import annotations
 
-import tomllib
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -160,6 +161,69 @@ def _settings(settings: CalibrationSettings | Mapping[str, Any] | None, table: M
         ) from err
 
 
+@dataclass(frozen=True)
+class Estimates:
+    """The estimates of a history, before any assumptions are drafted from them.
+
+    ``intake`` (its panel closed), ``frame``, ``results`` by estimator name, the rows after
+    the as-of month, and the settings with the names of those that were given.
+    """
+
+    intake: HistoryIntake
+    frame: Frame
+    results: dict[str, Any]
+    settings: CalibrationSettings
+    given: frozenset[str]
+    rows_after_as_of: int
+    history_file: Path
+
+    def __getattr__(self, name: str) -> Any:
+        results = self.__dict__.get("results", {})
+        if name in results:
+            return results[name]
+        raise AttributeError(name)
+
+
+def estimate(
+    history: Path | str,
+    settings: CalibrationSettings | Mapping[str, Any] | None = None,
+    *,
+    estimators: Iterable[Estimator] = (),
+    spill_dir: Path | None = None,
+    memory_rows: int | None = None,
+    policy_file: Path | None = None,
+    policy_settings: Mapping[str, Any] | None = None,
+) -> Estimates:
+    """Read a history and run every estimator over it (no assumptions drafted).
+
+    Parameters are those of :func:`calibrate`; ``policy_settings`` is a ``[calibration]``
+    table that ``settings`` overrides.
+    """
+    settings, given = _settings(settings, policy_settings or {}, policy_file)
+    history = Path(history)
+    run = dict(ESTIMATORS)
+    for extra in estimators:
+        run[extra.name] = extra
+    options = {} if memory_rows is None else {"memory_rows": memory_rows}
+    with read_history(history, columns=settings.columns, date_format=settings.date_format,
+                      spill_dir=spill_dir, **options) as intake:
+        if intake.rows_accepted == 0:
+            raise HistoryError("no row was accepted, so nothing can be estimated", file=history,
+                               hint="see the rejected rows: every one is listed with its line and reason")
+        frame = build_frame(intake.panel, intake.first_month, intake.last_month, settings, given)
+        stats: dict[str, dict[str, np.ndarray]] = {}
+        dropped = 0
+        for part in intake.panel.parts():
+            view, cut = month_view(part, frame)
+            dropped += cut
+            for name, estimator in run.items():
+                found = estimator.collect(view)
+                stats[name] = found if name not in stats else {k: stats[name][k] + v for k, v in found.items()}
+        results = {name: estimator.estimate(stats[name], frame) for name, estimator in run.items()}
+    return Estimates(intake=intake, frame=frame, results=results, settings=settings, given=frozenset(given),
+                     rows_after_as_of=dropped, history_file=history)
+
+
 def calibrate(
     history: Path | str,
     settings: CalibrationSettings | Mapping[str, Any] | None = None,
@@ -204,35 +268,11 @@ def calibrate(
     raw_settings = table.pop("calibration", {}) or {}
     if not isinstance(raw_settings, Mapping):
         raise AssumptionsError("[calibration] must be a table", file=policy_file, column="calibration")
-    settings, given = _settings(settings, raw_settings, policy_file)
-    history = Path(history)
-    run = dict(ESTIMATORS)
-    for extra in estimators:
-        run[extra.name] = extra
-    options = {} if memory_rows is None else {"memory_rows": memory_rows}
-    with read_history(history, columns=settings.columns, date_format=settings.date_format,
-                      spill_dir=spill_dir, **options) as intake:
-        if intake.rows_accepted == 0:
-            raise HistoryError("no row was accepted, so nothing can be estimated", file=history,
-                               hint="see the rejected rows: every one is listed with its line and reason")
-        frame = build_frame(intake.panel, intake.first_month, intake.last_month, settings, given)
-        stats: dict[str, dict[str, np.ndarray]] = {}
-        dropped = 0
-        for part in intake.panel.parts():
-            view, cut = month_view(part, frame)
-            dropped += cut
-            for name, estimator in run.items():
-                found = estimator.collect(view)
-                stats[name] = found if name not in stats else {k: stats[name][k] + v for k, v in found.items()}
-        results = {name: estimator.estimate(stats[name], frame) for name, estimator in run.items()}
-    choices = [*frame.choices, *settings_choices(settings, given)]
-    draft = build_assumptions(results, frame, table, policy_file, intake, history)
+    found = estimate(history, settings, estimators=estimators, spill_dir=spill_dir, memory_rows=memory_rows,
+                     policy_file=policy_file, policy_settings=raw_settings)
+    choices = [*found.frame.choices, *settings_choices(found.settings, set(found.given))]
+    draft = build_assumptions(found.results, found.frame, table, policy_file, found.intake, found.history_file)
     choices += draft.choices
-    return Calibration(intake=intake, frame=frame, results=results, assumptions=draft, choices=choices,
-                       settings=settings, rows_after_as_of=dropped, policy_file=policy_file, history_file=history)
-
-
-def read_settings_file(path: Path) -> dict[str, Any]:  # pragma: no cover - thin
-    """The ``[calibration]`` table of a policy file."""
-    with Path(path).open("rb") as handle:
-        return tomllib.load(handle).get("calibration", {})
+    return Calibration(intake=found.intake, frame=found.frame, results=found.results, assumptions=draft,
+                       choices=choices, settings=found.settings, rows_after_as_of=found.rows_after_as_of,
+                       policy_file=policy_file, history_file=found.history_file)

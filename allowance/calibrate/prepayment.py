@@ -86,7 +86,8 @@ def cpr_from_smm(smm: float | np.ndarray) -> np.ndarray:
     >>> round(float(cpr_from_smm(0.005143)), 4)
     0.06
     """
-    return -np.expm1(12.0 * np.log1p(-np.asarray(smm, float)))
+    with np.errstate(divide="ignore"):  # SMM 1 (every loan repaid) is a CPR of 1
+        return -np.expm1(12.0 * np.log1p(-np.asarray(smm, float)))
 
 
 @dataclass(frozen=True)

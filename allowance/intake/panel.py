@@ -327,15 +327,16 @@ class LoanMonthPanel:
             return
         row_part = rows["loan"] % self.partitions
         event_part = events["loan"] % self.partitions
+        row_schema, event_schema = _schema(PANEL_COLUMNS, self.names), _schema(EVENT_COLUMNS, EVENT_COLUMNS)
         for p, (row_writer, event_writer) in enumerate(self._writers):
             here = np.flatnonzero(row_part == p)
             if here.size:
                 row_writer.write_batch(pa.record_batch([pa.array(rows[n][here]) for n in self.names],
-                                                       schema=row_writer.schema))
+                                                       schema=row_schema))
             here = np.flatnonzero(event_part == p)
             if here.size:
                 event_writer.write_batch(pa.record_batch([pa.array(events[n][here]) for n in EVENT_COLUMNS],
-                                                         schema=event_writer.schema))
+                                                         schema=event_schema))
 
     # ----------------------------------------------------------------------------------
     def _load(self, p: int) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:

@@ -582,7 +582,7 @@ def read_history(
         Largest file read, in MiB.
     memory_rows, partition_rows
         A history estimated above ``memory_rows`` rows is spilled to disk in partitions of
-        about ``partition_rows`` rows each (in ``spill_dir``, default the system's
+        about ``partition_rows`` rows each (at most ``memory_rows``) (in ``spill_dir``, default the system's
         temporary folder), so memory holds one partition at a time.
 
     Returns
@@ -607,7 +607,8 @@ def read_history(
                 "credit_limit": "credit_limit", "interest_rate": "interest_rate",
                 "collateral_value": "collateral_value"}
     names = REQUIRED_PANEL + tuple(n for n, col in optional.items() if col in ours)
-    partitions = 1 if stream.estimated_rows <= memory_rows else -(-stream.estimated_rows // partition_rows)
+    size = min(partition_rows, memory_rows)
+    partitions = 1 if stream.estimated_rows <= memory_rows else -(-stream.estimated_rows // size)
     panel = LoanMonthPanel(names=names, partitions=partitions, spill_dir=spill_dir)
     try:
         return _read(path, stream, ours, panel, date_format)
