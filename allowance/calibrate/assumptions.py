@@ -35,7 +35,8 @@ from allowance.schemas import Assumptions, SegmentAssumptions
 
 PD_KEYS = ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix", "pd_curve_by_age")
 PREPAY_KEYS = ("cpr", "psa", "cpr_by_age")
-POLICY_TABLES = ("run", "tape", "ifrs9", "cecl", "scenarios", "overlays")
+#: Tables a policy file may give (the assumptions file's, but segments, which are estimated).
+POLICY_TABLES = tuple(name for name in Assumptions.model_fields if name != "segments")
 
 
 @dataclass(frozen=True)
@@ -339,6 +340,12 @@ def _policy_tables(policy: Mapping[str, Any], policy_file: Path | None, frame: F
     if policy.get("tape"):
         tables.append(plain("tape", policy["tape"]))
         data["tape"] = dict(policy["tape"])
+    for name in POLICY_TABLES:
+        if name in ("run", "tape", "ifrs9", "cecl", "scenarios", "overlays") or name not in policy:
+            continue
+        values = dict(policy[name])  # e.g. [macro]: passed through as given
+        tables.append(plain(name, values))
+        data[name] = values
     for name in ("ifrs9", "cecl"):
         if name in policy:
             tables.append(plain(name, policy[name]))
