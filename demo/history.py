@@ -350,5 +350,5 @@ def write_history(out_dir: Path, seed: int) -> tuple[Path, dict]:
     pq.write_table(table, path, compression="zstd", compression_level=9, row_group_size=250_000,
                    use_dictionary=True, write_statistics=False)
     info = dict(file="history.parquet", first_month="2021-10", last_month="2026-09", rows=table.num_rows,
-                loans=len(np.unique(h["loan_id"])))
+                loans=len(np.unique(h["loan_id"])), segments=list(SEGMENTS))
     return path, info

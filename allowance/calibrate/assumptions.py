@@ -219,35 +219,39 @@ def _prepay_entries(name: str, s: int, frame: Frame, results: dict) -> list[Entr
                   f"1 - (1 - SMM)^12, SMM = repaid balance / balance on the book, {start} to {end}")]
 
 
-def _revolving_entries(name: str, frame: Frame, results: dict) -> list[Entry]:
+def _revolving_entries(name: str, frame: Frame, results: dict, given: Mapping[str, Any]) -> list[Entry]:
+    """ccf, behavioural_life_months, payment_rate and unconditionally_cancellable, except those the policy gives."""
     start, end = frame.window
-    ccf = results["ccf"].by_segment
-    row = ccf[ccf["segment"] == name]
-    if not len(row) or not math.isfinite(row.iloc[0]["ccf"]):
-        raise HistoryError(
-            f"segment {name!r}: no charged-off line was on the book {frame.settings.ccf_horizon_months} months "
-            "before, so its CCF cannot be estimated",
-            hint=f"give segments.{name}.ccf in the policy file, or a shorter ccf_horizon_months",
-        )
-    row = row.iloc[0]
+    entries = []
+    if "ccf" not in given:
+        ccf = results["ccf"].by_segment
+        row = ccf[ccf["segment"] == name]
+        if not len(row) or not math.isfinite(row.iloc[0]["ccf"]):
+            raise HistoryError(
+                f"segment {name!r}: no charged-off line was on the book {frame.settings.ccf_horizon_months} months "
+                "before, so its CCF cannot be estimated",
+                hint=f"give segments.{name}.ccf in the policy file, or a shorter ccf_horizon_months",
+            )
+        row = row.iloc[0]
+        entries.append(Entry("ccf", _sig(float(row["ccf"]), 4),
+                             f"IFRS 9: (exposure at charge-off - drawn) / (limit - drawn) "
+                             f"{frame.settings.ccf_horizon_months} months before, {_count(row['lines'])} charged-off "
+                             f"lines to {end}"))
     life, exits, exposure = results["prepayment"].life[name]
-    pay = results["payment_rates"].payment_rate[name]
-    entries = [Entry("ccf", _sig(float(row["ccf"]), 4),
-                     f"IFRS 9: (exposure at charge-off - drawn) / (limit - drawn) "
-                     f"{frame.settings.ccf_horizon_months} months before, {_count(row['lines'])} charged-off lines "
-                     f"to {end}")]
-    if math.isfinite(life):
+    if "behavioural_life_months" not in given and math.isfinite(life):
         entries.append(Entry("behavioural_life_months", max(1, int(round(life))),
                              f"1 / monthly rate of lines leaving the book: {_count(exits)} closures and charge-offs "
                              f"in {_count(exposure)} line-months, {start} to {end} (IFRS 9 B5.5.40: a judgement "
                              "to review)"))
-    if math.isfinite(pay):
+    pay = results["payment_rates"].payment_rate[name]
+    if "payment_rate" not in given and math.isfinite(pay):
         entries.append(Entry("payment_rate", _sig(pay, 4),
                              f"CECL: net repayments / balance at the start of the month, {start} to {end} "
                              "(a lower bound: purchases net out)"))
-    entries.append(Entry("unconditionally_cancellable", True,
-                         "POLICY (not estimated): no CECL reserve on undrawn amounts, ASC 326-20-30-11; "
-                         "confirm from the agreements"))
+    if "unconditionally_cancellable" not in given:
+        entries.append(Entry("unconditionally_cancellable", True,
+                             "POLICY (not estimated): no CECL reserve on undrawn amounts, ASC 326-20-30-11; "
+                             "confirm from the agreements"))
     return entries
 
 
@@ -268,7 +272,7 @@ def _segment_table(name: str, s: int, frame: Frame, results: dict, policy: Mappi
     if not any(k in own for k in PREPAY_KEYS):
         entries += _prepay_entries(name, s, frame, results)
     if frame.revolving[s]:
-        entries += [e for e in _revolving_entries(name, frame, results) if e.key not in own]
+        entries += _revolving_entries(name, frame, results, own)
     notes: list[str] = []
     for key, value in own.items():
         estimate = next((e for e in entries if e.key == key), None)

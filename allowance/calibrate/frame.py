@@ -186,6 +186,12 @@ class MonthView:
         Months since origination at the row's month end (``-1`` unknown).
     t : ndarray of int
         The row's month on the frame's axis (0 = the first month).
+    active : ndarray of bool
+        Rows in a delinquency bucket (on the book at the month end).
+    transition : ndarray of bool
+        Rows that end a one-month transition from a bucket (the row before was on the book).
+    new_loan : ndarray of bool
+        The first row of each loan.
     """
 
     frame: Frame
@@ -197,22 +203,13 @@ class MonthView:
     exit_state: np.ndarray
     age: np.ndarray
     t: np.ndarray
+    active: np.ndarray
+    transition: np.ndarray
+    new_loan: np.ndarray
 
     @property
     def segment(self) -> np.ndarray:
         return self.part.segment
-
-    @property
-    def active(self) -> np.ndarray:
-        """Rows in a delinquency bucket (on the book at the month end)."""
-        return self.state < CHARGE_OFF
-
-    @property
-    def transition(self) -> np.ndarray:
-        """Rows that end a one-month transition from a bucket (the row before was active)."""
-        out = np.zeros(len(self.state), dtype=bool)
-        out[self.follows] = self.state[self.before[self.follows]] < CHARGE_OFF
-        return out & (self.state != AFTER_EXIT)
 
     @property
     def in_window(self) -> np.ndarray:
@@ -244,9 +241,14 @@ def month_view(part: LoanMonths, frame: Frame) -> tuple[MonthView, int]:
     else:
         age = np.where(origination == NO_MONTH, -1, part.month.astype(np.int64) - origination)
         age = np.where(age < 0, -1, age)
+    active = state < CHARGE_OFF
+    transition = np.zeros(part.rows, dtype=bool)
+    transition[follows] = active[before[follows]]
+    transition &= state != AFTER_EXIT
     view = MonthView(frame=frame, part=part, state=state, follows=follows, before=before,
                      exit_row=exit_row, exit_state=exit_state, age=age,
-                     t=part.month.astype(np.int64) - frame.first_month)
+                     t=part.month.astype(np.int64) - frame.first_month, active=active,
+                     transition=transition, new_loan=part.new_loan)
     return view, dropped
 
 

@@ -31,7 +31,7 @@ calibrate    the library entry point: history (+ policy) -> Calibration
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -115,8 +115,6 @@ class Calibration:
     rows_after_as_of: int = 0
     policy_file: Path | None = None
     history_file: Path | None = None
-    policy_record: Any = None
-    extras: dict[str, Any] = field(default_factory=dict)
 
     def __getattr__(self, name: str) -> Any:
         results = self.__dict__.get("results", {})

@@ -42,7 +42,7 @@ import pandas as pd
 
 from allowance.calibrate.frame import Frame, MonthView, month_label
 from allowance.calibrate.settings import Weighting
-from allowance.calibrate.states import CHARGE_OFF, N_STATES, STATES, segment_states
+from allowance.calibrate.states import AFTER_EXIT, CHARGE_OFF, N_STATES, STATES, segment_states
 from allowance.schemas import TransitionMatrix
 
 
@@ -62,7 +62,7 @@ def collect(view: MonthView) -> dict[str, np.ndarray]:
     # loans that stop reporting while on the book (sold, transferred, or a gap): no transition
     last = np.r_[view.part.loan[1:] != view.part.loan[:-1], True] if view.part.rows else np.zeros(0, bool)
     vanished = last & view.active & (view.part.month < frame.as_of)
-    gaps = ~view.follows & ~view.part.new_loan & (view.state != 9)
+    gaps = ~view.follows & ~view.new_loan & (view.state != AFTER_EXIT)
     seg = view.segment.astype(np.int64)
     n = len(frame.segments)
     return {

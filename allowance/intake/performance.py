@@ -34,7 +34,6 @@ from allowance.intake.panel import (
     CASH_IN,
     NO_MONTH,
     PAID_OFF,
-    PANEL_COLUMNS,
     REQUIRED_PANEL,
     WRITTEN_OFF,
     LoanMonthPanel,

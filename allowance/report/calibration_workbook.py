@@ -26,6 +26,7 @@ import pandas as pd
 
 from allowance.curves.roll_rates import roll_rate_summary
 from allowance.exceptions import AllowanceError
+from allowance.report.calibration_summary import segment_summary
 from allowance.report.clock import now
 from allowance.report.text import neutralise_text
 
@@ -174,35 +175,8 @@ def _summary(book: _Book, cal: "Calibration", matrix_name: Callable[[str], str])
         _cell(ws, row, 1, value, book.int if isinstance(value, int) else None)
         row += 1
     row += 1
-    segments = _segment_summary(cal, matrix_name)
+    segments = segment_summary(cal, matrix_name)
     _put(book, ws, row, 0, segments, title="What each segment takes (the assumptions written)")
-
-
-def _segment_summary(cal: "Calibration", matrix_name: Callable[[str], str]) -> pd.DataFrame:
-    data = cal.assumptions.data["segments"]
-    frame = cal.frame
-    lgd = cal.results["lgd"].by_segment.set_index("segment")
-    loss = cal.results["loss_rates"].averages.set_index("segment")
-    rows = []
-    for s, name in enumerate(frame.segments):
-        values = data.get(name, {})
-        source = next((k for k in ("transition_matrix", "pd_12m_by_grade", "pd_curve_by_age", "pd_12m") if k in values),
-                      "")
-        rows.append({
-            "segment": name, "pd_source": source,
-            "pd_detail": matrix_name(name) if source == "transition_matrix" else
-            (", ".join(f"{g} {p:.2%}" for g, p in values[source].items()) if source == "pd_12m_by_grade" else
-             (f"year 1 {values[source][0]:.2%}, year {len(values[source])} {values[source][-1]:.2%}"
-              if source == "pd_curve_by_age" else f"{values.get('pd_12m', float('nan')):.2%}")),
-            "charge_off_dpd": int(frame.charge_off_dpd[s]), "lgd": values.get("lgd"),
-            "ccf": values.get("ccf"), "payment_rate": values.get("payment_rate"),
-            "prepayment": "in the matrix" if source == "transition_matrix" else (
-                "cpr_by_age" if "cpr_by_age" in values else ("cpr" if "cpr" in values else
-                                                             next((k for k in ("psa",) if k in values), "none"))),
-            "charge_offs_in_lgd": int(lgd.loc[name, "charge_offs"]) if name in lgd.index else 0,
-            "ncl_rate_annualised_window": float(loss.loc[name, "ncl_rate_annualised"]) if name in loss.index else None,
-        })
-    return pd.DataFrame(rows)
 
 
 def _choices(book: _Book, cal: "Calibration") -> None:
@@ -280,7 +254,7 @@ def _roll_series(book: _Book, cal: "Calibration") -> None:
     columns = [c for c in series.columns if c not in ("segment",)]
     _, first, last = _put(book, ws, 2, 0, series[["segment", *columns]])
     chart_row = 2
-    for k, name in enumerate(series["segment"].unique()):
+    for name in series["segment"].unique():
         rows = np.flatnonzero(series["segment"].to_numpy() == name)
         lo, hi = first + int(rows[0]), first + int(rows[-1])
         chart = _line_chart(book, f"{name}: monthly roll rates", "share of the bucket")
@@ -328,7 +302,7 @@ def _losses(book: _Book, cal: "Calibration") -> None:
     _, first, end = _put(book, ws, row, 0, lr.table, title="By segment and month (loss_rates.csv)")
     columns = list(lr.table.columns)
     chart_row = row
-    for k, name in enumerate(lr.table["segment"].unique()):
+    for name in lr.table["segment"].unique():
         rows = np.flatnonzero(lr.table["segment"].to_numpy() == name)
         lo, hi = first + int(rows[0]), first + int(rows[-1])
         chart = _line_chart(book, f"{name}: annualised loss rates", "annualised rate")
