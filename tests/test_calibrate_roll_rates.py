@@ -30,6 +30,7 @@ TRUE = np.array([
     [0.000, 0.000, 0.000, 0.000, 0.000, 0.000, 1.000],
 ])
 ACCOUNTS, MONTHS = 30_000, 24
+pytestmark = pytest.mark.slow  # tens of thousands of simulated accounts: seconds
 
 
 @pytest.fixture(scope="module")

@@ -430,6 +430,7 @@ def test_history_is_five_years_of_the_six_books():
     assert set(table.column("segment").to_pylist()) == set(SEGMENTS)
 
 
+@pytest.mark.slow
 def test_history_cards_follow_the_known_matrix():
     # the card book was simulated from cards_rolls.csv: its count estimate over the whole
     # history lies within sampling error of it (Anderson and Goodman 1957: se = sqrt(p (1 - p) / n_i))
