@@ -151,8 +151,9 @@ def _table_lines(table: Table, rename: Callable[[str], str]) -> list[str]:
     subtables = []
     for entry in table.entries:
         value = rename(entry.value) if entry.key == "transition_matrix" else entry.value
+        long_list = isinstance(value, dict) and any(isinstance(v, (list, tuple)) and len(v) > 6 for v in value.values())
         if isinstance(value, dict) and (entry.item_comments or any(isinstance(v, dict) for v in value.values())
-                                        or len(value) > 3):
+                                        or len(value) > 3 or long_list):
             subtables.append((entry, value))
             continue
         lines += _entry_lines(entry, value)
