@@ -41,7 +41,7 @@ import allowance
 from allowance.calibrate.assumptions import Entry, Table, rolls_file
 from allowance.exceptions import OutputError
 from allowance.report.clock import now
-from allowance.report.text import neutralise_frame
+from allowance.text import neutralise_frame
 
 if TYPE_CHECKING:
     from allowance.calibrate import Calibration

@@ -28,7 +28,7 @@ from allowance.curves.roll_rates import roll_rate_summary
 from allowance.exceptions import AllowanceError
 from allowance.report.calibration_summary import segment_summary
 from allowance.report.clock import now
-from allowance.report.text import neutralise_text
+from allowance.text import neutralise_text
 
 if TYPE_CHECKING:
     from allowance.calibrate import Calibration
