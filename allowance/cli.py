@@ -196,10 +196,11 @@ class Calibrated:
 def _calibrate_and_write(history: Path, out: Path, *, policy: Path | None = None,
                          settings: dict | None = None) -> Calibrated:
     from allowance.calibrate import calibrate as run_calibration
+    from allowance.report.calibration import write_calibration
 
     started = time.perf_counter()
     cal = run_calibration(history, settings or {}, policy)
-    files = cal.write(out)
+    files = write_calibration(out, cal)
     return Calibrated(out=out, calibration=cal, files=files, seconds=time.perf_counter() - started)
 
 

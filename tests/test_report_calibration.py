@@ -31,7 +31,7 @@ def test_the_toml_reads_back_to_the_draft_and_explains_every_estimate(history, t
     for key in cal.assumptions.data["segments"]["book"]:
         at = next(i for i, line in enumerate(lines) if line.startswith(f"{key} ") or line.startswith(f"[segments.book.{key}]"))
         assert "#" in lines[at] or lines[at - 1].startswith("#") or lines[at + 1].startswith("#"), key
-    paths = cal.write(tmp_path / "out")
+    paths = writer.write_calibration(tmp_path / "out", cal)
     assert paths[-1].name == "calibration.json"
     assert load_assumptions(tmp_path / "out" / "assumptions.toml").assumptions.segments["book"].pd_source == "pd_12m"
 
@@ -62,7 +62,7 @@ def test_a_bad_policy_is_named(history, policy, where):
 def test_writing_is_all_or_nothing(history, tmp_path, monkeypatch):
     cal = calibrate(history, SETTINGS)
     out = tmp_path / "out"
-    cal.write(out)
+    writer.write_calibration(out, cal)
     (out / "notes.txt").write_text("mine")
     before = (out / "assumptions.toml").read_bytes()
 
@@ -71,6 +71,6 @@ def test_writing_is_all_or_nothing(history, tmp_path, monkeypatch):
 
     monkeypatch.setattr("allowance.report.calibration_workbook.write_calibration_workbook", broken)
     with pytest.raises(Exception, match="cannot write the outputs"):
-        cal.write(out)
+        writer.write_calibration(out, cal)
     assert (out / "assumptions.toml").read_bytes() == before and (out / "notes.txt").read_text() == "mine"
     assert not [p for p in tmp_path.iterdir() if ".partial-" in p.name]

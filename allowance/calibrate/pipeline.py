@@ -122,12 +122,6 @@ class Calibration:
             return results[name]
         raise AttributeError(name)
 
-    def write(self, out_dir: Path, **options: Any) -> list[Path]:
-        """Write the assumptions file, the roll-rate and loss-rate files and the evidence workbook."""
-        from allowance.report.calibration import write_calibration
-
-        return write_calibration(out_dir, self, **options)
-
 
 def _load_policy(policy: Mapping[str, Any] | Path | str | None) -> tuple[dict[str, Any], Path | None]:
     if policy is None:
@@ -254,8 +248,8 @@ def calibrate(
     Returns
     -------
     Calibration
-        The estimates, the draft assumptions and every choice made; ``.write(out_dir)``
-        writes the files.
+        The estimates, the draft assumptions and every choice made;
+        :func:`allowance.report.calibration.write_calibration` writes the files.
 
     Raises
     ------
