@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import sys
 import time
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Literal, NoReturn
 
@@ -149,6 +150,7 @@ def demo(
 
     def started(lender: str, prior_out: Path) -> None:
         _say(f"demo lender: {lender} (all data invented)")
+        _demo_calibration(out)
         _say(f"-- prior quarter -> {prior_out}")
 
     def prior_done(result, folder: Path) -> None:
@@ -164,6 +166,129 @@ def demo(
     w = done.what_if
     _say(f"next: what does 100 % downside do?  allowance run {w['tape']} "
          f"--assumptions {w['assumptions']} --overlay {w['overlay']} --out what-if-out")
+
+
+def _demo_calibration(out: Path) -> None:
+    """The demo's first step: calibrate the lender's history into ``out/calibration``."""
+    import tomllib
+
+    from allowance.intake import bundled_path
+
+    folder = bundled_path("demo")
+    manifest = tomllib.loads((folder / "manifest.toml").read_text(encoding="utf-8"))
+    target = out / "calibration"
+    _say(f"-- calibration from the lender's history -> {target}")
+    _print_calibration(_calibrate_and_write(folder / manifest["history"]["file"], target,
+                                            policy=folder / manifest["current"]["policy"]))
+    _say(f"   {folder / manifest['current']['assumptions']} is what it wrote as assumptions.toml")
+
+
+@dataclass(frozen=True)
+class Calibrated:
+    """What one calibration produced (for the summary printed at the end)."""
+
+    out: Path
+    calibration: object
+    files: list[Path]
+    seconds: float
+
+
+def _calibrate_and_write(history: Path, out: Path, *, policy: Path | None = None,
+                         settings: dict | None = None) -> Calibrated:
+    from allowance.calibrate import calibrate as run_calibration
+    from allowance.report.calibration import write_calibration
+
+    started = time.perf_counter()
+    cal = run_calibration(history, settings or {}, policy)
+    files = write_calibration(out, cal)
+    return Calibrated(out=out, calibration=cal, files=files, seconds=time.perf_counter() - started)
+
+
+def _print_calibration(done: Calibrated) -> None:
+    import pandas as pd
+
+    from allowance.report.calibration_summary import segment_summary
+
+    cal = done.calibration
+    intake = cal.intake
+    _say(f"rows read {intake.rows_read:,}  accepted {intake.rows_accepted:,}  rejected {intake.rows_rejected:,}"
+         + (f"  (after the as-of month, not used: {cal.rows_after_as_of:,})" if cal.rows_after_as_of else ""))
+    start, end = cal.frame.window
+    _say(f"as of {end}; window {start} to {end}; history {intake.first_month} to {intake.last_month}")
+    table = segment_summary(cal)[["segment", "pd_source", "pd_detail", "lgd", "ccf", "payment_rate", "prepayment"]]
+    with pd.option_context("display.width", 200, "display.max_colwidth", 60):
+        _say(table.to_string(index=False, na_rep="", float_format="{:.4f}".format))
+    _say(f"wrote {done.out}  ({done.seconds:.1f} s): assumptions.toml, rolls_<segment>.csv, loss_rates.csv, "
+         "calibration.xlsx, calibration.json")
+
+
+def _month(value: str | None) -> str | None:
+    """``--as-of``: a date (YYYY-MM-DD) or a month (YYYY-MM), as the month's last day."""
+    if value is None:
+        return None
+    import datetime as dt
+
+    text = value.strip()
+    try:
+        if len(text) == 7:
+            year, month = int(text[:4]), int(text[5:7])
+            if text[4] != "-":
+                raise ValueError(text)
+            nxt = dt.date(year + month // 12, month % 12 + 1, 1)
+            return (nxt - dt.timedelta(days=1)).isoformat()
+        return dt.date.fromisoformat(text).isoformat()
+    except ValueError:
+        raise typer.BadParameter(f"{value!r} is not a date (YYYY-MM-DD) or a month (YYYY-MM)",
+                                 param_hint="--as-of") from None
+
+
+@app.command("calibrate")
+def calibrate_command(
+    history: Annotated[
+        Path, typer.Argument(help="The monthly performance history (CSV or Parquet): one row per loan per month.")
+    ],
+    out: OutOption,
+    as_of: Annotated[
+        str | None, typer.Option("--as-of", help="Calibration date (YYYY-MM-DD or YYYY-MM): later months are not used. "
+                                                 "Default: the history's last month.")
+    ] = None,
+    window: Annotated[
+        int | None, typer.Option("--window", min=1, max=600, help="Months pooled for roll rates, PD by grade and "
+                                                                 "payment rates (default 24).")
+    ] = None,
+    policy: Annotated[
+        Path | None, typer.Option("--policy", help="Policy file (TOML): the run, rules, scenarios and overlays history "
+                                                   "cannot estimate, and [calibration] settings.")
+    ] = None,
+    weighting: Annotated[
+        str | None, typer.Option("--weighting", help="Roll-rate matrix written for the run: count (maximum "
+                                                     "likelihood) or balance; the other is written beside it.")
+    ] = None,
+) -> None:
+    """Estimate the assumptions from a performance history: roll rates, default and loss rates,
+    vintage curves, LGD, CCF, payment and prepayment rates; write them with the evidence.
+
+    Writes OUT/assumptions.toml (a complete file 'allowance run' reads, every figure with how it
+    was estimated), rolls_<segment>.csv, loss_rates.csv and calibration.xlsx for review.
+    """
+    settings: dict = {}
+    if as_of is not None:
+        settings["as_of"] = _month(as_of)
+    if window is not None:
+        settings["window_months"] = window
+    if weighting is not None:
+        if weighting not in ("count", "balance"):
+            raise typer.BadParameter(f"{weighting!r} is not count or balance", param_hint="--weighting")
+        settings["weighting"] = weighting
+    from allowance.exceptions import AllowanceError
+
+    try:
+        done = _calibrate_and_write(history, out, policy=policy, settings=settings)
+    except AllowanceError as err:
+        _fail(err)
+    _print_calibration(done)
+    _say(f"next: review {done.out / 'calibration.xlsx'}, then  allowance run TAPE --assumptions "
+         f"{done.out / 'assumptions.toml'} --out OUT")
 
 
 @app.command()

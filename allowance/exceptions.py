@@ -10,6 +10,7 @@ Implements
 AllowanceError      base class: ``file``, ``row``, ``column``, ``reason``, ``hint``
 InputFileError      a file is missing, unreadable, too large, or of the wrong kind
 TapeError           a whole-tape problem (missing required column, no rows, ambiguous dates)
+HistoryError        a whole-history problem (missing required column, no rows, nothing to estimate)
 AssumptionsError    the assumptions or an overlay file is malformed or inconsistent
 TieOutError         the accepted tape does not tie to the ledger control total
 OutputError         an output folder cannot be written
@@ -70,6 +71,10 @@ class InputFileError(AllowanceError):
 
 class TapeError(AllowanceError):
     """The tape as a whole cannot be read (not a single bad row: those are rejected)."""
+
+
+class HistoryError(AllowanceError):
+    """A performance history as a whole cannot be used (not a single bad row: those are rejected)."""
 
 
 class AssumptionsError(AllowanceError):

@@ -140,6 +140,62 @@ OPTIONAL_COLUMNS: tuple[str, ...] = tuple(
 
 
 # --------------------------------------------------------------------------------------
+# The performance history (calibration input)
+# --------------------------------------------------------------------------------------
+
+
+class HistoryRecord(BaseModel):
+    """One row of the monthly performance history: one loan in one month.
+
+    A loan leaves the history in the month it is written off (``charge_off`` or
+    ``bankruptcy_loss``) or paid off (``paid_off``); later rows of a written-off loan carry
+    only the ``recoveries`` and ``asset_sales`` of that month. The field descriptions are the
+    data dictionary of the history; the bounds are the row rules intake applies.
+    """
+
+    model_config = ConfigDict(extra="allow", frozen=True)
+
+    loan_id: str = Field(min_length=1, description="Loan or account identifier, the same in every month.")
+    segment: str = Field(min_length=1, description="Portfolio segment of the loan that month.")
+    month: date = Field(description="The month: its month-end date (2026-09-30) or YYYY-MM.")
+    balance: NonNegative = Field(description="Outstanding balance at the month end (0 once written off or paid off).")
+    days_past_due: Annotated[int, Field(ge=0, le=36_525)] = Field(
+        description="Whole days past due at the month end (at most 100 years)."
+    )
+    grade: str | None = Field(default=None, description="Risk grade that month.")
+    origination_date: date | None = Field(default=None, description="Date the loan was originated.")
+    original_balance: NonNegative | None = Field(default=None, description="Amount lent at origination.")
+    credit_limit: NonNegative | None = Field(default=None, description="Revolving lines: the limit that month.")
+    interest_rate: Probability | None = Field(
+        default=None, description="Nominal annual contract rate that month, decimal (0.065)."
+    )
+    charge_off: NonNegative | None = Field(
+        default=None, description="Amount charged off that month (blank = 0)."
+    )
+    bankruptcy_loss: NonNegative | None = Field(
+        default=None, description="Amount written off on a bankruptcy that month (blank = 0)."
+    )
+    recoveries: NonNegative | None = Field(
+        default=None, description="Cash recovered that month on an amount charged off earlier (blank = 0)."
+    )
+    asset_sales: NonNegative | None = Field(
+        default=None, description="Proceeds that month of charged-off debt sold (blank = 0)."
+    )
+    paid_off: bool = Field(default=False, description="The loan was repaid in full that month.")
+    collateral_value: NonNegative | None = Field(default=None, description="Collateral value that month.")
+
+
+#: The columns a performance history must have.
+HISTORY_REQUIRED_COLUMNS: tuple[str, ...] = tuple(
+    name for name, field in HistoryRecord.model_fields.items() if field.is_required()
+)
+#: The columns a performance history may have; anything else is ignored (and listed).
+HISTORY_OPTIONAL_COLUMNS: tuple[str, ...] = tuple(
+    name for name in HistoryRecord.model_fields if name not in HISTORY_REQUIRED_COLUMNS
+)
+
+
+# --------------------------------------------------------------------------------------
 # The assumptions file
 # --------------------------------------------------------------------------------------
 
@@ -279,7 +335,11 @@ class SatelliteModel(_Strict):
         return names
 
 
-_PD_KEYS = ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix")
+#: The keys that carry a segment's PD; a segment gives exactly one PD source or one loss rate.
+PD_SOURCE_KEYS: tuple[str, ...] = (
+    "pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "pd_curve_by_age", "transition_matrix",
+)
+_PD_KEYS = PD_SOURCE_KEYS
 _LOSS_RATE_KEYS = ("lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve")
 
 
@@ -287,7 +347,7 @@ class SegmentAssumptions(_Strict):
     """``[segments.<name>]``: the risk parameters of one portfolio segment.
 
     Exactly one method: a PD source (``pd_12m``, ``pd_12m_by_grade``, ``pd_curve``,
-    ``pd_curve_by_grade`` or ``transition_matrix``, with ``lgd``), or a loss rate
+    ``pd_curve_by_grade``, ``pd_curve_by_age`` or ``transition_matrix``, with ``lgd``), or a loss rate
     (``lifetime_loss_rate``, ``annual_loss_rate`` or ``vintage_loss_curve``; see
     :mod:`allowance.loss_rates`). At most one prepayment source: ``cpr``, ``psa`` or
     ``cpr_by_age`` (none means no prepayment).
@@ -297,6 +357,10 @@ class SegmentAssumptions(_Strict):
     pd_12m_by_grade: dict[str, Probability] | None = None
     pd_curve: list[Probability] | None = Field(default=None, description="Cumulative PD by year.")
     pd_curve_by_grade: dict[str, list[Probability]] | None = None
+    pd_curve_by_age: list[Probability] | None = Field(
+        default=None,
+        description="Cumulative PD by year of loan age (from origination, not from the as-of date).",
+    )
     transition_matrix: str | TransitionMatrix | None = Field(
         default=None, description="CSV path (relative to the assumptions file) of a monthly roll-rate matrix."
     )
@@ -352,8 +416,8 @@ class SegmentAssumptions(_Strict):
         if len(pd_sources) + len(loss_rates) != 1:
             found = ", ".join(pd_sources + loss_rates) or "none"
             raise ValueError(
-                "give exactly one PD source (pd_12m, pd_12m_by_grade, pd_curve, pd_curve_by_grade "
-                "or transition_matrix) or one loss rate (lifetime_loss_rate, annual_loss_rate or "
+                "give exactly one PD source (pd_12m, pd_12m_by_grade, pd_curve, pd_curve_by_grade, "
+                "pd_curve_by_age or transition_matrix) or one loss rate (lifetime_loss_rate, annual_loss_rate or "
                 f"vintage_loss_curve); found {found}"
             )
         if pd_sources and self.lgd is None:
@@ -669,7 +733,7 @@ class InputFile(BaseModel):
 
     model_config = ConfigDict(frozen=True)
 
-    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior", "history"]
+    role: Literal["tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "prior", "history", "policy"]
     path: str
     sha256: str
     bytes: int

@@ -4,7 +4,7 @@ Implements
 ----------
 write_csv            text columns to CSV (quoting only where needed; optional BOM / CRLF)
 write_rolls          ``cards_rolls.csv``: the card segment's monthly roll-rate matrix
-write_assumptions    ``assumptions_2026q3.toml`` / ``assumptions_2026q2.toml``
+write_policy         ``policy_2026q3.toml`` / ``policy_2026q2.toml``: what history cannot estimate
 write_what_if        ``downside_only.toml``: 100 % downside
 write_outlook_what_if ``worse_unemployment.toml``: a worse unemployment outlook
 write_bad_tape       ``bad_tape.csv``: good rows and one row per fault
@@ -400,20 +400,72 @@ expires = 2026-09-30
     return text
 
 
-def write_assumptions(out_dir: Path, quarter: str, ledger_cents: int, lender: str, pd_by_grade) -> Path:
+POLICY_SEGMENTS = {  # per segment: the keys that are judgement, not history
+    "mortgage": """
+[segments.mortgage]
+retail_class = "residential_mortgage"
+
+[segments.mortgage.collateral_lgd]
+haircut = 0.2                      # forced-sale discount on the appraised value
+recovery_cost = 0.08
+floor = 0.05
+months_to_recovery = 18
+""",
+    "auto": """
+[segments.auto]
+retail_class = "other_retail"
+""",
+    "personal": """
+[segments.personal]
+retail_class = "other_retail"
+""",
+    "cards": """
+[segments.cards]
+retail_class = "qualifying_revolving"
+""",
+    "cre": """
+[segments.cre]
+asset_correlation = 0.2            # not a retail class: set explicitly
+
+[segments.cre.collateral_lgd]
+haircut = 0.25
+recovery_cost = 0.1
+floor = 0.1
+months_to_recovery = 24
+""",
+    "heloc": """
+[segments.heloc]
+retail_class = "residential_mortgage"
+""",
+}
+
+
+def write_policy(out_dir: Path, quarter: str, ledger_cents: int, lender: str) -> Path:
+    """The policy file of a quarter: the tables a calibration cannot estimate from history."""
     q = QUARTERS[quarter]
-    head = f"""# {lender} (an invented lender): assumptions for the quarter-end allowance
-# at {q["as_of"]}. Every figure is invented for the demo. Written by demo/generate.py.
+    head = f"""# {lender} (an invented lender): the calibration policy for the quarter-end at {q["as_of"]}.
+# `allowance calibrate history.parquet --policy policy_2026{quarter}.toml` estimates every segment's PD,
+# LGD, prepayment and revolving behaviour from the history and takes the rest from here: the run,
+# the staging rules, the scenarios, the overlays, and the keys below that are judgement, not
+# history (collateral haircuts, Basel classes). Every figure is invented. Written by demo/generate.py.
 
 [run]
 as_of = {q["as_of"]}
 frameworks = ["ifrs9", "cecl"]
 currency = "USD"
 label = "{lender} - quarter-end {q["as_of"]}"
-ledger_balance = {ledger_cents // 100}.{ledger_cents % 100:02d}   # general-ledger loan balance
+ledger_balance = {ledger_cents // 100}.{ledger_cents % 100:02d}
+
+[calibration]
+as_of = {q["as_of"]}                # history after this month is not used
+window_months = 24
+# the secured real-estate books are written down at 180 days past due, after the valuation
+charge_off_dpd = {{ mortgage = 180, cre = 180, heloc = 180 }}
+pd_source = {{ cre = "pd_12m" }}     # a small book: one pooled PD rather than a thin curve by age
 """
-    text = head + segments_toml(pd_by_grade) + rules_and_scenarios_toml(quarter) + overlays_toml(quarter)
-    return _write_text(out_dir / f"assumptions_2026{quarter}.toml", text)
+    segments = "".join(POLICY_SEGMENTS[name] + SATELLITES[name] for name in POLICY_SEGMENTS)
+    text = head + segments + rules_and_scenarios_toml(quarter) + overlays_toml(quarter)
+    return _write_text(out_dir / f"policy_2026{quarter}.toml", text)
 
 
 def write_outlook_what_if(out_dir: Path) -> Path:
@@ -589,9 +641,14 @@ DESCRIPTIONS = {
     "tape_2026q3.csv": ("tape", "The loan tape at 2026-09-30: about 10,000 loans in six segments."),
     "tape_2026q2.csv": ("tape", "The same book a quarter earlier, at 2026-06-30."),
     "charge_offs_2026q3.csv": ("charge_offs", "Write-offs and recoveries booked in the third quarter of 2026."),
-    "assumptions_2026q3.toml": ("assumptions", "Assumptions for the 2026-09-30 run: segments, rules, three scenarios, two overlays."),
-    "assumptions_2026q2.toml": ("assumptions", "Assumptions for the 2026-06-30 run (other scenario weights and overlays)."),
-    "cards_rolls.csv": ("transition_matrix", "Monthly roll rates of the card book between delinquency buckets."),
+    "history.parquet": ("history", "Five years of monthly performance of a sample of accounts, 2021-10 to 2026-09."),
+    "policy_2026q3.toml": ("policy", "What the 2026-09-30 calibration cannot estimate: run, rules, scenarios, overlays."),
+    "policy_2026q2.toml": ("policy", "The same for 2026-06-30 (other scenario weights and overlays)."),
+    "assumptions_2026q3.toml": ("assumptions", "Assumptions for the 2026-09-30 run, calibrated from the history."),
+    "assumptions_2026q2.toml": ("assumptions", "Assumptions for the 2026-06-30 run, calibrated from the history to June."),
+    "rolls_cards.csv": ("transition_matrix", "The card book's roll rates, calibrated to 2026-09-30."),
+    "rolls_cards_2026q2.csv": ("transition_matrix", "The card book's roll rates, calibrated to 2026-06-30."),
+    "cards_rolls.csv": ("transition_matrix", "The roll rates the card history was simulated from (the raw extract's run uses them)."),
     "downside_only.toml": ("overlay", "What-if: 100 % weight on the downside scenario."),
     "worse_unemployment.toml": ("overlay", "What-if: a worse unemployment outlook (base and downside paths)."),
     "bad_tape.csv": ("tape", "A small tape with one deliberately bad row per fault, among good rows."),
@@ -611,7 +668,7 @@ def _array(name: str, items: list[dict]) -> str:
 
 
 def write_manifest(out_dir: Path, seed: int, lender: str, current: dict, prior: dict, movement: dict,
-                   bad: dict, messy: dict) -> Path:
+                   bad: dict, messy: dict, history: dict) -> Path:
     text = f"""# The bundled demo data: the one list that the tests, the docs and `allowance demo` read.
 # Written by demo/generate.py (python demo/generate.py). Every name and figure is invented.
 
@@ -621,6 +678,7 @@ generator = "generate.py"
 invented = true
 """
     text += _table("current", current) + _table("prior", prior) + _table("movement", movement)
+    text += _table("history", history)
     text += _table("what_if", {"overlay": "downside_only.toml", "outlook": "worse_unemployment.toml",
                                "applies_to": "current"})
     text += _table("bad", {k: v for k, v in bad.items() if k != "faults"}) + _array("bad.faults", bad["faults"])

@@ -23,6 +23,9 @@ How the book is built
 3. The tapes are snapshots at 2026-06-30 and 2026-09-30. Balances are the level-pay schedule
    at the number of payments actually made (payments due minus payments missed); days past
    due are the days since the oldest unpaid due date.
+4. A five-year monthly performance history of a sample of the lender's accounts is simulated
+   from known parameters (``history.py``), and both quarters' assumptions are calibrated from
+   it by ``allowance calibrate`` under each quarter's policy file.
 """
 
 from __future__ import annotations
@@ -35,9 +38,10 @@ import numpy as np
 import numpy_financial as npf
 
 try:
-    from demo import files
+    from demo import files, history
 except ImportError:  # run as a script: python demo/generate.py puts demo/ on sys.path
     import files  # type: ignore[no-redef]
+    import history  # type: ignore[no-redef]
 
 SEED = 20260930
 LENDER = "Corrandale Mutual Savings Bank"
@@ -515,8 +519,12 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     balance_at = TAPE_COLUMNS.index("balance")
     cents = {k: _cents(t[balance_at]) for k, t in tapes.items()}
     written.append(files.write_rolls(out_dir))
-    written.append(files.write_assumptions(out_dir, "q3", cents["tape_2026q3.csv"], LENDER, PD_BY_GRADE))
-    written.append(files.write_assumptions(out_dir, "q2", cents["tape_2026q2.csv"], LENDER, PD_BY_GRADE))
+    # The assumptions of both quarters are calibrated from the performance history.
+    history_path, history_info = history.write_history(out_dir, seed)
+    written.append(history_path)
+    for quarter in ("q3", "q2"):
+        policy = files.write_policy(out_dir, quarter, cents[f"tape_2026{quarter}.csv"], LENDER)
+        written += [policy, *calibrated(out_dir, quarter, history_path, policy)]
     written.append(files.write_what_if(out_dir))
     written.append(files.write_outlook_what_if(out_dir))
     bad_path, bad = files.write_bad_tape(out_dir, rng, q3, TAPE_COLUMNS)
@@ -533,12 +541,41 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
                     balance=cents[key] / 100)
 
     current = quarter("tape_2026q3.csv", AS_OF_Q3, "assumptions_2026q3.toml", q3, "tape_2026q3.csv")
-    current.update(charge_offs="charge_offs_2026q3.csv", transition_matrices=["cards_rolls.csv"])
+    current.update(charge_offs="charge_offs_2026q3.csv", transition_matrices=["rolls_cards.csv"],
+                   policy="policy_2026q3.toml")
     prior = quarter("tape_2026q2.csv", AS_OF_Q2, "assumptions_2026q2.toml", q2, "tape_2026q2.csv")
+    prior.update(transition_matrices=["rolls_cards_2026q2.csv"], policy="policy_2026q2.toml")
     bad = dict(tape="bad_tape.csv", assumptions="assumptions_2026q3.toml", **bad)
     messy = dict(tape="messy_extract.csv", assumptions="messy_assumptions.toml", **messy)
-    written.append(files.write_manifest(out_dir, seed, LENDER, current, prior, movement, bad, messy))
+    written.append(files.write_manifest(out_dir, seed, LENDER, current, prior, movement, bad, messy, history_info))
     return sorted(written)
+
+
+def calibrated(out_dir: Path, quarter: str, history_path: Path, policy: Path) -> list[Path]:
+    """A quarter's assumptions, calibrated from the history under its policy, and its roll-rate files.
+
+    What ``allowance calibrate history.parquet --policy policy_2026q3.toml --out DIR`` writes
+    as ``DIR/assumptions.toml`` (the second quarter's roll-rate files are renamed
+    ``rolls_<segment>_2026q2.csv`` so that both quarters live side by side here).
+    """
+    from allowance.calibrate import calibrate
+    from allowance.report.calibration import matrix_csv, render_assumptions
+
+    suffix = "" if quarter == "q3" else "_2026q2"
+
+    def name(segment: str) -> str:
+        return f"rolls_{segment}{suffix}.csv"
+
+    cal = calibrate(history_path, policy=policy)
+    target = out_dir / f"assumptions_2026{quarter}.toml"
+    target.write_bytes(render_assumptions(cal, name).encode("utf-8"))
+    paths = [target]
+    for segment in cal.assumptions.matrices:
+        rolls = cal.results["roll_rates"].segments[segment]
+        path = out_dir / name(segment)
+        path.write_bytes(matrix_csv(rolls.states, rolls.matrix().probabilities).encode("utf-8"))
+        paths.append(path)
+    return paths
 
 
 def main(argv: list[str] | None = None) -> None:

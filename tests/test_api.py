@@ -22,6 +22,7 @@ PINNED = {
                          "cumulative_pd", "pd_over", "roll_rate_summary", "collateral_lgd", "bucket_index"},
     "allowance.report": {"CAUTION", "RunReport", "run_record", "write_outputs", "neutralise_text"},
     "allowance.reconcile": {"Movement", "WhatIf", "movement", "compare_runs", "what_if_comparison"},
+    "allowance.calibrate": {"Calibration", "CalibrationSettings", "ESTIMATORS", "Estimator", "calibrate", "estimate"},
 }
 
 

@@ -169,7 +169,8 @@ def test_weights_that_do_not_sum_to_one(tmp_path):
     text = ASSUMPTIONS.read_text().replace("weight = 0.6", "weight = 0.5", 1)
     bad = tmp_path / "weights.toml"
     bad.write_text(text)
-    shutil.copy(DEMO / "cards_rolls.csv", tmp_path / "cards_rolls.csv")
+    for matrix in MANIFEST["current"]["transition_matrices"]:
+        shutil.copy(DEMO / matrix, tmp_path / matrix)
     result = invoke("run", TAPE, "--assumptions", bad, "--out", tmp_path / "out")
     _one_line_error(result, "weights.toml", "sum to 1")
     assert not (tmp_path / "out").exists()

@@ -39,6 +39,7 @@ def _segments() -> dict[str, SegmentAssumptions]:
         "pd_curve_by_grade": SegmentAssumptions(
             pd_curve_by_grade={"A": [0.01, 0.02], "B": [0.05, 0.11, 0.15]}, lgd=0.45
         ),
+        "pd_curve_by_age": SegmentAssumptions(pd_curve_by_age=[0.003, 0.011, 0.02, 0.026], lgd=0.3),
         "transition_matrix": SegmentAssumptions(
             transition_matrix=example_roll_matrix(120, False), charge_off_dpd=120, lgd=0.6
         ),
@@ -53,6 +54,10 @@ def _own_input_pd(name: str, segment: SegmentAssumptions, ts: PdTermStructure) -
     if name in ("pd_12m", "pd_12m_by_grade"):
         given_pd = [segment.pd_12m] if name == "pd_12m" else list(segment.pd_12m_by_grade.values())
         return pd_over(ts.marginal, 12), np.array(given_pd)  # constant hazard returns the input
+    if name == "pd_curve_by_age":
+        # a loan of age 0 lives through the curve year by year: it reproduces every point
+        curve = segment.pd_curve_by_age
+        return np.array([pd_over(ts.marginal[0], 12 * (y + 1)) for y in range(len(curve))]), np.asarray(curve)
     if name in ("pd_curve", "pd_curve_by_grade"):
         table = {"*": segment.pd_curve} if name == "pd_curve" else segment.pd_curve_by_grade
         model = [pd_over(ts.marginal[k], 12 * (y + 1)) for k, c in enumerate(table.values()) for y in range(len(c))]

@@ -22,7 +22,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("scenarios",),  # scenario paths over the term structures
     ("frameworks",),  # what differs between IFRS 9 and CECL
     ("intake",),  # the reading edge: files into contracts, validated
-    ("ecl", "overlays", "backtest"),  # the fused loop, post-model adjustments, back-testing
+    ("ecl", "overlays", "backtest", "calibrate"),  # the fused loop, adjustments, back-testing, calibration
     ("engine",),  # chunks of loans through the loop
     ("reconcile",),  # movement, what-if, sensitivities between runs
     ("report",),  # the writing edge: loans.csv, reserve.xlsx, run.json

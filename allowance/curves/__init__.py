@@ -8,7 +8,7 @@ Implements
 ----------
 term_structure  PdTermStructure, survival, unconditional_marginal, cumulative_pd, pd_over
 pd_sources      pd_term_structure and the PD_SOURCES registry (12-month PD, cumulative curve,
-                by grade, transition matrix); hazard_from_pd_12m, marginal_from_curve
+                by grade, transition matrix); hazard_from_pd_12m, marginal_from_curve, marginal_by_age
 roll_rates      delinquency buckets, bucket_index, validate_matrix, matrix_term_structure,
                 roll_rate_summary (Kemeny & Snell absorbing-chain analytics)
 roll_forecast   bucket_balances, roll_forecast, roll_forecast_check, segment_roll_forecasts
@@ -30,6 +30,7 @@ from allowance.curves.pd_sources import (
     check_one_prepayment_source,
     PdSource,
     hazard_from_pd_12m,
+    marginal_by_age,
     marginal_from_curve,
     pd_term_structure,
 )
@@ -77,6 +78,7 @@ __all__ = [
     "expected_states",
     "hazard_from_pd_12m",
     "loss_given_default",
+    "marginal_by_age",
     "marginal_from_curve",
     "matrix_term_structure",
     "pd_over",

@@ -7,6 +7,7 @@ Implements
 ----------
 hazard_from_pd_12m     constant monthly hazard that reproduces a 12-month PD
 marginal_from_curve    monthly marginals from a cumulative PD curve by year
+marginal_by_age        monthly marginals for every loan age from a cumulative PD curve by year of age
 pd_term_structure      the registry lookup: segment assumptions -> PdTermStructure
 check_one_prepayment_source  a roll-rate matrix's payoffs or a stated CPR/PSA, not both
 PD_SOURCES             pd_source key -> builder
@@ -24,7 +25,7 @@ from allowance.curves.term_structure import PdTermStructure
 from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.schemas import SegmentAssumptions, TransitionMatrix
 
-PdSource = Literal["pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix"]
+PdSource = Literal["pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "pd_curve_by_age", "transition_matrix"]
 PdBuilder = Callable[[str, SegmentAssumptions, int], PdTermStructure]
 
 
@@ -89,6 +90,42 @@ def marginal_from_curve(curve: list[float] | np.ndarray, months: int) -> np.ndar
         hazard = np.where(np.isneginf(before), 1.0, -np.expm1((log_surv - before) / 12.0))
     year = np.minimum(np.arange(months) // 12, cum.size - 1)
     return hazard[year]
+
+
+def marginal_by_age(curve: list[float] | np.ndarray, months: int) -> np.ndarray:
+    r"""Monthly marginal PDs from a cumulative PD curve by year of loan age, for every age.
+
+    Parameters
+    ----------
+    curve : array_like, shape (years,)
+        Cumulative PD at the end of years 1..n of the loan's life (from origination).
+    months : int
+        Months of term structure wanted from the as-of date.
+
+    Returns
+    -------
+    ndarray, shape (12 n + 1, months)
+        Row a is a loan aged a whole months at the as-of date: ``[a, t - 1]`` is the hazard of
+        its month of life a + t. Loans older than 12 n months take the last row (every month
+        of theirs is past the curve, at the last year's hazard).
+
+    Notes
+    -----
+    The hazards by month of life are those of :func:`marginal_from_curve` (constant within a
+    year of age, log-linear survival, the last year's hazard after the curve ends), read from
+    the loan's own age instead of from its first month after the as-of date: a loan deep in
+    its life does not take a new loan's early-life PD.
+
+    Examples
+    --------
+    >>> pd_t = marginal_by_age([0.02, 0.05], 3)
+    >>> pd_t.shape, pd_t[0].round(6).tolist(), pd_t[11].round(6).tolist(), pd_t[24].round(6).tolist()
+    ((25, 3), [0.001682, 0.001682, 0.001682], [0.001682, 0.002588, 0.002588], [0.002588, 0.002588, 0.002588])
+    """
+    cum = np.asarray(curve, dtype=np.float64)
+    by_life = marginal_from_curve(cum, 12 * cum.size + months)  # month of life 1, 2, ...
+    ages = np.arange(12 * cum.size + 1)
+    return by_life[ages[:, None] + np.arange(months)[None, :]]
 
 
 # --------------------------------------------------------------------------------------
@@ -161,6 +198,12 @@ def _from_pd_curve_by_grade(name: str, segment: SegmentAssumptions, months: int)
     return PdTermStructure(name, tuple(table), np.vstack(rows), None, "pd_curve_by_grade")
 
 
+def _from_pd_curve_by_age(name: str, segment: SegmentAssumptions, months: int) -> PdTermStructure:
+    curve = _check_curve(segment.pd_curve_by_age, f"segments.{name}.pd_curve_by_age")
+    marginal = marginal_by_age(curve, months)
+    return PdTermStructure(name, tuple(str(a) for a in range(marginal.shape[0])), marginal, None, "pd_curve_by_age")
+
+
 def _from_transition_matrix(name: str, segment: SegmentAssumptions, months: int) -> PdTermStructure:
     matrix = segment.transition_matrix
     if not isinstance(matrix, TransitionMatrix):
@@ -178,6 +221,7 @@ PD_SOURCES: dict[PdSource, PdBuilder] = {
     "pd_12m_by_grade": _from_pd_12m_by_grade,
     "pd_curve": _from_pd_curve,
     "pd_curve_by_grade": _from_pd_curve_by_grade,
+    "pd_curve_by_age": _from_pd_curve_by_age,
     "transition_matrix": _from_transition_matrix,
 }
 

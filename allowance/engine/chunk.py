@@ -72,6 +72,9 @@ def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.
         seg = prep.config.assumptions.segments[name]
         if ts.source == "transition_matrix":
             local = curves.bucket_index(chunk["days_past_due"].to_numpy()[mask], seg.charge_off_dpd)
+        elif ts.source == "pd_curve_by_age":  # one row per whole month of age at the as-of date
+            age = cashflows.age_months(chunk["origination_date"][mask], pd.Timestamp(prep.config.as_of))
+            local = np.minimum(age, len(ts.keys) - 1)
         elif ts.source.endswith("_by_grade"):
             local = ts.key_index(chunk["grade"].to_numpy()[mask])
         else:

@@ -70,7 +70,9 @@ def term_structure_table(prep: Prepared) -> pd.DataFrame:
             if prep.loss_rates is not None and name in prep.loss_rates.method:
                 continue  # a loss-rate segment has no PD term structure
             off = prep.key_offset[name]
-            for k, key in enumerate(ts.keys):
+            shown = range(0, len(ts.keys), 12) if ts.source == "pd_curve_by_age" else range(len(ts.keys))
+            for k in shown:  # by age: whole years of age only (one row per month of age is too many)
+                key = ts.keys[k]
                 marg = prep.pd[f, off + k].T  # [S, T]
                 smm = ts.smm[k] if ts.smm is not None else None
                 cum = curves.cumulative_pd(marg, smm)

@@ -9,13 +9,17 @@ check_table         the counts ``allowance check`` prints
 read_charge_offs    the period's charge-off file
 read_prior_run      a previous run's loans.csv and run.json -> PriorRun
 read_macro_history  a monthly or quarterly macro history file -> MacroHistory
+read_history        a monthly performance history (CSV / Parquet, streamed) -> HistoryIntake
+read_policy         a calibration policy file (TOML)
 file_record         SHA-256 and size of an input file, for run.json
 bundled_path        the shipped demo/ or templates/ folder
 data_dictionary     the tape's columns: type, required, meaning (from LoanRecord)
 
 Layout: ``files`` (files as bytes), ``readers`` (bytes -> text table), ``fields`` (the tape
 columns from LoanRecord), ``parse`` (text -> values, column-wise), ``rules`` (the row rules),
-``tape`` (read_tape), ``assumptions``, ``tieout``, ``history``, ``macro_series``.
+``tape`` (read_tape), ``assumptions``, ``tieout``, ``history``, ``macro_series``; the
+performance history: ``stream`` (batches), ``performance`` (read_history), ``panel``
+(the loan-month panel), ``policy``.
 """
 
 from allowance.intake.assumptions import load_assumptions, read_transition_matrix
@@ -23,12 +27,17 @@ from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
 from allowance.intake.files import bundled_path, file_record
 from allowance.intake.history import PriorRun, read_charge_offs, read_prior_run
 from allowance.intake.macro_series import MacroHistory, read_macro_history
+from allowance.intake.performance import HistoryIntake, read_history
+from allowance.intake.policy import read_policy
 from allowance.intake.results import IntakeResult, TieOut
 from allowance.intake.rules import CODES
 from allowance.intake.tape import read_tape
 from allowance.intake.tieout import check_table, tie_out
 
 __all__ = [
+    "HistoryIntake",
+    "read_history",
+    "read_policy",
     "CODES",
     "FIELDS",
     "FieldSpec",
