@@ -24,7 +24,7 @@ from openpyxl.styles import Font, PatternFill
 from allowance.backtest.compare import BacktestResult
 from allowance.exceptions import OutputError
 from allowance.report.record import CAUTION
-from allowance.report.text import neutralise_frame
+from allowance.text import neutralise_frame
 from allowance.report.xlsx import TITLE_FONT, put_table
 
 __all__ = ["BACKTEST_FILES", "write_backtest"]
