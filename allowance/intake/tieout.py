@@ -118,8 +118,9 @@ def tie_out(
 def check_table(result: IntakeResult) -> pd.DataFrame:
     """The counts ``allowance check`` prints: rows, then rejections and warnings by reason.
 
-    Columns ``section`` (rows / rejected / warning), ``code``, ``column``, ``rows`` and
-    ``message``. A rejected row counts once under each distinct reason it has, so the
+    Columns ``section`` (rows / lines / rejected / warning), ``code``, ``column``, ``rows`` and
+    ``message``. For a CSV tape the ``lines`` section reconciles the file's physical lines
+    with the records read, so a stray quote that joins lines cannot pass unnoticed. A rejected row counts once under each distinct reason it has, so the
     rejection lines may add up to more than the rejected rows.
     """
     lines = [
@@ -129,6 +130,13 @@ def check_table(result: IntakeResult) -> pd.DataFrame:
     ]
     if result.blank_rows:
         lines.append(("rows", "blank", "", result.blank_rows, "empty lines skipped (not counted as read)"))
+    if result.lines >= 0:
+        lines.append(("lines", "physical", "", result.lines,
+                      "lines of the file = 1 header + rows read + blank + line breaks inside quoted values"))
+        if result.lines_in_values:
+            lines.append(("lines", "in_values", "", result.lines_in_values,
+                          "line breaks inside quoted values (see the rows with code line_break_in_value "
+                          "or records_in_value)"))
     findings = result.findings
     if len(findings):
         for section, severity in (("rejected", "reject"), ("warning", "warning")):
