@@ -1,3 +1,3 @@
-from allowance.cli import main
+from allowance.console import main
 
 main()
