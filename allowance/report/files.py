@@ -31,7 +31,7 @@ from allowance.exceptions import OutputError
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
-from allowance.text import neutralise_frame
+from allowance.text import neutralise_frame, neutralise_table
 from allowance.report.workbook import write_workbook
 
 __all__ = ["OUTPUT_FILES", "OutputPaths", "check_output_path", "write_outputs"]
@@ -46,29 +46,29 @@ OUTPUT_FILES: tuple[str, ...] = (
 def _arrow_ready(frame: pd.DataFrame) -> pd.DataFrame:
     """Dates without a time of day as dates (``2026-09-30``, not a timestamp)."""
     out = frame
-    for position in range(frame.shape[1]):
-        column = frame.iloc[:, position]
-        if pd.api.types.is_datetime64_any_dtype(column.dtype) and not getattr(column.dtype, "tz", None):
-            stamps = column.to_numpy(dtype="datetime64[ns]")
-            days = stamps.astype("datetime64[D]")
-            if (np.isnat(stamps) | (stamps == days)).all():
-                out = out.copy() if out is frame else out
-                out.isetitem(position, pd.Series(days, index=frame.index).dt.date)
+    dated = [i for i, dtype in enumerate(frame.dtypes)  # by dtype: a column each costs seconds on wide tapes
+             if pd.api.types.is_datetime64_any_dtype(dtype) and not getattr(dtype, "tz", None)]
+    for position in dated:
+        stamps = frame.iloc[:, position].to_numpy(dtype="datetime64[ns]")
+        days = stamps.astype("datetime64[D]")
+        if (np.isnat(stamps) | (stamps == days)).all():
+            out = out.copy() if out is frame else out
+            out.isetitem(position, pd.Series(days, index=frame.index).dt.date)
     return out
 
 
 def _csv(frame: pd.DataFrame, path: Path) -> None:
     """Text neutralised; written by Arrow (fast), or by pandas for columns Arrow cannot type."""
-    safe = neutralise_frame(frame)
-    if safe.columns.duplicated().any():  # Arrow needs unique names
-        safe.to_csv(path, index=False, lineterminator="\n")
+    table = None
+    if not frame.columns.duplicated().any():  # Arrow needs unique names
+        try:
+            table = pa.Table.from_pandas(_arrow_ready(frame), preserve_index=False)
+        except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError):
+            table = None
+    if table is None or any(pa.types.is_null(t) or pa.types.is_nested(t) for t in table.schema.types):
+        neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
         return
-    try:
-        table = pa.Table.from_pandas(_arrow_ready(safe), preserve_index=False)
-    except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError):
-        safe.to_csv(path, index=False, lineterminator="\n")
-        return
-    pa_csv.write_csv(table, path, write_options=pa_csv.WriteOptions(quoting_style="needed"))
+    pa_csv.write_csv(neutralise_table(table), path, write_options=pa_csv.WriteOptions(quoting_style="needed"))
 
 
 class OutputPaths(list):

@@ -251,8 +251,8 @@ def _swap(partial: Path, out_dir: Path, owned: Collection[str]) -> list[str]:
         except OSError:
             os.rename(backup, out_dir)
             raise
-    if not _remove(backup):
-        return [f"the previous outputs could not all be deleted and are kept in {backup}; delete it by hand"]
+        if not _remove(backup):
+            return [f"the previous outputs could not all be deleted and are kept in {backup}; delete it by hand"]
     return []
 
 
