@@ -170,6 +170,8 @@ def run(
         findings=pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame(),
         warnings=list(applied.warnings),
     )
+
+
 def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     first = [
         "loan_id", "segment", "repayment", "grade", "stage", "stage_reason", "poci",
