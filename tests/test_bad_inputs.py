@@ -168,13 +168,15 @@ class Case:
 
 
 def invoke(args: list[str], env: dict[str, str] | None = None) -> tuple[int, str]:
+    if args and args[0] == "run" and "--no-sensitivities" not in args:
+        args = [*args, "--no-sensitivities"]  # the per-scenario reruns add nothing here but time
     result = CliRunner().invoke(app, [str(a) for a in args], env=env, catch_exceptions=False)
     return result.exit_code, result.output
 
 
 def default_args(ws: Workspace, command: str) -> list[str]:
     if command == "run":
-        return ["run", ws.tape, "-a", ws.toml, "--out", ws.out]
+        return ["run", ws.tape, "-a", ws.toml, "--out", ws.out, "--no-sensitivities"]
     return ["check", ws.tape, "-a", ws.toml]
 
 
@@ -669,9 +671,9 @@ CASES: list[Case] = [
     Case("output swap: Ctrl-C mid-swap", "SIGINT while the folders are swapped", "custom", 130,
          ("interrupted",), custom=sigint_mid_swap, marks=_SLOW),
     Case("output swap: file that cannot be replaced", "reserve.xlsx held open; loans.csv or the folder immutable",
-         "custom", 0, (), custom=unreplaceable),
+         "custom", 0, (), custom=unreplaceable, marks=_SLOW),
     Case("output swap: leftover partial folders", ".out.partial-* and .out.backup-* from killed runs",
-         "custom", 0, (), custom=partial_leftovers),
+         "custom", 0, (), custom=partial_leftovers, marks=_SLOW),
     Case("output swap: two runs on one --out", "a second run while the first holds the folder", "custom", 1,
          ("another run is writing this output folder",), custom=another_writer),
     Case("cents overflow: balance 1e20", "balance 1e20 on one row", "run", 0,
@@ -683,18 +685,18 @@ CASES: list[Case] = [
          tape=lambda t: cell(t, 3, "balance", "1e308")),
     Case("days past due 2^63", f"days_past_due {_DEFAULT_DPD}", "run", 0,
          (f"days_past_due '{_DEFAULT_DPD}' is outside its range", "at most 36,525"), (24, 23, 1),
-         tape=lambda t: cell(t, 5, "days_past_due", _DEFAULT_DPD)),
+         tape=lambda t: cell(t, 5, "days_past_due", _DEFAULT_DPD), marks=_SLOW),
     Case("unterminated quote", "a quote opened on line 6 and never closed", "check", 1,
          ("row 6", "a quoted value is never closed", "lines 6 to 25"),
          tape=lambda t: [*t[:5], t[5].replace(",", ',"', 1), *t[6:]]),
     Case("quote closed lines later", "a quote opened on line 6 closes on line 13, inside a free-text column",
          "run", 0, ("line breaks inside quoted values",), (17, 16, 1),
          tape=lambda t: [*t[:5], quote_last_field(t[5]), *t[6:12], t[12] + '"', *t[13:]],
-         then=rejected_reason("records_in_value")),
+         then=rejected_reason("records_in_value"), marks=_SLOW),
     *[
         Case(f"tape column named like an output: {name}", f"an extra column '{name}' on the tape", "run", 0,
              (f"carried through as 'tape_{name}'",), (24, 24, 0), tape=column_named(name),
-             then=computed_column_kept(name))
+             then=computed_column_kept(name), marks=() if name == "stage" else _SLOW)
         for name in _RESULT_NAMES
     ],
     Case("segment names starting with <, >, =", "segments '<auto', '=cre', '>mortgage'", "custom", 0, (),
@@ -710,7 +712,7 @@ CASES: list[Case] = [
     Case("blank overlay rationale", 'rationale = "   "', "check", 1,
          ("overlays[1].rationale", "must not be empty or blank"), toml=overlay("percent", "0.1", "   ")),
     Case("amount overlay far above exposure", "an amount overlay of 50,000,000 on four auto loans", "run", 0,
-         ("above their exposure at default",), (24, 24, 0), toml=overlay("amount", "50000000.0")),
+         ("above their exposure at default",), (24, 24, 0), toml=overlay("amount", "50000000.0"), marks=_SLOW),
     Case("ledger_tolerance = inf", "[run] ledger_tolerance = inf", "check", 1,
          ("run.ledger_tolerance", "must be a finite number"), toml=toml_set("currency", '"USD"\nledger_tolerance = inf')),
     Case("as_of far in the future", "as_of = 2099-12-31", "run", 1,
@@ -738,10 +740,10 @@ CASES: list[Case] = [
     Case("XML-illegal characters", "loan_id and a free-text column with U+FFFE, U+FFFF and control characters",
          "run", 0, (), (24, 24, 0),
          tape=lambda t: [t[0] + ",note"] + [line + ",a\x01b\ufffec\uffffd\x1f" for line in t[1:]],
-         then=workbook_opens, marks=(pytest.mark.xfail(reason=WORKBOOK, strict=False),)),
+         then=workbook_opens, marks=(*_SLOW, pytest.mark.xfail(reason=WORKBOOK, strict=False),)),
     Case("truncation inside an escape", "a free-text cell of 40,000 '&'", "run", 0, (), (24, 24, 0),
          tape=lambda t: [t[0] + ",note"] + [line + "," + "&" * 40_000 for line in t[1:]],
-         then=workbook_opens, marks=(pytest.mark.xfail(reason=WORKBOOK, strict=False),)),
+         then=workbook_opens, marks=(*_SLOW, pytest.mark.xfail(reason=WORKBOOK, strict=False),)),
     # ---- tracebacks ---------------------------------------------------------------------
     Case("scenario z NaN", "z = [nan] in a scenario", "check", 1, ("scenarios.base.z", "finite number"),
          toml=lambda s: s.replace("pd_multiplier = [1.0, 1.0, 1.0]", "z = [nan]", 1)),
@@ -755,11 +757,11 @@ CASES: list[Case] = [
          ("segments.cards.behavioural_life_months", "at most 1200"),
          toml=toml_set("behavioural_life_months", "100000000")),
     Case("--prior run.json of the wrong shape", '{"frameworks": "ifrs9"}', "run", 1,
-         ("run.json", "not a run record", "frameworks"), args=prior_folder('{"frameworks": "ifrs9"}')),
+         ("run.json", "not a run record", "frameworks"), args=prior_folder('{"frameworks": "ifrs9"}'), marks=_SLOW),
     Case("--prior run.json nested 100,000 levels", "[[[...]]] 100,000 deep", "run", 1,
-         ("run.json", "nested too deeply"), args=prior_folder("[" * 100_000 + "]" * 100_000)),
+         ("run.json", "nested too deeply"), args=prior_folder("[" * 100_000 + "]" * 100_000), marks=_SLOW),
     Case("--prior run.json not JSON", "run.json holding text", "run", 1, ("run.json", "cannot be read as JSON"),
-         args=prior_folder("not json")),
+         args=prior_folder("not json"), marks=_SLOW),
     Case("Ctrl-C during start-up", "SIGINT 0.3 s and 1 s after 'allowance version' starts", "custom", 130,
          ("interrupted",), custom=ctrl_c_at_start, marks=_SLOW),
     Case("no writable home, shared install", "version, check and run as 'nobody' with HOME=/nonexistent",
@@ -776,12 +778,12 @@ CASES: list[Case] = [
          args=workbook_tape(xml_bomb), then=one_line_error),
     # ---- byte-identical reruns and the run record ----------------------------------------
     Case("reruns byte-identical", "the same inputs twice with SOURCE_DATE_EPOCH set", "custom", 0, (),
-         custom=reproducible),
+         custom=reproducible, marks=_SLOW),
     Case("workbook byte-identical", "reserve.xlsx of two runs with SOURCE_DATE_EPOCH set", "custom", 0, (),
          custom=reproducible_workbook, marks=(pytest.mark.xfail(reason=WORKBOOK, strict=False),)),
     Case("SOURCE_DATE_EPOCH malformed", "SOURCE_DATE_EPOCH=soon", "custom", 1, ("SOURCE_DATE_EPOCH",),
          custom=lambda tmp, case: _malformed_epoch(tmp, case)),
-    Case("run record pins the run", "a run with --prior and --label", "custom", 0, (), custom=run_record_pins),
+    Case("run record pins the run", "a run with --prior and --label", "custom", 0, (), custom=run_record_pins, marks=_SLOW),
     # ---- smaller ------------------------------------------------------------------------
     Case("message quotes the cell as written", "balance -100.50", "check", 1,
          ("balance '-100.50' is outside its range",), (24, 23, 1), tape=lambda t: cell(t, 2, "balance", "-100.50")),
