@@ -146,7 +146,7 @@ def _prior(prior: str | os.PathLike | Result) -> tuple[_Prior, list]:
     folder = Path(prior)
     previous = intake.read_prior_run(folder)
     return _Prior(previous.loans, previous.record, str(folder / "loans.csv")), [
-        intake.file_record(folder / "loans.csv", "prior")]
+        intake.file_record(folder / "loans.csv", "prior"), intake.file_record(folder / "run.json", "prior")]
 
 
 def _charge_offs(charge_offs: str | os.PathLike | pd.DataFrame | None) -> tuple[pd.DataFrame | None, list, str | None]:
@@ -238,6 +238,7 @@ def run(
     told("read", 0, 1)
     source = _tape(tape)
     taken = intake.read_tape(source, config)
+    taken.require_accepted()  # a run of no loans is not a run: exit 1 with the commonest reasons
     told("read", 1, 1)
     tie = _tie_out(taken, config, ledger_balance, accept_ledger_difference)
     if not tie.within_tolerance and not tie.accepted_by_user:
@@ -290,7 +291,7 @@ def run(
         told("prior", 1, 1)
 
     config = config.model_copy(update={"inputs": inputs})
-    warnings = list(result.warnings)
+    warnings = [*taken.notes, *result.warnings]  # tape-level notes: renamed columns, lines in values
     if movements is not None and at_prior is None:
         warnings.append("the prior run's assumptions could not be applied to this tape; "
                         "assumption changes are included in remeasurement")

@@ -32,6 +32,8 @@ import numba
 import numpy as np
 import pandas as pd
 
+from allowance import jit
+
 LEVEL, INTEREST_ONLY, BALLOON, REVOLVING = 0, 1, 2, 3
 REPAYMENT_CODES: dict[str, int] = {
     "level": LEVEL,
@@ -83,7 +85,7 @@ def age_months(origination: pd.Series, as_of: pd.Timestamp) -> np.ndarray:
     return np.maximum(whole - (anniversary > as_of.day), 0).astype(np.int64)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def smm_from_cpr(cpr: float) -> float:
     r"""Single monthly mortality from an annual constant prepayment rate.
 
@@ -104,7 +106,7 @@ def smm_from_cpr(cpr: float) -> float:
     return 1.0 - (1.0 - cpr) ** (1.0 / 12.0)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def psa_cpr(age: float, psa: float) -> float:
     r"""Annual CPR of the PSA standard prepayment benchmark at a loan age in months.
 
@@ -128,7 +130,7 @@ def psa_cpr(age: float, psa: float) -> float:
     return min(1.0, psa / 100.0 * 0.06 * ramp)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def level_payment(balance: float, rate: float, months: int, residual: float) -> float:
     r"""Level monthly payment that takes ``balance`` to ``residual`` in ``months`` payments.
 
@@ -158,7 +160,7 @@ def level_payment(balance: float, rate: float, months: int, residual: float) -> 
     return (balance - residual * v_n) * rate / (1.0 - v_n)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def contractual_payment(
     code: int, balance: float, rate: float, months_left: int, io_left: int, residual: float, payment: float
 ) -> float:
@@ -185,7 +187,7 @@ def contractual_payment(
     return level_payment(balance, rate, max(months_left - max(io_left, 0), 1), 0.0)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def principal_step(
     code: int, balance: float, rate: float, months_left: int, io_left: int, level: float, paydown: float
 ) -> float:
@@ -227,7 +229,7 @@ def principal_step(
     return min(balance, max(level - balance * rate, 0.0))
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def path_terms(code: int, balance: float, rate: float, level: float, paydown: float) -> tuple[float, float]:
     """Growth factor g and payment P of a loan's closed-form balance path.
 
@@ -245,7 +247,7 @@ def path_terms(code: int, balance: float, rate: float, level: float, paydown: fl
     return 1.0 + rate, max(level, balance * rate)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def balance_on_path(balance: float, growth_power: float, annuity_factor: float, payment: float) -> float:
     r"""Scheduled balance after t amortizing months, in closed form.
 
@@ -323,7 +325,7 @@ def payment_shortfall(balance, rate, months_left, payment):
     return np.maximum(left, 0.0)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=jit.CACHE)
 def _schedule_arrays(code, balance, rate, months, io_left, residual, payment, paydown, smm, pd):
     out = np.empty((months, 8))
     bal = balance

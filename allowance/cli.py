@@ -9,7 +9,6 @@ start-up, so ``allowance --help`` answers at once.
 
 from __future__ import annotations
 
-import sys
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -124,6 +123,10 @@ def run(
     from allowance import api
     from allowance.exceptions import AllowanceError
 
+    if charge_offs is not None and prior is None:
+        raise typer.BadParameter("needs --prior: the write-offs explain the movement from the prior run",
+                                 param_hint="'--charge-offs'")
+    _check_out(out, tape, assumptions, *(overlay or ()), charge_offs, prior / "loans.csv" if prior else None)
     started = time.perf_counter()
     try:
         result = api.run(
@@ -462,13 +465,22 @@ def version() -> None:
     _say(__version__)
 
 
-def main() -> None:
-    """Console entry point."""
+def _check_out(out: Path, *inputs: Path | None) -> None:
+    """Refuse an --out that is empty, the current folder, or holds an input (a usage error, exit 2)."""
+    from allowance.exceptions import AllowanceError
+    from allowance.report.files import check_output_path
+
     try:
-        app()
-    except KeyboardInterrupt:  # pragma: no cover
-        typer.echo("interrupted; no output folder was completed", err=True)
-        sys.exit(1)
+        check_output_path(out, [p for p in inputs if p is not None and p.is_file()])
+    except AllowanceError as err:
+        raise typer.BadParameter(str(err), param_hint="'--out'") from err
+
+
+def main() -> None:
+    """Console entry point (see :mod:`allowance.console`, which guards the start-up too)."""
+    from allowance.console import main as console_main
+
+    console_main()
 
 
 if __name__ == "__main__":  # pragma: no cover

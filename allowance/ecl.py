@@ -44,15 +44,16 @@ from dataclasses import dataclass, fields
 import numba
 import numpy as np
 
+from allowance import jit
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
 from allowance.curves.lgd import loss_given_default
 from allowance.exceptions import InvalidInputError
 
 #: the LGD of a loan-month (:func:`allowance.curves.lgd.loss_given_default`), compiled into the loop
-_loss_given_default = numba.njit(cache=True, inline="always")(loss_given_default)
+_loss_given_default = numba.njit(cache=jit.CACHE, inline="always")(loss_given_default)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=jit.CACHE, inline="always")
 def _flat_lgd(lgd, multiplier):
     """:func:`loss_given_default` of a loan without collateral (its collateral branch folds away)."""
     return _loss_given_default(0.0, lgd, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, multiplier)
@@ -124,7 +125,7 @@ class KernelResult:
     lgd: np.ndarray
 
 
-@numba.njit(cache=True, inline="always", fastmath=True)
+@numba.njit(cache=jit.CACHE, inline="always", fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
     io_left, level, paydown, add, v, horizon_i, ecl12, ecllife, pd12, pdlife,
@@ -199,7 +200,7 @@ def _flat_lanes(
         ecl12[i, f, j3], ecllife[i, f, j3], pd12[i, f, j3], pdlife[i, f, j3] = y3, l3, q3, c3
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=jit.CACHE, parallel=True)
 def _level_payments(code, balance, rate, months_left, io_left, residual, payment):
     """The level payment of every loan, once (annuity invariance: no power per month).
 
@@ -214,7 +215,7 @@ def _level_payments(code, balance, rate, months_left, io_left, residual, payment
 
 # fastmath: the inputs are checked finite first (so "no NaN, no inf" holds); it lets the
 # compiler reassociate and fuse the survival products (about 1.3 x faster here)
-@numba.njit(cache=True, parallel=True, fastmath=True)
+@numba.njit(cache=jit.CACHE, parallel=True, fastmath=True)
 def _kernel(
     code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
     in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure,

@@ -33,6 +33,8 @@ class AllowanceError(Exception):
     "tape.csv: missing required column 'balance' (fix: add the column or map it in [tape.columns])"
     >>> str(AssumptionsError("weights sum to 0.9, not 1", file="a.toml", column="scenarios"))
     'a.toml: column scenarios: weights sum to 0.9, not 1'
+    >>> str(InputFileError("cannot be opened (entity 'lol'" + chr(10) + "  forbidden)", file="t.xlsx"))
+    "t.xlsx: cannot be opened (entity 'lol' forbidden)"
     """
 
     def __init__(
@@ -62,7 +64,8 @@ class AllowanceError(Exception):
             text = f"{self.file}: {text}"
         if self.hint:
             text = f"{text} (fix: {self.hint})"
-        return text
+        # one line, always: a reason quoting a library's message may hold line breaks
+        return " ".join(text.split()) if "\n" in text or "\r" in text else text
 
 
 class InputFileError(AllowanceError):

@@ -69,6 +69,7 @@ from typing import Literal
 import numba
 import numpy as np
 
+from allowance import jit
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
 from allowance.exceptions import InvalidInputError
 
@@ -336,12 +337,12 @@ class LossRateResult:
     ead: np.ndarray
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=jit.CACHE, inline="always")
 def _expected_balance(t, io, balance, x, annuity, pay):
     return balance if t < io else balance_on_path(balance, x, annuity, pay)
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=jit.CACHE, parallel=True)
 def _loop(
     method, loss_rate, vintage, original_balance, age, default_lgd, code, balance, rate, months_left,
     io_left, residual, payment, prepay, prepay_offset, in_default, horizon, ead_add, paydown, discount,

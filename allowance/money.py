@@ -29,8 +29,15 @@ def money_total(values: Iterable[float] | pd.Series | np.ndarray) -> float:
     --------
     >>> money_total([0.1, 0.2, 0.3]), sum([0.1, 0.2, 0.3])
     (0.6, 0.6000000000000001)
+    >>> money_total([1e13] * 1_000_000)  # 1e21 cents: beyond int64, still exact
+    1e+19
     """
     array = np.asarray(pd.to_numeric(pd.Series(values), errors="raise"), dtype=np.float64)
     if array.size == 0:
         return 0.0
-    return int(np.rint(array * 100.0).astype(np.int64).sum()) / 100.0
+    if not np.isfinite(array).all() or np.abs(array).max() > 2.0**53 / 100.0:
+        raise ValueError("money_total: an amount is not finite or beyond whole cents in float64 (2**53 cents)")
+    cents = np.rint(array * 100.0).astype(np.int64)
+    # high and low 32 bits summed apart: no int64 overflow for any realistic number of loans
+    high, low = int((cents >> 32).sum()), int((cents & 0xFFFFFFFF).sum())
+    return (high * 2**32 + low) / 100.0

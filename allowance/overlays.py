@@ -117,6 +117,33 @@ def _cents(loans: pd.DataFrame, framework: Framework) -> np.ndarray:
     return np.rint(values * 100.0).astype(np.int64)
 
 
+_FW_NAME = {"ifrs9": "IFRS 9", "cecl": "CECL"}
+
+
+def _above_exposure(loans: pd.DataFrame, framework: Framework, final: np.ndarray, adjust: np.ndarray) -> list[str]:
+    """A warning when overlays lift loans' ECL above their exposure at default.
+
+    Modelled ECL never exceeds EAD (LGD and PD are at most 1); an overlay that lifts a loan
+    above it reserves more than can be lost on that loan, which is almost always a wrong
+    amount (a value in cents, a misplaced decimal). The overlay is applied as stated.
+    """
+    column = next((c for c in (f"ead_{framework}", "ead") if c in loans.columns), None)
+    if column is None or not adjust.any():
+        return []
+    ead = np.rint(loans[column].to_numpy(dtype=float, na_value=np.nan) * 100.0)
+    with np.errstate(invalid="ignore"):
+        above = (adjust > 0) & np.isfinite(ead) & (final > ead + 1)
+    if not above.any():
+        return []
+    worst = int(np.argmax(np.where(above, final - ead, -np.inf)))
+    name = loans["loan_id"].iloc[worst] if "loan_id" in loans.columns else f"row {worst + 1}"
+    return [
+        f"after the overlays, the {_FW_NAME.get(framework, framework)} ECL of {int(above.sum()):,} loans is above "
+        f"their exposure at default, by {(final - ead)[above].sum() / 100:,.2f} in all (most: loan {name}, "
+        f"ECL {final[worst] / 100:,.2f} against EAD {ead[worst] / 100:,.2f}); check the overlay amounts"
+    ]
+
+
 def apply_overlays(
     loans: pd.DataFrame,
     overlays: list[Overlay],
@@ -235,6 +262,9 @@ def apply_overlays(
                 "note": note,
             }
         )
+
+    for fw in frameworks:
+        warnings.extend(_above_exposure(loans, fw, running[fw], adjust[fw]))
 
     table = pd.DataFrame(rows, columns=list(TABLE_COLUMNS))
     table["stage"] = table["stage"].astype("Int64")

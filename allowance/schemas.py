@@ -33,7 +33,7 @@ from datetime import date
 from pathlib import Path
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, StringConstraints, field_validator, model_validator
 
 Framework = Literal["ifrs9", "cecl"]
 Repayment = Literal["level", "interest_only", "balloon", "revolving"]
@@ -48,14 +48,35 @@ CollateralReference = Literal["baseline", "as_of"]
 FRAMEWORKS: tuple[Framework, ...] = ("ifrs9", "cecl")
 REPAYMENTS: tuple[Repayment, ...] = ("level", "interest_only", "balloon", "revolving")
 
+#: The largest amount a tape row or an overlay may state, in currency units (ten trillion).
+#: Amounts are summed in whole cents; at this ceiling a cent is still exact in float64
+#: (1e15 cents < 2**53) and a million such loans still sum exactly in Python integers.
+MAX_AMOUNT = 1e13
+#: The largest days past due a row may state: 100 years (beyond it a value is a data error,
+#: and 2**63 would overflow the whole-number column).
+MAX_DAYS_PAST_DUE = 36_525
+#: The longest horizon, term or period in months (100 years): remaining terms, behavioural
+#: lives, amortization and interest-only terms, probation, reasonable and supportable periods.
+MAX_MONTHS = 1_200
+
+#: The largest percent overlay: ten times the modelled ECL added (a share of 10).
+MAX_OVERLAY_SHARE = 10.0
+
 Probability = Annotated[float, Field(ge=0.0, le=1.0)]
 NonNegative = Annotated[float, Field(ge=0.0)]
+Amount = Annotated[float, Field(ge=0.0, le=MAX_AMOUNT)]
+Months = Annotated[int, Field(ge=0, le=MAX_MONTHS)]
+PositiveMonths = Annotated[int, Field(ge=1, le=MAX_MONTHS)]
+DaysPastDue = Annotated[int, Field(ge=0, le=MAX_DAYS_PAST_DUE)]
+#: Text that must say something: surrounding spaces are dropped, and nothing left is an error.
+NonBlank = Annotated[str, StringConstraints(strip_whitespace=True, min_length=1)]
 
 
 class _Strict(BaseModel):
     """Base for the assumption models: unknown keys are an error (a typo must not pass)."""
 
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # inf and nan are TOML numbers; in an assumption they are always a mistake
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 # --------------------------------------------------------------------------------------
@@ -79,11 +100,11 @@ class LoanRecord(BaseModel):
     maturity_date: date | None = Field(
         default=None, description="Contractual maturity; blank for revolving lines."
     )
-    balance: NonNegative = Field(description="Outstanding principal (drawn balance) at the as-of date.")
+    balance: Amount = Field(description="Outstanding principal (drawn balance) at the as-of date.")
     interest_rate: Probability = Field(description="Nominal annual contract rate, decimal (0.065).")
-    days_past_due: Annotated[int, Field(ge=0)] = Field(description="Whole days past due at the as-of date.")
-    credit_limit: NonNegative | None = Field(default=None, description="Revolving lines: the committed limit.")
-    payment: NonNegative | None = Field(
+    days_past_due: DaysPastDue = Field(description="Whole days past due at the as-of date.")
+    credit_limit: Amount | None = Field(default=None, description="Revolving lines: the committed limit.")
+    payment: Amount | None = Field(
         default=None, description="Scheduled monthly payment; recomputed from balance, rate and term when blank."
     )
     eir: Probability | None = Field(
@@ -93,7 +114,7 @@ class LoanRecord(BaseModel):
     pd_12m_at_origination: Probability | None = Field(
         default=None, description="12-month PD at initial recognition, for the IFRS 9 PD-ratio test."
     )
-    collateral_value: NonNegative | None = Field(
+    collateral_value: Amount | None = Field(
         default=None, description="Current collateral value, for collateral-based LGD."
     )
     watchlist: bool = Field(default=False, description="On the credit watchlist (IFRS 9 stage 2 indicator).")
@@ -106,19 +127,19 @@ class LoanRecord(BaseModel):
     prior_stage: Annotated[int, Field(ge=1, le=3)] | None = Field(
         default=None, description="IFRS 9 stage at the previous reporting date, for probation."
     )
-    months_performing: Annotated[int, Field(ge=0)] | None = Field(
+    months_performing: Months | None = Field(
         default=None, description="Consecutive months current, for probation out of stage 2 or 3."
     )
-    balloon_amount: NonNegative | None = Field(
+    balloon_amount: Amount | None = Field(
         default=None, description="Balloon loans: the amount due at maturity; computed when blank."
     )
-    amortization_months: Annotated[int, Field(ge=1)] | None = Field(
+    amortization_months: PositiveMonths | None = Field(
         default=None, description="Balloon loans: amortization term from origination, longer than the maturity."
     )
-    interest_only_months: Annotated[int, Field(ge=0)] | None = Field(
+    interest_only_months: Months | None = Field(
         default=None, description="Interest-only loans: months of interest only from origination, then level pay."
     )
-    lifetime_ecl_at_purchase: NonNegative | None = Field(
+    lifetime_ecl_at_purchase: Amount | None = Field(
         default=None, description="POCI assets: lifetime ECL at purchase (allowance is the change since)."
     )
     original_balance: NonNegative | None = Field(
@@ -137,6 +158,26 @@ REQUIRED_COLUMNS: tuple[str, ...] = tuple(
 OPTIONAL_COLUMNS: tuple[str, ...] = tuple(
     name for name in LoanRecord.model_fields if name not in REQUIRED_COLUMNS
 )
+
+#: Names of the computed loan results (``loans.csv``) besides the tape's own columns, and the
+#: prefixes of the per-framework and per-scenario ones. A tape column named like one of them
+#: is carried through as ``tape_<name>``: it must never stand in for the computed figure.
+RESULT_COLUMNS: frozenset[str] = frozenset({
+    "stage", "stage_reason", "poci", "horizon_months", "remaining_months", "ead", "pd_12m",
+    "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime", "source_row",
+})
+RESULT_PREFIXES: tuple[str, ...] = ("ecl_", "ead_", "overlay_", "horizon_", "stage_", "pd_", "lgd_")
+
+
+def is_result_column(name: str) -> bool:
+    """Whether ``name`` (lower case) is, or could be, a computed loan-result column.
+
+    Examples
+    --------
+    >>> [is_result_column(n) for n in ("stage", "ecl_cecl", "lgd", "branch", "original_amount")]
+    [True, True, True, False, False]
+    """
+    return name in RESULT_COLUMNS or name.startswith(RESULT_PREFIXES)
 
 
 # --------------------------------------------------------------------------------------
@@ -260,7 +301,7 @@ class CollateralLgd(_Strict):
     haircut: Probability = Field(description="Forced-sale discount on the collateral value.")
     recovery_cost: Probability = Field(default=0.0, description="Costs to recover, share of proceeds.")
     floor: Probability = Field(default=0.0, description="Lowest LGD allowed.")
-    months_to_recovery: Annotated[int, Field(ge=0)] = 12
+    months_to_recovery: Months = 12
 
 
 _QUARTER = re.compile(r"^(\d{4})\s*-?\s*Q([1-4])$", re.IGNORECASE)
@@ -389,14 +430,14 @@ class SegmentAssumptions(_Strict):
         default=None, description="Annual CPR by month of loan age (month 1 first); last value after."
     )
     ccf: Probability = Field(default=0.0, description="Share of the undrawn limit drawn by default (IFRS 9).")
-    behavioural_life_months: Annotated[int, Field(ge=1)] | None = None
+    behavioural_life_months: PositiveMonths | None = None
     payment_rate: Probability | None = Field(
         default=None, description="Revolving, CECL: monthly share of the drawn balance repaid."
     )
     unconditionally_cancellable: bool = Field(
         default=True, description="Revolving, CECL: no reserve on undrawn amounts (ASC 326-20-30-11)."
     )
-    amortization_months: Annotated[int, Field(ge=1)] | None = Field(
+    amortization_months: PositiveMonths | None = Field(
         default=None, description="Balloon loans without the tape column: amortization term from origination."
     )
     low_credit_risk: bool = Field(default=False, description="IFRS 9 5.5.10 exemption for the whole segment.")
@@ -460,10 +501,10 @@ class SegmentAssumptions(_Strict):
 class Ifrs9Rules(_Strict):
     """``[ifrs9]``: staging rules. The DPD defaults are the standard's presumptions."""
 
-    sicr_backstop_dpd: Annotated[int, Field(ge=0)] = Field(
+    sicr_backstop_dpd: DaysPastDue = Field(
         default=30, description="Stage 2 when days past due exceed this (IFRS 9 5.5.11)."
     )
-    default_dpd: Annotated[int, Field(ge=1)] = Field(
+    default_dpd: Annotated[int, Field(ge=1, le=MAX_DAYS_PAST_DUE)] = Field(
         default=90, description="Stage 3 at or beyond this (IFRS 9 B5.5.37)."
     )
     sicr_pd_ratio: Annotated[float, Field(gt=1.0)] = Field(
@@ -474,10 +515,10 @@ class Ifrs9Rules(_Strict):
     )
     watchlist_is_sicr: bool = True
     forborne_is_sicr: bool = True
-    probation_months_stage3: Annotated[int, Field(ge=0)] = Field(
+    probation_months_stage3: Months = Field(
         default=0, description="Months performing before a loan leaves stage 3."
     )
-    probation_months_stage2: Annotated[int, Field(ge=0)] = Field(
+    probation_months_stage2: Months = Field(
         default=0, description="Months performing before a loan leaves stage 2."
     )
 
@@ -491,11 +532,11 @@ class Ifrs9Rules(_Strict):
 class CeclRules(_Strict):
     """``[cecl]``: the reasonable and supportable period and reversion (ASC 326-20-30-9)."""
 
-    reasonable_supportable_months: Annotated[int, Field(ge=0)]
-    default_dpd: Annotated[int, Field(ge=1)] = Field(
+    reasonable_supportable_months: Months
+    default_dpd: Annotated[int, Field(ge=1, le=MAX_DAYS_PAST_DUE)] = Field(
         default=90, description="Loans at or beyond this (or flagged defaulted/bankrupt) take PD = 1 now."
     )
-    reversion_months: Annotated[int, Field(ge=0)] = 0
+    reversion_months: Months = 0
     reversion: Reversion = "straight_line"
     discount: bool = Field(default=False, description="true: discounted cash-flow method at the EIR.")
 
@@ -585,16 +626,27 @@ class MacroSection(_Strict):
 class Overlay(_Strict):
     """``[[overlays]]``: a post-model adjustment, documented."""
 
-    name: str = Field(min_length=1, description="Unique name; an overlay file's entry replaces the same name.")
+    name: NonBlank = Field(description="Unique name; an overlay file's entry replaces the same name.")
     segment: str = Field(default="*", description="Segment it applies to; * for all.")
     stage: Annotated[int, Field(ge=1, le=3)] | None = Field(default=None, description="IFRS 9 stage; blank for all.")
     framework: Framework | None = Field(default=None, description="Blank for both frameworks.")
     kind: OverlayKind
     value: float = Field(description="percent: share of modelled ECL (0.05); amount: currency units.")
-    rationale: str = Field(min_length=1)
-    owner: str = Field(min_length=1)
+    rationale: NonBlank
+    owner: NonBlank
     approved: date | None = None
     expires: date | None = None
+
+    @model_validator(mode="after")
+    def _value_in_range(self) -> "Overlay":
+        if self.kind == "percent" and not -1.0 <= self.value <= MAX_OVERLAY_SHARE:
+            raise ValueError(
+                f"a percent overlay's value must be from -1 (release all of the modelled ECL) to "
+                f"{MAX_OVERLAY_SHARE:g} (add {MAX_OVERLAY_SHARE:.0%}); it is {self.value!r}"
+            )
+        if self.kind == "amount" and abs(self.value) > MAX_AMOUNT:
+            raise ValueError(f"an amount overlay's value must be at most {MAX_AMOUNT:,.0f} either way; it is {self.value!r}")
+        return self
 
 
 class GlAccountPair(_Strict):

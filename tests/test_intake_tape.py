@@ -154,8 +154,9 @@ def test_loan_ids_are_compared_after_trimming(tmp_path, config):
 def test_matured_term_loan_with_balance_is_accepted_with_a_warning(tmp_path, config):
     matured = with_field(GOOD, "maturity_date", "2026-09-30")
     paid = with_field(with_field(GOOD.replace("L1", "L2"), "maturity_date", "2025-01-01"), "balance", "0")
-    result = read_tape(tape(tmp_path, matured, paid), config)
-    assert result.accepted["loan_id"].tolist() == ["L1"]
+    live = GOOD.replace("L1", "L3")  # a book of matured loans only is an as-of error (test_bad_inputs)
+    result = read_tape(tape(tmp_path, matured, paid, live), config)
+    assert result.accepted["loan_id"].tolist() == ["L1", "L3"]
     warning = result.warnings.iloc[0]
     assert (warning["code"], warning["source_row"], warning["column"]) == ("matured_with_balance", 2, "maturity_date")
     assert codes(result, 3) == {"matured"}

@@ -28,7 +28,7 @@ from pydantic import BaseModel, ValidationError
 
 from allowance import curves, scenarios
 from allowance.exceptions import AssumptionsError
-from allowance.intake.fields import FIELDS
+from allowance.intake.fields import FIELDS, lower_first
 from allowance.intake.files import file_record
 from allowance.schemas import Assumptions, InputFile, RunConfig
 
@@ -50,9 +50,27 @@ def dotted(path: Key) -> str:
     return out
 
 
+#: The largest assumptions or overlay file read, in bytes. Assumptions are a few kilobytes; the
+#: cap stops a wrong path (``/dev/zero``, a tape given as ``-a``) from reading until memory runs out.
+MAX_ASSUMPTIONS_BYTES = 16 * 1024 * 1024
+
+
+def _read_capped(path: Path, cap: int) -> bytes:
+    """At most ``cap`` bytes of a file; more is an :class:`AssumptionsError` (works for devices and pipes)."""
+    with path.open("rb") as handle:
+        data = handle.read(cap + 1)
+    if len(data) > cap:
+        raise AssumptionsError(
+            f"is larger than {cap // (1024 * 1024)} MiB, too large for an assumptions file",
+            file=path,
+            hint="give the TOML assumptions file (check the -a/--assumptions and --overlay paths)",
+        )
+    return data
+
+
 def _read_toml(path: Path) -> dict[str, Any]:
     try:
-        data = path.read_bytes()
+        data = _read_capped(path, MAX_ASSUMPTIONS_BYTES)
     except FileNotFoundError as err:
         raise AssumptionsError("file not found", file=path, hint="check the path") from err
     except OSError as err:
@@ -70,8 +88,7 @@ def _read_toml(path: Path) -> dict[str, Any]:
     except tomllib.TOMLDecodeError as err:
         message = str(err)
         where = _ORDINAL_ERROR.search(message)
-        reason = _ORDINAL_ERROR.sub("", message).strip().rstrip(".")
-        reason = reason[:1].lower() + reason[1:]
+        reason = lower_first(_ORDINAL_ERROR.sub("", message).strip().rstrip("."))
         if where:
             line, column = where.groups()
             raise AssumptionsError(
@@ -356,7 +373,8 @@ _MESSAGES: dict[str, Callable[[dict[str, Any]], str]] = {
     "date_from_datetime_parsing": lambda e: f"must be a date such as 2026-09-30 (it is {e['input']!r})",
     "date_from_datetime_inexact": lambda e: f"must be a date without a time (it is {e['input']!r})",
     "string_type": lambda e: f"must be text in quotes (it is {e['input']!r})",
-    "string_too_short": lambda e: "must not be empty",
+    "string_too_short": lambda e: "must not be empty or blank",
+    "finite_number": lambda e: f"must be a finite number (it is {e['input']!r})",
     "too_short": lambda e: f"must have at least {e['ctx']['min_length']} entr{'y' if e['ctx']['min_length'] == 1 else 'ies'}",
     "list_type": lambda e: f"must be a list such as [1.0, 1.2] (it is {e['input']!r})",
     "dict_type": lambda e: "must be a table",
@@ -380,8 +398,7 @@ def _reason(error: dict[str, Any], path: Key) -> str:
             return _MESSAGES[kind](error)
         except (KeyError, TypeError):
             pass
-    message = str(error.get("msg", kind))
-    return message[:1].lower() + message[1:]
+    return lower_first(str(error.get("msg", kind)))
 
 
 def _raise_validation(err: ValidationError, merged: _Merged) -> typing.NoReturn:

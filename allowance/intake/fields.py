@@ -60,22 +60,44 @@ class FieldSpec:
         'at least 0 and at most 1'
         >>> FIELDS["loan_id"].bounds_text
         ''
+        >>> FIELDS["balance"].bounds_text
+        'at least 0 and at most 10,000,000,000,000'
         """
         parts = []
         if self.ge is not None:
-            parts.append(f"at least {self.ge:g}")
+            parts.append(f"at least {_number(self.ge)}")
         if self.gt is not None:
-            parts.append(f"above {self.gt:g}")
+            parts.append(f"above {_number(self.gt)}")
         if self.le is not None:
-            parts.append(f"at most {self.le:g}")
+            parts.append(f"at most {_number(self.le)}")
         if self.lt is not None:
-            parts.append(f"below {self.lt:g}")
+            parts.append(f"below {_number(self.lt)}")
         return " and ".join(parts)
 
     @property
     def is_probability(self) -> bool:
         """A decimal share in [0, 1] (where a column of percents is a common mistake)."""
         return self.kind == "number" and self.ge == 0 and self.le == 1
+
+
+def lower_first(text: str) -> str:
+    """Lower-case the first letter to continue a sentence, unless it starts a capitalised word.
+
+    Examples
+    --------
+    >>> lower_first("Input should be a number"), lower_first("IFRS 9 needs [ifrs9]")
+    ('input should be a number', 'IFRS 9 needs [ifrs9]')
+    """
+    if len(text) > 1 and text[1].isupper():
+        return text  # an acronym or code (IFRS 9, ASC 326, PD): keep its capitals
+    return text[:1].lower() + text[1:]
+
+
+def _number(value: float) -> str:
+    """A bound as a person writes it: ``1``, ``0.5``, ``36,525``, ``10,000,000,000,000``."""
+    if value.is_integer() and abs(value) >= 1000:
+        return f"{value:,.0f}"
+    return f"{value:g}"
 
 
 def _unwrap(annotation: object) -> tuple[object, list[object]]:

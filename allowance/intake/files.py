@@ -5,6 +5,7 @@ from __future__ import annotations
 import codecs
 import hashlib
 import importlib.resources
+import zipfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -31,19 +32,35 @@ _SUFFIXES: dict[str, FileKind] = {
 
 @dataclass(frozen=True)
 class Scan:
-    """One pass over a file: its run-record entry and its count of line feeds."""
+    """One pass over a file: its run-record entry and, for text, its line endings and quotes.
+
+    ``newlines`` counts line endings as CSV readers do (``\\n``, ``\\r\\n`` and a lone ``\\r``
+    each end one line); ``quotes`` counts double quotes. Both are -1 for a file not scanned
+    as text.
+    """
 
     record: InputFile
-    newlines: int  # counted only when the file holds a double quote; else -1 (not needed)
+    newlines: int
     ends_with_newline: bool
+    quotes: int = -1
+
+    @property
+    def lines(self) -> int:
+        """Physical lines in a text file: line endings, plus a last line without one."""
+        if self.newlines < 0:
+            return -1
+        return self.newlines + (0 if self.ends_with_newline or self.record.bytes == 0 else 1)
+
+
+def _count(block: np.ndarray, byte: int) -> int:
+    return int(np.count_nonzero(block == byte))
 
 
 def scan(path: Path, role: str, *, text: bool = False) -> Scan:
-    """Hash the file and count its line feeds in one pass; ``text=True`` also checks its start is UTF-8."""
+    """Hash the file in one pass; ``text=True`` also checks its start is UTF-8 and counts line endings and quotes."""
     path = Path(path)
     digest = hashlib.sha256()
-    quoted = False
-    newlines = 0
+    newlines = quotes = 0
     last = b""
     try:
         with path.open("rb") as handle:
@@ -53,12 +70,18 @@ def scan(path: Path, role: str, *, text: bool = False) -> Scan:
                     check_text_block(block, path)
                 first = False
                 digest.update(block)
-                if text and not quoted and b'"' in block:
-                    quoted = True
-                    newlines = _count_newlines(path, handle.tell() - len(block))
-                if quoted:
-                    # Line breaks inside quoted values shift line numbers: count them all.
-                    newlines += int(np.count_nonzero(np.frombuffer(block, dtype=np.uint8) == 10))
+                if text:
+                    array = np.frombuffer(block, dtype=np.uint8)
+                    newlines += _count(array, 10)
+                    if b"\r" in block:
+                        # a lone CR ends a line too (old Mac files); a CR LF pair is one ending
+                        pairs = int(np.count_nonzero((array[:-1] == 13) & (array[1:] == 10)))
+                        pairs += int(last == b"\r" and block[:1] == b"\n")
+                        newlines += _count(array, 13) - pairs
+                    elif last == b"\r" and block[:1] == b"\n":
+                        newlines -= 1  # counted as a lone CR at the end of the previous block
+                    if b'"' in block:
+                        quotes += _count(array, 34)
                 last = block[-1:]
     except FileNotFoundError as err:
         raise InputFileError("file not found", file=path, hint="check the path") from err
@@ -66,20 +89,13 @@ def scan(path: Path, role: str, *, text: bool = False) -> Scan:
         raise InputFileError("is a folder, not a file", file=path, hint="give the file inside it") from err
     except OSError as err:
         raise InputFileError(f"cannot be read ({err.strerror or err})", file=path) from err
-    if not quoted:
-        newlines = -1
     record = InputFile(role=role, path=str(path), sha256=digest.hexdigest(), bytes=path.stat().st_size)
-    return Scan(record=record, newlines=newlines, ends_with_newline=last == b"\n")
-
-
-def _count_newlines(path: Path, end: int) -> int:
-    """Line feeds in the first ``end`` bytes of the file."""
-    count = 0
-    with path.open("rb") as handle:
-        while end > 0 and (block := handle.read(min(_CHUNK, end))):
-            count += int(np.count_nonzero(np.frombuffer(block, dtype=np.uint8) == 10))
-            end -= len(block)
-    return count
+    return Scan(
+        record=record,
+        newlines=newlines if text else -1,
+        ends_with_newline=last in (b"\n", b"\r"),
+        quotes=quotes if text else -1,
+    )
 
 
 def file_record(path: Path, role: str) -> InputFile:
@@ -122,7 +138,87 @@ def check_size(path: Path, max_mb: float) -> int:
         )
     if size == 0:
         raise InputFileError("is empty (0 bytes)", file=path, hint="export the tape again")
+    with path.open("rb") as handle:
+        magic = handle.read(4)
+    if magic == b"PK\x03\x04":
+        check_archive(path, max_mb)
+    elif magic == b"PAR1":
+        check_parquet(path, max_mb)
     return size
+
+
+def check_parquet(path: Path, max_mb: float) -> None:
+    """Refuse a Parquet file whose row groups, uncompressed, add up to more than ``max_mb`` MiB."""
+    import pyarrow.parquet as pq
+
+    try:
+        meta = pq.ParquetFile(path).metadata
+    except Exception as err:  # pyarrow raises several kinds for a damaged footer
+        raise InputFileError(f"cannot be read as Parquet ({err})", file=path) from err
+    total = sum(meta.row_group(i).total_byte_size for i in range(meta.num_row_groups))
+    if total > max_mb * 1024 * 1024:
+        raise InputFileError(
+            f"expands to {total / 2**20:,.1f} MiB of data, above the {max_mb:g} MiB input limit",
+            file=path,
+            hint="raise [run] max_input_mb if the file is genuine",
+        )
+
+
+#: A workbook part that expands more than this many times is refused (Apache POI's default
+#: minimum inflate ratio is 0.01, the same 100 to 1; ordinary sheets expand 5 to 15 times).
+MAX_EXPANSION = 100
+#: Parts smaller than this are not held to the ratio (tiny parts compress oddly).
+_RATIO_GRACE = 1 << 20
+#: A workbook with more parts than this is not a tape.
+MAX_PARTS = 10_000
+
+
+def _size(count: int) -> str:
+    """Bytes in words: ``'57 KiB'``, ``'50.0 MiB'``."""
+    return f"{count / 2**20:,.1f} MiB" if count >= 2**20 else f"{max(count, 1) / 1024:,.0f} KiB"
+
+
+def check_archive(path: Path, max_mb: float) -> None:
+    """Refuse a workbook (a ZIP archive) that would expand beyond the input limit, before parsing it.
+
+    The ZIP directory states each part's size before and after compression; the reader never
+    reads past the stated size, so checking the directory is enough. A part is refused when
+    it expands more than :data:`MAX_EXPANSION` times, and the workbook when its parts add up
+    to more than ``max_mb`` MiB (the same limit as the file itself) or it has more than
+    :data:`MAX_PARTS` parts.
+
+    Raises
+    ------
+    InputFileError
+        One line naming the workbook, the part and the sizes.
+    """
+    limit = max_mb * 1024 * 1024
+    try:
+        with zipfile.ZipFile(path) as archive:
+            parts = archive.infolist()
+    except (zipfile.BadZipFile, OSError, ValueError) as err:
+        raise InputFileError(f"cannot be opened as a workbook (not a valid ZIP archive: {err})", file=path,
+                             hint="save it again from the spreadsheet program, or export it as CSV") from err
+    if len(parts) > MAX_PARTS:
+        raise InputFileError(f"holds {len(parts):,} parts, more than a workbook tape has ({MAX_PARTS:,})", file=path,
+                             hint="export the tape as CSV")
+    total = 0
+    for part in parts:
+        total += part.file_size
+        if part.file_size > _RATIO_GRACE and part.file_size > MAX_EXPANSION * max(part.compress_size, 1):
+            raise InputFileError(
+                f"its part {part.filename} expands {part.file_size / max(part.compress_size, 1):,.0f} times "
+                f"({_size(part.compress_size)} to {_size(part.file_size)}), more than the "
+                f"{MAX_EXPANSION} a workbook tape can (a ZIP bomb?)",
+                file=path,
+                hint="export the tape as CSV; if the workbook is genuine, remove its empty formatted rows",
+            )
+    if total > limit:
+        raise InputFileError(
+            f"expands to {_size(total)}, above the {max_mb:g} MiB input limit",
+            file=path,
+            hint="raise [run] max_input_mb if the workbook is genuine, or export the tape as CSV",
+        )
 
 
 def file_kind(path: Path) -> FileKind:

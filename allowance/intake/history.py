@@ -4,16 +4,20 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass
+from datetime import date
 from pathlib import Path
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from allowance.exceptions import InputFileError
 from allowance.intake.fields import FIELDS
 from allowance.intake.files import check_size, file_kind
 from allowance.intake.parse import NUMBER_PATTERN
 from allowance.intake.readers import read_raw
+from allowance.schemas import Framework
 
 CHARGE_OFF_COLUMNS = ("loan_id", "gross_charge_off", "recoveries")
 
@@ -96,10 +100,82 @@ def read_charge_offs(path: Path, max_mb: float = 2048.0) -> pd.DataFrame:
 
 @dataclass(frozen=True)
 class PriorRun:
-    """A previous run's output: its loan results and its run record."""
+    """A previous run's output: its loan results and its run record (checked by :class:`PriorRecord`)."""
 
     loans: pd.DataFrame
     record: dict
+
+
+#: The largest run.json read, in bytes. A run record holds the assumptions and a few counts;
+#: anything larger is not one of ours.
+MAX_RECORD_BYTES = 64 * 1024 * 1024
+
+
+class PriorRecord(BaseModel):
+    """The part of a prior run's ``run.json`` that a later run relies on; other keys are kept.
+
+    ``assumptions`` is that run's merged assumptions (to rerun this tape under them); one
+    without a ``[run]`` table listing its frameworks is dropped, not trusted.
+    """
+
+    model_config = ConfigDict(extra="allow", frozen=True, allow_inf_nan=False)
+
+    package: Literal["allowance"] = "allowance"
+    as_of: date | None = None
+    frameworks: list[Framework] = Field(default_factory=list)
+    assumptions: dict[str, Any] | None = None
+
+    @field_validator("assumptions")
+    @classmethod
+    def _runnable(cls, value: dict[str, Any] | None) -> dict[str, Any] | None:
+        run = value.get("run") if isinstance(value, dict) else None
+        if not isinstance(run, dict) or not isinstance(run.get("frameworks"), list):
+            return None
+        return value
+
+
+def read_run_record(path: Path) -> dict:
+    """Read and check a run's ``run.json``: size, JSON, nesting and shape (:class:`PriorRecord`).
+
+    Raises
+    ------
+    InputFileError
+        Naming the file and, for a wrong shape, the key and what it should be.
+    """
+    path = Path(path)
+    try:
+        with path.open("rb") as handle:
+            data = handle.read(MAX_RECORD_BYTES + 1)
+    except OSError as err:
+        raise InputFileError(f"cannot be read ({err.strerror or err})", file=path) from err
+    if len(data) > MAX_RECORD_BYTES:
+        raise InputFileError(f"is larger than {MAX_RECORD_BYTES // 2**20} MiB: not a run record", file=path,
+                             hint="give the --out folder of a completed run")
+    try:
+        record = json.loads(data.decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as err:
+        raise InputFileError(f"cannot be read as JSON ({err})", file=path) from err
+    except RecursionError as err:
+        raise InputFileError("is nested too deeply to be a run record", file=path,
+                             hint="give the --out folder of a completed run") from err
+    if not isinstance(record, dict):
+        raise InputFileError("is not a run record (expected a JSON object)", file=path)
+    try:
+        checked = PriorRecord.model_validate(record)
+    except ValidationError as err:
+        first = err.errors()[0]
+        key = ".".join(str(part) for part in first["loc"]) or "the record"
+        raise InputFileError(
+            f"is not a run record of this tool: {key}: {first['msg'].lower()}",
+            file=path,
+            column=None,
+            hint="give the --out folder of a completed 'allowance run'",
+        ) from err
+    except RecursionError as err:
+        raise InputFileError("is nested too deeply to be a run record", file=path) from err
+    if "assumptions" in record:
+        record["assumptions"] = checked.assumptions
+    return record
 
 
 _TEXT_COLUMNS = {n for n, f in FIELDS.items() if f.kind in ("text", "choice")} | {"stage_reason"}
@@ -124,12 +200,7 @@ def read_prior_run(folder: Path) -> PriorRun:
             raise InputFileError(
                 "not found in the prior run folder", file=needed, hint="give the --out folder of a completed run"
             )
-    try:
-        record = json.loads(record_path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as err:
-        raise InputFileError(f"cannot be read as JSON ({err})", file=record_path) from err
-    if not isinstance(record, dict):
-        raise InputFileError("is not a run record (expected a JSON object)", file=record_path)
+    record = read_run_record(record_path)
     try:
         header = pd.read_csv(loans_path, nrows=0).columns
         loans = pd.read_csv(

@@ -32,6 +32,7 @@ class Malformed:
 
     source_row: int
     fields: list[str]
+    last_line: int = 0  # the physical line it ends on (after line breaks inside quoted values)
 
 
 @dataclass(frozen=True)
@@ -45,6 +46,15 @@ class RawTape:
     blank_rows: int = 0
     malformed: list[Malformed] = field(default_factory=list)
     text_columns: Callable[[], dict[int, pa.ChunkedArray]] | None = None  # columns read as numbers, as text
+    lines: int = -1  # physical lines of a CSV file (header included); -1 for XLSX and Parquet
+    line_breaks: np.ndarray | None = None  # per row of ``table``: line breaks inside its quoted values
+
+    @property
+    def lines_in_values(self) -> int:
+        """Line breaks inside quoted values over the whole file (they join physical lines into one record)."""
+        if self.lines < 0:
+            return 0
+        return self.lines - 1 - self.table.num_rows - self.blank_rows - len(self.malformed)
 
     def text_rows(self, rows: np.ndarray) -> pa.Table:
         """The given rows with every column as text, exactly as read."""
@@ -94,6 +104,7 @@ def _csv_header(path: Path) -> list[str]:
 
 NumericColumns = Callable[[list[str]], set[int]]
 _ARROW_COLUMN = re.compile(r"In CSV column #(\d+)")
+_LINE_BREAK = "\r\n|\r|\n"
 
 
 def _scan_in_background(path: Path) -> tuple[threading.Thread, dict[str, object]]:
@@ -186,19 +197,23 @@ def read_csv(path: Path, sheet: str | None = None, numeric: NumericColumns | Non
                     check_text(path)
                 return read_csv_exact(path, record)
     record = scanned()
+    check_quotes_close(path, record)
     if table is None or invalid:
         return read_csv_exact(path, record)
     rows = table.num_rows
-    lines = record.newlines + (0 if record.ends_with_newline else 1)
     source_row = np.arange(2, rows + 2, dtype=np.int64)
-    if record.newlines >= 0 and lines != rows + 1:
+    breaks = None
+    if record.lines != rows + 1:
         # Quoted values hold line breaks: each row starts below the breaks of the rows before it.
         breaks = np.zeros(rows, dtype=np.int64)
         for column in table.columns:
             if pa.types.is_string(column.type):
-                breaks += np.asarray(pc.fill_null(pc.count_substring(column, "\n"), 0), dtype=np.int64)
+                found = pc.count_substring_regex(column, _LINE_BREAK)
+                breaks += np.asarray(pc.fill_null(found, 0), dtype=np.int64)
         source_row += np.concatenate([[0], np.cumsum(breaks)[:-1]]) if rows else breaks
     table, source_row, blank, keep = _drop_blank(table, source_row)
+    if breaks is not None and keep is not None:
+        breaks = breaks[keep]
     as_read = (newlines_in_values, keep, sorted(typed))
 
     def text_columns() -> dict[int, pa.ChunkedArray]:
@@ -210,16 +225,48 @@ def read_csv(path: Path, sheet: str | None = None, numeric: NumericColumns | Non
 
     return RawTape(
         headers=header, table=table, source_row=source_row, record=record, blank_rows=blank,
-        text_columns=text_columns if typed else None,
+        text_columns=text_columns if typed else None, lines=record.lines, line_breaks=breaks,
     )
+
+
+def check_quotes_close(path: Path, record: Scan) -> None:
+    """Raise :class:`TapeError` when a quoted value is still open at the end of the file.
+
+    An odd number of double quotes is the sign (a quote inside an unquoted value, ``5" pipe``,
+    is legal and also odd, so the file is then read once more, strictly, to tell them apart).
+    Without this check a stray quote swallows every later line into one value.
+    """
+    if record.quotes < 0 or record.quotes % 2 == 0:
+        return
+    with path.open("r", encoding="utf-8-sig", newline="") as handle:
+        reader = csv.reader(handle, strict=True)
+        start = 1
+        try:
+            for _ in reader:
+                start = reader.line_num + 1
+        except csv.Error as err:
+            if "unexpected end of data" not in str(err):
+                return  # another quoting oddity: the lenient readers handle it line by line
+            lines = record.lines
+            raise TapeError(
+                f"a quoted value is never closed: lines {start} to {lines} "
+                f"({lines - start + 1} lines) would be read as one value",
+                file=path,
+                row=start,
+                hint="close the quote on that line or remove it; a quote inside a value is written twice",
+            ) from err
+        except UnicodeDecodeError:
+            return  # reported by the readers with its byte offset
 
 
 def read_csv_exact(path: Path, record: Scan | None = None) -> RawTape:
     """Read a CSV tape row by row with the standard library (slow, exact line numbers)."""
     record = record or scan(path, "tape", text=True)
+    check_quotes_close(path, record)
     columns: list[list[str | None]] | None = None
     malformed: list[Malformed] = []
     source_rows: list[int] = []
+    breaks: list[int] = []
     blank = 0
     with path.open("r", encoding="utf-8-sig", newline="") as handle:
         reader = csv.reader(handle)
@@ -235,9 +282,10 @@ def read_csv_exact(path: Path, record: Scan | None = None) -> RawTape:
                 if not any(fields):
                     blank += 1
                 elif len(fields) != width:
-                    malformed.append(Malformed(source_row=line, fields=fields))
+                    malformed.append(Malformed(source_row=line, fields=fields, last_line=reader.line_num))
                 else:
                     source_rows.append(line)
+                    breaks.append(reader.line_num - line)
                     for target, value in zip(columns, fields):
                         target.append(value if value != "" else None)
         except UnicodeDecodeError as err:
@@ -258,6 +306,8 @@ def read_csv_exact(path: Path, record: Scan | None = None) -> RawTape:
         record=record,
         blank_rows=blank,
         malformed=malformed,
+        lines=record.lines,
+        line_breaks=np.asarray(breaks, dtype=np.int64) if any(breaks) else None,
     )
 
 
@@ -288,6 +338,24 @@ def cell_text(value: object) -> str | None:
     return text if text != "" else None
 
 
+def _workbook_error(path: Path, err: BaseException) -> InputFileError:
+    """One line for a workbook openpyxl cannot open; an XML bomb is named as one."""
+    from defusedxml import DefusedXmlException
+
+    link: BaseException | None = err
+    while link is not None:
+        if isinstance(link, DefusedXmlException):
+            return InputFileError(
+                f"cannot be opened as a workbook: its XML declares entities or a DTD ({type(link).__name__}), "
+                "which a spreadsheet program never writes (an XML bomb?)",
+                file=path,
+                hint="save the tape again from the spreadsheet program, or export it as CSV",
+            )
+        link = link.__cause__ or link.__context__
+    return InputFileError(f"cannot be opened as a workbook ({err})", file=path,
+                          hint="save it again from the spreadsheet program, or export it as CSV")
+
+
 def read_xlsx(path: Path, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
     """Read a workbook sheet (``sheet`` or the first) in read-only mode; formulas arrive as text."""
     import openpyxl  # parses through defusedxml when it is installed
@@ -297,7 +365,7 @@ def read_xlsx(path: Path, sheet: str | None = None, numeric: NumericColumns | No
         try:
             book = openpyxl.load_workbook(handle, read_only=True, data_only=False)
         except Exception as err:  # openpyxl raises many kinds for a damaged file
-            raise InputFileError(f"cannot be opened as a workbook ({err})", file=path) from err
+            raise _workbook_error(path, err) from err
         try:
             if sheet is None:
                 ws = book.worksheets[0]

@@ -22,6 +22,10 @@ class IntakeResult:
     headers   our column name -> the header it was read from (a column of ``rejected``)
     date_formats  each date column of the file -> the format it was read in, and why
               (``year first (YYYY-MM-DD)``, ``day first (DD/MM/YYYY), inferred from ...``)
+    lines     physical lines of a CSV tape (-1 for XLSX and Parquet); the count identity is
+              lines = 1 header + rows_read + blank_rows + lines_in_values
+    lines_in_values  line breaks inside quoted values (they join physical lines into one record)
+    notes     tape-level warnings (not about one row), for the run's warnings
     """
 
     accepted: pd.DataFrame
@@ -32,6 +36,9 @@ class IntakeResult:
     blank_rows: int = 0
     headers: dict[str, str] = field(default_factory=dict)
     date_formats: dict[str, str] = field(default_factory=dict)
+    lines: int = -1
+    lines_in_values: int = 0
+    notes: tuple[str, ...] = ()
 
     @property
     def rows_accepted(self) -> int:
@@ -44,6 +51,26 @@ class IntakeResult:
     @property
     def warnings(self) -> pd.DataFrame:
         return self.findings[self.findings["severity"] == "warning"]
+
+    def require_accepted(self) -> None:
+        """Raise :class:`TapeError` when no row was accepted: a run of nothing is not a run.
+
+        The message gives the most common reasons, so the user knows where to start.
+        """
+        if self.rows_accepted:
+            return
+        from allowance.exceptions import TapeError
+
+        reasons = ""
+        if len(self.rejected) and "reason_codes" in self.rejected.columns:
+            codes = self.rejected["reason_codes"].astype("str").str.split(";").explode()
+            top = codes[codes != ""].value_counts().head(3)
+            reasons = " (" + ", ".join(f"{code} on {count:,}" for code, count in top.items()) + ")"
+        raise TapeError(
+            f"every one of the {self.rows_read:,} rows was rejected{reasons}",
+            file=self.file.path,
+            hint="run 'allowance check' on the tape to see each row's reasons",
+        )
 
 
 @dataclass(frozen=True)

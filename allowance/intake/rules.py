@@ -24,10 +24,10 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from allowance.exceptions import AssumptionsError
-from allowance.intake.fields import FIELDS, FieldSpec
+from allowance.intake.fields import FIELDS, FieldSpec, lower_first
 from allowance.intake.parse import NO_DAY, Parsed
 from allowance.intake.readers import cell_text
-from allowance.schemas import Assumptions
+from allowance.schemas import MAX_MONTHS, Assumptions
 
 Severity = Literal["reject", "warning"]
 
@@ -52,6 +52,9 @@ CODES: dict[str, str] = {
     "over_limit": "revolving balance above the credit limit",
     "missing_amortization": "balloon loan with no balloon_amount or amortization_months, in a segment without one",
     "revolving_on_vintage_curve": "a revolving line in a segment that uses a vintage loss curve",
+    "line_break_in_value": "{column} holds a line break: a quote closed in the wrong place (rejected in our columns)",
+    "records_in_value": "{column} holds whole lines of the tape: a quote opened on one line closes lines later",
+    "maturity_beyond_horizon": "maturity_date is more than the longest horizon after the as-of date",
 }
 
 _BAD_CODE: dict[str, str] = {
@@ -83,14 +86,22 @@ class TapeColumns:
     present: frozenset[str]
     assumptions: Assumptions
     source_row: np.ndarray
+    as_read: Callable[[str], pa.ChunkedArray | None] | None = None  # a column read as numbers, as text
 
     @property
     def rows(self) -> int:
         return len(self.source_row)
 
     def text(self, column: str, rows: np.ndarray) -> list[str | None]:
-        """The text of ``column`` at ``rows`` (a number read as a number is written as a CSV would)."""
-        values = pc.take(self.raw[column], pa.array(rows, pa.int64())).to_pylist()
+        """The text of ``column`` at ``rows`` exactly as the cell holds it (``-100.50``, not -100.5).
+
+        A column the reader converted to numbers is fetched again as text; a workbook or
+        Parquet number (no text to quote) is written as a CSV export would.
+        """
+        source = self.raw[column]
+        if not (pa.types.is_string(source.type) or pa.types.is_large_string(source.type)) and self.as_read:
+            source = self.as_read(column) or source
+        values = pc.take(source, pa.array(rows, pa.int64())).to_pylist()
         return [v if v is None or isinstance(v, str) else cell_text(v) for v in values]
 
 
@@ -99,8 +110,7 @@ Rule = Callable[[TapeColumns], Iterator[Findings]]
 
 def _about(spec: FieldSpec) -> str:
     """The field's description as a clause: 'outstanding principal ... at the as-of date'."""
-    text = spec.description.rstrip(".")
-    return text[:1].lower() + text[1:]
+    return lower_first(spec.description.rstrip("."))
 
 
 def _date_text(days: np.ndarray) -> list[str]:
@@ -319,6 +329,19 @@ def dates(cols: TapeColumns) -> Iterator[Findings]:
     if rows.size:
         messages = [f"origination_date {d} is after the as-of date {as_of_text}" for d in _date_text(origination[rows])]
         yield _findings(rows, "origination_date", "origination_after_as_of", messages)
+
+    run_date = cols.assumptions.run.as_of
+    years = MAX_MONTHS // 12
+    last_day = run_date.replace(year=run_date.year + years, day=min(run_date.day, 28 if run_date.month == 2 else 31))
+    limit = int(np.datetime64(last_day, "D").astype(np.int64))
+    rows = np.flatnonzero(has_maturity & (maturity.values > limit))
+    if rows.size:
+        messages = [
+            f"maturity_date {m} is more than {years} years after the as-of date {as_of_text}: horizons are "
+            f"capped at {MAX_MONTHS:,} months"
+            for m in _date_text(maturity.values[rows])
+        ]
+        yield _findings(rows, "maturity_date", "maturity_beyond_horizon", messages)
 
     rows = np.flatnonzero(has_origination & has_maturity & (maturity.values <= origination))
     if rows.size:

@@ -8,7 +8,7 @@ in ``accepted`` or in ``rejected`` (with every reason it failed), and
 from __future__ import annotations
 
 import difflib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -19,12 +19,12 @@ import pyarrow.compute as pc
 from allowance.exceptions import TapeError
 from allowance.intake.fields import FIELDS, INT_COLUMNS
 from allowance.intake.files import check_size, file_kind
-from allowance.intake.parse import PARSERS, Parsed, parse_dates
-from allowance.intake.readers import RawTape, read_frame, read_raw
+from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_dates
+from allowance.intake.readers import Malformed, RawTape, read_frame, read_raw
 from allowance.intake.results import IntakeResult
 from allowance.frameworks import rules_for
 from allowance.intake.rules import Findings, TapeColumns, apply_rules, segment_requirements
-from allowance.schemas import REQUIRED_COLUMNS, RunConfig
+from allowance.schemas import REQUIRED_COLUMNS, RunConfig, is_result_column
 
 FINDING_COLUMNS = ["source_row", "loan_id", "column", "code", "severity", "message"]
 _REJECTED_LEAD = ["source_row", "reason_codes", "reasons"]
@@ -47,6 +47,7 @@ class ColumnMap:
 
     ours: dict[str, int]  # our column -> position in the file
     extras: dict[str, int]  # output name -> position, for columns carried through
+    renamed: dict[str, str] = field(default_factory=dict)  # header -> tape_<header>: named like a result
 
 
 def _unique(names: list[str], taken: set[str]) -> list[str]:
@@ -78,6 +79,12 @@ def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -
     >>> map_columns(["Loan ID", "SEGMENT", "Repayment", "Origination Date", "maturity date", "balance",
     ...              "Interest_Rate", "days past due"], {}, "t.csv").ours["origination_date"]
     3
+
+    A column named like a computed result (``stage``, ``ead``, ``ecl_cecl`` ...) is carried as
+    ``tape_<name>``, so it can never stand in for the computed figure:
+
+    >>> map_columns([*headers[:-1], "stage"], {"loan_id": "loan id", "balance": "bal"}, "t.csv").extras
+    {'tape_stage': 8}
     """
     positions: dict[str, list[int]] = {}
     for i, header in enumerate(headers):
@@ -116,7 +123,9 @@ def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -
     names = [headers[i].strip() or f"column_{i + 1}" for i in rest]
     ours_normalised = {_norm(f) for f in (*FIELDS, "source_row")}
     names = [f"extract_{n}" if _norm(n) in ours_normalised else n for n in names]
-    return ColumnMap(ours=ours, extras=dict(zip(_unique(names, {*FIELDS, "source_row"}), rest)))
+    renamed = {n: f"tape_{n}" for n in names if is_result_column(_norm(n))}
+    names = [renamed.get(n, n) for n in names]
+    return ColumnMap(ours=ours, extras=dict(zip(_unique(names, {*FIELDS, "source_row"}), rest)), renamed=renamed)
 
 
 def _parse(raw: RawTape, colmap: ColumnMap, config: RunConfig, file: str) -> TapeColumns:
@@ -134,9 +143,18 @@ def _parse(raw: RawTape, colmap: ColumnMap, config: RunConfig, file: str) -> Tap
     for name, spec in FIELDS.items():
         if spec.kind != "date":
             parsed[name] = PARSERS[spec.kind](text[name], spec)
+    fetched: dict[int, pa.ChunkedArray] = {}
+
+    def as_read(name: str) -> pa.ChunkedArray | None:
+        if raw.text_columns is None or name not in colmap.ours:
+            return None
+        if not fetched:
+            fetched.update(raw.text_columns())  # one read of every column read as numbers
+        return fetched.get(colmap.ours[name])
+
     return TapeColumns(
         parsed=parsed, raw=text, present=frozenset(colmap.ours), assumptions=config.assumptions,
-        source_row=raw.source_row,
+        source_row=raw.source_row, as_read=as_read,
     )
 
 
@@ -218,17 +236,20 @@ def _rejected(raw: RawTape, reject: np.ndarray, findings: pd.DataFrame) -> pd.Da
     headers = rejected_headers(raw)
     rows = np.flatnonzero(reject)
     body = raw.text_rows(rows) if rows.size else raw.table.slice(0, 0)
-    frame = pd.DataFrame({h: body.column(i).to_pandas().astype("str") for i, h in enumerate(headers)})
-    frame.insert(0, "source_row", raw.source_row[rows])
     codes, reasons = _reasons(findings, rows)
-    frame.insert(1, "reason_codes", pd.Series(codes, dtype="str"))
-    frame.insert(2, "reasons", pd.Series(reasons, dtype="str"))
+    # one Arrow table, converted once: a column at a time costs seconds on a 10,000-column tape
+    columns = {"source_row": pa.array(raw.source_row[rows], pa.int64()),
+               "reason_codes": pa.array(codes, pa.string()), "reasons": pa.array(reasons, pa.string())}
+    text = [c if pa.types.is_string(c.type) else pc.cast(c, pa.string()) for c in body.columns]
+    table = pa.table([*columns.values(), *text],
+                     names=[*columns, *headers])
+    frame = table.to_pandas()
     if raw.malformed:
         width = len(headers)
         lines = []
         for m in raw.malformed:
             record = {"source_row": m.source_row, "reason_codes": "wrong_field_count",
-                      "reasons": f"the line has {len(m.fields)} fields but the header has {width}"}
+                      "reasons": _malformed_message(m, width)}
             record.update({h: (v if v != "" else None) for h, v in zip(headers, m.fields)})
             if len(m.fields) > width:
                 record["extra_fields"] = ",".join(m.fields[width:])
@@ -242,6 +263,14 @@ def _rejected(raw: RawTape, reject: np.ndarray, findings: pd.DataFrame) -> pd.Da
     return frame.reset_index(drop=True)
 
 
+def _malformed_message(m: Malformed, width: int) -> str:
+    message = f"the line has {len(m.fields)} fields but the header has {width}"
+    if m.last_line > m.source_row:
+        message += (f"; it runs on to line {m.last_line} inside a quoted value: a quote opened on line "
+                    f"{m.source_row} closes on line {m.last_line}")
+    return message
+
+
 def _malformed_findings(raw: RawTape, colmap: ColumnMap) -> pd.DataFrame:
     at = colmap.ours["loan_id"]
     width = len(raw.headers)
@@ -251,7 +280,7 @@ def _malformed_findings(raw: RawTape, colmap: ColumnMap) -> pd.DataFrame:
         "column": "",
         "code": "wrong_field_count",
         "severity": "reject",
-        "message": [f"the line has {len(m.fields)} fields but the header has {width}" for m in raw.malformed],
+        "message": [_malformed_message(m, width) for m in raw.malformed],
     })
 
 
@@ -311,7 +340,8 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
     # a segment the rows need a key of: one error naming the key (the fix is in the assumptions)
     paydown = [fw for fw in config.frameworks if rules_for(fw).revolving_paydown]
     segment_requirements(cols, paydown, next((i.path for i in config.inputs if i.role == "assumptions"), None))
-    chunks = apply_rules(cols)
+    chunks = apply_rules(cols) + _line_break_findings(raw, colmap)
+    check_as_of_leaves_loans(cols, path)
     reject = np.zeros(cols.rows, dtype=bool)
     for chunk in chunks:
         if chunk.severity == "reject":
@@ -323,6 +353,18 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
     if raw.malformed:
         findings = pd.concat([findings, _malformed_findings(raw, colmap)], ignore_index=True)
         findings = findings.sort_values("source_row", kind="stable", ignore_index=True)
+    as_written = rejected_headers(raw)
+    notes = [
+        f"the tape's column {header!r} is named like a computed result: it is carried through as "
+        f"{carried!r} and the computed {header!r} is not replaced"
+        for header, carried in colmap.renamed.items()
+    ]
+    if raw.lines_in_values:
+        notes.append(
+            f"{path}: {raw.lines:,} lines = 1 header + {rows_read:,} records + {raw.blank_rows:,} blank + "
+            f"{raw.lines_in_values:,} line breaks inside quoted values; the records holding them are listed "
+            "with code line_break_in_value or records_in_value"
+        )
     return IntakeResult(
         accepted=accepted,
         rejected=rejected,
@@ -330,7 +372,105 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
         rows_read=rows_read,
         file=raw.record.record,
         blank_rows=raw.blank_rows,
-        headers={name: rejected_headers(raw)[i] for name, i in colmap.ours.items()},
+        headers={name: as_written[i] for name, i in colmap.ours.items()},
         date_formats={name: cols.parsed[name].form for name in FIELDS
                       if FIELDS[name].kind == "date" and name in colmap.ours},
+        lines=raw.lines,
+        lines_in_values=raw.lines_in_values,
+        notes=tuple(notes),
     )
+
+
+def _line_break_findings(raw: RawTape, colmap: ColumnMap) -> list[Findings]:
+    """Records whose quoted values hold line breaks: the sign of a quote closed in the wrong place.
+
+    A value of one of our columns never holds a line break, so such a record is rejected
+    (``line_break_in_value``). In another column (free text) a line break can be genuine and
+    the record is kept with a warning, unless the value holds what look like whole lines of
+    the tape (at least half a header's worth of commas per line break): then a quote opened
+    on one line closed lines later and the loans in between were swallowed into one value, so
+    the record is rejected (``records_in_value``) and the swallowed lines are named.
+    """
+    if raw.line_breaks is None or not raw.line_breaks.any():
+        return []
+    rows = np.flatnonzero(raw.line_breaks > 0)
+    taken = pa.array(rows, pa.int64())
+    ours = {i: name for name, i in colmap.ours.items()}
+    names = rejected_headers(raw)
+    width = len(raw.headers)
+    found: dict[int, tuple[str, str]] = {}  # row position -> (code, column), the first column wins
+    for i, column in enumerate(raw.table.columns):
+        if not (pa.types.is_string(column.type) or pa.types.is_large_string(column.type)):
+            continue
+        values = pc.take(column, taken)
+        breaks = np.asarray(pc.fill_null(pc.count_substring_regex(values, r"\r\n|\r|\n"), 0), dtype=np.int64)
+        if not breaks.any():
+            continue
+        commas = np.asarray(pc.fill_null(pc.count_substring(values, ","), 0), dtype=np.int64)
+        swallowed = commas >= breaks * max(1, (width - 1) // 2)
+        for position in np.flatnonzero(breaks):
+            code = "line_break_in_value" if i in ours else ("records_in_value" if swallowed[position] else "line_break_warning")
+            found.setdefault(int(rows[position]), (code, ours.get(i, names[i])))
+    out: list[Findings] = []
+    for code in ("line_break_in_value", "records_in_value", "line_break_warning"):
+        positions = np.array(sorted(p for p, (c, _) in found.items() if c == code), dtype=np.int64)
+        for column in sorted({found[int(p)][1] for p in positions}):
+            here = np.array([p for p in positions if found[int(p)][1] == column], dtype=np.int64)
+            messages = []
+            for p in here:
+                first = int(raw.source_row[p])
+                last = first + int(raw.line_breaks[p])
+                span = f"the record runs from line {first} to line {last}"
+                if code == "line_break_in_value":
+                    messages.append(f"{column} holds a line break ({span}): a quote is closed in the wrong place")
+                elif code == "records_in_value":
+                    messages.append(
+                        f"{column} holds what look like whole lines of the tape ({span}): a quote opened on "
+                        f"line {first} closes on line {last}, swallowing the loans in between"
+                    )
+                else:
+                    messages.append(f"{column} holds line breaks ({span}); kept as text")
+            severity = "warning" if code == "line_break_warning" else "reject"
+            out.append(Findings(rows=here, column=column, code=code if severity == "reject" else "line_break_in_value",
+                                severity=severity, messages=messages))
+    return out
+
+
+def check_as_of_leaves_loans(cols: TapeColumns, path: Path) -> None:
+    """Raise :class:`TapeError` when the as-of date leaves no loan on the book.
+
+    A loan is on the book at the as-of date when it was originated on or before it and, for
+    a term loan, matures after it. When no row with readable dates is, or when the tape has
+    term loans and every one of them has matured (revolving lines never mature, so they
+    cannot vouch for the date), the as-of date or the tape is wrong: a run would report an
+    allowance for a book that is not there.
+    """
+    as_of = int(np.datetime64(cols.assumptions.run.as_of, "D").astype(np.int64))
+    origination = cols.parsed["origination_date"].values
+    maturity = cols.parsed["maturity_date"].values
+    repayment = cols.parsed["repayment"]
+    dated = origination != NO_DAY
+    if not dated.any():
+        return
+    revolving = np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
+    originated = dated & (origination <= as_of)
+    term = dated & ~revolving & (maturity != NO_DAY)
+    live_term = term & originated & (maturity > as_of)
+    if (originated & revolving).any() and (live_term.any() or not term.any()):
+        return
+    if live_term.any():
+        return
+    first, last = _date_text(origination[dated].min()), _date_text(origination[dated].max())
+    matures = maturity[term]
+    ends = f" and its term loans mature by {_date_text(matures.max())}" if matures.size else ""
+    when = cols.assumptions.run.as_of.isoformat()
+    raise TapeError(
+        f"the as-of date {when} leaves no loan on the book: the tape's loans were originated from "
+        f"{first} to {last}{ends}",
+        file=path,
+        hint="check [run] as_of in the assumptions file against the tape's dates",
+    )
+
+
+def _date_text(day: np.integer) -> str:
+    return str(np.datetime64(int(day), "D"))

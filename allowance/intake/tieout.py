@@ -121,6 +121,9 @@ def check_table(result: IntakeResult) -> pd.DataFrame:
     Columns ``section`` (rows / dates / rejected / warning), ``code``, ``column``, ``rows``
     and ``message``; a ``dates`` line says how each date column was read (code
     ``month_first`` when month-first, so it stands out). A rejected row counts once under each distinct reason it has, so the
+    Columns ``section`` (rows / lines / rejected / warning), ``code``, ``column``, ``rows`` and
+    ``message``. For a CSV tape the ``lines`` section reconciles the file's physical lines
+    with the records read, so a stray quote that joins lines cannot pass unnoticed. A rejected row counts once under each distinct reason it has, so the
     rejection lines may add up to more than the rejected rows.
     """
     lines = [
@@ -133,6 +136,13 @@ def check_table(result: IntakeResult) -> pd.DataFrame:
     for column, form in result.date_formats.items():
         flag = "month_first" if "month first" in form else "date_format"
         lines.append(("dates", flag, column, result.rows_read, f"read as {form}"))
+    if result.lines >= 0:
+        lines.append(("lines", "physical", "", result.lines,
+                      "lines of the file = 1 header + rows read + blank + line breaks inside quoted values"))
+        if result.lines_in_values:
+            lines.append(("lines", "in_values", "", result.lines_in_values,
+                          "line breaks inside quoted values (see the rows with code line_break_in_value "
+                          "or records_in_value)"))
     findings = result.findings
     if len(findings):
         for section, severity in (("rejected", "reject"), ("warning", "warning")):

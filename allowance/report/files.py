@@ -1,25 +1,25 @@
-"""The output folder: every file of a run, written safely (all or nothing).
+"""The output folder: every file of a run, written safely (all or nothing, never mixed).
 
 Implements
 ----------
-OUTPUT_FILES   the files a run can write, in the order they are written
-write_outputs  write every output into a temporary sibling folder, then move it into place
+OUTPUT_FILES       the files a run can write, in the order they are written
+OutputPaths        the files written, and notes about leftovers that could not be cleaned
+write_outputs      write every output into a sibling folder, then swap it into place
+check_output_path  refuse an output folder that would overwrite or move an input
 
 Safe writing
 ------------
-Everything is written into ``.<out>.partial-XXXX`` beside the output folder. Only when every
-file is complete does it move into place: a rename of the whole folder when the output folder
-does not exist yet (atomic), otherwise file by file with ``os.replace`` (each atomic), the old
-``run.json`` removed first and the new one moved last. ``run.json`` therefore marks a complete
-folder. Any failure removes the partial folder and leaves the previous outputs as they were.
+Everything is written into ``.<out>.partial-XXXX`` beside the output folder; only when
+every file is complete does the folder take the place of the old one, by renames
+(:mod:`allowance.report.swap`): the old folder is kept as a dated backup until the swap is
+done. A failure or a kill at any point leaves the previous complete run; a folder never mixes
+two runs. Entries of the output folder that are not run outputs are kept.
 """
 
 from __future__ import annotations
 
 import json
-import os
-import shutil
-import tempfile
+from collections.abc import Iterable
 from pathlib import Path
 
 import numpy as np
@@ -30,10 +30,11 @@ import pyarrow.csv as pa_csv
 from allowance.exceptions import OutputError
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
+from allowance.report.swap import replace_folder
 from allowance.report.workbook import write_summary_workbook, write_workbook
-from allowance.text import neutralise_frame
+from allowance.text import neutralise_frame, neutralise_table
 
-__all__ = ["OUTPUT_FILES", "write_outputs"]
+__all__ = ["OUTPUT_FILES", "OutputPaths", "check_output_path", "write_outputs"]
 
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
@@ -45,35 +46,45 @@ OUTPUT_FILES: tuple[str, ...] = (
 def _arrow_ready(frame: pd.DataFrame) -> pd.DataFrame:
     """Dates without a time of day as dates (``2026-09-30``, not a timestamp)."""
     out = frame
-    for position in range(frame.shape[1]):
-        column = frame.iloc[:, position]
-        if pd.api.types.is_datetime64_any_dtype(column.dtype) and not getattr(column.dtype, "tz", None):
-            stamps = column.to_numpy(dtype="datetime64[ns]")
-            days = stamps.astype("datetime64[D]")
-            if (np.isnat(stamps) | (stamps == days)).all():
-                out = out.copy() if out is frame else out
-                out.isetitem(position, pd.Series(days, index=frame.index).dt.date)
+    dated = [i for i, dtype in enumerate(frame.dtypes)  # by dtype: a column each costs seconds on wide tapes
+             if pd.api.types.is_datetime64_any_dtype(dtype) and not getattr(dtype, "tz", None)]
+    for position in dated:
+        stamps = frame.iloc[:, position].to_numpy(dtype="datetime64[ns]")
+        days = stamps.astype("datetime64[D]")
+        if (np.isnat(stamps) | (stamps == days)).all():
+            out = out.copy() if out is frame else out
+            out.isetitem(position, pd.Series(days, index=frame.index).dt.date)
     return out
 
 
 def _csv(frame: pd.DataFrame, path: Path) -> None:
     """Text neutralised; written by Arrow (fast), or by pandas for columns Arrow cannot type."""
-    safe = neutralise_frame(frame)
-    if safe.columns.duplicated().any():  # Arrow needs unique names
-        safe.to_csv(path, index=False, lineterminator="\n")
+    table = None
+    if not frame.columns.duplicated().any():  # Arrow needs unique names
+        try:
+            table = pa.Table.from_pandas(_arrow_ready(frame), preserve_index=False)
+        except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError):
+            table = None
+    if table is None or any(pa.types.is_null(t) or pa.types.is_nested(t) for t in table.schema.types):
+        neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
         return
-    try:
-        table = pa.Table.from_pandas(_arrow_ready(safe), preserve_index=False)
-    except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError):
-        safe.to_csv(path, index=False, lineterminator="\n")
-        return
-    pa_csv.write_csv(table, path, write_options=pa_csv.WriteOptions(quoting_style="needed"))
+    pa_csv.write_csv(neutralise_table(table), path, write_options=pa_csv.WriteOptions(quoting_style="needed"))
+
+
+class OutputPaths(list):
+    """The files written (a list of paths), and ``notes``: leftovers that could not be cleaned."""
+
+    def __init__(self, paths: Iterable[Path], notes: Iterable[str] = ()) -> None:
+        super().__init__(paths)
+        self.notes: tuple[str, ...] = tuple(notes)
 
 
 def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
     written: list[str] = []
 
     def done(name: str) -> None:
+        # only run outputs may be written: the swap keeps every other name as the user's
+        assert name in OUTPUT_FILES, name
         written.append(name)
 
     _csv(report.loans, folder / "loans.csv")
@@ -119,24 +130,35 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
     return written
 
 
-def _move_into_place(partial: Path, out_dir: Path, names: list[str]) -> None:
-    if not out_dir.exists():
-        os.replace(partial, out_dir)
-        return
-    if not any(out_dir.iterdir()):
-        out_dir.rmdir()
-        os.replace(partial, out_dir)
-        return
-    # an earlier run's folder: its run.json goes first, so a mixed folder never looks finished
-    (out_dir / "run.json").unlink(missing_ok=True)
-    for stale in OUTPUT_FILES:
-        if stale not in names:
-            (out_dir / stale).unlink(missing_ok=True)
-    for name in names:
-        if name != "run.json":
-            os.replace(partial / name, out_dir / name)
-    os.replace(partial / "run.json", out_dir / "run.json")
-    partial.rmdir()
+def check_output_path(out_dir: Path, inputs: Iterable[str | Path] = ()) -> None:
+    """Refuse an output folder that a run must not replace.
+
+    Replacing the folder moves it aside, so it must not be the current folder or hold it, and
+    no input file may sit directly in it (a tape there named ``loans.csv`` would be
+    overwritten, and a tape beside its outputs is easily mistaken for one). An input in a
+    subfolder of it (the demo's ``prior_quarter/``) is carried over untouched.
+
+    Raises
+    ------
+    OutputError
+        Naming the folder and what is wrong.
+    """
+    out_dir = Path(out_dir)
+    if str(out_dir).strip() == "":
+        raise OutputError("the output folder is empty text", hint="give --out a folder name, e.g. --out q3-out")
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OutputError("the output path exists and is not a folder", file=out_dir,
+                          hint="choose a folder name for --out")
+    target = out_dir.resolve()
+    here = Path.cwd().resolve()
+    if target == here or target in here.parents:
+        raise OutputError("the output folder is the current folder or holds it", file=out_dir,
+                          hint="write the outputs to a folder of their own, e.g. --out q3-out")
+    for item in inputs:
+        path = Path(item)
+        if path.resolve().parent == target:
+            raise OutputError(f"the input file {path.name!r} is in the output folder, which a run replaces",
+                              file=out_dir, hint="write the outputs to a folder of their own, e.g. --out q3-out")
 
 
 def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) -> list[Path]:
@@ -145,8 +167,8 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
     Parameters
     ----------
     out_dir : Path
-        The output folder; created (with its parents) if missing. Files of ours from an
-        earlier run are replaced; other files in it are left alone.
+        The output folder; created (with its parents) if missing. An earlier run's folder is
+        replaced as a whole; entries in it that are not run outputs are kept.
     report : RunReport
         The run. When ``report.record`` is empty the run record is built here.
     parquet : bool
@@ -154,13 +176,14 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
 
     Returns
     -------
-    list of Path
-        The files written, in :data:`OUTPUT_FILES` order.
+    OutputPaths
+        The files written, in :data:`OUTPUT_FILES` order; ``.notes`` for the run's warnings.
 
     Raises
     ------
     OutputError
-        The folder cannot be created or a file cannot be written; nothing is left half written.
+        The folder is refused (:func:`check_output_path`), cannot be created or a file cannot
+        be written; the previous outputs are left complete and nothing is half written.
 
     Notes
     -----
@@ -169,29 +192,11 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
     (:func:`~allowance.text.neutralise_text`).
     """
     out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise OutputError("the output path exists and is not a folder", file=out_dir,
-                          hint="choose a folder name for --out")
-    parent = out_dir.absolute().parent
-    try:
-        parent.mkdir(parents=True, exist_ok=True)
-        partial = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=parent))
-        # mkdtemp makes the folder private; the finished folder gets the user's usual mode
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(partial, 0o777 & ~umask)
-    except OSError as err:
-        raise OutputError(f"cannot create the output folder ({err.strerror or err})", file=out_dir,
-                          hint="check the path and that you may write there") from err
-    try:
-        names = _write_all(partial, report, parquet)
-        _move_into_place(partial, out_dir, names)
-    except OSError as err:
-        shutil.rmtree(partial, ignore_errors=True)
-        where = err.filename or out_dir
-        raise OutputError(f"cannot write the outputs ({err.strerror or err})", file=where,
-                          hint="check free space and permissions, and close the files if a program has them open") from err
-    except BaseException:
-        shutil.rmtree(partial, ignore_errors=True)
-        raise
-    return [out_dir / name for name in names]
+    check_output_path(out_dir, [i.path for i in report.config.inputs])
+    names: list[str] = []
+
+    def write(folder: Path) -> None:
+        names.extend(_write_all(folder, report, parquet))
+
+    notes = replace_folder(out_dir, write, OUTPUT_FILES)
+    return OutputPaths([out_dir / name for name in names], notes)

@@ -26,6 +26,7 @@ from allowance.frameworks import FRAMEWORK_RULES
 from allowance.intake import IntakeResult, TieOut
 from allowance.money import money_total
 from allowance.report import clock
+from allowance.report.environment import environment
 from allowance.schemas import Framework, InputFile, RunConfig, RunRecord
 
 if TYPE_CHECKING:
@@ -159,13 +160,18 @@ def run_record(
         ``timestamp`` is :func:`~allowance.report.clock.now` when the record is built. Both
         are ``SOURCE_DATE_EPOCH`` when that is set; ``started`` defaults to ``timestamp``.
     extra : mapping, optional
-        Further keys (``"what_if": {...}``, timings), merged in last.
+        Further keys, merged in last: ``"arguments"`` (the command and its options, as the
+        command line gives them), ``"what_if": {...}``.
 
     Returns
     -------
     dict
         JSON-ready: numbers, strings, lists and dicts only. ``assumptions`` is
-        ``config.assumptions.model_dump(mode="json")``, so a later run can rerun this one.
+        ``config.assumptions.model_dump(mode="json")``, so a later run can rerun this one;
+        ``environment`` pins Python and every dependency version
+        (:func:`~allowance.report.environment.environment`); ``inputs`` carries the SHA-256
+        of every file read, a prior run's ``run.json`` included. With ``SOURCE_DATE_EPOCH``
+        set, the same inputs give the same record, byte for byte.
     """
     inputs: list[InputFile] = list(config.inputs)
     if not any(i.role == "tape" and i.path == intake.file.path for i in inputs):
@@ -193,6 +199,8 @@ def run_record(
         "frameworks": list(config.frameworks),
         "currency": run.currency,
         "run_by": _user(),
+        "arguments": None,
+        "environment": environment(),
         "started": (started or finished).astimezone(timezone.utc).isoformat(timespec="seconds"),
         "timestamp": finished.isoformat(timespec="seconds"),
         "inputs": [i.model_dump(mode="json") for i in inputs],

@@ -1,0 +1,51 @@
+"""The console entry point, kept light so that Ctrl-C at any moment ends the program cleanly.
+
+The command line imports pandas, pyarrow and numba before it can do anything; a Ctrl-C while
+they load used to print a traceback. Here the import itself is guarded: an interruption at
+any point prints one line and exits with 130 (128 + SIGINT, the shell convention).
+"""
+
+from __future__ import annotations
+
+import sys
+
+INTERRUPTED = "interrupted; the output folder holds a complete run or nothing new, never a mix"
+
+
+def interrupted() -> None:
+    """Say so on one line and exit 130."""
+    try:
+        sys.stderr.write(INTERRUPTED + "\n")
+        sys.stderr.flush()
+    finally:
+        raise SystemExit(130)
+
+
+def _from_interrupt(error: BaseException) -> bool:
+    """Whether an exception was raised while handling a Ctrl-C (Typer turns one into exit 130)."""
+    seen: set[int] = set()
+    link: BaseException | None = error
+    while link is not None and id(link) not in seen:
+        if isinstance(link, KeyboardInterrupt):
+            return True
+        seen.add(id(link))
+        link = link.__cause__ or link.__context__
+    return False
+
+
+def main() -> None:
+    """Run the command line; Ctrl-C during start-up or a run exits 130 with one line."""
+    try:
+        from allowance.cli import app
+
+        app()
+    except KeyboardInterrupt:
+        interrupted()
+    except SystemExit as done:
+        if done.code == 130 and _from_interrupt(done):
+            interrupted()  # Typer exits 130 silently on Ctrl-C: say what happened
+        raise
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()
