@@ -25,7 +25,7 @@ from allowance.backtest.compare import BacktestResult
 from allowance.exceptions import OutputError
 from allowance.report.record import CAUTION
 from allowance.text import neutralise_frame
-from allowance.report.xlsx import TITLE_FONT, put_table
+from allowance.report.openpyxl_table import TITLE_FONT, put_table
 
 __all__ = ["BACKTEST_FILES", "write_backtest"]
 
