@@ -103,7 +103,8 @@ def workspace(folder: Path, tape: list[str] = TAPE, toml: str = BASE_TOML) -> Wo
     ws = Workspace(folder)
     ws.tape.write_text("\n".join(tape) + "\n", encoding="utf-8")
     ws.toml.write_text(toml, encoding="utf-8")
-    shutil.copyfile(DEMO / "cards_rolls.csv", folder / "cards_rolls.csv")
+    for matrix in ("cards_rolls.csv", "rolls_cards.csv"):  # the simulated and the calibrated matrix
+        shutil.copyfile(DEMO / matrix, folder / matrix)
     return ws
 
 

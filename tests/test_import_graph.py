@@ -15,7 +15,7 @@ from pathlib import Path
 import allowance
 
 LAYERS: list[tuple[str, ...]] = [
-    ("exceptions", "text", "money"),  # leaves: the domain errors, text safety, cents
+    ("exceptions", "text", "money", "jit"),  # leaves: the domain errors, text safety, cents, compile cache
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
     ("links", "discounting", "cashflows"),  # maths with no other concept beneath it
     ("macro", "satellite_fit", "curves", "staging", "loss_rates"),  # term structures, stages, macro links and their fit
@@ -28,7 +28,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("report",),  # the writing edge: loans.csv, reserve.xlsx, run.json
     ("result",),  # what the API hands back
     ("api",),  # the library API
-    ("cli", "__main__"),  # the command line
+    ("cli", "__main__", "console"),  # the command line
 ]
 RANK = {name: i for i, layer in enumerate(LAYERS) for name in layer}
 ROOT = Path(allowance.__file__).parent

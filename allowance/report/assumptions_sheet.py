@@ -30,7 +30,11 @@ _FW_LABEL = {"ifrs9": "IFRS 9", "cecl": "CECL"}
 _TOP = 4
 _PD_SOURCE = {
     "pd_12m": "12-month PD", "pd_12m_by_grade": "12-month PD by grade", "pd_curve": "Cumulative PD curve",
-    "pd_curve_by_grade": "Cumulative PD curve by grade", "transition_matrix": "Roll-rate matrix",
+    "pd_curve_by_grade": "Cumulative PD curve by grade", "pd_curve_by_age": "PD curve by loan age",
+    "transition_matrix": "Roll-rate matrix",
+    # loss-rate segments (allowance.loss_rates): no PD source; the method is the loss rate
+    "lifetime_loss_rate": "Pool lifetime loss rate", "annual_loss_rate": "Remaining-life (WARM) annual loss rate",
+    "vintage_loss_curve": "Vintage loss-rate curve",
 }
 
 
@@ -86,10 +90,10 @@ def _segment_rows(segments: dict) -> list[tuple[str, str, list[Any]]]:
     segs = list(segments.values())
 
     def source(seg: Any) -> str:
-        text = _PD_SOURCE[seg.pd_source]
-        if seg.pd_source == "transition_matrix":
+        text = _PD_SOURCE[seg.method]
+        if seg.method == "transition_matrix":
             return f"{text}: {_matrix_name(seg)}, charge-off at {seg.charge_off_dpd} DPD"
-        return text + ("" if seg.pd_source == "pd_12m" else " (below)")
+        return text + ("" if seg.method == "pd_12m" else " (below)")
 
     rows = [
         ("PD source", "wrap", [source(s) for s in segs]),

@@ -52,7 +52,8 @@ def _book(folder: Path, extra: int) -> tuple[Path, Path]:
     text = (demo / manifest["current"]["assumptions"]).read_text().split("[[overlays]]")[0]
     toml = folder / "assumptions.toml"
     toml.write_text(re.sub(r"(?m)^ledger_balance.*\n", "", text))
-    shutil.copyfile(demo / "cards_rolls.csv", folder / "cards_rolls.csv")
+    for matrix in ("cards_rolls.csv", "rolls_cards.csv"):  # the simulated and the calibrated matrix
+        shutil.copyfile(demo / matrix, folder / matrix)
     return tape, toml
 
 
