@@ -454,8 +454,9 @@ def _check_what_segments_need(assumptions: Assumptions, merged: _Merged) -> None
     for name, segment in assumptions.segments.items():
         key: Key = ("segments", name)
         try:
-            structure = curves.pd_term_structure(name, segment, 12)
-            curves.check_one_prepayment_source(name, segment, structure)
+            if segment.pd_source is not None:  # a loss-rate segment's rates are checked by the schema
+                structure = curves.pd_term_structure(name, segment, 12)
+                curves.check_one_prepayment_source(name, segment, structure)
             if uses_z:
                 scenarios.asset_correlation(segment, 0.01, name=name)
         except AssumptionsError as err:
