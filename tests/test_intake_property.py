@@ -12,7 +12,8 @@ import tempfile
 from pathlib import Path
 
 import pytest
-from hypothesis import HealthCheck, given, settings
+from allowance.exceptions import TapeError
+from hypothesis import assume, HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from allowance.intake import load_assumptions, read_tape
@@ -69,7 +70,13 @@ def spoiled_tapes(draw):
 @given(spoiled_tapes())
 def test_every_fault_is_rejected_with_its_code_and_nothing_is_lost(case):
     rows, expected = case
-    result = read_tape(_write(rows), CONFIG)
+    try:
+        result = read_tape(_write(rows), CONFIG)
+    except TapeError as err:
+        # a book in which the faults left no loan live at the as-of date is refused whole, by
+        # design (the reliability suite holds that class); this property is about rows
+        assume("leaves no loan on the book" not in str(err))
+        raise
 
     assert result.rows_read == len(rows) == result.rows_accepted + result.rows_rejected
     rejected = {int(r.source_row): r for r in result.rejected.itertuples(index=False)}
