@@ -45,7 +45,7 @@ def _tape_frame() -> pd.DataFrame:
 def _assumptions_mapping() -> dict:
     data = tomllib.loads(books.DEMO_ASSUMPTIONS.read_text(encoding="utf-8"))
     # the roll-rate matrix inline, as a frame: from-states in a 'from' column
-    data["segments"]["cards"]["transition_matrix"] = pd.read_csv(books.DEMO / "cards_rolls.csv")
+    data["segments"]["cards"]["transition_matrix"] = pd.read_csv(books.DEMO / data["segments"]["cards"]["transition_matrix"])
     return data
 
 
