@@ -476,12 +476,4 @@ def _check_out(out: Path, *inputs: Path | None) -> None:
         raise typer.BadParameter(str(err), param_hint="'--out'") from err
 
 
-def main() -> None:
-    """Console entry point (see :mod:`allowance.console`, which guards the start-up too)."""
-    from allowance.console import main as console_main
-
-    console_main()
-
-
-if __name__ == "__main__":  # pragma: no cover
-    main()
+# the console entry point is allowance.console:main (it guards the start-up against Ctrl-C)
