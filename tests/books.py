@@ -58,8 +58,9 @@ def engine_config(**changes) -> RunConfig:
     return RunConfig(assumptions=Assumptions.model_validate(data))
 
 
-def engine_tape(n: int = 300, seed: int = 7) -> pd.DataFrame:
-    """An accepted-tape frame as intake hands it over (invented data for the tests)."""
+def engine_tape(n: int = 300, seed: int = 7, collateral_ratio: float = 1.2) -> pd.DataFrame:
+    """An accepted-tape frame as intake hands it over (invented data for the tests); mortgages
+    carry collateral of ``collateral_ratio`` times their balance."""
     rng = np.random.default_rng(seed)
     seg = rng.choice(["auto", "mort", "cards"], n)
     frame = pd.DataFrame({
@@ -78,6 +79,6 @@ def engine_tape(n: int = 300, seed: int = 7) -> pd.DataFrame:
         frame[c] = False if LoanRecord.model_fields[c].annotation is bool else np.nan
     frame["grade"] = np.where(seg == "cards", rng.choice(["A", "B"], n), None)
     frame["credit_limit"] = np.where(seg == "cards", (frame["balance"] * 1.5).round(2), np.nan)
-    frame["collateral_value"] = np.where(seg == "mort", (frame["balance"] * 1.2).round(2), np.nan)
+    frame["collateral_value"] = np.where(seg == "mort", (frame["balance"] * collateral_ratio).round(2), np.nan)
     frame["source_row"] = np.arange(n) + 2
     return frame

@@ -14,6 +14,7 @@ from scipy.special import expit
 from scipy.special import logit as scipy_logit
 from scipy.stats import norm
 
+from tests import books
 from allowance import engine
 from allowance.exceptions import AssumptionsError
 from allowance.links import shift_probability
@@ -31,9 +32,7 @@ from allowance.scenarios import reversion_weights, revert, scenario_tables
 from allowance.schemas import (
     Assumptions,
     CollateralLink,
-    LoanRecord,
     MacroSection,
-    OPTIONAL_COLUMNS,
     RunConfig,
     SatelliteModel,
     Scenario,
@@ -81,27 +80,7 @@ def _assumptions(scenarios: dict, segments: dict | None = None, frameworks=("ifr
 
 def _tape(n: int = 240, seed: int = 11) -> pd.DataFrame:
     """An accepted-tape frame as intake hands it over (invented loans)."""
-    rng = np.random.default_rng(seed)
-    seg = rng.choice(["auto", "mort", "cards"], n)
-    frame = pd.DataFrame({
-        "loan_id": [f"L{i:05d}" for i in range(n)],
-        "segment": seg,
-        "repayment": np.where(seg == "cards", "revolving", "level"),
-        "origination_date": pd.to_datetime("2024-01-15"),
-        "maturity_date": pd.to_datetime(
-            np.where(seg == "cards", None, np.where(seg == "mort", "2054-01-15", "2029-01-15"))
-        ),
-        "balance": rng.uniform(1_000, 200_000, n).round(2),
-        "interest_rate": rng.uniform(0.03, 0.2, n).round(4),
-        "days_past_due": rng.choice([0, 0, 0, 0, 15, 45, 100], n),
-    })
-    for c in OPTIONAL_COLUMNS:
-        frame[c] = False if LoanRecord.model_fields[c].annotation is bool else np.nan
-    frame["grade"] = np.where(seg == "cards", rng.choice(["A", "B"], n), None)
-    frame["credit_limit"] = np.where(seg == "cards", (frame["balance"] * 1.5).round(2), np.nan)
-    frame["collateral_value"] = np.where(seg == "mort", (frame["balance"] * 1.1).round(2), np.nan)
-    frame["source_row"] = np.arange(n) + 2
-    return frame
+    return books.engine_tape(n, seed, collateral_ratio=1.1)
 
 
 TAPE = _tape()
