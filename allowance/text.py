@@ -95,7 +95,8 @@ def _flagged(series: pd.Series) -> np.ndarray:
     if isinstance(series.dtype, pd.StringDtype):  # pandas text: every value is a str or missing
         first = series.str.slice(0, 1)
         return first.isin(FORMULA_PREFIXES).to_numpy(dtype=bool, na_value=False) & series.notna().to_numpy()
-    is_str = series.map(lambda v: isinstance(v, str), na_action="ignore").fillna(False).astype(bool)
+    # a missing value is not text; mapping every value avoids a fill of bool into float
+    is_str = pd.Series([isinstance(v, str) for v in series.to_numpy(dtype=object)], index=series.index, dtype=bool)
     if not is_str.any():
         return np.zeros(len(series), dtype=bool)
     first = series[is_str].astype(str).str[:1]
