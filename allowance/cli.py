@@ -9,6 +9,7 @@ start-up, so ``allowance --help`` answers at once.
 
 from __future__ import annotations
 
+import contextlib
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -57,6 +58,7 @@ AssumptionsOption = Annotated[
     Path, typer.Option("--assumptions", "-a", help="Assumptions file (TOML): segments, scenarios, rules, overlays.")
 ]
 Framework = Literal["ifrs9", "cecl"]
+Engine = Literal["in-process", "dask"]  # where the chunks run (allowance.cluster)
 
 
 def _say(text: str = "") -> None:
@@ -93,6 +95,15 @@ def _print_summary(result: Result, out: Path, seconds: float) -> None:
     _say(f"wrote {out}  ({seconds:.1f} s)")
 
 
+def _executor(engine: str, workers: int | None, scheduler: str | None):
+    """The chunk map for ``--engine``: None (the engine's own loop) or a Dask cluster's."""
+    if engine == "dask":
+        from allowance.cluster import dask_map
+
+        return dask_map(workers=workers, scheduler=scheduler)
+    return contextlib.nullcontext(None)
+
+
 @app.command()
 def run(
     tape: Annotated[Path, typer.Argument(help="The quarter-end loan tape (CSV, XLSX or Parquet).")],
@@ -118,10 +129,26 @@ def run(
         bool, typer.Option("--sensitivities/--no-sensitivities",
                            help="Also rerun with each scenario alone at 100 % weight (restaged).")
     ] = True,
+    engine: Annotated[
+        Engine, typer.Option("--engine", help="Where the loans are computed: this process, or a Dask cluster (same answer).")
+    ] = "in-process",
+    workers: Annotated[
+        int | None, typer.Option("--workers", min=1, help="--engine dask: worker processes of a local cluster.")
+    ] = None,
+    scheduler: Annotated[
+        str | None, typer.Option("--scheduler", help="--engine dask: join the cluster at this address instead.")
+    ] = None,
+    chunk_size: Annotated[
+        int | None, typer.Option("--chunk-size", min=1,
+                                 help="Loans per unit of work (default 250,000); smaller spreads a book over more workers.")
+    ] = None,
 ) -> None:
     """Compute the allowance for a tape and write the workbook, loan detail and run record."""
     from allowance import api
     from allowance.exceptions import AllowanceError
+
+    if engine != "dask" and (workers is not None or scheduler is not None):
+        raise typer.BadParameter("needs --engine dask", param_hint="'--workers' / '--scheduler'")
 
     if charge_offs is not None and prior is None:
         raise typer.BadParameter("needs --prior: the write-offs explain the movement from the prior run",
@@ -129,11 +156,12 @@ def run(
     _check_out(out, tape, assumptions, *(overlay or ()), charge_offs, prior / "loans.csv" if prior else None)
     started = time.perf_counter()
     try:
-        result = api.run(
-            tape, assumptions, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
-            ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,
-            label=label, sensitivities=sensitivities,
-        )
+        with _executor(engine, workers, scheduler) as chunk_map:
+            result = api.run(
+                tape, assumptions, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
+                ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,
+                label=label, sensitivities=sensitivities, map=chunk_map, chunk_size=chunk_size,
+            )
         result.write(out, parquet=parquet)
     except AllowanceError as err:
         _fail(err)

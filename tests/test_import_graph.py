@@ -24,6 +24,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("intake",),  # the reading edge: files into contracts, validated
     ("ecl", "overlays", "backtest", "calibrate"),  # the fused loop, adjustments, back-testing, calibration
     ("engine",),  # chunks of loans through the loop
+    ("cluster",),  # the engine's chunks on a Dask cluster
     ("reconcile",),  # movement, what-if, sensitivities between runs
     ("report",),  # the writing edge: loans.csv, reserve.xlsx, run.json
     ("result",),  # what the API hands back
