@@ -303,7 +303,8 @@ def run(
         config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays,
         scenarios=result.scenarios, term_structures=result.term_structures,
         roll_rates=result.roll_rates, reversion=result.reversion, schedules=result.schedules,
-        sensitivity=sensitivity, macro_paths=macro_paths, what_if_paths=what_if_paths, movement=movements,
+        sensitivity=sensitivity, macro_paths=macro_paths, what_if_paths=what_if_paths, pd_paths=result.pd_paths,
+        movement=movements,
         what_if=what_if, record=record, warnings=warnings,
     )
     return Result(report=run_report, seconds=time.perf_counter() - started)

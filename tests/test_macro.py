@@ -533,3 +533,18 @@ def test_path_changes_list_only_the_paths_a_what_if_moved():
     np.testing.assert_allclose(future["change"], 1.0)
     assert (t[t.month <= 0]["change"] == 0).all()  # history is the same in both
     assert path_changes(base, base, 36).empty
+
+
+def test_the_engine_hands_over_each_segments_pd_path():
+    worse = HISTORY + [6.1] * 8
+    result = engine.run(TAPE, RunConfig(assumptions=_assumptions(
+        {"base": {"weight": 0.5, "macro": {"u": BASELINE_U, "hpi": BASELINE_HPI}},
+         "down": {"weight": 0.5, "macro": {"u": worse, "hpi": BASELINE_HPI}}})), schedule_sample=0)
+    paths = result.pd_paths.set_index(["framework", "scenario", "segment", "month"]).sort_index()
+    assert set(paths.index.get_level_values("segment")) == {"auto", "mort", "cards"}
+    for seg, lag in (("auto", 3), ("mort", 6), ("cards", 0)):
+        base = paths.loc[("ifrs9", "base", seg)]["marginal_pd"]
+        down = paths.loc[("ifrs9", "down", seg)]["marginal_pd"]
+        months = np.arange(1 + lag, 25)  # 2 points worse for 8 quarters, read with the segment's lag
+        assert (down.loc[months] > base.loc[months]).all()
+        assert (down.loc[np.arange(25 + lag, 40)] == base.loc[np.arange(25 + lag, 40)]).all()

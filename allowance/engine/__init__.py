@@ -27,7 +27,7 @@ from __future__ import annotations
 import builtins
 import functools
 from collections.abc import Callable, Iterable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 import numpy as np
@@ -38,6 +38,7 @@ from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, run_chunk
 from allowance.engine.tables import Prepared, SegmentTable, prepare, segment_table, tape_months
 from allowance.engine.views import (
     loan_schedule,
+    pd_path_view,
     roll_rate_table,
     scenario_summary,
     term_structure_table,
@@ -80,6 +81,7 @@ class EngineResult:
     schedules: pd.DataFrame
     findings: pd.DataFrame
     warnings: list[str]
+    pd_paths: pd.DataFrame = field(default_factory=pd.DataFrame)  # PD path by segment, scenario, month
 
 
 # --------------------------------------------------------------------------------------
@@ -169,6 +171,7 @@ def run(
                                    loans, prep, schedule_sample),
         findings=pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame(),
         warnings=list(applied.warnings),
+        pd_paths=pd_path_view(tape, prep),
     )
 
 

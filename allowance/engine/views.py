@@ -14,8 +14,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, curves
-from allowance.engine.chunk import loan_terms
+from allowance import cashflows, curves, macro
+from allowance.engine.chunk import _curve_keys, loan_terms
 from allowance.engine.tables import Prepared
 from allowance.frameworks import rules_for
 from allowance.money import money_total
@@ -82,6 +82,21 @@ def term_structure_table(prep: Prepared) -> pd.DataFrame:
                         "month": months, "marginal_pd": marg[s], "cumulative_pd": cum[s],
                     }))
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+
+
+def pd_path_view(tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
+    """Each segment's monthly PD path per framework and scenario, weighted by the book's balance
+    on each of its curve keys (:func:`allowance.macro.pd_path_table`): what the scenarios' paths
+    do to the PDs, for the workbook's charts."""
+    if tape.empty:
+        return pd.DataFrame()
+    keys = _curve_keys(tape, prep, prep.segments.codes(tape["segment"]))
+    n_keys = prep.pd.shape[1]
+    weights = np.bincount(keys, weights=tape["balance"].to_numpy(float), minlength=n_keys)
+    key_segments = [name for name, ts in prep.structures.items() for _ in ts.keys]
+    frames = [macro.pd_path_table(prep.tables[fw].pd, prep.scenario_names, key_segments, weights, fw)
+              for fw in prep.frameworks]
+    return pd.concat(frames, ignore_index=True)
 
 
 def roll_rate_table(config: RunConfig) -> pd.DataFrame:

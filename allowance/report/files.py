@@ -39,6 +39,7 @@ __all__ = ["OUTPUT_FILES", "OutputPaths", "check_output_path", "write_outputs"]
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
     "what_if.csv", "what_if_stage_changes.csv", "what_if_macro_paths.csv", "sensitivity.csv", "macro_paths.csv",
+    "pd_paths.csv",
     "reserve.xlsx", "summary.xlsx", "run.json",
 )
 
@@ -117,6 +118,9 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
     if report.macro_paths is not None and not report.macro_paths.empty:
         _csv(report.macro_paths, folder / "macro_paths.csv")
         done("macro_paths.csv")
+        if report.pd_paths is not None and not report.pd_paths.empty:  # the PDs those paths produce
+            _csv(report.pd_paths, folder / "pd_paths.csv")
+            done("pd_paths.csv")
     write_workbook(folder / "reserve.xlsx", report)
     done("reserve.xlsx")
     write_summary_workbook(folder / "summary.xlsx", report)

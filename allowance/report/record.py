@@ -68,6 +68,7 @@ class RunReport:
     sensitivity: pd.DataFrame = field(default_factory=pd.DataFrame)
     macro_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
     what_if_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
+    pd_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
     movement: "Movement | tuple[Movement, ...] | Mapping[Framework, Movement] | None" = None
     what_if: "WhatIf | pd.DataFrame | None" = None
     record: dict = field(default_factory=dict)
