@@ -69,7 +69,7 @@ def test_a_bad_history_value_names_the_line(tmp_path):
     frame.to_csv(history, index=False)
     result = invoke("backtest", folder, history, "--out", tmp_path / "bt")
     assert result.exit_code == 1
-    assert "row 5, column days_past_due: days_past_due 'ninety' is not a whole number" in result.output
+    assert "row 5, column days_past_due: days_past_due 'ninety' is not a number" in result.output
 
 
 
