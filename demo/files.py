@@ -502,6 +502,33 @@ weight = 1.0
     return _write_text(out_dir / "downside_only.toml", text)
 
 
+def write_loss_rate_what_if(out_dir: Path, calibration) -> Path:
+    """The personal loans on the remaining-life (WARM) method, at the rate calibrated from the history."""
+    from allowance.calibrate.loss_methods import method_table
+
+    table = method_table(calibration.results, calibration.frame).set_index("segment")
+    rate = float(f"{max(0.0, table.loc['personal', 'annual_loss_rate']):.4g}")
+    lgd = calibration.assumptions.data["segments"]["personal"]["lgd"]
+    start, end = calibration.frame.window
+    text = f"""# What-if for Corrandale Mutual Savings Bank (invented): the personal-loan segment measured
+# with the remaining-life (WARM) loss-rate method instead of its PDs by grade.
+#
+#   allowance run demo/tape_2026q3.csv -a demo/assumptions_2026q3.toml \\
+#       --overlay demo/personal_on_loss_rates.toml --out lr-out
+#
+# what_if.csv then sets the segment's allowance under each method side by side. The rate is
+# the one `allowance calibrate history.parquet --policy policy_2026q3.toml` estimates for the
+# segment (loss_rate_methods.csv: 12 x net credit loss / month-opening balance, {start} to {end});
+# with [calibration] loss_rate_method = {{ personal = "annual_loss_rate" }} it writes it into the
+# assumptions itself. Written by demo/generate.py.
+
+[segments.personal]
+annual_loss_rate = {rate!r}          # annualised net credit loss rate (replaces pd_12m_by_grade)
+lgd = {lgd!r}                      # loans already in default: LGD x EAD, as in the PD method
+"""
+    return _write_text(out_dir / "personal_on_loss_rates.toml", text)
+
+
 # --------------------------------------------------------------------------------------
 # the bad tape and the messy extract
 # --------------------------------------------------------------------------------------

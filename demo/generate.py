@@ -575,6 +575,8 @@ def calibrated(out_dir: Path, quarter: str, history_path: Path, policy: Path) ->
         path = out_dir / name(segment)
         path.write_bytes(matrix_csv(rolls.states, rolls.matrix().probabilities).encode("utf-8"))
         paths.append(path)
+    if quarter == "q3":  # the loss-rate what-if takes its rate from the same calibration
+        paths.append(files.write_loss_rate_what_if(out_dir, cal))
     return paths
 
 

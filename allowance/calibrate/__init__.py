@@ -13,6 +13,7 @@ states         the delinquency state of every loan-month; the month a loan leave
 frame          the calibration frame (as-of month, window, per-segment policy) and MonthView
 roll_rates     monthly roll-rate matrices by count and by balance (Markov chain MLE)
 loss_rates     gross and net credit-loss rates by segment and month
+loss_methods   the loss-rate methods' inputs: closed-pool lifetime rate, vintage loss curves
 cohorts        cohort 12-month default rates by starting bucket and by grade
 hazards        default hazards by grade and by loan age; PD by grade, PD curve by age
 vintages       cumulative default curves by vintage and age (life table)

@@ -34,6 +34,7 @@ from allowance.exceptions import AssumptionsError, HistoryError
 from allowance.schemas import Assumptions, SegmentAssumptions
 
 PD_KEYS = ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix", "pd_curve_by_age")
+LOSS_RATE_KEYS = ("annual_loss_rate", "lifetime_loss_rate", "vintage_loss_curve")
 PREPAY_KEYS = ("cpr", "psa", "cpr_by_age")
 #: Tables a policy file may give (the assumptions file's, but segments, which are estimated).
 POLICY_TABLES = tuple(name for name in Assumptions.model_fields if name != "segments")
@@ -110,9 +111,54 @@ def _month_end(month: int) -> date:
 # --------------------------------------------------------------------------------------
 
 
+def _loss_rate_entries(name: str, s: int, frame: Frame, results: dict) -> list[Entry]:
+    """The segment's loss-rate method (chosen in the settings), estimated from the history."""
+    method = frame.pd_source[s]
+    start, end = frame.window
+    if method == "annual_loss_rate":
+        averages = results["loss_rates"].averages
+        row = averages[averages["segment"] == name]
+        if not len(row) or not math.isfinite(row.iloc[0]["ncl_rate_annualised"]) or row.iloc[0]["opening_balance"] <= 0:
+            raise HistoryError(f"segment {name!r}: no balance on the book in the window {start} to {end}",
+                               hint="widen the window, or choose another method for the segment")
+        row = row.iloc[0]
+        return [Entry("annual_loss_rate", _sig(max(0.0, float(row["ncl_rate_annualised"])), 4),
+                      f"remaining-life (WARM) method: 12 x net credit loss / opening balance, {start} to {end}: "
+                      f"{_count(row['net_credit_loss'])} net loss over {_count(row['opening_balance'])} of "
+                      f"month-opening balances ({_count(row['months'])} months)")]
+    found = results["loss_methods"]
+    if method == "lifetime_loss_rate":
+        row = found.pool[found.pool["segment"] == name].iloc[0]
+        if not row["start_balance"] > 0:
+            raise HistoryError(f"segment {name!r} had no balance on the book in the history's first month, "
+                               "so it has no closed pool to follow",
+                               hint="choose annual_loss_rate or vintage_loss_curve for it")
+        return [Entry("lifetime_loss_rate", _sig(min(1.0, max(0.0, float(row["lifetime_loss_rate"]))), 4),
+                      f"pool method: net credit loss of the {_count(row['loans'])} loans on the book at the end of "
+                      f"{row['start_month']} to {end}, over their balance then ({_count(row['start_balance'])}); "
+                      f"{100 * row['run_off']:.1f} % of that balance is still on the book (a rate for a pool "
+                      "not run off understates the lifetime loss: review)")]
+    curve = found.curves.get(name) or []
+    if not curve:
+        raise HistoryError(
+            f"segment {name!r}: no year of age was reached by {frame.settings.min_vintage_loans} loans seen from "
+            "origination with an original_balance, so no vintage loss curve can be drawn",
+            hint="lower min_vintage_loans, add original_balance and origination_date, or choose another method",
+        )
+    table = found.vintage[found.vintage["segment"] == name].set_index("age")
+    comments = tuple(f"age {12 * k} months: {_count(table.loc[12 * k, 'loans_reached'])} loans reached it"
+                     for k in range(1, len(curve) + 1))
+    return [Entry("vintage_loss_curve", [_sig(c, 4) for c in curve],
+                  f"vintage method: cumulative net credit loss / original balance by year of age, every vintage "
+                  f"seen from origination pooled (loss at age a over the original balance of the loans that "
+                  f"reached a), {month_label(frame.first_month)} to {end}; flat after the last year", comments)]
+
+
 def _pd_entries(name: str, s: int, frame: Frame, results: dict, choices: list[Choice]) -> list[Entry]:
     source = frame.pd_source[s]
     start, end = frame.window
+    if source in LOSS_RATE_KEYS:
+        return _loss_rate_entries(name, s, frame, results)
     hz = results["hazards"]
     if source == "pd_curve_by_age" and not hz.pd_curve_by_age.get(name):
         choices.append(Choice(f"segments.{name}.pd_source", "pd_12m", "derived",
@@ -259,12 +305,14 @@ def _segment_table(name: str, s: int, frame: Frame, results: dict, policy: Mappi
                    policy_file: Path | None, choices: list[Choice]) -> tuple[Table, dict[str, Any]]:
     entries = _pd_entries(name, s, frame, results, choices)
     own = dict(policy.get(name, {}) or {})
-    given_pd = [k for k in PD_KEYS if k in own]
+    given_pd = [k for k in (*PD_KEYS, *LOSS_RATE_KEYS) if k in own]
     if given_pd:
+        what = "loss rate" if given_pd[0] in LOSS_RATE_KEYS else "PD"
+        setting = "loss_rate_method" if given_pd[0] in LOSS_RATE_KEYS else "pd_source"
         raise AssumptionsError(
-            f"the policy file gives {given_pd[0]} for segment {name!r}; the PD is what calibration estimates",
+            f"the policy file gives {given_pd[0]} for segment {name!r}; the {what} is what calibration estimates",
             file=policy_file, column=f"segments.{name}.{given_pd[0]}",
-            hint=f'choose the PD source in [calibration] pd_source = {{ {name} = "..." }} instead',
+            hint=f'choose it in [calibration] {setting} = {{ {name} = "..." }} instead',
         )
     lgd = _lgd_entry(name, frame, results, choices) if "lgd" not in own else None
     if lgd is not None:

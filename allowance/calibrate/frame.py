@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from allowance.calibrate.settings import CalibrationSettings, Choice, PdSourceChoice
+from allowance.calibrate.settings import CalibrationSettings, Choice, LossRateChoice, PdSourceChoice
 from allowance.calibrate.states import AFTER_EXIT, CHARGE_OFF, PAID_OFF, first_exit, month_states
 from allowance.exceptions import HistoryError
 from allowance.intake.panel import NO_MONTH, LoanMonths, LoanMonthPanel
@@ -65,7 +65,7 @@ class Frame:
     revolving : ndarray of bool
         Segments whose rows carry a credit limit.
     pd_source : tuple of str
-        The PD source chosen per segment code.
+        The PD source chosen per segment code, or the loss-rate method that replaces it.
     has : frozenset of str
         The optional panel columns the history has.
     choices : list of Choice
@@ -79,7 +79,7 @@ class Frame:
     window_start: int
     charge_off_dpd: np.ndarray
     revolving: np.ndarray
-    pd_source: tuple[PdSourceChoice, ...]
+    pd_source: tuple[PdSourceChoice | LossRateChoice, ...]
     has: frozenset[str]
     settings: CalibrationSettings
     rows_after_as_of: int = 0
@@ -111,7 +111,8 @@ def build_frame(panel: LoanMonthPanel, first_month: str, last_month: str, settin
     window_start = max(first + 1, as_of - settings.window_months + 1)
     profile = panel.profile
     segments = tuple(panel.segments)
-    unknown = [s for s in (*settings.charge_off_dpd, *settings.pd_source) if s not in segments]
+    unknown = [s for s in (*settings.charge_off_dpd, *settings.pd_source, *settings.loss_rate_method)
+               if s not in segments]
     if unknown:
         raise HistoryError(
             f"the settings name segment {unknown[0]!r}, which the history does not have",
@@ -156,6 +157,15 @@ def build_frame(panel: LoanMonthPanel, first_month: str, last_month: str, settin
                 f"segment {name!r} is to take {pd_source}, but its rows have no {needs[pd_source][1]}",
                 hint="choose another PD source for it, or add the column to the history",
             )
+        if name in settings.loss_rate_method:
+            method = settings.loss_rate_method[name]
+            if method == "vintage_loss_curve" and is_revolving:
+                raise HistoryError(
+                    f"segment {name!r} is revolving (its rows carry a credit_limit); a vintage loss curve needs "
+                    "loans with an original balance",
+                    hint="choose annual_loss_rate or lifetime_loss_rate for it",
+                )
+            pd_source, source, why = method, "given", "a loss-rate method, stated in the settings (no PD source)"
         sources.append(pd_source)
         choices.append(Choice(f"segments.{name}.pd_source", pd_source, source, why))
     return Frame(

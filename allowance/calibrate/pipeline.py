@@ -42,6 +42,7 @@ from allowance.calibrate import (
     cohorts,
     hazards,
     lgd,
+    loss_methods,
     loss_rates,
     payment_rates,
     prepayment,
@@ -70,6 +71,7 @@ ESTIMATORS: dict[str, Estimator] = {
     for e in (
         Estimator("roll_rates", roll_rates.collect, roll_rates.estimate),
         Estimator("loss_rates", loss_rates.collect, loss_rates.estimate),
+        Estimator("loss_methods", loss_methods.collect, loss_methods.estimate),
         Estimator("cohorts", cohorts.collect, cohorts.estimate),
         Estimator("hazards", hazards.collect, hazards.estimate),
         Estimator("vintages", vintages.collect, vintages.estimate),
@@ -93,7 +95,7 @@ class Calibration:
     frame : Frame
         The as-of month, the window, and each segment's charge-off point and PD source.
     results : dict
-        Each estimator's result by name (``roll_rates``, ``loss_rates``, ``cohorts``,
+        Each estimator's result by name (``roll_rates``, ``loss_rates``, ``loss_methods``, ``cohorts``,
         ``hazards``, ``vintages``, ``lgd``, ``ccf``, ``payment_rates``, ``prepayment``, and
         any extra estimators).
     assumptions : AssumptionsDraft

@@ -12,6 +12,7 @@ Implements
 CalibrationSettings  the options, validated
 Choice               one choice made: what, the value used, and where it came from
 PdSourceChoice       the PD sources a calibration can write
+LossRateChoice       the loss-rate methods a calibration can write instead of a PD source
 """
 
 from __future__ import annotations
@@ -23,6 +24,7 @@ from typing import Annotated, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 PdSourceChoice = Literal["transition_matrix", "pd_12m_by_grade", "pd_curve_by_age", "pd_12m"]
+LossRateChoice = Literal["annual_loss_rate", "lifetime_loss_rate", "vintage_loss_curve"]
 Weighting = Literal["count", "balance"]
 ZeroDefaultRule = Literal["jeffreys_mean", "zero"]
 RecoveryDiscount = Literal["contract_rate", "none"]
@@ -61,6 +63,19 @@ class CalibrationSettings(BaseModel):
         description="PD source written for each segment. Default: transition_matrix for "
                     "revolving segments, pd_12m_by_grade where the history has grades, "
                     "pd_curve_by_age where it has origination dates, pd_12m otherwise.",
+    )
+    loss_rate_method: dict[str, LossRateChoice] = Field(
+        default_factory=dict,
+        description="Segments written with a loss-rate method instead of a PD source: "
+                    "'annual_loss_rate' (remaining-life / WARM: the window's annualised net credit-loss "
+                    "rate), 'lifetime_loss_rate' (pool: the closed pool's net loss over its starting "
+                    "balance) or 'vintage_loss_curve' (cumulative net loss / original balance by year of "
+                    "age). Default: none (every segment takes its PD source). The evidence shows all three.",
+    )
+    min_vintage_loans: Annotated[int, Field(ge=1)] = Field(
+        default=100,
+        description="Loans seen from origination that must have reached the end of a year of age for "
+                    "that year to enter a vintage loss curve; the curve is flat after its last year.",
     )
     zero_default_rule: ZeroDefaultRule = Field(
         default="jeffreys_mean",
@@ -109,7 +124,7 @@ def settings_choices(settings: CalibrationSettings, given: set[str]) -> list[Cho
     """The settings as choices: the value used and whether it was given or the default."""
     out = []
     for name, info in CalibrationSettings.model_fields.items():
-        if name in ("columns", "date_format", "as_of", "charge_off_dpd", "pd_source"):
+        if name in ("columns", "date_format", "as_of", "charge_off_dpd", "pd_source", "loss_rate_method"):
             continue
         value = getattr(settings, name)
         out.append(Choice(name, str(value), "given" if name in given else "default", info.description or ""))

@@ -16,6 +16,8 @@ Files
 ``rolls_<segment>_by_<other>.csv`` the other weighting, in the same form
 ``rolls_<segment>_counts.csv``     the observations behind them
 ``loss_rates.csv``                 segment, month, opening balance, GCL, NCL and their rates
+``loss_rate_methods.csv``          per segment the WARM, pool and vintage inputs estimated
+``vintage_losses.csv``             net loss by segment and month of age over original balance
 ``calibration.xlsx``               the evidence a validator asks for
 ``rejected.csv``, ``warnings.csv`` history rows rejected (with line and reasons) and flagged
 ``calibration.json``               the calibration record (written last: it marks a complete folder)
@@ -61,7 +63,8 @@ CALIBRATION_CAUTION = (
 )
 
 CALIBRATION_FILES: tuple[str, ...] = (
-    "assumptions.toml", "loss_rates.csv", "rejected.csv", "warnings.csv", "calibration.xlsx", "calibration.json",
+    "assumptions.toml", "loss_rates.csv", "loss_rate_methods.csv", "vintage_losses.csv", "rejected.csv",
+    "warnings.csv", "calibration.xlsx", "calibration.json",
 )
 _BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
 _WIDTH = 100
@@ -288,6 +291,12 @@ def _write_all(folder: Path, calibration: "Calibration", matrix_name: Callable[[
         text(f"{stem}_counts.csv", matrix_csv(rolls.states, rolls.counts, integers=True))
     _csv(calibration.results["loss_rates"].table, folder / "loss_rates.csv")
     written.append("loss_rates.csv")
+    from allowance.calibrate.loss_methods import method_table
+
+    _csv(method_table(calibration.results, calibration.frame), folder / "loss_rate_methods.csv")
+    written.append("loss_rate_methods.csv")
+    _csv(calibration.results["loss_methods"].vintage, folder / "vintage_losses.csv")
+    written.append("vintage_losses.csv")
     _csv(calibration.intake.rejected, folder / "rejected.csv")
     written.append("rejected.csv")
     findings = calibration.intake.findings

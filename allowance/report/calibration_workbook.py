@@ -312,6 +312,35 @@ def _losses(book: _Book, cal: "Calibration") -> None:
         chart_row += 16
 
 
+def _loss_methods(book: _Book, cal: "Calibration") -> None:
+    from allowance.calibrate.loss_methods import method_table
+
+    ws = book.sheet("Loss-rate methods", {0: 12, 1: 16, 2: 16, 3: 14, 4: 44})
+    found = cal.results["loss_methods"]
+    ws.write_string(0, 0, "Inputs of the loss-rate methods (WARM, pool, vintage), estimated from the history",
+                    book.title)
+    ws.write_string(1, 0, "WARM: the window's annualised NCL rate; pool: NCL of the loans on the book in the first "
+                          "month over their balance then; vintage: cumulative NCL / original balance by age, vintages "
+                          "seen from origination pooled. A segment takes one in the assumptions only when "
+                          "[calibration] loss_rate_method names it (method_written).")
+    table = method_table(cal.results, cal.frame)
+    _, _, last = _put(book, ws, 3, 0, table, title="By segment (loss_rate_methods.csv)",
+                      formats={c: book.pct for c in ("annual_loss_rate", "lifetime_loss_rate", "pool_run_off")})
+    _, _, last = _put(book, ws, last + 3, 0, found.pool, title="The closed pools (on the book at the end of the "
+                      "history's first month)", formats={"lifetime_loss_rate": book.pct, "run_off": book.pct})
+    row = last + 3
+    vintage = found.vintage
+    for k, name in enumerate(vintage["segment"].unique() if not vintage.empty else []):
+        rows = vintage[vintage["segment"] == name]
+        _, first, end = _put(book, ws, row, 0, rows, title=f"{name}: net loss by month of age (vintage_losses.csv)",
+                             formats={"marginal_loss_rate": book.pct, "cumulative_loss_rate": book.pct})
+        chart = _line_chart(book, f"{name}: cumulative net loss / original balance by age (months)",
+                            "cumulative loss rate")
+        _series(chart, ws.name, "cumulative loss rate", (1, first, end), (6, first, end), k)
+        ws.insert_chart(row, 8, chart)
+        row = max(end, row + 16) + 3
+
+
 def _vintages(book: _Book, cal: "Calibration") -> None:
     ws = book.sheet("Vintages", {0: 10})
     vt = cal.results["vintages"]
@@ -461,6 +490,7 @@ def write_calibration_workbook(path: Path, calibration: "Calibration",
         _roll_series(book, calibration)
         _defaults(book, calibration)
         _losses(book, calibration)
+        _loss_methods(book, calibration)
         _vintages(book, calibration)
         _lgd(book, calibration)
         _exposure(book, calibration)
