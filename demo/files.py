@@ -678,6 +678,7 @@ DESCRIPTIONS = {
     "cards_rolls.csv": ("transition_matrix", "The roll rates the card history was simulated from (the raw extract's run uses them)."),
     "downside_only.toml": ("overlay", "What-if: 100 % weight on the downside scenario."),
     "worse_unemployment.toml": ("overlay", "What-if: a worse unemployment outlook (base and downside paths)."),
+    "personal_on_loss_rates.toml": ("overlay", "What-if: personal loans on the WARM method at the calibrated loss rate."),
     "bad_tape.csv": ("tape", "A small tape with one deliberately bad row per fault, among good rows."),
     "messy_extract.csv": ("tape", "A raw loan-system extract: odd headers, day-first dates, a BOM, faults."),
     "messy_assumptions.toml": ("assumptions", "Assumptions for the raw extract, with its column mapping."),
