@@ -391,7 +391,10 @@ def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
     for field in fields(KernelInputs):
         value = getattr(inputs, field.name)
         dtype = np.int64 if field.name in _INTEGER else (np.bool_ if field.name == "in_default" else np.float64)
-        out.append(np.ascontiguousarray(value, dtype=dtype))
+        array = np.ascontiguousarray(value, dtype=dtype)
+        # read-only-ness is part of a compiled signature: a read-only view (an Arrow-backed
+        # column) and a writable array would each compile the loop (12-16 s); one kind, one compile
+        out.append(array if array.flags.writeable else array.copy())
     a = dict(zip([f.name for f in fields(KernelInputs)], out))
     n = a["balance"].shape[0]
     n_fw, n_keys, n_months, n_sc = a["pd"].shape

@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import dataclasses
 
+import numba
 import numpy as np
 import numpy_financial as npf
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from allowance import ecl
 from allowance.curves.lgd import collateral_lgd
 from allowance.ecl import KernelInputs, KernelResult, expected_losses
 from tests.strategies import random_kernel_book
@@ -209,3 +211,22 @@ def test_empty_book():
 def test_bad_inputs_are_refused_not_read_past_the_tables(field, value, message):
     with pytest.raises(ValueError, match=message):
         expected_losses(_one_loan(**{field: value}))
+
+
+def test_read_only_and_writable_inputs_share_one_compiled_loop():
+    """A read-only view (an Arrow-backed column) must not compile the loop a second time.
+
+    numba makes read-only-ness part of an array's type (numba documentation, "Supported
+    NumPy features": readonly arrays), so the inputs are normalised to writable first.
+    """
+    hazard = np.full((1, 1, 60, 1), 0.002)
+    writable = _one_loan(pd=hazard.copy())
+    frozen = _one_loan(pd=hazard.copy())
+    for name in ("balance", "rate", "lgd", "pd"):
+        getattr(frozen, name).flags.writeable = False
+    a, b = expected_losses(writable), expected_losses(frozen)
+    np.testing.assert_array_equal(a.ecl_lifetime, b.ecl_lifetime)
+    assert a.ecl_lifetime.sum() > 0
+    arrays = [t for sig in ecl._kernel.signatures for t in sig if isinstance(t, numba.types.Array)]
+    assert arrays and all(t.mutable for t in arrays)
+    assert not getattr(frozen, "balance").flags.writeable  # the caller's array is left as it was
