@@ -112,7 +112,14 @@ class LoanRecord(BaseModel):
     )
     grade: str | None = Field(default=None, description="Risk grade, for PDs given by grade.")
     pd_12m_at_origination: Probability | None = Field(
-        default=None, description="12-month PD at initial recognition, for the IFRS 9 PD-ratio test."
+        default=None,
+        description="12-month PD at initial recognition (the purchase, for POCI loans), on the scale of "
+        "pd_12m_current: the IFRS 9 PD-ratio test compares the two.",
+    )
+    pd_12m_current: Probability | None = Field(
+        default=None,
+        description="The loan's own 12-month PD at the as-of date (e.g. from a behavioural score), on the "
+        "scale of pd_12m_at_origination: stages the loan and sets its PD level in the ECL.",
     )
     collateral_value: Amount | None = Field(
         default=None, description="Current collateral value, for collateral-based LGD."
@@ -128,7 +135,9 @@ class LoanRecord(BaseModel):
         default=None, description="IFRS 9 stage at the previous reporting date, for probation."
     )
     months_performing: Months | None = Field(
-        default=None, description="Consecutive months current, for probation out of stage 2 or 3."
+        default=None,
+        description="Consecutive months performing since the loan entered its prior_stage (the count "
+        "restarts when the stage changes), for probation out of stage 3 and stage 2.",
     )
     balloon_amount: Amount | None = Field(
         default=None, description="Balloon loans: the amount due at maturity; computed when blank."
@@ -140,7 +149,19 @@ class LoanRecord(BaseModel):
         default=None, description="Interest-only loans: months of interest only from origination, then level pay."
     )
     lifetime_ecl_at_purchase: Amount | None = Field(
-        default=None, description="POCI assets: lifetime ECL at purchase (allowance is the change since)."
+        default=None,
+        description="POCI assets: lifetime ECL at purchase (the allowance is the change since); required "
+        "unless purchased in the reporting period, when it is measured at the purchase date.",
+    )
+    credit_adjusted_eir: Probability | None = Field(
+        default=None,
+        description="POCI assets: the credit-adjusted effective interest rate, nominal annual, that "
+        "discounts their expected credit losses (IFRS 9 B5.5.45); required for POCI loans under IFRS 9.",
+    )
+    modified: bool = Field(
+        default=False,
+        description="Contractual cash flows renegotiated or modified in the period without "
+        "derecognition (IFRS 9 5.4.3): the loan's remeasurement is shown on its own movement line.",
     )
     original_balance: NonNegative | None = Field(
         default=None, description="Amount lent at origination; needed where the segment uses a vintage loss curve."
@@ -255,6 +276,11 @@ class RunSection(_Strict):
     max_input_mb: float = Field(default=2048.0, gt=0, description="Largest input file read, in MiB.")
     loan_detail_sheet_limit: int = Field(
         default=200_000, ge=0, description="Above this many loans, loan detail goes to CSV/Parquet only."
+    )
+    period_months: Annotated[int, Field(ge=1, le=12)] = Field(
+        default=3,
+        description="Length in months of the reporting period that ends at as_of (3: a quarter). Loans "
+        "purchased within it are the period's purchases (POCI / PCD measured at the purchase date).",
     )
 
     @field_validator("frameworks")
@@ -440,8 +466,21 @@ class SegmentAssumptions(_Strict):
     amortization_months: PositiveMonths | None = Field(
         default=None, description="Balloon loans without the tape column: amortization term from origination."
     )
-    low_credit_risk: bool = Field(default=False, description="IFRS 9 5.5.10 exemption for the whole segment.")
-    low_credit_risk_grades: list[str] = Field(default_factory=list)
+    low_credit_risk: bool = Field(
+        default=False,
+        description="Not accepted as true: IFRS 9 5.5.10 is tested loan by loan at the reporting date "
+        "(low_credit_risk_pd or low_credit_risk_grades).",
+    )
+    low_credit_risk_pd: Probability | None = Field(
+        default=None,
+        description="IFRS 9 5.5.10 / B5.5.22: a loan whose pd_12m_current is at or below this at the "
+        "reporting date has low credit risk (the PD-ratio test is not applied to it).",
+    )
+    low_credit_risk_grades: list[str] = Field(
+        default_factory=list,
+        description="IFRS 9 5.5.10 / B5.5.23: a loan whose grade at the reporting date is one of these has "
+        "low credit risk. With low_credit_risk_pd too, a loan must meet both.",
+    )
     retail_class: RetailClass | None = Field(
         default=None, description="Basel II retail class, for the Vasicek asset correlation."
     )
@@ -480,6 +519,12 @@ class SegmentAssumptions(_Strict):
             raise ValueError(f"give at most one prepayment source; found {', '.join(prepay)}")
         if self.transition_matrix is not None and self.charge_off_dpd is None:
             raise ValueError("a transition_matrix needs charge_off_dpd (120 closed-end, 180 revolving)")
+        if self.low_credit_risk:
+            raise ValueError(
+                "low_credit_risk = true would exempt every loan of the segment without testing it; IFRS 9 "
+                "5.5.10 is tested per loan at the reporting date: state low_credit_risk_pd (a 12-month PD "
+                "threshold for pd_12m_current) or low_credit_risk_grades"
+            )
         return self
 
     @property
@@ -498,8 +543,17 @@ class SegmentAssumptions(_Strict):
         return self.pd_source or self.loss_rate_method  # type: ignore[return-value]
 
 
+SicrPdMeasure = Literal["12_month", "lifetime"]
+
+
 class Ifrs9Rules(_Strict):
-    """``[ifrs9]``: staging rules. The DPD defaults are the standard's presumptions."""
+    """``[ifrs9]``: staging rules. The DPD defaults are the standard's presumptions.
+
+    ``sicr_pd_measure`` is a policy choice the standard leaves to the entity, so it has no
+    default: ``lifetime`` compares the risk of default over the remaining life now with the
+    same at initial recognition (IFRS 9 5.5.9); ``12_month`` uses the change in 12-month PD
+    as its approximation (B5.5.13).
+    """
 
     sicr_backstop_dpd: DaysPastDue = Field(
         default=30, description="Stage 2 when days past due exceed this (IFRS 9 5.5.11)."
@@ -508,18 +562,23 @@ class Ifrs9Rules(_Strict):
         default=90, description="Stage 3 at or beyond this (IFRS 9 B5.5.37)."
     )
     sicr_pd_ratio: Annotated[float, Field(gt=1.0)] = Field(
-        description="Stage 2 when 12-month PD now / PD at origination reaches this."
+        description="Stage 2 when the loan's PD now / its PD at initial recognition reaches this."
+    )
+    sicr_pd_measure: SicrPdMeasure = Field(
+        description="The PD the ratio compares: 'lifetime' (IFRS 9 5.5.9, over the remaining life, "
+        "the same months at both dates) or '12_month' (the B5.5.13 approximation)."
     )
     sicr_min_pd_increase: Probability = Field(
-        default=0.0, description="...and PD now - PD at origination is at least this."
+        default=0.0, description="...and PD now - PD at initial recognition is at least this."
     )
     watchlist_is_sicr: bool = True
     forborne_is_sicr: bool = True
     probation_months_stage3: Months = Field(
-        default=0, description="Months performing before a loan leaves stage 3."
+        default=0, description="Months performing in stage 3 before a loan leaves it (for stage 2: the cure "
+        "path is 3 -> 2 -> 1)."
     )
     probation_months_stage2: Months = Field(
-        default=0, description="Months performing before a loan leaves stage 2."
+        default=0, description="Months performing in stage 2 before a loan leaves it for stage 1."
     )
 
     @model_validator(mode="after")

@@ -2,11 +2,15 @@
 
 Implements
 ----------
-assign_stages    IFRS 9 stage 1/2/3 per loan with the reason, probation and POCI
-in_default       the PD = 1 test (days past due at the default threshold, defaulted, bankrupt)
-lifetime_months  each loan's life: remaining term, or a revolving line's behavioural life
-stage_horizon    IFRS 9: 12 months in stage 1 (or the life if shorter), else the life
-lifetime_horizon CECL: the life of every loan
+assign_stages       IFRS 9 stage 1/2/3 per loan with the reason, the cure path and POCI
+pd_ratio_coverage   per segment: how many loans the PD-ratio test could be applied to, and why not
+pd_ratio_warnings   the run's warnings for loans and segments the PD-ratio test skips (said once)
+lifetime_pd         lifetime PD over a number of months from a 12-month PD (constant hazard)
+stage_class         the one stage vocabulary: "stage 1", "stage 2", "stage 3", "POCI"
+in_default          the PD = 1 test (days past due at the default threshold, defaulted, bankrupt)
+lifetime_months     each loan's life: remaining term, or a revolving line's behavioural life
+stage_horizon       IFRS 9: 12 months in stage 1 (or the life if shorter), else the life
+lifetime_horizon    CECL: the life of every loan
 
 Every rule is vectorised over the tape; the only Python loops run over segments or rule
 codes, never over loans.
@@ -20,9 +24,16 @@ import pandas as pd
 from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.schemas import Ifrs9Rules, SegmentAssumptions
 
-__all__ = ["assign_stages", "in_default", "lifetime_horizon", "lifetime_months", "stage_horizon"]
+__all__ = [
+    "STAGE_CLASSES", "assign_stages", "in_default", "lifetime_horizon", "lifetime_months", "lifetime_pd",
+    "pd_ratio_coverage", "pd_ratio_warnings", "stage_class", "stage_horizon",
+]
 
 _SLACK = 1e-12
+
+#: The reporting classes of IFRS 9, in the order every output shows them: stages 1-3 and
+#: purchased or originated credit-impaired assets apart (IFRS 7 35H(c), 35M).
+STAGE_CLASSES: tuple[str, ...] = ("stage 1", "stage 2", "stage 3", "POCI")
 
 
 def in_default(tape: pd.DataFrame, default_dpd: int) -> np.ndarray:
@@ -64,19 +75,6 @@ def _segment_lookup(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions])
         )
 
 
-def _low_credit_risk(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions]) -> np.ndarray:
-    out = np.zeros(len(tape), dtype=bool)
-    segment = tape["segment"].to_numpy(dtype=object)
-    grade = tape["grade"] if "grade" in tape.columns else pd.Series(pd.NA, index=tape.index)
-    for name, seg in segments.items():
-        if not (seg.low_credit_risk or seg.low_credit_risk_grades):
-            continue
-        in_segment = segment == name
-        exempt = np.ones(len(tape), bool) if seg.low_credit_risk else grade.isin(seg.low_credit_risk_grades).to_numpy()
-        out |= in_segment & exempt
-    return out
-
-
 def _flag(tape: pd.DataFrame, column: str) -> np.ndarray:
     return tape[column].to_numpy(dtype=bool) if column in tape.columns else np.zeros(len(tape), bool)
 
@@ -87,11 +85,72 @@ def _number(tape: pd.DataFrame, column: str) -> np.ndarray:
     return tape[column].to_numpy(dtype=float, na_value=np.nan)
 
 
+def lifetime_pd(pd_12m, months) -> np.ndarray:
+    r"""Probability of default within ``months`` months, from a 12-month PD at a constant hazard.
+
+    Notes
+    -----
+    .. math:: PD_{life}(m) = 1 - (1 - PD_{12})^{m / 12}
+
+    (survival is log-linear in time: the hazard is the same every month). Used by the
+    lifetime PD-ratio test, which evaluates the PD now and the PD at initial recognition over
+    the *same* remaining months, so that the comparison is like with like and a loan does
+    not look safer merely because it has fewer months left (IFRS 9 B5.5.11).
+
+    References
+    ----------
+    .. [1] IFRS 9 Financial Instruments, paragraphs 5.5.9 and B5.5.11.
+
+    Examples
+    --------
+    >>> lifetime_pd([0.02, 0.02, 0.02], [12, 6, 36]).round(6).tolist()
+    [0.02, 0.010051, 0.058808]
+    """
+    p = np.asarray(pd_12m, dtype=float)
+    m = np.asarray(months, dtype=float)
+    with np.errstate(divide="ignore"):
+        return -np.expm1(np.log1p(-np.minimum(p, 1.0)) * m / 12.0)
+
+
+def _low_credit_risk(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions], pd_now: np.ndarray) -> np.ndarray:
+    """Per loan, at the reporting date: PD at or below the segment's threshold and/or grade listed."""
+    out = np.zeros(len(tape), dtype=bool)
+    segment = tape["segment"].to_numpy(dtype=object)
+    grade = tape["grade"] if "grade" in tape.columns else pd.Series(pd.NA, index=tape.index)
+    for name, seg in segments.items():
+        if seg.low_credit_risk_pd is None and not seg.low_credit_risk_grades:
+            continue
+        low = segment == name
+        if seg.low_credit_risk_pd is not None:
+            # a loan without its own current PD cannot be shown to have low credit risk
+            low &= ~np.isnan(pd_now) & (np.nan_to_num(pd_now, nan=1.0) <= seg.low_credit_risk_pd + _SLACK)
+        if seg.low_credit_risk_grades:
+            low &= grade.isin(seg.low_credit_risk_grades).to_numpy()
+        out |= low
+    return out
+
+
+def _pd_ratio(pd_now: np.ndarray, pd_orig: np.ndarray, remaining: np.ndarray | None, rules: Ifrs9Rules) -> np.ndarray:
+    """Where both PDs are known: the ratio and minimum-increase tests on the chosen measure."""
+    known = ~np.isnan(pd_now) & ~np.isnan(pd_orig)
+    now, orig = np.nan_to_num(pd_now), np.nan_to_num(pd_orig)
+    if rules.sicr_pd_measure == "lifetime":
+        now, orig = lifetime_pd(now, remaining), lifetime_pd(orig, remaining)
+    # slack of 1e-12 so that a boundary the user states (3 % - 1 % >= 0.02) is met in floats
+    return (
+        known
+        & (now >= rules.sicr_pd_ratio * orig - _SLACK)
+        & (now - orig >= rules.sicr_min_pd_increase - _SLACK)
+        & (now > orig)
+    )
+
+
 def assign_stages(
     tape: pd.DataFrame,
-    pd_12m_now: np.ndarray,
     rules: Ifrs9Rules,
     segments: dict[str, SegmentAssumptions],
+    *,
+    remaining_months=None,
 ) -> pd.DataFrame:
     r"""IFRS 9 stage of every loan, the reason for it, and whether it is POCI.
 
@@ -99,20 +158,21 @@ def assign_stages(
     ----------
     tape : DataFrame
         The accepted tape: ``segment, days_past_due, defaulted, bankrupt`` and, where
-        present, ``grade, pd_12m_at_origination, watchlist, forborne, prior_stage,
-        months_performing, credit_impaired_at_purchase``.
-    pd_12m_now : ndarray, shape (n,)
-        Each loan's 12-month PD at the reporting date (base scenario).
+        present, ``grade, pd_12m_current, pd_12m_at_origination, watchlist, forborne,
+        prior_stage, months_performing, credit_impaired_at_purchase``.
     rules : Ifrs9Rules
         The ``[ifrs9]`` table.
     segments : dict of SegmentAssumptions
-        For the low-credit-risk exemption.
+        For the low-credit-risk tests.
+    remaining_months : array_like of int, optional
+        Remaining life in months per loan; required when ``rules.sicr_pd_measure`` is
+        ``"lifetime"``.
 
     Returns
     -------
     DataFrame
         Index ``tape.index``; ``stage`` (int8), ``stage_reason`` (codes joined by ";"),
-        ``poci`` (bool).
+        ``poci`` (bool) and ``stage_class`` (:data:`STAGE_CLASSES`).
 
     Raises
     ------
@@ -122,57 +182,69 @@ def assign_stages(
     Notes
     -----
     Stage 3: ``dpd>=D`` (days past due at or beyond ``default_dpd``), ``defaulted``,
-    ``bankrupt``. Stage 2: ``dpd>B`` (beyond ``sicr_backstop_dpd``); ``pd_ratio``, where PD
-    at origination is given, when :math:`PD_{now} \ge r \cdot PD_{orig}`,
-    :math:`PD_{now} - PD_{orig} \ge` ``sicr_min_pd_increase`` and PD rose; ``watchlist`` and
-    ``forborne`` where configured as SICR. Otherwise stage 1, ``performing``.
+    ``bankrupt``. Stage 2: ``dpd>B`` (beyond ``sicr_backstop_dpd``); ``watchlist`` and
+    ``forborne`` where configured as SICR; ``pd_ratio``, the loan's own PD now against its own
+    PD at initial recognition, on one scale:
 
-    Low credit risk (segment ``low_credit_risk`` or a grade in ``low_credit_risk_grades``):
-    the PD-ratio test is not applied; a loan it would have moved stays in stage 1 with
-    reason ``low_credit_risk``. DPD and flags still apply.
+    .. math:: PD_{now} \ge r \cdot PD_{orig}, \quad PD_{now} - PD_{orig} \ge \Delta_{min},
+              \quad PD_{now} > PD_{orig}
 
-    Probation: a loan whose ``prior_stage`` is 3 (2) and that now meets only a better stage
-    stays in its prior stage (``probation_from_3`` / ``probation_from_2``) while
-    ``months_performing`` is below ``probation_months_stage3`` (``_stage2``); a blank
-    ``months_performing`` counts as 0. A loan leaving stage 3 goes to its current stage.
+    with :math:`PD_{now}` = ``pd_12m_current`` and :math:`PD_{orig}` =
+    ``pd_12m_at_origination`` (``sicr_pd_measure = "12_month"``, B5.5.13), or both turned
+    into lifetime PDs over the loan's remaining months by :func:`lifetime_pd`
+    (``"lifetime"``, 5.5.9). A loan lacking either PD is not given the test (never a pool
+    PD against a loan PD); :func:`pd_ratio_warnings` says so once per run.
 
-    POCI (``credit_impaired_at_purchase``): always lifetime ECL, stage 3 while a stage-3
-    trigger (or probation) holds, else stage 2; the reason starts with ``poci``.
+    Low credit risk (5.5.10), tested per loan at the reporting date: ``pd_12m_current`` at or
+    below the segment's ``low_credit_risk_pd`` and/or ``grade`` in its
+    ``low_credit_risk_grades`` (both when both are given). The PD-ratio test is not applied
+    to such a loan; one it would have moved stays in stage 1 with reason
+    ``low_credit_risk``. Days past due and the flags still apply.
+
+    Cure path 3 -> 2 -> 1. ``months_performing`` counts months performing since the loan
+    entered its ``prior_stage`` (blank counts as 0). A loan whose prior stage is 3 and that
+    now meets only a better stage stays in stage 3 while ``months_performing <
+    probation_months_stage3`` (``probation_from_3``); once past it, it goes to stage 2, never
+    straight to stage 1 (``cure_from_3``). A loan whose prior stage is 2 and that now meets
+    only stage 1 stays in stage 2 while ``months_performing < probation_months_stage2``
+    (``probation_from_2``).
+
+    POCI (``credit_impaired_at_purchase``): always lifetime ECL and its own class; stage 3
+    while a stage-3 trigger (or probation) holds, else stage 2; the reason starts with
+    ``poci``.
 
     References
     ----------
-    .. [1] IFRS 9 Financial Instruments, paragraphs 5.5.3, 5.5.5, 5.5.10 (low credit risk),
-       5.5.11 (30 days past due), 5.5.13 (purchased or originated credit-impaired) and
-       B5.5.37 (90 days past due).
+    .. [1] IFRS 9 Financial Instruments, paragraphs 5.5.3, 5.5.5, 5.5.9, 5.5.10 (low credit
+       risk), 5.5.11 (30 days past due), 5.5.13 (purchased or originated credit-impaired),
+       B5.5.13 (12-month PD as an approximation), B5.5.22-B5.5.24 and B5.5.37 (90 days past
+       due).
 
     Examples
     --------
     >>> from allowance.schemas import Ifrs9Rules, SegmentAssumptions
-    >>> tape = pd.DataFrame({"segment": ["auto"] * 3, "days_past_due": [0, 45, 120],
-    ...                      "defaulted": False, "bankrupt": False, "watchlist": [True, False, False]})
-    >>> out = assign_stages(tape, np.full(3, 0.02), Ifrs9Rules(sicr_pd_ratio=2.0),
-    ...                     {"auto": SegmentAssumptions(pd_12m=0.02, lgd=0.4)})
-    >>> out.to_dict("list")
-    {'stage': [2, 2, 3], 'stage_reason': ['watchlist', 'dpd>30', 'dpd>=90'], 'poci': [False, False, False]}
+    >>> tape = pd.DataFrame({"segment": ["auto"] * 4, "days_past_due": [0, 45, 120, 0],
+    ...                      "defaulted": False, "bankrupt": False, "watchlist": [True, False, False, False],
+    ...                      "pd_12m_at_origination": 0.01, "pd_12m_current": [0.01, 0.01, 0.01, 0.03]})
+    >>> rules = Ifrs9Rules(sicr_pd_ratio=2.0, sicr_pd_measure="12_month")
+    >>> out = assign_stages(tape, rules, {"auto": SegmentAssumptions(pd_12m=0.02, lgd=0.4)})
+    >>> out[["stage", "stage_reason"]].to_dict("list")
+    {'stage': [2, 2, 3, 2], 'stage_reason': ['watchlist', 'dpd>30', 'dpd>=90', 'pd_ratio']}
     """
     n = len(tape)
-    pd_now = np.asarray(pd_12m_now, dtype=float)
-    if pd_now.shape != (n,) or not np.all((pd_now >= 0.0) & (pd_now <= 1.0)):
-        raise InvalidInputError(f"assign_stages: pd_12m_now must be {n} PDs in [0, 1], one per loan (no NaN)")
     _segment_lookup(tape, segments)
+    remaining = None
+    if rules.sicr_pd_measure == "lifetime":
+        if remaining_months is None:
+            raise InvalidInputError("assign_stages: the lifetime PD-ratio test needs remaining_months")
+        remaining = np.asarray(remaining_months, dtype=float)
+        if remaining.shape != (n,):
+            raise InvalidInputError(f"assign_stages: remaining_months must be {n} numbers, one per loan")
 
     dpd = tape["days_past_due"].to_numpy()
-    pd_orig = _number(tape, "pd_12m_at_origination")
-    has_orig = ~np.isnan(pd_orig)
-    orig = np.where(has_orig, pd_orig, 0.0)
-    # slack of 1e-12 so that a boundary the user states (3 % - 1 % >= 0.02) is met in floats
-    pd_ratio = (
-        has_orig
-        & (pd_now >= rules.sicr_pd_ratio * orig - _SLACK)
-        & (pd_now - orig >= rules.sicr_min_pd_increase - _SLACK)
-        & (pd_now > orig)
-    )
-    exempt = _low_credit_risk(tape, segments)
+    pd_now = _number(tape, "pd_12m_current")
+    pd_ratio = _pd_ratio(pd_now, _number(tape, "pd_12m_at_origination"), remaining, rules)
+    exempt = _low_credit_risk(tape, segments, pd_now)
 
     # (code, mask) per trigger, in the order reasons are written
     stage3 = [
@@ -192,15 +264,17 @@ def assign_stages(
 
     prior = _number(tape, "prior_stage")
     performing = np.nan_to_num(_number(tape, "months_performing"), nan=0.0)
-    from3 = (prior == 3) & (current < 3) & (performing < rules.probation_months_stage3)
-    from2 = (prior == 2) & (current < 2) & (performing < rules.probation_months_stage2)
-    stage = np.where(from3, 3, np.where(from2, 2, current))
+    hold3 = (prior == 3) & (current < 3) & (performing < rules.probation_months_stage3)
+    cure3 = (prior == 3) & (current < 2) & ~hold3
+    hold2 = (prior == 2) & (current < 2) & (performing < rules.probation_months_stage2)
+    stage = np.where(hold3, 3, np.where(cure3 | hold2, 2, current))
 
     poci = _flag(tape, "credit_impaired_at_purchase")
     stage = np.where(poci, np.maximum(stage, 2), stage)
     exempted = exempt & pd_ratio & (stage == 1)
 
-    shown = [("poci", poci), ("probation_from_3", from3), ("probation_from_2", from2 & ~poci)]
+    shown = [("poci", poci), ("probation_from_3", hold3), ("cure_from_3", cure3 & ~poci),
+             ("probation_from_2", hold2 & ~poci)]
     shown += [(code, mask) for code, mask in stage3]
     shown += [(code, mask & (stage == 2)) for code, mask in stage2]
     shown += [("low_credit_risk", exempted), ("performing", (stage == 1) & ~exempted)]
@@ -209,9 +283,94 @@ def assign_stages(
             "stage": stage.astype(np.int8),
             "stage_reason": _join_codes([c for c, _ in shown], [m for _, m in shown], n),
             "poci": poci,
+            "stage_class": stage_class(stage, poci),
         },
         index=tape.index,
     )
+
+
+def stage_class(stage, poci) -> np.ndarray:
+    """The one stage vocabulary of every output: ``stage 1/2/3``, and ``POCI`` apart.
+
+    POCI assets are their own class whatever their stage (IFRS 7 35H(c), 35M): the console,
+    ``run.json``, the workbook and the movement all use these labels.
+
+    Examples
+    --------
+    >>> stage_class([1, 2, 3, 3], [False, False, False, True]).tolist()
+    ['stage 1', 'stage 2', 'stage 3', 'POCI']
+    """
+    stage = np.asarray(stage)
+    labels = np.array(STAGE_CLASSES[:3], dtype=object)
+    known = np.isin(stage, (1, 2, 3))
+    out = np.where(known, labels[np.clip(np.where(known, stage, 1).astype(np.int64) - 1, 0, 2)], None)
+    return np.where(np.asarray(poci, dtype=bool), STAGE_CLASSES[3], out).astype(object)
+
+
+def pd_ratio_coverage(tape: pd.DataFrame) -> pd.DataFrame:
+    """Per segment: loans, loans the PD-ratio test was applied to, and those it was not, by reason.
+
+    A loan is tested when it carries both ``pd_12m_current`` and ``pd_12m_at_origination``
+    (POCI loans are lifetime anyway and are not counted as untested).
+
+    Examples
+    --------
+    >>> tape = pd.DataFrame({"segment": ["a", "a", "b"], "pd_12m_current": [0.01, np.nan, np.nan],
+    ...                      "pd_12m_at_origination": [0.01, 0.01, 0.02]})
+    >>> pd_ratio_coverage(tape).to_dict("records")  # doctest: +NORMALIZE_WHITESPACE
+    [{'segment': 'a', 'loans': 2, 'tested': 1, 'no_current_pd': 1, 'no_origination_pd': 0},
+     {'segment': 'b', 'loans': 1, 'tested': 0, 'no_current_pd': 1, 'no_origination_pd': 0}]
+    """
+    poci = _flag(tape, "credit_impaired_at_purchase")
+    now = ~np.isnan(_number(tape, "pd_12m_current"))
+    orig = ~np.isnan(_number(tape, "pd_12m_at_origination"))
+    frame = pd.DataFrame({
+        "segment": tape["segment"].to_numpy(dtype=object),
+        "loans": 1,
+        "tested": (now & orig).astype(np.int64),
+        "no_current_pd": (~now & ~poci).astype(np.int64),
+        "no_origination_pd": (now & ~orig & ~poci).astype(np.int64),
+    })
+    cols = ["segment", "loans", "tested", "no_current_pd", "no_origination_pd"]
+    if frame.empty:
+        return pd.DataFrame(columns=cols)
+    return frame.groupby("segment", sort=True).sum().reset_index()[cols]
+
+
+def pd_ratio_warnings(tape: pd.DataFrame) -> list[str]:
+    """What the run says, once, about loans the PD-ratio test could not be applied to.
+
+    A segment with no loan-level current PD at all is named once; a segment where only some
+    loans lack one PD or the other gets a count. Staging of those loans rests on days past
+    due, the flags and probation.
+
+    Examples
+    --------
+    >>> tape = pd.DataFrame({"segment": ["a", "a", "b"], "pd_12m_current": [0.01, np.nan, np.nan],
+    ...                      "pd_12m_at_origination": [0.01, 0.01, 0.02]})
+    >>> for line in pd_ratio_warnings(tape): print(line)
+    IFRS 9 staging: the PD-ratio test is not applied to segment b (1 loan): it has no loan-level pd_12m_current on the tape, and a pool PD is not compared with a loan's PD; those loans are staged on days past due, the flags and probation
+    IFRS 9 staging: the PD-ratio test is not applied to 1 of 2 loans of segment a (no pd_12m_current)
+    """
+    cover = pd_ratio_coverage(tape)
+    lines = []
+    none = cover[(cover["tested"] == 0) & (cover["no_current_pd"] == cover["loans"])]
+    if len(none):
+        names = ", ".join(f"{s} ({n:,} loan{'s' if n != 1 else ''})" for s, n in zip(none["segment"], none["loans"]))
+        plural = "s" if len(none) > 1 else ""
+        lines.append(
+            f"IFRS 9 staging: the PD-ratio test is not applied to segment{plural} {names}: "
+            f"{'they have' if plural else 'it has'} no loan-level pd_12m_current on the tape, and a pool PD is not "
+            "compared with a loan's PD; those loans are staged on days past due, the flags and probation"
+        )
+    rest = cover[~cover["segment"].isin(none["segment"]) & ((cover["no_current_pd"] + cover["no_origination_pd"]) > 0)]
+    for r in rest.itertuples(index=False):
+        why = [w for w, k in (("no pd_12m_current", r.no_current_pd), ("no pd_12m_at_origination", r.no_origination_pd)) if k]
+        lines.append(
+            f"IFRS 9 staging: the PD-ratio test is not applied to {r.no_current_pd + r.no_origination_pd:,} of "
+            f"{r.loans:,} loans of segment {r.segment} ({', '.join(why)})"
+        )
+    return lines
 
 
 def _join_codes(codes: list[str], masks: list[np.ndarray], n: int) -> np.ndarray:

@@ -331,7 +331,8 @@ def rules_and_scenarios_toml(quarter: str) -> str:
 [ifrs9]
 sicr_backstop_dpd = 30             # stage 2 beyond 30 days past due (IFRS 9 5.5.11)
 default_dpd = 90                   # stage 3 at 90 days past due (IFRS 9 B5.5.37)
-sicr_pd_ratio = 2.0
+sicr_pd_ratio = 2.0                # the loan's own PD now / its PD at origination (pd_12m_current)
+sicr_pd_measure = "12_month"       # 12-month PDs compared (IFRS 9 B5.5.13), not lifetime (5.5.9)
 sicr_min_pd_increase = 0.001
 watchlist_is_sicr = true
 forborne_is_sicr = true

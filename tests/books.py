@@ -46,7 +46,7 @@ def engine_config(**changes) -> RunConfig:
             "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3,
                       "behavioural_life_months": 36, "payment_rate": 0.05},
         },
-        "ifrs9": {"sicr_pd_ratio": 2.0},
+        "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
         "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
         "scenarios": {
             "base": {"weight": 0.6, "pd_multiplier": [1.0, 1.0, 1.0]},

@@ -129,7 +129,8 @@ def monthly_pd_tables(draw, max_keys: int = 4, max_months: int = 48) -> _np_sso.
 
 @_st_sso.composite
 def staging_tapes(draw, max_loans: int = 40) -> tuple[_pd_sso.DataFrame, _np_sso.ndarray]:
-    """A tape with the staging columns (segments ``a`` and ``b``) and each loan's 12-month PD now."""
+    """A tape with the staging columns (segments ``a`` and ``b``, own PDs with blanks) and each
+    loan's remaining months."""
     n = draw(_st_sso.integers(1, max_loans))
 
     def ints(lo: int, hi: int) -> _np_sso.ndarray:
@@ -153,11 +154,12 @@ def staging_tapes(draw, max_loans: int = 40) -> tuple[_pd_sso.DataFrame, _np_sso
             "forborne": flags(),
             "credit_impaired_at_purchase": flags() & flags(),
             "pd_12m_at_origination": _np_sso.where(flags(), pds(), _np_sso.nan),
+            "pd_12m_current": _np_sso.where(flags(), pds(), _np_sso.nan),
             "prior_stage": _np_sso.where(prior == 0, _np_sso.nan, prior),
             "months_performing": ints(0, 12).astype(float),
         }
     )
-    return tape, pds()
+    return tape, ints(1, 360)
 
 
 @_st_sso.composite
@@ -192,7 +194,7 @@ def example_assumptions(frameworks=("ifrs9", "cecl"), loan_detail_sheet_limit: i
                     "ledger_balance": 1000.0},
             "segments": {s: {"pd_12m": 0.01 + 0.01 * i, "lgd": 0.3 + 0.05 * i, "cpr": 0.08}
                          for i, s in enumerate(EXAMPLE_SEGMENTS)},
-            "ifrs9": {"sicr_pd_ratio": 2.0},
+            "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
             "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
             "scenarios": {
                 "base": {"weight": 0.6, "pd_multiplier": [1.0, 1.0]},

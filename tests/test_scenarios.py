@@ -33,7 +33,7 @@ def _assumptions(scenarios: dict, frameworks=("ifrs9", "cecl"), cecl=None) -> As
         {
             "run": {"as_of": "2026-09-30", "frameworks": list(frameworks)},
             "segments": {"auto": {"pd_12m": 0.02, "lgd": 0.4}},
-            "ifrs9": {"sicr_pd_ratio": 2.0},
+            "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
             "cecl": cecl or {"reasonable_supportable_months": 24, "reversion_months": 12},
             "scenarios": scenarios,
         }

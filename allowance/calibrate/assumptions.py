@@ -354,6 +354,8 @@ def _default_tables(frame: Frame) -> dict[str, Table]:
             Entry("default_dpd", 90, "IFRS 9 B5.5.37: the rebuttable 90-days-past-due presumption"),
             Entry("sicr_pd_ratio", 2.0, "POLICY (not estimated): stage 2 when PD now / PD at origination reaches "
                                         "this; set it under your SICR policy (IFRS 9 5.5.9)"),
+            Entry("sicr_pd_measure", "12_month", "POLICY (not estimated): the PDs the ratio compares, "
+                                                 "12_month (B5.5.13) or lifetime (5.5.9); choose one"),
         )),
         "cecl": Table("cecl", (
             Entry("reasonable_supportable_months", 12, "POLICY (not estimated): ASC 326-20-30-9"),

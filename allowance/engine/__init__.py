@@ -33,7 +33,7 @@ from typing import Any, Protocol
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, overlays, scenarios
+from allowance import cashflows, overlays, scenarios, staging
 from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, run_chunk
 from allowance.engine.tables import Prepared, SegmentTable, prepare, segment_table, tape_months
 from allowance.engine.views import (
@@ -170,14 +170,14 @@ def run(
         schedules=_schedule_sample(tape[[c for c in tape.columns if c in LoanRecord.model_fields or c == "source_row"]],
                                    loans, prep, schedule_sample),
         findings=pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame(),
-        warnings=list(applied.warnings),
+        warnings=(staging.pd_ratio_warnings(tape) if prep.staged is not None else []) + list(applied.warnings),
         pd_paths=pd_path_view(tape, prep),
     )
 
 
 def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     first = [
-        "loan_id", "segment", "repayment", "grade", "stage", "stage_reason", "poci",
+        "loan_id", "segment", "repayment", "grade", "stage", "stage_class", "stage_reason", "poci",
         "horizon_months", "horizon_months_cecl", "remaining_months", "balance", "ead",
         "pd_12m", "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime",
     ]

@@ -234,6 +234,7 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
         out["stage"] = stages["stage"].to_numpy()
         out["stage_reason"] = stages["stage_reason"].to_numpy()
         out["poci"] = stages["poci"].to_numpy()
+        out["stage_class"] = stages["stage_class"].to_numpy()
     else:
         out["poci"] = chunk["credit_impaired_at_purchase"].to_numpy(bool)
     stage = out["stage"].to_numpy() if stages is not None else np.ones(len(chunk), dtype=np.int64)
@@ -271,7 +272,7 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
     terms = loan_terms(chunk, prep)
     stages = None
     if prep.staged is not None:
-        stages = staging.assign_stages(chunk, prep.pd_12m_now[terms.curve], a.ifrs9, a.segments)
+        stages = staging.assign_stages(chunk, a.ifrs9, a.segments, remaining_months=terms.remaining)
     stage = None if stages is None else stages["stage"].to_numpy()
     fw = _framework_inputs(chunk, terms, stage, prep)
     k = expected_losses(_kernel_inputs(terms, fw, prep))

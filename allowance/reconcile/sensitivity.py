@@ -40,7 +40,7 @@ def _example_config(frameworks=("ifrs9", "cecl")) -> RunConfig:
     return RunConfig(assumptions=Assumptions.model_validate({
         "run": {"as_of": "2026-09-30", "frameworks": list(frameworks)},
         "segments": {"auto": {"pd_12m": 0.02, "lgd": 0.4}},
-        "ifrs9": {"sicr_pd_ratio": 2.0},
+        "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
         "cecl": {"reasonable_supportable_months": 24},
         "scenarios": {"base": {"weight": 0.6}, "down": {"weight": 0.4, "pd_multiplier": [2.0]}},
     }))

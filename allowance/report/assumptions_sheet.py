@@ -108,13 +108,22 @@ def _segment_rows(segments: dict) -> list[tuple[str, str, list[Any]]]:
         ("Unconditionally cancellable", "text",
          [_yes(s.unconditionally_cancellable) if s.behavioural_life_months else None for s in segs]),
         ("Amortization (months)", "count", [s.amortization_months for s in segs]),
-        ("Low credit risk (5.5.10)", "wrap",
-         ["whole segment" if s.low_credit_risk else (", ".join(s.low_credit_risk_grades) or "no") for s in segs]),
+        ("Low credit risk (5.5.10), per loan", "wrap", [_low_credit_risk(s) for s in segs]),
         ("Retail class (Vasicek correlation)", "wrap", [(s.retail_class or "").replace("_", " ") or None for s in segs]),
         ("Asset correlation", "rate", [s.asset_correlation for s in segs]),
     ]
     return [(label, kind, values) for label, kind, values in rows
             if any(v is not None and v != "" for v in values)]
+
+
+def _low_credit_risk(seg) -> str:
+    """The per-loan low-credit-risk test as stated: a PD threshold, grades, both, or none."""
+    parts = []
+    if seg.low_credit_risk_pd is not None:
+        parts.append(f"pd_12m_current <= {seg.low_credit_risk_pd:.4%}")
+    if seg.low_credit_risk_grades:
+        parts.append("grade " + ", ".join(seg.low_credit_risk_grades))
+    return " and ".join(parts) or "no"
 
 
 def _segments_table(sheet: Sheet, row: int, segments: dict) -> int:

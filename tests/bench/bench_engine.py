@@ -67,7 +67,7 @@ def config(frameworks=("ifrs9", "cecl")) -> RunConfig:
             "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.07}, "lgd": 0.85, "ccf": 0.4,
                       "behavioural_life_months": 36, "payment_rate": 0.04},
         },
-        "ifrs9": {"sicr_pd_ratio": 2.0},
+        "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
         "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
         "scenarios": {
             "base": {"weight": 0.5, "pd_multiplier": [1.0]},
