@@ -27,6 +27,7 @@ from allowance.exceptions import AssumptionsError
 from allowance.intake.fields import FIELDS, FieldSpec, lower_first
 from allowance.intake.parse import NO_DAY, Parsed
 from allowance.intake.readers import cell_text
+from allowance.poci import period_start
 from allowance.schemas import MAX_MONTHS, Assumptions
 
 Severity = Literal["reject", "warning"]
@@ -478,9 +479,46 @@ def vintage_segments(cols: TapeColumns) -> Iterator[Findings]:
             yield _findings(rows, "original_balance", "missing_value", [message] * rows.size)
 
 
+def purchased_credit_impaired(cols: TapeColumns) -> Iterator[Findings]:
+    """POCI loans under IFRS 9: the credit-adjusted EIR, and the lifetime ECL at purchase.
+
+    IFRS 9 discounts a POCI loan's expected losses at its credit-adjusted EIR (B5.5.45), and
+    its allowance is the change in lifetime ECL since purchase (5.5.13): a blank purchase
+    ECL is not read as 0 (that would book the whole lifetime ECL on day one). It may be left
+    blank only for a loan bought in the reporting period, which is measured at its purchase
+    date. CECL-only runs need neither.
+    """
+    if "ifrs9" not in cols.assumptions.run.frameworks:
+        return
+    flag = cols.parsed["credit_impaired_at_purchase"]
+    poci = np.asarray(flag.values, dtype=bool) & ~flag.blank & ~flag.bad
+    if not poci.any():
+        return
+    rate = cols.parsed["credit_adjusted_eir"]
+    rows = np.flatnonzero(poci & rate.blank)
+    if rows.size:
+        message = ("credit_adjusted_eir is blank but required for a purchased credit-impaired loan under IFRS 9 "
+                   "(the rate that discounts its expected credit losses, B5.5.45)")
+        yield _findings(rows, "credit_adjusted_eir", "missing_value", [message] * rows.size)
+    run = cols.assumptions.run
+    start = period_start(run.as_of, run.period_months)
+    first = int(np.datetime64(start, "D").astype(np.int64))
+    origination = cols.parsed["origination_date"].values
+    before = (origination != NO_DAY) & (origination <= first)
+    ecl = cols.parsed["lifetime_ecl_at_purchase"]
+    rows = np.flatnonzero(poci & ecl.blank & before)
+    if rows.size:
+        message = (f"lifetime_ecl_at_purchase is blank but required for a purchased credit-impaired loan bought "
+                   f"before this reporting period (on or before {start.isoformat()}): its IFRS 9 allowance is the "
+                   "change since purchase (5.5.13); only a loan bought in the period may leave it blank")
+        yield _findings(rows, "lifetime_ecl_at_purchase", "missing_value", [message] * rows.size)
+
+
 #: The rules, in the order their findings are listed for a row.
-ROW_RULES: tuple[Rule, ...] = (field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines,
-                               balloon_terms, vintage_segments)
+ROW_RULES: tuple[Rule, ...] = (
+    field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines, balloon_terms, vintage_segments,
+    purchased_credit_impaired,
+)
 
 
 def apply_rules(cols: TapeColumns) -> list[Findings]:
