@@ -66,11 +66,16 @@ BRANCHES = np.array(
 TAPE_COLUMNS = (
     "loan_id", "segment", "repayment", "origination_date", "maturity_date", "balance",
     "interest_rate", "days_past_due", "credit_limit", "payment", "eir", "grade",
-    "pd_12m_at_origination", "collateral_value", "watchlist", "forborne", "bankrupt",
+    "pd_12m_at_origination", "pd_12m_current", "collateral_value", "watchlist", "forborne", "bankrupt",
     "defaulted", "credit_impaired_at_purchase", "prior_stage", "months_performing",
     "balloon_amount", "amortization_months", "interest_only_months",
-    "lifetime_ecl_at_purchase", "original_amount", "branch",
+    "lifetime_ecl_at_purchase", "credit_adjusted_eir", "modified", "original_amount", "branch",
 )
+#: Segments whose loans carry a behavioural score (a 12-month PD of their own) each quarter;
+#: commercial real estate is rated by committee and has none on the tape.
+SCORED = ("mortgage", "auto", "personal", "cards", "heloc")
+#: Segment LGDs of the demo assumptions, for the purchase-date ECL of the POCI loans.
+POCI_LGD = {"mortgage": 0.2, "auto": 0.45}
 
 # Segment shapes. n: loans on the book at 2026-06-30; new: originations in the third quarter;
 # terms / term_p: contractual terms in months and their shares (0: revolving, no term);
@@ -249,7 +254,7 @@ def _segment_terms(rng, name, spec):
     return terms
 
 
-def build_book(rng):
+def build_book(rng, seed: int = SEED):
     """Every loan that is on the book at some point between 2026-03-31 and 2026-09-30."""
     parts = []
     for name, spec in SEGMENTS.items():
@@ -277,10 +282,24 @@ def build_book(rng):
                             & (book["orig_month"] <= MONTH_Q2 - 15) & ~book["new"])
     poci = np.zeros(n, bool)
     poci[rng.choice(bought, size=10, replace=False)] = True
+    rng.random(n)  # (a draw kept so that the rest of the book stays as it was)
+    # Three more bought in the third quarter: their purchase ECL is left blank, for the tool
+    # to measure at the purchase date (IFRS 9: no day-one allowance; CECL: the PCD gross-up).
+    own = np.random.default_rng([seed, 13])  # draws of their own, so the book above is unchanged
+    this_quarter = np.flatnonzero(np.isin(seg, ["mortgage", "auto"]) & book["new"])
+    poci[own.choice(this_quarter, size=3, replace=False)] = True
     book["poci"] = poci
-    book["pd_orig"] = np.where(poci, np.nan, book["pd_orig"])
-    with_ecl = poci & (rng.random(n) < 0.6)
-    book["ecl_at_purchase"] = np.where(with_ecl, np.round(0.006 * book["amount"], 2), np.nan)
+    # PD at purchase (the scale of pd_12m_current): credit-impaired, so high
+    book["pd_orig"] = np.where(poci, np.round(own.uniform(0.12, 0.3, n), 6), book["pd_orig"])
+    # Lifetime ECL at purchase, from the purchase due diligence: LGD x lifetime PD at the
+    # purchase PD over the first five years, on the purchased balance (roughly what the demo
+    # assumptions give; the allowance is the change since, IFRS 9 5.5.13)
+    lgd = np.array([POCI_LGD.get(s, 0.0) for s in seg])
+    lifetime = 1.0 - (1.0 - book["pd_orig"]) ** (np.minimum(book["term"], 60) / 12)
+    book["ecl_at_purchase"] = np.where(poci & ~book["new"], np.round(lgd * lifetime * book["amount"], 2), np.nan)
+    # Credit-adjusted EIR (IFRS 9 B5.5.45): the yield at which the buyer priced the cash flows
+    # it expected to collect, above the contract rate of a credit-impaired loan
+    book["ca_eir"] = np.where(poci, np.round(book["rate"] + own.uniform(0.01, 0.03, n), 6), np.nan)
     return book
 
 
@@ -404,6 +423,38 @@ def grades_at(rng, book, snapshots):
     return {MONTH_Q2: q2, MONTH_Q3: q3}
 
 
+def behavioural_pds(book, snapshots, grades, seed):
+    """Each scored loan's own 12-month PD at 2026-06-30 and 2026-09-30 (a behavioural score).
+
+    It starts from the PD at origination (at purchase, for POCI loans), drifts with the
+    loan's seasoning and a random walk of its own, follows any grade migration, and jumps
+    when the loan is behind or flagged. A loan booked in the quarter keeps its origination
+    PD. Unscored segments (``SCORED``) are blank. Draws of its own, so the book is unchanged.
+    """
+    own = np.random.default_rng([seed, 14])
+    n = len(book["term"])
+    scored = np.isin(book["segment"], SCORED)
+    graded = np.isin(book["segment"], list(PD_BY_GRADE))
+    walk = {MONTH_Q2: own.normal(0.0, 0.3, n)}
+    walk[MONTH_Q3] = walk[MONTH_Q2] + own.normal(0.0, 0.12, n)
+    out = {}
+    for month, quarter_start in ((MONTH_Q2, MONTH_Q2 - 2), (MONTH_Q3, MONTH_Q3 - 2)):
+        snap = snapshots[month]
+        years = np.maximum(month - book["orig_month"], 0) / 12
+        grade_shift = np.ones(n)
+        for name, table in PD_BY_GRADE.items():
+            mine = book["segment"] == name
+            grade_shift[mine] = table[grades[month][mine]] / table[book["grade_idx"][mine]]
+        behind = 1.0 + 1.2 * np.minimum(snap["missed"], 4)
+        flagged = np.where(snap["forborne"] | snap["watchlist"], 1.5, 1.0)
+        drift = np.exp(walk[month] - 0.04 * years)  # seasoned loans that keep paying improve
+        pd_now = book["pd_orig"] * drift * np.where(graded, grade_shift, 1.0) * behind * flagged
+        booked_now = book["orig_month"] >= quarter_start
+        pd_now = np.where(booked_now, book["pd_orig"], np.clip(pd_now, 0.0003, 0.6))
+        out[month] = np.where(scored, np.round(pd_now, 6), np.nan)
+    return out
+
+
 def simple_stage(snap, dpd):
     """The lender's own record of the stage (DPD, flags); the engine restages every run."""
     three = (dpd >= 90) | snap["bankrupt"] | snap["covenant"] | (snap["missed"] >= 4)
@@ -418,9 +469,11 @@ def simple_stage(snap, dpd):
 QUARTER_END = {MONTH_Q1: np.datetime64("2026-03-31"), MONTH_Q2: AS_OF_Q2, MONTH_Q3: AS_OF_Q3}
 
 
-def tape_columns(book, snapshots, util, grades, month, prior_month):
+def tape_columns(book, snapshots, util, grades, scores, month, prior_month):
     """The tape at one quarter end, as text columns in ``TAPE_COLUMNS`` order, for all loans."""
     snap, prior = snapshots[month], snapshots[prior_month]
+    # terms modified this quarter: forbearance granted since the last quarter end
+    modified = snap["forborne"] & ~prior["forborne"]
     missed = snap["missed"]
     seg, rev = book["segment"], book["revolving"]
     dpd = days_past_due(month, book["day"], missed, QUARTER_END[month])
@@ -451,12 +504,14 @@ def tape_columns(book, snapshots, util, grades, month, prior_month):
         month_to_date(book["orig_month"], book["day"]).astype(str).astype(object),
         np.where(rev, "", maturity).astype(object), files.money(balance), files.rate(book["rate"]),
         dpd.astype(str).astype(object), files.money(book["limit"]), files.money(payment),
-        files.rate(book["eir"]), grade, files.rate(book["pd_orig"]), files.money(np.round(collateral, -2)),
+        files.rate(book["eir"]), grade, files.rate(book["pd_orig"]), files.rate(scores[month]),
+        files.money(np.round(collateral, -2)),
         files.boolean(snap["watchlist"]), files.boolean(snap["forborne"]), files.boolean(snap["bankrupt"]),
         files.boolean(defaulted), files.boolean(book["poci"]), files.whole(prior_stage, show_prior),
         files.whole(snap["current_run"], show_prior), files.money(blank),
         files.whole(book["amort"], seg == "cre"), files.whole(book["io"], seg == "heloc"),
-        files.money(book["ecl_at_purchase"]), files.money(np.where(rev, np.nan, book["amount"])),
+        files.money(book["ecl_at_purchase"]), files.rate(book["ca_eir"]), files.boolean(modified),
+        files.money(np.where(rev, np.nan, book["amount"])),
         book["branch"],
     ]
 
@@ -470,13 +525,14 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(seed)
-    book = build_book(rng)
+    book = build_book(rng, seed)
     n = len(book["term"])
     book["house_noise"] = rng.lognormal(0, 0.08, n)
     book["cre_noise"] = rng.lognormal(0, 0.10, n)
     snapshots, left, how = simulate(rng, book)
     util = utilisation_paths(rng, book, snapshots, left)
     grades = grades_at(rng, book, snapshots)
+    scores = behavioural_pds(book, snapshots, grades, seed)
 
     # Write-offs of the quarter at the last reported balance (cards: or the balance run up since).
     bal_q2 = balances(book, MONTH_Q2, snapshots[MONTH_Q2]["missed"], util[MONTH_Q2])
@@ -492,7 +548,7 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
                                    ("tape_2026q3.csv", MONTH_Q3, MONTH_Q2, on_q3)):
         keep = np.flatnonzero(on)
         keep = keep[np.argsort(book["loan_id"][keep], kind="stable")]
-        cols = [np.asarray(c)[keep] for c in tape_columns(book, snapshots, util, grades, month, prior)]
+        cols = [np.asarray(c)[keep] for c in tape_columns(book, snapshots, util, grades, scores, month, prior)]
         written.append(files.write_csv(out_dir / name, TAPE_COLUMNS, cols))
         tapes[name] = cols
 
