@@ -70,7 +70,7 @@ def _assumptions(scenarios: dict, segments: dict | None = None, frameworks=("ifr
                       "behavioural_life_months": 36, "payment_rate": 0.05,
                       "satellite": {"link": "probit", "coefficients": {"u": 0.05}}},
         },
-        "ifrs9": {"sicr_pd_ratio": 2.0},
+        "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
         "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
         "macro": {"start": START, "interpolation": interpolation,
                   "baseline": baseline or {"u": BASELINE_U, "hpi": BASELINE_HPI}},
