@@ -44,8 +44,8 @@ def test_the_weighted_allowance_is_the_weighted_average_of_the_scenario_losses(r
 
 
 def test_a_worse_scenario_alone_moves_loans_into_stage_2(runs):
-    # the significant-increase test reads the probability-weighted 12-month PD (IFRS 9 5.5.9):
-    # with the downside alone that PD is higher, so at least as many loans are in stage 2
+    # staging never falls when a worse scenario stands alone (the PD-ratio test reads the
+    # loans' own PDs from the tape, so it moves none of them); the allowance rises
     _, alone, table = runs
     ifrs9 = table[table.framework == "ifrs9"].set_index("scenario")
     assert ifrs9.loc["down", "loans_stage_2"] >= ifrs9.loc["weighted", "loans_stage_2"] >= ifrs9.loc["base", "loans_stage_2"]

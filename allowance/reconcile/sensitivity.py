@@ -3,9 +3,9 @@
 The probability-weighted allowance (IFRS 9 5.5.17(a), B5.5.42; ASC 326-20-30-9) hides how
 far apart the scenarios are. A sensitivity reruns the book with one scenario alone at
 weight 1: every figure that depends on the weights moves with it, the IFRS 9 stages
-included (the significant-increase test reads the probability-weighted 12-month PD, so a
-downside alone moves loans into stage 2), and percentage overlays scale with the modelled
-figure. This differs from the per-scenario columns of ``loans.csv``, which keep the stages
+included where they depend on the scenarios, and percentage overlays scale with the
+modelled figure. (The PD-ratio test compares each loan's own PD now with its PD at
+origination, both from the tape, so a scenario alone moves no loan on that test.) This differs from the per-scenario columns of ``loans.csv``, which keep the stages
 of the weighted run.
 
 Implements
