@@ -27,6 +27,7 @@ from allowance.exceptions import AssumptionsError
 from allowance.intake.fields import FIELDS, FieldSpec, lower_first
 from allowance.intake.parse import NO_DAY, Parsed
 from allowance.intake.readers import cell_text
+from allowance.frameworks import rules_for
 from allowance.poci import period_start
 from allowance.schemas import MAX_MONTHS, Assumptions
 
@@ -488,7 +489,8 @@ def purchased_credit_impaired(cols: TapeColumns) -> Iterator[Findings]:
     blank only for a loan bought in the reporting period, which is measured at its purchase
     date. CECL-only runs need neither.
     """
-    if "ifrs9" not in cols.assumptions.run.frameworks:
+    # the staged framework (IFRS 9) measures POCI loans as the change since purchase
+    if not any(rules_for(f).staged for f in cols.assumptions.run.frameworks):
         return
     flag = cols.parsed["credit_impaired_at_purchase"]
     poci = np.asarray(flag.values, dtype=bool) & ~flag.blank & ~flag.bad
