@@ -37,6 +37,7 @@ lgd = 0.8
 
 [ifrs9]
 sicr_pd_ratio = 2.0
+sicr_pd_measure = "12_month"
 
 [cecl]
 reasonable_supportable_months = 12
