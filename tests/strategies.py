@@ -329,8 +329,11 @@ def run_pairs(draw, max_loans: int = 40, with_rerun: bool | None = None, with_ch
         k = int(mask.sum())
         modelled = {f: cents(k, 10**7) for f in ("ifrs9", "cecl")}
         overlay = {f: _np_rr.where(rng.random(k) < 0.3, cents(k, 10**5), 0.0) for f in ("ifrs9", "cecl")}
+        poci = rng.random(k) < 0.2
+        # a POCI loan's IFRS 9 allowance is a change since purchase: often negative (5.5.14)
+        modelled["ifrs9"] = _np_rr.where(poci & (rng.random(k) < 0.6), -modelled["ifrs9"], modelled["ifrs9"])
         frame = {"loan_id": ids[mask], "segment": segs[rng.integers(0, 2 + (rng.random() < 0.3), k)],
-                 "stage": stage_p[mask], "poci": rng.random(k) < 0.1, "balance": cents(k, 10**9)}
+                 "stage": stage_p[mask], "poci": poci, "balance": cents(k, 10**9)}
         for f in ("ifrs9", "cecl"):
             frame[f"ecl_{f}_modelled"] = modelled[f]
             frame[f"overlay_{f}"] = overlay[f]

@@ -9,13 +9,22 @@ own, computed by hand (common practice, no source). All comparisons are in whole
 
 from __future__ import annotations
 
+from datetime import date
+
 import numpy as np
 import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from allowance.reconcile import MovementError, check_movement, compare_runs, movement, what_if_comparison
+from allowance.reconcile import (
+    MovementError,
+    check_movement,
+    compare_runs,
+    method_changes,
+    movement,
+    what_if_comparison,
+)
 from allowance.text import neutralise_text
 from tests.strategies import run_pairs
 
@@ -63,14 +72,17 @@ def test_hand_example_ifrs9_by_stage():
     table = m.allowance.set_index("line")[["stage 1", "stage 2", "stage 3", "total"]]
     expected = {  # computed by hand: see the module docstring of allowance.reconcile
         "opening": [30.0, 90.0, 150.0, 270.0],
-        "new": [6.0, 0.0, 0.0, 6.0],
+        "new": [7.0, 0.0, 0.0, 7.0],  # valued at the closing assumptions, overlays included
         "derecognised": [0.0, -50.0, 0.0, -50.0],
         "written_off": [0.0, -40.0, -150.0, -190.0],
         "transfer_to_stage_1": [0.0, 0.0, 0.0, 0.0],
         "transfer_to_stage_2": [-20.0, 20.0, 0.0, 0.0],
         "transfer_to_stage_3": [0.0, 0.0, 0.0, 0.0],
+        "unwind": [0.0, 0.0, 0.0, 0.0],
         "remeasurement": [-1.5, 64.0, 0.0, 62.5],
-        "assumptions": [1.5, 3.0, 0.0, 4.5],
+        "modifications": [0.0, 0.0, 0.0, 0.0],
+        "model_change": [0.0, 0.0, 0.0, 0.0],
+        "assumptions": [0.5, 3.0, 0.0, 3.5],
         "overlays": [0.0, 3.0, 0.0, 3.0],
         "closing": [16.0, 90.0, 0.0, 106.0],
     }
@@ -96,10 +108,11 @@ def test_hand_example_rollforward_and_journal():
     prior, current, rerun, charge_offs = _hand_runs()
     m = movement(prior, current, rerun, charge_offs, "cecl")
     roll = m.rollforward.set_index("segment")
-    # beginning + provision - charge-offs + recoveries = ending (ASC 326-20-50-13), by hand
-    assert cents(roll.loc["auto"]).tolist() == cents([70.0, 129.0, -100.0, 0.0, 99.0]).tolist()
-    assert cents(roll.loc["card"]).tolist() == cents([200.0, 77.0, -280.0, 10.0, 7.0]).tolist()
-    assert cents(roll.loc["Total"]).tolist() == cents([270.0, 206.0, -380.0, 10.0, 106.0]).tolist()
+    # beginning + PCD gross-up + provision - charge-offs + recoveries = ending (ASC 326-20-50-13),
+    # by hand; CECL deducts every charge-off from the allowance and credits recoveries to it
+    assert cents(roll.loc["auto"]).tolist() == cents([70.0, 0.0, 129.0, -100.0, 0.0, 99.0]).tolist()
+    assert cents(roll.loc["card"]).tolist() == cents([200.0, 0.0, 77.0, -280.0, 10.0, 7.0]).tolist()
+    assert cents(roll.loc["Total"]).tolist() == cents([270.0, 0.0, 206.0, -380.0, 10.0, 106.0]).tolist()
     assert m.net_provision == 206.0
     journal = m.journal
     total = journal[journal["segment"] == "Total"].iloc[0]
@@ -110,8 +123,29 @@ def test_hand_example_rollforward_and_journal():
     # CECL's own table is by segment
     table = m.allowance.set_index("line")[["auto", "card", "total"]]
     assert cents(table.loc["remeasurement"]).tolist() == cents([62.5, 0.0, 62.5]).tolist()
-    assert cents(table.loc["assumptions"]).tolist() == cents([3.5, 1.0, 4.5]).tolist()
+    assert cents(table.loc["assumptions"]).tolist() == cents([3.5, 0.0, 3.5]).tolist()
     assert cents(table.loc["closing"]).tolist() == cents([99.0, 7.0, 106.0]).tolist()
+
+
+def test_ifrs9_rollforward_uses_the_allowance_and_recoveries_go_to_profit_or_loss():
+    # IFRS 7 35H: the allowance written off is what the roll-forward deducts; a charge-off
+    # beyond it is a direct loss, and a recovery after write-off is a gain in profit or loss
+    # (IFRS 9 5.4.4), not allowance. By hand: auto 70 + 69 - 40 = 99; card 200 - 43 - 150 = 7.
+    prior, current, rerun, charge_offs = _hand_runs()
+    m = movement(prior, current, rerun, charge_offs, "ifrs9")
+    roll = m.rollforward.set_index("segment")
+    assert cents(roll.loc["auto"]).tolist() == cents([70.0, 0.0, 69.0, -40.0, 0.0, 99.0]).tolist()
+    assert cents(roll.loc["card"]).tolist() == cents([200.0, 0.0, -43.0, -150.0, 0.0, 7.0]).tolist()
+    assert cents(roll.loc["Total", "charge_offs"]) == cents(m.allowance.set_index("line").loc["written_off", "total"])
+    # the bridge: allowance written off 190 + charged off beyond it 190 = gross charge-offs 380;
+    # the expense in profit or loss is the same under both frameworks: 106 - 270 + 380 - 10 = 206
+    for framework in ("ifrs9", "cecl"):
+        bridge = movement(prior, current, rerun, charge_offs, framework).write_offs.set_index("segment")
+        row = bridge.loc["Total"]
+        assert cents(row[["allowance_written_off", "charged_off_beyond_allowance", "gross_charge_offs",
+                          "recoveries", "credit_loss_expense"]]).tolist() == cents([190, 190, 380, 10, 206]).tolist()
+    assert "profit or loss" in m.write_offs["recoveries_treatment"].iloc[0]
+    assert "credited to the allowance" in bridge["recoveries_treatment"].iloc[0]
 
 
 def test_release_reverses_the_journal():
@@ -193,18 +227,30 @@ def test_movement_ties_to_the_cent(pair, framework):
     co_ids = set() if charge_offs is None else set(neutralise_text(charge_offs["loan_id"].astype(str)))
     p_ids = neutralise_text(prior["loan_id"].astype(str))
     gone = ~p_ids.isin(set(neutralise_text(current["loan_id"].astype(str))))
-    derecognised = gone & ~p_ids.isin(co_ids)
-    assert cents(table.loc["derecognised", "total"]) == -cents(prior.loc[derecognised, ecl]).sum()
+    charged = p_ids.isin(co_ids)
+    used = m.loans.set_index("loan_id")["written_off"]
+    # a loan that left: its whole allowance goes, as write-off (the part its charge-off used)
+    # or on derecognition (the rest)
+    left_total = cents(prior.loc[gone.to_numpy(), ecl]).sum()
+    used_gone = cents(used.reindex(prior.loc[(gone & charged).to_numpy(), "loan_id"].astype(str)).fillna(0)).sum()
+    assert cents(table.loc["derecognised", "total"]) == -(left_total + used_gone)
     if rerun is None:
         assert (cents(m.allowance.set_index("line").loc["assumptions"].drop("label")) == 0).all()
 
-    # roll-forward: beginning + provision + charge-offs + recoveries = ending, each segment
+    # roll-forward: beginning + gross-up + provision + charge-offs + recoveries = ending, each segment
     roll = m.rollforward
-    parts = cents(roll[["beginning", "provision", "charge_offs", "recoveries"]]).sum(axis=1)
+    parts = cents(roll[["beginning", "initial_allowance_pcd", "provision", "charge_offs", "recoveries"]]).sum(axis=1)
     assert parts.tolist() == cents(roll["ending"]).tolist()
     total = roll[roll["segment"] == "Total"].iloc[0]
     expected_co = 0 if charge_offs is None else cents(charge_offs["gross_charge_off"]).sum()
-    assert cents(total["charge_offs"]) == -expected_co
+    if framework == "cecl":  # every charge-off against the allowance (ASC 326-20-35-8)
+        assert cents(total["charge_offs"]) == -expected_co
+    else:  # the allowance used (IFRS 7 35H), bridged to the gross charge-offs
+        assert cents(total["charge_offs"]) == cents(table.loc["written_off", "total"])
+        assert cents(total["recoveries"]) == 0
+    bridge = m.write_offs.set_index("segment").loc["Total"]
+    assert cents(bridge["allowance_written_off"]) + cents(bridge["charged_off_beyond_allowance"]) == expected_co
+    assert cents(bridge["gross_charge_offs"]) == expected_co
     assert cents(total["ending"]) == cents(current[ecl]).sum()
     journal = m.journal
     assert cents(journal["debit"].iloc[:-1]).sum() == cents(journal["credit"].iloc[:-1]).sum()
@@ -212,11 +258,28 @@ def test_movement_ties_to_the_cent(pair, framework):
 
     # the per-loan bridge adds up to the change of each loan
     loans = m.loans
-    lines = ["opening", "new", "derecognised", "written_off", "remeasurement", "assumptions", "overlays"]
+    lines = ["opening", "new", "pcd_gross_up", "derecognised", "written_off", "unwind", "remeasurement",
+             "modifications", "model_change", "assumptions", "overlays"]
     assert (cents(loans[lines]).sum(axis=1) == cents(loans["closing"])).all()
 
 
 @pytest.mark.slow
+@settings(max_examples=60)
+@given(pair=run_pairs(with_charge_offs=True), framework=st.sampled_from(["ifrs9", "cecl"]))
+def test_no_write_off_without_a_charge_off_even_on_a_negative_allowance(pair, framework):
+    # IFRS 7 35H: the write-off line is the allowance used by a charge-off. A POCI loan can
+    # carry a negative allowance (IFRS 9 5.5.14); none of it is "written off", and no loan
+    # without a charge-off shows a write-off (the defect showed +410.68 on three such loans)
+    prior, current, rerun, charge_offs = pair
+    m = movement(prior, current, rerun, charge_offs, framework)
+    loans = m.loans
+    used = -cents(loans["written_off"])
+    assert (used >= 0).all()
+    assert (used <= cents(loans["gross_charge_off"])).all()
+    assert (used <= np.maximum(cents(loans["opening"]), 0)).all()
+    assert (used[cents(loans["gross_charge_off"]) == 0] == 0).all()
+
+
 @settings(max_examples=30)
 @given(pair=run_pairs(max_loans=25), data=st.data())
 def test_a_one_cent_break_is_caught(pair, data):
@@ -284,12 +347,16 @@ def test_charge_off_of_a_loan_in_neither_run():
     from allowance.reconcile.runs import UNASSIGNED_SEGMENT
 
     charge_offs = pd.DataFrame({"loan_id": ["zz"], "gross_charge_off": [5.0]})
-    m = movement(_one(), _one(), None, charge_offs, "ifrs9")
+    one = _one(ecl_cecl=[0.1, 0.2])
+    m = movement(one, one, None, charge_offs, "cecl")
     roll = m.rollforward.set_index("segment")
     assert roll.loc[UNASSIGNED_SEGMENT, "charge_offs"] == -5.0 and roll.loc[UNASSIGNED_SEGMENT, "provision"] == 5.0
     assert m.notes and "neither run" in m.notes[0]
-    m = movement(_one(), _one(), None, charge_offs.assign(segment="card"), "ifrs9")
+    m = movement(one, one, None, charge_offs.assign(segment="card"), "cecl")
     assert m.rollforward.set_index("segment").loc["card", "charge_offs"] == -5.0
+    # IFRS 9: no allowance was used; the charge-off is beyond the allowance
+    m = movement(_one(), _one(), None, charge_offs, "ifrs9")
+    assert m.write_offs.set_index("segment").loc[UNASSIGNED_SEGMENT, "charged_off_beyond_allowance"] == 5.0
 
 
 def test_negative_charge_off_is_an_error():
@@ -311,7 +378,7 @@ def test_long_form_sums_like_the_tables():
     long = m.to_long()
     allowance = long[long["table"] == "allowance"]
     assert cents(allowance.loc[allowance["line"] == "closing", "amount"]).sum() == cents(current["ecl_ifrs9"]).sum()
-    assert set(long["table"]) == {"allowance", "gross_carrying_amount", "rollforward"}
+    assert set(long["table"]) == {"allowance", "gross_carrying_amount", "rollforward", "write_off_bridge"}
 
 
 # --------------------------------------------------------------------------------------
@@ -338,3 +405,77 @@ def test_what_if_by_segment_stage_and_scenario():
     assert w.stage_changes.iloc[0]["difference"] == 7.0
     with pytest.raises(MovementError, match="same loans"):
         what_if_comparison(base, alt.iloc[:2], ["ifrs9"])
+
+
+# --------------------------------------------------------------------------------------
+# The lines that explain themselves: gross-up, unwind, modifications, models or methods
+# --------------------------------------------------------------------------------------
+
+
+def _pair():
+    prior = pd.DataFrame({"loan_id": ["a", "b"], "segment": ["auto", "card"], "stage": [1, 2],
+                          "balance": [1000.0, 500.0], "ecl_cecl": [100.0, 50.0], "ecl_ifrs9": [100.0, 50.0],
+                          "discount_rate_ifrs9": [0.12, 0.06], "discount_rate_cecl": [0.0, 0.0]})
+    current = pd.DataFrame({"loan_id": ["a", "b", "p"], "segment": ["auto", "card", "auto"], "stage": [1, 2, 3],
+                            "poci": [False, False, True], "balance": [950.0, 480.0, 800.0],
+                            "ecl_cecl": [110.0, 60.0, 150.0], "ecl_ifrs9": [110.0, 60.0, 0.0],
+                            "pcd_gross_up": [0.0, 0.0, 150.0], "modified": [False, True, False]})
+    return prior, current
+
+
+def test_a_pcd_purchase_grosses_up_amortised_cost_not_the_provision():
+    # ASC 326-20-30-13: the allowance at purchase of a PCD asset is added to its amortised
+    # cost. A 150,000 purchase-date allowance once debited the provision 150,000.
+    prior, current = _pair()
+    m = movement(prior, current, None, None, "cecl")
+    table = m.allowance.set_index("line")
+    assert table.loc["pcd_gross_up", "auto"] == 150.0 and table.loc["new", "auto"] == 0.0
+    roll = m.rollforward.set_index("segment").loc["Total"]
+    assert roll["initial_allowance_pcd"] == 150.0 and roll["provision"] == 20.0  # 10 + 10, by hand
+    entries = m.journal[m.journal["entry"] == "PCD gross-up"]
+    assert entries["debit"].sum() == entries["credit"].sum() == 150.0
+    assert entries.iloc[0]["account"].startswith("Loans at amortised cost")
+    # IFRS 9 has no gross-up: the POCI purchase enters at its (zero) allowance
+    assert "pcd_gross_up" not in movement(prior, current, None, None, "ifrs9").allowance["line"].tolist()
+
+
+def test_unwind_of_the_discount_over_the_period():
+    # the opening allowance discounted at 12 % a year accretes (1.01)^3 - 1 over a quarter:
+    # 100 x 0.030301 = 3.03; at 6 %: 50 x ((1.005)^3 - 1) = 0.75 (computed by hand)
+    prior, current = _pair()
+    m = movement(prior, current, None, None, "ifrs9", prior_as_of=date(2026, 6, 30), current_as_of=date(2026, 9, 30))
+    loans = m.loans.set_index("loan_id")
+    assert loans.loc["a", "unwind"] == 3.03 and loans.loc["b", "unwind"] == 0.75
+    assert loans.loc["a", "remeasurement"] == 6.97  # 10.00 - 3.03
+    # loan b is flagged modified: its remeasurement is on the modifications line
+    assert loans.loc["b", "modifications"] == 9.25 and loans.loc["b", "remeasurement"] == 0.0  # 10.00 - 0.75
+    assert not any("unwind" in n for n in m.not_isolated)
+    # CECL undiscounted: rate 0, no unwind
+    cecl = movement(prior, current, None, None, "cecl", prior_as_of=date(2026, 6, 30), current_as_of=date(2026, 9, 30))
+    assert (cecl.loans["unwind"] == 0).all()
+
+
+def test_a_prior_later_than_the_current_run_is_refused():
+    prior, current = _pair()
+    with pytest.raises(MovementError, match="later than the current run"):
+        movement(prior, current, None, None, "ifrs9", prior_as_of=date(2026, 12, 31), current_as_of=date(2026, 9, 30))
+
+
+def test_the_lines_that_cannot_be_isolated_are_named_with_the_reason():
+    prior, current = _pair()
+    m = movement(prior.drop(columns="discount_rate_ifrs9"), current.drop(columns="modified"), None, None, "ifrs9")
+    text = " | ".join(m.not_isolated)
+    assert "not rerun at the prior run's assumptions" in text
+    assert "no discount_rate_ifrs9" in text and "no modified flag" in text
+
+
+def test_model_changes_have_their_own_line():
+    # IFRS 7 35I / ASC 326-20-50-11: changes in models or methods apart from assumptions
+    prior, current = _pair()
+    rerun = pd.DataFrame({"loan_id": ["a", "b", "p"], "ecl_cecl_modelled": [104.0, 52.0, 140.0]})
+    changes = method_changes({"segments": {"auto": {"pd_12m": 0.02}}}, {"segments": {"auto": {"pd_curve": [0.02]}}})
+    m = movement(prior, current, rerun, None, "cecl", method_changes=changes)
+    table = m.allowance.set_index("line")
+    assert table.loc["model_change", "auto"] == 6.0 and table.loc["assumptions", "auto"] == 0.0
+    assert table.loc["assumptions", "card"] == 8.0 and table.loc["model_change", "card"] == 0.0
+    assert any("PD source: pd_12m -> pd_curve" in n for n in m.notes)

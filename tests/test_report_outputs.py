@@ -160,4 +160,9 @@ def test_run_record_lists_inputs_once_and_the_tie_out():
     assert set(record["totals"]["ifrs9"]) >= {"allowance", "modelled", "overlays", "by_stage", "by_segment"}
     by_stage = record["totals"]["ifrs9"]["by_stage"]
     assert cents(list(by_stage.values())) == cents(report.loans["ecl_ifrs9"])
+    # one stage vocabulary: POCI apart from stages 2 and 3, as the workbook and movement show it
+    assert set(by_stage) <= {"stage 1", "stage 2", "stage 3", "POCI"}
+    loans = report.loans
+    if loans["poci"].any():
+        assert cents([by_stage["POCI"]]) == cents(loans.loc[loans["poci"], "ecl_ifrs9"])
     assert json.dumps(record, allow_nan=False)  # JSON-ready, no NaN

@@ -13,18 +13,21 @@ what_if_comparison
 single_scenario   one scenario alone at weight 1, for a sensitivity rerun
 sensitivity_table the allowance with each scenario at 100 % weight, beside the weighted one
 MOVEMENT_LINES    line codes and their labels
+LEDGER            per framework: how charge-offs and recoveries meet the allowance
+method_changes    which segments' models or methods changed between two assumption sets
 
 How each loan's change splits into the movement lines is set out in
 :mod:`allowance.reconcile.movement`.
 """
 
+from allowance.reconcile.methods import method_changes
 from allowance.reconcile.movement import Movement, compare_runs, movement
 from allowance.exceptions import MovementError
 from allowance.reconcile.sensitivity import sensitivity_table, single_scenario
-from allowance.reconcile.tables import MOVEMENT_LINES, check_movement
+from allowance.reconcile.tables import LEDGER, MOVEMENT_LINES, check_movement
 from allowance.reconcile.whatif import WhatIf, what_if_comparison
 
 __all__ = [
-    "MOVEMENT_LINES", "Movement", "MovementError", "WhatIf", "check_movement", "compare_runs",
-    "movement", "sensitivity_table", "single_scenario", "what_if_comparison",
+    "LEDGER", "MOVEMENT_LINES", "Movement", "MovementError", "WhatIf", "check_movement", "compare_runs",
+    "method_changes", "movement", "sensitivity_table", "single_scenario", "what_if_comparison",
 ]

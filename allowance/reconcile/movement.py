@@ -14,26 +14,38 @@ prior / current allowance, P_m / C_m their modelled parts and A_m the modelled a
 the current tape at the prior run's assumptions (A_m = C_m when that rerun is absent):
 
 =========================  ==========================================================
-new loans                  A_m (current only)
-derecognised               -P (prior only, no charge-off)
-written off                -P (prior only, charged off: the allowance utilised);
-                           -min(P, charge-off) for a partial charge-off of a continuing loan
-transfer to stage k        P less any write-off, out of the prior stage, into stage k
-remeasurement              A_m - P_m + write-off (continuing loans, at prior assumptions)
-assumptions or scenarios   C_m - A_m (every current loan)
-overlay changes            (C - C_m) - (P - P_m); C - C_m for new loans
+new loans                  C - G (current only): valued at the closing assumptions,
+                           overlays included
+PCD gross-up (CECL)        G: the purchase-date allowance of a PCD asset bought in the
+                           period, added to amortised cost (ASC 326-20-30-13), not provision
+written off                -W, W = min(max(P, 0), charge-off): the allowance used, never
+                           more than the charge-off and never a negative (POCI) allowance
+derecognised               -(P - W) for a loan that left (repaid, sold, or the part of its
+                           allowance released when it was written off)
+transfer to stage k        P - W, out of the prior stage, into stage k
+unwind of the discount     U = P_m ((1 + r/12)^months - 1), r the rate that discounted P
+                           (the prior run's ``discount_rate_<framework>``); 0 where
+                           undiscounted
+remeasurement              A_m - P_m + W - U (continuing loans, at prior assumptions)
+modifications              the same amount instead, for a loan flagged ``modified``
+models or methods          C_m - A_m where the segment's method keys changed
+assumptions or scenarios   C_m - A_m for the other continuing loans
+overlay changes            (C - C_m) - (P - P_m) (continuing loans)
 closing                    C
 =========================  ==========================================================
 
 Per loan the lines sum to C - P, so opening + movements = closing in every stage, segment
 and their crossing. The gross carrying amount moves the same way, with "other changes"
-(repayments, amortisation, drawings) taking the part of remeasurement.
+(repayments, amortisation, drawings) taking the part of remeasurement. Lines that cannot be
+isolated from the inputs given (no rerun at prior assumptions, no discount rates, no
+``modified`` flag) stay in remeasurement, and :attr:`Movement.not_isolated` says which and why.
 """
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import date
 
 import pandas as pd
 
@@ -41,8 +53,8 @@ from allowance.frameworks import rules_for
 from allowance.exceptions import MovementError
 from allowance.reconcile.runs import bridge, prepare_charge_offs, prepare_run
 from allowance.reconcile.tables import (
-    _ALLOWANCE_BODY, _GROSS_BODY, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
-    check_movement, journal, rollforward,
+    _ALLOWANCE_BODY, _GROSS_BODY, LEDGER, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
+    check_movement, journal, rollforward, write_off_bridge,
 )
 from allowance.schemas import FRAMEWORKS, Framework
 
@@ -58,12 +70,15 @@ class Movement:
     gross             the same lines for the gross carrying amount (balance)
     allowance_detail  long: ``segment, class, line, label, amount`` (segment x class)
     gross_detail      long, the same for the gross carrying amount
-    rollforward       per segment and ``Total``: ``beginning, provision, charge_offs,
-                      recoveries, ending`` (charge-offs negative; provision the balancing figure)
-    journal           the provision as journal lines: ``segment, entry, account, debit, credit``
+    rollforward       per segment and ``Total``: ``beginning, initial_allowance_pcd,
+                      provision, charge_offs, recoveries, ending`` (charge-offs negative; the
+                      provision the balancing figure; see :func:`rollforward`)
+    journal           the allowance entries: ``segment, entry, account, debit, credit``
     loans             per loan: status, prior and current class, every line's amount
     assumptions_isolated  whether a rerun at prior assumptions separated that line
     notes             things a reviewer should know (charge-offs of loans in neither run)
+    write_offs        from the allowance written off to gross charge-offs and recoveries
+    not_isolated      the lines that could not be told apart, each with the reason
     """
 
     framework: Framework
@@ -76,6 +91,8 @@ class Movement:
     loans: pd.DataFrame
     assumptions_isolated: bool
     notes: tuple[str, ...] = ()
+    write_offs: pd.DataFrame = field(default_factory=pd.DataFrame)
+    not_isolated: tuple[str, ...] = ()
 
     @property
     def net_provision(self) -> float:
@@ -90,6 +107,11 @@ class Movement:
         roll = self.rollforward.melt(id_vars="segment", var_name="line", value_name="amount")
         roll = roll.assign(table="rollforward", **{"class": ""}, label=roll["line"].str.replace("_", " ").str.capitalize())
         parts.append(roll)
+        if not self.write_offs.empty:
+            bridge_long = self.write_offs.drop(columns="recoveries_treatment").melt(
+                id_vars="segment", var_name="line", value_name="amount")
+            parts.append(bridge_long.assign(table="write_off_bridge", **{"class": ""},
+                                            label=bridge_long["line"].str.replace("_", " ").str.capitalize()))
         out = pd.concat(parts, ignore_index=True)
         out.insert(0, "framework", self.framework)
         return out[["framework", "table", "segment", "class", "line", "label", "amount"]]
@@ -104,6 +126,9 @@ def movement(
     framework: Framework,
     *,
     sources: Mapping[str, str] | None = None,
+    prior_as_of: date | None = None,
+    current_as_of: date | None = None,
+    method_changes: Mapping[str, Sequence[str]] | None = None,
 ) -> Movement:
     """The allowance movement of one framework, prior run to current run, loan by loan.
 
@@ -124,6 +149,13 @@ def movement(
     sources : mapping, optional
         File names for messages, keys ``prior``, ``current``, ``current_at_prior_assumptions``,
         ``charge_offs``.
+    prior_as_of, current_as_of : date, optional
+        The two reporting dates: a prior later than the current run is refused; with both,
+        the unwind of the discount is isolated over the months between them.
+    method_changes : mapping, optional
+        Segment (``"*"``: every segment) -> what changed in its model or method
+        (:func:`allowance.reconcile.method_changes`); their assumption effect goes to
+        "changes in models or methods". None: not known.
 
     Returns
     -------
@@ -156,8 +188,8 @@ def movement(
     >>> m = movement(prior, current, None, None, "ifrs9")
     >>> m.allowance.set_index("line")["total"].to_dict()  # doctest: +NORMALIZE_WHITESPACE
     {'opening': 1.5, 'new': 0.7, 'derecognised': -0.5, 'written_off': 0.0, 'transfer_to_stage_1': 0.0,
-     'transfer_to_stage_2': 0.0, 'transfer_to_stage_3': 0.0, 'remeasurement': 3.0, 'assumptions': 0.0,
-     'overlays': 0.0, 'closing': 4.7}
+     'transfer_to_stage_2': 0.0, 'transfer_to_stage_3': 0.0, 'unwind': 0.0, 'remeasurement': 3.0,
+     'modifications': 0.0, 'model_change': 0.0, 'assumptions': 0.0, 'overlays': 0.0, 'closing': 4.7}
     >>> m.allowance.set_index("line").loc["transfer_to_stage_2", ["stage 1", "stage 2"]].tolist()
     [-1.0, 1.0]
     """
@@ -166,6 +198,7 @@ def movement(
     names.update(sources or {})
     if framework not in FRAMEWORKS:
         raise MovementError(f"unknown framework {framework!r}", hint=f"use one of {', '.join(FRAMEWORKS)}")
+    months = _period_months(prior_as_of, current_as_of, names)
     p = prepare_run(prior, framework, names["prior"])
     c = prepare_run(current, framework, names["current"])
     a = (
@@ -173,7 +206,10 @@ def movement(
         else prepare_run(current_at_prior_assumptions, framework, names["current_at_prior_assumptions"], modelled_only=True)
     )
     co = prepare_charge_offs(charge_offs, names["charge_offs"])
-    loans = bridge(p, c, a, co, names)
+    changed = frozenset(method_changes or {})
+    has_rates = f"discount_rate_{framework}" in prior.columns
+    loans = bridge(p, c, a, co, names, months=months if has_rates else None, method_changed=changed,
+                   gross_up=LEDGER[framework].pcd_gross_up)
 
     # the class dimension of the detail is the framework's class (IFRS 9: stage or POCI;
     # CECL: PCD or not); its main table is by class (IFRS 7 35H) or by segment (ASC 326-20-50-13)
@@ -193,11 +229,12 @@ def movement(
     detail_lines = _transfer_lines(loans, detail_dims, "class")
     main_transfers = classes if by_class else []
     tables = {}
+    gross_up = LEDGER[framework].pcd_gross_up
     for kind, body, prefix in (("allowance", _ALLOWANCE_BODY, ""), ("gross", _GROSS_BODY, "g_")):
-        order = _line_order(main_transfers, body, not by_class)
+        order = _line_order(main_transfers, body, not by_class, gross_up and kind == "allowance")
         wide = _wide(_ledger(loans, (main_dim,), body, prefix, main_lines), main_dim, main_cols, order, labels)
         check_movement(wide, what=f"{framework} {kind} movement")
-        detail_order = _line_order(classes, body, True)
+        detail_order = _line_order(classes, body, True, gross_up and kind == "allowance")
         detail = _long(_ledger(loans, detail_dims, body, prefix, detail_lines), detail_order, labels, classes)
         _check_long(detail, detail_order, f"{framework} {kind} movement by segment and class")
         tables[kind] = (wide, detail)
@@ -206,8 +243,11 @@ def movement(
     allowance = tables["allowance"][0].set_index("line")["total"]
     if round(allowance["opening"] * 100) != opening_total or round(allowance["closing"] * 100) != closing_total:
         raise MovementError(f"{framework} movement: opening or closing differs from the runs' totals")
-    roll = rollforward(loans)
+    roll = rollforward(loans, framework)
     notes = []
+    if changed:
+        notes.append("models or methods changed since the prior run: " + "; ".join(
+            f"{'every segment' if k == '*' else 'segment ' + k}: {', '.join(v)}" for k, v in sorted(method_changes.items())))
     outside = loans[~loans["in_prior"] & ~loans["in_current"]]
     if len(outside):
         where = ", ".join(sorted({str(s) for s in outside["segment_any"]}))
@@ -227,12 +267,49 @@ def movement(
         loans=_loan_table(loans),
         assumptions_isolated=a is not None,
         notes=tuple(notes),
+        write_offs=write_off_bridge(loans, framework),
+        not_isolated=_not_isolated(framework, a is not None, method_changes is not None, has_rates, months, current),
     )
 
 
+def _period_months(prior_as_of: date | None, current_as_of: date | None, names: Mapping[str, str]) -> int | None:
+    """Whole months from the prior reporting date to the current one; a later prior is refused."""
+    if prior_as_of is None or current_as_of is None:
+        return None
+    if prior_as_of > current_as_of:
+        raise MovementError(
+            f"the prior run ({names['prior']}, as of {prior_as_of.isoformat()}) is later than the current run "
+            f"({names['current']}, as of {current_as_of.isoformat()})",
+            hint="give the earlier run first: allowance compare PRIOR CURRENT",
+        )
+    return (current_as_of.year - prior_as_of.year) * 12 + current_as_of.month - prior_as_of.month
+
+
+def _not_isolated(framework: Framework, rerun: bool, methods_known: bool, has_rates: bool, months: int | None,
+                  current: pd.DataFrame) -> tuple[str, ...]:
+    """The movement lines the inputs could not separate, each with the reason (they sit in remeasurement)."""
+    out = []
+    if not rerun:
+        out.append("changes in assumptions or scenarios and in models or methods: the current tape was not rerun "
+                   "at the prior run's assumptions (only the two runs' loan results were given), so they are in "
+                   "remeasurement; 'allowance run --prior' isolates them")
+    elif not methods_known:
+        out.append("changes in models or methods: the prior run's assumptions were not compared, so any are in "
+                   "changes in assumptions or scenarios")
+    if not has_rates:
+        out.append(f"unwind of the discount: the prior run's loans carry no discount_rate_{framework} column, so "
+                   "it is in remeasurement")
+    elif months is None:
+        out.append("unwind of the discount: the two reporting dates were not given, so it is in remeasurement")
+    if "modified" not in current.columns:
+        out.append("modifications: the current run's loans carry no modified flag, so they are in remeasurement")
+    return tuple(out)
+
+
 def _loan_table(rows: pd.DataFrame) -> pd.DataFrame:
-    money = ["opening", "new", "derecognised", "written_off", "transfer", "remeasurement", "assumptions",
-             "overlays", "closing", "g_opening", "g_closing", "gross_charge_off", "recoveries"]
+    money = ["opening", "new", "pcd_gross_up", "derecognised", "written_off", "transfer", "unwind", "remeasurement",
+             "modifications", "model_change", "assumptions", "overlays", "closing", "g_opening", "g_closing",
+             "gross_charge_off", "recoveries"]
     out = rows[["loan_id", "status", "segment_prior", "segment", "class_prior", "class"]].copy()
     for name in money:
         out[name.replace("g_opening", "balance_prior").replace("g_closing", "balance")] = rows[name] / 100.0
@@ -247,6 +324,9 @@ def compare_runs(
     current_at_prior_assumptions: pd.DataFrame | None = None,
     frameworks: list[Framework] | None = None,
     sources: Mapping[str, str] | None = None,
+    prior_as_of: date | None = None,
+    current_as_of: date | None = None,
+    method_changes: Mapping[str, Sequence[str]] | None = None,
 ) -> dict[Framework, Movement]:
     """The movement of every framework both runs carry (``allowance compare PRIOR CURRENT``).
 
@@ -257,8 +337,9 @@ def compare_runs(
     --------
     >>> prior = pd.DataFrame({"loan_id": ["a"], "segment": "card", "balance": [10.0], "ecl_cecl": [1.0]})
     >>> current = prior.assign(ecl_cecl=[1.25])
-    >>> compare_runs(prior, current)["cecl"].rollforward.iloc[-1].to_dict()
-    {'segment': 'Total', 'beginning': 1.0, 'provision': 0.25, 'charge_offs': 0.0, 'recoveries': 0.0, 'ending': 1.25}
+    >>> compare_runs(prior, current)["cecl"].rollforward.iloc[-1].to_dict()  # doctest: +NORMALIZE_WHITESPACE
+    {'segment': 'Total', 'beginning': 1.0, 'initial_allowance_pcd': 0.0, 'provision': 0.25, 'charge_offs': 0.0,
+     'recoveries': 0.0, 'ending': 1.25}
     """
     if frameworks is None:
         frameworks = [f for f in FRAMEWORKS if f"ecl_{f}" in prior_loans.columns and f"ecl_{f}" in current_loans.columns]
@@ -266,6 +347,7 @@ def compare_runs(
             raise MovementError("the two runs share no framework (no ecl_ifrs9 or ecl_cecl column in both)",
                                 hint="compare two runs of the same frameworks")
     return {
-        f: movement(prior_loans, current_loans, current_at_prior_assumptions, charge_offs, f, sources=sources)
+        f: movement(prior_loans, current_loans, current_at_prior_assumptions, charge_offs, f, sources=sources,
+                    prior_as_of=prior_as_of, current_as_of=current_as_of, method_changes=method_changes)
         for f in frameworks
     }

@@ -51,6 +51,14 @@ def _flags(values: pd.Series) -> np.ndarray:
     return text.isin(["true", "1", "1.0", "y", "yes"]).to_numpy()
 
 
+def _optional_cents(frame: pd.DataFrame, column: str, source: str, ids: pd.Series) -> np.ndarray | None:
+    """A money column a run may not carry (older runs): cents, blanks as 0; None when absent."""
+    if column not in frame.columns:
+        return None
+    values = pd.to_numeric(frame[column], errors="coerce").fillna(0.0)
+    return _cents(values, column=column, source=source, ids=ids)
+
+
 def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, modelled_only: bool = False) -> pd.DataFrame:
     """The columns the movement needs, in cents, keyed by the neutralised loan id."""
     rules = rules_for(framework)
@@ -84,6 +92,13 @@ def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, model
         _cents(frame[modelled], column=modelled, source=source, ids=ids) if modelled in frame.columns else out["ecl"]
     )
     out["bal"] = _cents(frame["balance"], column="balance", source=source, ids=ids)
+    # CECL: the allowance at purchase of a PCD asset bought in the period (a gross-up)
+    gross_up = _optional_cents(frame, "pcd_gross_up", source, ids)
+    out["gross_up"] = gross_up if gross_up is not None else np.zeros(len(frame), dtype=np.int64)
+    rate = f"discount_rate_{framework}"
+    out["rate"] = (pd.to_numeric(frame[rate], errors="coerce").fillna(0.0).to_numpy(np.float64)
+                   if rate in frame.columns else np.full(len(frame), np.nan))
+    out["modified"] = _flags(frame["modified"]) if "modified" in frame.columns else np.zeros(len(frame), dtype=bool)
     poci = _flags(frame["poci"]) if "poci" in frame.columns else np.zeros(len(frame), dtype=bool)
     if rules.staged:
         stage = pd.to_numeric(frame["stage"], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
@@ -140,8 +155,15 @@ def prepare_charge_offs(frame: pd.DataFrame | None, source: str) -> pd.DataFrame
 # --------------------------------------------------------------------------------------
 
 
-def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.DataFrame, sources: dict) -> pd.DataFrame:
-    """One row per loan in either run (or charged off): every line's amount in cents."""
+def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.DataFrame, sources: dict,
+           *, months: int | None = None, method_changed: frozenset[str] = frozenset(),
+           gross_up: bool = False) -> pd.DataFrame:
+    """One row per loan in either run (or charged off): every line's amount in cents.
+
+    ``months`` is the length of the period (for the unwind of the discount; None: not
+    isolated); ``method_changed`` the segments whose model or method changed (``"*"``: all);
+    ``gross_up`` whether the framework grosses up a PCD asset's purchase-date allowance.
+    """
     keys = p.index.union(c.index, sort=False).union(co.index, sort=False)
     pr, cu, ch = p.reindex(keys), c.reindex(keys), co.reindex(keys)
     in_p, in_c, in_co = keys.isin(p.index), keys.isin(c.index), keys.isin(co.index)
@@ -167,11 +189,28 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
     cont, new = in_p & in_c, in_c & ~in_p
     gone = in_p & ~in_c
     written, derec = gone & in_co, gone & ~in_co
-    w = np.where(cont, np.minimum(P, gco), np.where(written, P, 0))
+    # the allowance used by a charge-off: never more than the charge-off, never a negative
+    # allowance (a POCI gain is not "written off"); what is left of a leaving loan's
+    # allowance is released on derecognition
+    w = np.where(in_p & in_co, np.minimum(np.maximum(P, 0), gco), 0)
     wg = np.where(in_p & in_co, np.minimum(Bp, gco), 0)
+    # CECL: a PCD asset bought in the period enters with its purchase-date allowance as a
+    # gross-up of amortised cost (ASC 326-20-30-13), not through the provision
+    G = np.where(new & gross_up, ints(cu, "gross_up"), 0)
+    # unwind of the discount on the opening (modelled) allowance of continuing loans, at the
+    # rate that discounted it: P_m ((1 + r/12)^months - 1)
+    rate = pr["rate"].to_numpy(dtype=np.float64)
+    unwind = np.zeros(len(keys), dtype=np.int64)
+    if months is not None:
+        factor = np.expm1(np.log1p(np.nan_to_num(rate) / 12.0) * months)
+        unwind = np.where(cont & ~np.isnan(rate), np.rint(Pm * factor), 0).astype(np.int64)
+    rest = np.where(cont, A - Pm + w - unwind, 0)
+    modified = cont & cu["modified"].fillna(False).to_numpy(dtype=bool)
+    seg_c = cu["segment"].to_numpy(dtype=object)
+    changed = np.isin(seg_c, list(method_changed)) | ("*" in method_changed)
+    change = np.where(cont, Cm - A, 0)  # new loans are valued at the closing assumptions
 
     seg_p = pr["segment"].to_numpy(dtype=object)
-    seg_c = cu["segment"].to_numpy(dtype=object)
     seg_any = np.where(in_p, seg_p, np.where(in_c, seg_c, ch["segment"].to_numpy(dtype=object)))
     # a loan opened and charged off within the period is in neither run: its segment comes
     # from the charge-off file when it has one, else it is shown apart
@@ -181,7 +220,7 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
     ids = np.where(pd.isna(pd.Series(ids)).to_numpy(), keys.to_numpy(dtype=object), ids)
     status = np.select([cont, new, written, derec], ["continuing", "new", "written off", "derecognised"],
                        "charged off outside both runs")
-    bridge = pd.DataFrame(
+    return pd.DataFrame(
         {
             "loan_id": ids,
             "status": status,
@@ -194,13 +233,17 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
             "in_current": in_c,
             # allowance, cents
             "opening": P,
-            "new": np.where(new, A, 0),
-            "derecognised": np.where(derec, -P, 0),
+            "new": np.where(new, C - G, 0),
+            "pcd_gross_up": G,
+            "derecognised": np.where(gone, -(P - w), 0),
             "written_off": -w,
             "transfer": np.where(cont, P - w, 0),
-            "remeasurement": np.where(cont, A - Pm + w, 0),
-            "assumptions": np.where(in_c, Cm - A, 0),
-            "overlays": np.where(cont, (C - Cm) - (P - Pm), np.where(new, C - Cm, 0)),
+            "unwind": unwind,
+            "remeasurement": np.where(modified, 0, rest),
+            "modifications": np.where(modified, rest, 0),
+            "model_change": np.where(changed, change, 0),
+            "assumptions": np.where(changed, 0, change),
+            "overlays": np.where(cont, (C - Cm) - (P - Pm), 0),
             "closing": C,
             # gross carrying amount, cents
             "g_opening": Bp,
@@ -214,4 +257,3 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
             "recoveries": rec,
         }
     )
-    return bridge

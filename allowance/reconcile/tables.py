@@ -12,6 +12,7 @@ journal          the provision (or release) as debit and credit lines
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -20,24 +21,63 @@ from allowance.frameworks import rules_for
 from allowance.exceptions import MovementError
 from allowance.schemas import Framework
 
-__all__ = ["MOVEMENT_LINES", "check_movement"]
+__all__ = ["LEDGER", "MOVEMENT_LINES", "LedgerRules", "check_movement", "journal", "rollforward", "write_off_bridge"]
 
 #: line code -> label, in the order the tables show them (transfer lines are added per class)
 MOVEMENT_LINES: dict[str, str] = {
     "opening": "Opening",
-    "new": "New loans",
-    "derecognised": "Derecognised (repaid or sold)",
-    "written_off": "Written off",
+    "new": "New loans (at the closing assumptions)",
+    "pcd_gross_up": "Initial allowance on PCD assets bought (gross-up of amortised cost)",
+    "derecognised": "Derecognised (repaid, sold, or released on write-off)",
+    "written_off": "Written off (allowance used)",
     "change_of_segment": "Moved between segments",
+    "unwind": "Unwind of the discount",
     "remeasurement": "Remeasurement at prior assumptions",
+    "modifications": "Modifications not derecognised",
+    "model_change": "Changes in models or methods",
     "assumptions": "Changes in assumptions or scenarios",
     "overlays": "Overlay changes",
     "other_changes": "Other changes (repayments, amortisation, drawings)",
     "closing": "Closing",
 }
-_ALLOWANCE_BODY = ("remeasurement", "assumptions", "overlays")
+_ALLOWANCE_BODY = ("unwind", "remeasurement", "modifications", "model_change", "assumptions", "overlays")
 _GROSS_BODY = ("other_changes",)
-_ROLLFORWARD = ("beginning", "provision", "charge_offs", "recoveries", "ending")
+_ROLLFORWARD = ("beginning", "initial_allowance_pcd", "provision", "charge_offs", "recoveries", "ending")
+
+
+@dataclass(frozen=True)
+class LedgerRules:
+    """How a framework books write-offs and recoveries against the allowance.
+
+    ``charge_offs``: ``"allowance_used"`` (IFRS 9: the allowance written off, 35H; any charge
+    beyond it is a direct loss in profit or loss) or ``"gross"`` (CECL: every charge-off is
+    deducted from the allowance, ASC 326-20-35-8). ``recoveries_to_allowance``: CECL credits
+    recoveries to the allowance (326-20-35-8, 50-13); under IFRS 9 a write-off derecognises
+    the asset (5.4.4), so a later recovery is a gain in profit or loss, not allowance.
+    ``pcd_gross_up``: CECL adds a PCD asset's purchase-date allowance to its amortised cost
+    (ASC 326-20-30-13); IFRS 9 books no allowance at purchase (5.5.13).
+    """
+
+    charge_offs: str
+    pcd_gross_up: bool
+    recoveries_to_allowance: bool
+    recoveries_treatment: str
+    charge_off_label: str
+
+
+LEDGER: dict[Framework, LedgerRules] = {
+    "ifrs9": LedgerRules(
+        charge_offs="allowance_used", pcd_gross_up=False, recoveries_to_allowance=False,
+        recoveries_treatment="recognised in profit or loss (IFRS 9 5.4.4: a write-off derecognises the asset)",
+        charge_off_label="Written off (allowance used)",
+    ),
+    "cecl": LedgerRules(
+        charge_offs="gross", pcd_gross_up=True, recoveries_to_allowance=True,
+        recoveries_treatment="credited to the allowance (ASC 326-20-35-8, 326-20-50-13)",
+        charge_off_label="Charge-offs",
+    ),
+}
+_GROSS_UP_ACCOUNT = "Loans at amortised cost (PCD gross-up, ASC 326-20-30-13)"
 
 
 
@@ -63,6 +103,8 @@ def _ledger(bridge: pd.DataFrame, dims: tuple[str, ...], body: tuple[str, ...], 
     col = lambda name: bridge[prefix + name].to_numpy(dtype=np.int64)  # noqa: E731
     add(in_p, "prior", "opening", col("opening"))
     add(in_c & ~in_p, "current", "new", col("new"))
+    if prefix + "pcd_gross_up" in bridge.columns:
+        add(in_c & ~in_p, "current", "pcd_gross_up", col("pcd_gross_up"))
     add(in_p & ~in_c, "prior", "derecognised", col("derecognised"))
     add(in_p, "prior", "written_off", col("written_off"))
     moved = transfer_line != ""
@@ -94,10 +136,11 @@ def _label(line: str, classes: Mapping[str, str]) -> str:
     return MOVEMENT_LINES[line]
 
 
-def _line_order(classes: list[str], body: tuple[str, ...], segment_moves: bool) -> list[str]:
+def _line_order(classes: list[str], body: tuple[str, ...], segment_moves: bool, gross_up: bool = False) -> list[str]:
     transfers = [f"transfer_to_{_slug(c)}" for c in classes]
     moves = ["change_of_segment"] if segment_moves else []
-    return ["opening", "new", "derecognised", "written_off", *transfers, *moves, *body, "closing"]
+    first = ["opening", "new", "pcd_gross_up"] if gross_up else ["opening", "new"]
+    return [*first, "derecognised", "written_off", *transfers, *moves, *body, "closing"]
 
 
 def check_movement(table: pd.DataFrame, *, what: str = "movement") -> None:
@@ -178,37 +221,90 @@ def _check_long(detail: pd.DataFrame, order: list[str], what: str) -> None:
 # --------------------------------------------------------------------------------------
 
 
-def rollforward(bridge: pd.DataFrame) -> pd.DataFrame:
-    """Per segment: beginning + provision + charge-offs + recoveries = ending (ASC 326-20-50-13)."""
-    def by(seg_col: str, mask: np.ndarray, values: str) -> pd.Series:
-        return pd.Series(bridge[values].to_numpy()[mask], index=bridge[seg_col].to_numpy(dtype=object)[mask]).groupby(level=0).sum()
+def rollforward(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame:
+    """Per segment: beginning + initial PCD allowance + provision + charge-offs + recoveries = ending.
 
-    begin = by("segment_prior", bridge["in_prior"].to_numpy(), "opening")
-    end = by("segment", bridge["in_current"].to_numpy(), "closing")
+    ASC 326-20-50-13's roll-forward. Charge-offs are the gross charge-offs under CECL and
+    the allowance used under IFRS 9 (:data:`LEDGER`); recoveries enter the allowance under
+    CECL only; the PCD gross-up (CECL) is its own column, not provision. The provision is
+    the balancing figure: the period's charge to profit or loss through the allowance.
+    """
+    rules = LEDGER[framework]
+
+    def by(seg_col: str, mask: np.ndarray, values: np.ndarray) -> pd.Series:
+        return pd.Series(values[mask], index=bridge[seg_col].to_numpy(dtype=object)[mask]).groupby(level=0).sum()
+
+    col = lambda name: bridge[name].to_numpy(dtype=np.int64)  # noqa: E731
+    in_p, in_c = bridge["in_prior"].to_numpy(), bridge["in_current"].to_numpy()
     everyone = np.ones(len(bridge), dtype=bool)
-    chg = -by("segment_any", everyone, "gross_charge_off")
-    rec = by("segment_any", everyone, "recoveries")
-    segments = sorted(set(begin.index) | set(end.index) | set(chg.index), key=str)
-    roll = pd.DataFrame({"beginning": begin, "charge_offs": chg, "recoveries": rec, "ending": end}).reindex(segments)
+    begin = by("segment_prior", in_p, col("opening"))
+    end = by("segment", in_c, col("closing"))
+    initial = by("segment", in_c, col("pcd_gross_up")) if "pcd_gross_up" in bridge else pd.Series(dtype=np.int64)
+    if rules.charge_offs == "gross":
+        chg = -by("segment_any", everyone, col("gross_charge_off"))
+    else:
+        chg = by("segment_prior", in_p, col("written_off"))
+    rec = by("segment_any", everyone, col("recoveries")) if rules.recoveries_to_allowance else pd.Series(dtype=np.int64)
+    segments = sorted(set(begin.index) | set(end.index) | set(chg.index) | set(rec.index), key=str)
+    roll = pd.DataFrame({"beginning": begin, "initial_allowance_pcd": initial, "charge_offs": chg,
+                         "recoveries": rec, "ending": end}).reindex(segments)
     roll = roll.fillna(0).astype(np.int64)
-    roll["provision"] = roll["ending"] - roll["beginning"] - roll["charge_offs"] - roll["recoveries"]
+    roll["provision"] = (roll["ending"] - roll["beginning"] - roll["initial_allowance_pcd"] - roll["charge_offs"]
+                         - roll["recoveries"])
     roll.loc["Total"] = roll.sum(axis=0)
-    out = (roll[list(_ROLLFORWARD)] / 100.0).rename_axis("segment").reset_index()
+    return (roll[list(_ROLLFORWARD)] / 100.0).rename_axis("segment").reset_index()
+
+
+def write_off_bridge(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame:
+    """From the allowance written off (IFRS 7 35H) to the gross charge-offs and recoveries.
+
+    Per segment and ``Total``: ``allowance_written_off`` (the allowance used),
+    ``charged_off_beyond_allowance`` (charge-offs not covered by the loan's own allowance,
+    including loans in neither run), ``gross_charge_offs`` (their sum), ``recoveries``,
+    ``recoveries_treatment`` (per framework, :data:`LEDGER`) and ``credit_loss_expense``:
+    the period's charge to profit or loss, ending - beginning - PCD gross-up + gross
+    charge-offs - recoveries, the same under both frameworks however it is presented.
+    """
+    rules = LEDGER[framework]
+    col = lambda name: bridge[name].to_numpy(dtype=np.int64)  # noqa: E731
+    seg = bridge["segment_any"].to_numpy(dtype=object)
+    frame = pd.DataFrame({
+        "segment": seg,
+        "allowance_written_off": -col("written_off"),
+        "gross_charge_offs": col("gross_charge_off"),
+        "recoveries": col("recoveries"),
+        "change": np.where(bridge["in_current"], col("closing"), 0) - np.where(bridge["in_prior"], col("opening"), 0)
+        - col("pcd_gross_up"),
+    })
+    sums = frame.groupby("segment", sort=True).sum()
+    sums.loc["Total"] = sums.sum(axis=0)
+    sums["charged_off_beyond_allowance"] = sums["gross_charge_offs"] - sums["allowance_written_off"]
+    sums["credit_loss_expense"] = sums["change"] + sums["gross_charge_offs"] - sums["recoveries"]
+    money = ["allowance_written_off", "charged_off_beyond_allowance", "gross_charge_offs", "recoveries",
+             "credit_loss_expense"]
+    out = (sums[money] / 100.0).rename_axis("segment").reset_index()
+    out.insert(5, "recoveries_treatment", rules.recoveries_treatment)
     return out
 
 
 def journal(roll: pd.DataFrame, framework: Framework) -> pd.DataFrame:
-    """Debit expense / credit allowance for a provision; the reverse for a release."""
+    """The allowance entries: provision (or release) by segment, and the CECL PCD gross-up."""
     expense, allowance = rules_for(framework).journal_accounts
     rows = []
-    for segment, provision in zip(roll["segment"], roll["provision"]):
-        if segment == "Total" or round(provision, 2) == 0:
+    for segment, provision, initial in zip(roll["segment"], roll["provision"], roll["initial_allowance_pcd"]):
+        if segment == "Total":
             continue
-        amount = abs(provision)
-        entry = "provision" if provision > 0 else "release"
-        debit, credit = (expense, allowance) if provision > 0 else (allowance, expense)
-        rows.append({"segment": segment, "entry": entry, "account": debit, "debit": amount, "credit": 0.0})
-        rows.append({"segment": segment, "entry": entry, "account": credit, "debit": 0.0, "credit": amount})
+        if round(provision, 2) != 0:
+            amount = abs(provision)
+            entry = "provision" if provision > 0 else "release"
+            debit, credit = (expense, allowance) if provision > 0 else (allowance, expense)
+            rows.append({"segment": segment, "entry": entry, "account": debit, "debit": amount, "credit": 0.0})
+            rows.append({"segment": segment, "entry": entry, "account": credit, "debit": 0.0, "credit": amount})
+        if round(initial, 2) != 0:
+            rows.append({"segment": segment, "entry": "PCD gross-up", "account": _GROSS_UP_ACCOUNT,
+                         "debit": initial, "credit": 0.0})
+            rows.append({"segment": segment, "entry": "PCD gross-up", "account": allowance,
+                         "debit": 0.0, "credit": initial})
     journal = pd.DataFrame(rows, columns=["segment", "entry", "account", "debit", "credit"])
     cents = np.rint(journal[["debit", "credit"]].to_numpy(dtype=np.float64) * 100).astype(np.int64).sum(axis=0)
     total = {"segment": "Total", "entry": "", "account": "", "debit": cents[0] / 100, "credit": cents[1] / 100}

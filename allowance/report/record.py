@@ -28,6 +28,7 @@ from allowance.money import money_total
 from allowance.report import clock
 from allowance.report.environment import environment
 from allowance.schemas import Framework, InputFile, RunConfig, RunRecord
+from allowance.staging import STAGE_CLASSES, stage_class
 
 if TYPE_CHECKING:
     from allowance.reconcile import Movement, WhatIf
@@ -129,6 +130,14 @@ def _jsonable(value: Any) -> Any:
     return value
 
 
+def _stage_classes(loans: pd.DataFrame) -> np.ndarray:
+    """Each loan's class: the run's ``stage_class`` column, or stage and POCI flag for older frames."""
+    if "stage_class" in loans.columns:
+        return loans["stage_class"].to_numpy(dtype=object)
+    poci = loans["poci"].astype(bool).to_numpy() if "poci" in loans.columns else np.zeros(len(loans), bool)
+    return stage_class(loans["stage"].to_numpy(), poci)
+
+
 def run_record(
     config: RunConfig,
     intake: IntakeResult,
@@ -184,8 +193,10 @@ def run_record(
             if col in loans.columns:
                 entry[key] = money_total(loans[col])
         if "stage" in loans.columns and f"ecl_{f}" in loans.columns and FRAMEWORK_RULES[f].staged:
+            # the one stage vocabulary: stage 1/2/3 and POCI apart (IFRS 7 35H(c))
+            classes = _stage_classes(loans)
             entry["by_stage"] = {
-                str(int(s)): money_total(g) for s, g in loans.groupby("stage")[f"ecl_{f}"]
+                k: money_total(loans.loc[classes == k, f"ecl_{f}"]) for k in STAGE_CLASSES if (classes == k).any()
             }
         if f"ecl_{f}" in loans.columns and "segment" in loans.columns:
             entry["by_segment"] = {str(s): money_total(g) for s, g in loans.groupby("segment")[f"ecl_{f}"]}

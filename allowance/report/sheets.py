@@ -156,12 +156,10 @@ def journal_sheet(sheet: Sheet, report: "RunReport", led: Ledger) -> None:
                      ["text", "text", "text", "text", "money", "money"])
         first = row + 1
         r = first
-        rules = _ledger_rules(m.framework)
+        expense, allowance = FRAMEWORK_RULES[m.framework].journal_accounts
         for rec in journal.iloc[:-1].itertuples(index=False):
-            if rules is not None and hasattr(rules, "expense_account"):
-                side = {rules.expense_account: "expense", rules.allowance_account: "allowance"}.get(rec.account)
-            else:  # a provision debits the expense; a release credits it
-                side = "expense" if (rec.entry == "provision") == (float(rec.debit) > 0) else "allowance"
+            # the PCD gross-up's debit (the loans' amortised cost) has no provision account code
+            side = {expense: "expense", allowance: "allowance"}.get(rec.account)
             sheet.label(r, 1, rec.segment)
             sheet.put(r, 2, rec.entry)
             sheet.put(r, 3, _account_code(codes, str(rec.segment), side) if side else None)
