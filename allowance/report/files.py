@@ -39,7 +39,7 @@ __all__ = ["OUTPUT_FILES", "OutputPaths", "check_output_path", "write_outputs"]
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
     "what_if.csv", "what_if_stage_changes.csv", "what_if_macro_paths.csv", "sensitivity.csv", "macro_paths.csv",
-    "pd_paths.csv",
+    "pd_paths.csv", "disclosure_ifrs7_35m.csv", "disclosure_asc326_vintage.csv",
     "reserve.xlsx", "summary.xlsx", "run.json",
 )
 
@@ -115,6 +115,9 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
     if report.sensitivity is not None and not report.sensitivity.empty:
         _csv(report.sensitivity, folder / "sensitivity.csv")
         done("sensitivity.csv")
+    for name, table in (report.disclosures or {}).items():
+        _csv(table, folder / f"disclosure_{name}.csv")
+        done(f"disclosure_{name}.csv")
     if report.macro_paths is not None and not report.macro_paths.empty:
         _csv(report.macro_paths, folder / "macro_paths.csv")
         done("macro_paths.csv")

@@ -67,6 +67,8 @@ class RunReport:
     reversion: pd.DataFrame = field(default_factory=pd.DataFrame)
     schedules: pd.DataFrame = field(default_factory=pd.DataFrame)
     sensitivity: pd.DataFrame = field(default_factory=pd.DataFrame)
+    #: disclosure tables by name (``ifrs7_35m``, ``asc326_vintage``): see allowance.disclosure
+    disclosures: Mapping[str, pd.DataFrame] = field(default_factory=dict)
     macro_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
     what_if_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
     pd_paths: pd.DataFrame = field(default_factory=pd.DataFrame)

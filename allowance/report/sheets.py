@@ -1,8 +1,9 @@
-"""The workbook's supporting sheets: movement, journal, what-if, intake, run record.
+"""The workbook's supporting sheets: movement, journal, disclosures, what-if, intake, run record.
 
 Implements
 ----------
 movement_sheet, journal_sheet   the period's movement and the journal that books it
+disclosures_sheet               IFRS 7 35M and ASC 326-20-50-6 tables (allowance.disclosure)
 what_if_sheet, stage_changes_frame
 intake_sheet, warnings_frame    rows read / accepted / rejected, date formats, the ledger tie-out
 record_sheet                    the run record
@@ -10,6 +11,7 @@ record_sheet                    the run record
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -26,8 +28,8 @@ if TYPE_CHECKING:
     from allowance.report.record import RunReport
 
 __all__ = [
-    "intake_sheet", "journal_sheet", "movement_sheet", "record_sheet", "stage_changes_frame", "warnings_frame",
-    "what_if_sheet",
+    "disclosures_sheet", "intake_sheet", "journal_sheet", "movement_sheet", "record_sheet", "stage_changes_frame",
+    "warnings_frame", "what_if_sheet",
 ]
 
 _FW_LABEL = {name: rules.label for name, rules in FRAMEWORK_RULES.items()}
@@ -209,6 +211,43 @@ def what_if_sheet(sheet: Sheet, what_if: "WhatIf") -> None:
         _, last = sheet.table(row, part.reset_index(drop=True), title=title,
                               kinds={"stage": "center", "change_percent": "rate"},
                               headers={"change_percent": "Change %", "difference": "Change"})
+        row = last + 2
+
+
+_DISCLOSURE_TITLES = {
+    "ifrs7_35m": "IFRS 7 35M: gross carrying amount by credit grade and stage (POCI apart)",
+    "asc326_vintage": "ASC 326-20-50-6: amortised cost by credit quality indicator and year of origination, "
+                      "with the period's gross write-offs by year of origination (ASU 2022-02)",
+}
+
+
+def disclosures_sheet(sheet: Sheet, disclosures: Mapping[str, pd.DataFrame], led: Ledger) -> None:
+    """The disclosure tables (:mod:`allowance.disclosure`), one under the other.
+
+    Each figure is a value the ledger records (the tables are sums of rounded loan balances in
+    whole cents); a table's total row is a cached ``SUM`` over the rows above it.
+    """
+    row = sheet.note(_TOP, "Gross carrying amount and amortised cost are the tape's outstanding principal. The credit "
+                     "quality indicator is the loan's grade, or its days-past-due band where the segment has no grade "
+                     "(IFRS 7 B8I; ASC 326-20-55-79).", span=8)
+    row += 1
+    for name, table in disclosures.items():
+        text = [c for c in table.columns if c in ("segment", "row", "credit_quality", "basis")]
+        kinds = {c: "money" for c in table.columns if c not in text}
+        book_total = int(len(table) and str(table["segment"].iloc[-1]) == "Total")
+        first, last = sheet.table(row, table.reset_index(drop=True), title=_DISCLOSURE_TITLES.get(name, name),
+                                  kinds=kinds, total_rows=book_total)
+        for j, column in enumerate(table.columns, start=1):
+            if column in text:
+                continue
+            for r in range(first, last + 1):
+                value = float(table[column].iloc[r - first])
+                if book_total and r == last:  # the book's total: the segments' total rows above it
+                    letter, q = col_letter(j), col_letter(list(table.columns).index("credit_quality") + 1)
+                    led.put(sheet, r, j, Figure(f'=SUMIF({q}{first}:{q}{r - 1},"Total",{letter}{first}:{letter}{r - 1})',
+                                                value), "money", total=True)
+                else:
+                    led.put(sheet, r, j, value, "money")
         row = last + 2
 
 

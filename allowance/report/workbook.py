@@ -31,7 +31,8 @@ from allowance.report.cells import human
 from allowance.report.figures import Figure, Ledger, LoanRefs
 from allowance.report.record import CAUTION, RunReport
 from allowance.report.sheets import (
-    intake_sheet, journal_sheet, movement_sheet, record_sheet, stage_changes_frame, warnings_frame, what_if_sheet,
+    disclosures_sheet, intake_sheet, journal_sheet, movement_sheet, record_sheet, stage_changes_frame, warnings_frame,
+    what_if_sheet,
 )
 from allowance.report.assumptions_sheet import assumptions_sheet, monthly_curves_frame, term_structure_sheet
 from allowance.report.xlsx import Book, Context, Sheet, col_letter, nice_axis
@@ -39,7 +40,7 @@ from allowance.report.xlsx import Book, Context, Sheet, col_letter, nice_axis
 __all__ = ["SHEETS", "write_summary_workbook", "write_workbook"]
 
 SHEETS: tuple[str, ...] = (
-    "Summary", "By segment and stage", "Scenarios", "Overlays", "Movement", "Journal", "What-if",
+    "Summary", "By segment and stage", "Scenarios", "Overlays", "Movement", "Journal", "Disclosures", "What-if",
     "Stage changes", "Intake", "Warnings", "Assumptions", "Term structures", "Monthly PD curves",
     "Schedules", "Run record", "Loans",
 )
@@ -663,6 +664,9 @@ def _build(path: Path, report: RunReport, *, full: bool) -> Ledger:
     if report.movements:
         movement_sheet(book.sheet("Movement", title="Movement from the prior quarter"), report.movements, led)
         journal_sheet(book.sheet("Journal", title="Journal for the period's provision"), report, led)
+    if report.disclosures:
+        disclosures_sheet(book.sheet("Disclosures", title="Disclosures: credit quality by stage and by vintage"),
+                          report.disclosures, led)
     if report.what_if_parts is not None:
         what_if_sheet(book.sheet("What-if", title="What-if against the base run"), report.what_if_parts)
         if full:
