@@ -18,14 +18,14 @@ LAYERS: list[tuple[str, ...]] = [
     ("exceptions", "text", "money", "jit"),  # leaves: the domain errors, text safety, cents, compile cache
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
     ("links", "discounting", "cashflows"),  # maths with no other concept beneath it
-    ("macro", "satellite_fit", "curves", "staging", "loss_rates"),  # term structures, stages, macro links and their fit
+    ("macro", "satellite_fit", "curves", "staging", "poci", "loss_rates"),  # term structures, stages, POCI, macro links and their fit
     ("scenarios",),  # scenario paths over the term structures
     ("frameworks",),  # what differs between IFRS 9 and CECL
     ("intake",),  # the reading edge: files into contracts, validated
     ("ecl", "overlays", "backtest", "calibrate"),  # the fused loop, adjustments, back-testing, calibration
     ("engine",),  # chunks of loans through the loop
     ("cluster",),  # the engine's chunks on a Dask cluster
-    ("reconcile",),  # movement, what-if, sensitivities between runs
+    ("reconcile", "disclosure"),  # movement, what-if, sensitivities between runs; disclosure tables
     ("report",),  # the writing edge: loans.csv, reserve.xlsx, run.json
     ("result",),  # what the API hands back
     ("api",),  # the library API
