@@ -834,7 +834,10 @@ def _sigint_during_run(tmp_path: Path, case: Case) -> None:
     ws = workspace(tmp_path / "ws", [TAPE[0], *(DEMO / MANIFEST["current"]["tape"]).read_text().splitlines()[1:]])
     child = subprocess.Popen([PYTHON, "-m", "allowance", "run", str(ws.tape), "-a", str(ws.toml), "--out", str(ws.out)],
                              cwd=ws.folder, env=_env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    time.sleep(4)
+    # a run, not the interpreter's start-up (no program can catch a signal there): once the
+    # libraries are loading, give it a moment to be reading or computing
+    if _wait_until_loading(child, "_multiarray_umath"):
+        time.sleep(1.5)
     child.send_signal(signal.SIGINT)
     _, err = child.communicate(timeout=300)
     if child.returncode == 0:
