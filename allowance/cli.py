@@ -225,12 +225,12 @@ class Calibrated:
 
 
 def _calibrate_and_write(history: Path, out: Path, *, policy: Path | None = None,
-                         settings: dict | None = None) -> Calibrated:
+                         settings: dict | None = None, macro: Path | None = None) -> Calibrated:
     from allowance.calibrate import calibrate as run_calibration
     from allowance.report.calibration import write_calibration
 
     started = time.perf_counter()
-    cal = run_calibration(history, settings or {}, policy)
+    cal = run_calibration(history, settings or {}, policy, macro=macro)
     files = write_calibration(out, cal)
     return Calibrated(out=out, calibration=cal, files=files, seconds=time.perf_counter() - started)
 
@@ -295,6 +295,11 @@ def calibrate_command(
         str | None, typer.Option("--weighting", help="Roll-rate matrix written for the run: count (maximum "
                                                      "likelihood) or balance; the other is written beside it.")
     ] = None,
+    macro: Annotated[
+        Path | None, typer.Option("--macro", help="Macro history (CSV/XLSX/Parquet, a month or quarter column and "
+                                                  "one column per variable): fits the satellite models the policy "
+                                                  "names and writes their coefficients.")
+    ] = None,
 ) -> None:
     """Estimate the assumptions from a performance history: roll rates, default and loss rates,
     vintage curves, LGD, CCF, payment and prepayment rates; write them with the evidence.
@@ -314,7 +319,7 @@ def calibrate_command(
     from allowance.exceptions import AllowanceError
 
     try:
-        done = _calibrate_and_write(history, out, policy=policy, settings=settings)
+        done = _calibrate_and_write(history, out, policy=policy, settings=settings, macro=macro)
     except AllowanceError as err:
         _fail(err)
     _print_calibration(done)

@@ -105,6 +105,41 @@ def constant_hazard_history(hazard: float, smm: float, vintages: int, per_vintag
     return pd.concat(frames, ignore_index=True)
 
 
+@dataclass(frozen=True)
+class MacroHistory:
+    """A history whose monthly default probability follows a macro series, and that series."""
+
+    frame: pd.DataFrame
+    macro: pd.DataFrame  # month (YYYY-MM), one column per variable, from 24 months before START
+
+
+def macro_driven_history(slots: int, months: int, intercept: float, beta: float, lag: int, seed: int,
+                         segment: str = "book") -> MacroHistory:
+    """A book of ``slots`` accounts: each month the live loan of a slot is charged off with
+    probability Phi(intercept + beta * u(t - lag)) (a probit satellite model with known
+    coefficients), and a new loan takes its place the month after. u is a seeded cycle around
+    5 % with noise, monthly, starting 24 months before the history."""
+    from scipy.stats import norm
+
+    rng = np.random.default_rng(seed)
+    back = 24
+    t = np.arange(-back, months)
+    u = 5.0 + 1.5 * np.sin(2 * np.pi * t / 30.0) + rng.normal(0.0, 0.3, t.size)
+    p = norm.cdf(intercept + beta * u[back - lag:back - lag + months])
+    default = rng.random((slots, months)) < p[None, :]
+    loan = np.cumsum(default, axis=1) - default  # loans charged off before this month in the slot
+    slot = np.repeat(np.arange(slots), months)
+    month = np.tile(np.arange(months), slots)
+    written = default.ravel()
+    frame = pd.DataFrame({
+        "loan_id": [f"M{s:05d}-{k:03d}" for s, k in zip(slot, loan.ravel())], "segment": segment,
+        "month": month_end(month).astype(str), "balance": np.where(written, 0.0, 1000.0),
+        "days_past_due": np.where(written, 125, 0), "charge_off": np.where(written, 1000.0, np.nan),
+    })
+    macro = pd.DataFrame({"month": [str(START + int(k)) for k in t], "unemployment_rate": np.round(u, 4)})
+    return MacroHistory(frame=frame, macro=macro)
+
+
 def write_csv(frame: pd.DataFrame, path: Path) -> Path:
     frame.to_csv(path, index=False)
     return path
@@ -115,5 +150,5 @@ def write_parquet(frame: pd.DataFrame, path: Path) -> Path:
     return path
 
 
-__all__ = ["BUCKETS", "MarkovHistory", "constant_hazard_history", "markov_history", "month_end", "write_csv",
+__all__ = ["BUCKETS", "MacroHistory", "MarkovHistory", "constant_hazard_history", "macro_driven_history", "markov_history", "month_end", "write_csv",
            "write_parquet"]

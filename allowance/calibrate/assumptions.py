@@ -301,8 +301,53 @@ def _revolving_entries(name: str, frame: Frame, results: dict, given: Mapping[st
     return entries
 
 
+def _satellite_entry(name: str, given: Mapping[str, Any], results: dict, frame: Frame, policy_file: Path | None,
+                     files: tuple[Path, Path | None], choices: list[Choice]) -> Entry:
+    """The segment's satellite model: fitted to the history when a macro history was given."""
+    fit = results.get("satellites", {}).get(name)
+    stated = "coefficients" in given
+    if fit is None:
+        if not stated:
+            raise AssumptionsError(
+                f"the satellite model of segment {name!r} has no coefficients, and no macro history was given to "
+                "estimate them", file=policy_file, column=f"segments.{name}.satellite.coefficients",
+                hint="give the macro history (allowance calibrate ... --macro FILE), or state the coefficients",
+            )
+        return Entry("satellite", dict(given), "from the policy file")
+    slopes = fit.coefficients[fit.coefficients["term"] != "intercept"]
+    estimated = {r.variable: _sig(float(r.coefficient), 4) for r in slopes.itertuples()}
+    errors = "; ".join(f"{r.variable} {r.coefficient:.4g} (standard error {r.std_error:.2g}, z {r.z:.1f})"
+                       for r in slopes.itertuples())
+    months = fit.fitted["month"]
+    history, macro = files
+    summary = (f"{fit.link} GLM of monthly charge-offs on the lagged macro variables, {len(months)} months "
+               f"{months.iloc[0]} to {months.iloc[-1]}, {int(fit.statistic('defaults')):,} charge-offs; "
+               f"standard errors {fit.standard_errors}; McFadden pseudo R2 {fit.statistic('pseudo_r2_mcfadden'):.3f}, "
+               f"dispersion {fit.statistic('dispersion'):.2f}")
+    value = {"link": fit.link}
+    if stated:
+        value["coefficients"] = dict(given["coefficients"])
+        choices.append(Choice(f"segments.{name}.satellite.coefficients", repr(value["coefficients"]), "policy",
+                              f"estimated {estimated!r}"))
+    else:
+        value["coefficients"] = estimated
+    lags = {v: int(lag) for v, lag in (given.get("lag_months", {}) or {}).items() if int(lag)}
+    value["lag_months"] = lags
+    value["source"] = (str(given["source"]) if stated and given.get("source") else
+                       f"estimated by allowance calibrate from {history.name}"
+                       + (f" and {macro.name}" if macro else "") + " (calibration.xlsx, Satellite models)")
+    if given.get("collateral"):
+        value["collateral"] = dict(given["collateral"])
+    comment = ((f"coefficients from the policy file (estimated: {errors}); " if stated else
+                f"estimated: {errors}; ") + summary)
+    notes = ("", "standard errors: " + ", ".join(f"{r.variable} {r.std_error:.2g}" for r in slopes.itertuples()),
+             "", "", "")
+    return Entry("satellite", value, comment, notes[:len(value)])
+
+
 def _segment_table(name: str, s: int, frame: Frame, results: dict, policy: Mapping[str, Any],
-                   policy_file: Path | None, choices: list[Choice]) -> tuple[Table, dict[str, Any]]:
+                   policy_file: Path | None, choices: list[Choice],
+                   files: tuple[Path, Path | None]) -> tuple[Table, dict[str, Any]]:
     entries = _pd_entries(name, s, frame, results, choices)
     own = dict(policy.get(name, {}) or {})
     given_pd = [k for k in (*PD_KEYS, *LOSS_RATE_KEYS) if k in own]
@@ -323,6 +368,9 @@ def _segment_table(name: str, s: int, frame: Frame, results: dict, policy: Mappi
         entries += _revolving_entries(name, frame, results, own)
     notes: list[str] = []
     for key, value in own.items():
+        if key == "satellite":
+            entries.append(_satellite_entry(name, value or {}, results, frame, policy_file, files, choices))
+            continue
         estimate = next((e for e in entries if e.key == key), None)
         if key == "lgd" and estimate is None:
             estimate = _lgd_entry(name, frame, results, [])
@@ -443,7 +491,8 @@ def _validate(data: dict[str, Any], matrices: dict[str, Any], policy_file: Path 
 
 
 def build_assumptions(results: dict[str, Any], frame: Frame, policy: Mapping[str, Any],
-                      policy_file: Path | None, intake: Any, history: Path) -> AssumptionsDraft:
+                      policy_file: Path | None, intake: Any, history: Path,
+                      macro: Path | None = None) -> AssumptionsDraft:
     """The assumptions draft: estimated segment tables, policy (or placeholder) tables, validated.
 
     Raises
@@ -474,7 +523,7 @@ def build_assumptions(results: dict[str, Any], frame: Frame, policy: Mapping[str
     seg_tables = []
     matrices = {}
     for s, name in enumerate(frame.segments):
-        table, values = _segment_table(name, s, frame, results, seg_policy, policy_file, choices)
+        table, values = _segment_table(name, s, frame, results, seg_policy, policy_file, choices, (history, macro))
         seg_tables.append(table)
         segments[name] = values
         if values.get("transition_matrix"):

@@ -113,6 +113,8 @@ class Hazards:
     pd_12m_by_grade segment -> {grade: pd_12m}
     pd_12m          segment -> pd_12m
     pd_curve_by_age segment -> cumulative PD by year of age
+    monthly         segment, month (``YYYY-MM``), at_risk, defaults: every month after the first,
+                    all grades (the series a satellite model is fitted to)
     """
 
     by_grade: pd.DataFrame
@@ -121,6 +123,18 @@ class Hazards:
     pd_12m_by_grade: dict[str, dict[str, float]]
     pd_12m: dict[str, float]
     pd_curve_by_age: dict[str, list[float]]
+    monthly: pd.DataFrame | None = None
+
+
+def _monthly(stats: dict[str, np.ndarray], frame: Frame) -> pd.DataFrame:
+    from allowance.calibrate.frame import month_label
+
+    exposure = stats["grade_exposure"].sum(axis=2)
+    defaults = stats["grade_defaults"].sum(axis=2)
+    months = [month_label(frame.first_month + t) for t in range(1, frame.months)]
+    return pd.concat([pd.DataFrame({"segment": name, "month": months, "at_risk": exposure[s, 1:],
+                                    "defaults": defaults[s, 1:]}) for s, name in enumerate(frame.segments)]
+                     or [pd.DataFrame(columns=["segment", "month", "at_risk", "defaults"])], ignore_index=True)
 
 
 def _hazard(defaults: np.ndarray, exposure: np.ndarray, rule: str) -> np.ndarray:
@@ -164,7 +178,7 @@ def estimate(stats: dict[str, np.ndarray], frame: Frame) -> Hazards:
     return Hazards(
         by_grade=pd.DataFrame(rows, columns=["segment", "grade", "loan_months", "defaults", "hazard", "pd_12m"]),
         pooled=pd.DataFrame(pooled_rows), by_age=age_rows, pd_12m_by_grade=by_grade, pd_12m=pd_12m,
-        pd_curve_by_age=curves,
+        pd_curve_by_age=curves, monthly=_monthly(stats, frame),
     )
 
 

@@ -117,6 +117,7 @@ class Calibration:
     rows_after_as_of: int = 0
     policy_file: Path | None = None
     history_file: Path | None = None
+    macro_file: Path | None = None
 
     def __getattr__(self, name: str) -> Any:
         results = self.__dict__.get("results", {})
@@ -226,6 +227,7 @@ def calibrate(
     estimators: Iterable[Estimator] = (),
     spill_dir: Path | None = None,
     memory_rows: int | None = None,
+    macro: Path | str | None = None,
 ) -> Calibration:
     """Calibrate assumptions from a monthly performance history.
 
@@ -246,6 +248,10 @@ def calibrate(
         Extra estimators run beside :data:`ESTIMATORS`.
     spill_dir, memory_rows
         Where a large history is spilled, and above how many rows (see :func:`read_history`).
+    macro
+        A macro history (:func:`allowance.intake.read_macro_history`): the satellite model the
+        policy names for a segment is then fitted to the segment's monthly charge-offs
+        (:mod:`allowance.calibrate.satellites`) and its coefficients written.
 
     Returns
     -------
@@ -265,8 +271,23 @@ def calibrate(
     found = estimate(history, settings, estimators=estimators, spill_dir=spill_dir, memory_rows=memory_rows,
                      policy_file=policy_file, policy_settings=raw_settings)
     choices = [*found.frame.choices, *settings_choices(found.settings, set(found.given))]
-    draft = build_assumptions(found.results, found.frame, table, policy_file, found.intake, found.history_file)
+    results = dict(found.results)
+    results["satellites"] = {}
+    macro_file = None if macro is None else Path(macro)
+    if macro_file is not None:
+        from allowance.calibrate.satellites import fit_satellites
+        from allowance.intake.macro_series import read_macro_history
+
+        rule = (table.get("macro", {}) or {}).get("interpolation") or found.settings.macro_interpolation
+        series = read_macro_history(macro_file)
+        results["satellites"] = fit_satellites(results["hazards"].monthly, found.frame, series.monthly(rule),
+                                               table.get("segments", {}) or {}, policy_file)
+        choices.append(Choice("macro_interpolation", rule, "policy" if "macro" in table else "default",
+                              f"{series.frequency} macro history {macro_file.name}"
+                              + (": quarters to months by this rule" if series.frequency == "quarterly" else "")))
+    draft = build_assumptions(results, found.frame, table, policy_file, found.intake, found.history_file,
+                              macro_file)
     choices += draft.choices
-    return Calibration(intake=found.intake, frame=found.frame, results=found.results, assumptions=draft,
+    return Calibration(intake=found.intake, frame=found.frame, results=results, assumptions=draft,
                        choices=choices, settings=found.settings, rows_after_as_of=found.rows_after_as_of,
-                       policy_file=policy_file, history_file=found.history_file)
+                       policy_file=policy_file, history_file=found.history_file, macro_file=macro_file)

@@ -28,6 +28,7 @@ LossRateChoice = Literal["annual_loss_rate", "lifetime_loss_rate", "vintage_loss
 Weighting = Literal["count", "balance"]
 ZeroDefaultRule = Literal["jeffreys_mean", "zero"]
 RecoveryDiscount = Literal["contract_rate", "none"]
+SatelliteErrors = Literal["binomial", "overdispersed", "hac"]
 
 
 class CalibrationSettings(BaseModel):
@@ -101,6 +102,17 @@ class CalibrationSettings(BaseModel):
         default=12,
         description="Revolving lines: the CCF compares the exposure at charge-off with the "
                     "drawn balance and limit this many months before (fixed-horizon approach).",
+    )
+    satellite_standard_errors: SatelliteErrors = Field(
+        default="overdispersed",
+        description="Standard errors of the satellite coefficients fitted with a macro history: "
+                    "'overdispersed' (quasi-binomial, scaled by the Pearson dispersion: a book's default "
+                    "rates move together beyond binomial noise), 'binomial' or 'hac' (Newey-West).",
+    )
+    macro_interpolation: Literal["step", "linear"] = Field(
+        default="step",
+        description="A quarterly macro history becomes monthly by this rule (the policy's "
+                    "[macro] interpolation, when it has one, is used instead).",
     )
     columns: dict[str, str] = Field(
         default_factory=dict, description="Our history column -> the file's header, where they differ."

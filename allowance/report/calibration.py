@@ -18,6 +18,8 @@ Files
 ``loss_rates.csv``                 segment, month, opening balance, GCL, NCL and their rates
 ``loss_rate_methods.csv``          per segment the WARM, pool and vintage inputs estimated
 ``vintage_losses.csv``             net loss by segment and month of age over original balance
+``satellite_models.csv``           with ``--macro``: each segment's fitted coefficients, standard errors
+                                   and fit statistics (``satellite_fitted.csv``: observed and fitted rates)
 ``calibration.xlsx``               the evidence a validator asks for
 ``rejected.csv``, ``warnings.csv`` history rows rejected (with line and reasons) and flagged
 ``calibration.json``               the calibration record (written last: it marks a complete folder)
@@ -63,7 +65,8 @@ CALIBRATION_CAUTION = (
 )
 
 CALIBRATION_FILES: tuple[str, ...] = (
-    "assumptions.toml", "loss_rates.csv", "loss_rate_methods.csv", "vintage_losses.csv", "rejected.csv",
+    "assumptions.toml", "loss_rates.csv", "loss_rate_methods.csv", "vintage_losses.csv", "satellite_models.csv",
+    "satellite_fitted.csv", "rejected.csv",
     "warnings.csv", "calibration.xlsx", "calibration.json",
 )
 _BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
@@ -241,6 +244,32 @@ def _plain(value: Any) -> Any:
     return value
 
 
+def _macro_record(path: Path | None) -> dict[str, Any] | None:
+    if path is None:
+        return None
+    import hashlib
+
+    data = Path(path).read_bytes()
+    return {"path": str(path), "sha256": hashlib.sha256(data).hexdigest(), "bytes": len(data)}
+
+
+def satellite_tables(calibration: "Calibration") -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Every fitted satellite model: coefficients and statistics in one table, the monthly fit in another."""
+    fits = calibration.results.get("satellites", {}) or {}
+    models, fitted = [], []
+    for name, fit in fits.items():
+        coefficients = fit.coefficients.assign(segment=name, link=fit.link, standard_errors=fit.standard_errors)
+        models.append(coefficients[["segment", "link", "standard_errors", *fit.coefficients.columns]])
+        stats = fit.statistics.rename(columns={"statistic": "term", "value": "coefficient"})
+        models.append(stats.assign(segment=name, link=fit.link, standard_errors=fit.standard_errors))
+        fitted.append(fit.fitted.iloc[:, :5].assign(segment=name))
+    model = pd.concat(models, ignore_index=True) if models else pd.DataFrame()
+    monthly = pd.concat(fitted, ignore_index=True) if fitted else pd.DataFrame()
+    if not monthly.empty:
+        monthly = monthly[["segment", *[c for c in monthly.columns if c != "segment"]]]
+    return model, monthly
+
+
 def calibration_record(calibration: "Calibration", files: list[str]) -> dict[str, Any]:
     """The calibration record: what was read, what was chosen, what was written."""
     intake, frame = calibration.intake, calibration.frame
@@ -255,6 +284,7 @@ def calibration_record(calibration: "Calibration", files: list[str]) -> dict[str
             "columns": intake.columns, "ignored_columns": intake.ignored,
         },
         "policy": str(calibration.policy_file) if calibration.policy_file else None,
+        "macro": _macro_record(calibration.macro_file),
         "rows": {"read": intake.rows_read, "accepted": intake.rows_accepted, "rejected": intake.rows_rejected,
                  "blank_lines": intake.blank_rows, "after_as_of": calibration.rows_after_as_of},
         "as_of": frame.window[1], "window": list(frame.window),
@@ -297,6 +327,11 @@ def _write_all(folder: Path, calibration: "Calibration", matrix_name: Callable[[
     written.append("loss_rate_methods.csv")
     _csv(calibration.results["loss_methods"].vintage, folder / "vintage_losses.csv")
     written.append("vintage_losses.csv")
+    models, monthly = satellite_tables(calibration)
+    if not models.empty:
+        _csv(models, folder / "satellite_models.csv")
+        _csv(monthly, folder / "satellite_fitted.csv")
+        written += ["satellite_models.csv", "satellite_fitted.csv"]
     _csv(calibration.intake.rejected, folder / "rejected.csv")
     written.append("rejected.csv")
     findings = calibration.intake.findings

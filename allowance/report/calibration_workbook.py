@@ -341,6 +341,31 @@ def _loss_methods(book: _Book, cal: "Calibration") -> None:
         row = max(end, row + 16) + 3
 
 
+def _satellites(book: _Book, cal: "Calibration") -> None:
+    fits = cal.results.get("satellites", {}) or {}
+    if not fits:
+        return
+    ws = book.sheet("Satellite models", {0: 26, 1: 18, 2: 12, 3: 14, 4: 12, 5: 10, 6: 10, 7: 12, 8: 12})
+    source = cal.macro_file.name if cal.macro_file else "the macro history"
+    ws.write_string(0, 0, f"Satellite models fitted to the history and {source}", book.title)
+    ws.write_string(1, 0, "Binomial GLM of each segment's monthly charge-offs on the lagged macro variables "
+                          "(statsmodels); the run uses the slopes as shifts of the long-run PD by each variable's "
+                          "deviation from the baseline path. The intercept is not used.")
+    row = 3
+    for name, fit in fits.items():
+        _, _, last = _put(book, ws, row, 0, fit.coefficients, title=f"{name}: {fit.link} link, standard errors "
+                          f"{fit.standard_errors}")
+        _, _, last = _put(book, ws, last + 2, 0, fit.statistics, title=f"{name}: fit statistics")
+        table = fit.fitted.iloc[:, :5]
+        _, first, end = _put(book, ws, last + 2, 0, table, title=f"{name}: observed and fitted monthly rates",
+                             formats={"observed_rate": book.pct, "fitted_rate": book.pct})
+        chart = _line_chart(book, f"{name}: monthly charge-off rate, observed and fitted", "monthly rate")
+        for j, column in enumerate(("observed_rate", "fitted_rate")):
+            _series(chart, ws.name, column, (0, first, end), (3 + j, first, end), j)
+        ws.insert_chart(row, 10, chart)
+        row = end + 3
+
+
 def _vintages(book: _Book, cal: "Calibration") -> None:
     ws = book.sheet("Vintages", {0: 10})
     vt = cal.results["vintages"]
@@ -491,6 +516,7 @@ def write_calibration_workbook(path: Path, calibration: "Calibration",
         _defaults(book, calibration)
         _losses(book, calibration)
         _loss_methods(book, calibration)
+        _satellites(book, calibration)
         _vintages(book, calibration)
         _lgd(book, calibration)
         _exposure(book, calibration)
