@@ -73,6 +73,11 @@ def _tie_out(taken: intake.IntakeResult, config: RunConfig, ledger_balance: floa
 # --------------------------------------------------------------------------------------
 
 
+def _same_model(one: RunConfig, other: RunConfig) -> bool:
+    """Whether two configurations differ at most in their overlays (post-model adjustments)."""
+    return one.assumptions.model_dump(exclude={"overlays"}) == other.assumptions.model_dump(exclude={"overlays"})
+
+
 def check(tape: Tape, assumptions: Source, *, overlays: Sequence[Source] = (),
           ledger_balance: float | None = None) -> CheckResult:
     """Validate a tape against the assumptions without computing anything.
@@ -267,7 +272,10 @@ def run(
     if overlays:
         told("what-if", 0, 1)
         base_config = _config(assumptions)
-        base = compute(taken.accepted, base_config, progress=None)
+        if _same_model(base_config, config):  # only [[overlays]] differ: the loop's figures are the same
+            base = engine.overlaid(result, base_config)
+        else:
+            base = compute(taken.accepted, base_config, progress=None)
         what_if = reconcile.what_if_comparison(base.loans, result.loans, config.frameworks)
         what_if_paths = macro.path_changes(base_config.assumptions, config.assumptions,
                                            engine.tape_months(taken.accepted, config))

@@ -19,12 +19,14 @@ EngineResult  loan results plus the tables the workbook shows
 prepare       build the tables for a tape
 run_chunk     loan results (modelled, unrounded) for a chunk of loans
 run           the whole book: chunks through a map, rounding to cents, overlays, summaries
+overlaid      a result with other overlays (no second pass through the loop)
 Progress      the progress callback: ``progress(phase, done, total)``
 """
 
 from __future__ import annotations
 
 import builtins
+import dataclasses
 import functools
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
@@ -49,7 +51,7 @@ from allowance.schemas import LoanRecord, RunConfig
 
 __all__ = [
     "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "Prepared", "Progress", "SegmentTable",
-    "loan_schedule", "loan_terms", "prepare", "roll_rate_table", "run", "run_chunk", "scenario_summary",
+    "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table", "run", "run_chunk", "scenario_summary",
     "segment_table", "tape_months",
 ]
 
@@ -82,6 +84,7 @@ class EngineResult:
     findings: pd.DataFrame
     warnings: list[str]
     pd_paths: pd.DataFrame = field(default_factory=pd.DataFrame)  # PD path by segment, scenario, month
+    overlay_warnings: tuple[str, ...] = ()  # the part of ``warnings`` the overlays raised
 
 
 # --------------------------------------------------------------------------------------
@@ -151,11 +154,7 @@ def run(
             progress("loans", done, len(tape))
     loans = _round_money(pd.concat([p.loans for p in parts]) if parts else pd.DataFrame())
 
-    applied = overlays.apply_overlays(loans, list(a.overlays), config.as_of, list(prep.frameworks))
-    for fw in prep.frameworks:
-        adj = np.asarray(applied.adjustments[fw], float)
-        loans[f"overlay_{fw}"] = adj
-        loans[f"ecl_{fw}"] = (loans[f"ecl_{fw}_modelled"] + adj).round(CENT_DECIMALS)
+    applied = _apply_overlays(loans, config)
     loans = _order_columns(loans, tape, prep)
     reverting = next((r.name for r in prep.rules if r.reversion(a) is not None), None)
 
@@ -172,6 +171,34 @@ def run(
         findings=pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame(),
         warnings=(staging.pd_ratio_warnings(tape) if prep.staged is not None else []) + list(applied.warnings),
         pd_paths=pd_path_view(tape, prep),
+        overlay_warnings=tuple(applied.warnings),
+    )
+
+
+def _apply_overlays(loans: pd.DataFrame, config: RunConfig) -> overlays.OverlayResult:
+    """Set ``overlay_<fw>`` and ``ecl_<fw>`` = modelled + overlay (cents) in place; the overlays applied."""
+    applied = overlays.apply_overlays(loans, list(config.assumptions.overlays), config.as_of, list(config.frameworks))
+    for fw in config.frameworks:
+        adj = np.asarray(applied.adjustments[fw], float)
+        loans[f"overlay_{fw}"] = adj
+        loans[f"ecl_{fw}"] = (loans[f"ecl_{fw}_modelled"] + adj).round(CENT_DECIMALS)
+    return applied
+
+
+def overlaid(result: EngineResult, config: RunConfig) -> EngineResult:
+    """``result``'s modelled loans with ``config``'s overlays in place of the ones applied.
+
+    Overlays are applied after the loop to the rounded modelled ECL, so a run whose
+    assumptions differ only in ``[[overlays]]`` has the same modelled figures: a what-if that
+    changes only overlays (or its base run) needs no second pass through the loop. The
+    result equals ``run(tape, config)`` (tested column for column).
+    """
+    loans = result.loans.copy()
+    applied = _apply_overlays(loans, config)
+    model_warnings = [w for w in result.warnings if w not in result.overlay_warnings]
+    return dataclasses.replace(
+        result, loans=loans, overlays=applied.table, scenarios=scenario_summary(loans, config),
+        warnings=model_warnings + list(applied.warnings), overlay_warnings=tuple(applied.warnings),
     )
 
 
