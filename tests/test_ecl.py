@@ -229,4 +229,4 @@ def test_read_only_and_writable_inputs_share_one_compiled_loop():
     assert a.ecl_lifetime.sum() > 0
     arrays = [t for sig in ecl._kernel.signatures for t in sig if isinstance(t, numba.types.Array)]
     assert arrays and all(t.mutable for t in arrays)
-    assert not getattr(frozen, "balance").flags.writeable  # the caller's array is left as it was
+    assert not frozen.balance.flags.writeable  # the caller's array is left as it was
