@@ -1,0 +1,154 @@
+"""Benchmark: the whole commands on a large book, each as a ratio to a yardstick measured in the same run.
+
+Run from the repository root (not collected by pytest)::
+
+    python tests/bench/bench_scale.py            # 1,000,000 loans (the demo tapes copied 100 times)
+    python tests/bench/bench_scale.py --quick    # 100,000 loans, one timing each
+
+The book is the demo's two quarters copied N times (loan ids suffixed ``-k``), so the prior
+quarter carries over loan by loan as in the demo. Every figure is a fresh process
+(``python -m allowance ...``), best of ``--repeat``, with its peak resident memory
+(``resource.RUSAGE_CHILDREN``), printed beside its target ratio:
+
+=====================  ========================================  ======
+figure                 yardstick                                 target
+=====================  ========================================  ======
+run                    Arrow floor: read the tape and write      2.5 x
+                       loans.csv with pyarrow alone
+run --prior            the plain run                              1.5 x
+compare                the plain run                              1.5 x
+what-if (weights)      the plain run                              0.5 x extra
+what-if (overlay only) the plain run                              0.5 x extra
+first run, demo        the warm demo run (empty compile cache)    2 x
+check, 1 % bad rows    pandas.read_csv of the same file           2.5 x
+=====================  ========================================  ======
+
+The machine is shared and noisy: read the ratios, not the seconds.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO = ROOT / "demo"
+PY = sys.executable
+
+
+def _copies(src: Path, dst: Path, n: int, bad_share: float = 0.0) -> int:
+    """The tape copied ``n`` times with suffixed loan ids; every 1/bad_share-th row spoiled."""
+    lines = src.read_text(encoding="utf-8").splitlines()
+    header, body = lines[0], lines[1:]
+    col = header.split(",").index("balance")
+    rows = 0
+    with dst.open("w", encoding="utf-8") as out:
+        out.write(header + "\n")
+        step = int(1 / bad_share) if bad_share else 0
+        for k in range(n):
+            for line in body:
+                cells = line.split(",")
+                cells[0] = f"{cells[0]}-{k}"
+                rows += 1
+                if step and rows % step == 0:
+                    cells[col] = "not a number"
+                out.write(",".join(cells) + "\n")
+    return rows
+
+
+_PEAK = """
+import resource, subprocess, sys
+code = subprocess.run(sys.argv[1:], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE).returncode
+print(code, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)
+"""
+
+
+def _timed(args: list[str], env: dict | None = None, repeat: int = 1) -> tuple[float, float]:
+    """Best wall time of ``repeat`` fresh processes and the largest peak RSS (MB) among them."""
+    best, peak = float("inf"), 0.0
+    for _ in range(repeat):
+        t = time.perf_counter()
+        done = subprocess.run([PY, "-c", _PEAK, *args], capture_output=True, text=True,
+                              env={**os.environ, **(env or {})})
+        best = min(best, time.perf_counter() - t)
+        code, kb = done.stdout.split()
+        if int(code) not in (0, 1):  # 1: the bad-rows tape is reported, not an error of the bench
+            raise SystemExit(f"{' '.join(args)} failed ({code})")
+        peak = max(peak, int(kb) / 1024)
+    return best, peak
+
+
+_FLOOR = """
+import sys, pyarrow.csv as c
+t = c.read_csv(sys.argv[1])
+c.write_csv(t, sys.argv[2])
+"""
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--copies", type=int, default=100, help="copies of the demo tape (100 = about a million loans)")
+    ap.add_argument("--repeat", type=int, default=2)
+    ap.add_argument("--quick", action="store_true", help="10 copies, one timing each")
+    args = ap.parse_args()
+    if args.quick:
+        args.copies, args.repeat = 10, 1
+    allowance = [PY, "-m", "allowance"]
+    rows: list[tuple[str, float, float, str, float, float]] = []
+
+    def row(name, seconds, mb, yard_name, yard_s, target):
+        rows.append((name, seconds, mb, yard_name, seconds / yard_s, target))
+        print(f"{name:26s} {seconds:8.1f} s  {mb:8,.0f} MB   {seconds / yard_s:5.2f} x {yard_name}  (target {target})",
+              flush=True)
+
+    with tempfile.TemporaryDirectory() as tmp:
+        work = Path(tmp)
+        tape, prior_tape = work / "tape.csv", work / "prior.csv"
+        n = _copies(DEMO / "tape_2026q3.csv", tape, args.copies)
+        _copies(DEMO / "tape_2026q2.csv", prior_tape, args.copies)
+        print(f"{n:,} loans ({args.copies} copies of the demo), best of {args.repeat}", flush=True)
+        common = ["--accept-ledger-difference", "--no-sensitivities"]
+        q3 = ["-a", str(DEMO / "assumptions_2026q3.toml")]
+        env = {"SOURCE_DATE_EPOCH": "0"}
+
+        floor, _ = _timed([PY, "-c", _FLOOR, str(tape), str(work / "floor.csv")], repeat=args.repeat)
+        print(f"{'Arrow floor':26s} {floor:8.1f} s", flush=True)
+        _timed([*allowance, "run", str(prior_tape), "-a", str(DEMO / "assumptions_2026q2.toml"), *common,
+                "--out", str(work / "prior")], env)
+        plain, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--out", str(work / "plain")], env, args.repeat)
+        row("run", plain, mb, "Arrow floor", floor, "<= 2.5")
+        s, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--prior", str(work / "prior"),
+                        "--out", str(work / "moved")], env, args.repeat)
+        row("run --prior", s, mb, "run", plain, "<= 1.5")
+        s, mb = _timed([*allowance, "compare", str(work / "prior"), str(work / "plain")], env, args.repeat)
+        row("compare", s, mb, "run", plain, "<= 1.5")
+        s, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--overlay", str(DEMO / "downside_only.toml"),
+                        "--out", str(work / "weights")], env, args.repeat)
+        row("what-if (weights), extra", s - plain, mb, "run", plain, "<= 0.5")
+        overlay = work / "overlay.toml"
+        overlay.write_text('[[overlays]]\nname = "bench"\nkind = "percent"\nvalue = 0.05\n'
+                           'rationale = "benchmark"\nowner = "bench"\n', encoding="utf-8")
+        s, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--overlay", str(overlay),
+                        "--out", str(work / "overlaid")], env, args.repeat)
+        row("what-if (overlay), extra", s - plain, mb, "run", plain, "<= 0.5")
+
+        demo = [*allowance, "run", str(DEMO / "tape_2026q3.csv"), *q3, "--no-sensitivities", "--out", str(work / "d")]
+        cold, _ = _timed(demo, {**env, "NUMBA_CACHE_DIR": str(work / "cold-cache")})
+        warm, _ = _timed(demo, {**env, "NUMBA_CACHE_DIR": str(work / "cold-cache")}, args.repeat)
+        print(f"{'demo run, warm':26s} {warm:8.1f} s   (target well under 2 s)", flush=True)
+        row("demo run, empty cache", cold, 0.0, "warm", warm, "<= 2")
+
+        bad = work / "bad.csv"
+        _copies(DEMO / "tape_2026q3.csv", bad, args.copies, bad_share=0.01)
+        read, _ = _timed([PY, "-c", "import sys, pandas; pandas.read_csv(sys.argv[1])", str(bad)], repeat=args.repeat)
+        s, mb = _timed([*allowance, "check", str(bad), *q3], env, args.repeat)
+        row("check, 1 % bad rows", s, mb, "read_csv", read, "<= 2.5")
+
+
+if __name__ == "__main__":
+    main()
