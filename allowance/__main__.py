@@ -3,9 +3,11 @@
 try:
     from allowance.console import main
 except KeyboardInterrupt:  # the moment before the console module is loaded
+    import os
     import sys
 
     sys.stderr.write("interrupted\n")
-    raise SystemExit(130) from None
+    sys.stderr.flush()
+    os._exit(130)  # not SystemExit: see allowance.console.interrupted
 
 main()

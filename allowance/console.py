@@ -7,18 +7,28 @@ any point prints one line and exits with 130 (128 + SIGINT, the shell convention
 
 from __future__ import annotations
 
+import os
 import sys
 
 INTERRUPTED = "interrupted; the output folder holds a complete run or nothing new, never a mix"
 
 
 def interrupted() -> None:
-    """Say so on one line and exit 130."""
+    """Say so on one line and exit 130, whatever the interpreter recorded about the signal.
+
+    ``os._exit``, not ``SystemExit``: once a KeyboardInterrupt has escaped any code the
+    interpreter ran as a script (some libraries evaluate code that way while they load), it
+    ends the process by re-raising SIGINT at shutdown even after the exception was handled,
+    and the shell then sees "killed by SIGINT" (-2), not 130. Every ``with`` block and
+    ``finally`` has already run by the time the interruption reaches here (it propagated
+    up through them), so nothing is left to clean that exiting at once would skip.
+    """
     try:
         sys.stderr.write(INTERRUPTED + "\n")
+        sys.stdout.flush()
         sys.stderr.flush()
     finally:
-        raise SystemExit(130)
+        os._exit(130)
 
 
 def _from_interrupt(error: BaseException) -> bool:
