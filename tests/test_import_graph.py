@@ -17,8 +17,9 @@ import allowance
 LAYERS: list[tuple[str, ...]] = [
     ("exceptions", "text", "money", "jit"),  # leaves: the domain errors, text safety, cents, compile cache
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
-    ("links", "discounting", "cashflows"),  # maths with no other concept beneath it
-    ("macro", "satellite_fit", "curves", "staging", "poci", "loss_rates"),  # term structures, stages, POCI, macro links and their fit
+    ("links", "discounting", "cashflows", "shortfall"),  # maths with no other concept beneath it
+    # term structures, stages, POCI, macro links and their fit, individually measured loans
+    ("macro", "satellite_fit", "curves", "staging", "poci", "loss_rates", "individual"),
     ("scenarios",),  # scenario paths over the term structures
     ("frameworks",),  # what differs between IFRS 9 and CECL
     ("intake",),  # the reading edge: files into contracts, validated
