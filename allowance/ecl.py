@@ -74,8 +74,10 @@ class KernelInputs:
     behavioural life for revolving), ``io_left``, ``residual``, ``payment`` (NaN = recompute),
     ``curve`` (row of ``pd``), ``prepay`` and ``prepay_offset`` (row and start column of
     ``smm``), ``lgd`` (flat LGD after cure), ``collateral`` (0 = flat LGD),
-    ``haircut, recovery_cost, lgd_floor, recovery_discount, cure``.
-    Per framework and loan ``[F, n]``: ``in_default`` (PD = 1 now), ``horizon`` (months), ``ead_add`` (CCF × undrawn),
+    ``haircut, recovery_cost, lgd_floor, cure``.
+    Per framework and loan ``[F, n]``: ``in_default`` (PD = 1 now), ``recovery_discount`` (PV
+    factor of a collateral recovery at the EIR; 1 where the framework does not discount),
+    ``horizon`` (months), ``ead_add`` (CCF × undrawn),
     ``paydown`` (revolving monthly repayment share), ``discount`` (monthly discount multiplier
     v = 1/(1 + EIR/12), or 1 where the framework does not discount).
     Tables: ``pd[F, K, T, S]``, ``smm[P, L]``, ``lgd_multiplier[F, T, S]``,
@@ -239,8 +241,9 @@ def _kernel(
             level = level_payment[i]
             secured = collateral[i] > 0.0
             lgd_i, coll_i, cut_i, cost_i = lgd[i], collateral[i], haircut[i], recovery_cost[i]
-            floor_i, rec_i, cure_i = lgd_floor[i], recovery_discount[i], cure[i]
+            floor_i, cure_i = lgd_floor[i], cure[i]
             for f in range(n_fw):
+                rec_i = recovery_discount[f, i]
                 add = ead_add[f, i]
                 ead = balance[i] + add
                 ead0[i, f] = ead
@@ -338,7 +341,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     ...     io_left=one(0, np.int64), residual=one(0.0), payment=one(np.nan),
     ...     curve=one(0, np.int64), prepay=one(0, np.int64), prepay_offset=one(0, np.int64),
     ...     in_default=np.zeros((1, 1), np.bool_), lgd=one(0.25), collateral=one(0.0), haircut=one(0.0),
-    ...     recovery_cost=one(0.0), lgd_floor=one(0.0), recovery_discount=one(1.0), cure=one(0.0),
+    ...     recovery_cost=one(0.0), lgd_floor=one(0.0), recovery_discount=np.ones((1, 1)), cure=one(0.0),
     ...     horizon=np.ones((1, 1), np.int64), ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)),
     ...     discount=np.ones((1, 1)), pd=np.full((1, 1, 1, 1), 0.005), smm=np.zeros((1, 1)),
     ...     lgd_multiplier=np.ones((1, 1, 1)), collateral_index=np.ones((1, 1, 1, 1)))
@@ -378,6 +381,8 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
 
 
 _FIELDS = [f.name for f in fields(KernelInputs)]
+#: The fields of :class:`KernelInputs` given per framework and loan, shape ``[F, n]``.
+PER_FRAMEWORK: tuple[str, ...] = ("in_default", "recovery_discount", "horizon", "ead_add", "paydown", "discount")
 _INTEGER = {"code", "months_left", "io_left", "curve", "prepay", "prepay_offset", "horizon"}
 
 
@@ -399,7 +404,7 @@ def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
     n = a["balance"].shape[0]
     n_fw, n_keys, n_months, n_sc = a["pd"].shape
     problems = []
-    for name in ("in_default", "horizon", "ead_add", "paydown", "discount"):
+    for name in PER_FRAMEWORK:
         if a[name].shape != (n_fw, n):
             problems.append(f"{name} has shape {a[name].shape}, not (frameworks, loans) = {(n_fw, n)}")
     if a["lgd_multiplier"].shape != (n_fw, n_months, n_sc):

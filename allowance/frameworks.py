@@ -18,6 +18,8 @@ revolving lines          drawn balance at the behavioural life   drawn balance p
                                                                  the segment's payment_rate
 discounting              at the EIR (B5.5.44)                    only with ``discount = true``
                                                                  (the DCF method, 326-20-30-4)
+collateral recoveries    discounted at the EIR, the claim        undiscounted, no accrual, unless
+                         accruing through the workout (B5.5.55)  ``discount = true``
 scenario paths           the whole life                          reverting to the long-run PDs
                                                                  after the reasonable and
                                                                  supportable period (30-9)
@@ -44,7 +46,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import staging
-from allowance.curves.lgd import undrawn_exposure
+from allowance.curves.lgd import recovery_discount_factor, undrawn_exposure
 from allowance.discounting import monthly_discount
 from allowance.exceptions import AssumptionsError
 from allowance.schemas import FRAMEWORKS, Assumptions, CeclRules, Framework
@@ -97,6 +99,24 @@ class FrameworkRules:
         """The monthly discount multiplier of every loan: v = 1/(1 + EIR/12), or 1."""
         if self.discounted(assumptions):
             return monthly_discount(eir)
+        return np.ones(len(eir))
+
+    def recovery_discount(self, assumptions: Assumptions, eir: np.ndarray, months_to_recovery: np.ndarray) -> np.ndarray:
+        """The present value factor of a collateral recovery, per loan: (1 + EIR/12)^-m where
+        the framework discounts (the claim accrues at the EIR through the workout, IFRS 9
+        B5.5.44 and B5.5.55), 1 where it does not (CECL without the discounted cash-flow method:
+        nothing is discounted, recoveries included, ASC 326-20-30-4).
+
+        Examples
+        --------
+        >>> from types import SimpleNamespace
+        >>> a = SimpleNamespace(cecl=SimpleNamespace(discount=False))  # CECL without the DCF method
+        >>> [rules_for(f).recovery_discount(a, np.array([0.06]), np.array([12.0])).round(6).tolist()
+        ...  for f in ("ifrs9", "cecl")]
+        [[0.941905], [1.0]]
+        """
+        if self.discounted(assumptions):
+            return np.asarray(recovery_discount_factor(np.asarray(eir, float), np.asarray(months_to_recovery, float)), float)
         return np.ones(len(eir))
 
     def horizon_months(self, stage, remaining_months, repayment, behavioural_life) -> np.ndarray:

@@ -17,6 +17,7 @@ from allowance.curves import (
     revolving_ead,
     undrawn_exposure,
 )
+from allowance.curves.lgd import collateral_recovery, final_lgd
 from allowance.ecl import _loss_given_default
 
 
@@ -42,11 +43,64 @@ def test_collateral_lgd_floor_cap_and_zero_exposure() -> None:
     assert collateral_lgd(50_000.0, 120_000.0, 0.25, 0.10, 0.15, 1.0) == pytest.approx(0.15, abs=1e-15)
     # no collateral: nothing recovered -> LGD 1
     assert collateral_lgd(50_000.0, 0.0, 0.25, 0.10, 0.0, 1.0) == 1.0
-    # zero exposure: the limit of a tiny exposure (fully covered -> 1 - 0.9 x 0.95 = 0.145)
-    assert collateral_lgd(0.0, 10_000.0, 0.25, 0.10, 0.0, 0.95) == pytest.approx(0.145, abs=1e-15)
+    # zero exposure: the limit of a tiny exposure (the proceeds cover the whole claim -> 0)
+    assert collateral_lgd(0.0, 10_000.0, 0.25, 0.10, 0.0, 0.95) == 0.0
     assert collateral_lgd(0.0, 0.0, 0.25, 0.10, 0.0, 0.95) == 1.0
     # under-collateralised: 1 - 60,000 x 0.75 x 0.95 / 100,000 = 0.5725
     assert collateral_lgd(100_000.0, 60_000.0, 0.25, 0.05, 0.0, 1.0) == pytest.approx(0.5725, abs=1e-15)
+
+
+def test_ample_collateral_gives_the_floor_under_both_frameworks() -> None:
+    # a defaulted mortgage at 28 % loan-to-value (hand computation, common practice, no source):
+    #   net proceeds = C x 0.8 x 0.92 = 0.736 C = 2.63 x EAD, far more than the claim even after
+    #   18 months of interest at 5 %, so nothing is lost and the 5 % floor is the LGD
+    ead = 195_000.0
+    collateral = ead / 0.28
+    df = recovery_discount_factor(0.05, 18)
+    for discount in (df, 1.0):  # IFRS 9 (discounted, claim accruing) and undiscounted CECL
+        assert collateral_lgd(ead, collateral, 0.20, 0.08, 0.05, discount) == pytest.approx(0.05, abs=1e-15)
+    # the former formula took the costs off the capped recovery and discounted the whole claim:
+    # 1 - 0.92 x DF_18 = 0.1463 at 5 %, nearly three times the floor
+    assert 1.0 - 0.92 * df == pytest.approx(0.14634, abs=1e-5)
+
+
+def test_partly_covered_default_discounted_and_undiscounted() -> None:
+    # EAD 200,000, collateral 180,000, haircut 20 %, costs 8 % of proceeds, recovery after 18
+    # months at a 6 % EIR (hand computation, common practice, no source):
+    #   net proceeds NP = 180,000 x 0.8 x 0.92 = 132,480
+    #   CECL, undiscounted: recovery = min(200,000, 132,480) = 132,480; loss 67,520.00
+    #   IFRS 9: the claim accrues to 200,000 x 1.005^18 = 218,785.79 > NP, so recovery = NP;
+    #   PV = 132,480 x 1.005^-18 = 121,104.76; LGD = 1 - 121,104.76 / 200,000 = 0.3944762
+    df = recovery_discount_factor(0.06, 18)
+    assert df == pytest.approx(npf.pv(0.005, 18, 0, -1), rel=1e-14)  # numpy_financial.pv
+    assert 200_000.0 / df == pytest.approx(218_785.79, abs=0.005)
+    cecl = collateral_lgd(200_000.0, 180_000.0, 0.20, 0.08, 0.05, 1.0)
+    ifrs9 = collateral_lgd(200_000.0, 180_000.0, 0.20, 0.08, 0.05, df)
+    assert 200_000.0 * cecl == pytest.approx(67_520.00, abs=0.005)
+    assert 200_000.0 * (1 - ifrs9) == pytest.approx(121_104.76, abs=0.005)
+    assert ifrs9 == pytest.approx(0.3944762, abs=1e-7)
+
+
+def test_the_accruing_claim_caps_the_recovery() -> None:
+    # EAD 100,000 at a 12 % EIR, recovered 12 months after default (hand computation, common
+    # practice, no source): the claim at recovery is 100,000 x 1.01^12 = 112,682.50
+    df = recovery_discount_factor(0.12, 12)
+    assert 100_000.0 / df == pytest.approx(112_682.50, abs=0.005)
+    # proceeds 150,000 x 0.8 x 0.9 = 108,000 < claim: all of it recovered, PV 108,000 x 1.01^-12
+    assert collateral_recovery(100_000.0, 150_000.0, 0.2, 0.1, df) == pytest.approx(0.9584452, abs=1e-7)
+    # proceeds 120,000 > claim: the lender recovers the claim only (the surplus is the
+    # borrower's), worth exactly the EAD today: LGD 0, then the floor
+    assert collateral_recovery(100_000.0, 120_000.0 / 0.72, 0.2, 0.1, df) == 1.0
+    assert collateral_lgd(100_000.0, 120_000.0 / 0.72, 0.2, 0.1, 0.03, df) == pytest.approx(0.03, abs=1e-15)
+
+
+def test_cure_and_multiplier_come_before_the_floor() -> None:
+    # by hand, common practice, no source: raw 0.30, half cure -> 0.15, floor 0.20 binds
+    assert final_lgd(0.30, 0.5, 0.20, 1.0) == pytest.approx(0.20, abs=1e-15)
+    assert final_lgd(0.30, 0.5, 0.10, 1.0) == pytest.approx(0.15, abs=1e-15)
+    # an upside multiplier of 0.5 does not take it below the floor either; a downside one caps at 1
+    assert final_lgd(0.30, 0.0, 0.20, 0.5) == pytest.approx(0.20, abs=1e-15)
+    assert final_lgd(0.90, 0.0, 0.0, 1.25) == 1.0
 
 
 def test_kernels_compile_with_numba_and_agree_with_numpy() -> None:
@@ -66,6 +120,8 @@ def test_kernels_compile_with_numba_and_agree_with_numpy() -> None:
         assert df_jit(eir[i], 9.0) == pytest.approx(df[i], rel=1e-15)
         got = lgd_jit(ead[i], collateral[i], 0.3, 0.08, 0.05, df[i])
         assert got == pytest.approx(expected[i], rel=1e-15, abs=1e-15)
+        cured = collateral_lgd(ead[i], collateral[i], 0.3, 0.08, 0.05, df[i], 0.2, 1.1)
+        assert lgd_jit(ead[i], collateral[i], 0.3, 0.08, 0.05, df[i], 0.2, 1.1) == pytest.approx(cured, rel=1e-15, abs=1e-15)
         assert cure_jit(expected[i], 0.1) == pytest.approx(0.9 * expected[i], rel=1e-15)
         assert ead_jit(ead[i], 250_000.0, 0.4) == pytest.approx(revolving_ead(ead, 250_000.0, 0.4)[i], rel=1e-15)
 
@@ -84,6 +140,39 @@ def test_collateral_lgd_is_a_probability_above_the_floor(ead, collateral, haircu
     lgd = float(collateral_lgd(ead, collateral, haircut, cost, floor, df))
     assert floor <= lgd <= 1.0
     assert np.isfinite(lgd)
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    ead=st.floats(0.0, 1e9),
+    collateral=st.floats(0.0, 1e9),
+    haircut=st.floats(0.0, 1.0),
+    cost=st.floats(0.0, 1.0),
+    floor=st.floats(0.0, 1.0),
+    df=st.floats(0.0, 1.0),
+    cure=st.floats(0.0, 1.0),
+    multiplier=st.floats(0.0, 3.0),
+)
+def test_cure_never_takes_the_lgd_below_the_floor(ead, collateral, haircut, cost, floor, df, cure, multiplier) -> None:
+    # the floor is the lowest LGD booked (common practice, no source)
+    lgd = float(collateral_lgd(ead, collateral, haircut, cost, floor, df, cure, multiplier))
+    assert floor <= lgd <= 1.0
+    assert lgd >= float(collateral_lgd(ead, collateral, haircut, cost, floor, df, 1.0, multiplier))
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    ead=st.floats(1.0, 1e8),
+    low=st.floats(0.0, 1e8),
+    extra=st.floats(0.0, 1e8),
+    haircut=st.floats(0.0, 1.0),
+    cost=st.floats(0.0, 1.0),
+    floor=st.floats(0.0, 1.0),
+    df=st.floats(0.0, 1.0),
+)
+def test_lgd_falls_as_the_collateral_rises(ead, low, extra, haircut, cost, floor, df) -> None:
+    # more collateral never loses more (common practice, no source)
+    assert collateral_lgd(ead, low + extra, haircut, cost, floor, df) <= collateral_lgd(ead, low, haircut, cost, floor, df)
 
 
 def test_revolving_ead() -> None:

@@ -12,8 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from allowance import ecl
-from allowance.curves.lgd import collateral_lgd
-from allowance.ecl import KernelInputs, KernelResult, expected_losses
+from allowance.ecl import PER_FRAMEWORK, KernelInputs, KernelResult, expected_losses
 from tests.strategies import random_kernel_book
 
 
@@ -25,7 +24,7 @@ def _one_loan(**over) -> KernelInputs:
         io_left=one(60, np.int64), residual=one(0.0), payment=one(np.nan), curve=one(0, np.int64),
         prepay=one(0, np.int64), prepay_offset=one(0, np.int64), in_default=np.zeros((1, 1), np.bool_),
         lgd=one(0.25), collateral=one(0.0), haircut=one(0.0), recovery_cost=one(0.0), lgd_floor=one(0.0),
-        recovery_discount=one(1.0), cure=one(0.0), horizon=np.full((1, 1), 60, np.int64),
+        recovery_discount=np.ones((1, 1)), cure=one(0.0), horizon=np.full((1, 1), 60, np.int64),
         ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)), discount=np.ones((1, 1)),
         pd=np.zeros((1, 1, 60, 1)), smm=np.zeros((1, 60)), lgd_multiplier=np.ones((1, 60, 1)),
         collateral_index=np.ones((1, 1, 60, 1)),
@@ -92,14 +91,11 @@ def _balance_path(k: KernelInputs, i: int, f: int, months: int) -> np.ndarray:
 
 
 def _loss_rate(k: KernelInputs, i, f, ead, t, s):
-    if k.collateral[i] > 0:
-        base = (1 - k.cure[i]) * collateral_lgd(
-            ead, k.collateral[i] * k.collateral_index[f, k.curve[i], t, s], k.haircut[i], k.recovery_cost[i],
-            k.lgd_floor[i], k.recovery_discount[i],
-        )
-    else:
-        base = np.full_like(ead, k.lgd[i])
-    return np.minimum(1.0, base * k.lgd_multiplier[f, t, s])
+    if k.collateral[i] > 0:  # net proceeds C (1 - h)(1 - c), then cures and multiplier, then the floor
+        proceeds = k.collateral[i] * k.collateral_index[f, k.curve[i], t, s] * (1 - k.haircut[i]) * (1 - k.recovery_cost[i])
+        raw = 1 - np.minimum(1.0, proceeds * k.recovery_discount[f, i] / np.maximum(ead, 1e-12))
+        return np.minimum(1.0, np.maximum(k.lgd_floor[i], k.lgd_multiplier[f, t, s] * (1 - k.cure[i]) * raw))
+    return np.minimum(1.0, np.full_like(ead, k.lgd[i]) * k.lgd_multiplier[f, t, s])
 
 
 def reference(k: KernelInputs) -> KernelResult:
@@ -192,7 +188,7 @@ def test_short_horizon_twelve_months_equal_lifetime():
 def test_empty_book():
     k = random_kernel_book(1, n=1)
     empty = KernelInputs(**{
-        f.name: (getattr(k, f.name)[..., :0] if f.name in ("in_default", "horizon", "ead_add", "paydown", "discount")
+        f.name: (getattr(k, f.name)[..., :0] if f.name in PER_FRAMEWORK
                  else getattr(k, f.name)[:0] if getattr(k, f.name).ndim == 1 else getattr(k, f.name))
         for f in dataclasses.fields(KernelInputs)
     })

@@ -9,7 +9,9 @@ takes the exposure add-on of revolving lines from :func:`undrawn_exposure`.
 
 Implements
 ----------
-collateral_lgd             LGD of a secured loan from its collateral, haircut, costs and a floor
+collateral_recovery        present value of what the collateral recovers, as a share of EAD
+final_lgd                  LGD after cures and a scenario multiplier, then the floor, capped at 1
+collateral_lgd             LGD of a secured loan: the two above composed
 recovery_discount_factor   present value factor of a recovery months after default, at the EIR
 effective_lgd              LGD after cures
 loss_given_default         a loan's LGD in one month and scenario: flat or collateral, cures,
@@ -31,23 +33,114 @@ TINY_EAD = 1e-12
 
 
 @register_jitable
-def collateral_lgd(ead, collateral, haircut, recovery_cost, floor, recovery_discount):
-    r"""LGD of a secured exposure: the share of EAD not recovered from the collateral.
+def collateral_recovery(ead, collateral, haircut, recovery_cost, recovery_discount):
+    r"""Present value at default of what the collateral recovers, as a share of the EAD.
 
     Parameters
     ----------
     ead : float or ndarray
-        Exposure at default (>= 0).
+        Exposure at default (>= 0), the claim on the day of default.
     collateral : float or ndarray
         Collateral value at default (>= 0; scale by a collateral index first).
     haircut : float or ndarray
         Forced-sale discount on the collateral value.
     recovery_cost : float or ndarray
-        Costs to recover, as a share of the proceeds.
-    floor : float or ndarray
-        Lowest LGD allowed.
+        Costs to recover and sell, as a share of the sale proceeds.
     recovery_discount : float or ndarray
-        Present value factor of the recovery (:func:`recovery_discount_factor`).
+        :math:`DF_m`, the present value factor of the recovery ``m`` months after default at
+        the EIR (:func:`recovery_discount_factor`); 1 where the framework does not discount.
+
+    Returns
+    -------
+    float or ndarray
+        The recovered share of EAD in [0, 1].
+
+    Notes
+    -----
+    The sale proceeds net of costs are :math:`NP = C (1 - h)(1 - c)`. Through the workout the
+    claim keeps accruing contractual interest at the EIR, so at recovery it stands at
+    :math:`EAD / DF_m = EAD (1 + EIR/12)^m`; the lender recovers at most that claim (a surplus
+    goes back to the borrower):
+
+    .. math::
+
+        \text{recovery} = \min\bigl(EAD / DF_m,\ NP\bigr), \qquad
+        \frac{PV(\text{recovery})}{EAD} = \min\Bigl(1,\ \frac{NP \cdot DF_m}{EAD}\Bigr).
+
+    Undiscounted (:math:`DF_m = 1`: CECL without the discounted cash-flow method) the claim is
+    the amortised cost at default, no interest accrues on it and nothing is discounted: the
+    share is :math:`\min(1, NP / EAD)`. It is computed as ``min(1, NP DF / max(EAD, 1e-12))``:
+    for a zero exposure this is the limit as the exposure tends to 0 (all of it recovered when
+    there is collateral, none without).
+
+    References
+    ----------
+    .. [1] IFRS 9 *Financial Instruments*, B5.5.55 (cash flows from the sale of collateral
+       less the costs of obtaining and selling it) and B5.5.44 (discounting at the EIR).
+    .. [2] FASB ASC 326-20-30-4 (the discounted cash-flow method at the effective interest
+       rate; other methods need not discount).
+
+    Examples
+    --------
+    A 100,000 claim on a property worth 120,000, 25 % haircut and 10 % costs: net proceeds
+    81,000. Undiscounted, 81 % is recovered; recovered 12 months later at a 6 % EIR (the claim
+    is then 106,167.78, more than the proceeds) the present value is 81,000 × 1.005^-12:
+
+    >>> round(float(collateral_recovery(100_000.0, 120_000.0, 0.25, 0.10, 1.0)), 6)
+    0.81
+    >>> round(float(collateral_recovery(100_000.0, 120_000.0, 0.25, 0.10, 1.005 ** -12)), 6)
+    0.762943
+    """
+    proceeds = collateral * (1.0 - haircut) * (1.0 - recovery_cost)
+    return np.minimum(1.0, proceeds * recovery_discount / np.maximum(ead, TINY_EAD))
+
+
+@register_jitable
+def final_lgd(raw_lgd, cure_rate, floor, multiplier):
+    r"""The LGD a secured loan is measured with: cures, then the scenario multiplier, then the floor.
+
+    Parameters
+    ----------
+    raw_lgd : float or ndarray
+        LGD of a default that goes to the loss event (no cure), in [0, 1].
+    cure_rate : float or ndarray
+        Share of defaults that cure with no loss.
+    floor : float or ndarray
+        The lowest final LGD (0 for none).
+    multiplier : float or ndarray
+        The scenario's LGD multiplier for the month (1 = none).
+
+    Notes
+    -----
+    .. math:: LGD = \min\bigl(1,\ \max(\text{floor},\ m \cdot (1 - \text{cure}) \cdot LGD_{raw})\bigr)
+
+    The floor is the lowest LGD that is booked, so it comes last: neither a cure rate nor an
+    upside multiplier takes the LGD below it (common practice, no source).
+
+    Examples
+    --------
+    >>> float(final_lgd(0.30, 0.5, 0.10, 1.0)), float(final_lgd(0.30, 0.5, 0.20, 1.0))
+    (0.15, 0.2)
+    >>> float(final_lgd(0.9, 0.0, 0.1, 1.2))
+    1.0
+    """
+    return np.minimum(1.0, np.maximum(floor, multiplier * ((1.0 - cure_rate) * raw_lgd)))
+
+
+@register_jitable
+def collateral_lgd(ead, collateral, haircut, recovery_cost, floor, recovery_discount, cure_rate=0.0, multiplier=1.0):
+    r"""LGD of a secured exposure: the share of EAD not recovered, after cures, then the floor.
+
+    Parameters
+    ----------
+    ead, collateral, haircut, recovery_cost, recovery_discount
+        As in :func:`collateral_recovery`.
+    floor : float or ndarray
+        The lowest final LGD.
+    cure_rate : float or ndarray
+        Share of defaults that cure with no loss (applied before the floor).
+    multiplier : float or ndarray
+        The scenario's LGD multiplier (applied before the floor).
 
     Returns
     -------
@@ -58,18 +151,16 @@ def collateral_lgd(ead, collateral, haircut, recovery_cost, floor, recovery_disc
     -----
     .. math::
 
-        \text{recovery} = \min(EAD,\ C (1 - h)) (1 - c)\, DF, \qquad
-        LGD = \min\bigl(1, \max(\text{floor}, 1 - \text{recovery} / EAD)\bigr).
+        LGD_{raw} = 1 - \min\Bigl(1,\ \frac{C (1 - h)(1 - c)\, DF_m}{EAD}\Bigr), \qquad
+        LGD = \min\bigl(1,\ \max(\text{floor},\ m (1 - \text{cure})\, LGD_{raw})\bigr)
 
-    It is computed as ``1 - min(1, C (1 - h) / max(EAD, 1e-12)) (1 - c) DF``, which equals the
-    formula for any exposure above 1e-12 and, for a zero exposure, gives the limit as the
-    exposure tends to 0 (a loan with collateral loses ``1 - (1 - c) DF``; without, 1). Only
-    arithmetic and ``np.minimum`` / ``np.maximum``, so ``numba.njit`` compiles it.
+    (:func:`collateral_recovery`, then :func:`final_lgd`). Only arithmetic and
+    ``np.minimum`` / ``np.maximum``, so ``numba.njit`` compiles it.
 
     Examples
     --------
-    A 100,000 loan on a 120,000 property, 25 % haircut (90,000 after it), 10 % costs, no
-    discounting: recovery 81,000, LGD 19 %.
+    A 100,000 loan on a 120,000 property, 25 % haircut, 10 % costs (net proceeds 81,000), no
+    discounting: LGD 19 %.
 
     >>> round(float(collateral_lgd(100_000.0, 120_000.0, 0.25, 0.10, 0.05, 1.0)), 6)
     0.19
@@ -78,10 +169,14 @@ def collateral_lgd(ead, collateral, haircut, recovery_cost, floor, recovery_disc
 
     >>> collateral_lgd(np.array([50_000.0, 0.0]), 120_000.0, 0.25, 0.10, 0.15, 1.0).round(6).tolist()
     [0.15, 0.15]
+
+    A 50 % cure rate halves the 19 %, but the 12 % floor is the lowest LGD booked:
+
+    >>> round(float(collateral_lgd(100_000.0, 120_000.0, 0.25, 0.10, 0.12, 1.0, 0.5)), 6)
+    0.12
     """
-    covered = np.minimum(1.0, collateral * (1.0 - haircut) / np.maximum(ead, TINY_EAD))
-    recovered_share = covered * (1.0 - recovery_cost) * recovery_discount
-    return np.minimum(1.0, np.maximum(floor, 1.0 - recovered_share))
+    raw = 1.0 - collateral_recovery(ead, collateral, haircut, recovery_cost, recovery_discount)
+    return final_lgd(raw, cure_rate, floor, multiplier)
 
 
 @register_jitable
@@ -146,8 +241,9 @@ def loss_given_default(ead, flat_lgd, collateral, collateral_index, haircut, rec
     Returns
     -------
     float
-        :math:`\min(1, m \cdot LGD)` with LGD the collateral LGD of ``collateral ×
-        collateral_index`` after cures when ``collateral > 0``, else ``flat_lgd``.
+        The collateral LGD of ``collateral × collateral_index`` with cures and the multiplier
+        before the floor (:func:`collateral_lgd`) when ``collateral > 0``, else
+        :math:`\min(1, m \cdot LGD_{flat})`.
 
     Examples
     --------
@@ -160,12 +256,10 @@ def loss_given_default(ead, flat_lgd, collateral, collateral_index, haircut, rec
     >>> round(float(loss_given_default(100_000.0, 0.36, 0.0, 1.0, 0.25, 0.1, 0.05, 1.0, 0.1, 1.0)), 6)
     0.36
     """
-    if collateral > 0.0:
+    if collateral > 0.0:  # cures and the multiplier before the floor: the floor is the lowest LGD
         value = collateral * collateral_index
-        base = effective_lgd(collateral_lgd(ead, value, haircut, recovery_cost, floor, recovery_discount), cure_rate)
-    else:
-        base = flat_lgd
-    return min(1.0, base * multiplier)
+        return collateral_lgd(ead, value, haircut, recovery_cost, floor, recovery_discount, cure_rate, multiplier)
+    return min(1.0, flat_lgd * multiplier)
 
 
 @register_jitable

@@ -32,7 +32,7 @@ __all__ = ["ChunkResult", "LoanTerms", "loan_terms", "run_chunk"]
 class LoanTerms:
     """Each loan's state at the as-of date, as the fused loop reads it (arrays of length n).
 
-    The segment parameters (``lgd`` to ``recovery_discount``) are taken from the book's
+    The segment parameters (``lgd`` to ``months_to_recovery``) are taken from the book's
     :class:`~allowance.engine.tables.SegmentTable` by each loan's segment code, once.
     """
 
@@ -59,7 +59,7 @@ class LoanTerms:
     haircut: np.ndarray
     recovery_cost: np.ndarray
     lgd_floor: np.ndarray
-    recovery_discount: np.ndarray
+    months_to_recovery: np.ndarray
 
 
 def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.ndarray:
@@ -156,7 +156,7 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
         cancellable=table.cancellable[segment],
         collateral=np.where(secured, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0),
         haircut=table.haircut[segment], recovery_cost=table.recovery_cost[segment], lgd_floor=table.lgd_floor[segment],
-        recovery_discount=np.asarray(curves.recovery_discount_factor(eir, table.months_to_recovery[segment]), float),
+        months_to_recovery=table.months_to_recovery[segment],
     )
 
 
@@ -179,6 +179,7 @@ class _Frameworks:
     """Per framework and loan ``[F, n]``: what the loop reads besides the loan terms."""
 
     in_default: np.ndarray
+    recovery_discount: np.ndarray
     horizon: np.ndarray
     ead_add: np.ndarray
     paydown: np.ndarray
@@ -191,11 +192,13 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
     revolving = terms.repayment == "revolving"
     limit = np.where(revolving, np.nan_to_num(chunk["credit_limit"].to_numpy(float)), terms.balance)
     out = _Frameworks(
-        in_default=np.zeros((n_fw, n), dtype=np.bool_), horizon=np.zeros((n_fw, n), dtype=np.int64),
+        in_default=np.zeros((n_fw, n), dtype=np.bool_), recovery_discount=np.ones((n_fw, n)),
+        horizon=np.zeros((n_fw, n), dtype=np.int64),
         ead_add=np.zeros((n_fw, n)), paydown=np.zeros((n_fw, n)), discount=np.ones((n_fw, n)),
     )
     for f, rules in enumerate(prep.rules):
         out.in_default[f] = rules.in_default(chunk, stage, a)
+        out.recovery_discount[f] = rules.recovery_discount(a, terms.eir, terms.months_to_recovery)
         # the loop runs over the whole life; a 12-month horizon takes its first 12 months
         out.horizon[f] = terms.remaining
         out.ead_add[f] = rules.exposure_add_on(terms.balance, limit, terms.ccf, terms.cancellable)
@@ -212,7 +215,7 @@ def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelI
         prepay_offset=terms.prepay_offset, in_default=fw.in_default, lgd=np.nan_to_num(terms.lgd),
         collateral=terms.collateral,
         haircut=terms.haircut, recovery_cost=terms.recovery_cost, lgd_floor=terms.lgd_floor,
-        recovery_discount=terms.recovery_discount, cure=terms.cure, horizon=fw.horizon, ead_add=fw.ead_add,
+        recovery_discount=fw.recovery_discount, cure=terms.cure, horizon=fw.horizon, ead_add=fw.ead_add,
         paydown=fw.paydown, discount=fw.discount, pd=prep.pd, smm=prep.smm, lgd_multiplier=prep.lgd_multiplier,
         collateral_index=prep.collateral_index,
     )
