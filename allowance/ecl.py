@@ -11,7 +11,8 @@ path once, and for every framework and scenario accumulates
 where :math:`pd_t` is the marginal PD conditional on survival, :math:`EAD_t` the balance at the
 start of month t, :math:`DF_t = (1 + EIR/12)^{-t}` (1 where the framework does not discount)
 and :math:`smm_t` the prepayment rate (competing risk). The 12-month ECL sums t ≤ 12. A loan
-in default takes PD = 1 now: ECL = LGD · EAD_0. The formulas live in the concept modules
+in default takes PD = 1 now: ECL = LGD · EAD_0. The expected gross credit loss is the same sum
+with LGD = 1 (the exposure lost before recoveries); the ECL is the net loss after them. The formulas live in the concept modules
 (:mod:`~allowance.cashflows` for the balance path, :func:`~allowance.curves.lgd.loss_given_default`
 for LGD_t, :func:`~allowance.discounting.monthly_discount` for the v of DF_t = v^t); this module
 compiles and composes them, and never allocates a loans × months array.
@@ -33,7 +34,8 @@ References
 Implements
 ----------
 KernelInputs     the per-loan arrays and the tables the loop reads
-KernelResult     per loan, framework and scenario: ecl_12m, ecl_lifetime, pd_12m, pd_lifetime; ead, lgd
+KernelResult     per loan, framework and scenario: ecl and gross loss, 12-month and lifetime,
+                 pd_12m, pd_lifetime; ead, lgd
 expected_losses  check the inputs and run the loop
 """
 
@@ -116,8 +118,9 @@ class KernelInputs:
 @dataclass(frozen=True)
 class KernelResult:
     """Per loan, framework and scenario ``[n, F, S]``: ecl_12m, ecl_lifetime, pd_12m,
-    pd_lifetime (default before prepayment or maturity); ``ead`` ``[n, F]`` at the as-of date;
-    ``lgd`` ``[n, F]`` at the as-of date under the first scenario's path."""
+    pd_lifetime (default before prepayment or maturity), gross_12m and gross_lifetime (the
+    expected gross credit loss: the same sums with LGD = 1); ``ead`` ``[n, F]`` at the as-of
+    date; ``lgd`` ``[n, F]`` at the as-of date under the first scenario's path."""
 
     ecl_12m: np.ndarray
     ecl_lifetime: np.ndarray
@@ -125,14 +128,31 @@ class KernelResult:
     pd_lifetime: np.ndarray
     ead: np.ndarray
     lgd: np.ndarray
+    gross_12m: np.ndarray
+    gross_lifetime: np.ndarray
+
+
+#: The rows of the loop's one output array ``sums[row, n, F, S]`` (one array, not six: fewer
+#: arguments for the compiled functions).
+ECL_12M, ECL_LIFETIME, PD_12M, PD_LIFETIME, GROSS_12M, GROSS_LIFETIME = range(6)
+
+
+@numba.njit(cache=jit.CACHE, inline="always")
+def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
+    """Write one loan, framework and scenario's six sums (rows as :data:`ECL_12M` ...)."""
+    sums[0, i, f, s], sums[1, i, f, s], sums[2, i, f, s] = ecl12, ecllife, pd12
+    sums[3, i, f, s], sums[4, i, f, s], sums[5, i, f, s] = pdlife, gross12, grosslife
 
 
 @numba.njit(cache=jit.CACHE, inline="always", fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
-    io_left, level, paydown, add, v, horizon_i, ecl12, ecllife, pd12, pdlife,
+    io_left, level, paydown, add, v, horizon_i, sums,
 ):
     """One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
+
+    ``e`` sums the exposure-weighted default share :math:`\sum S_{t-1} pd_t EAD_t DF_t`,
+    the expected gross loss; ``l`` the net loss (on a unit LGD path, LGD × e).
 
     The four scenarios are carried in scalars (registers) rather than arrays, so their
     survival recursions run side by side; a lane past the last scenario does no work and is
@@ -146,6 +166,8 @@ def _flat_lanes(
     c0 = c1 = c2 = c3 = 0.0  # cumulative PD so far
     y0 = y1 = y2 = y3 = 0.0  # 12-month ECL
     q0 = q1 = q2 = q3 = 0.0  # 12-month PD
+    e0 = e1 = e2 = e3 = 0.0  # gross loss so far
+    u0 = u1 = u2 = u3 = 0.0  # 12-month gross loss
     lgd_c = _flat_lgd(lgd_i, 1.0)
     growth, pay = path_terms(code, balance, rate, level, paydown)
     x = 1.0  # g^t
@@ -172,34 +194,40 @@ def _flat_lanes(
         # S_t = (S_{t-1} - S_{t-1} pd_t)(1 - smm_t): the default share d is computed anyway
         d0 = a0 * pd[f, k, t, s0]
         l0 += d0 * w0
+        e0 += d0 * w
         c0 += d0
         a0 = (a0 - d0) * keep
         if two:  # lanes past the last scenario do no work
             d1 = a1 * pd[f, k, t, j1]
             l1 += d1 * w1
+            e1 += d1 * w
             c1 += d1
             a1 = (a1 - d1) * keep
         if three:
             d2 = a2 * pd[f, k, t, j2]
             l2 += d2 * w2
+            e2 += d2 * w
             c2 += d2
             a2 = (a2 - d2) * keep
         if four:
             d3 = a3 * pd[f, k, t, j3]
             l3 += d3 * w3
+            e3 += d3 * w
             c3 += d3
             a3 = (a3 - d3) * keep
         if t == 11:  # end of month 12: the 12-month figures
             y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
+            u0, u1, u2, u3 = e0, e1, e2, e3
     if horizon_i < 12:
         y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
-    ecl12[i, f, s0], ecllife[i, f, s0], pd12[i, f, s0], pdlife[i, f, s0] = y0, l0, q0, c0
+        u0, u1, u2, u3 = e0, e1, e2, e3
+    _store(sums, i, f, s0, y0, l0, q0, c0, u0, e0)
     if j1 != s0:
-        ecl12[i, f, j1], ecllife[i, f, j1], pd12[i, f, j1], pdlife[i, f, j1] = y1, l1, q1, c1
+        _store(sums, i, f, j1, y1, l1, q1, c1, u1, e1)
     if j2 != s0:
-        ecl12[i, f, j2], ecllife[i, f, j2], pd12[i, f, j2], pdlife[i, f, j2] = y2, l2, q2, c2
+        _store(sums, i, f, j2, y2, l2, q2, c2, u2, e2)
     if j3 != s0:
-        ecl12[i, f, j3], ecllife[i, f, j3], pd12[i, f, j3], pdlife[i, f, j3] = y3, l3, q3, c3
+        _store(sums, i, f, j3, y3, l3, q3, c3, u3, e3)
 
 
 @numba.njit(cache=jit.CACHE, parallel=True)
@@ -222,7 +250,7 @@ def _kernel(
     code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
     in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure,
     horizon, ead_add, paydown, discount, pd, smm, lgd_multiplier, collateral_index, unit_path, block,
-    ecl12, ecllife, pd12, pdlife, ead0, lgd0,
+    sums, ead0, lgd0,
 ):
     n = balance.shape[0]
     n_fw = pd.shape[0]
@@ -236,6 +264,8 @@ def _kernel(
         life = np.empty(n_sc)
         twelve = np.empty(n_sc)
         cum_12 = np.empty(n_sc)
+        gross = np.empty(n_sc)
+        gross_12 = np.empty(n_sc)
         for i in range(b * block, min(n, (b + 1) * block)):
             c, r, m_left, io, k, p, off = code[i], rate[i], months_left[i], io_left[i], curve[i], prepay[i], prepay_offset[i]
             level = level_payment[i]
@@ -257,10 +287,7 @@ def _kernel(
                             ead, lgd_i, coll_i, collateral_index[f, k, 0, s], cut_i, cost_i, floor_i, rec_i,
                             cure_i, lgd_multiplier[f, 0, s],
                         )
-                        ecl12[i, f, s] = loss
-                        ecllife[i, f, s] = loss
-                        pd12[i, f, s] = 1.0
-                        pdlife[i, f, s] = 1.0
+                        _store(sums, i, f, s, loss, loss, 1.0, 1.0, ead, ead)
                     continue
                 # no exposure after maturity: a horizon past it adds nothing (nor to the PD)
                 horizon_i = horizon[f, i] if c == REVOLVING else min(horizon[f, i], m_left)
@@ -271,7 +298,7 @@ def _kernel(
                         _flat_lanes(
                             i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit_path[f], lgd_i,
                             c, balance[i], r, io, level, down, add, v, horizon_i,
-                            ecl12, ecllife, pd12, pdlife,
+                            sums,
                         )
                     continue
                 # secured: the collateral LGD moves with the balance and the collateral index
@@ -279,6 +306,7 @@ def _kernel(
                     survival[s] = 1.0
                     cum_pd[s] = 0.0
                     life[s] = 0.0
+                    gross[s] = 0.0
                 growth, pay = path_terms(c, balance[i], r, level, down)
                 x = 1.0
                 annuity = 0.0
@@ -302,21 +330,21 @@ def _kernel(
                         )
                         default_now = survival[s] * h
                         life[s] += default_now * loss_rate * weight
+                        gross[s] += default_now * weight
                         cum_pd[s] += default_now
                         survival[s] *= (1.0 - h) * keep
                     if t == 11:  # end of month 12: the 12-month figures
                         for s in range(n_sc):
                             twelve[s] = life[s]
                             cum_12[s] = cum_pd[s]
+                            gross_12[s] = gross[s]
                 if horizon_i < 12:
                     for s in range(n_sc):
                         twelve[s] = life[s]
                         cum_12[s] = cum_pd[s]
+                        gross_12[s] = gross[s]
                 for s in range(n_sc):
-                    ecl12[i, f, s] = twelve[s]
-                    ecllife[i, f, s] = life[s]
-                    pd12[i, f, s] = cum_12[s]
-                    pdlife[i, f, s] = cum_pd[s]
+                    _store(sums, i, f, s, twelve[s], life[s], cum_12[s], cum_pd[s], gross_12[s], gross[s])
 
 
 def expected_losses(inputs: KernelInputs) -> KernelResult:
@@ -333,7 +361,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     Examples
     --------
     One loan, one month left, PD 0.5 % and LGD 25 % on 1,000,000, undiscounted: the loss is
-    PD × LGD × EAD = 1,250 (common practice, no source).
+    PD × LGD × EAD = 1,250 and the gross loss PD × EAD = 5,000 (common practice, no source).
 
     >>> one = lambda v, dt=float: np.array([v], dtype=dt)
     >>> k = KernelInputs(
@@ -345,15 +373,14 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     ...     horizon=np.ones((1, 1), np.int64), ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)),
     ...     discount=np.ones((1, 1)), pd=np.full((1, 1, 1, 1), 0.005), smm=np.zeros((1, 1)),
     ...     lgd_multiplier=np.ones((1, 1, 1)), collateral_index=np.ones((1, 1, 1, 1)))
-    >>> round(float(expected_losses(k).ecl_12m[0, 0, 0]), 6)
-    1250.0
+    >>> r = expected_losses(k)
+    >>> round(float(r.ecl_12m[0, 0, 0]), 6), round(float(r.gross_12m[0, 0, 0]), 6)
+    (1250.0, 5000.0)
     """
     args = _checked_arrays(inputs)
     n = inputs.balance.shape[0]
     n_fw, n_sc = inputs.pd.shape[0], inputs.pd.shape[3]
-    shape = (n, n_fw, n_sc)
-    ecl12, ecllife = np.empty(shape), np.empty(shape)
-    pd12, pdlife = np.empty(shape), np.empty(shape)
+    sums = np.empty((6, n, n_fw, n_sc))  # rows ECL_12M ... GROSS_LIFETIME
     ead0, lgd0 = np.empty((n, n_fw)), np.empty((n, n_fw))
     unit_path = np.array([bool(np.all(inputs.lgd_multiplier[f] == 1.0)) for f in range(n_fw)], dtype=np.bool_)
     if n:
@@ -367,17 +394,20 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
         try:
             _kernel(
                 a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], levels, *args[7:],
-                unit_path, _BLOCK, ecl12, ecllife, pd12, pdlife, ead0, lgd0,
+                unit_path, _BLOCK, sums, ead0, lgd0,
             )
         finally:
             numba.set_parallel_chunksize(previous)
-        bad = ~np.isfinite(ecllife).all(axis=(1, 2))
+        bad = ~np.isfinite(sums[ECL_LIFETIME]).all(axis=(1, 2))
         if bad.any():
             raise InvalidInputError(
                 f"the ECL of loan {int(np.argmax(bad))} (position in the chunk) is not finite: "
                 "an input array or table holds NaN or inf (the engine fills blanks before the loop)"
             )
-    return KernelResult(ecl12, ecllife, pd12, pdlife, ead0, lgd0)
+    return KernelResult(
+        ecl_12m=sums[ECL_12M], ecl_lifetime=sums[ECL_LIFETIME], pd_12m=sums[PD_12M], pd_lifetime=sums[PD_LIFETIME],
+        ead=ead0, lgd=lgd0, gross_12m=sums[GROSS_12M], gross_lifetime=sums[GROSS_LIFETIME],
+    )
 
 
 _FIELDS = [f.name for f in fields(KernelInputs)]

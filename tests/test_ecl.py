@@ -48,6 +48,7 @@ def test_one_period_worked_example():
     assert net.ead[0, 0] == 1e6 and net.lgd[0, 0] == 0.25
     gross = expected_losses(_one_loan(pd=pd_table, lgd=np.array([1.0])))
     assert gross.ecl_12m[0, 0, 0] == pytest.approx(5_000.0, rel=1e-12)
+    assert net.gross_12m[0, 0, 0] == pytest.approx(5_000.0, rel=1e-12)  # the same, from the loop's gross sum
     # and as one monthly period: PD 0.5 % in the only month
     one_month = _one_loan(pd=np.full((1, 1, 60, 1), 0.005), horizon=np.ones((1, 1), np.int64))
     assert expected_losses(one_month).ecl_lifetime[0, 0, 0] == pytest.approx(1_250.0, rel=1e-12)
@@ -101,7 +102,8 @@ def _loss_rate(k: KernelInputs, i, f, ead, t, s):
 def reference(k: KernelInputs) -> KernelResult:
     """ECL = sum_t S_{t-1} pd_t LGD_t EAD_t DF_t, loan by loan, vectorised over months."""
     n, (n_fw, _, _, n_sc) = len(k.balance), k.pd.shape
-    out = {name: np.zeros((n, n_fw, n_sc)) for name in ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime")}
+    out = {name: np.zeros((n, n_fw, n_sc)) for name in
+           ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime", "gross_12m", "gross_lifetime")}
     ead0, lgd0 = np.zeros((n, n_fw)), np.zeros((n, n_fw))
     for i in range(n):
         for f in range(n_fw):
@@ -113,6 +115,7 @@ def reference(k: KernelInputs) -> KernelResult:
                     loss = e0[0] * _loss_rate(k, i, f, e0, 0, s)[0]
                     out["ecl_12m"][i, f, s] = out["ecl_lifetime"][i, f, s] = loss
                     out["pd_12m"][i, f, s] = out["pd_lifetime"][i, f, s] = 1.0
+                    out["gross_12m"][i, f, s] = out["gross_lifetime"][i, f, s] = e0[0]
                 continue
             h = int(k.horizon[f, i]) if k.code[i] == 3 else min(int(k.horizon[f, i]), int(k.months_left[i]))
             t = np.arange(h)
@@ -128,6 +131,9 @@ def reference(k: KernelInputs) -> KernelResult:
                 out["ecl_12m"][i, f, s] = loss[:12].sum()
                 out["pd_lifetime"][i, f, s] = default.sum()
                 out["pd_12m"][i, f, s] = default[:12].sum()
+                gross = default * ead * df  # LGD = 1: the exposure lost before recoveries
+                out["gross_lifetime"][i, f, s] = gross.sum()
+                out["gross_12m"][i, f, s] = gross[:12].sum()
     return KernelResult(**out, ead=ead0, lgd=lgd0)
 
 
@@ -137,7 +143,7 @@ def test_loop_equals_the_numpy_reference(seed, frameworks, scenarios, secured):
     k = random_kernel_book(seed, n=30, frameworks=frameworks, scenarios=scenarios, secured=secured,
                            multipliers=secured)
     got, want = expected_losses(k), reference(k)
-    for name in ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime", "ead", "lgd"):
+    for name in ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime", "ead", "lgd", "gross_12m", "gross_lifetime"):
         np.testing.assert_allclose(getattr(got, name), getattr(want, name), rtol=1e-9, atol=1e-6, err_msg=name)
 
 
@@ -162,6 +168,9 @@ def test_ecl_bounded_by_exposure_and_twelve_months_by_lifetime(seed):
     assert (r.ecl_12m <= r.ecl_lifetime * (1 + 1e-12)).all()
     assert (r.pd_12m <= r.pd_lifetime + 1e-15).all() and (r.pd_lifetime <= 1 + 1e-12).all()
     assert (r.ecl_12m >= 0).all()
+    # the gross loss (before recoveries) is never below the net loss (common practice, no source)
+    assert (r.gross_lifetime >= r.ecl_lifetime * (1 - 1e-12)).all() and (r.gross_12m >= r.ecl_12m * (1 - 1e-12)).all()
+    assert (r.gross_lifetime <= r.ead[:, :, None] * (1 + 1e-12)).all()
 
 
 @_INVARIANT

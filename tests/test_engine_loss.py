@@ -50,3 +50,21 @@ def test_partly_covered_default_cecl_undiscounted_and_ifrs9_discounted():
     loans = engine.run(_one_mortgage(200_000.0, 180_000.0), cfg).loans
     assert loans["ecl_cecl"].iloc[0] == pytest.approx(67_520.00, abs=0.005)
     assert loans["ecl_ifrs9"].iloc[0] == pytest.approx(78_895.24, abs=0.005)
+
+
+def test_gross_loss_is_the_exposure_lost_before_recoveries():
+    # PD x EAD beside PD x LGD x EAD (common practice, no source): never below the net loss, and
+    # a loan in default loses its whole exposure gross
+    loans = engine.run(engine_tape(n=120, seed=5), engine_config()).loans
+    for fw in ("ifrs9", "cecl"):
+        gross, net = loans[f"gross_loss_{fw}"], loans[f"ecl_{fw}_modelled"]
+        assert (gross >= net - 0.01).all() and (gross <= loans[f"ead_{fw}"] + 0.01).all()
+    d = loans["stage"] == 3
+    assert d.any()
+    np.testing.assert_allclose(loans.loc[d, "gross_loss_ifrs9"], loans.loc[d, "ead_ifrs9"], atol=0.011)
+    # the flat-LGD segment: gross x LGD = net in the base scenario (no LGD multiplier there)
+    auto = (loans["segment"] == "auto") & (loans["stage"] == 1)
+    cfg = engine_config(scenarios={"base": {"weight": 1.0}})
+    single = engine.run(engine_tape(n=120, seed=5), cfg).loans
+    np.testing.assert_allclose(single.loc[auto, "gross_loss_ifrs9"] * 0.4, single.loc[auto, "ecl_ifrs9_modelled"],
+                               atol=0.011)

@@ -93,7 +93,7 @@ class EngineResult:
 
 
 def _round_money(loans: pd.DataFrame) -> pd.DataFrame:
-    money = [c for c in loans.columns if c.startswith("ecl_") or c.startswith("ead") or c == "balance"]
+    money = [c for c in loans.columns if c.startswith(("ecl_", "ead", "gross_loss_")) or c == "balance"]
     rounded = loans.copy()
     rounded[money] = rounded[money].round(CENT_DECIMALS)
     return rounded
@@ -209,7 +209,7 @@ def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> p
         "pd_12m", "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime",
     ]
     for fw in prep.frameworks:
-        first += [f"ecl_{fw}_modelled", f"overlay_{fw}", f"ecl_{fw}"]
+        first += [f"gross_loss_{fw}", f"ecl_{fw}_modelled", f"overlay_{fw}", f"ecl_{fw}"]
     for fw in prep.frameworks:
         first += [f"ecl_{fw}_{s}" for s in prep.scenario_names]
     first += [f"ead_{fw}" for fw in prep.frameworks]

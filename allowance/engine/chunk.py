@@ -165,7 +165,8 @@ class ChunkResult:
     """What :func:`run_chunk` returns for a chunk of loans.
 
     loans     one row per loan, in the chunk's order and index: stage, horizons, EAD, PDs, LGD,
-              ECL per framework and scenario and the modelled weighted ECL, unrounded
+              ECL per framework and scenario, the modelled weighted ECL and the expected gross
+              credit loss (``gross_loss_<framework>``), unrounded
     findings  the engine's findings on these loans (``payment_short`` warnings), in the
               intake findings' columns
     """
@@ -257,10 +258,15 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
     out["ecl_lifetime"] = scenarios.weighted(k.ecl_lifetime[:, primary, :], w)
     purchase = chunk["lifetime_ecl_at_purchase"].to_numpy(float)
     poci = out["poci"].to_numpy()
+    none = np.full(len(chunk), np.nan)
     for f, rules in enumerate(prep.rules):
         per_scenario = rules.allowance(k.ecl_12m[:, f, :], k.ecl_lifetime[:, f, :], stage, poci, purchase)
         for s, name in enumerate(prep.scenario_names):
             out[f"ecl_{rules.name}_{name}"] = per_scenario[:, s]
+        # the expected gross credit loss over the same horizon (LGD = 1: before recoveries);
+        # the POCI shift is an allowance convention, not a loss, so it does not apply
+        gross = rules.allowance(k.gross_12m[:, f, :], k.gross_lifetime[:, f, :], stage, poci, none)
+        out[f"gross_loss_{rules.name}"] = scenarios.weighted(gross, w)
         out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, w)
     return out
 
@@ -283,6 +289,7 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
     for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
         k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
         k.pd_12m[rows] = k.pd_lifetime[rows] = np.nan
+        k.gross_12m[rows] = k.gross_lifetime[rows] = np.nan  # a loss rate is net of recoveries
         k.lgd[rows] = np.nan
     return ChunkResult(
         loans=_loan_results(chunk, terms, stages, k, prep),

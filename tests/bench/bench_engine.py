@@ -118,7 +118,7 @@ def kernel_inputs(book: pd.DataFrame, cfg: RunConfig) -> list[ecl.KernelInputs]:
         captured.append(inputs)
         n, f, s = len(inputs.balance), inputs.pd.shape[0], inputs.pd.shape[3]
         z = np.zeros((n, f, s))
-        return ecl.KernelResult(z, z, z, z, np.zeros((n, f)), np.zeros((n, f)))
+        return ecl.KernelResult(z, z, z, z, np.zeros((n, f)), np.zeros((n, f)), z, z)
 
     real = engine_chunk.expected_losses  # the name run_chunk calls
     engine_chunk.expected_losses = capture

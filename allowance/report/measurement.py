@@ -1,0 +1,85 @@
+"""The workbook's loss-measurement section: the expected gross credit loss beside the net.
+
+The expected gross credit loss is the exposure expected to default over the allowance's
+horizon, before recoveries (PD × EAD: the ECL sum with LGD = 1); the modelled ECL is the loss
+net of recoveries (PD × LGD × EAD). Their ratio is the expected loss severity. Loss-rate
+segments have no gross figure: a loss rate is net of recoveries.
+
+Implements
+----------
+gross_net_section   the "Expected credit loss, gross and net of recoveries" table by segment
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from allowance.frameworks import FRAMEWORK_RULES
+from allowance.report.figures import Figure, Ledger, LoanRefs
+from allowance.report.xlsx import Sheet, col_letter
+
+__all__ = ["gross_net_section"]
+
+
+def _has_gross(loans: pd.DataFrame, segment: Any, framework: str) -> bool:
+    column = f"gross_loss_{framework}"
+    if column not in loans:
+        return False
+    values = pd.to_numeric(loans.loc[loans["segment"] == segment, column], errors="coerce")
+    return bool(values.notna().any())
+
+
+def gross_net_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.DataFrame, refs: LoanRefs,
+                      led: Ledger) -> int:
+    """Write the gross / net table from row ``r``; return the next free row.
+
+    Per segment and framework: the expected gross credit loss (``gross_loss_<framework>``),
+    the modelled ECL net of recoveries (``ecl_<framework>_modelled``, before overlays) and
+    net / gross. The total row sums the segment rows above it.
+    """
+    if not any(f"gross_loss_{f}" in loans for f in frameworks):
+        return r
+    r = sheet.section(r, "Expected credit loss, gross and net of recoveries (before overlays)")
+    r = sheet.note(r, "Gross: the exposure expected to default over the allowance horizon, before any recovery "
+                      "(PD x EAD, discounted as the framework discounts). Net: the modelled ECL after recoveries "
+                      "(PD x LGD x EAD). Net / gross is the expected loss severity. Loss-rate segments have no "
+                      "gross figure: a loss rate is already net of recoveries.")
+    cols, kinds = ["Segment"], ["text"]
+    for f in frameworks:
+        label = FRAMEWORK_RULES[f].label
+        cols += [f"{label} gross loss", f"{label} net (modelled ECL)", f"{label} net / gross"]
+        kinds += ["money", "money", "rate"]
+    sheet.header(r, 1, cols, kinds)
+    r += 1
+    first, loss_rate = r, False
+    for segment in sorted(pd.unique(loans["segment"]), key=str):
+        sheet.label(r, 1, str(segment))
+        crit = [("segment", f"$A{r}", segment)]
+        for j, f in enumerate(frameworks):
+            c = 2 + 3 * j
+            if not _has_gross(loans, segment, f):  # left out of the totals, which compare like with like
+                sheet.put(r, c, "loss rate (net only)", "text")
+                loss_rate = True
+                continue
+            gross = led.put(sheet, r, c, refs.total(f"gross_loss_{f}", crit), "money")
+            net = led.put(sheet, r, c + 1, refs.total(f"ecl_{f}_modelled", crit), "money")
+            g, n = led.local(sheet, gross), led.local(sheet, net)
+            led.put(sheet, r, c + 2, Figure(f"=IF({gross}=0,0,{net}/{gross})", n / g if g else 0.0), "rate")
+        r += 1
+    sheet.label(r, 1, "Total, PD-method segments" if loss_rate else "Total", total=True)
+    for j, f in enumerate(frameworks):
+        c = 2 + 3 * j
+        sums = []
+        for col in (c, c + 1):
+            letter = col_letter(col)
+            values = [led.values.get(f"{sheet.name}!{letter}{row}") for row in range(first, r)]
+            value = int(np.sum([round(v * 100) for v in values if isinstance(v, (int, float))])) / 100.0
+            sums.append(led.put(sheet, r, col, Figure(f"=SUM({letter}{first}:{letter}{r - 1})", value), "money",
+                                total=True))
+        g, n = (led.local(sheet, ref) for ref in sums)
+        led.put(sheet, r, c + 2, Figure(f"=IF({sums[0]}=0,0,{sums[1]}/{sums[0]})", n / g if g else 0.0), "rate",
+                total=True)
+    return r + 2
