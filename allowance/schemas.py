@@ -166,6 +166,16 @@ class LoanRecord(BaseModel):
     original_balance: NonNegative | None = Field(
         default=None, description="Amount lent at origination; needed where the segment uses a vintage loss curve."
     )
+    collateral_dependent: bool = Field(
+        default=False,
+        description="Collateral dependent (ASC 326-20-35-4/35-5): ECL = amortised cost less the collateral_value "
+        "less the segment's costs to sell ([segments.<name>.collateral_dependent]).",
+    )
+    individual_ecl: Amount | None = Field(
+        default=None,
+        description="ECL from the lender's own individual assessment of this loan; replaces the model in every "
+        "framework (loans.csv measurement = individual).",
+    )
 
 
 #: The columns a tape must have (after column mapping). ``maturity_date`` must be present
@@ -185,9 +195,9 @@ OPTIONAL_COLUMNS: tuple[str, ...] = tuple(
 #: is carried through as ``tape_<name>``: it must never stand in for the computed figure.
 RESULT_COLUMNS: frozenset[str] = frozenset({
     "stage", "stage_reason", "poci", "horizon_months", "remaining_months", "ead", "pd_12m",
-    "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime", "source_row",
+    "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime", "source_row", "measurement",
 })
-RESULT_PREFIXES: tuple[str, ...] = ("ecl_", "ead_", "overlay_", "horizon_", "stage_", "pd_", "lgd_")
+RESULT_PREFIXES: tuple[str, ...] = ("ecl_", "ead_", "overlay_", "horizon_", "stage_", "pd_", "lgd_", "gross_loss_")
 
 
 def is_result_column(name: str) -> bool:
@@ -317,17 +327,53 @@ class TransitionMatrix(_Strict):
 
 
 class CollateralLgd(_Strict):
-    """Collateral-based LGD for secured loans.
+    """Collateral-based LGD for secured loans (``curves.lgd.collateral_lgd``).
 
-    LGD_t = max(floor, 1 - PV(recovery) / EAD_t), recovery = min(EAD_t,
-    collateral × index_t × (1 - haircut)) × (1 - recovery_cost), discounted at the EIR over
-    ``months_to_recovery``.
+    Net proceeds NP = collateral × index_t × (1 - haircut) × (1 - recovery_cost); the claim
+    accrues interest at the EIR through the ``months_to_recovery`` of the workout and the
+    recovery is min(claim at recovery, NP); LGD_t = 1 - PV(recovery) / EAD_t, then cures and
+    the scenario's multiplier, then the floor. Where the framework does not discount (CECL
+    without the discounted cash-flow method) nothing is discounted and the claim does not accrue.
     """
 
     haircut: Probability = Field(description="Forced-sale discount on the collateral value.")
-    recovery_cost: Probability = Field(default=0.0, description="Costs to recover, share of proceeds.")
-    floor: Probability = Field(default=0.0, description="Lowest LGD allowed.")
+    recovery_cost: Probability = Field(default=0.0, description="Costs to recover and sell, share of the sale proceeds.")
+    floor: Probability = Field(default=0.0, description="Lowest final LGD (after cures and multipliers).")
     months_to_recovery: Months = 12
+
+
+class CollateralDependent(_Strict):
+    """``[segments.<name>.collateral_dependent]``: collateral-dependent loans of a segment.
+
+    Such a loan's ECL is max(0, amortised cost - fair value × (1 - costs_to_sell)), fair value =
+    collateral_value × (1 - appraisal_discount), the same in every scenario (ASC
+    326-20-35-4/35-5; IFRS 9 B5.5.55), in the frameworks listed. A loan is collateral
+    dependent when the tape flags it (``collateral_dependent``), or, with ``defaulted_secured``,
+    when it is in default (``default_dpd`` days past due, or flagged defaulted or bankrupt) and
+    has a collateral value. Which loans are collateral dependent is the lender's judgement: the
+    options state it.
+    """
+
+    costs_to_sell: Probability = Field(
+        description="Costs to sell, share of the collateral's fair value (0 when repayment comes from operating it)."
+    )
+    appraisal_discount: Probability = Field(
+        default=0.0,
+        description="Discount from the tape's collateral_value to the collateral's fair value at the reporting "
+        "date (an old or as-completed appraisal); 0: the tape's value is the fair value.",
+    )
+    defaulted_secured: bool = Field(
+        default=False,
+        description="Treat every loan in default with a collateral value as collateral dependent, not only the "
+        "loans flagged collateral_dependent on the tape.",
+    )
+    default_dpd: DaysPastDue = Field(
+        default=90, description="With defaulted_secured: days past due from which a loan is in default."
+    )
+    frameworks: list[Framework] = Field(
+        default_factory=lambda: ["ifrs9", "cecl"], min_length=1,
+        description="Frameworks that measure these loans on the collateral (the model measures them in the others).",
+    )
 
 
 _QUARTER = re.compile(r"^(\d{4})\s*-?\s*Q([1-4])$", re.IGNORECASE)
@@ -449,6 +495,7 @@ class SegmentAssumptions(_Strict):
         "(blank: they stay in the pool at the loss rate).",
     )
     collateral_lgd: CollateralLgd | None = None
+    collateral_dependent: CollateralDependent | None = None
     cure_rate: Probability = Field(default=0.0, description="Share of defaults that cure with no loss.")
     cpr: Probability | None = None
     psa: NonNegative | None = Field(default=None, description="PSA multiple in percent: 100, 150, ...")

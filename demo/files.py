@@ -411,6 +411,10 @@ haircut = 0.2                      # forced-sale discount on the appraised value
 recovery_cost = 0.08
 floor = 0.05
 months_to_recovery = 18
+
+[segments.mortgage.collateral_dependent]
+costs_to_sell = 0.07               # agents, legal and transfer costs, share of the fair value
+defaulted_secured = true           # credit policy CP-14: foreclosure is probable once a mortgage is in default
 """,
     "auto": """
 [segments.auto]
@@ -433,6 +437,11 @@ haircut = 0.25
 recovery_cost = 0.1
 floor = 0.1
 months_to_recovery = 24
+
+[segments.cre.collateral_dependent]
+costs_to_sell = 0.08
+appraisal_discount = 0.1           # appraisals of defaulted properties are up to a year old
+defaulted_secured = true           # repayment of a defaulted CRE loan depends on the property
 """,
     "heloc": """
 [segments.heloc]

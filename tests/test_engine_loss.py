@@ -68,3 +68,61 @@ def test_gross_loss_is_the_exposure_lost_before_recoveries():
     single = engine.run(engine_tape(n=120, seed=5), cfg).loans
     np.testing.assert_allclose(single.loc[auto, "gross_loss_ifrs9"] * 0.4, single.loc[auto, "ecl_ifrs9_modelled"],
                                atol=0.011)
+
+
+def _dependent_config(**table):
+    cfg = _mortgage_config(haircut=0.2, recovery_cost=0.08, floor=0.05, months_to_recovery=18)
+    data = cfg.assumptions.model_dump(mode="json", exclude_none=True)
+    data["segments"]["mort"]["collateral_dependent"] = {"costs_to_sell": 0.07, **table}
+    return type(cfg)(assumptions=type(cfg.assumptions).model_validate(data))
+
+
+def test_collateral_dependent_loan_is_measured_on_its_collateral():
+    # ASC 326-20-35-5 (the practical expedient): ECL = amortised cost - fair value x (1 - costs to
+    # sell), floored at 0, the same in every scenario and framework (hand computation):
+    #   300,000 - 250,000 x 0.93 = 67,500.00; with ample collateral (500,000) it is 0
+    cfg = _dependent_config()
+    book = pd.concat([_one_mortgage(300_000.0, 250_000.0, days_past_due=0),
+                      _one_mortgage(300_000.0, 500_000.0, days_past_due=0)], ignore_index=True)
+    book["loan_id"] = ["CD-1", "CD-2"]
+    book["collateral_dependent"] = True
+    loans = engine.run(book, cfg).loans
+    assert loans["measurement"].tolist() == ["collateral_dependent", "collateral_dependent"]
+    for fw in ("ifrs9", "cecl"):
+        assert loans[f"ecl_{fw}"].tolist() == [67_500.00, 0.0]
+        assert loans[f"gross_loss_{fw}"].tolist() == [300_000.00, 300_000.00]  # the amortised cost at risk
+
+
+def test_defaulted_secured_loans_and_the_framework_list():
+    # the segment option treats a loan in default with a collateral value as collateral dependent,
+    # here under CECL only: IFRS 9 keeps the model (collateral LGD) for it
+    cfg = _dependent_config(defaulted_secured=True, frameworks=["cecl"])
+    book = pd.concat([_one_mortgage(300_000.0, 250_000.0, days_past_due=120),
+                      _one_mortgage(300_000.0, 250_000.0, days_past_due=0)], ignore_index=True)
+    book["loan_id"] = ["D-1", "C-1"]
+    loans = engine.run(book, cfg).loans
+    assert loans["measurement"].tolist() == ["collateral_dependent_defaulted", "model"]
+    assert loans["ecl_cecl"].iloc[0] == 67_500.00
+    assert loans["ecl_ifrs9"].iloc[0] != 67_500.00 and loans["ecl_ifrs9"].iloc[0] > 0
+
+
+def test_individual_assessment_replaces_the_model_in_every_framework():
+    cfg = _dependent_config()
+    book = _one_mortgage(300_000.0, 250_000.0, days_past_due=0)
+    book["individual_ecl"] = 12_345.67
+    loans = engine.run(book, cfg).loans
+    assert loans["measurement"].iloc[0] == "individual"
+    for fw in ("ifrs9", "cecl"):
+        assert loans[f"ecl_{fw}"].iloc[0] == 12_345.67
+        assert loans[f"gross_loss_{fw}"].iloc[0] >= 12_345.67
+
+
+@pytest.mark.parametrize("collateral", [100_000.0, 250_000.0, 400_000.0])
+def test_collateral_dependent_ecl_falls_as_the_collateral_rises(collateral):
+    # monotone in the collateral value (common practice, no source)
+    cfg = _dependent_config()
+    book = pd.concat([_one_mortgage(300_000.0, collateral), _one_mortgage(300_000.0, collateral + 10_000.0)],
+                     ignore_index=True)
+    book["loan_id"], book["collateral_dependent"] = ["A", "B"], True
+    loans = engine.run(book, cfg).loans
+    assert loans["ecl_cecl"].iloc[1] <= loans["ecl_cecl"].iloc[0]

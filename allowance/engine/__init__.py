@@ -204,7 +204,7 @@ def overlaid(result: EngineResult, config: RunConfig) -> EngineResult:
 
 def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     first = [
-        "loan_id", "segment", "repayment", "grade", "stage", "stage_class", "stage_reason", "poci",
+        "loan_id", "segment", "repayment", "grade", "stage", "stage_class", "stage_reason", "poci", "measurement",
         "horizon_months", "horizon_months_cecl", "remaining_months", "balance", "ead",
         "pd_12m", "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime",
     ]

@@ -5,9 +5,13 @@ horizon, before recoveries (PD × EAD: the ECL sum with LGD = 1); the modelled E
 net of recoveries (PD × LGD × EAD). Their ratio is the expected loss severity. Loss-rate
 segments have no gross figure: a loss rate is net of recoveries.
 
+Loans measured one by one (collateral dependent, or the lender's individual assessment) are
+listed by measurement beside the model's loans.
+
 Implements
 ----------
 gross_net_section   the "Expected credit loss, gross and net of recoveries" table by segment
+measurement_section the allowance by measurement: the model, collateral dependent, individual
 """
 
 from __future__ import annotations
@@ -21,7 +25,15 @@ from allowance.frameworks import FRAMEWORK_RULES
 from allowance.report.figures import Figure, Ledger, LoanRefs
 from allowance.report.xlsx import Sheet, col_letter
 
-__all__ = ["gross_net_section"]
+__all__ = ["gross_net_section", "measurement_section"]
+
+#: measurement code -> the workbook's line (codes as :data:`allowance.individual.MEASUREMENTS`)
+MEASUREMENT_LINES: dict[str, str] = {
+    "model": "The model (PD x LGD x EAD over the scenarios)",
+    "collateral_dependent": "Collateral dependent, flagged on the tape (ASC 326-20-35-4/35-5; IFRS 9 B5.5.55)",
+    "collateral_dependent_defaulted": "Collateral dependent: secured loans in default (segment option)",
+    "individual": "Individually assessed (tape individual_ecl)",
+}
 
 
 def _has_gross(loans: pd.DataFrame, segment: Any, framework: str) -> bool:
@@ -83,3 +95,37 @@ def gross_net_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.Dat
         led.put(sheet, r, c + 2, Figure(f"=IF({sums[0]}=0,0,{sums[1]}/{sums[0]})", n / g if g else 0.0), "rate",
                 total=True)
     return r + 2
+
+
+def measurement_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.DataFrame, refs: LoanRefs,
+                        led: Ledger) -> int:
+    """Write the allowance by measurement from row ``r`` (only when some loan is measured one by
+    one); return the next free row. Each line is a COUNTIFS / SUMIFS over ``measurement``."""
+    if "measurement" not in loans or (loans["measurement"] == "model").all():
+        return r
+    r = sheet.section(r, "Allowance by measurement (loans measured one by one)")
+    r = sheet.note(r, "Collateral-dependent loans: amortised cost less the collateral's fair value less costs to "
+                      "sell, floored at 0, the same in every scenario, in the frameworks the segment lists (the model "
+                      "measures them in the others). Individually assessed loans take the tape's individual_ecl in "
+                      "every framework. The measurement column of loans.csv names each loan's.")
+    cols, kinds = ["Measurement", "Code", "Loans", "Balance"], ["text", "text", "count", "money"]
+    for f in frameworks:
+        label = FRAMEWORK_RULES[f].label
+        cols += [f"{label} modelled allowance", f"{label} gross loss"]
+        kinds += ["money", "money"]
+    sheet.header(r, 1, cols, kinds)
+    r += 1
+    present = set(pd.unique(loans["measurement"]))
+    for code, line in MEASUREMENT_LINES.items():
+        if code not in present:
+            continue
+        sheet.label(r, 1, line)
+        sheet.label(r, 2, code)
+        crit = [("measurement", f"$B{r}", code)]
+        led.put(sheet, r, 3, refs.count(crit), "count")
+        led.put(sheet, r, 4, refs.total("balance", crit), "money")
+        for j, f in enumerate(frameworks):
+            led.put(sheet, r, 5 + 2 * j, refs.total(f"ecl_{f}_modelled", crit), "money")
+            led.put(sheet, r, 6 + 2 * j, refs.total(f"gross_loss_{f}", crit), "money")
+        r += 1
+    return r + 1

@@ -29,7 +29,7 @@ from allowance.report import clock
 from allowance.report.bulk import BULK_HEADER_ROW, BulkSheet, save
 from allowance.report.cells import human
 from allowance.report.figures import Figure, Ledger, LoanRefs
-from allowance.report.measurement import gross_net_section
+from allowance.report.measurement import gross_net_section, measurement_section
 from allowance.report.record import CAUTION, RunReport
 from allowance.report.sheets import (
     disclosures_sheet, intake_sheet, journal_sheet, movement_sheet, record_sheet, stage_changes_frame, warnings_frame,
@@ -233,6 +233,7 @@ def _summary(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger, *, fu
                     "money", total=True)
     r += 2
     r = gross_net_section(sheet, r, list(report.frameworks), loans, refs, led)
+    r = measurement_section(sheet, r, list(report.frameworks), loans, refs, led)
 
     if report.movements:
         r = sheet.section(r, "Movement since the prior quarter (details on the Movement and Journal sheets)")
