@@ -74,10 +74,12 @@ class KernelInputs:
 
     Per loan: ``code, balance, rate`` (monthly), ``months_left`` (contractual payments left;
     behavioural life for revolving), ``io_left``, ``residual``, ``payment`` (NaN = recompute),
-    ``curve`` (row of ``pd``), ``prepay`` and ``prepay_offset`` (row and start column of
+    ``prepay`` and ``prepay_offset`` (row and start column of
     ``smm``), ``lgd`` (flat LGD after cure), ``collateral`` (0 = flat LGD),
     ``haircut, recovery_cost, lgd_floor, cure``.
-    Per framework and loan ``[F, n]``: ``in_default`` (PD = 1 now), ``recovery_discount`` (PV
+    Per framework and loan ``[F, n]``: ``curve`` (row of ``pd``: a framework may measure a loan
+    on another row, IFRS 9 a loan on probation out of stage 3), ``in_default`` (the loss event
+    is certain now: PD = 1), ``recovery_discount`` (PV
     factor of a collateral recovery at the EIR; 1 where the framework does not discount),
     ``horizon`` (months), ``ead_add`` (CCF × undrawn),
     ``paydown`` (revolving monthly repayment share), ``discount`` (monthly discount multiplier
@@ -267,13 +269,14 @@ def _kernel(
         gross = np.empty(n_sc)
         gross_12 = np.empty(n_sc)
         for i in range(b * block, min(n, (b + 1) * block)):
-            c, r, m_left, io, k, p, off = code[i], rate[i], months_left[i], io_left[i], curve[i], prepay[i], prepay_offset[i]
+            c, r, m_left, io, p, off = code[i], rate[i], months_left[i], io_left[i], prepay[i], prepay_offset[i]
             level = level_payment[i]
             secured = collateral[i] > 0.0
             lgd_i, coll_i, cut_i, cost_i = lgd[i], collateral[i], haircut[i], recovery_cost[i]
             floor_i, cure_i = lgd_floor[i], cure[i]
             for f in range(n_fw):
                 rec_i = recovery_discount[f, i]
+                k = curve[f, i]
                 add = ead_add[f, i]
                 ead = balance[i] + add
                 ead0[i, f] = ead
@@ -367,7 +370,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     >>> k = KernelInputs(
     ...     code=one(0, np.int64), balance=one(1e6), rate=one(0.0), months_left=one(1, np.int64),
     ...     io_left=one(0, np.int64), residual=one(0.0), payment=one(np.nan),
-    ...     curve=one(0, np.int64), prepay=one(0, np.int64), prepay_offset=one(0, np.int64),
+    ...     curve=np.zeros((1, 1), np.int64), prepay=one(0, np.int64), prepay_offset=one(0, np.int64),
     ...     in_default=np.zeros((1, 1), np.bool_), lgd=one(0.25), collateral=one(0.0), haircut=one(0.0),
     ...     recovery_cost=one(0.0), lgd_floor=one(0.0), recovery_discount=np.ones((1, 1)), cure=one(0.0),
     ...     horizon=np.ones((1, 1), np.int64), ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)),
@@ -412,7 +415,9 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
 
 _FIELDS = [f.name for f in fields(KernelInputs)]
 #: The fields of :class:`KernelInputs` given per framework and loan, shape ``[F, n]``.
-PER_FRAMEWORK: tuple[str, ...] = ("in_default", "recovery_discount", "horizon", "ead_add", "paydown", "discount")
+PER_FRAMEWORK: tuple[str, ...] = (
+    "curve", "in_default", "recovery_discount", "horizon", "ead_add", "paydown", "discount",
+)
 _INTEGER = {"code", "months_left", "io_left", "curve", "prepay", "prepay_offset", "horizon"}
 
 

@@ -12,6 +12,7 @@ rule                     IFRS 9                                  CECL
 stages                   1 / 2 / 3 and POCI (5.5.3-5.5.5, 5.5.13) none: lifetime for every loan
 horizon reported         12 months in stage 1, else the life     the life (ASC 326-20-30-6)
 PD = 1 now               stage 3 (default or probation)          ``[cecl] default_dpd``, flags
+default test             ``[ifrs9] default_dpd``, flags          ``[cecl] default_dpd``, flags
 undrawn limit            CCF × undrawn (B5.5.31, B5.5.40)        none when unconditionally
                                                                  cancellable (326-20-30-11)
 revolving lines          drawn balance at the behavioural life   drawn balance paying down at
@@ -65,7 +66,11 @@ class FrameworkRules:
     label                how people write it (workbook, messages)
     staged               loans carry IFRS 9 stages and the allowance is reported by stage
     horizon              ``(stage, life) -> months``: the horizon reported per loan
-    in_default           ``(tape, stage or None, assumptions) -> bool``: PD = 1 now
+    in_default           ``(tape, stage or None, assumptions) -> bool``: PD = 1 now, before the
+                         one default definition (:func:`allowance.staging.loss_event_now`)
+    default_test         ``(tape, assumptions) -> bool``: in default now (days past due at the
+                         framework's ``default_dpd``, or the flags); stage 3 without it is
+                         probation
     exposure_add_on      ``(drawn, limit, ccf, unconditionally_cancellable) -> add-on`` to EAD
     revolving_paydown    revolving lines pay down at the segment's ``payment_rate``
     discounted           ``assumptions -> bool``: discount at the EIR
@@ -85,6 +90,7 @@ class FrameworkRules:
     staged: bool
     horizon: Callable[[np.ndarray, np.ndarray], np.ndarray]
     in_default: Callable[[pd.DataFrame, np.ndarray | None, Assumptions], np.ndarray]
+    default_test: Callable[[pd.DataFrame, Assumptions], np.ndarray]
     exposure_add_on: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
     revolving_paydown: bool
     discounted: Callable[[Assumptions], bool]
@@ -142,6 +148,11 @@ def _ifrs9_default(tape: pd.DataFrame, stage: np.ndarray | None, assumptions: As
     return np.asarray(stage) == 3
 
 
+def _ifrs9_default_test(tape: pd.DataFrame, assumptions: Assumptions) -> np.ndarray:
+    # staging has already required the [ifrs9] table of a staged run
+    return staging.in_default(tape, assumptions.ifrs9.default_dpd)
+
+
 def _drawn_plus_ccf(drawn, limit, ccf, cancellable) -> np.ndarray:
     return undrawn_exposure(drawn, limit, ccf)
 
@@ -173,6 +184,7 @@ IFRS9 = FrameworkRules(
     staged=True,
     horizon=staging.stage_horizon,
     in_default=_ifrs9_default,
+    default_test=_ifrs9_default_test,
     exposure_add_on=_drawn_plus_ccf,
     revolving_paydown=False,
     discounted=_always,
@@ -207,6 +219,10 @@ def _cecl_default(tape: pd.DataFrame, stage: np.ndarray | None, assumptions: Ass
     return staging.in_default(tape, _cecl_rules(assumptions).default_dpd)
 
 
+def _cecl_default_test(tape: pd.DataFrame, assumptions: Assumptions) -> np.ndarray:
+    return _cecl_default(tape, None, assumptions)
+
+
 def _cecl_add_on(drawn, limit, ccf, cancellable) -> np.ndarray:
     # an unconditionally cancellable commitment carries no allowance (ASC 326-20-30-11)
     return np.where(cancellable, 0.0, undrawn_exposure(drawn, limit, ccf))
@@ -226,6 +242,7 @@ CECL = FrameworkRules(
     staged=False,
     horizon=staging.lifetime_horizon,
     in_default=_cecl_default,
+    default_test=_cecl_default_test,
     exposure_add_on=_cecl_add_on,
     revolving_paydown=True,
     discounted=_cecl_discounts,

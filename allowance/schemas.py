@@ -627,6 +627,12 @@ class Ifrs9Rules(_Strict):
     probation_months_stage2: Months = Field(
         default=0, description="Months performing in stage 2 before a loan leaves it for stage 1."
     )
+    probation_pd_12m: Probability | None = Field(
+        default=None,
+        description="12-month PD of a loan on probation out of stage 3 (no longer in default): lifetime ECL on this "
+        "PD, moved by the scenarios like any PD. Blank: such a loan takes its segment's own PD (its grade, age or "
+        "delinquency bucket).",
+    )
 
     @model_validator(mode="after")
     def _ordered(self) -> Ifrs9Rules:

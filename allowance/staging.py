@@ -7,7 +7,8 @@ pd_ratio_coverage   per segment: how many loans the PD-ratio test could be appli
 pd_ratio_warnings   the run's warnings for loans and segments the PD-ratio test skips (said once)
 lifetime_pd         lifetime PD over a number of months from a 12-month PD (constant hazard)
 stage_class         the one stage vocabulary: "stage 1", "stage 2", "stage 3", "POCI"
-in_default          the PD = 1 test (days past due at the default threshold, defaulted, bankrupt)
+in_default          the default test (days past due at the default threshold, defaulted, bankrupt)
+loss_event_now      loans in default whose loss event is certain now (PD = 1, the LGD after cures)
 lifetime_months     each loan's life: remaining term, or a revolving line's behavioural life
 stage_horizon       IFRS 9: 12 months in stage 1 (or the life if shorter), else the life
 lifetime_horizon    CECL: the life of every loan
@@ -25,7 +26,7 @@ from allowance.exceptions import AssumptionsError, InvalidInputError
 from allowance.schemas import Ifrs9Rules, SegmentAssumptions
 
 __all__ = [
-    "STAGE_CLASSES", "assign_stages", "in_default", "lifetime_horizon", "lifetime_months", "lifetime_pd",
+    "STAGE_CLASSES", "assign_stages", "in_default", "lifetime_horizon", "lifetime_months", "lifetime_pd", "loss_event_now",
     "pd_ratio_coverage", "pd_ratio_warnings", "stage_class", "stage_horizon",
 ]
 
@@ -462,3 +463,54 @@ def lifetime_horizon(stage, life) -> np.ndarray:
     [200, 36]
     """
     return np.asarray(life, dtype=np.int64).copy()
+
+
+def loss_event_now(in_default_now, flagged, days_past_due, charge_off_dpd) -> np.ndarray:
+    """Loans in default whose loss event is taken as certain now: PD = 1, the LGD after cures.
+
+    Parameters
+    ----------
+    in_default_now : array_like of bool
+        The default test (:func:`in_default`): days past due at the threshold, or a flag.
+    flagged : array_like of bool
+        In default by the ``defaulted`` or ``bankrupt`` flag.
+    days_past_due : array_like of int
+    charge_off_dpd : array_like of int
+        Per loan, the charge-off threshold of its segment's roll-rate matrix; 0 where its PD
+        does not come from a roll-rate matrix.
+
+    Notes
+    -----
+    One default definition for both frameworks: a loan in default has not lost anything yet;
+    it reaches the loss event (charge-off) with some probability, and the loss given that
+    event applies. Where that probability comes from:
+
+    * a roll-rate segment measures it from the loan's delinquency bucket, whose row already
+      says how many such loans cure or pay off before charge-off: the loan keeps its bucket's
+      term structure (a card at 95 days past due whose bucket charges off 90 % of the time
+      gets a lifetime PD of 0.9, not 1), unless it is at or past the charge-off threshold or
+      flagged (the matrix does not describe a loan in default by flag);
+    * otherwise the stated ``cure_rate``: PD = 1 now and the LGD times (1 - cure_rate), the
+      probability of reaching the loss event times the loss given that event.
+
+    A loan on probation out of stage 3 passes the default test: it is not in default and is
+    not measured here (``[ifrs9] probation_pd_12m``).
+
+    References
+    ----------
+    .. [1] IFRS 9 *Financial Instruments*, B5.5.37 (a default definition consistent with
+       credit risk management) and 5.5.3 (lifetime ECL for credit-impaired assets).
+    .. [2] FASB ASC 326-20-30-2 (measurement on a pool basis where loans share risk
+       characteristics, delinquency status among them).
+
+    Examples
+    --------
+    >>> loss_event_now(np.array([True, True, True, True, False]), np.array([False, False, True, False, False]),
+    ...                np.array([95, 95, 10, 200, 0]), np.array([0, 180, 180, 180, 180])).tolist()
+    [True, False, True, True, False]
+    """
+    in_default_now = np.asarray(in_default_now, bool)
+    charge_off = np.asarray(charge_off_dpd)
+    matrix = charge_off > 0
+    reached = np.asarray(days_past_due) >= charge_off
+    return in_default_now & (~matrix | np.asarray(flagged, bool) | reached)

@@ -338,6 +338,7 @@ watchlist_is_sicr = true
 forborne_is_sicr = true
 probation_months_stage3 = 6
 probation_months_stage2 = 3
+probation_pd_12m = 0.12            # loans cured from default: 12-month re-default rate, credit policy CP-14
 
 [cecl]
 reasonable_supportable_months = 24

@@ -563,7 +563,7 @@ def random_kernel_book(seed: int, n: int = 40, frameworks: int = 2, scenarios: i
     shape = (frameworks, months, scenarios)
     return KernelInputs(
         code=code, balance=balance, rate=rate, months_left=months_left, io_left=io_left, residual=residual,
-        payment=_np.full(n, _np.nan), curve=rng.integers(0, n_keys, n), prepay=rng.integers(0, n_rows, n),
+        payment=_np.full(n, _np.nan), curve=rng.integers(0, n_keys, (frameworks, n)), prepay=rng.integers(0, n_rows, n),
         prepay_offset=rng.integers(0, ages, n), in_default=rng.random((frameworks, n)) < 0.1,
         lgd=rng.uniform(0.05, 0.9, n), collateral=collateral, haircut=rng.uniform(0, 0.4, n),
         recovery_cost=rng.uniform(0, 0.15, n), lgd_floor=rng.uniform(0, 0.1, n),

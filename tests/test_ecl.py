@@ -21,7 +21,7 @@ def _one_loan(**over) -> KernelInputs:
     one = lambda v, dt=float: np.array([v], dtype=dt)  # noqa: E731
     base = dict(
         code=one(1, np.int64), balance=one(1e6), rate=one(0.0), months_left=one(60, np.int64),
-        io_left=one(60, np.int64), residual=one(0.0), payment=one(np.nan), curve=one(0, np.int64),
+        io_left=one(60, np.int64), residual=one(0.0), payment=one(np.nan), curve=np.zeros((1, 1), np.int64),
         prepay=one(0, np.int64), prepay_offset=one(0, np.int64), in_default=np.zeros((1, 1), np.bool_),
         lgd=one(0.25), collateral=one(0.0), haircut=one(0.0), recovery_cost=one(0.0), lgd_floor=one(0.0),
         recovery_discount=np.ones((1, 1)), cure=one(0.0), horizon=np.full((1, 1), 60, np.int64),
@@ -93,7 +93,7 @@ def _balance_path(k: KernelInputs, i: int, f: int, months: int) -> np.ndarray:
 
 def _loss_rate(k: KernelInputs, i, f, ead, t, s):
     if k.collateral[i] > 0:  # net proceeds C (1 - h)(1 - c), then cures and multiplier, then the floor
-        proceeds = k.collateral[i] * k.collateral_index[f, k.curve[i], t, s] * (1 - k.haircut[i]) * (1 - k.recovery_cost[i])
+        proceeds = k.collateral[i] * k.collateral_index[f, k.curve[f, i], t, s] * (1 - k.haircut[i]) * (1 - k.recovery_cost[i])
         raw = 1 - np.minimum(1.0, proceeds * k.recovery_discount[f, i] / np.maximum(ead, 1e-12))
         return np.minimum(1.0, np.maximum(k.lgd_floor[i], k.lgd_multiplier[f, t, s] * (1 - k.cure[i]) * raw))
     return np.minimum(1.0, np.full_like(ead, k.lgd[i]) * k.lgd_multiplier[f, t, s])
@@ -123,7 +123,7 @@ def reference(k: KernelInputs) -> KernelResult:
             df = k.discount[f, i] ** (t + 1)
             smm = k.smm[k.prepay[i], k.prepay_offset[i] + t]
             for s in range(n_sc):
-                pd_t = k.pd[f, k.curve[i], :h, s]
+                pd_t = k.pd[f, k.curve[f, i], :h, s]
                 alive = np.concatenate([[1.0], np.cumprod((1 - pd_t) * (1 - smm))[:-1]])  # S_{t-1}
                 default = alive * pd_t
                 loss = default * _loss_rate(k, i, f, ead, t, s) * ead * df
@@ -209,7 +209,7 @@ def test_empty_book():
     [
         ("balance", np.array([np.nan]), "balance holds NaN"),
         ("horizon", np.full((1, 1), 61, np.int64), "horizon lies outside"),
-        ("curve", np.array([3]), "curve key"),
+        ("curve", np.full((1, 1), 3, np.int64), "curve key"),
         ("prepay_offset", np.array([5]), "SMM table"),
     ],
 )

@@ -126,3 +126,53 @@ def test_collateral_dependent_ecl_falls_as_the_collateral_rises(collateral):
     book["loan_id"], book["collateral_dependent"] = ["A", "B"], True
     loans = engine.run(book, cfg).loans
     assert loans["ecl_cecl"].iloc[1] <= loans["ecl_cecl"].iloc[0]
+
+
+def _cards_config():
+    from tests.strategies import example_roll_matrix
+
+    data = engine_config(scenarios={"base": {"weight": 1.0}}).assumptions.model_dump(mode="json", exclude_none=True)
+    cards = data["segments"]["cards"]
+    cards.pop("pd_12m_by_grade")
+    cards["transition_matrix"] = example_roll_matrix(180).model_dump(mode="json")
+    cards["charge_off_dpd"] = 180
+    cfg = engine_config()
+    return type(cfg)(assumptions=type(cfg.assumptions).model_validate(data))
+
+
+def test_a_roll_rate_loan_in_default_keeps_its_chance_of_charge_off():
+    # one default definition: a card at 95 days past due is in default (stage 3, CECL's default
+    # test), but its matrix bucket says some such accounts never charge off, so its PD is the
+    # bucket's chance of reaching charge-off, below 1; past the charge-off threshold, or flagged
+    # defaulted, the loss event is certain (PD = 1)
+    book = engine_tape(n=60, seed=11)
+    cards = book[book["segment"] == "cards"].head(3).copy()
+    cards["loan_id"] = ["C95", "C185", "CFLAG"]
+    cards["days_past_due"] = [95, 185, 95]
+    cards["defaulted"] = [False, False, True]
+    loans = engine.run(cards.reset_index(drop=True), _cards_config()).loans.set_index("loan_id")
+    assert (loans["stage"] == 3).all()
+    assert 0.0 < loans.loc["C95", "pd_lifetime"] < 1.0
+    assert loans.loc["C95", "ecl_ifrs9"] < loans.loc["C95", "lgd"] * loans.loc["C95", "ead"]
+    for loan in ("C185", "CFLAG"):
+        assert loans.loc[loan, "pd_lifetime"] == 1.0
+        assert loans.loc[loan, "ecl_ifrs9"] == pytest.approx(loans.loc[loan, "lgd"] * loans.loc[loan, "ead"], abs=0.011)
+
+
+def test_a_loan_on_probation_takes_the_stated_probation_pd_not_one():
+    # out of stage 3 on probation (prior stage 3, current, 2 of 6 months performing): stage 3,
+    # lifetime ECL, on the stated probation PD (12 %) rather than PD = 1; without it, on the
+    # segment's own PD (2 %)
+    book = engine_tape(n=60, seed=11)
+    auto = book[book["segment"] == "auto"].head(1).copy()
+    auto["days_past_due"], auto["prior_stage"], auto["months_performing"] = 0, 3, 2
+    ifrs9 = {"sicr_pd_ratio": 2.0, "probation_months_stage3": 6}
+    single = {"base": {"weight": 1.0}}
+    stated = engine.run(auto, engine_config(ifrs9={**ifrs9, "probation_pd_12m": 0.12}, scenarios=single)).loans
+    plain = engine.run(auto, engine_config(ifrs9=ifrs9, scenarios=single)).loans
+    for loans, pd_12m in ((stated, 0.12), (plain, 0.02)):
+        assert loans["stage"].iloc[0] == 3 and "probation_from_3" in loans["stage_reason"].iloc[0]
+        assert loans["pd_12m"].iloc[0] == pytest.approx(pd_12m, rel=1e-9)  # constant hazard: 12 months give the PD
+        assert loans["ecl_ifrs9"].iloc[0] < 0.4 * loans["ead"].iloc[0]
+    # CECL does not stage: the loan is current, measured on the segment's PD
+    assert plain["ecl_cecl"].iloc[0] == stated["ecl_cecl"].iloc[0]

@@ -246,7 +246,7 @@ def test_warm_is_the_pd_loop_with_unconditional_monthly_losses_of_r_over_12(seed
                             in_default=np.zeros_like(k.in_default), multiplier=np.ones_like(k.multiplier))
     pd_loop = expected_losses(KernelInputs(
         code=k.code, balance=k.balance, rate=k.rate, months_left=k.months_left, io_left=k.io_left,
-        residual=k.residual, payment=k.payment, curve=np.zeros(30, np.int64), prepay=k.prepay,
+        residual=k.residual, payment=k.payment, curve=np.zeros((1, 30), np.int64), prepay=k.prepay,
         prepay_offset=k.prepay_offset, in_default=k.in_default, lgd=np.ones(30), collateral=np.zeros(30),
         haircut=np.zeros(30), recovery_cost=np.zeros(30), lgd_floor=np.zeros(30), recovery_discount=np.ones((1, 30)),
         cure=np.zeros(30), horizon=k.horizon, ead_add=k.ead_add, paydown=k.paydown, discount=k.discount,

@@ -179,6 +179,7 @@ class ChunkResult:
 class _Frameworks:
     """Per framework and loan ``[F, n]``: what the loop reads besides the loan terms."""
 
+    curve: np.ndarray
     in_default: np.ndarray
     recovery_discount: np.ndarray
     horizon: np.ndarray
@@ -193,12 +194,27 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
     revolving = terms.repayment == "revolving"
     limit = np.where(revolving, np.nan_to_num(chunk["credit_limit"].to_numpy(float)), terms.balance)
     out = _Frameworks(
+        curve=np.tile(terms.curve, (n_fw, 1)),
         in_default=np.zeros((n_fw, n), dtype=np.bool_), recovery_discount=np.ones((n_fw, n)),
         horizon=np.zeros((n_fw, n), dtype=np.int64),
         ead_add=np.zeros((n_fw, n)), paydown=np.zeros((n_fw, n)), discount=np.ones((n_fw, n)),
     )
+    # one default definition: a roll-rate loan in default keeps its bucket's chance of reaching
+    # charge-off unless it is past the threshold or flagged (staging.loss_event_now)
+    charge_off = _by_segment(terms, prep, lambda s: (s.charge_off_dpd or 0) if s.pd_source == "transition_matrix"
+                             else 0, 0).astype(np.int64)
+    flagged = chunk["defaulted"].to_numpy(bool) | chunk["bankrupt"].to_numpy(bool)
+    dpd = chunk["days_past_due"].to_numpy()
+    probation_row = np.array([prep.probation_key.get(n, -1) for n in prep.segments.names] + [-1],
+                             dtype=np.int64)[terms.segment]
     for f, rules in enumerate(prep.rules):
-        out.in_default[f] = rules.in_default(chunk, stage, a)
+        credit_impaired = rules.in_default(chunk, stage, a)
+        default_now = rules.default_test(chunk, a)
+        out.in_default[f] = credit_impaired & staging.loss_event_now(default_now, flagged, dpd, charge_off)
+        # on probation out of stage 3 (credit-impaired class, no longer in default): the stated
+        # probation PD where there is one, else the segment's own PD for the loan
+        on_probation = credit_impaired & ~default_now & (probation_row >= 0)
+        out.curve[f] = np.where(on_probation, probation_row, terms.curve)
         out.recovery_discount[f] = rules.recovery_discount(a, terms.eir, terms.months_to_recovery)
         # the loop runs over the whole life; a 12-month horizon takes its first 12 months
         out.horizon[f] = terms.remaining
@@ -212,7 +228,7 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
 def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelInputs:
     return KernelInputs(
         code=terms.code, balance=terms.balance, rate=terms.rate, months_left=terms.remaining, io_left=terms.io_left,
-        residual=terms.residual, payment=terms.payment, curve=terms.curve, prepay=terms.prepay,
+        residual=terms.residual, payment=terms.payment, curve=fw.curve, prepay=terms.prepay,
         prepay_offset=terms.prepay_offset, in_default=fw.in_default, lgd=np.nan_to_num(terms.lgd),
         collateral=terms.collateral,
         haircut=terms.haircut, recovery_cost=terms.recovery_cost, lgd_floor=terms.lgd_floor,

@@ -11,7 +11,7 @@ tape_months      the longest horizon on a tape (how many months the tables must 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -104,6 +104,8 @@ class Prepared:
     tables: dict[Framework, scenarios.ScenarioTables]
     pd_12m_now: np.ndarray  # [K]: the staged framework's probability-weighted 12-month PD, for staging
     loss_rates: LossRateTables | None = None  # the loss-rate segments' tables (None: there are none)
+    #: segment -> the PD row of a loan on probation out of stage 3 (``[ifrs9] probation_pd_12m``)
+    probation_key: dict[str, int] = field(default_factory=dict)
 
     @property
     def staged(self) -> FrameworkRules | None:
@@ -242,6 +244,18 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
         offset += len(ts.keys)
         bases.append(ts.marginal)
         key_smm.append(ts.smm if ts.smm is not None else np.zeros_like(ts.marginal))
+    # a loan on probation out of stage 3 is no longer in default: the stated probation PD as a
+    # constant hazard, one row per segment after all the segments' own rows (so the scenarios
+    # move it with the segment); a roll-rate segment measures such a loan from its bucket
+    probation = a.ifrs9.probation_pd_12m if a.ifrs9 is not None else None
+    probation_key, probation_segments = {}, []
+    if probation is not None:
+        for name, ts in structures.items():
+            if a.segments[name].loss_rate_method is None and ts.source != "transition_matrix":
+                probation_key[name] = offset
+                offset += 1
+                probation_segments.append(name)
+                bases.append(np.full((1, months), float(curves.hazard_from_pd_12m(probation))))
     base = np.vstack(bases)
 
     length = max_age + months + 1
@@ -269,8 +283,10 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
                 np.atleast_1d(scenarios.asset_correlation(seg, pd12_base[key_offset[n]: key_offset[n] + len(structures[n].keys)], name=n))
                 for n, seg in a.segments.items()
             ]
+            + [np.atleast_1d(scenarios.asset_correlation(a.segments[n], pd12_base[probation_key[n]: probation_key[n] + 1],
+                                                         name=n)) for n in probation_segments]
         )
-    key_segments = [name for name, ts in structures.items() for _ in ts.keys]
+    key_segments = [name for name, ts in structures.items() for _ in ts.keys] + probation_segments
     rules = tuple(rules_for(fw) for fw in frameworks)
     tables = {r.name: scenarios.scenario_tables(base, rho, a, r.reversion(a), key_segments) for r in rules}
     pd_table = np.ascontiguousarray(np.stack([tables[fw].pd.transpose(0, 2, 1) for fw in frameworks]))
@@ -290,4 +306,5 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
         prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
         pd_12m_now=pd_12m_now, loss_rates=_loss_rate_tables(config, months, max_age, tables, structures, key_offset),
+        probation_key=probation_key,
     )
