@@ -49,10 +49,13 @@ import numpy as np
 from allowance import jit
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
 from allowance.curves.lgd import loss_given_default
+from allowance.shortfall import default_loss
 from allowance.exceptions import InvalidInputError
 
 #: the LGD of a loan-month (:func:`allowance.curves.lgd.loss_given_default`), compiled into the loop
 _loss_given_default = numba.njit(cache=jit.CACHE, inline="always")(loss_given_default)
+#: the loss of a default in the month (:func:`allowance.shortfall.default_loss`), compiled into the loop
+_default_loss = numba.njit(cache=jit.CACHE, inline="always")(default_loss)
 
 
 @numba.njit(cache=jit.CACHE, inline="always")
@@ -83,7 +86,9 @@ class KernelInputs:
     factor of a collateral recovery at the EIR; 1 where the framework does not discount),
     ``horizon`` (months), ``ead_add`` (CCF × undrawn),
     ``paydown`` (revolving monthly repayment share), ``discount`` (monthly discount multiplier
-    v = 1/(1 + EIR/12), or 1 where the framework does not discount).
+    v = 1/(1 + EIR/12), or 1 where the framework does not discount), ``interest`` (the default
+    month's lost interest EIR/12 under the cash-shortfall measure, else 0:
+    :func:`allowance.shortfall.default_loss`).
     Tables: ``pd[F, K, T, S]``, ``smm[P, L]``, ``lgd_multiplier[F, T, S]``,
     ``collateral_index[F, K, T, S]`` (per curve key: a satellite model may link a segment's
     collateral to a price variable).
@@ -111,6 +116,7 @@ class KernelInputs:
     ead_add: np.ndarray
     paydown: np.ndarray
     discount: np.ndarray
+    interest: np.ndarray
     pd: np.ndarray
     smm: np.ndarray
     lgd_multiplier: np.ndarray
@@ -149,12 +155,14 @@ def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
 @numba.njit(cache=jit.CACHE, inline="always", fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
-    io_left, level, paydown, add, v, horizon_i, sums,
+    io_left, level, paydown, add, v, horizon_i, interest, sums,
 ):
-    """One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
+    r"""One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
 
     ``e`` sums the exposure-weighted default share :math:`\sum S_{t-1} pd_t EAD_t DF_t`,
-    the expected gross loss; ``l`` the net loss (on a unit LGD path, LGD × e).
+    the expected gross loss; ``l`` the net loss (on a unit LGD path, LGD × e). Under the
+    cash-shortfall measure each default also loses the month's interest (both times
+    ``1 + interest`` and ``LGD + interest``).
 
     The four scenarios are carried in scalars (registers) rather than arrays, so their
     survival recursions run side by side; a lane past the last scenario does no work and is
@@ -170,7 +178,7 @@ def _flat_lanes(
     q0 = q1 = q2 = q3 = 0.0  # 12-month PD
     e0 = e1 = e2 = e3 = 0.0  # gross loss so far
     u0 = u1 = u2 = u3 = 0.0  # 12-month gross loss
-    lgd_c = _flat_lgd(lgd_i, 1.0)
+    lgd_c = _flat_lgd(lgd_i, 1.0) + interest
     growth, pay = path_terms(code, balance, rate, level, paydown)
     x = 1.0  # g^t
     annuity = 0.0  # sum of g^j, j < t
@@ -189,10 +197,10 @@ def _flat_lanes(
         if unit:
             w0 = w1 = w2 = w3 = w * lgd_c
         else:
-            w0 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, s0])
-            w1 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, j1])
-            w2 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, j2])
-            w3 = w * _flat_lgd(lgd_i, lgd_multiplier[f, t, j3])
+            w0 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, s0]), interest)
+            w1 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j1]), interest)
+            w2 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j2]), interest)
+            w3 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j3]), interest)
         # S_t = (S_{t-1} - S_{t-1} pd_t)(1 - smm_t): the default share d is computed anyway
         d0 = a0 * pd[f, k, t, s0]
         l0 += d0 * w0
@@ -223,13 +231,14 @@ def _flat_lanes(
     if horizon_i < 12:
         y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
         u0, u1, u2, u3 = e0, e1, e2, e3
-    _store(sums, i, f, s0, y0, l0, q0, c0, u0, e0)
+    g = 1.0 + interest  # the gross loss of a default: its whole exposure (and the month's interest)
+    _store(sums, i, f, s0, y0, l0, q0, c0, u0 * g, e0 * g)
     if j1 != s0:
-        _store(sums, i, f, j1, y1, l1, q1, c1, u1, e1)
+        _store(sums, i, f, j1, y1, l1, q1, c1, u1 * g, e1 * g)
     if j2 != s0:
-        _store(sums, i, f, j2, y2, l2, q2, c2, u2, e2)
+        _store(sums, i, f, j2, y2, l2, q2, c2, u2 * g, e2 * g)
     if j3 != s0:
-        _store(sums, i, f, j3, y3, l3, q3, c3, u3, e3)
+        _store(sums, i, f, j3, y3, l3, q3, c3, u3 * g, e3 * g)
 
 
 @numba.njit(cache=jit.CACHE, parallel=True)
@@ -251,7 +260,7 @@ def _level_payments(code, balance, rate, months_left, io_left, residual, payment
 def _kernel(
     code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
     in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure,
-    horizon, ead_add, paydown, discount, pd, smm, lgd_multiplier, collateral_index, unit_path, block,
+    horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, unit_path, block,
     sums, ead0, lgd0,
 ):
     n = balance.shape[0]
@@ -300,7 +309,7 @@ def _kernel(
                     for s0 in range(0, n_sc, 4):
                         _flat_lanes(
                             i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit_path[f], lgd_i,
-                            c, balance[i], r, io, level, down, add, v, horizon_i,
+                            c, balance[i], r, io, level, down, add, v, horizon_i, interest[f, i],
                             sums,
                         )
                     continue
@@ -332,8 +341,8 @@ def _kernel(
                             rec_i, cure_i, lgd_multiplier[f, t, s],
                         )
                         default_now = survival[s] * h
-                        life[s] += default_now * loss_rate * weight
-                        gross[s] += default_now * weight
+                        life[s] += default_now * _default_loss(weight, loss_rate, interest[f, i])
+                        gross[s] += default_now * _default_loss(weight, 1.0, interest[f, i])
                         cum_pd[s] += default_now
                         survival[s] *= (1.0 - h) * keep
                     if t == 11:  # end of month 12: the 12-month figures
@@ -374,7 +383,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     ...     in_default=np.zeros((1, 1), np.bool_), lgd=one(0.25), collateral=one(0.0), haircut=one(0.0),
     ...     recovery_cost=one(0.0), lgd_floor=one(0.0), recovery_discount=np.ones((1, 1)), cure=one(0.0),
     ...     horizon=np.ones((1, 1), np.int64), ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)),
-    ...     discount=np.ones((1, 1)), pd=np.full((1, 1, 1, 1), 0.005), smm=np.zeros((1, 1)),
+    ...     discount=np.ones((1, 1)), interest=np.zeros((1, 1)), pd=np.full((1, 1, 1, 1), 0.005), smm=np.zeros((1, 1)),
     ...     lgd_multiplier=np.ones((1, 1, 1)), collateral_index=np.ones((1, 1, 1, 1)))
     >>> r = expected_losses(k)
     >>> round(float(r.ecl_12m[0, 0, 0]), 6), round(float(r.gross_12m[0, 0, 0]), 6)
@@ -416,7 +425,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
 _FIELDS = [f.name for f in fields(KernelInputs)]
 #: The fields of :class:`KernelInputs` given per framework and loan, shape ``[F, n]``.
 PER_FRAMEWORK: tuple[str, ...] = (
-    "curve", "in_default", "recovery_discount", "horizon", "ead_add", "paydown", "discount",
+    "curve", "in_default", "recovery_discount", "horizon", "ead_add", "paydown", "discount", "interest",
 )
 _INTEGER = {"code", "months_left", "io_left", "curve", "prepay", "prepay_offset", "horizon"}
 

@@ -19,6 +19,9 @@ revolving lines          drawn balance at the behavioural life   drawn balance p
                                                                  the segment's payment_rate
 discounting              at the EIR (B5.5.44)                    only with ``discount = true``
                                                                  (the DCF method, 326-20-30-4)
+loss of a default        LGD × EAD, or with ``measure =          LGD × EAD; with ``discount =
+                         "cash_shortfall"`` the cash shortfall   true`` the cash shortfall (the
+                         (LGD + EIR/12) × EAD (Appendix A)       DCF method, 326-20-30-4)
 collateral recoveries    discounted at the EIR, the claim        undiscounted, no accrual, unless
                          accruing through the workout (B5.5.55)  ``discount = true``
 scenario paths           the whole life                          reverting to the long-run PDs
@@ -74,6 +77,8 @@ class FrameworkRules:
     exposure_add_on      ``(drawn, limit, ccf, unconditionally_cancellable) -> add-on`` to EAD
     revolving_paydown    revolving lines pay down at the segment's ``payment_rate``
     discounted           ``assumptions -> bool``: discount at the EIR
+    cash_shortfall       ``assumptions -> bool``: the loss of a default is the cash shortfall,
+                         (LGD + EIR/12) × EAD (:func:`allowance.shortfall.default_loss`)
     reversion            ``assumptions -> CeclRules or None``: revert the scenario paths after
                          the reasonable and supportable period (None: whole life)
     allowance            ``(ecl_12m, ecl_lifetime, stage, poci, ecl_at_purchase) -> ecl``, per
@@ -94,6 +99,7 @@ class FrameworkRules:
     exposure_add_on: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
     revolving_paydown: bool
     discounted: Callable[[Assumptions], bool]
+    cash_shortfall: Callable[[Assumptions], bool]
     reversion: Callable[[Assumptions], CeclRules | None]
     allowance: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
     credit_impaired: str
@@ -106,6 +112,13 @@ class FrameworkRules:
         if self.discounted(assumptions):
             return monthly_discount(eir)
         return np.ones(len(eir))
+
+    def shortfall_interest(self, assumptions: Assumptions, eir: np.ndarray) -> np.ndarray:
+        """The default month's lost interest per loan, EIR/12, where the framework measures the cash
+        shortfall; 0 under PD × LGD × EAD (:func:`allowance.shortfall.default_loss`)."""
+        if self.cash_shortfall(assumptions):
+            return np.asarray(eir, float) / 12.0
+        return np.zeros(len(eir))
 
     def recovery_discount(self, assumptions: Assumptions, eir: np.ndarray, months_to_recovery: np.ndarray) -> np.ndarray:
         """The present value factor of a collateral recovery, per loan: (1 + EIR/12)^-m where
@@ -169,6 +182,10 @@ def _always(assumptions: Assumptions) -> bool:
     return True
 
 
+def _ifrs9_shortfall(assumptions: Assumptions) -> bool:
+    return assumptions.ifrs9 is not None and assumptions.ifrs9.measure == "cash_shortfall"
+
+
 def _whole_life(assumptions: Assumptions) -> None:
     return None
 
@@ -188,6 +205,7 @@ IFRS9 = FrameworkRules(
     exposure_add_on=_drawn_plus_ccf,
     revolving_paydown=False,
     discounted=_always,
+    cash_shortfall=_ifrs9_shortfall,
     reversion=_whole_life,
     allowance=_ifrs9_allowance,
     credit_impaired="POCI",
@@ -246,6 +264,7 @@ CECL = FrameworkRules(
     exposure_add_on=_cecl_add_on,
     revolving_paydown=True,
     discounted=_cecl_discounts,
+    cash_shortfall=_cecl_discounts,  # the DCF method is the cash shortfall at the EIR (326-20-30-4)
     reversion=_cecl_rules,
     allowance=_lifetime_allowance,
     credit_impaired="PCD",

@@ -627,6 +627,11 @@ class Ifrs9Rules(_Strict):
     probation_months_stage2: Months = Field(
         default=0, description="Months performing in stage 2 before a loan leaves it for stage 1."
     )
+    measure: Literal["pd_lgd_ead", "cash_shortfall"] = Field(
+        default="pd_lgd_ead",
+        description="pd_lgd_ead: PD x LGD x EAD discounted at the EIR; cash_shortfall: contractual less expected "
+        "cash flows at the EIR (IFRS 9 Appendix A, credit loss), which adds the default month's lost interest.",
+    )
     probation_pd_12m: Probability | None = Field(
         default=None,
         description="12-month PD of a loan on probation out of stage 3 (no longer in default): lifetime ECL on this "
@@ -650,7 +655,12 @@ class CeclRules(_Strict):
     )
     reversion_months: Months = 0
     reversion: Reversion = "straight_line"
-    discount: bool = Field(default=False, description="true: discounted cash-flow method at the EIR.")
+    discount: bool = Field(
+        default=False,
+        description="true: the discounted cash-flow method (ASC 326-20-30-4): amortised cost less the present value "
+        "at the EIR of the expected cash flows (the cash shortfall); false: undiscounted PD x LGD x EAD, recoveries "
+        "included.",
+    )
 
 
 #: The kinds of PD path a scenario may state (at most one of them).

@@ -569,6 +569,7 @@ def random_kernel_book(seed: int, n: int = 40, frameworks: int = 2, scenarios: i
         recovery_cost=rng.uniform(0, 0.15, n), lgd_floor=rng.uniform(0, 0.1, n),
         recovery_discount=_np.where(discount < 1.0, rng.uniform(0.8, 1.0, (frameworks, n)), 1.0), cure=rng.uniform(0, 0.3, n), horizon=horizon,
         ead_add=ead_add, paydown=paydown, discount=discount,
+        interest=_np.where((discount < 1.0) & (rng.random((frameworks, n)) < 0.5), 1.0 / discount - 1.0, 0.0),
         pd=rng.uniform(0.0, 0.03, (frameworks, n_keys, months, scenarios)),
         smm=rng.uniform(0.0, 0.02, (n_rows, ages + months)),
         lgd_multiplier=rng.uniform(0.8, 1.5, shape) if multipliers else _np.ones(shape),

@@ -25,7 +25,7 @@ def _one_loan(**over) -> KernelInputs:
         prepay=one(0, np.int64), prepay_offset=one(0, np.int64), in_default=np.zeros((1, 1), np.bool_),
         lgd=one(0.25), collateral=one(0.0), haircut=one(0.0), recovery_cost=one(0.0), lgd_floor=one(0.0),
         recovery_discount=np.ones((1, 1)), cure=one(0.0), horizon=np.full((1, 1), 60, np.int64),
-        ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)), discount=np.ones((1, 1)),
+        ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)), discount=np.ones((1, 1)), interest=np.zeros((1, 1)),
         pd=np.zeros((1, 1, 60, 1)), smm=np.zeros((1, 60)), lgd_multiplier=np.ones((1, 60, 1)),
         collateral_index=np.ones((1, 1, 60, 1)),
     )
@@ -115,7 +115,7 @@ def reference(k: KernelInputs) -> KernelResult:
                     loss = e0[0] * _loss_rate(k, i, f, e0, 0, s)[0]
                     out["ecl_12m"][i, f, s] = out["ecl_lifetime"][i, f, s] = loss
                     out["pd_12m"][i, f, s] = out["pd_lifetime"][i, f, s] = 1.0
-                    out["gross_12m"][i, f, s] = out["gross_lifetime"][i, f, s] = e0[0]
+                    out["gross_12m"][i, f, s] = out["gross_lifetime"][i, f, s] = e0[0]  # no interest: defaulted
                 continue
             h = int(k.horizon[f, i]) if k.code[i] == 3 else min(int(k.horizon[f, i]), int(k.months_left[i]))
             t = np.arange(h)
@@ -126,12 +126,13 @@ def reference(k: KernelInputs) -> KernelResult:
                 pd_t = k.pd[f, k.curve[f, i], :h, s]
                 alive = np.concatenate([[1.0], np.cumprod((1 - pd_t) * (1 - smm))[:-1]])  # S_{t-1}
                 default = alive * pd_t
-                loss = default * _loss_rate(k, i, f, ead, t, s) * ead * df
+                # the cash shortfall adds the default month's interest: (LGD + i) x EAD
+                loss = default * (_loss_rate(k, i, f, ead, t, s) + k.interest[f, i]) * ead * df
                 out["ecl_lifetime"][i, f, s] = loss.sum()
                 out["ecl_12m"][i, f, s] = loss[:12].sum()
                 out["pd_lifetime"][i, f, s] = default.sum()
                 out["pd_12m"][i, f, s] = default[:12].sum()
-                gross = default * ead * df  # LGD = 1: the exposure lost before recoveries
+                gross = default * (1.0 + k.interest[f, i]) * ead * df  # LGD = 1: before recoveries
                 out["gross_lifetime"][i, f, s] = gross.sum()
                 out["gross_12m"][i, f, s] = gross[:12].sum()
     return KernelResult(**out, ead=ead0, lgd=lgd0)
@@ -235,3 +236,19 @@ def test_read_only_and_writable_inputs_share_one_compiled_loop():
     arrays = [t for sig in ecl._kernel.signatures for t in sig if isinstance(t, numba.types.Array)]
     assert arrays and all(t.mutable for t in arrays)
     assert not frozen.balance.flags.writeable  # the caller's array is left as it was
+
+
+def test_cash_shortfall_check_value_through_the_loop():
+    # a 36-month 10,000 level-pay loan at 12 % with a 1 % monthly PD and 50 % LGD, discounted at
+    # the EIR: PD x LGD x EAD gives 773.00, the cash shortfall (ASC 326-20-30-4) 788.46 (hand
+    # computation; tests/test_shortfall.py rebuilds both cash flow by cash flow with numpy_financial)
+    v = 1 / 1.01
+    loan = dict(code=np.array([0]), rate=np.array([0.01]), balance=np.array([10_000.0]),
+                months_left=np.array([36]), io_left=np.array([0]), lgd=np.array([0.5]),
+                horizon=np.full((1, 1), 36, np.int64), discount=np.full((1, 1), v), pd=np.full((1, 1, 60, 1), 0.01))
+    assert round(float(expected_losses(_one_loan(**loan)).ecl_lifetime[0, 0, 0]), 2) == 773.00
+    shortfall = expected_losses(_one_loan(**loan, interest=np.full((1, 1), 0.01)))
+    assert round(float(shortfall.ecl_lifetime[0, 0, 0]), 2) == 788.46
+    # a loan nobody expects to default has no shortfall at all
+    none = expected_losses(_one_loan(**{**loan, "pd": np.zeros((1, 1, 60, 1))}, interest=np.full((1, 1), 0.01)))
+    assert none.ecl_lifetime[0, 0, 0] == 0.0

@@ -250,6 +250,7 @@ def test_warm_is_the_pd_loop_with_unconditional_monthly_losses_of_r_over_12(seed
         prepay_offset=k.prepay_offset, in_default=k.in_default, lgd=np.ones(30), collateral=np.zeros(30),
         haircut=np.zeros(30), recovery_cost=np.zeros(30), lgd_floor=np.zeros(30), recovery_discount=np.ones((1, 30)),
         cure=np.zeros(30), horizon=k.horizon, ead_add=k.ead_add, paydown=k.paydown, discount=k.discount,
+        interest=np.zeros_like(k.discount),
         pd=pd_t[None, None, :, None], smm=k.smm, lgd_multiplier=np.ones((1, months, 1)),
         collateral_index=np.ones((1, 1, months, 1)),
     ))

@@ -186,6 +186,7 @@ class _Frameworks:
     ead_add: np.ndarray
     paydown: np.ndarray
     discount: np.ndarray
+    interest: np.ndarray
 
 
 def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray | None, prep: Prepared) -> _Frameworks:
@@ -198,6 +199,7 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
         in_default=np.zeros((n_fw, n), dtype=np.bool_), recovery_discount=np.ones((n_fw, n)),
         horizon=np.zeros((n_fw, n), dtype=np.int64),
         ead_add=np.zeros((n_fw, n)), paydown=np.zeros((n_fw, n)), discount=np.ones((n_fw, n)),
+        interest=np.zeros((n_fw, n)),
     )
     # one default definition: a roll-rate loan in default keeps its bucket's chance of reaching
     # charge-off unless it is past the threshold or flagged (staging.loss_event_now)
@@ -222,6 +224,7 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
         if rules.revolving_paydown:
             out.paydown[f] = revolving_parameter(chunk, prep.segments, terms.segment, "payment_rate")
         out.discount[f] = rules.discount(a, terms.eir)
+        out.interest[f] = rules.shortfall_interest(a, terms.eir)
     return out
 
 
@@ -233,7 +236,8 @@ def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelI
         collateral=terms.collateral,
         haircut=terms.haircut, recovery_cost=terms.recovery_cost, lgd_floor=terms.lgd_floor,
         recovery_discount=fw.recovery_discount, cure=terms.cure, horizon=fw.horizon, ead_add=fw.ead_add,
-        paydown=fw.paydown, discount=fw.discount, pd=prep.pd, smm=prep.smm, lgd_multiplier=prep.lgd_multiplier,
+        paydown=fw.paydown, discount=fw.discount, interest=fw.interest, pd=prep.pd, smm=prep.smm,
+        lgd_multiplier=prep.lgd_multiplier,
         collateral_index=prep.collateral_index,
     )
 
@@ -349,8 +353,8 @@ def _individual_measurement(chunk: pd.DataFrame, terms: LoanTerms, prep: Prepare
     assessed = method == individual.INDIVIDUAL
     replaced = np.full((len(prep.rules), n), np.nan)
     for f, rules in enumerate(prep.rules):
-        listed = _by_segment(terms, prep, lambda s: bool(s.collateral_dependent)
-                             and rules.name in s.collateral_dependent.frameworks, False).astype(bool)
+        listed = _by_segment(terms, prep, lambda s, fw=rules.name: bool(s.collateral_dependent)
+                             and fw in s.collateral_dependent.frameworks, False).astype(bool)
         replaced[f] = np.where(assessed, chunk["individual_ecl"].to_numpy(float),
                                np.where(dependent & listed, on_collateral, np.nan))
     return method, replaced

@@ -82,7 +82,7 @@ def gross_net_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.Dat
             led.put(sheet, r, c + 2, Figure(f"=IF({gross}=0,0,{net}/{gross})", n / g if g else 0.0), "rate")
         r += 1
     sheet.label(r, 1, "Total, PD-method segments" if loss_rate else "Total", total=True)
-    for j, f in enumerate(frameworks):
+    for j in range(len(frameworks)):
         c = 2 + 3 * j
         sums = []
         for col in (c, c + 1):
