@@ -168,8 +168,11 @@ def test_a_loan_on_probation_takes_the_stated_probation_pd_not_one():
     auto["days_past_due"], auto["prior_stage"], auto["months_performing"] = 0, 3, 2
     ifrs9 = {"sicr_pd_ratio": 2.0, "probation_months_stage3": 6}
     single = {"base": {"weight": 1.0}}
-    stated = engine.run(auto, engine_config(ifrs9={**ifrs9, "probation_pd_12m": 0.12}, scenarios=single)).loans
-    plain = engine.run(auto, engine_config(ifrs9=ifrs9, scenarios=single)).loans
+    segments = engine_config().assumptions.model_dump(mode="json", exclude_none=True)["segments"]
+    segments["auto"].pop("cpr")  # no prepayment: the reported 12-month PD is then the PD itself
+    stated = engine.run(auto, engine_config(ifrs9={**ifrs9, "probation_pd_12m": 0.12}, scenarios=single,
+                                            segments=segments)).loans
+    plain = engine.run(auto, engine_config(ifrs9=ifrs9, scenarios=single, segments=segments)).loans
     for loans, pd_12m in ((stated, 0.12), (plain, 0.02)):
         assert loans["stage"].iloc[0] == 3 and "probation_from_3" in loans["stage_reason"].iloc[0]
         assert loans["pd_12m"].iloc[0] == pytest.approx(pd_12m, rel=1e-9)  # constant hazard: 12 months give the PD
