@@ -61,6 +61,12 @@ def test_every_loan_respects_the_bounds(demo_out):
     assert (loans["ecl_12m"] <= loans["ecl_lifetime"]).all()
     assert (loans["ecl_lifetime"] <= loans["ead"]).all()
     assert (loans["ecl_cecl_modelled"] <= loans["ead_cecl"]).all()
+    # the gross loss (before recoveries) never falls below the net; the demo's defaulted secured
+    # loans are measured on their collateral (its policy's collateral_dependent tables)
+    for fw in ("ifrs9", "cecl"):
+        priced = loans[f"gross_loss_{fw}"].notna()
+        assert (loans.loc[priced, f"gross_loss_{fw}"] >= loans.loc[priced, f"ecl_{fw}_modelled"] - 0.01).all()
+    assert (loans["measurement"] == "collateral_dependent_defaulted").sum() > 0
 
 
 @pytest.mark.slow
