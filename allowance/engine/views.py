@@ -94,7 +94,8 @@ def pd_path_view(tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     n_keys = prep.pd.shape[1]
     weights = np.bincount(keys, weights=tape["balance"].to_numpy(float), minlength=n_keys)
     key_segments = [name for name, ts in prep.structures.items() for _ in ts.keys]
-    frames = [macro.pd_path_table(prep.tables[fw].pd, prep.scenario_names, key_segments, weights, fw)
+    own = len(key_segments)  # the segments' own keys; the probation rows after them are left out
+    frames = [macro.pd_path_table(prep.tables[fw].pd[:own], prep.scenario_names, key_segments, weights[:own], fw)
               for fw in prep.frameworks]
     return pd.concat(frames, ignore_index=True)
 
