@@ -12,7 +12,9 @@ where :math:`pd_t` is the marginal PD conditional on survival, :math:`EAD_t` the
 start of month t, :math:`DF_t = (1 + EIR/12)^{-t}` (1 where the framework does not discount)
 and :math:`smm_t` the prepayment rate (competing risk). The 12-month ECL sums t ≤ 12. A loan
 in default takes PD = 1 now: ECL = LGD · EAD_0. The expected gross credit loss is the same sum
-with LGD = 1 (the exposure lost before recoveries); the ECL is the net loss after them. The formulas live in the concept modules
+with LGD = 1 (the exposure lost before recoveries); the ECL is the net loss after them. A
+balloon or interest-only loan adds the refinance risk at its maturity month T when the horizon
+reaches it: :math:`S_T\, q\; LGD_T\, EAD_T\, DF_T` (:mod:`allowance.curves.refinance`). The formulas live in the concept modules
 (:mod:`~allowance.cashflows` for the balance path, :func:`~allowance.curves.lgd.loss_given_default`
 for LGD_t, :func:`~allowance.discounting.monthly_discount` for the v of DF_t = v^t); this module
 compiles and composes them, and never allocates a loans × months array.
@@ -49,6 +51,7 @@ import numpy as np
 from allowance import jit
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
 from allowance.curves.lgd import collateral_lgd, loss_given_default
+from allowance.curves.refinance import refinance_default
 from allowance.shortfall import default_loss
 from allowance.exceptions import InvalidInputError
 
@@ -56,6 +59,8 @@ from allowance.exceptions import InvalidInputError
 _loss_given_default = numba.njit(cache=jit.CACHE, inline="always")(loss_given_default)
 #: the loss of a default in the month (:func:`allowance.shortfall.default_loss`), compiled into the loop
 _default_loss = numba.njit(cache=jit.CACHE, inline="always")(default_loss)
+#: the share failing to repay at maturity (:func:`allowance.curves.refinance.refinance_default`)
+_refinance_default = numba.njit(cache=jit.CACHE, inline="always")(refinance_default)
 
 
 @numba.njit(cache=jit.CACHE, inline="always")
@@ -79,7 +84,8 @@ class KernelInputs:
     behavioural life for revolving), ``io_left``, ``residual``, ``payment`` (NaN = recompute),
     ``prepay`` and ``prepay_offset`` (row and start column of
     ``smm``), ``lgd`` (flat LGD after cure), ``collateral`` (0 = flat LGD),
-    ``haircut, recovery_cost, lgd_floor, cure``.
+    ``haircut, recovery_cost, lgd_floor, cure``, ``refinance_pd`` (q: the probability that a
+    balloon or interest-only loan outstanding at maturity fails to repay; 0 = none).
     Per framework and loan ``[F, n]``: ``curve`` (row of ``pd``: a framework may measure a loan
     on another row, IFRS 9 a loan on probation out of stage 3), ``in_default`` (the loss event
     is certain now: PD = 1), ``recovery_discount`` (PV
@@ -112,6 +118,7 @@ class KernelInputs:
     lgd_floor: np.ndarray
     recovery_discount: np.ndarray
     cure: np.ndarray
+    refinance_pd: np.ndarray
     horizon: np.ndarray
     ead_add: np.ndarray
     paydown: np.ndarray
@@ -155,7 +162,7 @@ def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
 @numba.njit(cache=jit.CACHE, inline="always", fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
-    io_left, level, paydown, add, v, horizon_i, interest, sums,
+    io_left, level, paydown, add, v, horizon_i, interest, maturity, q, sums,
 ):
     r"""One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
 
@@ -225,6 +232,15 @@ def _flat_lanes(
             e3 += d3 * w
             c3 += d3
             a3 = (a3 - d3) * keep
+        if t == maturity:  # refinance risk: of the loans still outstanding, S_T q cannot repay
+            r0 = _refinance_default(a0, q)
+            l0, e0, c0, a0 = l0 + r0 * w0, e0 + r0 * w, c0 + r0, a0 - r0
+            r1 = _refinance_default(a1, q)
+            l1, e1, c1, a1 = l1 + r1 * w1, e1 + r1 * w, c1 + r1, a1 - r1
+            r2 = _refinance_default(a2, q)
+            l2, e2, c2, a2 = l2 + r2 * w2, e2 + r2 * w, c2 + r2, a2 - r2
+            r3 = _refinance_default(a3, q)
+            l3, e3, c3, a3 = l3 + r3 * w3, e3 + r3 * w, c3 + r3, a3 - r3
         if t == 11:  # end of month 12: the 12-month figures
             y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
             u0, u1, u2, u3 = e0, e1, e2, e3
@@ -259,7 +275,7 @@ def _level_payments(code, balance, rate, months_left, io_left, residual, payment
 @numba.njit(cache=jit.CACHE, parallel=True, fastmath=True)
 def _kernel(
     code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
-    in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure,
+    in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure, refinance_pd,
     horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, unit_path, block,
     sums, ead0, lgd0,
 ):
@@ -303,13 +319,15 @@ def _kernel(
                     continue
                 # no exposure after maturity: a horizon past it adds nothing (nor to the PD)
                 horizon_i = horizon[f, i] if c == REVOLVING else min(horizon[f, i], m_left)
+                q_i = refinance_pd[i]
+                maturity = m_left - 1 if (q_i > 0.0 and c != REVOLVING) else -1  # the month of the test
                 v = discount[f, i]
                 down = paydown[f, i]
                 if not secured:
                     for s0 in range(0, n_sc, 4):
                         _flat_lanes(
                             i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit_path[f], lgd_i,
-                            c, balance[i], r, io, level, down, add, v, horizon_i, interest[f, i],
+                            c, balance[i], r, io, level, down, add, v, horizon_i, interest[f, i], maturity, q_i,
                             sums,
                         )
                     continue
@@ -345,6 +363,12 @@ def _kernel(
                         gross[s] += default_now * _default_loss(weight, 1.0, interest[f, i])
                         cum_pd[s] += default_now
                         survival[s] *= (1.0 - h) * keep
+                        if t == maturity:  # refinance risk at maturity: S_T q
+                            refi = _refinance_default(survival[s], q_i)
+                            life[s] += refi * _default_loss(weight, loss_rate, interest[f, i])
+                            gross[s] += refi * _default_loss(weight, 1.0, interest[f, i])
+                            cum_pd[s] += refi
+                            survival[s] -= refi
                     if t == 11:  # end of month 12: the 12-month figures
                         for s in range(n_sc):
                             twelve[s] = life[s]
@@ -382,6 +406,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     ...     curve=np.zeros((1, 1), np.int64), prepay=one(0, np.int64), prepay_offset=one(0, np.int64),
     ...     in_default=np.zeros((1, 1), np.bool_), lgd=one(0.25), collateral=one(0.0), haircut=one(0.0),
     ...     recovery_cost=one(0.0), lgd_floor=one(0.0), recovery_discount=np.ones((1, 1)), cure=one(0.0),
+    ...     refinance_pd=one(0.0),
     ...     horizon=np.ones((1, 1), np.int64), ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)),
     ...     discount=np.ones((1, 1)), interest=np.zeros((1, 1)), pd=np.full((1, 1, 1, 1), 0.005), smm=np.zeros((1, 1)),
     ...     lgd_multiplier=np.ones((1, 1, 1)), collateral_index=np.ones((1, 1, 1, 1)))

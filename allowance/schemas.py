@@ -171,6 +171,11 @@ class LoanRecord(BaseModel):
         description="Collateral dependent (ASC 326-20-35-4/35-5): ECL = amortised cost less the collateral_value "
         "less the segment's costs to sell ([segments.<name>.collateral_dependent]).",
     )
+    debt_service_coverage: NonNegative | None = Field(
+        default=None,
+        description="Debt-service coverage ratio (net operating income / debt service), for refinance risk at "
+        "maturity by coverage band ([segments.<name>.refinance_risk] dscr_bands).",
+    )
     individual_ecl: Amount | None = Field(
         default=None,
         description="ECL from the lender's own individual assessment of this loan; replaces the model in every "
@@ -342,6 +347,45 @@ class CollateralLgd(_Strict):
     months_to_recovery: Months = 12
 
 
+class RefinanceRisk(_Strict):
+    """``[segments.<name>.refinance_risk]``: failure to repay a balloon or interest-only loan at maturity.
+
+    ``pd`` is the probability that a loan still outstanding at maturity does not repay, by
+    loan-to-value at maturity (balance due / collateral_value): one value per band, the bands
+    closed above by ``ltv_bands`` and the last open. With ``dscr_bands`` (tape column
+    ``debt_service_coverage``), ``pd`` is one such row per coverage band, lowest coverage first.
+    A loan without a collateral value is in the highest LTV band, one without a coverage in the
+    lowest coverage band (each reported as a warning).
+    """
+
+    ltv_bands: list[Annotated[float, Field(gt=0.0)]] = Field(min_length=1, description="Upper LTV edges, increasing.")
+    pd: list[Probability] | list[list[Probability]] = Field(
+        description="By LTV band (one more value than ltv_bands), or one such row per coverage band."
+    )
+    dscr_bands: list[NonNegative] | None = Field(
+        default=None, description="Upper coverage edges, increasing; a loan at an edge is in the band above it."
+    )
+
+    @model_validator(mode="after")
+    def _shape(self) -> RefinanceRisk:
+        for name, edges in (("ltv_bands", self.ltv_bands), ("dscr_bands", self.dscr_bands or [])):
+            if any(b <= a for a, b in zip(edges, edges[1:])):
+                raise ValueError(f"{name} must increase")
+        width = len(self.ltv_bands) + 1
+        nested = bool(self.pd) and isinstance(self.pd[0], list)
+        if self.dscr_bands is None:
+            if nested or len(self.pd) != width:
+                raise ValueError(f"pd needs {width} values, one per LTV band (len(ltv_bands) + 1)")
+        else:
+            rows = len(self.dscr_bands) + 1
+            if not nested or len(self.pd) != rows or any(len(r) != width for r in self.pd):
+                raise ValueError(
+                    f"with dscr_bands, pd needs {rows} rows (one per coverage band, lowest first) of {width} "
+                    "values (one per LTV band)"
+                )
+        return self
+
+
 class CollateralDependent(_Strict):
     """``[segments.<name>.collateral_dependent]``: collateral-dependent loans of a segment.
 
@@ -496,6 +540,7 @@ class SegmentAssumptions(_Strict):
     )
     collateral_lgd: CollateralLgd | None = None
     collateral_dependent: CollateralDependent | None = None
+    refinance_risk: RefinanceRisk | None = None
     cure_rate: Probability = Field(default=0.0, description="Share of defaults that cure with no loss.")
     cpr: Probability | None = None
     psa: NonNegative | None = Field(default=None, description="PSA multiple in percent: 100, 150, ...")

@@ -443,6 +443,12 @@ months_to_recovery = 24
 costs_to_sell = 0.08
 appraisal_discount = 0.1           # appraisals of defaulted properties are up to a year old
 defaulted_secured = true           # repayment of a defaulted CRE loan depends on the property
+
+[segments.cre.refinance_risk]
+# a balloon still outstanding at maturity that cannot be refinanced, by loan-to-value at maturity
+# (balance due / appraised value): Corrandale's CRE maturity study CRE-MAT-03 (invented)
+ltv_bands = [0.5, 0.65, 0.8]
+pd = [0.01, 0.03, 0.08, 0.2]
 """,
     "heloc": """
 [segments.heloc]

@@ -567,6 +567,7 @@ def random_kernel_book(seed: int, n: int = 40, frameworks: int = 2, scenarios: i
         prepay_offset=rng.integers(0, ages, n), in_default=rng.random((frameworks, n)) < 0.1,
         lgd=rng.uniform(0.05, 0.9, n), collateral=collateral, haircut=rng.uniform(0, 0.4, n),
         recovery_cost=rng.uniform(0, 0.15, n), lgd_floor=rng.uniform(0, 0.1, n),
+        refinance_pd=_np.where((code == 1) | (code == 2), rng.choice([0.0, 0.05, 0.3], n), 0.0),
         recovery_discount=_np.where(discount < 1.0, rng.uniform(0.8, 1.0, (frameworks, n)), 1.0), cure=rng.uniform(0, 0.3, n), horizon=horizon,
         ead_add=ead_add, paydown=paydown, discount=discount,
         interest=_np.where((discount < 1.0) & (rng.random((frameworks, n)) < 0.5), 1.0 / discount - 1.0, 0.0),

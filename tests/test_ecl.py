@@ -24,7 +24,7 @@ def _one_loan(**over) -> KernelInputs:
         io_left=one(60, np.int64), residual=one(0.0), payment=one(np.nan), curve=np.zeros((1, 1), np.int64),
         prepay=one(0, np.int64), prepay_offset=one(0, np.int64), in_default=np.zeros((1, 1), np.bool_),
         lgd=one(0.25), collateral=one(0.0), haircut=one(0.0), recovery_cost=one(0.0), lgd_floor=one(0.0),
-        recovery_discount=np.ones((1, 1)), cure=one(0.0), horizon=np.full((1, 1), 60, np.int64),
+        recovery_discount=np.ones((1, 1)), cure=one(0.0), refinance_pd=one(0.0), horizon=np.full((1, 1), 60, np.int64),
         ead_add=np.zeros((1, 1)), paydown=np.zeros((1, 1)), discount=np.ones((1, 1)), interest=np.zeros((1, 1)),
         pd=np.zeros((1, 1, 60, 1)), smm=np.zeros((1, 60)), lgd_multiplier=np.ones((1, 60, 1)),
         collateral_index=np.ones((1, 1, 60, 1)),
@@ -126,6 +126,9 @@ def reference(k: KernelInputs) -> KernelResult:
                 pd_t = k.pd[f, k.curve[f, i], :h, s]
                 alive = np.concatenate([[1.0], np.cumprod((1 - pd_t) * (1 - smm))[:-1]])  # S_{t-1}
                 default = alive * pd_t
+                m = int(k.months_left[i]) - 1  # refinance risk at maturity: S_T q, if the horizon gets there
+                if k.refinance_pd[i] > 0 and k.code[i] != 3 and m < h:
+                    default[m] += alive[m] * (1 - pd_t[m]) * (1 - smm[m]) * k.refinance_pd[i]
                 # the cash shortfall adds the default month's interest: (LGD + i) x EAD
                 loss = default * (_loss_rate(k, i, f, ead, t, s) + k.interest[f, i]) * ead * df
                 out["ecl_lifetime"][i, f, s] = loss.sum()
@@ -252,3 +255,20 @@ def test_cash_shortfall_check_value_through_the_loop():
     # a loan nobody expects to default has no shortfall at all
     none = expected_losses(_one_loan(**{**loan, "pd": np.zeros((1, 1, 60, 1))}, interest=np.full((1, 1), 0.01)))
     assert none.ecl_lifetime[0, 0, 0] == 0.0
+
+
+def test_refinance_risk_at_maturity():
+    # an interest-only 1,000,000 loan maturing in 3 months, LGD 25 %, undiscounted, refinance-failure
+    # probability 10 % at maturity (hand computation, common practice, no source):
+    #   no term PD: ECL = S_T q LGD EAD_T = 1 x 0.10 x 0.25 x 1,000,000 = 25,000
+    #   1 % monthly PD: term defaults 0.01 + 0.0099 + 0.009801 = 0.029701 of 250,000 = 7,425.25,
+    #   then S_T = 0.99^3 = 0.970299 fails with 10 %: 0.0970299 x 250,000 = 24,257.475
+    loan = dict(code=np.array([1]), months_left=np.array([3]), io_left=np.array([3]),
+                horizon=np.full((1, 1), 3, np.int64), refinance_pd=np.array([0.10]))
+    assert expected_losses(_one_loan(**loan)).ecl_lifetime[0, 0, 0] == pytest.approx(25_000.0, rel=1e-12)
+    r = expected_losses(_one_loan(**loan, pd=np.full((1, 1, 60, 1), 0.01)))
+    assert r.ecl_lifetime[0, 0, 0] == pytest.approx(7_425.25 + 24_257.475, rel=1e-12)
+    assert r.pd_lifetime[0, 0, 0] == pytest.approx(0.029701 + 0.0970299, rel=1e-12)
+    # a horizon that stops before maturity (IFRS 9 stage 1, 12 months, on a longer loan) takes none of it
+    longer = dict(loan, months_left=np.array([24]), io_left=np.array([24]), horizon=np.full((1, 1), 12, np.int64))
+    assert expected_losses(_one_loan(**longer)).ecl_lifetime[0, 0, 0] == 0.0

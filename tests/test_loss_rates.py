@@ -249,7 +249,7 @@ def test_warm_is_the_pd_loop_with_unconditional_monthly_losses_of_r_over_12(seed
         residual=k.residual, payment=k.payment, curve=np.zeros((1, 30), np.int64), prepay=k.prepay,
         prepay_offset=k.prepay_offset, in_default=k.in_default, lgd=np.ones(30), collateral=np.zeros(30),
         haircut=np.zeros(30), recovery_cost=np.zeros(30), lgd_floor=np.zeros(30), recovery_discount=np.ones((1, 30)),
-        cure=np.zeros(30), horizon=k.horizon, ead_add=k.ead_add, paydown=k.paydown, discount=k.discount,
+        cure=np.zeros(30), refinance_pd=np.zeros(30), horizon=k.horizon, ead_add=k.ead_add, paydown=k.paydown, discount=k.discount,
         interest=np.zeros_like(k.discount),
         pd=pd_t[None, None, :, None], smm=k.smm, lgd_multiplier=np.ones((1, months, 1)),
         collateral_index=np.ones((1, 1, months, 1)),

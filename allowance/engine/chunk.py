@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import cashflows, curves, individual, loss_rates, scenarios, staging
+from allowance.curves.refinance import maturity_ltv, refinance_pd
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, KernelResult, expected_losses
 from allowance.engine.tables import Prepared, remaining_life, revolving_parameter
@@ -60,6 +61,8 @@ class LoanTerms:
     recovery_cost: np.ndarray
     lgd_floor: np.ndarray
     months_to_recovery: np.ndarray
+    refinance_pd: np.ndarray  # q at maturity (0: none)
+    refinance_unknown: np.ndarray  # bool: q taken at the riskiest band (no collateral value or coverage)
 
 
 def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.ndarray:
@@ -123,6 +126,28 @@ def _residual(chunk: pd.DataFrame, amortization: np.ndarray, rate, months_left, 
     return np.minimum(residual, balance)
 
 
+def _refinance(chunk: pd.DataFrame, prep: Prepared, segment, code, residual, balance, io_left, remaining):
+    """Refinance-failure probability at maturity per loan, and the loans taken at the riskiest
+    band for want of a collateral value or a coverage (:mod:`allowance.curves.refinance`)."""
+    q, unknown = np.zeros(len(chunk)), np.zeros(len(chunk), dtype=bool)
+    collateral = chunk["collateral_value"].to_numpy(float)
+    coverage = chunk["debt_service_coverage"].to_numpy(float)
+    for j, name in enumerate(prep.segments.names):
+        risk = prep.config.assumptions.segments[name].refinance_risk
+        if risk is None:
+            continue
+        # balance due at maturity: the balloon, or the whole balance of a loan interest-only to the end
+        due = np.where(code == cashflows.BALLOON, residual,
+                       np.where((code == cashflows.INTEREST_ONLY) & (io_left >= remaining), balance, 0.0))
+        mask = (segment == j) & (due > 0.0)
+        if not mask.any():
+            continue
+        ltv = maturity_ltv(due[mask], collateral[mask])
+        q[mask] = refinance_pd(ltv, risk.ltv_bands, risk.pd, coverage[mask], risk.dscr_bands)
+        unknown[mask] = ~np.isfinite(ltv) | ((risk.dscr_bands is not None) & np.isnan(coverage[mask]))
+    return q, unknown
+
+
 def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     """Remaining term, seasoning, repayment schedule inputs, curve rows and segment parameters."""
     table = prep.segments
@@ -146,17 +171,20 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     curve = _curve_keys(chunk, prep, segment)
     prepay, prepay_offset = _prepay_keys(prep, segment, curve, age)
     secured = table.collateral[segment]
+    residual = _residual(chunk, table.amortization_months[segment], rate, remaining, age)
+    balance = chunk["balance"].to_numpy(float)
+    q, unknown = _refinance(chunk, prep, segment, code, residual, balance, io_left, remaining)
     return LoanTerms(
         segment=segment, repayment=repayment, code=code, balance=chunk["balance"].to_numpy(float), rate=rate,
         eir=eir, age=age, behavioural=behavioural, remaining=remaining, io_left=io_left,
-        residual=_residual(chunk, table.amortization_months[segment], rate, remaining, age),
+        residual=residual,
         payment=np.where(code == cashflows.LEVEL, chunk["payment"].to_numpy(float), np.nan),
         curve=curve, prepay=prepay, prepay_offset=prepay_offset,
         lgd=table.lgd[segment], cure=table.cure_rate[segment], ccf=table.ccf[segment],
         cancellable=table.cancellable[segment],
         collateral=np.where(secured, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0),
         haircut=table.haircut[segment], recovery_cost=table.recovery_cost[segment], lgd_floor=table.lgd_floor[segment],
-        months_to_recovery=table.months_to_recovery[segment],
+        months_to_recovery=table.months_to_recovery[segment], refinance_pd=q, refinance_unknown=unknown,
     )
 
 
@@ -235,7 +263,7 @@ def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelI
         prepay_offset=terms.prepay_offset, in_default=fw.in_default, lgd=np.nan_to_num(terms.lgd),
         collateral=terms.collateral,
         haircut=terms.haircut, recovery_cost=terms.recovery_cost, lgd_floor=terms.lgd_floor,
-        recovery_discount=fw.recovery_discount, cure=terms.cure, horizon=fw.horizon, ead_add=fw.ead_add,
+        recovery_discount=fw.recovery_discount, cure=terms.cure, refinance_pd=terms.refinance_pd, horizon=fw.horizon, ead_add=fw.ead_add,
         paydown=fw.paydown, discount=fw.discount, interest=fw.interest, pd=prep.pd, smm=prep.smm,
         lgd_multiplier=prep.lgd_multiplier,
         collateral_index=prep.collateral_index,
@@ -382,7 +410,8 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
         k.lgd[rows] = np.nan
     return ChunkResult(
         loans=_loan_results(chunk, terms, stages, k, prep),
-        findings=_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
+        findings=pd.concat([_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
+                            _refinance_findings(chunk, terms)], ignore_index=True),
     )
 
 
@@ -417,6 +446,21 @@ def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: 
         )
         parts.append((rows, loss_rates.loss_rate_losses(inputs)))
     return parts or None
+
+
+def _refinance_findings(chunk: pd.DataFrame, terms: LoanTerms) -> pd.DataFrame:
+    flagged = terms.refinance_unknown
+    return pd.DataFrame(
+        {
+            "source_row": chunk["source_row"].to_numpy()[flagged] if "source_row" in chunk else np.nonzero(flagged)[0],
+            "loan_id": chunk["loan_id"].to_numpy()[flagged],
+            "column": "collateral_value",
+            "code": "refinance_riskiest_band",
+            "severity": "warning",
+            "message": "refinance risk at maturity taken at the riskiest band: no collateral_value "
+                       "(or no debt_service_coverage where the segment bands by coverage)",
+        }
+    )
 
 
 def _payment_findings(chunk, balance, rate, remaining, payment) -> pd.DataFrame:
