@@ -20,6 +20,7 @@ principal_step       one month's scheduled principal given that payment (the sch
 path_terms           growth and payment of the closed-form balance path
 balance_on_path      the scheduled balance after t months in closed form (the loop's form)
 balloon_residual     the amount left at maturity of a balloon loan
+months_without_payment  months a delinquent loan pays nothing on its way to its loss event
 payment_shortfall    the balance a given payment leaves at maturity (a final balloon)
 schedule             one loan's month-by-month schedule, contractual and expected
 
@@ -168,10 +169,11 @@ def contractual_payment(
 
     Notes
     -----
-    balloon: the :func:`level_payment` to the residual over ``months_left``; level and
-    interest-only: the tape's ``payment`` when given, else the level payment to zero over the
-    months after the interest-only period (the balance does not move during it); revolving: 0
-    (its principal is a share of the balance).
+    balloon: the :func:`level_payment` to the residual over the months after ``io_left``;
+    level and interest-only: the tape's ``payment`` when given, else the level payment to zero
+    over the months after ``io_left`` (the interest-only period, or the months a delinquent
+    loan pays nothing: the balance does not move during them); revolving: 0 (its principal is
+    a share of the balance).
 
     Examples
     --------
@@ -180,11 +182,12 @@ def contractual_payment(
     """
     if code == REVOLVING:
         return 0.0
+    after = max(months_left - max(io_left, 0), 1)  # the months left to amortize in
     if code == BALLOON:
-        return level_payment(balance, rate, months_left, residual)
+        return level_payment(balance, rate, after, residual)
     if payment == payment:
         return payment
-    return level_payment(balance, rate, max(months_left - max(io_left, 0), 1), 0.0)
+    return level_payment(balance, rate, after, 0.0)
 
 
 @numba.njit(cache=jit.CACHE)
@@ -273,6 +276,38 @@ def balance_on_path(balance: float, growth_power: float, annuity_factor: float, 
     """
     left = balance * growth_power - payment * annuity_factor
     return left if left > 0.0 else 0.0  # a compare, not max(): one instruction in the loop
+
+
+def months_without_payment(days_past_due, loss_event_dpd):
+    r"""Months a delinquent loan is projected to pay nothing: until it would reach its loss event.
+
+    Parameters
+    ----------
+    days_past_due : array_like of int
+        Days past due at the as-of date.
+    loss_event_dpd : array_like of int
+        Days past due at which the loan reaches its loss event: the charge-off threshold of a
+        roll-rate segment, else the default threshold.
+
+    Notes
+    -----
+    .. math:: h = \lceil (D - d) / 30 \rceil \quad \text{for } 0 < d < D, \qquad h = 0 \text{ otherwise}
+
+    A loan that is behind and goes on to its loss event makes no payment on the way there, so
+    its EAD path stays at the balance for those months instead of amortising (the loop holds
+    the balance as in interest-only months); after them it pays the level payment that retires
+    the balance by maturity. A current loan pays as contracted; a loan at or past D is measured
+    at its loss event now (common practice, no source).
+
+    Examples
+    --------
+    >>> months_without_payment(np.array([0, 15, 30, 95, 179, 180]), np.array([90, 90, 90, 180, 180, 180])).tolist()
+    [0, 3, 2, 3, 1, 0]
+    """
+    dpd = np.asarray(days_past_due, np.int64)
+    event = np.asarray(loss_event_dpd, np.int64)
+    behind = (dpd > 0) & (dpd < event)
+    return np.where(behind, -((dpd - event) // 30), 0).astype(np.int64)  # ceil((D - d) / 30)
 
 
 def balloon_residual(balance, rate, months_left, amortization_left):

@@ -13,6 +13,8 @@ stages                   1 / 2 / 3 and POCI (5.5.3-5.5.5, 5.5.13) none: lifetime
 horizon reported         12 months in stage 1, else the life     the life (ASC 326-20-30-6)
 PD = 1 now               stage 3 (default or probation)          ``[cecl] default_dpd``, flags
 default test             ``[ifrs9] default_dpd``, flags          ``[cecl] default_dpd``, flags
+accrued interest in EAD  ``[ifrs9] accrued_interest``           ``[cecl] accrued_interest``
+                         (gross carrying amount, Appendix A)     (the 30-5A election: exclude)
 undrawn limit            CCF × undrawn (B5.5.31, B5.5.40)        none when unconditionally
                                                                  cancellable (326-20-30-11)
 revolving lines          drawn balance at the behavioural life   drawn balance paying down at
@@ -53,7 +55,7 @@ from allowance import staging
 from allowance.curves.lgd import recovery_discount_factor, undrawn_exposure
 from allowance.discounting import monthly_discount
 from allowance.exceptions import AssumptionsError
-from allowance.schemas import FRAMEWORKS, Assumptions, CeclRules, Framework
+from allowance.schemas import FRAMEWORKS, AccruedInterest, Assumptions, CeclRules, Framework
 
 __all__ = ["FRAMEWORK_RULES", "FrameworkRules", "rules_for"]
 
@@ -77,6 +79,8 @@ class FrameworkRules:
     exposure_add_on      ``(drawn, limit, ccf, unconditionally_cancellable) -> add-on`` to EAD
     revolving_paydown    revolving lines pay down at the segment's ``payment_rate``
     discounted           ``assumptions -> bool``: discount at the EIR
+    accrued_interest     ``assumptions -> policy``: which loans carry the tape's accrued interest
+                         in their EAD (:mod:`allowance.curves.ead`)
     cash_shortfall       ``assumptions -> bool``: the loss of a default is the cash shortfall,
                          (LGD + EIR/12) × EAD (:func:`allowance.shortfall.default_loss`)
     reversion            ``assumptions -> CeclRules or None``: revert the scenario paths after
@@ -100,6 +104,7 @@ class FrameworkRules:
     revolving_paydown: bool
     discounted: Callable[[Assumptions], bool]
     cash_shortfall: Callable[[Assumptions], bool]
+    accrued_interest: Callable[[Assumptions], AccruedInterest]
     reversion: Callable[[Assumptions], CeclRules | None]
     allowance: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
     credit_impaired: str
@@ -182,6 +187,10 @@ def _always(assumptions: Assumptions) -> bool:
     return True
 
 
+def _ifrs9_accrued(assumptions: Assumptions) -> AccruedInterest:
+    return assumptions.ifrs9.accrued_interest if assumptions.ifrs9 is not None else "exclude"
+
+
 def _ifrs9_shortfall(assumptions: Assumptions) -> bool:
     return assumptions.ifrs9 is not None and assumptions.ifrs9.measure == "cash_shortfall"
 
@@ -206,6 +215,7 @@ IFRS9 = FrameworkRules(
     revolving_paydown=False,
     discounted=_always,
     cash_shortfall=_ifrs9_shortfall,
+    accrued_interest=_ifrs9_accrued,
     reversion=_whole_life,
     allowance=_ifrs9_allowance,
     credit_impaired="POCI",
@@ -241,6 +251,10 @@ def _cecl_default_test(tape: pd.DataFrame, assumptions: Assumptions) -> np.ndarr
     return _cecl_default(tape, None, assumptions)
 
 
+def _cecl_accrued(assumptions: Assumptions) -> AccruedInterest:
+    return _cecl_rules(assumptions).accrued_interest
+
+
 def _cecl_add_on(drawn, limit, ccf, cancellable) -> np.ndarray:
     # an unconditionally cancellable commitment carries no allowance (ASC 326-20-30-11)
     return np.where(cancellable, 0.0, undrawn_exposure(drawn, limit, ccf))
@@ -265,6 +279,7 @@ CECL = FrameworkRules(
     revolving_paydown=True,
     discounted=_cecl_discounts,
     cash_shortfall=_cecl_discounts,  # the DCF method is the cash shortfall at the EIR (326-20-30-4)
+    accrued_interest=_cecl_accrued,
     reversion=_cecl_rules,
     allowance=_lifetime_allowance,
     credit_impaired="PCD",

@@ -36,6 +36,8 @@ from typing import Annotated, Literal
 from pydantic import BaseModel, ConfigDict, Field, StringConstraints, field_validator, model_validator
 
 Framework = Literal["ifrs9", "cecl"]
+#: Which loans carry their accrued interest (arrears included) in the EAD (``curves.ead``).
+AccruedInterest = Literal["exclude", "delinquent", "all"]
 Repayment = Literal["level", "interest_only", "balloon", "revolving"]
 OverlayKind = Literal["percent", "amount"]
 Reversion = Literal["straight_line", "immediate"]
@@ -170,6 +172,11 @@ class LoanRecord(BaseModel):
         default=False,
         description="Collateral dependent (ASC 326-20-35-4/35-5): ECL = amortised cost less the collateral_value "
         "less the segment's costs to sell ([segments.<name>.collateral_dependent]).",
+    )
+    accrued_interest: Amount | None = Field(
+        default=None,
+        description="Interest accrued and unpaid at the as-of date, arrears included; in the EAD where the "
+        "framework's accrued_interest option says so (blank: none).",
     )
     debt_service_coverage: NonNegative | None = Field(
         default=None,
@@ -672,6 +679,11 @@ class Ifrs9Rules(_Strict):
     probation_months_stage2: Months = Field(
         default=0, description="Months performing in stage 2 before a loan leaves it for stage 1."
     )
+    accrued_interest: AccruedInterest = Field(
+        default="exclude",
+        description="Tape accrued_interest in the EAD: exclude, delinquent (loans past due: their arrears) or all "
+        "(the gross carrying amount, IFRS 9 Appendix A).",
+    )
     measure: Literal["pd_lgd_ead", "cash_shortfall"] = Field(
         default="pd_lgd_ead",
         description="pd_lgd_ead: PD x LGD x EAD discounted at the EIR; cash_shortfall: contractual less expected "
@@ -700,6 +712,11 @@ class CeclRules(_Strict):
     )
     reversion_months: Months = 0
     reversion: Reversion = "straight_line"
+    accrued_interest: AccruedInterest = Field(
+        default="exclude",
+        description="Tape accrued_interest in the EAD: exclude (the ASC 326-20-30-5A election), delinquent (loans "
+        "past due) or all.",
+    )
     discount: bool = Field(
         default=False,
         description="true: the discounted cash-flow method (ASC 326-20-30-4): amortised cost less the present value "

@@ -179,3 +179,25 @@ def test_a_loan_on_probation_takes_the_stated_probation_pd_not_one():
         assert loans["ecl_ifrs9"].iloc[0] < 0.4 * loans["ead"].iloc[0]
     # CECL does not stage: the loan is current, measured on the segment's PD
     assert plain["ecl_cecl"].iloc[0] == stated["ecl_cecl"].iloc[0]
+
+
+def test_a_delinquent_loan_pays_nothing_on_its_way_to_default_and_carries_its_arrears():
+    # the same loan current and 45 days past due (CECL: lifetime either way, same PD): behind, it
+    # pays nothing for ceil((90 - 45) / 30) = 2 months, so its exposure path stays higher
+    book = engine_tape(n=60, seed=11)
+    auto = pd.concat([book[book["segment"] == "auto"].head(1)] * 2, ignore_index=True)
+    auto["loan_id"], auto["days_past_due"] = ["CURRENT", "BEHIND"], [0, 45]
+    auto["accrued_interest"] = 500.0
+    cecl = {"reasonable_supportable_months": 24, "reversion_months": 12}
+    loans = engine.run(auto, engine_config(cecl=cecl)).loans.set_index("loan_id")
+    assert loans.loc["BEHIND", "ecl_cecl"] > loans.loc["CURRENT", "ecl_cecl"]
+    assert loans.loc["BEHIND", "ead_cecl"] == loans.loc["CURRENT", "ead_cecl"] == auto["balance"].iloc[0]
+    # accrued interest and arrears in the EAD, by the framework's stated option (ASC 326-20-30-5A
+    # lets CECL exclude it; IFRS 9's gross carrying amount includes it)
+    loans = engine.run(auto, engine_config(cecl={**cecl, "accrued_interest": "all"},
+                                           ifrs9={"sicr_pd_ratio": 2.0, "accrued_interest": "delinquent"})).loans
+    loans = loans.set_index("loan_id")
+    balance = auto["balance"].iloc[0]
+    assert loans.loc["CURRENT", "ead_cecl"] == loans.loc["BEHIND", "ead_cecl"] == pytest.approx(balance + 500.0)
+    assert loans.loc["CURRENT", "ead_ifrs9"] == pytest.approx(balance)
+    assert loans.loc["BEHIND", "ead_ifrs9"] == pytest.approx(balance + 500.0)

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import cashflows, curves, individual, loss_rates, scenarios, staging
+from allowance.curves.ead import accrued_exposure
 from allowance.curves.refinance import maturity_ltv, refinance_pd
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, KernelResult, expected_losses
@@ -168,6 +169,15 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
         np.where(np.isnan(io_months), remaining, np.maximum(np.nan_to_num(io_months) - age, 0)),
         0,
     ).astype(np.int64)
+    # a delinquent loan pays nothing on its way to its loss event: its balance is held as in
+    # interest-only months (the charge-off threshold of a roll-rate segment, else the default one)
+    a = prep.config.assumptions
+    default_dpd = min((t.default_dpd for t in (a.ifrs9, a.cecl) if t is not None), default=90)
+    charge_off = np.array([(s.charge_off_dpd or 0) if s.pd_source == "transition_matrix" else 0
+                           for s in (a.segments[n] for n in table.names)] + [0], dtype=np.int64)[segment]
+    hold = cashflows.months_without_payment(chunk["days_past_due"].to_numpy(),
+                                            np.where(charge_off > 0, charge_off, default_dpd))
+    io_left = np.maximum(io_left, np.minimum(hold, np.maximum(remaining - 1, 0)))
     curve = _curve_keys(chunk, prep, segment)
     prepay, prepay_offset = _prepay_keys(prep, segment, curve, age)
     secured = table.collateral[segment]
@@ -249,6 +259,8 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
         # the loop runs over the whole life; a 12-month horizon takes its first 12 months
         out.horizon[f] = terms.remaining
         out.ead_add[f] = rules.exposure_add_on(terms.balance, limit, terms.ccf, terms.cancellable)
+        # accrued interest and arrears in the exposure, as the framework's option says
+        out.ead_add[f] += accrued_exposure(chunk["accrued_interest"].to_numpy(float), dpd, rules.accrued_interest(a))
         if rules.revolving_paydown:
             out.paydown[f] = revolving_parameter(chunk, prep.segments, terms.segment, "payment_rate")
         out.discount[f] = rules.discount(a, terms.eir)
