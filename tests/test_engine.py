@@ -124,7 +124,7 @@ def test_discounting_reduces_ifrs9_against_undiscounted_cecl():
     # CECL's discounted cash-flow method is the cash shortfall at the EIR (ASC 326-20-30-4): the
     # IFRS 9 lifetime figure measured the same way, and more than discounted PD x LGD x EAD
     cfg_dcf = config(cecl={"reasonable_supportable_months": 600, "reversion_months": 0, "discount": True},
-                     ifrs9={"sicr_pd_ratio": 2.0, "measure": "cash_shortfall"},
+                     ifrs9={"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month", "measure": "cash_shortfall"},
                      segments={"auto": {"pd_12m": 0.02, "lgd": 0.4}}, scenarios={"base": {"weight": 1.0}})
     dcf = engine.run(t, cfg_dcf).loans
     assert np.allclose(dcf["ecl_cecl"], dcf["ecl_lifetime"], atol=0.011)

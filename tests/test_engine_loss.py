@@ -166,7 +166,7 @@ def test_a_loan_on_probation_takes_the_stated_probation_pd_not_one():
     book = engine_tape(n=60, seed=11)
     auto = book[book["segment"] == "auto"].head(1).copy()
     auto["days_past_due"], auto["prior_stage"], auto["months_performing"] = 0, 3, 2
-    ifrs9 = {"sicr_pd_ratio": 2.0, "probation_months_stage3": 6}
+    ifrs9 = {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month", "probation_months_stage3": 6}
     single = {"base": {"weight": 1.0}}
     segments = engine_config().assumptions.model_dump(mode="json", exclude_none=True)["segments"]
     segments["auto"].pop("cpr")  # no prepayment: the reported 12-month PD is then the PD itself
@@ -195,7 +195,7 @@ def test_a_delinquent_loan_pays_nothing_on_its_way_to_default_and_carries_its_ar
     # accrued interest and arrears in the EAD, by the framework's stated option (ASC 326-20-30-5A
     # lets CECL exclude it; IFRS 9's gross carrying amount includes it)
     loans = engine.run(auto, engine_config(cecl={**cecl, "accrued_interest": "all"},
-                                           ifrs9={"sicr_pd_ratio": 2.0, "accrued_interest": "delinquent"})).loans
+                                           ifrs9={"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month", "accrued_interest": "delinquent"})).loans
     loans = loans.set_index("loan_id")
     balance = auto["balance"].iloc[0]
     assert loans.loc["CURRENT", "ead_cecl"] == loans.loc["BEHIND", "ead_cecl"] == pytest.approx(balance + 500.0)
