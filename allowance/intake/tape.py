@@ -123,7 +123,8 @@ def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -
     names = [headers[i].strip() or f"column_{i + 1}" for i in rest]
     ours_normalised = {_norm(f) for f in (*FIELDS, "source_row")}
     names = [f"extract_{n}" if _norm(n) in ours_normalised else n for n in names]
-    renamed = {n: f"tape_{n}" for n in names if is_result_column(_norm(n))}
+    # result names keep their underscores ('pd_12m', 'ecl_cecl'): matched as written, case and spaces aside
+    renamed = {n: f"tape_{n}" for n in names if is_result_column("_".join(n.split()).casefold())}
     names = [renamed.get(n, n) for n in names]
     return ColumnMap(ours=ours, extras=dict(zip(_unique(names, {*FIELDS, "source_row"}), rest)), renamed=renamed)
 
