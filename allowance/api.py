@@ -10,6 +10,7 @@ schedule        one loan's month-by-month schedule on the engine's own terms and
 roll_rates      what each roll-rate matrix implies from every delinquency bucket
 compare         the allowance movement between two finished runs
 copy_templates  the blank input templates into a folder
+copy_demo_inputs  the demo quarter's input files into a folder
 demo            the shipped demo quarter end: last quarter, then this quarter with its movement
 
 Inputs
@@ -40,7 +41,8 @@ from allowance.report import clock
 from allowance.result import CheckResult, Result
 from allowance.schemas import Assumptions, Framework, RunConfig
 
-__all__ = ["Demo", "Schedule", "check", "compare", "copy_templates", "demo", "roll_rates", "run", "schedule"]
+__all__ = ["Demo", "Schedule", "check", "compare", "copy_demo_inputs", "copy_templates", "demo", "roll_rates", "run",
+           "schedule"]
 
 Tape = str | os.PathLike | pd.DataFrame
 Source = str | os.PathLike | Mapping[str, Any]
@@ -59,6 +61,31 @@ def _tape(tape: Tape) -> Path | pd.DataFrame:
 def _relabel(config: RunConfig, label: str) -> RunConfig:
     run_section = config.assumptions.run.model_copy(update={"label": label})
     return config.model_copy(update={"assumptions": config.assumptions.model_copy(update={"run": run_section})})
+
+
+def _described(value: Any) -> Any:
+    """A parameter as the run record keeps it: paths as text, frames and objects by what they are."""
+    if value is None or isinstance(value, (bool, int, float, str)):
+        return value
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    if isinstance(value, pd.DataFrame):
+        return f"a DataFrame of {len(value):,} rows and {len(value.columns):,} columns"
+    if isinstance(value, Result):
+        run_section = value.config.assumptions.run
+        return f"a Result as of {run_section.as_of.isoformat()}" + (f" ({run_section.label})" if run_section.label else "")
+    if isinstance(value, Mapping):
+        return "a mapping (the merged assumptions are in the record's assumptions)"
+    if isinstance(value, (list, tuple)):
+        return [_described(v) for v in value]
+    if callable(value):
+        return getattr(value, "__qualname__", type(value).__name__)
+    return type(value).__name__
+
+
+def _call(function: str, **parameters: Any) -> dict[str, Any]:
+    """A library call's parameters, for the run record: ``{"function": ..., name: value, ...}``."""
+    return {"function": function, **{name: _described(v) for name, v in parameters.items()}}
 
 
 def _tie_out(taken: intake.IntakeResult, config: RunConfig, ledger_balance: float | None,
@@ -177,6 +204,7 @@ def run(
     map: Callable | None = None,  # the executor's word for it
     chunk_size: int | None = None,
     progress: Progress | None = None,
+    invocation: Mapping[str, Any] | None = None,
 ) -> Result:
     """A whole reserve run: read, validate, tie out, compute, explain the movement and the what-if.
 
@@ -212,6 +240,9 @@ def run(
         Called as ``progress(phase, done, total)``: ``"read"`` (the tape), ``"loans"`` (loans
         computed, of all loans), ``"sensitivities"`` (scenarios rerun), ``"what-if"`` and
         ``"prior"`` (the extra runs, 0 of 1 then 1 of 1).
+    invocation
+        How the run was asked for, kept in the run record's ``arguments`` beside this
+        call's parameters (the command line passes its command and options).
 
     Returns
     -------
@@ -227,6 +258,13 @@ def run(
     """
     started = time.perf_counter()
     started_at = clock.now()
+    arguments = {
+        "api": _call("allowance.run", tape=tape, assumptions=assumptions, overlays=list(overlays), prior=prior,
+                     charge_offs=charge_offs, ledger_balance=ledger_balance,
+                     accept_ledger_difference=accept_ledger_difference, label=label, sensitivities=sensitivities,
+                     map=map, chunk_size=chunk_size),
+        **dict(invocation or {}),
+    }
     told = progress or (lambda phase, done, total: None)
     options: dict[str, Any] = {"progress": progress}
     if map is not None:
@@ -306,7 +344,8 @@ def run(
     findings = pd.concat([taken.findings, result.findings], ignore_index=True)
     taken = dataclasses.replace(taken, findings=findings)
     record = report.run_record(config, taken, result.loans, tie_out=tie, warnings=warnings,
-                               movements=tuple((movements or {}).values()), started=started_at)
+                               movements=tuple((movements or {}).values()), started=started_at,
+                               extra={"arguments": arguments})
     run_report = report.RunReport(
         config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays,
         scenarios=result.scenarios, term_structures=result.term_structures,
@@ -464,27 +503,47 @@ def _demo_manifest() -> tuple[Path, dict]:
 
 def demo(out: str | os.PathLike, *, parquet: bool = False, progress: Progress | None = None,
          on_start: Callable[[str, Path], Any] | None = None,
-         on_prior: Callable[[Result, Path], Any] | None = None) -> Demo:
+         on_prior: Callable[[Result, Path], Any] | None = None,
+         invocation: Mapping[str, Any] | None = None) -> Demo:
     """Run the shipped demo: last quarter into ``out/prior_quarter``, then this quarter into
     ``out`` with the movement from last quarter and its charge-offs.
 
     ``on_start(lender, prior_folder)`` is called before anything runs and
     ``on_prior(result, prior_folder)`` once last quarter is written (the command line prints
-    as it goes).
+    as it goes). ``invocation`` goes into both run records (see :func:`run`).
     """
     out = Path(out)
     folder, m = _demo_manifest()
     prior_out = out / "prior_quarter"
     if on_start is not None:
         on_start(m.get("lender", "invented"), prior_out)
-    before = run(folder / m["prior"]["tape"], folder / m["prior"]["assumptions"], progress=progress)
+    before = run(folder / m["prior"]["tape"], folder / m["prior"]["assumptions"], progress=progress,
+                 invocation=invocation)
     before.write(prior_out)
     if on_prior is not None:
         on_prior(before, prior_out)
     now = run(folder / m["current"]["tape"], folder / m["current"]["assumptions"], prior=prior_out,
-              charge_offs=folder / m["current"]["charge_offs"], progress=progress)
+              charge_offs=folder / m["current"]["charge_offs"], progress=progress, invocation=invocation)
     now.write(out, parquet=parquet)
     what_if = {"tape": folder / m["current"]["tape"], "assumptions": folder / m["current"]["assumptions"],
                "overlay": folder / m["what_if"]["overlay"]}
     return Demo(lender=m.get("lender", "invented"), prior=before, current=now, prior_out=prior_out, out=out,
                 what_if=what_if)
+
+
+def copy_demo_inputs(folder: str | os.PathLike) -> dict[str, Path]:
+    """Copy the demo quarter's inputs (tape, assumptions, the matrices they name, the what-if
+    files) into ``folder`` (created), so its commands can be typed without the installed
+    package's paths; return them by file name. Files of the same name are replaced."""
+    source, m = _demo_manifest()
+    folder = Path(folder)
+    names = [m["current"]["tape"], m["current"]["assumptions"], *m["current"].get("transition_matrices", []),
+             m["current"]["charge_offs"], m["what_if"]["overlay"], *([m["what_if"]["outlook"]] if "outlook" in m["what_if"] else [])]
+    copied: dict[str, Path] = {}
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        for name in dict.fromkeys(names):
+            copied[name] = Path(shutil.copyfile(source / name, folder / name))
+    except OSError as err:
+        raise InputFileError(f"cannot copy the demo's inputs: {err.strerror or err}", file=folder) from err
+    return copied

@@ -21,6 +21,7 @@ from allowance.frameworks import rules_for
 from allowance.intake import IntakeResult, TieOut, check_table
 from allowance.money import money_total
 from allowance.report import RunReport, write_outputs, write_workbook
+from allowance.report.files import OutputPaths, write_check_outputs
 
 if TYPE_CHECKING:
     from allowance.reconcile import Movement, WhatIf
@@ -181,9 +182,14 @@ class Result:
 
     # -- writers -----------------------------------------------------------------------
 
-    def write(self, out_dir: str | Path, *, parquet: bool = False) -> list[Path]:
+    def write(self, out_dir: str | Path, *, parquet: bool = False) -> OutputPaths:
         """Write every output (``loans.csv``, ``reserve.xlsx``, ``run.json``, ...) into ``out_dir``,
-        all or nothing; return the files written."""
+        all or nothing; return the files written.
+
+        The list returned has ``notes``: what the folder swap could not clean up, e.g. where
+        the previous outputs were kept when one of their files could not be deleted. Show
+        them to the user (the command line prints each as a warning).
+        """
         return write_outputs(Path(out_dir), self.report, parquet=parquet)
 
     def workbook(self, path: str | Path) -> Path:
@@ -250,6 +256,12 @@ class CheckResult:
     def table(self) -> pd.DataFrame:
         """Rows read / accepted / rejected, then rejections and warnings by reason."""
         return check_table(self.intake)
+
+    def write(self, out_dir: str | Path) -> OutputPaths:
+        """Write ``rejected.csv`` (every rejected row as read, with its line number and reasons)
+        and ``warnings.csv`` (findings on accepted rows, then the tape's notes) into
+        ``out_dir``, as a run writes them; other files there are kept."""
+        return write_check_outputs(Path(out_dir), self.intake)
 
     def __repr__(self) -> str:
         verdict = "ok" if self.ok else "problems"

@@ -5,6 +5,7 @@ Implements
 OUTPUT_FILES       the files a run can write, in the order they are written
 OutputPaths        the files written, and notes about leftovers that could not be cleaned
 write_outputs      write every output into a sibling folder, then swap it into place
+write_check_outputs  what ``allowance check --out`` writes: rejected.csv and warnings.csv
 check_output_path  refuse an output folder that would overwrite or move an input
 
 Safe writing
@@ -28,13 +29,14 @@ import pyarrow as pa
 import pyarrow.csv as pa_csv
 
 from allowance.exceptions import OutputError
+from allowance.intake import IntakeResult
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
 from allowance.report.workbook import write_summary_workbook, write_workbook
 from allowance.text import neutralise_frame, neutralise_table
 
-__all__ = ["OUTPUT_FILES", "OutputPaths", "check_output_path", "write_outputs"]
+__all__ = ["CHECK_FILES", "OUTPUT_FILES", "OutputPaths", "check_output_path", "write_check_outputs", "write_outputs"]
 
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
@@ -42,6 +44,9 @@ OUTPUT_FILES: tuple[str, ...] = (
     "pd_paths.csv", "disclosure_ifrs7_35m.csv", "disclosure_asc326_vintage.csv",
     "reserve.xlsx", "summary.xlsx", "run.json",
 )
+
+#: the files of a tape check (``allowance check --out``), named and laid out as a run's
+CHECK_FILES: tuple[str, ...] = ("rejected.csv", "warnings.csv")
 
 
 def _arrow_ready(frame: pd.DataFrame) -> pd.DataFrame:
@@ -207,3 +212,27 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
 
     notes = replace_folder(out_dir, write, OUTPUT_FILES)
     return OutputPaths([out_dir / name for name in names], notes)
+
+
+def write_check_outputs(out_dir: Path, intake: IntakeResult) -> OutputPaths:
+    """Write a tape check's ``rejected.csv`` and ``warnings.csv`` into ``out_dir``, all or nothing.
+
+    The same files a run writes (text neutralised likewise), the tape-level notes (renamed
+    columns, line breaks in values) as ``tape`` warnings; other entries of ``out_dir`` are kept.
+    """
+    out_dir = Path(out_dir)
+    check_output_path(out_dir, [intake.file.path])
+    cols = ["source_row", "loan_id", "column", "code", "message"]
+    parts = [intake.warnings.reindex(columns=cols)] if len(intake.warnings) else []
+    if intake.notes:
+        parts.append(pd.DataFrame({"code": "tape", "message": list(intake.notes)}).reindex(columns=cols))
+    warnings = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
+    if len(warnings):
+        warnings["source_row"] = pd.to_numeric(warnings["source_row"], errors="coerce").astype("Int64")
+
+    def write(folder: Path) -> None:
+        _csv(intake.rejected, folder / "rejected.csv")
+        _csv(warnings, folder / "warnings.csv")
+
+    notes = replace_folder(out_dir, write, CHECK_FILES)
+    return OutputPaths([out_dir / name for name in CHECK_FILES], notes)
