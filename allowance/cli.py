@@ -3,6 +3,12 @@
 Exit codes: 0 done, 1 the inputs have problems (reported plainly, one line each), 2 usage
 error. No traceback reaches a user for a bad input.
 
+What a command prints: a short summary on standard output; a transient progress display on
+standard error while it works, only when that is a terminal (:mod:`allowance.progress`);
+``--quiet`` prints nothing but errors, ``--verbose`` adds each input's SHA-256, the time of
+each phase and every file written, and ``--json`` prints one machine-readable summary
+(JSON) on standard output instead of the text.
+
 The heavy libraries (numpy, pandas, numba) are imported by the command that runs, never at
 start-up, so ``allowance --help`` answers at once.
 """
@@ -10,10 +16,14 @@ start-up, so ``allowance --help`` answers at once.
 from __future__ import annotations
 
 import contextlib
+import json
+import shlex
 import time
-from dataclasses import dataclass
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated, Literal, NoReturn
+from typing import TYPE_CHECKING, Annotated, Any, Literal, NoReturn
 
 import typer
 
@@ -21,7 +31,67 @@ from allowance import __version__
 
 if TYPE_CHECKING:
     from allowance.exceptions import AllowanceError
-    from allowance.result import Result
+    from allowance.result import CheckResult, Result
+
+#: rows of a list printed on the console before "and N more" (the files hold them all)
+SHOWN_ROWS = 20
+
+
+def _usual_help_labels() -> None:
+    """Help in the usual form: ``TAPE`` (``[TAPE]`` when optional), ``FILE``, ``NUMBER``; usage
+    errors framed on a terminal only.
+
+    Typer 0.2x labels a required argument ``{tape}`` and every value by its Python type
+    (``<path>``, ``<bool>`` beside a flag, ``<list[Path]>``). These are display methods only:
+    parsing, completion and errors are untouched, and a Typer without them is left alone.
+    """
+    try:
+        from typer.core import TyperArgument, TyperOption
+    except ImportError:  # pragma: no cover - another Typer layout: its own labels
+        return
+    if getattr(TyperArgument, "_allowance_labels", False):
+        return
+    words = {"str": "TEXT", "int": "INTEGER", "float": "NUMBER", "path": "PATH", "bool": None}
+
+    def argument_usage(self) -> str:
+        name = self.metavar or self.name.upper()
+        return (name if self.required else f"[{name}]") + ("..." if self.nargs != 1 else "")
+
+    def option_type(self, ctx) -> str | None:
+        if getattr(self, "is_flag", False):
+            return None
+        if self.metavar is not None:
+            return self.metavar
+        shown = self.display_type(ctx)
+        if shown and shown.startswith("<") and shown.endswith(">"):
+            shown = shown[1:-1]
+            shown = words.get(shown.lower(), shown)
+        return shown
+
+    if hasattr(TyperArgument, "_usage_display_name"):
+        TyperArgument._usage_display_name = argument_usage
+    if hasattr(TyperArgument, "display_type_rich"):
+        TyperArgument.display_type_rich = lambda self, ctx: None  # its name (TAPE, DIR) says what it is
+    if hasattr(TyperOption, "display_type_rich"):
+        TyperOption.display_type_rich = option_type
+    try:
+        from typer import rich_utils
+    except ImportError:  # pragma: no cover - Typer without rich: plain errors already
+        rich_utils = None
+    if rich_utils is not None and hasattr(rich_utils, "rich_format_error"):
+        boxed = rich_utils.rich_format_error
+
+        def usage_error(error) -> None:
+            # a framed error on a terminal; a log or a pipe gets the plain lines, unwrapped
+            from allowance.progress import is_terminal
+
+            boxed(error) if is_terminal() else error.show()
+
+        rich_utils.rich_format_error = usage_error
+    TyperArgument._allowance_labels = True
+
+
+_usual_help_labels()
 
 
 def _show_version(value: bool) -> None:
@@ -31,15 +101,15 @@ def _show_version(value: bool) -> None:
 
 
 app = typer.Typer(
-    add_completion=False,
+    add_completion=True,
     no_args_is_help=True,
-    rich_markup_mode=None,
+    rich_markup_mode="markdown",
     pretty_exceptions_enable=False,
     context_settings={"help_option_names": ["-h", "--help"]},
     help=(
         "Quarter-end credit-loss allowance (CECL and IFRS 9) from a loan tape and an "
-        "assumptions file. Start with 'allowance demo --out demo-out', or "
-        "'allowance init my-quarter' for blank input templates."
+        "assumptions file. Start with `allowance demo --out demo-out`, or "
+        "`allowance init my-quarter` for blank input templates."
     ),
 )
 
@@ -51,47 +121,204 @@ def _main(
     ] = False,
 ) -> None:
     """Quarter-end credit-loss allowance (CECL and IFRS 9) from a loan tape and an assumptions file."""
+    _mode("")  # each command starts from the plain output; run, demo and check take --quiet/--verbose/--json
 
 
-OutOption = Annotated[Path, typer.Option("--out", help="Folder for the outputs (created; replaced when complete).")]
+# ---- options shared by several commands -----------------------------------------------
+
+OutOption = Annotated[
+    Path, typer.Option("--out", metavar="DIR", help="Folder for the outputs (created; replaced when complete).")
+]
 AssumptionsOption = Annotated[
-    Path, typer.Option("--assumptions", "-a", help="Assumptions file (TOML): segments, scenarios, rules, overlays.")
+    Path, typer.Option("--assumptions", "-a", metavar="FILE",
+                       help="Assumptions file (TOML): segments, scenarios, rules, overlays.")
+]
+TapeArgument = Annotated[
+    Path, typer.Argument(metavar="TAPE", help="The loan tape (CSV, XLSX or Parquet).")
+]
+QuietOption = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
+VerboseOption = Annotated[
+    bool, typer.Option("--verbose", "-v", help="Also print each input file's SHA-256, the time of each phase "
+                                               "and every file written.")
+]
+JsonOption = Annotated[
+    bool, typer.Option("--json", help="Print one machine-readable summary (JSON) on standard output, nothing else.")
 ]
 Framework = Literal["ifrs9", "cecl"]
 Engine = Literal["in-process", "dask"]  # where the chunks run (allowance.cluster)
+Mode = Literal["normal", "quiet", "verbose", "json"]
+
+
+# ---- what the commands print -----------------------------------------------------------
+
+
+@dataclass
+class _Output:
+    """How much a command prints (``--quiet``, ``--verbose``, ``--json``) and where."""
+
+    mode: Mode = "normal"
+    command: str = ""
+    started: float = field(default_factory=time.perf_counter)
+    phases: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def text(self) -> bool:
+        return self.mode in ("normal", "verbose")
+
+    def say(self, text: str = "") -> None:
+        if self.text:
+            typer.echo(text)
+
+    def detail(self, text: str) -> None:
+        if self.mode == "verbose":
+            typer.echo(text)
+
+    def data(self, summary: Mapping[str, Any]) -> None:
+        if self.mode == "json":
+            typer.echo(json.dumps({"command": self.command, **summary}, indent=2, allow_nan=False, default=str))
+
+    def display(self):
+        """The progress display: on a terminal, unless quiet or JSON (see :mod:`allowance.progress`)."""
+        from allowance.progress import Display
+
+        return Display(enabled=None if self.text else False)
+
+
+_out = _Output()
+
+
+def _mode(command: str, quiet: bool = False, verbose: bool = False, as_json: bool = False) -> _Output:
+    """Set how much this command prints; two of --quiet, --verbose and --json is a usage error."""
+    global _out
+    chosen = [name for name, on in (("--quiet", quiet), ("--verbose", verbose), ("--json", as_json)) if on]
+    if len(chosen) > 1:
+        raise typer.BadParameter(f"choose one of {' and '.join(chosen)}", param_hint=chosen[1])
+    mode: Mode = "quiet" if quiet else "verbose" if verbose else "json" if as_json else "normal"
+    _out = _Output(mode=mode, command=command)
+    return _out
 
 
 def _say(text: str = "") -> None:
-    typer.echo(text)
+    _out.say(text)
 
 
 def _fail(err: AllowanceError) -> NoReturn:
     typer.echo(f"error: {err}", err=True)
+    _out.data({"ok": False, "exit_code": 1, "error": str(err)})
     raise typer.Exit(1)
 
 
-def _print_summary(result: Result, out: Path, seconds: float) -> None:
+def _invocation(ctx: typer.Context) -> dict[str, Any]:
+    """The command and its options as given, for the run record (``run.json`` ``arguments``).
+
+    ``command_line`` is the command written out again from the parsed options (paths as
+    given, defaults left out), so a reader can repeat the run.
+    """
+    words = ["allowance", ctx.info_name or ""]
+    options: dict[str, Any] = {}
+    for param in ctx.command.params:
+        if param.name is None or param.name == "help" or param.expose_value is False:
+            continue
+        value = ctx.params.get(param.name)
+        options[param.name] = [str(v) for v in value] if isinstance(value, (list, tuple)) else (
+            str(value) if isinstance(value, Path) else value)
+        if param.param_type_name == "argument":
+            words.append(str(value))
+            continue
+        if value is None or value == param.default or (isinstance(value, (list, tuple)) and not value):
+            continue
+        if getattr(param, "is_flag", False):
+            flag = param.opts[0] if value else (param.secondary_opts or [param.opts[0]])[0]
+            words.append(flag)
+        else:
+            for v in value if isinstance(value, (list, tuple)) else [value]:
+                words += [param.opts[0], str(v)]
+    return {"command": ctx.info_name, "command_line": shlex.join(words), **options}
+
+
+@contextmanager
+def _phase(name: str) -> Iterator[None]:
+    """Time a phase for --verbose."""
+    began = time.perf_counter()
+    try:
+        yield
+    finally:
+        _out.phases[name] = _out.phases.get(name, 0.0) + time.perf_counter() - began
+
+
+def _money(value: float) -> str:
+    return f"{value:,.2f}"
+
+
+def _change(before: str, base: float, after_name: str, after: float) -> str:
+    """``base 1,000.00 -> what-if 1,100.00 (+100.00, +10.0%)``."""
+    diff = after - base
+    share = f", {diff / base:+.1%}" if base else ""
+    return f"{before} {_money(base)} -> {after_name} {_money(after)} ({diff:+,.2f}{share})"
+
+
+def _what_if_totals(result: Result) -> dict[str, dict[str, float]]:
+    """Base and what-if allowance per framework (from the what-if comparison), else empty."""
+    parts = result.what_if
+    if parts is None:
+        return {}
+    total = parts.summary[parts.summary["view"] == "total"]
+    return {str(row.framework): {"base": float(row.base), "what_if": float(row.what_if),
+                                 "difference": float(row.difference)} for row in total.itertuples(index=False)}
+
+
+def _run_summary(result: Result, out: Path, files: list[Path], notes: list[str], seconds: float) -> dict[str, Any]:
+    """The run as --json prints it (and as the text summary reads it)."""
     rec = result.record
-    _say(f"as of {rec['as_of']}  ({', '.join(rec['frameworks'])}, {rec['currency']})")
-    rows = rec["rows"]
-    _say(f"rows read {rows['read']:,}  accepted {rows['accepted']:,}  rejected {rows['rejected']:,}")
-    _say(f"balance {result.loans['balance'].sum():,.2f}")
     totals = result.totals
+    by_stage = {}
     for fw in rec["frameworks"]:
-        mine = totals[(totals["framework"] == fw) & (totals["segment"] == "Total")]
-        line = f"allowance {fw.upper():6s} {result.loans[f'ecl_{fw}'].sum():>18,.2f}"
-        stages = mine[mine["stage"] != "Total"]
-        if len(stages):
-            line += "   " + "  ".join(f"stage {s} {v:,.2f}" for s, v in zip(stages["stage"], stages["allowance"]))
-        _say(line)
+        mine = totals[(totals["framework"] == fw) & (totals["segment"] == "Total") & (totals["stage"] != "Total")]
+        by_stage[fw] = {str(s): float(v) for s, v in zip(mine["stage"], mine["allowance"])}
     sens = result.sensitivity
+    alone: dict[str, dict[str, float]] = {}
     if sens is not None and not sens.empty:
         for fw in rec["frameworks"]:
-            alone = sens[(sens["framework"] == fw) & (sens["scenario"] != "weighted")]
-            parts = "  ".join(f"{s} {v:,.2f}" for s, v in zip(alone["scenario"], alone["allowance"]))
-            _say(f"  {fw.upper()} with each scenario at 100 %: {parts}")
-    for w in result.warnings:
+            part = sens[(sens["framework"] == fw) & (sens["scenario"] != "weighted")]
+            alone[fw] = {str(s): float(v) for s, v in zip(part["scenario"], part["allowance"])}
+    return {
+        "ok": True, "out": str(out), "as_of": rec["as_of"], "label": rec.get("run_label"),
+        "frameworks": rec["frameworks"], "currency": rec["currency"], "rows": rec["rows"],
+        "balance": rec["total_balance"], "allowance": rec["total_allowance"], "by_stage": by_stage,
+        "each_scenario_at_100_percent": alone, "what_if": _what_if_totals(result),
+        "movement": rec.get("movement") or {}, "warnings": [*result.warnings, *notes],
+        "files": [p.name for p in files], "seconds": round(seconds, 3),
+    }
+
+
+def _print_summary(result: Result, out: Path, seconds: float, files: list[Path] = (), notes: list[str] = ()) -> None:
+    summary = _run_summary(result, out, list(files), list(notes), seconds)
+    _out.data(summary)
+    rows = summary["rows"]
+    _say(f"as of {summary['as_of']}  ({', '.join(summary['frameworks'])}, {summary['currency']})")
+    _say(f"rows read {rows['read']:,}  accepted {rows['accepted']:,}  rejected {rows['rejected']:,}")
+    _say(f"balance {_money(summary['balance'])}")
+    for fw in summary["frameworks"]:
+        line = f"allowance {fw.upper():6s} {summary['allowance'][fw]:>18,.2f}"
+        stages = summary["by_stage"][fw]
+        if stages:
+            line += "   " + "  ".join(f"stage {s} {_money(v)}" for s, v in stages.items())
+        _say(line)
+    for fw, alone in summary["each_scenario_at_100_percent"].items():
+        _say(f"  {fw.upper()} with each scenario at 100 %: " + "  ".join(f"{s} {_money(v)}" for s, v in alone.items()))
+    for fw, moved in summary["what_if"].items():
+        _say(f"what-if {fw.upper()}: {_change('base', moved['base'], 'what-if', moved['what_if'])}")
+    for fw, moved in summary["movement"].items():
+        _say(f"movement {fw.upper()}: {_change('opening', moved['opening'], 'closing', moved['closing'])}")
+    for w in summary["warnings"]:
         _say(f"warning: {w}")
+    if _out.mode == "verbose":
+        for item in result.record.get("inputs", []):
+            _out.detail(f"input {item['role']:<12s} {item['path']}  sha256 {item['sha256']}")
+        for name, spent in _out.phases.items():
+            _out.detail(f"time {name:<12s} {spent:.1f} s")
+        for path in files:
+            _out.detail(f"wrote {path}")
     _say(f"wrote {out}  ({seconds:.1f} s)")
 
 
@@ -104,26 +331,46 @@ def _executor(engine: str, workers: int | None, scheduler: str | None):
     return contextlib.nullcontext(None)
 
 
+def _write(result: Result, out: Path, shown, *, parquet: bool = False) -> tuple[list[Path], list[str]]:
+    """Write a run's outputs; return the files and the swap's notes (leftovers kept, where)."""
+    shown("write", 0, 1)
+    with _phase("write"):
+        files = result.write(out, parquet=parquet)
+    shown("write", 1, 1)
+    return list(files), list(getattr(files, "notes", ()))
+
+
+# ---- commands ------------------------------------------------------------------------
+
+
 @app.command()
 def run(
-    tape: Annotated[Path, typer.Argument(help="The quarter-end loan tape (CSV, XLSX or Parquet).")],
+    ctx: typer.Context,
+    tape: Annotated[Path, typer.Argument(metavar="TAPE", help="The quarter-end loan tape (CSV, XLSX or Parquet).")],
     assumptions: AssumptionsOption,
     out: OutOption,
     overlay: Annotated[
         list[Path] | None,
-        typer.Option("--overlay", help="What-if file(s) merged over the assumptions; the base run is compared."),
+        typer.Option("--overlay", metavar="FILE",
+                     help="What-if file merged over the assumptions (repeat for several); the base run is compared."),
     ] = None,
-    prior: Annotated[Path | None, typer.Option("--prior", help="Last quarter's output folder: explain the movement.")] = None,
+    prior: Annotated[
+        Path | None, typer.Option("--prior", metavar="DIR", help="Last quarter's output folder: explain the movement.")
+    ] = None,
     charge_offs: Annotated[
-        Path | None, typer.Option("--charge-offs", help="The period's write-offs: loan_id, gross_charge_off, recoveries.")
+        Path | None, typer.Option("--charge-offs", metavar="FILE",
+                                  help="The period's write-offs: loan_id, gross_charge_off, recoveries.")
     ] = None,
     ledger_balance: Annotated[
-        float | None, typer.Option("--ledger-balance", help="Ledger control total (overrides [run] ledger_balance).")
+        float | None, typer.Option("--ledger-balance", metavar="AMOUNT",
+                                   help="Ledger control total (overrides [run] ledger_balance).")
     ] = None,
     accept_ledger_difference: Annotated[
         bool, typer.Option("--accept-ledger-difference", help="Go on when the tape does not tie to the ledger (recorded).")
     ] = False,
-    label: Annotated[str | None, typer.Option("--label", help="A name for this run, kept in the run record.")] = None,
+    label: Annotated[
+        str | None, typer.Option("--label", metavar="TEXT", help="A name for this run, kept in the run record.")
+    ] = None,
     parquet: Annotated[bool, typer.Option("--parquet", help="Also write loans.parquet.")] = False,
     sensitivities: Annotated[
         bool, typer.Option("--sensitivities/--no-sensitivities",
@@ -133,17 +380,23 @@ def run(
         Engine, typer.Option("--engine", help="Where the loans are computed: this process, or a Dask cluster (same answer).")
     ] = "in-process",
     workers: Annotated[
-        int | None, typer.Option("--workers", min=1, help="--engine dask: worker processes of a local cluster.")
+        int | None, typer.Option("--workers", min=1, metavar="N",
+                                 help="--engine dask: worker processes of a local cluster.")
     ] = None,
     scheduler: Annotated[
-        str | None, typer.Option("--scheduler", help="--engine dask: join the cluster at this address instead.")
+        str | None, typer.Option("--scheduler", metavar="ADDRESS",
+                                 help="--engine dask: join the cluster at this address instead.")
     ] = None,
     chunk_size: Annotated[
-        int | None, typer.Option("--chunk-size", min=1,
+        int | None, typer.Option("--chunk-size", min=1, metavar="LOANS",
                                  help="Loans per unit of work (default 250,000); smaller spreads a book over more workers.")
     ] = None,
+    quiet: QuietOption = False,
+    verbose: VerboseOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Compute the allowance for a tape and write the workbook, loan detail and run record."""
+    _mode("run", quiet, verbose, as_json)
     from allowance import api
     from allowance.exceptions import AllowanceError
 
@@ -156,47 +409,100 @@ def run(
     _check_out(out, tape, assumptions, *(overlay or ()), charge_offs, prior / "loans.csv" if prior else None)
     started = time.perf_counter()
     try:
-        with _executor(engine, workers, scheduler) as chunk_map:
-            result = api.run(
-                tape, assumptions, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
-                ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,
-                label=label, sensitivities=sensitivities, map=chunk_map, chunk_size=chunk_size,
-            )
-        result.write(out, parquet=parquet)
+        with _out.display() as shown:
+            with _phase("compute"), _executor(engine, workers, scheduler) as chunk_map:
+                result = api.run(
+                    tape, assumptions, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
+                    ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,
+                    label=label, sensitivities=sensitivities, map=chunk_map, chunk_size=chunk_size,
+                    progress=shown, invocation=_invocation(ctx),
+                )
+            files, notes = _write(result, out, shown, parquet=parquet)
     except AllowanceError as err:
         _fail(err)
-    _print_summary(result, out, time.perf_counter() - started)
+    _print_summary(result, out, time.perf_counter() - started, files, notes)
+
+
+def _shown_path(path: Path, here: Path | None = None) -> str:
+    """A shipped demo file as the user can type it from the current folder.
+
+    In a clone (the README's quick start) the same file sits in ``demo/`` here: that path.
+    Otherwise the path relative to here when the file is below it, else the full path.
+    """
+    here = (here or Path.cwd()).resolve()
+    clone = here / "demo" / path.name
+    try:
+        if clone.is_file() and clone.resolve() != path.resolve() and clone.read_bytes() == path.read_bytes():
+            return str(Path("demo") / path.name)
+    except OSError:
+        pass
+    try:
+        return str(path.resolve().relative_to(here))
+    except ValueError:
+        return str(path)
+
+
+def _demo_hint(done, out: Path) -> str:
+    """The closing hint: the what-if in one command, with paths the user can type from here.
+
+    Outside a clone the demo's what-if inputs are copied to ``OUT/inputs`` first, so the
+    command never names a file inside the installed package.
+    """
+    from allowance import api
+
+    files = done.what_if
+    if all(_shown_path(p) == str(Path("demo") / p.name) for p in files.values()):
+        shown = {k: _shown_path(p) for k, p in files.items()}
+    else:
+        copied = api.copy_demo_inputs(out / "inputs")
+        shown = {k: _shown_path(copied[p.name]) for k, p in files.items()}
+    return (f"next: what does 100 % downside do?  allowance run {shown['tape']} "
+            f"--assumptions {shown['assumptions']} --overlay {shown['overlay']} --out what-if-out")
 
 
 @app.command()
 def demo(
+    ctx: typer.Context,
     out: OutOption,
     parquet: Annotated[bool, typer.Option("--parquet", help="Also write loans.parquet.")] = False,
+    quiet: QuietOption = False,
+    verbose: VerboseOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Run the shipped demo quarter end: last quarter, then this quarter with its movement."""
+    _mode("demo", quiet, verbose, as_json)
     from allowance import api
     from allowance.exceptions import AllowanceError
 
     clock = [time.perf_counter()]
+    summaries: dict[str, Any] = {}
 
     def started(lender: str, prior_out: Path) -> None:
         _say(f"demo lender: {lender} (all data invented)")
         _demo_calibration(out)
-        _say(f"-- prior quarter -> {prior_out}")
+        _say(f"-- prior quarter -> {_shown_path(prior_out)}")
 
     def prior_done(result, folder: Path) -> None:
-        _print_summary(result, folder, time.perf_counter() - clock[0])
-        _say(f"-- this quarter -> {out}")
+        summaries["prior_quarter"] = _run_summary(result, folder, [], [], time.perf_counter() - clock[0])
+        if _out.text:
+            _print_summary(result, folder, time.perf_counter() - clock[0])
+        _say(f"-- this quarter -> {_shown_path(out)}")
         clock[0] = time.perf_counter()
 
     try:
-        done = api.demo(out, parquet=parquet, on_start=started, on_prior=prior_done)
+        with _out.display() as shown:
+            done = api.demo(out, parquet=parquet, progress=shown, on_start=started, on_prior=prior_done,
+                            invocation=_invocation(ctx))
+        hint = _demo_hint(done, out)
     except AllowanceError as err:
         _fail(err)
-    _print_summary(done.current, out, time.perf_counter() - clock[0])
-    w = done.what_if
-    _say(f"next: what does 100 % downside do?  allowance run {w['tape']} "
-         f"--assumptions {w['assumptions']} --overlay {w['overlay']} --out what-if-out")
+    seconds = time.perf_counter() - clock[0]
+    if _out.mode == "json":
+        _out.data({**_run_summary(done.current, out, [], [], seconds), "prior_quarter": summaries.get("prior_quarter"),
+                   "next": hint.removeprefix("next: what does 100 % downside do?  ")})
+    else:
+        _print_summary(done.current, out, seconds)
+    _say(hint)
 
 
 def _demo_calibration(out: Path) -> None:
@@ -208,10 +514,12 @@ def _demo_calibration(out: Path) -> None:
     folder = bundled_path("demo")
     manifest = tomllib.loads((folder / "manifest.toml").read_text(encoding="utf-8"))
     target = out / "calibration"
-    _say(f"-- calibration from the lender's history -> {target}")
-    _print_calibration(_calibrate_and_write(folder / manifest["history"]["file"], target,
-                                            policy=folder / manifest["current"]["policy"]))
-    _say(f"   {folder / manifest['current']['assumptions']} is what it wrote as assumptions.toml")
+    _say(f"-- calibration from the lender's history -> {_shown_path(target)}")
+    done = _calibrate_and_write(folder / manifest["history"]["file"], target,
+                                policy=folder / manifest["current"]["policy"])
+    if _out.text:
+        _print_calibration(done)
+    _say(f"   the demo's {manifest['current']['assumptions']} is the assumptions.toml it wrote")
 
 
 @dataclass(frozen=True)
@@ -276,23 +584,24 @@ def _month(value: str | None) -> str | None:
 @app.command("calibrate")
 def calibrate_command(
     history: Annotated[
-        Path, typer.Argument(help="The monthly performance history (CSV or Parquet): one row per loan per month.")
+        Path, typer.Argument(metavar="HISTORY",
+                             help="The monthly performance history (CSV or Parquet): one row per loan per month.")
     ],
     out: OutOption,
     as_of: Annotated[
-        str | None, typer.Option("--as-of", help="Calibration date (YYYY-MM-DD or YYYY-MM): later months are not used. "
+        str | None, typer.Option("--as-of", metavar="DATE", help="Calibration date (YYYY-MM-DD or YYYY-MM): later months are not used. "
                                                  "Default: the history's last month.")
     ] = None,
     window: Annotated[
-        int | None, typer.Option("--window", min=1, max=600, help="Months pooled for roll rates, PD by grade and "
+        int | None, typer.Option("--window", min=1, max=600, metavar="MONTHS", help="Months pooled for roll rates, PD by grade and "
                                                                  "payment rates (default 24).")
     ] = None,
     policy: Annotated[
-        Path | None, typer.Option("--policy", help="Policy file (TOML): the run, rules, scenarios and overlays history "
+        Path | None, typer.Option("--policy", metavar="FILE", help="Policy file (TOML): the run, rules, scenarios and overlays history "
                                                    "cannot estimate, and [calibration] settings.")
     ] = None,
     weighting: Annotated[
-        str | None, typer.Option("--weighting", help="Roll-rate matrix written for the run: count (maximum "
+        str | None, typer.Option("--weighting", metavar="count|balance", help="Roll-rate matrix written for the run: count (maximum "
                                                      "likelihood) or balance; the other is written beside it.")
     ] = None,
     macro: Annotated[
@@ -301,11 +610,12 @@ def calibrate_command(
                                                   "names and writes their coefficients.")
     ] = None,
 ) -> None:
-    """Estimate the assumptions from a performance history: roll rates, default and loss rates,
-    vintage curves, LGD, CCF, payment and prepayment rates; write them with the evidence.
+    """Estimate the assumptions from a performance history and write them with the evidence.
+
+    Roll rates, default and loss rates, vintage curves, LGD, CCF, payment and prepayment rates.
 
     Writes OUT/assumptions.toml (a complete file 'allowance run' reads, every figure with how it
-    was estimated), rolls_<segment>.csv, loss_rates.csv and calibration.xlsx for review.
+    was estimated), rolls_SEGMENT.csv (one per roll-rate segment), loss_rates.csv and calibration.xlsx for review.
     """
     settings: dict = {}
     if as_of is not None:
@@ -327,38 +637,76 @@ def calibrate_command(
          f"{done.out / 'assumptions.toml'} --out OUT")
 
 
+
+
+def _check_summary(checked: CheckResult, tape: Path, out: Path | None, files: list[Path]) -> dict[str, Any]:
+    intake = checked.intake
+    rejected = checked.rejected
+    listed = [{"line": int(r.source_row), "reasons": str(r.reasons)} for r in rejected.itertuples(index=False)]
+    return {
+        "ok": bool(checked.ok), "exit_code": 0 if checked.ok else 1, "tape": str(tape),
+        "rows": {"read": intake.rows_read, "accepted": intake.rows_accepted, "rejected": intake.rows_rejected},
+        "warnings": int(len(intake.warnings)), "date_formats": dict(intake.date_formats),
+        "table": checked.table.to_dict(orient="records"),
+        "tie_out": {"within_tolerance": bool(checked.tie_out.within_tolerance),
+                    "explanation": checked.tie_out.explanation},
+        "rejected": listed, "out": None if out is None else str(out), "files": [p.name for p in files],
+    }
+
+
 @app.command()
 def check(
-    tape: Annotated[Path, typer.Argument(help="The loan tape to validate.")],
+    tape: Annotated[Path, typer.Argument(metavar="TAPE", help="The loan tape to validate.")],
     assumptions: AssumptionsOption,
-    ledger_balance: Annotated[float | None, typer.Option("--ledger-balance", help="Ledger control total.")] = None,
+    ledger_balance: Annotated[
+        float | None, typer.Option("--ledger-balance", metavar="AMOUNT", help="Ledger control total.")
+    ] = None,
+    out: Annotated[
+        Path | None, typer.Option("--out", metavar="DIR", help="Also write rejected.csv and warnings.csv (every "
+                                                               "row, with its line number and reasons) here.")
+    ] = None,
+    quiet: QuietOption = False,
+    verbose: VerboseOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Validate a tape only: rows read / accepted / rejected by reason, and the ledger tie-out.
 
     Exits 1 when any row is rejected or the tape does not tie to the ledger.
     """
+    _mode("check", quiet, verbose, as_json)
     from allowance import api
     from allowance.exceptions import AllowanceError
 
+    if out is not None:
+        _check_out(out, tape, assumptions)
     try:
         checked = api.check(tape, assumptions, ledger_balance=ledger_balance)
+        files = list(checked.write(out)) if out is not None else []
     except AllowanceError as err:
         _fail(err)
+    _out.data(_check_summary(checked, tape, out, files))
     _say(checked.table.to_string(index=False))
     _say(f"ledger tie-out: {checked.tie_out.explanation}")
     rejected = checked.rejected
     if len(rejected):
-        _say(f"{len(rejected)} row(s) rejected; each is listed with its line number and reason by "
-             "'allowance run' in rejected.csv")
-        for row in rejected.head(20).itertuples(index=False):
+        where = (f"all of them are in {out / 'rejected.csv'}" if out is not None
+                 else "write them all to a file with --out DIR")
+        _say(f"{len(rejected):,} row(s) rejected; {where}")
+        shown = rejected if _out.mode == "verbose" else rejected.head(SHOWN_ROWS)
+        for row in shown.itertuples(index=False):
             _say(f"  {tape}: line {row.source_row}: {row.reasons}")
+        if len(rejected) > len(shown):
+            _say(f"  ... and {len(rejected) - len(shown):,} more")
+    for path in files:
+        _out.detail(f"wrote {path}")
     if not checked.ok:
         raise typer.Exit(1)
 
 
 @app.command()
-def init(folder: Annotated[Path, typer.Argument(help="Folder to create with blank input templates.")]) -> None:
+def init(folder: Annotated[Path, typer.Argument(metavar="DIR", help="Folder to create with blank input templates.")]) -> None:
     """Copy the blank input templates (tape CSV/XLSX, assumptions, what-if overlay)."""
+    _mode("init")
     from allowance import api
     from allowance.exceptions import AllowanceError
 
@@ -367,19 +715,24 @@ def init(folder: Annotated[Path, typer.Argument(help="Folder to create with blan
     except AllowanceError as err:
         _fail(err)
     _say(f"wrote {', '.join(p.name for p in copied)} to {folder}")
+    _say(f"next: fill in {folder / 'loan_tape.csv'} and {folder / 'assumptions.toml'}, then  "
+         f"allowance check {folder / 'loan_tape.csv'} -a {folder / 'assumptions.toml'}")
 
 
 @app.command()
 def schedule(
-    tape: Annotated[Path, typer.Argument(help="The loan tape.")],
+    tape: TapeArgument,
     assumptions: AssumptionsOption,
-    loan: Annotated[str, typer.Option("--loan", help="The loan_id to schedule.")],
+    loan: Annotated[str, typer.Option("--loan", metavar="LOAN_ID", help="The loan_id to schedule.")],
     framework: Annotated[
         Framework | None, typer.Option("--framework", help="The framework (default: the first listed).")
     ] = None,
-    scenario: Annotated[str | None, typer.Option("--scenario", help="Scenario whose PDs are shown (default: the first).")] = None,
+    scenario: Annotated[
+        str | None, typer.Option("--scenario", metavar="NAME", help="Scenario whose PDs are shown (default: the first).")
+    ] = None,
 ) -> None:
     """Print one loan's projected schedule, contractual and expected, to check by hand."""
+    _mode("schedule")
     from allowance import api
     from allowance.exceptions import AllowanceError
 
@@ -400,8 +753,10 @@ def schedule(
 @app.command("roll-rates")
 def roll_rates(
     assumptions: AssumptionsOption,
-    segment: Annotated[str | None, typer.Option("--segment", help="Only this segment.")] = None,
-    tape: Annotated[Path | None, typer.Option("--tape", help="Also roll this tape's bucket balances forward.")] = None,
+    segment: Annotated[str | None, typer.Option("--segment", metavar="NAME", help="Only this segment.")] = None,
+    tape: Annotated[
+        Path | None, typer.Option("--tape", metavar="FILE", help="Also roll this tape's bucket balances forward.")
+    ] = None,
     months: Annotated[int, typer.Option("--months", min=1, help="Months of the balance forecast.")] = 12,
 ) -> None:
     """Print what each roll-rate matrix implies from every delinquency bucket.
@@ -410,17 +765,23 @@ def roll_rates(
     With --tape: the tape's delinquency-bucket balances rolled forward month by month (the
     charge-off forecast) beside the loan-level allowance of the same segment.
     """
+    _mode("roll-rates")
     from allowance import api
     from allowance.exceptions import AllowanceError
 
     try:
-        table = api.roll_rates(assumptions, segment=segment)
-        if tape is not None:
+        table = api.roll_rates(assumptions, segment=segment)  # an unknown segment is an error naming the others
+        others = api.roll_rates(assumptions) if table.empty and segment is not None else table
+        if tape is not None and not table.empty:
             by_month, check = api.roll_forecast(tape, assumptions, segment=segment, months=months)
     except AllowanceError as err:
         _fail(err)
     if table.empty:
-        _say("no segment in these assumptions uses a transition_matrix")
+        if not others.empty:
+            with_matrix = ", ".join(dict.fromkeys(others["segment"]))
+            _say(f"segment {segment!r} does not use a transition_matrix; these segments do: {with_matrix}")
+        else:
+            _say("no segment in these assumptions uses a transition_matrix")
         return
     import pandas as pd
 
@@ -436,11 +797,14 @@ def roll_rates(
 
 @app.command()
 def compare(
-    prior: Annotated[Path, typer.Argument(help="Last quarter's output folder.")],
-    current: Annotated[Path, typer.Argument(help="This quarter's output folder.")],
-    charge_offs: Annotated[Path | None, typer.Option("--charge-offs", help="The period's write-offs file.")] = None,
+    prior: Annotated[Path, typer.Argument(metavar="PRIOR_DIR", help="Last quarter's output folder.")],
+    current: Annotated[Path, typer.Argument(metavar="CURRENT_DIR", help="This quarter's output folder.")],
+    charge_offs: Annotated[
+        Path | None, typer.Option("--charge-offs", metavar="FILE", help="The period's write-offs file.")
+    ] = None,
 ) -> None:
     """Explain the allowance movement between two finished runs, loan by loan."""
+    _mode("compare")
     from allowance import api
     from allowance.exceptions import AllowanceError
 
@@ -458,13 +822,15 @@ def compare(
 
 @app.command()
 def backtest(
-    run_dir: Annotated[Path, typer.Argument(help="A finished run's output folder (loans.csv, run.json).")],
-    history: Annotated[Path, typer.Argument(help="Monthly performance history since that run (CSV or Parquet).")],
+    run_dir: Annotated[Path, typer.Argument(metavar="RUN_DIR", help="A finished run's output folder (loans.csv, run.json).")],
+    history: Annotated[
+        Path, typer.Argument(metavar="HISTORY", help="Monthly performance history since that run (CSV or Parquet).")
+    ],
     out: OutOption,
-    confidence: Annotated[float, typer.Option(help="Two-sided confidence of the default-rate intervals.")] = 0.95,
-    yellow_p: Annotated[float, typer.Option(help="Yellow light below this p-value.")] = 0.05,
-    red_p: Annotated[float, typer.Option(help="Red light below this p-value.")] = 0.001,
-    test: Annotated[str, typer.Option(help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
+    confidence: Annotated[float, typer.Option(metavar="LEVEL", help="Two-sided confidence of the default-rate intervals.")] = 0.95,
+    yellow_p: Annotated[float, typer.Option(metavar="P", help="Yellow light below this p-value.")] = 0.05,
+    red_p: Annotated[float, typer.Option(metavar="P", help="Red light below this p-value.")] = 0.001,
+    test: Annotated[str, typer.Option(metavar="binomial|jeffreys", help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
 ) -> None:
     """Compare a past run's 12-month PDs and expected losses with what happened since."""
     import pandas as pd

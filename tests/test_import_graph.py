@@ -30,7 +30,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("report",),  # the writing edge: loans.csv, reserve.xlsx, run.json
     ("result",),  # what the API hands back
     ("api",),  # the library API
-    ("cli", "__main__", "console"),  # the command line
+    ("cli", "__main__", "console", "progress"),  # the command line and what it shows while it works
 ]
 RANK = {name: i for i, layer in enumerate(LAYERS) for name in layer}
 ROOT = Path(allowance.__file__).parent
