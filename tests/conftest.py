@@ -61,4 +61,5 @@ def demo_out(tmp_path_factory) -> Path:
     out = tmp_path_factory.mktemp("demo") / "demo-out"
     result = CliRunner().invoke(app, ["demo", "--out", str(out)], catch_exceptions=False)
     assert result.exit_code == 0, result.output
+    (out.parent / "console.txt").write_text(result.output, encoding="utf-8")  # what the user saw
     return out
