@@ -122,6 +122,7 @@ cpr = 0.2
 sicr_backstop_dpd = 30
 default_dpd = 90
 sicr_pd_ratio = 2.0
+sicr_pd_measure = "12_month"
 
 [cecl]
 reasonable_supportable_months = 24
