@@ -515,8 +515,10 @@ def _demo_calibration(out: Path) -> None:
     manifest = tomllib.loads((folder / "manifest.toml").read_text(encoding="utf-8"))
     target = out / "calibration"
     _say(f"-- calibration from the lender's history -> {_shown_path(target)}")
+    macro = manifest["history"].get("macro")
     done = _calibrate_and_write(folder / manifest["history"]["file"], target,
-                                policy=folder / manifest["current"]["policy"])
+                                policy=folder / manifest["current"]["policy"],
+                                macro=folder / macro if macro else None)
     if _out.text:
         _print_calibration(done)
     _say(f"   the demo's {manifest['current']['assumptions']} is the assumptions.toml it wrote")

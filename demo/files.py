@@ -16,6 +16,7 @@ Every name and figure is invented.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -269,6 +270,24 @@ source = "stated for the demo: Corrandale model inventory SAT-HEL-01"
 """,
 }
 
+#: The satellite models a calibration fits (``allowance calibrate --macro macro_history.csv``):
+#: the link, every variable with its lag, and the collateral link; the coefficients are estimated.
+#: The thin books keep stated coefficients (the calibration shows its estimate beside them):
+#: mortgages, CRE and home-equity lines see a few charge-offs a year (too few to estimate a
+#: slope), and the card history follows its roll-rate matrix exactly, with no macro dependence.
+FITTED_SATELLITES = ("auto", "personal")
+POLICY_SATELLITES = {
+    name: "\n".join(line for line in text.split("\n")
+                    if not (name in FITTED_SATELLITES and line.startswith(("coefficients", "source"))))
+    for name, text in SATELLITES.items()
+}
+for _name, _why in (("cards", "the card history has no macro dependence to fit"),
+                    ("mortgage", "too few charge-offs in the history to estimate"),
+                    ("cre", "too few charge-offs in the history to estimate"),
+                    ("heloc", "too few charge-offs in the history to estimate")):
+    POLICY_SATELLITES[_name] = re.sub(r'source = "stated for the demo: ([^"]*)"', rf'source = "stated: \1 ({_why})"',
+                                      POLICY_SATELLITES[_name])
+
 #: The regional outlook by quarter: four quarters of history up to the as-of quarter, then
 #: twelve forecast quarters. Unemployment in percent; price indices 2026Q3 = 100.
 OUTLOOK = {
@@ -461,8 +480,9 @@ def write_policy(out_dir: Path, quarter: str, ledger_cents: int, lender: str) ->
     """The policy file of a quarter: the tables a calibration cannot estimate from history."""
     q = QUARTERS[quarter]
     head = f"""# {lender} (an invented lender): the calibration policy for the quarter-end at {q["as_of"]}.
-# `allowance calibrate history.parquet --policy policy_2026{quarter}.toml` estimates every segment's PD,
-# LGD, prepayment and revolving behaviour from the history and takes the rest from here: the run,
+# `allowance calibrate history.parquet --policy policy_2026{quarter}.toml --macro macro_history.csv`
+# estimates every segment's PD, LGD, prepayment and revolving behaviour from the history, and the
+# satellite models' coefficients from the history and the macro history; it takes the rest from here: the run,
 # the staging rules, the scenarios, the overlays, and the keys below that are judgement, not
 # history (collateral haircuts, Basel classes). Every figure is invented. Written by demo/generate.py.
 
@@ -480,7 +500,7 @@ window_months = 24
 charge_off_dpd = {{ mortgage = 180, cre = 180, heloc = 180 }}
 pd_source = {{ cre = "pd_12m" }}     # a small book: one pooled PD rather than a thin curve by age
 """
-    segments = "".join(POLICY_SEGMENTS[name] + SATELLITES[name] for name in POLICY_SEGMENTS)
+    segments = "".join(POLICY_SEGMENTS[name] + POLICY_SATELLITES[name] for name in POLICY_SEGMENTS)
     text = head + segments + rules_and_scenarios_toml(quarter) + overlays_toml(quarter)
     return _write_text(out_dir / f"policy_2026{quarter}.toml", text)
 
@@ -695,6 +715,7 @@ DESCRIPTIONS = {
     "cards_rolls.csv": ("transition_matrix", "The roll rates the card history was simulated from (the raw extract's run uses them)."),
     "downside_only.toml": ("overlay", "What-if: 100 % weight on the downside scenario."),
     "worse_unemployment.toml": ("overlay", "What-if: a worse unemployment outlook (base and downside paths)."),
+    "macro_history.csv": ("macro_history", "The region's unemployment and price indices by quarter, 2019Q4 to 2026Q3."),
     "personal_on_loss_rates.toml": ("overlay", "What-if: personal loans on the WARM method at the calibrated loss rate."),
     "bad_tape.csv": ("tape", "A small tape with one deliberately bad row per fault, among good rows."),
     "messy_extract.csv": ("tape", "A raw loan-system extract: odd headers, day-first dates, a BOM, faults."),

@@ -577,10 +577,12 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     written.append(files.write_rolls(out_dir))
     # The assumptions of both quarters are calibrated from the performance history.
     history_path, history_info = history.write_history(out_dir, seed)
-    written.append(history_path)
+    macro_path = history.write_macro_history(out_dir)
+    history_info["macro"] = macro_path.name
+    written += [history_path, macro_path]
     for quarter in ("q3", "q2"):
         policy = files.write_policy(out_dir, quarter, cents[f"tape_2026{quarter}.csv"], LENDER)
-        written += [policy, *calibrated(out_dir, quarter, history_path, policy)]
+        written += [policy, *calibrated(out_dir, quarter, history_path, policy, macro_path)]
     written.append(files.write_what_if(out_dir))
     written.append(files.write_outlook_what_if(out_dir))
     bad_path, bad = files.write_bad_tape(out_dir, rng, q3, TAPE_COLUMNS)
@@ -607,10 +609,11 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     return sorted(written)
 
 
-def calibrated(out_dir: Path, quarter: str, history_path: Path, policy: Path) -> list[Path]:
+def calibrated(out_dir: Path, quarter: str, history_path: Path, policy: Path, macro: Path) -> list[Path]:
     """A quarter's assumptions, calibrated from the history under its policy, and its roll-rate files.
 
-    What ``allowance calibrate history.parquet --policy policy_2026q3.toml --out DIR`` writes
+    What ``allowance calibrate history.parquet --policy policy_2026q3.toml --macro macro_history.csv
+    --out DIR`` writes
     as ``DIR/assumptions.toml`` (the second quarter's roll-rate files are renamed
     ``rolls_<segment>_2026q2.csv`` so that both quarters live side by side here).
     """
@@ -622,7 +625,7 @@ def calibrated(out_dir: Path, quarter: str, history_path: Path, policy: Path) ->
     def name(segment: str) -> str:
         return f"rolls_{segment}{suffix}.csv"
 
-    cal = calibrate(history_path, policy=policy)
+    cal = calibrate(history_path, policy=policy, macro=macro)
     target = out_dir / f"assumptions_2026{quarter}.toml"
     target.write_bytes(render_assumptions(cal, name).encode("utf-8"))
     paths = [target]

@@ -14,6 +14,11 @@ The simulation, month by month and vectorised over loans:
   that depends on the grade (auto, personal) or on the loan's age (the seasoning curve
   :func:`seasoning`, for mortgages, CRE and home-equity lines); once behind they cure, stay
   or roll one bucket further by :data:`DELINQUENT_120` or :data:`DELINQUENT_180`.
+- **The economy**: a closed-end loan's chance of a first missed payment moves with the region's
+  macro history (:data:`MACRO_QUARTERS`, also written as ``macro_history.csv``): a probit shift
+  Φ(Φ⁻¹(chance) + Σ_j β_j (x_j(t − L_j) − r_j)) with the books' own :data:`MACRO_SENSITIVITY`,
+  so that ``allowance calibrate --macro`` has a macro dependence to find (cards follow their
+  matrix exactly and have none).
 - **Charge-off** when the next missed payment would reach the segment's charge-off point
   (120 days past due for auto and personal loans, 180 for cards and the secured real-estate
   books); personal loans and cards are also written off on a bankruptcy (a bankruptcy loss).
@@ -27,6 +32,9 @@ The simulation, month by month and vectorised over loans:
 Implements
 ----------
 SEGMENTS         the known parameters of each book
+MACRO_QUARTERS   the region's unemployment rate and price indices by quarter, 2019Q4 to 2026Q3
+MACRO_SENSITIVITY each closed-end book's probit shift of the first-missed-payment chance
+write_macro_history ``macro_history.csv``
 simulate_history the history as columns (numpy arrays)
 write_history    ``history.parquet``
 """
@@ -36,6 +44,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+from scipy.stats import norm
 
 try:
     from demo import files
@@ -82,6 +91,56 @@ SEGMENTS = {
 #: of what is left).
 TRICKLE = {"personal": (0.25, 0.003, 0.010, 0.40, 6, 0.07), "cards": (0.20, 0.003, 0.010, 0.50, 12, 0.05)}
 GRADE_MIX = (0.24, 0.30, 0.25, 0.13, 0.08)
+
+#: The region's macro history by calendar quarter, 2019Q4 to 2026Q3 (invented): unemployment in
+#: percent, price indices at 100 in 2026Q3. The last five quarters are the scenarios' history.
+MACRO_FIRST_QUARTER = "2019Q4"
+MACRO_QUARTERS = {
+    "unemployment_rate": [3.9, 4.0, 6.8, 7.9, 7.2, 6.6, 6.0, 5.5, 5.0, 4.6, 4.2, 3.9, 3.8, 3.7, 3.7, 3.8, 4.0,
+                          4.2, 4.5, 4.8, 4.9, 4.8, 4.7, 4.5, 4.4, 4.3, 4.2, 4.1],
+    "house_price_index": [78.0, 78.6, 78.2, 79.5, 81.5, 83.6, 86.0, 88.2, 90.0, 91.6, 92.4, 91.8, 90.8, 90.0,
+                          89.6, 90.2, 91.0, 92.0, 93.0, 93.9, 94.8, 95.4, 96.1, 96.8, 97.6, 98.4, 99.2, 100.0],
+    "commercial_property_index": [108.0, 107.5, 101.0, 99.5, 100.0, 101.5, 103.0, 104.5, 105.5, 106.5, 107.0,
+                                  106.8, 106.0, 105.0, 104.2, 103.6, 103.0, 102.8, 102.6, 102.4, 102.2, 102.2,
+                                  102.1, 102.0, 101.5, 101.0, 100.5, 100.0],
+}
+#: Probit shift of the monthly chance of a first missed payment per unit of each variable away
+#: from its reference level, with the lag in months (the charge-off follows months later).
+MACRO_SENSITIVITY = {
+    "mortgage": {"unemployment_rate": (0.45, 2), "house_price_index": (-0.02, 0)},
+    "auto": {"unemployment_rate": (0.55, 0)},
+    "personal": {"unemployment_rate": (0.55, 0)},
+    "cre": {"unemployment_rate": (0.12, 2), "commercial_property_index": (-0.030, 0)},
+    "heloc": {"unemployment_rate": (0.20, 2), "house_price_index": (-0.010, 0)},
+}
+MACRO_REFERENCE = {"unemployment_rate": 4.5, "house_price_index": 90.0, "commercial_property_index": 104.0}
+
+
+def macro_monthly(variable: str) -> np.ndarray:
+    """The variable by month from the first month of :data:`MACRO_FIRST_QUARTER` (each month takes its quarter's value)."""
+    return np.repeat(np.asarray(MACRO_QUARTERS[variable], float), 3)
+
+
+def macro_shift(name: str, month: int) -> float:
+    """The probit shift of a book's first-missed-payment chance in a month (0 for a book without one)."""
+    first = int(np.datetime64("2019-10", "M").astype(np.int64))
+    shift = 0.0
+    for variable, (beta, lag) in MACRO_SENSITIVITY.get(name, {}).items():
+        shift += beta * (macro_monthly(variable)[month - lag - first] - MACRO_REFERENCE[variable])
+    return shift
+
+
+def write_macro_history(out_dir: Path) -> Path:
+    """``macro_history.csv``: one row per quarter, one column per variable."""
+    start = int(MACRO_FIRST_QUARTER[:4]) * 4 + int(MACRO_FIRST_QUARTER[-1]) - 1
+    n = len(MACRO_QUARTERS["unemployment_rate"])
+    lines = ["quarter," + ",".join(MACRO_QUARTERS)]
+    for k in range(n):
+        q = start + k
+        lines.append(f"{q // 4}Q{q % 4 + 1}," + ",".join(f"{MACRO_QUARTERS[v][k]:.1f}" for v in MACRO_QUARTERS))
+    path = Path(out_dir) / "macro_history.csv"
+    path.write_bytes(("\n".join(lines) + "\n").encode("utf-8"))
+    return path
 
 
 def seasoning(age_months: np.ndarray) -> np.ndarray:
@@ -198,6 +257,9 @@ def _simulate_book(rng, name: str, spec: dict) -> dict[str, np.ndarray]:
             miss = spec["miss"]
             chance = (np.asarray(miss)[book["grade"][idx]] if isinstance(miss, tuple)
                       else miss * seasoning(age[idx] - 1))
+            shift = macro_shift(name, month)
+            if shift:  # the economy moves the chance of a first missed payment (probit shift)
+                chance = norm.cdf(norm.ppf(chance) + shift)
             behind = m > 0
             row = delinquent[np.maximum(m - 1, 0)]
             cure = behind & (u < row[:, 0])

@@ -76,7 +76,8 @@ def test_the_workbook_holds_the_evidence_and_the_caution(calibrated):
 def test_the_demo_policy_reproduces_the_demo_assumptions(tmp_path):
     # demo/README: the shipped assumptions are what calibrate writes from the history and policy
     out = tmp_path / "cal"
-    result = invoke("calibrate", HISTORY, "--policy", DEMO / MANIFEST["current"]["policy"], "--out", out)
+    result = invoke("calibrate", HISTORY, "--policy", DEMO / MANIFEST["current"]["policy"],
+                    "--macro", DEMO / MANIFEST["history"]["macro"], "--out", out)
     assert result.exit_code == 0, result.output
     assert (out / "assumptions.toml").read_bytes() == (DEMO / MANIFEST["current"]["assumptions"]).read_bytes()
     for matrix in MANIFEST["current"]["transition_matrices"]:

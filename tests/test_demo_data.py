@@ -96,7 +96,8 @@ def test_manifest_names_the_lender_seed_and_every_role():
     assert MANIFEST["lender"] and MANIFEST["invented"] is True
     for f in MANIFEST["files"]:
         assert (DEMO / f["name"]).is_file() and f["description"]
-        assert f["role"] in {"tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "history", "policy"}
+        assert f["role"] in {"tape", "assumptions", "overlay", "transition_matrix", "charge_offs", "history", "policy",
+                             "macro_history"}
     for section in ("current", "prior", "messy"):
         assert (DEMO / MANIFEST[section]["tape"]).is_file()
         assert (DEMO / MANIFEST[section]["assumptions"]).is_file()
