@@ -304,6 +304,9 @@ def run(
         told("sensitivities", len(names), len(names))
         sensitivity = reconcile.sensitivity_table(result.loans, alone, config)
     macro_paths = macro.macro_path_table(config.assumptions, engine.tape_months(taken.accepted, config))
+    from allowance.curves import segment_roll_forecasts  # the balance roll-rate forecast, for the workbook
+
+    roll_by_month, roll_check = segment_roll_forecasts(taken.accepted, config.assumptions.segments, result.loans)
 
     what_if = None
     what_if_paths = pd.DataFrame()
@@ -351,7 +354,7 @@ def run(
         scenarios=result.scenarios, term_structures=result.term_structures,
         roll_rates=result.roll_rates, reversion=result.reversion, schedules=result.schedules,
         sensitivity=sensitivity, macro_paths=macro_paths, what_if_paths=what_if_paths, pd_paths=result.pd_paths,
-        movement=movements,
+        roll_forecast=roll_by_month, roll_forecast_check=roll_check, movement=movements,
         what_if=what_if, record=record, warnings=warnings,
     )
     return Result(report=run_report, seconds=time.perf_counter() - started)

@@ -41,7 +41,7 @@ __all__ = ["CHECK_FILES", "OUTPUT_FILES", "OutputPaths", "check_output_path", "w
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
     "what_if.csv", "what_if_stage_changes.csv", "what_if_macro_paths.csv", "sensitivity.csv", "macro_paths.csv",
-    "pd_paths.csv", "disclosure_ifrs7_35m.csv", "disclosure_asc326_vintage.csv",
+    "pd_paths.csv", "roll_forecast.csv", "disclosure_ifrs7_35m.csv", "disclosure_asc326_vintage.csv",
     "reserve.xlsx", "summary.xlsx", "run.json",
 )
 
@@ -129,6 +129,9 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
         if report.pd_paths is not None and not report.pd_paths.empty:  # the PDs those paths produce
             _csv(report.pd_paths, folder / "pd_paths.csv")
             done("pd_paths.csv")
+    if report.roll_forecast is not None and not report.roll_forecast.empty:  # roll-rate segments only
+        _csv(report.roll_forecast, folder / "roll_forecast.csv")
+        done("roll_forecast.csv")
     write_workbook(folder / "reserve.xlsx", report)
     done("reserve.xlsx")
     write_summary_workbook(folder / "summary.xlsx", report)

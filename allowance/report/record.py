@@ -72,6 +72,8 @@ class RunReport:
     macro_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
     what_if_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
     pd_paths: pd.DataFrame = field(default_factory=pd.DataFrame)
+    roll_forecast: pd.DataFrame = field(default_factory=pd.DataFrame)
+    roll_forecast_check: pd.DataFrame = field(default_factory=pd.DataFrame)
     movement: "Movement | tuple[Movement, ...] | Mapping[Framework, Movement] | None" = None
     what_if: "WhatIf | pd.DataFrame | None" = None
     record: dict = field(default_factory=dict)

@@ -36,6 +36,7 @@ from allowance.report.sheets import (
     what_if_sheet,
 )
 from allowance.report.assumptions_sheet import assumptions_sheet, monthly_curves_frame, term_structure_sheet
+from allowance.report.forecast_sheets import macro_pd_sheet, roll_forecast_sheet
 from allowance.report.xlsx import Book, Context, Sheet, col_letter, nice_axis
 
 __all__ = ["SHEETS", "write_summary_workbook", "write_workbook"]
@@ -310,12 +311,19 @@ def _what_if_summary(sheet: Sheet, r: int, report: RunReport, led: Ledger) -> in
     return r + 1
 
 
+def _has(frame: pd.DataFrame | None) -> bool:
+    return frame is not None and not frame.empty
+
+
 def _contents(report: RunReport, *, full: bool) -> list[tuple[str, str, bool]]:
     rows = [
         ("By segment and stage", "Loans, balance, EAD, modelled and final allowance, coverage; a chart.", True),
         ("Scenarios", "Each scenario at 100 % weight, the weighted result, overlays; a chart.", True),
         ("Overlays", "Post-model adjustments: terms, rationale, owner, effect.", True),
     ]
+    if full and _has(report.macro_paths) and _has(report.pd_paths):
+        rows.insert(2, ("Macro and PD paths", "Each scenario's macro paths beside the PD paths they produce; charts.",
+                        True))
     if report.movements:
         rows += [("Movement", "Opening to closing allowance and gross carrying amount; roll-forward.", True),
                  ("Journal", "The entries that book the period's provision.", True)]
@@ -328,6 +336,9 @@ def _contents(report: RunReport, *, full: bool) -> list[tuple[str, str, bool]]:
         rows += [("Warnings", "Findings on accepted rows.", len(warnings_frame(report)) <= PRINT_ROW_LIMIT)]
     rows += [("Assumptions", "Every assumption the run used, as grids.", True),
              ("Term structures", "Cumulative PD at 1, 2, 3, 5 and 10 years by segment and grade.", True)]
+    if full and _has(report.roll_forecast):
+        rows += [("Roll-rate forecast", "Bucket balances rolled forward: charge-offs by month, against the "
+                                        "loan-level allowance.", True)]
     if full:
         rows += [("Monthly PD curves", "Marginal and cumulative PD month by month.", False),
                  ("Schedules", "Representative loans' schedules, month by month.", False)]
@@ -663,6 +674,8 @@ def _build(path: Path, report: RunReport, *, full: bool) -> Ledger:
     _summary(book.sheet("Summary", title="Credit-loss allowance: reserve summary"), report, refs, led, full=full)
     _segment_stage(book.sheet("By segment and stage", title="Allowance by segment and stage"), report, refs, led)
     _scenarios(book.sheet("Scenarios", title="Allowance under each economic scenario"), report, refs, led)
+    if full and _has(report.macro_paths) and _has(report.pd_paths):
+        macro_pd_sheet(book.sheet("Macro and PD paths", title="Macro paths and the PD paths they produce"), report)
     _overlays(book.sheet("Overlays", title="Overlays: post-model adjustments"), report, refs, led)
     if report.movements:
         movement_sheet(book.sheet("Movement", title="Movement from the prior quarter"), report.movements, led)
@@ -682,6 +695,8 @@ def _build(path: Path, report: RunReport, *, full: bool) -> Ledger:
                        "They are also in warnings.csv.", bulks, kinds={"message": "wrap"}, wide={"message": 70})
     assumptions_sheet(book.sheet("Assumptions", title="Assumptions used in this run"), report)
     term_structure_sheet(book.sheet("Term structures", title="Cumulative PD term structures"), report)
+    if full and _has(report.roll_forecast):
+        roll_forecast_sheet(book.sheet("Roll-rate forecast", title="Balance roll-rate forecast"), report)
     if full:
         curves = monthly_curves_frame(report)
         _long(book, "Monthly PD curves", "Monthly PD curves", curves, "Marginal and cumulative PD by month from the "
