@@ -56,14 +56,14 @@ from allowance.shortfall import default_loss
 from allowance.exceptions import InvalidInputError
 
 #: the LGD of a loan-month (:func:`allowance.curves.lgd.loss_given_default`), compiled into the loop
-_loss_given_default = numba.njit(cache=jit.CACHE, inline="always")(loss_given_default)
+_loss_given_default = numba.njit(cache=jit.CACHE)(loss_given_default)
 #: the loss of a default in the month (:func:`allowance.shortfall.default_loss`), compiled into the loop
-_default_loss = numba.njit(cache=jit.CACHE, inline="always")(default_loss)
+_default_loss = numba.njit(cache=jit.CACHE)(default_loss)
 #: the share failing to repay at maturity (:func:`allowance.curves.refinance.refinance_default`)
-_refinance_default = numba.njit(cache=jit.CACHE, inline="always")(refinance_default)
+_refinance_default = numba.njit(cache=jit.CACHE)(refinance_default)
 
 
-@numba.njit(cache=jit.CACHE, inline="always")
+@numba.njit(cache=jit.CACHE)
 def _flat_lgd(lgd, multiplier):
     """:func:`loss_given_default` of a loan without collateral (its collateral branch folds away)."""
     return _loss_given_default(0.0, lgd, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, multiplier)
@@ -152,14 +152,14 @@ class KernelResult:
 ECL_12M, ECL_LIFETIME, PD_12M, PD_LIFETIME, GROSS_12M, GROSS_LIFETIME = range(6)
 
 
-@numba.njit(cache=jit.CACHE, inline="always")
+@numba.njit(cache=jit.CACHE)
 def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
     """Write one loan, framework and scenario's six sums (rows as :data:`ECL_12M` ...)."""
     sums[0, i, f, s], sums[1, i, f, s], sums[2, i, f, s] = ecl12, ecllife, pd12
     sums[3, i, f, s], sums[4, i, f, s], sums[5, i, f, s] = pdlife, gross12, grosslife
 
 
-@numba.njit(cache=jit.CACHE, inline="always", fastmath=True)
+@numba.njit(cache=jit.CACHE, fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
     io_left, level, paydown, add, v, horizon_i, interest, maturity, q, sums,

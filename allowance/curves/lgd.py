@@ -199,7 +199,7 @@ def recovery_discount_factor(eir_annual, months_to_recovery):
     return discount_factor(monthly_rate(eir_annual), months_to_recovery)
 
 
-@register_jitable(inline="always")
+@register_jitable
 def effective_lgd(lgd, cure_rate):
     r"""LGD after cures: a cured default loses nothing.
 
