@@ -999,18 +999,25 @@ class RunConfig(BaseModel):
 
 
 class RowCounts(BaseModel):
-    """Rows of the tape: read = accepted + rejected."""
+    """Rows of the tape: read = accepted + rejected; for a CSV tape also its physical lines:
+    lines = 1 header + read + blank + line breaks inside quoted values."""
 
     model_config = ConfigDict(frozen=True)
 
     read: Annotated[int, Field(ge=0)]
     accepted: Annotated[int, Field(ge=0)]
     rejected: Annotated[int, Field(ge=0)]
+    blank: Annotated[int, Field(ge=0)] = 0
+    lines: Annotated[int, Field(ge=0)] | None = None  # CSV only
+    lines_in_values: Annotated[int, Field(ge=0)] = 0
 
     @model_validator(mode="after")
     def _nothing_lost(self) -> RowCounts:
         if self.read != self.accepted + self.rejected:
             raise ValueError(f"rows read ({self.read}) must equal accepted ({self.accepted}) + rejected ({self.rejected})")
+        if self.lines is not None and self.lines != 1 + self.read + self.blank + self.lines_in_values:
+            raise ValueError(f"lines of the file ({self.lines}) must equal 1 header + rows read ({self.read}) + blank "
+                             f"({self.blank}) + line breaks inside quoted values ({self.lines_in_values})")
         return self
 
 

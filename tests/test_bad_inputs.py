@@ -322,6 +322,30 @@ def rejected_reason(code: str) -> Callable[[Workspace, str], None]:
     return then
 
 
+def each(*checks: Callable[[Workspace, str], None]) -> Callable[[Workspace, str], None]:
+    def then(ws: Workspace, output: str) -> None:
+        for check in checks:
+            check(ws, output)
+    return then
+
+
+def lines_reconciled(in_values: int) -> Callable[[Workspace, str], None]:
+    """run.json and the workbook's Intake sheet state lines = 1 header + rows read + blank +
+    line breaks inside quoted values, and the sheet's check cell is 0."""
+    def then(ws: Workspace, output: str) -> None:
+        rows = json.loads((ws.out / "run.json").read_text())["rows"]
+        physical = len(ws.tape.read_text(encoding="utf-8").splitlines())
+        assert rows["lines"] == physical == 1 + rows["read"] + rows["blank"] + rows["lines_in_values"]
+        assert rows["lines_in_values"] == in_values
+        book = openpyxl.load_workbook(ws.out / "reserve.xlsx", data_only=True, read_only=True)
+        shown = {r[0]: r[1] for r in book["Intake"].iter_rows(values_only=True) if r and isinstance(r[0], str)}
+        book.close()
+        assert shown["Lines of the file"] == physical and shown["Line breaks inside quoted values"] == in_values
+        assert shown["Lines - header - rows read - blank - line breaks (must be 0)"] == 0
+        assert shown["Rows read - accepted - rejected (must be 0)"] == 0
+    return then
+
+
 def workbook_opens(ws: Workspace, output: str) -> None:
     book = openpyxl.load_workbook(ws.out / "reserve.xlsx", read_only=True)
     for sheet in book.worksheets:
@@ -838,7 +862,7 @@ CASES: list[Case] = [
     Case("quote closed lines later", "a quote opened on line 6 closes on line 13, inside a free-text column",
          "run", 0, ("line breaks inside quoted values",), (17, 16, 1),
          tape=lambda t: [*t[:5], quote_last_field(t[5]), *t[6:12], t[12] + '"', *t[13:]],
-         then=rejected_reason("records_in_value"), marks=_SLOW),
+         then=each(rejected_reason("records_in_value"), lines_reconciled(7)), marks=_SLOW),
     *[
         Case(f"tape column named like an output: {name}", f"an extra column '{name}' on the tape", "run", 0,
              (f"carried through as 'tape_{name}'",), (24, 24, 0), tape=column_named(name),

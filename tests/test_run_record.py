@@ -50,3 +50,8 @@ def test_the_run_record_is_a_pydantic_model():
     broken = dict(record, rows={"read": 5, "accepted": 3, "rejected": 1})
     with pytest.raises(ValidationError, match="must equal accepted"):
         RunRecord.model_validate(broken)
+    # a CSV tape's lines: 1 header + rows read + blank + line breaks inside quoted values
+    RunRecord.model_validate(dict(record, rows={"read": 5, "accepted": 5, "rejected": 0, "blank": 1, "lines": 9,
+                                                "lines_in_values": 2}))
+    with pytest.raises(ValidationError, match="1 header"):
+        RunRecord.model_validate(dict(record, rows={"read": 5, "accepted": 5, "rejected": 0, "lines": 9}))

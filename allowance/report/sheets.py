@@ -292,7 +292,21 @@ def intake_sheet(sheet: Sheet, report: "RunReport", refs: LoanRefs, led: Ledger)
     sheet.label(row, 1, "Rows read - accepted - rejected (must be 0)", total=True)
     led.put(sheet, row, 2, Figure(f"=B{first}-B{first + 1}-B{first + 2}", 0.0), "count", total=True)
     row += 1
-    if getattr(intake, "blank_rows", 0):
+    if getattr(intake, "lines", -1) >= 0:  # a CSV tape: its physical lines, reconciled with the rows read
+        row += 1
+        lines = row
+        for label, value in (("Lines of the file", intake.lines), ("Header line", 1),
+                             ("Blank lines skipped (not counted as rows)", intake.blank_rows),
+                             ("Line breaks inside quoted values", intake.lines_in_values)):
+            sheet.label(row, 1, label)
+            led.put(sheet, row, 2, value, "count")
+            row += 1
+        sheet.label(row, 1, "Lines - header - rows read - blank - line breaks (must be 0)", total=True)
+        led.put(sheet, row, 2, Figure(f"=B{lines}-B{lines + 1}-B{first}-B{lines + 2}-B{lines + 3}",
+                                      float(intake.lines - 1 - intake.rows_read - intake.blank_rows
+                                            - intake.lines_in_values)), "count", total=True)
+        row += 1
+    elif getattr(intake, "blank_rows", 0):
         sheet.label(row, 1, "Blank lines skipped (not counted as rows)")
         led.put(sheet, row, 2, intake.blank_rows, "count")
         row += 1
