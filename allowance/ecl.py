@@ -257,15 +257,16 @@ def _flat_lanes(
         _store(sums, i, f, j3, y3, l3, q3, c3, u3 * g, e3 * g)
 
 
-@numba.njit(cache=jit.CACHE, parallel=True)
+@numba.njit(cache=jit.CACHE)
 def _level_payments(code, balance, rate, months_left, io_left, residual, payment):
     """The level payment of every loan, once (annuity invariance: no power per month).
 
     Kept out of the loop below: it tests the tape payment for NaN, which the loop's
-    fast-math flags would let the compiler assume away.
+    fast-math flags would let the compiler assume away. Serial: one power per loan is a
+    few milliseconds for a million loans, and a parallel loop costs seconds to compile.
     """
     out = np.empty(balance.shape[0])
-    for i in numba.prange(balance.shape[0]):
+    for i in range(balance.shape[0]):
         out[i] = contractual_payment(code[i], balance[i], rate[i], months_left[i], io_left[i], residual[i], payment[i])
     return out
 
