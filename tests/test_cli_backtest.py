@@ -87,8 +87,11 @@ def test_run_with_a_loss_rate_segment_from_the_command_line(tmp_path):
     personal = loans[loans["segment"] == "personal"]
     assert personal["pd_12m"].isna().all() and (personal["ecl_cecl"] > 0).all()
     performing = personal[personal["stage"] == 1]
-    # stage 1: 12 months of the annual rate on a balance that amortises and prepays: below 2.6 % of it
-    assert (performing["ecl_ifrs9"] < 0.026 * performing["ead"] + 0.01).all()
+    import tomllib
+
+    rate = tomllib.loads((demo / "personal_on_loss_rates.toml").read_text())["segments"]["personal"]["annual_loss_rate"]
+    # stage 1: 12 months of the annual rate on a balance that amortises and prepays: below the rate times it
+    assert (performing["ecl_ifrs9"] < rate * performing["ead"] + 0.01).all()
     assert loans.loc[loans["segment"] != "personal", "pd_12m"].notna().all()
     what_if = pd.read_csv(tmp_path / "out" / "what_if.csv")
     moved = what_if[(what_if["difference"] != 0) & what_if["segment"].notna()]
