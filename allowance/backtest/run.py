@@ -112,6 +112,7 @@ def backtest_files(run_dir: Path, history: Path, options: BacktestOptions | None
         "inputs": [file_record(Path(run_dir) / "loans.csv", "prior").model_dump(mode="json"),
                    file_record(Path(history), "history").model_dump(mode="json")],
         "as_of": as_of.isoformat(), "window_end": result.window_end.isoformat(),
+        "currency": ((record.get("assumptions") or {}).get("run") or {}).get("currency", ""),
         "options": o.model_dump(mode="json"), "history_rows_in_window": int(len(rows)),
         "verdicts": dict(zip(result.segments["segment"], result.segments["verdict"])),
     }

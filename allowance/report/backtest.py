@@ -1,4 +1,4 @@
-"""The back-test's output folder: tables as CSV, a record, and a workbook sheet with charts.
+"""The back-test's output folder: tables as CSV, a record, and a workbook (XlsxWriter) with charts.
 
 Implements
 ----------
@@ -17,77 +17,79 @@ from pathlib import Path
 from typing import Any
 
 import pandas as pd
-from openpyxl import Workbook
-from openpyxl.chart import BarChart, Reference
-from openpyxl.styles import Font, PatternFill
 
 from allowance.backtest.compare import BacktestResult
 from allowance.exceptions import OutputError
 from allowance.report.record import CAUTION
 from allowance.text import neutralise_frame
-from allowance.report.openpyxl_table import TITLE_FONT, put_table
 
 __all__ = ["BACKTEST_FILES", "write_backtest"]
 
 BACKTEST_FILES = ("backtest_segments.csv", "backtest_grades.csv", "backtest_loans.csv", "backtest.xlsx",
                   "backtest.json")
-_FILL = {"green": "C6EFCE", "yellow": "FFEB9C", "red": "FFC7CE"}
+_FILL = {"green": "#C6EFCE", "yellow": "#FFEB9C", "red": "#FFC7CE"}
+_COLOURS = ("#1F4E79", "#C0504D", "#7F7F7F")
+_KINDS = {"pd": "fine_rate", "default_rate": "fine_rate", "binomial_lower": "fine_rate", "binomial_upper": "fine_rate",
+          "jeffreys_lower": "fine_rate", "jeffreys_upper": "fine_rate", "expected_default_rate": "fine_rate"}
 
 
-def _colour_lights(ws: Any, frame: pd.DataFrame, first: int, columns: tuple[str, ...]) -> None:
+def _lights(sheet, frame: pd.DataFrame, first: int, last: int, columns: tuple[str, ...]) -> None:
+    """Colour the traffic lights (a conditional format on the cell's text, so the file reads without it too)."""
+    if last < first:
+        return
+    book = sheet.book.workbook
     for name in columns:
         if name not in frame.columns:
             continue
-        j = list(frame.columns).index(name) + 1
-        for i, value in enumerate(frame[name].tolist()):
-            if value in _FILL:
-                ws.cell(row=first + i, column=j).fill = PatternFill("solid", fgColor=_FILL[value])
+        j = list(frame.columns).index(name)
+        for light, colour in _FILL.items():
+            sheet.ws.conditional_format(first - 1, j, last - 1, j, {
+                "type": "cell", "criteria": "==", "value": f'"{light}"', "format": book.add_format({"bg_color": colour})})
 
 
-def _chart(ws: Any, title: str, y_title: str, cats: Reference, series: list[tuple[Reference, str]], anchor: str):
-    chart = BarChart()
-    chart.type, chart.title, chart.y_axis.title = "col", title, y_title
-    for ref, _ in series:
-        chart.add_data(ref, titles_from_data=True)
-    chart.set_categories(cats)
-    chart.height, chart.width = 8, 18
-    ws.add_chart(chart, anchor)
+def _bars(sheet, title: str, y_title: str, frame: pd.DataFrame, first: int, last: int, columns: tuple[str, ...],
+          row: int, fmt: str) -> int:
+    chart = sheet.book.workbook.add_chart({"type": "column"})
+    for k, name in enumerate(columns):
+        j = list(frame.columns).index(name)
+        chart.add_series({"name": [sheet.name, first - 2, j], "categories": [sheet.name, first - 1, 0, last - 1, 0],
+                          "values": [sheet.name, first - 1, j, last - 1, j], "fill": {"color": _COLOURS[k]}})
+    chart.set_title({"name": title, "name_font": {"size": 11}})
+    chart.set_y_axis({"name": y_title, "num_format": fmt,
+                      "major_gridlines": {"visible": True, "line": {"color": "#D9DEE3"}}})
+    chart.set_legend({"position": "bottom"})
+    return sheet.chart(row, 1, chart, width=720, height=320)
 
 
 def _workbook(path: Path, result: BacktestResult, record: Mapping[str, Any]) -> None:
-    wb = Workbook()
-    ws = wb.active
-    ws.title = "Back-test"
-    ws.cell(row=1, column=1, value="Back-test: the run's 12-month forecast against what happened").font = TITLE_FONT
-    ws.cell(row=2, column=1, value=CAUTION).font = Font(italic=True)
-    ws.cell(row=3, column=1, value=f"run: {record['run_dir']}   history: {record['history']}")
-    first, last = put_table(ws, result.segments, row=5, title="Verdict by segment")
-    _colour_lights(ws, result.segments, first, ("verdict", "pd_light", "loss_light", "worst_grade_light"))
-    row = last + 3
-    first_o, last_o = put_table(ws, result.options_table(), row=row, title="Choices of this back-test")
-    if len(result.segments):
-        cats = Reference(ws, min_col=1, min_row=first, max_row=last)
-        cols = list(result.segments.columns)
-        series = [(Reference(ws, min_col=cols.index(c) + 1, min_row=first - 1, max_row=last), c)
-                  for c in ("expected_loss_12m", "realised_ncl")]
-        _chart(ws, "Expected 12-month loss and realised net credit loss", "amount", cats, series, f"A{last_o + 3}")
+    """``backtest.xlsx`` with the project's XlsxWriter writer: cached values, print setup, title rows."""
+    from allowance.report import clock
+    from allowance.report.bulk import save
+    from allowance.report.xlsx import Book, Context
 
-    grades = wb.create_sheet("Grades")
-    table = result.grades
-    first, last = put_table(grades, table, row=1, title="Default rates by grade against the PDs used", autofilter=True)
-    _colour_lights(grades, table, first, ("light",))
-    if len(table) and "default_rate" in table:
-        cols = list(table.columns)
-        grades.cell(row=last + 2, column=1, value="label")
-        labels = (table["segment"].astype(str) + " " + table["grade"].astype(str)).tolist()
-        for i, text in enumerate(labels):
-            grades.cell(row=last + 3 + i, column=1, value=text)
-        cats = Reference(grades, min_col=1, min_row=last + 3, max_row=last + 2 + len(labels))
-        series = [(Reference(grades, min_col=cols.index(c) + 1, min_row=first - 1, max_row=last), c)
-                  for c in ("default_rate", "pd", "binomial_upper")]
-        _chart(grades, "Realised 12-month default rate, the PD used and the upper 95 % bound", "rate", cats, series,
-               f"A{last + 4 + len(labels)}")
-    wb.save(path)
+    book = Book(Context(as_of=str(record.get("as_of", "")), currency=str(record.get("currency") or ""),
+                        label=f"back-test to {record.get('window_end', '')}"))
+    sheet = book.sheet("Back-test", title="Back-test: the run's 12-month forecast against what happened")
+    row = sheet.note(4, CAUTION, span=10)
+    row = sheet.note(row, f"run: {record.get('run_dir', '')}   history: {record.get('history', '')}", span=10)
+    segments = result.segments.reset_index(drop=True)
+    first, last = sheet.table(row + 1, segments, title="Verdict by segment", kinds=_KINDS)
+    _lights(sheet, segments, first, last, ("verdict", "pd_light", "loss_light", "worst_grade_light"))
+    _, last_o = sheet.table(last + 2, result.options_table().reset_index(drop=True),
+                            title="Choices of this back-test")
+    if len(segments):
+        _bars(sheet, "Expected 12-month loss and realised net credit loss", "amount", segments, first, last,
+              ("expected_loss_12m", "realised_ncl"), last_o + 2, "#,##0")
+    grades = result.grades.reset_index(drop=True)
+    if len(grades):
+        grades.insert(0, "label", grades["segment"].astype(str) + " " + grades["grade"].astype(str))
+    sheet = book.sheet("Grades", title="Default rates by grade against the PDs used")
+    first, last = sheet.table(4, grades, kinds=_KINDS, autofilter=True)
+    _lights(sheet, grades, first, last, ("light",))
+    if len(grades) and {"default_rate", "pd", "binomial_upper"} <= set(grades.columns):
+        _bars(sheet, "Realised 12-month default rate, the PD used and the upper 95 % bound", "rate", grades, first,
+              last, ("default_rate", "pd", "binomial_upper"), last + 2, "0.00%")
+    save(book, path, [], created=clock.now(), title="Back-test")
 
 
 def write_backtest(out_dir: Path, result: BacktestResult, record: Mapping[str, Any]) -> list[Path]:
