@@ -98,6 +98,8 @@ class KernelInputs:
     Tables: ``pd[F, K, T, S]``, ``smm[P, L]``, ``lgd_multiplier[F, T, S]``,
     ``collateral_index[F, K, T, S]`` (per curve key: a satellite model may link a segment's
     collateral to a price variable).
+    Per loan, optional: ``pd_scale`` (the loan's own PD level: the loop reads
+    ``min(pd_scale · pd_t, 1)`` for its curve row; None = 1 for every loan, the curve as it is).
     """
 
     code: np.ndarray
@@ -128,6 +130,7 @@ class KernelInputs:
     smm: np.ndarray
     lgd_multiplier: np.ndarray
     collateral_index: np.ndarray
+    pd_scale: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -162,7 +165,7 @@ def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
 @numba.njit(cache=jit.CACHE, fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
-    io_left, level, paydown, add, v, horizon_i, interest, maturity, q, sums,
+    io_left, level, paydown, add, v, horizon_i, interest, maturity, q, sums, sc,
 ):
     r"""One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
 
@@ -209,25 +212,25 @@ def _flat_lanes(
             w2 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j2]), interest)
             w3 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j3]), interest)
         # S_t = (S_{t-1} - S_{t-1} pd_t)(1 - smm_t): the default share d is computed anyway
-        d0 = a0 * pd[f, k, t, s0]
+        d0 = a0 * min(pd[f, k, t, s0] * sc, 1.0)
         l0 += d0 * w0
         e0 += d0 * w
         c0 += d0
         a0 = (a0 - d0) * keep
         if two:  # lanes past the last scenario do no work
-            d1 = a1 * pd[f, k, t, j1]
+            d1 = a1 * min(pd[f, k, t, j1] * sc, 1.0)
             l1 += d1 * w1
             e1 += d1 * w
             c1 += d1
             a1 = (a1 - d1) * keep
         if three:
-            d2 = a2 * pd[f, k, t, j2]
+            d2 = a2 * min(pd[f, k, t, j2] * sc, 1.0)
             l2 += d2 * w2
             e2 += d2 * w
             c2 += d2
             a2 = (a2 - d2) * keep
         if four:
-            d3 = a3 * pd[f, k, t, j3]
+            d3 = a3 * min(pd[f, k, t, j3] * sc, 1.0)
             l3 += d3 * w3
             e3 += d3 * w
             c3 += d3
@@ -277,7 +280,8 @@ def _level_payments(code, balance, rate, months_left, io_left, residual, payment
 def _kernel(
     code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
     in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure, refinance_pd,
-    horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, unit_path, block,
+    horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, pd_scale, unit_path,
+    block,
     sums, ead0, lgd0,
 ):
     n = balance.shape[0]
@@ -297,6 +301,7 @@ def _kernel(
         for i in range(b * block, min(n, (b + 1) * block)):
             c, r, m_left, io, p, off = code[i], rate[i], months_left[i], io_left[i], prepay[i], prepay_offset[i]
             level = level_payment[i]
+            sc = pd_scale[i]  # the loan's own PD level against its curve row
             secured = collateral[i] > 0.0
             lgd_i, coll_i, cut_i, cost_i = lgd[i], collateral[i], haircut[i], recovery_cost[i]
             floor_i, cure_i = lgd_floor[i], cure[i]
@@ -329,7 +334,7 @@ def _kernel(
                         _flat_lanes(
                             i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit_path[f], lgd_i,
                             c, balance[i], r, io, level, down, add, v, horizon_i, interest[f, i], maturity, q_i,
-                            sums,
+                            sums, sc,
                         )
                     continue
                 # secured: the collateral LGD moves with the balance and the collateral index
@@ -354,7 +359,7 @@ def _kernel(
                     keep = 1.0 - smm[p, off + t]
                     weight = ead * df
                     for s in range(n_sc):
-                        h = pd[f, k, t, s]
+                        h = min(pd[f, k, t, s] * sc, 1.0)
                         loss_rate = _loss_given_default(
                             ead, lgd_i, coll_i, collateral_index[f, k, t, s], cut_i, cost_i, floor_i,
                             rec_i, cure_i, lgd_multiplier[f, t, s],
@@ -489,6 +494,8 @@ def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
     out = []
     for field in fields(KernelInputs):
         value = getattr(inputs, field.name)
+        if field.name == "pd_scale" and value is None:  # the curves as they are
+            value = np.ones(np.shape(inputs.balance)[0])
         dtype = np.int64 if field.name in _INTEGER else (np.bool_ if field.name == "in_default" else np.float64)
         array = np.ascontiguousarray(value, dtype=dtype)
         # read-only-ness is part of a compiled signature: a read-only view (an Arrow-backed
@@ -514,6 +521,8 @@ def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
             problems.append("a prepayment row lies outside the SMM table")
         if a["prepay_offset"].min() < 0 or (a["prepay_offset"] + a["horizon"].max(axis=0)).max() > a["smm"].shape[1]:
             problems.append("prepayment offset + horizon runs past the SMM table's columns")
+        if a["pd_scale"].shape != (n,) or a["pd_scale"].min() < 0:
+            problems.append("pd_scale must be one number >= 0 per loan")
     for name, value in a.items():
         # NaN is allowed only where it means "not given" (the tape payment)
         if value.dtype == np.float64 and name != "payment" and not np.isfinite(value).all():

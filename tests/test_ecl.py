@@ -203,7 +203,7 @@ def test_empty_book():
     empty = KernelInputs(**{
         f.name: (getattr(k, f.name)[..., :0] if f.name in PER_FRAMEWORK
                  else getattr(k, f.name)[:0] if getattr(k, f.name).ndim == 1 else getattr(k, f.name))
-        for f in dataclasses.fields(KernelInputs)
+        for f in dataclasses.fields(KernelInputs) if getattr(k, f.name) is not None  # pd_scale: None = 1
     })
     assert expected_losses(empty).ecl_lifetime.shape == (0, 2, 3)
 
@@ -272,3 +272,14 @@ def test_refinance_risk_at_maturity():
     # a horizon that stops before maturity (IFRS 9 stage 1, 12 months, on a longer loan) takes none of it
     longer = dict(loan, months_left=np.array([24]), io_left=np.array([24]), horizon=np.full((1, 1), 12, np.int64))
     assert expected_losses(_one_loan(**longer)).ecl_lifetime[0, 0, 0] == 0.0
+
+
+def test_a_loans_own_pd_scale_multiplies_its_monthly_pds():
+    # pd_scale k: the loop reads min(k pd_t, 1). One month at PD 0.5 %, LGD 25 %, 1,000,000:
+    # 1,250 at k = 1, 2,500 at k = 2, and LGD x EAD = 250,000 when k pd_t passes 1 (capped)
+    # (common practice, no source)
+    month = dict(horizon=np.ones((1, 1), np.int64), months_left=np.array([1]), io_left=np.array([1]),
+                 pd=np.full((1, 1, 60, 1), 0.005))
+    ecl = [float(expected_losses(_one_loan(**month, pd_scale=np.array([k]))).ecl_12m[0, 0, 0]) for k in (1.0, 2.0, 500.0)]
+    assert np.round(ecl, 6).tolist() == [1250.0, 2500.0, 250000.0]
+    assert expected_losses(_one_loan(**month)).ecl_12m[0, 0, 0] == pytest.approx(1250.0)  # None: the curve as it is

@@ -6,7 +6,8 @@ over a horizon are derived from it in :mod:`allowance.curves.term_structure` onl
 
 Implements
 ----------
-term_structure  PdTermStructure, survival, unconditional_marginal, cumulative_pd, pd_over
+term_structure  PdTermStructure, survival, unconditional_marginal, cumulative_pd, pd_over,
+                loan_pd_scale
 pd_sources      pd_term_structure and the PD_SOURCES registry (12-month PD, cumulative curve,
                 by grade, transition matrix); hazard_from_pd_12m, marginal_from_curve, marginal_by_age
 roll_rates      delinquency buckets, bucket_index, validate_matrix, matrix_term_structure,
@@ -55,6 +56,7 @@ from allowance.curves.roll_rates import (
 from allowance.curves.term_structure import (
     PdTermStructure,
     cumulative_pd,
+    loan_pd_scale,
     pd_over,
     survival,
     unconditional_marginal,
@@ -73,6 +75,7 @@ __all__ = [
     "check_one_prepayment_source",
     "collateral_lgd",
     "cumulative_pd",
+    "loan_pd_scale",
     "delinquency_buckets",
     "effective_lgd",
     "expected_states",

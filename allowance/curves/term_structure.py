@@ -12,6 +12,7 @@ survival                S_t = prod_{k<=t} (1 - pd_k)(1 - smm_k)
 unconditional_marginal  S_{t-1} pd_t: probability of defaulting in month t
 cumulative_pd           running sum of the unconditional marginals
 pd_over                 cumulative PD at a horizon (the 12-month PD is ``pd_over(m, 12)``)
+loan_pd_scale           the multiplier that gives a curve row a loan's own 12-month PD
 """
 
 from __future__ import annotations
@@ -248,3 +249,65 @@ def pd_over(marginal: np.ndarray, months: int | np.ndarray, smm: np.ndarray | No
     padded = np.broadcast_to(padded, lead + padded.shape[-1:])
     index = np.broadcast_to(horizon, lead)[..., None]
     return np.take_along_axis(padded, index, axis=-1)[..., 0]
+
+
+def loan_pd_scale(first_year, pd_12m, *, iterations: int = 6) -> np.ndarray:
+    r"""The multiplier :math:`k` of a curve row's monthly PDs that gives it a loan's own 12-month PD.
+
+    Parameters
+    ----------
+    first_year : array_like, shape (n, 12)
+        The monthly marginal PDs of the first year of each loan's curve row (before the
+        scenario paths). A row of NaN (no PD curve: a loss-rate segment) gives 1.
+    pd_12m : array_like, shape (n,)
+        The loan's own 12-month PD (tape ``pd_12m_current``); NaN gives 1 (the curve as it is).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        :math:`k \ge 0`; the loop reads :math:`\min(k \, pd_t, 1)` in every month and scenario.
+
+    Notes
+    -----
+    The loan keeps its segment's term structure (its shape over time, the scenario paths and
+    CECL's reversion) and takes its own level: :math:`k` solves
+
+    .. math:: 1 - \prod_{t=1}^{12} (1 - k \, pd_t) = PD^{loan}_{12}
+
+    by Newton's method from :math:`k_0 = \ln(1 - PD^{loan}_{12}) / \sum_t \ln(1 - pd_t)`
+    (exact for a flat first year when :math:`k\,pd_t` stays small). A monthly PD is scaled as a
+    scenario's PD multiplier scales it (DESIGN: "a PD multiplier scales the monthly marginal
+    PD, capped at 1"): relative risk held through the life is common practice, no source.
+    A curve row with no default risk in its first year (all :math:`pd_t = 0`) cannot be scaled
+    and gives 1.
+
+    Examples
+    --------
+    A flat 1 % a month (12-month PD 11.36 %) set to a loan's 5 %: each month becomes 0.4265 %.
+
+    >>> k = loan_pd_scale(np.full((2, 12), 0.01), [0.05, np.nan])
+    >>> (k * 0.01).round(6).tolist()
+    [0.004265, 0.01]
+    >>> float(pd_over(np.full(12, 0.01 * k[0]), 12).round(6))
+    0.05
+    """
+    p = np.asarray(first_year, dtype=float)
+    target = np.asarray(pd_12m, dtype=float)
+    if p.ndim != 2 or p.shape[0] != target.shape[0]:
+        raise InvalidInputError("loan_pd_scale: first_year must be (loans, months) with one pd_12m per loan")
+    log_keep = np.log1p(-np.clip(p, 0.0, 1.0 - 1e-12)).sum(axis=1)
+    usable = ~np.isnan(target) & ~np.isnan(log_keep) & (log_keep < 0.0) & (target < 1.0)
+    k = np.ones(target.shape[0])
+    if not usable.any():
+        return k
+    q = np.nan_to_num(p[usable])
+    goal = np.log1p(-np.clip(target[usable], 0.0, 1.0 - 1e-12))
+    top = 1.0 / np.maximum(q.max(axis=1), 1e-300) * (1.0 - 1e-9)  # k pd_t stays below 1
+    x = np.minimum(goal / log_keep[usable], top)
+    for _ in range(iterations):  # g(k) = sum ln(1 - k pd_t) - ln(1 - PD): decreasing, concave
+        kp = np.minimum(x[:, None] * q, 1.0 - 1e-12)
+        g = np.log1p(-kp).sum(axis=1) - goal
+        slope = -(q / (1.0 - kp)).sum(axis=1)
+        x = np.clip(x - g / slope, 0.0, top)
+    k[usable] = x
+    return k
