@@ -93,7 +93,8 @@ class EngineResult:
 
 
 def _round_money(loans: pd.DataFrame) -> pd.DataFrame:
-    money = [c for c in loans.columns if c.startswith(("ecl_", "ead", "gross_loss_")) or c == "balance"]
+    money = [c for c in loans.columns if c.startswith(("ecl_", "ead", "gross_loss_", "purchase_ecl_")) or c == "balance"
+             or c == "pcd_gross_up"]
     rounded = loans.copy()
     rounded[money] = rounded[money].round(CENT_DECIMALS)
     return rounded
@@ -204,7 +205,8 @@ def overlaid(result: EngineResult, config: RunConfig) -> EngineResult:
 
 def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     first = [
-        "loan_id", "segment", "repayment", "grade", "stage", "stage_class", "stage_reason", "poci", "measurement",
+        "loan_id", "segment", "repayment", "grade", "origination_date", "days_past_due",
+        "stage", "stage_class", "stage_reason", "poci", "measurement",
         "horizon_months", "horizon_months_cecl", "remaining_months", "balance", "ead",
         "pd_12m", "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime",
     ]
@@ -213,6 +215,9 @@ def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> p
     for fw in prep.frameworks:
         first += [f"ecl_{fw}_{s}" for s in prep.scenario_names]
     first += [f"ead_{fw}" for fw in prep.frameworks]
+    first += [f"discount_rate_{fw}" for fw in prep.frameworks]
+    first += [f"purchase_ecl_{fw}" for fw in prep.frameworks]
+    first += [f"purchase_ecl_carried_{fw}" for fw in prep.frameworks] + ["pcd_gross_up", "modified"]
     ordered = loans[[c for c in first if c in loans.columns]].copy()
     ordered["source_row"] = tape["source_row"].to_numpy() if "source_row" in tape else np.arange(len(tape)) + 2
     extras = [c for c in tape.columns if c not in LoanRecord.model_fields and c != "source_row"]

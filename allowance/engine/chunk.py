@@ -7,19 +7,25 @@ is the boundary an executor's ``map`` crosses: in-process, to a process pool or 
 Implements
 ----------
 LoanTerms    each loan's state and segment parameters, as the loop reads them (looked up once)
-loan_terms   remaining term, seasoning, schedule inputs, curve rows and segment parameters
+loan_terms   remaining term, seasoning, schedule inputs, curve rows, the loan's own PD level
+             and segment parameters
 ChunkResult  the modelled (unrounded) loan results and the engine's findings for a chunk
 run_chunk    a chunk of loans -> ChunkResult
+
+Purchased or originated credit-impaired loans (POCI / PCD) take two more passes of the loop,
+at their PD at purchase, today (R) and at the purchase date (Q), so that their IFRS 9
+allowance is the change in lifetime ECL since purchase (:mod:`allowance.poci`).
 """
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, curves, individual, loss_rates, scenarios, staging
+from allowance import cashflows, curves, individual, loss_rates, poci, scenarios, staging
 from allowance.curves.ead import accrued_exposure
 from allowance.curves.refinance import maturity_ltv, refinance_pd
 from allowance.discounting import monthly_rate
@@ -64,6 +70,27 @@ class LoanTerms:
     months_to_recovery: np.ndarray
     refinance_pd: np.ndarray  # q at maturity (0: none)
     refinance_unknown: np.ndarray  # bool: q taken at the riskiest band (no collateral value or coverage)
+    pd_scale: np.ndarray  # the loan's own PD level against its curve row (1: the curve as it is)
+
+
+def _number(chunk: pd.DataFrame, column: str) -> np.ndarray:
+    """An optional numeric tape column (NaN where blank or absent)."""
+    if column not in chunk.columns:
+        return np.full(len(chunk), np.nan)
+    return chunk[column].to_numpy(dtype=float, na_value=np.nan)
+
+
+def _flag(chunk: pd.DataFrame, column: str) -> np.ndarray:
+    return chunk[column].to_numpy(dtype=bool) if column in chunk.columns else np.zeros(len(chunk), dtype=bool)
+
+
+def _own_pd(chunk: pd.DataFrame) -> np.ndarray:
+    """Each loan's own 12-month PD today: ``pd_12m_current``; for a POCI loan without one, its PD
+    at purchase (a credit-impaired purchase is never priced at its pool's performing PD, and
+    with no newer score its risk is taken as unchanged since purchase); NaN: the curve's own."""
+    now = _number(chunk, "pd_12m_current")
+    bought = _number(chunk, "pd_12m_at_origination")
+    return np.where(np.isnan(now) & _flag(chunk, "credit_impaired_at_purchase"), bought, now)
 
 
 def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.ndarray:
@@ -160,6 +187,9 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     rate = monthly_rate(chunk["interest_rate"].to_numpy(float))
     eir = chunk["eir"].to_numpy(float)
     eir = np.where(np.isnan(eir), chunk["interest_rate"].to_numpy(float), eir)
+    # a POCI loan's losses are discounted at its credit-adjusted EIR (IFRS 9 B5.5.45)
+    adjusted = _number(chunk, "credit_adjusted_eir")
+    eir = np.where(_flag(chunk, "credit_impaired_at_purchase") & ~np.isnan(adjusted), adjusted, eir)
     age = cashflows.age_months(chunk["origination_date"], as_of)
     behavioural = revolving_parameter(chunk, table, segment, "behavioural_life").astype(np.int64)
     remaining = remaining_life(chunk, as_of, behavioural)
@@ -195,6 +225,8 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
         collateral=np.where(secured, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0),
         haircut=table.haircut[segment], recovery_cost=table.recovery_cost[segment], lgd_floor=table.lgd_floor[segment],
         months_to_recovery=table.months_to_recovery[segment], refinance_pd=q, refinance_unknown=unknown,
+        # the loan's own 12-month PD (e.g. a behavioural score) sets the level of its curve row
+        pd_scale=curves.loan_pd_scale(prep.pd_first_year[curve], _own_pd(chunk)),
     )
 
 
@@ -278,16 +310,116 @@ def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelI
         recovery_discount=fw.recovery_discount, cure=terms.cure, refinance_pd=terms.refinance_pd, horizon=fw.horizon, ead_add=fw.ead_add,
         paydown=fw.paydown, discount=fw.discount, interest=fw.interest, pd=prep.pd, smm=prep.smm,
         lgd_multiplier=prep.lgd_multiplier,
-        collateral_index=prep.collateral_index,
+        collateral_index=prep.collateral_index, pd_scale=terms.pd_scale,
     )
 
 
+#: KernelInputs fields that are book-level tables, not per loan (a subset keeps them whole)
+_TABLES = frozenset({"pd", "smm", "lgd_multiplier", "collateral_index"})
+
+
+def _subset(inputs: KernelInputs, rows: np.ndarray, **changes) -> KernelInputs:
+    """The kernel inputs of some loans (per-loan ``[n]`` and per-framework ``[F, n]`` arrays
+    taken at ``rows``; the tables whole), with ``changes`` (already of the subset) applied."""
+    out = {}
+    for field in dataclasses.fields(inputs):
+        value = getattr(inputs, field.name)
+        if field.name in changes:
+            value = changes[field.name]
+        elif field.name not in _TABLES and value is not None:
+            value = value[:, rows] if np.ndim(value) == 2 else value[rows]
+        out[field.name] = value
+    return KernelInputs(**out)
+
+
+@dataclass(frozen=True)
+class _Purchase:
+    """POCI loans of a chunk, per framework ``[n, F]`` (NaN for other loans).
+
+    carried      B = E0 R / Q: the purchase-date lifetime ECL carried to the reporting date
+    at_purchase  E0: the tape's lifetime ECL at purchase, or Q (measured) where blank
+    in_period    bought in the reporting period (the PCD gross-up applies to these)
+    """
+
+    carried: np.ndarray
+    at_purchase: np.ndarray
+    in_period: np.ndarray
+
+
+def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inputs: KernelInputs,
+                    prep: Prepared) -> _Purchase | None:
+    """The two purchase-date passes of the loop for the chunk's POCI loans (:mod:`allowance.poci`).
+
+    R: today's balance, remaining term and scenario paths at the loan's PD at purchase
+    (``pd_12m_at_origination``). Q: the purchase date (the tape's ``origination_date`` of a
+    POCI loan): the contractual balance then (:func:`allowance.poci.purchase_balance`), the
+    term then, age 0 on age-indexed curves and prepayments, the same PD at purchase and this
+    run's scenario paths and LGDs. Both are discounted at the credit-adjusted EIR and are
+    lifetime. A loan in default today that was bought in the reporting period is taken to
+    have been bought in default (so its day-one allowance is 0); an older one is not.
+    """
+    flags = _flag(chunk, "credit_impaired_at_purchase")
+    rows = np.flatnonzero(flags)
+    n, n_fw = len(chunk), len(prep.rules)
+    if not rows.size:
+        return None
+    a = prep.config.assumptions
+    as_of = prep.config.as_of
+    bought = poci.purchased_in_period(pd.DatetimeIndex(chunk["origination_date"].to_numpy()[rows]), as_of,
+                                      a.run.period_months)
+    scale = curves.loan_pd_scale(prep.pd_first_year[terms.curve[rows]], _number(chunk, "pd_12m_at_origination")[rows])
+    defaulted = fw.in_default[:, rows] & bought[None, :]
+    lifetime = np.broadcast_to(terms.remaining[rows], (n_fw, rows.size)).copy()
+    r = expected_losses(_subset(inputs, rows, in_default=defaulted, horizon=lifetime, pd_scale=scale))
+
+    age = terms.age[rows]
+    code = terms.code[rows]
+    months = terms.remaining[rows] + age
+    # the payment of the months since purchase (a small set of loans: one call each)
+    payment = np.array([cashflows.contractual_payment(c, b, q, m, io, res, pay) for c, b, q, m, io, res, pay in zip(
+        code, terms.balance[rows], terms.rate[rows], terms.remaining[rows], terms.io_left[rows], terms.residual[rows],
+        terms.payment[rows])], dtype=float)
+    amortising = (code == cashflows.LEVEL) | (code == cashflows.BALLOON)
+    balance = np.where(amortising & (terms.io_left[rows] == 0),
+                       poci.purchase_balance(terms.balance[rows], terms.rate[rows], payment, age), terms.balance[rows])
+    io_months = _number(chunk, "interest_only_months")[rows]
+    io_left = np.where(code == cashflows.INTEREST_ONLY, np.where(np.isnan(io_months), months, io_months), 0)
+    curve = fw.curve[:, rows].copy()
+    for name, ts in prep.structures.items():  # an age-indexed curve starts again at age 0
+        if ts.source == "pd_curve_by_age":
+            curve[:, chunk["segment"].to_numpy()[rows] == name] = prep.key_offset[name]
+    revolving = code == cashflows.REVOLVING
+    q = expected_losses(_subset(
+        inputs, rows, balance=balance, months_left=np.where(revolving, terms.remaining[rows], months),
+        io_left=io_left.astype(np.int64), curve=curve, prepay_offset=np.zeros(rows.size, dtype=np.int64),
+        in_default=defaulted, horizon=np.broadcast_to(np.where(revolving, terms.remaining[rows], months),
+                                                      (n_fw, rows.size)).copy(),
+        ead_add=fw.ead_add[:, rows], pd_scale=scale,
+    ))
+    w = prep.weights
+    e0 = _number(chunk, "lifetime_ecl_at_purchase")[rows]
+    carried = np.full((n, n_fw), np.nan)
+    at_purchase = np.full((n, n_fw), np.nan)
+    for f in range(n_fw):
+        r_f = scenarios.weighted(r.ecl_lifetime[:, f, :], w)
+        q_f = scenarios.weighted(q.ecl_lifetime[:, f, :], w)
+        given = np.where(np.isnan(e0), q_f, e0)  # blank: measured at the purchase date
+        carried[rows, f] = poci.purchase_benchmark(given, r_f, q_f)
+        at_purchase[rows, f] = given
+    in_period = np.zeros(n, dtype=bool)
+    in_period[rows] = bought
+    return _Purchase(carried=carried, at_purchase=at_purchase, in_period=in_period)
+
+
 def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | None, k: KernelResult,
-                  prep: Prepared) -> pd.DataFrame:
+                  prep: Prepared, purchase: _Purchase | None = None) -> pd.DataFrame:
     """The per-loan frame: the first staged framework leads the shared columns (ead, PDs, LGD)."""
     out = pd.DataFrame(
         {"loan_id": chunk["loan_id"].to_numpy(), "segment": chunk["segment"].to_numpy(),
-         "repayment": terms.repayment, "grade": chunk["grade"].to_numpy()},
+         "repayment": terms.repayment, "grade": chunk["grade"].to_numpy(),
+         # for the disclosure tables: the vintage and the days-past-due band of each loan
+         "origination_date": pd.DatetimeIndex(chunk["origination_date"]).strftime("%Y-%m-%d").to_numpy(),
+         "days_past_due": chunk["days_past_due"].to_numpy()},
         index=chunk.index,
     )
     w = prep.weights
@@ -316,17 +448,20 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
     out["lgd"] = k.lgd[:, primary]
     out["ecl_12m"] = scenarios.weighted(k.ecl_12m[:, primary, :], w)
     out["ecl_lifetime"] = scenarios.weighted(k.ecl_lifetime[:, primary, :], w)
-    purchase = chunk["lifetime_ecl_at_purchase"].to_numpy(float)
-    poci = out["poci"].to_numpy()
-    none = np.full(len(chunk), np.nan)
+    poci_flag = out["poci"].to_numpy()
+    n = len(chunk)
+    a = prep.config.assumptions
+    none = np.full(n, np.nan)
     method, replaced = _individual_measurement(chunk, terms, prep)
     out["measurement"] = np.array(list(individual.MEASUREMENTS), dtype=object)[method]
     assessed = (method == individual.INDIVIDUAL)[:, None]
     for f, rules in enumerate(prep.rules):
-        per_scenario = rules.allowance(k.ecl_12m[:, f, :], k.ecl_lifetime[:, f, :], stage, poci, purchase)
+        # the purchase-date lifetime ECL carried to today (NaN for loans not POCI)
+        carried = purchase.carried[:, f] if purchase is not None else none
+        per_scenario = rules.allowance(k.ecl_12m[:, f, :], k.ecl_lifetime[:, f, :], stage, poci_flag, carried)
         # the expected gross credit loss over the same horizon (LGD = 1: before recoveries);
         # the POCI shift is an allowance convention, not a loss, so it does not apply
-        gross = rules.allowance(k.gross_12m[:, f, :], k.gross_lifetime[:, f, :], stage, poci, none)
+        gross = rules.allowance(k.gross_12m[:, f, :], k.gross_lifetime[:, f, :], stage, poci_flag, none)
         # measured one by one: the same amount in every scenario; a collateral-dependent loan
         # stands to lose its amortised cost before the collateral, an assessed one at least its
         # assessment
@@ -342,6 +477,18 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
             out[f"ecl_{rules.name}_{name}"] = per_scenario[:, s]
         out[f"gross_loss_{rules.name}"] = scenarios.weighted(gross, w)
         out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, w)
+        # the annual rate that discounted the allowance (0: undiscounted), for the unwind line
+        out[f"discount_rate_{rules.name}"] = terms.eir if rules.discounted(a) else np.zeros(n)
+        if rules.staged:  # measured as the change since purchase (IFRS 9 5.5.13-5.5.14)
+            out[f"purchase_ecl_{rules.name}"] = purchase.at_purchase[:, f] if purchase is not None else none
+            out[f"purchase_ecl_carried_{rules.name}"] = carried
+    lifetime = next((f for f, rules in enumerate(prep.rules) if not rules.staged), None)
+    if lifetime is not None:  # CECL: a PCD asset bought in the period enters with its allowance (gross-up)
+        gross_up = np.zeros(n)
+        if purchase is not None:
+            gross_up = np.where(purchase.in_period, np.nan_to_num(purchase.at_purchase[:, lifetime]), 0.0)
+        out["pcd_gross_up"] = gross_up
+    out["modified"] = _flag(chunk, "modified")
     return out
 
 
@@ -413,7 +560,9 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
         stages = staging.assign_stages(chunk, a.ifrs9, a.segments, remaining_months=terms.remaining)
     stage = None if stages is None else stages["stage"].to_numpy()
     fw = _framework_inputs(chunk, terms, stage, prep)
-    k = expected_losses(_kernel_inputs(terms, fw, prep))
+    inputs = _kernel_inputs(terms, fw, prep)
+    k = expected_losses(inputs)
+    purchase = _purchase_views(chunk, terms, fw, inputs, prep)
     # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
     for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
         k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
@@ -421,7 +570,7 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
         k.gross_12m[rows] = k.gross_lifetime[rows] = np.nan  # a loss rate is net of recoveries
         k.lgd[rows] = np.nan
     return ChunkResult(
-        loans=_loan_results(chunk, terms, stages, k, prep),
+        loans=_loan_results(chunk, terms, stages, k, prep, purchase),
         findings=pd.concat([_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
                             _refinance_findings(chunk, terms)], ignore_index=True),
     )

@@ -102,7 +102,8 @@ class Prepared:
     lgd_multiplier: np.ndarray  # [F, T, S]
     collateral_index: np.ndarray  # [F, K, T, S]
     tables: dict[Framework, scenarios.ScenarioTables]
-    pd_12m_now: np.ndarray  # [K]: the staged framework's probability-weighted 12-month PD, for staging
+    pd_first_year: np.ndarray  # [K, 12]: each curve key's own monthly PDs of the first year, before the
+    # scenario paths (NaN for loss-rate keys): a loan's pd_12m_current is set against them
     loss_rates: LossRateTables | None = None  # the loss-rate segments' tables (None: there are none)
     #: segment -> the PD row of a loan on probation out of stage 3 (``[ifrs9] probation_pd_12m``)
     probation_key: dict[str, int] = field(default_factory=dict)
@@ -201,11 +202,17 @@ def behavioural_life(tape: pd.DataFrame, table: SegmentTable, codes: np.ndarray 
 
 
 def tape_months(tape: pd.DataFrame, config: RunConfig) -> int:
-    """Months the book's tables must cover: the longest horizon on the tape (at least 12)."""
+    """Months the book's tables must cover: the longest horizon on the tape (at least 12), and
+    for a purchased credit-impaired loan its life from the purchase date (its age added)."""
     if tape.empty:
         return 12
     table = segment_table(config.assumptions.segments)
-    life = remaining_life(tape, pd.Timestamp(config.as_of), behavioural_life(tape, table))
+    as_of = pd.Timestamp(config.as_of)
+    life = remaining_life(tape, as_of, behavioural_life(tape, table))
+    if "credit_impaired_at_purchase" in tape.columns:
+        poci = tape["credit_impaired_at_purchase"].to_numpy(dtype=bool)
+        if poci.any():
+            life = np.where(poci, life + cashflows.age_months(tape["origination_date"], as_of), life)
     return int(max(12, life.max()))
 
 
@@ -294,17 +301,16 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
     coll_idx = np.ascontiguousarray(
         np.stack([tables[fw].collateral_per_key(base.shape[0]).transpose(0, 2, 1) for fw in frameworks]))
     weights = np.asarray(a.weights, float)
-    # staging compares the staged framework's 12-month PD now with the PD at origination
-    staged = next((r.name for r in rules if r.staged), frameworks[0])
-    pd_12m_now = scenarios.weighted(curves.pd_over(tables[staged].pd, 12), weights)
-    for name, seg in a.segments.items():  # a loss-rate segment has no PD for the PD-ratio test
+    # a loan's own 12-month PD (pd_12m_current) is set against its curve row's first year
+    pd_first_year = np.array(base[:, :12], dtype=float)
+    for name, seg in a.segments.items():  # a loss-rate segment has no PD to scale
         if seg.loss_rate_method is not None:
-            pd_12m_now[key_offset[name]] = 0.0
+            pd_first_year[key_offset[name]] = np.nan
     return Prepared(
         config=config, months=months, frameworks=frameworks, rules=rules, scenario_names=tuple(a.scenarios),
         weights=weights, segments=segment_table(a.segments), structures=structures, key_offset=key_offset,
         prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
-        pd_12m_now=pd_12m_now, loss_rates=_loss_rate_tables(config, months, max_age, tables, structures, key_offset),
+        pd_first_year=pd_first_year, loss_rates=_loss_rate_tables(config, months, max_age, tables, structures, key_offset),
         probation_key=probation_key,
     )
