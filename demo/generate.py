@@ -71,11 +71,12 @@ TAPE_COLUMNS = (
     "balloon_amount", "amortization_months", "interest_only_months",
     "lifetime_ecl_at_purchase", "credit_adjusted_eir", "modified", "original_amount", "branch",
 )
-#: Segments whose loans carry a behavioural score (a 12-month PD of their own) each quarter;
-#: commercial real estate is rated by committee and has none on the tape.
-SCORED = ("mortgage", "auto", "personal", "cards", "heloc")
-#: Segment LGDs of the demo assumptions, for the purchase-date ECL of the POCI loans.
-POCI_LGD = {"mortgage": 0.2, "auto": 0.45}
+#: Segments whose loans carry a behavioural score (a 12-month PD of their own) each quarter, on
+#: the scale of their grade's PD. Commercial real estate is rated by committee; mortgages and
+#: home-equity lines are modelled on a seasoning curve by age and cards by delinquency bucket,
+#: which the lender's scores are not calibrated to: none of these carries one on the tape, so
+#: the run stages them without the PD-ratio test (and says so) and prices them at the curve.
+SCORED = ("auto", "personal")
 
 # Segment shapes. n: loans on the book at 2026-06-30; new: originations in the third quarter;
 # terms / term_p: contractual terms in months and their shares (0: revolving, no term);
@@ -291,12 +292,9 @@ def build_book(rng, seed: int = SEED):
     book["poci"] = poci
     # PD at purchase (the scale of pd_12m_current): credit-impaired, so high
     book["pd_orig"] = np.where(poci, np.round(own.uniform(0.12, 0.3, n), 6), book["pd_orig"])
-    # Lifetime ECL at purchase, from the purchase due diligence: LGD x lifetime PD at the
-    # purchase PD over the first five years, on the purchased balance (roughly what the demo
-    # assumptions give; the allowance is the change since, IFRS 9 5.5.13)
-    lgd = np.array([POCI_LGD.get(s, 0.0) for s in seg])
-    lifetime = 1.0 - (1.0 - book["pd_orig"]) ** (np.minimum(book["term"], 60) / 12)
-    book["ecl_at_purchase"] = np.where(poci & ~book["new"], np.round(lgd * lifetime * book["amount"], 2), np.nan)
+    # Lifetime ECL at purchase: measured by the tool once the assumptions are calibrated
+    # (purchase_ecls below); blank for the three bought this quarter, which the run measures
+    book["ecl_at_purchase"] = np.full(n, np.nan)
     # Credit-adjusted EIR (IFRS 9 B5.5.45): the yield at which the buyer priced the cash flows
     # it expected to collect, above the contract rate of a credit-impaired loan
     book["ca_eir"] = np.where(poci, np.round(book["rate"] + own.uniform(0.01, 0.03, n), 6), np.nan)
@@ -429,7 +427,8 @@ def behavioural_pds(book, snapshots, grades, seed):
     It starts from the PD at origination (at purchase, for POCI loans), drifts with the
     loan's seasoning and a random walk of its own, follows any grade migration, and jumps
     when the loan is behind or flagged. A loan booked in the quarter keeps its origination
-    PD. Unscored segments (``SCORED``) are blank. Draws of its own, so the book is unchanged.
+    PD. Unscored segments (``SCORED``) are blank, except their POCI loans. Draws of its own, so
+    the book is unchanged.
     """
     own = np.random.default_rng([seed, 14])
     n = len(book["term"])
@@ -451,7 +450,8 @@ def behavioural_pds(book, snapshots, grades, seed):
         pd_now = book["pd_orig"] * drift * np.where(graded, grade_shift, 1.0) * behind * flagged
         booked_now = book["orig_month"] >= quarter_start
         pd_now = np.where(booked_now, book["pd_orig"], np.clip(pd_now, 0.0003, 0.6))
-        out[month] = np.where(scored, np.round(pd_now, 6), np.nan)
+        # a purchased credit-impaired loan is scored whatever its segment (the buyer monitors it)
+        out[month] = np.where(scored | book["poci"], np.round(pd_now, 6), np.nan)
     return out
 
 
@@ -583,6 +583,14 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     for quarter in ("q3", "q2"):
         policy = files.write_policy(out_dir, quarter, cents[f"tape_2026{quarter}.csv"], LENDER)
         written += [policy, *calibrated(out_dir, quarter, history_path, policy, macro_path)]
+    # The POCI loans bought before this quarter carry the lifetime ECL the lender recorded at
+    # purchase: what the tool measures at the purchase date under the June assumptions.
+    at = TAPE_COLUMNS.index("lifetime_ecl_at_purchase")
+    measured = purchase_ecls(out_dir / "tape_2026q2.csv", out_dir / "assumptions_2026q2.toml")
+    for name in ("tape_2026q2.csv", "tape_2026q3.csv"):
+        ids = tapes[name][0]
+        tapes[name][at] = np.array([measured.get(i, v) for i, v in zip(ids, tapes[name][at])], dtype=object)
+        files.write_csv(out_dir / name, TAPE_COLUMNS, tapes[name])
     written.append(files.write_what_if(out_dir))
     written.append(files.write_outlook_what_if(out_dir))
     bad_path, bad = files.write_bad_tape(out_dir, rng, q3, TAPE_COLUMNS)
@@ -607,6 +615,27 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     messy = dict(tape="messy_extract.csv", assumptions="messy_assumptions.toml", **messy)
     written.append(files.write_manifest(out_dir, seed, LENDER, current, prior, movement, bad, messy, history_info))
     return sorted(written)
+
+
+def purchase_ecls(tape: Path, assumptions: Path) -> dict[str, str]:
+    """The lifetime ECL at purchase of the POCI loans on ``tape`` (their loan_id -> amount text).
+
+    The tool measures it at each loan's purchase date (``purchase_ecl_ifrs9`` of a run where
+    the purchase ECL is blank: the purchase-date pass of ``allowance.poci``), with the June
+    quarter's assumptions: what the lender's model would have recorded on purchase.
+    """
+    from allowance.engine import run
+    from allowance.intake import load_assumptions, read_tape
+
+    config = load_assumptions(assumptions)
+    # read as CECL alone: IFRS 9 intake refuses a POCI row bought before the period with no purchase ECL
+    run_cecl = config.assumptions.run.model_copy(update={"frameworks": ["cecl"]})
+    cecl = config.model_copy(update={"assumptions": config.assumptions.model_copy(update={"run": run_cecl})})
+    accepted = read_tape(tape, cecl).accepted
+    poci = accepted[accepted["credit_impaired_at_purchase"].astype(bool)].copy()
+    poci["lifetime_ecl_at_purchase"] = np.nan  # measured, not given
+    loans = run(poci, config).loans
+    return {str(i): f"{v:.2f}" for i, v in zip(loans["loan_id"], loans["purchase_ecl_ifrs9"])}
 
 
 def calibrated(out_dir: Path, quarter: str, history_path: Path, policy: Path, macro: Path) -> list[Path]:

@@ -270,10 +270,12 @@ def test_staging_inputs_are_present(q3):
     # the PDs by grade are calibrated from the history, one per grade
     a = _assumptions(MANIFEST["current"]["assumptions"])["segments"]
     assert all(set(a[s]["pd_12m_by_grade"]) == set("ABCDE") for s in ("auto", "personal"))
-    # the loan's own current PD (a behavioural score) for the scored segments, none for CRE
-    scored = q3.segment != "cre"
+    # the loan's own current PD (a behavioural score) for the scored segments (graded: auto and
+    # personal), none for the segments on a curve by age or bucket, nor for CRE
+    scored = q3.segment.isin(["auto", "personal"])
     assert q3.loc[scored, "pd_12m_current"].between(0, 1, inclusive="neither").all()
-    assert q3.loc[~scored, "pd_12m_current"].isna().all()
+    assert q3.loc[~scored & ~poci, "pd_12m_current"].isna().all()
+    assert q3.loc[poci, "pd_12m_current"].notna().all()  # a purchased credit-impaired loan is scored
     booked = pd.to_datetime(q3["origination_date"]) > "2026-06-30"
     same = q3.loc[booked & scored]
     assert (same["pd_12m_current"] == same["pd_12m_at_origination"]).all()  # booked this quarter: unchanged
