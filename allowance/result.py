@@ -42,15 +42,17 @@ def totals_table(loans: pd.DataFrame, frameworks: list[str]) -> pd.DataFrame:
     One row per framework, stage and segment, then one per framework and stage over all
     segments, then the framework's total (``segment`` and ``stage`` "Total"). Columns
     ``framework, stage, segment, loans, balance, allowance, coverage``; money is the sum of
-    the rounded loan figures in whole cents. ``stage`` is "1", "2", "3" for IFRS 9 and
-    "Total" for a framework without stages.
+    the rounded loan figures in whole cents. ``stage`` is "1", "2", "3" or "POCI" for IFRS 9
+    (the one stage vocabulary: purchased or originated credit-impaired loans are their own
+    class, IFRS 7 35H(c), whatever their stage) and "Total" for a framework without stages.
 
     Examples
     --------
-    >>> loans = pd.DataFrame({"segment": ["auto", "auto", "card"], "stage": [1, 2, 1],
-    ...                       "balance": [100.0, 50.0, 10.0], "ecl_ifrs9": [1.0, 5.0, 0.5]})
+    >>> loans = pd.DataFrame({"segment": ["auto", "auto", "card", "card"], "stage": [1, 2, 1, 2],
+    ...                       "poci": [False, False, False, True],
+    ...                       "balance": [100.0, 50.0, 10.0, 8.0], "ecl_ifrs9": [1.0, 5.0, 0.5, -0.25]})
     >>> totals_table(loans, ["ifrs9"])[["stage", "segment", "allowance"]].values.tolist()
-    [['1', 'auto', 1.0], ['1', 'card', 0.5], ['2', 'auto', 5.0], ['1', 'Total', 1.5], ['2', 'Total', 5.0], ['Total', 'Total', 6.5]]
+    [['1', 'auto', 1.0], ['1', 'card', 0.5], ['2', 'auto', 5.0], ['POCI', 'card', -0.25], ['1', 'Total', 1.5], ['2', 'Total', 5.0], ['POCI', 'Total', -0.25], ['Total', 'Total', 6.25]]
     """
     rows = []
     for fw in frameworks:
@@ -59,6 +61,8 @@ def totals_table(loans: pd.DataFrame, frameworks: list[str]) -> pd.DataFrame:
             continue
         staged = rules_for(fw).staged and "stage" in loans.columns
         stage = loans["stage"].astype("Int64").astype(str) if staged else pd.Series(TOTAL, index=loans.index)
+        if staged and "poci" in loans.columns:  # POCI apart from stages 2 and 3, as run.json and the workbook
+            stage = stage.where(~loans["poci"].astype(bool), "POCI")
         frame = pd.DataFrame({"stage": stage.to_numpy(), "segment": loans["segment"].astype(str).to_numpy(),
                               "balance": loans["balance"].to_numpy(), "allowance": loans[column].to_numpy()})
         groups = [(["stage", "segment"], None)] if not staged else [(["stage", "segment"], None), (["stage"], TOTAL)]

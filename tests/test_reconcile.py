@@ -397,8 +397,12 @@ def test_what_if_by_segment_stage_and_scenario():
     total = s[s["view"] == "total"].iloc[0]
     assert (total["base"], total["what_if"], total["difference"]) == (6.0, 17.0, 11.0)
     by = s[s["view"] == "segment and stage"].set_index(["segment", "stage"])
-    assert by.loc[("auto", 1), "base"] == 3.0 and by.loc[("auto", 1), "what_if"] == 2.0
-    assert by.loc[("auto", 2), "base"] == 0.0 and by.loc[("auto", 2), "what_if"] == 9.0
+    # the stage column is the one vocabulary's class: "1", "2", "3", or "POCI" apart
+    assert by.loc[("auto", "1"), "base"] == 3.0 and by.loc[("auto", "1"), "what_if"] == 2.0
+    assert by.loc[("auto", "2"), "base"] == 0.0 and by.loc[("auto", "2"), "what_if"] == 9.0
+    poci = what_if_comparison(base.assign(poci=[False, False, True]), alt.assign(poci=[False, False, True]),
+                              ["ifrs9"]).summary
+    assert set(poci.loc[poci["view"] == "segment and stage", "stage"]) == {"1", "2", "POCI"}
     scen = s[s["view"] == "scenario"].set_index("scenario")
     assert scen.loc["downside", "difference"] == 0.0
     assert w.stage_changes["loan_id"].tolist() == ["b"]

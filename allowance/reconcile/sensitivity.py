@@ -28,7 +28,7 @@ __all__ = ["SENSITIVITY_COLUMNS", "sensitivity_table", "single_scenario"]
 
 SENSITIVITY_COLUMNS = [
     "framework", "scenario", "weight", "allowance_modelled", "overlays", "allowance",
-    "difference_from_weighted", "difference_pct", "stage_1", "stage_2", "stage_3",
+    "difference_from_weighted", "difference_pct", "stage_1", "stage_2", "stage_3", "poci",
     "loans_stage_2", "loans_stage_3",
 ]
 
@@ -74,11 +74,14 @@ def _row(frame: pd.DataFrame, framework: str, scenario: str, weight: float) -> d
            "overlays": _cents(frame, f"overlay_{framework}"),
            "allowance": _cents(frame, f"ecl_{framework}")}
     staged = rules_for(framework).staged and "stage" in frame.columns
+    # the one stage vocabulary: POCI loans are their own class, not in stage 2 or 3
+    poci = frame["poci"].astype(bool).to_numpy() if staged and "poci" in frame.columns else np.zeros(len(frame), bool)
     for s in (1, 2, 3):
-        mask = frame["stage"].to_numpy() == s if staged else None
+        mask = (frame["stage"].to_numpy() == s) & ~poci if staged else None
         row[f"stage_{s}"] = _cents(frame[mask], f"ecl_{framework}") if staged else np.nan
-    row["loans_stage_2"] = int((frame["stage"] == 2).sum()) if staged else np.nan
-    row["loans_stage_3"] = int((frame["stage"] == 3).sum()) if staged else np.nan
+    row["poci"] = _cents(frame[poci], f"ecl_{framework}") if staged else np.nan
+    row["loans_stage_2"] = int(((frame["stage"] == 2).to_numpy() & ~poci).sum()) if staged else np.nan
+    row["loans_stage_3"] = int(((frame["stage"] == 3).to_numpy() & ~poci).sum()) if staged else np.nan
     return row
 
 
@@ -102,7 +105,7 @@ def sensitivity_table(weighted: pd.DataFrame, alone: Mapping[str, pd.DataFrame],
         weight`` (the scenario's weight in the weighted run), ``allowance_modelled,
         overlays, allowance`` (after overlays), ``difference_from_weighted`` and
         ``difference_pct`` (of the weighted allowance), and for IFRS 9 the allowance by
-        stage and the loans in stages 2 and 3 (blank for CECL). Money is the sum of the
+        class (stage 1, 2, 3 and POCI apart) and the loans in stages 2 and 3 (blank for CECL). Money is the sum of the
         loans' rounded figures.
 
     Examples
@@ -127,7 +130,7 @@ def sensitivity_table(weighted: pd.DataFrame, alone: Mapping[str, pd.DataFrame],
                                      if reference["allowance"] else np.nan)
     out = pd.DataFrame(rows, columns=SENSITIVITY_COLUMNS)
     for money in ("allowance_modelled", "overlays", "allowance", "difference_from_weighted",
-                  "stage_1", "stage_2", "stage_3"):
+                  "stage_1", "stage_2", "stage_3", "poci"):
         out[money] = out[money].astype(float) / 100.0
     out["difference_pct"] = out["difference_pct"].astype(float)
     return out

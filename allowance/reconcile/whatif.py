@@ -40,6 +40,16 @@ def _scenario_columns(frame: pd.DataFrame, framework: Framework) -> list[str]:
     return [c for c in frame.columns if c.startswith(prefix) and c != prefix + "modelled"]
 
 
+def _classed(loans: pd.DataFrame, staged: bool) -> pd.DataFrame:
+    """The loans with ``stage`` as the one vocabulary's class: 1, 2, 3, or "POCI" apart."""
+    if not staged or "stage" not in loans.columns:
+        return loans
+    stage = loans["stage"].astype("Int64").astype(str)
+    if "poci" in loans.columns:
+        stage = stage.where(~loans["poci"].astype(bool), "POCI")
+    return loans.assign(stage=stage)
+
+
 def what_if_comparison(base: pd.DataFrame, what_if: pd.DataFrame, frameworks: list[Framework]) -> WhatIf:
     """Allowance by segment, stage and scenario, base against what-if, and the loans whose stage moved.
 
@@ -77,12 +87,12 @@ def what_if_comparison(base: pd.DataFrame, what_if: pd.DataFrame, frameworks: li
                      "base": int(cents(base, col).sum()), "what_if": int(cents(what_if, col).sum())})
         staged = rules_for(f).staged
         keys = ["segment"] + (["stage"] if staged else [])
-        b = base.assign(_c=cents(base, col)).groupby(keys)["_c"].sum()
-        w = what_if.assign(_c=cents(what_if, col)).groupby(keys)["_c"].sum()
+        b = _classed(base, staged).assign(_c=cents(base, col)).groupby(keys)["_c"].sum()
+        w = _classed(what_if, staged).assign(_c=cents(what_if, col)).groupby(keys)["_c"].sum()
         both = pd.concat({"base": b, "what_if": w}, axis=1).fillna(0).astype(np.int64).reset_index()
         for r in both.itertuples(index=False):
             rows.append({"framework": f, "view": "segment and stage", "segment": r.segment,
-                         "stage": int(r.stage) if staged else "", "scenario": "",
+                         "stage": r.stage if staged else "", "scenario": "",
                          "base": r.base, "what_if": r.what_if})
         scen_b, scen_w = _scenario_columns(base, f), _scenario_columns(what_if, f)
         for sc in dict.fromkeys(scen_b + scen_w):
