@@ -30,12 +30,13 @@ import time
 import tomllib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
+from datetime import date
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
-from allowance import cashflows, engine, intake, macro, reconcile, report
+from allowance import cashflows, disclosure, engine, intake, macro, reconcile, report
 from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
 from allowance.report import clock
 from allowance.result import CheckResult, Result
@@ -172,13 +173,29 @@ class _Prior:
     source: str
 
 
-def _prior(prior: str | os.PathLike | Result) -> tuple[_Prior, list]:
+def _prior(prior: str | os.PathLike | Result, role: str = "prior") -> tuple[_Prior, list]:
     if isinstance(prior, Result):
-        return _Prior(prior.loans, prior.record, "the prior result"), []
+        return _Prior(prior.loans, prior.record, f"the {role} result"), []
     folder = Path(prior)
-    previous = intake.read_prior_run(folder)
+    previous = intake.read_prior_run(folder, role)
     return _Prior(previous.loans, previous.record, str(folder / "loans.csv")), [
         intake.file_record(folder / "loans.csv", "prior"), intake.file_record(folder / "run.json", "prior")]
+
+
+def _record_as_of(record: Mapping[str, Any] | None) -> date | None:
+    """A finished run's as-of date from its run record (None when it has none)."""
+    try:
+        return date.fromisoformat(str((record or {})["as_of"])[:10])
+    except (KeyError, ValueError):
+        return None
+
+
+def _method_changes(prior_record: Mapping[str, Any] | None, current: Mapping[str, Any] | None):
+    """The models or methods that changed between two runs' assumptions (None: not known)."""
+    before = (prior_record or {}).get("assumptions")
+    if not before or current is None:
+        return None
+    return reconcile.method_changes(before, current)
 
 
 def _charge_offs(charge_offs: str | os.PathLike | pd.DataFrame | None) -> tuple[pd.DataFrame | None, list, str | None]:
@@ -324,6 +341,8 @@ def run(
 
     movements = None
     at_prior = None
+    previous = None
+    cos = None
     if prior is not None:
         told("prior", 0, 1)
         previous, prior_inputs = _prior(prior)
@@ -336,6 +355,8 @@ def run(
             current_at_prior_assumptions=None if at_prior is None else at_prior.loans,
             frameworks=[fw for fw in config.frameworks if fw in _prior_frameworks(previous.record)],
             sources={"prior": previous.source, "current": "this run", **({"charge_offs": co_source} if co_source else {})},
+            prior_as_of=_record_as_of(previous.record), current_as_of=config.as_of,
+            method_changes=_method_changes(previous.record, config.assumptions.model_dump(mode="json")),
         )
         told("prior", 1, 1)
 
@@ -349,8 +370,10 @@ def run(
     record = report.run_record(config, taken, result.loans, tie_out=tie, warnings=warnings,
                                movements=tuple((movements or {}).values()), started=started_at,
                                extra={"arguments": arguments})
+    disclosures = disclosure.disclosure_tables(result.loans, config.as_of, config.frameworks, charge_offs=cos,
+                                               prior_loans=None if previous is None else previous.loans)
     run_report = report.RunReport(
-        config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays,
+        config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays, disclosures=disclosures,
         scenarios=result.scenarios, term_structures=result.term_structures,
         roll_rates=result.roll_rates, reversion=result.reversion, schedules=result.schedules,
         sensitivity=sensitivity, macro_paths=macro_paths, what_if_paths=what_if_paths, pd_paths=result.pd_paths,
@@ -448,12 +471,14 @@ def compare(prior: str | os.PathLike | Result, current: str | os.PathLike | Resu
             charge_offs: str | os.PathLike | pd.DataFrame | None = None) -> dict[str, reconcile.Movement]:
     """The allowance movement between two finished runs (output folders or results), per framework."""
     before, _ = _prior(prior)
-    after, _ = _prior(current)
+    after, _ = _prior(current, "current")
     cos, _, _ = _charge_offs(charge_offs)
     frameworks = [fw for fw in _prior_frameworks(after.record) if fw in _prior_frameworks(before.record)]
     return reconcile.compare_runs(before.loans, after.loans, charge_offs=cos, frameworks=frameworks,
                                   sources={"prior": str(prior) if not isinstance(prior, Result) else "prior",
-                                           "current": str(current) if not isinstance(current, Result) else "current"})
+                                           "current": str(current) if not isinstance(current, Result) else "current"},
+                                  prior_as_of=_record_as_of(before.record), current_as_of=_record_as_of(after.record),
+                                  method_changes=_method_changes(before.record, (after.record or {}).get("assumptions")))
 
 
 # --------------------------------------------------------------------------------------

@@ -302,7 +302,7 @@ def _print_summary(result: Result, out: Path, seconds: float, files: list[Path] 
         line = f"allowance {fw.upper():6s} {summary['allowance'][fw]:>18,.2f}"
         stages = summary["by_stage"][fw]
         if stages:
-            line += "   " + "  ".join(f"stage {s} {_money(v)}" for s, v in stages.items())
+            line += "   " + "  ".join(f"{s if s == 'POCI' else 'stage ' + s} {_money(v)}" for s, v in stages.items())
         _say(line)
     for fw, alone in summary["each_scenario_at_100_percent"].items():
         _say(f"  {fw.upper()} with each scenario at 100 %: " + "  ".join(f"{s} {_money(v)}" for s, v in alone.items()))
@@ -804,14 +804,19 @@ def compare(
     charge_offs: Annotated[
         Path | None, typer.Option("--charge-offs", metavar="FILE", help="The period's write-offs file.")
     ] = None,
+    out: Annotated[
+        Path | None, typer.Option("--out", metavar="DIR", help="Write movement.csv, movement_loans.csv and "
+                                  "movement_not_isolated.csv to this folder.")
+    ] = None,
 ) -> None:
     """Explain the allowance movement between two finished runs, loan by loan."""
     _mode("compare")
-    from allowance import api
+    from allowance import api, report
     from allowance.exceptions import AllowanceError
 
     try:
         moves = api.compare(prior, current, charge_offs=charge_offs)
+        written = report.write_movement(out, moves.values()) if out is not None else []
     except AllowanceError as err:
         _fail(err)
     import pandas as pd
@@ -820,6 +825,10 @@ def compare(
         for fw, mv in moves.items():
             _say(f"-- {fw.upper()} allowance movement")
             _say(mv.allowance.to_string(index=False))
+            for text in mv.not_isolated:  # what two finished runs cannot separate, and why
+                _say(f"not isolated: {text}")
+    if written:
+        _say(f"wrote {out}: {', '.join(p.name for p in written)}")
 
 
 @app.command()

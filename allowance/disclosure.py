@@ -6,6 +6,7 @@ credit_quality    each loan's credit quality indicator: its grade, else a days-p
 ifrs7_35m         gross carrying amount by credit grade and stage (stage 1/2/3, POCI)
 asc326_vintage    amortised cost by credit quality indicator and year of origination, with the
                   period's gross write-offs by year of origination (ASU 2022-02)
+disclosure_tables the tables a run's frameworks ask for, by name (``ifrs7_35m``, ``asc326_vintage``)
 
 Both are sums of the rounded loan figures in whole cents, so each foots to the run's total
 balance. The gross carrying amount and the amortised cost are the tape's outstanding
@@ -29,9 +30,10 @@ from datetime import date
 import numpy as np
 import pandas as pd
 
+from allowance.frameworks import rules_for
 from allowance.staging import STAGE_CLASSES, stage_class
 
-__all__ = ["DPD_BANDS", "asc326_vintage", "credit_quality", "ifrs7_35m"]
+__all__ = ["DPD_BANDS", "asc326_vintage", "credit_quality", "disclosure_tables", "ifrs7_35m"]
 
 #: Days-past-due bands used as the credit quality indicator where there is no grade.
 DPD_BANDS: tuple[tuple[int, str], ...] = (
@@ -181,3 +183,49 @@ def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | 
     money = [*columns, "total"]
     out[money] = out[money].astype(np.int64) / 100.0
     return out[["segment", "row", "credit_quality", "basis", *money]]
+
+
+def disclosure_tables(loans: pd.DataFrame, as_of: date, frameworks, *, charge_offs: pd.DataFrame | None = None,
+                      prior_loans: pd.DataFrame | None = None) -> dict[str, pd.DataFrame]:
+    """The disclosure tables of a run: IFRS 7 35M where a framework stages loans, ASC 326-20-50-6
+    where one measures lifetime losses without stages.
+
+    Parameters
+    ----------
+    loans : DataFrame
+        The run's loan results (``loans.csv``: ``segment, grade, days_past_due,
+        origination_date, repayment, stage, poci, balance``).
+    as_of : date
+        The reporting date.
+    frameworks : sequence of str
+        The run's frameworks.
+    charge_offs, prior_loans : DataFrame, optional
+        The period's charge-offs (``loan_id, segment, gross_charge_off``) and the prior run's
+        loans, whose ``origination_date`` and ``repayment`` place each write-off in its
+        vintage (a loan in neither run is under ``unknown``).
+
+    Examples
+    --------
+    >>> loans = pd.DataFrame({"segment": "auto", "grade": ["A", "B"], "days_past_due": 0, "stage": [1, 2],
+    ...                       "poci": False, "balance": [100.0, 50.0], "repayment": "level",
+    ...                       "origination_date": ["2026-02-01", "2024-05-01"]})
+    >>> sorted(disclosure_tables(loans, date(2026, 9, 30), ["ifrs9", "cecl"]))
+    ['asc326_vintage', 'ifrs7_35m']
+    """
+    rules = [rules_for(f) for f in frameworks]
+    out: dict[str, pd.DataFrame] = {}
+    if any(r.staged for r in rules) and "stage" in loans.columns:
+        out["ifrs7_35m"] = ifrs7_35m(loans)
+    if any(not r.staged for r in rules) and "origination_date" in loans.columns:
+        write_offs = None
+        if charge_offs is not None and len(charge_offs):
+            write_offs = charge_offs[["loan_id", "segment", "gross_charge_off"]].copy()
+            known = [x for x in (prior_loans, loans) if x is not None and "origination_date" in x.columns]
+            if known:
+                where = pd.concat([x[["loan_id", "origination_date", "repayment"]] for x in known], ignore_index=True)
+                where = where.drop_duplicates("loan_id", keep="first").astype({"loan_id": str})
+                write_offs = write_offs.astype({"loan_id": str}).merge(where, on="loan_id", how="left")
+            else:
+                write_offs["origination_date"], write_offs["repayment"] = pd.NaT, ""
+        out["asc326_vintage"] = asc326_vintage(loans, as_of, write_offs)
+    return out

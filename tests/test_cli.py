@@ -247,10 +247,19 @@ def test_roll_rates_print_each_bucket():
 
 
 @pytest.mark.slow
-def test_compare_two_finished_runs(demo_out):
-    result = invoke("compare", demo_out / "prior_quarter", demo_out)
+def test_compare_two_finished_runs(demo_out, tmp_path):
+    result = invoke("compare", demo_out / "prior_quarter", demo_out, "--out", tmp_path / "moved")
     assert result.exit_code == 0, result.output
     assert "Opening" in result.output and "Closing" in result.output
+    # it says which lines two finished runs cannot separate, and why, and writes --out
+    assert "not isolated: changes in assumptions or scenarios" in result.output
+    assert {p.name for p in (tmp_path / "moved").iterdir()} == {
+        "movement.csv", "movement_loans.csv", "movement_not_isolated.csv"}
+    # a prior later than the current run is refused; a missing current folder is named as such
+    backwards = invoke("compare", demo_out, demo_out / "prior_quarter")
+    assert backwards.exit_code == 1 and "later than the current run" in backwards.output
+    missing = invoke("compare", demo_out / "prior_quarter", tmp_path / "nowhere")
+    assert missing.exit_code == 1 and "the current run folder was not found" in missing.output
 
 
 @pytest.mark.slow

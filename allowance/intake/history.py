@@ -181,8 +181,11 @@ def read_run_record(path: Path) -> dict:
 _TEXT_COLUMNS = {n for n, f in FIELDS.items() if f.kind in ("text", "choice")} | {"stage_reason"}
 
 
-def read_prior_run(folder: Path) -> PriorRun:
+def read_prior_run(folder: Path, role: str = "prior") -> PriorRun:
     """Read ``loans.csv`` and ``run.json`` from a previous run's output folder.
+
+    ``role`` names the folder in messages (``prior``, or ``current`` for the later run of
+    ``allowance compare``).
 
     ``loan_id`` and the other text columns are read as text; every numeric column as float64.
 
@@ -193,12 +196,13 @@ def read_prior_run(folder: Path) -> PriorRun:
     """
     folder = Path(folder)
     if not folder.is_dir():
-        raise InputFileError("the prior run folder was not found", file=folder, hint="give the --out folder of that run")
+        raise InputFileError(f"the {role} run folder was not found", file=folder,
+                             hint="give the --out folder of that run")
     loans_path, record_path = folder / "loans.csv", folder / "run.json"
     for needed in (loans_path, record_path):
         if not needed.is_file():
             raise InputFileError(
-                "not found in the prior run folder", file=needed, hint="give the --out folder of a completed run"
+                f"not found in the {role} run folder", file=needed, hint="give the --out folder of a completed run"
             )
     record = read_run_record(record_path)
     try:

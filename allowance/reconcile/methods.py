@@ -5,7 +5,7 @@ Implements
 method_changes   per segment (``"*"``: every segment), the method keys that changed
 
 A *method* is the choice of how a figure is computed, not its parameters: the PD source
-(``pd_12m``, ``pd_curve``, a roll-rate matrix...), collateral-based or flat LGD, the
+(``pd_12m``, ``pd_curve``, a roll-rate matrix...) or loss-rate method, collateral-based or flat LGD, the
 prepayment source, how scenarios move PDs (multipliers or a z path), CECL discounting and
 reversion, the IFRS 9 PD-ratio measure. A change of parameters (a PD of 2 % becoming 2.5 %)
 is a change in assumptions. IFRS 7 35I(a)/B8D and ASC 326-20-50-11(c) ask for changes in
@@ -16,9 +16,12 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
+from allowance.schemas import PD_SOURCE_KEYS
+
 __all__ = ["method_changes"]
 
-_PD_SOURCES = ("pd_12m", "pd_12m_by_grade", "pd_curve", "pd_curve_by_grade", "transition_matrix")
+#: the keys that carry a segment's credit-loss estimate: a PD source, or a loss rate (ASC 326-20-30-3)
+_PD_SOURCES = (*PD_SOURCE_KEYS, "lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve")
 _PREPAYMENT = ("cpr", "psa", "cpr_by_age")
 
 

@@ -14,13 +14,14 @@ clock                               the run's timestamps (SOURCE_DATE_EPOCH hono
 OUTPUT_FILES, SHEETS                the files and sheet names
 """
 
-from allowance.report.files import OUTPUT_FILES, OutputPaths, check_output_path, write_outputs
+from allowance.report.files import OUTPUT_FILES, OutputPaths, check_output_path, write_movement, write_outputs
 from allowance.report.record import CAUTION, RunReport, money_total, run_record
 from allowance.text import FORMULA_PREFIXES, neutralise_frame, neutralise_text
 from allowance.report.workbook import SHEETS, write_summary_workbook, write_workbook
 
 __all__ = [
     "CAUTION", "FORMULA_PREFIXES", "OUTPUT_FILES", "SHEETS", "OutputPaths", "RunReport", "check_output_path",
-    "money_total", "neutralise_frame", "neutralise_text", "run_record", "write_outputs", "write_summary_workbook",
+    "money_total", "neutralise_frame", "neutralise_text", "run_record", "write_movement", "write_outputs",
+    "write_summary_workbook",
     "write_workbook",
 ]

@@ -36,7 +36,10 @@ from allowance.report.swap import replace_folder
 from allowance.report.workbook import write_summary_workbook, write_workbook
 from allowance.text import neutralise_frame, neutralise_table
 
-__all__ = ["CHECK_FILES", "OUTPUT_FILES", "OutputPaths", "check_output_path", "write_check_outputs", "write_outputs"]
+__all__ = [
+    "CHECK_FILES", "OUTPUT_FILES", "OutputPaths", "check_output_path", "write_check_outputs", "write_movement",
+    "write_outputs",
+]
 
 OUTPUT_FILES: tuple[str, ...] = (
     "loans.csv", "loans.parquet", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv",
@@ -174,6 +177,28 @@ def check_output_path(out_dir: Path, inputs: Iterable[str | Path] = ()) -> None:
         if path.resolve().parent == target:
             raise OutputError(f"the input file {path.name!r} is in the output folder, which a run replaces",
                               file=out_dir, hint="write the outputs to a folder of their own, e.g. --out q3-out")
+
+
+def write_movement(out_dir: Path, movements) -> list[Path]:
+    """Write the movement between two finished runs (``allowance compare --out``).
+
+    ``movement.csv`` and ``movement_loans.csv`` as a run writes them, and
+    ``movement_not_isolated.csv``: each line the inputs could not isolate, and why.
+    """
+    out_dir = Path(out_dir)
+    check_output_path(out_dir, [])
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        moves = list(movements)
+        paths = [out_dir / "movement.csv", out_dir / "movement_loans.csv", out_dir / "movement_not_isolated.csv"]
+        _csv(pd.concat([m.to_long() for m in moves], ignore_index=True), paths[0])
+        _csv(pd.concat([m.loans.assign(framework=m.framework)[["framework", *m.loans.columns]] for m in moves],
+                       ignore_index=True), paths[1])
+        _csv(pd.DataFrame([{"framework": m.framework, "not_isolated": text} for m in moves for text in m.not_isolated],
+                          columns=["framework", "not_isolated"]), paths[2])
+    except OSError as err:
+        raise OutputError(f"cannot be written ({err.strerror or err})", file=out_dir) from err
+    return paths
 
 
 def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) -> list[Path]:
