@@ -33,6 +33,19 @@ def test_demo_writes_the_four_files(demo_out):
 
 
 @pytest.mark.slow
+def test_demo_writes_the_disclosure_tables_that_foot_to_the_book(demo_out):
+    # IFRS 7 35M and ASC 326-20-50-6 (with the period's gross write-offs by vintage, ASU 2022-02)
+    loans = pd.read_csv(demo_out / "loans.csv", low_memory=False)
+    book = int(np.rint(loans["balance"] * 100).sum())
+    by_stage = pd.read_csv(demo_out / "disclosure_ifrs7_35m.csv")
+    assert round(by_stage.iloc[-1]["total"] * 100) == book
+    assert round(by_stage.iloc[-1]["POCI"] * 100) == int(np.rint(loans.loc[loans["poci"], "balance"] * 100).sum())
+    vintage = pd.read_csv(demo_out / "disclosure_asc326_vintage.csv")
+    assert round(vintage.loc[vintage["row"] == "amortised cost", "total"].sum() * 100) == book
+    assert vintage.loc[vintage["row"] == "gross write-offs", "total"].sum() > 0
+
+
+@pytest.mark.slow
 def test_rows_read_equal_accepted_plus_rejected(demo_out):
     record = json.loads((demo_out / "run.json").read_text())
     rows = record["rows"]
