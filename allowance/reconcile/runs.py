@@ -164,9 +164,20 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
     isolated); ``method_changed`` the segments whose model or method changed (``"*"``: all);
     ``gross_up`` whether the framework grosses up a PCD asset's purchase-date allowance.
     """
-    keys = p.index.union(c.index, sort=False).union(co.index, sort=False)
+    # integer keys from one hash pass over every run's ids: set operations and reindexing on
+    # text keys (Arrow-backed strings) cost a Python step per element, minutes on a large book
+    frames = [p, c, co] + ([a] if a is not None else [])
+    ids = [f.index.to_numpy(dtype=object) for f in frames]
+    codes, names = pd.factorize(np.concatenate(ids) if ids else np.array([], dtype=object))
+    bounds = np.cumsum([0, *map(len, ids)])
+    p, c, co, *rerun = (f.set_axis(codes[bounds[i]:bounds[i + 1]]) for i, f in enumerate(frames))
+    a = rerun[0] if rerun else None
+    # codes are numbered in order of first appearance: the prior run's loans, then the new
+    # ones, then loans only charged off (the order of the union of the text keys)
+    n_keys = int(codes[:bounds[3]].max()) + 1 if bounds[3] else 0
+    keys = np.arange(n_keys)
     pr, cu, ch = p.reindex(keys), c.reindex(keys), co.reindex(keys)
-    in_p, in_c, in_co = keys.isin(p.index), keys.isin(c.index), keys.isin(co.index)
+    in_p, in_c, in_co = (np.bincount(f.index.to_numpy(), minlength=n_keys)[:n_keys] > 0 for f in (p, c, co))
 
     def ints(frame: pd.DataFrame, col: str) -> np.ndarray:
         return frame[col].fillna(0).to_numpy(dtype=np.int64)
@@ -216,13 +227,13 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
     # from the charge-off file when it has one, else it is shown apart
     orphan = ~(in_p | in_c) & pd.isna(pd.Series(seg_any)).to_numpy()
     seg_any = np.where(orphan, UNASSIGNED_SEGMENT, seg_any)
-    ids = np.where(in_c, cu["loan_id"].to_numpy(dtype=object), pr["loan_id"].to_numpy(dtype=object))
-    ids = np.where(pd.isna(pd.Series(ids)).to_numpy(), keys.to_numpy(dtype=object), ids)
+    loan_ids = np.where(in_c, cu["loan_id"].to_numpy(dtype=object), pr["loan_id"].to_numpy(dtype=object))
+    loan_ids = np.where(pd.isna(pd.Series(loan_ids, dtype=object)).to_numpy(), names[:n_keys].astype(object), loan_ids)
     status = np.select([cont, new, written, derec], ["continuing", "new", "written off", "derecognised"],
                        "charged off outside both runs")
     return pd.DataFrame(
         {
-            "loan_id": ids,
+            "loan_id": loan_ids,
             "status": status,
             "segment_prior": seg_p,
             "segment": seg_c,

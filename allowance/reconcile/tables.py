@@ -87,17 +87,32 @@ def _slug(label: str) -> str:
 
 def _ledger(bridge: pd.DataFrame, dims: tuple[str, ...], body: tuple[str, ...], prefix: str,
             transfer_line: np.ndarray) -> pd.DataFrame:
-    """Long entries ``dims..., line, cents``: each amount in the cell its loan sits in.
+    """Entries ``dims..., line, cents`` summed per cell and line: each amount in the cell its loan sits in.
 
     Opening, write-offs, derecognition and the transfer out sit in the prior cell; the rest
-    in the current cell.
+    in the current cell. The loan-level entries are kept as integer codes (each dimension
+    factorised once over both sides) and summed in exact int64 before any text is attached:
+    a row of text per loan and line cost seconds to build on a large book.
     """
-    parts = []
+    side_codes: dict[str, dict[str, np.ndarray]] = {}
+    dim_names: dict[str, np.ndarray] = {}
+    for d in dims:
+        prior, current = bridge[d + "_prior"].to_numpy(dtype=object), bridge[d].to_numpy(dtype=object)
+        codes, names = pd.factorize(np.concatenate([prior, current]), use_na_sentinel=False)
+        side_codes[d] = {"prior": codes[:len(prior)], "current": codes[len(prior):]}
+        dim_names[d] = np.asarray(names, dtype=object)
+    line_names: list[str] = []
+    parts: list[tuple[np.ndarray, str, np.ndarray, np.ndarray]] = []
 
     def add(mask: np.ndarray, side: str, line: str | np.ndarray, values: np.ndarray) -> None:
-        cells = {d: bridge[d + ("_prior" if side == "prior" else "")].to_numpy(dtype=object)[mask] for d in dims}
-        lines = line[mask] if isinstance(line, np.ndarray) else np.full(int(mask.sum()), line, dtype=object)
-        parts.append(pd.DataFrame({**cells, "line": lines, "cents": values[mask]}))
+        if isinstance(line, np.ndarray):
+            codes, names = pd.factorize(line[mask])
+            line_codes = np.asarray(codes, dtype=np.int64) + len(line_names)
+            line_names.extend(str(n) for n in names)
+        else:
+            line_codes = np.full(int(mask.sum()), len(line_names), dtype=np.int64)
+            line_names.append(line)
+        parts.append((mask, side, line_codes, values[mask]))
 
     in_p, in_c = bridge["in_prior"].to_numpy(), bridge["in_current"].to_numpy()
     col = lambda name: bridge[prefix + name].to_numpy(dtype=np.int64)  # noqa: E731
@@ -113,7 +128,16 @@ def _ledger(bridge: pd.DataFrame, dims: tuple[str, ...], body: tuple[str, ...], 
     for line in body:
         add(in_c, "current", line, col(line))
     add(in_c, "current", "closing", col("closing"))
-    return pd.concat(parts, ignore_index=True)
+    entries = pd.DataFrame({
+        **{d: np.concatenate([side_codes[d][side][mask] for mask, side, _, _ in parts]) for d in dims},
+        "line": np.concatenate([codes for _, _, codes, _ in parts]),
+        "cents": np.concatenate([values for _, _, _, values in parts]),
+    })
+    sums = entries.groupby([*dims, "line"], sort=False)["cents"].sum().reset_index()
+    out = {d: dim_names[d][sums[d].to_numpy()] for d in dims}
+    out["line"] = np.asarray(line_names, dtype=object)[sums["line"].to_numpy()]
+    out["cents"] = sums["cents"].to_numpy(dtype=np.int64)
+    return pd.DataFrame(out)
 
 
 def _transfer_lines(bridge: pd.DataFrame, dims: tuple[str, ...], class_dim: str | None) -> np.ndarray:
@@ -122,7 +146,10 @@ def _transfer_lines(bridge: pd.DataFrame, dims: tuple[str, ...], class_dim: str 
     line = np.full(len(bridge), "", dtype=object)
     if class_dim is not None and class_dim in dims:
         changed = cont & (bridge[class_dim + "_prior"].to_numpy(dtype=object) != bridge[class_dim].to_numpy(dtype=object))
-        dest = np.array(["" if pd.isna(k) else "transfer_to_" + _slug(str(k)) for k in bridge[class_dim]], dtype=object)
+        # one label per distinct class, not per loan
+        codes, kinds = pd.factorize(bridge[class_dim].to_numpy(dtype=object))
+        labels = np.array(["transfer_to_" + _slug(str(k)) for k in kinds] + [""], dtype=object)
+        dest = labels[codes]  # code -1 (no class: not in the current run) takes the last label, ""
         line = np.where(changed, dest, line)
     if "segment" in dims:
         seg_changed = cont & (bridge["segment_prior"].to_numpy(dtype=object) != bridge["segment"].to_numpy(dtype=object))
