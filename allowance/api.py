@@ -398,15 +398,32 @@ class Schedule:
     def __repr__(self) -> str:
         return f"<Schedule of loan {self.loan['loan_id']} ({len(self.table)} months)>\n{self.table.to_string(index=False)}"
 
+    @property
+    def ecl(self) -> float:
+        """The expected credit loss the engine books for the loan in this framework and scenario:
+        the sum of the ``ecl`` column (loans.csv's ``ecl_<framework>_<scenario>`` before
+        rounding; POCI before the ECL at purchase is taken off)."""
+        return float(self.table["ecl"].sum())
+
+    def write_csv(self, path: str | Path) -> Path:
+        """Write the table to ``path`` as CSV (``allowance schedule --csv``)."""
+        from allowance.report import write_table_csv
+
+        return write_table_csv(Path(path), self.table)
+
 
 def schedule(tape: Tape, assumptions: Source, loan: str, *, framework: Framework | None = None,
              scenario: str | None = None) -> Schedule:
     """One loan's projected schedule, contractual and expected, on the engine's own terms.
 
-    ``table`` has the columns ``loan_id, framework, scenario, month, opening_balance,
-    interest, scheduled_principal, closing_balance, expected_prepayment, expected_default,
-    survival, expected_balance``; ``framework`` defaults to the first listed, ``scenario`` to
-    the first.
+    ``table`` has the columns ``loan_id, framework, scenario, month, measurement,
+    opening_balance, interest, scheduled_principal, closing_balance, expected_prepayment,
+    expected_default, survival, expected_balance``, then what the engine booked month by month
+    over the allowance's horizon: ``ead, marginal_pd, refinance_pd, default_share, lgd,
+    discount_factor, gross_loss, ecl`` (:func:`allowance.engine.loan_schedule`; a loan whose
+    loss is booked now, in default or measured one by one, has one row, month 0). The ``ecl``
+    column sums to the loan's ``ecl_<framework>_<scenario>`` in loans.csv (:attr:`Schedule.ecl`).
+    ``framework`` defaults to the first listed, ``scenario`` to the first.
 
     Raises
     ------

@@ -732,8 +732,9 @@ def schedule(
     scenario: Annotated[
         str | None, typer.Option("--scenario", metavar="NAME", help="Scenario whose PDs are shown (default: the first).")
     ] = None,
+    csv: Annotated[Path | None, typer.Option("--csv", metavar="FILE", help="Also save the schedule to this CSV file.")] = None,
 ) -> None:
-    """Print one loan's projected schedule, contractual and expected, to check by hand."""
+    """Print one loan's schedule and what the engine booked for it, month by month, to check by hand."""
     _mode("schedule")
     from allowance import api
     from allowance.exceptions import AllowanceError
@@ -746,10 +747,18 @@ def schedule(
     _say(f"loan {loan}: {row['segment']}, {row['repayment']}, balance {row['balance']:,.2f}, "
          f"rate {row['interest_rate']:.4%}, {len(frame)} months; "
          f"{frame['framework'].iloc[0]} / scenario {frame['scenario'].iloc[0]}")
-    shown = frame.drop(columns=["loan_id", "framework", "scenario"])
+    shown = frame.drop(columns=["loan_id", "framework", "scenario", "measurement"], errors="ignore")
     money = "{:,.2f}".format
-    formats = {c: ("{:.6f}".format if c == "survival" else money) for c in shown.columns if c != "month"}
-    _say(shown.to_string(index=False, formatters=formats))
+    shares = {"survival", "marginal_pd", "refinance_pd", "default_share", "lgd", "discount_factor"}
+    formats = {c: ("{:.6f}".format if c in shares else money) for c in shown.columns if c != "month"}
+    _say(shown.to_string(index=False, formatters=formats, na_rep=""))
+    _say(f"ECL booked ({frame['measurement'].iloc[0]}): {scheduled.ecl:,.2f} = the loan's "
+         f"ecl_{frame['framework'].iloc[0]}_{frame['scenario'].iloc[0]} in loans.csv")
+    if csv is not None:
+        try:
+            _say(f"wrote {scheduled.write_csv(csv)}")
+        except AllowanceError as err:
+            _fail(err)
 
 
 @app.command("roll-rates")

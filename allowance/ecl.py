@@ -39,6 +39,8 @@ KernelInputs     the per-loan arrays and the tables the loop reads
 KernelResult     per loan, framework and scenario: ecl and gross loss, 12-month and lifetime,
                  pd_12m, pd_lifetime; ead, lgd
 expected_losses  check the inputs and run the loop
+MONTH_COLUMNS    the columns of loan_months
+loan_months      one loan's sum month by month (the schedule view of what the loop did)
 """
 
 from __future__ import annotations
@@ -49,6 +51,8 @@ import numba
 import numpy as np
 
 from allowance import jit
+import pandas as pd
+
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
 from allowance.curves.lgd import collateral_lgd, loss_given_default
 from allowance.curves.refinance import refinance_default
@@ -475,6 +479,91 @@ def _defaulted_losses(a: dict[str, np.ndarray], sums: np.ndarray) -> None:
     loss = ead[:, None] * np.where(column("collateral") > 0.0, secured, flat)
     sums[ECL_12M, i, f] = sums[ECL_LIFETIME, i, f] = loss
     sums[GROSS_12M, i, f] = sums[GROSS_LIFETIME, i, f] = ead[:, None]
+
+
+#: Columns of :func:`loan_months`.
+MONTH_COLUMNS: tuple[str, ...] = (
+    "month", "ead", "survival", "marginal_pd", "refinance_pd", "default_share", "lgd", "discount_factor",
+    "gross_loss", "ecl",
+)
+
+
+def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | None = None) -> pd.DataFrame:
+    """One loan's expected loss month by month, as the loop sums it (for people to check).
+
+    Columns (:data:`MONTH_COLUMNS`): ``month``; ``ead`` (exposure at the start of the month);
+    ``survival`` (:math:`S_{t-1}`); ``marginal_pd``; ``refinance_pd`` (q in the maturity
+    month); ``default_share`` (:math:`S_{t-1} pd_t`, plus the refinance failures at maturity);
+    ``lgd``; ``discount_factor``; ``gross_loss`` and ``ecl`` (the month's share of the gross
+    and the net loss, discounted). A loan whose loss event is certain now has one row, month 0:
+    PD 1, ECL = LGD × EAD. ``horizon`` cuts the months (an IFRS 9 stage 1 loan: 12); the
+    ``ecl`` column then sums to the loop's figure over that horizon. The same concept functions
+    as the loop (one loan, so plain Python: not a hot path).
+
+    Examples
+    --------
+    >>> one = lambda v, dt=float: np.array([v], dtype=dt)
+    >>> k = KernelInputs(
+    ...     code=one(0, np.int64), balance=one(1_200.0), rate=one(0.0), months_left=one(3, np.int64),
+    ...     io_left=one(0, np.int64), residual=one(0.0), payment=one(np.nan),
+    ...     curve=np.zeros((1, 1), np.int64), prepay=one(0, np.int64), prepay_offset=one(0, np.int64),
+    ...     in_default=np.zeros((1, 1), np.bool_), lgd=one(0.5), collateral=one(0.0), haircut=one(0.0),
+    ...     recovery_cost=one(0.0), lgd_floor=one(0.0), recovery_discount=np.ones((1, 1)), cure=one(0.0),
+    ...     refinance_pd=one(0.0), horizon=np.full((1, 1), 3, np.int64), ead_add=np.zeros((1, 1)),
+    ...     paydown=np.zeros((1, 1)), discount=np.ones((1, 1)), interest=np.zeros((1, 1)),
+    ...     pd=np.full((1, 1, 12, 1), 0.01), smm=np.zeros((1, 12)),
+    ...     lgd_multiplier=np.ones((1, 12, 1)), collateral_index=np.ones((1, 1, 12, 1)))
+    >>> m = loan_months(k, 0, 0, 0)
+    >>> print(m[["month", "ead", "default_share", "ecl"]].round(4).to_string(index=False))
+     month    ead  default_share    ecl
+         1 1200.0         0.0100 6.0000
+         2  800.0         0.0099 3.9600
+         3  400.0         0.0098 1.9602
+    >>> round(float(m["ecl"].sum()), 9) == round(float(expected_losses(k).ecl_lifetime[0, 0, 0]), 9)
+    True
+    """
+    a = dict(zip(_FIELDS, _checked_arrays(inputs)))
+    code, balance, rate = int(a["code"][i]), float(a["balance"][i]), float(a["rate"][i])
+    months_left, io_left, k = int(a["months_left"][i]), int(a["io_left"][i]), int(a["curve"][f, i])
+    add, v, interest = float(a["ead_add"][f, i]), float(a["discount"][f, i]), float(a["interest"][f, i])
+    p, off, q = int(a["prepay"][i]), int(a["prepay_offset"][i]), float(a["refinance_pd"][i])
+
+    def lgd_at(ead: float, t: int) -> float:
+        return loss_given_default(
+            ead, float(a["lgd"][i]), float(a["collateral"][i]), float(a["collateral_index"][f, k, t, s]),
+            float(a["haircut"][i]), float(a["recovery_cost"][i]), float(a["lgd_floor"][i]),
+            float(a["recovery_discount"][f, i]), float(a["cure"][i]), float(a["lgd_multiplier"][f, t, s]),
+        )
+
+    if a["in_default"][f, i]:
+        ead = balance + add
+        lgd = lgd_at(ead, 0)
+        row = [0, ead, 1.0, 1.0, 0.0, 1.0, lgd, 1.0, ead, ead * lgd]
+        return pd.DataFrame([row], columns=list(MONTH_COLUMNS)).astype({"month": np.int64})
+    level = contractual_payment(code, balance, rate, months_left, io_left, float(a["residual"][i]),
+                                float(a["payment"][i]))
+    growth, pay = path_terms(code, balance, rate, level, float(a["paydown"][f, i]))
+    h = int(a["horizon"][f, i]) if code == REVOLVING else min(int(a["horizon"][f, i]), months_left)
+    maturity = months_left - 1 if (q > 0.0 and code != REVOLVING) else -1
+    rows, x, annuity, df, alive = [], 1.0, 0.0, 1.0, 1.0
+    for t in range(h if horizon is None else min(h, horizon)):
+        if t < io_left:
+            bal = balance
+        else:
+            bal = balance_on_path(balance, x, annuity, pay)
+            x *= growth
+            annuity = annuity * growth + 1.0
+        ead, df = bal + add, df * v
+        lgd = lgd_at(ead, t)
+        start, marginal = alive, float(a["pd"][f, k, t, s])
+        share = alive * marginal
+        alive = (alive - share) * (1.0 - float(a["smm"][p, off + t]))
+        if t == maturity:
+            failed = refinance_default(alive, q)
+            share, alive = share + failed, alive - failed
+        rows.append([t + 1, ead, start, marginal, q if t == maturity else 0.0, share, lgd, df,
+                     share * default_loss(ead, 1.0, interest) * df, share * default_loss(ead, lgd, interest) * df])
+    return pd.DataFrame(rows, columns=list(MONTH_COLUMNS)).astype({"month": np.int64})
 
 
 _FIELDS = [f.name for f in fields(KernelInputs)]

@@ -232,13 +232,16 @@ def test_init_copies_the_templates(tmp_path):
     assert again.exit_code == 1
 
 
-def test_schedule_prints_a_loan_to_zero():
+def test_schedule_prints_a_loan_to_zero(tmp_path):
     tape = pd.read_csv(TAPE, dtype=str)
     loan = tape.loc[(tape["repayment"] == "level") & (tape["days_past_due"] == "0"), "loan_id"].iloc[0]
-    result = invoke("schedule", TAPE, "--assumptions", ASSUMPTIONS, "--loan", loan)
+    result = invoke("schedule", TAPE, "--assumptions", ASSUMPTIONS, "--loan", loan, "--csv", tmp_path / "s.csv")
     assert result.exit_code == 0, result.output
-    last = result.output.strip().splitlines()[-1].split()
-    assert last[4] == "0.00"  # closing balance at maturity
+    lines = result.output.strip().splitlines()
+    assert lines[-3].split()[4] == "0.00"  # closing balance at maturity
+    assert lines[-2].startswith("ECL booked (model): ") and lines[-1].startswith("wrote ")
+    saved = pd.read_csv(tmp_path / "s.csv")
+    assert f"{saved['ecl'].sum():,.2f}" in lines[-2]  # the total printed is the saved column's
 
 
 def test_usage_error_exits_2():

@@ -201,3 +201,24 @@ def test_a_delinquent_loan_pays_nothing_on_its_way_to_default_and_carries_its_ar
     assert loans.loc["CURRENT", "ead_cecl"] == loans.loc["BEHIND", "ead_cecl"] == pytest.approx(balance + 500.0)
     assert loans.loc["CURRENT", "ead_ifrs9"] == pytest.approx(balance)
     assert loans.loc["BEHIND", "ead_ifrs9"] == pytest.approx(balance + 500.0)
+
+
+def test_the_schedule_shows_what_the_engine_booked():
+    # the schedule's ECL column sums to loans.csv's figure for every kind of loan: performing
+    # (12 months in stage 1), delinquent, in default, secured, on a roll-rate matrix
+    from allowance.engine import loan_schedule, prepare, tape_months
+    from allowance.cashflows import age_months
+
+    cfg = _cards_config()
+    book = engine_tape(n=40, seed=2)
+    loans = engine.run(book, cfg).loans.set_index("loan_id")
+    prep = prepare(cfg, tape_months(book, cfg), int(age_months(book["origination_date"], pd.Timestamp("2026-09-30")).max()))
+    for position in range(len(book)):
+        row = book.iloc[[position]]
+        loan = row["loan_id"].iloc[0]
+        for fw in ("ifrs9", "cecl"):
+            for s, name in enumerate(prep.scenario_names):
+                table = loan_schedule(row, prep, fw, s)
+                assert table["ecl"].sum() == pytest.approx(loans.loc[loan, f"ecl_{fw}_{name}"], abs=0.006), (loan, fw)
+        if loans.loc[loan, "pd_lifetime"] == 1.0:  # the loss event is certain now: one row, month 0
+            assert table["month"].tolist() == [0]

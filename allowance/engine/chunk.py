@@ -9,6 +9,7 @@ Implements
 LoanTerms    each loan's state and segment parameters, as the loop reads them (looked up once)
 loan_terms   remaining term, seasoning, schedule inputs, curve rows, the loan's own PD level
              and segment parameters
+ChunkInputs  what the loop reads for a chunk (chunk_inputs builds it)
 ChunkResult  the modelled (unrounded) loan results and the engine's findings for a chunk
 run_chunk    a chunk of loans -> ChunkResult
 
@@ -33,7 +34,7 @@ from allowance.ecl import KernelInputs, KernelResult, expected_losses
 from allowance.engine.tables import Prepared, remaining_life, revolving_parameter
 from allowance.exceptions import AssumptionsError
 
-__all__ = ["ChunkResult", "LoanTerms", "loan_terms", "run_chunk"]
+__all__ = ["ChunkInputs", "ChunkResult", "LoanTerms", "chunk_inputs", "loan_terms", "run_chunk"]
 
 
 @dataclass(frozen=True)
@@ -547,12 +548,20 @@ def _individual_measurement(chunk: pd.DataFrame, terms: LoanTerms, prep: Prepare
     return method, replaced
 
 
-def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
-    """Modelled results (unrounded) for a chunk of accepted loans, and the engine's findings.
+@dataclass(frozen=True)
+class ChunkInputs:
+    """What :func:`run_chunk` feeds the loop for a chunk: the loan terms, the IFRS 9 stages
+    (None when no framework stages), the per-framework inputs and the loop's own inputs."""
 
-    A pure function of its arguments: the same chunk and tables give the same result in any
-    process, so an executor's ``map`` may run chunks anywhere (:func:`allowance.engine.run`).
-    """
+    terms: LoanTerms
+    stages: pd.DataFrame | None
+    frameworks: _Frameworks
+    kernel: KernelInputs
+
+
+def chunk_inputs(chunk: pd.DataFrame, prep: Prepared) -> ChunkInputs:
+    """The loop's inputs for a chunk of loans, exactly as :func:`run_chunk` builds them (the
+    schedule view reads the same ones)."""
     a = prep.config.assumptions
     terms = loan_terms(chunk, prep)
     stages = None
@@ -560,9 +569,19 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
         stages = staging.assign_stages(chunk, a.ifrs9, a.segments, remaining_months=terms.remaining)
     stage = None if stages is None else stages["stage"].to_numpy()
     fw = _framework_inputs(chunk, terms, stage, prep)
-    inputs = _kernel_inputs(terms, fw, prep)
-    k = expected_losses(inputs)
-    purchase = _purchase_views(chunk, terms, fw, inputs, prep)
+    return ChunkInputs(terms, stages, fw, _kernel_inputs(terms, fw, prep))
+
+
+def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
+    """Modelled results (unrounded) for a chunk of accepted loans, and the engine's findings.
+
+    A pure function of its arguments: the same chunk and tables give the same result in any
+    process, so an executor's ``map`` may run chunks anywhere (:func:`allowance.engine.run`).
+    """
+    c = chunk_inputs(chunk, prep)
+    terms, stages, fw = c.terms, c.stages, c.frameworks
+    k = expected_losses(c.kernel)
+    purchase = _purchase_views(chunk, terms, fw, c.kernel, prep)
     # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
     for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
         k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime

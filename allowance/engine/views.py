@@ -14,8 +14,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, curves, macro
-from allowance.engine.chunk import _curve_keys, loan_terms
+from allowance import cashflows, curves, ecl, individual, macro
+from allowance.engine.chunk import _curve_keys, _individual_measurement, chunk_inputs
 from allowance.engine.tables import Prepared
 from allowance.frameworks import rules_for
 from allowance.money import money_total
@@ -161,11 +161,23 @@ def schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per
 
 
 def loan_schedule(row: pd.DataFrame, prep: Prepared, framework: Framework | None = None, scenario: int = 0) -> pd.DataFrame:
-    """One loan's schedule (contractual and expected) on the engine's own terms and curves."""
+    """One loan's schedule on the engine's own terms and curves, and what the engine booked.
+
+    The contractual and expected columns of :func:`allowance.cashflows.schedule`, then the
+    engine's month by month (:func:`allowance.ecl.loan_months` on the very inputs
+    :func:`~allowance.engine.chunk.run_chunk` builds): ``ead, marginal_pd, refinance_pd,
+    default_share, lgd, discount_factor, gross_loss, ecl`` over the allowance's horizon (blank
+    after it). ``ecl`` sums to the loan's ``ecl_<framework>_<scenario>`` in loans.csv before
+    rounding (POCI: before the ECL at purchase is taken off). A loan in default whose loss
+    event is certain has one row, month 0 (PD 1, ECL = LGD × EAD); a loan measured one by one
+    (collateral dependent, individually assessed) one row with its amount; ``measurement``
+    says which.
+    """
     fw = framework or prep.frameworks[0]
     f = prep.frameworks.index(fw)
     seg = prep.config.assumptions.segments[row["segment"].iloc[0]]
-    t = loan_terms(row, prep)
+    inputs = chunk_inputs(row, prep)
+    t = inputs.terms
     months = int(t.remaining[0])
     cols = np.minimum(t.prepay_offset[0] + np.arange(months), prep.smm.shape[1] - 1)
     repayment = t.repayment[0]
@@ -175,8 +187,20 @@ def loan_schedule(row: pd.DataFrame, prep: Prepared, framework: Framework | None
         repayment, float(t.balance[0]), float(row["interest_rate"].iloc[0]), months,
         interest_only_months_left=int(t.io_left[0]), residual=float(t.residual[0]),
         payment=float(t.payment[0]), paydown=paydown, smm=prep.smm[t.prepay[0], cols],
-        marginal_pd=prep.pd[f, t.curve[0], :months, scenario],
+        marginal_pd=prep.pd[f, inputs.kernel.curve[f, 0], :months, scenario],
     )
+    stage = inputs.stages["stage"].to_numpy() if inputs.stages is not None else np.ones(1, dtype=np.int64)
+    horizon = int(prep.rules[f].horizon(stage, t.remaining)[0])
+    booked = ecl.loan_months(inputs.kernel, 0, f, scenario, horizon)
+    method, replaced = _individual_measurement(row, t, prep)
+    measurement = "model"
+    if not np.isnan(replaced[f, 0]):  # measured one by one: the amount, the same in every scenario
+        measurement = str(list(individual.MEASUREMENTS)[int(method[0])])
+        booked = pd.DataFrame([{"month": 0, "ead": float(t.balance[0]), "ecl": float(replaced[f, 0])}])
+    if booked["month"].iloc[0] == 0:  # nothing projected: the loss is booked now
+        frame = pd.DataFrame({"month": [0], "opening_balance": [float(t.balance[0])]})
+    frame = frame.merge(booked, on="month", how="left")
+    frame.insert(1, "measurement", measurement)
     frame.insert(0, "scenario", prep.scenario_names[scenario])
     frame.insert(0, "framework", fw)
     frame.insert(0, "loan_id", row["loan_id"].iloc[0])

@@ -7,6 +7,7 @@ OutputPaths        the files written, and notes about leftovers that could not b
 write_outputs      write every output into a sibling folder, then swap it into place
 write_check_outputs  what ``allowance check --out`` writes: rejected.csv and warnings.csv
 check_output_path  refuse an output folder that would overwrite or move an input
+write_table_csv    one table to one CSV file (``allowance schedule --csv``), through a temporary file
 
 Safe writing
 ------------
@@ -38,7 +39,7 @@ from allowance.text import neutralise_frame, neutralise_table
 
 __all__ = [
     "CHECK_FILES", "OUTPUT_FILES", "OutputPaths", "check_output_path", "write_check_outputs", "write_movement",
-    "write_outputs",
+    "write_outputs", "write_table_csv",
 ]
 
 OUTPUT_FILES: tuple[str, ...] = (
@@ -78,6 +79,20 @@ def _csv(frame: pd.DataFrame, path: Path) -> None:
         neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
         return
     pa_csv.write_csv(neutralise_table(table), path, write_options=pa_csv.WriteOptions(quoting_style="needed"))
+
+
+def write_table_csv(path: Path, frame: pd.DataFrame) -> Path:
+    """Write one table to ``path`` as CSV (text neutralised), through a temporary file, so a
+    failure never leaves half a file."""
+    path = Path(path)
+    partial = path.with_name(f".{path.name}.partial")
+    try:
+        _csv(frame, partial)
+        partial.replace(path)
+    except OSError as err:
+        partial.unlink(missing_ok=True)
+        raise OutputError(f"cannot write {path}: {err.strerror or err}", file=path) from err
+    return path
 
 
 class OutputPaths(list):
