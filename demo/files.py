@@ -433,7 +433,8 @@ floor = 0.05
 months_to_recovery = 18
 
 [segments.mortgage.collateral_dependent]
-costs_to_sell = 0.07               # agents, legal and transfer costs, share of the fair value
+costs_to_sell = 0.08               # agents, legal and transfer costs, share of the fair value
+appraisal_discount = 0.2           # the tape's values are indexed appraisals; a repossessed home's fair value is lower
 defaulted_secured = true           # credit policy CP-14: foreclosure is probable once a mortgage is in default
 """,
     "auto": """
