@@ -71,16 +71,26 @@ def term_structure_table(prep: Prepared) -> pd.DataFrame:
                 continue  # a loss-rate segment has no PD term structure
             off = prep.key_offset[name]
             shown = range(0, len(ts.keys), 12) if ts.source == "pd_curve_by_age" else range(len(ts.keys))
-            for k in shown:  # by age: whole years of age only (one row per month of age is too many)
-                key = ts.keys[k]
-                marg = prep.pd[f, off + k].T  # [S, T]
-                smm = ts.smm[k] if ts.smm is not None else None
-                cum = curves.cumulative_pd(marg, smm)
-                for s, scen in enumerate(prep.scenario_names):
-                    frames.append(pd.DataFrame({
-                        "segment": name, "key": key, "framework": fw, "scenario": scen,
-                        "month": months, "marginal_pd": marg[s], "cumulative_pd": cum[s],
-                    }))
+            # by age: whole years of age only (one row per month of age is too many)
+            shown = np.asarray(list(shown), dtype=np.int64)
+            if not len(shown):
+                continue
+            n_sc = len(prep.scenario_names)
+            marg = prep.pd[f, off + shown].transpose(0, 2, 1)  # [K, S, T]
+            cum = np.stack([curves.cumulative_pd(marg[i], ts.smm[k] if ts.smm is not None else None)
+                            for i, k in enumerate(shown)])
+            rows = len(shown) * n_sc * len(months)
+            # one frame per segment and framework, built column-wise (a frame per key and
+            # scenario cost seconds for segments with many keys)
+            frames.append(pd.DataFrame({
+                "segment": np.full(rows, name, dtype=object),
+                "key": np.repeat(np.asarray([ts.keys[k] for k in shown], dtype=object), n_sc * len(months)),
+                "framework": np.full(rows, fw, dtype=object),
+                "scenario": np.tile(np.repeat(np.asarray(prep.scenario_names, dtype=object), len(months)), len(shown)),
+                "month": np.tile(months, len(shown) * n_sc),
+                "marginal_pd": marg.reshape(-1),
+                "cumulative_pd": cum.reshape(-1),
+            }))
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
 
 
