@@ -246,6 +246,24 @@ def _phase(name: str) -> Iterator[None]:
         _out.phases[name] = _out.phases.get(name, 0.0) + time.perf_counter() - began
 
 
+def _table(frame, float_format: str | None = None) -> str:
+    """A frame as console text: text columns left-aligned (pandas right-aligns everything),
+    numbers right-aligned, money with thousands separators when ``float_format`` says so."""
+    import pandas as pd
+
+    formatters, names = {}, {}
+    for column in frame.columns:
+        values = frame[column]
+        if pd.api.types.is_object_dtype(values) or pd.api.types.is_string_dtype(values):
+            width = max([len(str(column)), *(len(str(v)) for v in values)])
+            names[column] = str(column).ljust(width)  # a header as wide as its column sits on the left
+            formatters[names[column]] = lambda v, w=width: f"{'' if v is None else str(v):<{w}}"
+        elif float_format and pd.api.types.is_float_dtype(values):
+            formatters[column] = float_format.format
+    text = frame.rename(columns=names).to_string(index=False, formatters=formatters)
+    return "\n".join(line.rstrip() for line in text.splitlines())
+
+
 def _money(value: float) -> str:
     return f"{value:,.2f}"
 
@@ -335,8 +353,7 @@ def _write(result: Result, out: Path, shown, *, parquet: bool = False) -> tuple[
     """Write a run's outputs; return the files and the swap's notes (leftovers kept, where)."""
     shown("write", 0, 1)
     with _phase("write"):
-        files = result.write(out, parquet=parquet)
-    shown("write", 1, 1)
+        files = result.write(out, parquet=parquet, progress=shown)
     return list(files), list(getattr(files, "notes", ()))
 
 
@@ -687,7 +704,7 @@ def check(
     except AllowanceError as err:
         _fail(err)
     _out.data(_check_summary(checked, tape, out, files))
-    _say(checked.table.to_string(index=False))
+    _say(_table(checked.table))
     _say(f"ledger tie-out: {checked.tie_out.explanation}")
     rejected = checked.rejected
     if len(rejected):
@@ -828,14 +845,11 @@ def compare(
         written = report.write_movement(out, moves.values()) if out is not None else []
     except AllowanceError as err:
         _fail(err)
-    import pandas as pd
-
-    with pd.option_context("display.width", 200, "display.max_columns", 50, "display.float_format", "{:,.2f}".format):
-        for fw, mv in moves.items():
-            _say(f"-- {fw.upper()} allowance movement")
-            _say(mv.allowance.to_string(index=False))
-            for text in mv.not_isolated:  # what two finished runs cannot separate, and why
-                _say(f"not isolated: {text}")
+    for fw, mv in moves.items():
+        _say(f"-- {fw.upper()} allowance movement")
+        _say(_table(mv.allowance, "{:,.2f}"))
+        for text in mv.not_isolated:  # what two finished runs cannot separate, and why
+            _say(f"not isolated: {text}")
     if written:
         _say(f"wrote {out}: {', '.join(p.name for p in written)}")
 

@@ -10,6 +10,7 @@ totals_table  allowance per framework by stage and segment (the ``totals`` of a 
 from __future__ import annotations
 
 import html
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -186,15 +187,17 @@ class Result:
 
     # -- writers -----------------------------------------------------------------------
 
-    def write(self, out_dir: str | Path, *, parquet: bool = False) -> OutputPaths:
+    def write(self, out_dir: str | Path, *, parquet: bool = False,
+              progress: Callable[[str, int, int], object] | None = None) -> OutputPaths:
         """Write every output (``loans.csv``, ``reserve.xlsx``, ``run.json``, ...) into ``out_dir``,
         all or nothing; return the files written.
 
         The list returned has ``notes``: what the folder swap could not clean up, e.g. where
         the previous outputs were kept when one of their files could not be deleted. Show
-        them to the user (the command line prints each as a warning).
+        them to the user (the command line prints each as a warning). ``progress`` is told
+        ``("write", done, total)`` as the files are written.
         """
-        return write_outputs(Path(out_dir), self.report, parquet=parquet)
+        return write_outputs(Path(out_dir), self.report, parquet=parquet, progress=progress)
 
     def workbook(self, path: str | Path) -> Path:
         """Write the reserve workbook alone to ``path`` (its folder must exist); return the path."""

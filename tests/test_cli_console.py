@@ -173,6 +173,12 @@ def test_the_library_call_is_in_the_run_record(tmp_path):
     assert call["function"] == "allowance.run" and call["label"] == "notebook" and call["sensitivities"] is False
     assert call["tape"] == "a DataFrame of 24 rows and 27 columns" and call["assumptions"].startswith("a mapping")
     assert "command" not in result.record["arguments"]  # not run from the command line
+    # the writers report each file to the progress display, the workbooks weighing more
+    told = []
+    files = result.write(tmp_path / "out", progress=lambda *step: told.append(step))
+    assert {phase for phase, _, _ in told} == {"write"} and told[-1][1] == told[-1][2]
+    assert [done for _, done, _ in told] == sorted(done for _, done, _ in told) and len(told) > len(files) // 2
+    assert files.notes == ()
 
 
 # ---- roll-rates --segment ------------------------------------------------------------

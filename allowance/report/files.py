@@ -21,7 +21,7 @@ two runs. Entries of the output folder that are not run outputs are kept.
 from __future__ import annotations
 
 import json
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from pathlib import Path
 
 import numpy as np
@@ -103,13 +103,21 @@ class OutputPaths(list):
         self.notes: tuple[str, ...] = tuple(notes)
 
 
-def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
+def _write_all(folder: Path, report: RunReport, parquet: bool,
+               progress: Callable[[str, int, int], object] | None = None) -> list[str]:
     written: list[str] = []
+    # the bar counts files; the workbooks are most of the time, so they count for more
+    weight = {"reserve.xlsx": 6, "summary.xlsx": 2, "loans.csv": 2}
+    total = sum(weight.get(n, 1) for n in OUTPUT_FILES)
+    told = [0]
 
     def done(name: str) -> None:
         # only run outputs may be written: the swap keeps every other name as the user's
         assert name in OUTPUT_FILES, name
         written.append(name)
+        told[0] += weight.get(name, 1)
+        if progress is not None:
+            progress("write", min(told[0], total), total)
 
     _csv(report.loans, folder / "loans.csv")
     done("loans.csv")
@@ -160,6 +168,8 @@ def _write_all(folder: Path, report: RunReport, parquet: bool) -> list[str]:
     )
     (folder / "run.json").write_text(json.dumps(record, indent=2, allow_nan=False) + "\n", encoding="utf-8")
     done("run.json")
+    if progress is not None:
+        progress("write", total, total)
     return written
 
 
@@ -216,7 +226,8 @@ def write_movement(out_dir: Path, movements) -> list[Path]:
     return paths
 
 
-def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) -> list[Path]:
+def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False,
+                  progress: Callable[[str, int, int], object] | None = None) -> list[Path]:
     """Write every output of a run into ``out_dir``, all or nothing.
 
     Parameters
@@ -228,6 +239,8 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
         The run. When ``report.record`` is empty the run record is built here.
     parquet : bool
         Also write ``loans.parquet`` (text as read, not neutralised: it is not a spreadsheet).
+    progress : callable, optional
+        ``progress("write", done, total)`` after each file (the workbooks weigh more).
 
     Returns
     -------
@@ -251,7 +264,7 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False) ->
     names: list[str] = []
 
     def write(folder: Path) -> None:
-        names.extend(_write_all(folder, report, parquet))
+        names.extend(_write_all(folder, report, parquet, progress))
 
     notes = replace_folder(out_dir, write, OUTPUT_FILES)
     return OutputPaths([out_dir / name for name in names], notes)
