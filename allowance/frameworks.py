@@ -34,11 +34,17 @@ allowance per loan       12-month ECL in stage 1, lifetime in    lifetime ECL
                          purchase (5.5.13)
 movement columns         by class: stage 1-3, POCI (IFRS 7 35H)  by segment (ASC 326-20-50-13)
 journal accounts         impairment losses / loss allowance      provision / allowance
+write-offs (ledger)      the allowance used (35H); any charge    every gross charge-off
+                         beyond it a direct loss                 (326-20-35-8)
+recoveries (ledger)      profit or loss (5.4.4)                  credited to the allowance
+PCD / POCI at purchase   no allowance (5.5.13)                   gross-up of amortised cost
+                                                                 (326-20-30-13)
 =======================  ======================================  ===============================
 
 Implements
 ----------
 FrameworkRules    the rules of one framework (frozen)
+LedgerRules       how a framework books write-offs, recoveries and purchases against the allowance
 FRAMEWORK_RULES   framework name -> its rules
 rules_for         the rules of a framework, or a domain error naming the known ones
 """
@@ -57,7 +63,27 @@ from allowance.discounting import monthly_discount
 from allowance.exceptions import AssumptionsError
 from allowance.schemas import FRAMEWORKS, AccruedInterest, Assumptions, CeclRules, Framework
 
-__all__ = ["FRAMEWORK_RULES", "FrameworkRules", "rules_for"]
+__all__ = ["FRAMEWORK_RULES", "FrameworkRules", "LedgerRules", "rules_for"]
+
+
+@dataclass(frozen=True)
+class LedgerRules:
+    """How a framework books write-offs and recoveries against the allowance.
+
+    ``charge_offs``: ``"allowance_used"`` (IFRS 9: the allowance written off, 35H; any charge
+    beyond it is a direct loss in profit or loss) or ``"gross"`` (CECL: every charge-off is
+    deducted from the allowance, ASC 326-20-35-8). ``recoveries_to_allowance``: CECL credits
+    recoveries to the allowance (326-20-35-8, 50-13); under IFRS 9 a write-off derecognises
+    the asset (5.4.4), so a later recovery is a gain in profit or loss, not allowance.
+    ``pcd_gross_up``: CECL adds a PCD asset's purchase-date allowance to its amortised cost
+    (ASC 326-20-30-13); IFRS 9 books no allowance at purchase (5.5.13).
+    """
+
+    charge_offs: str
+    pcd_gross_up: bool
+    recoveries_to_allowance: bool
+    recoveries_treatment: str
+    charge_off_label: str
 
 
 @dataclass(frozen=True)
@@ -92,6 +118,7 @@ class FrameworkRules:
     class_order          the classes in the order the movement's columns show them (None:
                          the movement's columns are the segments)
     journal_accounts     (expense account, allowance account) of the provision
+    ledger               how write-offs, recoveries and purchases meet the allowance
     """
 
     name: Framework
@@ -111,6 +138,7 @@ class FrameworkRules:
     class_labels: Callable[[np.ndarray, np.ndarray], np.ndarray]
     class_order: tuple[str, ...] | None
     journal_accounts: tuple[str, str]
+    ledger: LedgerRules
 
     def discount(self, assumptions: Assumptions, eir: np.ndarray) -> np.ndarray:
         """The monthly discount multiplier of every loan: v = 1/(1 + EIR/12), or 1."""
@@ -222,6 +250,11 @@ IFRS9 = FrameworkRules(
     class_labels=_ifrs9_classes,
     class_order=("stage 1", "stage 2", "stage 3", "POCI"),
     journal_accounts=("Impairment losses on loans (profit or loss)", "Loss allowance (balance sheet)"),
+    ledger=LedgerRules(
+        charge_offs="allowance_used", pcd_gross_up=False, recoveries_to_allowance=False,
+        recoveries_treatment="recognised in profit or loss (IFRS 9 5.4.4: a write-off derecognises the asset)",
+        charge_off_label="Written off (allowance used)",
+    ),
 )
 
 # --------------------------------------------------------------------------------------
@@ -286,6 +319,11 @@ CECL = FrameworkRules(
     class_labels=_cecl_classes,
     class_order=None,
     journal_accounts=("Provision for credit losses (income statement)", "Allowance for credit losses (balance sheet)"),
+    ledger=LedgerRules(
+        charge_offs="gross", pcd_gross_up=True, recoveries_to_allowance=True,
+        recoveries_treatment="credited to the allowance (ASC 326-20-35-8, 326-20-50-13)",
+        charge_off_label="Charge-offs",
+    ),
 )
 
 #: framework name -> its rules

@@ -12,12 +12,11 @@ journal          the provision (or release) as debit and credit lines
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
-from allowance.frameworks import rules_for
+from allowance.frameworks import FRAMEWORK_RULES, LedgerRules, rules_for
 from allowance.exceptions import MovementError
 from allowance.schemas import Framework
 
@@ -45,38 +44,8 @@ _GROSS_BODY = ("other_changes",)
 _ROLLFORWARD = ("beginning", "initial_allowance_pcd", "provision", "charge_offs", "recoveries", "ending")
 
 
-@dataclass(frozen=True)
-class LedgerRules:
-    """How a framework books write-offs and recoveries against the allowance.
-
-    ``charge_offs``: ``"allowance_used"`` (IFRS 9: the allowance written off, 35H; any charge
-    beyond it is a direct loss in profit or loss) or ``"gross"`` (CECL: every charge-off is
-    deducted from the allowance, ASC 326-20-35-8). ``recoveries_to_allowance``: CECL credits
-    recoveries to the allowance (326-20-35-8, 50-13); under IFRS 9 a write-off derecognises
-    the asset (5.4.4), so a later recovery is a gain in profit or loss, not allowance.
-    ``pcd_gross_up``: CECL adds a PCD asset's purchase-date allowance to its amortised cost
-    (ASC 326-20-30-13); IFRS 9 books no allowance at purchase (5.5.13).
-    """
-
-    charge_offs: str
-    pcd_gross_up: bool
-    recoveries_to_allowance: bool
-    recoveries_treatment: str
-    charge_off_label: str
-
-
-LEDGER: dict[Framework, LedgerRules] = {
-    "ifrs9": LedgerRules(
-        charge_offs="allowance_used", pcd_gross_up=False, recoveries_to_allowance=False,
-        recoveries_treatment="recognised in profit or loss (IFRS 9 5.4.4: a write-off derecognises the asset)",
-        charge_off_label="Written off (allowance used)",
-    ),
-    "cecl": LedgerRules(
-        charge_offs="gross", pcd_gross_up=True, recoveries_to_allowance=True,
-        recoveries_treatment="credited to the allowance (ASC 326-20-35-8, 326-20-50-13)",
-        charge_off_label="Charge-offs",
-    ),
-}
+#: framework -> how it books write-offs and recoveries (the ``ledger`` of its FrameworkRules)
+LEDGER: dict[Framework, LedgerRules] = {name: rules.ledger for name, rules in FRAMEWORK_RULES.items()}
 _GROSS_UP_ACCOUNT = "Loans at amortised cost (PCD gross-up, ASC 326-20-30-13)"
 
 

@@ -131,12 +131,9 @@ def movement_sheet(sheet: Sheet, movements: "tuple[Movement, ...]", led: Ledger)
 
 
 def _ledger_rules(framework: str) -> Any:
-    """The framework's ledger wording (charge-off line, recoveries treatment), when reconcile has it."""
-    try:
-        from allowance.reconcile.tables import LEDGER  # here: reconcile imports report's text helpers
-    except ImportError:
-        return None
-    return LEDGER.get(framework)
+    """The framework's ledger wording (charge-off line, recoveries treatment): its FrameworkRules."""
+    rules = FRAMEWORK_RULES.get(framework)
+    return None if rules is None else rules.ledger
 
 
 def journal_sheet(sheet: Sheet, report: "RunReport", led: Ledger) -> None:
