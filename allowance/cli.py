@@ -511,6 +511,7 @@ def demo(
             done = api.demo(out, parquet=parquet, progress=shown, on_start=started, on_prior=prior_done,
                             invocation=_invocation(ctx))
         hint = _demo_hint(done, out)
+        _demo_backtest(out)
     except AllowanceError as err:
         _fail(err)
     seconds = time.perf_counter() - clock[0]
@@ -520,6 +521,28 @@ def demo(
     else:
         _print_summary(done.current, out, seconds)
     _say(hint)
+
+
+def _demo_backtest(out: Path) -> None:
+    """The demo's last step: a run made a year ago on the history's accounts, back-tested against the history since."""
+    import tomllib
+
+    from allowance import api
+    from allowance.backtest.run import backtest_files
+    from allowance.intake import bundled_path
+    from allowance.report.backtest import write_backtest
+
+    folder = bundled_path("demo")
+    manifest = tomllib.loads((folder / "manifest.toml").read_text(encoding="utf-8"))
+    plan = manifest.get("backtest")
+    if not plan:
+        return
+    target = out / "backtest"
+    _say(f"-- back-test: the run at {plan['as_of']} against the history since -> {_shown_path(target)}")
+    api.run(folder / plan["tape"], folder / plan["assumptions"], sensitivities=False).write(target / "run")
+    result, record = backtest_files(target / "run", folder / manifest["history"]["file"])
+    write_backtest(target, result, record)
+    _say("   verdicts: " + ", ".join(f"{segment} {light}" for segment, light in record["verdicts"].items()))
 
 
 def _demo_calibration(out: Path) -> None:

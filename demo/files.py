@@ -716,6 +716,10 @@ DESCRIPTIONS = {
     "cards_rolls.csv": ("transition_matrix", "The roll rates the card history was simulated from (the raw extract's run uses them)."),
     "downside_only.toml": ("overlay", "What-if: 100 % weight on the downside scenario."),
     "worse_unemployment.toml": ("overlay", "What-if: a worse unemployment outlook (base and downside paths)."),
+    "tape_2025q3.csv": ("tape", "The back-test's tape: the history's accounts on the book at 2025-09-30."),
+    "policy_2025q3.toml": ("policy", "The back-test's policy: the September 2026 policy a year earlier, no overlays."),
+    "assumptions_2025q3.toml": ("assumptions", "The back-test's assumptions, calibrated from the history to 2025-09."),
+    "rolls_cards_2025q3.csv": ("transition_matrix", "The card roll rates calibrated to 2025-09 (back-test)."),
     "macro_history.csv": ("macro_history", "The region's unemployment and price indices by quarter, 2019Q4 to 2026Q3."),
     "personal_on_loss_rates.toml": ("overlay", "What-if: personal loans on the WARM method at the calibrated loss rate."),
     "bad_tape.csv": ("tape", "A small tape with one deliberately bad row per fault, among good rows."),
@@ -735,7 +739,7 @@ def _array(name: str, items: list[dict]) -> str:
 
 
 def write_manifest(out_dir: Path, seed: int, lender: str, current: dict, prior: dict, movement: dict,
-                   bad: dict, messy: dict, history: dict) -> Path:
+                   bad: dict, messy: dict, history: dict, backtest: dict) -> Path:
     text = f"""# The bundled demo data: the one list that the tests, the docs and `allowance demo` read.
 # Written by demo/generate.py (python demo/generate.py). Every name and figure is invented.
 
@@ -745,7 +749,7 @@ generator = "generate.py"
 invented = true
 """
     text += _table("current", current) + _table("prior", prior) + _table("movement", movement)
-    text += _table("history", history)
+    text += _table("history", history) + _table("backtest", backtest)
     text += _table("what_if", {"overlay": "downside_only.toml", "outlook": "worse_unemployment.toml",
                                "applies_to": "current"})
     text += _table("bad", {k: v for k, v in bad.items() if k != "faults"}) + _array("bad.faults", bad["faults"])

@@ -38,10 +38,11 @@ import numpy as np
 import numpy_financial as npf
 
 try:
-    from demo import files, history
+    from demo import files, history, year_ago
 except ImportError:  # run as a script: python demo/generate.py puts demo/ on sys.path
     import files  # type: ignore[no-redef]
     import history  # type: ignore[no-redef]
+    import year_ago  # type: ignore[no-redef]
 
 SEED = 20260930
 LENDER = "Corrandale Mutual Savings Bank"
@@ -576,7 +577,7 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     cents = {k: _cents(t[balance_at]) for k, t in tapes.items()}
     written.append(files.write_rolls(out_dir))
     # The assumptions of both quarters are calibrated from the performance history.
-    history_path, history_info = history.write_history(out_dir, seed)
+    history_path, history_info, simulated = history.write_history(out_dir, seed)
     macro_path = history.write_macro_history(out_dir)
     history_info["macro"] = macro_path.name
     written += [history_path, macro_path]
@@ -591,6 +592,13 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
         ids = tapes[name][0]
         tapes[name][at] = np.array([measured.get(i, v) for i, v in zip(ids, tapes[name][at])], dtype=object)
         files.write_csv(out_dir / name, TAPE_COLUMNS, tapes[name])
+    # The back-test: the history's accounts a year earlier, calibrated to then, judged since.
+    year_tape, year_cents = year_ago.write_year_ago_tape(out_dir, simulated)
+    year_policy = year_ago.write_year_ago_policy(out_dir, out_dir / "policy_2026q3.toml", year_cents)
+    written += [year_tape, year_policy, *calibrated(out_dir, "2025q3", history_path, year_policy, macro_path)]
+    backtest = dict(as_of=year_ago.AS_OF, tape=year_tape.name, assumptions="assumptions_2025q3.toml",
+                    policy=year_policy.name, loans=sum(1 for _ in open(year_tape, encoding="utf-8")) - 1,
+                    balance=year_cents / 100)
     written.append(files.write_what_if(out_dir))
     written.append(files.write_outlook_what_if(out_dir))
     bad_path, bad = files.write_bad_tape(out_dir, rng, q3, TAPE_COLUMNS)
@@ -613,7 +621,8 @@ def generate(out_dir: Path, seed: int = SEED) -> list[Path]:
     prior.update(transition_matrices=["rolls_cards_2026q2.csv"], policy="policy_2026q2.toml")
     bad = dict(tape="bad_tape.csv", assumptions="assumptions_2026q3.toml", **bad)
     messy = dict(tape="messy_extract.csv", assumptions="messy_assumptions.toml", **messy)
-    written.append(files.write_manifest(out_dir, seed, LENDER, current, prior, movement, bad, messy, history_info))
+    written.append(files.write_manifest(out_dir, seed, LENDER, current, prior, movement, bad, messy, history_info,
+                                        backtest))
     return sorted(written)
 
 
@@ -649,13 +658,13 @@ def calibrated(out_dir: Path, quarter: str, history_path: Path, policy: Path, ma
     from allowance.calibrate import calibrate
     from allowance.report.calibration import matrix_csv, render_assumptions
 
-    suffix = "" if quarter == "q3" else "_2026q2"
+    suffix = {"q3": "", "q2": "_2026q2", "2025q3": "_2025q3"}[quarter]
 
     def name(segment: str) -> str:
         return f"rolls_{segment}{suffix}.csv"
 
     cal = calibrate(history_path, policy=policy, macro=macro)
-    target = out_dir / f"assumptions_2026{quarter}.toml"
+    target = out_dir / (f"assumptions_{quarter}.toml" if quarter[0] == "2" else f"assumptions_2026{quarter}.toml")
     target.write_bytes(render_assumptions(cal, name).encode("utf-8"))
     paths = [target]
     for segment in cal.assumptions.matrices:

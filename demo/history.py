@@ -367,6 +367,7 @@ def _assemble(book: dict, rows: dict, cash: dict | None, name: str) -> dict[str,
         credit_limit=book["limit"][loan], interest_rate=book["rate"][loan],
         charge_off=rows["charge_off"], bankruptcy_loss=rows["bankruptcy_loss"], recoveries=np.round(rows["recoveries"], 2),
         asset_sales=np.round(rows["asset_sales"], 2), paid_off=rows["paid_off"], day=book["lag"][loan],
+        term=book["term"][loan], amort=book["amort"][loan],  # for the back-test's tape (not in the file)
     )
     return out
 
@@ -378,8 +379,8 @@ def simulate_history(seed: int) -> dict[str, np.ndarray]:
     return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
 
 
-def write_history(out_dir: Path, seed: int) -> tuple[Path, dict]:
-    """Write ``history.parquet``; return its path and the counts for the manifest."""
+def write_history(out_dir: Path, seed: int) -> tuple[Path, dict, dict[str, np.ndarray]]:
+    """Write ``history.parquet``; return its path, the counts for the manifest and the rows simulated."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
@@ -413,4 +414,4 @@ def write_history(out_dir: Path, seed: int) -> tuple[Path, dict]:
                    use_dictionary=True, write_statistics=False)
     info = dict(file="history.parquet", first_month="2021-10", last_month="2026-09", rows=table.num_rows,
                 loans=len(np.unique(h["loan_id"])), segments=list(SEGMENTS))
-    return path, info
+    return path, info, h

@@ -46,6 +46,20 @@ def test_demo_writes_the_disclosure_tables_that_foot_to_the_book(demo_out):
 
 
 @pytest.mark.slow
+def test_demo_back_tests_a_run_of_a_year_ago_against_the_history(demo_out):
+    """demo/README: the history's accounts at 2025-09-30, run, then judged on the twelve months since."""
+    import json
+
+    record = json.loads((demo_out / "backtest" / "backtest.json").read_text())
+    assert record["as_of"] == "2025-09-30" and record["window_end"] == "2026-09-30"
+    assert set(record["verdicts"]) == {"mortgage", "auto", "personal", "cards", "cre", "heloc"}
+    assert set(record["verdicts"].values()) <= {"green", "yellow", "red"}
+    segments = pd.read_csv(demo_out / "backtest" / "backtest_segments.csv")
+    assert (segments["not_in_history"] == 0).all()  # every loan of the run is in the history
+    assert (demo_out / "backtest" / "run" / "loans.csv").is_file() and (demo_out / "backtest" / "backtest.xlsx").is_file()
+
+
+@pytest.mark.slow
 def test_rows_read_equal_accepted_plus_rejected(demo_out):
     record = json.loads((demo_out / "run.json").read_text())
     rows = record["rows"]
