@@ -603,6 +603,21 @@ def _print_calibration(done: Calibrated) -> None:
          "calibration.xlsx, calibration.json")
 
 
+def _calibration_summary(done: Calibrated) -> dict[str, Any]:
+    """A calibration as --json prints it: counts, window, each segment's estimates, files."""
+    from allowance.report.calibration_summary import segment_summary
+
+    cal, intake = done.calibration, done.calibration.intake
+    start, end = cal.frame.window
+    table = segment_summary(cal)
+    return {
+        "ok": True, "out": str(done.out), "as_of": str(end), "window": [str(start), str(end)],
+        "rows": {"read": intake.rows_read, "accepted": intake.rows_accepted, "rejected": intake.rows_rejected},
+        "segments": json.loads(table.to_json(orient="records")), "files": [p.name for p in done.files],
+        "seconds": round(done.seconds, 3),
+    }
+
+
 def _month(value: str | None) -> str | None:
     """``--as-of``: a date (YYYY-MM-DD) or a month (YYYY-MM), as the month's last day."""
     if value is None:
@@ -651,6 +666,9 @@ def calibrate_command(
                                                   "one column per variable): fits the satellite models the policy "
                                                   "names and writes their coefficients.")
     ] = None,
+    quiet: QuietOption = False,
+    verbose: VerboseOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Estimate the assumptions from a performance history and write them with the evidence.
 
@@ -659,6 +677,7 @@ def calibrate_command(
     Writes OUT/assumptions.toml (a complete file 'allowance run' reads, every figure with how it
     was estimated), rolls_SEGMENT.csv (one per roll-rate segment), loss_rates.csv and calibration.xlsx for review.
     """
+    _mode("calibrate", quiet, verbose, as_json)
     settings: dict = {}
     if as_of is not None:
         settings["as_of"] = _month(as_of)
@@ -675,6 +694,10 @@ def calibrate_command(
     except AllowanceError as err:
         _fail(err)
     _print_calibration(done)
+    if _out.mode == "json":
+        _out.data(_calibration_summary(done))
+    for path in done.files:
+        _out.detail(f"wrote {path}")
     _say(f"next: review {done.out / 'calibration.xlsx'}, then  allowance run TAPE --assumptions "
          f"{done.out / 'assumptions.toml'} --out OUT")
 
@@ -857,9 +880,11 @@ def compare(
         Path | None, typer.Option("--out", metavar="DIR", help="Write movement.csv, movement_loans.csv and "
                                   "movement_not_isolated.csv to this folder.")
     ] = None,
+    quiet: QuietOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Explain the allowance movement between two finished runs, loan by loan."""
-    _mode("compare")
+    _mode("compare", quiet, False, as_json)
     from allowance import api, report
     from allowance.exceptions import AllowanceError
 
@@ -875,6 +900,10 @@ def compare(
             _say(f"not isolated: {text}")
     if written:
         _say(f"wrote {out}: {', '.join(p.name for p in written)}")
+    _out.data({"ok": True, "movement": {fw: json.loads(mv.allowance.to_json(orient="records"))
+                                        for fw, mv in moves.items()},
+               "not_isolated": {fw: list(mv.not_isolated) for fw, mv in moves.items()},
+               "out": None if out is None else str(out), "files": [p.name for p in written]})
 
 
 @app.command()

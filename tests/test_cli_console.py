@@ -229,3 +229,32 @@ def test_the_demo_speaks_in_paths_the_user_can_type(demo_out):
     for word in hint.split():
         if word.endswith((".csv", ".toml")):
             assert Path(word).is_file(), word
+
+
+# ---- calibrate and compare speak JSON too ---------------------------------------------
+
+
+@pytest.mark.slow
+def test_calibrate_json_and_quiet(tmp_path):
+    from tests.histories import constant_hazard_history, write_csv
+
+    history = write_csv(constant_hazard_history(0.004, 0.02, vintages=2, per_vintage=15, months=30, seed=3),
+                        tmp_path / "history.csv")
+    done = invoke("calibrate", history, "--out", tmp_path / "cal", "--json")
+    assert done.exit_code == 0, done.output
+    summary = json.loads(done.output)
+    assert summary["command"] == "calibrate" and summary["rows"]["read"] > 0
+    assert [s["segment"] for s in summary["segments"]] == ["book"] and "assumptions.toml" in summary["files"]
+    quiet = invoke("calibrate", history, "--out", tmp_path / "cal2", "--quiet")
+    assert quiet.exit_code == 0 and quiet.output == "" and (tmp_path / "cal2" / "assumptions.toml").is_file()
+
+
+@pytest.mark.slow
+def test_compare_json_equals_the_run_records(demo_out):
+    done = invoke("compare", demo_out / "prior_quarter", demo_out, "--json")
+    assert done.exit_code == 0, done.output
+    summary = json.loads(done.output)
+    record = json.loads((demo_out / "run.json").read_text())
+    for fw, lines in summary["movement"].items():
+        by_line = {row["line"]: row["total"] for row in lines}
+        assert by_line["closing"] == pytest.approx(record["total_allowance"][fw], abs=0.01)
