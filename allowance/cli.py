@@ -511,15 +511,17 @@ def demo(
             done = api.demo(out, parquet=parquet, progress=shown, on_start=started, on_prior=prior_done,
                             invocation=_invocation(ctx))
         hint = _demo_hint(done, out)
-        _demo_backtest(out)
     except AllowanceError as err:
         _fail(err)
     seconds = time.perf_counter() - clock[0]
-    if _out.mode == "json":
-        _out.data({**_run_summary(done.current, out, [], [], seconds), "prior_quarter": summaries.get("prior_quarter"),
-                   "next": hint.removeprefix("next: what does 100 % downside do?  ")})
-    else:
+    if _out.text:  # this quarter's summary right under its heading, then the back-test
         _print_summary(done.current, out, seconds)
+    try:
+        _demo_backtest(out)
+    except AllowanceError as err:
+        _fail(err)
+    _out.data({**_run_summary(done.current, out, [], [], seconds), "prior_quarter": summaries.get("prior_quarter"),
+               "next": hint.removeprefix("next: what does 100 % downside do?  ")})
     _say(hint)
 
 
