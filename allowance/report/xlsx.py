@@ -420,6 +420,8 @@ class Sheet:
             return
         ws.print_area(0, 0, max(self.last_row, 2) - 1, span - 1)
         landscape = self.landscape
+        if landscape is None and min(1.0, 103.0 / max(total_width, 1.0)) < _SMALLEST_PORTRAIT_SCALE:
+            landscape = True  # a wide sheet: readable type before fewer pages
         if landscape is None:  # the orientation that prints fewer pages; on a tie, the larger print
             portrait_pages = self._pagination(False, total_width)[1]
             landscape_pages = self._pagination(True, total_width)[1]
@@ -433,6 +435,11 @@ class Sheet:
         breaks = self._pagination(landscape, total_width)[0]
         if breaks:
             ws.set_h_pagebreaks([r - 1 for r in breaks])
+
+
+#: below this scale a portrait page's type is too small to read (about 8 pt from 11 pt);
+#: a sheet that wide prints landscape (common practice, no source)
+_SMALLEST_PORTRAIT_SCALE = 0.75
 
 
 @dataclass
