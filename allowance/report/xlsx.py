@@ -320,8 +320,11 @@ class Sheet:
         is kept on one printed page. Returns the next free row."""
         chart.set_size({"width": width, "height": height})
         rows = math.ceil((height + 8) / (_ROW_POINTS * 96 / 72)) + 1
+        # the columns it covers count as used too, or the print area would cut the chart at its
+        # left edge; counted at the narrowest column width a sheet sets (6 characters, 47 px)
+        cols = math.ceil((width + 8) / 47)
         self.ws.insert_chart(row - 1, col - 1, chart, {"x_offset": 4, "y_offset": 4})
-        self._used(row + rows, col)
+        self._used(row + rows, col + cols - 1)
         self.blocks.append((row, row + rows))
         return row + rows + 1
 
