@@ -387,7 +387,8 @@ class Sheet:
         usable = (511.0 if landscape else 691.0) * 0.93 / scale
         repeated = sum(self._height(r) for r in range(1, self.repeat_to + 1))
         breaks, used, pages = [], 0.0, 1
-        starts = {first: last for first, last in self.blocks}
+        blocks = self._merged_blocks()
+        starts = {first: last for first, last in blocks}
         for row in range(1, max(self.last_row, 1) + 1):
             if row in starts:
                 block = sum(self._height(r) for r in range(row, starts[row] + 1))
@@ -399,10 +400,32 @@ class Sheet:
                 used, pages = repeated, pages + 1
             used += height
         if pages > 1:
-            first = self.repeat_to + 2
-            breaks = [start for start, _ in self.blocks if start > first]
+            # a block right under the title and its notes starts the first page already: a
+            # break there would print a page holding nothing but the title
+            first = max([self.repeat_to + 2, *self.note_rows_at_top()])
+            breaks = [start for start, _ in blocks if start > first + 1]
             pages = max(pages, 1 + len(breaks))
         return breaks, pages
+
+    def _merged_blocks(self) -> list[tuple[int, int]]:
+        """The chart blocks, overlapping ones merged (two charts beside one table print together)."""
+        merged: list[tuple[int, int]] = []
+        for first, last in sorted(self.blocks):
+            if merged and first <= merged[-1][1]:
+                merged[-1] = (merged[-1][0], max(merged[-1][1], last))
+            else:
+                merged.append((first, last))
+        return merged
+
+    def note_rows_at_top(self) -> list[int]:
+        """The rows of the notes that follow the title rows without a gap (the sheet's preamble)."""
+        rows, expected = [], self.repeat_to + 1
+        for row in sorted(r for r, *_ in self._notes):
+            if row > expected + 1:
+                break
+            rows.append(row)
+            expected = row + 1
+        return rows
 
     def _height(self, row: int) -> float:
         return self.heights.get(row, 20.0 if row == 1 else _ROW_POINTS)
