@@ -26,9 +26,6 @@ from typing import Any
 
 from allowance.exceptions import AllowanceError
 
-ENGINES = ("in-process", "dask")
-
-
 @dataclass(frozen=True)
 class DaskMap:
     """``map(fn, chunks)`` over a ``distributed.Client``; results come back in the chunks' order.

@@ -70,9 +70,8 @@ def term_structure_table(prep: Prepared) -> pd.DataFrame:
             if prep.loss_rates is not None and name in prep.loss_rates.method:
                 continue  # a loss-rate segment has no PD term structure
             off = prep.key_offset[name]
-            shown = range(0, len(ts.keys), 12) if ts.source == "pd_curve_by_age" else range(len(ts.keys))
             # by age: whole years of age only (one row per month of age is too many)
-            shown = np.asarray(list(shown), dtype=np.int64)
+            shown = np.arange(0, len(ts.keys), 12 if ts.source == "pd_curve_by_age" else 1)
             if not len(shown):
                 continue
             n_sc = len(prep.scenario_names)

@@ -168,7 +168,7 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
     # text keys (Arrow-backed strings) cost a Python step per element, minutes on a large book
     frames = [p, c, co] + ([a] if a is not None else [])
     ids = [f.index.to_numpy(dtype=object) for f in frames]
-    codes, names = pd.factorize(np.concatenate(ids) if ids else np.array([], dtype=object))
+    codes, names = pd.factorize(np.concatenate(ids))
     bounds = np.cumsum([0, *map(len, ids)])
     p, c, co, *rerun = (f.set_axis(codes[bounds[i]:bounds[i + 1]]) for i, f in enumerate(frames))
     a = rerun[0] if rerun else None
@@ -177,7 +177,7 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
     n_keys = int(codes[:bounds[3]].max()) + 1 if bounds[3] else 0
     keys = np.arange(n_keys)
     pr, cu, ch = p.reindex(keys), c.reindex(keys), co.reindex(keys)
-    in_p, in_c, in_co = (np.bincount(f.index.to_numpy(), minlength=n_keys)[:n_keys] > 0 for f in (p, c, co))
+    in_p, in_c, in_co = (np.bincount(f.index.to_numpy(), minlength=n_keys) > 0 for f in (p, c, co))
 
     def ints(frame: pd.DataFrame, col: str) -> np.ndarray:
         return frame[col].fillna(0).to_numpy(dtype=np.int64)

@@ -402,7 +402,7 @@ class Sheet:
         if pages > 1:
             # a block right under the title and its notes starts the first page already: a
             # break there would print a page holding nothing but the title
-            first = max([self.repeat_to + 2, *self.note_rows_at_top()])
+            first = max([self.repeat_to + 2, *self._preamble_rows()])
             breaks = [start for start, _ in blocks if start > first + 1]
             pages = max(pages, 1 + len(breaks))
         return breaks, pages
@@ -417,7 +417,7 @@ class Sheet:
                 merged.append((first, last))
         return merged
 
-    def note_rows_at_top(self) -> list[int]:
+    def _preamble_rows(self) -> list[int]:
         """The rows of the notes that follow the title rows without a gap (the sheet's preamble)."""
         rows, expected = [], self.repeat_to + 1
         for row in sorted(r for r, *_ in self._notes):
