@@ -59,6 +59,14 @@ def _tape(tape: Tape) -> Path | pd.DataFrame:
     return tape if isinstance(tape, pd.DataFrame) else Path(tape)
 
 
+def _read_tape(tape: Path | pd.DataFrame, config: RunConfig, map: Callable | None = None) -> intake.IntakeResult:
+    """The tape through intake: a folder of Parquet files always part by part, a Parquet file
+    part by part when the engine has a ``map`` (its row groups validated where they run)."""
+    if isinstance(tape, pd.DataFrame) or not (tape.is_dir() or (map is not None and intake.is_partitioned(tape))):
+        return intake.read_tape(tape, config)
+    return intake.read_parts(tape, config, **({"map": map} if map is not None else {}))
+
+
 def _relabel(config: RunConfig, label: str) -> RunConfig:
     run_section = config.assumptions.run.model_copy(update={"label": label})
     return config.model_copy(update={"assumptions": config.assumptions.model_copy(update={"run": run_section})})
@@ -117,7 +125,7 @@ def check(tape: Tape, assumptions: Source, *, overlays: Sequence[Source] = (),
     Parameters
     ----------
     tape
-        A path (CSV, XLSX, Parquet) or a DataFrame with the tape's columns.
+        A path (CSV, XLSX, Parquet, or a folder of Parquet files) or a DataFrame with the tape's columns.
     assumptions
         A path (TOML) or a mapping in the assumptions file's shape.
     overlays
@@ -136,7 +144,7 @@ def check(tape: Tape, assumptions: Source, *, overlays: Sequence[Source] = (),
         A file cannot be read, or the assumptions are invalid (naming the file and key).
     """
     config = _config(assumptions, overlays)
-    taken = intake.read_tape(_tape(tape), config)
+    taken = _read_tape(_tape(tape), config)
     return CheckResult(intake=taken, tie_out=_tie_out(taken, config, ledger_balance))
 
 
@@ -228,7 +236,7 @@ def run(
     Parameters
     ----------
     tape
-        A path (CSV, XLSX, Parquet) or a DataFrame with the tape's columns.
+        A path (CSV, XLSX, Parquet, or a folder of Parquet files) or a DataFrame with the tape's columns.
     assumptions
         A path (TOML) or a mapping in the assumptions file's shape.
     overlays
@@ -250,7 +258,8 @@ def run(
         Also rerun with each scenario alone at 100 % weight, restaged (``Result.sensitivity``).
     map
         An executor-style map the engine hands its chunks to (``ProcessPoolExecutor().map``);
-        the builtin ``map`` when None.
+        the builtin ``map`` when None. A Parquet tape is then read and validated part by part
+        (row group by row group) through it too (:func:`allowance.intake.read_parts`).
     chunk_size
         Loans per chunk (default :data:`allowance.engine.CHUNK_SIZE`).
     progress
@@ -297,7 +306,7 @@ def run(
         config = _relabel(config, label)
     told("read", 0, 1)
     source = _tape(tape)
-    taken = intake.read_tape(source, config)
+    taken = _read_tape(source, config, map)
     taken.require_accepted()  # a run of no loans is not a run: exit 1 with the commonest reasons
     told("read", 1, 1)
     tie = _tie_out(taken, config, ledger_balance, accept_ledger_difference)

@@ -134,7 +134,7 @@ AssumptionsOption = Annotated[
                        help="Assumptions file (TOML): segments, scenarios, rules, overlays.")
 ]
 TapeArgument = Annotated[
-    Path, typer.Argument(metavar="TAPE", help="The loan tape (CSV, XLSX or Parquet).")
+    Path, typer.Argument(metavar="TAPE", help="The loan tape (CSV, XLSX, Parquet, or a folder of Parquet files).")
 ]
 QuietOption = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
 VerboseOption = Annotated[
@@ -363,7 +363,7 @@ def _write(result: Result, out: Path, shown, *, parquet: bool = False) -> tuple[
 @app.command()
 def run(
     ctx: typer.Context,
-    tape: Annotated[Path, typer.Argument(metavar="TAPE", help="The quarter-end loan tape (CSV, XLSX or Parquet).")],
+    tape: Annotated[Path, typer.Argument(metavar="TAPE", help="The quarter-end loan tape (CSV, XLSX, Parquet, or a folder of Parquet files).")],
     assumptions: AssumptionsOption,
     out: OutOption,
     overlay: Annotated[

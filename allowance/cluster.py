@@ -44,11 +44,16 @@ class DaskMap:
         func, args, kwargs = fn, (), {}
         if isinstance(fn, functools.partial):
             func = fn.func
-            args = tuple(self.client.scatter(a, broadcast=True) for a in fn.args)
-            kwargs = {k: self.client.scatter(v, broadcast=True) for k, v in fn.keywords.items()}
+            args = tuple(self._shared(a) for a in fn.args)
+            kwargs = {k: self._shared(v) for k, v in fn.keywords.items()}
         # pure=False: two chunks with equal loans are still two tasks, placed by position
         futures = [self.client.submit(func, *args, item, pure=False, **kwargs) for item in items]
         return (future.result() for future in futures)
+
+    def _shared(self, value: Any) -> Any:
+        """``value`` on every worker, as a future (in a list: ``scatter`` would take a dict's
+        items, or a list's elements, as separate data)."""
+        return self.client.scatter([value], broadcast=True)[0]
 
 
 def _distributed():

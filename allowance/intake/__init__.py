@@ -4,6 +4,7 @@ Implements
 ----------
 load_assumptions    TOML assumptions + overlay files -> validated RunConfig
 read_tape           CSV / XLSX / Parquet tape -> IntakeResult (accepted, rejected, findings)
+read_parts          a Parquet tape (file or folder) read part by part through a map -> IntakeResult
 tie_out             accepted tape balance against the ledger control total -> TieOut
 check_table         the counts ``allowance check`` prints
 read_charge_offs    the period's charge-off file
@@ -27,6 +28,7 @@ from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
 from allowance.intake.files import bundled_path, file_record
 from allowance.intake.history import PriorRun, read_charge_offs, read_prior_run
 from allowance.intake.macro_series import MacroHistory, read_macro_history
+from allowance.intake.parts import is_partitioned, read_parts
 from allowance.intake.performance import HistoryIntake, read_history
 from allowance.intake.policy import read_policy
 from allowance.intake.results import IntakeResult, TieOut
@@ -37,6 +39,8 @@ from allowance.intake.tieout import check_table, tie_out
 __all__ = [
     "HistoryIntake",
     "read_history",
+    "is_partitioned",
+    "read_parts",
     "read_policy",
     "CODES",
     "FIELDS",

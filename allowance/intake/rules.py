@@ -14,7 +14,7 @@ See :data:`CODES`: the code, and what it means (the summary ``allowance check`` 
 from __future__ import annotations
 
 import difflib
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Literal
 
@@ -89,6 +89,8 @@ class TapeColumns:
     assumptions: Assumptions
     source_row: np.ndarray
     as_read: Callable[[str], pa.ChunkedArray | None] | None = None  # a column read as numbers, as text
+    #: a part of a tape read part by part: the ids the whole tape repeats -> their rows (found beforehand)
+    repeated: Mapping[str, Sequence[int]] | None = None
 
     @property
     def rows(self) -> int:
@@ -212,23 +214,27 @@ _MIX = np.uint64(0x9E3779B97F4A7C15)
 _BUCKET_BITS = 22
 
 
-def _maybe_repeated(ids: pa.ChunkedArray) -> np.ndarray | None:
-    """Rows whose id may be repeated: a 64-bit hash of each id's bytes, compared in numpy.
+def id_hashes(ids: pa.ChunkedArray) -> np.ndarray:
+    """A 64-bit hash of each id's bytes (uint64; equal ids always hash equal, a blank id as "").
 
     The bytes are read eight at a time (unaligned little-endian words at each id's offset),
-    masked to the id's length and mixed. Equal ids always hash equal; the few rows that share
-    a hash are checked exactly by the caller. ``None`` when ids are longer than 64 bytes.
+    masked to the id's length and mixed; ids longer than 64 bytes are hashed by pandas
+    instead. Rows that share a hash are checked exactly by the caller.
     """
     array = ids.combine_chunks()
     rows = len(array)
     if rows == 0:
-        return np.zeros(0, dtype=bool)
+        return np.zeros(0, dtype=np.uint64)
+    if not (pa.types.is_string(array.type)):
+        array = pc.cast(array, pa.string())
     _, offsets_buffer, data_buffer = array.buffers()
     offsets = np.frombuffer(offsets_buffer, dtype=np.int32, count=rows + 1, offset=array.offset * 4)
     lengths = np.diff(offsets).astype(np.int64)
     width = int(lengths.max())
-    if width > 64 or data_buffer is None:
-        return None
+    if data_buffer is None:
+        return lengths.astype(np.uint64) * _MIX
+    if width > 64:
+        return pd.util.hash_array(pc.fill_null(array, "").to_numpy(zero_copy_only=False).astype(object))
     data = np.frombuffer(data_buffer, dtype=np.uint8)[offsets[0]:offsets[-1]]
     padded = np.zeros(len(data) + 8, dtype=np.uint8)
     padded[: len(data)] = data
@@ -243,6 +249,15 @@ def _maybe_repeated(ids: pa.ChunkedArray) -> np.ndarray | None:
         value = windows[np.minimum(start + 8 * word, len(data))] & keep  # fancy indexing: no copy of the view
         hashed = (hashed ^ value) * _MIX
         hashed ^= hashed >> np.uint64(31)
+    return hashed
+
+
+def _maybe_repeated(ids: pa.ChunkedArray) -> np.ndarray:
+    """Rows whose id may be repeated (they share a hash, :func:`id_hashes`)."""
+    hashed = id_hashes(ids)
+    rows = len(hashed)
+    if rows == 0:
+        return np.zeros(0, dtype=bool)
     # Bucket by the top bits first: only rows sharing a bucket need the full comparison.
     buckets = (hashed >> np.uint64(64 - _BUCKET_BITS)).astype(np.intp)
     crowded = np.flatnonzero(np.take(np.bincount(buckets, minlength=1 << _BUCKET_BITS), buckets) > 1)
@@ -252,15 +267,33 @@ def _maybe_repeated(ids: pa.ChunkedArray) -> np.ndarray | None:
     return repeated
 
 
+def _repeated_elsewhere(cols: TapeColumns) -> Iterator[Findings]:
+    """A part of a tape read part by part: every row whose id the whole tape repeats
+    (``cols.repeated``, found before the parts are read), naming the id's other rows."""
+    ids = cols.parsed["loan_id"].values
+    known = pa.array(list(cols.repeated), pa.string())
+    rows = np.flatnonzero(np.asarray(pc.fill_null(pc.is_in(ids, value_set=known), False)))
+    if not rows.size:
+        return
+    messages = []
+    for loan_id, line in zip(pc.take(ids, pa.array(rows, pa.int64())).to_pylist(), cols.source_row[rows]):
+        others = [str(x) for x in cols.repeated[loan_id] if x != line]
+        shown = ", ".join(others[:10]) + (f" and {len(others) - 10} more" if len(others) > 10 else "")
+        messages.append(f"loan_id {loan_id!r} is also on row{'s' if len(others) > 1 else ''} {shown}")
+    yield _findings(rows, "loan_id", "duplicate_loan_id", messages)
+
+
 def duplicate_ids(cols: TapeColumns) -> Iterator[Findings]:
     """Every copy of a repeated loan_id is rejected, each naming the other rows."""
+    if cols.repeated is not None:
+        yield from _repeated_elsewhere(cols)
+        return
     ids = cols.parsed["loan_id"].values
     candidates = _maybe_repeated(ids)
-    if candidates is not None and not candidates.any():
+    if not candidates.any():
         return
     series = ids.to_pandas()
-    if candidates is not None:  # equal ids share a hash: only those rows need the exact check
-        series = series.iloc[np.flatnonzero(candidates)]
+    series = series.iloc[np.flatnonzero(candidates)]  # equal ids share a hash: only those rows need the exact check
     dup = series.duplicated(keep=False) & series.notna()
     rows = np.asarray(series.index[dup.to_numpy()], dtype=np.int64)
     if not rows.size:

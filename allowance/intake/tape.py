@@ -7,8 +7,11 @@ in ``accepted`` or in ``rejected`` (with every reason it failed), and
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from datetime import date
 from pathlib import Path
 
 import numpy as np
@@ -333,16 +336,41 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
             return {i for name, i in ours.items() if FIELDS[name].kind in ("number", "whole")}
 
         raw = read_raw(path, file_kind(path), assumptions.tape.sheet, numeric)
-    rows_read = raw.table.num_rows + len(raw.malformed)
-    if rows_read == 0:
+    if raw.table.num_rows + len(raw.malformed) == 0:
         raise TapeError("has a header but no data rows", file=path, hint="export the tape again with its loans")
+    checked = validate(raw, path, config)
+    check_as_of_leaves_loans(checked.dates, config.assumptions.run.as_of, path)
+    return checked.intake
+
+
+@dataclass(frozen=True)
+class Validated:
+    """A tape (or a part of one) through the rules: the split rows, and the evidence of its
+    dates the as-of check reads (:func:`check_as_of_leaves_loans`, run on the whole tape)."""
+
+    intake: IntakeResult
+    dates: DateEvidence
+
+
+def validate(raw: RawTape, path: Path, config: RunConfig, *,
+             repeated: Mapping[str, Sequence[int]] | None = None) -> Validated:
+    """Apply every row rule to a tape as read: the one validation path of :func:`read_tape` and
+    of a tape read part by part (:mod:`allowance.intake.parts`).
+
+    ``repeated`` is given for a part: the loan ids the whole tape repeats, with their rows
+    (a part cannot see the other parts' ids).
+    """
+    mapping = config.assumptions.tape.columns
+    rows_read = raw.table.num_rows + len(raw.malformed)
     colmap = map_columns(raw.headers, mapping, path)
     cols = _parse(raw, colmap, config, str(path))
+    if repeated is not None:
+        cols = dataclasses.replace(cols, repeated=repeated)
     # a segment the rows need a key of: one error naming the key (the fix is in the assumptions)
     paydown = [fw for fw in config.frameworks if rules_for(fw).revolving_paydown]
     segment_requirements(cols, paydown, next((i.path for i in config.inputs if i.role == "assumptions"), None))
     chunks = apply_rules(cols) + _line_break_findings(raw, colmap)
-    check_as_of_leaves_loans(cols, path)
+    dates = date_evidence(cols)
     reject = np.zeros(cols.rows, dtype=bool)
     for chunk in chunks:
         if chunk.severity == "reject":
@@ -366,7 +394,7 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
             f"{raw.lines_in_values:,} line breaks inside quoted values; the records holding them are listed "
             "with code line_break_in_value or records_in_value"
         )
-    return IntakeResult(
+    return Validated(intake=IntakeResult(
         accepted=accepted,
         rejected=rejected,
         findings=findings,
@@ -379,7 +407,7 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
         lines=raw.lines,
         lines_in_values=raw.lines_in_values,
         notes=tuple(notes),
-    )
+    ), dates=dates)
 
 
 def _line_break_findings(raw: RawTape, colmap: ColumnMap) -> list[Findings]:
@@ -437,7 +465,54 @@ def _line_break_findings(raw: RawTape, colmap: ColumnMap) -> list[Findings]:
     return out
 
 
-def check_as_of_leaves_loans(cols: TapeColumns, path: Path) -> None:
+@dataclass(frozen=True)
+class DateEvidence:
+    """What the as-of check needs from a tape's dates; parts of a tape combine with ``|``.
+
+    Days since 1970-01-01; ``first``/``last`` origination over dated rows, ``matures`` the
+    latest maturity of a term loan (None: no such row).
+    """
+
+    dated: bool = False
+    revolving_on_book: bool = False  # a revolving line originated by the as-of date
+    term: bool = False  # a dated term loan with a maturity
+    live_term: bool = False  # a term loan on the book at the as-of date
+    first: int | None = None
+    last: int | None = None
+    matures: int | None = None
+
+    def __or__(self, other: DateEvidence) -> DateEvidence:
+        def pick(f, x, y):
+            return y if x is None else x if y is None else f(x, y)
+
+        return DateEvidence(
+            dated=self.dated or other.dated, revolving_on_book=self.revolving_on_book or other.revolving_on_book,
+            term=self.term or other.term, live_term=self.live_term or other.live_term,
+            first=pick(min, self.first, other.first), last=pick(max, self.last, other.last),
+            matures=pick(max, self.matures, other.matures),
+        )
+
+
+def date_evidence(cols: TapeColumns) -> DateEvidence:
+    """The tape's :class:`DateEvidence` at the as-of date."""
+    as_of = int(np.datetime64(cols.assumptions.run.as_of, "D").astype(np.int64))
+    origination = cols.parsed["origination_date"].values
+    maturity = cols.parsed["maturity_date"].values
+    dated = origination != NO_DAY
+    if not dated.any():
+        return DateEvidence()
+    revolving = np.asarray(pc.fill_null(pc.equal(cols.parsed["repayment"].values, "revolving"), False))
+    originated = dated & (origination <= as_of)
+    term = dated & ~revolving & (maturity != NO_DAY)
+    return DateEvidence(
+        dated=True, revolving_on_book=bool((originated & revolving).any()), term=bool(term.any()),
+        live_term=bool((term & originated & (maturity > as_of)).any()),
+        first=int(origination[dated].min()), last=int(origination[dated].max()),
+        matures=int(maturity[term].max()) if term.any() else None,
+    )
+
+
+def check_as_of_leaves_loans(evidence: DateEvidence, as_of: date, path: Path | str) -> None:
     """Raise :class:`TapeError` when the as-of date leaves no loan on the book.
 
     A loan is on the book at the as-of date when it was originated on or before it and, for
@@ -446,27 +521,16 @@ def check_as_of_leaves_loans(cols: TapeColumns, path: Path) -> None:
     cannot vouch for the date), the as-of date or the tape is wrong: a run would report an
     allowance for a book that is not there.
     """
-    as_of = int(np.datetime64(cols.assumptions.run.as_of, "D").astype(np.int64))
-    origination = cols.parsed["origination_date"].values
-    maturity = cols.parsed["maturity_date"].values
-    repayment = cols.parsed["repayment"]
-    dated = origination != NO_DAY
-    if not dated.any():
+    if not evidence.dated:
         return
-    revolving = np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
-    originated = dated & (origination <= as_of)
-    term = dated & ~revolving & (maturity != NO_DAY)
-    live_term = term & originated & (maturity > as_of)
-    if (originated & revolving).any() and (live_term.any() or not term.any()):
+    if evidence.revolving_on_book and (evidence.live_term or not evidence.term):
         return
-    if live_term.any():
+    if evidence.live_term:
         return
-    first, last = _date_text(origination[dated].min()), _date_text(origination[dated].max())
-    matures = maturity[term]
-    ends = f" and its term loans mature by {_date_text(matures.max())}" if matures.size else ""
-    when = cols.assumptions.run.as_of.isoformat()
+    first, last = _date_text(evidence.first), _date_text(evidence.last)
+    ends = f" and its term loans mature by {_date_text(evidence.matures)}" if evidence.matures is not None else ""
     raise TapeError(
-        f"the as-of date {when} leaves no loan on the book: the tape's loans were originated from "
+        f"the as-of date {as_of.isoformat()} leaves no loan on the book: the tape's loans were originated from "
         f"{first} to {last}{ends}",
         file=path,
         hint="check [run] as_of in the assumptions file against the tape's dates",
