@@ -342,17 +342,17 @@ def _expected_balance(t, io, balance, x, annuity, pay):
     return balance if t < io else balance_on_path(balance, x, annuity, pay)
 
 
-@numba.njit(cache=jit.CACHE, parallel=True)
+@numba.njit(cache=jit.CACHE, nogil=True)  # threads: allowance.jit.in_threads
 def _loop(
     method, loss_rate, vintage, original_balance, age, default_lgd, code, balance, rate, months_left,
     io_left, residual, payment, prepay, prepay_offset, in_default, horizon, ead_add, paydown, discount,
-    multiplier, lgd_multiplier, vintage_curve, smm, block, ecl12, ecllife, ead0,
+    multiplier, lgd_multiplier, vintage_curve, smm, block, first, last, ecl12, ecllife, ead0,
 ):
     n = balance.shape[0]
     n_fw = multiplier.shape[0]
     n_sc = multiplier.shape[2]
     last_age = vintage_curve.shape[1] - 1
-    for b in numba.prange((n + block - 1) // block):
+    for b in range(first, last):
         life = np.empty(n_sc)
         twelve = np.empty(n_sc)
         for i in range(b * block, min(n, (b + 1) * block)):
@@ -503,5 +503,6 @@ def loss_rate_losses(inputs: LossRateInputs) -> LossRateResult:
     ecl12, ecllife = np.zeros((n, n_fw, n_sc)), np.zeros((n, n_fw, n_sc))
     ead0 = np.zeros((n, n_fw))
     if n:
-        _loop(*(a[name] for name in _FIELDS), _BLOCK, ecl12, ecllife, ead0)
+        head = tuple(a[name] for name in _FIELDS)
+        jit.in_threads(lambda first, last: _loop(*head, _BLOCK, first, last, ecl12, ecllife, ead0), n, _BLOCK)
     return LossRateResult(ecl12, ecllife, ead0)

@@ -55,7 +55,8 @@ from allowance import cashflows, ecl, engine  # noqa: E402
 from allowance.schemas import OPTIONAL_COLUMNS, Assumptions, LoanRecord, RunConfig  # noqa: E402
 
 AS_OF = "2026-09-30"
-PER_FRAMEWORK = ("in_default", "horizon", "ead_add", "paydown", "discount", "pd", "lgd_multiplier", "collateral_index")
+PER_FRAMEWORK = ("curve", "in_default", "horizon", "ead_add", "paydown", "discount", "recovery_discount", "interest", "pd",
+                 "lgd_multiplier", "collateral_index")
 
 
 def config(frameworks=("ifrs9", "cecl")) -> RunConfig:
