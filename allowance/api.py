@@ -98,10 +98,19 @@ def _call(function: str, **parameters: Any) -> dict[str, Any]:
 
 
 def _tie_out(taken: intake.IntakeResult, config: RunConfig, ledger_balance: float | None,
-             accept: bool = False) -> intake.TieOut:
+             accept: bool = False, accepted_balance: float | None = None) -> intake.TieOut:
     run_section = config.assumptions.run
     ledger = ledger_balance if ledger_balance is not None else run_section.ledger_balance
-    return intake.tie_out(taken, ledger, run_section.ledger_tolerance, accept)
+    return intake.tie_out(taken, ledger, run_section.ledger_tolerance, accept, accepted_balance=accepted_balance)
+
+
+def _require_tie(tie: intake.TieOut, taken: intake.IntakeResult) -> None:
+    if not tie.within_tolerance and not tie.accepted_by_user:
+        raise TieOutError(
+            tie.explanation, file=taken.file.path,
+            hint="correct the tape or the ledger figure, or accept the difference "
+                 "(--accept-ledger-difference) to record it and go on",
+        )
 
 
 # --------------------------------------------------------------------------------------
@@ -230,6 +239,7 @@ def run(
     chunk_size: int | None = None,
     progress: Progress | None = None,
     invocation: Mapping[str, Any] | None = None,
+    loans_parquet: str | os.PathLike | None = None,
 ) -> Result:
     """A whole reserve run: read, validate, tie out, compute, explain the movement and the what-if.
 
@@ -269,6 +279,14 @@ def run(
     invocation
         How the run was asked for, kept in the run record's ``arguments`` beside this
         call's parameters (the command line passes its command and options).
+    loans_parquet
+        A folder (absent or empty, reachable at this path from every worker) for the loan
+        detail of a Parquet tape computed part by part (:mod:`allowance.partitioned`): each
+        row group is read, validated, computed and written there as one Parquet file by
+        whichever worker ``map`` sends it to, and only sums come back. The result's
+        ``loans`` is then not available (read the folder); ``summary``, ``totals``, the run
+        record and the counts are exact. Not with ``prior`` or ``overlays`` (loan by loan
+        comparisons), nor an ``amount`` overlay; no sensitivities and no workbook.
 
     Returns
     -------
@@ -288,7 +306,7 @@ def run(
         "api": _call("allowance.run", tape=tape, assumptions=assumptions, overlays=list(overlays), prior=prior,
                      charge_offs=charge_offs, ledger_balance=ledger_balance,
                      accept_ledger_difference=accept_ledger_difference, label=label, sensitivities=sensitivities,
-                     map=map, chunk_size=chunk_size),
+                     map=map, chunk_size=chunk_size, **({"loans_parquet": loans_parquet} if loans_parquet else {})),
         **dict(invocation or {}),
     }
     told = progress or (lambda phase, done, total: None)
@@ -304,18 +322,22 @@ def run(
     config = _config(assumptions, overlays)
     if label is not None:
         config = _relabel(config, label)
-    told("read", 0, 1)
     source = _tape(tape)
+    if loans_parquet is not None:
+        for given, option, why in ((prior, "a prior run", "the movement is explained loan by loan"),
+                                   (overlays or None, "a what-if overlay", "the base run is compared loan by loan")):
+            if given is not None:
+                raise AllowanceError(f"{option} needs the whole loan frame in one process ({why}); "
+                                     "run it without the Parquet loan detail")
+        return _run_book(source, config, Path(loans_parquet), map=map, chunk_size=chunk_size, progress=progress,
+                         ledger_balance=ledger_balance, accept=accept_ledger_difference, sensitivities=sensitivities,
+                         arguments=arguments, started=(started, started_at))
+    told("read", 0, 1)
     taken = _read_tape(source, config, map)
     taken.require_accepted()  # a run of no loans is not a run: exit 1 with the commonest reasons
     told("read", 1, 1)
     tie = _tie_out(taken, config, ledger_balance, accept_ledger_difference)
-    if not tie.within_tolerance and not tie.accepted_by_user:
-        raise TieOutError(
-            tie.explanation, file=taken.file.path,
-            hint="correct the tape or the ledger figure, or accept the difference "
-                 "(--accept-ledger-difference) to record it and go on",
-        )
+    _require_tie(tie, taken)
     result = compute(taken.accepted, config)
     inputs = list(config.inputs)
 
@@ -390,6 +412,46 @@ def run(
         what_if=what_if, record=record, warnings=warnings,
     )
     return Result(report=run_report, seconds=time.perf_counter() - started)
+
+
+def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, map: Callable | None,
+              chunk_size: int | None, progress: Progress | None, ledger_balance: float | None, accept: bool,
+              sensitivities: bool, arguments: dict, started: tuple[float, Any]) -> Result:
+    """:func:`run` for a Parquet tape computed part by part, its loan detail written to ``folder``."""
+    from allowance import partitioned
+
+    if isinstance(source, pd.DataFrame) or not intake.is_partitioned(source):
+        raise InputFileError("the Parquet loan detail is written part by part from a Parquet tape",
+                             file=str(source) if not isinstance(source, pd.DataFrame) else "<DataFrame>",
+                             hint="give a Parquet file or a folder of Parquet files")
+    ties: list[intake.TieOut] = []
+
+    def tied(taken: intake.IntakeResult, balance: float) -> None:
+        ties.append(_tie_out(taken, config, ledger_balance, accept, accepted_balance=balance))
+        _require_tie(ties[0], taken)
+
+    book = partitioned.run_book(source, config, folder, check_tape=tied, progress=progress,
+                                **({"map": map} if map is not None else {}),
+                                **({"chunk_size": chunk_size} if chunk_size is not None else {}))
+    warnings = [*book.intake.notes, *book.warnings,
+                f"the loan detail is in {folder} (Parquet, one file per part of the tape); no reserve.xlsx is "
+                "written for a book computed part by part: the totals by framework, stage and segment are in run.json"]
+    if sensitivities and len(config.assumptions.scenarios) > 1:
+        warnings.append("the one-scenario sensitivities are not computed for a book computed part by part")
+    taken = dataclasses.replace(book.intake, findings=pd.concat([book.intake.findings, book.findings], ignore_index=True))
+    count = int(book.loans[partitioned.COUNT].sum())
+    record = report.run_record(config, taken, book.loans, tie_out=ties[0], warnings=warnings, started=started[1],
+                               extra={"arguments": arguments, "loans": count, "loan_detail": str(folder),
+                                      "loan_detail_files": len(book.files)})
+    prep = book.prep
+    run_report = report.RunReport(
+        config=config, intake=taken, tie_out=ties[0], loans=book.loans, overlays=book.overlays,
+        scenarios=engine.scenario_summary(book.loans, config), term_structures=engine.views.term_structure_table(prep),
+        roll_rates=engine.roll_rate_table(config), reversion=engine.reversion_view(prep),
+        macro_paths=macro.macro_path_table(config.assumptions, prep.months), record=record, warnings=warnings,
+        loan_detail=str(folder),
+    )
+    return Result(report=run_report, seconds=time.perf_counter() - started[0])
 
 
 # --------------------------------------------------------------------------------------

@@ -408,6 +408,11 @@ def run(
         int | None, typer.Option("--chunk-size", min=1, metavar="LOANS",
                                  help="Loans per unit of work (default 250,000); smaller spreads a book over more workers.")
     ] = None,
+    loans_parquet: Annotated[
+        Path | None, typer.Option("--loans-parquet", metavar="DIR",
+                                  help="Parquet tape: compute it part by part and write the loan detail to DIR "
+                                       "(absent or empty) from where each part runs; no loans.csv or workbook.")
+    ] = None,
     quiet: QuietOption = False,
     verbose: VerboseOption = False,
     as_json: JsonOption = False,
@@ -423,6 +428,9 @@ def run(
     if charge_offs is not None and prior is None:
         raise typer.BadParameter("needs --prior: the write-offs explain the movement from the prior run",
                                  param_hint="'--charge-offs'")
+    if loans_parquet is not None and (prior is not None or overlay or parquet):
+        raise typer.BadParameter("the loan detail written part by part is compared with nothing: not with --prior, "
+                                 "--overlay or --parquet", param_hint="'--loans-parquet'")
     _check_out(out, tape, assumptions, *(overlay or ()), charge_offs, prior / "loans.csv" if prior else None)
     started = time.perf_counter()
     try:
@@ -432,7 +440,7 @@ def run(
                     tape, assumptions, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
                     ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,
                     label=label, sensitivities=sensitivities, map=chunk_map, chunk_size=chunk_size,
-                    progress=shown, invocation=_invocation(ctx),
+                    progress=shown, invocation=_invocation(ctx), loans_parquet=loans_parquet,
                 )
             files, notes = _write(result, out, shown, parquet=parquet)
     except AllowanceError as err:

@@ -4,6 +4,7 @@ Implements
 ----------
 OverlayResult    per-loan adjustments per framework, the overlay table, warnings
 apply_overlays   apply every live overlay to the loans in its scope
+amount_weights   an amount overlay's weights on a part of a book (allocated over the whole book)
 allocate_cents   split an amount in whole cents pro rata (largest remainder), footing exactly
 TABLE_COLUMNS    the columns of the overlay table
 
@@ -13,7 +14,7 @@ amount overlay's loan shares sum to the stated amount to the cent.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import date
 
@@ -103,6 +104,26 @@ _KINDS: dict[OverlayKind, Callable[[np.ndarray, np.ndarray, float], np.ndarray]]
 }
 
 
+def amount_weights(loans: pd.DataFrame, overlays: list[Overlay], frameworks: list[Framework]) -> dict[tuple[int, str], np.ndarray]:
+    """Each ``amount`` overlay's weights on these loans, per framework: the in-scope loans'
+    modelled cents (floored at 0), in loan order, keyed ``(overlay position, framework)``.
+
+    A book computed in parts concatenates every part's weights in tape order and allocates
+    once (:func:`allocate_cents`), as :func:`apply_overlays` does over a whole book.
+    """
+    out: dict[tuple[int, str], np.ndarray] = {}
+    for position, ov in enumerate(overlays):
+        if ov.kind != "amount":
+            continue
+        scope = np.ones(len(loans), bool) if ov.segment == "*" else _matches(loans["segment"], ov.segment)
+        if ov.stage is not None and "stage" in loans.columns:
+            scope = scope & _matches(loans["stage"], ov.stage)
+        for fw in frameworks:
+            if ov.framework in (None, fw):
+                out[(position, fw)] = np.maximum(_cents(loans, fw)[scope], 0)
+    return out
+
+
 def _matches(column: pd.Series, value: object) -> np.ndarray:
     return column.eq(value).to_numpy(dtype=bool, na_value=False)
 
@@ -149,6 +170,7 @@ def apply_overlays(
     overlays: list[Overlay],
     as_of: date,
     frameworks: list[Framework],
+    allocated: Mapping[tuple[int, str], np.ndarray] | None = None,
 ) -> OverlayResult:
     """Apply the overlays, in order, to the modelled ECL of each framework.
 
@@ -163,6 +185,10 @@ def apply_overlays(
         Reporting date: an overlay whose ``expires`` is before it is not applied.
     frameworks : list of {"ifrs9", "cecl"}
         The frameworks of the run.
+    allocated : mapping, optional
+        For a part of a book: ``(overlay position, framework)`` -> the part's in-scope loans'
+        cents of an ``amount`` overlay, allocated over the whole book's scope
+        (:func:`amount_weights` of every part, then :func:`allocate_cents` once).
 
     Returns
     -------
@@ -200,7 +226,7 @@ def apply_overlays(
     rows: list[dict] = []
     warnings: list[str] = []
 
-    for ov in overlays:  # a loop over overlays (a handful), never over loans
+    for position, ov in enumerate(overlays):  # a loop over overlays (a handful), never over loans
         targets = [fw for fw in frameworks if ov.framework in (None, fw)]
         scope = np.ones(n, bool) if ov.segment == "*" else _matches(loans["segment"], ov.segment)
         staged_ok = ov.stage is None or has_stage
@@ -228,7 +254,11 @@ def apply_overlays(
             status = "applied"
             clipped_by_fw = []
             for fw in targets:
-                cents = _KINDS[ov.kind](modelled[fw], scope, ov.value)
+                if allocated is not None and ov.kind == "amount":  # the book's allocation, this part's loans
+                    cents = np.zeros(n, dtype=np.int64)
+                    cents[scope] = allocated[(position, fw)]
+                else:
+                    cents = _KINDS[ov.kind](modelled[fw], scope, ov.value)
                 # a release never takes a loan's ECL below 0 (nor further below, for POCI gains)
                 floored = np.maximum(cents, np.minimum(0, -running[fw]))
                 clipped = int(np.count_nonzero(floored != cents))

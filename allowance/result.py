@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from allowance.exceptions import AllowanceError
 from allowance.frameworks import rules_for
 from allowance.intake import IntakeResult, TieOut, check_table
 from allowance.money import money_total
@@ -31,19 +32,21 @@ if TYPE_CHECKING:
 __all__ = ["CheckResult", "Result", "totals_table"]
 
 TOTAL = "Total"
+LOAN_COUNT = "loan_count"  # the loans in a row of a book's loan sums (allowance.partitioned.COUNT)
 
 
 def _cents(values: pd.Series) -> int:
     return int(np.rint(values.to_numpy(dtype=np.float64) * 100.0).astype(np.int64).sum())
 
 
-def totals_table(loans: pd.DataFrame, frameworks: list[str]) -> pd.DataFrame:
+def totals_table(loans: pd.DataFrame, frameworks: list[str], counts: str | None = None) -> pd.DataFrame:
     """Allowance per framework, by stage (where the framework stages loans) and segment.
 
     One row per framework, stage and segment, then one per framework and stage over all
     segments, then the framework's total (``segment`` and ``stage`` "Total"). Columns
     ``framework, stage, segment, loans, balance, allowance, coverage``; money is the sum of
-    the rounded loan figures in whole cents. ``stage`` is "1", "2", "3" or "POCI" for IFRS 9
+    the rounded loan figures in whole cents (``counts``: the column holding each row's number
+    of loans, when the rows are sums of loans). ``stage`` is "1", "2", "3" or "POCI" for IFRS 9
     (the one stage vocabulary: purchased or originated credit-impaired loans are their own
     class, IFRS 7 35H(c), whatever their stage) and "Total" for a framework without stages.
 
@@ -65,14 +68,15 @@ def totals_table(loans: pd.DataFrame, frameworks: list[str]) -> pd.DataFrame:
         if staged and "poci" in loans.columns:  # POCI apart from stages 2 and 3, as run.json and the workbook
             stage = stage.where(~loans["poci"].astype(bool), "POCI")
         frame = pd.DataFrame({"stage": stage.to_numpy(), "segment": loans["segment"].astype(str).to_numpy(),
-                              "balance": loans["balance"].to_numpy(), "allowance": loans[column].to_numpy()})
+                              "balance": loans["balance"].to_numpy(), "allowance": loans[column].to_numpy(),
+                              "n": loans[counts].to_numpy() if counts else np.ones(len(loans), np.int64)})
         groups = [(["stage", "segment"], None)] if not staged else [(["stage", "segment"], None), (["stage"], TOTAL)]
         for keys, segment in groups:
             for key, part in frame.groupby(keys, sort=True):
                 key = key if isinstance(key, tuple) else (key,)
-                rows.append({"framework": fw, "stage": key[0], "segment": segment or key[1], "loans": len(part),
+                rows.append({"framework": fw, "stage": key[0], "segment": segment or key[1], "loans": int(part["n"].sum()),
                              "balance": _cents(part["balance"]) / 100, "allowance": _cents(part["allowance"]) / 100})
-        rows.append({"framework": fw, "stage": TOTAL, "segment": TOTAL, "loans": len(frame),
+        rows.append({"framework": fw, "stage": TOTAL, "segment": TOTAL, "loans": int(frame["n"].sum()),
                      "balance": _cents(frame["balance"]) / 100, "allowance": _cents(frame["allowance"]) / 100})
     out = pd.DataFrame(rows, columns=["framework", "stage", "segment", "loans", "balance", "allowance"])
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -104,8 +108,25 @@ class Result:
 
     @property
     def loans(self) -> pd.DataFrame:
-        """One row per accepted loan: the ``loans.csv`` columns, rounded to cents."""
+        """One row per accepted loan: the ``loans.csv`` columns, rounded to cents.
+
+        A book computed part by part (``loans_parquet``) has its loan detail in that folder
+        only: read it with ``pandas.read_parquet(folder)``; asking for it here is an error."""
+        if self.report.loan_detail is not None:
+            raise AllowanceError("the loan detail was written part by part, not kept in this process",
+                                 file=self.report.loan_detail, hint="read it with pandas.read_parquet(folder)")
         return self.report.loans
+
+    @property
+    def loan_detail(self) -> str | None:
+        """The folder of the Parquet loan detail written part by part (None: ``loans`` holds it)."""
+        return self.report.loan_detail
+
+    def _loans_or_sums(self) -> tuple[pd.DataFrame, str | None]:
+        """The loan frame, or for a book computed part by part its loan sums and their count column."""
+        if self.report.loan_detail is not None:
+            return self.report.loans, LOAN_COUNT
+        return self.report.loans, None
 
     @property
     def rejected(self) -> pd.DataFrame:
@@ -125,16 +146,18 @@ class Result:
     @property
     def totals(self) -> pd.DataFrame:
         """Allowance per framework, by stage and segment (:func:`totals_table`)."""
-        return totals_table(self.loans, self.frameworks)
+        loans, counts = self._loans_or_sums()
+        return totals_table(loans, self.frameworks, counts=counts)
 
     @property
     def summary(self) -> pd.DataFrame:
         """One row per framework: loans, balance, modelled allowance, overlays, allowance, coverage."""
         rows = []
+        loans, counts = self._loans_or_sums()
         for fw in self.frameworks:
-            loans = self.loans
             rows.append({
-                "framework": rules_for(fw).label, "loans": len(loans), "balance": money_total(loans["balance"]),
+                "framework": rules_for(fw).label, "loans": int(loans[counts].sum()) if counts else len(loans),
+                "balance": money_total(loans["balance"]),
                 "modelled": money_total(loans.get(f"ecl_{fw}_modelled", pd.Series(dtype=float))),
                 "overlays": money_total(loans.get(f"overlay_{fw}", pd.Series(dtype=float))),
                 "allowance": money_total(loans[f"ecl_{fw}"]),

@@ -353,7 +353,12 @@ def pd_ratio_warnings(tape: pd.DataFrame) -> list[str]:
     IFRS 9 staging: the PD-ratio test is not applied to segment b (1 loan): it has no loan-level pd_12m_current on the tape, and a pool PD is not compared with a loan's PD; those loans are staged on days past due, the flags and probation
     IFRS 9 staging: the PD-ratio test is not applied to 1 of 2 loans of segment a (no pd_12m_current)
     """
-    cover = pd_ratio_coverage(tape)
+    return pd_ratio_lines(pd_ratio_coverage(tape))
+
+
+def pd_ratio_lines(cover: pd.DataFrame) -> list[str]:
+    """:func:`pd_ratio_warnings` from a :func:`pd_ratio_coverage` table (of a whole book, or
+    the sum of its parts' tables by segment)."""
     lines = []
     none = cover[(cover["tested"] == 0) & (cover["no_current_pd"] == cover["loans"])]
     if len(none):

@@ -148,3 +148,79 @@ def test_a_bad_row_in_one_part_is_named_by_file_row_column_and_reason_and_the_co
     kept = tape.drop(index=[3, 200, 250])["balance"].sum()
     assert by_parts.tie_out.accepted_balance == pytest.approx(round(kept, 2), abs=0.005)
     assert by_parts.summary["balance"].iloc[0] == pytest.approx(round(kept, 2), abs=0.005)
+
+
+# --------------------------------------------------------------------------------------
+# The loan detail written where each part is computed
+# --------------------------------------------------------------------------------------
+
+
+def test_the_loan_detail_written_by_the_workers_is_the_in_process_loan_frame_to_the_cent(tmp_path):
+    """Reference: the in-process run of the same rows read whole. The folder's parts are read,
+    computed and written on a local cluster (worker threads); only sums come back. The demo's
+    assumptions carry an amount overlay, allocated once over the whole book (largest
+    remainder, common practice, no source), so the parts' shares must add up to the
+    in-process allocation loan by loan."""
+    import json
+
+    import pandas as pd
+
+    whole, folder = _parquet_book(tmp_path / "book")
+    alone = api.run(whole, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False)
+    assert (alone.report.overlays["kind"] == "amount").any()
+    alone.write(tmp_path / "alone")
+    with distributed.Client(processes=False, n_workers=2, threads_per_worker=1, dashboard_address=None) as client:
+        book = api.run(folder, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False, chunk_size=40,
+                       map=DaskMap(client), loans_parquet=tmp_path / "detail")
+        assert "compute_part" in client.cluster.scheduler.task_prefixes
+    detail = pd.read_parquet(tmp_path / "detail")
+    assert sorted(p.name for p in (tmp_path / "detail").iterdir()) == [
+        f"part-{first:012d}.parquet" for first in (0, 50, 100, 150, 200, 250)]
+    pd.testing.assert_frame_equal(detail, alone.loans, check_dtype=False)
+    assert book.summary.equals(alone.summary)
+    assert book.totals.equals(alone.totals)
+    assert book.report.scenarios.equals(alone.report.scenarios)
+    assert book.report.overlays.equals(alone.report.overlays)
+    book.write(tmp_path / "out")
+    written, reference = (json.loads((tmp_path / d / "run.json").read_text()) for d in ("out", "alone"))
+    for key in ("rows", "loans", "total_balance", "total_allowance", "totals", "tie_out"):
+        assert written[key] == reference[key], key
+    assert not (tmp_path / "out" / "loans.csv").exists() and not (tmp_path / "out" / "reserve.xlsx").exists()
+    with pytest.raises(AllowanceError, match="part by part"):
+        _ = book.loans
+
+
+def test_the_loan_detail_part_by_part_refuses_what_needs_the_whole_loan_frame(tmp_path):
+    whole, _ = _parquet_book(tmp_path / "book", rows=40)
+    with pytest.raises(AllowanceError, match="prior run needs the whole loan frame"):
+        api.run(whole, DEMO_ASSUMPTIONS, prior=tmp_path, loans_parquet=tmp_path / "detail")
+    with pytest.raises(AllowanceError, match="from a Parquet tape"):
+        api.run(DEMO_TAPE, DEMO_ASSUMPTIONS, loans_parquet=tmp_path / "detail")
+    (tmp_path / "used").mkdir()
+    (tmp_path / "used" / "old.parquet").write_bytes(b"")
+    with pytest.raises(AllowanceError, match="not an empty folder"):
+        api.run(whole, DEMO_ASSUMPTIONS, accept_ledger_difference=True, loans_parquet=tmp_path / "used")
+
+
+@pytest.mark.slow
+def test_run_loans_parquet_on_a_cluster_through_the_command_line(tmp_path):
+    """``allowance run FOLDER --engine dask --scheduler ADDRESS --loans-parquet DIR`` against the
+    in-process run of the same rows read whole: the same detail, the same totals in run.json."""
+    import json
+
+    import pandas as pd
+
+    whole, folder = _parquet_book(tmp_path / "book")
+    alone = api.run(whole, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False)
+    with distributed.LocalCluster(processes=False, n_workers=2, threads_per_worker=1, dashboard_address=None,
+                                  protocol="tcp://", host="127.0.0.1") as cluster:
+        done = subprocess.run([sys.executable, "-m", "allowance", "run", str(folder), "-a", str(DEMO_ASSUMPTIONS),
+                               "--accept-ledger-difference", "--out", str(tmp_path / "out"), "--engine", "dask",
+                               "--scheduler", cluster.scheduler_address, "--loans-parquet", str(tmp_path / "detail")],
+                              capture_output=True, text=True, timeout=600)
+        assert done.returncode == 0, done.stderr
+    pd.testing.assert_frame_equal(pd.read_parquet(tmp_path / "detail"), alone.loans, check_dtype=False)
+    record = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert record["total_allowance"] == {fw: float(alone.summary.set_index("framework").loc[label, "allowance"])
+                                         for fw, label in (("ifrs9", "IFRS 9"), ("cecl", "CECL"))}
+    assert record["loans"] == 300 and record["loan_detail"] == str(tmp_path / "detail")

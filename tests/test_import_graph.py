@@ -28,6 +28,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("cluster",),  # the engine's chunks on a Dask cluster
     ("reconcile", "disclosure"),  # movement, what-if, sensitivities between runs; disclosure tables
     ("report",),  # the writing edge: loans.csv, reserve.xlsx, run.json
+    ("partitioned",),  # a book read, computed and its loan detail written part by part
     ("result",),  # what the API hands back
     ("api",),  # the library API
     ("cli", "__main__", "console", "progress"),  # the command line and what it shows while it works

@@ -19,6 +19,10 @@ EngineResult  loan results plus the tables the workbook shows
 prepare       build the tables for a tape
 run_chunk     loan results (modelled, unrounded) for a chunk of loans
 run           the whole book: chunks through a map, rounding to cents, overlays, summaries
+PartResult    a part of a book computed where it was read: its loans and overlays
+run_part      a part of a book: chunks, rounding, its overlays (or its amount overlays' weights)
+overlay_part  a part's overlays once the book's amount overlays are allocated
+book_wide_overlays  the overlays that need the whole book at once (an amount to allocate)
 overlaid      a result with other overlays (no second pass through the loop)
 Progress      the progress callback: ``progress(phase, done, total)``
 """
@@ -50,9 +54,9 @@ from allowance.money import CENT_DECIMALS
 from allowance.schemas import LoanRecord, RunConfig
 
 __all__ = [
-    "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "Prepared", "Progress", "SegmentTable",
-    "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table", "run", "run_chunk", "scenario_summary",
-    "segment_table", "tape_months",
+    "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
+    "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
+    "max_age", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
@@ -139,11 +143,7 @@ def run(
     the rounded modelled figures; every total is the sum of rounded loan figures. Rounding,
     overlays and summaries are book-wide and run after the map.
     """
-    a = config.assumptions
-    months = tape_months(tape, config)
-    as_of = pd.Timestamp(config.as_of)
-    max_age = int(cashflows.age_months(tape["origination_date"], as_of).max()) if len(tape) else 0
-    prep = prepare(config, months, max_age)
+    prep = prepare(config, tape_months(tape, config), max_age(tape, config))
 
     chunks = list(_chunks(tape, chunk_size))
     parts: list[ChunkResult] = []
@@ -157,7 +157,6 @@ def run(
 
     applied = _apply_overlays(loans, config)
     loans = _order_columns(loans, tape, prep)
-    reverting = next((r.name for r in prep.rules if r.reversion(a) is not None), None)
 
     return EngineResult(
         loans=loans,
@@ -165,7 +164,7 @@ def run(
         scenarios=scenario_summary(loans, config),
         term_structures=term_structure_table(prep),
         roll_rates=roll_rate_table(config),
-        reversion=scenarios.reversion_table(prep.tables[reverting]) if reverting else pd.DataFrame(),
+        reversion=reversion_view(prep),
         # the tape's own columns only: slicing thousands of carried-through columns costs seconds
         schedules=_schedule_sample(tape[[c for c in tape.columns if c in LoanRecord.model_fields or c == "source_row"]],
                                    loans, prep, schedule_sample),
@@ -176,9 +175,78 @@ def run(
     )
 
 
-def _apply_overlays(loans: pd.DataFrame, config: RunConfig) -> overlays.OverlayResult:
+@dataclass(frozen=True)
+class PartResult:
+    """A part of a book computed where it was read (:func:`run_part`).
+
+    ``overlays`` is None when the part's overlays wait for the book: an ``amount`` is
+    allocated over every part at once; ``weights`` are then this part's
+    (:func:`allowance.overlays.amount_weights`), and ``loans`` carry the modelled figures
+    as final (``overlay_<fw>`` 0) until :func:`overlay_part` sets them.
+    """
+
+    loans: pd.DataFrame  # the loans.csv columns of the part's loans, in tape order
+    overlays: overlays.OverlayResult | None
+    findings: pd.DataFrame
+    weights: dict[tuple[int, str], np.ndarray] = field(default_factory=dict)
+
+
+def book_wide_overlays(config: RunConfig) -> list[str]:
+    """The names of the overlays a part of a book cannot apply alone: an ``amount`` is
+    allocated over every loan in its scope at once (:func:`allowance.overlays.allocate_cents`)."""
+    return [ov.name for ov in config.assumptions.overlays if ov.kind != "percent"]
+
+
+def run_part(tape: pd.DataFrame, prep: Prepared, *, chunk_size: int = CHUNK_SIZE) -> PartResult:
+    """The loans of one part of a book, computed where the part was read.
+
+    The same steps as :func:`run` on the part's loans: :func:`run_chunk` over chunks,
+    rounding to cents once per loan, then the overlays when they are all percentages (per
+    loan). ``prep`` is the whole book's (:func:`prepare` with the book's months and ages), so
+    each loan's figures are those of a run of the whole book, to the cent. With an
+    ``amount`` overlay the part returns its weights instead, and :func:`overlay_part`
+    applies the overlays once the book's allocation is known.
+    """
+    config = prep.config
+    parts = [run_chunk(chunk, prep) for chunk in _chunks(tape, chunk_size)]
+    loans = _round_money(pd.concat([p.loans for p in parts]) if parts else pd.DataFrame())
+    findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
+    if book_wide_overlays(config):
+        for fw in config.frameworks:  # placeholders in their columns' places, set by overlay_part
+            loans[f"overlay_{fw}"] = 0.0
+            loans[f"ecl_{fw}"] = loans[f"ecl_{fw}_modelled"]
+        weights = overlays.amount_weights(loans, list(config.assumptions.overlays), list(config.frameworks))
+        return PartResult(loans=_order_columns(loans, tape, prep), overlays=None, findings=findings, weights=weights)
+    applied = _apply_overlays(loans, config)
+    return PartResult(loans=_order_columns(loans, tape, prep), overlays=applied, findings=findings)
+
+
+def overlay_part(loans: pd.DataFrame, config: RunConfig,
+                 allocated: dict[tuple[int, str], np.ndarray]) -> tuple[pd.DataFrame, overlays.OverlayResult]:
+    """A part's loans (from :func:`run_part`) with the overlays applied, the amounts' cents
+    being this part's share of the book's allocation; a new frame and the overlays applied."""
+    loans = loans.copy()
+    return loans, _apply_overlays(loans, config, allocated)
+
+
+def max_age(tape: pd.DataFrame, config: RunConfig) -> int:
+    """The oldest loan's age in months at the as-of date (0 for no loans): how far the
+    prepayment curves by age must reach."""
+    return int(cashflows.age_months(tape["origination_date"], pd.Timestamp(config.as_of)).max()) if len(tape) else 0
+
+
+def reversion_view(prep: Prepared) -> pd.DataFrame:
+    """The CECL reversion table of the framework that reverts (empty when none does)."""
+    a = prep.config.assumptions
+    reverting = next((r.name for r in prep.rules if r.reversion(a) is not None), None)
+    return scenarios.reversion_table(prep.tables[reverting]) if reverting else pd.DataFrame()
+
+
+def _apply_overlays(loans: pd.DataFrame, config: RunConfig,
+                    allocated: dict[tuple[int, str], np.ndarray] | None = None) -> overlays.OverlayResult:
     """Set ``overlay_<fw>`` and ``ecl_<fw>`` = modelled + overlay (cents) in place; the overlays applied."""
-    applied = overlays.apply_overlays(loans, list(config.assumptions.overlays), config.as_of, list(config.frameworks))
+    applied = overlays.apply_overlays(loans, list(config.assumptions.overlays), config.as_of, list(config.frameworks),
+                                      allocated)
     for fw in config.frameworks:
         adj = np.asarray(applied.adjustments[fw], float)
         loans[f"overlay_{fw}"] = adj

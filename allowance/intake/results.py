@@ -26,6 +26,8 @@ class IntakeResult:
               lines = 1 header + rows_read + blank_rows + lines_in_values
     lines_in_values  line breaks inside quoted values (they join physical lines into one record)
     notes     tape-level warnings (not about one row), for the run's warnings
+    accepted_rows  the number of accepted rows when ``accepted`` does not hold them (a tape
+              computed where its parts were read keeps them there); None: ``len(accepted)``
     """
 
     accepted: pd.DataFrame
@@ -39,10 +41,11 @@ class IntakeResult:
     lines: int = -1
     lines_in_values: int = 0
     notes: tuple[str, ...] = ()
+    accepted_rows: int | None = None
 
     @property
     def rows_accepted(self) -> int:
-        return len(self.accepted)
+        return len(self.accepted) if self.accepted_rows is None else self.accepted_rows
 
     @property
     def rows_rejected(self) -> int:

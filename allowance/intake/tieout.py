@@ -36,6 +36,7 @@ def tie_out(
     ledger_balance: float | None,
     tolerance: float,
     accept_difference: bool = False,
+    accepted_balance: float | None = None,
 ) -> TieOut:
     """Compare the accepted tape's balance with the ledger control total.
 
@@ -49,6 +50,9 @@ def tie_out(
         The largest acceptable ``|accepted - ledger|``, in currency units.
     accept_difference
         The user's explicit acceptance of a difference beyond the tolerance (recorded).
+    accepted_balance
+        Σ accepted balance, when the accepted rows are not in ``result`` (a tape computed
+        where its parts were read: the parts' sums).
 
     Notes
     -----
@@ -67,7 +71,9 @@ def tie_out(
     >>> t.difference, t.rejected_balance, t.within_tolerance
     (-25.0, 25.0, False)
     """
-    accepted = float(np.round(result.accepted["balance"].to_numpy(dtype=np.float64).sum(), 2))
+    if accepted_balance is None:
+        accepted_balance = float(result.accepted["balance"].to_numpy(dtype=np.float64).sum())
+    accepted = float(np.round(accepted_balance, 2))
     rejected, unreadable = _rejected_balance(result)
     if ledger_balance is None:
         return TieOut(

@@ -103,6 +103,31 @@ class OutputPaths(list):
         self.notes: tuple[str, ...] = tuple(notes)
 
 
+def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
+                progress: Callable[[str, int, int], object] | None, total: int) -> list[str]:
+    """A book computed part by part: its loan detail is already in ``report.loan_detail``; here
+    the rejected rows, warnings, the macro paths and the run record (whose totals by framework,
+    stage and segment are the loan sums'). No workbook: its sheets read the loan frame."""
+    written: list[str] = []
+
+    def did(name: str) -> None:
+        written.append(name)
+        done(name)
+
+    _csv(report.intake.rejected, folder / "rejected.csv")
+    did("rejected.csv")
+    _csv(warnings_frame(report), folder / "warnings.csv")
+    did("warnings.csv")
+    if report.macro_paths is not None and not report.macro_paths.empty:
+        _csv(report.macro_paths, folder / "macro_paths.csv")
+        did("macro_paths.csv")
+    (folder / "run.json").write_text(json.dumps(report.record, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+    did("run.json")
+    if progress is not None:
+        progress("write", total, total)
+    return written
+
+
 def _write_all(folder: Path, report: RunReport, parquet: bool,
                progress: Callable[[str, int, int], object] | None = None) -> list[str]:
     written: list[str] = []
@@ -119,6 +144,8 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
         if progress is not None:
             progress("write", min(told[0], total), total)
 
+    if report.loan_detail is not None:  # the loan detail is in its Parquet folder, written part by part
+        return _write_book(folder, report, done, progress, total)
     _csv(report.loans, folder / "loans.csv")
     done("loans.csv")
     if parquet:

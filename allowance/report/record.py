@@ -78,6 +78,9 @@ class RunReport:
     what_if: "WhatIf | pd.DataFrame | None" = None
     record: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    #: the folder of the loan detail written part by part (:mod:`allowance.partitioned`); then
+    #: ``loans`` holds the loan sums by segment, stage and POCI flag (``loan_count`` loans each)
+    loan_detail: str | None = None
 
     @property
     def movements(self) -> "tuple[Movement, ...]":
