@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 
 from allowance.frameworks import rules_for
-from allowance.staging import STAGE_CLASSES, stage_class
+from allowance.staging import STAGE_CLASSES, stage_class_codes
 
 __all__ = ["DPD_BANDS", "asc326_vintage", "credit_quality", "disclosure_tables", "ifrs7_35m"]
 
@@ -42,6 +42,36 @@ DPD_BANDS: tuple[tuple[int, str], ...] = (
 )
 
 
+#: a column as integer codes (-1: none) and the labels they index: a million loans carry a
+#: handful of segments, grades and classes, so every table here groups codes, never text per loan
+Coded = tuple[np.ndarray, np.ndarray]
+
+
+def _coded(values) -> Coded:
+    """Integer codes and labels of a column, factorised once (fast on Arrow strings)."""
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    return np.asarray(codes, dtype=np.int64), np.array([str(u) for u in uniques], dtype=object)
+
+
+def _constant(label: str, n: int) -> Coded:
+    return np.zeros(n, dtype=np.int64), np.array([label], dtype=object)
+
+
+def _quality(loans: pd.DataFrame) -> tuple[Coded, Coded]:
+    """Each loan's credit quality indicator and its basis, coded (see :func:`credit_quality`)."""
+    n = len(loans)
+    grade = loans["grade"] if "grade" in loans.columns else pd.Series(None, index=loans.index, dtype=object)
+    codes, texts = _coded(grade)
+    graded = np.array([t.strip() != "" for t in texts] + [False], dtype=bool)[codes]  # -1 (blank): the last
+    dpd = pd.to_numeric(loans.get("days_past_due", pd.Series(0, index=loans.index)), errors="coerce").fillna(0)
+    edges = np.array([b for b, _ in DPD_BANDS])
+    band = np.searchsorted(edges, dpd.to_numpy(), side="right") - 1 if n else np.zeros(0, np.int64)
+    labels = np.array([*texts, *(name for _, name in DPD_BANDS)], dtype=object)
+    quality = np.where(graded, codes, len(texts) + band).astype(np.int64)
+    basis = np.where(graded, 0, 1).astype(np.int64)
+    return (quality, labels), (basis, np.array(["grade", "days past due"], dtype=object))
+
+
 def credit_quality(loans: pd.DataFrame) -> pd.DataFrame:
     """Each loan's indicator and its basis: ``grade`` where given, else a days-past-due band.
 
@@ -50,27 +80,52 @@ def credit_quality(loans: pd.DataFrame) -> pd.DataFrame:
     >>> credit_quality(pd.DataFrame({"grade": ["B", "", None], "days_past_due": [0, 45, 0]})).values.tolist()
     [['B', 'grade'], ['30-59 days past due', 'days past due'], ['current', 'days past due']]
     """
-    grade = loans["grade"] if "grade" in loans.columns else pd.Series(None, index=loans.index, dtype=object)
-    graded = grade.notna().to_numpy() & (grade.astype(str).str.strip() != "").to_numpy()
-    dpd = pd.to_numeric(loans.get("days_past_due", pd.Series(0, index=loans.index)), errors="coerce").fillna(0)
-    edges = np.array([b for b, _ in DPD_BANDS])
-    names = np.array([n for _, n in DPD_BANDS], dtype=object)
-    band = names[np.searchsorted(edges, dpd.to_numpy(), side="right") - 1]
-    return pd.DataFrame({
-        "credit_quality": np.where(graded, grade.astype(str).to_numpy(dtype=object), band),
-        "basis": np.where(graded, "grade", "days past due"),
-    }, index=loans.index)
+    (quality, q_labels), (basis, b_labels) = _quality(loans)
+    return pd.DataFrame({"credit_quality": q_labels[quality], "basis": b_labels[basis]}, index=loans.index)
 
 
 def _cents(values) -> np.ndarray:
     return np.rint(np.asarray(values, dtype=np.float64) * 100.0).astype(np.int64)
 
 
-def _classes(loans: pd.DataFrame) -> np.ndarray:
+def _concat(parts: list[Coded]) -> Coded:
+    """Coded columns of several frames, one after the other (labels joined, codes shifted)."""
+    codes, labels, offset = [], [], 0
+    for c, lab in parts:
+        codes.append(np.where(c >= 0, c + offset, -1))
+        labels.append(lab)
+        offset += len(lab)
+    return np.concatenate(codes), np.concatenate(labels)
+
+
+def _sum_cents(keys: dict[str, Coded], across: Coded, columns: list[str], cents: np.ndarray) -> pd.DataFrame:
+    """Cents summed by the ``keys`` (one row per combination present, in sorted order) and by
+    ``across`` (the ``columns``, in that order, 0 where none): the table of
+    ``pivot_table(aggfunc="sum")`` over the labels, grouped on integer codes."""
+    frame = {}
+    for name, (codes, labels) in keys.items():
+        # sorted, distinct labels (the pivot's order; two codes may name one label)
+        distinct, where = np.unique(labels.astype(str), return_inverse=True)
+        codes = np.where(codes >= 0, where.reshape(-1)[codes], -1) if len(labels) else codes
+        frame[name] = pd.Categorical.from_codes(codes, categories=pd.Index(distinct.tolist(), dtype=object))
+    a_codes, a_labels = across
+    place = np.array([columns.index(x) if x in columns else -1 for x in a_labels.tolist()] + [-1], dtype=np.int64)
+    frame["_across"] = pd.Categorical.from_codes(place[a_codes], categories=pd.Index(list(columns), dtype=object))
+    frame["_cents"] = cents
+    grid = (pd.DataFrame(frame).groupby([*keys, "_across"], observed=True, sort=True)["_cents"].sum()
+            .unstack("_across", fill_value=0))
+    grid = grid.reindex(columns=columns, fill_value=0).astype(np.int64)
+    grid.columns = pd.Index(list(columns))
+    grid.index = pd.MultiIndex.from_arrays(
+        [pd.Index(grid.index.get_level_values(k).tolist()) for k in range(grid.index.nlevels)], names=list(keys))
+    return grid
+
+
+def _classes(loans: pd.DataFrame) -> Coded:
     if "stage_class" in loans.columns:
-        return loans["stage_class"].to_numpy(dtype=object)
+        return _coded(loans["stage_class"])
     poci = loans["poci"].astype(bool).to_numpy() if "poci" in loans.columns else np.zeros(len(loans), bool)
-    return stage_class(loans["stage"].to_numpy(), poci)
+    return stage_class_codes(loans["stage"].to_numpy(), poci), np.array(STAGE_CLASSES, dtype=object)
 
 
 def ifrs7_35m(loans: pd.DataFrame) -> pd.DataFrame:
@@ -86,17 +141,9 @@ def ifrs7_35m(loans: pd.DataFrame) -> pd.DataFrame:
     >>> ifrs7_35m(loans)[["segment", "credit_quality", "stage 1", "stage 2", "POCI", "total"]].values.tolist()
     [['auto', 'A', 100.0, 50.0, 0.0, 150.0], ['auto', 'B', 0.0, 0.0, 20.0, 20.0], ['auto', 'Total', 100.0, 50.0, 20.0, 170.0], ['Total', '', 100.0, 50.0, 20.0, 170.0]]
     """
-    quality = credit_quality(loans)
-    frame = pd.DataFrame({
-        "segment": loans["segment"].astype(str).to_numpy(dtype=object),
-        "credit_quality": quality["credit_quality"].to_numpy(dtype=object),
-        "basis": quality["basis"].to_numpy(dtype=object),
-        "class": _classes(loans),
-        "cents": _cents(loans["balance"]),
-    })
-    grid = frame.pivot_table(index=["segment", "credit_quality", "basis"], columns="class", values="cents",
-                             aggfunc="sum", fill_value=0)
-    grid = grid.reindex(columns=list(STAGE_CLASSES), fill_value=0).astype(np.int64)
+    quality, basis = _quality(loans)
+    grid = _sum_cents({"segment": _coded(loans["segment"]), "credit_quality": quality, "basis": basis},
+                      _classes(loans), list(STAGE_CLASSES), _cents(loans["balance"]))
     grid["total"] = grid.sum(axis=1)
     parts = []
     for segment, block in grid.groupby(level="segment", sort=True):
@@ -117,11 +164,19 @@ def _vintage_columns(as_of: date) -> list[str]:
     return [str(as_of.year - k) for k in range(5)] + ["prior", "revolving"]
 
 
-def _vintage(origination: pd.Series, revolving: np.ndarray, as_of: date) -> np.ndarray:
+def _revolving(frame: pd.DataFrame) -> np.ndarray:
+    """Revolving lines (a write-off whose loan is in neither run has no repayment type: not one)."""
+    repayment = frame["repayment"] if "repayment" in frame.columns else pd.Series("", index=frame.index)
+    return repayment.eq("revolving").fillna(False).to_numpy(dtype=bool)
+
+
+def _vintage(origination: pd.Series, revolving: np.ndarray, as_of: date) -> Coded:
     years = pd.to_datetime(origination, errors="coerce").dt.year.to_numpy(dtype=np.float64)
-    label = np.where(years >= as_of.year - 4, np.nan_to_num(years, nan=0).astype(np.int64).astype(str), "prior")
-    label = np.where(np.isnan(years), "unknown", label)
-    return np.where(revolving, "revolving", label).astype(object)
+    # one label per distinct year (a few dozen), not a text per loan
+    distinct, where = np.unique(np.nan_to_num(years, nan=-1.0).astype(np.int64), return_inverse=True)
+    names = np.array(["unknown" if y < 0 else str(y) if y >= as_of.year - 4 else "prior" for y in distinct.tolist()]
+                     + ["revolving"], dtype=object)
+    return np.where(revolving, len(names) - 1, where.reshape(-1)).astype(np.int64), names
 
 
 def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | None = None) -> pd.DataFrame:
@@ -156,27 +211,23 @@ def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | 
     [['A', 100.0, 30.0, 0.0, 130.0], ['B', 0.0, 0.0, 50.0, 50.0]]
     """
     columns = _vintage_columns(as_of)
-    quality = credit_quality(loans)
-    revolving = (loans.get("repayment", pd.Series("", index=loans.index)) == "revolving").to_numpy()
-    frame = pd.DataFrame({
-        "segment": loans["segment"].astype(str).to_numpy(dtype=object), "row": "amortised cost",
-        "credit_quality": quality["credit_quality"].to_numpy(dtype=object),
-        "basis": quality["basis"].to_numpy(dtype=object),
-        "vintage": _vintage(loans["origination_date"], revolving, as_of), "cents": _cents(loans["balance"]),
-    })
+    quality, basis = _quality(loans)
+    n = len(loans)
+    keys = {"segment": [_coded(loans["segment"])], "row": [_constant("amortised cost", n)],
+            "credit_quality": [quality], "basis": [basis]}
+    vintage, cents = [_vintage(loans["origination_date"], _revolving(loans), as_of)], [_cents(loans["balance"])]
     if write_offs is not None and len(write_offs):
-        w_rev = (write_offs.get("repayment", pd.Series("", index=write_offs.index)) == "revolving").to_numpy()
-        frame = pd.concat([frame, pd.DataFrame({
-            "segment": write_offs["segment"].astype(str).to_numpy(dtype=object), "row": "gross write-offs",
-            "credit_quality": "", "basis": "",
-            "vintage": _vintage(write_offs["origination_date"], w_rev, as_of),
-            "cents": _cents(write_offs["gross_charge_off"]),
-        })], ignore_index=True)
-    if (frame["vintage"] == "unknown").any():
+        m = len(write_offs)
+        keys["segment"].append(_coded(write_offs["segment"]))
+        keys["row"].append(_constant("gross write-offs", m))
+        keys["credit_quality"].append(_constant("", m))
+        keys["basis"].append(_constant("", m))
+        vintage.append(_vintage(write_offs["origination_date"], _revolving(write_offs), as_of))
+        cents.append(_cents(write_offs["gross_charge_off"]))
+    vintage = _concat(vintage)
+    if (vintage[1][np.unique(vintage[0])] == "unknown").any():
         columns = columns + ["unknown"]
-    grid = frame.pivot_table(index=["segment", "row", "credit_quality", "basis"], columns="vintage", values="cents",
-                             aggfunc="sum", fill_value=0)
-    grid = grid.reindex(columns=columns, fill_value=0).astype(np.int64)
+    grid = _sum_cents({k: _concat(v) for k, v in keys.items()}, vintage, columns, np.concatenate(cents))
     grid["total"] = grid.sum(axis=1)
     out = grid.reset_index()
     out.columns.name = None

@@ -7,6 +7,7 @@ pd_ratio_coverage   per segment: how many loans the PD-ratio test could be appli
 pd_ratio_warnings   the run's warnings for loans and segments the PD-ratio test skips (said once)
 lifetime_pd         lifetime PD over a number of months from a 12-month PD (constant hazard)
 stage_class         the one stage vocabulary: "stage 1", "stage 2", "stage 3", "POCI"
+stage_class_codes   the same as positions in STAGE_CLASSES (-1: no known stage), for grouping
 in_default          the default test (days past due at the default threshold, defaulted, bankrupt)
 loss_event_now      loans in default whose loss event is certain now (PD = 1, the LGD after cures)
 lifetime_months     each loan's life: remaining term, or a revolving line's behavioural life
@@ -27,7 +28,7 @@ from allowance.schemas import Ifrs9Rules, SegmentAssumptions
 
 __all__ = [
     "STAGE_CLASSES", "assign_stages", "in_default", "lifetime_horizon", "lifetime_months", "lifetime_pd", "loss_event_now",
-    "pd_ratio_coverage", "pd_ratio_warnings", "stage_class", "stage_horizon",
+    "pd_ratio_coverage", "pd_ratio_warnings", "stage_class", "stage_class_codes", "stage_horizon",
 ]
 
 _SLACK = 1e-12
@@ -290,6 +291,20 @@ def assign_stages(
     )
 
 
+def stage_class_codes(stage, poci) -> np.ndarray:
+    """Each loan's position in :data:`STAGE_CLASSES` (``-1``: no known stage); POCI apart.
+
+    Examples
+    --------
+    >>> stage_class_codes([1, 2, 3, 3, 0], [False, False, False, True, False]).tolist()
+    [0, 1, 2, 3, -1]
+    """
+    stage = np.asarray(stage)
+    known = np.isin(stage, (1, 2, 3))
+    codes = np.where(known, np.where(known, stage, 1).astype(np.int64) - 1, -1)
+    return np.where(np.asarray(poci, dtype=bool), 3, codes).astype(np.int64)
+
+
 def stage_class(stage, poci) -> np.ndarray:
     """The one stage vocabulary of every output: ``stage 1/2/3``, and ``POCI`` apart.
 
@@ -301,11 +316,8 @@ def stage_class(stage, poci) -> np.ndarray:
     >>> stage_class([1, 2, 3, 3], [False, False, False, True]).tolist()
     ['stage 1', 'stage 2', 'stage 3', 'POCI']
     """
-    stage = np.asarray(stage)
-    labels = np.array(STAGE_CLASSES[:3], dtype=object)
-    known = np.isin(stage, (1, 2, 3))
-    out = np.where(known, labels[np.clip(np.where(known, stage, 1).astype(np.int64) - 1, 0, 2)], None)
-    return np.where(np.asarray(poci, dtype=bool), STAGE_CLASSES[3], out).astype(object)
+    labels = np.array([*STAGE_CLASSES, None], dtype=object)  # -1: the last, None
+    return labels[stage_class_codes(stage, poci)]
 
 
 def pd_ratio_coverage(tape: pd.DataFrame) -> pd.DataFrame:
