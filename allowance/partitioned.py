@@ -80,16 +80,30 @@ def _money_columns(loans: pd.DataFrame) -> list[str]:
 def loan_sums(loans: pd.DataFrame) -> pd.DataFrame:
     """The loans' money in whole cents (int64) by :data:`BOOK_KEYS`, with ``loan_count``.
 
-    Sums of the parts' tables, by the same keys, are the whole book's table exactly.
+    Sums of the parts' tables, by the same keys, are the whole book's table exactly (the
+    groups in order of first appearance; :func:`_book_frame` sorts the book's).
     """
     keys = [k for k in BOOK_KEYS if k in loans.columns]
-    money = _money_columns(loans)
-    frame = pd.DataFrame({k: loans[k].to_numpy(dtype=object) for k in keys})
-    for column in money:
+    # one integer code per group (factorised keys): grouping on it is a numpy step, not a Python one per row
+    code = np.zeros(len(loans), dtype=np.int64)
+    for k in keys:
+        codes, uniques = pd.factorize(loans[k], use_na_sentinel=False)
+        code = code * (len(uniques) + 1) + codes
+    group, inverse = np.unique(code, return_inverse=True)
+    first = np.zeros(len(group), dtype=np.int64)
+    first[inverse[::-1]] = np.arange(len(code))[::-1]  # each group's first row
+    out = pd.DataFrame({k: loans[k].to_numpy(dtype=object)[first] for k in keys})
+    for column in _money_columns(loans):
         values = np.nan_to_num(loans[column].to_numpy(dtype=np.float64))  # blank (not POCI, no purchase ECL): 0
-        frame[column] = np.rint(values * 100.0).astype(np.int64)
-    frame[COUNT] = np.int64(1)
-    return frame.groupby(keys, sort=True, dropna=False).sum().reset_index()
+        cents = np.rint(values * 100.0)
+        if np.abs(cents).sum() < 2.0**52:  # every partial sum a whole number float64 holds exactly
+            out[column] = np.rint(np.bincount(inverse, weights=cents, minlength=len(group))).astype(np.int64)
+        else:
+            summed = np.zeros(len(group), dtype=np.int64)
+            np.add.at(summed, inverse, cents.astype(np.int64))
+            out[column] = summed
+    out[COUNT] = np.bincount(inverse, minlength=len(group)).astype(np.int64)
+    return out
 
 
 def _book_frame(sums: Sequence[pd.DataFrame]) -> pd.DataFrame:

@@ -83,6 +83,18 @@ def test_csv_xlsx_parquet_give_the_same_accepted_frame(tmp_path, config):
     assert from_csv.accepted["loan_id"].tolist() == ['=HYPERLINK("x")', "L2", "007"]
 
 
+def test_a_parquet_column_with_no_value_at_all_reads_as_blank(tmp_path, config):
+    """pandas and pyarrow write an all-blank column with the Parquet null type: it is a blank
+    column, as an empty CSV column is (common practice, no source)."""
+    table = pq.read_table(write_parquet(tmp_path / "t.parquet"))
+    blank = table.set_column(COLUMNS.index("credit_limit"), "credit_limit", pa.nulls(table.num_rows))
+    assert pa.types.is_null(blank.schema.field("credit_limit").type)
+    pq.write_table(blank, tmp_path / "n.parquet")
+    result = read_tape(tmp_path / "n.parquet", config)
+    assert result.rows_read == result.rows_accepted + result.rows_rejected == 5
+    assert result.rows_accepted and result.accepted["credit_limit"].isna().all()
+
+
 def test_xlsx_takes_the_first_sheet_by_default_and_numbers_rows_by_sheet_row(tmp_path, config):
     path = tmp_path / "t.xlsx"
     book = openpyxl.Workbook()

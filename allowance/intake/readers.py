@@ -400,6 +400,8 @@ def _arrow_text(column: pa.ChunkedArray, name: str, path: Path) -> pa.ChunkedArr
     if pa.types.is_dictionary(kind):
         column = pc.cast(column, kind.value_type)
         kind = column.type
+    if pa.types.is_null(kind):  # a column with no value at all (pandas writes an all-blank column so)
+        return pc.cast(column, pa.string())
     if pa.types.is_floating(kind):
         finite = pc.is_finite(column)
         return pc.if_else(finite, pc.cast(column, pa.string()), pa.scalar(None, pa.string()))
