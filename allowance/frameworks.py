@@ -17,6 +17,12 @@ accrued interest in EAD  ``[ifrs9] accrued_interest``           ``[cecl] accrued
                          (gross carrying amount, Appendix A)     (the 30-5A election: exclude)
 undrawn limit            CCF × undrawn (B5.5.31, B5.5.40)        none when unconditionally
                                                                  cancellable (326-20-30-11)
+line in default          drawn only (the line is blocked)        drawn only (the line is blocked)
+commitment period        a line: its behavioural life (5.5.20);  a non-cancellable line with a
+                         a commitment: to its end (5.5.19)       commitment_end_date: to that date
+                                                                 (326-20-30-11)
+undrawn part shown as    a provision, with any ECL above the     a liability for off-balance-sheet
+                         drawn balance (5.5.20, IFRS 7 B8E)      credit exposure (326-20-30-11)
 revolving lines          drawn balance at the behavioural life   drawn balance paying down at
                                                                  the segment's payment_rate
 discounting              at the EIR (B5.5.44)                    only with ``discount = true``
@@ -119,6 +125,12 @@ class FrameworkRules:
                          the movement's columns are the segments)
     journal_accounts     (expense account, allowance account) of the provision
     ledger               how write-offs, recoveries and purchases meet the allowance
+    commitment_period    a commitment the lender cannot unconditionally cancel is measured to its
+                         ``commitment_end_date`` (CECL, ASC 326-20-30-11); False: a revolving
+                         line over its behavioural life (IFRS 9 5.5.20)
+    provision            ``(drawn_ecl, undrawn_ecl, balance) -> amount`` (integer cents, per loan):
+                         the part of the ECL presented apart from the loss allowance
+    provision_account    the balance-sheet account that holds it (workbook, journal)
     """
 
     name: Framework
@@ -139,6 +151,9 @@ class FrameworkRules:
     class_order: tuple[str, ...] | None
     journal_accounts: tuple[str, str]
     ledger: LedgerRules
+    commitment_period: bool
+    provision: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray]
+    provision_account: str
 
     def discount(self, assumptions: Assumptions, eir: np.ndarray) -> np.ndarray:
         """The monthly discount multiplier of every loan: v = 1/(1 + EIR/12), or 1."""
@@ -203,6 +218,33 @@ def _drawn_plus_ccf(drawn, limit, ccf, cancellable) -> np.ndarray:
     return undrawn_exposure(drawn, limit, ccf)
 
 
+def _ifrs9_provision(drawn, undrawn, balance) -> np.ndarray:
+    """IFRS 9: the ECL on the undrawn commitment, and any ECL above the drawn balance, is a
+    provision (IFRS 9 5.5.20 and 4.2.1(c)-(d); IFRS 7 B8E); the rest reduces the loan's gross
+    carrying amount. In integer cents.
+
+    Examples
+    --------
+    >>> _ifrs9_provision(np.array([500, 1_200, 0]), np.array([300, 0, 90]), np.array([10_000, 1_000, 0])).tolist()
+    [300, 200, 90]
+    """
+    drawn, undrawn, balance = (np.asarray(x, np.int64) for x in (drawn, undrawn, balance))
+    return undrawn + np.maximum(drawn - balance, 0)
+
+
+def _cecl_provision(drawn, undrawn, balance) -> np.ndarray:
+    """CECL: the ECL on the undrawn part of a commitment the lender cannot unconditionally
+    cancel is a liability for off-balance-sheet credit exposure (ASC 326-20-30-11); a
+    cancellable line carries none (its undrawn ECL is 0: ``_cecl_add_on``). In integer cents.
+
+    Examples
+    --------
+    >>> _cecl_provision(np.array([500, 0]), np.array([300, 0]), np.array([10_000, 0])).tolist()
+    [300, 0]
+    """
+    return np.asarray(undrawn, np.int64).copy()
+
+
 def _ifrs9_allowance(ecl_12m, ecl_lifetime, stage, poci, at_purchase) -> np.ndarray:
     twelve = (np.asarray(stage) == 1) & ~np.asarray(poci, dtype=bool)
     per_scenario = np.where(twelve[:, None], ecl_12m, ecl_lifetime)
@@ -255,6 +297,9 @@ IFRS9 = FrameworkRules(
         recoveries_treatment="recognised in profit or loss (IFRS 9 5.4.4: a write-off derecognises the asset)",
         charge_off_label="Written off (allowance used)",
     ),
+    commitment_period=False,
+    provision=_ifrs9_provision,
+    provision_account="Provision for loan commitments and financial guarantees (liability)",
 )
 
 # --------------------------------------------------------------------------------------
@@ -324,6 +369,9 @@ CECL = FrameworkRules(
         recoveries_treatment="credited to the allowance (ASC 326-20-35-8, 326-20-50-13)",
         charge_off_label="Charge-offs",
     ),
+    commitment_period=True,
+    provision=_cecl_provision,
+    provision_account="Liability for off-balance-sheet credit exposures",
 )
 
 #: framework name -> its rules

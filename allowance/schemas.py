@@ -39,6 +39,12 @@ Framework = Literal["ifrs9", "cecl"]
 #: Which loans carry their accrued interest (arrears included) in the EAD (``curves.ead``).
 AccruedInterest = Literal["exclude", "delinquent", "all"]
 Repayment = Literal["level", "interest_only", "balloon", "revolving"]
+#: What a tape row is: ``funded`` (a loan, or a line with its drawn balance; blank means this),
+#: ``commitment`` (a standalone loan commitment, nothing drawn) or ``guarantee`` (a financial
+#: guarantee or a letter of credit). The last two are off-balance-sheet: exposure = CCF x amount.
+FacilityType = Literal["funded", "commitment", "guarantee"]
+#: Facility types with no drawn balance: the whole exposure is CCF x the committed amount.
+OFF_BALANCE_FACILITIES: tuple[str, ...] = ("commitment", "guarantee")
 OverlayKind = Literal["percent", "amount"]
 Reversion = Literal["straight_line", "immediate"]
 RetailClass = Literal["residential_mortgage", "qualifying_revolving", "other_retail"]
@@ -105,7 +111,11 @@ class LoanRecord(BaseModel):
     balance: Amount = Field(description="Outstanding principal (drawn balance) at the as-of date.")
     interest_rate: Probability = Field(description="Nominal annual contract rate, decimal (0.065).")
     days_past_due: DaysPastDue = Field(description="Whole days past due at the as-of date.")
-    credit_limit: Amount | None = Field(default=None, description="Revolving lines: the committed limit.")
+    credit_limit: Amount | None = Field(
+        default=None,
+        description="Revolving lines: the committed limit; commitments and guarantees: the committed or "
+        "guaranteed amount.",
+    )
     payment: Amount | None = Field(
         default=None, description="Scheduled monthly payment; recomputed from balance, rate and term when blank."
     )
@@ -188,6 +198,19 @@ class LoanRecord(BaseModel):
         description="ECL from the lender's own individual assessment of this loan; replaces the model in every "
         "framework (loans.csv measurement = individual).",
     )
+    facility_type: FacilityType | None = Field(
+        default=None,
+        description="funded (blank: a loan, or a line with its drawn balance), commitment (a standalone loan "
+        "commitment, nothing drawn) or guarantee (a financial guarantee or letter of credit): the last two carry "
+        "no balance and an exposure of CCF x credit_limit until commitment_end_date (IFRS 9 5.5.19, B5.5.31; "
+        "ASC 326-20-30-11).",
+    )
+    commitment_end_date: date | None = Field(
+        default=None,
+        description="Last day the lender is committed to lend or to pay under a guarantee; required for "
+        "commitments and guarantees. CECL measures a commitment the lender cannot unconditionally cancel over "
+        "this period (ASC 326-20-30-11).",
+    )
 
 
 #: The columns a tape must have (after column mapping). ``maturity_date`` must be present
@@ -209,7 +232,9 @@ RESULT_COLUMNS: frozenset[str] = frozenset({
     "stage", "stage_reason", "poci", "horizon_months", "remaining_months", "ead", "pd_12m",
     "pd_lifetime", "lgd", "ecl_12m", "ecl_lifetime", "source_row", "measurement",
 })
-RESULT_PREFIXES: tuple[str, ...] = ("ecl_", "ead_", "overlay_", "horizon_", "stage_", "pd_", "lgd_", "gross_loss_")
+RESULT_PREFIXES: tuple[str, ...] = (
+    "ecl_", "ead_", "overlay_", "horizon_", "stage_", "pd_", "lgd_", "gross_loss_", "provision_",
+)
 
 
 def is_result_column(name: str) -> bool:
@@ -554,13 +579,26 @@ class SegmentAssumptions(_Strict):
     cpr_by_age: list[Probability] | None = Field(
         default=None, description="Annual CPR by month of loan age (month 1 first); last value after."
     )
-    ccf: Probability = Field(default=0.0, description="Share of the undrawn limit drawn by default (IFRS 9).")
+    ccf: Probability | None = Field(
+        default=None,
+        description="Credit conversion factor: share of the undrawn limit (of the committed or guaranteed amount) "
+        "drawn by default (IFRS 9 B5.5.31; CECL for commitments the lender cannot unconditionally cancel). "
+        "Required, or ccf_by_dpd, for a segment holding undrawn amounts.",
+    )
+    ccf_by_dpd: dict[str, Probability] | None = Field(
+        default=None,
+        description="CCF by days-past-due bucket instead of one ccf: keys are each bucket's lowest days past due "
+        "(\"0\" required), e.g. {\"0\" = 0.3, \"30\" = 0.5}; a line takes the bucket its days past due fall in.",
+    )
     behavioural_life_months: PositiveMonths | None = None
     payment_rate: Probability | None = Field(
         default=None, description="Revolving, CECL: monthly share of the drawn balance repaid."
     )
-    unconditionally_cancellable: bool = Field(
-        default=True, description="Revolving, CECL: no reserve on undrawn amounts (ASC 326-20-30-11)."
+    unconditionally_cancellable: bool | None = Field(
+        default=None,
+        description="Whether the lender can cancel the undrawn commitment unconditionally. Required (no default) "
+        "for a segment holding undrawn amounts: true, CECL books nothing on them; false, CECL books a liability "
+        "for the off-balance-sheet exposure over the commitment period (ASC 326-20-30-11).",
     )
     amortization_months: PositiveMonths | None = Field(
         default=None, description="Balloon loans without the tape column: amortization term from origination."
@@ -618,6 +656,15 @@ class SegmentAssumptions(_Strict):
             raise ValueError(f"give at most one prepayment source; found {', '.join(prepay)}")
         if self.transition_matrix is not None and self.charge_off_dpd is None:
             raise ValueError("a transition_matrix needs charge_off_dpd (120 closed-end, 180 revolving)")
+        if self.ccf is not None and self.ccf_by_dpd is not None:
+            raise ValueError("give ccf or ccf_by_dpd, not both")
+        if self.ccf_by_dpd is not None:
+            bad = [k for k in self.ccf_by_dpd if not k.isdigit()]
+            if bad or "0" not in {str(int(k)) for k in self.ccf_by_dpd if k.isdigit()}:
+                raise ValueError(
+                    "ccf_by_dpd keys are the lowest days past due of each bucket, whole numbers starting with "
+                    f"\"0\" (e.g. {{\"0\" = 0.3, \"30\" = 0.5}}){'; not a number: ' + ', '.join(bad) if bad else ''}"
+                )
         if self.low_credit_risk:
             raise ValueError(
                 "low_credit_risk = true would exempt every loan of the segment without testing it; IFRS 9 "
@@ -854,6 +901,10 @@ class GlAccounts(GlAccountPair):
     segments: dict[str, GlAccountPair] = Field(default_factory=dict)
 
 
+#: Names a scenario may not take: ``ecl_<framework>_<name>`` is already another loans.csv column.
+RESERVED_SCENARIO_NAMES: tuple[str, ...] = ("modelled", "drawn", "undrawn")
+
+
 class Assumptions(_Strict):
     """The whole assumptions file (after any overlay files are merged into it)."""
 
@@ -875,6 +926,12 @@ class Assumptions(_Strict):
             raise ValueError("frameworks lists ifrs9 but there is no [ifrs9] table")
         if "cecl" in self.run.frameworks and self.cecl is None:
             raise ValueError("frameworks lists cecl but there is no [cecl] table")
+        reserved = sorted(set(self.scenarios) & set(RESERVED_SCENARIO_NAMES))
+        if reserved:
+            raise ValueError(
+                f"scenario name {reserved[0]!r} is reserved: loans.csv names ecl_<framework>_{reserved[0]} for "
+                "another figure; rename the scenario"
+            )
         total = sum(s.weight for s in self.scenarios.values())
         if abs(total - 1.0) > 1e-9:
             parts = ", ".join(f"{n} {s.weight:g}" for n, s in self.scenarios.items())

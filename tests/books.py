@@ -44,7 +44,7 @@ def engine_config(**changes) -> RunConfig:
                 "collateral_lgd": {"haircut": 0.2, "recovery_cost": 0.05, "floor": 0.05, "months_to_recovery": 12},
             },
             "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3,
-                      "behavioural_life_months": 36, "payment_rate": 0.05},
+                      "behavioural_life_months": 36, "payment_rate": 0.05, "unconditionally_cancellable": True},
         },
         "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
         "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},

@@ -391,6 +391,8 @@ lgd = 0.8
 amortization_months = 360
 behavioural_life_months = 36       # revolving lines need it, and CECL the payment rate
 payment_rate = 0.05
+ccf = 0.0                          # lines with undrawn amounts need both stated
+unconditionally_cancellable = true
 
 [segments.graded]
 pd_12m_by_grade = { A = 0.01, B = 0.04 }
@@ -611,3 +613,74 @@ def random_loss_rate_book(seed: int, n: int = 40, frameworks: int = 2, scenarios
         multiplier=rng.uniform(0.7, 2.0, (frameworks, months, scenarios)), lgd_multiplier=k.lgd_multiplier,
         vintage_curve=table, smm=k.smm,
     )
+
+
+# --------------------------------------------------------------------------------------
+# commitments: books of revolving lines, standalone commitments and guarantees, term loans
+# --------------------------------------------------------------------------------------
+
+import pandas as _pd_cm  # noqa: E402  (own imports: this section stands alone)
+from hypothesis import strategies as _st_cm  # noqa: E402
+  # noqa: E402
+from allowance.schemas import OPTIONAL_COLUMNS as _OPTIONAL_CM  # noqa: E402
+from allowance.schemas import Assumptions as _Assumptions_cm  # noqa: E402
+from allowance.schemas import LoanRecord as _LoanRecord_cm  # noqa: E402
+from allowance.schemas import RunConfig as _RunConfig_cm  # noqa: E402
+
+
+@_st_cm.composite
+def commitment_books(draw, max_loans: int = 30):
+    """An accepted-tape frame and its run configuration: revolving lines drawn from nothing to
+    over their limit (some in default, some with a commitment end date), standalone commitments
+    and guarantees (nothing drawn), term loans; segments cancellable or not, one CCF or a CCF
+    by days-past-due bucket, a flat or a collateral LGD. Seeded from the draw (invented data)."""
+    n = draw(_st_cm.integers(1, max_loans))
+    rng = _np.random.default_rng(draw(_st_cm.integers(0, 2**32 - 1)))
+    kind = rng.choice(["line", "commitment", "guarantee", "term"], n, p=[0.55, 0.15, 0.1, 0.2])
+    off = _np.isin(kind, ["commitment", "guarantee"])
+    segment = _np.where(kind == "term", "term", rng.choice(["lines", "secured"], n))
+    limit = rng.uniform(500, 50_000, n).round(2)
+    drawn = _np.where(rng.random(n) < 0.2, 0.0, limit * rng.uniform(0.0, 1.2, n)).round(2)
+    balance = _np.where(off, 0.0, _np.where(kind == "term", rng.uniform(1_000, 90_000, n).round(2), drawn))
+    end = _pd_cm.Timestamp("2026-09-30") + _pd_cm.to_timedelta(rng.integers(31, 2_000, n), unit="D")
+    frame = _pd_cm.DataFrame({
+        "loan_id": [f"C{i:04d}" for i in range(n)], "segment": segment,
+        "repayment": _np.where(kind == "term", "level", "revolving"),
+        "origination_date": _pd_cm.Timestamp("2023-03-15"),
+        "maturity_date": _pd_cm.to_datetime(_np.where(kind == "term", "2031-03-15", None)),
+        "balance": balance, "interest_rate": rng.choice([0.0, 0.06, 0.19], n),
+        "days_past_due": rng.choice([0, 0, 0, 10, 45, 75, 120, 200], n),
+    })
+    for c in _OPTIONAL_CM:
+        frame[c] = False if _LoanRecord_cm.model_fields[c].annotation is bool else _np.nan
+    frame["facility_type"] = _np.where(off, kind, _np.where(rng.random(n) < 0.5, "funded", None)).astype(object)
+    frame["credit_limit"] = _np.where(kind == "term", _np.nan, limit)
+    frame["commitment_end_date"] = _pd_cm.Series(end).where(off | (rng.random(n) < 0.4))
+    frame["defaulted"] = rng.random(n) < 0.1
+    frame["collateral_value"] = _np.where(segment == "secured", rng.uniform(0, 40_000, n).round(2), _np.nan)
+    frame["accrued_interest"] = _np.where(rng.random(n) < 0.3, (balance * 0.01).round(2), _np.nan)
+    frame["source_row"] = _np.arange(n) + 2
+
+    def line_segment(collateral: bool) -> dict:
+        seg = {"pd_12m": draw(_st_cm.floats(0.001, 0.4)), "lgd": draw(_st_cm.floats(0.05, 1.0)),
+               "behavioural_life_months": draw(_st_cm.integers(1, 60)), "payment_rate": draw(_st_cm.floats(0.01, 0.3)),
+               "unconditionally_cancellable": draw(_st_cm.booleans())}
+        if draw(_st_cm.booleans()):
+            seg["ccf"] = draw(_st_cm.floats(0.0, 1.0))
+        else:
+            seg["ccf_by_dpd"] = {"0": draw(_st_cm.floats(0.0, 1.0)), "30": draw(_st_cm.floats(0.0, 1.0)),
+                                 "90": draw(_st_cm.floats(0.0, 1.0))}
+        if collateral:
+            seg["collateral_lgd"] = {"haircut": 0.2, "recovery_cost": 0.05, "months_to_recovery": 6}
+        return seg
+
+    data = {
+        "run": {"as_of": "2026-09-30", "frameworks": ["ifrs9", "cecl"]},
+        "segments": {"lines": line_segment(False), "secured": line_segment(True),
+                     "term": {"pd_12m": 0.03, "lgd": 0.4, "cpr": 0.05}},
+        "ifrs9": {"accrued_interest": "all", "sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"}, "cecl": {"reasonable_supportable_months": 12, "reversion_months": 6,
+                              "discount": draw(_st_cm.booleans())},
+        "scenarios": {"base": {"weight": 0.7}, "down": {"weight": 0.3, "pd_multiplier": [1.8, 1.3],
+                                                         "lgd_multiplier": [1.2]}},
+    }
+    return frame, _RunConfig_cm(assumptions=_Assumptions_cm.model_validate(data))

@@ -97,6 +97,7 @@ cpr = 0.12
 pd_12m = 0.04
 lgd = 0.9
 ccf = 0.3
+unconditionally_cancellable = true
 behavioural_life_months = 36
 payment_rate = 0.08
 
@@ -216,6 +217,27 @@ def toml_set(key: str, value: str) -> Callable[[str], str]:
         changed, n = re.subn(rf"(?m)^{re.escape(key)} *=.*$", f"{key} = {value}", text, count=1)
         assert n == 1, key
         return changed
+    return edit
+
+
+def toml_drop(key: str) -> Callable[[str], str]:
+    """Remove the line ``key = ...`` (the first one)."""
+    def edit(text: str) -> str:
+        changed, n = re.subn(rf"(?m)^{re.escape(key)} *=.*\n", "", text, count=1)
+        assert n == 1, key
+        return changed
+    return edit
+
+
+def commitment(row: int, facility: str, end: str, balance: str | None = None) -> Callable[[list[str]], list[str]]:
+    """The tape with the columns facility_type and commitment_end_date, set on data row ``row``
+    (blank elsewhere), and that row's balance replaced when given."""
+    def edit(lines: list[str]) -> list[str]:
+        if balance is not None:
+            lines = cell(lines, row, "balance", balance)
+        out = [lines[0] + ",facility_type,commitment_end_date"]
+        out += [line + (f",{facility},{end}" if i == row else ",,") for i, line in enumerate(lines[1:], start=1)]
+        return out
     return edit
 
 
@@ -954,6 +976,34 @@ CASES: list[Case] = [
     Case("SOURCE_DATE_EPOCH malformed", "SOURCE_DATE_EPOCH=soon", "custom", 1, ("SOURCE_DATE_EPOCH",),
          custom=lambda tmp, case: _malformed_epoch(tmp, case)),
     Case("run record pins the run", "a run with --prior and --label", "custom", 0, (), custom=run_record_pins, marks=_SLOW),
+    # ---- commitments and guarantees ----------------------------------------------------
+    Case("facility_type not a known kind", "facility_type overdraft", "check", 1,
+         ("facility_type 'overdraft' is not one of funded, commitment, guarantee",), (24, 23, 1),
+         tape=commitment(5, "overdraft", "")),
+    Case("commitment carries a balance", "facility_type commitment with a drawn balance", "check", 1,
+         ("commitment_with_balance", "a commitment or guarantee carries no drawn balance"), (24, 23, 1),
+         tape=commitment(5, "commitment", "2028-09-30")),
+    Case("commitment without an end date", "facility_type guarantee, commitment_end_date blank", "check", 1,
+         ("commitment_end_date is blank but required for a commitment or guarantee",), (24, 23, 1),
+         tape=commitment(5, "guarantee", "", balance="0")),
+    Case("commitment already ended", "commitment_end_date before the as-of date", "check", 1,
+         ("commitment_end_date 2026-06-30 is on or before the as-of date 2026-09-30",), (24, 23, 1),
+         tape=commitment(5, "commitment", "2026-06-30", balance="0")),
+    Case("commitment end date not a date", "commitment_end_date 2027-13-40", "check", 1,
+         ("commitment_end_date '2027-13-40' is not a date",), (24, 23, 1),
+         tape=commitment(5, "commitment", "2027-13-40", balance="0")),
+    Case("undrawn amounts, cancellable unstated", "cards segment without unconditionally_cancellable", "check", 1,
+         ("segments.cards.unconditionally_cancellable", "holds 4 row(s) with undrawn amounts", "no default"),
+         toml=toml_drop("unconditionally_cancellable")),
+    Case("undrawn amounts, CCF unstated", "cards segment without ccf", "check", 1,
+         ("segments.cards.ccf", "states no ccf"), toml=toml_drop("ccf")),
+    Case("ccf and ccf_by_dpd both", "a segment states both", "check", 1,
+         ("segments.cards", "give ccf or ccf_by_dpd, not both"), toml=toml_set("ccf", '0.3\nccf_by_dpd = { "0" = 0.3 }')),
+    Case("ccf_by_dpd without a 0 bucket", 'ccf_by_dpd = { "30" = 0.5 }', "check", 1,
+         ("segments.cards", "starting with \"0\""), toml=lambda text: re.sub(r"(?m)^ccf = .*$", 'ccf_by_dpd = { "30" = 0.5 }', text, count=1)),
+    Case("scenario named like a loan column", "[scenarios.undrawn]", "check", 1,
+         ("scenario name 'undrawn' is reserved",),
+         toml=lambda text: text.replace("[scenarios.downside]", "[scenarios.undrawn]")),
     # ---- smaller ------------------------------------------------------------------------
     Case("message quotes the cell as written", "balance -100.50", "check", 1,
          ("balance '-100.50' is outside its range",), (24, 23, 1), tape=lambda t: cell(t, 2, "balance", "-100.50")),

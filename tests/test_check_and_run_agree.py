@@ -50,7 +50,7 @@ weight = 1.0
 
 def _files(tmp_path: Path, lines: list[str], retail: str = "", cards: str = "", scenario: str = "",
            extra: str = "") -> tuple[Path, Path]:
-    cards = cards or "behavioural_life_months = 36\npayment_rate = 0.05"
+    cards = cards or "behavioural_life_months = 36\npayment_rate = 0.05\nccf = 0.3\nunconditionally_cancellable = true"
     tape = tmp_path / "tape.csv"
     tape.write_text("\n".join([HEADER, *lines]) + "\n", encoding="utf-8")
     assumptions = tmp_path / "a.toml"

@@ -62,8 +62,12 @@ def test_revolving_exposure_differs_by_framework(result):
     cards = loans["segment"] == "cards"
     t = tape()
     undrawn = (t["credit_limit"] - t["balance"]).clip(lower=0)[cards.to_numpy()]
-    # IFRS 9: drawn + CCF x undrawn (B5.5.40); CECL: drawn only, unconditionally cancellable (ASC 326-20-30-11)
-    assert np.allclose(loans.loc[cards, "ead_ifrs9"], (t.loc[cards.to_numpy(), "balance"] + 0.3 * undrawn).round(2))
+    # IFRS 9: drawn + CCF x undrawn (B5.5.40), a line in stage 3 blocked (drawn only: common practice, no
+    # source); CECL: drawn only, unconditionally cancellable (ASC 326-20-30-11)
+    open_line = (loans.loc[cards, "stage"] != 3).to_numpy()
+    assert (~open_line).any() and open_line.any()
+    assert np.allclose(loans.loc[cards, "ead_ifrs9"],
+                       (t.loc[cards.to_numpy(), "balance"] + 0.3 * undrawn * open_line).round(2))
     assert np.allclose(loans.loc[cards, "ead_cecl"], t.loc[cards.to_numpy(), "balance"])
     assert (loans.loc[cards, "horizon_months_cecl"] == 36).all()
 
@@ -212,7 +216,8 @@ def test_segment_parameters_are_looked_up_by_segment_code():
         assert (np.asarray(prep.segments.names)[terms.segment[rows]] == name).all()
         # lgd after cures, ccf: each loan carries its segment's figure (the assumptions, no source)
         assert np.allclose(terms.lgd[rows], segments[name].lgd * (1 - segments[name].cure_rate))
-        assert np.allclose(terms.ccf[rows], segments[name].ccf)
+        stated = np.nan if segments[name].ccf is None else segments[name].ccf  # NaN: not stated
+        assert np.allclose(terms.ccf[rows], stated, equal_nan=True)
     assert (terms.collateral[(t["segment"] != "mort").to_numpy()] == 0).all()
 
 

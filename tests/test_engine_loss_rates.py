@@ -23,7 +23,7 @@ def config(auto: dict, scenarios: dict | None = None, overlays: list | None = No
         "auto": auto,
         "mort": {"pd_curve": [0.005, 0.012, 0.02], "lgd": 0.2, "psa": 150, "asset_correlation": 0.15},
         "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3, "asset_correlation": 0.04,
-                  "behavioural_life_months": 36, "payment_rate": 0.05},
+                  "behavioural_life_months": 36, "payment_rate": 0.05, "unconditionally_cancellable": True},
     })
     if scenarios:
         data["scenarios"] = scenarios

@@ -67,7 +67,7 @@ def _assumptions(scenarios: dict, segments: dict | None = None, frameworks=("ifr
                               "collateral": {"variable": "hpi", "form": "level", "relative_to": "baseline"}},
             },
             "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3,
-                      "behavioural_life_months": 36, "payment_rate": 0.05,
+                      "behavioural_life_months": 36, "payment_rate": 0.05, "unconditionally_cancellable": True,
                       "satellite": {"link": "probit", "coefficients": {"u": 0.05}}},
         },
         "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
@@ -441,7 +441,7 @@ def test_zero_coefficients_give_the_long_run_run_whatever_the_path():
                  "collateral_lgd": {"haircut": 0.2, "recovery_cost": 0.05, "floor": 0.05, "months_to_recovery": 12},
                  "satellite": zero},
         "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3,
-                  "behavioural_life_months": 36, "payment_rate": 0.05, "satellite": zero},
+                  "behavioural_life_months": 36, "payment_rate": 0.05, "unconditionally_cancellable": True, "satellite": zero},
     }
     wild = {"u": HISTORY + [9.0, 12.0, 15.0], "hpi": BASELINE_HPI[:4] + [70.0] * 8}
     loans = _run(_assumptions({"down": {"weight": 1.0, "macro": wild}}, segments=segments))
@@ -469,7 +469,7 @@ def test_a_higher_unemployment_path_gives_higher_pds_and_a_higher_allowance(beta
     segments = {
         "auto": {"pd_12m": 0.02, "lgd": 0.4, "cpr": 0.1, "satellite": satellite},
         "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.06}, "lgd": 0.85, "ccf": 0.3,
-                  "behavioural_life_months": 36, "payment_rate": 0.05, "satellite": satellite},
+                  "behavioural_life_months": 36, "payment_rate": 0.05, "unconditionally_cancellable": True, "satellite": satellite},
         "mort": {"pd_curve": [0.005, 0.012, 0.02], "lgd": 0.2, "psa": 150, "satellite": satellite},
     }
     low = HISTORY + [4.5] * 8

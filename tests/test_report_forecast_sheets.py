@@ -26,7 +26,7 @@ def written(tmp_path_factory):
     data["segments"]["cards"] = {
         "transition_matrix": example_roll_matrix(180).model_dump(mode="json"), "charge_off_dpd": 180, "lgd": 0.85,
         "ccf": cards["ccf"], "behavioural_life_months": cards["behavioural_life_months"],
-        "payment_rate": cards["payment_rate"], "satellite": cards["satellite"]}
+        "payment_rate": cards["payment_rate"], "satellite": cards["satellite"], "unconditionally_cancellable": True}
     result = allowance.run(TAPE, data, sensitivities=False)
     out = tmp_path_factory.mktemp("sheets")
     result.write(out)

@@ -16,8 +16,10 @@ roll_forecast   bucket_balances, roll_forecast, roll_forecast_check, segment_rol
                 (the balance roll-rate forecast)
 lgd             collateral_lgd, recovery_discount_factor, effective_lgd, loss_given_default,
                 undrawn_exposure, revolving_ead
+ead             accrued_exposure, ccf_buckets, ccf_by_days_past_due (the CCF by delinquency bucket)
 """
 
+from allowance.curves.ead import ccf_buckets, ccf_by_days_past_due
 from allowance.curves.lgd import (
     collateral_lgd,
     effective_lgd,
@@ -72,6 +74,8 @@ __all__ = [
     "RollForecast",
     "bucket_balances",
     "bucket_index",
+    "ccf_buckets",
+    "ccf_by_days_past_due",
     "check_one_prepayment_source",
     "collateral_lgd",
     "cumulative_pd",

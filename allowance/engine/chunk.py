@@ -31,7 +31,7 @@ from allowance.curves.ead import accrued_exposure
 from allowance.curves.refinance import maturity_ltv, refinance_pd
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, KernelResult, expected_losses
-from allowance.engine.tables import Prepared, remaining_life, revolving_parameter
+from allowance.engine.tables import Prepared, commitment_months, off_balance, remaining_life, revolving_parameter
 from allowance.exceptions import AssumptionsError
 
 __all__ = ["ChunkInputs", "ChunkResult", "LoanTerms", "chunk_inputs", "loan_terms", "run_chunk"]
@@ -62,8 +62,10 @@ class LoanTerms:
     prepay_offset: np.ndarray
     lgd: np.ndarray  # flat LGD after cures
     cure: np.ndarray
-    ccf: np.ndarray
-    cancellable: np.ndarray
+    ccf: np.ndarray  # the line's CCF (by its days-past-due bucket where the segment states ccf_by_dpd); NaN unstated
+    cancellable: np.ndarray  # 1.0 unconditionally cancellable, 0.0 not, NaN unstated
+    off_balance: np.ndarray  # bool: a standalone commitment or guarantee (facility_type), nothing drawn
+    commitment: np.ndarray  # months of the contractual commitment period left (0: no commitment_end_date)
     collateral: np.ndarray  # 0 where the loan has none or its segment has no collateral LGD
     haircut: np.ndarray
     recovery_cost: np.ndarray
@@ -215,14 +217,21 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     residual = _residual(chunk, table.amortization_months[segment], rate, remaining, age)
     balance = chunk["balance"].to_numpy(float)
     q, unknown = _refinance(chunk, prep, segment, code, residual, balance, io_left, remaining)
+    ccf = table.ccf[segment]
+    dpd = chunk["days_past_due"].to_numpy()
+    for j, buckets in enumerate(table.ccf_by_dpd):  # a CCF by days-past-due bucket (ccf is a copy)
+        mask = segment == j
+        if buckets is not None and mask.any():
+            ccf[mask] = curves.ccf_by_days_past_due(dpd[mask], *buckets)
     return LoanTerms(
         segment=segment, repayment=repayment, code=code, balance=chunk["balance"].to_numpy(float), rate=rate,
         eir=eir, age=age, behavioural=behavioural, remaining=remaining, io_left=io_left,
         residual=residual,
         payment=np.where(code == cashflows.LEVEL, chunk["payment"].to_numpy(float), np.nan),
         curve=curve, prepay=prepay, prepay_offset=prepay_offset,
-        lgd=table.lgd[segment], cure=table.cure_rate[segment], ccf=table.ccf[segment],
-        cancellable=table.cancellable[segment],
+        lgd=table.lgd[segment], cure=table.cure_rate[segment], ccf=ccf,
+        cancellable=table.cancellable[segment], off_balance=off_balance(chunk),
+        commitment=commitment_months(chunk, as_of),
         collateral=np.where(secured, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0),
         haircut=table.haircut[segment], recovery_cost=table.recovery_cost[segment], lgd_floor=table.lgd_floor[segment],
         months_to_recovery=table.months_to_recovery[segment], refinance_pd=q, refinance_unknown=unknown,
@@ -258,19 +267,41 @@ class _Frameworks:
     paydown: np.ndarray
     discount: np.ndarray
     interest: np.ndarray
+    undrawn_add: np.ndarray  # the part of ead_add that is CCF × undrawn (the rest: accrued interest)
+
+
+def _undrawn_amounts(chunk: pd.DataFrame, terms: LoanTerms, prep: Prepared) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's limit (a line's credit limit, a commitment's or guarantee's amount; a term
+    loan's balance) and its undrawn amount, after checking that every segment holding undrawn
+    amounts states its CCF and whether the lender can cancel them (intake refuses such a
+    segment first; a direct caller of the engine gets this)."""
+    lines = (terms.repayment == "revolving") | terms.off_balance
+    limit = np.where(lines, np.nan_to_num(chunk["credit_limit"].to_numpy(float)), terms.balance)
+    undrawn = np.maximum(limit - terms.balance, 0.0)
+    for key, values in (("ccf", terms.ccf), ("unconditionally_cancellable", terms.cancellable)):
+        lacking = (undrawn > 0) & np.isnan(values)
+        if lacking.any():
+            seg = chunk["segment"].to_numpy()[lacking][0]
+            raise AssumptionsError(
+                f"segment {seg!r} holds undrawn amounts but states no {key}",
+                column=f"segments.{seg}.{key}",
+                hint=f"state {key} in [segments.{seg}] (ASC 326-20-30-11, IFRS 9 B5.5.31)",
+            )
+    return limit, undrawn
 
 
 def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray | None, prep: Prepared) -> _Frameworks:
     a = prep.config.assumptions
     n, n_fw = len(chunk), len(prep.rules)
-    revolving = terms.repayment == "revolving"
-    limit = np.where(revolving, np.nan_to_num(chunk["credit_limit"].to_numpy(float)), terms.balance)
+    limit, undrawn = _undrawn_amounts(chunk, terms, prep)
+    cancellable = np.nan_to_num(terms.cancellable, nan=1.0) > 0  # NaN only where nothing is undrawn
+    ccf = np.nan_to_num(terms.ccf)
     out = _Frameworks(
         curve=np.tile(terms.curve, (n_fw, 1)),
         in_default=np.zeros((n_fw, n), dtype=np.bool_), recovery_discount=np.ones((n_fw, n)),
         horizon=np.zeros((n_fw, n), dtype=np.int64),
         ead_add=np.zeros((n_fw, n)), paydown=np.zeros((n_fw, n)), discount=np.ones((n_fw, n)),
-        interest=np.zeros((n_fw, n)),
+        interest=np.zeros((n_fw, n)), undrawn_add=np.zeros((n_fw, n)),
     )
     # one default definition: a roll-rate loan in default keeps its bucket's chance of reaching
     # charge-off unless it is past the threshold or flagged (staging.loss_event_now)
@@ -291,7 +322,14 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
         out.recovery_discount[f] = rules.recovery_discount(a, terms.eir, terms.months_to_recovery)
         # the loop runs over the whole life; a 12-month horizon takes its first 12 months
         out.horizon[f] = terms.remaining
-        out.ead_add[f] = rules.exposure_add_on(terms.balance, limit, terms.ccf, terms.cancellable)
+        if rules.commitment_period:  # a non-cancellable commitment: its contractual period (ASC 326-20-30-11)
+            committed = (undrawn > 0) & ~cancellable & (terms.commitment > 0)
+            out.horizon[f] = np.where(committed, terms.commitment, terms.remaining)
+        # a line in default is blocked: nothing more is drawn, EAD = drawn (common practice, no
+        # source); a commitment or guarantee in default is still called on its CCF
+        add_on = rules.exposure_add_on(terms.balance, limit, ccf, cancellable)
+        out.undrawn_add[f] = np.where(credit_impaired & ~terms.off_balance, 0.0, add_on)
+        out.ead_add[f] = out.undrawn_add[f].copy()
         # accrued interest and arrears in the exposure, as the framework's option says
         out.ead_add[f] += accrued_exposure(chunk["accrued_interest"].to_numpy(float), dpd, rules.accrued_interest(a))
         if rules.revolving_paydown:
@@ -413,8 +451,13 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
 
 
 def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | None, k: KernelResult,
-                  prep: Prepared, purchase: _Purchase | None = None) -> pd.DataFrame:
-    """The per-loan frame: the first staged framework leads the shared columns (ead, PDs, LGD)."""
+                  prep: Prepared, purchase: _Purchase | None, fw: _Frameworks, drawn: _DrawnOnly) -> pd.DataFrame:
+    """The per-loan frame: the first staged framework leads the shared columns (ead, PDs, LGD).
+
+    ``ecl_<framework>_undrawn`` is the part of the modelled ECL that relates to the undrawn
+    commitment (the whole ECL less the ECL on the drawn exposure alone, :func:`_drawn_only`);
+    a loan measured one by one has none.
+    """
     out = pd.DataFrame(
         {"loan_id": chunk["loan_id"].to_numpy(), "segment": chunk["segment"].to_numpy(),
          "repayment": terms.repayment, "grade": chunk["grade"].to_numpy(),
@@ -435,10 +478,10 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
     else:
         out["poci"] = chunk["credit_impaired_at_purchase"].to_numpy(bool)
     stage = out["stage"].to_numpy() if stages is not None else np.ones(len(chunk), dtype=np.int64)
-    out["horizon_months"] = lead.horizon(stage, terms.remaining)
+    out["horizon_months"] = lead.horizon(stage, fw.horizon[primary])
     for rules in prep.rules:  # a framework without stages also shows its own horizon column
         if not rules.staged:
-            out[f"horizon_months_{rules.name}"] = rules.horizon(stage, terms.remaining)
+            out[f"horizon_months_{rules.name}"] = rules.horizon(stage, fw.horizon[prep.rules.index(rules)])
     out["remaining_months"] = terms.remaining
     out["balance"] = terms.balance
     out["ead"] = k.ead[:, primary]
@@ -478,6 +521,11 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
             out[f"ecl_{rules.name}_{name}"] = per_scenario[:, s]
         out[f"gross_loss_{rules.name}"] = scenarios.weighted(gross, w)
         out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, w)
+        # the ECL of the undrawn commitment: the whole less the drawn exposure's (the POCI shift cancels)
+        on_drawn = rules.allowance(drawn.ecl_12m[:, f, :], drawn.ecl_lifetime[:, f, :], stage, poci_flag, carried)
+        undrawn = np.where(one_by_one | (fw.undrawn_add[f] <= 0.0)[:, None], 0.0,
+                           np.maximum(per_scenario - on_drawn, 0.0))
+        out[f"ecl_{rules.name}_undrawn"] = scenarios.weighted(undrawn, w)
         # the annual rate that discounted the allowance (0: undiscounted), for the unwind line
         out[f"discount_rate_{rules.name}"] = terms.eir if rules.discounted(a) else np.zeros(n)
         if rules.staged:  # measured as the change since purchase (IFRS 9 5.5.13-5.5.14)
@@ -589,10 +637,42 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
         k.gross_12m[rows] = k.gross_lifetime[rows] = np.nan  # a loss rate is net of recoveries
         k.lgd[rows] = np.nan
     return ChunkResult(
-        loans=_loan_results(chunk, terms, stages, k, prep, purchase),
+        loans=_loan_results(chunk, terms, stages, k, prep, purchase, fw, _drawn_only(chunk, prep, c, k)),
         findings=pd.concat([_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
                             _refinance_findings(chunk, terms)], ignore_index=True),
     )
+
+
+@dataclass(frozen=True)
+class _DrawnOnly:
+    """The ECL measured without the undrawn add-on, ``[n, F, S]`` (12-month and lifetime): the
+    whole ECL where a loan has no undrawn exposure."""
+
+    ecl_12m: np.ndarray
+    ecl_lifetime: np.ndarray
+
+
+def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, k: KernelResult) -> _DrawnOnly:
+    """The loop again, for the loans with an undrawn add-on, on their drawn exposure alone.
+
+    The ECL of the undrawn commitment is the whole ECL less this (an incremental split): with
+    a flat LGD the loss is linear in EAD_t = drawn_t + CCF × undrawn, so the split is the
+    add-on's share of each month's exposure exactly; with a collateral LGD the collateral
+    covers the drawn balance first. Loans without an add-on keep the first pass's figures.
+    """
+    fw = c.frameworks
+    ecl_12m, ecl_lifetime = k.ecl_12m.copy(), k.ecl_lifetime.copy()
+    rows = np.flatnonzero((fw.undrawn_add > 0.0).any(axis=0))
+    if not rows.size:
+        return _DrawnOnly(ecl_12m, ecl_lifetime)
+    drawn_add = fw.ead_add - fw.undrawn_add
+    d = expected_losses(_subset(c.kernel, rows, ead_add=drawn_add[:, rows]))
+    ecl_12m[rows], ecl_lifetime[rows] = d.ecl_12m, d.ecl_lifetime
+    lines = chunk["segment"].to_numpy()[rows]
+    if prep.loss_rates is not None and np.isin(lines, list(prep.loss_rates.method)).any():
+        for part, lr in _loss_rate_loans(chunk, prep, c.terms, dataclasses.replace(fw, ead_add=drawn_add)) or ():
+            ecl_12m[part], ecl_lifetime[part] = lr.ecl_12m, lr.ecl_lifetime
+    return _DrawnOnly(ecl_12m, ecl_lifetime)
 
 
 def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: _Frameworks):

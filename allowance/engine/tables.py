@@ -19,7 +19,7 @@ import pandas as pd
 from allowance import cashflows, curves, loss_rates, scenarios, staging
 from allowance.exceptions import AssumptionsError
 from allowance.frameworks import FrameworkRules, rules_for
-from allowance.schemas import Framework, RunConfig, SegmentAssumptions
+from allowance.schemas import OFF_BALANCE_FACILITIES, Framework, RunConfig, SegmentAssumptions
 
 
 @dataclass(frozen=True)
@@ -35,8 +35,9 @@ class SegmentTable:
     names: tuple[str, ...]
     lgd: np.ndarray  # flat LGD after cures
     cure_rate: np.ndarray
-    ccf: np.ndarray
-    cancellable: np.ndarray  # bool: unconditionally cancellable (CECL: no allowance on undrawn)
+    ccf: np.ndarray  # NaN when not stated (or stated by days-past-due bucket: ccf_by_dpd)
+    cancellable: np.ndarray  # 1.0 unconditionally cancellable (CECL: no allowance on undrawn), 0.0 not, NaN unstated
+    ccf_by_dpd: tuple[tuple[np.ndarray, np.ndarray] | None, ...]  # per segment: (lowest DPD of each bucket, CCF)
     payment_rate: np.ndarray  # NaN when not given
     behavioural_life: np.ndarray  # NaN when not given
     amortization_months: np.ndarray  # NaN when not given
@@ -66,8 +67,10 @@ def segment_table(segments: dict[str, SegmentAssumptions]) -> SegmentTable:
         names=tuple(segments),
         lgd=curves.effective_lgd(column(lambda s: s.lgd), column(lambda s: s.cure_rate, 0.0)),
         cure_rate=column(lambda s: s.cure_rate, 0.0),
-        ccf=column(lambda s: s.ccf, 0.0),
-        cancellable=column(lambda s: s.unconditionally_cancellable, 1.0) > 0,
+        ccf=column(lambda s: s.ccf),
+        cancellable=column(lambda s: None if s.unconditionally_cancellable is None
+                           else float(s.unconditionally_cancellable)),
+        ccf_by_dpd=tuple(None if s.ccf_by_dpd is None else curves.ccf_buckets(s.ccf_by_dpd) for s in segments.values()),
         payment_rate=column(lambda s: s.payment_rate),
         behavioural_life=column(lambda s: s.behavioural_life_months),
         amortization_months=column(lambda s: s.amortization_months),
@@ -171,11 +174,30 @@ def _loss_rate_tables(config: RunConfig, months: int, max_age: int, tables, stru
 # --------------------------------------------------------------------------------------
 
 
+def off_balance(tape: pd.DataFrame) -> np.ndarray:
+    """Rows that are standalone commitments or guarantees (``facility_type``), nothing drawn."""
+    if "facility_type" not in tape.columns:
+        return np.zeros(len(tape), dtype=bool)
+    return tape["facility_type"].isin(OFF_BALANCE_FACILITIES).to_numpy(dtype=bool)
+
+
+def commitment_months(tape: pd.DataFrame, as_of: pd.Timestamp) -> np.ndarray:
+    """Months of the contractual commitment period left: payment dates after ``as_of`` up to
+    ``commitment_end_date`` (0 where blank or ended)."""
+    if "commitment_end_date" not in tape.columns:
+        return np.zeros(len(tape), dtype=np.int64)
+    return cashflows.remaining_months(as_of, tape["commitment_end_date"])
+
+
 def remaining_life(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndarray) -> np.ndarray:
-    """Months left of every loan: the contractual term (at least 1), a line's behavioural life."""
+    """Months left of every loan: the contractual term (at least 1), a line's behavioural life,
+    a standalone commitment's or guarantee's commitment period (IFRS 9 5.5.19)."""
     term = cashflows.remaining_months(as_of, tape["maturity_date"])
     # a matured loan still carrying a balance gets a one-month horizon (intake flags it)
-    return staging.lifetime_months(np.maximum(term, 1), tape["repayment"].to_numpy(), behavioural)
+    off = off_balance(tape)
+    repayment = np.where(off, "level", tape["repayment"].to_numpy(dtype=object))
+    life = staging.lifetime_months(np.maximum(term, 1), repayment, np.where(off, 1, behavioural))
+    return np.where(off, np.maximum(commitment_months(tape, as_of), 1), life).astype(np.int64)
 
 
 def revolving_parameter(tape: pd.DataFrame, table: SegmentTable, codes: np.ndarray, attr: str) -> np.ndarray:
@@ -209,6 +231,7 @@ def tape_months(tape: pd.DataFrame, config: RunConfig) -> int:
     table = segment_table(config.assumptions.segments)
     as_of = pd.Timestamp(config.as_of)
     life = remaining_life(tape, as_of, behavioural_life(tape, table))
+    life = np.maximum(life, commitment_months(tape, as_of))  # CECL: a commitment's contractual period
     if "credit_impaired_at_purchase" in tape.columns:
         poci = tape["credit_impaired_at_purchase"].to_numpy(dtype=bool)
         if poci.any():

@@ -29,7 +29,7 @@ from allowance.intake.parse import NO_DAY, Parsed
 from allowance.intake.readers import cell_text
 from allowance.frameworks import rules_for
 from allowance.poci import period_start
-from allowance.schemas import MAX_MONTHS, Assumptions
+from allowance.schemas import MAX_MONTHS, OFF_BALANCE_FACILITIES, Assumptions
 
 Severity = Literal["reject", "warning"]
 
@@ -57,6 +57,9 @@ CODES: dict[str, str] = {
     "line_break_in_value": "{column} holds a line break: a quote closed in the wrong place (rejected in our columns)",
     "records_in_value": "{column} holds whole lines of the tape: a quote opened on one line closes lines later",
     "maturity_beyond_horizon": "maturity_date is more than the longest horizon after the as-of date",
+    "commitment_with_balance": "a commitment or guarantee (facility_type) carries a drawn balance",
+    "commitment_ended": "commitment_end_date is on or before the as-of date",
+    "commitment_beyond_horizon": "commitment_end_date is more than the longest horizon after the as-of date",
 }
 
 _BAD_CODE: dict[str, str] = {
@@ -387,7 +390,9 @@ def dates(cols: TapeColumns) -> Iterator[Findings]:
         yield _findings(rows, "maturity_date", "maturity_before_origination", messages)
 
     known_repayment = ~repayment.blank & ~repayment.bad
-    term = known_repayment & np.asarray(pc.fill_null(pc.not_equal(repayment.values, "revolving"), False))
+    # a standalone commitment or guarantee runs to its commitment_end_date, not to a maturity
+    term = (known_repayment & np.asarray(pc.fill_null(pc.not_equal(repayment.values, "revolving"), False))
+            & ~_off_balance(cols))
     rows = np.flatnonzero(term & maturity.blank)
     if rows.size:
         about = _about(FIELDS["maturity_date"])
@@ -414,6 +419,69 @@ def dates(cols: TapeColumns) -> Iterator[Findings]:
             for m in _date_text(maturity.values[rows])
         ]
         yield _findings(rows, "maturity_date", "matured", messages)
+
+
+def _off_balance(cols: TapeColumns) -> np.ndarray:
+    """Rows whose facility_type is a standalone commitment or guarantee."""
+    facility = cols.parsed["facility_type"].values
+    return np.asarray(pc.fill_null(pc.is_in(facility, value_set=pa.array(list(OFF_BALANCE_FACILITIES))), False))
+
+
+def commitments(cols: TapeColumns) -> Iterator[Findings]:
+    """Standalone commitments and guarantees: no drawn balance, an amount (``credit_limit``) and
+    a ``commitment_end_date`` after the as-of date; any row's commitment end within the longest
+    horizon. A line whose commitment has ended is flagged (measured without a commitment period).
+
+    The exposure of a commitment or guarantee is CCF × its amount over the period the lender
+    is committed (IFRS 9 5.5.19, B5.5.31; ASC 326-20-30-11): without an end date it has no
+    horizon, and a drawn amount belongs on its own row as a funded loan.
+    """
+    off = _off_balance(cols)
+    end = cols.parsed["commitment_end_date"]
+    has_end = end.values != NO_DAY
+    as_of = int(np.datetime64(cols.assumptions.run.as_of, "D").astype(np.int64))
+    as_of_text = cols.assumptions.run.as_of.isoformat()
+    run_date = cols.assumptions.run.as_of
+    years = MAX_MONTHS // 12
+    last_day = run_date.replace(year=run_date.year + years, day=min(run_date.day, 28 if run_date.month == 2 else 31))
+    rows = np.flatnonzero(has_end & (end.values > int(np.datetime64(last_day, "D").astype(np.int64))))
+    if rows.size:
+        messages = [f"commitment_end_date {d} is more than {years} years after the as-of date {as_of_text}: horizons "
+                    f"are capped at {MAX_MONTHS:,} months" for d in _date_text(end.values[rows])]
+        yield _findings(rows, "commitment_end_date", "commitment_beyond_horizon", messages)
+    ended = has_end & (end.values <= as_of)
+    rows = np.flatnonzero(ended & off)
+    if rows.size:
+        messages = [f"commitment_end_date {d} is on or before the as-of date {as_of_text}: the commitment has ended "
+                    "(take it off the tape)" for d in _date_text(end.values[rows])]
+        yield _findings(rows, "commitment_end_date", "commitment_ended", messages)
+    rows = np.flatnonzero(ended & ~off)
+    if rows.size:
+        messages = [f"commitment_end_date {d} is on or before the as-of date {as_of_text}: measured without a "
+                    "commitment period" for d in _date_text(end.values[rows])]
+        yield _findings(rows, "commitment_end_date", "commitment_ended", messages, "warning")
+    if not off.any():
+        return
+    rows = np.flatnonzero(off & end.blank)
+    if rows.size:
+        message = ("commitment_end_date is blank but required for a commitment or guarantee (facility_type): the "
+                   "exposure lasts until the lender's commitment ends (IFRS 9 5.5.19)")
+        yield _findings(rows, "commitment_end_date", "missing_value", [message] * rows.size)
+    limit = cols.parsed["credit_limit"]
+    rows = np.flatnonzero(off & limit.blank)
+    if rows.size:
+        message = ("credit_limit is blank but required for a commitment or guarantee (facility_type): the committed "
+                   "or guaranteed amount, of which the CCF share is the exposure")
+        yield _findings(rows, "credit_limit", "missing_value", [message] * rows.size)
+    balance = cols.parsed["balance"]
+    with np.errstate(invalid="ignore"):
+        rows = np.flatnonzero(off & ~balance.blank & ~balance.bad & (balance.values > 0))
+    if rows.size:
+        facility = pc.take(cols.parsed["facility_type"].values, pa.array(rows)).to_pylist()
+        messages = [f"balance {b:,.2f} on a {f} row: a commitment or guarantee carries no drawn balance (put the "
+                    "drawn part on its own row as a funded loan, facility_type blank or funded)"
+                    for b, f in zip(balance.values[rows], facility)]
+        yield _findings(rows, "balance", "commitment_with_balance", messages)
 
 
 def revolving_lines(cols: TapeColumns) -> Iterator[Findings]:
@@ -490,6 +558,47 @@ def segment_requirements(cols: TapeColumns, paydown_frameworks: list[str], file:
             hint=f"add {key} to [segments.{name}]"
                  + (" (months; IFRS 9 B5.5.40)" if key == "behavioural_life_months" else " (monthly share of the drawn balance repaid, e.g. 0.05)"),
         )
+def commitment_requirements(cols: TapeColumns, file: str | None = None) -> None:
+    """Raise :class:`AssumptionsError` when a segment holding undrawn amounts does not state
+    its CCF (``ccf`` or ``ccf_by_dpd``) or ``unconditionally_cancellable``.
+
+    Neither has a safe default: a non-cancellable commitment taken as cancellable would carry
+    no CECL reserve on its undrawn part (ASC 326-20-30-11), and a CCF of 0 none under IFRS 9
+    (B5.5.31). A row holds undrawn amounts when it is a revolving line with a credit limit
+    above its balance, or a standalone commitment or guarantee (``facility_type``).
+    """
+    repayment = cols.parsed["repayment"]
+    facility = cols.parsed["facility_type"]
+    limit, balance = cols.parsed["credit_limit"], cols.parsed["balance"]
+    revolving = np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
+    off = np.asarray(pc.fill_null(pc.is_in(facility.values, value_set=pa.array(list(OFF_BALANCE_FACILITIES))), False))
+    with np.errstate(invalid="ignore"):
+        above = ~limit.blank & ~limit.bad & (limit.values > np.where(balance.blank | balance.bad, 0.0, balance.values))
+    undrawn = (revolving | off) & above
+    if not undrawn.any():
+        return
+    segment = cols.parsed["segment"].values
+    for name, seg in cols.assumptions.segments.items():
+        missing = [key for key, value in (("ccf", seg.ccf if seg.ccf is not None else seg.ccf_by_dpd),
+                                          ("unconditionally_cancellable", seg.unconditionally_cancellable))
+                   if value is None]
+        if not missing:
+            continue
+        rows = np.flatnonzero(undrawn & np.asarray(pc.fill_null(pc.equal(segment, name), False)))
+        if not rows.size:
+            continue
+        key = missing[0]
+        lines = ", ".join(str(r) for r in cols.source_row[rows[:5]]) + (" ..." if rows.size > 5 else "")
+        hint = ("add ccf (the share of the undrawn amount drawn by default, IFRS 9 B5.5.31) or ccf_by_dpd"
+                if key == "ccf" else
+                "add unconditionally_cancellable = true or false: false books a CECL liability on the undrawn "
+                "part (ASC 326-20-30-11); there is no default")
+        raise AssumptionsError(
+            f"segment {name!r} holds {rows.size} row(s) with undrawn amounts (tape lines {lines}) but states no {key}",
+            file=file, column=f"segments.{name}.{key}", hint=f"{hint} in [segments.{name}]",
+        )
+
+
 def vintage_segments(cols: TapeColumns) -> Iterator[Findings]:
     """A segment with a vintage loss curve needs each loan's original balance; a revolving line
     has none (its balance is redrawn), so it cannot be placed on a vintage curve."""
@@ -551,8 +660,8 @@ def purchased_credit_impaired(cols: TapeColumns) -> Iterator[Findings]:
 
 #: The rules, in the order their findings are listed for a row.
 ROW_RULES: tuple[Rule, ...] = (
-    field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines, balloon_terms, vintage_segments,
-    purchased_credit_impaired,
+    field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines, commitments, balloon_terms,
+    vintage_segments, purchased_credit_impaired,
 )
 
 

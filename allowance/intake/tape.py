@@ -26,7 +26,7 @@ from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_dates
 from allowance.intake.readers import Malformed, RawTape, read_frame, read_raw
 from allowance.intake.results import IntakeResult
 from allowance.frameworks import rules_for
-from allowance.intake.rules import Findings, TapeColumns, apply_rules, segment_requirements
+from allowance.intake.rules import Findings, TapeColumns, apply_rules, commitment_requirements, segment_requirements
 from allowance.schemas import REQUIRED_COLUMNS, RunConfig, is_result_column
 
 FINDING_COLUMNS = ["source_row", "loan_id", "column", "code", "severity", "message"]
@@ -368,7 +368,9 @@ def validate(raw: RawTape, path: Path, config: RunConfig, *,
         cols = dataclasses.replace(cols, repeated=repeated)
     # a segment the rows need a key of: one error naming the key (the fix is in the assumptions)
     paydown = [fw for fw in config.frameworks if rules_for(fw).revolving_paydown]
-    segment_requirements(cols, paydown, next((i.path for i in config.inputs if i.role == "assumptions"), None))
+    assumptions_file = next((i.path for i in config.inputs if i.role == "assumptions"), None)
+    segment_requirements(cols, paydown, assumptions_file)
+    commitment_requirements(cols, assumptions_file)
     chunks = apply_rules(cols) + _line_break_findings(raw, colmap)
     dates = date_evidence(cols)
     reject = np.zeros(cols.rows, dtype=bool)

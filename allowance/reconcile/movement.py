@@ -47,6 +47,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import date
 
+import numpy as np
 import pandas as pd
 
 from allowance.frameworks import rules_for
@@ -263,13 +264,27 @@ def movement(
         allowance_detail=tables["allowance"][1],
         gross_detail=tables["gross"][1],
         rollforward=roll,
-        journal=journal(roll, framework),
+        journal=journal(roll, framework, _presented(prior, current, framework)),
         loans=_loan_table(loans),
         assumptions_isolated=a is not None,
         notes=tuple(notes),
         write_offs=write_off_bridge(loans, framework),
         not_isolated=_not_isolated(framework, a is not None, method_changes is not None, has_rates, months, current),
     )
+
+
+def _presented(prior: pd.DataFrame, current: pd.DataFrame, framework: Framework) -> pd.Series:
+    """Per segment, in integer cents: the change in ``provision_<framework>`` (the ECL presented
+    apart from the loss allowance), closing less opening; a run without the column has none."""
+    column = f"provision_{framework}"
+
+    def by_segment(frame: pd.DataFrame) -> pd.Series:
+        if column not in frame.columns or frame.empty:
+            return pd.Series(dtype=np.int64)
+        cents = np.rint(pd.to_numeric(frame[column]).fillna(0.0).to_numpy(np.float64) * 100.0).astype(np.int64)
+        return pd.Series(cents, index=frame["segment"].astype(str).to_numpy()).groupby(level=0).sum()
+
+    return by_segment(current).sub(by_segment(prior), fill_value=0).astype(np.int64)
 
 
 def _period_months(prior_as_of: date | None, current_as_of: date | None, names: Mapping[str, str]) -> int | None:

@@ -283,13 +283,24 @@ def write_off_bridge(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame
     return out
 
 
-def journal(roll: pd.DataFrame, framework: Framework) -> pd.DataFrame:
-    """The allowance entries: provision (or release) by segment, and the CECL PCD gross-up."""
-    expense, allowance = rules_for(framework).journal_accounts
+def journal(roll: pd.DataFrame, framework: Framework, presented: pd.Series | None = None) -> pd.DataFrame:
+    """The allowance entries: provision (or release) by segment, the CECL PCD gross-up, and the
+    part of the allowance presented as a provision for commitments.
+
+    ``presented`` (segment -> integer cents) is the change over the period in the ECL shown
+    apart from the loss allowance: the IFRS 9 provision for loan commitments and financial
+    guarantees (IFRS 9 5.5.20, IFRS 7 B8E), the CECL liability for off-balance-sheet credit
+    exposure (ASC 326-20-30-11). It moves between the allowance and that account (an increase
+    debits the allowance and credits the provision); the expense is already in the provision line.
+    """
+    rules = rules_for(framework)
+    expense, allowance = rules.journal_accounts
+    moved = presented if presented is not None else pd.Series(dtype=np.int64)
     rows = []
     for segment, provision, initial in zip(roll["segment"], roll["provision"], roll["initial_allowance_pcd"]):
         if segment == "Total":
             continue
+        shift = int(moved.get(segment, 0)) / 100.0
         if round(provision, 2) != 0:
             amount = abs(provision)
             entry = "provision" if provision > 0 else "release"
@@ -301,6 +312,12 @@ def journal(roll: pd.DataFrame, framework: Framework) -> pd.DataFrame:
                          "debit": initial, "credit": 0.0})
             rows.append({"segment": segment, "entry": "PCD gross-up", "account": allowance,
                          "debit": 0.0, "credit": initial})
+        if shift != 0:
+            amount = abs(shift)
+            debit, credit = (allowance, rules.provision_account) if shift > 0 else (rules.provision_account, allowance)
+            for account, dr, cr in ((debit, amount, 0.0), (credit, 0.0, amount)):
+                rows.append({"segment": segment, "entry": "undrawn commitments presented as a provision",
+                             "account": account, "debit": dr, "credit": cr})
     journal = pd.DataFrame(rows, columns=["segment", "entry", "account", "debit", "credit"])
     cents = np.rint(journal[["debit", "credit"]].to_numpy(dtype=np.float64) * 100).astype(np.int64).sum(axis=0)
     total = {"segment": "Total", "entry": "", "account": "", "debit": cents[0] / 100, "credit": cents[1] / 100}

@@ -62,6 +62,36 @@ def _coverage(allowance_ref: str, balance_ref: str, allowance: float, balance: f
     return Figure(f"=IF({balance_ref}=0,0,{allowance_ref}/{balance_ref})", allowance / balance if balance else 0.0)
 
 
+def _drawn_undrawn(sheet: Sheet, r: int, report: RunReport, refs: LoanRefs, led: Ledger) -> int:
+    """The modelled allowance split into the ECL on drawn balances and on undrawn commitments,
+    and the part presented apart from the loss allowance: an IFRS 9 provision (the undrawn part
+    and any ECL above the drawn balance, IFRS 9 5.5.20, IFRS 7 B8E), a CECL liability for
+    off-balance-sheet credit exposure (ASC 326-20-30-11). Returns the next free row."""
+    fws = [f for f in report.frameworks if refs.has(f"provision_{f}")]
+    if not fws:
+        return r
+    r = sheet.section(r, "Drawn and undrawn: the loss allowance and the provision for commitments")
+    r = sheet.note(r, "Modelled figures, before overlays. IFRS 9: the ECL on undrawn commitments, and any ECL "
+                   "above a loan's drawn balance, is a provision (IFRS 9 5.5.20, IFRS 7 B8E). CECL: the ECL on "
+                   "the undrawn part of commitments the lender cannot unconditionally cancel is a liability for "
+                   "off-balance-sheet credit exposure (ASC 326-20-30-11); cancellable lines carry none.")
+    sheet.header(r, 1, ["Framework", "Modelled allowance", "On drawn balances", "On undrawn commitments",
+                        "Provision or liability", "Against the loans", "Presented as"],
+                 ["text", "money", "money", "money", "money", "money", "text"])
+    r += 1
+    for f in fws:
+        sheet.label(r, 1, FW_LABEL[f])
+        modelled = led.put(sheet, r, 2, refs.total(f"ecl_{f}_modelled"), "money")
+        led.put(sheet, r, 3, refs.total(f"ecl_{f}_drawn"), "money")
+        led.put(sheet, r, 4, refs.total(f"ecl_{f}_undrawn"), "money")
+        provision = led.put(sheet, r, 5, refs.total(f"provision_{f}"), "money")
+        against = led.local(sheet, modelled) - led.local(sheet, provision)
+        led.put(sheet, r, 6, Figure(f"={modelled}-{provision}", round(against, 2)), "money")
+        sheet.put(r, 7, FRAMEWORK_RULES[f].provision_account, "text")
+        r += 1
+    return r + 1
+
+
 def _tie_note(sheet: Sheet, row: int, refs: LoanRefs, what: str) -> int:
     if refs.live:
         return row
@@ -165,6 +195,7 @@ def _summary(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger, *, fu
         _prior_columns(sheet, led, r, 8, allowance, prior.get(f, {}).get("total"))
         r += 1
     r += 1
+    r = _drawn_undrawn(sheet, r, report, refs, led)
 
     staged = _staged(report.frameworks)
     if staged is not None and "stage" in loans.columns:

@@ -66,7 +66,7 @@ def config(frameworks=("ifrs9", "cecl")) -> RunConfig:
             "mortgage": {"pd_curve": [0.004, 0.009, 0.015, 0.02], "lgd": 0.2, "psa": 150},
             "auto": {"pd_12m": 0.02, "lgd": 0.45, "cpr": 0.12},
             "cards": {"pd_12m_by_grade": {"A": 0.02, "B": 0.07}, "lgd": 0.85, "ccf": 0.4,
-                      "behavioural_life_months": 36, "payment_rate": 0.04},
+                      "behavioural_life_months": 36, "payment_rate": 0.04, "unconditionally_cancellable": True},
         },
         "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
         "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
