@@ -236,6 +236,7 @@ def run_part(tape: pd.DataFrame, prep: Prepared, *, chunk_size: int = CHUNK_SIZE
     config = prep.config
     parts = [run_chunk(chunk, prep) for chunk in _chunks(tape, chunk_size)]
     loans = _round_money(pd.concat([p.loans for p in parts]) if parts else pd.DataFrame())
+    _split_drawn_undrawn(loans, prep)
     findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
     if book_wide_overlays(config):
         for fw in config.frameworks:  # placeholders in their columns' places, set by overlay_part
