@@ -74,7 +74,7 @@ COUNT = "loan_count"
 def _money_columns(loans: pd.DataFrame) -> list[str]:
     return [c for c in loans.columns
             if c == "balance" or c == "pcd_gross_up" or c.startswith(("ecl_", "ead", "gross_loss_", "purchase_ecl_",
-                                                                       "overlay_"))]
+                                                                       "overlay_", "provision_"))]
 
 
 def loan_sums(loans: pd.DataFrame) -> pd.DataFrame:

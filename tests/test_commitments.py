@@ -9,6 +9,7 @@ ASC 326-20-30-11 for a commitment the lender cannot cancel).
 
 from __future__ import annotations
 
+import json
 import subprocess
 import sys
 
@@ -196,6 +197,11 @@ def test_command_line_writes_the_split(tmp_path):
     assert loans.loc["C3", "ead_ifrs9"] == 3_000.0  # in default: blocked
     assert loans.loc["G1", "ead_ifrs9"] == 125_000.0
     assert (out / "reserve.xlsx").exists()
+    record = json.loads((out / "run.json").read_text(encoding="utf-8"))
+    for fw in ("ifrs9", "cecl"):  # the record's totals are the columns' sums, drawn + undrawn = modelled
+        totals = record["totals"][fw]
+        assert round(totals["drawn"] + totals["undrawn"], 2) == totals["modelled"]
+        assert totals["provision"] == round(loans[f"provision_{fw}"].sum(), 2)
 
 
 def test_journal_moves_the_undrawn_part_to_the_provision_account():

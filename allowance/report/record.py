@@ -196,7 +196,11 @@ def run_record(
     totals: dict[str, dict[str, float]] = {}
     for f in config.frameworks:
         entry = {}
-        for key, col in (("allowance", f"ecl_{f}"), ("modelled", f"ecl_{f}_modelled"), ("overlays", f"overlay_{f}")):
+        # drawn + undrawn = modelled; provision: the part shown apart from the loss allowance
+        # (IFRS 9 5.5.20, IFRS 7 B8E; ASC 326-20-30-11)
+        for key, col in (("allowance", f"ecl_{f}"), ("modelled", f"ecl_{f}_modelled"), ("overlays", f"overlay_{f}"),
+                         ("drawn", f"ecl_{f}_drawn"), ("undrawn", f"ecl_{f}_undrawn"),
+                         ("provision", f"provision_{f}")):
             if col in loans.columns:
                 entry[key] = money_total(loans[col])
         if "stage" in loans.columns and f"ecl_{f}" in loans.columns and FRAMEWORK_RULES[f].staged:
