@@ -48,7 +48,7 @@ from allowance.exceptions import InputFileError, TapeError
 from allowance.intake.fields import FIELDS
 from allowance.intake.files import Scan, check_size, scan
 from allowance.intake.parse import PARSERS
-from allowance.intake.readers import RawTape, _arrow_text, _drop_blank, _names
+from allowance.intake.readers import arrow_tape, as_text, supported_column
 from allowance.intake.results import IntakeResult
 from allowance.intake.rules import id_hashes
 from allowance.intake.tape import (
@@ -163,7 +163,7 @@ def _read(part: TapePart, columns: Sequence[str] | None = None) -> pa.Table:
 
 def _ids(part: TapePart, header: str) -> pa.ChunkedArray:
     """The part's loan ids as the rules read them (text, trimmed as the parser trims)."""
-    column = _arrow_text(_read(part, [header]).column(0), header, Path(part.file))
+    column = as_text(supported_column(_read(part, [header]).column(0), header, Path(part.file)))
     return PARSERS[FIELDS["loan_id"].kind](column, FIELDS["loan_id"]).values
 
 
@@ -212,12 +212,9 @@ def read_part(part: TapePart, config: RunConfig, repeated: dict[str, list[int]],
     if headers is not None and names != list(headers):
         raise TapeError(f"row group {part.row_group} has the columns {names}, not {list(headers)}", file=part.file)
     path = Path(part.file)
-    table = pa.table({n: _arrow_text(source.column(i), names[i], path) for i, n in enumerate(_names(len(names)))})
-    source_row = np.arange(part.first_row + 2, part.first_row + 2 + table.num_rows, dtype=np.int64)
-    table, source_row, blank, _ = _drop_blank(table, source_row)
     record = InputFile(role="tape", path=str(path), sha256="0" * 64, bytes=0)  # the layout fingerprints the tape
-    raw = RawTape(headers=names, table=table, source_row=source_row,
-                  record=Scan(record=record, newlines=-1, ends_with_newline=False), blank_rows=blank)
+    # typed columns checked in their own type, as in a tape read whole (readers.arrow_tape)
+    raw = arrow_tape(source, path, Scan(record=record, newlines=-1, ends_with_newline=False), part.first_row + 2)
     return validate(raw, path, config, repeated=repeated)
 
 
@@ -266,7 +263,9 @@ def combine(layout: TapeLayout, parts: Sequence[Validated], config: RunConfig) -
     findings = [r.findings for r in results if len(r.findings)]
     return IntakeResult(
         accepted=pd.concat([r.accepted for r in results], ignore_index=True),
-        rejected=pd.concat([r.rejected for r in results], ignore_index=True),
+        # a part with no rejected row holds an empty frame of object columns (one block, cheap when wide)
+        rejected=pd.concat([r.rejected for r in results if len(r.rejected)] or [results[0].rejected],
+                           ignore_index=True),
         findings=pd.concat(findings, ignore_index=True) if findings else results[0].findings,
         rows_read=sum(r.rows_read for r in results),
         file=layout.record,
@@ -274,6 +273,7 @@ def combine(layout: TapeLayout, parts: Sequence[Validated], config: RunConfig) -
         headers=results[0].headers,
         date_formats=_date_formats(results, layout.path),
         notes=tuple(dict.fromkeys(n for r in results for n in r.notes)),
+        extra_columns=results[0].extra_columns,
     )
 
 

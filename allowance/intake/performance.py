@@ -40,7 +40,7 @@ from allowance.intake.panel import (
     Repeated,
 )
 from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_dates, trimmed_text
-from allowance.intake.readers import _arrow_text
+from allowance.intake.readers import as_text, supported_column
 from allowance.intake.rules import Findings, _bad_message, _bounds
 from allowance.intake.stream import RawBatch, stream_file
 from allowance.schemas import HISTORY_OPTIONAL_COLUMNS, HISTORY_REQUIRED_COLUMNS, HistoryRecord, InputFile
@@ -188,14 +188,9 @@ def _as_text(column: pa.ChunkedArray | pa.Array, name: str, file: Path) -> pa.Ch
     """Any column as plain text (a typed Parquet column as a CSV export would write it)."""
     if isinstance(column, pa.Array):
         column = pa.chunked_array([column])
-    if pa.types.is_null(column.type):
-        return pa.chunked_array([pa.nulls(len(column), pa.string())])
     if pa.types.is_string(column.type):
         return column
-    text = _arrow_text(column, name, file)
-    if not pa.types.is_string(text.type):
-        text = pc.cast(text, pa.string())
-    return text
+    return as_text(supported_column(column, name, file))
 
 
 def _days_of(column: pa.ChunkedArray) -> np.ndarray:

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
-import re
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -45,7 +44,6 @@ class RawTape:
     record: Scan
     blank_rows: int = 0
     malformed: list[Malformed] = field(default_factory=list)
-    text_columns: Callable[[], dict[int, pa.ChunkedArray]] | None = None  # columns read as numbers, as text
     lines: int = -1  # physical lines of a CSV file (header included); -1 for XLSX and Parquet
     line_breaks: np.ndarray | None = None  # per row of ``table``: line breaks inside its quoted values
 
@@ -57,12 +55,10 @@ class RawTape:
         return self.lines - 1 - self.table.num_rows - self.blank_rows - len(self.malformed)
 
     def text_rows(self, rows: np.ndarray) -> pa.Table:
-        """The given rows with every column as text, exactly as read."""
+        """The given rows with every column as text, exactly as read (a typed Parquet value as
+        the text a CSV export would hold)."""
         taken = self.table.take(pa.array(rows, pa.int64()))
-        if self.text_columns is not None and len(rows):
-            for i, column in self.text_columns().items():
-                taken = taken.set_column(i, taken.column_names[i], pc.take(column, pa.array(rows, pa.int64())))
-        return taken
+        return pa.table([as_text(c) for c in taken.columns], names=taken.column_names)
 
 
 def _names(count: int) -> list[str]:
@@ -75,9 +71,9 @@ def _drop_blank(table: pa.Table, source_row: np.ndarray) -> tuple[pa.Table, np.n
         return table, source_row, 0, None
     empty = None
     for column in table.columns:
-        if column.null_count == 0:
+        if column.null_count == 0 and not pa.types.is_floating(column.type):
             return table, source_row, 0, None  # a column with a value on every row: no blank rows
-        is_null = pc.is_null(column)
+        is_null = pc.is_null(column, nan_is_null=True)  # a NaN is a blank number
         empty = is_null if empty is None else pc.and_(empty, is_null)
     blank = np.asarray(empty, dtype=bool)
     if not blank.any():
@@ -102,8 +98,7 @@ def _csv_header(path: Path) -> list[str]:
     return header
 
 
-NumericColumns = Callable[[list[str]], set[int]]
-_ARROW_COLUMN = re.compile(r"In CSV column #(\d+)")
+_BLOCK_BYTES = 1 << 22
 _LINE_BREAK = "\r\n|\r|\n"
 
 
@@ -122,14 +117,14 @@ def _scan_in_background(path: Path) -> tuple[threading.Thread, dict[str, object]
     return thread, box
 
 
-def read_csv(path: Path, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
-    """Read a CSV tape with Arrow's multi-threaded reader.
+def read_csv(path: Path, sheet: str | None = None, typed: bool = False) -> RawTape:
+    """Read a CSV tape with Arrow's multi-threaded reader, once, every column as text.
 
-    Columns that ``numeric(headers)`` names are converted to float64 while reading; if any
-    value in them is not a plain number, the file is read again as text (the rules then say
-    which cells). ``RawTape.text_rows`` gives rows with every column as text, for the rejected rows.
-    Lines with the wrong number of fields send the whole file through :func:`read_csv_exact`,
-    which keeps them (to be rejected) and knows every line number.
+    The parsers convert the text column-wise (a clean number column in one cast), and the
+    rows that fail a conversion are found in the same text, which is also what the rejected
+    rows show: the file is never read a second time for them. Lines with the wrong number of
+    fields send the whole file through :func:`read_csv_exact`, which keeps them (to be
+    rejected) and knows every line number. ``typed`` is ignored (a CSV holds only text).
     """
     import pyarrow.csv as pacsv
 
@@ -147,55 +142,46 @@ def read_csv(path: Path, sheet: str | None = None, numeric: NumericColumns | Non
         scanned()  # a binary or non-UTF-8 file: its error is the clearer one
         raise
     names = _names(len(header))
-    typed = numeric(header) if numeric else set()
+    # A block costs a chunk of every column: larger blocks for a wide tape (4 MiB for 64
+    # columns or fewer, up to 64 MiB from 1,024 columns), small ones for the threads otherwise.
+    block_size = min(max(_BLOCK_BYTES, len(names) << 16), 16 * _BLOCK_BYTES)
     invalid: list[object] = []
 
     def on_invalid(row: object) -> str:
         invalid.append(row)
         return "skip"
 
-    def arrow_read(newlines_in_values: bool, floats: set[int], only: list[str] | None = None) -> pa.Table:
+    def arrow_read(newlines_in_values: bool) -> pa.Table:
         invalid.clear()
         return pacsv.read_csv(
             path,
-            read_options=pacsv.ReadOptions(skip_rows=1, column_names=names, block_size=1 << 22),
+            read_options=pacsv.ReadOptions(skip_rows=1, column_names=names, block_size=block_size),
             parse_options=pacsv.ParseOptions(
                 newlines_in_values=newlines_in_values, ignore_empty_lines=False, invalid_row_handler=on_invalid
             ),
             convert_options=pacsv.ConvertOptions(
-                column_types={n: pa.float64() if i in floats else pa.string() for i, n in enumerate(names)},
+                column_types=dict.fromkeys(names, pa.string()),
                 null_values=[""],
                 strings_can_be_null=True,
                 quoted_strings_can_be_null=True,
-                include_columns=only,
             ),
         )
 
     # Fast when no quoted value holds a line break; when one does and it crosses a block,
     # Arrow raises (it never misreads) and the careful mode reads it.
-    newlines_in_values = False
     table = None
-    retries = 0
-    for _ in range(5):
+    for newlines_in_values in (False, True):
         try:
-            table = arrow_read(newlines_in_values, typed)
+            table = arrow_read(newlines_in_values)
             break
         except pa.ArrowInvalid as err:
             message = str(err)
-            if "conversion error" in message and typed:
-                # A value that is not a plain number: read that column as text (the rules say
-                # which cells); after a few such columns, read every column as text.
-                column = _ARROW_COLUMN.search(message)
-                failed = int(column.group(1)) if column else -1
-                retries += 1
-                typed = typed - {failed} if failed in typed and retries < 3 else set()
-            elif "out of sync" in message and not newlines_in_values:
-                newlines_in_values = True
-            else:
-                record = scanned()
-                if "utf8" in message.lower() or "utf-8" in message.lower():
-                    check_text(path)
-                return read_csv_exact(path, record)
+            if "out of sync" in message and not newlines_in_values:
+                continue
+            record = scanned()
+            if "utf8" in message.lower() or "utf-8" in message.lower():
+                check_text(path)
+            return read_csv_exact(path, record)
     record = scanned()
     check_quotes_close(path, record)
     if table is None or invalid:
@@ -207,25 +193,15 @@ def read_csv(path: Path, sheet: str | None = None, numeric: NumericColumns | Non
         # Quoted values hold line breaks: each row starts below the breaks of the rows before it.
         breaks = np.zeros(rows, dtype=np.int64)
         for column in table.columns:
-            if pa.types.is_string(column.type):
-                found = pc.count_substring_regex(column, _LINE_BREAK)
-                breaks += np.asarray(pc.fill_null(found, 0), dtype=np.int64)
+            found = pc.count_substring_regex(column, _LINE_BREAK)
+            breaks += np.asarray(pc.fill_null(found, 0), dtype=np.int64)
         source_row += np.concatenate([[0], np.cumsum(breaks)[:-1]]) if rows else breaks
     table, source_row, blank, keep = _drop_blank(table, source_row)
     if breaks is not None and keep is not None:
         breaks = breaks[keep]
-    as_read = (newlines_in_values, keep, sorted(typed))
-
-    def text_columns() -> dict[int, pa.ChunkedArray]:
-        """The columns read as numbers, read again as text (only those columns)."""
-        again = arrow_read(as_read[0], set(), [names[i] for i in as_read[2]])
-        if as_read[1] is not None:
-            again = again.filter(pa.array(as_read[1]))
-        return {i: again.column(names[i]) for i in as_read[2]}
-
     return RawTape(
         headers=header, table=table, source_row=source_row, record=record, blank_rows=blank,
-        text_columns=text_columns if typed else None, lines=record.lines, line_breaks=breaks,
+        lines=record.lines, line_breaks=breaks,
     )
 
 
@@ -356,7 +332,7 @@ def _workbook_error(path: Path, err: BaseException) -> InputFileError:
                           hint="save it again from the spreadsheet program, or export it as CSV")
 
 
-def read_xlsx(path: Path, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
+def read_xlsx(path: Path, sheet: str | None = None, typed: bool = False) -> RawTape:
     """Read a workbook sheet (``sheet`` or the first) in read-only mode; formulas arrive as text."""
     import openpyxl  # parses through defusedxml when it is installed
 
@@ -395,23 +371,28 @@ def read_xlsx(path: Path, sheet: str | None = None, numeric: NumericColumns | No
     return RawTape(headers=header, table=table, source_row=source_row, record=record, blank_rows=blank)
 
 
-def _arrow_text(column: pa.ChunkedArray, name: str, path: Path) -> pa.ChunkedArray:
+def supported_column(column: pa.ChunkedArray, name: str, path: Path) -> pa.ChunkedArray:
+    """The column in a type the tape's parsers read: dictionaries decoded, long text as text,
+    empty text as blank, a column with no values (Arrow's null type) as blank text.
+
+    Other types than text, numbers, dates, times and booleans are a :class:`TapeError`."""
     kind = column.type
     if pa.types.is_dictionary(kind):
         column = pc.cast(column, kind.value_type)
         kind = column.type
-    if pa.types.is_null(kind):  # a column with no value at all (pandas writes an all-blank column so)
-        return pc.cast(column, pa.string())
-    if pa.types.is_floating(kind):
-        finite = pc.is_finite(column)
-        return pc.if_else(finite, pc.cast(column, pa.string()), pa.scalar(None, pa.string()))
-    if pa.types.is_timestamp(kind) or pa.types.is_date(kind):
-        return pc.cast(column, pa.string())
-    if pa.types.is_string(kind) or pa.types.is_large_string(kind):
-        text = pc.cast(column, pa.string())
-        return pc.if_else(pc.equal(text, ""), pa.scalar(None, pa.string()), text)
-    if pa.types.is_integer(kind) or pa.types.is_boolean(kind) or pa.types.is_decimal(kind):
-        return pc.cast(column, pa.string())
+    if pa.types.is_null(kind):
+        return pa.chunked_array([pa.nulls(len(column), pa.string())])
+    if pa.types.is_large_string(kind) or pa.types.is_string_view(kind):
+        column = pc.cast(column, pa.string())
+        kind = column.type
+    if pa.types.is_string(kind):
+        if column.null_count == len(column) or not pc.any(pc.equal(column, "")).as_py():
+            return column
+        return pc.if_else(pc.equal(column, ""), pa.scalar(None, pa.string()), column)
+    if (pa.types.is_floating(kind) or pa.types.is_integer(kind) or pa.types.is_boolean(kind)
+            or pa.types.is_decimal(kind) or pa.types.is_timestamp(kind) or pa.types.is_date(kind)
+            or pa.types.is_time(kind)):
+        return column
     raise TapeError(
         f"column {name!r} holds {kind} values, which a tape cannot",
         file=path,
@@ -420,8 +401,56 @@ def _arrow_text(column: pa.ChunkedArray, name: str, path: Path) -> pa.ChunkedArr
     )
 
 
-def read_parquet(path: Path, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
-    """Read a Parquet tape; each column's values become their CSV text."""
+def as_text(column: pa.ChunkedArray | pa.Array) -> pa.ChunkedArray | pa.Array:
+    """The CSV text of an Arrow column of a supported type (see :func:`arrow_tape`).
+
+    Text stays as it is; numbers, dates and booleans become the text a CSV export holds
+    (``0.065``, ``8800``, ``2026-09-30``, ``true``); a NaN is blank, as pandas writes a
+    missing number; an infinity is the text ``inf`` (not a number: rejected).
+
+    Examples
+    --------
+    >>> as_text(pa.array([0.065, 8800.0, float("nan"), float("inf"), None])).to_pylist()
+    ['0.065', '8800', None, 'inf', None]
+    >>> as_text(pa.array([dt.date(2026, 9, 30), None])).to_pylist(), as_text(pa.array([True, False])).to_pylist()
+    (['2026-09-30', None], ['true', 'false'])
+    """
+    kind = column.type
+    if pa.types.is_string(kind):
+        return column
+    if pa.types.is_dictionary(kind) or pa.types.is_large_string(kind) or pa.types.is_null(kind):
+        return pc.cast(column, pa.string())
+    if pa.types.is_floating(kind):
+        text = pc.cast(column, pa.string())
+        if column.null_count == len(column) or not pc.any(pc.is_nan(column)).as_py():
+            return text
+        return pc.if_else(pc.is_nan(column), pa.scalar(None, pa.string()), text)
+    return pc.cast(column, pa.string())
+
+
+def arrow_tape(table: pa.Table | pa.RecordBatch, path: Path, record: Scan, first_line: int = 2) -> RawTape:
+    """A typed Arrow table (a Parquet file, one of its partitions, a DataFrame) as a tape.
+
+    Its columns keep their types: the tape's parsers check a number, date or boolean column
+    in its own type and send only text columns, or columns of another type than the field's,
+    through the text parser (see :func:`allowance.intake.parse.parse_arrow`). Row ``i`` is
+    line ``first_line + i``: 2 for a whole file (as if a header were line 1), the partition's
+    first row number + 2 for a partition. Rows in which every value is blank are dropped and
+    counted, as blank lines of a CSV are.
+    """
+    if isinstance(table, pa.RecordBatch):
+        table = pa.Table.from_batches([table])
+    header = [str(n) for n in table.column_names]
+    names = _names(len(header))
+    columns = [supported_column(table.column(i), header[i], path) for i in range(len(header))]
+    typed = pa.table(columns, names=names) if columns else pa.table({})
+    source_row = np.arange(first_line, first_line + typed.num_rows, dtype=np.int64)
+    typed, source_row, blank, _ = _drop_blank(typed, source_row)
+    return RawTape(headers=header, table=typed, source_row=source_row, record=record, blank_rows=blank)
+
+
+def read_parquet(path: Path, sheet: str | None = None, typed: bool = False) -> RawTape:
+    """Read a Parquet tape: typed columns as they are (``typed``), or each value as its CSV text."""
     import pyarrow.parquet as pq
 
     record = scan(path, "tape")
@@ -429,23 +458,35 @@ def read_parquet(path: Path, sheet: str | None = None, numeric: NumericColumns |
         source = pq.read_table(path)
     except (pa.ArrowException, OSError) as err:
         raise InputFileError(f"cannot be read as Parquet ({err})", file=path) from err
-    header = list(source.column_names)
-    columns = {n: _arrow_text(source.column(i), header[i], path) for i, n in enumerate(_names(len(header)))}
-    table = pa.table(columns) if columns else pa.table({})
-    source_row = np.arange(2, table.num_rows + 2, dtype=np.int64)
-    table, source_row, blank, _ = _drop_blank(table, source_row)
-    return RawTape(headers=header, table=table, source_row=source_row, record=record, blank_rows=blank)
+    raw = arrow_tape(source, path, record)
+    if typed:
+        return raw
+    text = pa.table([as_text(c) for c in raw.table.columns], names=raw.table.column_names)
+    return RawTape(headers=raw.headers, table=text, source_row=raw.source_row, record=record,
+                   blank_rows=raw.blank_rows)
+
+
+def arrow_record(table: pa.Table, label: str) -> Scan:
+    """The run-record entry of a tape handed over in memory: the SHA-256 of its Arrow IPC
+    stream (its values and their types), under the path ``<label>``."""
+    import hashlib
+
+    sink = pa.BufferOutputStream()
+    with pa.ipc.new_stream(sink, table.schema.remove_metadata()) as writer:
+        writer.write_table(table.replace_schema_metadata(None))
+    data = sink.getvalue()
+    record = InputFile(role="tape", path=f"<{label}>", sha256=hashlib.sha256(memoryview(data)).hexdigest(),
+                       bytes=data.size)
+    return Scan(record=record, newlines=-1, ends_with_newline=False)
 
 
 def read_frame(frame, label: str = "DataFrame") -> RawTape:
-    """A tape handed over as a pandas DataFrame, read like a Parquet file: each column's values
-    become their CSV text (dates without a time of day as ``2026-09-30``), row n as line n + 1.
+    """A tape handed over as a pandas DataFrame, read like a typed Parquet file (row n is line
+    n + 1); a column of timestamps that are all at midnight is a column of dates.
 
     The run record fingerprints it with the SHA-256 of its Arrow IPC stream (the values and
     their types), under the path ``<label>``.
     """
-    import hashlib
-
     path = Path(f"<{label}>")
     try:
         source = pa.Table.from_pandas(frame, preserve_index=False)
@@ -453,35 +494,28 @@ def read_frame(frame, label: str = "DataFrame") -> RawTape:
         raise TapeError(f"cannot be read as a tape ({err})", file=path,
                         hint="give text, numbers, dates or true/false in every column") from err
     header = [str(c) for c in frame.columns]
-    columns = {}
-    for i, n in enumerate(_names(len(header))):
+    columns = []
+    for i in range(len(header)):
         column = source.column(i)
-        if pa.types.is_timestamp(column.type):
+        if pa.types.is_timestamp(column.type) and column.type.tz is None:
             days = pc.cast(pc.cast(column, pa.date32()), column.type)
             if pc.all(pc.or_kleene(pc.equal(days, column), pc.is_null(column))).as_py() is not False:
                 column = pc.cast(column, pa.date32())  # midnight throughout: a date
-        columns[n] = _arrow_text(column, header[i], path)
-    table = pa.table(columns) if columns else pa.table({})
-    sink = pa.BufferOutputStream()
-    with pa.ipc.new_stream(sink, source.schema.remove_metadata()) as writer:
-        writer.write_table(source.replace_schema_metadata(None))
-    data = sink.getvalue()
-    record = InputFile(role="tape", path=str(path), sha256=hashlib.sha256(memoryview(data)).hexdigest(), bytes=data.size)
-    source_row = np.arange(2, table.num_rows + 2, dtype=np.int64)
-    table, source_row, blank, _ = _drop_blank(table, source_row)
-    return RawTape(headers=header, table=table, source_row=source_row,
-                   record=Scan(record=record, newlines=-1, ends_with_newline=False), blank_rows=blank)
+        columns.append(column)
+    table = pa.table(columns, names=header) if columns else pa.table({})
+    return arrow_tape(table, path, arrow_record(source, label))
 
 
 #: Readers by file kind.
-READERS: dict[FileKind, Callable[[Path, str | None, NumericColumns | None], RawTape]] = {
+READERS: dict[FileKind, Callable[[Path, str | None, bool], RawTape]] = {
     "csv": read_csv,
     "xlsx": read_xlsx,
     "parquet": read_parquet,
 }
 
 
-def read_raw(path: Path, kind: FileKind, sheet: str | None = None, numeric: NumericColumns | None = None) -> RawTape:
-    """Read a tape of the given kind; ``numeric(headers)`` names columns a reader may read as numbers."""
-    return READERS[kind](Path(path), sheet, numeric)
+def read_raw(path: Path, kind: FileKind, sheet: str | None = None, typed: bool = False) -> RawTape:
+    """Read a tape of the given kind; ``typed``: keep the Arrow types of a Parquet file's columns
+    (see :func:`arrow_tape`) instead of turning every value into its CSV text."""
+    return READERS[kind](Path(path), sheet, typed)
 

@@ -28,6 +28,8 @@ class IntakeResult:
     notes     tape-level warnings (not about one row), for the run's warnings
     accepted_rows  the number of accepted rows when ``accepted`` does not hold them (a tape
               computed where its parts were read keeps them there); None: ``len(accepted)``
+    extra_columns  the file's columns that are not in the data dictionary (as written), carried
+              through to loans.csv untouched
     """
 
     accepted: pd.DataFrame
@@ -42,6 +44,7 @@ class IntakeResult:
     lines_in_values: int = 0
     notes: tuple[str, ...] = ()
     accepted_rows: int | None = None
+    extra_columns: tuple[str, ...] = ()
 
     @property
     def rows_accepted(self) -> int:
@@ -88,3 +91,26 @@ class TieOut:
     within_tolerance: bool
     accepted_by_user: bool  # the user passed the explicit acceptance flag
     explanation: str
+
+
+def extra_columns_note(columns: tuple[str, ...], shown: int = 10) -> str:
+    """One line naming the columns that are not in the data dictionary (the first ``shown``).
+
+    Examples
+    --------
+    >>> extra_columns_note(("branch",))
+    "1 column is not in the data dictionary and is carried through to loans.csv untouched: 'branch'"
+    >>> extra_columns_note(tuple(f"x{i}" for i in range(10_000)), shown=2)
+    "10,000 columns are not in the data dictionary and are carried through to loans.csv untouched: 'x0', 'x1' and 9,998 more"
+    """
+    count = len(columns)
+    names = column_list(columns, shown)
+    verb = "is" if count == 1 else "are"
+    return (f"{count:,} column{'s' if count > 1 else ''} {verb} not in the data dictionary and {verb} carried "
+            f"through to loans.csv untouched: {names}")
+
+
+def column_list(columns: tuple[str, ...], shown: int = 10) -> str:
+    """The first ``shown`` column names, quoted, and how many more."""
+    count = len(columns)
+    return ", ".join(map(repr, columns[:shown])) + (f" and {count - shown:,} more" if count > shown else "")

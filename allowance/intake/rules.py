@@ -26,7 +26,7 @@ import pyarrow.compute as pc
 from allowance.exceptions import AssumptionsError
 from allowance.intake.fields import FIELDS, FieldSpec, lower_first
 from allowance.intake.parse import NO_DAY, Parsed
-from allowance.intake.readers import cell_text
+from allowance.intake.readers import as_text
 from allowance.frameworks import rules_for
 from allowance.poci import period_start
 from allowance.schemas import MAX_MONTHS, OFF_BALANCE_FACILITIES, Assumptions
@@ -91,7 +91,6 @@ class TapeColumns:
     present: frozenset[str]
     assumptions: Assumptions
     source_row: np.ndarray
-    as_read: Callable[[str], pa.ChunkedArray | None] | None = None  # a column read as numbers, as text
     #: a part of a tape read part by part: the ids the whole tape repeats -> their rows (found beforehand)
     repeated: Mapping[str, Sequence[int]] | None = None
 
@@ -102,14 +101,9 @@ class TapeColumns:
     def text(self, column: str, rows: np.ndarray) -> list[str | None]:
         """The text of ``column`` at ``rows`` exactly as the cell holds it (``-100.50``, not -100.5).
 
-        A column the reader converted to numbers is fetched again as text; a workbook or
-        Parquet number (no text to quote) is written as a CSV export would.
+        A typed Parquet value (no text to quote) is written as a CSV export would.
         """
-        source = self.raw[column]
-        if not (pa.types.is_string(source.type) or pa.types.is_large_string(source.type)) and self.as_read:
-            source = self.as_read(column) or source
-        values = pc.take(source, pa.array(rows, pa.int64())).to_pylist()
-        return [v if v is None or isinstance(v, str) else cell_text(v) for v in values]
+        return as_text(pc.take(self.raw[column], pa.array(rows, pa.int64()))).to_pylist()
 
 
 Rule = Callable[[TapeColumns], Iterator[Findings]]

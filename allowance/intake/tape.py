@@ -22,9 +22,9 @@ import pyarrow.compute as pc
 from allowance.exceptions import TapeError
 from allowance.intake.fields import FIELDS, INT_COLUMNS
 from allowance.intake.files import check_size, file_kind
-from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_dates
-from allowance.intake.readers import Malformed, RawTape, read_frame, read_raw
-from allowance.intake.results import IntakeResult
+from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_arrow, parse_dates
+from allowance.intake.readers import Malformed, RawTape, as_text, read_frame, read_raw
+from allowance.intake.results import IntakeResult, extra_columns_note
 from allowance.frameworks import rules_for
 from allowance.intake.rules import Findings, TapeColumns, apply_rules, commitment_requirements, segment_requirements
 from allowance.schemas import REQUIRED_COLUMNS, RunConfig, is_result_column
@@ -133,32 +133,34 @@ def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -
 
 
 def _parse(raw: RawTape, colmap: ColumnMap, config: RunConfig, file: str) -> TapeColumns:
+    """Parse every field: a typed column (Parquet) in its own type where it is the field's
+    (:func:`parse_arrow`), every other column from its text; dates file-wide."""
     rows = raw.table.num_rows
-    text = {
+    held = {
         name: raw.table.column(colmap.ours[name]) if name in colmap.ours else pa.chunked_array([pa.nulls(rows, pa.string())])
         for name in FIELDS
     }
-    parsed: dict[str, Parsed] = parse_dates(
+    parsed: dict[str, Parsed] = {}
+    text: dict[str, pa.ChunkedArray] = {}
+    for name, column in held.items():
+        typed = None if pa.types.is_string(column.type) else parse_arrow(column, FIELDS[name])
+        if typed is None:
+            text[name] = as_text(column)
+        else:
+            parsed[name] = typed
+    parsed.update(parse_dates(
         {n: c for n, c in text.items() if FIELDS[n].kind == "date"},
         config.assumptions.tape.date_format,
         file,
         raw.source_row,
-    )
+    ))
     for name, spec in FIELDS.items():
-        if spec.kind != "date":
+        if name not in parsed:
             parsed[name] = PARSERS[spec.kind](text[name], spec)
-    fetched: dict[int, pa.ChunkedArray] = {}
-
-    def as_read(name: str) -> pa.ChunkedArray | None:
-        if raw.text_columns is None or name not in colmap.ours:
-            return None
-        if not fetched:
-            fetched.update(raw.text_columns())  # one read of every column read as numbers
-        return fetched.get(colmap.ours[name])
-
+    parsed = {name: parsed[name] for name in FIELDS}  # the fields' order
     return TapeColumns(
-        parsed=parsed, raw=text, present=frozenset(colmap.ours), assumptions=config.assumptions,
-        source_row=raw.source_row, as_read=as_read,
+        parsed=parsed, raw={**held, **text}, present=frozenset(colmap.ours), assumptions=config.assumptions,
+        source_row=raw.source_row,
     )
 
 
@@ -190,7 +192,7 @@ def _accepted(cols: TapeColumns, raw: RawTape, colmap: ColumnMap, keep: np.ndarr
             out[name] = pa.array(take(values))
     out["source_row"] = pa.array(take(raw.source_row))
     for name, position in colmap.extras.items():
-        out[name] = text(raw.table.column(position))
+        out[name] = text(as_text(raw.table.column(position)))
     return pa.table(out).to_pandas(split_blocks=True, date_as_object=False)
 
 
@@ -239,14 +241,18 @@ def _rejected(raw: RawTape, reject: np.ndarray, findings: pd.DataFrame) -> pd.Da
     """Rejected rows exactly as read, led by their line, reason codes and reasons."""
     headers = rejected_headers(raw)
     rows = np.flatnonzero(reject)
-    body = raw.text_rows(rows) if rows.size else raw.table.slice(0, 0)
+    if not rows.size and not raw.malformed:
+        # no rejected row: one empty block, not one empty column per header (seconds on a wide tape)
+        lead = pd.DataFrame({"source_row": pd.Series(dtype=np.int64), "reason_codes": pd.Series(dtype="str"),
+                             "reasons": pd.Series(dtype="str")})
+        body = pd.DataFrame(np.empty((0, len(headers)), dtype=object), columns=headers, dtype=object)
+        return pd.concat([lead, body], axis=1)
+    body = raw.text_rows(rows)
     codes, reasons = _reasons(findings, rows)
     # one Arrow table, converted once: a column at a time costs seconds on a 10,000-column tape
     columns = {"source_row": pa.array(raw.source_row[rows], pa.int64()),
                "reason_codes": pa.array(codes, pa.string()), "reasons": pa.array(reasons, pa.string())}
-    text = [c if pa.types.is_string(c.type) else pc.cast(c, pa.string()) for c in body.columns]
-    table = pa.table([*columns.values(), *text],
-                     names=[*columns, *headers])
+    table = pa.table([*columns.values(), *body.columns], names=[*columns, *headers])
     frame = table.to_pandas()
     if raw.malformed:
         width = len(headers)
@@ -261,8 +267,7 @@ def _rejected(raw: RawTape, reject: np.ndarray, findings: pd.DataFrame) -> pd.Da
         extra = pd.DataFrame(lines)
         frame = pd.concat([frame, extra], ignore_index=True)
         frame = frame.sort_values("source_row", kind="stable", ignore_index=True)
-        for column in frame.columns[1:]:
-            frame[column] = frame[column].astype("str")
+        frame = frame.astype(dict.fromkeys(frame.columns[1:], "str"))
     frame["source_row"] = frame["source_row"].astype(np.int64)
     return frame.reset_index(drop=True)
 
@@ -323,19 +328,18 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
     lines in which every field is empty are skipped and counted in ``blank_rows``.
     """
     assumptions = config.assumptions
-    mapping = assumptions.tape.columns
     if isinstance(path, pd.DataFrame):
         raw = read_frame(path)
         path = Path(raw.record.record.path)
     else:
         path = Path(path)
         check_size(path, max_mb if max_mb is not None else assumptions.run.max_input_mb)
+        raw = read_raw(path, file_kind(path), assumptions.tape.sheet, typed=True)
+    return _intake(raw, config, path)
 
-        def numeric(headers: list[str]) -> set[int]:
-            ours = map_columns(headers, mapping, path).ours
-            return {i for name, i in ours.items() if FIELDS[name].kind in ("number", "whole")}
 
-        raw = read_raw(path, file_kind(path), assumptions.tape.sheet, numeric)
+def _intake(raw: RawTape, config: RunConfig, path: Path) -> IntakeResult:
+    """A whole tape as read through the rules, then the as-of check on all of it."""
     if raw.table.num_rows + len(raw.malformed) == 0:
         raise TapeError("has a header but no data rows", file=path, hint="export the tape again with its loans")
     checked = validate(raw, path, config)
@@ -390,6 +394,9 @@ def validate(raw: RawTape, path: Path, config: RunConfig, *,
         f"{carried!r} and the computed {header!r} is not replaced"
         for header, carried in colmap.renamed.items()
     ]
+    extra_columns = tuple(as_written[i] for i in sorted(colmap.extras.values()))
+    if extra_columns:
+        notes.append(extra_columns_note(extra_columns))
     if raw.lines_in_values:
         notes.append(
             f"{path}: {raw.lines:,} lines = 1 header + {rows_read:,} records + {raw.blank_rows:,} blank + "
@@ -409,7 +416,9 @@ def validate(raw: RawTape, path: Path, config: RunConfig, *,
         lines=raw.lines,
         lines_in_values=raw.lines_in_values,
         notes=tuple(notes),
+        extra_columns=extra_columns,
     ), dates=dates)
+
 
 
 def _line_break_findings(raw: RawTape, colmap: ColumnMap) -> list[Findings]:

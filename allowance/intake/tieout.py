@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from allowance.intake.results import IntakeResult, TieOut
+from allowance.intake.results import IntakeResult, TieOut, column_list
 from allowance.intake.rules import CODES
 
 
@@ -149,6 +149,9 @@ def check_table(result: IntakeResult) -> pd.DataFrame:
             lines.append(("lines", "in_values", "", result.lines_in_values,
                           "line breaks inside quoted values (see the rows with code line_break_in_value "
                           "or records_in_value)"))
+    if result.extra_columns:
+        lines.append(("columns", "not_in_dictionary", "", len(result.extra_columns),
+                      f"columns not in the data dictionary, carried through untouched: {column_list(result.extra_columns)}"))
     findings = result.findings
     if len(findings):
         for section, severity in (("rejected", "reject"), ("warning", "warning")):
