@@ -48,9 +48,15 @@ class SegmentTable:
     months_to_recovery: np.ndarray
 
     def codes(self, segment: pd.Series | np.ndarray) -> np.ndarray:
-        """The code of each loan's segment: its position in ``names``; -1 (the last entry) if unknown."""
-        return np.asarray(pd.Categorical(np.asarray(segment, dtype=object), categories=list(self.names)).codes,
-                          dtype=np.int64)
+        """The code of each loan's segment: its position in ``names``; -1 (the last entry) if unknown.
+
+        The column is factorised (Arrow's hash, no Python per loan) and only its few distinct
+        values are looked up.
+        """
+        codes, uniques = pd.factorize(segment if isinstance(segment, pd.Series) else np.asarray(segment, dtype=object))
+        position = {name: k for k, name in enumerate(self.names)}
+        where = np.array([position.get(u, -1) for u in uniques.tolist()] + [-1], dtype=np.int64)
+        return where[codes]
 
 
 def segment_table(segments: dict[str, SegmentAssumptions]) -> SegmentTable:
