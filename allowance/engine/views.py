@@ -132,13 +132,13 @@ def representative_loans(loans: pd.DataFrame, per_segment: int) -> pd.DataFrame:
     """
     if per_segment <= 0 or loans.empty:
         return pd.DataFrame(columns=["position", "chosen"])
-    segment = loans["segment"].to_numpy(dtype=object)
+    segment, names = pd.factorize(loans["segment"])  # codes: no Python object per loan
     performing = loans["stage"].to_numpy() == 1 if "stage" in loans else np.ones(len(loans), bool)
     term = loans["remaining_months"].to_numpy(dtype=float) if "remaining_months" in loans else np.zeros(len(loans))
     balance = loans["balance"].to_numpy(dtype=float)
     rows = []
-    for name in pd.unique(segment):
-        members = np.flatnonzero(segment == name)
+    for code, name in enumerate(names.tolist()):
+        members = np.flatnonzero(segment == code)
         pool = members[performing[members]] if performing[members].any() else members
         b = (pd.Series(balance[pool]).rank().to_numpy() - 0.5) / len(pool)
         t = (pd.Series(term[pool]).rank().to_numpy() - 0.5) / len(pool)
