@@ -502,7 +502,7 @@ def schedule(tape: Tape, assumptions: Source, loan: str, *, framework: Framework
         The loan is not among the accepted rows, or the framework or scenario is not run.
     """
     config = _config(assumptions)
-    taken = intake.read_tape(_tape(tape), config)
+    taken = _read_tape(_tape(tape), config)
     row = taken.accepted[taken.accepted["loan_id"] == loan]
     if row.empty:
         raise InputFileError(f"loan {loan!r} is not among the accepted rows", file=taken.file.path,
@@ -547,7 +547,7 @@ def roll_forecast(tape: Tape, assumptions: Source, *, segment: str | None = None
     if segment is not None and segment not in config.assumptions.segments:
         raise AssumptionsError(f"no segment {segment!r}", column="segments",
                                hint=f"use one of {', '.join(config.assumptions.segments)}")
-    taken = intake.read_tape(_tape(tape), config)
+    taken = _read_tape(_tape(tape), config)
     loans = engine.run(taken.accepted, config).loans
     by_month, check = curves.segment_roll_forecasts(taken.accepted, config.assumptions.segments, loans, months)
     if segment is not None and not by_month.empty:
