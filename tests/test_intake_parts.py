@@ -1,0 +1,43 @@
+"""A Parquet tape read part by part is the tape read whole: the same accepted frame, rejected
+rows, findings and counts, however it is cut into row groups and files (an invariant of the
+reader, common practice, no source)."""
+
+from __future__ import annotations
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from allowance import intake
+from tests.books import DEMO_ASSUMPTIONS, DEMO_TAPE
+
+ROWS = 120
+FRAME = pd.read_csv(DEMO_TAPE, dtype=str, keep_default_na=False, nrows=ROWS)
+CONFIG = intake.load_assumptions(DEMO_ASSUMPTIONS)
+
+
+@settings(max_examples=8, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(row_group=st.integers(5, ROWS), cut=st.integers(1, ROWS - 1), spoiled=st.sets(st.integers(0, ROWS - 1),
+                                                                                      max_size=4),
+       repeat=st.tuples(st.integers(0, ROWS - 1), st.integers(0, ROWS - 1)))
+def test_parts_read_as_the_whole_tape(tmp_path_factory, row_group, cut, spoiled, repeat):
+    folder = tmp_path_factory.mktemp("tape")
+    frame = FRAME.copy()
+    for row in spoiled:
+        frame.loc[row, "days_past_due"] = "-3"
+    frame.loc[repeat[1], "loan_id"] = frame.loc[repeat[0], "loan_id"]
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    pq.write_table(table, folder / "whole.parquet", row_group_size=row_group)
+    (folder / "cut").mkdir()
+    pq.write_table(table.slice(0, cut), folder / "cut" / "a.parquet", row_group_size=row_group)
+    pq.write_table(table.slice(cut), folder / "cut" / "b.parquet", row_group_size=row_group)
+    whole = intake.read_tape(folder / "whole.parquet", CONFIG)
+    for source in (folder / "whole.parquet", folder / "cut"):
+        parts = intake.read_parts(source, CONFIG)
+        assert parts.rows_read == parts.rows_accepted + parts.rows_rejected == ROWS
+        pd.testing.assert_frame_equal(parts.accepted, whole.accepted)
+        named = [c for c in ("source_file",) if c in parts.rejected.columns]
+        pd.testing.assert_frame_equal(parts.rejected.drop(columns=named), whole.rejected)
+        pd.testing.assert_frame_equal(parts.findings.drop(columns=named), whole.findings)
