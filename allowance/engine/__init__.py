@@ -99,8 +99,9 @@ class EngineResult:
 def _round_money(loans: pd.DataFrame) -> pd.DataFrame:
     money = [c for c in loans.columns if c.startswith(("ecl_", "ead", "gross_loss_", "purchase_ecl_")) or c == "balance"
              or c == "pcd_gross_up"]
-    rounded = loans.copy()
-    rounded[money] = rounded[money].round(CENT_DECIMALS)
+    rounded = loans.copy(deep=False)  # copy-on-write: the columns replaced below are new arrays
+    for column in money:  # column by column: no consolidated copy of every float column
+        rounded[column] = np.round(loans[column].to_numpy(dtype=np.float64), CENT_DECIMALS)
     return rounded
 
 
