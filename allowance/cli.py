@@ -770,8 +770,10 @@ def check(
                  else "write them all to a file with --out DIR")
         _say(f"{len(rejected):,} row(s) rejected; {where}")
         shown = rejected if _out.mode == "verbose" else rejected.head(SHOWN_ROWS)
+        named = "source_file" in shown.columns  # a folder of Parquet files: the row's file, its row in the tape
         for row in shown.itertuples(index=False):
-            _say(f"  {tape}: line {row.source_row}: {row.reasons}")
+            where = f"{tape / row.source_file}: row {row.source_row}" if named else f"{tape}: line {row.source_row}"
+            _say(f"  {where}: {row.reasons}")
         if len(rejected) > len(shown):
             _say(f"  ... and {len(rejected) - len(shown):,} more")
     for path in files:

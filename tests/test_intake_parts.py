@@ -4,9 +4,13 @@ reader, common practice, no source)."""
 
 from __future__ import annotations
 
+import subprocess
+import sys
+
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -41,3 +45,22 @@ def test_parts_read_as_the_whole_tape(tmp_path_factory, row_group, cut, spoiled,
         named = [c for c in ("source_file",) if c in parts.rejected.columns]
         pd.testing.assert_frame_equal(parts.rejected.drop(columns=named), whole.rejected)
         pd.testing.assert_frame_equal(parts.findings.drop(columns=named), whole.findings)
+
+
+@pytest.mark.slow
+def test_check_names_a_bad_row_of_a_folder_by_its_file_and_its_row_in_the_tape(tmp_path):
+    """``allowance check FOLDER``: exit 1, each rejected row named by its file and its row in the
+    whole tape, and rejected.csv with ``source_file``."""
+    frame = FRAME.copy()
+    frame.loc[100, "balance"] = "n/a"
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    (tmp_path / "tape").mkdir()
+    pq.write_table(table.slice(0, 60), tmp_path / "tape" / "a.parquet")
+    pq.write_table(table.slice(60), tmp_path / "tape" / "b.parquet")
+    done = subprocess.run([sys.executable, "-m", "allowance", "check", str(tmp_path / "tape"), "-a",
+                           str(DEMO_ASSUMPTIONS), "--out", str(tmp_path / "out")],
+                          capture_output=True, text=True, timeout=600)
+    assert done.returncode == 1, done.stderr
+    assert f"{tmp_path / 'tape' / 'b.parquet'}: row 102: balance 'n/a' is not a number" in done.stdout
+    rejected = pd.read_csv(tmp_path / "out" / "rejected.csv")
+    assert rejected[["source_row", "source_file"]].values.tolist() == [[102, "b.parquet"]]
