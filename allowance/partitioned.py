@@ -199,9 +199,12 @@ def finish_part(computed: PartSums, *, config: RunConfig) -> PartSums:
     overlays applied (``computed.weights`` now holds its share of each allocation), the
     loan detail rewritten in place, its sums."""
     waiting = Path(computed.waiting)
-    loans, applied = engine.overlay_part(pd.read_parquet(waiting), config, computed.weights)
+    # run again (a worker lost after it finished): the finished file holds the same modelled
+    # figures, and the overlays are applied from those alone
+    source = waiting if waiting.exists() else Path(computed.file)
+    loans, applied = engine.overlay_part(pd.read_parquet(source), config, computed.weights)
     _write(loans, Path(computed.file))
-    waiting.unlink()
+    waiting.unlink(missing_ok=True)
     return dataclasses.replace(computed, sums=loan_sums(loans), overlays=applied.table,
                                overlay_warnings=tuple(applied.warnings), waiting=None, weights={})
 
