@@ -448,8 +448,8 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
         config=config, intake=taken, tie_out=ties[0], loans=book.loans, overlays=book.overlays,
         scenarios=engine.scenario_summary(book.loans, config), term_structures=engine.views.term_structure_table(prep),
         roll_rates=engine.roll_rate_table(config), reversion=engine.reversion_view(prep),
-        macro_paths=macro.macro_path_table(config.assumptions, prep.months), record=record, warnings=warnings,
-        loan_detail=str(folder),
+        macro_paths=macro.macro_path_table(config.assumptions, prep.months), pd_paths=book.pd_paths, record=record,
+        warnings=warnings, loan_detail=str(folder),
     )
     return Result(report=run_report, seconds=time.perf_counter() - started[0])
 

@@ -10,8 +10,8 @@ whichever worker the ``map`` sends it to; what comes back is small and additive:
 2. each part's intake (rejected rows, findings, counts), the balance it accepted, its
    longest horizon and oldest loan (the book-level tables cover every loan of the book:
    :func:`allowance.engine.prepare` runs once, here, on those maxima);
-3. each part's sums in whole cents by segment, stage and POCI flag, its overlays' effects
-   and its findings.
+3. each part's sums in whole cents by segment, stage and POCI flag, its overlays' effects,
+   its findings and its balance on each PD curve key (the PD paths' weights).
 
 Each loan's figures are those of a run of the whole book in one process, to the cent: the
 chunks are pure functions of their loans and the book's tables, and money is rounded per
@@ -57,6 +57,7 @@ import pandas as pd
 from allowance import engine, intake, overlays, staging
 from allowance.exceptions import OutputError
 from allowance.intake.parts import TapeLayout, TapePart, combine, read_part, repeated_ids, tape_layout
+from allowance.engine.views import pd_path_from, pd_path_weights
 from allowance.intake.tape import Validated
 from allowance.schemas import RunConfig
 
@@ -144,6 +145,7 @@ class PartSums:
     findings: pd.DataFrame
     coverage: pd.DataFrame
     file: str
+    pd_path_weights: np.ndarray | None = None  # balance on each curve key (engine.views.pd_path_weights)
     waiting: str | None = None  # written before the book's amount overlays were allocated
     weights: dict[tuple[int, str], np.ndarray] = dataclasses.field(default_factory=dict)
 
@@ -183,15 +185,17 @@ def compute_part(part: TapePart, *, prep: engine.Prepared, repeated: dict[str, l
     done = engine.run_part(accepted, prep, chunk_size=chunk_size)
     target = Path(folder) / f"part-{part.first_row:012d}.parquet"
     coverage = staging.pd_ratio_coverage(accepted) if prep.staged is not None else pd.DataFrame()
+    weights = pd_path_weights(accepted, prep) if len(accepted) else np.zeros(prep.pd.shape[1])
     if done.overlays is None:
         waiting = target.with_name(f".{target.stem}.modelled.parquet")
         _write(done.loans, waiting)
         return PartSums(sums=pd.DataFrame(), overlays=pd.DataFrame(), overlay_warnings=(), findings=done.findings,
-                        coverage=coverage, file=str(target), waiting=str(waiting), weights=done.weights)
+                        coverage=coverage, file=str(target), pd_path_weights=weights, waiting=str(waiting),
+                        weights=done.weights)
     _write(done.loans, target)
     return PartSums(sums=loan_sums(done.loans), overlays=done.overlays.table,
                     overlay_warnings=tuple(done.overlays.warnings), findings=done.findings, coverage=coverage,
-                    file=str(target))
+                    file=str(target), pd_path_weights=weights)
 
 
 def finish_part(computed: PartSums, *, config: RunConfig) -> PartSums:
@@ -263,6 +267,7 @@ class BookRun:
     findings: pd.DataFrame
     warnings: list[str]
     files: tuple[str, ...]
+    pd_paths: pd.DataFrame = dataclasses.field(default_factory=pd.DataFrame)
 
 
 def _fresh_folder(folder: Path) -> None:
@@ -322,9 +327,10 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
             cover = pd.concat(covers, ignore_index=True).groupby("segment", sort=True).sum().reset_index()
             warnings = staging.pd_ratio_lines(cover) + warnings
     findings = [p.findings for p in parts if len(p.findings)]
+    pd_paths = pd_path_from(np.sum([p.pd_path_weights for p in parts], axis=0), prep)
     return BookRun(layout=layout, intake=taken, accepted_balance=balance, prep=prep,
                    loans=_book_frame([p.sums for p in parts]), overlays=overlays,
                    findings=pd.concat(findings, ignore_index=True) if findings else pd.DataFrame(),
-                   warnings=warnings, files=tuple(p.file for p in parts))
+                   warnings=warnings, files=tuple(p.file for p in parts), pd_paths=pd_paths)
 
 

@@ -99,9 +99,17 @@ def pd_path_view(tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     do to the PDs, for the workbook's charts."""
     if tape.empty:
         return pd.DataFrame()
+    return pd_path_from(pd_path_weights(tape, prep), prep)
+
+
+def pd_path_weights(tape: pd.DataFrame, prep: Prepared) -> np.ndarray:
+    """The balance on each curve key of the book's PD table (additive over parts of a book)."""
     keys = _curve_keys(tape, prep, prep.segments.codes(tape["segment"]))
-    n_keys = prep.pd.shape[1]
-    weights = np.bincount(keys, weights=tape["balance"].to_numpy(float), minlength=n_keys)
+    return np.bincount(keys, weights=tape["balance"].to_numpy(float), minlength=prep.pd.shape[1])
+
+
+def pd_path_from(weights: np.ndarray, prep: Prepared) -> pd.DataFrame:
+    """:func:`pd_path_view` from the balance on each curve key (:func:`pd_path_weights`)."""
     key_segments = [name for name, ts in prep.structures.items() for _ in ts.keys]
     own = len(key_segments)  # the segments' own keys; the probation rows after them are left out
     frames = [macro.pd_path_table(prep.tables[fw].pd[:own], prep.scenario_names, key_segments, weights[:own], fw)

@@ -121,6 +121,9 @@ def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
     if report.macro_paths is not None and not report.macro_paths.empty:
         _csv(report.macro_paths, folder / "macro_paths.csv")
         did("macro_paths.csv")
+        if report.pd_paths is not None and not report.pd_paths.empty:
+            _csv(report.pd_paths, folder / "pd_paths.csv")
+            did("pd_paths.csv")
     (folder / "run.json").write_text(json.dumps(report.record, indent=2, allow_nan=False) + "\n", encoding="utf-8")
     did("run.json")
     if progress is not None:
