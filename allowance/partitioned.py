@@ -270,13 +270,14 @@ class BookRun:
     pd_paths: pd.DataFrame = dataclasses.field(default_factory=pd.DataFrame)
 
 
-def _fresh_folder(folder: Path) -> None:
-    """The loan detail's folder: created, or empty (a dataset never mixes two runs)."""
+def _fresh_folder(folder: Path, create: bool = True) -> None:
+    """The loan detail's folder: absent or empty (a dataset never mixes two runs); created."""
     try:
         if folder.exists() and (not folder.is_dir() or any(folder.iterdir())):
             raise OutputError("exists and is not an empty folder: the loan detail of two runs would mix", file=folder,
                               hint="give a new folder, or empty this one")
-        folder.mkdir(parents=True, exist_ok=True)
+        if create:
+            folder.mkdir(parents=True, exist_ok=True)
     except OSError as err:
         raise OutputError(f"cannot create the folder: {err.strerror or err}", file=folder) from err
 
@@ -293,6 +294,7 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
     """
     told = progress or (lambda phase, done, total: None)
     folder = Path(folder)
+    _fresh_folder(folder, create=False)  # before the tape is read: refused early
     told("read", 0, 1)
     layout = tape_layout(path, config.assumptions.run.max_input_mb)
     repeated = repeated_ids(layout, config, map)
