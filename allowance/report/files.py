@@ -53,32 +53,75 @@ OUTPUT_FILES: tuple[str, ...] = (
 CHECK_FILES: tuple[str, ...] = ("rejected.csv", "warnings.csv")
 
 
-def _arrow_ready(frame: pd.DataFrame) -> pd.DataFrame:
-    """Dates without a time of day as dates (``2026-09-30``, not a timestamp)."""
-    out = frame
-    dated = [i for i, dtype in enumerate(frame.dtypes)  # by dtype: a column each costs seconds on wide tapes
-             if pd.api.types.is_datetime64_any_dtype(dtype) and not getattr(dtype, "tz", None)]
+def _date_columns(frame: pd.DataFrame) -> list[int]:
+    """Positions of the datetime columns with no time of day anywhere (written as dates)."""
+    dated = []
+    for i, dtype in enumerate(frame.dtypes):  # by dtype: a column each costs seconds on wide tapes
+        if pd.api.types.is_datetime64_any_dtype(dtype) and not getattr(dtype, "tz", None):
+            stamps = frame.iloc[:, i].to_numpy(dtype="datetime64[ns]")
+            if (np.isnat(stamps) | (stamps == stamps.astype("datetime64[D]"))).all():
+                dated.append(i)
+    return dated
+
+
+def _arrow_ready(frame: pd.DataFrame, dated: list[int]) -> pd.DataFrame:
+    """Those columns as dates (``2026-09-30``, not a timestamp)."""
+    if not dated:
+        return frame
+    out = frame.copy(deep=False)
     for position in dated:
-        stamps = frame.iloc[:, position].to_numpy(dtype="datetime64[ns]")
-        days = stamps.astype("datetime64[D]")
-        if (np.isnat(stamps) | (stamps == days)).all():
-            out = out.copy() if out is frame else out
-            out.isetitem(position, pd.Series(days, index=frame.index).dt.date)
+        days = frame.iloc[:, position].to_numpy(dtype="datetime64[ns]").astype("datetime64[D]")
+        out.isetitem(position, pd.Series(days, index=frame.index).dt.date)
     return out
 
 
+#: Rows converted to Arrow and written at a time: a million loans' detail is never held
+#: twice (as a frame and as a whole Arrow table, some 500 MB more at the peak)
+_CSV_SLICE_ROWS = 131_072
+_ARROW_ERRORS = (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError)
+
+
+def _arrow_schema(frame: pd.DataFrame, dated: list[int]) -> pa.Schema | None:
+    """The Arrow types of the whole frame (a text column typed from all its values, not the
+    first slice's), or None when Arrow cannot write it (duplicate names, mixed, nested or
+    all-blank columns)."""
+    if frame.columns.duplicated().any():  # Arrow needs unique names
+        return None
+    try:
+        schema = pa.Schema.from_pandas(_arrow_ready(frame.iloc[:1], dated), preserve_index=False)
+        for i, dtype in enumerate(frame.dtypes):
+            if pd.api.types.is_object_dtype(dtype) and i not in dated:
+                schema = schema.set(i, schema.field(i).with_type(pa.array(frame.iloc[:, i], from_pandas=True).type))
+    except _ARROW_ERRORS:
+        return None
+    if any(pa.types.is_null(t) or pa.types.is_nested(t) for t in schema.types):
+        return None
+    return schema
+
+
 def _csv(frame: pd.DataFrame, path: Path) -> None:
-    """Text neutralised; written by Arrow (fast), or by pandas for columns Arrow cannot type."""
-    table = None
-    if not frame.columns.duplicated().any():  # Arrow needs unique names
+    """Text neutralised; written by Arrow (fast) slice by slice, or by pandas for columns Arrow
+    cannot type. The bytes do not depend on the slicing (Arrow's writer has no state but the
+    header)."""
+    dated = _date_columns(frame)
+    schema = _arrow_schema(frame, dated)
+
+    def part(start: int) -> pa.Table:
+        table = pa.Table.from_pandas(_arrow_ready(frame.iloc[start:start + _CSV_SLICE_ROWS], dated), schema=schema,
+                                     preserve_index=False)
+        return neutralise_table(table.replace_schema_metadata(None))
+
+    if schema is not None:
         try:
-            table = pa.Table.from_pandas(_arrow_ready(frame), preserve_index=False)
-        except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError):
-            table = None
-    if table is None or any(pa.types.is_null(t) or pa.types.is_nested(t) for t in table.schema.types):
-        neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
-        return
-    pa_csv.write_csv(neutralise_table(table), path, write_options=pa_csv.WriteOptions(quoting_style="needed"))
+            first = part(0)
+            with pa_csv.CSVWriter(path, first.schema, write_options=pa_csv.WriteOptions(quoting_style="needed")) as out:
+                out.write_table(first)
+                for start in range(_CSV_SLICE_ROWS, len(frame), _CSV_SLICE_ROWS):
+                    out.write_table(part(start))
+            return
+        except _ARROW_ERRORS:  # a slice Arrow cannot type after all: pandas writes the whole file
+            pass
+    neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
 
 
 def write_table_csv(path: Path, frame: pd.DataFrame) -> Path:
