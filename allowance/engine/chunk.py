@@ -48,7 +48,7 @@ class LoanTerms:
     """
 
     segment: np.ndarray  # segment code: the row of the book's SegmentTable
-    repayment: np.ndarray
+    repayment: np.ndarray | pd.api.extensions.ExtensionArray  # text per loan
     code: np.ndarray
     balance: np.ndarray
     rate: np.ndarray  # monthly contract rate
@@ -186,7 +186,7 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     table = prep.segments
     as_of = pd.Timestamp(prep.config.as_of)
     segment = table.codes(chunk["segment"])  # the one segment lookup of the chunk
-    repayment = chunk["repayment"].to_numpy()
+    repayment = chunk["repayment"].array  # Arrow text: no Python object per loan
     kinds, names = pd.factorize(chunk["repayment"])
     code = np.array([cashflows.REPAYMENT_CODES[k] for k in names] + [0], dtype=np.int64)[kinds]
     rate = monthly_rate(chunk["interest_rate"].to_numpy(float))
