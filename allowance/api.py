@@ -32,15 +32,17 @@ from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from allowance import cashflows, disclosure, engine, intake, macro, reconcile, report
+from allowance import intake  # the rest is imported where used: a check needs only intake
 from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
-from allowance.report import clock
 from allowance.result import CheckResult, Result
 from allowance.schemas import Assumptions, Framework, RunConfig
+
+if TYPE_CHECKING:
+    from allowance import engine, reconcile
 
 __all__ = ["Demo", "Schedule", "check", "compare", "copy_demo_inputs", "copy_templates", "demo", "roll_rates", "run",
            "schedule"]
@@ -209,6 +211,7 @@ def _record_as_of(record: Mapping[str, Any] | None) -> date | None:
 
 def _method_changes(prior_record: Mapping[str, Any] | None, current: Mapping[str, Any] | None):
     """The models or methods that changed between two runs' assumptions (None: not known)."""
+    from allowance import reconcile
     before = (prior_record or {}).get("assumptions")
     if not before or current is None:
         return None
@@ -300,6 +303,8 @@ def run(
         A file cannot be read, the assumptions are invalid, or the tape does not tie to the
         ledger (:class:`TieOutError`) and the difference was not accepted.
     """
+    from allowance import disclosure, engine, macro, reconcile, report
+    from allowance.report import clock
     started = time.perf_counter()
     started_at = clock.now()
     arguments = {
@@ -418,7 +423,7 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
               chunk_size: int | None, progress: Progress | None, ledger_balance: float | None, accept: bool,
               sensitivities: bool, arguments: dict, started: tuple[float, Any]) -> Result:
     """:func:`run` for a Parquet tape computed part by part, its loan detail written to ``folder``."""
-    from allowance import partitioned
+    from allowance import engine, macro, partitioned, report
 
     if isinstance(source, pd.DataFrame) or not intake.is_partitioned(source):
         raise InputFileError("the Parquet loan detail is written part by part from a Parquet tape",
@@ -501,6 +506,7 @@ def schedule(tape: Tape, assumptions: Source, loan: str, *, framework: Framework
     AllowanceError
         The loan is not among the accepted rows, or the framework or scenario is not run.
     """
+    from allowance import cashflows, engine
     config = _config(assumptions)
     taken = _read_tape(_tape(tape), config)
     row = taken.accepted[taken.accepted["loan_id"] == loan]
@@ -523,6 +529,7 @@ def schedule(tape: Tape, assumptions: Source, loan: str, *, framework: Framework
 def roll_rates(assumptions: Source, *, segment: str | None = None) -> pd.DataFrame:
     """What each roll-rate matrix implies from every delinquency bucket: 12-month and lifetime
     PD (absorption into charge-off) and expected months to charge-off (empty without matrices)."""
+    from allowance import engine
     config = _config(assumptions)
     if segment is not None and segment not in config.assumptions.segments:
         raise AssumptionsError(f"no segment {segment!r}", column="segments",
@@ -541,7 +548,7 @@ def roll_forecast(tape: Tape, assumptions: Source, *, segment: str | None = None
     roll-rate segment, and the forecast's losses (charge-offs × LGD, 12 months and lifetime)
     beside the segment's loan-level allowance (:func:`allowance.curves.segment_roll_forecasts`).
     """
-    from allowance import curves
+    from allowance import curves, engine
 
     config = _config(assumptions)
     if segment is not None and segment not in config.assumptions.segments:
@@ -558,6 +565,7 @@ def roll_forecast(tape: Tape, assumptions: Source, *, segment: str | None = None
 def compare(prior: str | os.PathLike | Result, current: str | os.PathLike | Result, *,
             charge_offs: str | os.PathLike | pd.DataFrame | None = None) -> dict[str, reconcile.Movement]:
     """The allowance movement between two finished runs (output folders or results), per framework."""
+    from allowance import reconcile
     before, _ = _prior(prior)
     after, _ = _prior(current, "current")
     cos, _, _ = _charge_offs(charge_offs)

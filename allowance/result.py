@@ -22,10 +22,10 @@ from allowance.exceptions import AllowanceError
 from allowance.frameworks import rules_for
 from allowance.intake import IntakeResult, TieOut, check_table
 from allowance.money import money_total
-from allowance.report import RunReport, write_outputs, write_workbook
-from allowance.report.files import OutputPaths, write_check_outputs
 
-if TYPE_CHECKING:
+if TYPE_CHECKING:  # the writers are imported where they write: a check that writes nothing needs none
+    from allowance.report import RunReport
+    from allowance.report.files import OutputPaths
     from allowance.reconcile import Movement, WhatIf
     from allowance.schemas import RunConfig
 
@@ -237,11 +237,15 @@ class Result:
         them to the user (the command line prints each as a warning). ``progress`` is told
         ``("write", done, total)`` as the files are written.
         """
+        from allowance.report import write_outputs
+
         return write_outputs(Path(out_dir), self.report, parquet=parquet, progress=progress)
 
     def workbook(self, path: str | Path) -> Path:
         """Write the reserve workbook alone to ``path`` (its folder must exist); return the path."""
         path = Path(path)
+        from allowance.report import write_workbook
+
         write_workbook(path, self.report)
         return path
 
@@ -308,6 +312,8 @@ class CheckResult:
         """Write ``rejected.csv`` (every rejected row as read, with its line number and reasons)
         and ``warnings.csv`` (findings on accepted rows, then the tape's notes) into
         ``out_dir``, as a run writes them; other files there are kept."""
+        from allowance.report.files import write_check_outputs
+
         return write_check_outputs(Path(out_dir), self.intake)
 
     def __repr__(self) -> str:
