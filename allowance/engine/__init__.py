@@ -179,7 +179,12 @@ def run(
         done += len(chunk)
         if progress is not None:
             progress("loans", done, len(tape))
-    loans = _round_money(pd.concat([p.loans for p in parts]) if parts else pd.DataFrame())
+    # the chunks' frames are let go once joined: a million loans' detail is not held twice
+    findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
+    frames = [p.loans for p in parts]
+    del parts
+    loans = _round_money(pd.concat(frames) if frames else pd.DataFrame())
+    del frames
     _split_drawn_undrawn(loans, prep)
 
     applied = _apply_overlays(loans, config)
@@ -195,7 +200,7 @@ def run(
         # the tape's own columns only: slicing thousands of carried-through columns costs seconds
         schedules=_schedule_sample(tape[[c for c in tape.columns if c in LoanRecord.model_fields or c == "source_row"]],
                                    loans, prep, schedule_sample),
-        findings=pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame(),
+        findings=findings,
         warnings=(staging.pd_ratio_warnings(tape) if prep.staged is not None else []) + list(applied.warnings),
         pd_paths=pd_path_view(tape, prep),
         overlay_warnings=tuple(applied.warnings),
@@ -316,7 +321,7 @@ def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> p
     first += [f"discount_rate_{fw}" for fw in prep.frameworks]
     first += [f"purchase_ecl_{fw}" for fw in prep.frameworks]
     first += [f"purchase_ecl_carried_{fw}" for fw in prep.frameworks] + ["pcd_gross_up", "modified"]
-    ordered = loans[[c for c in first if c in loans.columns]].copy()
+    ordered = loans[[c for c in first if c in loans.columns]]  # copy-on-write: no copy of the columns
     ordered["source_row"] = tape["source_row"].to_numpy() if "source_row" in tape else np.arange(len(tape)) + 2
     extras = [c for c in tape.columns if c not in LoanRecord.model_fields and c != "source_row"]
     ordered = ordered.reset_index(drop=True)

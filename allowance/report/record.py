@@ -28,7 +28,7 @@ from allowance.money import money_total
 from allowance.report import clock
 from allowance.report.environment import environment
 from allowance.schemas import Framework, InputFile, RunConfig, RunRecord
-from allowance.staging import STAGE_CLASSES, stage_class
+from allowance.staging import STAGE_CLASSES, stage_class_codes
 
 if TYPE_CHECKING:
     from allowance.reconcile import Movement, WhatIf
@@ -137,12 +137,15 @@ def _jsonable(value: Any) -> Any:
     return value
 
 
-def _stage_classes(loans: pd.DataFrame) -> np.ndarray:
-    """Each loan's class: the run's ``stage_class`` column, or stage and POCI flag for older frames."""
+def _stage_codes(loans: pd.DataFrame) -> np.ndarray:
+    """Each loan's class as its position in ``STAGE_CLASSES`` (-1: none): the run's
+    ``stage_class`` column (factorised: no text per loan), or stage and POCI flag for older frames."""
     if "stage_class" in loans.columns:
-        return loans["stage_class"].to_numpy(dtype=object)
+        codes, names = pd.factorize(loans["stage_class"])
+        where = np.array([STAGE_CLASSES.index(n) if n in STAGE_CLASSES else -1 for n in names.tolist()] + [-1])
+        return where[codes]
     poci = loans["poci"].astype(bool).to_numpy() if "poci" in loans.columns else np.zeros(len(loans), bool)
-    return stage_class(loans["stage"].to_numpy(), poci)
+    return stage_class_codes(loans["stage"].to_numpy(), poci)
 
 
 def run_record(
@@ -205,9 +208,10 @@ def run_record(
                 entry[key] = money_total(loans[col])
         if "stage" in loans.columns and f"ecl_{f}" in loans.columns and FRAMEWORK_RULES[f].staged:
             # the one stage vocabulary: stage 1/2/3 and POCI apart (IFRS 7 35H(c))
-            classes = _stage_classes(loans)
+            classes = _stage_codes(loans)
             entry["by_stage"] = {
-                k: money_total(loans.loc[classes == k, f"ecl_{f}"]) for k in STAGE_CLASSES if (classes == k).any()
+                k: money_total(loans.loc[classes == j, f"ecl_{f}"]) for j, k in enumerate(STAGE_CLASSES)
+                if (classes == j).any()
             }
         if f"ecl_{f}" in loans.columns and "segment" in loans.columns:
             entry["by_segment"] = {str(s): money_total(g) for s, g in loans.groupby("segment")[f"ecl_{f}"]}
