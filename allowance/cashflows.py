@@ -21,6 +21,7 @@ path_terms           growth and payment of the closed-form balance path
 balance_on_path      the scheduled balance after t months in closed form (the loop's form)
 balloon_residual     the amount left at maturity of a balloon loan
 months_without_payment  months a delinquent loan pays nothing on its way to its loss event
+runoff_months        months a revolving line's measured balance takes to run off at its payment rate
 payment_shortfall    the balance a given payment leaves at maturity (a final balloon)
 schedule             one loan's month-by-month schedule, contractual and expected
 
@@ -308,6 +309,54 @@ def months_without_payment(days_past_due, loss_event_dpd):
     event = np.asarray(loss_event_dpd, np.int64)
     behind = (dpd > 0) & (dpd < event)
     return np.where(behind, -((dpd - event) // 30), 0).astype(np.int64)  # ceil((D - d) / 30)
+
+
+#: The run-off of a measured balance ends when what is left rounds to no cents.
+HALF_CENT = 0.005
+
+
+def runoff_months(balance, paydown, floor, cap):
+    r"""Months a revolving line's measured balance takes to run off, paying a share a month.
+
+    Parameters
+    ----------
+    balance : array_like
+        The drawn balance measured today (>= 0).
+    paydown : array_like
+        The share of the measured balance repaid each month: the payment rate times the share
+        of each payment the allocation policy gives the measured balance.
+    floor : float
+        Stop once the balance is below this share of today's (0: run to the end).
+    cap : int
+        The longest horizon (months).
+
+    Notes
+    -----
+    With :math:`B_t = B (1 - p)^t` the run-off ends in the first month n in which the balance
+    left is below :math:`x B`, :math:`x = \max(floor,\ 0.005 / B)` (below half a cent it rounds
+    to nothing: the end):
+
+    .. math:: n = \left\lceil \frac{\ln x}{\ln (1 - p)} \right\rceil
+
+    at least 1 and at most ``cap``; ``cap`` when p = 0 (a balance that is never repaid), 1
+    when p = 1. The months of a delinquent line that pays nothing come on top (the caller's).
+
+    Examples
+    --------
+    1,000 paying 6 % a month is below half a cent after 198 months; a 1 % floor stops at 75:
+
+    >>> runoff_months(np.array([1_000.0, 1_000.0, 0.0]), np.array([0.06, 0.0, 0.06]), 0.0, 1200).tolist()
+    [198, 1200, 1]
+    >>> runoff_months(np.array([1_000.0]), np.array([0.06]), 0.01, 1200).tolist()
+    [75]
+    """
+    balance = np.asarray(balance, float)
+    paydown = np.clip(np.asarray(paydown, float), 0.0, 1.0)
+    share = np.maximum(floor, HALF_CENT / np.maximum(balance, HALF_CENT))  # in (0, 1]
+    kept = np.log1p(-np.minimum(paydown, 1.0 - 1e-15))  # ln(1 - p) < 0 where p > 0
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        months = np.where(paydown > 0.0, np.ceil(np.log(share) / np.where(paydown > 0.0, kept, -1.0)), cap)
+    return np.clip(np.nan_to_num(months, nan=1.0), 1, cap).astype(np.int64)
 
 
 def balloon_residual(balance, rate, months_left, amortization_left):

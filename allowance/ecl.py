@@ -84,8 +84,9 @@ class KernelInputs:
 
     Per loan: ``code, balance, rate`` (monthly), ``months_left`` (contractual payments left;
     behavioural life for revolving), ``io_left``, ``residual``, ``payment`` (NaN = recompute),
-    ``prepay`` and ``prepay_offset`` (row and start column of
-    ``smm``), ``lgd`` (flat LGD after cure), ``collateral`` (0 = flat LGD),
+    ``prepay`` (row of ``smm``; per loan ``[n]`` or per framework and loan ``[F, n]``: a
+    framework that runs a line's balance off at its payment rate takes a row of zeros, so the
+    payoffs are not counted twice) and ``prepay_offset`` (start column of ``smm``), ``lgd`` (flat LGD after cure), ``collateral`` (0 = flat LGD),
     ``haircut, recovery_cost, lgd_floor, cure``, ``refinance_pd`` (q: the probability that a
     balloon or interest-only loan outstanding at maturity fails to repay; 0 = none).
     Per framework and loan ``[F, n]``: ``curve`` (row of ``pd``: a framework may measure a loan
@@ -102,6 +103,10 @@ class KernelInputs:
     collateral to a price variable).
     Per loan, optional: ``pd_scale`` (the loan's own PD level: the loop reads
     ``min(pd_scale · pd_t, 1)`` for its curve row; None = 1 for every loan, the curve as it is).
+    Per framework and loan, optional: ``add_months`` (the months t < add_months in which
+    ``ead_add`` is exposure: a HELOC's draw period, a line's commitment; None = every month)
+    and ``add_after`` (the add-on from month add_months on: the accrued interest, which stays;
+    None = 0).
     """
 
     code: np.ndarray
@@ -133,6 +138,8 @@ class KernelInputs:
     lgd_multiplier: np.ndarray
     collateral_index: np.ndarray
     pd_scale: np.ndarray | None = None
+    add_months: np.ndarray | None = None
+    add_after: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -167,7 +174,7 @@ def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
 @numba.njit(cache=jit.CACHE, fastmath=True)
 def _flat_lanes(
     i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
-    io_left, level, paydown, add, v, horizon_i, interest, maturity, q, sums, sc,
+    io_left, level, paydown, add, add_months, add_after, v, horizon_i, interest, maturity, q, sums, sc,
 ):
     r"""One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
 
@@ -205,7 +212,7 @@ def _flat_lanes(
             annuity = annuity * growth + 1.0
         df *= v
         keep = 1.0 - smm[p, off + t]
-        w = (bal + add) * df
+        w = (bal + (add if t < add_months else add_after)) * df
         if unit:
             w0 = w1 = w2 = w3 = w * lgd_c
         else:
@@ -284,8 +291,8 @@ def _level_payments(code, balance, rate, months_left, io_left, residual, payment
 def _kernel(
     code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
     in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure, refinance_pd,
-    horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, pd_scale, unit_path,
-    block, first, last,
+    horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, pd_scale, add_months,
+    add_after, unit_path, block, first, last,
     sums, ead0, lgd0,
 ):
     n = balance.shape[0]
@@ -303,7 +310,7 @@ def _kernel(
         gross = np.empty(n_sc)
         gross_12 = np.empty(n_sc)
         for i in range(b * block, min(n, (b + 1) * block)):
-            c, r, m_left, io, p, off = code[i], rate[i], months_left[i], io_left[i], prepay[i], prepay_offset[i]
+            c, r, m_left, io, off = code[i], rate[i], months_left[i], io_left[i], prepay_offset[i]
             level = level_payment[i]
             sc = pd_scale[i]  # the loan's own PD level against its curve row
             secured = collateral[i] > 0.0
@@ -313,6 +320,8 @@ def _kernel(
                 rec_i = recovery_discount[f, i]
                 k = curve[f, i]
                 add = ead_add[f, i]
+                p = prepay[f, i]
+                add_m, add_a = add_months[f, i], add_after[f, i]
                 ead = balance[i] + add
                 ead0[i, f] = ead
                 lgd0[i, f] = _loss_given_default(
@@ -337,7 +346,7 @@ def _kernel(
                     for s0 in range(0, n_sc, 4):
                         _flat_lanes(
                             i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit_path[f], lgd_i,
-                            c, balance[i], r, io, level, down, add, v, horizon_i, interest[f, i], maturity, q_i,
+                            c, balance[i], r, io, level, down, add, add_m, add_a, v, horizon_i, interest[f, i], maturity, q_i,
                             sums, sc,
                         )
                     continue
@@ -358,7 +367,7 @@ def _kernel(
                         bal = balance_on_path(balance[i], x, annuity, pay)
                         x *= growth
                         annuity = annuity * growth + 1.0
-                    ead = bal + add
+                    ead = bal + (add if t < add_m else add_a)
                     df *= v
                     keep = 1.0 - smm[p, off + t]
                     weight = ead * df
@@ -518,7 +527,8 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
     code, balance, rate = int(a["code"][i]), float(a["balance"][i]), float(a["rate"][i])
     months_left, io_left, k = int(a["months_left"][i]), int(a["io_left"][i]), int(a["curve"][f, i])
     add, v, interest = float(a["ead_add"][f, i]), float(a["discount"][f, i]), float(a["interest"][f, i])
-    p, off, q = int(a["prepay"][i]), int(a["prepay_offset"][i]), float(a["refinance_pd"][i])
+    p, off, q = int(a["prepay"][f, i]), int(a["prepay_offset"][i]), float(a["refinance_pd"][i])
+    add_months, add_after = int(a["add_months"][f, i]), float(a["add_after"][f, i])
 
     def lgd_at(ead: float, t: int) -> float:
         return loss_given_default(
@@ -545,7 +555,7 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
             bal = balance_on_path(balance, x, annuity, pay)
             x *= growth
             annuity = annuity * growth + 1.0
-        ead, df = bal + add, df * v
+        ead, df = bal + (add if t < add_months else add_after), df * v
         lgd = lgd_at(ead, t)
         start, marginal = alive, float(a["pd"][f, k, t, s])
         share = alive * marginal
@@ -561,9 +571,10 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
 _FIELDS = [f.name for f in fields(KernelInputs)]
 #: The fields of :class:`KernelInputs` given per framework and loan, shape ``[F, n]``.
 PER_FRAMEWORK: tuple[str, ...] = (
-    "curve", "in_default", "recovery_discount", "horizon", "ead_add", "paydown", "discount", "interest",
+    "curve", "in_default", "recovery_discount", "horizon", "ead_add", "paydown", "discount", "interest", "prepay",
+    "add_months", "add_after",
 )
-_INTEGER = {"code", "months_left", "io_left", "curve", "prepay", "prepay_offset", "horizon"}
+_INTEGER = {"code", "months_left", "io_left", "curve", "prepay", "prepay_offset", "horizon", "add_months"}
 
 
 def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
@@ -577,6 +588,12 @@ def _checked_arrays(inputs: KernelInputs) -> list[np.ndarray]:
         value = getattr(inputs, field.name)
         if field.name == "pd_scale" and value is None:  # the curves as they are
             value = np.ones(np.shape(inputs.balance)[0])
+        if field.name == "add_months" and value is None:  # the add-on in every month
+            value = np.full(np.shape(inputs.horizon), np.iinfo(np.int64).max)
+        if field.name == "add_after" and value is None:  # nothing after the add-on's months
+            value = np.zeros(np.shape(inputs.horizon))
+        if field.name == "prepay" and np.ndim(value) == 1:  # one row per loan, the same in every framework
+            value = np.broadcast_to(value, np.shape(inputs.horizon))
         dtype = np.int64 if field.name in _INTEGER else (np.bool_ if field.name == "in_default" else np.float64)
         array = np.ascontiguousarray(value, dtype=dtype)
         # read-only-ness is part of a compiled signature: a read-only view (an Arrow-backed

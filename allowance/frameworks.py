@@ -23,8 +23,11 @@ commitment period        a line: its behavioural life (5.5.20);  a non-cancellab
                                                                  (326-20-30-11)
 undrawn part shown as    a provision, with any ECL above the     a liability for off-balance-sheet
                          drawn balance (5.5.20, IFRS 7 B8E)      credit exposure (326-20-30-11)
-revolving lines          drawn balance at the behavioural life   drawn balance paying down at
-                                                                 the segment's payment_rate
+revolving lines          drawn balance at the behavioural life   drawn balance run off to its end
+                         (paid_off / cpr remove accounts)        (or ``runoff_floor``) at the
+                                                                 payment_rate x the allocation
+                                                                 policy's share (326-20-30-6);
+                                                                 no payoff SMM on top
 discounting              at the EIR (B5.5.44)                    only with ``discount = true``
                                                                  (the DCF method, 326-20-30-4)
 loss of a default        LGD × EAD, or with ``measure =          LGD × EAD; with ``discount =
@@ -49,6 +52,7 @@ PCD / POCI at purchase   no allowance (5.5.13)                   gross-up of amo
 
 Implements
 ----------
+Runoff            how a framework runs a revolving line's measured balance off
 FrameworkRules    the rules of one framework (frozen)
 LedgerRules       how a framework books write-offs, recoveries and purchases against the allowance
 FRAMEWORK_RULES   framework name -> its rules
@@ -69,7 +73,7 @@ from allowance.discounting import monthly_discount
 from allowance.exceptions import AssumptionsError
 from allowance.schemas import FRAMEWORKS, AccruedInterest, Assumptions, CeclRules, Framework
 
-__all__ = ["FRAMEWORK_RULES", "FrameworkRules", "LedgerRules", "rules_for"]
+__all__ = ["FRAMEWORK_RULES", "FrameworkRules", "LedgerRules", "Runoff", "rules_for"]
 
 
 @dataclass(frozen=True)
@@ -93,6 +97,22 @@ class LedgerRules:
 
 
 @dataclass(frozen=True)
+class Runoff:
+    """How a framework runs the drawn balance of a revolving line off (CECL, ASC 326-20-30-6).
+
+    measured_share  the share of each expected payment that retires the balance measured today
+                    (``[cecl] payment_allocation``): 1 under ``measured_balance_first``, the
+                    stated ``measured_payment_share`` under ``pro_rata``; the measured balance
+                    then falls by payment_rate x measured_share a month
+    floor           the run-off stops once the balance is below this share of today's
+                    (``[cecl] runoff_floor``; 0: it runs to its end)
+    """
+
+    measured_share: float
+    floor: float
+
+
+@dataclass(frozen=True)
 class FrameworkRules:
     """The rules of one framework (see the table in the module docstring).
 
@@ -110,6 +130,8 @@ class FrameworkRules:
                          probation
     exposure_add_on      ``(drawn, limit, ccf, unconditionally_cancellable) -> add-on`` to EAD
     revolving_paydown    revolving lines pay down at the segment's ``payment_rate``
+    runoff               ``assumptions -> Runoff or None``: how the drawn balance of a line that
+                         pays down runs off (None: it does not; it is held to the behavioural life)
     discounted           ``assumptions -> bool``: discount at the EIR
     accrued_interest     ``assumptions -> policy``: which loans carry the tape's accrued interest
                          in their EAD (:mod:`allowance.curves.ead`)
@@ -141,6 +163,7 @@ class FrameworkRules:
     default_test: Callable[[pd.DataFrame, Assumptions], np.ndarray]
     exposure_add_on: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
     revolving_paydown: bool
+    runoff: Callable[[Assumptions], Runoff | None]
     discounted: Callable[[Assumptions], bool]
     cash_shortfall: Callable[[Assumptions], bool]
     accrued_interest: Callable[[Assumptions], AccruedInterest]
@@ -269,6 +292,10 @@ def _whole_life(assumptions: Assumptions) -> None:
     return None
 
 
+def _no_runoff(assumptions: Assumptions) -> None:
+    return None
+
+
 def _ifrs9_classes(stage, poci) -> np.ndarray:
     labels = np.char.add("stage ", np.asarray(stage).astype(str)).astype(object)
     return np.where(poci, "POCI", labels).astype(object)
@@ -283,6 +310,7 @@ IFRS9 = FrameworkRules(
     default_test=_ifrs9_default_test,
     exposure_add_on=_drawn_plus_ccf,
     revolving_paydown=False,
+    runoff=_no_runoff,
     discounted=_always,
     cash_shortfall=_ifrs9_shortfall,
     accrued_interest=_ifrs9_accrued,
@@ -333,6 +361,26 @@ def _cecl_accrued(assumptions: Assumptions) -> AccruedInterest:
     return _cecl_rules(assumptions).accrued_interest
 
 
+def _cecl_runoff(assumptions: Assumptions) -> Runoff:
+    """The measured balance of a card or other revolving line runs off under the stated payment
+    allocation policy (ASC 326-20-30-6: the contractual term, with expected payments; the
+    credit-card implementation guidance of ASC 326-20-55 and the 2017 transition resource
+    group discussion treat which future payments retire the measured balance as a policy to
+    state; from memory). Future draws are not measured (they are not yet an asset), so the
+    payments only retire today's balance under ``measured_balance_first``, a stated share of
+    them under ``pro_rata``."""
+    rules = _cecl_rules(assumptions)
+    if rules.payment_allocation is None:
+        raise AssumptionsError(
+            "CECL measures revolving lines but [cecl] states no payment_allocation",
+            column="cecl.payment_allocation",
+            hint='state payment_allocation = "measured_balance_first" (every payment retires the measured '
+                 'balance) or "pro_rata" with measured_payment_share (ASC 326-20-30-6)',
+        )
+    share = 1.0 if rules.payment_allocation == "measured_balance_first" else float(rules.measured_payment_share)
+    return Runoff(measured_share=share, floor=float(rules.runoff_floor or 0.0))
+
+
 def _cecl_add_on(drawn, limit, ccf, cancellable) -> np.ndarray:
     # an unconditionally cancellable commitment carries no allowance (ASC 326-20-30-11)
     return np.where(cancellable, 0.0, undrawn_exposure(drawn, limit, ccf))
@@ -355,6 +403,7 @@ CECL = FrameworkRules(
     default_test=_cecl_default_test,
     exposure_add_on=_cecl_add_on,
     revolving_paydown=True,
+    runoff=_cecl_runoff,
     discounted=_cecl_discounts,
     cash_shortfall=_cecl_discounts,  # the DCF method is the cash shortfall at the EIR (326-20-30-4)
     accrued_interest=_cecl_accrued,

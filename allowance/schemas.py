@@ -47,6 +47,9 @@ FacilityType = Literal["funded", "commitment", "guarantee"]
 OFF_BALANCE_FACILITIES: tuple[str, ...] = ("commitment", "guarantee")
 OverlayKind = Literal["percent", "amount"]
 Reversion = Literal["straight_line", "immediate"]
+#: CECL: which share of a revolving line's future payments retires the balance measured today
+#: (the rest pays for draws after the reporting date, which are not measured).
+PaymentAllocation = Literal["measured_balance_first", "pro_rata"]
 RetailClass = Literal["residential_mortgage", "qualifying_revolving", "other_retail"]
 Link = Literal["probit", "logit"]
 Interpolation = Literal["step", "linear"]
@@ -770,6 +773,28 @@ class CeclRules(_Strict):
         "at the EIR of the expected cash flows (the cash shortfall); false: undiscounted PD x LGD x EAD, recoveries "
         "included.",
     )
+    payment_allocation: PaymentAllocation | None = Field(
+        default=None,
+        description="Revolving lines: which share of each expected payment retires the balance measured today "
+        "(ASC 326-20-30-6; a stated policy): measured_balance_first (every payment, until it is repaid) or "
+        "pro_rata (measured_payment_share of each payment). Required when CECL measures revolving lines.",
+    )
+    measured_payment_share: Annotated[float, Field(gt=0.0, le=1.0)] | None = Field(
+        default=None, description="pro_rata: the share of each payment that retires the measured balance."
+    )
+    runoff_floor: Annotated[float, Field(ge=0.0, lt=1.0)] | None = Field(
+        default=None,
+        description="Revolving lines: the run-off stops once the measured balance is below this share of today's "
+        "(the rest taken as repaid); blank: it runs to its end (below half a cent).",
+    )
+
+    @model_validator(mode="after")
+    def _allocation_share(self) -> CeclRules:
+        if self.payment_allocation == "pro_rata" and self.measured_payment_share is None:
+            raise ValueError("payment_allocation = \"pro_rata\" needs measured_payment_share (0 < share <= 1)")
+        if self.payment_allocation != "pro_rata" and self.measured_payment_share is not None:
+            raise ValueError("measured_payment_share is read only with payment_allocation = \"pro_rata\"")
+        return self
 
 
 #: The kinds of PD path a scenario may state (at most one of them).

@@ -364,6 +364,7 @@ reasonable_supportable_months = 24
 reversion_months = 12
 reversion = "straight_line"
 discount = false
+payment_allocation = "measured_balance_first" # every card payment retires the balance measured today first
 
 """ + macro_toml(quarter) + f"""
 [scenarios.base]

@@ -47,7 +47,8 @@ def engine_config(**changes) -> RunConfig:
                       "behavioural_life_months": 36, "payment_rate": 0.05, "unconditionally_cancellable": True},
         },
         "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
-        "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
+        "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12,
+                 "payment_allocation": "measured_balance_first"},
         "scenarios": {
             "base": {"weight": 0.6, "pd_multiplier": [1.0, 1.0, 1.0]},
             "down": {"weight": 0.4, "pd_multiplier": [2.0, 1.5, 1.2], "lgd_multiplier": [1.1]},

@@ -401,6 +401,7 @@ amortization_months = 360
 
 [cecl]
 reasonable_supportable_months = 12
+payment_allocation = "measured_balance_first"
 
 [scenarios.base]
 weight = 1.0

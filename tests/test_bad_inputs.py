@@ -130,6 +130,7 @@ reasonable_supportable_months = 24
 reversion_months = 12
 reversion = "straight_line"
 discount = false
+payment_allocation = "measured_balance_first"
 
 [scenarios.base]
 weight = 0.6

@@ -41,6 +41,7 @@ sicr_pd_measure = "12_month"
 
 [cecl]
 reasonable_supportable_months = 12
+{cecl}
 
 [scenarios.base]
 weight = 1.0
@@ -49,12 +50,12 @@ weight = 1.0
 
 
 def _files(tmp_path: Path, lines: list[str], retail: str = "", cards: str = "", scenario: str = "",
-           extra: str = "") -> tuple[Path, Path]:
+           extra: str = "", cecl: str = 'payment_allocation = "measured_balance_first"') -> tuple[Path, Path]:
     cards = cards or "behavioural_life_months = 36\npayment_rate = 0.05\nccf = 0.3\nunconditionally_cancellable = true"
     tape = tmp_path / "tape.csv"
     tape.write_text("\n".join([HEADER, *lines]) + "\n", encoding="utf-8")
     assumptions = tmp_path / "a.toml"
-    assumptions.write_text(BASE.format(retail=retail, cards=cards, scenario=scenario) + extra, encoding="utf-8")
+    assumptions.write_text(BASE.format(retail=retail, cards=cards, scenario=scenario, cecl=cecl) + extra, encoding="utf-8")
     return tape, assumptions
 
 
@@ -88,6 +89,8 @@ def test_a_balloon_loan_its_segment_cannot_amortize_is_rejected_by_both(tmp_path
          {"cards": "ccf = 0.3"}, "segments.cards.behavioural_life_months"),
         ("revolving line under CECL, no payment rate",
          {"cards": "behavioural_life_months = 36"}, "segments.cards.payment_rate"),
+        ("revolving line under CECL, no payment allocation policy (ASC 326-20-30-6)",
+         {"cecl": ""}, "cecl.payment_allocation"),
         ("a falling cumulative PD curve",
          {"retail": "", "extra": "[segments.curve]\npd_curve = [0.05, 0.03]\nlgd = 0.4\n"}, "segments.curve.pd_curve"),
         ("a z path with no asset correlation",

@@ -13,7 +13,7 @@ from tests.books import engine_tape as tape
 BASE = {
     "run": {"as_of": "2026-09-30", "frameworks": ["ifrs9", "cecl"]},
     "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
-    "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
+    "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12, "payment_allocation": "measured_balance_first"},
     "scenarios": {"base": {"weight": 1.0, "pd_multiplier": [1.0]}},
 }
 

@@ -409,6 +409,9 @@ def _default_tables(frame: Frame) -> dict[str, Table]:
             Entry("reasonable_supportable_months", 12, "POLICY (not estimated): ASC 326-20-30-9"),
             Entry("reversion_months", 12, "POLICY (not estimated)"),
             Entry("reversion", "straight_line", "POLICY (not estimated)"),
+            Entry("payment_allocation", "measured_balance_first",
+                  "POLICY (not estimated): the share of each revolving payment that retires the measured "
+                  "balance (ASC 326-20-30-6): measured_balance_first or pro_rata"),
         )),
         "scenarios.base": Table("scenarios.base", (
             Entry("weight", 1.0, "POLICY: one scenario, the history's own experience"),

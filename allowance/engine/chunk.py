@@ -33,7 +33,9 @@ from allowance.curves.ead import accrued_exposure
 from allowance.curves.refinance import maturity_ltv, refinance_pd
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, KernelResult, expected_losses
-from allowance.engine.tables import Prepared, commitment_months, off_balance, remaining_life, revolving_parameter
+from allowance.engine.tables import (
+    Prepared, commitment_months, months_held, off_balance, remaining_life, revolving_parameter, runoff_horizon,
+)
 from allowance.exceptions import AssumptionsError
 
 __all__ = ["ChunkInputs", "ChunkResult", "LoanTerms", "chunk_inputs", "loan_terms", "run_chunk"]
@@ -56,6 +58,7 @@ class LoanTerms:
     age: np.ndarray
     behavioural: np.ndarray
     remaining: np.ndarray
+    held: np.ndarray  # months a delinquent loan pays nothing on its way to its loss event
     io_left: np.ndarray
     residual: np.ndarray
     payment: np.ndarray
@@ -206,13 +209,8 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     ).astype(np.int64)
     # a delinquent loan pays nothing on its way to its loss event: its balance is held as in
     # interest-only months (the charge-off threshold of a roll-rate segment, else the default one)
-    a = prep.config.assumptions
-    default_dpd = min((t.default_dpd for t in (a.ifrs9, a.cecl) if t is not None), default=90)
-    charge_off = np.array([(s.charge_off_dpd or 0) if s.pd_source == "transition_matrix" else 0
-                           for s in (a.segments[n] for n in table.names)] + [0], dtype=np.int64)[segment]
-    hold = cashflows.months_without_payment(chunk["days_past_due"].to_numpy(),
-                                            np.where(charge_off > 0, charge_off, default_dpd))
-    io_left = np.maximum(io_left, np.minimum(hold, np.maximum(remaining - 1, 0)))
+    held = months_held(chunk, prep.config, table, segment, remaining)
+    io_left = np.maximum(io_left, held)
     curve = _curve_keys(chunk, prep, segment)
     prepay, prepay_offset = _prepay_keys(prep, segment, curve, age)
     secured = table.collateral[segment]
@@ -227,7 +225,7 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
             ccf[mask] = curves.ccf_by_days_past_due(dpd[mask], *buckets)
     return LoanTerms(
         segment=segment, repayment=repayment, code=code, balance=chunk["balance"].to_numpy(float), rate=rate,
-        eir=eir, age=age, behavioural=behavioural, remaining=remaining, io_left=io_left,
+        eir=eir, age=age, behavioural=behavioural, remaining=remaining, held=held, io_left=io_left,
         residual=residual,
         payment=np.where(code == cashflows.LEVEL, chunk["payment"].to_numpy(float), np.nan),
         curve=curve, prepay=prepay, prepay_offset=prepay_offset,
@@ -270,6 +268,8 @@ class _Frameworks:
     discount: np.ndarray
     interest: np.ndarray
     undrawn_add: np.ndarray  # the part of ead_add that is CCF × undrawn (the rest: accrued interest)
+    prepay: np.ndarray  # the row of the SMM table
+    add_months: np.ndarray  # the months in which undrawn_add is exposure (accrued interest: every month)
 
 
 def _undrawn_amounts(chunk: pd.DataFrame, terms: LoanTerms, prep: Prepared) -> tuple[np.ndarray, np.ndarray]:
@@ -298,12 +298,15 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
     limit, undrawn = _undrawn_amounts(chunk, terms, prep)
     cancellable = np.nan_to_num(terms.cancellable, nan=1.0) > 0  # NaN only where nothing is undrawn
     ccf = np.nan_to_num(terms.ccf)
+    revolving = terms.repayment == "revolving"
+    committed = np.zeros(n, dtype=bool)
     out = _Frameworks(
         curve=np.tile(terms.curve, (n_fw, 1)),
         in_default=np.zeros((n_fw, n), dtype=np.bool_), recovery_discount=np.ones((n_fw, n)),
         horizon=np.zeros((n_fw, n), dtype=np.int64),
         ead_add=np.zeros((n_fw, n)), paydown=np.zeros((n_fw, n)), discount=np.ones((n_fw, n)),
-        interest=np.zeros((n_fw, n)), undrawn_add=np.zeros((n_fw, n)),
+        interest=np.zeros((n_fw, n)), undrawn_add=np.zeros((n_fw, n)), prepay=np.tile(terms.prepay, (n_fw, 1)),
+        add_months=np.tile(np.where(revolving, terms.behavioural, terms.remaining), (n_fw, 1)),
     )
     # one default definition: a roll-rate loan in default keeps its bucket's chance of reaching
     # charge-off unless it is past the threshold or flagged (staging.loss_event_now)
@@ -327,6 +330,8 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
         if rules.commitment_period:  # a non-cancellable commitment: its contractual period (ASC 326-20-30-11)
             committed = (undrawn > 0) & ~cancellable & (terms.commitment > 0)
             out.horizon[f] = np.where(committed, terms.commitment, terms.remaining)
+        # the months the undrawn amount is exposure: a commitment's period, else a line's behavioural life
+        out.add_months[f] = np.where(committed, terms.commitment, out.add_months[f])
         # a line in default is blocked: nothing more is drawn, EAD = drawn (common practice, no
         # source); a commitment or guarantee in default is still called on its CCF
         add_on = rules.exposure_add_on(terms.balance, limit, ccf, cancellable)
@@ -334,8 +339,17 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
         out.ead_add[f] = out.undrawn_add[f].copy()
         # accrued interest and arrears in the exposure, as the framework's option says
         out.ead_add[f] += accrued_exposure(chunk["accrued_interest"].to_numpy(float), dpd, rules.accrued_interest(a))
-        if rules.revolving_paydown:
-            out.paydown[f] = revolving_parameter(chunk, prep.segments, terms.segment, "payment_rate")
+        if rules.revolving_paydown and revolving.any():
+            # the measured balance runs off at the payment rate times the share of each payment
+            # the allocation policy gives it, to its end or the floor (ASC 326-20-30-6); the
+            # payment rate holds the lines that pay in full, so they take no payoff SMM on top
+            runoff = rules.runoff(a)
+            rate = revolving_parameter(chunk, prep.segments, terms.segment, "payment_rate")
+            out.paydown[f] = rate * runoff.measured_share
+            add_months = np.where(out.undrawn_add[f] > 0.0, out.add_months[f], 0)
+            lines = runoff_horizon(terms.balance, out.paydown[f], terms.held, runoff, add_months)
+            out.horizon[f] = np.where(revolving, np.minimum(lines, prep.months), out.horizon[f])
+            out.prepay[f] = np.where(revolving, prep.no_prepayment_row, terms.prepay)
         out.discount[f] = rules.discount(a, terms.eir)
         out.interest[f] = rules.shortfall_interest(a, terms.eir)
     return out
@@ -344,14 +358,15 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
 def _kernel_inputs(terms: LoanTerms, fw: _Frameworks, prep: Prepared) -> KernelInputs:
     return KernelInputs(
         code=terms.code, balance=terms.balance, rate=terms.rate, months_left=terms.remaining, io_left=terms.io_left,
-        residual=terms.residual, payment=terms.payment, curve=fw.curve, prepay=terms.prepay,
+        residual=terms.residual, payment=terms.payment, curve=fw.curve, prepay=fw.prepay,
         prepay_offset=terms.prepay_offset, in_default=fw.in_default, lgd=np.nan_to_num(terms.lgd),
         collateral=terms.collateral,
         haircut=terms.haircut, recovery_cost=terms.recovery_cost, lgd_floor=terms.lgd_floor,
         recovery_discount=fw.recovery_discount, cure=terms.cure, refinance_pd=terms.refinance_pd, horizon=fw.horizon, ead_add=fw.ead_add,
         paydown=fw.paydown, discount=fw.discount, interest=fw.interest, pd=prep.pd, smm=prep.smm,
         lgd_multiplier=prep.lgd_multiplier,
-        collateral_index=prep.collateral_index, pd_scale=terms.pd_scale,
+        collateral_index=prep.collateral_index, pd_scale=terms.pd_scale, add_months=fw.add_months,
+        add_after=fw.ead_add - fw.undrawn_add,
     )
 
 
@@ -410,7 +425,7 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
                                       a.run.period_months)
     scale = curves.loan_pd_scale(prep.pd_first_year[terms.curve[rows]], _number(chunk, "pd_12m_at_origination")[rows])
     defaulted = fw.in_default[:, rows] & bought[None, :]
-    lifetime = np.broadcast_to(terms.remaining[rows], (n_fw, rows.size)).copy()
+    lifetime = fw.horizon[:, rows].copy()  # the life (a line's run-off where a framework runs it off)
     r = expected_losses(_subset(inputs, rows, in_default=defaulted, horizon=lifetime, pd_scale=scale))
 
     age = terms.age[rows]
@@ -433,8 +448,7 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     q = expected_losses(_subset(
         inputs, rows, balance=balance, months_left=np.where(revolving, terms.remaining[rows], months),
         io_left=io_left.astype(np.int64), curve=curve, prepay_offset=np.zeros(rows.size, dtype=np.int64),
-        in_default=defaulted, horizon=np.broadcast_to(np.where(revolving, terms.remaining[rows], months),
-                                                      (n_fw, rows.size)).copy(),
+        in_default=defaulted, horizon=np.where(revolving[None, :], fw.horizon[:, rows], months[None, :]),
         ead_add=fw.ead_add[:, rows], pd_scale=scale,
     ))
     w = prep.weights

@@ -18,8 +18,8 @@ import pandas as pd
 
 from allowance import cashflows, curves, loss_rates, scenarios, staging
 from allowance.exceptions import AssumptionsError
-from allowance.frameworks import FrameworkRules, rules_for
-from allowance.schemas import OFF_BALANCE_FACILITIES, Framework, RunConfig, SegmentAssumptions
+from allowance.frameworks import FrameworkRules, Runoff, rules_for
+from allowance.schemas import MAX_MONTHS, OFF_BALANCE_FACILITIES, Framework, RunConfig, SegmentAssumptions
 
 
 @dataclass(frozen=True)
@@ -116,6 +116,9 @@ class Prepared:
     loss_rates: LossRateTables | None = None  # the loss-rate segments' tables (None: there are none)
     #: segment -> the PD row of a loan on probation out of stage 3 (``[ifrs9] probation_pd_12m``)
     probation_key: dict[str, int] = field(default_factory=dict)
+    #: the row of ``smm`` that holds zeros: a line whose balance runs off at its payment rate
+    #: takes it (the payment rate already holds the lines paid off: not counted twice)
+    no_prepayment_row: int = 0
 
     @property
     def staged(self) -> FrameworkRules | None:
@@ -229,6 +232,30 @@ def behavioural_life(tape: pd.DataFrame, table: SegmentTable, codes: np.ndarray 
     return revolving_parameter(tape, table, codes, "behavioural_life").astype(np.int64)
 
 
+def months_held(tape: pd.DataFrame, config: RunConfig, table: SegmentTable, codes: np.ndarray,
+                remaining: np.ndarray) -> np.ndarray:
+    """Months each loan pays nothing on its way to its loss event (a delinquent loan; 0 for a
+    current one): :func:`allowance.cashflows.months_without_payment` at the charge-off threshold
+    of a roll-rate segment, else the default threshold; at most the months before its last."""
+    a = config.assumptions
+    default_dpd = min((t.default_dpd for t in (a.ifrs9, a.cecl) if t is not None), default=90)
+    charge_off = np.array([(s.charge_off_dpd or 0) if s.pd_source == "transition_matrix" else 0
+                           for s in (a.segments[n] for n in table.names)] + [0], dtype=np.int64)[codes]
+    hold = cashflows.months_without_payment(tape["days_past_due"].to_numpy(),
+                                            np.where(charge_off > 0, charge_off, default_dpd))
+    return np.minimum(hold, np.maximum(remaining - 1, 0))
+
+
+def runoff_horizon(balance: np.ndarray, paydown: np.ndarray, held: np.ndarray, runoff: Runoff,
+                   add_months: np.ndarray) -> np.ndarray:
+    """Months a revolving line is measured where its drawn balance runs off (CECL): the months
+    it pays nothing while delinquent, then until its balance is gone or below the floor
+    (:func:`allowance.cashflows.runoff_months`), and at least ``add_months`` (the months its
+    undrawn add-on is exposure; 0 where there is none); at most 1,200."""
+    months = held + cashflows.runoff_months(balance, paydown, runoff.floor, MAX_MONTHS)
+    return np.minimum(np.maximum(months, add_months), MAX_MONTHS).astype(np.int64)
+
+
 def tape_months(tape: pd.DataFrame, config: RunConfig) -> int:
     """Months the book's tables must cover: the longest horizon on the tape (at least 12), and
     for a purchased credit-impaired loan its life from the purchase date (its age added)."""
@@ -236,8 +263,17 @@ def tape_months(tape: pd.DataFrame, config: RunConfig) -> int:
         return 12
     table = segment_table(config.assumptions.segments)
     as_of = pd.Timestamp(config.as_of)
-    life = remaining_life(tape, as_of, behavioural_life(tape, table))
+    codes = table.codes(tape["segment"])
+    behavioural = behavioural_life(tape, table, codes)
+    life = remaining_life(tape, as_of, behavioural)
     life = np.maximum(life, commitment_months(tape, as_of))  # CECL: a commitment's contractual period
+    revolving = (tape["repayment"] == "revolving").to_numpy()
+    for runoff in (rules_for(fw).runoff(config.assumptions) for fw in config.assumptions.run.frameworks
+                   if rules_for(fw).revolving_paydown and revolving.any()):
+        paydown = np.nan_to_num(table.payment_rate[codes]) * runoff.measured_share
+        held = months_held(tape, config, table, codes, life)
+        lines = runoff_horizon(tape["balance"].to_numpy(float), paydown, held, runoff, behavioural)
+        life = np.where(revolving, np.maximum(life, lines), life)
     if "credit_impaired_at_purchase" in tape.columns:
         poci = tape["credit_impaired_at_purchase"].to_numpy(dtype=bool)
         if poci.any():
@@ -308,6 +344,8 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
         else:
             prepay_row[name] = len(rows)
             rows.append(_prepayment_row(seg, length))
+    no_prepayment_row = len(rows)
+    rows.append(np.zeros(length))
     smm = np.vstack(rows)
 
     uses_z = any(s.z for s in a.scenarios.values())
@@ -341,5 +379,5 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
         prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
         pd_first_year=pd_first_year, loss_rates=_loss_rate_tables(config, months, max_age, tables, structures, key_offset),
-        probation_key=probation_key,
+        probation_key=probation_key, no_prepayment_row=no_prepayment_row,
     )

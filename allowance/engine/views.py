@@ -17,7 +17,6 @@ import pandas as pd
 from allowance import cashflows, curves, ecl, individual, macro
 from allowance.engine.chunk import _curve_keys, _individual_measurement, chunk_inputs
 from allowance.engine.tables import Prepared
-from allowance.frameworks import rules_for
 from allowance.money import money_total
 from allowance.schemas import Framework, RunConfig
 
@@ -192,22 +191,21 @@ def loan_schedule(row: pd.DataFrame, prep: Prepared, framework: Framework | None
     """
     fw = framework or prep.frameworks[0]
     f = prep.frameworks.index(fw)
-    seg = prep.config.assumptions.segments[row["segment"].iloc[0]]
     inputs = chunk_inputs(row, prep)
     t = inputs.terms
-    months = int(t.remaining[0])
+    # the framework's own life, run-off and SMM row (a line CECL runs off: no payoff SMM on top)
+    months = int(inputs.frameworks.horizon[f, 0])
     cols = np.minimum(t.prepay_offset[0] + np.arange(months), prep.smm.shape[1] - 1)
     repayment = t.repayment[0]
-    revolving_pays_down = repayment == "revolving" and rules_for(fw).revolving_paydown
-    paydown = (seg.payment_rate or 0.0) if revolving_pays_down else 0.0
+    paydown = float(inputs.frameworks.paydown[f, 0])
     frame = cashflows.schedule(
         repayment, float(t.balance[0]), float(row["interest_rate"].iloc[0]), months,
         interest_only_months_left=int(t.io_left[0]), residual=float(t.residual[0]),
-        payment=float(t.payment[0]), paydown=paydown, smm=prep.smm[t.prepay[0], cols],
+        payment=float(t.payment[0]), paydown=paydown, smm=prep.smm[inputs.frameworks.prepay[f, 0], cols],
         marginal_pd=prep.pd[f, inputs.kernel.curve[f, 0], :months, scenario],
     )
     stage = inputs.stages["stage"].to_numpy() if inputs.stages is not None else np.ones(1, dtype=np.int64)
-    horizon = int(prep.rules[f].horizon(stage, t.remaining)[0])
+    horizon = int(prep.rules[f].horizon(stage, inputs.frameworks.horizon[f])[0])
     booked = ecl.loan_months(inputs.kernel, 0, f, scenario, horizon)
     method, replaced = _individual_measurement(row, t, prep)
     measurement = "model"

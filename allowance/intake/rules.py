@@ -527,7 +527,8 @@ def segment_requirements(cols: TapeColumns, paydown_frameworks: list[str], file:
     """Raise :class:`AssumptionsError` when a segment holding revolving lines lacks a key they need.
 
     Every revolving line needs its segment's ``behavioural_life_months`` (IFRS 9 B5.5.40);
-    where a framework runs a line's drawn balance off (CECL), its ``payment_rate`` too. The
+    where a framework runs a line's drawn balance off (CECL), its ``payment_rate`` too, and
+    the framework's payment allocation policy (``[cecl] payment_allocation``). The
     fix is in the assumptions, not in the rows, so it is one error naming the key.
     """
     repayment = cols.parsed["repayment"]
@@ -552,6 +553,13 @@ def segment_requirements(cols: TapeColumns, paydown_frameworks: list[str], file:
             hint=f"add {key} to [segments.{name}]"
                  + (" (months; IFRS 9 B5.5.40)" if key == "behavioural_life_months" else " (monthly share of the drawn balance repaid, e.g. 0.05)"),
         )
+    for fw in paydown_frameworks:  # the payment allocation policy that runs the balance off (stated, not assumed)
+        try:
+            rules_for(fw).runoff(cols.assumptions)
+        except AssumptionsError as err:
+            raise AssumptionsError(err.reason, file=file, column=err.column, hint=err.hint) from None
+
+
 def commitment_requirements(cols: TapeColumns, file: str | None = None) -> None:
     """Raise :class:`AssumptionsError` when a segment holding undrawn amounts does not state
     its CCF (``ccf`` or ``ccf_by_dpd``) or ``unconditionally_cancellable``.
