@@ -25,7 +25,13 @@ runoff_months        months a revolving line's measured balance takes to run off
 payment_shortfall    the balance a given payment leaves at maturity (a final balloon)
 schedule             one loan's month-by-month schedule, contractual and expected
 
-Repayment codes used inside the compiled loop: ``LEVEL, INTEREST_ONLY, BALLOON, REVOLVING``.
+Repayment codes used inside the compiled loop: ``LEVEL, INTEREST_ONLY, BALLOON, REVOLVING, HELOC``.
+
+A HELOC (home-equity line of credit) has a draw period, interest only with the undrawn limit
+available (the framework's exposure add-on, :mod:`allowance.frameworks`), then a repayment
+period in which the balance amortises with a level payment to maturity: its path is the
+interest-only one with ``io_left`` the draw months left (the level payment is
+``numpy_financial.pmt`` over the repayment months; ``tests/test_cashflows.py`` checks it).
 """
 
 from __future__ import annotations
@@ -36,12 +42,13 @@ import pandas as pd
 
 from allowance import jit
 
-LEVEL, INTEREST_ONLY, BALLOON, REVOLVING = 0, 1, 2, 3
+LEVEL, INTEREST_ONLY, BALLOON, REVOLVING, HELOC = 0, 1, 2, 3, 4
 REPAYMENT_CODES: dict[str, int] = {
     "level": LEVEL,
     "interest_only": INTEREST_ONLY,
     "balloon": BALLOON,
     "revolving": REVOLVING,
+    "heloc": HELOC,
 }
 
 
@@ -171,10 +178,10 @@ def contractual_payment(
     Notes
     -----
     balloon: the :func:`level_payment` to the residual over the months after ``io_left``;
-    level and interest-only: the tape's ``payment`` when given, else the level payment to zero
-    over the months after ``io_left`` (the interest-only period, or the months a delinquent
-    loan pays nothing: the balance does not move during them); revolving: 0 (its principal is
-    a share of the balance).
+    level, interest-only and HELOC: the tape's ``payment`` when given, else the level payment to
+    zero over the months after ``io_left`` (the interest-only period, a HELOC's draw period, or
+    the months a delinquent loan pays nothing: the balance does not move during them);
+    revolving: 0 (its principal is a share of the balance).
 
     Examples
     --------
@@ -217,6 +224,8 @@ def principal_step(
     due at maturity). interest_only: no principal during the interest-only months, then level
     payment over the rest (pure interest-only pays everything at maturity). balloon: level
     payment to the residual, which is due at maturity. revolving: ``paydown`` x balance.
+    heloc: no principal in the draw period (``io_left``), then the level payment to zero by
+    maturity over the repayment period.
 
     Examples
     --------

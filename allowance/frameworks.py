@@ -16,7 +16,8 @@ default test             ``[ifrs9] default_dpd``, flags          ``[cecl] defaul
 accrued interest in EAD  ``[ifrs9] accrued_interest``           ``[cecl] accrued_interest``
                          (gross carrying amount, Appendix A)     (the 30-5A election: exclude)
 undrawn limit            CCF × undrawn (B5.5.31, B5.5.40)        none when unconditionally
-                                                                 cancellable (326-20-30-11)
+                         (a line's; a HELOC's in its draw        cancellable (326-20-30-11)
+                         period)
 line in default          drawn only (the line is blocked)        drawn only (the line is blocked)
 commitment period        a line: its behavioural life (5.5.20);  a non-cancellable line with a
                          a commitment: to its end (5.5.19)       commitment_end_date: to that date

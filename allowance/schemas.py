@@ -38,7 +38,7 @@ from pydantic import BaseModel, ConfigDict, Field, StringConstraints, field_vali
 Framework = Literal["ifrs9", "cecl"]
 #: Which loans carry their accrued interest (arrears included) in the EAD (``curves.ead``).
 AccruedInterest = Literal["exclude", "delinquent", "all"]
-Repayment = Literal["level", "interest_only", "balloon", "revolving"]
+Repayment = Literal["level", "interest_only", "balloon", "revolving", "heloc"]
 #: What a tape row is: ``funded`` (a loan, or a line with its drawn balance; blank means this),
 #: ``commitment`` (a standalone loan commitment, nothing drawn) or ``guarantee`` (a financial
 #: guarantee or a letter of credit). The last two are off-balance-sheet: exposure = CCF x amount.
@@ -57,7 +57,7 @@ CollateralForm = Literal["level", "annual_growth", "annual_growth_percent"]
 CollateralReference = Literal["baseline", "as_of"]
 
 FRAMEWORKS: tuple[Framework, ...] = ("ifrs9", "cecl")
-REPAYMENTS: tuple[Repayment, ...] = ("level", "interest_only", "balloon", "revolving")
+REPAYMENTS: tuple[Repayment, ...] = ("level", "interest_only", "balloon", "revolving", "heloc")
 
 #: The largest amount a tape row or an overlay may state, in currency units (ten trillion).
 #: Amounts are summed in whole cents; at this ceiling a cent is still exact in float64
@@ -106,7 +106,10 @@ class LoanRecord(BaseModel):
 
     loan_id: str = Field(min_length=1, description="Unique loan or account identifier.")
     segment: str = Field(min_length=1, description="Portfolio segment; must have a [segments.<name>] table.")
-    repayment: Repayment = Field(description="level, interest_only, balloon or revolving.")
+    repayment: Repayment = Field(
+        description="level, interest_only, balloon, revolving or heloc (a home-equity line: a draw period, "
+        "interest only, then level amortisation to maturity)."
+    )
     origination_date: date = Field(description="Date the loan was originated or purchased.")
     maturity_date: date | None = Field(
         default=None, description="Contractual maturity; blank for revolving lines."
@@ -116,8 +119,8 @@ class LoanRecord(BaseModel):
     days_past_due: DaysPastDue = Field(description="Whole days past due at the as-of date.")
     credit_limit: Amount | None = Field(
         default=None,
-        description="Revolving lines: the committed limit; commitments and guarantees: the committed or "
-        "guaranteed amount.",
+        description="Revolving lines and HELOCs: the committed limit (required for them); commitments and "
+        "guarantees: the committed or guaranteed amount.",
     )
     payment: Amount | None = Field(
         default=None, description="Scheduled monthly payment; recomputed from balance, rate and term when blank."
@@ -162,6 +165,11 @@ class LoanRecord(BaseModel):
     )
     interest_only_months: Months | None = Field(
         default=None, description="Interest-only loans: months of interest only from origination, then level pay."
+    )
+    draw_period_months: PositiveMonths | None = Field(
+        default=None,
+        description="HELOCs (required for them): months of the draw period from origination (interest only, the "
+        "undrawn limit available), shorter than the term; the repayment period runs from its end to maturity.",
     )
     lifetime_ecl_at_purchase: Amount | None = Field(
         default=None,

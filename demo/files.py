@@ -199,10 +199,12 @@ months_to_recovery = 24
 """,
         "heloc": """
 [segments.heloc]
-# Home-equity lines: 10 years interest only, then 15 years level pay.
+# Home-equity lines: a 10-year draw period (interest only), then 15 years level pay.
 pd_12m = 0.007
 lgd = 0.4
 cpr = 0.1
+ccf = 0.5
+unconditionally_cancellable = false
 retail_class = "residential_mortgage"
 """,
     }
@@ -474,6 +476,8 @@ pd = [0.01, 0.03, 0.08, 0.2]
     "heloc": """
 [segments.heloc]
 retail_class = "residential_mortgage"
+ccf = 0.5                          # share of the undrawn line drawn by default in the draw period (credit policy CP-21)
+unconditionally_cancellable = false # the line can be frozen only on the conditions of the agreement
 """,
 }
 
@@ -595,7 +599,7 @@ def write_bad_tape(out_dir: Path, rng, cols, columns) -> tuple[Path, dict]:
         ("mortgage", "balance", "-1250.00", "negative balance"),
         ("auto", "interest_rate", "6.5", "interest rate given in percent (6.5 for 0.065)"),
         ("personal", "segment", "boat", "segment with no assumptions"),
-        ("mortgage", "repayment", "monthly", "repayment not one of level, interest_only, balloon, revolving"),
+        ("mortgage", "repayment", "monthly", "repayment not one of level, interest_only, balloon, revolving, heloc"),
         ("cards", "days_past_due", "12.5", "fractional days past due"),
         ("cards", "credit_limit", "", "revolving line without a credit limit"),
         ("auto", "origination_date", "2026-11-15", "originated after the as-of date"),

@@ -69,7 +69,7 @@ TAPE_COLUMNS = (
     "interest_rate", "days_past_due", "credit_limit", "payment", "eir", "grade",
     "pd_12m_at_origination", "pd_12m_current", "collateral_value", "watchlist", "forborne", "bankrupt",
     "defaulted", "credit_impaired_at_purchase", "prior_stage", "months_performing",
-    "balloon_amount", "amortization_months", "interest_only_months",
+    "balloon_amount", "amortization_months", "interest_only_months", "draw_period_months",
     "lifetime_ecl_at_purchase", "credit_adjusted_eir", "modified", "original_amount", "branch",
 )
 #: Segments whose loans carry a behavioural score (a 12-month PD of their own) each quarter, on
@@ -99,7 +99,7 @@ SEGMENTS = {
     "cre": dict(prefix="CRE", n=380, new=12, repayment="balloon", terms=(60, 84, 120),
                 term_p=(0.35, 0.4, 0.25), amortization=(300, 360), span=None, age_power=1.0, r0=0.004,
                 chargeoff_dpd=270, smm=0.004, delinquent_q1=0.012),
-    "heloc": dict(prefix="HEL", n=620, new=30, repayment="interest_only", terms=(300,), term_p=(1.0,),
+    "heloc": dict(prefix="HEL", n=620, new=30, repayment="heloc", terms=(300,), term_p=(1.0,),
                   interest_only=120, span=180, age_power=1.6, r0=0.006, chargeoff_dpd=270, smm=0.009,
                   delinquent_q1=0.025),
 }
@@ -291,6 +291,10 @@ def build_book(rng, seed: int = SEED):
     this_quarter = np.flatnonzero(np.isin(seg, ["mortgage", "auto"]) & book["new"])
     poci[own.choice(this_quarter, size=3, replace=False)] = True
     book["poci"] = poci
+    # HELOC limits: the amount drawn at origination is 60-95 % of the line (draws of their own,
+    # so the book above is unchanged); the rest can be drawn until the draw period ends
+    lines = np.random.default_rng([seed, 17]).uniform(0.6, 0.95, n)
+    book["limit"] = np.where(seg == "heloc", np.round(book["amount"] / lines, -3), book["limit"])
     # PD at purchase (the scale of pd_12m_current): credit-impaired, so high
     book["pd_orig"] = np.where(poci, np.round(own.uniform(0.12, 0.3, n), 6), book["pd_orig"])
     # Lifetime ECL at purchase: measured by the tool once the assumptions are calibrated
@@ -510,7 +514,8 @@ def tape_columns(book, snapshots, util, grades, scores, month, prior_month):
         files.boolean(snap["watchlist"]), files.boolean(snap["forborne"]), files.boolean(snap["bankrupt"]),
         files.boolean(defaulted), files.boolean(book["poci"]), files.whole(prior_stage, show_prior),
         files.whole(snap["current_run"], show_prior), files.money(blank),
-        files.whole(book["amort"], seg == "cre"), files.whole(book["io"], seg == "heloc"),
+        files.whole(book["amort"], seg == "cre"), files.whole(book["io"], np.zeros(len(seg), bool)),
+        files.whole(book["io"], seg == "heloc"),  # a HELOC's draw period: 10 years, then 15 of repayment
         files.money(book["ecl_at_purchase"]), files.rate(book["ca_eir"]), files.boolean(modified),
         files.money(np.where(rev, np.nan, book["amount"])),
         book["branch"],

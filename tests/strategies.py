@@ -508,7 +508,7 @@ def fault_applies(fault: str, row: dict[str, str]) -> bool:
 from hypothesis import strategies as _st_cf  # noqa: E402  (own imports: this section stands alone)
 
 #: repayment types of the tape
-repayment_types = _st_cf.sampled_from(["level", "interest_only", "balloon", "revolving"])
+repayment_types = _st_cf.sampled_from(["level", "interest_only", "balloon", "revolving", "heloc"])
 #: annual contract rates, zero included (a zero rate has its own formulas)
 annual_rates = _st_cf.one_of(_st_cf.just(0.0), _st_cf.floats(min_value=0.0005, max_value=0.30))
 
@@ -518,7 +518,8 @@ def contract_loans(draw, repayment: str | None = None, zero_rate: bool = False) 
     """Keyword arguments of ``cashflows.schedule`` for one loan of any repayment type.
 
     Interest-only loans carry an interest-only period shorter than the term, or the whole
-    term; balloon loans a residual of at most the balance; revolving lines a paydown share.
+    term; HELOCs a draw period shorter than the term; balloon loans a residual of at most the
+    balance; revolving lines a paydown share.
     """
     kind = draw(repayment_types) if repayment is None else repayment
     months = draw(_st_cf.integers(1, 360))
@@ -530,6 +531,8 @@ def contract_loans(draw, repayment: str | None = None, zero_rate: bool = False) 
     }
     if kind == "interest_only":
         loan["interest_only_months_left"] = draw(_st_cf.integers(0, months))
+    if kind == "heloc":
+        loan["interest_only_months_left"] = draw(_st_cf.integers(0, months - 1))
     if kind == "balloon":
         loan["residual"] = loan["balance"] * draw(_st_cf.floats(min_value=0.0, max_value=1.0))
     if kind == "revolving":

@@ -189,6 +189,17 @@ def cell(lines: list[str], row: int, column: str, value: str) -> list[str]:
     return out
 
 
+def heloc(limit: str, draw: str) -> Callable[[list[str]], list[str]]:
+    """Loan HEL-100003 (2011-07-01 to 2036-07-01, 300 months) as a HELOC with this credit limit
+    and draw period, in a draw_period_months column added to the tape."""
+    def edit(lines: list[str]) -> list[str]:
+        row = next(i for i, line in enumerate(lines) if line.startswith("HEL-100003,"))
+        out = cell(cell(lines, row, "repayment", "heloc"), row, "credit_limit", limit)
+        return [out[0] + ",draw_period_months", *(line + (f",{draw}" if i == row else ",")
+                                                  for i, line in enumerate(out[1:], start=1))]
+    return edit
+
+
 def copies(lines: list[str], n: int) -> list[str]:
     """The book ``n`` times over, each copy's loan_ids made unique with a suffix."""
     return [lines[0], *(line.replace(",", f"-{i},", 1) for i in range(n) for line in lines[1:])]
@@ -916,6 +927,15 @@ CASES: list[Case] = [
          then=no_output),
     Case("every row rejected", "every balance is -1", "run", 1, ("every one of the 24 rows was rejected", "out_of_range"),
          tape=lambda t: [t[0], *(cell([t[0], line], 1, "balance", "-1")[1] for line in t[1:])], then=no_output),
+    Case("HELOC without a credit limit", "repayment heloc, credit_limit blank", "check", 1,
+         ("credit_limit is blank but required for HELOCs",), (24, 23, 1), tape=heloc("", "120")),
+    Case("HELOC without a draw period", "repayment heloc, draw_period_months blank", "check", 1,
+         ("draw_period_months is blank but required for HELOCs",), (24, 23, 1), tape=heloc("150000", "")),
+    Case("HELOC draw period to maturity", "a 300-month draw period on a 300-month HELOC", "check", 1,
+         ("draw_period_months 300 reaches the maturity 2036-07-01", "no repayment period"), (24, 23, 1),
+         tape=heloc("150000", "300")),
+    Case("HELOC draw period not a whole number", "draw_period_months 12.5", "check", 1,
+         ("draw_period_months",), (24, 23, 1), tape=heloc("150000", "12.5")),
     Case("--charge-offs without --prior", "--charge-offs given, no --prior", "run", 2,
          ("--charge-offs", "needs --prior"),
          args=lambda ws: ["run", ws.tape, "-a", ws.toml, "--charge-offs", charge_offs(ws), "--out", ws.out]),

@@ -232,7 +232,10 @@ def test_segment_mix_and_terms(q3):
     assert set(cre["repayment"]) == {"balloon"} and set(term[q3.segment == "cre"]) <= {60, 84, 120}
     assert set(cre["amortization_months"]) <= {300, 360}
     assert set(q3.loc[q3.segment == "cards", "repayment"]) == {"revolving"}
-    assert set(q3.loc[q3.segment == "heloc", "repayment"]) == {"interest_only"}
+    helocs = q3[q3.segment == "heloc"]
+    assert set(helocs["repayment"]) == {"heloc"} and set(term[q3.segment == "heloc"]) == {300}
+    # a 10-year draw period, then 15 years of repayment; every line has its limit
+    assert set(helocs["draw_period_months"]) == {120} and (helocs["credit_limit"] >= helocs["original_amount"]).all()
     seasoned = q3["origination_date"].dt.year
     assert seasoned[q3.segment == "mortgage"].nunique() >= 10  # seasoning spread over years
 
@@ -312,11 +315,19 @@ def test_balances_follow_the_level_pay_schedule(section):
         expected = npf.fv(r, k, payment, -loans["original_amount"])
         np.testing.assert_allclose(loans["balance"], expected, atol=0.006)
         np.testing.assert_allclose(loans["payment"], payment, atol=0.006)
-    # Interest only: the balance is the original amount until the interest-only period ends.
-    io = tape[(tape.repayment == "interest_only")]
-    young = _months(pd.Series(as_of, index=io.index), io["origination_date"]) <= io["interest_only_months"]
+    # HELOCs: the balance is the original amount through the draw period (interest only), then
+    # the level-pay schedule over the repayment period (numpy_financial.fv, .pmt).
+    io = tape[(tape.repayment == "heloc")]
+    age = _months(pd.Series(as_of, index=io.index), io["origination_date"])
+    young = age <= io["draw_period_months"]
     assert (io.loc[young, "balance"] == io.loc[young, "original_amount"]).all()
-    assert (io.loc[~young, "balance"] < io.loc[~young, "original_amount"]).any()
+    repaying = io[~young & (io.days_past_due == 0)]
+    assert len(repaying) > 10
+    r = repaying["interest_rate"] / 12
+    left = _months(repaying["maturity_date"], repaying["origination_date"]) - repaying["draw_period_months"]
+    payment = npf.pmt(r, left, -repaying["original_amount"])
+    paid = age[repaying.index] - repaying["draw_period_months"]
+    np.testing.assert_allclose(repaying["balance"], npf.fv(r, paid, payment, -repaying["original_amount"]), atol=0.006)
 
 
 # --------------------------------------------------------------------------------------

@@ -59,6 +59,7 @@ class LoanTerms:
     behavioural: np.ndarray
     remaining: np.ndarray
     held: np.ndarray  # months a delinquent loan pays nothing on its way to its loss event
+    draw_left: np.ndarray  # HELOCs: months of the draw period left (0 for other loans)
     io_left: np.ndarray
     residual: np.ndarray
     payment: np.ndarray
@@ -202,10 +203,14 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     behavioural = revolving_parameter(chunk, table, segment, "behavioural_life").astype(np.int64)
     remaining = remaining_life(chunk, as_of, behavioural)
     io_months = chunk["interest_only_months"].to_numpy(float)
+    # a HELOC pays interest only through its draw period, then amortises over its repayment period
+    draw_left = np.where(code == cashflows.HELOC,
+                         np.maximum(np.nan_to_num(_number(chunk, "draw_period_months")) - age, 0), 0).astype(np.int64)
+    draw_left = np.minimum(draw_left, np.maximum(remaining - 1, 0))  # intake refuses a draw period to maturity
     io_left = np.where(
         code == cashflows.INTEREST_ONLY,
         np.where(np.isnan(io_months), remaining, np.maximum(np.nan_to_num(io_months) - age, 0)),
-        0,
+        draw_left,
     ).astype(np.int64)
     # a delinquent loan pays nothing on its way to its loss event: its balance is held as in
     # interest-only months (the charge-off threshold of a roll-rate segment, else the default one)
@@ -225,7 +230,8 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
             ccf[mask] = curves.ccf_by_days_past_due(dpd[mask], *buckets)
     return LoanTerms(
         segment=segment, repayment=repayment, code=code, balance=chunk["balance"].to_numpy(float), rate=rate,
-        eir=eir, age=age, behavioural=behavioural, remaining=remaining, held=held, io_left=io_left,
+        eir=eir, age=age, behavioural=behavioural, remaining=remaining, held=held, draw_left=draw_left,
+        io_left=io_left,
         residual=residual,
         payment=np.where(code == cashflows.LEVEL, chunk["payment"].to_numpy(float), np.nan),
         curve=curve, prepay=prepay, prepay_offset=prepay_offset,
@@ -277,7 +283,9 @@ def _undrawn_amounts(chunk: pd.DataFrame, terms: LoanTerms, prep: Prepared) -> t
     loan's balance) and its undrawn amount, after checking that every segment holding undrawn
     amounts states its CCF and whether the lender can cancel them (intake refuses such a
     segment first; a direct caller of the engine gets this)."""
-    lines = (terms.repayment == "revolving") | terms.off_balance
+    # the undrawn limit is exposure on a revolving line, on a HELOC through its draw period, and
+    # the whole amount of a commitment or guarantee
+    lines = (terms.repayment == "revolving") | (terms.draw_left > 0) | terms.off_balance
     limit = np.where(lines, np.nan_to_num(chunk["credit_limit"].to_numpy(float)), terms.balance)
     undrawn = np.maximum(limit - terms.balance, 0.0)
     for key, values in (("ccf", terms.ccf), ("unconditionally_cancellable", terms.cancellable)):
@@ -306,7 +314,8 @@ def _framework_inputs(chunk: pd.DataFrame, terms: LoanTerms, stage: np.ndarray |
         horizon=np.zeros((n_fw, n), dtype=np.int64),
         ead_add=np.zeros((n_fw, n)), paydown=np.zeros((n_fw, n)), discount=np.ones((n_fw, n)),
         interest=np.zeros((n_fw, n)), undrawn_add=np.zeros((n_fw, n)), prepay=np.tile(terms.prepay, (n_fw, 1)),
-        add_months=np.tile(np.where(revolving, terms.behavioural, terms.remaining), (n_fw, 1)),
+        add_months=np.tile(np.where(revolving, terms.behavioural,
+                                    np.where(terms.code == cashflows.HELOC, terms.draw_left, terms.remaining)), (n_fw, 1)),
     )
     # one default definition: a roll-rate loan in default keeps its bucket's chance of reaching
     # charge-off unless it is past the threshold or flagged (staging.loss_event_now)
@@ -439,7 +448,9 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     balance = np.where(amortising & (terms.io_left[rows] == 0),
                        poci.purchase_balance(terms.balance[rows], terms.rate[rows], payment, age), terms.balance[rows])
     io_months = _number(chunk, "interest_only_months")[rows]
-    io_left = np.where(code == cashflows.INTEREST_ONLY, np.where(np.isnan(io_months), months, io_months), 0)
+    draw = np.nan_to_num(_number(chunk, "draw_period_months")[rows])
+    io_left = np.where(code == cashflows.INTEREST_ONLY, np.where(np.isnan(io_months), months, io_months),
+                       np.where(code == cashflows.HELOC, draw, 0))
     curve = fw.curve[:, rows].copy()
     for name, ts in prep.structures.items():  # an age-indexed curve starts again at age 0
         if ts.source == "pd_curve_by_age":

@@ -51,7 +51,8 @@ CODES: dict[str, str] = {
     "matured": "term loan matured on or before the as-of date with no balance left",
     "wrong_field_count": "the line has a different number of fields from the header",
     "matured_with_balance": "term loan past maturity still carrying a balance (one-month horizon)",
-    "over_limit": "revolving balance above the credit limit",
+    "over_limit": "revolving or HELOC balance above the credit limit",
+    "draw_period_to_maturity": "HELOC whose draw period reaches its maturity (no repayment period)",
     "missing_amortization": "balloon loan with no balloon_amount or amortization_months, in a segment without one",
     "revolving_on_vintage_curve": "a revolving line in a segment that uses a vintage loss curve",
     "line_break_in_value": "{column} holds a line break: a quote closed in the wrong place (rejected in our columns)",
@@ -390,7 +391,7 @@ def dates(cols: TapeColumns) -> Iterator[Findings]:
     rows = np.flatnonzero(term & maturity.blank)
     if rows.size:
         about = _about(FIELDS["maturity_date"])
-        message = f"maturity_date is blank but required for level, interest_only and balloon loans ({about})"
+        message = f"maturity_date is blank but required for level, interest_only, balloon and heloc loans ({about})"
         yield _findings(rows, "maturity_date", "missing_value", [message] * rows.size)
 
     valid_balance = ~balance.blank & ~balance.bad
@@ -479,17 +480,20 @@ def commitments(cols: TapeColumns) -> Iterator[Findings]:
 
 
 def revolving_lines(cols: TapeColumns) -> Iterator[Findings]:
-    """Revolving lines need a credit limit; a balance above it is flagged, not rejected."""
+    """Revolving lines and HELOCs need a credit limit; a balance above it is flagged, not rejected."""
     repayment = cols.parsed["repayment"]
     limit = cols.parsed["credit_limit"]
     balance = cols.parsed["balance"]
     revolving = np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
+    heloc = np.asarray(pc.fill_null(pc.equal(repayment.values, "heloc"), False))
+    for lines, what in ((revolving, "revolving lines"), (heloc, "HELOCs (the undrawn limit is exposure in the draw period)")):
+        rows = np.flatnonzero(lines & limit.blank)
+        if rows.size:
+            message = f"credit_limit is blank but required for {what} ({_about(FIELDS['credit_limit'])})"
+            yield _findings(rows, "credit_limit", "missing_value", [message] * rows.size)
+    revolving = revolving | heloc
     if not revolving.any():
         return
-    rows = np.flatnonzero(revolving & limit.blank)
-    if rows.size:
-        message = f"credit_limit is blank but required for revolving lines ({_about(FIELDS['credit_limit'])})"
-        yield _findings(rows, "credit_limit", "missing_value", [message] * rows.size)
     both = revolving & ~limit.blank & ~limit.bad & ~balance.blank & ~balance.bad
     with np.errstate(invalid="ignore"):
         rows = np.flatnonzero(both & (balance.values > limit.values) & (limit.values >= 0))
@@ -499,6 +503,35 @@ def revolving_lines(cols: TapeColumns) -> Iterator[Findings]:
             for b, c in zip(balance.values[rows], limit.values[rows])
         ]
         yield _findings(rows, "balance", "over_limit", messages, "warning")
+
+
+def heloc_terms(cols: TapeColumns) -> Iterator[Findings]:
+    """A HELOC needs its draw period (``draw_period_months``), shorter than its term: the draw
+    period is interest only, the repayment period after it amortises to maturity."""
+    repayment = cols.parsed["repayment"]
+    heloc = np.asarray(pc.fill_null(pc.equal(repayment.values, "heloc"), False))
+    if not heloc.any():
+        return
+    draw = cols.parsed["draw_period_months"]
+    rows = np.flatnonzero(heloc & draw.blank)
+    if rows.size:
+        message = f"draw_period_months is blank but required for HELOCs ({_about(FIELDS['draw_period_months'])})"
+        yield _findings(rows, "draw_period_months", "missing_value", [message] * rows.size)
+    origination, maturity = cols.parsed["origination_date"], cols.parsed["maturity_date"]
+    dated = ~origination.blank & ~origination.bad & ~maturity.blank & ~maturity.bad
+    known = heloc & dated & ~draw.blank & ~draw.bad
+    if not known.any():
+        return
+    start = origination.values.astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
+    end = maturity.values.astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
+    term = end - start  # whole calendar months from origination to maturity
+    with np.errstate(invalid="ignore"):
+        rows = np.flatnonzero(known & (draw.values >= term))
+    if rows.size:
+        messages = [f"draw_period_months {int(d)} reaches the maturity {m} ({int(t)} months after origination): "
+                    "a HELOC repays over the months after its draw period (shorten it, or use interest_only)"
+                    for d, t, m in zip(draw.values[rows], term[rows], _date_text(maturity.values[rows]))]
+        yield _findings(rows, "draw_period_months", "draw_period_to_maturity", messages)
 
 
 def balloon_terms(cols: TapeColumns) -> Iterator[Findings]:
@@ -566,13 +599,14 @@ def commitment_requirements(cols: TapeColumns, file: str | None = None) -> None:
 
     Neither has a safe default: a non-cancellable commitment taken as cancellable would carry
     no CECL reserve on its undrawn part (ASC 326-20-30-11), and a CCF of 0 none under IFRS 9
-    (B5.5.31). A row holds undrawn amounts when it is a revolving line with a credit limit
-    above its balance, or a standalone commitment or guarantee (``facility_type``).
+    (B5.5.31). A row holds undrawn amounts when it is a revolving line or a HELOC with a credit
+    limit above its balance, or a standalone commitment or guarantee (``facility_type``).
     """
     repayment = cols.parsed["repayment"]
     facility = cols.parsed["facility_type"]
     limit, balance = cols.parsed["credit_limit"], cols.parsed["balance"]
-    revolving = np.asarray(pc.fill_null(pc.equal(repayment.values, "revolving"), False))
+    # a HELOC's undrawn limit is exposure in its draw period, as a revolving line's
+    revolving = np.asarray(pc.fill_null(pc.is_in(repayment.values, value_set=pa.array(["revolving", "heloc"])), False))
     off = np.asarray(pc.fill_null(pc.is_in(facility.values, value_set=pa.array(list(OFF_BALANCE_FACILITIES))), False))
     with np.errstate(invalid="ignore"):
         above = ~limit.blank & ~limit.bad & (limit.values > np.where(balance.blank | balance.bad, 0.0, balance.values))
@@ -662,8 +696,8 @@ def purchased_credit_impaired(cols: TapeColumns) -> Iterator[Findings]:
 
 #: The rules, in the order their findings are listed for a row.
 ROW_RULES: tuple[Rule, ...] = (
-    field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines, commitments, balloon_terms,
-    vintage_segments, purchased_credit_impaired,
+    field_rules, duplicate_ids, unknown_segments, grades, dates, revolving_lines, heloc_terms, commitments,
+    balloon_terms, vintage_segments, purchased_credit_impaired,
 )
 
 
