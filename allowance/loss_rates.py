@@ -292,10 +292,11 @@ class LossRateInputs:
     ``vintage_curve``), ``original_balance`` (vintage), ``age`` (months since origination),
     ``default_lgd`` (LGD for a loan in default; NaN: it stays in the pool), and the schedule
     inputs as in :class:`allowance.ecl.KernelInputs`: ``code, balance, rate`` (monthly),
-    ``months_left, io_left, residual, payment`` (NaN = recompute), ``prepay`` and
-    ``prepay_offset`` (row and start column of ``smm``).
+    ``months_left, io_left, residual, payment`` (NaN = recompute), ``prepay`` (row of ``smm``,
+    per loan or per framework and loan ``[F, n]``) and ``prepay_offset`` (start column).
     Per framework and loan ``[F, n]``: ``in_default``, ``horizon``, ``ead_add``, ``paydown``,
-    ``discount`` (monthly discount multiplier v, 1 where the framework does not discount).
+    ``discount`` (monthly discount multiplier v, 1 where the framework does not discount),
+    optionally ``add_months`` (the months in which ``ead_add`` is exposure; None: every month).
     Tables: ``multiplier[F, T, S]`` (loss-rate multiplier, :func:`loss_rate_multipliers`),
     ``lgd_multiplier[F, T, S]`` (for loans in default), ``vintage_curve[V, A]`` (C by month
     of age, ``A`` > oldest age + T), ``smm[P, L]``.
@@ -325,6 +326,7 @@ class LossRateInputs:
     lgd_multiplier: np.ndarray
     vintage_curve: np.ndarray
     smm: np.ndarray
+    add_months: np.ndarray | None = None  # [F, n]: the months in which ead_add is exposure (None: every month)
 
 
 @dataclass(frozen=True)
@@ -346,7 +348,7 @@ def _expected_balance(t, io, balance, x, annuity, pay):
 def _loop(
     method, loss_rate, vintage, original_balance, age, default_lgd, code, balance, rate, months_left,
     io_left, residual, payment, prepay, prepay_offset, in_default, horizon, ead_add, paydown, discount,
-    multiplier, lgd_multiplier, vintage_curve, smm, block, first, last, ecl12, ecllife, ead0,
+    multiplier, lgd_multiplier, vintage_curve, smm, add_months, block, first, last, ecl12, ecllife, ead0,
 ):
     n = balance.shape[0]
     n_fw = multiplier.shape[0]
@@ -358,8 +360,10 @@ def _loop(
         for i in range(b * block, min(n, (b + 1) * block)):
             c, m, b0, r, io = code[i], method[i], balance[i], rate[i], io_left[i]
             level = contractual_payment(c, b0, r, months_left[i], io, residual[i], payment[i])
-            p, off, a = prepay[i], prepay_offset[i], age[i]
+            off, a = prepay_offset[i], age[i]
             for f in range(n_fw):
+                p = prepay[f, i]  # a line a framework runs off takes no payoff SMM on top
+                add_m = add_months[f, i]
                 add = ead_add[f, i]
                 ead = b0 + add
                 ead0[i, f] = ead
@@ -378,7 +382,7 @@ def _loop(
                     total = 0.0
                     x, annuity, kept = 1.0, 0.0, 1.0
                     for t in range(h):
-                        total += (_expected_balance(t, io, b0, x, annuity, pay) + add) * kept
+                        total += (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else 0.0)) * kept
                         if t >= io:
                             x *= growth
                             annuity = annuity * growth + 1.0
@@ -398,7 +402,7 @@ def _loop(
                         hi = min(a + t + 1, last_age)
                         loss = original_balance[i] * (vintage_curve[vintage[i], hi] - vintage_curve[vintage[i], lo])
                     else:
-                        loss = scale * (_expected_balance(t, io, b0, x, annuity, pay) + add) * kept
+                        loss = scale * (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else 0.0)) * kept
                         if t >= io:
                             x *= growth
                             annuity = annuity * growth + 1.0
@@ -418,7 +422,8 @@ def _loop(
 
 
 _FIELDS = [f.name for f in fields(LossRateInputs)]
-_INTEGER = {"method", "vintage", "age", "code", "months_left", "io_left", "prepay", "prepay_offset", "horizon"}
+_INTEGER = {"method", "vintage", "age", "code", "months_left", "io_left", "prepay", "prepay_offset", "horizon",
+            "add_months"}
 
 
 def _checked(inputs: LossRateInputs) -> dict[str, np.ndarray]:
@@ -427,14 +432,21 @@ def _checked(inputs: LossRateInputs) -> dict[str, np.ndarray]:
     a = {}
     for name in _FIELDS:
         dtype = np.int64 if name in _INTEGER else (np.bool_ if name == "in_default" else np.float64)
-        a[name] = np.ascontiguousarray(getattr(inputs, name), dtype=dtype)
+        value = getattr(inputs, name)
+        if name == "add_months" and value is None:  # the add-on in every month
+            value = np.full(np.shape(inputs.horizon), np.iinfo(np.int64).max)
+        if name == "prepay" and np.ndim(value) == 1:  # one row per loan, the same in every framework
+            value = np.broadcast_to(value, np.shape(inputs.horizon))
+        a[name] = np.ascontiguousarray(value, dtype=dtype)
     n = a["balance"].shape[0]
     n_fw, n_months, n_sc = a["multiplier"].shape
     problems = []
     for name in _FIELDS[:15]:
+        if name == "prepay":
+            continue
         if a[name].shape != (n,):
             problems.append(f"{name} has shape {a[name].shape}, not (loans,) = {(n,)}")
-    for name in ("in_default", "horizon", "ead_add", "paydown", "discount"):
+    for name in ("prepay", "in_default", "horizon", "ead_add", "paydown", "discount", "add_months"):
         if a[name].shape != (n_fw, n):
             problems.append(f"{name} has shape {a[name].shape}, not (frameworks, loans) = {(n_fw, n)}")
     if a["lgd_multiplier"].shape != (n_fw, n_months, n_sc):

@@ -540,6 +540,15 @@ def contract_loans(draw, repayment: str | None = None, zero_rate: bool = False) 
     return loan
 
 
+@_st_cf.composite
+def runoff_lines(draw) -> dict:
+    """A revolving line's measured balance, its monthly paydown share (0 to 1) and a run-off
+    floor (0: to the end), as ``cashflows.runoff_months`` takes them."""
+    return {"balance": draw(_st_cf.floats(min_value=0.0, max_value=1e7)),
+            "paydown": draw(_st_cf.floats(min_value=0.0, max_value=1.0)),
+            "floor": draw(_st_cf.one_of(_st_cf.just(0.0), _st_cf.floats(min_value=0.0, max_value=0.5)))}
+
+
 #: monthly prepayment (SMM) or marginal default rates: none, or up to 10 % a month
 monthly_rates = _st_cf.one_of(_st_cf.just(0.0), _st_cf.floats(min_value=0.0, max_value=0.1))
 

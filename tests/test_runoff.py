@@ -16,10 +16,10 @@ import numpy as np
 import pandas as pd
 import pytest
 from hypothesis import given, settings
-from hypothesis import strategies as st
 
 from allowance import cashflows, engine
 from allowance.schemas import OPTIONAL_COLUMNS, Assumptions, LoanRecord, RunConfig
+from tests.strategies import runoff_lines
 
 B, P, LGD, PD_12M = 1_000.0, 0.06, 0.8, 0.05
 H = 1.0 - (1.0 - PD_12M) ** (1.0 / 12.0)  # constant monthly hazard of a 12-month PD (common practice, no source)
@@ -134,8 +134,9 @@ def test_a_delinquent_card_pays_nothing_on_its_way_to_charge_off():
 
 
 @settings(max_examples=60, deadline=None)
-@given(balance=st.floats(0.0, 1e7), paydown=st.floats(0.0, 1.0), floor=st.floats(0.0, 0.5))
-def test_the_run_off_never_rises_never_goes_negative_and_ends_below_its_floor(balance, paydown, floor):
+@given(runoff_lines())
+def test_the_run_off_never_rises_never_goes_negative_and_ends_below_its_floor(line):
+    balance, paydown, floor = line["balance"], line["paydown"], line["floor"]
     n = int(cashflows.runoff_months(np.array([balance]), np.array([paydown]), floor, 1200)[0])
     s = cashflows.schedule("revolving", balance, 0.0, n, paydown=paydown)
     closing = s["closing_balance"].to_numpy()

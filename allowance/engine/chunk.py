@@ -731,11 +731,11 @@ def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: 
             vintage=np.full(n, tables.vintage[name]), original_balance=np.nan_to_num(original[rows]),
             age=terms.age[rows], default_lgd=terms.lgd[rows], code=terms.code[rows], balance=terms.balance[rows],
             rate=terms.rate[rows], months_left=terms.remaining[rows], io_left=terms.io_left[rows],
-            residual=terms.residual[rows], payment=terms.payment[rows], prepay=terms.prepay[rows],
+            residual=terms.residual[rows], payment=terms.payment[rows], prepay=fw.prepay[:, rows],
             prepay_offset=terms.prepay_offset[rows], in_default=fw.in_default[:, rows], horizon=fw.horizon[:, rows],
             ead_add=fw.ead_add[:, rows], paydown=fw.paydown[:, rows], discount=fw.discount[:, rows],
             multiplier=tables.multiplier[name], lgd_multiplier=prep.lgd_multiplier, vintage_curve=tables.curve,
-            smm=prep.smm,
+            smm=prep.smm, add_months=fw.add_months[:, rows],
         )
         parts.append((rows, loss_rates.loss_rate_losses(inputs)))
     return parts or None
