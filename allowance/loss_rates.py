@@ -327,6 +327,7 @@ class LossRateInputs:
     vintage_curve: np.ndarray
     smm: np.ndarray
     add_months: np.ndarray | None = None  # [F, n]: the months in which ead_add is exposure (None: every month)
+    add_after: np.ndarray | None = None  # [F, n]: the add-on after those months (accrued interest; None: 0)
 
 
 @dataclass(frozen=True)
@@ -348,7 +349,7 @@ def _expected_balance(t, io, balance, x, annuity, pay):
 def _loop(
     method, loss_rate, vintage, original_balance, age, default_lgd, code, balance, rate, months_left,
     io_left, residual, payment, prepay, prepay_offset, in_default, horizon, ead_add, paydown, discount,
-    multiplier, lgd_multiplier, vintage_curve, smm, add_months, block, first, last, ecl12, ecllife, ead0,
+    multiplier, lgd_multiplier, vintage_curve, smm, add_months, add_after, block, first, last, ecl12, ecllife, ead0,
 ):
     n = balance.shape[0]
     n_fw = multiplier.shape[0]
@@ -363,7 +364,7 @@ def _loop(
             off, a = prepay_offset[i], age[i]
             for f in range(n_fw):
                 p = prepay[f, i]  # a line a framework runs off takes no payoff SMM on top
-                add_m = add_months[f, i]
+                add_m, add_a = add_months[f, i], add_after[f, i]
                 add = ead_add[f, i]
                 ead = b0 + add
                 ead0[i, f] = ead
@@ -382,7 +383,7 @@ def _loop(
                     total = 0.0
                     x, annuity, kept = 1.0, 0.0, 1.0
                     for t in range(h):
-                        total += (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else 0.0)) * kept
+                        total += (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else add_a)) * kept
                         if t >= io:
                             x *= growth
                             annuity = annuity * growth + 1.0
@@ -402,7 +403,7 @@ def _loop(
                         hi = min(a + t + 1, last_age)
                         loss = original_balance[i] * (vintage_curve[vintage[i], hi] - vintage_curve[vintage[i], lo])
                     else:
-                        loss = scale * (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else 0.0)) * kept
+                        loss = scale * (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else add_a)) * kept
                         if t >= io:
                             x *= growth
                             annuity = annuity * growth + 1.0
@@ -435,6 +436,8 @@ def _checked(inputs: LossRateInputs) -> dict[str, np.ndarray]:
         value = getattr(inputs, name)
         if name == "add_months" and value is None:  # the add-on in every month
             value = np.full(np.shape(inputs.horizon), np.iinfo(np.int64).max)
+        if name == "add_after" and value is None:  # nothing after the add-on's months
+            value = np.zeros(np.shape(inputs.horizon))
         if name == "prepay" and np.ndim(value) == 1:  # one row per loan, the same in every framework
             value = np.broadcast_to(value, np.shape(inputs.horizon))
         a[name] = np.ascontiguousarray(value, dtype=dtype)
@@ -446,7 +449,7 @@ def _checked(inputs: LossRateInputs) -> dict[str, np.ndarray]:
             continue
         if a[name].shape != (n,):
             problems.append(f"{name} has shape {a[name].shape}, not (loans,) = {(n,)}")
-    for name in ("prepay", "in_default", "horizon", "ead_add", "paydown", "discount", "add_months"):
+    for name in ("prepay", "in_default", "horizon", "ead_add", "paydown", "discount", "add_months", "add_after"):
         if a[name].shape != (n_fw, n):
             problems.append(f"{name} has shape {a[name].shape}, not (frameworks, loans) = {(n_fw, n)}")
     if a["lgd_multiplier"].shape != (n_fw, n_months, n_sc):

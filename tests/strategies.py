@@ -692,6 +692,7 @@ def commitment_books(draw, max_loans: int = 30):
         "segments": {"lines": line_segment(False), "secured": line_segment(True),
                      "term": {"pd_12m": 0.03, "lgd": 0.4, "cpr": 0.05}},
         "ifrs9": {"accrued_interest": "all", "sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"}, "cecl": {"reasonable_supportable_months": 12, "reversion_months": 6,
+                 "payment_allocation": "measured_balance_first",
                               "discount": draw(_st_cm.booleans())},
         "scenarios": {"base": {"weight": 0.7}, "down": {"weight": 0.3, "pd_multiplier": [1.8, 1.3],
                                                          "lgd_multiplier": [1.2]}},

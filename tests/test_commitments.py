@@ -35,7 +35,8 @@ def _config(cancellable: bool | None = True, **segment) -> RunConfig:
         "run": {"as_of": "2026-09-30", "frameworks": ["ifrs9", "cecl"]},
         "segments": {"cards": {k: v for k, v in cards.items() if v is not None}},
         "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
-        "cecl": {"reasonable_supportable_months": 12, "reversion_months": 6},
+        "cecl": {"reasonable_supportable_months": 12, "reversion_months": 6,
+                 "payment_allocation": "measured_balance_first"},
         "scenarios": {"base": {"weight": 1.0}},
     }))
 
@@ -182,7 +183,8 @@ def test_command_line_writes_the_split(tmp_path):
         '[run]\nas_of = 2026-09-30\nframeworks = ["ifrs9", "cecl"]\ncurrency = "USD"\n\n'
         "[segments.cards]\npd_12m = 0.04\nlgd = 0.8\nccf = 0.5\nbehavioural_life_months = 24\n"
         "payment_rate = 0.05\nunconditionally_cancellable = false\n\n[ifrs9]\nsicr_pd_ratio = 2.0\nsicr_pd_measure = \"12_month\"\n\n"
-        "[cecl]\nreasonable_supportable_months = 12\nreversion_months = 6\n\n[scenarios.base]\nweight = 1.0\n",
+        "[cecl]\nreasonable_supportable_months = 12\nreversion_months = 6\n"
+        'payment_allocation = "measured_balance_first"\n\n[scenarios.base]\nweight = 1.0\n',
         encoding="utf-8")
     out = tmp_path / "out"
     done = subprocess.run([sys.executable, "-m", "allowance", "run", str(tape), "--assumptions", str(assumptions),

@@ -703,7 +703,7 @@ def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, k: KernelRe
     ecl_12m[rows], ecl_lifetime[rows] = d.ecl_12m, d.ecl_lifetime
     lines = chunk["segment"].to_numpy()[rows]
     if prep.loss_rates is not None and np.isin(lines, list(prep.loss_rates.method)).any():
-        for part, lr in _loss_rate_loans(chunk, prep, c.terms, dataclasses.replace(fw, ead_add=drawn_add)) or ():
+        for part, lr in _loss_rate_loans(chunk, prep, c.terms, dataclasses.replace(fw, ead_add=drawn_add, undrawn_add=np.zeros_like(drawn_add))) or ():
             ecl_12m[part], ecl_lifetime[part] = lr.ecl_12m, lr.ecl_lifetime
     return _DrawnOnly(ecl_12m, ecl_lifetime)
 
@@ -735,7 +735,7 @@ def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: 
             prepay_offset=terms.prepay_offset[rows], in_default=fw.in_default[:, rows], horizon=fw.horizon[:, rows],
             ead_add=fw.ead_add[:, rows], paydown=fw.paydown[:, rows], discount=fw.discount[:, rows],
             multiplier=tables.multiplier[name], lgd_multiplier=prep.lgd_multiplier, vintage_curve=tables.curve,
-            smm=prep.smm, add_months=fw.add_months[:, rows],
+            smm=prep.smm, add_months=fw.add_months[:, rows], add_after=(fw.ead_add - fw.undrawn_add)[:, rows],
         )
         parts.append((rows, loss_rates.loss_rate_losses(inputs)))
     return parts or None
