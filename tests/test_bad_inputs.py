@@ -200,6 +200,11 @@ def heloc(limit: str, draw: str) -> Callable[[list[str]], list[str]]:
     return edit
 
 
+def heloc_segment(text: str) -> str:
+    """The HELOC segment stating its CCF and that its lines are not unconditionally cancellable."""
+    return text.replace("[segments.heloc]\n", "[segments.heloc]\nccf = 0.5\nunconditionally_cancellable = false\n", 1)
+
+
 def copies(lines: list[str], n: int) -> list[str]:
     """The book ``n`` times over, each copy's loan_ids made unique with a suffix."""
     return [lines[0], *(line.replace(",", f"-{i},", 1) for i in range(n) for line in lines[1:])]
@@ -928,14 +933,18 @@ CASES: list[Case] = [
     Case("every row rejected", "every balance is -1", "run", 1, ("every one of the 24 rows was rejected", "out_of_range"),
          tape=lambda t: [t[0], *(cell([t[0], line], 1, "balance", "-1")[1] for line in t[1:])], then=no_output),
     Case("HELOC without a credit limit", "repayment heloc, credit_limit blank", "check", 1,
-         ("credit_limit is blank but required for HELOCs",), (24, 23, 1), tape=heloc("", "120")),
+         ("credit_limit is blank but required for HELOCs",), (24, 23, 1), tape=heloc("", "120"), toml=heloc_segment),
     Case("HELOC without a draw period", "repayment heloc, draw_period_months blank", "check", 1,
-         ("draw_period_months is blank but required for HELOCs",), (24, 23, 1), tape=heloc("150000", "")),
+         ("draw_period_months is blank but required for HELOCs",), (24, 23, 1), tape=heloc("150000", ""),
+         toml=heloc_segment),
     Case("HELOC draw period to maturity", "a 300-month draw period on a 300-month HELOC", "check", 1,
          ("draw_period_months 300 reaches the maturity 2036-07-01", "no repayment period"), (24, 23, 1),
-         tape=heloc("150000", "300")),
+         tape=heloc("150000", "300"), toml=heloc_segment),
     Case("HELOC draw period not a whole number", "draw_period_months 12.5", "check", 1,
-         ("draw_period_months",), (24, 23, 1), tape=heloc("150000", "12.5")),
+         ("draw_period_months",), (24, 23, 1), tape=heloc("150000", "12.5"), toml=heloc_segment),
+    Case("HELOC segment without a CCF", "a HELOC in its draw period; [segments.heloc] states no ccf", "check", 1,
+         ("column segments.heloc.ccf", "holds 1 row(s) with undrawn amounts (tape lines 14)"),
+         tape=heloc("150000", "120")),
     Case("--charge-offs without --prior", "--charge-offs given, no --prior", "run", 2,
          ("--charge-offs", "needs --prior"),
          args=lambda ws: ["run", ws.tape, "-a", ws.toml, "--charge-offs", charge_offs(ws), "--out", ws.out]),
