@@ -87,7 +87,9 @@ def _drawn_undrawn(sheet: Sheet, r: int, report: RunReport, refs: LoanRefs, led:
         provision = led.put(sheet, r, 5, refs.total(f"provision_{f}"), "money")
         against = led.local(sheet, modelled) - led.local(sheet, provision)
         led.put(sheet, r, 6, Figure(f"={modelled}-{provision}", round(against, 2)), "money")
-        sheet.put(r, 7, FRAMEWORK_RULES[f].provision_account, "text")
+        # wrapped in the column the tables above and below size (coverage): the long account name
+        # would otherwise widen it and shrink the whole printed page
+        sheet.put(r, 7, FRAMEWORK_RULES[f].provision_account, "wrap", fit=False)
         r += 1
     return r + 1
 
