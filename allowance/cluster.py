@@ -48,7 +48,16 @@ class DaskMap:
             kwargs = {k: self._shared(v) for k, v in fn.keywords.items()}
         # pure=False: two chunks with equal loans are still two tasks, placed by position
         futures = [self.client.submit(func, *args, item, pure=False, **kwargs) for item in items]
-        return (future.result() for future in futures)
+        return self._in_order(futures)
+
+    @staticmethod
+    def _in_order(futures: list) -> Iterator:
+        """Each result in turn, its future let go once taken: a worker holds a task's result
+        until no client refers to it, so a whole pass's results would otherwise stay there."""
+        for i in range(len(futures)):
+            future, futures[i] = futures[i], None
+            yield future.result()
+            del future
 
     def _shared(self, value: Any) -> Any:
         """``value`` on every worker, as a future (in a list: ``scatter`` would take a dict's
