@@ -7,7 +7,7 @@ Run from the repository root (not collected by pytest; needs the ``dask`` extra)
     python tests/bench/bench_cluster.py --loans 10000000 --workers 2 --chunk-size 250000
 
     python tests/bench/bench_cluster.py --book 1000000 2000000 --workers 2   # a partitioned book
-    python tests/bench/bench_cluster.py --book 10000000 --workers 2           # (10M: ~10 min, both cores)
+    python tests/bench/bench_cluster.py --book 10000000 --workers 2           # (10M: ~5 min on both cores)
 
 The book is ``bench_engine``'s mixed book (mortgages, auto loans, cards; three scenarios).
 Figures printed, each the best of ``--repeat`` after one warm-up run (which pays the cluster's
