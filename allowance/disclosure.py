@@ -7,6 +7,7 @@ ifrs7_35m         gross carrying amount by credit grade and stage (stage 1/2/3, 
 asc326_vintage    amortised cost by credit quality indicator and year of origination, with the
                   period's gross write-offs by year of origination (ASU 2022-02)
 disclosure_tables the tables a run's frameworks ask for, by name (``ifrs7_35m``, ``asc326_vintage``)
+sorted_categorical codes over labels as a categorical sorted by the labels' text (grouping, here and in the totals)
 
 Both are sums of the rounded loan figures in whole cents, so each foots to the run's total
 balance. The gross carrying amount and the amortised cost are the tape's outstanding
@@ -33,7 +34,7 @@ import pandas as pd
 from allowance.frameworks import rules_for
 from allowance.staging import STAGE_CLASSES, stage_class_codes
 
-__all__ = ["DPD_BANDS", "asc326_vintage", "credit_quality", "disclosure_tables", "ifrs7_35m"]
+__all__ = ["DPD_BANDS", "asc326_vintage", "credit_quality", "disclosure_tables", "ifrs7_35m", "sorted_categorical"]
 
 #: Days-past-due bands used as the credit quality indicator where there is no grade.
 DPD_BANDS: tuple[tuple[int, str], ...] = (
@@ -51,6 +52,25 @@ def _coded(values) -> Coded:
     """Integer codes and labels of a column, factorised once (fast on Arrow strings)."""
     codes, uniques = pd.factorize(values, use_na_sentinel=True)
     return np.asarray(codes, dtype=np.int64), np.array([str(u) for u in uniques], dtype=object)
+
+
+def sorted_categorical(codes, labels) -> pd.Categorical:
+    """Codes over ``labels`` as a categorical whose categories are the distinct labels as text,
+    sorted: a group-by on it orders as one on the text would (two codes may name one label);
+    code -1 stays missing.
+
+    Examples
+    --------
+    >>> sorted_categorical(np.array([0, 1, -1, 2]), ["b", "a", "b"]).tolist()
+    ['b', 'a', nan, 'b']
+    """
+    names = np.array([str(v) for v in list(labels)], dtype=object)
+    codes = np.asarray(codes, dtype=np.int64)
+    if not len(names):
+        return pd.Categorical.from_codes(np.full(len(codes), -1), categories=pd.Index([], dtype=object))
+    distinct, where = np.unique(names.astype(str), return_inverse=True)
+    mapped = np.where(codes >= 0, where.reshape(-1)[np.maximum(codes, 0)], -1)
+    return pd.Categorical.from_codes(mapped, categories=pd.Index(distinct.tolist(), dtype=object))
 
 
 def _constant(label: str, n: int) -> Coded:
@@ -102,12 +122,7 @@ def _sum_cents(keys: dict[str, Coded], across: Coded, columns: list[str], cents:
     """Cents summed by the ``keys`` (one row per combination present, in sorted order) and by
     ``across`` (the ``columns``, in that order, 0 where none): the table of
     ``pivot_table(aggfunc="sum")`` over the labels, grouped on integer codes."""
-    frame = {}
-    for name, (codes, labels) in keys.items():
-        # sorted, distinct labels (the pivot's order; two codes may name one label)
-        distinct, where = np.unique(labels.astype(str), return_inverse=True)
-        codes = np.where(codes >= 0, where.reshape(-1)[codes], -1) if len(labels) else codes
-        frame[name] = pd.Categorical.from_codes(codes, categories=pd.Index(distinct.tolist(), dtype=object))
+    frame = {name: sorted_categorical(codes, labels) for name, (codes, labels) in keys.items()}
     a_codes, a_labels = across
     place = np.array([columns.index(x) if x in columns else -1 for x in a_labels.tolist()] + [-1], dtype=np.int64)
     frame["_across"] = pd.Categorical.from_codes(place[a_codes], categories=pd.Index(list(columns), dtype=object))

@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from allowance.disclosure import sorted_categorical
 from allowance.exceptions import AllowanceError
 from allowance.frameworks import rules_for
 from allowance.intake import IntakeResult, TieOut, check_table
@@ -33,17 +34,6 @@ __all__ = ["CheckResult", "Result", "totals_table"]
 
 TOTAL = "Total"
 LOAN_COUNT = "loan_count"  # the loans in a row of a book's loan sums (allowance.partitioned.COUNT)
-
-
-def _sorted_categories(codes: np.ndarray, labels) -> pd.Categorical:
-    """Codes over ``labels`` as a categorical whose categories are the labels as text, sorted
-    (a group-by on it orders as one on the text would); code -1 stays missing."""
-    names = [str(v) for v in list(labels)]
-    distinct, where = np.unique(np.array(names + [""], dtype=object).astype(str), return_inverse=True)
-    where = where.reshape(-1)[:-1] if names else np.zeros(0, np.int64)
-    codes = np.asarray(codes, dtype=np.int64)
-    mapped = np.where(codes >= 0, where[np.maximum(codes, 0)] if len(where) else -1, -1)
-    return pd.Categorical.from_codes(mapped, categories=pd.Index(distinct.tolist(), dtype=object))
 
 
 def totals_table(loans: pd.DataFrame, frameworks: list[str], counts: str | None = None) -> pd.DataFrame:
@@ -68,7 +58,7 @@ def totals_table(loans: pd.DataFrame, frameworks: list[str], counts: str | None 
     rows = []
     # segments and stages as sorted codes, the money in whole cents per loan, one group-by:
     # no text per loan (a million loans' stage labels took a second)
-    segments = _sorted_categories(*pd.factorize(loans["segment"]))
+    segments = sorted_categorical(*pd.factorize(loans["segment"]))
     balance = np.rint(loans["balance"].to_numpy(dtype=np.float64) * 100.0).astype(np.int64)
     n = loans[counts].to_numpy(dtype=np.int64) if counts else np.ones(len(loans), np.int64)
     for fw in frameworks:
@@ -81,9 +71,9 @@ def totals_table(loans: pd.DataFrame, frameworks: list[str], counts: str | None 
             labels = [str(v) for v in values.tolist()] + ["POCI"]
             if "poci" in loans.columns:
                 codes = np.where(loans["poci"].to_numpy(dtype=bool), len(labels) - 1, codes)
-            stages = _sorted_categories(codes, labels)
+            stages = sorted_categorical(codes, labels)
         else:
-            stages = _sorted_categories(np.zeros(len(loans), np.int64), [TOTAL])
+            stages = sorted_categorical(np.zeros(len(loans), np.int64), [TOTAL])
         allowance = np.rint(loans[column].to_numpy(dtype=np.float64) * 100.0).astype(np.int64)
         frame = pd.DataFrame({"stage": stages, "segment": segments, "balance": balance, "allowance": allowance, "n": n})
         groups = [(["stage", "segment"], None)] if not staged else [(["stage", "segment"], None), (["stage"], TOTAL)]
