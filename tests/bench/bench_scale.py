@@ -14,7 +14,9 @@ quarter carries over loan by loan as in the demo. Every figure is a fresh proces
 figure                 yardstick                                 target
 =====================  ========================================  ======
 run                    Arrow floor: read the tape and write      2.5 x
-                       loans.csv with pyarrow alone
+                       loans.csv with pyarrow alone (the run's
+                       own loans.csv, 52 columns, loaded
+                       beforehand and not timed)
 run --prior            the plain run                              1.5 x
 compare                the plain run                              1.5 x
 what-if (weights)      the plain run                              0.5 x extra
@@ -123,10 +125,23 @@ def _wide(src: Path, dst: Path, loans: int, extra: int) -> None:
 
 
 _FLOOR = """
-import sys, pyarrow.csv as c
-t = c.read_csv(sys.argv[1])
-c.write_csv(t, sys.argv[2])
+import sys, time, pyarrow.csv as c
+loans = c.read_csv(sys.argv[2])  # the run's loans.csv, loaded before the clock starts
+start = time.perf_counter()
+tape = c.read_csv(sys.argv[1])
+if sys.argv[3] == "tape":
+    c.write_csv(tape, sys.argv[4])
+else:
+    c.write_csv(loans, sys.argv[4])
+print(time.perf_counter() - start)
 """
+
+
+def _floor(tape: Path, loans: Path, what: str, out: Path, repeat: int) -> float:
+    """Best of ``repeat``: pyarrow reading the tape and writing ``what`` ("loans": the run's
+    loans.csv, the yardstick; "tape": the tape itself, the narrower yardstick of earlier runs)."""
+    return min(float(subprocess.run([PY, "-c", _FLOOR, str(tape), str(loans), what, str(out)], check=True,
+                                    capture_output=True, text=True).stdout) for _ in range(repeat))
 
 
 def main() -> None:
@@ -155,11 +170,13 @@ def main() -> None:
         q3 = ["-a", str(DEMO / "assumptions_2026q3.toml")]
         env = {"SOURCE_DATE_EPOCH": "0"}
 
-        floor, _ = _timed([PY, "-c", _FLOOR, str(tape), str(work / "floor.csv")], repeat=args.repeat)
-        print(f"{'Arrow floor':26s} {floor:8.1f} s", flush=True)
         _timed([*allowance, "run", str(prior_tape), "-a", str(DEMO / "assumptions_2026q2.toml"), *common,
                 "--out", str(work / "prior")], env)
         plain, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--out", str(work / "plain")], env, args.repeat)
+        floor = _floor(tape, work / "plain" / "loans.csv", "loans", work / "floor.csv", args.repeat)
+        copy = _floor(tape, work / "plain" / "loans.csv", "tape", work / "floor.csv", args.repeat)
+        print(f"{'Arrow floor':26s} {floor:8.1f} s   (read the tape, write loans.csv; "
+              f"writing the tape back instead: {copy:.1f} s)", flush=True)
         row("run", plain, mb, "Arrow floor", floor, "<= 2.5")
         s, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--prior", str(work / "prior"),
                         "--out", str(work / "moved")], env, args.repeat)
