@@ -356,7 +356,9 @@ def run(
                                   progress=None).loans
         told("sensitivities", len(names), len(names))
         sensitivity = reconcile.sensitivity_table(result.loans, alone, config)
-    macro_paths = macro.macro_path_table(config.assumptions, engine.tape_months(taken.accepted, config))
+    # the months the engine's tables cover (a second tape_months costs seconds on a large book)
+    months = result.months if result.months is not None else engine.tape_months(taken.accepted, config)
+    macro_paths = macro.macro_path_table(config.assumptions, months)
     from allowance.curves import segment_roll_forecasts  # the balance roll-rate forecast, for the workbook
 
     roll_by_month, roll_check = segment_roll_forecasts(taken.accepted, config.assumptions.segments, result.loans)
@@ -371,8 +373,7 @@ def run(
         else:
             base = compute(taken.accepted, base_config, progress=None)
         what_if = reconcile.what_if_comparison(base.loans, result.loans, config.frameworks)
-        what_if_paths = macro.path_changes(base_config.assumptions, config.assumptions,
-                                           engine.tape_months(taken.accepted, config))
+        what_if_paths = macro.path_changes(base_config.assumptions, config.assumptions, months)
         told("what-if", 1, 1)
 
     movements = None

@@ -89,6 +89,7 @@ class EngineResult:
     warnings: list[str]
     pd_paths: pd.DataFrame = field(default_factory=pd.DataFrame)  # PD path by segment, scenario, month
     overlay_warnings: tuple[str, ...] = ()  # the part of ``warnings`` the overlays raised
+    months: int | None = None  # the months the book's tables cover (tape_months), None when not computed here
 
 
 # --------------------------------------------------------------------------------------
@@ -204,6 +205,7 @@ def run(
         warnings=(staging.pd_ratio_warnings(tape) if prep.staged is not None else []) + list(applied.warnings),
         pd_paths=pd_path_view(tape, prep),
         overlay_warnings=tuple(applied.warnings),
+        months=prep.months,
     )
 
 
