@@ -94,13 +94,16 @@ def age_months(origination: pd.Series, as_of: pd.Timestamp) -> np.ndarray:
     return np.maximum(whole - (anniversary > as_of.day), 0).astype(np.int64)
 
 
-@numba.njit(cache=jit.CACHE)
-def smm_from_cpr(cpr: float) -> float:
-    r"""Single monthly mortality from an annual constant prepayment rate.
+def smm_from_cpr(cpr):
+    r"""Single monthly mortality from an annual constant prepayment rate (a number or an array).
 
     Notes
     -----
     .. math:: SMM = 1 - (1 - CPR)^{1/12}
+
+    Plain numpy, not compiled: only the book-level prepayment table calls it, once per
+    segment over every age, and no compiled loop does (the first call of a compiled function
+    loads numba's whole machinery, which the run then pays before it needs it).
 
     References
     ----------
@@ -115,9 +118,10 @@ def smm_from_cpr(cpr: float) -> float:
     return 1.0 - (1.0 - cpr) ** (1.0 / 12.0)
 
 
-@numba.njit(cache=jit.CACHE)
-def psa_cpr(age: float, psa: float) -> float:
+def psa_cpr(age, psa):
     r"""Annual CPR of the PSA standard prepayment benchmark at a loan age in months.
+
+    ``age`` is a number or an array of ages (numpy broadcasting, like :func:`smm_from_cpr`).
 
     Notes
     -----
@@ -132,11 +136,11 @@ def psa_cpr(age: float, psa: float) -> float:
 
     Examples
     --------
-    >>> [round(psa_cpr(m, 100.0), 4) for m in (1, 15, 30, 45)]
+    >>> psa_cpr(np.array([1, 15, 30, 45]), 100.0).round(4).tolist()
     [0.002, 0.03, 0.06, 0.06]
     """
-    ramp = min(max(age, 0.0), 30.0) / 30.0
-    return min(1.0, psa / 100.0 * 0.06 * ramp)
+    ramp = np.minimum(np.maximum(age, 0.0), 30.0) / 30.0
+    return np.minimum(1.0, psa / 100.0 * 0.06 * ramp)
 
 
 @numba.njit(cache=jit.CACHE)
@@ -260,7 +264,11 @@ def path_terms(code: int, balance: float, rate: float, level: float, paydown: fl
     return 1.0 + rate, max(level, balance * rate)
 
 
-@numba.njit(cache=jit.CACHE)
+# fastmath as the fused loop compiles it, whoever calls it first: numba compiles a function once
+# per signature with the flags of its first caller (a fastmath loop passes its flags down), so
+# without this a call from Python (the schedule view) got B x - P s with or without a fused
+# multiply-add depending on which run filled the compile cache, a last-digit difference
+@numba.njit(cache=jit.CACHE, fastmath=True)
 def balance_on_path(balance: float, growth_power: float, annuity_factor: float, payment: float) -> float:
     r"""Scheduled balance after t amortizing months, in closed form.
 

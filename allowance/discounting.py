@@ -17,10 +17,11 @@ loop calls them.
 
 from __future__ import annotations
 
-from numba.extending import register_jitable
+from allowance.jitable import jitable
 
 
-@register_jitable
+
+@jitable
 def monthly_rate(annual_rate):
     """Monthly rate of a nominal annual rate compounded monthly.
 
@@ -48,7 +49,7 @@ def monthly_discount(eir_annual):
     return 1.0 / (1.0 + monthly_rate(eir_annual))
 
 
-@register_jitable
+@jitable
 def discount_factor(eir_monthly, month):
     r"""Discount factor for an amount at the end of ``month`` at the monthly EIR.
 

@@ -27,6 +27,8 @@ from pathlib import Path
 
 import numba
 
+from allowance import jitable
+
 __all__ = ["CACHE", "cache_dir", "in_threads"]
 
 #: Blocks a thread takes at a time: a core busy with other work then takes fewer blocks
@@ -76,6 +78,8 @@ def cache_dir() -> Path | None:
 _CACHE_DIR = _choose()
 if _CACHE_DIR is not None:
     numba.config.CACHE_DIR = str(_CACHE_DIR)  # read by numba's cache locator at each decoration
+
+jitable.register_pending()  # the scalar maths the loops call (allowance.jitable), now numba is here
 
 #: Pass as ``numba.njit(cache=CACHE)``: False when no cache folder is writable.
 CACHE: bool = _CACHE_DIR is not None

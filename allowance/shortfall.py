@@ -23,10 +23,10 @@ default_loss   the loss at the end of the default month of a default in that mon
 
 from __future__ import annotations
 
-from numba.extending import register_jitable
+from allowance.jitable import jitable
 
 
-@register_jitable
+@jitable
 def default_loss(ead, lgd, interest):
     r"""Loss, at the end of month t, of a default in month t.
 

@@ -54,6 +54,10 @@ def test_psa_benchmark_cpr():
     assert [cf.psa_cpr(m, 100.0) for m in months] == pytest.approx([0.002, 0.03, 0.06, 0.06], abs=1e-12)
     assert [cf.psa_cpr(m, 150.0) for m in months] == pytest.approx([0.003, 0.045, 0.09, 0.09], abs=1e-12)
     assert cf.psa_cpr(0, 100.0) == 0.0
+    # over an array of ages, the same values age by age (the book's prepayment table takes them so)
+    ages = np.arange(0, 61, dtype=float)
+    assert cf.psa_cpr(ages, 150.0).tolist() == [cf.psa_cpr(float(m), 150.0) for m in ages]
+    assert cf.psa_cpr(ages, 150.0)[[1, 15, 30, 45]] == pytest.approx([0.003, 0.045, 0.09, 0.09], abs=1e-12)
 
 
 def test_smm_from_cpr():
@@ -63,6 +67,9 @@ def test_smm_from_cpr():
     assert cf.smm_from_cpr(1.0) == 1.0
     # twelve months at the SMM leave (1 - CPR) of the balance (the definition)
     assert (1 - cf.smm_from_cpr(0.2)) ** 12 == pytest.approx(0.8, rel=1e-12)
+    # an array of CPRs gives each one's SMM
+    cprs = np.array([0.0, 0.06, 0.2, 1.0])
+    assert cf.smm_from_cpr(cprs).tolist() == [cf.smm_from_cpr(float(c)) for c in cprs]
 
 
 @pytest.mark.parametrize(("balance", "annual", "n", "amort"), [(1e6, 0.06, 120, 360), (5e5, 0.0, 84, 300), (2e6, 0.045, 60, 240)])

@@ -15,7 +15,8 @@ from pathlib import Path
 import allowance
 
 LAYERS: list[tuple[str, ...]] = [
-    ("exceptions", "text", "money", "jit"),  # leaves: the domain errors, text safety, cents, compile cache
+    ("exceptions", "text", "money", "jit", "jitable"),  # leaves: the domain errors, text safety, cents, compile cache,
+    # the scalar maths compiled loops may call
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
     ("links", "discounting", "cashflows", "shortfall"),  # maths with no other concept beneath it
     # term structures, stages, POCI, macro links and their fit, individually measured loans
@@ -116,3 +117,23 @@ def test_no_cycle_between_modules():
     for node in sorted(graph):
         if node not in state:
             visit(node)
+
+
+def test_check_loads_no_compiler():
+    # `allowance check` validates a tape against the assumptions and compiles nothing: the
+    # scalar maths it reads (discounting, LGD) is handed to numba only when a loop is compiled
+    # (allowance.jitable), so numba and llvmlite (about a second with their first call) stay out
+    import subprocess
+    import sys
+
+    from tests import books
+
+    code = ("import sys\nfrom allowance.cli import app\n"
+            f"try:\n    app(['check', {str(books.DEMO_BAD_TAPE)!r}, '-a', {str(books.DEMO_ASSUMPTIONS)!r}, '--quiet'])\n"
+            "except SystemExit as done:\n    print('exit', done.code)\n"
+            "print('|' + ','.join(m for m in ('pandas', 'numba', 'llvmlite', 'scipy') if m in sys.modules))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=180)
+    assert done.returncode == 0, done.stderr
+    exit_line, loaded = done.stdout.strip().splitlines()[-2:]
+    assert exit_line == "exit 1"  # the bad demo tape has rejected rows: the check really ran
+    assert loaded == "|pandas", loaded

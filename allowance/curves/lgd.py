@@ -3,7 +3,8 @@
 The kernels (:func:`collateral_lgd`, :func:`recovery_discount_factor`, :func:`effective_lgd`,
 :func:`undrawn_exposure`, :func:`revolving_ead`) use only arithmetic and ``np.minimum`` /
 ``np.maximum``: they work elementwise on numpy arrays and compile unchanged with
-``numba.njit`` on float scalars. The fused ECL loop (:mod:`allowance.ecl`) compiles
+``numba.njit`` on float scalars (registered with numba when :mod:`allowance.jit` loads it,
+:mod:`allowance.jitable`). The fused ECL loop (:mod:`allowance.ecl`) compiles
 :func:`loss_given_default`, which composes them, and calls it per loan-month; the engine
 takes the exposure add-on of revolving lines from :func:`undrawn_exposure`.
 
@@ -23,16 +24,16 @@ revolving_ead              drawn balance plus the CCF share of the undrawn limit
 from __future__ import annotations
 
 import numpy as np
-from numba.extending import register_jitable
 
 from allowance.discounting import discount_factor, monthly_rate
+from allowance.jitable import jitable
 
 #: Exposures below this (currency units, far below a cent) are treated as this small, so a
 #: zero exposure takes the limiting LGD of a tiny one instead of dividing by zero.
 TINY_EAD = 1e-12
 
 
-@register_jitable
+@jitable
 def collateral_recovery(ead, collateral, haircut, recovery_cost, recovery_discount):
     r"""Present value at default of what the collateral recovers, as a share of the EAD.
 
@@ -95,7 +96,7 @@ def collateral_recovery(ead, collateral, haircut, recovery_cost, recovery_discou
     return np.minimum(1.0, proceeds * recovery_discount / np.maximum(ead, TINY_EAD))
 
 
-@register_jitable
+@jitable
 def final_lgd(raw_lgd, cure_rate, floor, multiplier):
     r"""The LGD a secured loan is measured with: cures, then the scenario multiplier, then the floor.
 
@@ -127,7 +128,7 @@ def final_lgd(raw_lgd, cure_rate, floor, multiplier):
     return np.minimum(1.0, np.maximum(floor, multiplier * ((1.0 - cure_rate) * raw_lgd)))
 
 
-@register_jitable
+@jitable
 def collateral_lgd(ead, collateral, haircut, recovery_cost, floor, recovery_discount, cure_rate=0.0, multiplier=1.0):
     r"""LGD of a secured exposure: the share of EAD not recovered, after cures, then the floor.
 
@@ -179,7 +180,7 @@ def collateral_lgd(ead, collateral, haircut, recovery_cost, floor, recovery_disc
     return final_lgd(raw, cure_rate, floor, multiplier)
 
 
-@register_jitable
+@jitable
 def recovery_discount_factor(eir_annual, months_to_recovery):
     r"""Present value at default of 1 recovered ``months_to_recovery`` months later.
 
@@ -199,7 +200,7 @@ def recovery_discount_factor(eir_annual, months_to_recovery):
     return discount_factor(monthly_rate(eir_annual), months_to_recovery)
 
 
-@register_jitable
+@jitable
 def effective_lgd(lgd, cure_rate):
     r"""LGD after cures: a cured default loses nothing.
 
@@ -262,7 +263,7 @@ def loss_given_default(ead, flat_lgd, collateral, collateral_index, haircut, rec
     return min(1.0, flat_lgd * multiplier)
 
 
-@register_jitable
+@jitable
 def undrawn_exposure(drawn, credit_limit, ccf):
     r"""The EAD add-on of a revolving line: the CCF share of its undrawn limit.
 

@@ -35,7 +35,8 @@ refinance_default   the share of loans that fail at maturity: S_T × q
 from __future__ import annotations
 
 import numpy as np
-from numba.extending import register_jitable
+
+from allowance.jitable import jitable
 
 
 def maturity_ltv(balance_due, collateral):
@@ -107,7 +108,7 @@ def refinance_pd(ltv, ltv_bands, table, dscr=None, dscr_bands=None):
     return probabilities[row, column]
 
 
-@register_jitable
+@jitable
 def refinance_default(survival_at_maturity, q):
     r"""Share of loans that fail to repay at maturity: :math:`S_T \cdot q`.
 

@@ -292,7 +292,7 @@ def _prepayment_row(seg: SegmentAssumptions, length: int) -> np.ndarray:
     if seg.cpr is not None:
         cpr = np.full(length, seg.cpr)
     elif seg.psa is not None:
-        cpr = np.array([cashflows.psa_cpr(a, seg.psa) for a in age])
+        cpr = cashflows.psa_cpr(age, seg.psa)
     elif seg.cpr_by_age is not None:
         vector = np.asarray(seg.cpr_by_age, float)
         cpr = vector[np.minimum(np.arange(length), len(vector) - 1)]
