@@ -9,6 +9,7 @@ import re
 import zipfile
 
 import numpy as np
+import pandas as pd
 import pytest
 from openpyxl import load_workbook
 
@@ -227,3 +228,38 @@ def test_term_structures_one_row_per_curve_in_the_assumptions_order(books):
     assert first_curve == sorted(first_curve)
     twelve = ts[(ts["month"] == 12)].iloc[0]
     assert any(r[0] == twelve["segment"] and abs(r[4] - twelve["cumulative_pd"]) < 1e-12 for r in body)
+
+
+def test_monthly_pd_curves_a_row_per_curve_and_measure_months_across(books):
+    """Every value of the run's long term-structure table, read back from the wide sheet exactly
+    (the sheet must not round: openpyxl reads the XML text as Python floats)."""
+    ts = books["report"].term_structures
+    ws = load_workbook(books["base"], read_only=True)["Monthly PD curves"]
+    rows = [list(r) for r in ws.iter_rows(min_row=4, values_only=True)]
+    head, body = rows[0], rows[1:]
+    assert head[:5] == ["Segment", "Grade or bucket", "Framework", "Scenario", "Measure"]
+    months = sorted(ts["month"].unique())
+    assert head[5:] == [f"Month {m}" for m in months]
+    curves = ts.drop_duplicates(["segment", "key", "framework", "scenario"])
+    assert len(body) == 2 * len(curves)
+    assert [r[4] for r in body[:2]] == ["Marginal PD", "Cumulative PD"]
+    label = {"ifrs9": "IFRS 9", "cecl": "CECL"}
+    sheet = {(r[0], r[1], r[2], r[3], r[4]): r[5:] for r in body}
+    for key, curve in ts.groupby(["segment", "key", "framework", "scenario"], sort=False):
+        segment, k, framework, scenario = key
+        shown = (segment, "all" if k == "*" else k, label[framework], scenario)
+        for measure, column in (("Marginal PD", "marginal_pd"), ("Cumulative PD", "cumulative_pd")):
+            values = dict(zip(curve["month"], curve[column]))
+            assert sheet[(*shown, measure)] == [values.get(m) for m in months], (shown, measure)
+
+
+def test_first_row_of_a_long_sheet_is_exact(books):
+    """The first loan row is laid out by XlsxWriter, which writes 16 significant digits; it must
+    read back as the loan frame holds it, like every other row."""
+    loans = books["report"].loans
+    ws = load_workbook(books["base"], read_only=True)["Loans"]
+    head, first, second = (list(r) for r in ws.iter_rows(min_row=4, max_row=6, values_only=True))
+    for row, values in ((0, first), (1, second)):
+        for name, value in zip(head, values):
+            if pd.api.types.is_float_dtype(loans[name].dtype) and pd.notna(loans[name].iat[row]):
+                assert value == float(loans[name].iat[row]), (row, name)

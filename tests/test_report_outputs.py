@@ -70,7 +70,7 @@ def test_failure_mid_write_leaves_nothing(tmp_path, monkeypatch):
     def broken(*args, **kwargs):
         raise RuntimeError("injected failure while writing the workbook")
 
-    monkeypatch.setattr(files, "write_workbook", broken)
+    monkeypatch.setattr(files, "write_workbooks", broken)
     with pytest.raises(RuntimeError, match="injected"):
         write_outputs(tmp_path / "out", example_report(10))
     assert not (tmp_path / "out").exists()
@@ -81,7 +81,7 @@ def test_os_error_becomes_output_error(tmp_path, monkeypatch):
     def full(*args, **kwargs):
         raise OSError(28, "No space left on device", str(tmp_path / "x"))
 
-    monkeypatch.setattr(files, "write_workbook", full)
+    monkeypatch.setattr(files, "write_workbooks", full)
     with pytest.raises(OutputError, match="No space left"):
         write_outputs(tmp_path / "out", example_report(10))
     assert not (tmp_path / "out").exists() and _no_partials(tmp_path)
@@ -91,7 +91,7 @@ def test_failure_keeps_the_previous_outputs(tmp_path, monkeypatch):
     out = tmp_path / "out"
     write_outputs(out, example_report(10))
     before = (out / "run.json").read_text()
-    monkeypatch.setattr(files, "write_workbook", lambda *a, **k: (_ for _ in ()).throw(RuntimeError("boom")))
+    monkeypatch.setattr(files, "write_workbooks", lambda *a, **k: (_ for _ in ()).throw(RuntimeError("boom")))
     with pytest.raises(RuntimeError):
         write_outputs(out, example_report(12))
     assert (out / "run.json").read_text() == before and _no_partials(tmp_path)

@@ -5,12 +5,16 @@ Implements
 assumptions_sheet      run settings, segments, grades, PD curves, prepayment, collateral LGD,
                        roll-rate matrices, staging rules, CECL period, scenario paths, reversion,
                        roll-rate analytics, ledger accounts; file names, never full paths
+CurveGrid, curve_grid  the run's PD term structures, one row per curve, months across (built once
+                       for both workbooks)
 term_structure_sheet   cumulative PD at 1, 2, 3, 5 and 10 years, in the assumptions' order
-monthly_curves_frame   the monthly curves in the same order, for their own (unprinted) sheet
+monthly_curves_frame   the monthly curves in the same order, marginal and cumulative rows, months
+                       across, for their own (unprinted) sheet
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -22,7 +26,8 @@ from allowance.report.xlsx import Sheet
 if TYPE_CHECKING:
     from allowance.report.record import RunReport
 
-__all__ = ["PD_MONTHS", "assumptions_sheet", "monthly_curves_frame", "term_structure_sheet"]
+__all__ = ["CURVE_MEASURES", "PD_MONTHS", "CurveGrid", "assumptions_sheet", "curve_grid", "monthly_curves_frame",
+           "term_structure_sheet"]
 
 #: months at which the term-structure sheet shows cumulative PD
 PD_MONTHS: tuple[int, ...] = (12, 24, 36, 60, 120)
@@ -395,88 +400,131 @@ def _reversion(reversion: pd.DataFrame, scenarios: list[str]) -> pd.DataFrame:
 # --------------------------------------------------------------------------------------
 
 
-def _ranks(series: pd.Series, order: dict[Any, float], default: float) -> np.ndarray:
-    """Each value's rank from ``order`` (unknown values: ``default``), looked up once per distinct value."""
-    codes, uniques = pd.factorize(series)
-    lookup = np.array([order.get(u, default) for u in uniques.tolist()] + [default], dtype=float)
-    return lookup[codes]
+@dataclass(frozen=True)
+class CurveGrid:
+    """The term structures a run recorded, one row per curve, months across.
+
+    ``curves`` names each curve (segment, key, framework, scenario: the key ``*`` shown as
+    ``all``, the framework by its label), in the assumptions' order: segments as listed,
+    keys as first met except grades in their natural order, frameworks as run, scenarios as
+    listed. ``marginal`` and ``cumulative`` are ``[curve, month]`` (NaN where a curve has no
+    such month), ``months`` the month of each column, ascending. Its size is keys x frameworks
+    x scenarios x months: set by the assumptions and the longest loan, never by the number of
+    loans.
+    """
+
+    curves: pd.DataFrame
+    months: np.ndarray
+    marginal: np.ndarray
+    cumulative: np.ndarray
+    present: np.ndarray
+
+    @property
+    def empty(self) -> bool:
+        return len(self.curves) == 0
 
 
-def _ordered(report: "RunReport") -> pd.DataFrame:
-    """The term-structure rows in the assumptions' order: segment, grade, framework, scenario, month."""
+_CURVE_KEYS = ("segment", "key", "framework", "scenario")
+
+
+def _rank(values: list[Any], order: dict[Any, float], default: float) -> np.ndarray:
+    return np.array([order.get(v, default) for v in values], dtype=float)
+
+
+def curve_grid(report: "RunReport") -> CurveGrid:
+    """The run's term structures as a :class:`CurveGrid` (long rows placed by curve and month,
+    no per-row Python: the rows are millions only if the assumptions say so)."""
     ts = report.term_structures
     if ts is None or ts.empty:
-        return pd.DataFrame()
+        return CurveGrid(pd.DataFrame(columns=list(_CURVE_KEYS)), np.zeros(0, dtype=np.int64),
+                         np.zeros((0, 0)), np.zeros((0, 0)), np.zeros((0, 0), dtype=bool))
     a = report.config.assumptions
-    # a curve key's rank: first appearance, except grades, which go in their natural order
-    seg_codes, segs = pd.factorize(ts["segment"])
-    key_codes, keys = pd.factorize(ts["key"])
-    width = len(keys) + 1
-    pair = seg_codes.astype(np.int64) * width + key_codes
-    seen = pd.unique(pair)
-    rank_of = dict(zip(seen.tolist(), range(len(seen))))
-    seg_index = {name: i for i, name in enumerate(segs.tolist())}
-    key_index = {key: i for i, key in enumerate(keys.tolist())}
+    codes, uniques, combined = [], [], np.zeros(len(ts), dtype=np.int64)
+    for name in _CURVE_KEYS:
+        c, u = pd.factorize(ts[name])
+        codes.append(c)
+        uniques.append(u.tolist())
+        combined = combined * (len(u) + 1) + c
+    curve_of_row, _ = pd.factorize(combined)  # curves in order of first appearance
+    _, first = np.unique(curve_of_row, return_index=True)
+    labels = [[u[c] for c in code[first].tolist()] for code, u in zip(codes, uniques)]
+    segment, key, framework, scenario = labels
+    # a curve key's rank: first appearance of its (segment, key), except grades, in their natural order
+    pairs = list(zip(segment, key))
+    pair_rank: dict[tuple[Any, Any], float] = {}
+    for pair in pairs:
+        pair_rank.setdefault(pair, float(len(pair_rank)))
     for name, seg in a.segments.items():
-        grades = sorted((seg.pd_12m_by_grade or seg.pd_curve_by_grade or {}).keys(), key=str)
-        for i, g in enumerate(grades):
-            if name in seg_index and g in key_index:
-                rank_of[seg_index[name] * width + key_index[g]] = i
-    lookup = np.zeros(int(pair.max()) + 1 if len(pair) else 1)
-    for code, rank in rank_of.items():
-        lookup[code] = rank
-    ranks = lookup[pair]
-    order = [
-        ts["month"].to_numpy(),
-        _ranks(ts["scenario"], {s: i for i, s in enumerate(a.scenarios)}, len(a.scenarios)),
-        _ranks(ts["framework"], {f: i for i, f in enumerate(report.config.frameworks)}, 9),
-        ranks,
-        _ranks(ts["segment"], {s: i for i, s in enumerate(a.segments)}, len(a.segments)),
-    ]
-    out = ts.iloc[np.lexsort(order)].reset_index(drop=True)
-    out["key"] = out["key"].replace("*", "all")
-    out["framework"] = out["framework"].map(lambda f: _FW_LABEL.get(f, f))
-    return out
+        for i, grade in enumerate(sorted((seg.pd_12m_by_grade or seg.pd_curve_by_grade or {}).keys(), key=str)):
+            if (name, grade) in pair_rank:
+                pair_rank[(name, grade)] = float(i)
+    order = np.lexsort([
+        _rank(scenario, {s: i for i, s in enumerate(a.scenarios)}, len(a.scenarios)),
+        _rank(framework, {f: i for i, f in enumerate(report.config.frameworks)}, 9),
+        np.array([pair_rank[p] for p in pairs]),
+        _rank(segment, {s: i for i, s in enumerate(a.segments)}, len(a.segments)),
+    ])
+    position = np.empty(len(order), dtype=np.int64)
+    position[order] = np.arange(len(order))
+    months = np.unique(ts["month"].to_numpy(dtype=np.int64))
+    row = position[curve_of_row]
+    col = np.searchsorted(months, ts["month"].to_numpy(dtype=np.int64))
+    shape = (len(order), len(months))
+    marginal, cumulative = np.full(shape, np.nan), np.full(shape, np.nan)
+    present = np.zeros(shape, dtype=bool)
+    marginal[row, col] = ts["marginal_pd"].to_numpy(dtype=float)
+    cumulative[row, col] = ts["cumulative_pd"].to_numpy(dtype=float)
+    present[row, col] = True
+    curves = pd.DataFrame({
+        "segment": [segment[i] for i in order],
+        "key": ["all" if key[i] == "*" else key[i] for i in order],
+        "framework": [_FW_LABEL.get(framework[i], framework[i]) for i in order],
+        "scenario": [scenario[i] for i in order],
+    })
+    return CurveGrid(curves, months, marginal, cumulative, present)
 
 
-def monthly_curves_frame(report: "RunReport") -> pd.DataFrame:
-    return _ordered(report)
+#: the measures of the monthly curves sheet, one row each per curve
+CURVE_MEASURES = ("Marginal PD", "Cumulative PD")
 
 
-def term_structure_sheet(sheet: Sheet, report: "RunReport") -> None:
-    """Cumulative PD at fixed months, one row per segment / grade / framework / scenario."""
-    ts = _ordered(report)
-    if ts.empty:
+def monthly_curves_frame(grid: CurveGrid) -> pd.DataFrame:
+    """The monthly curves for their own (unprinted) sheet: per curve a row of marginal PDs
+    (conditional on survival) and a row of cumulative PDs, one column per month from the
+    as-of date (``month_1``, ...). Some 300 curves of 360 months make 600 rows, not the
+    200,000 a row per curve and month would take."""
+    if grid.empty:
+        return pd.DataFrame()
+    n = len(grid.curves)
+    keys = grid.curves.loc[np.repeat(np.arange(n), len(CURVE_MEASURES))].reset_index(drop=True)
+    keys["measure"] = np.tile(np.asarray(CURVE_MEASURES, dtype=object), n)
+    values = np.stack([grid.marginal, grid.cumulative], axis=1).reshape(n * len(CURVE_MEASURES), len(grid.months))
+    months = pd.DataFrame(values, columns=[f"month_{m}" for m in grid.months.tolist()])
+    return pd.concat([keys, months], axis=1)
+
+
+def term_structure_sheet(sheet: Sheet, report: "RunReport", grid: CurveGrid | None = None) -> None:
+    """Cumulative PD at fixed months, one row per segment / grade / framework / scenario
+    (``grid``: the run's :func:`curve_grid`, built here when not given)."""
+    grid = curve_grid(report) if grid is None else grid
+    if grid.empty:
         sheet.note(_TOP, "No term structures were recorded for this run.", span=4)
         return
-    keys = ["segment", "key", "framework", "scenario"]
-    # one code per curve (the rows are in curve order), then vectorised picks by month
-    change = np.zeros(len(ts), dtype=bool)
-    change[:1] = True
-    for k in keys:
-        values = ts[k].astype(str).to_numpy()
-        change[1:] |= values[1:] != values[:-1]
-    change[1:] |= ts["month"].to_numpy()[1:] <= ts["month"].to_numpy()[:-1]
-    curve = np.cumsum(change) - 1
-    starts = np.flatnonzero(change)
-    ends = np.append(starts[1:], len(ts)) - 1
-    grid = ts.iloc[starts][keys].reset_index(drop=True)
-    months = ts["month"].to_numpy()
-    cumulative = ts["cumulative_pd"].to_numpy(dtype=float)
+    table = grid.curves.copy()
     for m in PD_MONTHS:
-        at = np.full(len(starts), np.nan)
-        hit = months == m
-        at[curve[hit]] = cumulative[hit]
-        grid[f"{m // 12} year" + ("s" if m > 12 else "")] = at
-    grid["horizon_months"] = months[ends].astype(np.int64)
-    grid["cumulative_pd_horizon"] = cumulative[ends]
+        at = np.flatnonzero(grid.months == m)
+        table[f"{m // 12} year" + ("s" if m > 12 else "")] = (
+            grid.cumulative[:, at[0]] if len(at) else np.full(len(table), np.nan))
+    last = grid.present.shape[1] - 1 - np.argmax(grid.present[:, ::-1], axis=1)  # each curve's last month
+    table["horizon_months"] = grid.months[last].astype(np.int64)
+    table["cumulative_pd_horizon"] = grid.cumulative[np.arange(len(last)), last]
     row = sheet.note(_TOP, "Cumulative probability of default from the as-of date (before prepayment), by "
                      "segment, grade or delinquency bucket, framework and scenario, in the assumptions' order. The "
                      "month-by-month curves are on the Monthly PD curves sheet (not printed by default).", span=8)
     row += 1
-    kinds = {c: "rate" for c in grid.columns if c.endswith(("year", "years"))}
+    kinds = {c: "rate" for c in table.columns if c.endswith(("year", "years"))}
     kinds.update({"cumulative_pd_horizon": "rate", "horizon_months": "count"})
-    sheet.table(row, grid, kinds=kinds, headers={c: c.capitalize() for c in grid.columns if c.endswith(("year", "years"))}
+    sheet.table(row, table, kinds=kinds, headers={c: c.capitalize() for c in table.columns if c.endswith(("year", "years"))}
                 | {"cumulative_pd_horizon": "To the horizon", "horizon_months": "Horizon (months)"}, autofilter=True)
     sheet.repeat_to = row
     sheet.ws.freeze_panes(row, 0)

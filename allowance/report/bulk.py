@@ -110,12 +110,26 @@ def _column_cells(series: pd.Series, letter: str, rows: pa.Array, style: int) ->
     return cells
 
 
+def _widest(sample: pd.Series) -> list[Any]:
+    """The values among the first 50 given whose display is widest: of numbers, the smallest and
+    the largest finite one (a number's display grows with its size on each side of zero) and any
+    infinity; of anything else, every value."""
+    if not pd.api.types.is_numeric_dtype(sample.dtype) or pd.api.types.is_bool_dtype(sample.dtype):
+        return sample.dropna().tolist()[:50]
+    numbers = sample.to_numpy(dtype=np.float64, na_value=np.nan)
+    numbers = numbers[~np.isnan(numbers)][:50]
+    finite = numbers[np.isfinite(numbers)]
+    ends = [finite.min(), finite.max()] if len(finite) else []
+    return [float(v) for v in [*ends, *np.unique(numbers[~np.isfinite(numbers)])]]
+
+
 @dataclass
 class BulkSheet:
     """A long table on its own sheet: column names as given (``loans.csv``'s own names on
     the loan sheet), one display kind per column, not printed by default.
 
-    ``headers`` maps a column to the header shown (default: the column name itself).
+    ``headers`` maps a column to the header shown (default: the column name itself),
+    ``kinds`` a column to its display kind (default: :func:`~allowance.report.cells.number_kind`).
     """
 
     sheet: Sheet
@@ -123,31 +137,32 @@ class BulkSheet:
     note: str = ""
     headers: dict[str, str] = field(default_factory=dict)
     freeze_columns: int = 0
+    kinds: dict[str, str] = field(default_factory=dict)
     styles: list[int] = field(default_factory=list)
     chunk_rows: int = 20_000
 
     def __post_init__(self) -> None:
         sheet, frame = self.sheet, self.frame
         names = list(frame.columns)
-        self.kinds = [number_kind(n, frame[n].dtype) for n in names]
+        self.column_kinds = [self.kinds.get(n) or number_kind(n, frame[n].dtype) for n in names]
         sheet.printed = False
         sheet.note_rows = BULK_HEADER_ROW - 1
         sheet.note(BULK_HEADER_ROW - 1, f"{len(frame):,} rows. {self.note} Not printed by default: printing this "
                    "sheet gives this note only (to print the table, clear the print area: Page Layout > Print Area).",
                    span=min(max(len(names), 1), 10))
-        sheet.header(BULK_HEADER_ROW, 1, [self.headers.get(n, str(n)) for n in names], self.kinds)
+        sheet.header(BULK_HEADER_ROW, 1, [self.headers.get(n, str(n)) for n in names], self.column_kinds)
         first = frame.head(1)
         for j, value in enumerate(first.iloc[0].tolist() if len(first) else []):
-            sheet.put(BULK_HEADER_ROW + 1, j + 1, value, self.kinds[j])
+            sheet.put(BULK_HEADER_ROW + 1, j + 1, value, self.column_kinds[j])
         # column widths from the first rows, so a long id or reason is not cut
         for j, name in enumerate(names):
             sample = frame[name].head(200)
-            if self.kinds[j] == "text":
+            if self.column_kinds[j] == "text":
                 longest = max((len(str(v)) for v in sample.dropna().tolist()), default=0)
                 sheet.fit[j + 1] = max(sheet.fit[j + 1], min(longest, 40) + 2)
             else:
-                for value in sample.dropna().tolist()[:50]:
-                    sheet.fit[j + 1] = max(sheet.fit[j + 1], value_width(value, self.kinds[j]))
+                for value in _widest(sample):
+                    sheet.fit[j + 1] = max(sheet.fit[j + 1], value_width(value, self.column_kinds[j]))
         sheet.ws.freeze_panes(BULK_HEADER_ROW, self.freeze_columns)
         if names:
             sheet.ws.autofilter(BULK_HEADER_ROW - 1, 0, BULK_HEADER_ROW - 1 + len(frame), len(names) - 1)
@@ -184,6 +199,34 @@ _DIMENSION = re.compile(r'<dimension ref="[^"]*"\s*/>')
 _STYLE = re.compile(r'<c r="([A-Z]+)(\d+)"(?: s="(\d+)")?')
 
 
+_NUMBER_CELL = re.compile(r'(<c r="([A-Z]+)(\d+)"(?: s="\d+")?><v>)([^<]*)(</v></c>)')
+
+
+def _exact_first_row(xml: str, bulk: BulkSheet) -> str:
+    """The first data row with every float that XlsxWriter wrote at 16 significant digits (and
+    so not as computed) as the other rows give it: the shortest text that reads back exactly."""
+    first = bulk.frame.head(1)
+    floats = {}
+    for j, (dtype, value) in enumerate(zip(first.dtypes.tolist(), first.iloc[0].tolist() if len(first) else [])):
+        if pd.api.types.is_float_dtype(dtype) and pd.notna(value) and np.isfinite(float(value)):
+            floats[col_letter(j + 1)] = float(value)
+    if not floats:
+        return xml
+    row = str(bulk.first_data_row)
+    start = xml.find(f'<row r="{row}"')
+    end = xml.find("</row>", start)
+    if start < 0 or end < 0:
+        return xml
+
+    def exact(match: re.Match) -> str:
+        value = floats.get(match.group(2))
+        if match.group(3) != row or value is None or float(match.group(4)) == value:
+            return match.group(0)
+        return match.group(1) + _numbers_text(np.array([value]))[0].as_py() + match.group(5)
+
+    return xml[:start] + _NUMBER_CELL.sub(exact, xml[start:end]) + xml[end:]
+
+
 def _first_row_styles(xml: str, bulk: BulkSheet) -> list[int]:
     row = str(bulk.first_data_row)
     found = {m.group(1): int(m.group(3) or 0) for m in _STYLE.finditer(xml) if m.group(2) == row}
@@ -217,7 +260,7 @@ def save(book: Book, path: Path, bulks: list[BulkSheet], *, created: datetime, t
         sheet.finish()
     book.workbook.close()
     positions = {id(sheet.ws): i for i, sheet in enumerate(book.sheets)}
-    targets = {f"xl/worksheets/sheet{positions[id(b.sheet.ws)] + 1}.xml": b for b in bulks if len(b.frame) > 1}
+    targets = {f"xl/worksheets/sheet{positions[id(b.sheet.ws)] + 1}.xml": b for b in bulks if len(b.frame)}
     when = _zip_time(created)
     with zipfile.ZipFile(io.BytesIO(book.buffer.getvalue())) as zin, \
             zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED) as zout:
@@ -231,7 +274,10 @@ def save(book: Book, path: Path, bulks: list[BulkSheet], *, created: datetime, t
             if bulk is None:
                 zout.writestr(entry, data)
                 continue
-            xml = data.decode("utf-8")
+            xml = _exact_first_row(data.decode("utf-8"), bulk)
+            if len(bulk.frame) == 1:  # the first row is the only one
+                zout.writestr(entry, xml.encode("utf-8"))
+                continue
             styles = _first_row_styles(xml, bulk)
             end = xml.rindex("</sheetData>")
             head = _DIMENSION.sub(f'<dimension ref="{bulk.dimension}"/>', xml[:end], count=1)

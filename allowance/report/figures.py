@@ -101,12 +101,21 @@ class LoanRefs:
         series = self.loans[column]
         if pd.api.types.is_numeric_dtype(series.dtype) or pd.api.types.is_bool_dtype(series.dtype):
             return series.to_numpy() == value
-        if column not in self._arrays:
-            codes, uniques = pd.factorize(series)
-            self._arrays[column] = (codes, {u: i for i, u in enumerate(uniques)})
-        codes, lookup = self._arrays[column]
+        codes, lookup = self._codes(column)
         code = lookup.get(value)
         return codes == code if code is not None else np.zeros(len(series), dtype=bool)
+
+    def labels_where(self, column: str, where: np.ndarray) -> set[Any]:
+        """The labels of ``column`` on the loans where ``where`` is True (through integer codes)."""
+        codes, lookup = self._codes(column)
+        seen = np.bincount(codes[where & (codes >= 0)], minlength=len(lookup)) > 0
+        return {label for label, code in lookup.items() if seen[code]}
+
+    def _codes(self, column: str) -> tuple[np.ndarray, dict]:
+        if column not in self._arrays:
+            codes, uniques = pd.factorize(self.loans[column])
+            self._arrays[column] = (codes, {u: i for i, u in enumerate(uniques)})
+        return self._arrays[column]
 
     def _money(self, column: str) -> np.ndarray:
         if column not in self._cents:

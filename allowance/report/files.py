@@ -36,7 +36,7 @@ from allowance.intake import IntakeResult
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
-from allowance.report.workbook import write_summary_workbook, write_workbook
+from allowance.report.workbook import write_workbooks
 from allowance.text import neutralise_frame, neutralise_table
 
 __all__ = [
@@ -251,9 +251,8 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
     if report.roll_forecast is not None and not report.roll_forecast.empty:  # roll-rate segments only
         _csv(report.roll_forecast, folder / "roll_forecast.csv")
         done("roll_forecast.csv")
-    write_workbook(folder / "reserve.xlsx", report)
+    write_workbooks(folder / "reserve.xlsx", folder / "summary.xlsx", report)
     done("reserve.xlsx")
-    write_summary_workbook(folder / "summary.xlsx", report)
     done("summary.xlsx")
     record = report.record or run_record(
         report.config, report.intake, report.loans, tie_out=report.tie_out, warnings=report.warnings,

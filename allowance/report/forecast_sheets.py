@@ -17,6 +17,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
+import numpy as np
 import pandas as pd
 
 from allowance.report.xlsx import Sheet
@@ -37,23 +38,42 @@ def _variables(report: "RunReport", segment: str) -> list[str]:
     return [] if model is None else list(model.variables)
 
 
-def macro_pd_frame(report: "RunReport", segment: str, months: int = MONTHS_SHOWN) -> pd.DataFrame:
-    """Month, calendar month, each scenario's variables, then each scenario's annualised PD by framework."""
+def _wide_paths(report: "RunReport", months: int) -> tuple:
+    """Months 1..``months``: the calendar months, the scenarios, every (scenario, variable) path
+    and every (segment, framework, scenario) annualised PD path, months down (one pivot each,
+    not a filter per segment and column)."""
     paths, pds = report.macro_paths, report.pd_paths
     rows = paths[(paths["month"] >= 1) & (paths["month"] <= months) & (paths["scenario"] != "(baseline)")]
     first = rows[["month", "calendar_month"]].drop_duplicates().sort_values("month").set_index("month")
-    out = first.copy()
     scenarios = list(dict.fromkeys(rows["scenario"]))
+    macro = rows.pivot(index="month", columns=["scenario", "variable"], values="value")
+    mine = pds[(pds["month"] >= 1) & (pds["month"] <= months)]
+    pd_paths = mine.pivot(index="month", columns=["segment", "framework", "scenario"], values="annualised_pd")
+    frameworks: dict[str, list[str]] = {}
+    for segment, framework in mine[["segment", "framework"]].drop_duplicates().itertuples(index=False, name=None):
+        frameworks.setdefault(segment, []).append(framework)
+    return first, scenarios, macro, pd_paths, frameworks
+
+
+def _segment_frame(report: "RunReport", segment: str, wide: tuple) -> pd.DataFrame:
+    first, scenarios, macro, pd_paths, frameworks = wide
+    out = first.copy()
+
+    def put(label: str, table: pd.DataFrame, column: tuple) -> None:  # a path the tables lack: blank
+        out[label] = table[column].reindex(out.index) if column in table.columns else np.nan
+
     for name in scenarios:
         for variable in _variables(report, segment):
-            series = rows[(rows["scenario"] == name) & (rows["variable"] == variable)].set_index("month")["value"]
-            out[f"{name}: {variable}"] = series
-    mine = pds[(pds["segment"] == segment) & (pds["month"] >= 1) & (pds["month"] <= months)]
-    for framework in dict.fromkeys(mine["framework"]):
+            put(f"{name}: {variable}", macro, (name, variable))
+    for framework in frameworks.get(segment, []):
         for name in scenarios:
-            series = mine[(mine["framework"] == framework) & (mine["scenario"] == name)].set_index("month")
-            out[f"{name}: PD {_FW_LABEL.get(framework, framework)}"] = series["annualised_pd"]
+            put(f"{name}: PD {_FW_LABEL.get(framework, framework)}", pd_paths, (segment, framework, name))
     return out.reset_index()
+
+
+def macro_pd_frame(report: "RunReport", segment: str, months: int = MONTHS_SHOWN) -> pd.DataFrame:
+    """Month, calendar month, each scenario's variables, then each scenario's annualised PD by framework."""
+    return _segment_frame(report, segment, _wide_paths(report, months))
 
 
 def macro_pd_sheet(sheet: Sheet, report: "RunReport") -> None:
@@ -66,11 +86,12 @@ def macro_pd_sheet(sheet: Sheet, report: "RunReport") -> None:
         sheet.note(row, "This run states no macro paths.")
         return
     book = sheet.book.workbook
+    wide = _wide_paths(report, MONTHS_SHOWN)
     for segment in report.config.assumptions.segments:
         variables = _variables(report, segment)
         if not variables:
             continue
-        frame = macro_pd_frame(report, segment)
+        frame = _segment_frame(report, segment, wide)
         kinds = {c: ("rate" if ": PD " in c else "number") for c in frame.columns[2:]}
         kinds.update({"month": "count", "calendar_month": "text"})
         first, last = sheet.table(row, frame, title=f"{segment}: macro paths and PD paths", kinds=kinds,

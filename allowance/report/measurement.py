@@ -36,12 +36,12 @@ MEASUREMENT_LINES: dict[str, str] = {
 }
 
 
-def _has_gross(loans: pd.DataFrame, segment: Any, framework: str) -> bool:
+def _with_gross(loans: pd.DataFrame, refs: LoanRefs, framework: str) -> set[Any]:
+    """The segments with a gross figure in ``framework`` (one pass over the book, not one a segment)."""
     column = f"gross_loss_{framework}"
     if column not in loans:
-        return False
-    values = pd.to_numeric(loans.loc[loans["segment"] == segment, column], errors="coerce")
-    return bool(values.notna().any())
+        return set()
+    return refs.labels_where("segment", pd.to_numeric(loans[column], errors="coerce").notna().to_numpy())
 
 
 def gross_net_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.DataFrame, refs: LoanRefs,
@@ -67,12 +67,13 @@ def gross_net_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.Dat
     sheet.header(r, 1, cols, kinds)
     r += 1
     first, loss_rate = r, False
+    gross_in = {f: _with_gross(loans, refs, f) for f in frameworks}
     for segment in sorted(pd.unique(loans["segment"]), key=str):
         sheet.label(r, 1, str(segment))
         crit = [("segment", f"$A{r}", segment)]
         for j, f in enumerate(frameworks):
             c = 2 + 3 * j
-            if not _has_gross(loans, segment, f):  # left out of the totals, which compare like with like
+            if segment not in gross_in[f]:  # left out of the totals, which compare like with like
                 sheet.put(r, c, "loss rate (net only)", "text")
                 loss_rate = True
                 continue

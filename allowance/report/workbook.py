@@ -6,6 +6,7 @@ SHEETS                 the sheet names, in order
 write_workbook         the full workbook: summary to loan detail, every figure traceable
 write_summary_workbook the printed sheets only, standing alone: no loan detail, no formula
                        that points at a sheet it does not hold
+write_workbooks        both, what they share built once
 
 The summary, segment x stage and scenario figures of ``reserve.xlsx`` are live formulas
 (SUM / SUMIFS / COUNTIFS, or an exact-match SUMPRODUCT, see :mod:`allowance.report.figures`)
@@ -18,6 +19,7 @@ column it ties to.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -35,11 +37,13 @@ from allowance.report.sheets import (
     disclosures_sheet, intake_sheet, journal_sheet, movement_sheet, record_sheet, stage_changes_frame, warnings_frame,
     what_if_sheet,
 )
-from allowance.report.assumptions_sheet import assumptions_sheet, monthly_curves_frame, term_structure_sheet
+from allowance.report.assumptions_sheet import (
+    CurveGrid, assumptions_sheet, curve_grid, monthly_curves_frame, term_structure_sheet,
+)
 from allowance.report.forecast_sheets import macro_pd_sheet, roll_forecast_sheet
 from allowance.report.xlsx import Book, Context, Sheet, col_letter, nice_axis
 
-__all__ = ["SHEETS", "write_summary_workbook", "write_workbook"]
+__all__ = ["SHEETS", "Shared", "write_summary_workbook", "write_workbook", "write_workbooks"]
 
 SHEETS: tuple[str, ...] = (
     "Summary", "By segment and stage", "Scenarios", "Overlays", "Movement", "Journal", "Disclosures", "What-if",
@@ -665,7 +669,7 @@ def _created(report: RunReport) -> datetime:
 
 
 def _long(book: Book, name: str, title: str, frame: pd.DataFrame | None, note: str, bulks: list[BulkSheet],
-          *, headers: dict[str, str] | None = None, freeze_columns: int = 0) -> None:
+          *, headers: dict[str, str] | None = None, freeze_columns: int = 0, kinds: dict[str, str] | None = None) -> None:
     """A long table on its own sheet, not printed by default (the sheet says so)."""
     if frame is None or frame.empty:
         return
@@ -674,7 +678,7 @@ def _long(book: Book, name: str, title: str, frame: pd.DataFrame | None, note: s
         sheet.note(_TOP, f"{len(frame):,} rows: too many for a sheet. {note}", span=8)
         return
     bulks.append(BulkSheet(sheet, frame.reset_index(drop=True), note=note, headers=headers or {},
-                           freeze_columns=freeze_columns))
+                           freeze_columns=freeze_columns, kinds=kinds or {}))
 
 
 def _short_or_long(book: Book, name: str, title: str, frame: pd.DataFrame, note: str, bulks: list[BulkSheet],
@@ -694,7 +698,31 @@ def _short_or_long(book: Book, name: str, title: str, frame: pd.DataFrame, note:
     sheet.ws.freeze_panes(_TOP, 0)
 
 
-def _build(path: Path, report: RunReport, *, full: bool) -> Ledger:
+def _monthly_curves(book: Book, grid: CurveGrid, bulks: list[BulkSheet]) -> None:
+    """The monthly PD curves: a row per curve and measure, months across (a row per curve and
+    month made some 100,000 rows and 50 MB of sheet for the demo)."""
+    curves = monthly_curves_frame(grid)
+    months = [c for c in curves.columns if str(c).startswith("month_")]
+    headers = {c: human(c) for c in curves.columns} | {c: "Month " + c[len("month_"):] for c in months}
+    _long(book, "Monthly PD curves", "Monthly PD curves", curves, "Marginal PD (conditional on survival) and "
+          "cumulative PD by month from the as-of date, months across; a row per measure of each segment, grade or "
+          "bucket, framework and scenario.", bulks, headers=headers, freeze_columns=5,
+          kinds={c: "fine_rate" for c in months})
+
+
+@dataclass(frozen=True)
+class Shared:
+    """What both workbooks show, built once for the two (:func:`write_workbooks`)."""
+
+    curves: CurveGrid
+
+    @classmethod
+    def of(cls, report: RunReport) -> "Shared":
+        return cls(curves=curve_grid(report))
+
+
+def _build(path: Path, report: RunReport, *, full: bool, shared: Shared | None = None) -> Ledger:
+    shared = Shared.of(report) if shared is None else shared
     loans = report.loans.reset_index(drop=True)
     limit = min(report.config.assumptions.run.loan_detail_sheet_limit, EXCEL_MAX_ROWS - BULK_HEADER_ROW)
     live = full and 0 < len(loans) <= limit
@@ -727,14 +755,11 @@ def _build(path: Path, report: RunReport, *, full: bool) -> Ledger:
         _short_or_long(book, "Warnings", "Warnings on accepted rows and on the run", warnings_frame(report),
                        "They are also in warnings.csv.", bulks, kinds={"message": "wrap"}, wide={"message": 70})
     assumptions_sheet(book.sheet("Assumptions", title="Assumptions used in this run"), report)
-    term_structure_sheet(book.sheet("Term structures", title="Cumulative PD term structures"), report)
+    term_structure_sheet(book.sheet("Term structures", title="Cumulative PD term structures"), report, shared.curves)
     if full and _has(report.roll_forecast):
         roll_forecast_sheet(book.sheet("Roll-rate forecast", title="Balance roll-rate forecast"), report)
     if full:
-        curves = monthly_curves_frame(report)
-        _long(book, "Monthly PD curves", "Monthly PD curves", curves, "Marginal and cumulative PD by month from the "
-              "as-of date, by segment, grade or bucket, framework and scenario.", bulks,
-              headers={c: human(c) for c in curves.columns})
+        _monthly_curves(book, shared.curves, bulks)
         schedules = report.schedules
         if schedules is not None and not schedules.empty:
             _long(book, "Schedules", "Schedules of representative loans", schedules, _chosen(schedules), bulks,
@@ -797,3 +822,11 @@ def write_summary_workbook(path: Path, report: RunReport) -> Ledger:
     cells of its own sheet), so the file can be mailed on its own and opens the same everywhere.
     """
     return _build(Path(path), report, full=False)
+
+
+def write_workbooks(reserve: Path, summary: Path, report: RunReport) -> tuple[Ledger, Ledger]:
+    """Write ``reserve.xlsx`` and ``summary.xlsx`` (:func:`write_workbook`,
+    :func:`write_summary_workbook`), building what both show (:class:`Shared`) once."""
+    shared = Shared.of(report)
+    return _build(Path(reserve), report, full=True, shared=shared), _build(Path(summary), report, full=False,
+                                                                           shared=shared)
