@@ -117,12 +117,12 @@ def lifetime_pd(pd_12m, months) -> np.ndarray:
 def _low_credit_risk(tape: pd.DataFrame, segments: dict[str, SegmentAssumptions], pd_now: np.ndarray) -> np.ndarray:
     """Per loan, at the reporting date: PD at or below the segment's threshold and/or grade listed."""
     out = np.zeros(len(tape), dtype=bool)
-    segment = tape["segment"].to_numpy(dtype=object)
+    segment = tape["segment"]
     grade = tape["grade"] if "grade" in tape.columns else pd.Series(pd.NA, index=tape.index)
     for name, seg in segments.items():
         if seg.low_credit_risk_pd is None and not seg.low_credit_risk_grades:
             continue
-        low = segment == name
+        low = (segment == name).to_numpy(dtype=bool, copy=True)
         if seg.low_credit_risk_pd is not None:
             # a loan without its own current PD cannot be shown to have low credit risk
             low &= ~np.isnan(pd_now) & (np.nan_to_num(pd_now, nan=1.0) <= seg.low_credit_risk_pd + _SLACK)
@@ -337,17 +337,23 @@ def pd_ratio_coverage(tape: pd.DataFrame) -> pd.DataFrame:
     poci = _flag(tape, "credit_impaired_at_purchase")
     now = ~np.isnan(_number(tape, "pd_12m_current"))
     orig = ~np.isnan(_number(tape, "pd_12m_at_origination"))
-    frame = pd.DataFrame({
-        "segment": tape["segment"].to_numpy(dtype=object),
-        "loans": 1,
-        "tested": (now & orig).astype(np.int64),
-        "no_current_pd": (~now & ~poci).astype(np.int64),
-        "no_origination_pd": (now & ~orig & ~poci).astype(np.int64),
-    })
     cols = ["segment", "loans", "tested", "no_current_pd", "no_origination_pd"]
-    if frame.empty:
+    if not len(tape):
         return pd.DataFrame(columns=cols)
-    return frame.groupby("segment", sort=True).sum().reset_index()[cols]
+    # counts by segment code (a million loans' segment text is never turned into Python objects)
+    codes, names = pd.factorize(tape["segment"], sort=True)
+    known = codes >= 0
+
+    def count(flags: np.ndarray) -> np.ndarray:
+        return np.bincount(codes[known], weights=flags[known], minlength=len(names)).astype(np.int64)
+
+    return pd.DataFrame({
+        "segment": np.asarray(names, dtype=object),
+        "loans": count(np.ones(len(tape))),
+        "tested": count(now & orig),
+        "no_current_pd": count(~now & ~poci),
+        "no_origination_pd": count(now & ~orig & ~poci),
+    })[cols]
 
 
 def pd_ratio_warnings(tape: pd.DataFrame) -> list[str]:
@@ -438,7 +444,7 @@ def lifetime_months(remaining_months, repayment, behavioural_life) -> np.ndarray
     """
     remaining = np.asarray(remaining_months, dtype=np.int64)
     life = np.asarray(behavioural_life, dtype=np.int64)
-    revolving = np.asarray(repayment, dtype=object) == "revolving"
+    revolving = np.asarray(repayment) == "revolving"  # text or object arrays alike
     if np.any(revolving & (life < 1)):
         raise AssumptionsError(
             "a revolving line has no behavioural life",

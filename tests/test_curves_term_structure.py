@@ -282,3 +282,33 @@ def test_unknown_grade_names_the_grade() -> None:
     ts = pd_term_structure("auto", SegmentAssumptions(pd_12m_by_grade={"A": 0.01, "B": 0.02}, lgd=0.4), 6)
     with pytest.raises(AssumptionsError, match=r"segments\.auto\.pd_12m_by_grade: no PD for 'C'"):
         ts.key_index(["A", "C"])
+
+
+def test_key_index_reads_arrow_text_and_names_missing_grades_in_order() -> None:
+    # the engine passes the tape's Arrow text; the rows are those of a plain lookup by label
+    import pandas as pd
+
+    ts = pd_term_structure("auto", SegmentAssumptions(pd_12m_by_grade={"A": 0.01, "B": 0.02}, lgd=0.4), 6)
+    arrow = pd.array(["B", "A", "B", "A"], dtype="string[pyarrow]")
+    assert ts.key_index(arrow).tolist() == [1, 0, 1, 0]
+    assert ts.key_index(iter(["A", "B"])).tolist() == [0, 1]
+    with pytest.raises(AssumptionsError, match=r"no PD for 'C', 'D'"):
+        ts.key_index(["D", "A", "C", "D"])
+
+
+@settings(max_examples=50)
+@given(rows=st.lists(st.tuples(st.integers(0, 4), st.sampled_from([np.nan, 0.0, 0.002, 0.03, 0.3, 0.99])),
+                     min_size=1, max_size=60),
+       table=st.lists(st.lists(st.floats(0.0, 0.05), min_size=12, max_size=12), min_size=5, max_size=5))
+def test_pd_scale_solved_per_distinct_pair_equals_per_loan(rows, table) -> None:
+    # the engine solves each distinct (curve row, own PD) once: bit for bit the per-loan figures
+    import types
+
+    from allowance.engine.chunk import _pd_scale
+
+    curve = np.array([r[0] for r in rows], dtype=np.int64)
+    own = np.array([r[1] for r in rows], dtype=float)
+    first_year = np.array(table, dtype=float)
+    expected = curves.loan_pd_scale(first_year[curve], own)
+    got = _pd_scale(types.SimpleNamespace(pd_first_year=first_year), curve, own)
+    assert np.array_equal(got, expected)

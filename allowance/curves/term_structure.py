@@ -21,6 +21,7 @@ from dataclasses import dataclass
 from collections.abc import Iterable
 
 import numpy as np
+import pandas as pd
 
 from allowance.exceptions import AssumptionsError, InvalidInputError
 
@@ -94,9 +95,12 @@ class PdTermStructure:
             A label has no curve in this segment (e.g. a grade the assumptions do not give).
         """
         lookup = {key: i for i, key in enumerate(self.keys)}
-        labels = np.asarray(list(labels), dtype=object)
-        uniques, inverse = np.unique(labels.astype(str), return_inverse=True)
-        missing = [u for u in uniques if u not in lookup]
+        if not isinstance(labels, (pd.Series, pd.api.extensions.ExtensionArray, np.ndarray)):
+            labels = np.asarray(list(labels), dtype=object)
+        # codes by first appearance (Arrow text is factorised without a Python object a label)
+        inverse, found = pd.factorize(labels, use_na_sentinel=False)
+        uniques = [str(u) for u in found]
+        missing = sorted(u for u in set(uniques) if u not in lookup)
         if missing:
             raise AssumptionsError(
                 f"no PD for {', '.join(repr(str(m)) for m in missing)}; the segment gives "
@@ -104,7 +108,7 @@ class PdTermStructure:
                 column=f"segments.{self.segment}.{self.source}",
                 hint="add the missing grades to the assumptions or correct the tape's grade column",
             )
-        return np.array([lookup[u] for u in uniques], dtype=np.int64)[inverse].reshape(labels.shape)
+        return np.array([lookup[u] for u in uniques], dtype=np.int64)[inverse].reshape(np.shape(labels))
 
 
 def _keep_factors(marginal: np.ndarray, smm: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:

@@ -102,6 +102,24 @@ def _own_pd(chunk: pd.DataFrame) -> np.ndarray:
     return np.where(np.isnan(now) & _flag(chunk, "credit_impaired_at_purchase"), bought, now)
 
 
+def _pd_scale(prep: Prepared, curve: np.ndarray, own: np.ndarray) -> np.ndarray:
+    """:func:`allowance.curves.loan_pd_scale` of the loans that have their own 12-month PD; 1
+    for the rest (their curve row as it is).
+
+    The scale is solved row by row, so it is solved once for each distinct pair of curve row
+    and own PD and given to every loan of the pair: the same figures, and where PDs come from
+    a rating scale (a few dozen values) a fraction of the Newton steps."""
+    scale = np.ones(len(own))
+    has = np.flatnonzero(~np.isnan(own))
+    if not has.size:
+        return scale
+    own_code, own_values = pd.factorize(own[has])
+    pair_code, pairs = pd.factorize(curve[has] * len(own_values) + own_code)
+    solved = curves.loan_pd_scale(prep.pd_first_year[pairs // len(own_values)], own_values[pairs % len(own_values)])
+    scale[has] = solved[pair_code]
+    return scale
+
+
 def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.ndarray:
     """Row of the stacked PD table for every loan (by segment, grade or DPD bucket)."""
     out = np.zeros(len(chunk), dtype=np.int64)
@@ -116,7 +134,7 @@ def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.
             age = cashflows.age_months(chunk["origination_date"][mask], pd.Timestamp(prep.config.as_of))
             local = np.minimum(age, len(ts.keys) - 1)
         elif ts.source.endswith("_by_grade"):
-            local = ts.key_index(chunk["grade"].to_numpy()[mask])
+            local = ts.key_index(chunk["grade"].array[mask])
         else:
             local = np.zeros(mask.sum(), dtype=np.int64)
         out[mask] = prep.key_offset[name] + local
@@ -242,7 +260,7 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
         haircut=table.haircut[segment], recovery_cost=table.recovery_cost[segment], lgd_floor=table.lgd_floor[segment],
         months_to_recovery=table.months_to_recovery[segment], refinance_pd=q, refinance_unknown=unknown,
         # the loan's own 12-month PD (e.g. a behavioural score) sets the level of its curve row
-        pd_scale=curves.loan_pd_scale(prep.pd_first_year[curve], _own_pd(chunk)),
+        pd_scale=_pd_scale(prep, curve, _own_pd(chunk)),
     )
 
 
@@ -432,7 +450,7 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     as_of = prep.config.as_of
     bought = poci.purchased_in_period(pd.DatetimeIndex(chunk["origination_date"].to_numpy()[rows]), as_of,
                                       a.run.period_months)
-    scale = curves.loan_pd_scale(prep.pd_first_year[terms.curve[rows]], _number(chunk, "pd_12m_at_origination")[rows])
+    scale = _pd_scale(prep, terms.curve[rows], _number(chunk, "pd_12m_at_origination")[rows])
     defaulted = fw.in_default[:, rows] & bought[None, :]
     lifetime = fw.horizon[:, rows].copy()  # the life (a line's run-off where a framework runs it off)
     r = expected_losses(_subset(inputs, rows, in_default=defaulted, horizon=lifetime, pd_scale=scale))
@@ -746,7 +764,7 @@ def _refinance_findings(chunk: pd.DataFrame, terms: LoanTerms) -> pd.DataFrame:
     return pd.DataFrame(
         {
             "source_row": chunk["source_row"].to_numpy()[flagged] if "source_row" in chunk else np.nonzero(flagged)[0],
-            "loan_id": chunk["loan_id"].to_numpy()[flagged],
+            "loan_id": np.asarray(chunk["loan_id"].array[flagged], dtype=object),
             "column": "collateral_value",
             "code": "refinance_riskiest_band",
             "severity": "warning",
@@ -765,7 +783,7 @@ def _payment_findings(chunk, balance, rate, remaining, payment) -> pd.DataFrame:
     return pd.DataFrame(
         {
             "source_row": chunk["source_row"].to_numpy()[flagged] if "source_row" in chunk else np.nonzero(flagged)[0],
-            "loan_id": chunk["loan_id"].to_numpy()[flagged],
+            "loan_id": np.asarray(chunk["loan_id"].array[flagged], dtype=object),
             "column": "payment",
             "code": "payment_short",
             "severity": "warning",

@@ -204,8 +204,9 @@ def remaining_life(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndar
     term = cashflows.remaining_months(as_of, tape["maturity_date"])
     # a matured loan still carrying a balance gets a one-month horizon (intake flags it)
     off = off_balance(tape)
-    repayment = np.where(off, "level", tape["repayment"].to_numpy(dtype=object))
-    life = staging.lifetime_months(np.maximum(term, 1), repayment, np.where(off, 1, behavioural))
+    revolving = (tape["repayment"] == "revolving").to_numpy(dtype=bool) & ~off
+    life = staging.lifetime_months(np.maximum(term, 1), np.where(revolving, "revolving", "level"),
+                                   np.where(off, 1, behavioural))
     return np.where(off, np.maximum(commitment_months(tape, as_of), 1), life).astype(np.int64)
 
 
