@@ -33,3 +33,43 @@ def test_no_stage_1_loans_falls_back_to_all_and_zero_means_none():
     assert list(picks["position"]) == [1, 0]  # the median first, then the earlier of the two tied
     assert "among all cre loans" in picks["chosen"].iloc[0]
     assert representative_loans(loans, 0).empty
+
+
+def test_the_sample_is_each_chosen_loan_scheduled_alone():
+    # the sample builds the loop's inputs once for all its loans; each loan's table must be the
+    # one loan_schedule gives it alone (a loan's inputs do not depend on its neighbours), here
+    # on a book with every kind of loan the engine tests use (secured, revolving, delinquent)
+    from allowance import engine
+    from allowance.cashflows import age_months
+    from allowance.engine import loan_schedule, prepare, tape_months
+    from allowance.engine.views import schedule_sample
+    from tests.books import engine_config, engine_tape
+
+    cfg = engine_config()
+    book = engine_tape(n=60, seed=3)
+    loans = engine.run(book, cfg, schedule_sample=0).loans
+    prep = prepare(cfg, tape_months(book, cfg), int(age_months(book["origination_date"], pd.Timestamp(cfg.as_of)).max()))
+    sample = schedule_sample(book, loans, prep, 2)
+    picks = representative_loans(loans, 2)
+    assert sample["loan_id"].nunique() == len(picks) > 2
+    alone = pd.concat([loan_schedule(book.iloc[[p]], prep).assign(chosen=why).loc[:, sample.columns]
+                       for p, why in zip(picks["position"], picks["chosen"])], ignore_index=True)
+    pd.testing.assert_frame_equal(sample, alone, check_exact=True)
+
+
+def test_the_booked_columns_sit_beside_the_schedule_as_a_merge_puts_them():
+    # pandas' left merge on month is the reference: the same columns, names (_x/_y where both
+    # tables have one), order, dtypes and blanks, for a horizon shorter than the schedule,
+    # the same, and a loss booked now (month 0)
+    import numpy as np
+
+    from allowance.engine.views import _beside
+
+    rng = np.random.default_rng(5)
+    for months, booked_months in ((12, range(1, 13)), (30, range(1, 13)), (1, [0]), (5, [])):
+        frame = pd.DataFrame({"month": np.arange(1, months + 1) if booked_months != [0] else np.array([0]),
+                              "opening_balance": rng.random(months), "survival": rng.random(months)})
+        booked = pd.DataFrame({"month": np.array(list(booked_months), dtype=np.int64),
+                               "ead": rng.random(len(booked_months)), "survival": rng.random(len(booked_months))})
+        pd.testing.assert_frame_equal(_beside(frame, booked), frame.merge(booked, on="month", how="left"),
+                                      check_exact=True)

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import cashflows, curves, ecl, individual, macro
-from allowance.engine.chunk import _curve_keys, _individual_measurement, chunk_inputs
+from allowance.engine.chunk import ChunkInputs, _curve_keys, _individual_measurement, chunk_inputs
 from allowance.engine.tables import Prepared
 from allowance.money import money_total
 from allowance.schemas import Framework, RunConfig
@@ -160,20 +160,27 @@ def representative_loans(loans: pd.DataFrame, per_segment: int) -> pd.DataFrame:
 
 def schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per_segment: int) -> pd.DataFrame:
     """Representative loans per segment (:func:`representative_loans`), scheduled month by month
-    on the first scenario's PDs."""
+    on the first scenario's PDs.
+
+    The loop's inputs are built once for all the chosen loans (a loan's inputs do not depend on
+    the other loans of its chunk), then each loan is scheduled as :func:`loan_schedule` does.
+    """
     picks = representative_loans(loans, per_segment)
     if picks.empty:
         return pd.DataFrame()
-    known = set(prep.structures)
+    rows = tape.iloc[picks["position"].to_numpy()]
+    known = rows["segment"].isin(list(prep.structures)).to_numpy()
+    rows, why = rows[known], picks["chosen"].to_numpy()[known]
+    if rows.empty:
+        return pd.DataFrame()
+    inputs = chunk_inputs(rows, prep)
+    measured = _individual_measurement(rows, inputs.terms, prep)
     frames = []
-    for position, why in zip(picks["position"], picks["chosen"]):
-        row = tape.iloc[[position]]
-        if row["segment"].iloc[0] not in known:
-            continue
-        frame = loan_schedule(row, prep)
-        frame.insert(1, "chosen", why)
+    for i, chosen in enumerate(why):
+        frame = _schedule_of(rows, i, inputs, measured, prep)
+        frame.insert(1, "chosen", chosen)
         frames.append(frame)
-    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+    return pd.concat(frames, ignore_index=True)
 
 
 def loan_schedule(row: pd.DataFrame, prep: Prepared, framework: Framework | None = None, scenario: int = 0) -> pd.DataFrame:
@@ -189,34 +196,68 @@ def loan_schedule(row: pd.DataFrame, prep: Prepared, framework: Framework | None
     (collateral dependent, individually assessed) one row with its amount; ``measurement``
     says which.
     """
+    inputs = chunk_inputs(row, prep)
+    return _schedule_of(row, 0, inputs, _individual_measurement(row, inputs.terms, prep), prep, framework, scenario)
+
+
+def _schedule_of(rows: pd.DataFrame, i: int, inputs: ChunkInputs, measured: tuple[np.ndarray, np.ndarray],
+                 prep: Prepared, framework: Framework | None = None, scenario: int = 0) -> pd.DataFrame:
+    """:func:`loan_schedule` of the loan in position ``i`` of ``rows``, from the inputs of all
+    of them (``measured``: their :func:`~allowance.engine.chunk._individual_measurement`)."""
     fw = framework or prep.frameworks[0]
     f = prep.frameworks.index(fw)
-    inputs = chunk_inputs(row, prep)
     t = inputs.terms
     # the framework's own life, run-off and SMM row (a line CECL runs off: no payoff SMM on top)
-    months = int(inputs.frameworks.horizon[f, 0])
-    cols = np.minimum(t.prepay_offset[0] + np.arange(months), prep.smm.shape[1] - 1)
-    repayment = t.repayment[0]
-    paydown = float(inputs.frameworks.paydown[f, 0])
+    months = int(inputs.frameworks.horizon[f, i])
+    cols = np.minimum(t.prepay_offset[i] + np.arange(months), prep.smm.shape[1] - 1)
+    repayment = t.repayment[i]
+    paydown = float(inputs.frameworks.paydown[f, i])
     frame = cashflows.schedule(
-        repayment, float(t.balance[0]), float(row["interest_rate"].iloc[0]), months,
-        interest_only_months_left=int(t.io_left[0]), residual=float(t.residual[0]),
-        payment=float(t.payment[0]), paydown=paydown, smm=prep.smm[inputs.frameworks.prepay[f, 0], cols],
-        marginal_pd=prep.pd[f, inputs.kernel.curve[f, 0], :months, scenario],
+        repayment, float(t.balance[i]), float(rows["interest_rate"].iloc[i]), months,
+        interest_only_months_left=int(t.io_left[i]), residual=float(t.residual[i]),
+        payment=float(t.payment[i]), paydown=paydown, smm=prep.smm[inputs.frameworks.prepay[f, i], cols],
+        marginal_pd=prep.pd[f, inputs.kernel.curve[f, i], :months, scenario],
     )
-    stage = inputs.stages["stage"].to_numpy() if inputs.stages is not None else np.ones(1, dtype=np.int64)
-    horizon = int(prep.rules[f].horizon(stage, inputs.frameworks.horizon[f])[0])
-    booked = ecl.loan_months(inputs.kernel, 0, f, scenario, horizon)
-    method, replaced = _individual_measurement(row, t, prep)
+    stage = inputs.stages["stage"].to_numpy()[i:i + 1] if inputs.stages is not None else np.ones(1, dtype=np.int64)
+    horizon = int(prep.rules[f].horizon(stage, inputs.frameworks.horizon[f, i:i + 1])[0])
+    booked = ecl.loan_months(inputs.kernel, i, f, scenario, horizon)
+    method, replaced = measured
     measurement = "model"
-    if not np.isnan(replaced[f, 0]):  # measured one by one: the amount, the same in every scenario
-        measurement = str(list(individual.MEASUREMENTS)[int(method[0])])
-        booked = pd.DataFrame([{"month": 0, "ead": float(t.balance[0]), "ecl": float(replaced[f, 0])}])
+    if not np.isnan(replaced[f, i]):  # measured one by one: the amount, the same in every scenario
+        measurement = str(list(individual.MEASUREMENTS)[int(method[i])])
+        booked = pd.DataFrame([{"month": 0, "ead": float(t.balance[i]), "ecl": float(replaced[f, i])}])
     if booked["month"].iloc[0] == 0:  # nothing projected: the loss is booked now
-        frame = pd.DataFrame({"month": [0], "opening_balance": [float(t.balance[0])]})
-    frame = frame.merge(booked, on="month", how="left")
+        frame = pd.DataFrame({"month": [0], "opening_balance": [float(t.balance[i])]})
+    frame = _beside(frame, booked)
     frame.insert(1, "measurement", measurement)
     frame.insert(0, "scenario", prep.scenario_names[scenario])
     frame.insert(0, "framework", fw)
-    frame.insert(0, "loan_id", row["loan_id"].iloc[0])
+    frame.insert(0, "loan_id", rows["loan_id"].iloc[i])
     return frame
+
+
+def _beside(frame: pd.DataFrame, booked: pd.DataFrame) -> pd.DataFrame:
+    """``frame.merge(booked, on="month", how="left")`` for two tables of distinct months: the
+    booked columns beside the schedule's, blank in the months the engine did not book; a name
+    both have is suffixed ``_x`` (the schedule's) and ``_y`` (the engine's), as the merge does.
+
+    Examples
+    --------
+    >>> _beside(pd.DataFrame({"month": [1, 2, 3], "a": [1.0, 2.0, 3.0]}), pd.DataFrame({"month": [1, 2], "b": [5.0, 6.0]}))
+       month    a    b
+    0      1  1.0  5.0
+    1      2  2.0  6.0
+    2      3  3.0  NaN
+    >>> list(_beside(pd.DataFrame({"month": [1], "a": [1.0]}), pd.DataFrame({"month": [1], "a": [2.0]})).columns)
+    ['month', 'a_x', 'a_y']
+    """
+    where = pd.Index(frame["month"].to_numpy()).get_indexer(booked["month"].to_numpy())
+    found = where >= 0
+    both = (set(frame.columns) & set(booked.columns)) - {"month"}
+    columns = {}
+    for name in booked.columns.drop("month"):
+        column = np.full(len(frame), np.nan)
+        column[where[found]] = booked[name].to_numpy(dtype=float)[found]
+        columns[f"{name}_y" if name in both else name] = column
+    left = frame.rename(columns={name: f"{name}_x" for name in both}) if both else frame
+    return pd.concat([left, pd.DataFrame(columns, index=frame.index)], axis=1)
