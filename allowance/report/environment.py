@@ -26,14 +26,11 @@ def _canonical(name: str) -> str:
     return re.sub(r"[-_.]+", "-", name).lower()
 
 
-def _requirements(distribution: str) -> list[str]:
-    """Names a distribution requires outside its optional extras (installed or not)."""
-    try:
-        listed = metadata.requires(distribution) or []
-    except metadata.PackageNotFoundError:
-        return []
+def _requirements(listed: list[str] | None) -> list[str]:
+    """Names a distribution requires (its ``Requires-Dist`` lines) outside its optional extras,
+    installed or not."""
     names = []
-    for line in listed:
+    for line in listed or []:
         requirement, _, marker = line.partition(";")
         if "extra" in marker:
             continue  # an optional extra: not part of what a run needs
@@ -43,19 +40,30 @@ def _requirements(distribution: str) -> list[str]:
     return names
 
 
+def _installed(name: str) -> tuple[str, list[str]] | None:
+    """A distribution's version and the names it requires, from one reading of its metadata
+    (``metadata.version`` and ``metadata.requires`` would each find and parse it again)."""
+    try:
+        found = metadata.metadata(name)
+    except metadata.PackageNotFoundError:
+        return None
+    return found["Version"], _requirements(found.get_all("Requires-Dist"))
+
+
 @functools.lru_cache(maxsize=1)
 def _packages() -> tuple[tuple[str, str], ...]:
     found: dict[str, str] = {}
-    queue = _requirements("allowance")
+    own = _installed("allowance")
+    queue = own[1] if own is not None else []
     while queue:
         name = _canonical(queue.pop())
         if name in found:
             continue
-        try:
-            found[name] = metadata.version(name)
-        except metadata.PackageNotFoundError:
+        installed = _installed(name)
+        if installed is None:
             continue  # a requirement whose marker excludes this platform
-        queue.extend(_requirements(name))
+        found[name], needs = installed
+        queue.extend(needs)
     return tuple(sorted(found.items()))
 
 
