@@ -31,6 +31,13 @@ def _show(value: object) -> str:
     return repr(value) if isinstance(value, str) else str(value)
 
 
+def _objects(values) -> pd.Series:
+    """Text as a column of Python strings that stays one: the bridge joins and selects it as
+    object arrays (``np.where`` over both runs), and a frame built from a bare object array
+    would convert it to Arrow text and the bridge back again, a pass over the book each way."""
+    return pd.Series(np.asarray(values, dtype=object), dtype=object, copy=False)
+
+
 def _cents(values: pd.Series, *, column: str, source: str, ids: pd.Series) -> np.ndarray:
     """Money in currency units -> whole cents; a blank or non-number is a named error."""
     numbers = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
@@ -76,7 +83,7 @@ def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, model
             file=source, column=missing[0], hint=f"use a run that included {framework}",
         )
     ids = frame["loan_id"].astype(str)
-    out = pd.DataFrame({"key": neutralise_text(ids).to_numpy(dtype=object), "loan_id": ids.to_numpy(dtype=object)})
+    out = pd.DataFrame({"key": _objects(neutralise_text(ids)), "loan_id": _objects(ids)})
     dupes = out["key"][out["key"].duplicated()]
     if len(dupes):
         raise MovementError(
@@ -86,7 +93,7 @@ def prepare_run(frame: pd.DataFrame, framework: Framework, source: str, *, model
     if modelled_only:
         out["mod"] = _cents(frame[modelled], column=modelled, source=source, ids=ids)
         return out.set_index("key")
-    out["segment"] = frame["segment"].astype(str).to_numpy(dtype=object)
+    out["segment"] = _objects(frame["segment"].astype(str))
     out["ecl"] = _cents(frame[final], column=final, source=source, ids=ids)
     out["mod"] = (
         _cents(frame[modelled], column=modelled, source=source, ids=ids) if modelled in frame.columns else out["ecl"]
@@ -145,8 +152,8 @@ def prepare_charge_offs(frame: pd.DataFrame | None, source: str) -> pd.DataFrame
                 hint="give charge-offs and recoveries as positive amounts",
             )
     segment = frame["segment"].astype(str) if "segment" in frame.columns else pd.Series(pd.NA, index=frame.index)
-    parts = pd.DataFrame({"key": neutralise_text(ids).to_numpy(dtype=object), "gco": gco, "rec": rec,
-                          "segment": segment.to_numpy(dtype=object)})
+    parts = pd.DataFrame({"key": _objects(neutralise_text(ids)), "gco": gco, "rec": rec,
+                          "segment": _objects(segment)})
     return parts.groupby("key", sort=False).agg(gco=("gco", "sum"), rec=("rec", "sum"), segment=("segment", "first"))
 
 
@@ -233,13 +240,13 @@ def bridge(p: pd.DataFrame, c: pd.DataFrame, a: pd.DataFrame | None, co: pd.Data
                        "charged off outside both runs")
     return pd.DataFrame(
         {
-            "loan_id": loan_ids,
+            "loan_id": _objects(loan_ids),
             "status": status,
-            "segment_prior": seg_p,
-            "segment": seg_c,
-            "segment_any": seg_any,
-            "class_prior": pr["klass"].to_numpy(dtype=object),
-            "class": cu["klass"].to_numpy(dtype=object),
+            "segment_prior": _objects(seg_p),
+            "segment": _objects(seg_c),
+            "segment_any": _objects(seg_any),
+            "class_prior": _objects(pr["klass"].to_numpy(dtype=object)),
+            "class": _objects(cu["klass"].to_numpy(dtype=object)),
             "in_prior": in_p,
             "in_current": in_c,
             # allowance, cents
