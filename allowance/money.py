@@ -32,12 +32,17 @@ def money_total(values: Iterable[float] | pd.Series | np.ndarray) -> float:
     >>> money_total([1e13] * 1_000_000)  # 1e21 cents: beyond int64, still exact
     1e+19
     """
-    array = np.asarray(pd.to_numeric(pd.Series(values), errors="raise"), dtype=np.float64)
+    if isinstance(values, (np.ndarray, pd.Series)) and values.dtype.kind == "f":
+        array = np.asarray(values, dtype=np.float64)  # a float column as it is: no conversion pass
+    else:
+        array = np.asarray(pd.to_numeric(pd.Series(values), errors="raise"), dtype=np.float64)
     if array.size == 0:
         return 0.0
-    if not np.isfinite(array).all() or np.abs(array).max() > 2.0**53 / 100.0:
+    cents = array * 100.0
+    # one test covers NaN, infinities and amounts beyond whole cents in float64 (NaN fails it)
+    if not (np.abs(cents).max() <= 2.0**53):
         raise ValueError("money_total: an amount is not finite or beyond whole cents in float64 (2**53 cents)")
-    cents = np.rint(array * 100.0).astype(np.int64)
+    cents = np.rint(cents, out=cents).astype(np.int64)
     # high and low 32 bits summed apart: no int64 overflow for any realistic number of loans
     high, low = int((cents >> 32).sum()), int((cents & 0xFFFFFFFF).sum())
     return (high * 2**32 + low) / 100.0
