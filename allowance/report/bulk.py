@@ -25,6 +25,8 @@ from __future__ import annotations
 import io
 import re
 import zipfile
+from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -74,40 +76,81 @@ def _numbers_text(numbers: np.ndarray) -> pa.Array:
     return pc.cast(pa.array(numbers), pa.string())
 
 
-def _column_cells(series: pd.Series, letter: str, rows: pa.Array, style: int) -> pa.Array:
-    """The ``<c>`` element of every cell of one column ('' for a blank cell), built by Arrow
-    element-wise joins: no Python per cell (a 100,000-loan sheet has some 4.6 million)."""
-    pre = f'<c r="{letter}'
-    blank = None
-    if pd.api.types.is_bool_dtype(series.dtype):
-        flags = series.to_numpy(dtype=object)
-        blank = np.array([v is None or v is pd.NA for v in flags.tolist()], dtype=bool) if series.hasnans else None
-        values = pa.array(np.where(series.fillna(False).to_numpy(dtype=bool), "1", "0"))
-        mid, tail = f'" s="{style}" t="b"><v>', "</v></c>"
-    else:
-        mid, tail = f'" s="{style}"><v>', "</v></c>"
-        if pd.api.types.is_datetime64_any_dtype(series.dtype):
+class _Column:
+    """One column of a bulk sheet, read from the frame once: its values as numbers, flags or
+    codes into its distinct texts (cleaned and escaped once), and which cells are blank; each
+    chunk of rows then only slices these."""
+
+    def __init__(self, series: pd.Series, letter: str, style: int) -> None:
+        self.pre = f'<c r="{letter}'
+        self.mid, self.tail = f'" s="{style}"><v>', "</v></c>"
+        self.blank: np.ndarray | None = None
+        self.integers: np.ndarray | None = None
+        self.numbers: np.ndarray | None = None
+        self.texts: pa.Array | None = None
+        self.codes: np.ndarray | None = None
+        dtype = series.dtype
+        if pd.api.types.is_bool_dtype(dtype):
+            self.blank = series.isna().to_numpy(dtype=bool) if series.hasnans else None
+            self.texts = pa.array(["0", "1"])
+            self.codes = series.fillna(False).to_numpy(dtype=bool).astype(np.int8)
+            self.mid = f'" s="{style}" t="b"><v>'
+        elif pd.api.types.is_datetime64_any_dtype(dtype):
             stamps = series.to_numpy(dtype="datetime64[s]")
-            blank = np.isnat(stamps)
-            values = _numbers_text(np.where(blank, 0.0, (stamps - _EXCEL_EPOCH).astype(np.float64) / 86400.0))
-        elif pd.api.types.is_numeric_dtype(series.dtype):
-            if pd.api.types.is_integer_dtype(series.dtype) and not series.hasnans:
-                values = _numbers_text(series.to_numpy(dtype=np.int64))
-            else:
-                numbers = series.to_numpy(dtype=np.float64, na_value=np.nan)
-                blank = ~np.isfinite(numbers)
-                values = _numbers_text(np.where(blank, 0.0, numbers))
+            self.blank = np.isnat(stamps)
+            self.numbers = np.where(self.blank, 0.0, (stamps - _EXCEL_EPOCH).astype(np.float64) / 86400.0)
+        elif pd.api.types.is_numeric_dtype(dtype):
+            numbers = series.to_numpy(dtype=np.float64, na_value=np.nan)
+            self.blank = ~np.isfinite(numbers)
+            self.numbers = np.where(self.blank, 0.0, numbers)
+            if pd.api.types.is_integer_dtype(dtype):
+                # whole numbers as integers, except in a chunk holding a blank (as floats there)
+                self.integers = series.to_numpy(dtype=np.int64, na_value=0) if series.hasnans else \
+                    series.to_numpy(dtype=np.int64)
         else:
             # text: clean and escape each distinct value once (ids are unique, segments repeat)
             codes, uniques = pd.factorize(series, use_na_sentinel=True)
-            texts = pa.concat_arrays([_xml_texts(uniques), pa.array([""], type=pa.string())])
-            blank = codes < 0
-            values = pc.take(texts, pa.array(np.where(blank, len(texts) - 1, codes)))
-            mid, tail = f'" s="{style}" t="inlineStr"><is><t xml:space="preserve">', "</t></is></c>"
-    cells = pc.binary_join_element_wise(pre, rows, mid, values, tail, "")
-    if blank is not None and blank.any():
-        cells = pc.if_else(pa.array(blank), "", cells)
-    return cells
+            self.texts = pa.concat_arrays([_xml_texts(uniques), pa.array([""], type=pa.string())])
+            self.blank = codes < 0
+            self.codes = np.where(self.blank, len(self.texts) - 1, codes)
+            self.mid, self.tail = f'" s="{style}" t="inlineStr"><is><t xml:space="preserve">', "</t></is></c>"
+
+    def values(self, start: int, stop: int, blank: np.ndarray | None) -> pa.Array:
+        """The text of each cell's value in rows ``start:stop``."""
+        if self.texts is not None:
+            return pc.take(self.texts, pa.array(self.codes[start:stop]))
+        if self.integers is not None and blank is None:
+            return _numbers_text(self.integers[start:stop])
+        return _numbers_text(self.numbers[start:stop])
+
+    def pieces(self, start: int, stop: int, rows: pa.Array) -> list[Any]:
+        """The pieces whose element-wise join is each cell's ``<c>`` element: a blank column's
+        cells joined already ('' where blank), a full one's left for the row's one join."""
+        blank = self.blank[start:stop] if self.blank is not None else None
+        blank = blank if blank is not None and blank.any() else None
+        values = self.values(start, stop, blank)
+        if blank is None:
+            return [self.pre, rows, self.mid, values, self.tail]
+        cells = pc.binary_join_element_wise(self.pre, rows, self.mid, values, self.tail, "")
+        return [pc.if_else(pa.array(blank), "", cells)]
+
+
+def _joined(pieces: list[Any]) -> list[Any]:
+    """Adjacent texts (not arrays) as one, for fewer arguments to the join."""
+    out: list[Any] = []
+    for piece in pieces:
+        if isinstance(piece, str) and out and isinstance(out[-1], str):
+            out[-1] += piece
+        else:
+            out.append(piece)
+    return out
+
+
+def _utf8(texts: pa.Array) -> memoryview:
+    """The UTF-8 bytes of an Arrow string array's values, back to back, without a copy."""
+    offsets = np.frombuffer(texts.buffers()[1], dtype=np.int32 if texts.type == pa.string() else np.int64)
+    first, last = int(offsets[texts.offset]), int(offsets[texts.offset + len(texts)])
+    return memoryview(texts.buffers()[2])[first:last]
 
 
 def _widest(sample: pd.Series) -> list[Any]:
@@ -155,8 +198,8 @@ class BulkSheet:
         for j, value in enumerate(first.iloc[0].tolist() if len(first) else []):
             sheet.put(BULK_HEADER_ROW + 1, j + 1, value, self.column_kinds[j])
         # column widths from the first rows, so a long id or reason is not cut
-        for j, name in enumerate(names):
-            sample = frame[name].head(200)
+        head = frame.head(200)
+        for j, (_, sample) in enumerate(head.items()):
             if self.column_kinds[j] == "text":
                 longest = max((len(str(v)) for v in sample.dropna().tolist()), default=0)
                 sheet.fit[j + 1] = max(sheet.fit[j + 1], min(longest, 40) + 2)
@@ -177,17 +220,20 @@ class BulkSheet:
         return BULK_HEADER_ROW + len(self.frame)
 
     def rows_xml(self, styles: list[int]):
-        """The XML of the data rows after the first, in chunks."""
+        """The XML (UTF-8) of the data rows after the first, in chunks: each chunk's rows made by
+        one element-wise join over every column's pieces."""
         frame = self.frame
-        letters = [col_letter(j + 1) for j in range(len(frame.columns))]
+        columns = [_Column(series, col_letter(j + 1), styles[j]) for j, (_, series) in enumerate(frame.items())]
         start_row = BULK_HEADER_ROW + 2
         for start in range(1, len(frame), self.chunk_rows):
-            part = frame.iloc[start:start + self.chunk_rows]
+            stop = min(start + self.chunk_rows, len(frame))
             first = start_row + start - 1
-            rows = pc.cast(pa.array(np.arange(first, first + len(part), dtype=np.int64)), pa.string())
-            columns = [_column_cells(part.iloc[:, j], letters[j], rows, styles[j]) for j in range(len(letters))]
-            xml = pc.binary_join_element_wise('<row r="', rows, '">', *columns, "</row>", "")
-            yield "".join(xml.to_pylist())
+            rows = pc.cast(pa.array(np.arange(first, first + stop - start, dtype=np.int64)), pa.string())
+            pieces: list[Any] = ['<row r="', rows, '">']
+            for column in columns:
+                pieces += column.pieces(start, stop, rows)
+            xml = pc.binary_join_element_wise(*_joined(pieces + ["</row>"]), "")
+            yield _utf8(xml)
 
     @property
     def dimension(self) -> str:
@@ -231,6 +277,19 @@ def _first_row_styles(xml: str, bulk: BulkSheet) -> list[int]:
     row = str(bulk.first_data_row)
     found = {m.group(1): int(m.group(3) or 0) for m in _STYLE.finditer(xml) if m.group(2) == row}
     return [found.get(col_letter(j + 1), 0) for j in range(len(bulk.frame.columns))]
+
+
+def _write_behind(out: Any, pieces: Iterator[Any]) -> None:
+    """Write each piece while the next is made: compressing (zlib) and making rows (Arrow) both
+    run outside the GIL, so on two cores they overlap; the bytes are those of writing in turn."""
+    with ThreadPoolExecutor(1, thread_name_prefix="allowance-xlsx") as pool:
+        pending = None
+        for piece in pieces:
+            if pending is not None:
+                pending.result()
+            pending = pool.submit(out.write, piece)
+        if pending is not None:
+            pending.result()
 
 
 def _zip_time(stamp: datetime) -> tuple[int, int, int, int, int, int]:
@@ -290,6 +349,5 @@ def save(book: Book, path: Path, bulks: list[BulkSheet], *, created: datetime, t
                 entry._compresslevel = 1  # type: ignore[attr-defined]
             with zout.open(entry, "w", force_zip64=large) as out:
                 out.write(head.encode("utf-8"))
-                for piece in bulk.rows_xml(styles):
-                    out.write(piece.encode("utf-8"))
+                _write_behind(out, bulk.rows_xml(styles))
                 out.write(xml[end:].encode("utf-8"))

@@ -174,6 +174,8 @@ def is_missing(value: Any) -> bool:
     """None, NaN, NaT and pandas NA (and not a container)."""
     if value is None:
         return True
+    if isinstance(value, (str, int, np.integer)):  # the common cells, answered without pandas
+        return False
     if isinstance(value, (float, np.floating)):
         return not np.isfinite(value)
     try:

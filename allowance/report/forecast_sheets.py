@@ -57,10 +57,11 @@ def _wide_paths(report: "RunReport", months: int) -> tuple:
 
 def _segment_frame(report: "RunReport", segment: str, wide: tuple) -> pd.DataFrame:
     first, scenarios, macro, pd_paths, frameworks = wide
-    out = first.copy()
+    columns: dict[str, np.ndarray] = {}
 
     def put(label: str, table: pd.DataFrame, column: tuple) -> None:  # a path the tables lack: blank
-        out[label] = table[column].reindex(out.index) if column in table.columns else np.nan
+        columns[label] = (table[column].reindex(first.index).to_numpy(dtype=float) if column in table.columns
+                          else np.full(len(first), np.nan))
 
     for name in scenarios:
         for variable in _variables(report, segment):
@@ -68,7 +69,7 @@ def _segment_frame(report: "RunReport", segment: str, wide: tuple) -> pd.DataFra
     for framework in frameworks.get(segment, []):
         for name in scenarios:
             put(f"{name}: PD {_FW_LABEL.get(framework, framework)}", pd_paths, (segment, framework, name))
-    return out.reset_index()
+    return pd.concat([first, pd.DataFrame(columns, index=first.index)], axis=1).reset_index()
 
 
 def macro_pd_frame(report: "RunReport", segment: str, months: int = MONTHS_SHOWN) -> pd.DataFrame:

@@ -715,10 +715,12 @@ class Shared:
     """What both workbooks show, built once for the two (:func:`write_workbooks`)."""
 
     curves: CurveGrid
+    #: the loan figures computed for one workbook, reused by the other (values, not formulas)
+    refs: LoanRefs
 
     @classmethod
     def of(cls, report: RunReport) -> "Shared":
-        return cls(curves=curve_grid(report))
+        return cls(curves=curve_grid(report), refs=LoanRefs(report.loans.reset_index(drop=True), live=False))
 
 
 def _build(path: Path, report: RunReport, *, full: bool, shared: Shared | None = None) -> Ledger:
@@ -726,7 +728,7 @@ def _build(path: Path, report: RunReport, *, full: bool, shared: Shared | None =
     loans = report.loans.reset_index(drop=True)
     limit = min(report.config.assumptions.run.loan_detail_sheet_limit, EXCEL_MAX_ROWS - BULK_HEADER_ROW)
     live = full and 0 < len(loans) <= limit
-    refs = LoanRefs(loans, live=live, first_row=BULK_HEADER_ROW + 1)
+    refs = LoanRefs(loans, live=live, first_row=BULK_HEADER_ROW + 1, like=shared.refs)
     led = Ledger()
     book = Book(_context(report))
     bulks: list[BulkSheet] = []

@@ -302,10 +302,12 @@ class Sheet:
         col_kinds = [kinds.get(n, number_kind(n, frame[n].dtype)) for n in names]
         self.header(row, col, [headers.get(n, human(n)) for n in names], col_kinds)
         first = row + 1
+        # each column's two formats looked up once (a format only reaches the file when a cell uses it)
+        formats = [(self.styles.cell(kind), self.styles.cell(kind, total=True)) for kind in col_kinds]
         for i, record in enumerate(frame.itertuples(index=False, name=None)):
             total = i >= len(frame) - total_rows
             for j, value in enumerate(record):
-                self.put(first + i, col + j, value, col_kinds[j], total=total)
+                self.put(first + i, col + j, value, col_kinds[j], total=total, style=formats[j][total])
         last = first + len(frame) - 1
         if autofilter and len(frame):
             self.ws.autofilter(row - 1, col - 1, last - 1, col - 2 + len(names))
