@@ -167,8 +167,8 @@ def run(
     Notes
     -----
     Money is computed unrounded and rounded to cents once per loan; overlays are applied to
-    the rounded modelled figures; every total is the sum of rounded loan figures. Rounding,
-    overlays and summaries are book-wide and run after the map.
+    the rounded modelled figures; every total is the sum of rounded loan figures. Each chunk
+    is rounded as it comes back; overlays and summaries are book-wide and run after the map.
     """
     prep = prepare(config, tape_months(tape, config), max_age(tape, config))
 
@@ -176,7 +176,9 @@ def run(
     parts: list[ChunkResult] = []
     done = 0
     for chunk, part in zip(chunks, map(functools.partial(run_chunk, prep=prep), chunks)):
-        parts.append(part)
+        # rounded as each chunk comes back (rounding is per loan): the unrounded chunk is let go
+        # at once, not held beside a rounded copy of the whole book's money columns
+        parts.append(dataclasses.replace(part, loans=_round_money(part.loans)))
         done += len(chunk)
         if progress is not None:
             progress("loans", done, len(tape))
@@ -184,7 +186,7 @@ def run(
     findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
     frames = [p.loans for p in parts]
     del parts
-    loans = _round_money(pd.concat(frames) if frames else pd.DataFrame())
+    loans = pd.concat(frames) if frames else pd.DataFrame()
     del frames
     _split_drawn_undrawn(loans, prep)
 
@@ -243,7 +245,7 @@ def run_part(tape: pd.DataFrame, prep: Prepared, *, chunk_size: int = CHUNK_SIZE
     """
     config = prep.config
     parts = [run_chunk(chunk, prep) for chunk in _chunks(tape, chunk_size)]
-    loans = _round_money(pd.concat([p.loans for p in parts]) if parts else pd.DataFrame())
+    loans = pd.concat([_round_money(p.loans) for p in parts]) if parts else pd.DataFrame()
     _split_drawn_undrawn(loans, prep)
     findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
     if book_wide_overlays(config):
