@@ -79,7 +79,7 @@ def _arrow_ready(frame: pd.DataFrame, dated: list[int]) -> pd.DataFrame:
 
 #: Rows converted to Arrow and written at a time: a million loans' detail is never held
 #: twice (as a frame and as a whole Arrow table, some 500 MB more at the peak)
-_CSV_SLICE_ROWS = 131_072
+_CSV_SLICE_ROWS = 65_536
 _ARROW_ERRORS = (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError)
 
 
