@@ -540,7 +540,7 @@ def pd_path_table(pd_table: np.ndarray, names: Sequence[str], key_segments: Sequ
     n_keys, n_scenarios, months = pd_table.shape
     weights = np.ones(n_keys) if key_weights is None else np.asarray(key_weights, dtype=float)
     segments = np.asarray(key_segments, dtype=object)
-    frames = []
+    scenario_col, segment_col, marginal, annualised = [], [], [], []
     for name in dict.fromkeys(key_segments):
         rows = segments == name
         w = weights[rows]
@@ -548,14 +548,21 @@ def pd_path_table(pd_table: np.ndarray, names: Sequence[str], key_segments: Sequ
         average = np.einsum("k,kst->st", w / w.sum(), pd_table[rows])
         with np.errstate(divide="ignore"):  # a monthly PD of 1 is an annualised PD of 1
             annual = -np.expm1(12.0 * np.log1p(-np.minimum(average, 1.0)))
-        for s, scenario in enumerate(names):
-            frames.append(pd.DataFrame({
-                "framework": framework, "scenario": scenario, "segment": name,
-                "month": np.arange(1, months + 1), "marginal_pd": average[s],
-                "annualised_pd": annual[s],
-            }))
+        for s, scenario in enumerate(names):  # the rows of a segment and scenario, month by month
+            scenario_col.append(scenario)
+            segment_col.append(name)
+            marginal.append(average[s])
+            annualised.append(annual[s])
     columns = ["framework", "scenario", "segment", "month", "marginal_pd", "annualised_pd"]
-    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
+    if not marginal:
+        return pd.DataFrame(columns=columns)
+    # one frame for the whole table (a frame per segment and scenario cost more than the sums)
+    return pd.DataFrame({
+        "framework": framework, "scenario": np.repeat(np.asarray(scenario_col, dtype=object), months),
+        "segment": np.repeat(np.asarray(segment_col, dtype=object), months),
+        "month": np.tile(np.arange(1, months + 1), len(marginal)),
+        "marginal_pd": np.concatenate(marginal), "annualised_pd": np.concatenate(annualised),
+    }, columns=columns)
 
 
 def path_changes(base: Assumptions, what_if: Assumptions, months: int) -> pd.DataFrame:
