@@ -119,10 +119,11 @@ def test_no_cycle_between_modules():
             visit(node)
 
 
-def test_check_loads_no_compiler():
+def test_check_loads_no_compiler_and_no_rich_formatting():
     # `allowance check` validates a tape against the assumptions and compiles nothing: the
     # scalar maths it reads (discounting, LGD) is handed to numba only when a loop is compiled
-    # (allowance.jitable), so numba and llvmlite (about a second with their first call) stay out
+    # (allowance.jitable), so numba and llvmlite (about a second with their first call) stay
+    # out; rich (Typer's help and error frames) is loaded only to show help or a framed error
     import subprocess
     import sys
 
@@ -131,7 +132,7 @@ def test_check_loads_no_compiler():
     code = ("import sys\nfrom allowance.cli import app\n"
             f"try:\n    app(['check', {str(books.DEMO_BAD_TAPE)!r}, '-a', {str(books.DEMO_ASSUMPTIONS)!r}, '--quiet'])\n"
             "except SystemExit as done:\n    print('exit', done.code)\n"
-            "print('|' + ','.join(m for m in ('pandas', 'numba', 'llvmlite', 'scipy') if m in sys.modules))")
+            "print('|' + ','.join(m for m in ('pandas', 'numba', 'llvmlite', 'scipy', 'rich') if m in sys.modules))")
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=180)
     assert done.returncode == 0, done.stderr
     exit_line, loaded = done.stdout.strip().splitlines()[-2:]

@@ -23,18 +23,52 @@ performance history: ``stream`` (batches), ``performance`` (read_history), ``pan
 (the loan-month panel), ``policy``.
 """
 
-from allowance.intake.assumptions import load_assumptions, read_transition_matrix
-from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
-from allowance.intake.files import bundled_path, file_record
-from allowance.intake.history import PriorRun, read_charge_offs, read_prior_run
-from allowance.intake.macro_series import MacroHistory, read_macro_history
-from allowance.intake.parts import is_partitioned, read_parts
-from allowance.intake.performance import HistoryIntake, read_history
-from allowance.intake.policy import read_policy
-from allowance.intake.results import IntakeResult, TieOut
-from allowance.intake.rules import CODES
-from allowance.intake.tape import read_tape
-from allowance.intake.tieout import check_table, tie_out
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
+
+#: each public name and the submodule it lives in: imported on first use, so a command loads
+#: only the readers it needs (``check`` and ``run`` never the performance history's)
+_EXPORTS: dict[str, str] = {
+    "load_assumptions": "assumptions",
+    "read_transition_matrix": "assumptions",
+    "FIELDS": "fields",
+    "FieldSpec": "fields",
+    "data_dictionary": "fields",
+    "bundled_path": "files",
+    "file_record": "files",
+    "PriorRun": "history",
+    "read_charge_offs": "history",
+    "read_prior_run": "history",
+    "MacroHistory": "macro_series",
+    "read_macro_history": "macro_series",
+    "is_partitioned": "parts",
+    "read_parts": "parts",
+    "HistoryIntake": "performance",
+    "read_history": "performance",
+    "read_policy": "policy",
+    "IntakeResult": "results",
+    "TieOut": "results",
+    "CODES": "rules",
+    "read_tape": "tape",
+    "check_table": "tieout",
+    "tie_out": "tieout",
+}
+
+if TYPE_CHECKING:  # pragma: no cover
+    from allowance.intake.assumptions import load_assumptions, read_transition_matrix
+    from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
+    from allowance.intake.files import bundled_path, file_record
+    from allowance.intake.history import PriorRun, read_charge_offs, read_prior_run
+    from allowance.intake.macro_series import MacroHistory, read_macro_history
+    from allowance.intake.parts import is_partitioned, read_parts
+    from allowance.intake.performance import HistoryIntake, read_history
+    from allowance.intake.policy import read_policy
+    from allowance.intake.results import IntakeResult, TieOut
+    from allowance.intake.rules import CODES
+    from allowance.intake.tape import read_tape
+    from allowance.intake.tieout import check_table, tie_out
 
 __all__ = [
     "HistoryIntake",
@@ -61,3 +95,15 @@ __all__ = [
     "read_transition_matrix",
     "tie_out",
 ]
+
+
+def __getattr__(name: str) -> Any:
+    if name in _EXPORTS:
+        value = getattr(importlib.import_module(f"allowance.intake.{_EXPORTS[name]}"), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'allowance.intake' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_EXPORTS))
