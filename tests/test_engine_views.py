@@ -71,5 +71,5 @@ def test_the_booked_columns_sit_beside_the_schedule_as_a_merge_puts_them():
                               "opening_balance": rng.random(months), "survival": rng.random(months)})
         booked = pd.DataFrame({"month": np.array(list(booked_months), dtype=np.int64),
                                "ead": rng.random(len(booked_months)), "survival": rng.random(len(booked_months))})
-        pd.testing.assert_frame_equal(_beside(frame, booked), frame.merge(booked, on="month", how="left"),
+        pd.testing.assert_frame_equal(pd.DataFrame(_beside(frame, booked)), frame.merge(booked, on="month", how="left"),
                                       check_exact=True)

@@ -175,11 +175,7 @@ def schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per
         return pd.DataFrame()
     inputs = chunk_inputs(rows, prep)
     measured = _individual_measurement(rows, inputs.terms, prep)
-    frames = []
-    for i, chosen in enumerate(why):
-        frame = _schedule_of(rows, i, inputs, measured, prep)
-        frame.insert(1, "chosen", chosen)
-        frames.append(frame)
+    frames = [_schedule_of(rows, i, inputs, measured, prep, chosen=chosen) for i, chosen in enumerate(why)]
     return pd.concat(frames, ignore_index=True)
 
 
@@ -201,9 +197,11 @@ def loan_schedule(row: pd.DataFrame, prep: Prepared, framework: Framework | None
 
 
 def _schedule_of(rows: pd.DataFrame, i: int, inputs: ChunkInputs, measured: tuple[np.ndarray, np.ndarray],
-                 prep: Prepared, framework: Framework | None = None, scenario: int = 0) -> pd.DataFrame:
+                 prep: Prepared, framework: Framework | None = None, scenario: int = 0,
+                 chosen: str | None = None) -> pd.DataFrame:
     """:func:`loan_schedule` of the loan in position ``i`` of ``rows``, from the inputs of all
-    of them (``measured``: their :func:`~allowance.engine.chunk._individual_measurement`)."""
+    of them (``measured``: their :func:`~allowance.engine.chunk._individual_measurement`), with
+    a ``chosen`` column (why the sample took it) second when given."""
     fw = framework or prep.frameworks[0]
     f = prep.frameworks.index(fw)
     t = inputs.terms
@@ -228,36 +226,38 @@ def _schedule_of(rows: pd.DataFrame, i: int, inputs: ChunkInputs, measured: tupl
         booked = pd.DataFrame([{"month": 0, "ead": float(t.balance[i]), "ecl": float(replaced[f, i])}])
     if booked["month"].iloc[0] == 0:  # nothing projected: the loss is booked now
         frame = pd.DataFrame({"month": [0], "opening_balance": [float(t.balance[i])]})
-    frame = _beside(frame, booked)
-    frame.insert(1, "measurement", measurement)
-    frame.insert(0, "scenario", prep.scenario_names[scenario])
-    frame.insert(0, "framework", fw)
-    frame.insert(0, "loan_id", rows["loan_id"].iloc[i])
-    return frame
+    # one frame from its columns (inserting the labels one by one copied it each time)
+    columns = _beside(frame, booked)
+    labels = {"loan_id": rows["loan_id"].iloc[i]} | ({} if chosen is None else {"chosen": chosen})
+    labels |= {"framework": fw, "scenario": prep.scenario_names[scenario], "month": columns.pop("month"),
+               "measurement": measurement}
+    return pd.DataFrame(labels | columns)
 
 
-def _beside(frame: pd.DataFrame, booked: pd.DataFrame) -> pd.DataFrame:
-    """``frame.merge(booked, on="month", how="left")`` for two tables of distinct months: the
-    booked columns beside the schedule's, blank in the months the engine did not book; a name
-    both have is suffixed ``_x`` (the schedule's) and ``_y`` (the engine's), as the merge does.
+def _beside(frame: pd.DataFrame, booked: pd.DataFrame) -> dict[str, np.ndarray]:
+    """The columns of ``frame.merge(booked, on="month", how="left")`` for two tables of
+    distinct months: the booked columns beside the schedule's, blank in the months the engine
+    did not book; a name both have is suffixed ``_x`` (the schedule's) and ``_y`` (the
+    engine's), as the merge does.
 
     Examples
     --------
-    >>> _beside(pd.DataFrame({"month": [1, 2, 3], "a": [1.0, 2.0, 3.0]}), pd.DataFrame({"month": [1, 2], "b": [5.0, 6.0]}))
+    >>> pd.DataFrame(_beside(pd.DataFrame({"month": [1, 2, 3], "a": [1.0, 2.0, 3.0]}),
+    ...                      pd.DataFrame({"month": [1, 2], "b": [5.0, 6.0]})))
        month    a    b
     0      1  1.0  5.0
     1      2  2.0  6.0
     2      3  3.0  NaN
-    >>> list(_beside(pd.DataFrame({"month": [1], "a": [1.0]}), pd.DataFrame({"month": [1], "a": [2.0]})).columns)
+    >>> list(_beside(pd.DataFrame({"month": [1], "a": [1.0]}), pd.DataFrame({"month": [1], "a": [2.0]})))
     ['month', 'a_x', 'a_y']
     """
     where = pd.Index(frame["month"].to_numpy()).get_indexer(booked["month"].to_numpy())
     found = where >= 0
     both = (set(frame.columns) & set(booked.columns)) - {"month"}
-    columns = {}
-    for name in booked.columns.drop("month"):
-        column = np.full(len(frame), np.nan)
-        column[where[found]] = booked[name].to_numpy(dtype=float)[found]
-        columns[f"{name}_y" if name in both else name] = column
-    left = frame.rename(columns={name: f"{name}_x" for name in both}) if both else frame
-    return pd.concat([left, pd.DataFrame(columns, index=frame.index)], axis=1)
+    columns = {f"{name}_x" if name in both else name: frame[name].to_numpy() for name in frame.columns}
+    for name in booked.columns:
+        if name != "month":
+            column = np.full(len(frame), np.nan)
+            column[where[found]] = booked[name].to_numpy(dtype=float)[found]
+            columns[f"{name}_y" if name in both else name] = column
+    return columns
