@@ -35,9 +35,14 @@ The three check lines, measured on the shared 2-core machine under load (fresh p
 code before and after the intake changes run alternately, best of 3; 100,220 loans): 1 % bad
 rows 2.85 -> 2.81 x read_csv, Parquet 2.54 -> 2.45 x read_table, 10,000 columns 2.51 -> 1.38 x
 read_csv. Inside the process ``read_tape`` took 1.2-1.5 s -> 0.6-0.8 s (CSV, 1 % bad rows),
-0.6-0.8 s -> 0.35 s (Parquet) and 9-10 s -> 2.6-3.3 s (10,000 columns); most of what is left
-of a check is importing the package (numba and pydantic models through the assumptions'
+0.6-0.8 s -> 0.35 s (Parquet) and 9-10 s -> 2.6-3.3 s (10,000 columns); most of what was left
+of a check was importing the package (numba and pydantic models through the assumptions'
 checks, the engine and reports through the API): about 60 % of the process under cProfile.
+Since then a check loads neither numba nor Typer's rich formatting nor the history readers
+(whole processes, 6 alternating pairs with the yardstick, median, 100,220 loans, loaded
+machine): 1 % bad rows 2.54 -> 1.78 x read_csv, Parquet 2.33 -> 1.89 x read_table (wall).
+What is left is pandas and pyarrow (the Parquet yardstick imports no pandas), the pydantic
+contracts (0.1-0.2 s of class building) and the reading itself.
 """
 
 from __future__ import annotations
