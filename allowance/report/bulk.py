@@ -81,7 +81,8 @@ class _Column:
     codes into its distinct texts (cleaned and escaped once), and which cells are blank; each
     chunk of rows then only slices these."""
 
-    def __init__(self, series: pd.Series, letter: str, style: int) -> None:
+    def __init__(self, series: pd.Series | None, letter: str, style: int,
+                 block: "_FloatBlock | None" = None, index: int = 0) -> None:
         self.pre = f'<c r="{letter}'
         self.mid, self.tail = f'" s="{style}"><v>', "</v></c>"
         self.blank: np.ndarray | None = None
@@ -89,6 +90,10 @@ class _Column:
         self.numbers: np.ndarray | None = None
         self.texts: pa.Array | None = None
         self.codes: np.ndarray | None = None
+        self.block, self.index = block, index
+        if block is not None:  # a float column of a run of them: its numbers are the block's
+            self.blank = block.blank[:, index]
+            return
         dtype = series.dtype
         if pd.api.types.is_bool_dtype(dtype):
             self.blank = series.isna().to_numpy(dtype=bool) if series.hasnans else None
@@ -117,6 +122,8 @@ class _Column:
 
     def values(self, start: int, stop: int, blank: np.ndarray | None) -> pa.Array:
         """The text of each cell's value in rows ``start:stop``."""
+        if self.block is not None:
+            return self.block.texts(start, stop, self.index)
         if self.texts is not None:
             return pc.take(self.texts, pa.array(self.codes[start:stop]))
         if self.integers is not None and blank is None:
@@ -133,6 +140,43 @@ class _Column:
             return [self.pre, rows, self.mid, values, self.tail]
         cells = pc.binary_join_element_wise(self.pre, rows, self.mid, values, self.tail, "")
         return [pc.if_else(pa.array(blank), "", cells)]
+
+
+class _FloatBlock:
+    """Adjacent float columns read from the frame as one array, each chunk's numbers cast to
+    text in one call (a wide sheet of months has hundreds of such columns)."""
+
+    def __init__(self, numbers: np.ndarray) -> None:
+        self.blank = ~np.isfinite(numbers)
+        self.numbers = np.where(self.blank, 0.0, numbers)
+        self._chunk: tuple[int, int] | None = None
+        self._texts: pa.Array | None = None
+
+    def texts(self, start: int, stop: int, index: int) -> pa.Array:
+        if self._chunk != (start, stop):
+            self._texts = _numbers_text(self.numbers[start:stop].ravel(order="F"))
+            self._chunk = (start, stop)
+        return self._texts.slice(index * (stop - start), stop - start)
+
+
+def _columns(frame: pd.DataFrame, styles: list[int]) -> list[_Column]:
+    """The frame's columns read once; a run of float columns as one block."""
+    dtypes = frame.dtypes.tolist()
+    floats = [isinstance(d, np.dtype) and d == np.float64 for d in dtypes]
+    columns: list[_Column] = []
+    j = 0
+    while j < len(dtypes):
+        k = j
+        while k < len(dtypes) and floats[k]:
+            k += 1
+        if k - j > 1:
+            block = _FloatBlock(frame.iloc[:, j:k].to_numpy(dtype=np.float64))
+            columns += [_Column(None, col_letter(m + 1), styles[m], block, m - j) for m in range(j, k)]
+            j = k
+        else:
+            columns.append(_Column(frame.iloc[:, j], col_letter(j + 1), styles[j]))
+            j += 1
+    return columns
 
 
 def _joined(pieces: list[Any]) -> list[Any]:
@@ -153,17 +197,20 @@ def _utf8(texts: pa.Array) -> memoryview:
     return memoryview(texts.buffers()[2])[first:last]
 
 
-def _widest(sample: pd.Series) -> list[Any]:
-    """The values among the first 50 given whose display is widest: of numbers, the smallest and
-    the largest finite one (a number's display grows with its size on each side of zero) and any
-    infinity; of anything else, every value."""
-    if not pd.api.types.is_numeric_dtype(sample.dtype) or pd.api.types.is_bool_dtype(sample.dtype):
-        return sample.dropna().tolist()[:50]
-    numbers = sample.to_numpy(dtype=np.float64, na_value=np.nan)
-    numbers = numbers[~np.isnan(numbers)][:50]
-    finite = numbers[np.isfinite(numbers)]
-    ends = [finite.min(), finite.max()] if len(finite) else []
-    return [float(v) for v in [*ends, *np.unique(numbers[~np.isfinite(numbers)])]]
+def _widest(numbers: np.ndarray) -> list[list[float]]:
+    """Per column of ``numbers`` (rows down, NaN for blank), the values among its first 50
+    non-blank whose display is widest: the smallest and the largest finite one (a number's
+    display grows with its size on each side of zero) and any infinity."""
+    present = ~np.isnan(numbers)
+    taken = present & (np.cumsum(present, axis=0) <= 50)
+    finite = taken & np.isfinite(numbers)
+    low = np.where(finite, numbers, np.inf).min(axis=0, initial=np.inf)
+    high = np.where(finite, numbers, -np.inf).max(axis=0, initial=-np.inf)
+    some = finite.any(axis=0)
+    below = (taken & (numbers == -np.inf)).any(axis=0)
+    above = (taken & (numbers == np.inf)).any(axis=0)
+    return [[float(v) for v, keep in ((low[j], some[j]), (high[j], some[j]), (-np.inf, below[j]), (np.inf, above[j]))
+             if keep] for j in range(numbers.shape[1])]
 
 
 @dataclass
@@ -199,13 +246,20 @@ class BulkSheet:
             sheet.put(BULK_HEADER_ROW + 1, j + 1, value, self.column_kinds[j])
         # column widths from the first rows, so a long id or reason is not cut
         head = frame.head(200)
-        for j, (_, sample) in enumerate(head.items()):
+        dtypes = head.dtypes.tolist()
+        numeric = [j for j, d in enumerate(dtypes) if self.column_kinds[j] != "text"
+                   and pd.api.types.is_numeric_dtype(d) and not pd.api.types.is_bool_dtype(d)]
+        widest = dict(zip(numeric, _widest(head.iloc[:, numeric].to_numpy(dtype=np.float64, na_value=np.nan))))
+        for j, (_, sample) in enumerate(head.items()) if len(widest) < len(dtypes) else ():
             if self.column_kinds[j] == "text":
                 longest = max((len(str(v)) for v in sample.dropna().tolist()), default=0)
                 sheet.fit[j + 1] = max(sheet.fit[j + 1], min(longest, 40) + 2)
-            else:
-                for value in _widest(sample):
+            elif j not in widest:  # dates, flags: each of the first 50 values
+                for value in sample.dropna().tolist()[:50]:
                     sheet.fit[j + 1] = max(sheet.fit[j + 1], value_width(value, self.column_kinds[j]))
+        for j, values in widest.items():
+            for value in values:
+                sheet.fit[j + 1] = max(sheet.fit[j + 1], value_width(value, self.column_kinds[j]))
         sheet.ws.freeze_panes(BULK_HEADER_ROW, self.freeze_columns)
         if names:
             sheet.ws.autofilter(BULK_HEADER_ROW - 1, 0, BULK_HEADER_ROW - 1 + len(frame), len(names) - 1)
@@ -223,7 +277,7 @@ class BulkSheet:
         """The XML (UTF-8) of the data rows after the first, in chunks: each chunk's rows made by
         one element-wise join over every column's pieces."""
         frame = self.frame
-        columns = [_Column(series, col_letter(j + 1), styles[j]) for j, (_, series) in enumerate(frame.items())]
+        columns = _columns(frame, styles)
         start_row = BULK_HEADER_ROW + 2
         for start in range(1, len(frame), self.chunk_rows):
             stop = min(start + self.chunk_rows, len(frame))
