@@ -2,7 +2,7 @@
 
 Implements
 ----------
-OUTPUT_FILES       the files a run can write, in the order they are written
+OUTPUT_FILES       the files a run can write, in the order they are listed
 OutputPaths        the files written, and notes about leftovers that could not be cleaned
 write_outputs      write every output into a sibling folder, then swap it into place
 write_check_outputs  what ``allowance check --out`` writes: rejected.csv and warnings.csv
@@ -194,26 +194,8 @@ def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
     return written
 
 
-def _write_all(folder: Path, report: RunReport, parquet: bool,
-               progress: Callable[[str, int, int], object] | None = None) -> list[str]:
-    written: list[str] = []
-    # the bar counts files; the workbooks are most of the time, so they count for more
-    weight = {"reserve.xlsx": 6, "summary.xlsx": 2, "loans.csv": 2}
-    total = sum(weight.get(n, 1) for n in OUTPUT_FILES)
-    told = [0]
-
-    def done(name: str) -> None:
-        # only run outputs may be written: the swap keeps every other name as the user's
-        assert name in OUTPUT_FILES, name
-        written.append(name)
-        told[0] += weight.get(name, 1)
-        if progress is not None:
-            progress("write", min(told[0], total), total)
-
-    if report.loan_detail is not None:  # the loan detail is in its Parquet folder, written part by part
-        return _write_book(folder, report, done, progress, total)
-    _csv(report.loans, folder / "loans.csv")
-    done("loans.csv")
+def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[str], None]) -> None:
+    """Every output but loans.csv and run.json: the other tables, then the workbooks."""
     if parquet:
         # typed data, not a spreadsheet: text is kept exactly as the tape gave it
         report.loans.to_parquet(folder / "loans.parquet", index=False)
@@ -254,6 +236,34 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
     write_workbooks(folder / "reserve.xlsx", folder / "summary.xlsx", report)
     done("reserve.xlsx")
     done("summary.xlsx")
+
+
+def _write_all(folder: Path, report: RunReport, parquet: bool,
+               progress: Callable[[str, int, int], object] | None = None) -> list[str]:
+    written: list[str] = []
+    # the bar counts files; the workbooks are most of the time, so they count for more
+    weight = {"reserve.xlsx": 6, "summary.xlsx": 2, "loans.csv": 2}
+    total = sum(weight.get(n, 1) for n in OUTPUT_FILES)
+    told = [0]
+
+    def done(name: str) -> None:
+        # only run outputs may be written: the swap keeps every other name as the user's
+        assert name in OUTPUT_FILES, name
+        written.append(name)
+        told[0] += weight.get(name, 1)
+        if progress is not None:
+            progress("write", min(told[0], total), total)
+
+    if report.loan_detail is not None:  # the loan detail is in its Parquet folder, written part by part
+        return _write_book(folder, report, done, progress, total)
+    # loans.csv is formatted by Arrow outside the GIL: written on a thread of its own while the
+    # other files and the workbooks (Python: one core) are made, so both cores work
+    with ThreadPoolExecutor(1, thread_name_prefix="allowance-loans") as detail:
+        # its own frame over the same columns: nothing the workbooks do to theirs reaches it
+        loans_csv = detail.submit(_csv, report.loans.copy(deep=False), folder / "loans.csv")
+        _write_rest(folder, report, parquet, done)  # on an error the block still waits for loans.csv
+    loans_csv.result()  # its own error, once the rest went through
+    done("loans.csv")
     record = report.record or run_record(
         report.config, report.intake, report.loans, tie_out=report.tie_out, warnings=report.warnings,
         movements=report.movements,
@@ -262,7 +272,7 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
     done("run.json")
     if progress is not None:
         progress("write", total, total)
-    return written
+    return sorted(written, key=OUTPUT_FILES.index)  # listed in one order, whichever finished first
 
 
 def check_output_path(out_dir: Path, inputs: Iterable[str | Path] = ()) -> None:
