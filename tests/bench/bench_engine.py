@@ -55,8 +55,8 @@ from allowance import cashflows, ecl, engine  # noqa: E402
 from allowance.schemas import OPTIONAL_COLUMNS, Assumptions, LoanRecord, RunConfig  # noqa: E402
 
 AS_OF = "2026-09-30"
-PER_FRAMEWORK = ("curve", "in_default", "horizon", "ead_add", "paydown", "discount", "recovery_discount", "interest", "pd",
-                 "lgd_multiplier", "collateral_index")
+#: the fields cut to one framework: the per-framework [F, n] arrays and the [F, ...] tables
+PER_FRAMEWORK = (*ecl.PER_FRAMEWORK, "pd", "lgd_multiplier", "collateral_index")
 
 
 def config(frameworks=("ifrs9", "cecl")) -> RunConfig:
@@ -69,7 +69,9 @@ def config(frameworks=("ifrs9", "cecl")) -> RunConfig:
                       "behavioural_life_months": 36, "payment_rate": 0.04, "unconditionally_cancellable": True},
         },
         "ifrs9": {"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month"},
-        "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12},
+        # ASC 326-20-30-6 leaves the allocation of a line's payments a policy choice: stated here
+        "cecl": {"reasonable_supportable_months": 24, "reversion_months": 12,
+                 "payment_allocation": "measured_balance_first"},
         "scenarios": {
             "base": {"weight": 0.5, "pd_multiplier": [1.0]},
             "upside": {"weight": 0.2, "pd_multiplier": [0.8, 0.9]},
@@ -132,7 +134,8 @@ def kernel_inputs(book: pd.DataFrame, cfg: RunConfig) -> list[ecl.KernelInputs]:
 
 
 def one_framework(k: ecl.KernelInputs, f: int = 0) -> ecl.KernelInputs:
-    return dataclasses.replace(k, **{name: getattr(k, name)[f: f + 1] for name in PER_FRAMEWORK})
+    return dataclasses.replace(k, **{name: getattr(k, name)[f: f + 1] for name in PER_FRAMEWORK
+                                     if getattr(k, name) is not None and getattr(k, name).ndim > 1})
 
 
 def loop_pass(chunks, cpu: dict | None = None, key: str = "") -> float:
@@ -230,11 +233,16 @@ def main() -> None:
     rng = np.random.default_rng(0)
     pick = np.sort(rng.choice(len(chunks_both[0].balance), min(args.sample, len(chunks_both[0].balance)), replace=False))
     k0 = chunks_both[0]
-    sample = dataclasses.replace(k0, **{
-        f.name: (getattr(k0, f.name)[..., pick] if f.name in PER_FRAMEWORK[:5] else getattr(k0, f.name)[pick]
-                 if getattr(k0, f.name).ndim == 1 else getattr(k0, f.name))
-        for f in dataclasses.fields(ecl.KernelInputs)
-    })
+    n0 = len(k0.balance)
+
+    def pick_loans(name, a):  # per-loan arrays ([n], or [F, n] per framework) cut to the sample, tables whole
+        per_loan = a is not None and (name in ecl.PER_FRAMEWORK or (a.ndim == 1 and len(a) == n0))
+        return a[..., pick] if per_loan else a
+
+    sample = dataclasses.replace(k0, **{f.name: pick_loans(f.name, getattr(k0, f.name))
+                                        for f in dataclasses.fields(ecl.KernelInputs)})
+    # the reference reads one prepayment row per loan (its timing is what is wanted here)
+    sample = dataclasses.replace(sample, prepay=np.atleast_2d(sample.prepay)[0])
     t = time.perf_counter()
     reference(sample)
     per_loan = (time.perf_counter() - t) * args.loans / len(pick)
