@@ -16,7 +16,6 @@ smm_from_cpr         single monthly mortality from an annual constant prepayment
 psa_cpr              the PSA standard prepayment benchmark at a multiple
 level_payment        the level payment that amortizes a balance to a residual
 contractual_payment  a loan's level payment, once per loan, for the compiled loop
-contractual_payments  the same for arrays of loans (one compiled loop)
 principal_step       one month's scheduled principal given that payment (the schedule's form)
 path_terms           growth and payment of the closed-form balance path
 balance_on_path      the scheduled balance after t months in closed form (the loop's form)
@@ -201,16 +200,6 @@ def contractual_payment(
     if payment == payment:
         return payment
     return level_payment(balance, rate, after, 0.0)
-
-
-@numba.njit(cache=jit.CACHE)
-def contractual_payments(code, balance, rate, months_left, io_left, residual, payment) -> np.ndarray:
-    """:func:`contractual_payment` of every loan of equal-length arrays (one compiled loop, the
-    same arithmetic loan by loan)."""
-    out = np.empty(len(code))
-    for i in range(len(code)):
-        out[i] = contractual_payment(code[i], balance[i], rate[i], months_left[i], io_left[i], residual[i], payment[i])
-    return out
 
 
 @numba.njit(cache=jit.CACHE)

@@ -247,23 +247,3 @@ def test_principal_equals_the_level_payment_recomputed_each_month(loan):
 
     stateless = [reference(t, b) for t, b in enumerate(s["opening_balance"])]
     np.testing.assert_allclose(stateless, s["scheduled_principal"], rtol=1e-8, atol=1e-8 * max(loan["balance"], 1.0))
-
-
-def test_contractual_payments_equal_the_payment_of_each_loan() -> None:
-    # the array form is the per-loan function loan by loan; one case checked against
-    # numpy-financial's pmt (a level payment to zero over the months after the interest-only period)
-    import numpy_financial as npf
-
-    from allowance import cashflows
-
-    code = np.array([cashflows.LEVEL, cashflows.BALLOON, cashflows.INTEREST_ONLY, cashflows.REVOLVING, cashflows.LEVEL])
-    balance = np.array([10_000.0, 50_000.0, 100_000.0, 900.0, 2_000.0])
-    rate = np.array([0.005, 0.004, 0.005, 0.015, 0.0])
-    months = np.array([60, 120, 384, 36, 10])
-    io_left = np.array([0, 0, 24, 0, 0])
-    residual = np.array([0.0, 20_000.0, 0.0, 0.0, 0.0])
-    payment = np.array([np.nan, np.nan, np.nan, np.nan, 250.0])
-    got = cashflows.contractual_payments(code, balance, rate, months, io_left, residual, payment)
-    each = [cashflows.contractual_payment(*args) for args in zip(code, balance, rate, months, io_left, residual, payment)]
-    assert got.tolist() == each
-    assert got[2] == pytest.approx(-npf.pmt(0.005, 384 - 24, 100_000.0), rel=1e-12)

@@ -458,9 +458,10 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     age = terms.age[rows]
     code = terms.code[rows]
     months = terms.remaining[rows] + age
-    # the payment of the months since purchase
-    payment = cashflows.contractual_payments(code, terms.balance[rows], terms.rate[rows], terms.remaining[rows],
-                                             terms.io_left[rows], terms.residual[rows], terms.payment[rows])
+    # the payment of the months since purchase (a small set of loans: one call each)
+    payment = np.array([cashflows.contractual_payment(c, b, q, m, io, res, pay) for c, b, q, m, io, res, pay in zip(
+        code, terms.balance[rows], terms.rate[rows], terms.remaining[rows], terms.io_left[rows], terms.residual[rows],
+        terms.payment[rows])], dtype=float)
     amortising = (code == cashflows.LEVEL) | (code == cashflows.BALLOON)
     balance = np.where(amortising & (terms.io_left[rows] == 0),
                        poci.purchase_balance(terms.balance[rows], terms.rate[rows], payment, age), terms.balance[rows])
