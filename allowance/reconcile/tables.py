@@ -97,15 +97,32 @@ def _ledger(bridge: pd.DataFrame, dims: tuple[str, ...], body: tuple[str, ...], 
     for line in body:
         add(in_c, "current", line, col(line))
     add(in_c, "current", "closing", col("closing"))
-    entries = pd.DataFrame({
-        **{d: np.concatenate([side_codes[d][side][mask] for mask, side, _, _ in parts]) for d in dims},
-        "line": np.concatenate([codes for _, _, codes, _ in parts]),
-        "cents": np.concatenate([values for _, _, _, values in parts]),
-    })
-    sums = entries.groupby([*dims, "line"], sort=False)["cents"].sum().reset_index()
-    out = {d: dim_names[d][sums[d].to_numpy()] for d in dims}
-    out["line"] = np.asarray(line_names, dtype=object)[sums["line"].to_numpy()]
-    out["cents"] = sums["cents"].to_numpy(dtype=np.int64)
+    # each entry's cell and line as one int64 key (mixed radix); every add() numbered its lines
+    # afresh, so no key is shared between parts, and the cells come out in order of first
+    # appearance, part after part (the order a group-by of the entries without sorting gives)
+    radix = [len(dim_names[d]) for d in dims] + [len(line_names)]
+    found: list[np.ndarray] = []
+    sums: list[np.ndarray] = []
+    for mask, side, line_codes, values in parts:
+        key = np.zeros(len(line_codes), dtype=np.int64)
+        for d, size in zip(dims, radix):
+            key = key * size + side_codes[d][side][mask]
+        key = key * radix[-1] + line_codes
+        codes, keys = pd.factorize(key)
+        order = np.argsort(codes, kind="stable")
+        starts = np.flatnonzero(np.r_[True, np.diff(codes[order]) != 0])
+        found.append(np.asarray(keys, dtype=np.int64))
+        sums.append(np.add.reduceat(values[order], starts) if len(order) else np.zeros(0, dtype=np.int64))
+    key = np.concatenate(found) if found else np.zeros(0, dtype=np.int64)
+    out: dict[str, np.ndarray] = {}
+    line = key % radix[-1]
+    rest = key // radix[-1]
+    for d, size in reversed(list(zip(dims, radix))):
+        out[d] = dim_names[d][rest % size]
+        rest = rest // size
+    out = {d: out[d] for d in dims}
+    out["line"] = np.asarray(line_names, dtype=object)[line]
+    out["cents"] = (np.concatenate(sums) if sums else np.zeros(0)).astype(np.int64)  # exact: int64 sums
     return pd.DataFrame(out)
 
 
