@@ -26,6 +26,20 @@ H = 1.0 - (1.0 - PD_12M) ** (1.0 / 12.0)  # constant monthly hazard of a 12-mont
 Q = (1.0 - H) * (1.0 - P)
 
 
+def _card_matrix():
+    """A monthly card roll-rate matrix: a current account rolls 3 % a month, each later bucket
+    90 % on to the next (invented, for the checks below)."""
+    from allowance.schemas import TransitionMatrix
+
+    states = ["current", "dpd_1_29", "dpd_30_59", "dpd_60_89", "dpd_90_119", "dpd_120_149", "dpd_150_179",
+              "charge_off", "paid_off"]
+    rows = [[0.95, 0.03, 0, 0, 0, 0, 0, 0, 0.02], [0.5, 0.2, 0.3, 0, 0, 0, 0, 0, 0],
+            [0.2, 0.1, 0.1, 0.6, 0, 0, 0, 0, 0], [0.1, 0, 0, 0.1, 0.8, 0, 0, 0, 0],
+            [0.05, 0, 0, 0, 0.05, 0.9, 0, 0, 0], [0.05, 0, 0, 0, 0, 0.05, 0.9, 0, 0],
+            [0.05, 0, 0, 0, 0, 0, 0.05, 0.9, 0], [0, 0, 0, 0, 0, 0, 0, 1, 0], [0, 0, 0, 0, 0, 0, 0, 0, 1]]
+    return TransitionMatrix(states=states, probabilities=rows)
+
+
 def _card(days_past_due: int = 0, balance: float = B) -> pd.DataFrame:
     frame = pd.DataFrame({
         "loan_id": ["CARD"], "segment": ["cards"], "repayment": ["revolving"],
@@ -85,15 +99,8 @@ def test_the_matrix_paid_off_state_is_not_counted_on_top_of_the_payment_rate(tmp
     # already holds those payments, so the CECL run-off equals the same matrix's charge-offs on
     # the run-off balance with no payoff removal (common practice, no source)
     from allowance.curves.roll_rates import matrix_term_structure
-    from allowance.schemas import TransitionMatrix
 
-    states = ["current", "dpd_1_29", "dpd_30_59", "dpd_60_89", "dpd_90_119", "dpd_120_149", "dpd_150_179",
-              "charge_off", "paid_off"]
-    rows = [[0.95, 0.03, 0, 0, 0, 0, 0, 0, 0.02], [0.5, 0.2, 0.3, 0, 0, 0, 0, 0, 0],
-            [0.2, 0.1, 0.1, 0.6, 0, 0, 0, 0, 0], [0.1, 0, 0, 0.1, 0.8, 0, 0, 0, 0],
-            [0.05, 0, 0, 0, 0.05, 0.9, 0, 0, 0], [0.05, 0, 0, 0, 0, 0.05, 0.9, 0, 0],
-            [0.05, 0, 0, 0, 0, 0, 0.05, 0.9, 0], [0, 0, 0, 0, 0, 0, 0, 1, 0], [0, 0, 0, 0, 0, 0, 0, 0, 1]]
-    matrix = TransitionMatrix(states=states, probabilities=rows)
+    matrix = _card_matrix()
     segment = {"pd_12m": None, "transition_matrix": matrix, "charge_off_dpd": 180}
     got = _cecl(_card(), _config(segment=segment))
     pd_t = matrix_term_structure("cards", matrix, 180, 1200).marginal[0]
@@ -110,16 +117,7 @@ def test_a_delinquent_card_pays_nothing_on_its_way_to_charge_off():
     from allowance.engine import prepare, tape_months
     from allowance.engine.chunk import chunk_inputs
 
-    states = ["current", "dpd_1_29", "dpd_30_59", "dpd_60_89", "dpd_90_119", "dpd_120_149", "dpd_150_179",
-              "charge_off", "paid_off"]
-    rows = [[0.95, 0.03, 0, 0, 0, 0, 0, 0, 0.02], [0.5, 0.2, 0.3, 0, 0, 0, 0, 0, 0],
-            [0.2, 0.1, 0.1, 0.6, 0, 0, 0, 0, 0], [0.1, 0, 0, 0.1, 0.8, 0, 0, 0, 0],
-            [0.05, 0, 0, 0, 0.05, 0.9, 0, 0, 0], [0.05, 0, 0, 0, 0, 0.05, 0.9, 0, 0],
-            [0.05, 0, 0, 0, 0, 0, 0.05, 0.9, 0], [0, 0, 0, 0, 0, 0, 0, 1, 0], [0, 0, 0, 0, 0, 0, 0, 0, 1]]
-    from allowance.schemas import TransitionMatrix
-
-    cfg = _config(segment={"pd_12m": None, "transition_matrix": TransitionMatrix(states=states, probabilities=rows),
-                           "charge_off_dpd": 180})
+    cfg = _config(segment={"pd_12m": None, "transition_matrix": _card_matrix(), "charge_off_dpd": 180})
     card = _card(days_past_due=95)
     prep = prepare(cfg, tape_months(card, cfg), int(age_months(card["origination_date"], pd.Timestamp("2026-09-30"))[0]))
     months = loan_months(chunk_inputs(card, prep).kernel, 0, 0, 0)
