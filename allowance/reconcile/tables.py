@@ -104,23 +104,15 @@ def _ledger(bridge: pd.DataFrame, dims: tuple[str, ...], body: tuple[str, ...], 
     found: list[np.ndarray] = []
     sums: list[np.ndarray] = []
     for mask, side, line_codes, values in parts:
-        key = np.zeros(len(line_codes), dtype=np.int64)
-        for d, size in zip(dims, radix):
-            key = key * size + side_codes[d][side][mask]
-        key = key * radix[-1] + line_codes
+        key = np.ravel_multi_index([*(side_codes[d][side][mask] for d in dims), line_codes], radix)
         codes, keys = pd.factorize(key)
         order = np.argsort(codes, kind="stable")
         starts = np.flatnonzero(np.r_[True, np.diff(codes[order]) != 0])
         found.append(np.asarray(keys, dtype=np.int64))
         sums.append(np.add.reduceat(values[order], starts) if len(order) else np.zeros(0, dtype=np.int64))
     key = np.concatenate(found) if found else np.zeros(0, dtype=np.int64)
-    out: dict[str, np.ndarray] = {}
-    line = key % radix[-1]
-    rest = key // radix[-1]
-    for d, size in reversed(list(zip(dims, radix))):
-        out[d] = dim_names[d][rest % size]
-        rest = rest // size
-    out = {d: out[d] for d in dims}
+    *cells, line = np.unravel_index(key, radix)
+    out = {d: dim_names[d][cell] for d, cell in zip(dims, cells)}
     out["line"] = np.asarray(line_names, dtype=object)[line]
     out["cents"] = (np.concatenate(sums) if sums else np.zeros(0)).astype(np.int64)  # exact: int64 sums
     return pd.DataFrame(out)
