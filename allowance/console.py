@@ -46,6 +46,9 @@ def _from_interrupt(error: BaseException) -> bool:
 def main() -> None:
     """Run the command line; Ctrl-C during start-up or a run exits 130 with one line."""
     try:
+        from allowance import jitable
+
+        jitable.COMMAND_LINE = True  # numba may skip its BLAS probe here (allowance.jit)
         from allowance.cli import app
 
         app()

@@ -79,6 +79,31 @@ _CACHE_DIR = _choose()
 if _CACHE_DIR is not None:
     numba.config.CACHE_DIR = str(_CACHE_DIR)  # read by numba's cache locator at each decoration
 
+
+def _load_array_maths() -> None:
+    """Load numba's array maths without its probe for scipy's BLAS, in the command line only.
+
+    The first compiled call of a process loads numba's implementations of numpy, and the
+    module of array maths asks at import whether BLAS is there for ``np.dot`` by importing
+    ``scipy.linalg`` (0.2-0.5 s on this project's 2-core machine, a tenth of a demo run),
+    which no kernel here calls (no ``np.dot``, ``@`` or ``np.linalg`` in compiled code).
+    While it loads, ``scipy.linalg.cython_blas`` is marked missing (``None`` in
+    ``sys.modules``: the import system's own way to say so), then unmarked, so a later
+    ``import scipy.linalg`` (calibration's estimators) works as usual. Not in a library
+    user's process (:data:`allowance.jitable.COMMAND_LINE` is False there), where other
+    compiled code may want ``np.dot``; nor when scipy.linalg is already loaded (nothing to save).
+    """
+    probe = "scipy.linalg.cython_blas"
+    if not jitable.COMMAND_LINE or "scipy.linalg" in sys.modules or probe in sys.modules:
+        return
+    sys.modules[probe] = None  # type: ignore[assignment]
+    try:
+        import numba.np.arraymath  # noqa: F401
+    finally:
+        del sys.modules[probe]
+
+
+_load_array_maths()
 jitable.register_pending()  # the scalar maths the loops call (allowance.jitable), now numba is here
 
 #: Pass as ``numba.njit(cache=CACHE)``: False when no cache folder is writable.

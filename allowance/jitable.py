@@ -27,6 +27,12 @@ __all__ = ["jitable", "register_pending"]
 
 F = TypeVar("F", bound=Callable)
 
+#: Set by the console entry point: the command line's process compiles only this package's
+#: kernels, none of which calls linear algebra, so :mod:`allowance.jit` may load numba without
+#: its probe for scipy's BLAS (see ``allowance.jit._load_array_maths``). A library user's
+#: process keeps numba as it comes.
+COMMAND_LINE = False
+
 _pending: list[Callable] = []
 _registered = False
 

@@ -326,3 +326,19 @@ def test_help_loads_no_heavy_library():
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip().endswith("|"), done.stdout
+
+
+def test_the_command_line_loads_numba_without_scipy_linalg_and_a_library_process_keeps_it():
+    # the command line's numba skips its BLAS probe (allowance.jit._load_array_maths), which
+    # imports scipy.linalg; scipy.linalg still imports afterwards, and np.dot still compiles
+    # in a library user's process, where numba is left as it comes
+    code = ("import sys\nfrom allowance import jitable\njitable.COMMAND_LINE = {flag}\nimport allowance.jit\n"
+            "import numba.np.arraymath as am\nprint('scipy.linalg' in sys.modules, am._HAVE_BLAS)\n"
+            "import scipy.linalg\nprint(float(scipy.linalg.det([[2.0, 0.0], [0.0, 3.0]])))")
+    for flag, expected in ((True, "False False"), (False, "True True")):
+        done = subprocess.run([sys.executable, "-c", code.format(flag=flag)], capture_output=True, text=True,
+                              timeout=120)
+        assert done.returncode == 0, done.stderr
+        lines = done.stdout.split("\n")
+        assert lines[0] == expected, (flag, done.stdout)
+        assert lines[1] == "6.0"  # det of diag(2, 3): once loaded, scipy.linalg is whole
