@@ -144,7 +144,7 @@ def _main(
     ] = False,
 ) -> None:
     """Quarter-end credit-loss allowance (CECL and IFRS 9) from a loan tape and an assumptions file."""
-    _mode("")  # each command starts from the plain output; run, demo and check take --quiet/--verbose/--json
+    _mode("")  # each command starts from the plain output; the commands that compute take --quiet and --json
 
 
 # ---- options shared by several commands -----------------------------------------------
@@ -285,6 +285,11 @@ def _table(frame, float_format: str | None = None) -> str:
             formatters[column] = float_format.format
     text = frame.rename(columns=names).to_string(index=False, formatters=formatters)
     return "\n".join(line.rstrip() for line in text.splitlines())
+
+
+def _records(frame) -> list[dict[str, Any]]:
+    """A frame as JSON records (missing values as null, dates as ISO text)."""
+    return json.loads(frame.to_json(orient="records", date_format="iso"))
 
 
 def _money(value: float) -> str:
@@ -833,9 +838,11 @@ def schedule(
         str | None, typer.Option("--scenario", metavar="NAME", help="Scenario whose PDs are shown (default: the first).")
     ] = None,
     csv: Annotated[Path | None, typer.Option("--csv", metavar="FILE", help="Also save the schedule to this CSV file.")] = None,
+    quiet: QuietOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Print one loan's schedule and what the engine booked for it, month by month, to check by hand."""
-    _mode("schedule")
+    _mode("schedule", quiet, False, as_json)
     from allowance import api
     from allowance.exceptions import AllowanceError
 
@@ -849,16 +856,22 @@ def schedule(
          f"{frame['framework'].iloc[0]} / scenario {frame['scenario'].iloc[0]}")
     shown = frame.drop(columns=["loan_id", "framework", "scenario", "measurement"], errors="ignore")
     money = "{:,.2f}".format
-    shares = {"survival", "marginal_pd", "refinance_pd", "default_share", "lgd", "discount_factor"}
+    shares = {"survival", "survival_opening", "marginal_pd", "refinance_pd", "default_share", "lgd", "discount_factor"}
     formats = {c: ("{:.6f}".format if c in shares else money) for c in shown.columns if c != "month"}
     _say(shown.to_string(index=False, formatters=formats, na_rep=""))
     _say(f"ECL booked ({frame['measurement'].iloc[0]}): {scheduled.ecl:,.2f} = the loan's "
          f"ecl_{frame['framework'].iloc[0]}_{frame['scenario'].iloc[0]} in loans.csv")
+    written = None
     if csv is not None:
         try:
-            _say(f"wrote {scheduled.write_csv(csv)}")
+            written = scheduled.write_csv(csv)
         except AllowanceError as err:
             _fail(err)
+        _say(f"wrote {written}")
+    _out.data({"ok": True, "loan_id": loan, "framework": str(frame["framework"].iloc[0]),
+               "scenario": str(frame["scenario"].iloc[0]), "measurement": str(frame["measurement"].iloc[0]),
+               "ecl": float(scheduled.ecl), "months": _records(frame.drop(columns=["loan_id"], errors="ignore")),
+               "csv": None if written is None else str(written)})
 
 
 @app.command("roll-rates")
@@ -869,6 +882,8 @@ def roll_rates(
         Path | None, typer.Option("--tape", metavar="FILE", help="Also roll this tape's bucket balances forward.")
     ] = None,
     months: Annotated[int, typer.Option("--months", min=1, help="Months of the balance forecast.")] = 12,
+    quiet: QuietOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Print what each roll-rate matrix implies from every delinquency bucket.
 
@@ -876,7 +891,7 @@ def roll_rates(
     With --tape: the tape's delinquency-bucket balances rolled forward month by month (the
     charge-off forecast) beside the loan-level allowance of the same segment.
     """
-    _mode("roll-rates")
+    _mode("roll-rates", quiet, False, as_json)
     from allowance import api
     from allowance.exceptions import AllowanceError
 
@@ -893,8 +908,14 @@ def roll_rates(
             _say(f"segment {segment!r} does not use a transition_matrix; these segments do: {with_matrix}")
         else:
             _say("no segment in these assumptions uses a transition_matrix")
+        _out.data({"ok": True, "segment": segment, "matrices": [],
+                   "segments_with_a_matrix": list(dict.fromkeys(others["segment"])) if not others.empty else []})
         return
     import pandas as pd
+
+    _out.data({"ok": True, "segment": segment, "matrices": _records(table),
+               "forecast": None if tape is None else {"months": months, "by_month": _records(by_month),
+                                                      "beside_the_allowance": _records(check)}})
 
     with pd.option_context("display.width", 200, "display.float_format", "{:,.4f}".format):
         _say(table.to_string(index=False))
@@ -954,8 +975,12 @@ def backtest(
     yellow_p: Annotated[float, typer.Option(metavar="P", help="Yellow light below this p-value.")] = 0.05,
     red_p: Annotated[float, typer.Option(metavar="P", help="Red light below this p-value.")] = 0.001,
     test: Annotated[str, typer.Option(metavar="binomial|jeffreys", help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
+    quiet: QuietOption = False,
+    verbose: VerboseOption = False,
+    as_json: JsonOption = False,
 ) -> None:
     """Compare a past run's 12-month PDs and expected losses with what happened since."""
+    _mode("backtest", quiet, verbose, as_json)
     import pandas as pd
     from pydantic import ValidationError
 
@@ -971,14 +996,18 @@ def backtest(
         raise typer.Exit(2) from err
     try:
         result, record = backtest_files(run_dir, history, options)
-        write_backtest(out, result, record)
+        written = write_backtest(out, result, record)
     except AllowanceError as err:
         _fail(err)
+    _out.data({"ok": True, "run": str(run_dir), "history": str(history), "segments": _records(result.segments),
+               "out": str(out), "files": [Path(p).name for p in written]})
     with pd.option_context("display.width", 200, "display.max_columns", 20, "display.float_format", "{:,.4f}".format):
         shown = ["segment", "method", "verdict", "pd_light", "loss_light", "defaults", "expected_defaults",
                  "expected_loss_12m", "realised_ncl"]
         _say(result.segments[[c for c in shown if c in result.segments]].to_string(index=False))
     _say(f"wrote {out}")
+    for path in written:
+        _out.detail(f"wrote {path}")
 
 
 @app.command()

@@ -484,7 +484,7 @@ def _defaulted_losses(a: dict[str, np.ndarray], sums: np.ndarray) -> None:
 
 #: Columns of :func:`loan_months`.
 MONTH_COLUMNS: tuple[str, ...] = (
-    "month", "ead", "survival", "marginal_pd", "refinance_pd", "default_share", "lgd", "discount_factor",
+    "month", "ead", "survival_opening", "marginal_pd", "refinance_pd", "default_share", "lgd", "discount_factor",
     "gross_loss", "ecl",
 )
 
@@ -493,7 +493,8 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
     """One loan's expected loss month by month, as the loop sums it (for people to check).
 
     Columns (:data:`MONTH_COLUMNS`): ``month``; ``ead`` (exposure at the start of the month);
-    ``survival`` (:math:`S_{t-1}`); ``marginal_pd``; ``refinance_pd`` (q in the maturity
+    ``survival_opening`` (:math:`S_{t-1}`, no default before the month; named apart from the
+    schedule's ``survival``, which also removes prepayments, so that the two sit side by side); ``marginal_pd``; ``refinance_pd`` (q in the maturity
     month); ``default_share`` (:math:`S_{t-1} pd_t`, plus the refinance failures at maturity);
     ``lgd``; ``discount_factor``; ``gross_loss`` and ``ecl`` (the month's share of the gross
     and the net loss, discounted). A loan whose loss event is certain now has one row, month 0:

@@ -258,6 +258,39 @@ def test_schedule_prints_a_loan_to_zero(tmp_path):
     assert f"{saved['ecl'].sum():,.2f}" in lines[-2]  # the total printed is the saved column's
 
 
+def test_schedule_json_is_the_table_and_quiet_prints_nothing(tmp_path):
+    loan = pd.read_csv(TAPE, dtype=str).loc[lambda t: t["repayment"] == "level", "loan_id"].iloc[0]
+    done = invoke("schedule", TAPE, "--assumptions", ASSUMPTIONS, "--loan", loan, "--json")
+    assert done.exit_code == 0, done.output
+    summary = json.loads(done.output)
+    months = pd.DataFrame(summary["months"])
+    assert summary["command"] == "schedule" and summary["ok"] and summary["loan_id"] == loan
+    # the ECL booked is the sum of the months' ECL (the engine's own check, loan_months)
+    assert summary["ecl"] == pytest.approx(months["ecl"].sum(), abs=1e-9)
+    # the schedule's survival (no prepayment, no default) and the engine's (no default before the
+    # month) sit side by side under their own names, not as a merge's _x/_y
+    assert {"survival", "survival_opening"} <= set(months.columns)
+    assert not [c for c in months.columns if c.endswith(("_x", "_y"))]
+    assert (months["survival"] <= months["survival_opening"] + 1e-12).all()  # prepayment only removes more
+    quiet = invoke("schedule", TAPE, "--assumptions", ASSUMPTIONS, "--loan", loan, "--quiet", "--csv",
+                   tmp_path / "s.csv")
+    assert quiet.exit_code == 0 and quiet.output == "" and (tmp_path / "s.csv").exists()
+    missing = invoke("schedule", TAPE, "--assumptions", ASSUMPTIONS, "--loan", "no-such-loan", "--json")
+    assert missing.exit_code == 1 and json.loads(missing.stdout)["ok"] is False
+
+
+def test_roll_rates_json_and_quiet():
+    done = invoke("roll-rates", "--assumptions", ASSUMPTIONS, "--json")
+    assert done.exit_code == 0, done.output
+    matrices = pd.DataFrame(json.loads(done.output)["matrices"])
+    assert "dpd_150_179" in set(matrices["bucket"])
+    # an absorbing Markov chain ends in one of its absorbing states: charge-off or payoff
+    # (Kemeny and Snell, Finite Markov Chains, absorption probabilities; from memory)
+    total = matrices["pd_lifetime"] + matrices["pd_lifetime_payoff"]
+    assert total.to_numpy() == pytest.approx(1.0, abs=1e-9)
+    assert invoke("roll-rates", "--assumptions", ASSUMPTIONS, "--quiet").output == ""
+
+
 def test_usage_error_exits_2():
     result = runner.invoke(app, ["run"])
     assert result.exit_code == 2

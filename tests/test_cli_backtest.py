@@ -46,6 +46,11 @@ def test_backtest_from_the_command_line(tmp_path, factor, light):
     book = load_workbook(tmp_path / "bt" / "backtest.xlsx")
     assert book.sheetnames == ["Back-test", "Grades"] and book["Grades"]._charts
     assert "auto" in result.output
+    as_json = invoke("backtest", folder, history, "--out", tmp_path / "bt2", "--json")
+    summary = json.loads(as_json.output)
+    assert summary["ok"] and set(summary["files"]) == {p.name for p in (tmp_path / "bt2").iterdir()}
+    assert {s["segment"]: s["verdict"] for s in summary["segments"]} == segments["verdict"].to_dict()
+    assert invoke("backtest", folder, history, "--out", tmp_path / "bt3", "--quiet").output == ""
 
 
 def test_backtest_needs_a_full_year_of_history(tmp_path):

@@ -74,7 +74,7 @@ _RATE_NAMES = {
     "pd_12m_at_origination", "weight_on_scenario", "pd_lifetime_cecl", "payment_rate", "haircut",
     "recovery_cost", "floor", "sicr_min_pd_increase", "asset_correlation", "percent",
 }
-_FINE_RATE_NAMES = {"marginal_pd", "cumulative_pd", "survival"}
+_FINE_RATE_NAMES = {"marginal_pd", "cumulative_pd", "survival", "survival_opening"}
 _CODE_NAMES = {
     "stage", "prior_stage", "base_stage", "what_if_stage", "month", "source_row", "line", "year", "age_month",
     "charge_off_dpd", "days_past_due",
@@ -133,7 +133,7 @@ _HEADERS = {
     "code": "Code", "message": "Message", "reason": "Reason", "rows": "Rows", "warning": "Warning",
     "opening_balance": "Opening balance", "interest": "Interest", "scheduled_principal": "Scheduled principal",
     "closing_balance": "Contractual closing balance", "expected_prepayment": "Expected prepayment",
-    "expected_default": "Expected default", "survival": "Survival", "expected_balance": "Expected balance",
+    "expected_default": "Expected default", "survival": "Survival", "survival_opening": "Survival at month start", "expected_balance": "Expected balance",
     "bucket": "Bucket", "expected_months_to_charge_off": "Expected months to charge-off",
     "pd_12m": "12-month PD", "pd_lifetime": "Lifetime PD", "lgd": "LGD", "ead": "EAD", "ecl_12m": "12-month ECL",
     "ecl_lifetime": "Lifetime ECL", "balance": "Balance", "weight_on_scenario": "Weight on the scenario path",
