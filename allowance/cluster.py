@@ -48,21 +48,34 @@ class DaskMap:
             kwargs = {k: self._shared(v) for k, v in fn.keywords.items()}
         # pure=False: two chunks with equal loans are still two tasks, placed by position
         futures = [self.client.submit(func, *args, item, pure=False, **kwargs) for item in items]
-        return self._in_order(futures)
+        return self._in_order(futures, keep=(args, kwargs))
 
     @staticmethod
-    def _in_order(futures: list) -> Iterator:
+    def _in_order(futures: list, keep: object = None) -> Iterator:
         """Each result in turn, its future let go once taken: a worker holds a task's result
-        until no client refers to it, so a whole pass's results would otherwise stay there."""
+        until no client refers to it, so a whole pass's results would otherwise stay there.
+
+        ``keep`` (the scattered arguments' futures) is held until the last result is taken:
+        once no client refers to scattered data the scheduler may forget it, and a task still
+        waiting for it then fails with "lost dependencies" (seen once in the test suite, a
+        Parquet folder's id pass, whose partial's arguments were let go as ``__call__`` returned).
+        """
         for i in range(len(futures)):
             future, futures[i] = futures[i], None
             yield future.result()
             del future
+        del keep
 
     def _shared(self, value: Any) -> Any:
         """``value`` on every worker, as a future (in a list: ``scatter`` would take a dict's
-        items, or a list's elements, as separate data)."""
-        return self.client.scatter([value], broadcast=True)[0]
+        items, or a list's elements, as separate data).
+
+        ``hash=False``: a key of its own at each scatter. By default the key is the value's
+        hash, so two passes sharing an argument (a Parquet folder's passes all take the id
+        column's name) share its key, and the first pass letting go of its future could make
+        the scheduler forget the data the second pass had just scattered under the same key:
+        "lost dependencies" (tests/test_cluster.py, on a loaded machine)."""
+        return self.client.scatter([value], broadcast=True, hash=False)[0]
 
 
 def _distributed():

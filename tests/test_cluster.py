@@ -62,6 +62,22 @@ def test_results_come_back_in_the_chunks_order_with_shared_arguments_sent_once()
     assert out == [100, 101, 102, 103, 104, 105]
 
 
+def test_passes_one_after_another_sharing_an_argument_keep_their_data():
+    """Pass after pass binding the same value (a Parquet folder's passes all take the id
+    column's name): each scatter has a key of its own, so one pass letting go of its argument
+    never takes the next pass's data with it ("lost dependencies" when the key was the value's
+    hash, seen on a loaded machine)."""
+    import functools
+
+    def plus(item, *, header):
+        return f"{header}{item}"
+
+    with distributed.Client(processes=False, n_workers=1, threads_per_worker=2, dashboard_address=None) as client:
+        for n in range(30):
+            assert list(DaskMap(client)(functools.partial(plus, header="loan_id"), range(n % 4 + 1))) == [
+                f"loan_id{i}" for i in range(n % 4 + 1)]
+
+
 def test_workers_and_scheduler_together_are_refused():
     with pytest.raises(AllowanceError, match="not both"):
         with dask_map(workers=2, scheduler="tcp://127.0.0.1:1"):
