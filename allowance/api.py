@@ -343,7 +343,12 @@ def run(
     told("read", 1, 1)
     tie = _tie_out(taken, config, ledger_balance, accept_ledger_difference)
     _require_tie(tie, taken)
-    result = compute(taken.accepted, config)
+    # the what-if's base: the same loop's figures when only [[overlays]] differ (reapplied after
+    # it), or when the scenario weights differ too (weighted again in the same pass)
+    base_config = _config(assumptions) if overlays else None
+    reweighted = ([base_config] if base_config is not None and not _same_model(base_config, config)
+                  and engine.only_weights_differ(base_config, config) else [])
+    result = compute(taken.accepted, config, **({"reweighted": reweighted} if reweighted else {}))
     inputs = list(config.inputs)
 
     sensitivity = pd.DataFrame()
@@ -367,9 +372,10 @@ def run(
     what_if_paths = pd.DataFrame()
     if overlays:
         told("what-if", 0, 1)
-        base_config = _config(assumptions)
         if _same_model(base_config, config):  # only [[overlays]] differ: the loop's figures are the same
             base = engine.overlaid(result, base_config)
+        elif reweighted:
+            base = result.reweighted[0]
         else:
             base = compute(taken.accepted, base_config, progress=None)
         what_if = reconcile.what_if_comparison(base.loans, result.loans, config.frameworks)

@@ -1,15 +1,21 @@
-"""A what-if that changes only overlays reuses the modelled figures instead of a second loop.
+"""A what-if that changes only overlays reuses the modelled figures instead of a second loop;
+one that changes the scenario weights too reuses the loop's per-scenario figures and weights
+them again in the same pass.
 
-Reference: the engine run on the base assumptions from scratch; the reuse must equal it
-column for column (overlays are applied after the loop, to the rounded modelled ECL).
+Reference: the engine run on the other assumptions from scratch; the reuse must equal it
+column for column (overlays are applied after the loop, to the rounded modelled ECL; the
+weights apply to each scenario's loss, IFRS 9 5.5.17(a) and B5.5.42, never to the PDs or the
+stages).
 """
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
+import pytest
 
-from allowance import api, engine
-from tests.books import engine_config, engine_tape
+from allowance import api, engine, intake
+from tests.books import DEMO_ASSUMPTIONS, DEMO_TAPE, DEMO_WHAT_IF, engine_config, engine_tape
 
 _OVERLAYS = [
     {"name": "auto uplift", "segment": "auto", "kind": "percent", "value": 0.1, "rationale": "used-car prices",
@@ -50,5 +56,94 @@ def test_an_overlay_only_what_if_runs_the_loop_once(monkeypatch):
         assert totals.loc[fw, "difference"] != 0  # the overlays moved it
     weather = {"scenarios": {"down": {"weight": 0.5}, "base": {"weight": 0.5}}}
     calls.clear()
-    api.run(tape, assumptions, overlays=[weather], sensitivities=False, accept_ledger_difference=True)
-    assert len(calls) == 2  # weights change the model: the base is computed again
+    weighed = api.run(tape, assumptions, overlays=[weather], sensitivities=False, accept_ledger_difference=True)
+    assert len(calls) == 1  # only the weights differ: the base is weighted again in the same pass
+    totals = weighed.what_if.summary[weighed.what_if.summary["view"] == "total"].set_index("framework")
+    for fw in ("ifrs9", "cecl"):
+        assert round(float(totals.loc[fw, "base"]), 2) == round(float(base.loans[f"ecl_{fw}"].sum()), 2)
+    worse = {"scenarios": {"down": {"pd_multiplier": [3.0, 2.0, 1.5]}}}
+    calls.clear()
+    api.run(tape, assumptions, overlays=[worse], sensitivities=False, accept_ledger_difference=True)
+    assert len(calls) == 2  # a scenario's path changes the loop's inputs: the base is computed again
+
+
+_POCI = {"credit_impaired_at_purchase": True, "pd_12m_at_origination": 0.25, "pd_12m_current": 0.3,
+         "credit_adjusted_eir": 0.12}
+
+
+def _book_with_poci(n: int = 240) -> pd.DataFrame:
+    """The engine book with some purchased credit-impaired loans (their benchmark is a weighted ECL)."""
+    tape = engine_tape(n=n)
+    poci = np.flatnonzero((tape["segment"] == "auto").to_numpy())[:12]
+    for key, value in _POCI.items():
+        tape.loc[poci, key] = value
+    tape.loc[poci[::2], "lifetime_ecl_at_purchase"] = 900.0  # given for half, measured for the rest
+    tape.loc[poci[:3], "origination_date"] = pd.Timestamp("2026-08-15")  # bought in the period
+    return tape
+
+
+def _assert_same_run(reused: engine.EngineResult, fresh: engine.EngineResult) -> None:
+    pd.testing.assert_frame_equal(reused.loans, fresh.loans)
+    pd.testing.assert_frame_equal(reused.overlays, fresh.overlays)
+    pd.testing.assert_frame_equal(reused.scenarios, fresh.scenarios)
+    pd.testing.assert_frame_equal(reused.findings, fresh.findings)
+    assert reused.warnings == fresh.warnings
+
+
+def test_reweighted_equals_a_fresh_run_at_the_other_weights():
+    tape = _book_with_poci()
+    base = engine_config()
+    downside = engine_config(
+        scenarios={"base": {"weight": 0.1, "pd_multiplier": [1.0, 1.0, 1.0]},
+                   "down": {"weight": 0.9, "pd_multiplier": [2.0, 1.5, 1.2], "lgd_multiplier": [1.1]}},
+        overlays=_OVERLAYS)
+    assert engine.only_weights_differ(base, downside)
+    both = engine.run(tape, base, reweighted=[downside], chunk_size=70)  # several chunks
+    assert len(both.reweighted) == 1
+    _assert_same_run(both.reweighted[0], engine.run(tape, downside))
+    _assert_same_run(dataclasses_free(both), engine.run(tape, base, chunk_size=70))
+    assert both.reweighted[0].schedules.empty  # the base's sample only
+    # no POCI loan: each scenario's loss is the same under either weights (the weights never
+    # enter a scenario's loss or a stage); the modelled ECL is their probability-weighted sum
+    # (IFRS 9 5.5.17(a), B5.5.42; ASC 326-20-30-9), a dot product by numpy, to the cent of each
+    # rounded scenario figure
+    one, other = both.loans, both.reweighted[0].loans
+    plain = ~one["poci"].to_numpy(bool)
+    assert plain.sum() < len(one) and plain.any()
+    for fw in ("ifrs9", "cecl"):
+        cols = [f"ecl_{fw}_base", f"ecl_{fw}_down"]
+        assert np.array_equal(one.loc[plain, cols].to_numpy(), other.loc[plain, cols].to_numpy())
+        assert (one["stage"].to_numpy() == other["stage"].to_numpy()).all()
+        weighted = other.loc[plain, cols].to_numpy() @ np.array([0.1, 0.9])
+        assert np.abs(other.loc[plain, f"ecl_{fw}_modelled"].to_numpy() - weighted).max() <= 0.01 + 1e-9
+    # a POCI loan's IFRS 9 figures move with the weights through its weighted purchase benchmark
+    poci = ~plain
+    assert not np.array_equal(one.loc[poci, "purchase_ecl_carried_ifrs9"].to_numpy(),
+                              other.loc[poci, "purchase_ecl_carried_ifrs9"].to_numpy())
+
+
+def dataclasses_free(result: engine.EngineResult) -> engine.EngineResult:
+    """``result`` as a run without reweighting returns it (no reweighted results attached)."""
+    import dataclasses
+
+    return dataclasses.replace(result, reweighted=())
+
+
+def test_reweighting_refuses_a_configuration_that_changes_the_loop():
+    tape = engine_tape(n=40)
+    other = engine_config(scenarios={"base": {"weight": 0.6, "pd_multiplier": [1.0, 1.0, 1.0]},
+                                     "down": {"weight": 0.4, "pd_multiplier": [3.0, 1.5, 1.2]}})
+    assert not engine.only_weights_differ(engine_config(), other)
+    with pytest.raises(ValueError, match="more than the scenario weights"):
+        engine.run(tape, engine_config(), reweighted=[other])
+
+
+@pytest.mark.slow
+def test_the_demo_downside_what_if_reweighted_equals_a_fresh_run():
+    # the demo's own what-if (only the weights move) on its tape, POCI loans included
+    plain = intake.load_assumptions(DEMO_ASSUMPTIONS)
+    downside = intake.load_assumptions(DEMO_ASSUMPTIONS, [DEMO_WHAT_IF])
+    tape = intake.read_tape(DEMO_TAPE, plain).accepted
+    assert engine.only_weights_differ(plain, downside)
+    both = engine.run(tape, downside, reweighted=[plain], schedule_sample=0)
+    _assert_same_run(both.reweighted[0], engine.run(tape, plain, schedule_sample=0))

@@ -56,7 +56,7 @@ from allowance.schemas import LoanRecord, RunConfig
 __all__ = [
     "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
     "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
-    "max_age", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
+    "max_age", "only_weights_differ", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
@@ -90,6 +90,8 @@ class EngineResult:
     pd_paths: pd.DataFrame = field(default_factory=pd.DataFrame)  # PD path by segment, scenario, month
     overlay_warnings: tuple[str, ...] = ()  # the part of ``warnings`` the overlays raised
     months: int | None = None  # the months the book's tables cover (tape_months), None when not computed here
+    #: the same book under the other configurations :func:`run` was asked for (``reweighted``), in order
+    reweighted: tuple[EngineResult, ...] = ()
 
 
 # --------------------------------------------------------------------------------------
@@ -136,6 +138,19 @@ def _chunks(tape: pd.DataFrame, chunk_size: int) -> Iterator[pd.DataFrame]:
         yield tape.iloc[start: start + chunk_size]
 
 
+def only_weights_differ(one: RunConfig, other: RunConfig) -> bool:
+    """Whether two configurations give the loop the same inputs: their assumptions are equal
+    but for the scenarios' weights and the overlays (both applied after the loop), with the
+    same scenarios in the same order."""
+    def model(config: RunConfig) -> dict:
+        a = config.assumptions
+        dumped = a.model_dump(exclude={"overlays": True, "scenarios": True, "run": {"label"}})
+        dumped["scenarios"] = [(name, s.model_dump(exclude={"weight"})) for name, s in a.scenarios.items()]
+        return dumped
+
+    return model(one) == model(other)
+
+
 def run(
     tape: pd.DataFrame,
     config: RunConfig,
@@ -144,6 +159,7 @@ def run(
     schedule_sample: int = 2,
     map: Map = builtins.map,  # the executor's word for it
     progress: Progress | None = None,
+    reweighted: Iterable[RunConfig] = (),
 ) -> EngineResult:
     """Compute the allowance for an accepted tape.
 
@@ -163,6 +179,12 @@ def run(
         same contract (results in the chunks' order).
     progress : callable, optional
         ``progress("loans", done, total)`` after each chunk.
+    reweighted : configurations
+        Other configurations that differ from ``config`` only in the scenario weights and
+        the overlays (:func:`only_weights_differ`): the book under each is computed in the
+        same pass, the loop run once (:func:`~allowance.engine.chunk.run_chunk`), and comes
+        back in ``EngineResult.reweighted`` (without schedule samples; the book-level tables
+        are this run's, which the weights do not enter). Each equals ``run(tape, other)``.
 
     Notes
     -----
@@ -171,43 +193,52 @@ def run(
     is rounded as it comes back; overlays and summaries are book-wide and run after the map.
     """
     prep = prepare(config, tape_months(tape, config), max_age(tape, config))
+    others = tuple(reweighted)
+    for other in others:
+        if not only_weights_differ(config, other):
+            raise ValueError("engine.run: a reweighted configuration differs from the run's in more than "
+                             "the scenario weights and the overlays")
+    weights = tuple(np.asarray(other.assumptions.weights, float) for other in others)
+    work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}))
 
     chunks = list(_chunks(tape, chunk_size))
     parts: list[ChunkResult] = []
     done = 0
-    for chunk, part in zip(chunks, map(functools.partial(run_chunk, prep=prep), chunks)):
+    for chunk, part in zip(chunks, map(work, chunks)):
         # rounded as each chunk comes back (rounding is per loan): the unrounded chunk is let go
         # at once, not held beside a rounded copy of the whole book's money columns
-        parts.append(dataclasses.replace(part, loans=_round_money(part.loans)))
+        parts.append(dataclasses.replace(part, loans=_round_money(part.loans),
+                                         reweighted=tuple(_round_money(r) for r in part.reweighted)))
         done += len(chunk)
         if progress is not None:
             progress("loans", done, len(tape))
     # the chunks' frames are let go once joined: a million loans' detail is not held twice
     findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
-    frames = [p.loans for p in parts]
+    frames = [[p.loans for p in parts], *([p.reweighted[i] for p in parts] for i in range(len(others)))]
     del parts
-    loans = pd.concat(frames) if frames else pd.DataFrame()
-    del frames
-    _split_drawn_undrawn(loans, prep)
-
-    applied = _apply_overlays(loans, config)
-    loans = _order_columns(loans, tape, prep)
-
-    return EngineResult(
-        loans=loans,
-        overlays=applied.table,
-        scenarios=scenario_summary(loans, config),
-        term_structures=term_structure_table(prep),
-        roll_rates=roll_rate_table(config),
-        reversion=reversion_view(prep),
+    model_warnings = staging.pd_ratio_warnings(tape) if prep.staged is not None else []
+    results = []
+    for i, one in enumerate((config, *others)):
+        loans = pd.concat(frames[i]) if frames[i] else pd.DataFrame()
+        frames[i] = []
+        _split_drawn_undrawn(loans, prep)
+        applied = _apply_overlays(loans, one)
+        loans = _order_columns(loans, tape, prep)
+        results.append(EngineResult(
+            loans=loans, overlays=applied.table, scenarios=scenario_summary(loans, one),
+            term_structures=pd.DataFrame(), roll_rates=pd.DataFrame(), reversion=pd.DataFrame(),
+            schedules=pd.DataFrame(), findings=findings, warnings=model_warnings + list(applied.warnings),
+            overlay_warnings=tuple(applied.warnings), months=prep.months,
+        ))
+    main, rest = results[0], results[1:]
+    tables = {"term_structures": term_structure_table(prep), "roll_rates": roll_rate_table(config),
+              "reversion": reversion_view(prep), "pd_paths": pd_path_view(tape, prep)}
+    return dataclasses.replace(
+        main, **tables,
         # the tape's own columns only: slicing thousands of carried-through columns costs seconds
         schedules=_schedule_sample(tape[[c for c in tape.columns if c in LoanRecord.model_fields or c == "source_row"]],
-                                   loans, prep, schedule_sample),
-        findings=findings,
-        warnings=(staging.pd_ratio_warnings(tape) if prep.staged is not None else []) + list(applied.warnings),
-        pd_paths=pd_path_view(tape, prep),
-        overlay_warnings=tuple(applied.warnings),
-        months=prep.months,
+                                   main.loans, prep, schedule_sample),
+        reweighted=tuple(dataclasses.replace(r, **tables) for r in rest),
     )
 
 

@@ -273,10 +273,13 @@ class ChunkResult:
               credit loss (``gross_loss_<framework>``), unrounded
     findings  the engine's findings on these loans (``payment_short`` warnings), in the
               intake findings' columns
+    reweighted  the ``loans`` under each of the other scenario weights asked for (see
+              :func:`run_chunk`), in the same order
     """
 
     loans: pd.DataFrame
     findings: pd.DataFrame
+    reweighted: tuple[pd.DataFrame, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -430,8 +433,9 @@ class _Purchase:
 
 
 def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inputs: KernelInputs,
-                    prep: Prepared) -> _Purchase | None:
-    """The two purchase-date passes of the loop for the chunk's POCI loans (:mod:`allowance.poci`).
+                    prep: Prepared, weights: tuple[np.ndarray, ...]) -> tuple[_Purchase, ...] | None:
+    """The two purchase-date passes of the loop for the chunk's POCI loans (:mod:`allowance.poci`),
+    weighted by each of ``weights`` in turn (one :class:`_Purchase` each; None: no POCI loans).
 
     R: today's balance, remaining term and scenario paths at the loan's PD at purchase
     (``pd_12m_at_origination``). Q: the purchase date (the tape's ``origination_date`` of a
@@ -439,7 +443,9 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     term then, age 0 on age-indexed curves and prepayments, the same PD at purchase and this
     run's scenario paths and LGDs. Both are discounted at the credit-adjusted EIR and are
     lifetime. A loan in default today that was bought in the reporting period is taken to
-    have been bought in default (so its day-one allowance is 0); an older one is not.
+    have been bought in default (so its day-one allowance is 0); an older one is not. The
+    passes are per scenario; only their weighting (the benchmark carried, B = E0 R / Q with R
+    and Q probability-weighted, IFRS 9 5.5.13-5.5.14, B5.5.42) depends on the weights.
     """
     flags = _flag(chunk, "credit_impaired_at_purchase")
     rows = np.flatnonzero(flags)
@@ -480,19 +486,21 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
         in_default=defaulted, horizon=np.where(revolving[None, :], fw.horizon[:, rows], months[None, :]),
         ead_add=fw.ead_add[:, rows], pd_scale=scale,
     ))
-    w = prep.weights
     e0 = _number(chunk, "lifetime_ecl_at_purchase")[rows]
-    carried = np.full((n, n_fw), np.nan)
-    at_purchase = np.full((n, n_fw), np.nan)
-    for f in range(n_fw):
-        r_f = scenarios.weighted(r.ecl_lifetime[:, f, :], w)
-        q_f = scenarios.weighted(q.ecl_lifetime[:, f, :], w)
-        given = np.where(np.isnan(e0), q_f, e0)  # blank: measured at the purchase date
-        carried[rows, f] = poci.purchase_benchmark(given, r_f, q_f)
-        at_purchase[rows, f] = given
     in_period = np.zeros(n, dtype=bool)
     in_period[rows] = bought
-    return _Purchase(carried=carried, at_purchase=at_purchase, in_period=in_period)
+    views = []
+    for w in weights:
+        carried = np.full((n, n_fw), np.nan)
+        at_purchase = np.full((n, n_fw), np.nan)
+        for f in range(n_fw):
+            r_f = scenarios.weighted(r.ecl_lifetime[:, f, :], w)
+            q_f = scenarios.weighted(q.ecl_lifetime[:, f, :], w)
+            given = np.where(np.isnan(e0), q_f, e0)  # blank: measured at the purchase date
+            carried[rows, f] = poci.purchase_benchmark(given, r_f, q_f)
+            at_purchase[rows, f] = given
+        views.append(_Purchase(carried=carried, at_purchase=at_purchase, in_period=in_period))
+    return tuple(views)
 
 
 def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | None, k: KernelResult,
@@ -671,26 +679,38 @@ def chunk_inputs(chunk: pd.DataFrame, prep: Prepared) -> ChunkInputs:
     return ChunkInputs(terms, stages, fw, _kernel_inputs(terms, fw, prep))
 
 
-def run_chunk(chunk: pd.DataFrame, prep: Prepared) -> ChunkResult:
+def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray, ...] = ()) -> ChunkResult:
     """Modelled results (unrounded) for a chunk of accepted loans, and the engine's findings.
 
     A pure function of its arguments: the same chunk and tables give the same result in any
     process, so an executor's ``map`` may run chunks anywhere (:func:`allowance.engine.run`).
+
+    ``reweighted``: other scenario weights (each as ``prep.weights``), whose loan results come
+    back in ``ChunkResult.reweighted``. Stages, horizons and every scenario's loss come from
+    the loan terms and the scenario paths, never the weights (IFRS 9 5.5.17(a), B5.5.42: the
+    weights apply to the scenarios' losses), so the loop runs once and only the weighted
+    figures are made again; a POCI loan's benchmark is a weighted ECL, so its per-scenario
+    allowance follows it (:func:`_purchase_views`).
     """
     c = chunk_inputs(chunk, prep)
     terms, stages, fw = c.terms, c.stages, c.frameworks
     k = expected_losses(c.kernel)
-    purchase = _purchase_views(chunk, terms, fw, c.kernel, prep)
+    weights = (prep.weights, *reweighted)
+    purchases = _purchase_views(chunk, terms, fw, c.kernel, prep, weights) or (None,) * len(weights)
     # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
     for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
         k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
         k.pd_12m[rows] = k.pd_lifetime[rows] = np.nan
         k.gross_12m[rows] = k.gross_lifetime[rows] = np.nan  # a loss rate is net of recoveries
         k.lgd[rows] = np.nan
+    drawn = _drawn_only(chunk, prep, c, k)
+    loans = [_loan_results(chunk, terms, stages, k, prep if i == 0 else dataclasses.replace(prep, weights=w),
+                           purchase, fw, drawn) for i, (w, purchase) in enumerate(zip(weights, purchases))]
     return ChunkResult(
-        loans=_loan_results(chunk, terms, stages, k, prep, purchase, fw, _drawn_only(chunk, prep, c, k)),
+        loans=loans[0],
         findings=pd.concat([_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
                             _refinance_findings(chunk, terms)], ignore_index=True),
+        reweighted=tuple(loans[1:]),
     )
 
 
