@@ -483,3 +483,23 @@ def test_model_changes_have_their_own_line():
     assert table.loc["model_change", "auto"] == 6.0 and table.loc["assumptions", "auto"] == 0.0
     assert table.loc["assumptions", "card"] == 8.0 and table.loc["model_change", "card"] == 0.0
     assert any("PD source: pd_12m -> pd_curve" in n for n in m.notes)
+
+
+def test_what_if_matches_loans_by_id_in_any_order():
+    # the same loans in another order, and ids a spreadsheet would read as formulas (neutralised
+    # alike on both sides): each loan set against its own; the reference is pandas' merge on the ids
+    base = pd.DataFrame({"loan_id": ["a", "=b", "c", "d"], "segment": ["auto", "auto", "card", "card"],
+                         "stage": [1, 1, 2, 1], "stage_reason": ["", "", "dpd>30", ""],
+                         "ecl_ifrs9": [1.0, 2.0, 3.0, 4.0]})
+    alt = base.assign(stage=[2, 1, 2, 3], ecl_ifrs9=[1.5, 2.0, 3.5, 9.0]).iloc[[3, 1, 0, 2]]
+    w = what_if_comparison(base, alt, ["ifrs9"])
+    joined = base.merge(alt, on="loan_id", suffixes=("_b", "_w"))
+    moved = joined[joined["stage_b"] != joined["stage_w"]]
+    assert w.stage_changes["loan_id"].tolist() == moved["loan_id"].tolist() == ["a", "d"]
+    assert w.stage_changes["what_if_stage"].tolist() == moved["stage_w"].tolist()
+    assert w.stage_changes["difference"].tolist() == [0.5, 5.0]
+    total = w.summary[w.summary["view"] == "total"].iloc[0]
+    assert (total["base"], total["what_if"]) == (10.0, 16.0)
+    for other in (alt.iloc[:3], alt.assign(loan_id=["a", "=b", "c", "e"]), pd.concat([alt.iloc[:3], alt.iloc[:1]])):
+        with pytest.raises(MovementError, match="same loans"):
+            what_if_comparison(base, other, ["ifrs9"])

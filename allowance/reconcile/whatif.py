@@ -12,6 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from allowance.frameworks import rules_for
 from allowance.exceptions import MovementError
@@ -40,14 +42,44 @@ def _scenario_columns(frame: pd.DataFrame, framework: Framework) -> list[str]:
     return [c for c in frame.columns if c.startswith(prefix) and c != prefix + "modelled"]
 
 
-def _classed(loans: pd.DataFrame, staged: bool) -> pd.DataFrame:
-    """The loans with ``stage`` as the one vocabulary's class: 1, 2, 3, or "POCI" apart."""
+def _classes(loans: pd.DataFrame, staged: bool) -> pd.Series | None:
+    """Each loan's ``stage`` as the one vocabulary's class: "1", "2", "3", or "POCI" apart
+    (None when the loans carry no stage or the framework stages none). The few distinct
+    stages are turned into text, not every loan's."""
     if not staged or "stage" not in loans.columns:
-        return loans
-    stage = loans["stage"].astype("Int64").astype(str)
+        return None
+    codes, uniques = pd.factorize(loans["stage"].astype("Int64"), use_na_sentinel=False)
+    labels = pd.Series(uniques).astype(str).to_numpy(dtype=object)
+    stage = labels[codes] if len(labels) else np.array([], dtype=object)
     if "poci" in loans.columns:
-        stage = stage.where(~loans["poci"].astype(bool), "POCI")
-    return loans.assign(stage=stage)
+        stage = np.where(loans["poci"].astype(bool).to_numpy(), "POCI", stage)
+    return pd.Series(stage, index=loans.index, dtype="str")
+
+
+def _keys(loans: pd.DataFrame) -> pa.Array:
+    """The loans' neutralised ids (the key a run's loans.csv writes) as one Arrow text array."""
+    key = pa.array(neutralise_text(loans["loan_id"].astype(str)), from_pandas=True)
+    if isinstance(key, pa.ChunkedArray):
+        key = key.combine_chunks()
+    return key if key.type == pa.string() else key.cast(pa.string())
+
+
+def _matched(base: pd.DataFrame, what_if: pd.DataFrame) -> np.ndarray | None:
+    """For each base loan, the row of the what-if loan with its key; None when the two runs do
+    not hold the same loans, each once. The same tape in the same order is matched position
+    for position; otherwise by Arrow's hash of the keys (no Python per loan)."""
+    b_key, w_key = _keys(base), _keys(what_if)
+    if len(b_key) != len(w_key):
+        return None
+    if b_key.equals(w_key):  # as many distinct keys as loans: each loan once
+        return np.arange(len(b_key)) if pc.count_distinct(b_key).as_py() == len(b_key) else None
+    position = pc.index_in(b_key, value_set=w_key).to_numpy(zero_copy_only=False)
+    if pd.isna(position).any():
+        return None
+    # as many distinct keys as loans on both sides, every base key among the what-if's: the same loans, each once
+    if pc.count_distinct(b_key).as_py() != len(b_key) or pc.count_distinct(w_key).as_py() != len(w_key):
+        return None
+    return position.astype(np.int64)
 
 
 def what_if_comparison(base: pd.DataFrame, what_if: pd.DataFrame, frameworks: list[Framework]) -> WhatIf:
@@ -67,9 +99,8 @@ def what_if_comparison(base: pd.DataFrame, what_if: pd.DataFrame, frameworks: li
     >>> w.stage_changes[["loan_id", "base_stage", "what_if_stage"]].values.tolist()
     [['b', 1, 2]]
     """
-    b_key = neutralise_text(base["loan_id"].astype(str))
-    w_key = neutralise_text(what_if["loan_id"].astype(str))
-    if set(b_key) != set(w_key) or b_key.duplicated().any():
+    position = _matched(base, what_if)
+    if position is None:
         raise MovementError("the what-if run does not cover the same loans as the base run",
                             hint="rerun the what-if on the same tape as the base run")
     rows: list[dict] = []
@@ -87,8 +118,8 @@ def what_if_comparison(base: pd.DataFrame, what_if: pd.DataFrame, frameworks: li
                      "base": int(cents(base, col).sum()), "what_if": int(cents(what_if, col).sum())})
         staged = rules_for(f).staged
         keys = ["segment"] + (["stage"] if staged else [])
-        b = _classed(base, staged).assign(_c=cents(base, col)).groupby(keys)["_c"].sum()
-        w = _classed(what_if, staged).assign(_c=cents(what_if, col)).groupby(keys)["_c"].sum()
+        b = _grouped(base, staged, cents(base, col), keys)
+        w = _grouped(what_if, staged, cents(what_if, col), keys)
         both = pd.concat({"base": b, "what_if": w}, axis=1).fillna(0).astype(np.int64).reset_index()
         for r in both.itertuples(index=False):
             rows.append({"framework": f, "view": "segment and stage", "segment": r.segment,
@@ -109,15 +140,36 @@ def what_if_comparison(base: pd.DataFrame, what_if: pd.DataFrame, frameworks: li
             "base_ecl_ifrs9", "what_if_ecl_ifrs9", "difference"]
     if "stage" not in base.columns or "stage" not in what_if.columns:
         return WhatIf(summary=summary, stage_changes=pd.DataFrame(columns=cols))
-    left = pd.DataFrame({"key": b_key.to_numpy(dtype=object), "loan_id": base["loan_id"].to_numpy(dtype=object),
-                         "segment": base["segment"].to_numpy(dtype=object),
-                         "base_stage": base["stage"].to_numpy(),
-                         "base_reason": base.get("stage_reason", pd.Series("", index=base.index)).to_numpy(dtype=object),
-                         "base_ecl_ifrs9": base.get("ecl_ifrs9", pd.Series(np.nan, index=base.index)).to_numpy()})
-    right = pd.DataFrame({"key": w_key.to_numpy(dtype=object), "what_if_stage": what_if["stage"].to_numpy(),
-                          "what_if_reason": what_if.get("stage_reason", pd.Series("", index=what_if.index)).to_numpy(dtype=object),
-                          "what_if_ecl_ifrs9": what_if.get("ecl_ifrs9", pd.Series(np.nan, index=what_if.index)).to_numpy()})
-    joined = left.merge(right, on="key", how="inner")
-    changed = joined[joined["base_stage"] != joined["what_if_stage"]].copy()
+    # the loans whose stage differs, in the base run's order, each beside its what-if figures
+    rows_b = np.flatnonzero(base["stage"].to_numpy() != what_if["stage"].to_numpy()[position])
+    rows_w = position[rows_b]
+
+    def text(frame: pd.DataFrame, name: str, rows: np.ndarray):
+        """A text column at ``rows`` (blank where the run has none), as text even when no row is."""
+        if name not in frame.columns:
+            return pd.array([""] * len(rows), dtype="str")
+        values = frame[name].iloc[rows].to_numpy(dtype=object)
+        return pd.array(values, dtype="str") if pd.api.types.is_string_dtype(frame[name].dtype) else values
+
+    def number(frame: pd.DataFrame, name: str, rows: np.ndarray) -> np.ndarray:
+        return frame[name].iloc[rows].to_numpy() if name in frame.columns else np.full(len(rows), np.nan)
+
+    changed = pd.DataFrame({
+        "loan_id": text(base, "loan_id", rows_b), "segment": text(base, "segment", rows_b),
+        "base_stage": base["stage"].to_numpy()[rows_b], "what_if_stage": what_if["stage"].to_numpy()[rows_w],
+        "base_reason": text(base, "stage_reason", rows_b), "what_if_reason": text(what_if, "stage_reason", rows_w),
+        "base_ecl_ifrs9": number(base, "ecl_ifrs9", rows_b), "what_if_ecl_ifrs9": number(what_if, "ecl_ifrs9", rows_w),
+    })
     changed["difference"] = (np.rint(changed["what_if_ecl_ifrs9"] * 100) - np.rint(changed["base_ecl_ifrs9"] * 100)) / 100
     return WhatIf(summary=summary, stage_changes=changed[cols].reset_index(drop=True))
+
+
+def _grouped(loans: pd.DataFrame, staged: bool, cents: np.ndarray, keys: list[str]) -> pd.Series:
+    """Cents summed by segment (and class, where the framework stages): only the key columns
+    are framed, not the whole loan frame."""
+    frame = {"segment": loans["segment"].array}
+    classes = _classes(loans, staged)
+    if "stage" in keys:
+        frame["stage"] = classes if classes is not None else loans["stage"].to_numpy()
+    frame["_c"] = cents
+    return pd.DataFrame(frame, index=loans.index).groupby(keys)["_c"].sum()
