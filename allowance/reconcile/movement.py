@@ -45,14 +45,16 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 from datetime import date
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from allowance.frameworks import rules_for
 from allowance.exceptions import MovementError
-from allowance.reconcile.runs import bridge, prepare_charge_offs, prepare_run
+from allowance.reconcile.runs import STATUSES, Book, Bridge, RunLoans, bridge
 from allowance.reconcile.tables import (
     _ALLOWANCE_BODY, _GROSS_BODY, LEDGER, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
     check_movement, journal, rollforward, write_off_bridge,
@@ -75,7 +77,8 @@ class Movement:
                       provision, charge_offs, recoveries, ending`` (charge-offs negative; the
                       provision the balancing figure; see :func:`rollforward`)
     journal           the allowance entries: ``segment, entry, account, debit, credit``
-    loans             per loan: status, prior and current class, every line's amount
+    loans             per loan: status, prior and current class, every line's amount (made
+                      when first read; :meth:`loan_table` gives a slice of it)
     assumptions_isolated  whether a rerun at prior assumptions separated that line
     notes             things a reviewer should know (charge-offs of loans in neither run)
     write_offs        from the allowance written off to gross charge-offs and recoveries
@@ -89,11 +92,26 @@ class Movement:
     gross_detail: pd.DataFrame
     rollforward: pd.DataFrame
     journal: pd.DataFrame
-    loans: pd.DataFrame
     assumptions_isolated: bool
     notes: tuple[str, ...] = ()
     write_offs: pd.DataFrame = field(default_factory=pd.DataFrame)
     not_isolated: tuple[str, ...] = ()
+    _loan_rows: _LoanRows | None = field(default=None, repr=False, compare=False)
+
+    @cached_property
+    def loans(self) -> pd.DataFrame:
+        """Per loan: status, prior and current segment and class, every line's amount."""
+        return self.loan_table()
+
+    @property
+    def loan_count(self) -> int:
+        """How many rows :attr:`loans` has (loans in either run, or charged off)."""
+        return 0 if self._loan_rows is None else len(self._loan_rows.status)
+
+    def loan_table(self, start: int = 0, stop: int | None = None) -> pd.DataFrame:
+        """Rows ``start:stop`` of :attr:`loans`, made from the movement's codes and cents: a writer
+        takes a large book's loan table slice by slice, never all of it at once."""
+        return _loan_table(self._loan_rows, start, stop)
 
     @property
     def net_provision(self) -> float:
@@ -194,37 +212,41 @@ def movement(
     >>> m.allowance.set_index("line").loc["transfer_to_stage_2", ["stage 1", "stage 2"]].tolist()
     [-1.0, 1.0]
     """
-    names = {"prior": "prior run", "current": "current run",
-             "current_at_prior_assumptions": "current tape at prior assumptions", "charge_offs": "charge-off file"}
-    names.update(sources or {})
+    names = _sources(sources)
     if framework not in FRAMEWORKS:
         raise MovementError(f"unknown framework {framework!r}", hint=f"use one of {', '.join(FRAMEWORKS)}")
     months = _period_months(prior_as_of, current_as_of, names)
-    p = prepare_run(prior, framework, names["prior"])
-    c = prepare_run(current, framework, names["current"])
-    a = (
-        None if current_at_prior_assumptions is None
-        else prepare_run(current_at_prior_assumptions, framework, names["current_at_prior_assumptions"], modelled_only=True)
-    )
-    co = prepare_charge_offs(charge_offs, names["charge_offs"])
+    book = Book(prior, current, current_at_prior_assumptions, charge_offs, names)
+    return _movement(book, framework, months, method_changes)
+
+
+def _sources(sources: Mapping[str, str] | None) -> dict[str, str]:
+    names = {"prior": "prior run", "current": "current run",
+             "current_at_prior_assumptions": "current tape at prior assumptions", "charge_offs": "charge-off file"}
+    names.update(sources or {})
+    return names
+
+
+def _movement(book: Book, framework: Framework, months: int | None,
+              method_changes: Mapping[str, Sequence[str]] | None) -> Movement:
+    """:func:`movement` of one framework over runs already joined (shared by every framework)."""
     changed = frozenset(method_changes or {})
-    has_rates = f"discount_rate_{framework}" in prior.columns
-    loans = bridge(p, c, a, co, names, months=months if has_rates else None, method_changed=changed,
+    has_rates = book.prior.has(f"discount_rate_{framework}")
+    loans = bridge(book, framework, months=months if has_rates else None, method_changed=changed,
                    gross_up=LEDGER[framework].pcd_gross_up)
 
     # the class dimension of the detail is the framework's class (IFRS 9: stage or POCI;
     # CECL: PCD or not); its main table is by class (IFRS 7 35H) or by segment (ASC 326-20-50-13)
     rules = rules_for(framework)
     detail_dims = ("segment", "class")
-    # distinct values first: iterating a million-row Arrow column in Python took seconds
-    classes = sorted(set(p["klass"].unique().tolist()) | set(c["klass"].unique().tolist()))
+    classes = sorted(_present(loans.classes, loans.class_prior, loans.klass))
     by_class = rules.class_order is not None
     if by_class:
         classes = [k for k in rules.class_order if k in classes or k != rules.credit_impaired]
         main_dim, main_cols = "class", classes
     else:
         main_dim = "segment"
-        main_cols = sorted(set(p["segment"].unique().tolist()) | set(c["segment"].unique().tolist()), key=str)
+        main_cols = sorted(_present(loans.segments, loans.segment_prior, loans.segment), key=str)
     labels = {f"transfer_to_{_slug(k)}": k for k in classes}
 
     main_lines = _transfer_lines(loans, (main_dim,), "class" if by_class else None)
@@ -241,7 +263,7 @@ def movement(
         _check_long(detail, detail_order, f"{framework} {kind} movement by segment and class")
         tables[kind] = (wide, detail)
 
-    opening_total, closing_total = int(p["ecl"].sum()), int(c["ecl"].sum())
+    opening_total, closing_total = int(loans.amounts["opening"].sum()), int(loans.amounts["closing"].sum())
     allowance = tables["allowance"][0].set_index("line")["total"]
     if round(allowance["opening"] * 100) != opening_total or round(allowance["closing"] * 100) != closing_total:
         raise MovementError(f"{framework} movement: opening or closing differs from the runs' totals")
@@ -250,13 +272,15 @@ def movement(
     if changed:
         notes.append("models or methods changed since the prior run: " + "; ".join(
             f"{'every segment' if k == '*' else 'segment ' + k}: {', '.join(v)}" for k, v in sorted(method_changes.items())))
-    outside = loans[~loans["in_prior"] & ~loans["in_current"]]
-    if len(outside):
-        where = ", ".join(sorted({str(s) for s in outside["segment_any"]}))
+    outside = ~loans.in_prior & ~loans.in_current
+    if outside.any():
+        where = ", ".join(sorted({str(loans.segments[i]) for i in np.unique(loans.segment_any[outside])}))
         notes.append(
-            f"{len(outside)} row(s) of the charge-off file (charge-offs {int(outside['gross_charge_off'].sum()) / 100:,.2f}, "
-            f"recoveries {int(outside['recoveries'].sum()) / 100:,.2f}) are for loans in neither run (written off "
-            f"before the prior run, or opened and closed within the period); the roll-forward shows them under {where}"
+            f"{int(outside.sum())} row(s) of the charge-off file (charge-offs "
+            f"{int(loans.amounts['gross_charge_off'][outside].sum()) / 100:,.2f}, "
+            f"recoveries {int(loans.amounts['recoveries'][outside].sum()) / 100:,.2f}) are for loans in neither run "
+            f"(written off before the prior run, or opened and closed within the period); the roll-forward shows "
+            f"them under {where}"
         )
     return Movement(
         framework=framework,
@@ -265,27 +289,41 @@ def movement(
         allowance_detail=tables["allowance"][1],
         gross_detail=tables["gross"][1],
         rollforward=roll,
-        journal=journal(roll, framework, _presented(prior, current, framework)),
-        loans=_loan_table(loans),
-        assumptions_isolated=a is not None,
+        journal=journal(roll, framework, _presented(book, framework)),
+        _loan_rows=_LoanRows.of(loans),
+        assumptions_isolated=book.rerun is not None,
         notes=tuple(notes),
         write_offs=write_off_bridge(loans, framework),
-        not_isolated=_not_isolated(framework, a is not None, method_changes is not None, has_rates, months, current),
+        not_isolated=_not_isolated(framework, book.rerun is not None, method_changes is not None, has_rates, months,
+                                   book.current.has("modified")),
     )
 
 
-def _presented(prior: pd.DataFrame, current: pd.DataFrame, framework: Framework) -> pd.Series:
+def _present(names: list[str], *codes: np.ndarray) -> set[str]:
+    """The names any of the code arrays points to (-1: none)."""
+    found = np.zeros(len(names) + 1, dtype=bool)
+    for c in codes:
+        found[np.where(c < 0, len(names), c)] = True
+    return {names[i] for i in np.flatnonzero(found[:-1])}
+
+
+def _presented(book: Book, framework: Framework) -> pd.Series:
     """Per segment, in integer cents: the change in ``provision_<framework>`` (the ECL presented
     apart from the loss allowance), closing less opening; a run without the column has none."""
     column = f"provision_{framework}"
+    names, codes = book.segments
 
-    def by_segment(frame: pd.DataFrame) -> pd.Series:
-        if column not in frame.columns or frame.empty:
+    def by_segment(run: RunLoans) -> pd.Series:
+        if not run.has(column) or len(run) == 0:
             return pd.Series(dtype=np.int64)
-        cents = np.rint(pd.to_numeric(frame[column]).fillna(0.0).to_numpy(np.float64) * 100.0).astype(np.int64)
-        return pd.Series(cents).groupby(frame["segment"].astype(str).to_numpy()).sum()
+        cents = np.rint(pd.to_numeric(run.frame[column]).fillna(0.0).to_numpy(np.float64) * 100.0).astype(np.int64)
+        segment = codes[id(run)]
+        present = np.flatnonzero(np.bincount(segment, minlength=len(names)))
+        sums = np.zeros(len(names), dtype=np.int64)
+        np.add.at(sums, segment, cents)
+        return pd.Series(sums[present], index=pd.Index([names[i] for i in present], dtype=object))
 
-    return by_segment(current).sub(by_segment(prior), fill_value=0).astype(np.int64)
+    return by_segment(book.current).sub(by_segment(book.prior), fill_value=0).astype(np.int64)
 
 
 def _period_months(prior_as_of: date | None, current_as_of: date | None, names: Mapping[str, str]) -> int | None:
@@ -302,7 +340,7 @@ def _period_months(prior_as_of: date | None, current_as_of: date | None, names: 
 
 
 def _not_isolated(framework: Framework, rerun: bool, methods_known: bool, has_rates: bool, months: int | None,
-                  current: pd.DataFrame) -> tuple[str, ...]:
+                  has_modified: bool) -> tuple[str, ...]:
     """The movement lines the inputs could not separate, each with the reason (they sit in remeasurement)."""
     out = []
     if not rerun:
@@ -317,19 +355,69 @@ def _not_isolated(framework: Framework, rerun: bool, methods_known: bool, has_ra
                    "it is in remeasurement")
     elif months is None:
         out.append("unwind of the discount: the two reporting dates were not given, so it is in remeasurement")
-    if "modified" not in current.columns:
+    if not has_modified:
         out.append("modifications: the current run's loans carry no modified flag, so they are in remeasurement")
     return tuple(out)
 
 
-def _loan_table(rows: pd.DataFrame) -> pd.DataFrame:
-    money = ["opening", "new", "pcd_gross_up", "derecognised", "written_off", "transfer", "unwind", "remeasurement",
-             "modifications", "model_change", "assumptions", "overlays", "closing", "g_opening", "g_closing",
-             "gross_charge_off", "recoveries"]
-    out = rows[["loan_id", "status", "segment_prior", "segment", "class_prior", "class"]].copy()
-    for name in money:
-        out[name.replace("g_opening", "balance_prior").replace("g_closing", "balance")] = rows[name] / 100.0
-    return out
+#: the loan table's money columns: the bridge's line -> the column's name
+_LOAN_MONEY = {name: name for name in (
+    "opening", "new", "pcd_gross_up", "derecognised", "written_off", "transfer", "unwind", "remeasurement",
+    "modifications", "model_change", "assumptions", "overlays", "closing")} | {
+    "g_opening": "balance_prior", "g_closing": "balance", "gross_charge_off": "gross_charge_off",
+    "recoveries": "recoveries"}
+
+
+@dataclass(frozen=True)
+class _LoanRows:
+    """What the loan table is made of: ids (Arrow text), status, segments and classes as codes
+    into their names (-1: not in that run), every money column in cents. The bridge's other
+    arrays are let go once the tables are made."""
+
+    loan_ids: pa.Array
+    status: np.ndarray
+    segment_prior: np.ndarray
+    segment: np.ndarray
+    class_prior: np.ndarray
+    klass: np.ndarray
+    segments: list[str]
+    classes: list[str]
+    cents: dict[str, np.ndarray]
+
+    @classmethod
+    def of(cls, bridge: Bridge) -> _LoanRows:
+        small = lambda codes: codes.astype(np.int32)  # noqa: E731  (a segment or class code: 4 bytes a loan)
+        return cls(loan_ids=bridge.loan_ids, status=bridge.status, segment_prior=small(bridge.segment_prior),
+                   segment=small(bridge.segment), class_prior=small(bridge.class_prior), klass=small(bridge.klass),
+                   segments=bridge.segments, classes=bridge.classes,
+                   cents={line: bridge.amounts[line] for line in _LOAN_MONEY})
+
+
+def _loan_table(rows: _LoanRows | None, start: int = 0, stop: int | None = None) -> pd.DataFrame:
+    """Per loan: status, prior and current segment and class, every line's amount. The text is
+    Arrow's, one label per code taken in one call: no Python string per loan."""
+    names = ["loan_id", "status", "segment_prior", "segment", "class_prior", "class", *_LOAN_MONEY.values()]
+    if rows is None:
+        return pd.DataFrame(columns=names)
+    cut = slice(start, stop)
+
+    def text(labels, codes: np.ndarray):
+        codes = codes[cut]
+        picked = pa.array(labels, pa.large_string()).take(pa.array(codes, mask=codes < 0))
+        return pd.array(picked, dtype="str")
+
+    ids = rows.loan_ids[start:stop if stop is not None else len(rows.loan_ids)]
+    out = {
+        "loan_id": pd.array(ids, dtype="str"),
+        "status": text(STATUSES, rows.status),
+        "segment_prior": text(rows.segments, rows.segment_prior),
+        "segment": text(rows.segments, rows.segment),
+        "class_prior": text(rows.classes, rows.class_prior),
+        "class": text(rows.classes, rows.klass),
+    }
+    for line, name in _LOAN_MONEY.items():
+        out[name] = rows.cents[line][cut] / 100.0
+    return pd.DataFrame(out)
 
 
 def compare_runs(
@@ -362,8 +450,11 @@ def compare_runs(
         if not frameworks:
             raise MovementError("the two runs share no framework (no ecl_ifrs9 or ecl_cecl column in both)",
                                 hint="compare two runs of the same frameworks")
-    return {
-        f: movement(prior_loans, current_loans, current_at_prior_assumptions, charge_offs, f, sources=sources,
-                    prior_as_of=prior_as_of, current_as_of=current_as_of, method_changes=method_changes)
-        for f in frameworks
-    }
+    for f in frameworks:
+        if f not in FRAMEWORKS:
+            raise MovementError(f"unknown framework {f!r}", hint=f"use one of {', '.join(FRAMEWORKS)}")
+    names = _sources(sources)
+    months = _period_months(prior_as_of, current_as_of, names)
+    # the runs joined once: ids, segments, balances and flags converted once for every framework
+    book = Book(prior_loans, current_loans, current_at_prior_assumptions, charge_offs, names)
+    return {f: _movement(book, f, months, method_changes) for f in frameworks}

@@ -12,6 +12,7 @@ journal          the provision (or release) as debit and credit lines
 from __future__ import annotations
 
 from collections.abc import Mapping
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -19,6 +20,9 @@ import pandas as pd
 from allowance.frameworks import FRAMEWORK_RULES, LedgerRules, rules_for
 from allowance.exceptions import MovementError
 from allowance.schemas import Framework
+
+if TYPE_CHECKING:
+    from allowance.reconcile.runs import Bridge
 
 __all__ = ["LEDGER", "MOVEMENT_LINES", "LedgerRules", "check_movement", "journal", "rollforward", "write_off_bridge"]
 
@@ -54,85 +58,88 @@ def _slug(label: str) -> str:
     return label.lower().replace(" ", "_").replace("-", "_")
 
 
-def _ledger(bridge: pd.DataFrame, dims: tuple[str, ...], body: tuple[str, ...], prefix: str,
-            transfer_line: np.ndarray) -> pd.DataFrame:
+def _ledger(bridge: Bridge, dims: tuple[str, ...], body: tuple[str, ...], prefix: str,
+            transfer: tuple[np.ndarray, list[str]]) -> pd.DataFrame:
     """Entries ``dims..., line, cents`` summed per cell and line: each amount in the cell its loan sits in.
 
     Opening, write-offs, derecognition and the transfer out sit in the prior cell; the rest
-    in the current cell. The loan-level entries are kept as integer codes (each dimension
-    factorised once over both sides) and summed in exact int64 before any text is attached:
-    a row of text per loan and line cost seconds to build on a large book.
+    in the current cell. Each loan's cell is one integer (its dimensions' codes in mixed
+    radix), so every line is one exact int64 sum per cell over the loans' codes; a cell and
+    line appears when any loan the line applies to sits in that cell (its amount may be 0).
+    ``transfer`` is each loan's transfer line (-1: it stays in its cell) and the lines' names.
     """
-    side_codes: dict[str, dict[str, np.ndarray]] = {}
-    dim_names: dict[str, np.ndarray] = {}
-    for d in dims:
-        prior, current = bridge[d + "_prior"].to_numpy(dtype=object), bridge[d].to_numpy(dtype=object)
-        codes, names = pd.factorize(np.concatenate([prior, current]), use_na_sentinel=False)
-        side_codes[d] = {"prior": codes[:len(prior)], "current": codes[len(prior):]}
-        dim_names[d] = np.asarray(names, dtype=object)
-    line_names: list[str] = []
-    parts: list[tuple[np.ndarray, str, np.ndarray, np.ndarray]] = []
+    sizes = [len(bridge.names(d)) for d in dims]
+    n_cells = int(np.prod(sizes))
+    outside = n_cells  # the cell of a loan not in that run
 
-    def add(mask: np.ndarray, side: str, line: str | np.ndarray, values: np.ndarray) -> None:
-        if isinstance(line, np.ndarray):
-            codes, names = pd.factorize(line[mask])
-            line_codes = np.asarray(codes, dtype=np.int64) + len(line_names)
-            line_names.extend(str(n) for n in names)
-        else:
-            line_codes = np.full(int(mask.sum()), len(line_names), dtype=np.int64)
-            line_names.append(line)
-        parts.append((mask, side, line_codes, values[mask]))
+    def cells(side: str) -> np.ndarray:
+        cell = np.zeros(len(bridge), dtype=np.int64)
+        missing = np.zeros(len(bridge), dtype=bool)
+        for d, size in zip(dims, sizes):
+            codes = bridge.codes(d, side)
+            cell = cell * size + codes
+            missing |= codes < 0
+        return np.where(missing, outside, cell)
 
-    in_p, in_c = bridge["in_prior"].to_numpy(), bridge["in_current"].to_numpy()
-    col = lambda name: bridge[prefix + name].to_numpy(dtype=np.int64)  # noqa: E731
-    add(in_p, "prior", "opening", col("opening"))
-    add(in_c & ~in_p, "current", "new", col("new"))
-    if prefix + "pcd_gross_up" in bridge.columns:
-        add(in_c & ~in_p, "current", "pcd_gross_up", col("pcd_gross_up"))
-    add(in_p & ~in_c, "prior", "derecognised", col("derecognised"))
-    add(in_p, "prior", "written_off", col("written_off"))
-    moved = transfer_line != ""
-    add(moved, "prior", transfer_line, -col("transfer"))
-    add(moved, "current", transfer_line, col("transfer"))
-    for line in body:
-        add(in_c, "current", line, col(line))
-    add(in_c, "current", "closing", col("closing"))
-    # each entry's cell and line as one int64 key (mixed radix); every add() numbered its lines
-    # afresh, so no key is shared between parts, and the cells come out in order of first
-    # appearance, part after part (the order a group-by of the entries without sorting gives)
-    radix = [len(dim_names[d]) for d in dims] + [len(line_names)]
-    found: list[np.ndarray] = []
-    sums: list[np.ndarray] = []
-    for mask, side, line_codes, values in parts:
-        key = np.ravel_multi_index([*(side_codes[d][side][mask] for d in dims), line_codes], radix)
-        codes, keys = pd.factorize(key)
-        order = np.argsort(codes, kind="stable")
-        starts = np.flatnonzero(np.r_[True, np.diff(codes[order]) != 0])
-        found.append(np.asarray(keys, dtype=np.int64))
-        sums.append(np.add.reduceat(values[order], starts) if len(order) else np.zeros(0, dtype=np.int64))
-    key = np.concatenate(found) if found else np.zeros(0, dtype=np.int64)
-    *cells, line = np.unravel_index(key, radix)
-    out = {d: dim_names[d][cell] for d, cell in zip(dims, cells)}
-    out["line"] = np.asarray(line_names, dtype=object)[line]
-    out["cents"] = (np.concatenate(sums) if sums else np.zeros(0)).astype(np.int64)  # exact: int64 sums
+    cell = {"prior": cells("prior"), "current": cells("current")}
+    rows: list[tuple[np.ndarray, str, np.ndarray]] = []
+
+    def add(mask: np.ndarray, side: str, lines: tuple[str, ...]) -> None:
+        where = np.where(mask, cell[side], outside)
+        present = np.flatnonzero(np.bincount(where, minlength=outside + 1)[:outside])
+        for line in lines:
+            # every amount is 0 where its line does not apply (Bridge), so a sum over all loans is exact
+            sums = _sums(cell[side], bridge.amounts[prefix + line], outside + 1)
+            rows.append((present, line, sums[present]))
+
+    in_p, in_c = bridge.in_prior, bridge.in_current
+    add(in_p, "prior", ("opening", "written_off"))
+    new = in_c & ~in_p
+    add(new, "current", ("new", "pcd_gross_up") if prefix + "pcd_gross_up" in bridge.amounts else ("new",))
+    add(in_p & ~in_c, "prior", ("derecognised",))
+    line_codes, line_names = transfer
+    moved = np.flatnonzero(line_codes >= 0)
+    amount = bridge.amounts[prefix + "transfer"][moved]
+    for side, sign in (("prior", -1), ("current", 1)):
+        key = cell[side][moved] * len(line_names) + line_codes[moved]
+        size = (outside + 1) * len(line_names)
+        present = np.flatnonzero(np.bincount(key, minlength=size))
+        sums = _sums(key, sign * amount, size)[present]
+        for code, name in enumerate(line_names):
+            pick = present % len(line_names) == code
+            rows.append((present[pick] // len(line_names), name, sums[pick]))
+    add(in_c, "current", (*body, "closing"))
+    found = np.concatenate([r[0] for r in rows]) if rows else np.zeros(0, dtype=np.int64)
+    out = {}
+    for d, codes in zip(dims, np.unravel_index(found, sizes) if n_cells else [found] * len(dims)):
+        out[d] = np.asarray(bridge.names(d), dtype=object)[codes]
+    out["line"] = np.repeat(np.array([r[1] for r in rows], dtype=object), [len(r[0]) for r in rows])
+    out["cents"] = np.concatenate([r[2] for r in rows]).astype(np.int64) if rows else np.zeros(0, dtype=np.int64)
     return pd.DataFrame(out)
 
 
-def _transfer_lines(bridge: pd.DataFrame, dims: tuple[str, ...], class_dim: str | None) -> np.ndarray:
-    """Per loan, the transfer line it moves on ('' when it stays in its cell)."""
-    cont = (bridge["in_prior"] & bridge["in_current"]).to_numpy()
-    line = np.full(len(bridge), "", dtype=object)
+def _sums(codes: np.ndarray, values: np.ndarray, size: int) -> np.ndarray:
+    """Exact int64 sums of ``values`` per code 0..size-1."""
+    out = np.zeros(size, dtype=np.int64)
+    np.add.at(out, codes, values)
+    return out
+
+
+def _transfer_lines(bridge: Bridge, dims: tuple[str, ...], class_dim: str | None) -> tuple[np.ndarray, list[str]]:
+    """Per loan, the code of the transfer line it moves on (-1 when it stays in its cell), and the lines' names."""
+    cont = bridge.in_prior & bridge.in_current
+    line = np.full(len(bridge), -1, dtype=np.int64)
+    names = []
     if class_dim is not None and class_dim in dims:
-        changed = cont & (bridge[class_dim + "_prior"].to_numpy(dtype=object) != bridge[class_dim].to_numpy(dtype=object))
-        # one label per distinct class, not per loan
-        codes, kinds = pd.factorize(bridge[class_dim].to_numpy(dtype=object))
-        labels = np.array(["transfer_to_" + _slug(str(k)) for k in kinds] + [""], dtype=object)
-        dest = labels[codes]  # code -1 (no class: not in the current run) takes the last label, ""
-        line = np.where(changed, dest, line)
+        # one line per class, never a label per loan: the class it moves into
+        changed = cont & (bridge.class_prior != bridge.klass)
+        line = np.where(changed, bridge.klass, line)
+        names = ["transfer_to_" + _slug(str(k)) for k in bridge.classes]
     if "segment" in dims:
-        seg_changed = cont & (bridge["segment_prior"].to_numpy(dtype=object) != bridge["segment"].to_numpy(dtype=object))
-        line = np.where(seg_changed & (line == ""), "change_of_segment", line)
-    return line
+        seg_changed = cont & (bridge.segment_prior != bridge.segment)
+        line = np.where(seg_changed & (line < 0), len(names), line)
+        names = [*names, "change_of_segment"]
+    return line, names
 
 
 def _label(line: str, classes: Mapping[str, str]) -> str:
@@ -226,7 +233,17 @@ def _check_long(detail: pd.DataFrame, order: list[str], what: str) -> None:
 # --------------------------------------------------------------------------------------
 
 
-def rollforward(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame:
+def _by_segment(bridge: Bridge, codes: np.ndarray, mask: np.ndarray, values: np.ndarray) -> pd.Series:
+    """Sums per segment (labels as the index) of the loans in ``mask``: a segment appears when any
+    of them sits in it."""
+    names = bridge.segments
+    where = np.where(mask, codes, len(names))
+    present = np.flatnonzero(np.bincount(where, minlength=len(names) + 1)[:len(names)])
+    sums = _sums(where, np.where(mask, values, 0), len(names) + 1)
+    return pd.Series(sums[present], index=pd.Index([names[i] for i in present], dtype=object), dtype=np.int64)
+
+
+def rollforward(bridge: Bridge, framework: Framework) -> pd.DataFrame:
     """Per segment: beginning + initial PCD allowance + provision + charge-offs + recoveries = ending.
 
     ASC 326-20-50-13's roll-forward. Charge-offs are the gross charge-offs under CECL and
@@ -235,23 +252,18 @@ def rollforward(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame:
     the balancing figure: the period's charge to profit or loss through the allowance.
     """
     rules = LEDGER[framework]
-
-    def by(seg_col: str, mask: np.ndarray, values: np.ndarray) -> pd.Series:
-        # grouped by the labels as an array: a Series indexed by a million labels would build a
-        # hash table of its index to check the grouping key first (0.4 s against 0.1 s)
-        return pd.Series(values[mask]).groupby(bridge[seg_col].to_numpy(dtype=object)[mask]).sum()
-
-    col = lambda name: bridge[name].to_numpy(dtype=np.int64)  # noqa: E731
-    in_p, in_c = bridge["in_prior"].to_numpy(), bridge["in_current"].to_numpy()
+    col = bridge.amounts.__getitem__
+    in_p, in_c = bridge.in_prior, bridge.in_current
     everyone = np.ones(len(bridge), dtype=bool)
-    begin = by("segment_prior", in_p, col("opening"))
-    end = by("segment", in_c, col("closing"))
-    initial = by("segment", in_c, col("pcd_gross_up")) if "pcd_gross_up" in bridge else pd.Series(dtype=np.int64)
+    begin = _by_segment(bridge, bridge.segment_prior, in_p, col("opening"))
+    end = _by_segment(bridge, bridge.segment, in_c, col("closing"))
+    initial = _by_segment(bridge, bridge.segment, in_c, col("pcd_gross_up"))
     if rules.charge_offs == "gross":
-        chg = -by("segment_any", everyone, col("gross_charge_off"))
+        chg = -_by_segment(bridge, bridge.segment_any, everyone, col("gross_charge_off"))
     else:
-        chg = by("segment_prior", in_p, col("written_off"))
-    rec = by("segment_any", everyone, col("recoveries")) if rules.recoveries_to_allowance else pd.Series(dtype=np.int64)
+        chg = _by_segment(bridge, bridge.segment_prior, in_p, col("written_off"))
+    rec = (_by_segment(bridge, bridge.segment_any, everyone, col("recoveries")) if rules.recoveries_to_allowance
+           else pd.Series(dtype=np.int64))
     segments = sorted(set(begin.index) | set(end.index) | set(chg.index) | set(rec.index), key=str)
     roll = pd.DataFrame({"beginning": begin, "initial_allowance_pcd": initial, "charge_offs": chg,
                          "recoveries": rec, "ending": end}).reindex(segments)
@@ -262,7 +274,7 @@ def rollforward(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame:
     return (roll[list(_ROLLFORWARD)] / 100.0).rename_axis("segment").reset_index()
 
 
-def write_off_bridge(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame:
+def write_off_bridge(bridge: Bridge, framework: Framework) -> pd.DataFrame:
     """From the allowance written off (IFRS 7 35H) to the gross charge-offs and recoveries.
 
     Per segment and ``Total``: ``allowance_written_off`` (the allowance used),
@@ -273,17 +285,17 @@ def write_off_bridge(bridge: pd.DataFrame, framework: Framework) -> pd.DataFrame
     charge-offs - recoveries, the same under both frameworks however it is presented.
     """
     rules = LEDGER[framework]
-    col = lambda name: bridge[name].to_numpy(dtype=np.int64)  # noqa: E731
-    seg = bridge["segment_any"].to_numpy(dtype=object)
-    frame = pd.DataFrame({
-        "segment": seg,
+    col = bridge.amounts.__getitem__
+    everyone = np.ones(len(bridge), dtype=bool)
+    by = {
         "allowance_written_off": -col("written_off"),
         "gross_charge_offs": col("gross_charge_off"),
         "recoveries": col("recoveries"),
-        "change": np.where(bridge["in_current"], col("closing"), 0) - np.where(bridge["in_prior"], col("opening"), 0)
+        "change": np.where(bridge.in_current, col("closing"), 0) - np.where(bridge.in_prior, col("opening"), 0)
         - col("pcd_gross_up"),
-    })
-    sums = frame.groupby("segment", sort=True).sum()
+    }
+    sums = pd.DataFrame({k: _by_segment(bridge, bridge.segment_any, everyone, v) for k, v in by.items()})
+    sums = sums.sort_index().astype(np.int64) if len(sums) else sums.astype(np.int64)
     sums.loc["Total"] = sums.sum(axis=0)
     sums["charged_off_beyond_allowance"] = sums["gross_charge_offs"] - sums["allowance_written_off"]
     sums["credit_loss_expense"] = sums["change"] + sums["gross_charge_offs"] - sums["recoveries"]

@@ -144,6 +144,47 @@ def _write_slices(path: Path, part: Callable[[int], pa.Table], rows: int) -> Non
                 pending.append(pool.submit(text, following))
 
 
+def _movement_loans_csv(movements, path: Path) -> None:
+    """Every framework's movement loan by loan (``framework`` first), one framework after another.
+
+    Each slice is made from the movement's codes and cents as it is written (Movement.loan_table):
+    a million loans' table for each framework, and their concatenation, are never held whole.
+    The bytes are those :func:`_csv` writes for the concatenated tables."""
+    moves = list(movements)
+    if not moves:
+        raise ValueError("no movement to write")
+    sizes = [m.loan_count for m in moves]
+
+    def framed(m, start: int, stop: int) -> pd.DataFrame:
+        table = m.loan_table(start, stop)
+        table.insert(0, "framework", pd.array([m.framework] * len(table), dtype="str"))
+        return table
+
+    def rows(start: int, stop: int) -> pd.DataFrame:
+        pieces, offset = [], 0
+        for m, n in zip(moves, sizes):
+            lo, hi = max(start - offset, 0), min(stop - offset, n)
+            if lo < hi:
+                pieces.append(framed(m, lo, hi))
+            offset += n
+        if not pieces:
+            return framed(moves[0], 0, 0)
+        return pieces[0] if len(pieces) == 1 else pd.concat(pieces, ignore_index=True)
+
+    total = sum(sizes)
+    schema = _arrow_schema(rows(0, min(total, 1)), []) if total else None
+    if schema is None:
+        _csv(rows(0, total), path)  # an empty movement: what _csv makes of it
+        return
+
+    def part(start: int) -> pa.Table:
+        frame = rows(start, min(start + _CSV_SLICE_ROWS, total))
+        return neutralise_table(pa.Table.from_pandas(frame, schema=schema, preserve_index=False)
+                                .replace_schema_metadata(None))
+
+    _write_slices(path, part, total)
+
+
 def write_table_csv(path: Path, frame: pd.DataFrame) -> Path:
     """Write one table to ``path`` as CSV (text neutralised), through a temporary file, so a
     failure never leaves half a file."""
@@ -207,8 +248,7 @@ def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[
     if report.movements:
         _csv(pd.concat([m.to_long() for m in report.movements], ignore_index=True), folder / "movement.csv")
         done("movement.csv")
-        loans = [m.loans.assign(framework=m.framework)[["framework", *m.loans.columns]] for m in report.movements]
-        _csv(pd.concat(loans, ignore_index=True), folder / "movement_loans.csv")
+        _movement_loans_csv(report.movements, folder / "movement_loans.csv")
         done("movement_loans.csv")
     if report.what_if_parts is not None:
         _csv(report.what_if_parts.summary, folder / "what_if.csv")
@@ -319,8 +359,7 @@ def write_movement(out_dir: Path, movements) -> list[Path]:
         moves = list(movements)
         paths = [out_dir / "movement.csv", out_dir / "movement_loans.csv", out_dir / "movement_not_isolated.csv"]
         _csv(pd.concat([m.to_long() for m in moves], ignore_index=True), paths[0])
-        _csv(pd.concat([m.loans.assign(framework=m.framework)[["framework", *m.loans.columns]] for m in moves],
-                       ignore_index=True), paths[1])
+        _movement_loans_csv(moves, paths[1])
         _csv(pd.DataFrame([{"framework": m.framework, "not_isolated": text} for m in moves for text in m.not_isolated],
                           columns=["framework", "not_isolated"]), paths[2])
     except OSError as err:
