@@ -192,13 +192,20 @@ class _Prior:
     source: str
 
 
-def _prior(prior: str | os.PathLike | Result, role: str = "prior") -> tuple[_Prior, list]:
+def _prior(prior: str | os.PathLike | Result, role: str = "prior", *,
+           vintages: bool = False, recorded: bool = True) -> tuple[_Prior, list]:
+    """A finished run's loans and record: from a folder, only the loans.csv columns the movement
+    reads (and, with ``vintages``, those that date a write-off for the vintage disclosure), and
+    (``recorded``) the two files' records for the run record, each file hashed."""
     if isinstance(prior, Result):
         return _Prior(prior.loans, prior.record, f"the {role} result"), []
+    from allowance.reconcile import movement_columns
+
     folder = Path(prior)
-    previous = intake.read_prior_run(folder, role)
+    previous = intake.read_prior_run(folder, role, columns=movement_columns(vintages=vintages))
     return _Prior(previous.loans, previous.record, str(folder / "loans.csv")), [
-        intake.file_record(folder / "loans.csv", "prior"), intake.file_record(folder / "run.json", "prior")]
+        intake.file_record(folder / "loans.csv", "prior"), intake.file_record(folder / "run.json", "prior")
+    ] if recorded else []
 
 
 def _record_as_of(record: Mapping[str, Any] | None) -> date | None:
@@ -388,7 +395,7 @@ def run(
     cos = None
     if prior is not None:
         told("prior", 0, 1)
-        previous, prior_inputs = _prior(prior)
+        previous, prior_inputs = _prior(prior, vintages=charge_offs is not None)
         cos, co_inputs, co_source = _charge_offs(charge_offs)
         inputs += co_inputs + prior_inputs
         at_prior = _rerun_at_prior_assumptions(taken.accepted, config, previous.record,
@@ -573,8 +580,8 @@ def compare(prior: str | os.PathLike | Result, current: str | os.PathLike | Resu
             charge_offs: str | os.PathLike | pd.DataFrame | None = None) -> dict[str, reconcile.Movement]:
     """The allowance movement between two finished runs (output folders or results), per framework."""
     from allowance import reconcile
-    before, _ = _prior(prior)
-    after, _ = _prior(current, "current")
+    before, _ = _prior(prior, recorded=False)  # no run record is written: the files are not hashed
+    after, _ = _prior(current, "current", recorded=False)
     cos, _, _ = _charge_offs(charge_offs)
     frameworks = [fw for fw in _prior_frameworks(after.record) if fw in _prior_frameworks(before.record)]
     return reconcile.compare_runs(before.loans, after.loans, charge_offs=cos, frameworks=frameworks,

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from collections.abc import Collection
 from dataclasses import dataclass
 from datetime import date
 from pathlib import Path
@@ -179,13 +180,16 @@ def read_run_record(path: Path) -> dict:
 
 
 _TEXT_COLUMNS = {n for n, f in FIELDS.items() if f.kind in ("text", "choice")} | {"stage_reason"}
+#: read as text too when only some columns are read (pandas leaves dates as text; Arrow would type them)
+_DATE_COLUMNS = {n for n, f in FIELDS.items() if f.kind == "date"}
 
 
-def read_prior_run(folder: Path, role: str = "prior") -> PriorRun:
+def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] | None = None) -> PriorRun:
     """Read ``loans.csv`` and ``run.json`` from a previous run's output folder.
 
     ``role`` names the folder in messages (``prior``, or ``current`` for the later run of
-    ``allowance compare``).
+    ``allowance compare``). ``columns``: read only those of them the file has (``loan_id``
+    always), typed by Arrow as the file is parsed; None reads every column.
 
     ``loan_id`` and the other text columns are read as text; every numeric column as float64.
 
@@ -206,10 +210,15 @@ def read_prior_run(folder: Path, role: str = "prior") -> PriorRun:
             )
     record = read_run_record(record_path)
     try:
-        header = pd.read_csv(loans_path, nrows=0).columns
-        loans = pd.read_csv(
-            loans_path, dtype={c: "str" for c in header if c in _TEXT_COLUMNS}, keep_default_na=False, na_values=[""]
-        )
+        header = _header(loans_path) if columns is not None else []
+        if "loan_id" in header and len(set(header)) == len(header):
+            loans = _some_columns(loans_path, [c for c in header if c in set(columns) | {"loan_id"}])
+        else:
+            header = pd.read_csv(loans_path, nrows=0).columns
+            loans = pd.read_csv(
+                loans_path, dtype={c: "str" for c in header if c in _TEXT_COLUMNS}, keep_default_na=False,
+                na_values=[""],
+            )
     except (OSError, ValueError, pd.errors.ParserError) as err:
         raise InputFileError(f"cannot be read as CSV ({err})", file=loans_path) from err
     if "loan_id" not in loans.columns:
@@ -219,3 +228,37 @@ def read_prior_run(folder: Path, role: str = "prior") -> PriorRun:
             loans[name] = loans[name].astype(np.float64)
     return PriorRun(loans=loans, record=record)
 
+
+def _header(path: Path) -> list[str]:
+    """The column names of a CSV file as written (Arrow reads its first block)."""
+    import pyarrow.csv as pacsv
+
+    with pacsv.open_csv(path) as reader:
+        return list(reader.schema.names)
+
+
+def _some_columns(path: Path, names: list[str]) -> pd.DataFrame:
+    """Only ``names`` of a loans.csv, parsed and typed by Arrow (on its threads): text stays Arrow
+    text, numbers and flags as Arrow infers them, blanks missing (as pandas reads the whole file).
+    A value that does not fit the type Arrow guessed from the first block leaves every column as
+    text, for the reader of each column to name the bad value."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    text = {c: pa.large_string() for c in names if c in _TEXT_COLUMNS | _DATE_COLUMNS}
+
+    def read(types: dict) -> pa.Table:
+        return pacsv.read_csv(path, convert_options=pacsv.ConvertOptions(
+            include_columns=names, column_types=types, null_values=[""], strings_can_be_null=True,
+            quoted_strings_can_be_null=True, true_values=["true", "True", "TRUE"],
+            false_values=["false", "False", "FALSE"]))
+
+    try:
+        table = read(text)
+    except pa.ArrowInvalid:
+        table = read({c: pa.large_string() for c in names})
+    # a column with no values at all: missing numbers, as pandas reads it
+    for i, field in enumerate(table.schema):
+        if pa.types.is_null(field.type):
+            table = table.set_column(i, field.name, table.column(i).cast(pa.float64()))
+    return table.to_pandas(split_blocks=True, self_destruct=True)
