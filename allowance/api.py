@@ -169,8 +169,10 @@ def _prior_frameworks(record: Mapping) -> list[str]:
 
 
 def _rerun_at_prior_assumptions(tape: pd.DataFrame, config: RunConfig, record: Mapping,
-                                compute: Callable[..., engine.EngineResult]) -> engine.EngineResult | None:
-    """This quarter's tape under last quarter's assumptions: isolates assumption changes."""
+                                compute: Callable[..., pd.DataFrame]) -> pd.DataFrame | None:
+    """This quarter's tape under last quarter's assumptions: isolates assumption changes. Only
+    the modelled ECL per framework is computed (:func:`allowance.engine.modelled`): the
+    movement's remeasurement reads nothing else of it."""
     data = record.get("assumptions")
     if not data:
         return None
@@ -179,7 +181,7 @@ def _rerun_at_prior_assumptions(tape: pd.DataFrame, config: RunConfig, record: M
         data["run"] = {**data["run"], "as_of": config.as_of.isoformat(),
                        "frameworks": [fw for fw in config.frameworks if fw in data["run"]["frameworks"]]}
         prior_config = RunConfig(assumptions=Assumptions.model_validate(data), base_dir=config.base_dir)
-        return compute(tape, prior_config, schedule_sample=0)
+        return compute(tape, prior_config)
     except (AllowanceError, ValueError):
         # pydantic's ValidationError is a ValueError: the prior assumptions no longer validate
         return None
@@ -399,10 +401,11 @@ def run(
         cos, co_inputs, co_source = _charge_offs(charge_offs)
         inputs += co_inputs + prior_inputs
         at_prior = _rerun_at_prior_assumptions(taken.accepted, config, previous.record,
-                                               lambda *a, **k: compute(*a, progress=None, **k))
+                                               lambda frame, config: engine.modelled(frame, config, **{
+                                                   k: v for k, v in options.items() if k != "progress"}))
         movements = reconcile.compare_runs(
             previous.loans, result.loans, charge_offs=cos,
-            current_at_prior_assumptions=None if at_prior is None else at_prior.loans,
+            current_at_prior_assumptions=at_prior,
             frameworks=[fw for fw in config.frameworks if fw in _prior_frameworks(previous.record)],
             sources={"prior": previous.source, "current": "this run", **({"charge_offs": co_source} if co_source else {})},
             prior_as_of=_record_as_of(previous.record), current_as_of=config.as_of,

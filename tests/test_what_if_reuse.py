@@ -147,3 +147,16 @@ def test_the_demo_downside_what_if_reweighted_equals_a_fresh_run():
     assert engine.only_weights_differ(plain, downside)
     both = engine.run(tape, downside, reweighted=[plain], schedule_sample=0)
     _assert_same_run(both.reweighted[0], engine.run(tape, plain, schedule_sample=0))
+
+
+def test_the_modelled_pass_gives_the_full_runs_modelled_figures():
+    # the second pass of a movement (this tape at other assumptions) computes only the modelled
+    # ECL; the reference is the full run's own columns, to the cent, over several chunks (POCI
+    # loans, revolving lines with undrawn limits, loans in default)
+    tape = _book_with_poci()
+    config = engine_config(overlays=_OVERLAYS)
+    full = engine.run(tape, config).loans
+    alone = engine.modelled(tape, config, chunk_size=70)
+    columns = ["loan_id", "ecl_ifrs9_modelled", "ecl_cecl_modelled"]
+    assert alone.columns.tolist() == columns
+    pd.testing.assert_frame_equal(alone, full[columns], check_dtype=False)

@@ -19,6 +19,7 @@ EngineResult  loan results plus the tables the workbook shows
 prepare       build the tables for a tape
 run_chunk     loan results (modelled, unrounded) for a chunk of loans
 run           the whole book: chunks through a map, rounding to cents, overlays, summaries
+modelled      the whole book's modelled ECL per framework alone (a second pass's figures)
 PartResult    a part of a book computed where it was read: its loans and overlays
 run_part      a part of a book: chunks, rounding, its overlays (or its amount overlays' weights)
 overlay_part  a part's overlays once the book's amount overlays are allocated
@@ -40,7 +41,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import cashflows, overlays, scenarios, staging
-from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, run_chunk
+from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, modelled_chunk, run_chunk
 from allowance.engine.tables import Prepared, SegmentTable, prepare, segment_table, tape_months
 from allowance.engine.views import (
     loan_schedule,
@@ -56,7 +57,7 @@ from allowance.schemas import LoanRecord, RunConfig
 __all__ = [
     "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
     "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
-    "max_age", "only_weights_differ", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
+    "max_age", "modelled", "only_weights_differ", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
@@ -240,6 +241,23 @@ def run(
                                    main.loans, prep, schedule_sample),
         reweighted=tuple(dataclasses.replace(r, **tables) for r in rest),
     )
+
+
+def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_SIZE,
+             map: Map = builtins.map) -> pd.DataFrame:
+    """Each loan's modelled ECL per framework, rounded to cents: ``loan_id,
+    ecl_<framework>_modelled`` in tape order, the figures :func:`run` gives those columns.
+
+    Nothing else is made: no drawn and undrawn split, overlays, findings, summaries or book
+    tables. What the movement's remeasurement needs from this quarter's tape at last
+    quarter's assumptions (the change in the modelled allowance that the assumptions made).
+    """
+    prep = prepare(config, tape_months(tape, config), max_age(tape, config))
+    chunks = list(_chunks(tape, chunk_size))
+    frames = [part.assign(**{c: np.round(part[c].to_numpy(dtype=np.float64), CENT_DECIMALS)
+                             for c in part.columns if c != "loan_id"})
+              for part in map(functools.partial(modelled_chunk, prep=prep), chunks)]
+    return pd.concat(frames, ignore_index=True)
 
 
 @dataclass(frozen=True)

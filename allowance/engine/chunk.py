@@ -12,6 +12,7 @@ loan_terms   remaining term, seasoning, schedule inputs, curve rows, the loan's 
 ChunkInputs  what the loop reads for a chunk (chunk_inputs builds it)
 ChunkResult  the modelled (unrounded) loan results and the engine's findings for a chunk
 run_chunk    a chunk of loans -> ChunkResult
+modelled_chunk  a chunk of loans -> its modelled ECL per framework alone
 
 Purchased or originated credit-impaired loans (POCI / PCD) take two more passes of the loop,
 at their PD at purchase, today (R) and at the purchase date (Q), so that their IFRS 9
@@ -38,7 +39,7 @@ from allowance.engine.tables import (
 )
 from allowance.exceptions import AssumptionsError
 
-__all__ = ["ChunkInputs", "ChunkResult", "LoanTerms", "chunk_inputs", "loan_terms", "run_chunk"]
+__all__ = ["ChunkInputs", "ChunkResult", "LoanTerms", "chunk_inputs", "loan_terms", "modelled_chunk", "run_chunk"]
 
 
 @dataclass(frozen=True)
@@ -694,15 +695,8 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
     """
     c = chunk_inputs(chunk, prep)
     terms, stages, fw = c.terms, c.stages, c.frameworks
-    k = expected_losses(c.kernel)
     weights = (prep.weights, *reweighted)
-    purchases = _purchase_views(chunk, terms, fw, c.kernel, prep, weights) or (None,) * len(weights)
-    # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
-    for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
-        k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
-        k.pd_12m[rows] = k.pd_lifetime[rows] = np.nan
-        k.gross_12m[rows] = k.gross_lifetime[rows] = np.nan  # a loss rate is net of recoveries
-        k.lgd[rows] = np.nan
+    k, purchases = _losses(chunk, prep, c, weights)
     drawn = _drawn_only(chunk, prep, c, k)
     loans = [_loan_results(chunk, terms, stages, k, prep if i == 0 else dataclasses.replace(prep, weights=w),
                            purchase, fw, drawn) for i, (w, purchase) in enumerate(zip(weights, purchases))]
@@ -712,6 +706,36 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
                             _refinance_findings(chunk, terms)], ignore_index=True),
         reweighted=tuple(loans[1:]),
     )
+
+
+def _losses(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs,
+            weights: tuple[np.ndarray, ...]) -> tuple[KernelResult, tuple[_Purchase | None, ...]]:
+    """The loop's per-scenario losses for a chunk (loss-rate segments through their own loop),
+    and the POCI loans' purchase views under each of ``weights``."""
+    terms, fw = c.terms, c.frameworks
+    k = expected_losses(c.kernel)
+    purchases = _purchase_views(chunk, terms, fw, c.kernel, prep, weights) or (None,) * len(weights)
+    # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
+    for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
+        k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
+        k.pd_12m[rows] = k.pd_lifetime[rows] = np.nan
+        k.gross_12m[rows] = k.gross_lifetime[rows] = np.nan  # a loss rate is net of recoveries
+        k.lgd[rows] = np.nan
+    return k, purchases
+
+
+def modelled_chunk(chunk: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
+    """A chunk's modelled ECL per framework, unrounded: ``loan_id, ecl_<framework>_modelled``.
+
+    The figures :func:`run_chunk` gives, from the same loop and stages, without what only the
+    loan detail needs: the drawn-only pass (the undrawn split), the findings and the other
+    columns. What a second pass at other assumptions needs for the movement's remeasurement.
+    """
+    c = chunk_inputs(chunk, prep)
+    k, (purchase,) = _losses(chunk, prep, c, (prep.weights,))
+    # the drawn-only figures are the whole ECL's here: the undrawn split, not computed, is not kept
+    loans = _loan_results(chunk, c.terms, c.stages, k, prep, purchase, c.frameworks, _DrawnOnly(k.ecl_12m, k.ecl_lifetime))
+    return loans[["loan_id", *(f"ecl_{fw}_modelled" for fw in prep.frameworks)]]
 
 
 @dataclass(frozen=True)
