@@ -149,14 +149,23 @@ def test_the_demo_downside_what_if_reweighted_equals_a_fresh_run():
     _assert_same_run(both.reweighted[0], engine.run(tape, plain, schedule_sample=0))
 
 
-def test_the_modelled_pass_gives_the_full_runs_modelled_figures():
+@pytest.mark.parametrize("auto", [None, {"annual_loss_rate": 0.03, "lgd": 0.4, "cpr": 0.1}],
+                         ids=["pd", "loss-rate"])
+def test_the_modelled_pass_gives_the_full_runs_modelled_figures(auto):
     # the second pass of a movement (this tape at other assumptions) computes only the modelled
     # ECL; the reference is the full run's own columns, to the cent, over several chunks (POCI
-    # loans, revolving lines with undrawn limits, loans in default)
+    # loans, revolving lines with undrawn limits, loans in default, loans assessed one by one,
+    # and a segment on a loss rate)
     tape = _book_with_poci()
-    config = engine_config(overlays=_OVERLAYS)
+    if auto is not None:
+        tape = tape[~tape["credit_impaired_at_purchase"].astype(bool)].reset_index(drop=True)
+        tape["original_balance"] = (tape["balance"] * 1.1).round(2)
+    tape.loc[[5, 17], "individual_ecl"] = [1234.5, 0.0]
+    segments = engine_config().assumptions.model_dump(mode="json", exclude_none=True)["segments"]
+    config = engine_config(overlays=_OVERLAYS, segments={**segments, **({"auto": auto} if auto else {})})
     full = engine.run(tape, config).loans
     alone = engine.modelled(tape, config, chunk_size=70)
     columns = ["loan_id", "ecl_ifrs9_modelled", "ecl_cecl_modelled"]
     assert alone.columns.tolist() == columns
-    pd.testing.assert_frame_equal(alone, full[columns], check_dtype=False)
+    assert (full.loc[[5, 17], "ecl_cecl_modelled"] == [1234.5, 0.0]).all()
+    pd.testing.assert_frame_equal(alone, full[columns])

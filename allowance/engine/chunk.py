@@ -556,7 +556,7 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
     for f, rules in enumerate(prep.rules):
         # the purchase-date lifetime ECL carried to today (NaN for loans not POCI)
         carried = purchase.carried[:, f] if purchase is not None else none
-        per_scenario = rules.allowance(k.ecl_12m[:, f, :], k.ecl_lifetime[:, f, :], stage, poci_flag, carried)
+        per_scenario, one_by_one = _allowance(k, f, rules, stage, poci_flag, carried, replaced[f])
         # the expected gross credit loss over the same horizon (LGD = 1: before recoveries);
         # the POCI shift is an allowance convention, not a loss, so it does not apply
         gross = rules.allowance(k.gross_12m[:, f, :], k.gross_lifetime[:, f, :], stage, poci_flag, none)
@@ -564,8 +564,6 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
         # stands to lose its amortised cost before the collateral, an assessed one at least its
         # assessment
         amount = replaced[f][:, None]
-        one_by_one = ~np.isnan(amount)
-        per_scenario = np.where(one_by_one, amount, per_scenario)
         dependent = one_by_one & ~assessed
         gross = np.where(dependent, terms.balance[:, None], np.where(one_by_one, np.fmax(gross, amount), gross))
         if f == primary:
@@ -593,6 +591,16 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
         out["pcd_gross_up"] = gross_up
     out["modified"] = _flag(chunk, "modified")
     return pd.DataFrame(out, index=chunk.index)
+
+
+def _allowance(k: KernelResult, f: int, rules, stage: np.ndarray, poci_flag: np.ndarray, carried: np.ndarray,
+               replaced: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Framework ``f``'s allowance per loan and scenario ``[n, S]`` as its rules measure it from
+    the loop's 12-month and lifetime ECL (the POCI loans' against their carried benchmark), a
+    loan measured one by one taking its amount in every scenario; and where that is so ``[n, 1]``."""
+    per_scenario = rules.allowance(k.ecl_12m[:, f, :], k.ecl_lifetime[:, f, :], stage, poci_flag, carried)
+    one_by_one = ~np.isnan(replaced[:, None])
+    return np.where(one_by_one, replaced[:, None], per_scenario), one_by_one
 
 
 def _iso_dates(dates: pd.Series) -> pd.Series:
@@ -733,9 +741,18 @@ def modelled_chunk(chunk: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
     """
     c = chunk_inputs(chunk, prep)
     k, (purchase,) = _losses(chunk, prep, c, (prep.weights,))
-    # the drawn-only figures are the whole ECL's here: the undrawn split, not computed, is not kept
-    loans = _loan_results(chunk, c.terms, c.stages, k, prep, purchase, c.frameworks, _DrawnOnly(k.ecl_12m, k.ecl_lifetime))
-    return loans[["loan_id", *(f"ecl_{fw}_modelled" for fw in prep.frameworks)]]
+    n = len(chunk)
+    if c.stages is not None:  # as _loan_results reads them
+        stage, poci_flag = c.stages["stage"].to_numpy(), c.stages["poci"].to_numpy()
+    else:
+        stage, poci_flag = np.ones(n, dtype=np.int64), chunk["credit_impaired_at_purchase"].to_numpy(bool)
+    _, replaced = _individual_measurement(chunk, c.terms, prep)
+    out: dict[str, object] = {"loan_id": chunk["loan_id"].array}
+    for f, rules in enumerate(prep.rules):
+        carried = purchase.carried[:, f] if purchase is not None else np.full(n, np.nan)
+        per_scenario, _ = _allowance(k, f, rules, stage, poci_flag, carried, replaced[f])
+        out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, prep.weights)
+    return pd.DataFrame(out, index=chunk.index)
 
 
 @dataclass(frozen=True)
