@@ -401,8 +401,9 @@ def run(
         cos, co_inputs, co_source = _charge_offs(charge_offs)
         inputs += co_inputs + prior_inputs
         at_prior = _rerun_at_prior_assumptions(taken.accepted, config, previous.record,
-                                               lambda frame, config: engine.modelled(frame, config, **{
-                                                   k: v for k, v in options.items() if k != "progress"}))
+                                               lambda frame, at: engine.modelled(
+                                                   frame, at, stages_from=(config, result.loans),
+                                                   **{k: v for k, v in options.items() if k != "progress"}))
         movements = reconcile.compare_runs(
             previous.loans, result.loans, charge_offs=cos,
             current_at_prior_assumptions=at_prior,

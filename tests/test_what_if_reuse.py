@@ -169,3 +169,33 @@ def test_the_modelled_pass_gives_the_full_runs_modelled_figures(auto):
     assert alone.columns.tolist() == columns
     assert (full.loc[[5, 17], "ecl_cecl_modelled"] == [1234.5, 0.0]).all()
     pd.testing.assert_frame_equal(alone, full[columns])
+
+
+def test_the_modelled_pass_takes_the_runs_stages_only_where_they_are_staged_alike(monkeypatch):
+    # last quarter's assumptions with other PDs, LGDs and scenario weights but the same [ifrs9]
+    # rules stage the tape as this run did (the stages read the tape, the rules and the
+    # low-credit-risk tests, IFRS 9 5.5.9-5.5.11): they are taken from this run's loans, and
+    # the figures equal a pass that assigns them itself; a changed backstop is staged afresh
+    from allowance import staging
+
+    tape = _book_with_poci()
+    now = engine_config()
+    run = engine.run(tape, now).loans
+    segments = now.assumptions.model_dump(mode="json", exclude_none=True)["segments"]
+    before = engine_config(segments={**segments, "auto": {"pd_12m": 0.03, "lgd": 0.45, "cpr": 0.1}},
+                           scenarios={"base": {"weight": 0.5, "pd_multiplier": [1.0, 1.0, 1.0]},
+                                      "down": {"weight": 0.5, "pd_multiplier": [2.5, 1.5, 1.2]}})
+    stricter = engine_config(ifrs9={"sicr_pd_ratio": 2.0, "sicr_pd_measure": "12_month", "sicr_backstop_dpd": 10})
+    assert engine.same_stages(now, before) and not engine.same_stages(now, stricter)
+    assert set(run["stage"]) == {1, 2, 3}
+    fresh = {name: engine.modelled(tape, c, chunk_size=70) for name, c in (("before", before), ("stricter", stricter))}
+    calls = []
+    real = staging.assign_stages
+    monkeypatch.setattr(staging, "assign_stages", lambda *a, **k: calls.append(1) or real(*a, **k))
+    reused = engine.modelled(tape, before, chunk_size=70, stages_from=(now, run))
+    assert not calls
+    pd.testing.assert_frame_equal(reused, fresh["before"])
+    again = engine.modelled(tape, stricter, chunk_size=70, stages_from=(now, run))
+    assert len(calls) == 4  # one per chunk
+    pd.testing.assert_frame_equal(again, fresh["stricter"])
+    assert not again.equals(engine.modelled(tape, stricter, stages_from=(stricter, run)))  # other stages, other figures

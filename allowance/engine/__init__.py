@@ -57,7 +57,7 @@ from allowance.schemas import LoanRecord, RunConfig
 __all__ = [
     "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
     "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
-    "max_age", "modelled", "only_weights_differ", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
+    "max_age", "modelled", "only_weights_differ", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
@@ -243,20 +243,50 @@ def run(
     )
 
 
-def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_SIZE,
-             map: Map = builtins.map) -> pd.DataFrame:
+def same_stages(one: RunConfig, other: RunConfig) -> bool:
+    """Whether two configurations stage a tape alike: the inputs of
+    :func:`allowance.staging.assign_stages` besides the tape are the same (the ``[ifrs9]``
+    rules, the segments and each one's low-credit-risk tests, and where the PD-ratio test is
+    on lifetime PDs the behavioural life that sets a line's remaining life; IFRS 9 5.5.9-5.5.11,
+    B5.5.13), at the same as-of date. The scenario paths and weights, the PD curves and the
+    LGDs do not enter."""
+    a, b = one.assumptions, other.assumptions
+    lifetime = a.ifrs9 is not None and a.ifrs9.sicr_pd_measure == "lifetime"
+
+    def staging_inputs(assumptions) -> dict:
+        return {name: (s.low_credit_risk_pd, s.low_credit_risk_grades, s.behavioural_life_months if lifetime else None)
+                for name, s in assumptions.segments.items()}
+
+    return (a.ifrs9 is not None and a.ifrs9 == b.ifrs9 and one.as_of == other.as_of
+            and staging_inputs(a) == staging_inputs(b))
+
+
+def _modelled_part(part: tuple[pd.DataFrame, pd.DataFrame | None], prep: Prepared) -> pd.DataFrame:
+    return modelled_chunk(part[0], prep, part[1])
+
+
+def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_SIZE, map: Map = builtins.map,
+             stages_from: tuple[RunConfig, pd.DataFrame] | None = None) -> pd.DataFrame:
     """Each loan's modelled ECL per framework, rounded to cents: ``loan_id,
     ecl_<framework>_modelled`` in tape order, the figures :func:`run` gives those columns.
 
     Nothing else is made: no drawn and undrawn split, overlays, findings, summaries or book
     tables. What the movement's remeasurement needs from this quarter's tape at last
     quarter's assumptions (the change in the modelled allowance that the assumptions made).
+    ``stages_from``: a configuration and the loans (``stage``, ``poci`` in tape order) a run of
+    this tape under it gave; where it stages alike (:func:`same_stages`), the stages are
+    taken from those loans instead of being assigned again.
     """
     prep = prepare(config, tape_months(tape, config), max_age(tape, config))
     chunks = list(_chunks(tape, chunk_size))
+    given = [None] * len(chunks)
+    if stages_from is not None and prep.staged is not None and same_stages(stages_from[0], config):
+        known = stages_from[1][["stage", "poci"]]
+        given = [known.iloc[i * chunk_size: i * chunk_size + len(chunk)].set_axis(chunk.index)
+                 for i, chunk in enumerate(chunks)]
     frames = [part.assign(**{c: np.round(part[c].to_numpy(dtype=np.float64), CENT_DECIMALS)
                              for c in part.columns if c != "loan_id"})
-              for part in map(functools.partial(modelled_chunk, prep=prep), chunks)]
+              for part in map(functools.partial(_modelled_part, prep=prep), zip(chunks, given))]
     return pd.concat(frames, ignore_index=True)
 
 

@@ -477,9 +477,10 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     io_left = np.where(code == cashflows.INTEREST_ONLY, np.where(np.isnan(io_months), months, io_months),
                        np.where(code == cashflows.HELOC, draw, 0))
     curve = fw.curve[:, rows].copy()
+    segment = chunk["segment"].iloc[rows].to_numpy()  # the POCI loans' only: not the chunk's text as objects
     for name, ts in prep.structures.items():  # an age-indexed curve starts again at age 0
         if ts.source == "pd_curve_by_age":
-            curve[:, chunk["segment"].to_numpy()[rows] == name] = prep.key_offset[name]
+            curve[:, segment == name] = prep.key_offset[name]
     revolving = code == cashflows.REVOLVING
     q = expected_losses(_subset(
         inputs, rows, balance=balance, months_left=np.where(revolving, terms.remaining[rows], months),
@@ -675,13 +676,15 @@ class ChunkInputs:
     kernel: KernelInputs
 
 
-def chunk_inputs(chunk: pd.DataFrame, prep: Prepared) -> ChunkInputs:
+def chunk_inputs(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | None = None) -> ChunkInputs:
     """The loop's inputs for a chunk of loans, exactly as :func:`run_chunk` builds them (the
-    schedule view reads the same ones)."""
+    schedule view reads the same ones). ``stages``: the chunk's stages (``stage``, ``poci``)
+    already assigned under the same staging rules, not assigned again."""
     a = prep.config.assumptions
     terms = loan_terms(chunk, prep)
-    stages = None
-    if prep.staged is not None:
+    if prep.staged is None:
+        stages = None
+    elif stages is None:
         stages = staging.assign_stages(chunk, a.ifrs9, a.segments, remaining_months=terms.remaining)
     stage = None if stages is None else stages["stage"].to_numpy()
     fw = _framework_inputs(chunk, terms, stage, prep)
@@ -732,14 +735,15 @@ def _losses(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs,
     return k, purchases
 
 
-def modelled_chunk(chunk: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
+def modelled_chunk(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | None = None) -> pd.DataFrame:
     """A chunk's modelled ECL per framework, unrounded: ``loan_id, ecl_<framework>_modelled``.
 
     The figures :func:`run_chunk` gives, from the same loop and stages, without what only the
     loan detail needs: the drawn-only pass (the undrawn split), the findings and the other
     columns. What a second pass at other assumptions needs for the movement's remeasurement.
+    ``stages`` as for :func:`chunk_inputs`.
     """
-    c = chunk_inputs(chunk, prep)
+    c = chunk_inputs(chunk, prep, stages)
     k, (purchase,) = _losses(chunk, prep, c, (prep.weights,))
     n = len(chunk)
     if c.stages is not None:  # as _loan_results reads them
@@ -780,7 +784,7 @@ def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, k: KernelRe
     drawn_add = fw.ead_add - fw.undrawn_add
     d = expected_losses(_subset(c.kernel, rows, ead_add=drawn_add[:, rows]))
     ecl_12m[rows], ecl_lifetime[rows] = d.ecl_12m, d.ecl_lifetime
-    lines = chunk["segment"].to_numpy()[rows]
+    lines = chunk["segment"].iloc[rows].to_numpy()  # these loans' only
     if prep.loss_rates is not None and np.isin(lines, list(prep.loss_rates.method)).any():
         for part, lr in _loss_rate_loans(chunk, prep, c.terms, dataclasses.replace(fw, ead_add=drawn_add, undrawn_add=np.zeros_like(drawn_add))) or ():
             ecl_12m[part], ecl_lifetime[part] = lr.ecl_12m, lr.ecl_lifetime
