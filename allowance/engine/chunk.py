@@ -121,8 +121,9 @@ def _pd_scale(prep: Prepared, curve: np.ndarray, own: np.ndarray) -> np.ndarray:
     return scale
 
 
-def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.ndarray:
-    """Row of the stacked PD table for every loan (by segment, grade or DPD bucket)."""
+def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray, age: np.ndarray | None = None) -> np.ndarray:
+    """Row of the stacked PD table for every loan (by segment, grade or DPD bucket); ``age``:
+    each loan's age in months when the caller has it (:func:`allowance.cashflows.age_months`)."""
     out = np.zeros(len(chunk), dtype=np.int64)
     for j, (name, ts) in enumerate(prep.structures.items()):
         mask = segment == j
@@ -132,8 +133,9 @@ def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray) -> np.
         if ts.source == "transition_matrix":
             local = curves.bucket_index(chunk["days_past_due"].to_numpy()[mask], seg.charge_off_dpd)
         elif ts.source == "pd_curve_by_age":  # one row per whole month of age at the as-of date
-            age = cashflows.age_months(chunk["origination_date"][mask], pd.Timestamp(prep.config.as_of))
-            local = np.minimum(age, len(ts.keys) - 1)
+            months = (age[mask] if age is not None
+                      else cashflows.age_months(chunk["origination_date"][mask], pd.Timestamp(prep.config.as_of)))
+            local = np.minimum(months, len(ts.keys) - 1)
         elif ts.source.endswith("_by_grade"):
             local = ts.key_index(chunk["grade"].array[mask])
         else:
@@ -220,7 +222,8 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     eir = np.where(_flag(chunk, "credit_impaired_at_purchase") & ~np.isnan(adjusted), adjusted, eir)
     age = cashflows.age_months(chunk["origination_date"], as_of)
     behavioural = revolving_parameter(chunk, table, segment, "behavioural_life").astype(np.int64)
-    remaining = remaining_life(chunk, as_of, behavioural)
+    commitment = commitment_months(chunk, as_of)  # the dates read once
+    remaining = remaining_life(chunk, as_of, behavioural, commitment)
     io_months = chunk["interest_only_months"].to_numpy(float)
     # a HELOC pays interest only through its draw period, then amortises over its repayment period
     draw_left = np.where(code == cashflows.HELOC,
@@ -235,7 +238,7 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     # interest-only months (the charge-off threshold of a roll-rate segment, else the default one)
     held = months_held(chunk, prep.config, table, segment, remaining)
     io_left = np.maximum(io_left, held)
-    curve = _curve_keys(chunk, prep, segment)
+    curve = _curve_keys(chunk, prep, segment, age)
     prepay, prepay_offset = _prepay_keys(prep, segment, curve, age)
     secured = table.collateral[segment]
     residual = _residual(chunk, table.amortization_months[segment], rate, remaining, age)
@@ -256,7 +259,7 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
         curve=curve, prepay=prepay, prepay_offset=prepay_offset,
         lgd=table.lgd[segment], cure=table.cure_rate[segment], ccf=ccf,
         cancellable=table.cancellable[segment], off_balance=off_balance(chunk),
-        commitment=commitment_months(chunk, as_of),
+        commitment=commitment,
         collateral=np.where(secured, np.nan_to_num(chunk["collateral_value"].to_numpy(float)), 0.0),
         haircut=table.haircut[segment], recovery_cost=table.recovery_cost[segment], lgd_floor=table.lgd_floor[segment],
         months_to_recovery=table.months_to_recovery[segment], refinance_pd=q, refinance_unknown=unknown,

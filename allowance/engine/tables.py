@@ -198,16 +198,19 @@ def commitment_months(tape: pd.DataFrame, as_of: pd.Timestamp) -> np.ndarray:
     return cashflows.remaining_months(as_of, tape["commitment_end_date"])
 
 
-def remaining_life(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndarray) -> np.ndarray:
+def remaining_life(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndarray,
+                   commitment: np.ndarray | None = None) -> np.ndarray:
     """Months left of every loan: the contractual term (at least 1), a line's behavioural life,
-    a standalone commitment's or guarantee's commitment period (IFRS 9 5.5.19)."""
+    a standalone commitment's or guarantee's commitment period (IFRS 9 5.5.19). ``commitment``:
+    :func:`commitment_months` when the caller has it already."""
     term = cashflows.remaining_months(as_of, tape["maturity_date"])
     # a matured loan still carrying a balance gets a one-month horizon (intake flags it)
     off = off_balance(tape)
     revolving = (tape["repayment"] == "revolving").to_numpy(dtype=bool) & ~off
     life = staging.lifetime_months(np.maximum(term, 1), np.where(revolving, "revolving", "level"),
                                    np.where(off, 1, behavioural))
-    return np.where(off, np.maximum(commitment_months(tape, as_of), 1), life).astype(np.int64)
+    commitment = commitment_months(tape, as_of) if commitment is None else commitment
+    return np.where(off, np.maximum(commitment, 1), life).astype(np.int64)
 
 
 def revolving_parameter(tape: pd.DataFrame, table: SegmentTable, codes: np.ndarray, attr: str) -> np.ndarray:
@@ -266,8 +269,9 @@ def tape_months(tape: pd.DataFrame, config: RunConfig) -> int:
     as_of = pd.Timestamp(config.as_of)
     codes = table.codes(tape["segment"])
     behavioural = behavioural_life(tape, table, codes)
-    life = remaining_life(tape, as_of, behavioural)
-    life = np.maximum(life, commitment_months(tape, as_of))  # CECL: a commitment's contractual period
+    commitment = commitment_months(tape, as_of)  # the dates read once
+    life = remaining_life(tape, as_of, behavioural, commitment)
+    life = np.maximum(life, commitment)  # CECL: a commitment's contractual period
     revolving = (tape["repayment"] == "revolving").to_numpy()
     for runoff in (rules_for(fw).runoff(config.assumptions) for fw in config.assumptions.run.frameworks
                    if rules_for(fw).revolving_paydown and revolving.any()):
