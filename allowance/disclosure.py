@@ -32,6 +32,7 @@ import numpy as np
 import pandas as pd
 
 from allowance.frameworks import rules_for
+from allowance.money import cents_by_group
 from allowance.staging import STAGE_CLASSES, stage_class_codes
 
 __all__ = ["DPD_BANDS", "asc326_vintage", "credit_quality", "disclosure_tables", "ifrs7_35m", "sorted_categorical"]
@@ -54,6 +55,16 @@ def _coded(values) -> Coded:
     return np.asarray(codes, dtype=np.int64), np.array([str(u) for u in uniques], dtype=object)
 
 
+def _sorted_codes(codes, labels) -> tuple[np.ndarray, list[str]]:
+    """:func:`sorted_categorical` as plain arrays: codes into the sorted distinct labels (-1: none)."""
+    names = np.array([str(v) for v in list(labels)], dtype=object)
+    codes = np.asarray(codes, dtype=np.int64)
+    if not len(names):
+        return np.full(len(codes), -1, dtype=np.int64), []
+    distinct, where = np.unique(names.astype(str), return_inverse=True)
+    return np.where(codes >= 0, where.reshape(-1)[np.maximum(codes, 0)], -1), distinct.tolist()
+
+
 def sorted_categorical(codes, labels) -> pd.Categorical:
     """Codes over ``labels`` as a categorical whose categories are the distinct labels as text,
     sorted: a group-by on it orders as one on the text would (two codes may name one label);
@@ -64,13 +75,8 @@ def sorted_categorical(codes, labels) -> pd.Categorical:
     >>> sorted_categorical(np.array([0, 1, -1, 2]), ["b", "a", "b"]).tolist()
     ['b', 'a', nan, 'b']
     """
-    names = np.array([str(v) for v in list(labels)], dtype=object)
-    codes = np.asarray(codes, dtype=np.int64)
-    if not len(names):
-        return pd.Categorical.from_codes(np.full(len(codes), -1), categories=pd.Index([], dtype=object))
-    distinct, where = np.unique(names.astype(str), return_inverse=True)
-    mapped = np.where(codes >= 0, where.reshape(-1)[np.maximum(codes, 0)], -1)
-    return pd.Categorical.from_codes(mapped, categories=pd.Index(distinct.tolist(), dtype=object))
+    mapped, distinct = _sorted_codes(codes, labels)
+    return pd.Categorical.from_codes(mapped, categories=pd.Index(distinct, dtype=object))
 
 
 def _constant(label: str, n: int) -> Coded:
@@ -121,19 +127,35 @@ def _concat(parts: list[Coded]) -> Coded:
 def _sum_cents(keys: dict[str, Coded], across: Coded, columns: list[str], cents: np.ndarray) -> pd.DataFrame:
     """Cents summed by the ``keys`` (one row per combination present, in sorted order) and by
     ``across`` (the ``columns``, in that order, 0 where none): the table of
-    ``pivot_table(aggfunc="sum")`` over the labels, grouped on integer codes."""
-    frame = {name: sorted_categorical(codes, labels) for name, (codes, labels) in keys.items()}
+    ``pivot_table(aggfunc="sum")`` over the labels, grouped on integer codes.
+
+    A loan whose key or ``across`` label is missing (or not among ``columns``) is left out, as
+    a group-by leaves out missing keys. The combinations are one integer each (mixed radix
+    over the sorted labels), summed exactly (:func:`allowance.money.cents_by_group`)."""
+    coded = [_sorted_codes(codes, labels) for codes, labels in keys.values()]
     a_codes, a_labels = across
     place = np.array([columns.index(x) if x in columns else -1 for x in a_labels.tolist()] + [-1], dtype=np.int64)
-    frame["_across"] = pd.Categorical.from_codes(place[a_codes], categories=pd.Index(list(columns), dtype=object))
-    frame["_cents"] = cents
-    grid = (pd.DataFrame(frame).groupby([*keys, "_across"], observed=True, sort=True)["_cents"].sum()
-            .unstack("_across", fill_value=0))
-    grid = grid.reindex(columns=columns, fill_value=0).astype(np.int64)
-    grid.columns = pd.Index(list(columns))
-    grid.index = pd.MultiIndex.from_arrays(
-        [pd.Index(grid.index.get_level_values(k).tolist()) for k in range(grid.index.nlevels)], names=list(keys))
-    return grid
+    column = place[np.asarray(a_codes, dtype=np.int64)]
+    kept = column >= 0
+    for codes, _ in coded:
+        kept &= codes >= 0
+    dims = [max(len(names), 1) for _, names in coded]
+    combo = np.ravel_multi_index([codes[kept] for codes, _ in coded], dims) if coded else np.zeros(kept.sum(), np.int64)
+    space = int(np.prod(dims, dtype=np.int64))
+    if space <= 1 << 22:  # the combinations present counted over every possible one: no sort of the loans
+        present = np.flatnonzero(np.bincount(combo, minlength=space))
+        where = np.zeros(space, dtype=np.int64)
+        where[present] = np.arange(len(present))
+        row = where[combo]
+    else:
+        present, row = np.unique(combo, return_inverse=True)
+    cell = row.reshape(-1) * len(columns) + column[kept]
+    grid = np.array(cents_by_group(np.asarray(cents, dtype=np.int64)[kept], cell, len(present) * len(columns)),
+                    dtype=np.int64)
+    levels = np.unravel_index(present, dims) if coded else []
+    index = pd.MultiIndex.from_arrays(
+        [pd.Index([names[i] for i in level.tolist()]) for level, (_, names) in zip(levels, coded)], names=list(keys))
+    return pd.DataFrame(grid.reshape(len(present), len(columns)), index=index, columns=pd.Index(list(columns)))
 
 
 def _classes(loans: pd.DataFrame) -> Coded:
@@ -186,12 +208,19 @@ def _revolving(frame: pd.DataFrame) -> np.ndarray:
 
 
 def _vintage(origination: pd.Series, revolving: np.ndarray, as_of: date) -> Coded:
-    years = pd.to_datetime(origination, errors="coerce").dt.year.to_numpy(dtype=np.float64)
-    # one label per distinct year (a few dozen), not a text per loan
-    distinct, where = np.unique(np.nan_to_num(years, nan=-1.0).astype(np.int64), return_inverse=True)
+    # parsed once per distinct date (a few thousand), in the order of first appearance, so the
+    # format inferred from the first date is the one a parse of the whole column infers
+    codes, distinct_dates = pd.factorize(origination, use_na_sentinel=True)
+    parsed = pd.to_datetime(pd.Series(distinct_dates), errors="coerce").dt.year.to_numpy(dtype=np.float64)
+    years = np.nan_to_num(parsed, nan=-1.0).astype(np.int64)  # of each distinct date; -1: unknown
+    if (codes < 0).any():
+        years = np.append(years, -1)  # the blanks' year, last: their code -1 takes it
+    # one label per distinct year (a few dozen), not a text per loan; the years of the dates
+    # present are the years of the loans
+    distinct, where = np.unique(years, return_inverse=True)
     names = np.array(["unknown" if y < 0 else str(y) if y >= as_of.year - 4 else "prior" for y in distinct.tolist()]
                      + ["revolving"], dtype=object)
-    return np.where(revolving, len(names) - 1, where.reshape(-1)).astype(np.int64), names
+    return np.where(revolving, len(names) - 1, where.reshape(-1)[codes]).astype(np.int64), names
 
 
 def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | None = None) -> pd.DataFrame:

@@ -24,7 +24,7 @@ import pandas as pd
 import allowance
 from allowance.frameworks import FRAMEWORK_RULES
 from allowance.intake import IntakeResult, TieOut
-from allowance.money import money_total
+from allowance.money import money_total, money_totals
 from allowance.report import clock
 from allowance.report.environment import environment
 from allowance.schemas import Framework, InputFile, RunConfig, RunRecord
@@ -148,6 +148,17 @@ def _stage_codes(loans: pd.DataFrame) -> np.ndarray:
     return stage_class_codes(loans["stage"].to_numpy(), poci)
 
 
+def _segment_codes(segment: pd.Series) -> tuple[np.ndarray, list[str]]:
+    """Each loan's segment as a code into the segments' names in sorted order (-1: none), as
+    ``groupby("segment")`` orders and drops its groups; the names as text."""
+    codes, uniques = pd.factorize(segment, use_na_sentinel=True)
+    order = np.argsort(np.asarray(uniques, dtype=object), kind="stable")
+    rank = np.empty(len(order) + 1, dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    rank[-1] = -1
+    return rank[codes], [str(uniques[i]) for i in order]
+
+
 def run_record(
     config: RunConfig,
     intake: IntakeResult,
@@ -197,6 +208,7 @@ def run_record(
     if not any(i.role == "tape" and i.path == intake.file.path for i in inputs):
         inputs.insert(0, intake.file)
     totals: dict[str, dict[str, float]] = {}
+    classes = present = segments = None  # each loan's class and segment, coded once for every framework
     for f in config.frameworks:
         entry = {}
         # drawn + undrawn = modelled; provision: the part shown apart from the loss allowance
@@ -208,13 +220,16 @@ def run_record(
                 entry[key] = money_total(loans[col])
         if "stage" in loans.columns and f"ecl_{f}" in loans.columns and FRAMEWORK_RULES[f].staged:
             # the one stage vocabulary: stage 1/2/3 and POCI apart (IFRS 7 35H(c))
-            classes = _stage_codes(loans)
-            entry["by_stage"] = {
-                k: money_total(loans.loc[classes == j, f"ecl_{f}"]) for j, k in enumerate(STAGE_CLASSES)
-                if (classes == j).any()
-            }
+            if classes is None:
+                classes = _stage_codes(loans)
+                present = np.bincount(classes[classes >= 0], minlength=len(STAGE_CLASSES)) > 0
+            by_class = money_totals(loans[f"ecl_{f}"], classes, len(STAGE_CLASSES))
+            entry["by_stage"] = {k: float(by_class[j]) for j, k in enumerate(STAGE_CLASSES) if present[j]}
         if f"ecl_{f}" in loans.columns and "segment" in loans.columns:
-            entry["by_segment"] = {str(s): money_total(g) for s, g in loans.groupby("segment")[f"ecl_{f}"]}
+            if segments is None:
+                segments = _segment_codes(loans["segment"])
+            by_segment = money_totals(loans[f"ecl_{f}"], segments[0], len(segments[1]))
+            entry["by_segment"] = {name: float(by_segment[j]) for j, name in enumerate(segments[1])}
         totals[f] = entry
     run = config.assumptions.run
     finished = clock.now()
