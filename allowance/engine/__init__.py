@@ -40,9 +40,9 @@ from typing import Any, Protocol
 import numpy as np
 import pandas as pd
 
-from allowance import cashflows, overlays, scenarios, staging
+from allowance import overlays, scenarios, staging
 from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, modelled_chunk, run_chunk
-from allowance.engine.tables import Prepared, SegmentTable, prepare, segment_table, tape_months
+from allowance.engine.tables import Prepared, SegmentTable, age_months, prepare, segment_table, tape_months
 from allowance.engine.views import (
     loan_schedule,
     pd_path_view,
@@ -100,24 +100,33 @@ class EngineResult:
 # --------------------------------------------------------------------------------------
 
 
-def _round_money(loans: pd.DataFrame) -> pd.DataFrame:
-    money = [c for c in loans.columns if c.startswith(("ecl_", "ead", "gross_loss_", "purchase_ecl_")) or c == "balance"
-             or c == "pcd_gross_up"]
-    rounded = loans.copy(deep=False)  # copy-on-write: the columns replaced below are new arrays
-    for column in money:  # column by column: no consolidated copy of every float column
-        rounded[column] = np.round(loans[column].to_numpy(dtype=np.float64), CENT_DECIMALS)
-    return rounded
+def _is_money(column: str) -> bool:
+    return column.startswith(("ecl_", "ead", "gross_loss_", "purchase_ecl_")) or column in ("balance", "pcd_gross_up")
 
 
-def _split_drawn_undrawn(loans: pd.DataFrame, prep: Prepared) -> None:
-    """Set ``ecl_<fw>_drawn``, ``ecl_<fw>_undrawn`` and ``provision_<fw>`` in place, in cents.
+def _round_money(columns: dict[str, Any]) -> dict[str, Any]:
+    """A chunk's columns with its money rounded to cents (new arrays: a column may be a view of
+    the tape or of the loop's arrays, never written to); the other columns as they are."""
+    return {name: np.round(np.asarray(values, dtype=np.float64), CENT_DECIMALS) if _is_money(name) else values
+            for name, values in columns.items()}
+
+
+def _joined(pieces: list) -> np.ndarray | pd.api.extensions.ExtensionArray:
+    """One column from its chunks' pieces (numpy arrays joined; Arrow text as chunks of one array)."""
+    if isinstance(pieces[0], np.ndarray):
+        return np.concatenate(pieces)
+    return type(pieces[0])._concat_same_type(pieces)
+
+
+def _split_drawn_undrawn(loans: dict[str, Any], prep: Prepared) -> None:
+    """Set ``ecl_<fw>_drawn``, ``ecl_<fw>_undrawn`` and ``provision_<fw>`` in the book's columns, in cents.
 
     The undrawn part is rounded once; the drawn part is the rounded modelled ECL less it, so
     drawn + undrawn = modelled to the cent. ``provision_<fw>`` is the part presented apart from
     the loss allowance, as the framework's rules say (IFRS 9 5.5.20, IFRS 7 B8E; ASC
     326-20-30-11): in integer cents, so it foots with the rest.
     """
-    if loans.empty:
+    if not len(loans["balance"]):
         return
     balance = _cents(loans["balance"])
     for rules in prep.rules:
@@ -130,8 +139,8 @@ def _split_drawn_undrawn(loans: pd.DataFrame, prep: Prepared) -> None:
         loans[f"provision_{fw}"] = rules.provision(drawn, undrawn, balance) / 100.0
 
 
-def _cents(column: pd.Series) -> np.ndarray:
-    return np.rint(column.to_numpy(dtype=np.float64) * 100.0).astype(np.int64)
+def _cents(column: np.ndarray) -> np.ndarray:
+    return np.rint(np.asarray(column, dtype=np.float64) * 100.0).astype(np.int64)
 
 
 def _chunks(tape: pd.DataFrame, chunk_size: int) -> Iterator[pd.DataFrame]:
@@ -203,28 +212,24 @@ def run(
     work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}))
 
     chunks = list(_chunks(tape, chunk_size))
-    parts: list[ChunkResult] = []
+    columns: list[list[dict[str, Any]]] = [[] for _ in range(1 + len(others))]  # this run's, then each other's
+    findings: list[pd.DataFrame] = []
     done = 0
     for chunk, part in zip(chunks, map(work, chunks)):
-        # rounded as each chunk comes back (rounding is per loan): the unrounded chunk is let go
-        # at once, not held beside a rounded copy of the whole book's money columns
-        parts.append(dataclasses.replace(part, loans=_round_money(part.loans),
-                                         reweighted=tuple(_round_money(r) for r in part.reweighted)))
+        # rounded as each chunk comes back (rounding is per loan): its unrounded money goes at once
+        for i, one in enumerate((part.columns, *part.reweighted)):
+            columns[i].append(_round_money(one))
+        findings.append(part.findings)
         done += len(chunk)
         if progress is not None:
             progress("loans", done, len(tape))
-    # the chunks' frames are let go once joined: a million loans' detail is not held twice
-    findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
-    frames = [[p.loans for p in parts], *([p.reweighted[i] for p in parts] for i in range(len(others)))]
-    del parts
+    part = None  # the last chunk's unrounded columns go too
+    findings = pd.concat(findings, ignore_index=True) if findings else pd.DataFrame()
     model_warnings = staging.pd_ratio_warnings(tape) if prep.staged is not None else []
     results = []
     for i, one in enumerate((config, *others)):
-        loans = pd.concat(frames[i]) if frames[i] else pd.DataFrame()
-        frames[i] = []
-        _split_drawn_undrawn(loans, prep)
-        applied = _apply_overlays(loans, one)
-        loans = _order_columns(loans, tape, prep)
+        loans, applied = _book(columns[i], tape, prep, one)
+        columns[i] = []
         results.append(EngineResult(
             loans=loans, overlays=applied.table, scenarios=scenario_summary(loans, one),
             term_structures=pd.DataFrame(), roll_rates=pd.DataFrame(), reversion=pd.DataFrame(),
@@ -323,18 +328,18 @@ def run_part(tape: pd.DataFrame, prep: Prepared, *, chunk_size: int = CHUNK_SIZE
     applies the overlays once the book's allocation is known.
     """
     config = prep.config
-    parts = [run_chunk(chunk, prep) for chunk in _chunks(tape, chunk_size)]
-    loans = pd.concat([_round_money(p.loans) for p in parts]) if parts else pd.DataFrame()
-    _split_drawn_undrawn(loans, prep)
-    findings = pd.concat([p.findings for p in parts], ignore_index=True) if parts else pd.DataFrame()
+    columns, findings = [], []
+    for chunk in _chunks(tape, chunk_size):
+        part = run_chunk(chunk, prep)
+        columns.append(_round_money(part.columns))
+        findings.append(part.findings)
+    part = None
+    findings = pd.concat(findings, ignore_index=True) if findings else pd.DataFrame()
     if book_wide_overlays(config):
-        for fw in config.frameworks:  # placeholders in their columns' places, set by overlay_part
-            loans[f"overlay_{fw}"] = 0.0
-            loans[f"ecl_{fw}"] = loans[f"ecl_{fw}_modelled"]
-        weights = overlays.amount_weights(loans, list(config.assumptions.overlays), list(config.frameworks))
-        return PartResult(loans=_order_columns(loans, tape, prep), overlays=None, findings=findings, weights=weights)
-    applied = _apply_overlays(loans, config)
-    return PartResult(loans=_order_columns(loans, tape, prep), overlays=applied, findings=findings)
+        loans, weights = _book(columns, tape, prep, wait=True)
+        return PartResult(loans=loans, overlays=None, findings=findings, weights=weights)
+    loans, applied = _book(columns, tape, prep)
+    return PartResult(loans=loans, overlays=applied, findings=findings)
 
 
 def overlay_part(loans: pd.DataFrame, config: RunConfig,
@@ -348,7 +353,7 @@ def overlay_part(loans: pd.DataFrame, config: RunConfig,
 def max_age(tape: pd.DataFrame, config: RunConfig) -> int:
     """The oldest loan's age in months at the as-of date (0 for no loans): how far the
     prepayment curves by age must reach."""
-    return int(cashflows.age_months(tape["origination_date"], pd.Timestamp(config.as_of)).max()) if len(tape) else 0
+    return int(age_months(tape["origination_date"], pd.Timestamp(config.as_of)).max()) if len(tape) else 0
 
 
 def reversion_view(prep: Prepared) -> pd.DataFrame:
@@ -387,7 +392,43 @@ def overlaid(result: EngineResult, config: RunConfig) -> EngineResult:
     )
 
 
-def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
+def _book(columns: list[dict[str, Any]], tape: pd.DataFrame, prep: Prepared, config: RunConfig | None = None, *,
+          wait: bool = False):
+    """The book's loan frame, built once from its chunks' rounded columns, and the overlays applied.
+
+    Each column is joined from its chunks' pieces (and the pieces let go) as it is needed; the
+    drawn and undrawn split and the overlays are computed on the joined arrays; the frame is
+    made last, from the columns in their order, without copying them. Returns the frame and
+    the overlays applied (:class:`allowance.overlays.OverlayResult`) of ``config`` (the run's
+    by default; a reweighted one's, which differs only in weights and overlays), or with
+    ``wait`` (a part of a book with an ``amount`` overlay, :func:`run_part`) the frame with
+    the modelled figures as final and the part's amount weights.
+    """
+    config = config or prep.config
+    loans = {name: _joined([c.pop(name) for c in columns]) for name in (list(columns[0]) if columns else [])}
+    if not loans:
+        applied = _apply_overlays(frame := pd.DataFrame(), config)
+        return _order_columns(frame, tape, prep), applied
+    _split_drawn_undrawn(loans, prep)
+    scratch = pd.DataFrame(loans, copy=False)  # what the overlays read: the columns as they are
+    if wait:
+        for fw in config.frameworks:  # placeholders in their columns' places, set by overlay_part
+            loans[f"overlay_{fw}"] = np.zeros(len(scratch))
+            loans[f"ecl_{fw}"] = loans[f"ecl_{fw}_modelled"].copy()
+        weights = overlays.amount_weights(scratch, list(config.assumptions.overlays), list(config.frameworks))
+        return _order_columns(loans, tape, prep), weights
+    applied = overlays.apply_overlays(scratch, list(config.assumptions.overlays), config.as_of, list(config.frameworks))
+    del scratch
+    for fw in config.frameworks:
+        adj = np.asarray(applied.adjustments[fw], float)
+        loans[f"overlay_{fw}"] = adj
+        loans[f"ecl_{fw}"] = np.round(loans[f"ecl_{fw}_modelled"] + adj, CENT_DECIMALS)
+    return _order_columns(loans, tape, prep), applied
+
+
+def _order_columns(loans: pd.DataFrame | dict[str, Any], tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
+    """The loans.csv columns in their order, then ``source_row`` and the tape's own extra
+    columns; from a dict of columns the frame is made here, over their arrays (no copy)."""
     first = [
         "loan_id", "segment", "repayment", "grade", "origination_date", "days_past_due",
         "stage", "stage_class", "stage_reason", "poci", "measurement",
@@ -404,10 +445,14 @@ def _order_columns(loans: pd.DataFrame, tape: pd.DataFrame, prep: Prepared) -> p
     first += [f"discount_rate_{fw}" for fw in prep.frameworks]
     first += [f"purchase_ecl_{fw}" for fw in prep.frameworks]
     first += [f"purchase_ecl_carried_{fw}" for fw in prep.frameworks] + ["pcd_gross_up", "modified"]
-    ordered = loans[[c for c in first if c in loans.columns]]  # copy-on-write: no copy of the columns
-    ordered["source_row"] = tape["source_row"].to_numpy() if "source_row" in tape else np.arange(len(tape)) + 2
+    source_row = np.array(tape["source_row"].to_numpy()) if "source_row" in tape else np.arange(len(tape)) + 2
+    if isinstance(loans, dict):
+        ordered = pd.DataFrame({**{c: loans[c] for c in first if c in loans}, "source_row": source_row}, copy=False)
+    else:
+        ordered = loans[[c for c in first if c in loans.columns]]  # copy-on-write: no copy of the columns
+        ordered["source_row"] = source_row
+        ordered = ordered.reset_index(drop=True)
     extras = [c for c in tape.columns if c not in LoanRecord.model_fields and c != "source_row"]
-    ordered = ordered.reset_index(drop=True)
     if extras:  # joined in one step: column by column costs minutes on a 10,000-column tape
         ordered = pd.concat([ordered, tape[extras].reset_index(drop=True)], axis=1)
     return ordered

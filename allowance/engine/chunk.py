@@ -35,7 +35,7 @@ from allowance.curves.refinance import maturity_ltv, refinance_pd
 from allowance.discounting import monthly_rate
 from allowance.ecl import KernelInputs, KernelResult, expected_losses
 from allowance.engine.tables import (
-    Prepared, commitment_months, months_held, off_balance, remaining_life, revolving_parameter, runoff_horizon,
+    Prepared, age_months, commitment_months, months_held, off_balance, remaining_life, revolving_parameter, runoff_horizon,
 )
 from allowance.exceptions import AssumptionsError
 
@@ -134,7 +134,7 @@ def _curve_keys(chunk: pd.DataFrame, prep: Prepared, segment: np.ndarray, age: n
             local = curves.bucket_index(chunk["days_past_due"].to_numpy()[mask], seg.charge_off_dpd)
         elif ts.source == "pd_curve_by_age":  # one row per whole month of age at the as-of date
             months = (age[mask] if age is not None
-                      else cashflows.age_months(chunk["origination_date"][mask], pd.Timestamp(prep.config.as_of)))
+                      else age_months(chunk["origination_date"][mask], pd.Timestamp(prep.config.as_of)))
             local = np.minimum(months, len(ts.keys) - 1)
         elif ts.source.endswith("_by_grade"):
             local = ts.key_index(chunk["grade"].array[mask])
@@ -220,7 +220,7 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
     # a POCI loan's losses are discounted at its credit-adjusted EIR (IFRS 9 B5.5.45)
     adjusted = _number(chunk, "credit_adjusted_eir")
     eir = np.where(_flag(chunk, "credit_impaired_at_purchase") & ~np.isnan(adjusted), adjusted, eir)
-    age = cashflows.age_months(chunk["origination_date"], as_of)
+    age = age_months(chunk["origination_date"], as_of)
     behavioural = revolving_parameter(chunk, table, segment, "behavioural_life").astype(np.int64)
     commitment = commitment_months(chunk, as_of)  # the dates read once
     remaining = remaining_life(chunk, as_of, behavioural, commitment)
@@ -272,18 +272,27 @@ def loan_terms(chunk: pd.DataFrame, prep: Prepared) -> LoanTerms:
 class ChunkResult:
     """What :func:`run_chunk` returns for a chunk of loans.
 
-    loans     one row per loan, in the chunk's order and index: stage, horizons, EAD, PDs, LGD,
-              ECL per framework and scenario, the modelled weighted ECL and the expected gross
-              credit loss (``gross_loss_<framework>``), unrounded
+    columns   one array per loan-result column, one entry per loan in the chunk's order:
+              stage, horizons, EAD, PDs, LGD, ECL per framework and scenario, the modelled
+              weighted ECL and the expected gross credit loss (``gross_loss_<framework>``),
+              unrounded. The loop's arrays as they are: the book's frame is built once from
+              every chunk's columns (:func:`allowance.engine.run`), not a frame per chunk
+    index     the chunk's index (the tape's labels of its rows)
     findings  the engine's findings on these loans (``payment_short`` warnings), in the
               intake findings' columns
-    reweighted  the ``loans`` under each of the other scenario weights asked for (see
+    reweighted  the ``columns`` under each of the other scenario weights asked for (see
               :func:`run_chunk`), in the same order
     """
 
-    loans: pd.DataFrame
+    columns: dict[str, np.ndarray | pd.api.extensions.ExtensionArray]
+    index: pd.Index
     findings: pd.DataFrame
-    reweighted: tuple[pd.DataFrame, ...] = ()
+    reweighted: tuple[dict[str, np.ndarray | pd.api.extensions.ExtensionArray], ...] = ()
+
+    @property
+    def loans(self) -> pd.DataFrame:
+        """The columns as a frame over the chunk's index."""
+        return pd.DataFrame(self.columns, index=self.index, copy=False)
 
 
 @dataclass(frozen=True)
@@ -509,15 +518,17 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
 
 
 def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | None, k: KernelResult,
-                  prep: Prepared, purchase: _Purchase | None, fw: _Frameworks, drawn: _DrawnOnly) -> pd.DataFrame:
-    """The per-loan frame: the first staged framework leads the shared columns (ead, PDs, LGD).
+                  prep: Prepared, purchase: _Purchase | None, fw: _Frameworks,
+                  drawn: _DrawnOnly) -> dict[str, np.ndarray | pd.api.extensions.ExtensionArray]:
+    """The per-loan columns: the first staged framework leads the shared columns (ead, PDs, LGD).
 
     ``ecl_<framework>_undrawn`` is the part of the modelled ECL that relates to the undrawn
     commitment (the whole ECL less the ECL on the drawn exposure alone, :func:`_drawn_only`);
     a loan measured one by one has none.
     """
-    # the columns are gathered first and framed once at the end (a frame grown a column at a
-    # time copies its blocks again and again); text columns keep their Arrow arrays
+    # the columns are gathered and handed back as arrays: the book's frame is built once from
+    # every chunk's (a frame per chunk was built, rounded and joined again); text columns keep
+    # their Arrow arrays
     out: dict[str, object] = {
         "loan_id": chunk["loan_id"].array, "segment": chunk["segment"].array,
         "repayment": terms.repayment, "grade": chunk["grade"].array,
@@ -594,7 +605,7 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
             gross_up = np.where(purchase.in_period, np.nan_to_num(purchase.at_purchase[:, lifetime]), 0.0)
         out["pcd_gross_up"] = gross_up
     out["modified"] = _flag(chunk, "modified")
-    return pd.DataFrame(out, index=chunk.index)
+    return out
 
 
 def _allowance(k: KernelResult, f: int, rules, stage: np.ndarray, poci_flag: np.ndarray, carried: np.ndarray,
@@ -715,7 +726,8 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
     loans = [_loan_results(chunk, terms, stages, k, prep if i == 0 else dataclasses.replace(prep, weights=w),
                            purchase, fw, drawn) for i, (w, purchase) in enumerate(zip(weights, purchases))]
     return ChunkResult(
-        loans=loans[0],
+        columns=loans[0],
+        index=chunk.index,
         findings=pd.concat([_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
                             _refinance_findings(chunk, terms)], ignore_index=True),
         reweighted=tuple(loans[1:]),

@@ -11,6 +11,7 @@ tape_months      the longest horizon on a tape (how many months the tables must 
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -183,6 +184,22 @@ def _loss_rate_tables(config: RunConfig, months: int, max_age: int, tables, stru
 # --------------------------------------------------------------------------------------
 
 
+def per_date(dates: pd.Series, months: Callable[[pd.Series], np.ndarray]) -> np.ndarray:
+    """``months(dates)`` for a function of each date alone, computed once per distinct date (a
+    book of a million loans holds a few thousand) and spread to the loans by their codes; a
+    blank date is handed over as a blank."""
+    codes, distinct = pd.factorize(dates, use_na_sentinel=True)
+    distinct = pd.Series(distinct)
+    if (codes < 0).any():
+        distinct = distinct.reindex(range(len(distinct) + 1))  # a blank last, for code -1
+    return np.asarray(months(distinct))[codes]
+
+
+def age_months(origination: pd.Series, as_of: pd.Timestamp) -> np.ndarray:
+    """:func:`allowance.cashflows.age_months`, once per distinct origination date."""
+    return per_date(origination, lambda dates: cashflows.age_months(dates, as_of))
+
+
 def off_balance(tape: pd.DataFrame) -> np.ndarray:
     """Rows that are standalone commitments or guarantees (``facility_type``), nothing drawn."""
     if "facility_type" not in tape.columns:
@@ -195,7 +212,7 @@ def commitment_months(tape: pd.DataFrame, as_of: pd.Timestamp) -> np.ndarray:
     ``commitment_end_date`` (0 where blank or ended)."""
     if "commitment_end_date" not in tape.columns:
         return np.zeros(len(tape), dtype=np.int64)
-    return cashflows.remaining_months(as_of, tape["commitment_end_date"])
+    return per_date(tape["commitment_end_date"], lambda dates: cashflows.remaining_months(as_of, dates))
 
 
 def remaining_life(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndarray,
@@ -203,7 +220,7 @@ def remaining_life(tape: pd.DataFrame, as_of: pd.Timestamp, behavioural: np.ndar
     """Months left of every loan: the contractual term (at least 1), a line's behavioural life,
     a standalone commitment's or guarantee's commitment period (IFRS 9 5.5.19). ``commitment``:
     :func:`commitment_months` when the caller has it already."""
-    term = cashflows.remaining_months(as_of, tape["maturity_date"])
+    term = per_date(tape["maturity_date"], lambda dates: cashflows.remaining_months(as_of, dates))
     # a matured loan still carrying a balance gets a one-month horizon (intake flags it)
     off = off_balance(tape)
     revolving = (tape["repayment"] == "revolving").to_numpy(dtype=bool) & ~off
@@ -282,7 +299,7 @@ def tape_months(tape: pd.DataFrame, config: RunConfig) -> int:
     if "credit_impaired_at_purchase" in tape.columns:
         poci = tape["credit_impaired_at_purchase"].to_numpy(dtype=bool)
         if poci.any():
-            life = np.where(poci, life + cashflows.age_months(tape["origination_date"], as_of), life)
+            life = np.where(poci, life + age_months(tape["origination_date"], as_of), life)
     return int(max(12, life.max()))
 
 
