@@ -53,7 +53,7 @@ import numpy as np
 from allowance import jit
 import pandas as pd
 
-from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
+from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, contractual_payments, path_terms
 from allowance.curves.lgd import collateral_lgd, loss_given_default
 from allowance.curves.refinance import refinance_default
 from allowance.shortfall import default_loss
@@ -269,20 +269,6 @@ def _flat_lanes(
         _store(sums, i, f, j3, y3, l3, q3, c3, u3 * g, e3 * g)
 
 
-@numba.njit(cache=jit.CACHE)
-def _level_payments(code, balance, rate, months_left, io_left, residual, payment):
-    """The level payment of every loan, once (annuity invariance: no power per month).
-
-    Kept out of the loop below: it tests the tape payment for NaN, which the loop's
-    fast-math flags would let the compiler assume away. Serial: one power per loan is a
-    few milliseconds for a million loans, and a parallel loop costs seconds to compile.
-    """
-    out = np.empty(balance.shape[0])
-    for i in range(balance.shape[0]):
-        out[i] = contractual_payment(code[i], balance[i], rate[i], months_left[i], io_left[i], residual[i], payment[i])
-    return out
-
-
 # fastmath: the inputs are checked finite first (so "no NaN, no inf" holds); it lets the
 # compiler reassociate and fuse the survival products (about 1.3 x faster here).
 # nogil, not parallel=True: the threads of :func:`allowance.jit.in_threads` run its blocks;
@@ -441,7 +427,9 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     unit_path = np.array([bool(np.all(inputs.lgd_multiplier[f] == 1.0)) for f in range(n_fw)], dtype=np.bool_)
     if n:
         a = dict(zip(_FIELDS, args))
-        levels = _level_payments(
+        # in numpy, not compiled: it tests the tape payment for NaN, which the loop's fast-math
+        # flags would let the compiler assume away; the same bits as a compiled loop, no compile
+        levels = contractual_payments(
             a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], a["residual"], a["payment"]
         )
         head = (a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], levels, *args[7:], unit_path)

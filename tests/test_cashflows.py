@@ -47,6 +47,58 @@ def test_level_payment_equals_pmt():
         assert cf.level_payment(balance, annual / 12, n, 0.0) == pytest.approx(-npf.pmt(annual / 12, n, balance), abs=1e-9)
 
 
+def _payment_inputs(n: int = 4_000, seed: int = 11):
+    """Random loan terms for the payment, with the edges: 0 and 1 months, negative interest-only
+    months, zero rates, balloons, tape payments."""
+    rng = np.random.default_rng(seed)
+    code = rng.integers(0, 5, n)
+    balance = rng.uniform(0.0, 1e6, n)
+    rate = np.where(rng.random(n) < 0.1, 0.0, rng.uniform(0.0, 0.03, n))
+    months_left = rng.integers(0, 481, n)
+    io_left = rng.integers(-2, 61, n)
+    residual = np.where(code == cf.BALLOON, balance * rng.random(n), 0.0)
+    payment = np.where(rng.random(n) < 0.3, rng.uniform(0.0, 5_000.0, n), np.nan)
+    return code, balance, rate, months_left, io_left, residual, payment
+
+
+def test_payments_in_numpy_are_the_compiled_payments_bit_for_bit():
+    """contractual_payments (numpy), contractual_payment (plain Python) and the same formula
+    compiled as numba compiles ``(1.0 + rate) ** (-months)`` (a float to an int power: repeated
+    squaring, then 1 / the product) give the same bits (the engine's figures must not depend on
+    which of them computed the payment); and each equals numpy_financial.pmt to 1e-9."""
+    numba = pytest.importorskip("numba")
+
+    @numba.njit
+    def compiled(code, balance, rate, months_left, io_left, residual, payment):
+        out = np.empty(balance.shape[0])
+        for i in range(balance.shape[0]):
+            after = max(months_left[i] - max(io_left[i], 0), 1)
+            res = residual[i] if code[i] == cf.BALLOON else 0.0
+            if code[i] == cf.REVOLVING:
+                out[i] = 0.0
+            elif code[i] != cf.BALLOON and payment[i] == payment[i]:
+                out[i] = payment[i]
+            elif after == 1:
+                out[i] = balance[i] * (1.0 + rate[i]) - res
+            elif rate[i] == 0.0:
+                out[i] = (balance[i] - res) / after
+            else:
+                v_n = (1.0 + rate[i]) ** (-after)
+                out[i] = (balance[i] - res * v_n) * rate[i] / (1.0 - v_n)
+        return out
+
+    args = _payment_inputs()
+    vector = cf.contractual_payments(*args)
+    scalar = np.array([cf.contractual_payment(*(a.item() for a in row)) for row in zip(*args)])
+    assert vector.tobytes() == scalar.tobytes()
+    assert vector.tobytes() == compiled(*args).tobytes()
+    code, balance, rate, months_left, io_left, residual, payment = args
+    level = (code == cf.LEVEL) & np.isnan(payment) & (io_left <= 0) & (months_left > 1) & (rate > 0)
+    # numpy_financial.pmt
+    np.testing.assert_allclose(vector[level], -npf.pmt(rate[level], months_left[level], balance[level]), rtol=1e-12,
+                               atol=1e-9)
+
+
 def test_psa_benchmark_cpr():
     # PSA standard prepayment model: 0.2 % CPR in month 1, rising 0.2 points a month to 6 % at
     # month 30, then flat; a multiple scales the ramp (from memory)
