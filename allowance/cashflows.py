@@ -1,8 +1,11 @@
 """Cash flows: contractual balance paths for every repayment type, and expected prepayment.
 
-The maths is written once, as small scalar functions compiled with numba. Both the fused ECL
-loop (:mod:`allowance.ecl`) and the schedule view (:func:`schedule`) take a loan's level
-payment from :func:`contractual_payment`; the schedule then steps month by month
+The maths is written once, as small scalar functions that numba compiles into the loops
+(:mod:`allowance.jitable`; :func:`path_terms` and :func:`balance_on_path` are compiled on their
+own too). Both the fused ECL loop (:mod:`allowance.ecl`, through :func:`contractual_payments`,
+the same payment for every loan at once in numpy) and the schedule view (:func:`schedule`,
+plain Python) take a loan's level payment from :func:`contractual_payment`, bit for bit the
+same figure; the schedule then steps month by month
 (:func:`principal_step`: interest and principal for people to check), the loop follows the same
 path in closed form (:func:`path_terms`, :func:`balance_on_path`: no month waits on the last).
 The tests hold the two paths equal for every repayment type, and both against
@@ -14,8 +17,10 @@ remaining_months     monthly payment dates after the as-of date up to and includ
 age_months           whole months from origination to the as-of date (PSA seasoning)
 smm_from_cpr         single monthly mortality from an annual constant prepayment rate
 psa_cpr              the PSA standard prepayment benchmark at a multiple
+discount_power       (1 + r)^-n as numba computes it (repeated squaring), in any of the three
 level_payment        the level payment that amortizes a balance to a residual
 contractual_payment  a loan's level payment, once per loan, for the compiled loop
+contractual_payments the same for every loan at once, in numpy
 principal_step       one month's scheduled principal given that payment (the schedule's form)
 path_terms           growth and payment of the closed-form balance path
 balance_on_path      the scheduled balance after t months in closed form (the loop's form)
