@@ -274,14 +274,16 @@ def _discount_powers(rate: np.ndarray, months: np.ndarray) -> np.ndarray:
     """:func:`discount_power` of every element (months >= 1), step for step."""
     base = 1.0 + rate
     power = np.ones_like(base)
-    n = np.where(months > _SQUARING_CUTOFF, 0, months)
-    while n.any():
-        odd = (n & 1) == 1
-        power = np.where(odd, power * base, power)
-        n = n >> 1
-        base = base * base
     far = months > _SQUARING_CUTOFF
-    return np.where(far, np.power(1.0 + rate, -months.astype(np.float64)), 1.0 / power)
+    n = np.where(far, 0, months)
+    for _ in range(int(n.max(initial=0)).bit_length()):  # a chunk's loans in a few passes
+        power *= np.where((n & 1) == 1, base, 1.0)  # times 1.0: exactly the power it was
+        n >>= 1
+        base *= base
+    np.divide(1.0, power, out=power)
+    if far.any():
+        power[far] = np.power(1.0 + rate[far], -months[far].astype(np.float64))
+    return power
 
 
 @jitable
