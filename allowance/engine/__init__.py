@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import overlays, scenarios, staging
+from allowance.memory import give_back
 from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, modelled_chunk, run_chunk
 from allowance.engine.tables import Prepared, SegmentTable, age_months, prepare, segment_table, tape_months
 from allowance.engine.views import (
@@ -202,6 +203,7 @@ def run(
     the rounded modelled figures; every total is the sum of rounded loan figures. Each chunk
     is rounded as it comes back; overlays and summaries are book-wide and run after the map.
     """
+    give_back()  # what reading the tape freed, before the book's arrays are made
     prep = prepare(config, tape_months(tape, config), max_age(tape, config))
     others = tuple(reweighted)
     for other in others:
@@ -447,7 +449,12 @@ def _order_columns(loans: pd.DataFrame | dict[str, Any], tape: pd.DataFrame, pre
     first += [f"purchase_ecl_carried_{fw}" for fw in prep.frameworks] + ["pcd_gross_up", "modified"]
     source_row = np.array(tape["source_row"].to_numpy()) if "source_row" in tape else np.arange(len(tape)) + 2
     if isinstance(loans, dict):
-        ordered = pd.DataFrame({**{c: loans[c] for c in first if c in loans}, "source_row": source_row}, copy=False)
+        # the tape's own columns as the tape's Series (shared under copy-on-write, not copied)
+        made = {"days_past_due": loans.get("days_past_due"), "source_row": source_row}
+        own = {c: tape[c].reset_index(drop=True) for c, values in made.items()
+               if c in tape and values is not None and tape[c].dtype == getattr(values, "dtype", None)}
+        ordered = pd.DataFrame({**{c: own.get(c, loans[c]) for c in first if c in loans},
+                                "source_row": own.get("source_row", source_row)}, copy=False)
     else:
         ordered = loans[[c for c in first if c in loans.columns]]  # copy-on-write: no copy of the columns
         ordered["source_row"] = source_row

@@ -33,6 +33,7 @@ import pyarrow.csv as pa_csv
 
 from allowance.exceptions import OutputError
 from allowance.intake import IntakeResult
+from allowance.memory import give_back
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
@@ -79,7 +80,7 @@ def _arrow_ready(frame: pd.DataFrame, dated: list[int]) -> pd.DataFrame:
 
 #: Rows converted to Arrow and written at a time: a million loans' detail is never held
 #: twice (as a frame and as a whole Arrow table, some 500 MB more at the peak)
-_CSV_SLICE_ROWS = 65_536
+_CSV_SLICE_ROWS = 32_768
 _ARROW_ERRORS = (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, TypeError, ValueError)
 
 
@@ -296,6 +297,9 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
 
     if report.loan_detail is not None:  # the loan detail is in its Parquet folder, written part by part
         return _write_book(folder, report, done, progress, total)
+    # what computing the run freed goes back to the system before writing takes its own: the
+    # peak of a run is in writing, over the tape and the loan frame
+    give_back()
     # loans.csv is formatted by Arrow outside the GIL: written on a thread of its own while the
     # other files and the workbooks (Python: one core) are made, so both cores work
     with ThreadPoolExecutor(1, thread_name_prefix="allowance-loans") as detail:
