@@ -147,15 +147,53 @@ def representative_loans(loans: pd.DataFrame, per_segment: int) -> pd.DataFrame:
     for code, name in enumerate(names.tolist()):
         members = np.flatnonzero(segment == code)
         pool = members[performing[members]] if performing[members].any() else members
-        b = (pd.Series(balance[pool]).rank().to_numpy() - 0.5) / len(pool)
-        t = (pd.Series(term[pool]).rank().to_numpy() - 0.5) / len(pool)
+        b = (_average_ranks(balance[pool]) - 0.5) / len(pool)
+        t = (_average_ranks(term[pool]) - 0.5) / len(pool)
         distance = np.abs(b - 0.5) + np.abs(t - 0.5)
-        picks = pool[np.argsort(distance, kind="stable")[:per_segment]]
+        picks = pool[_nearest(distance, per_segment)]
         why = (f"nearest its segment's median balance ({np.median(balance[pool]):,.0f}) and remaining term "
                f"({np.median(term[pool]):.0f} months) among {'stage 1' if performing[members].any() else 'all'} "
                f"{name} loans")
         rows += [{"position": int(i), "chosen": why} for i in picks]
     return pd.DataFrame(rows, columns=["position", "chosen"])
+
+
+def _average_ranks(values: np.ndarray) -> np.ndarray:
+    """``pandas.Series(values).rank()`` (1-based, ties taking their average rank) from one
+    sort: a tie of ``c`` values after ``s`` smaller ones ranks ``s + (c + 1) / 2``, the same
+    half-integer pandas makes as the mean of the tie's ranks. With NaN, pandas ranks.
+
+    Examples
+    --------
+    >>> _average_ranks(np.array([3.0, 1.0, 3.0, 2.0])).tolist()
+    [3.5, 1.0, 3.5, 2.0]
+    """
+    values = np.asarray(values, dtype=np.float64)
+    if np.isnan(values).any():
+        return pd.Series(values).rank().to_numpy()
+    order = np.argsort(values)
+    ordered = values[order]
+    first = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
+    count = np.diff(np.r_[first, len(values)])
+    ranks = np.empty(len(values))
+    ranks[order] = np.repeat(first + (count + 1) / 2, count)
+    return ranks
+
+
+def _nearest(distance: np.ndarray, k: int) -> np.ndarray:
+    """``np.argsort(distance, kind="stable")[:k]`` without sorting them all: the ``k``
+    smallest (ties to the earlier position) from the values up to the k-th smallest.
+
+    Examples
+    --------
+    >>> _nearest(np.array([0.3, 0.1, 0.2, 0.1, 0.5]), 2).tolist()
+    [1, 3]
+    """
+    if k >= len(distance):
+        return np.argsort(distance, kind="stable")[:k]
+    bound = np.partition(distance, k - 1)[k - 1]
+    near = np.flatnonzero(distance <= bound)
+    return near[np.argsort(distance[near], kind="stable")][:k]
 
 
 def schedule_sample(tape: pd.DataFrame, loans: pd.DataFrame, prep: Prepared, per_segment: int) -> pd.DataFrame:
