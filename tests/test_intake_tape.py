@@ -414,3 +414,32 @@ def test_as_of_is_the_boundary(tmp_path, config):
     on = with_field(GOOD, "origination_date", dt.date(2026, 9, 30).isoformat())
     result = read_tape(tape(tmp_path, on), config)
     assert result.rows_accepted == 1
+
+
+def test_a_character_across_the_scan_blocks_is_text(tmp_path, config):
+    # The scan checks UTF-8 4 MiB at a time, ASCII blocks in one pass: a two-byte character
+    # cut by a block boundary is finished by the next block, not refused.
+    from allowance.intake.files import _CHUNK
+
+    lines = [GOOD.replace("L1", f"L{i}") for i in range((_CHUNK - 1000) // (len(GOOD) + 8))]
+    prefix = ("\n".join([HEADER, *lines]) + "\n").encode()
+    first = with_field(GOOD.replace("L1", "Lz"), "grade", "\u00e9").encode().index(b"\xc3")
+    pad = _CHUNK - 1 - len(prefix) - first  # the character's first byte ends the first block
+    assert pad > 0
+    last = with_field(GOOD.replace("L1", "Lz" + "x" * pad), "grade", "\u00e9").encode()
+    data = prefix + last + b"\n"
+    assert data[_CHUNK - 1:_CHUNK + 1] == "\u00e9".encode()
+    path = tmp_path / "across.csv"
+    path.write_bytes(data)
+    result = read_tape(path, config)
+    assert result.rows_read == len(lines) + 1
+    grades = set(result.accepted["grade"].dropna()) | set(result.rejected.get("grade", pd.Series()).dropna())
+    assert "\u00e9" in grades
+
+
+def test_a_file_ending_inside_a_character_is_refused(tmp_path, config):
+    path = tmp_path / "cut.csv"
+    data = "\n".join([HEADER, GOOD]).encode() + "\n".encode() + with_field(GOOD, "grade", "\u00e9").encode()[:-1]
+    path.write_bytes(data[:-1] + b"\xc3")
+    with pytest.raises(InputFileError, match="ends inside a character"):
+        read_tape(path, config)

@@ -56,12 +56,15 @@ def _count(block: np.ndarray, byte: int) -> int:
     return int(np.count_nonzero(block == byte))
 
 
-def scan(path: Path, role: str, *, text: bool = False) -> Scan:
-    """Hash the file in one pass; ``text=True`` also checks its start is UTF-8 and counts line endings and quotes."""
+def scan(path: Path, role: str, *, text: bool = False, utf8: bool = False) -> Scan:
+    """Hash the file in one pass; ``text=True`` also checks its start is UTF-8 and counts line
+    endings and quotes; ``utf8=True`` (with ``text``) checks that the whole file is UTF-8 and
+    raises :func:`check_text`'s error (naming the first bad byte's offset) when it is not."""
     path = Path(path)
     digest = hashlib.sha256()
     newlines = quotes = 0
     last = b""
+    decoder = codecs.getincrementaldecoder("utf-8")() if text and utf8 else None
     try:
         with path.open("rb") as handle:
             first = True
@@ -70,6 +73,13 @@ def scan(path: Path, role: str, *, text: bool = False) -> Scan:
                     check_text_block(block, path)
                 first = False
                 digest.update(block)
+                # ASCII is UTF-8: only a block with other bytes (or one that must finish a
+                # character the block before began) goes through the decoder
+                if decoder is not None and (decoder.getstate()[0] or not block.isascii()):
+                    try:
+                        decoder.decode(block, final=False)
+                    except UnicodeDecodeError:
+                        check_text(path)
                 if text:
                     array = np.frombuffer(block, dtype=np.uint8)
                     newlines += _count(array, 10)
@@ -83,6 +93,8 @@ def scan(path: Path, role: str, *, text: bool = False) -> Scan:
                     if b'"' in block:
                         quotes += _count(array, 34)
                 last = block[-1:]
+            if decoder is not None and decoder.getstate()[0]:
+                check_text(path)  # the file ends inside a character
     except FileNotFoundError as err:
         raise InputFileError("file not found", file=path, hint="check the path") from err
     except IsADirectoryError as err:

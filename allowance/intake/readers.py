@@ -103,12 +103,13 @@ _LINE_BREAK = "\r\n|\r|\n"
 
 
 def _scan_in_background(path: Path) -> tuple[threading.Thread, dict[str, object]]:
-    """Hash the file while Arrow parses it (hashlib releases the GIL)."""
+    """Hash the file and check that it is UTF-8 while Arrow parses it (hashlib releases the GIL;
+    an ASCII block is told in one pass over its bytes)."""
     box: dict[str, object] = {}
 
     def work() -> None:
         try:
-            box["scan"] = scan(path, "tape", text=True)
+            box["scan"] = scan(path, "tape", text=True, utf8=True)
         except BaseException as err:  # handed to the caller, which raises it
             box["error"] = err
 
@@ -164,6 +165,7 @@ def read_csv(path: Path, sheet: str | None = None, typed: bool = False) -> RawTa
                 null_values=[""],
                 strings_can_be_null=True,
                 quoted_strings_can_be_null=True,
+                check_utf8=False,  # the scan checks the whole file (the same error, with the byte's offset)
             ),
         )
 
