@@ -61,11 +61,13 @@ def _tape(tape: Tape) -> Path | pd.DataFrame:
     return tape if isinstance(tape, pd.DataFrame) else Path(tape)
 
 
-def _read_tape(tape: Path | pd.DataFrame, config: RunConfig, map: Callable | None = None) -> intake.IntakeResult:
+def _read_tape(tape: Path | pd.DataFrame, config: RunConfig, map: Callable | None = None, *,
+               accepted_later: bool = False) -> intake.IntakeResult:
     """The tape through intake: a folder of Parquet files always part by part, a Parquet file
-    part by part when the engine has a ``map`` (its row groups validated where they run)."""
+    part by part when the engine has a ``map`` (its row groups validated where they run).
+    ``accepted_later``: the accepted frame built only when read (a check needs its count and total)."""
     if isinstance(tape, pd.DataFrame) or not (tape.is_dir() or (map is not None and intake.is_partitioned(tape))):
-        return intake.read_tape(tape, config)
+        return intake.read_tape(tape, config, accepted_later=accepted_later)
     return intake.read_parts(tape, config, **({"map": map} if map is not None else {}))
 
 
@@ -155,7 +157,7 @@ def check(tape: Tape, assumptions: Source, *, overlays: Sequence[Source] = (),
         A file cannot be read, or the assumptions are invalid (naming the file and key).
     """
     config = _config(assumptions, overlays)
-    taken = _read_tape(_tape(tape), config)
+    taken = _read_tape(_tape(tape), config, accepted_later=True)
     return CheckResult(intake=taken, tie_out=_tie_out(taken, config, ledger_balance))
 
 

@@ -443,3 +443,26 @@ def test_a_file_ending_inside_a_character_is_refused(tmp_path, config):
     path.write_bytes(data[:-1] + b"\xc3")
     with pytest.raises(InputFileError, match="ends inside a character"):
         read_tape(path, config)
+
+
+def test_an_accepted_frame_built_later_is_the_same_frame(tmp_path, config):
+    # ``allowance check`` reads only the accepted rows' count and balance total; the frame is
+    # built when first read and must be the one read_tape builds at once.
+    import pickle
+
+    from allowance.intake import tie_out
+    from allowance.intake.results import Later
+
+    path = tape(tmp_path, GOOD, CARD, with_field(GOOD.replace("L1", "L2"), "balance", "x"),
+                with_field(GOOD.replace("L1", "L3"), "balance", "2500.25"))
+    now = read_tape(path, config)
+    later = read_tape(path, config, accepted_later=True)
+    assert isinstance(later.__dict__["_accepted_held"], Later)
+    assert later.rows_accepted == now.rows_accepted == 3 and later.rows_rejected == 1
+    assert later.accepted_balance() == now.accepted_balance() == 1000.50 + 500 + 2500.25
+    assert tie_out(later, 4000.0, 0.01) == tie_out(now, 4000.0, 0.01)
+    assert isinstance(later.__dict__["_accepted_held"], Later)  # still not built
+    copy = pickle.loads(pickle.dumps(later))  # pickled as the frame it builds
+    pd.testing.assert_frame_equal(later.accepted, now.accepted)
+    pd.testing.assert_frame_equal(copy.accepted, now.accepted)
+    assert later.rows_accepted == 3

@@ -2,11 +2,55 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from allowance.schemas import InputFile
+
+
+class Later:
+    """A frame handed over before it is built: its row count, its balance total, and the
+    function that builds it on first read (then kept). Pickled as the frame it builds."""
+
+    __slots__ = ("rows", "balance", "_build", "_frame")
+
+    def __init__(self, build: Callable[[], pd.DataFrame], rows: int, balance: float) -> None:
+        self.rows, self.balance, self._build, self._frame = rows, balance, build, None
+
+    def frame(self) -> pd.DataFrame:
+        if self._frame is None:
+            self._frame, self._build = self._build(), None
+        return self._frame
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        return (_same, (self.frame(),))
+
+
+def _same(value: Any) -> Any:
+    return value
+
+
+class _MaybeLater:
+    """A dataclass field that may be given as a :class:`Later`: built when first read."""
+
+    def __set_name__(self, owner: type, name: str) -> None:
+        self.slot = f"_{name}_held"
+
+    def __get__(self, obj: Any, owner: type | None = None) -> Any:
+        if obj is None:
+            raise AttributeError(self.slot)  # no default: the field is required
+        value = obj.__dict__[self.slot]
+        if isinstance(value, Later):
+            value = value.frame()
+            obj.__dict__[self.slot] = value
+        return value
+
+    def __set__(self, obj: Any, value: Any) -> None:
+        obj.__dict__[self.slot] = value
 
 
 @dataclass(frozen=True)
@@ -30,9 +74,12 @@ class IntakeResult:
               computed where its parts were read keeps them there); None: ``len(accepted)``
     extra_columns  the file's columns that are not in the data dictionary (as written), carried
               through to loans.csv untouched
+
+    ``accepted`` may be handed over as a :class:`Later` (``allowance check`` reads only its
+    row count and balance total): it is built the first time it is read.
     """
 
-    accepted: pd.DataFrame
+    accepted: pd.DataFrame = _MaybeLater()  # type: ignore[assignment]
     rejected: pd.DataFrame
     findings: pd.DataFrame
     rows_read: int
@@ -48,7 +95,17 @@ class IntakeResult:
 
     @property
     def rows_accepted(self) -> int:
-        return len(self.accepted) if self.accepted_rows is None else self.accepted_rows
+        if self.accepted_rows is not None:
+            return self.accepted_rows
+        held = self.__dict__["_accepted_held"]
+        return held.rows if isinstance(held, Later) else len(held)
+
+    def accepted_balance(self) -> float:
+        """Σ balance of the accepted rows (a :class:`Later` frame is not built for it)."""
+        held = self.__dict__["_accepted_held"]
+        if isinstance(held, Later):
+            return held.balance
+        return float(held["balance"].to_numpy(dtype=np.float64).sum())
 
     @property
     def rows_rejected(self) -> int:

@@ -156,7 +156,8 @@ def field_rules(cols: TapeColumns) -> Iterator[Findings]:
                 yield _findings(rows, name, "missing_value", [f"{name} is blank but required ({_about(spec)})"] * rows.size)
         rows = np.flatnonzero(parsed.bad)
         if rows.size:
-            yield _findings(rows, name, _BAD_CODE[spec.kind], [_bad_message(spec, t) for t in cols.text(name, rows)])
+            words = _bad_words(spec)
+            yield _findings(rows, name, _BAD_CODE[spec.kind], [_bad_message(spec, t, words) for t in cols.text(name, rows)])
         if parsed.not_whole is not None:
             rows = np.flatnonzero(parsed.not_whole)
             if rows.size:
@@ -166,15 +167,19 @@ def field_rules(cols: TapeColumns) -> Iterator[Findings]:
             yield from _bounds(cols, spec, parsed)
 
 
-def _bad_message(spec: FieldSpec, text: str | None) -> str:
-    words = {
+def _bad_words(spec: FieldSpec) -> str:
+    """What a value of the column that cannot be read is not, in words."""
+    return {
         "number": "is not a number (write plain decimals such as 1234.56)",
         "whole": "is not a number (write a whole number such as 30)",
         "date": "is not a date (write YYYY-MM-DD; years 1678 to 2261)",
         "boolean": "is not true/false, yes/no, y/n, 1/0 or t/f",
         "choice": f"is not one of {', '.join(spec.choices)}",
-    }
-    message = f"{spec.name} {text!r} {words[spec.kind]}"
+    }[spec.kind]
+
+
+def _bad_message(spec: FieldSpec, text: str | None, words: str | None = None) -> str:
+    message = f"{spec.name} {text!r} {words if words is not None else _bad_words(spec)}"
     given = (text or "").strip()
     if given.startswith("="):
         message += " (a formula: the tape holds the formula, not its value; paste values)"
@@ -194,12 +199,12 @@ def _bounds(cols: TapeColumns, spec: FieldSpec, parsed: Parsed) -> Iterator[Find
     rows = np.flatnonzero(outside)
     if rows.size:
         hint = _percent_hint(spec, parsed)
+        percent = not hint and spec.is_probability
+        said = f" is outside its range: it must be {spec.bounds_text} ({_about(spec)}){hint}"
         messages = []
-        for t, v in zip(cols.text(spec.name, rows), values[rows]):
-            own = ""
-            if not hint and spec.is_probability and 1.0 < v <= 100.0:
-                own = f"; if it is a percent, write it as {v / 100:.10g}"
-            messages.append(f"{spec.name} {t!r} is outside its range: it must be {spec.bounds_text} ({_about(spec)}){hint}{own}")
+        for t, v in zip(cols.text(spec.name, rows), values[rows].tolist()):
+            own = f"; if it is a percent, write it as {v / 100:.10g}" if percent and 1.0 < v <= 100.0 else ""
+            messages.append(f"{spec.name} {t!r}{said}{own}")
         yield _findings(rows, spec.name, "out_of_range", messages)
 
 
@@ -522,15 +527,17 @@ def heloc_terms(cols: TapeColumns) -> Iterator[Findings]:
     known = heloc & dated & ~draw.blank & ~draw.bad
     if not known.any():
         return
-    start = origination.values.astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
-    end = maturity.values.astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
+    helocs = np.flatnonzero(known)  # the months of the HELOCs only: a calendar cast of every row is slow
+    start = origination.values[helocs].astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
+    end = maturity.values[helocs].astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
     term = end - start  # whole calendar months from origination to maturity
     with np.errstate(invalid="ignore"):
-        rows = np.flatnonzero(known & (draw.values >= term))
+        reaches = draw.values[helocs] >= term
+    rows, term = helocs[reaches], term[reaches]
     if rows.size:
         messages = [f"draw_period_months {int(d)} reaches the maturity {m} ({int(t)} months after origination): "
                     "a HELOC repays over the months after its draw period (shorten it, or use interest_only)"
-                    for d, t, m in zip(draw.values[rows], term[rows], _date_text(maturity.values[rows]))]
+                    for d, t, m in zip(draw.values[rows], term, _date_text(maturity.values[rows]))]
         yield _findings(rows, "draw_period_months", "draw_period_to_maturity", messages)
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import difflib
+import functools
 import gc
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -26,7 +27,7 @@ from allowance.intake.fields import FIELDS, INT_COLUMNS
 from allowance.intake.files import check_size, file_kind
 from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_arrow, parse_dates
 from allowance.intake.readers import Malformed, RawTape, as_text, read_frame, read_raw
-from allowance.intake.results import IntakeResult, extra_columns_note
+from allowance.intake.results import IntakeResult, Later, extra_columns_note
 from allowance.frameworks import rules_for
 from allowance.intake.rules import Findings, TapeColumns, apply_rules, commitment_requirements, segment_requirements
 from allowance.schemas import REQUIRED_COLUMNS, RunConfig, is_result_column
@@ -298,7 +299,8 @@ def _malformed_findings(raw: RawTape, colmap: ColumnMap) -> pd.DataFrame:
     })
 
 
-def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: float | None = None) -> IntakeResult:
+def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: float | None = None,
+              accepted_later: bool = False) -> IntakeResult:
     """Read, parse and validate a loan tape (CSV, XLSX, Parquet or a DataFrame).
 
     Parameters
@@ -312,6 +314,9 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
         and the segments the rows are checked against.
     max_mb
         Largest file read, in MiB; default ``[run] max_input_mb``.
+    accepted_later
+        Build the accepted frame only when it is first read (``allowance check`` needs only
+        its row count and balance total); the counts and findings are the same.
 
     Returns
     -------
@@ -341,7 +346,7 @@ def read_tape(path: Path | str | pd.DataFrame, config: RunConfig, *, max_mb: flo
             path = Path(path)
             check_size(path, max_mb if max_mb is not None else assumptions.run.max_input_mb)
             raw = read_raw(path, file_kind(path), assumptions.tape.sheet, typed=True)
-        return _intake(raw, config, path)
+        return _intake(raw, config, path, later=accepted_later)
 
 
 @contextlib.contextmanager
@@ -362,11 +367,11 @@ def collector_paused() -> Iterator[None]:
             gc.enable()
 
 
-def _intake(raw: RawTape, config: RunConfig, path: Path) -> IntakeResult:
+def _intake(raw: RawTape, config: RunConfig, path: Path, *, later: bool = False) -> IntakeResult:
     """A whole tape as read through the rules, then the as-of check on all of it."""
     if raw.table.num_rows + len(raw.malformed) == 0:
         raise TapeError("has a header but no data rows", file=path, hint="export the tape again with its loans")
-    checked = validate(raw, path, config)
+    checked = validate(raw, path, config, later=later)
     check_as_of_leaves_loans(checked.dates, config.assumptions.run.as_of, path)
     return checked.intake
 
@@ -381,12 +386,13 @@ class Validated:
 
 
 def validate(raw: RawTape, path: Path, config: RunConfig, *,
-             repeated: Mapping[str, Sequence[int]] | None = None) -> Validated:
+             repeated: Mapping[str, Sequence[int]] | None = None, later: bool = False) -> Validated:
     """Apply every row rule to a tape as read: the one validation path of :func:`read_tape` and
     of a tape read part by part (:mod:`allowance.intake.parts`).
 
     ``repeated`` is given for a part: the loan ids the whole tape repeats, with their rows
-    (a part cannot see the other parts' ids).
+    (a part cannot see the other parts' ids). ``later``: the accepted frame is built when it is
+    first read (see :class:`~allowance.intake.results.Later`).
     """
     mapping = config.assumptions.tape.columns
     rows_read = raw.table.num_rows + len(raw.malformed)
@@ -406,7 +412,16 @@ def validate(raw: RawTape, path: Path, config: RunConfig, *,
         if chunk.severity == "reject":
             reject[chunk.rows] = True
     findings = _findings_frame(chunks, cols)
-    accepted = _accepted(cols, raw, colmap, ~reject if reject.any() else None)
+    keep = ~reject if reject.any() else None
+    if later:
+        balance = cols.parsed["balance"].values
+        accepted: pd.DataFrame | Later = Later(
+            functools.partial(_accepted, cols, raw, colmap, keep), rows=cols.rows - int(reject.sum()),
+            # the sum the built frame's balance column gives: the same values in the same order
+            balance=float(np.asarray(balance if keep is None else balance[keep], dtype=np.float64).sum()),
+        )
+    else:
+        accepted = _accepted(cols, raw, colmap, keep)
     rejected = _rejected(raw, reject, findings)
     findings = findings.drop(columns="_pos", errors="ignore")
     if raw.malformed:

@@ -72,7 +72,7 @@ def tie_out(
     (-25.0, 25.0, False)
     """
     if accepted_balance is None:
-        accepted_balance = float(result.accepted["balance"].to_numpy(dtype=np.float64).sum())
+        accepted_balance = result.accepted_balance()
     accepted = float(np.round(accepted_balance, 2))
     rejected, unreadable = _rejected_balance(result)
     if ledger_balance is None:
