@@ -174,6 +174,10 @@ _BOOLEAN_TRUTH = np.array([w.lower() in TRUE_WORDS for w in _BOOLEAN_WORDS] + [F
 
 def parse_boolean(column: Column, spec: FieldSpec) -> Parsed:
     """true/false, yes/no, y/n, 1/0, t/f in any case; blank is False."""
+    true = _mask(pc.equal(column, "true"))
+    blank = _nulls(column)
+    if (true | blank | _mask(pc.equal(column, "false"))).all():  # written as we spell them: two comparisons
+        return Parsed(values=true, blank=blank, bad=np.zeros(len(true), dtype=bool))
     position = pc.index_in(column, value_set=pa.array(_BOOLEAN_WORDS))
     found = np.asarray(pc.fill_null(position, len(_BOOLEAN_WORDS)), dtype=np.int64)
     values = _BOOLEAN_TRUTH[found]
