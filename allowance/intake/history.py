@@ -182,6 +182,8 @@ def read_run_record(path: Path) -> dict:
 _TEXT_COLUMNS = {n for n, f in FIELDS.items() if f.kind in ("text", "choice")} | {"stage_reason"}
 #: read as text too when only some columns are read (pandas leaves dates as text; Arrow would type them)
 _DATE_COLUMNS = {n for n, f in FIELDS.items() if f.kind == "date"}
+#: true/false columns: the tape's flags and the POCI flag a run writes
+_FLAG_COLUMNS = {n for n, f in FIELDS.items() if f.kind == "boolean"} | {"poci"}
 
 
 def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] | None = None) -> PriorRun:
@@ -189,7 +191,8 @@ def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] |
 
     ``role`` names the folder in messages (``prior``, or ``current`` for the later run of
     ``allowance compare``). ``columns``: read only those of them the file has (``loan_id``
-    always), typed by Arrow as the file is parsed; None reads every column.
+    always), typed by Arrow as the file is parsed (flags as booleans, the rest of the
+    non-text columns as float64); None reads every column.
 
     ``loan_id`` and the other text columns are read as text; every numeric column as float64.
 
@@ -238,27 +241,27 @@ def _header(path: Path) -> list[str]:
 
 
 def _some_columns(path: Path, names: list[str]) -> pd.DataFrame:
-    """Only ``names`` of a loans.csv, parsed and typed by Arrow (on its threads): text stays Arrow
-    text, numbers and flags as Arrow infers them, blanks missing (as pandas reads the whole file).
-    A value that does not fit the type Arrow guessed from the first block leaves every column as
-    text, for the reader of each column to name the bad value."""
+    """Only ``names`` of a loans.csv, parsed and typed by Arrow block by block (4 MB at a time:
+    Arrow's whole-file reader held several times the table while it read ahead): text and dates
+    as text, flags as booleans, every other column as float64, blanks missing (as pandas reads
+    the whole file). A value that is not of its column's type reads every column as text, for
+    the reader of each column to name the bad value."""
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
-    text = {c: pa.large_string() for c in names if c in _TEXT_COLUMNS | _DATE_COLUMNS}
+    text = _TEXT_COLUMNS | _DATE_COLUMNS
+    typed = {c: pa.large_string() if c in text else pa.bool_() if c in _FLAG_COLUMNS else pa.float64() for c in names}
 
     def read(types: dict) -> pa.Table:
-        return pacsv.read_csv(path, convert_options=pacsv.ConvertOptions(
-            include_columns=names, column_types=types, null_values=[""], strings_can_be_null=True,
-            quoted_strings_can_be_null=True, true_values=["true", "True", "TRUE"],
-            false_values=["false", "False", "FALSE"]))
+        with pacsv.open_csv(path, read_options=pacsv.ReadOptions(block_size=4 << 20),
+                            convert_options=pacsv.ConvertOptions(
+                                include_columns=names, column_types=types, null_values=[""], strings_can_be_null=True,
+                                quoted_strings_can_be_null=True, true_values=["true", "True", "TRUE"],
+                                false_values=["false", "False", "FALSE"])) as reader:
+            return reader.read_all()
 
     try:
-        table = read(text)
+        table = read(typed)
     except pa.ArrowInvalid:
         table = read({c: pa.large_string() for c in names})
-    # a column with no values at all: missing numbers, as pandas reads it
-    for i, field in enumerate(table.schema):
-        if pa.types.is_null(field.type):
-            table = table.set_column(i, field.name, table.column(i).cast(pa.float64()))
     return table.to_pandas(split_blocks=True, self_destruct=True)

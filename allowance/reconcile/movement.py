@@ -386,7 +386,7 @@ class _LoanRows:
 
     @classmethod
     def of(cls, bridge: Bridge) -> _LoanRows:
-        small = lambda codes: codes.astype(np.int32)  # noqa: E731  (a segment or class code: 4 bytes a loan)
+        small = lambda codes: codes.astype(np.int32, copy=False)  # noqa: E731  (a segment or class code: 4 bytes)
         return cls(loan_ids=bridge.loan_ids, status=bridge.status, segment_prior=small(bridge.segment_prior),
                    segment=small(bridge.segment), class_prior=small(bridge.class_prior), klass=small(bridge.klass),
                    segments=bridge.segments, classes=bridge.classes,

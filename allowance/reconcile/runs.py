@@ -132,8 +132,9 @@ class RunLoans:
 
     @property
     def keys(self) -> pa.Array:
-        """The join key: the id neutralised as a spreadsheet-safe file carries it."""
-        return self._once("keys", lambda: _neutralised(self.ids))
+        """The join key: the id neutralised as a spreadsheet-safe file carries it (made when asked:
+        the join takes it once, a message about one loan again)."""
+        return _neutralised(self.ids)
 
     def id_at(self, i: int) -> str | None:
         return self.ids[i].as_py()
@@ -151,16 +152,19 @@ class RunLoans:
             raise MovementError(f"loan {self.id_at(i)!r}: segment is blank", file=self.source, column="segment",
                                 hint="use the loans.csv the run wrote")
 
-    def cents(self, column: str) -> np.ndarray:
-        """Money in currency units -> whole cents; a blank or non-number is a named error."""
-        return self._once("cents:" + column, lambda: self._cents(self.frame[column], column))
+    def cents(self, column: str, *, keep: bool = False) -> np.ndarray:
+        """Money in currency units -> whole cents; a blank or non-number is a named error.
+        ``keep``: kept for the next framework (a column every framework reads)."""
+        if keep:
+            return self._once("cents:" + column, lambda: self._cents(self.frame[column], column))
+        kept = self._converted.get("cents:" + column)
+        return kept if kept is not None else self._cents(self.frame[column], column)
 
     def optional_cents(self, column: str) -> np.ndarray | None:
         """A money column a run may not carry (older runs): cents, blanks as 0; None when absent."""
         if not self.has(column):
             return None
-        return self._once("cents0:" + column, lambda: self._cents(
-            pd.to_numeric(self.frame[column], errors="coerce").fillna(0.0), column))
+        return self._cents(pd.to_numeric(self.frame[column], errors="coerce").fillna(0.0), column)
 
     def _cents(self, values: pd.Series, column: str) -> np.ndarray:
         numbers = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
@@ -177,8 +181,7 @@ class RunLoans:
         """A discount rate per loan, blanks as 0; NaN for every loan when the run has no such column."""
         if not self.has(column):
             return np.full(len(self), np.nan)
-        return self._once("rate:" + column, lambda: pd.to_numeric(
-            self.frame[column], errors="coerce").fillna(0.0).to_numpy(np.float64))
+        return pd.to_numeric(self.frame[column], errors="coerce").fillna(0.0).to_numpy(np.float64)
 
     def flags(self, column: str) -> np.ndarray:
         """A true/false column (``true``, ``1``, ``yes`` ... as text); False when the run has none."""
@@ -227,6 +230,7 @@ class Book:
         self.rerun = None if rerun is None else RunLoans(rerun, sources["current_at_prior_assumptions"])
         empty = charge_offs is None or len(charge_offs) == 0
         self.charge_offs = None if empty else RunLoans(charge_offs, sources["charge_offs"])
+        self.joined = None  # what every framework's bridge shares (made by the first)
 
     def _parts(self) -> list[RunLoans]:
         """The runs whose ids take part in the join, in the order their loans are numbered."""
@@ -322,10 +326,8 @@ class _Prepared:
 
     ecl: np.ndarray | None
     mod: np.ndarray
-    bal: np.ndarray | None = None
     gross_up: np.ndarray | None = None
     rate: np.ndarray | None = None
-    modified: np.ndarray | None = None
     klass: np.ndarray | None = None  # codes into the framework's classes
 
 
@@ -361,15 +363,15 @@ def _prepare(book: Book, run: RunLoans, framework: Framework, *, modelled_only: 
     run.require_segment()
     ecl = run.cents(final)
     mod = run.cents(modelled) if run.has(modelled) else ecl
-    bal = run.cents("balance")
+    run.cents("balance", keep=True)  # every framework's gross carrying amount (Book's _Joined)
     # CECL: the allowance at purchase of a PCD asset bought in the period (a gross-up)
     gross_up = run.optional_cents("pcd_gross_up")
     rate = run.rate(f"discount_rate_{framework}")
-    modified = run.flags("modified")
+    run.flags("modified")  # checked in turn, read by _Joined
     poci = run.flags("poci")
     stage = run.stage if rules.staged else np.ones(len(run), dtype=np.int64)
     _, of_pair = _class_names(framework)
-    return _Prepared(ecl=ecl, mod=mod, bal=bal, gross_up=gross_up, rate=rate, modified=modified,
+    return _Prepared(ecl=ecl, mod=mod, gross_up=gross_up, rate=rate,
                      klass=of_pair[2 * (stage - 1) + poci])
 
 
@@ -446,6 +448,74 @@ class Bridge:
         return self.segments if dim == "segment" else self.classes
 
 
+@dataclass(frozen=True)
+class _Joined:
+    """What every framework's bridge shares: who is where, the segments, and the gross carrying
+    amount's lines (the balance moves the same whichever allowance is measured)."""
+
+    in_prior: np.ndarray
+    in_current: np.ndarray
+    continuing: np.ndarray
+    charged: np.ndarray  # the joined loans in the prior run with a charge-off, as row numbers
+    status: np.ndarray
+    segment_prior: np.ndarray
+    segment: np.ndarray
+    segment_any: np.ndarray
+    segments: list[str]
+    modified: np.ndarray  # continuing loans flagged modified
+    gross: dict[str, np.ndarray]
+
+
+def _joined(book: Book) -> _Joined:
+    """:class:`_Joined` of the book, made once (after both runs and the charge-offs were checked)."""
+    if book.joined is not None:
+        return book.joined
+    in_co, gco, rec, seg_co = _charge_off_sums(book)
+    n = book.size
+    rows_p, rows_c = book.rows(book.prior), book.rows(book.current)
+    in_p = _spread(rows_p, np.ones(len(rows_p), dtype=bool), n, False)
+    in_c = _spread(rows_c, np.ones(len(rows_c), dtype=bool), n, False)
+    cont, new = in_p & in_c, in_c & ~in_p
+    gone = in_p & ~in_c
+    written, derec = gone & in_co, gone & ~in_co
+    charged = np.flatnonzero(in_p & in_co)
+    Bp = _spread(rows_p, book.prior.cents("balance", keep=True), n)
+    Bc = _spread(rows_c, book.current.cents("balance", keep=True), n)
+    # the gross carrying amount written off: never more than the charge-off
+    wg = np.zeros(n, dtype=np.int64)
+    wg[charged] = np.minimum(Bp[charged], gco[charged])
+    g_new = np.where(new, Bc, 0)
+    g_derecognised = wg - Bp
+    g_derecognised[~gone] = 0
+    g_transfer = Bp - wg
+    g_other = Bc - g_transfer
+    g_transfer[~cont] = 0
+    g_other[~cont] = 0
+
+    segments, seg_codes = book.segments
+    segments = list(segments)
+    seg_p = _spread(rows_p, seg_codes[id(book.prior)].astype(np.int32), n, -1)
+    seg_c = _spread(rows_c, seg_codes[id(book.current)].astype(np.int32), n, -1)
+    seg_any = np.where(in_p, seg_p, np.where(in_c, seg_c, seg_co.astype(np.int32)))
+    # a loan opened and charged off within the period is in neither run: its segment comes
+    # from the charge-off file when it has one, else it is shown apart
+    orphan = seg_any < 0
+    if orphan.any():
+        if UNASSIGNED_SEGMENT not in segments:
+            segments.append(UNASSIGNED_SEGMENT)
+        seg_any[orphan] = segments.index(UNASSIGNED_SEGMENT)
+    book.joined = _Joined(
+        in_prior=in_p, in_current=in_c, continuing=cont, charged=charged,
+        status=np.select([cont, new, written, derec], [0, 1, 2, 3], 4).astype(np.int8),
+        segment_prior=seg_p, segment=seg_c, segment_any=seg_any, segments=segments,
+        modified=cont & _spread(rows_c, book.current.flags("modified"), n, False),
+        gross={"g_opening": Bp, "g_new": g_new, "g_derecognised": g_derecognised, "g_written_off": -wg,
+               "g_transfer": g_transfer, "g_other_changes": g_other, "g_closing": Bc,
+               "gross_charge_off": gco, "recoveries": rec},
+    )
+    return book.joined
+
+
 def bridge(book: Book, framework: Framework, *, months: int | None = None,
            method_changed: frozenset[str] = frozenset(), gross_up: bool = False) -> Bridge:
     """One framework's movement loan by loan: every line's amount in cents.
@@ -457,14 +527,14 @@ def bridge(book: Book, framework: Framework, *, months: int | None = None,
     p = _prepare(book, book.prior, framework)
     c = _prepare(book, book.current, framework)
     a = None if book.rerun is None else _prepare(book, book.rerun, framework, modelled_only=True)
-    in_co, gco, rec, seg_co = _charge_off_sums(book)
+    j = _joined(book)
     n = book.size
     rows_p, rows_c = book.rows(book.prior), book.rows(book.current)
-    in_p = _spread(rows_p, np.ones(len(rows_p), dtype=bool), n, False)
-    in_c = _spread(rows_c, np.ones(len(rows_c), dtype=bool), n, False)
+    cont, not_cont = j.continuing, ~j.continuing
+    new = j.in_current & ~j.in_prior
 
-    P, Pm, Bp = (_spread(rows_p, x, n) for x in (p.ecl, p.mod, p.bal))
-    C, Cm, Bc = (_spread(rows_c, x, n) for x in (c.ecl, c.mod, c.bal))
+    P, Pm = _spread(rows_p, p.ecl, n), _spread(rows_p, p.mod, n)
+    C, Cm = _spread(rows_c, c.ecl, n), _spread(rows_c, c.mod, n)
     if a is not None:
         rows_a = book.rows(book.rerun)
         in_a = np.zeros(max(n, int(rows_a.max()) + 1 if len(rows_a) else 0), dtype=bool)
@@ -484,73 +554,67 @@ def bridge(book: Book, framework: Framework, *, months: int | None = None,
     else:
         A = Cm
 
-    cont, new = in_p & in_c, in_c & ~in_p
-    gone = in_p & ~in_c
-    written, derec = gone & in_co, gone & ~in_co
     # the allowance used by a charge-off: never more than the charge-off, never a negative
     # allowance (a POCI gain is not "written off"); what is left of a leaving loan's
     # allowance is released on derecognition
-    w = np.where(in_p & in_co, np.minimum(np.maximum(P, 0), gco), 0)
-    wg = np.where(in_p & in_co, np.minimum(Bp, gco), 0)
+    w = np.zeros(n, dtype=np.int64)
+    w[j.charged] = np.minimum(np.maximum(P[j.charged], 0), j.gross["gross_charge_off"][j.charged])
     # CECL: a PCD asset bought in the period enters with its purchase-date allowance as a
     # gross-up of amortised cost (ASC 326-20-30-13), not through the provision
-    G = np.where(new & gross_up, _spread(rows_c, c.gross_up, n), 0) if c.gross_up is not None else np.zeros(n, np.int64)
+    G = np.zeros(n, dtype=np.int64)
+    if gross_up and c.gross_up is not None:
+        G[new] = _spread(rows_c, c.gross_up, n)[new]
     # unwind of the discount on the opening (modelled) allowance of continuing loans, at the
     # rate that discounted it: P_m ((1 + r/12)^months - 1)
-    rate = _spread(rows_p, p.rate, n, np.nan)
     unwind = np.zeros(n, dtype=np.int64)
     if months is not None:
-        factor = np.expm1(np.log1p(np.nan_to_num(rate) / 12.0) * months)
-        unwind = np.where(cont & ~np.isnan(rate), np.rint(Pm * factor), 0).astype(np.int64)
-    rest = np.where(cont, A - Pm + w - unwind, 0)
-    modified = cont & _spread(rows_c, c.modified, n, False)
-
-    segments, seg_codes = book.segments
-    segments = list(segments)
-    seg_p = _spread(rows_p, seg_codes[id(book.prior)], n, -1)
-    seg_c = _spread(rows_c, seg_codes[id(book.current)], n, -1)
-    changed_codes = [i for i, s in enumerate(segments) if s in method_changed]
-    changed = np.isin(seg_c, changed_codes) | ("*" in method_changed)
-    change = np.where(cont, Cm - A, 0)  # new loans are valued at the closing assumptions
-
-    seg_any = np.where(in_p, seg_p, np.where(in_c, seg_c, seg_co))
-    # a loan opened and charged off within the period is in neither run: its segment comes
-    # from the charge-off file when it has one, else it is shown apart
-    orphan = seg_any < 0
-    if orphan.any():
-        if UNASSIGNED_SEGMENT not in segments:
-            segments.append(UNASSIGNED_SEGMENT)
-        seg_any = np.where(orphan, segments.index(UNASSIGNED_SEGMENT), seg_any)
+        rate = _spread(rows_p, p.rate, n, np.nan)
+        at = np.flatnonzero(cont & ~np.isnan(rate))
+        unwind[at] = np.rint(Pm[at] * np.expm1(np.log1p(rate[at] / 12.0) * months)).astype(np.int64)
+        del rate
+    # at prior assumptions (remeasurement, or modifications for a loan flagged modified)
+    rest = A - Pm
+    rest += w
+    rest -= unwind
+    rest[not_cont] = 0
+    modified = np.flatnonzero(j.modified)
+    modifications = np.zeros(n, dtype=np.int64)
+    modifications[modified] = rest[modified]
+    rest[modified] = 0
+    # the assumptions' effect: new loans are valued at the closing assumptions
+    change = Cm - A
+    change[not_cont] = 0
+    if "*" in method_changed:
+        model_change, assumptions = change, np.zeros(n, dtype=np.int64)
+    elif method_changed:
+        changed = np.isin(j.segment, [i for i, s in enumerate(j.segments) if s in method_changed])
+        model_change, assumptions = np.where(changed, change, 0), np.where(changed, 0, change)
+    else:
+        model_change, assumptions = np.zeros(n, dtype=np.int64), change
+    overlays = C - Cm
+    overlays -= P
+    overlays += Pm
+    overlays[not_cont] = 0
+    del A, Cm, Pm
+    new_amount = C - G
+    new_amount[~new] = 0
+    derecognised = w - P
+    derecognised[cont | ~j.in_prior] = 0
+    transfer = P - w
+    transfer[not_cont] = 0
+    w = np.negative(w, out=w)
     classes, _ = _class_names(framework)
-    status = np.select([cont, new, written, derec], [0, 1, 2, 3], 4).astype(np.int8)
     amounts = {
         # allowance, cents
-        "opening": P,
-        "new": np.where(new, C - G, 0),
-        "pcd_gross_up": G,
-        "derecognised": np.where(gone, -(P - w), 0),
-        "written_off": -w,
-        "transfer": np.where(cont, P - w, 0),
-        "unwind": unwind,
-        "remeasurement": np.where(modified, 0, rest),
-        "modifications": np.where(modified, rest, 0),
-        "model_change": np.where(changed, change, 0),
-        "assumptions": np.where(changed, 0, change),
-        "overlays": np.where(cont, (C - Cm) - (P - Pm), 0),
-        "closing": C,
-        # gross carrying amount, cents
-        "g_opening": Bp,
-        "g_new": np.where(new, Bc, 0),
-        "g_derecognised": np.where(gone, -(Bp - wg), 0),
-        "g_written_off": -wg,
-        "g_transfer": np.where(cont, Bp - wg, 0),
-        "g_other_changes": np.where(cont, Bc - (Bp - wg), 0),
-        "g_closing": Bc,
-        "gross_charge_off": gco,
-        "recoveries": rec,
+        "opening": P, "new": new_amount, "pcd_gross_up": G, "derecognised": derecognised, "written_off": w,
+        "transfer": transfer, "unwind": unwind, "remeasurement": rest, "modifications": modifications,
+        "model_change": model_change, "assumptions": assumptions, "overlays": overlays, "closing": C,
+        # gross carrying amount, cents (the same for every framework)
+        **j.gross,
     }
     return Bridge(
-        in_prior=in_p, in_current=in_c, status=status, segment_prior=seg_p, segment=seg_c, segment_any=seg_any,
-        class_prior=_spread(rows_p, p.klass, n, -1), klass=_spread(rows_c, c.klass, n, -1),
-        segments=segments, classes=classes, amounts=amounts, loan_ids=book.loan_ids,
+        in_prior=j.in_prior, in_current=j.in_current, status=j.status, segment_prior=j.segment_prior,
+        segment=j.segment, segment_any=j.segment_any,
+        class_prior=_spread(rows_p, p.klass.astype(np.int32), n, -1), klass=_spread(rows_c, c.klass.astype(np.int32), n, -1),
+        segments=j.segments, classes=classes, amounts=amounts, loan_ids=book.loan_ids,
     )
