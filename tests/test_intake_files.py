@@ -197,6 +197,40 @@ def test_read_prior_run(tmp_path):
     assert prior.loans["stage"].dtype == np.float64 and prior.record == {"as_of": "2026-06-30"}
 
 
+def _prior_folder(tmp_path, **changes):
+    frame = {"loan_id": ["007", "'=L2", "L3"], "segment": ["auto", "card", "auto"], "grade": ["A", "B", "C"],
+             "origination_date": ["2020-01-05", "2021-02-03", "2019-12-31"], "stage": [1, 2, 3],
+             "poci": [False, True, False], "balance": [10.0, 20.0, 30.0], "ecl_cecl": [1.5, 2.0, 0.0],
+             "pcd_gross_up": [None, None, None]}
+    frame.update(changes)
+    pd.DataFrame(frame).to_csv(tmp_path / "loans.csv", index=False)
+    (tmp_path / "run.json").write_text(json.dumps({"as_of": "2026-06-30"}), encoding="utf-8")
+    return tmp_path
+
+
+def test_read_prior_run_only_the_columns_asked(tmp_path):
+    """Read typed by Arrow, the columns asked for hold what reading every column gives (the
+    reader's own contract: common practice, no source)."""
+    folder = _prior_folder(tmp_path)
+    asked = {"segment", "stage", "poci", "ecl_cecl", "origination_date", "pcd_gross_up", "not_there"}
+    some = read_prior_run(folder, columns=asked).loans
+    assert list(some.columns) == ["loan_id", "segment", "origination_date", "stage", "poci", "ecl_cecl",
+                                  "pcd_gross_up"]
+    every = read_prior_run(folder).loans
+    pd.testing.assert_frame_equal(some, every[some.columns])
+    assert some["origination_date"].tolist() == ["2020-01-05", "2021-02-03", "2019-12-31"]  # dates stay text
+
+
+def test_a_bad_value_in_a_prior_column_is_named_by_the_movement(tmp_path):
+    from allowance.exceptions import MovementError
+    from allowance.reconcile import movement, movement_columns
+
+    folder = _prior_folder(tmp_path, ecl_cecl=["1.5", "x", "0"])
+    prior = read_prior_run(folder, columns=movement_columns()).loans
+    with pytest.raises(MovementError, match=r"loan \"'=L2\": ecl_cecl is blank or not a number \('x'\)"):
+        movement(prior, prior, None, None, "cecl", sources={"prior": "q2/loans.csv"})
+
+
 def test_read_prior_run_missing_parts(tmp_path):
     with pytest.raises(InputFileError, match="prior run folder was not found"):
         read_prior_run(tmp_path / "none")

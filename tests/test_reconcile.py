@@ -328,6 +328,8 @@ def _one(**changes) -> pd.DataFrame:
         (_one(ecl_ifrs9=[0.1, None]), "ecl_ifrs9 is blank"),
         (_one(stage=[1, 4]), "stage 4"),
         (_one().drop(columns="stage"), "lack column"),
+        (_one(segment=["auto", None]), "loan 'b': segment is blank"),
+        (_one(loan_id=["a", None]), "row 2: loan_id is blank"),
     ],
 )
 def test_bad_runs_are_named_errors(prior, message):
