@@ -390,7 +390,14 @@ class _LoanRows:
         return cls(loan_ids=bridge.loan_ids, status=bridge.status, segment_prior=small(bridge.segment_prior),
                    segment=small(bridge.segment), class_prior=small(bridge.class_prior), klass=small(bridge.klass),
                    segments=bridge.segments, classes=bridge.classes,
-                   cents={line: bridge.amounts[line] for line in _LOAN_MONEY})
+                   cents={line: _compact(bridge.amounts[line]) for line in _LOAN_MONEY})
+
+
+def _compact(cents: np.ndarray) -> np.ndarray:
+    """Cents as int32 where every amount fits (most lines of most books: 4 bytes a loan, not 8)."""
+    if len(cents) and np.abs(cents).max() < 2**31 - 1:
+        return cents.astype(np.int32)
+    return cents
 
 
 def _loan_table(rows: _LoanRows | None, start: int = 0, stop: int | None = None) -> pd.DataFrame:
