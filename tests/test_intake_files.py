@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import json
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -139,6 +140,30 @@ def test_tie_out_explains_the_rejected_balance(result):
     assert "2 rejected row(s) carry 300.30" in tie.explanation
     assert "1 rejected row(s) have no readable balance" in tie.explanation
     assert "the rejected rows explain the whole difference" in tie.explanation
+
+
+def test_tie_out_counts_a_huge_rejected_balance_as_unreadable(tmp_path):
+    """A rejected balance of 1e308 or 1e20 cannot be added to the cent (float64 holds every
+    cent only up to 2**53 cents, IEEE 754 binary64); the explanation counts it as unreadable
+    instead of carrying an infinite total, and numpy warns of no overflow."""
+    path = tmp_path / "a.toml"
+    path.write_text(INTAKE_ASSUMPTIONS, encoding="utf-8")
+    tape = tmp_path / "t.csv"
+    tape.write_text("\n".join([
+        HEADER,
+        "L1,retail,level,2024-01-15,2030-01-15,1000.10,0.05,0",
+        "L2,retail,level,2024-01-15,2030-01-15,1e308,0.05,0",
+        "L3,retail,level,2024-01-15,2030-01-15,1e20,0.05,0",
+        "L4,retail,level,2024-01-15,2030-01-15,-300.30,0.05,0",
+    ]) + "\n", encoding="utf-8")
+    taken = read_tape(tape, load_assumptions(path))
+    assert taken.rows_rejected == 3
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        tie = tie_out(taken, 700.0, 0.01)
+    assert tie.rejected_balance == -300.30
+    assert "inf" not in tie.explanation
+    assert "3 rejected row(s) carry -300.30; 2 rejected row(s) have no readable balance" in tie.explanation
 
 
 def test_tie_out_within_tolerance_and_rounding(result):

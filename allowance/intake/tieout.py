@@ -13,15 +13,23 @@ def _money(value: float) -> str:
     return f"{value:,.2f}"
 
 
+#: The largest balance a rejected row may carry into the tie-out's explanation: 2**53 cents
+#: over 100, where float64 still holds every cent (a rejected '1e308' summed with the rest
+#: would make the explanation's total infinite; one beyond this is counted as unreadable).
+_SUMMABLE = 2.0**53 / 100
+
+
 def _rejected_balance(result: IntakeResult) -> tuple[float, int]:
-    """The balance on rejected rows that can be read as a number, and how many could not."""
+    """The balance on rejected rows that can be read as a number no larger than
+    :data:`_SUMMABLE`, and how many could not."""
     rejected = result.rejected
     column = _balance_header(result)
     if column is None or rejected.empty:
         return 0.0, len(rejected)
     text = rejected[column].astype("str").str.strip()
     values = pd.to_numeric(text, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-    readable = np.isfinite(values)
+    with np.errstate(invalid="ignore"):  # NaN compares False: unreadable
+        readable = np.abs(values) <= _SUMMABLE
     return float(np.round(values[readable].sum(), 2)), int((~readable).sum())
 
 
@@ -94,7 +102,8 @@ def tie_out(
     ]
     if difference != 0:
         if result.rows_rejected:
-            unread = f"; {unreadable} rejected row(s) have no readable balance" if unreadable else ""
+            unread = (f"; {unreadable} rejected row(s) have no readable balance (blank, not a number, "
+                      "or too large to add to the cent)" if unreadable else "")
             parts.append(f"{result.rows_rejected} rejected row(s) carry {_money(rejected)}{unread}")
         rest = round(difference + rejected, 2)
         cents = 0.01 * max(result.rows_read, 1)
