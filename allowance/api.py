@@ -315,6 +315,7 @@ def run(
         ledger (:class:`TieOutError`) and the difference was not accepted.
     """
     from allowance import disclosure, engine, macro, reconcile, report
+    from allowance.memory import give_back
     from allowance.report import clock
     started = time.perf_counter()
     started_at = clock.now()
@@ -394,8 +395,8 @@ def run(
         told("what-if", 1, 1)
 
     movements = None
-    at_prior = None
-    previous = None
+    rerun = False  # whether this tape was rerun at the prior run's assumptions
+    prior_loans = None  # the prior run's loans the vintage disclosure reads (with charge-offs)
     cos = None
     if prior is not None:
         told("prior", 0, 1)
@@ -414,11 +415,19 @@ def run(
             prior_as_of=_record_as_of(previous.record), current_as_of=config.as_of,
             method_changes=_method_changes(previous.record, config.assumptions.model_dump(mode="json")),
         )
+        rerun = at_prior is not None
+        if cos is not None:  # the write-offs' vintages: the prior run's dates of its loans
+            prior_loans = previous.loans[[c for c in ("loan_id", "origination_date", "repayment")
+                                          if c in previous.loans.columns]]
+        # the prior run's other columns and the rerun are not read again: their memory (and what
+        # the movement's working arrays left with the allocators) goes before the report is made
+        previous = at_prior = None
+        give_back()
         told("prior", 1, 1)
 
     config = config.model_copy(update={"inputs": inputs})
     warnings = [*taken.notes, *result.warnings]  # tape-level notes: renamed columns, lines in values
-    if movements is not None and at_prior is None:
+    if movements is not None and not rerun:
         warnings.append("the prior run's assumptions could not be applied to this tape; "
                         "assumption changes are included in remeasurement")
     findings = pd.concat([taken.findings, result.findings], ignore_index=True)
@@ -427,7 +436,7 @@ def run(
                                movements=tuple((movements or {}).values()), started=started_at,
                                extra={"arguments": arguments})
     disclosures = disclosure.disclosure_tables(result.loans, config.as_of, config.frameworks, charge_offs=cos,
-                                               prior_loans=None if previous is None else previous.loans)
+                                               prior_loans=prior_loans)
     run_report = report.RunReport(
         config=config, intake=taken, tie_out=tie, loans=result.loans, overlays=result.overlays, disclosures=disclosures,
         scenarios=result.scenarios, term_structures=result.term_structures,

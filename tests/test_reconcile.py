@@ -338,6 +338,22 @@ def test_bad_runs_are_named_errors(prior, message):
     assert "q2/loans.csv" in str(info.value)
 
 
+def test_a_rerun_in_the_current_runs_order_gives_each_loan_its_own_figures():
+    # the rerun of this quarter's tape lists the current run's loans in the current run's order,
+    # so its rows are taken as the current run's without hashing its ids again; the movement,
+    # loan by loan, is the one of the same rerun given in another order (joined by id), and
+    # each loan's assumptions line is its own C_m - A_m (hand figures, the module docstring)
+    prior, current, rerun, charge_offs = _hand_runs()
+    rerun["ecl_ifrs9_modelled"] = [8.5, 50.0, 32.0, 6.0]  # as _hand_runs: a, b, e, f
+    ordered = movement(prior, current, rerun, charge_offs, "ifrs9")
+    shuffled = movement(prior, current, rerun.iloc[[2, 0, 3, 1]].reset_index(drop=True), charge_offs, "ifrs9")
+    pd.testing.assert_frame_equal(ordered.loans, shuffled.loans)
+    by_loan = ordered.loans.set_index("loan_id")["assumptions"]
+    assert cents(by_loan[["a", "b", "e", "f"]]).tolist() == cents([9.0 - 8.5, 55.0 - 50.0, 30.0 - 32.0, 0.0]).tolist()
+    assert cents(ordered.loans.set_index("loan_id").loc[["a", "b", "e"], "remeasurement"]).tolist() == cents(
+        [8.5 - 10.0, 50.0 - 18.0, 32.0 - 40.0 + 40.0]).tolist()  # A_m - P_m + W (e: 40 of its charge-off used)
+
+
 def test_rerun_must_cover_the_current_tape():
     rerun = pd.DataFrame({"loan_id": ["a"], "ecl_ifrs9_modelled": [0.1]})
     with pytest.raises(MovementError, match="missing from the rerun"):

@@ -61,7 +61,7 @@ from allowance.reconcile.tables import (
 )
 from allowance.schemas import FRAMEWORKS, Framework
 
-__all__ = ["Movement", "compare_runs", "movement"]
+__all__ = ["LoanColumns", "Movement", "compare_runs", "movement"]
 
 
 @dataclass(frozen=True)
@@ -112,6 +112,11 @@ class Movement:
         """Rows ``start:stop`` of :attr:`loans`, made from the movement's codes and cents: a writer
         takes a large book's loan table slice by slice, never all of it at once."""
         return _loan_table(self._loan_rows, start, stop)
+
+    def loan_columns(self, start: int = 0, stop: int | None = None) -> LoanColumns | None:
+        """Rows ``start:stop`` of :attr:`loans` as codes into their labels and whole cents
+        (:class:`LoanColumns`); None when the movement keeps no loans."""
+        return None if self._loan_rows is None else _loan_columns(self._loan_rows, start, stop)
 
     @property
     def net_provision(self) -> float:
@@ -400,30 +405,44 @@ def _compact(cents: np.ndarray) -> np.ndarray:
     return cents
 
 
+@dataclass(frozen=True)
+class LoanColumns:
+    """Rows of a movement's loan table as it is kept: each text column as Arrow text labels and
+    a code per row into them (-1: blank), each money column in whole cents, in the table's
+    column order (text first). What :attr:`Movement.loans` shows, without a label or a float
+    per loan; a writer formats it directly (:mod:`allowance.report.csv_lines`)."""
+
+    text: dict[str, tuple[pa.Array, np.ndarray]]
+    cents: dict[str, np.ndarray]
+
+    def __len__(self) -> int:
+        return len(next(iter(self.cents.values())))
+
+
+def _loan_columns(rows: _LoanRows, start: int = 0, stop: int | None = None) -> LoanColumns:
+    cut = slice(start, stop)
+    ids = rows.loan_ids[start:stop if stop is not None else len(rows.loan_ids)]
+    text = {"loan_id": (ids, np.arange(len(ids), dtype=np.int64))}
+    for name, labels, codes in (("status", STATUSES, rows.status), ("segment_prior", rows.segments, rows.segment_prior),
+                                ("segment", rows.segments, rows.segment), ("class_prior", rows.classes, rows.class_prior),
+                                ("class", rows.classes, rows.klass)):
+        text[name] = (pa.array(labels, pa.large_string()), codes[cut])
+    return LoanColumns(text=text, cents={name: rows.cents[line][cut] for line, name in _LOAN_MONEY.items()})
+
+
 def _loan_table(rows: _LoanRows | None, start: int = 0, stop: int | None = None) -> pd.DataFrame:
     """Per loan: status, prior and current segment and class, every line's amount. The text is
     Arrow's, one label per code taken in one call: no Python string per loan."""
     names = ["loan_id", "status", "segment_prior", "segment", "class_prior", "class", *_LOAN_MONEY.values()]
     if rows is None:
         return pd.DataFrame(columns=names)
-    cut = slice(start, stop)
-
-    def text(labels, codes: np.ndarray):
-        codes = codes[cut]
-        picked = pa.array(labels, pa.large_string()).take(pa.array(codes, mask=codes < 0))
-        return pd.array(picked, dtype="str")
-
-    ids = rows.loan_ids[start:stop if stop is not None else len(rows.loan_ids)]
-    out = {
-        "loan_id": pd.array(ids, dtype="str"),
-        "status": text(STATUSES, rows.status),
-        "segment_prior": text(rows.segments, rows.segment_prior),
-        "segment": text(rows.segments, rows.segment),
-        "class_prior": text(rows.classes, rows.class_prior),
-        "class": text(rows.classes, rows.klass),
-    }
-    for line, name in _LOAN_MONEY.items():
-        out[name] = rows.cents[line][cut] / 100.0
+    columns = _loan_columns(rows, start, stop)
+    out = {}
+    for name, (labels, codes) in columns.text.items():
+        picked = labels if name == "loan_id" else labels.take(pa.array(codes, mask=codes < 0))
+        out[name] = pd.array(picked, dtype="str")
+    for name, cents in columns.cents.items():
+        out[name] = cents / 100.0
     return pd.DataFrame(out)
 
 

@@ -241,15 +241,21 @@ class Book:
     def _join(self) -> tuple[dict[int, np.ndarray], int, pa.Array]:
         """Every run's rows among the joined loans, their number, and the keys of them all."""
         parts = self._parts()
-        keys = pa.chunked_array([r.keys for r in parts], type=pa.large_string()).combine_chunks()
+        # the rerun of this quarter's tape gives the current run's ids in the current run's
+        # order (it is the same tape): its rows are the current run's, not hashed again
+        same = self.rerun in parts and self.current in parts and self.rerun.ids.equals(self.current.ids)
+        hashed = [r for r in parts if not (same and r is self.rerun)]
+        keys = pa.chunked_array([r.keys for r in hashed], type=pa.large_string()).combine_chunks()
         if keys.null_count:
-            self._blank_ids(parts)
+            self._blank_ids(hashed)
         encoded = keys.dictionary_encode()
         codes = _codes(encoded)
         rows, start = {}, 0
-        for r in parts:
+        for r in hashed:
             rows[id(r)] = codes[start:start + len(r)]
             start += len(r)
+        if same:
+            rows[id(self.rerun)] = rows[id(self.current)]
         # the rerun's ids come last: one it has beyond the two runs and the charge-offs is not joined
         joined = sum(len(r) for r in parts if r is not self.rerun)
         n = int(codes[:joined].max()) + 1 if joined else 0

@@ -34,6 +34,7 @@ import pyarrow.csv as pa_csv
 from allowance.exceptions import OutputError
 from allowance.intake import IntakeResult
 from allowance.memory import give_back
+from allowance.report.csv_lines import csv_lines
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
@@ -128,21 +129,34 @@ def _write_slices(path: Path, part: Callable[[int], pa.Table], rows: int) -> Non
     outside the GIL; a million loans' detail took 4-5 s on one core), written in order, at
     most two slices a thread in memory. The bytes are those of one pass: Arrow's writer
     keeps no state between slices but the header, written with the first."""
-    starts = list(range(0, max(rows, 1), _CSV_SLICE_ROWS))
-
     def text(start: int) -> pa.Buffer:
-        sink = pa.BufferOutputStream()
-        pa_csv.write_csv(part(start), sink, write_options=pa_csv.WriteOptions(
-            quoting_style="needed", include_header=start == 0))
-        return sink.getvalue()
+        return _arrow_text(part(start), header=start == 0)
 
-    threads = max(1, min(os.cpu_count() or 1, 4, len(starts)))
+    _write_texts(path, text, list(range(0, max(rows, 1), _CSV_SLICE_ROWS)))
+
+
+def _arrow_text(table: pa.Table, *, header: bool) -> pa.Buffer:
+    sink = pa.BufferOutputStream()
+    pa_csv.write_csv(table, sink, write_options=pa_csv.WriteOptions(quoting_style="needed", include_header=header))
+    return sink.getvalue()
+
+
+def _write_texts(path: Path, text: Callable[[object], object], slices: list) -> None:
+    """``text(s)`` of every slice ``s``, made on up to four threads, written in order (at most
+    two slices a thread in memory)."""
+    threads = max(1, min(os.cpu_count() or 1, 4, len(slices)))
     with open(path, "wb") as out, ThreadPoolExecutor(threads, thread_name_prefix="allowance-csv") as pool:
-        pending = [pool.submit(text, start) for start in starts[: 2 * threads]]
-        for following in starts[2 * threads:] + [None] * min(len(starts), 2 * threads):
+        pending = [pool.submit(text, s) for s in slices[: 2 * threads]]
+        for following in slices[2 * threads:] + [None] * min(len(slices), 2 * threads):
             out.write(pending.pop(0).result())
             if following is not None:
                 pending.append(pool.submit(text, following))
+
+
+#: From this many rows the movement's loan table is formatted from its cents by a compiled
+#: loop (:mod:`allowance.report.csv_lines`, the same bytes); a smaller one, by Arrow, is not
+#: worth compiling the loop for in a fresh process
+_COMPILED_FROM_ROWS = 100_000
 
 
 def _movement_loans_csv(movements, path: Path) -> None:
@@ -150,7 +164,11 @@ def _movement_loans_csv(movements, path: Path) -> None:
 
     Each slice is made from the movement's codes and cents as it is written (Movement.loan_table):
     a million loans' table for each framework, and their concatenation, are never held whole.
-    The bytes are those :func:`_csv` writes for the concatenated tables."""
+    The bytes are those :func:`_csv` writes for the concatenated tables. A large table is
+    formatted from the codes and cents themselves (:func:`allowance.report.csv_lines.csv_lines`,
+    Arrow's bytes; a slice with an amount beyond what it formats goes through Arrow): Arrow's
+    formatting of the floats was most of the time of writing the file.
+    """
     moves = list(movements)
     if not moves:
         raise ValueError("no movement to write")
@@ -178,12 +196,33 @@ def _movement_loans_csv(movements, path: Path) -> None:
         _csv(rows(0, total), path)  # an empty movement: what _csv makes of it
         return
 
-    def part(start: int) -> pa.Table:
-        frame = rows(start, min(start + _CSV_SLICE_ROWS, total))
+    def table(frame: pd.DataFrame) -> pa.Table:
         return neutralise_table(pa.Table.from_pandas(frame, schema=schema, preserve_index=False)
                                 .replace_schema_metadata(None))
 
-    _write_slices(path, part, total)
+    if total < _COMPILED_FROM_ROWS:
+        _write_slices(path, lambda start: table(rows(start, min(start + _CSV_SLICE_ROWS, total))), total)
+        return
+
+    def neutralised(labels: pa.Array) -> pa.Array:
+        return neutralise_table(pa.table({"text": labels})).column(0).combine_chunks()
+
+    def text(piece: tuple[int, int, int] | None) -> object:
+        if piece is None:  # the header, as Arrow writes it with the first slice
+            return _arrow_text(table(rows(0, 0)), header=True)
+        i, start, stop = piece
+        columns = moves[i].loan_columns(start, stop)
+        framework = (neutralised(pa.array([moves[i].framework], pa.large_string())),
+                     np.zeros(stop - start, dtype=np.int64))
+        made = csv_lines([framework, *((neutralised(labels), codes) for labels, codes in columns.text.values())],
+                         list(columns.cents.values()))
+        if made is None:  # an amount beyond what csv_lines formats: this slice as Arrow writes it
+            offset = sum(sizes[:i])
+            return _arrow_text(table(rows(offset + start, offset + stop)), header=False)
+        return made
+
+    _write_texts(path, text, [None] + [(i, start, min(start + _CSV_SLICE_ROWS, n)) for i, n in enumerate(sizes)
+                                       for start in range(0, n, _CSV_SLICE_ROWS)])
 
 
 def write_table_csv(path: Path, frame: pd.DataFrame) -> Path:
