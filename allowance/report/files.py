@@ -34,7 +34,6 @@ import pyarrow.csv as pa_csv
 from allowance.exceptions import OutputError
 from allowance.intake import IntakeResult
 from allowance.memory import give_back
-from allowance.report.csv_lines import csv_lines
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
@@ -203,6 +202,8 @@ def _movement_loans_csv(movements, path: Path) -> None:
     if total < _COMPILED_FROM_ROWS:
         _write_slices(path, lambda start: table(rows(start, min(start + _CSV_SLICE_ROWS, total))), total)
         return
+
+    from allowance.report.csv_lines import csv_lines  # here: numba is not imported by a run without it
 
     def neutralised(labels: pa.Array) -> pa.Array:
         return neutralise_table(pa.table({"text": labels})).column(0).combine_chunks()
