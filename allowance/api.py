@@ -28,6 +28,7 @@ import os
 import shutil
 import time
 import tomllib
+from concurrent.futures import ThreadPoolExecutor
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date
@@ -349,6 +350,14 @@ def run(
         return _run_book(source, config, Path(loans_parquet), map=map, chunk_size=chunk_size, progress=progress,
                          ledger_balance=ledger_balance, accept=accept_ledger_difference, sensitivities=sensitivities,
                          arguments=arguments, started=(started, started_at))
+    # the prior run's folder is read (its loans.csv parsed, its files hashed) on a thread of its
+    # own while the tape is read and computed: Arrow parses and hashlib hashes outside the GIL, on
+    # the core the single-threaded steps leave idle. Its errors are raised where it is used.
+    reading_prior = None
+    if prior is not None and not isinstance(prior, Result):
+        reader = ThreadPoolExecutor(1, thread_name_prefix="allowance-prior")
+        reading_prior = reader.submit(_prior, prior, vintages=charge_offs is not None)
+        reader.shutdown(wait=False)  # the thread ends with its one task
     told("read", 0, 1)
     taken = _read_tape(source, config, map)
     taken.require_accepted()  # a run of no loans is not a run: exit 1 with the commonest reasons
@@ -400,7 +409,9 @@ def run(
     cos = None
     if prior is not None:
         told("prior", 0, 1)
-        previous, prior_inputs = _prior(prior, vintages=charge_offs is not None)
+        previous, prior_inputs = (reading_prior.result() if reading_prior is not None
+                                  else _prior(prior, vintages=charge_offs is not None))
+        reading_prior = None
         cos, co_inputs, co_source = _charge_offs(charge_offs)
         inputs += co_inputs + prior_inputs
         at_prior = _rerun_at_prior_assumptions(taken.accepted, config, previous.record,

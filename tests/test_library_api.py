@@ -14,6 +14,7 @@ import pandas as pd
 import pytest
 
 import allowance
+from allowance.exceptions import InputFileError
 from tests import books
 
 #: the public names of ``import allowance``; adding one is fine, removing or renaming one
@@ -120,6 +121,20 @@ def test_prior_and_charge_offs_as_objects(from_files, tmp_path):
         table = mv.allowance.set_index("line")["total"]
         assert round(table["opening"] * 100) == round(before.record["total_allowance"][fw] * 100)
         assert round(table["closing"] * 100) == round(now.record["total_allowance"][fw] * 100)
+
+
+def test_a_prior_folder_read_beside_the_tape_reports_its_errors_in_turn(tmp_path):
+    # the prior run's folder is read on a thread while the tape is read and computed: a tape
+    # refused against the ledger is still the error a run reports first, and a missing prior
+    # folder is then named as before
+    part = _tape_frame().head(200)
+    missing = tmp_path / "no-such-run"
+    with pytest.raises(allowance.AllowanceError, match="ledger"):
+        allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, prior=missing)
+    with pytest.raises(InputFileError, match="prior run folder was not found") as info:
+        allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, prior=missing,
+                      accept_ledger_difference=True)
+    assert "no-such-run" in str(info.value)
 
 
 def test_progress_is_told_and_a_partial_tape_must_be_accepted_against_the_ledger():
