@@ -354,6 +354,22 @@ def test_a_rerun_in_the_current_runs_order_gives_each_loan_its_own_figures():
         [8.5 - 10.0, 50.0 - 18.0, 32.0 - 40.0 + 40.0]).tolist()  # A_m - P_m + W (e: 40 of its charge-off used)
 
 
+def test_each_frameworks_loan_lines_are_its_own_when_compared_together():
+    # compared together, the frameworks share the gross carrying amount's lines (one compacted
+    # copy kept for both); each framework's loan table is still the one it has compared alone
+    prior, current, rerun, charge_offs = _hand_runs()
+    for frame in (prior, current):
+        frame["ecl_cecl"], frame["ecl_cecl_modelled"] = frame["ecl_ifrs9"] * 3, frame["ecl_ifrs9_modelled"] * 3
+    rerun["ecl_cecl_modelled"] = rerun["ecl_ifrs9_modelled"] * 3
+    together = compare_runs(prior, current, current_at_prior_assumptions=rerun, charge_offs=charge_offs)
+    for fw in ("ifrs9", "cecl"):
+        pd.testing.assert_frame_equal(together[fw].loans, movement(prior, current, rerun, charge_offs, fw).loans)
+    ifrs9, cecl = together["ifrs9"].loans, together["cecl"].loans
+    assert cents(cecl["opening"]).tolist() == (3 * cents(ifrs9["opening"])).tolist()
+    assert cents(cecl["balance_prior"]).tolist() == cents(ifrs9["balance_prior"]).tolist() == cents(
+        [1000.0, 2000.0, 500.0, 300.0, 800.0, 0.0]).tolist()  # a, b, c, d, e as _hand_runs; f new
+
+
 def test_rerun_must_cover_the_current_tape():
     rerun = pd.DataFrame({"loan_id": ["a"], "ecl_ifrs9_modelled": [0.1]})
     with pytest.raises(MovementError, match="missing from the rerun"):

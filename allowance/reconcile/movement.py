@@ -295,7 +295,7 @@ def _movement(book: Book, framework: Framework, months: int | None,
         gross_detail=tables["gross"][1],
         rollforward=roll,
         journal=journal(roll, framework, _presented(book, framework)),
-        _loan_rows=_LoanRows.of(loans),
+        _loan_rows=_LoanRows.of(loans, book.compacted),
         assumptions_isolated=book.rerun is not None,
         notes=tuple(notes),
         write_offs=write_off_bridge(loans, framework),
@@ -372,6 +372,9 @@ _LOAN_MONEY = {name: name for name in (
     "g_opening": "balance_prior", "g_closing": "balance", "gross_charge_off": "gross_charge_off",
     "recoveries": "recoveries"}
 
+#: the loan table's lines that are the same for every framework (the bridge's gross carrying amount)
+_SHARED_LINES = frozenset({"g_opening", "g_closing", "gross_charge_off", "recoveries"})
+
 
 @dataclass(frozen=True)
 class _LoanRows:
@@ -390,12 +393,27 @@ class _LoanRows:
     cents: dict[str, np.ndarray]
 
     @classmethod
-    def of(cls, bridge: Bridge) -> _LoanRows:
+    def of(cls, bridge: Bridge, compacted: dict[str, tuple[np.ndarray, np.ndarray]] | None = None) -> _LoanRows:
+        """``compacted``: line -> (the bridge's array, its compacted copy) made for another
+        framework; a line whose array is that same array (the gross carrying amount's lines,
+        shared by every framework's bridge) takes the copy made, so one is kept for all."""
+        compacted = {} if compacted is None else compacted
+
+        def compact(line: str) -> np.ndarray:
+            values = bridge.amounts[line]
+            made = compacted.get(line)
+            if made is not None and made[0] is values:
+                return made[1]
+            small = _compact(values)
+            if line in _SHARED_LINES:
+                compacted[line] = (values, small)  # the book keeps the array alive: no id reused
+            return small
+
         small = lambda codes: codes.astype(np.int32, copy=False)  # noqa: E731  (a segment or class code: 4 bytes)
         return cls(loan_ids=bridge.loan_ids, status=bridge.status, segment_prior=small(bridge.segment_prior),
                    segment=small(bridge.segment), class_prior=small(bridge.class_prior), klass=small(bridge.klass),
                    segments=bridge.segments, classes=bridge.classes,
-                   cents={line: _compact(bridge.amounts[line]) for line in _LOAN_MONEY})
+                   cents={line: compact(line) for line in _LOAN_MONEY})
 
 
 def _compact(cents: np.ndarray) -> np.ndarray:

@@ -231,6 +231,9 @@ class Book:
         empty = charge_offs is None or len(charge_offs) == 0
         self.charge_offs = None if empty else RunLoans(charge_offs, sources["charge_offs"])
         self.joined = None  # what every framework's bridge shares (made by the first)
+        #: the movement's loan lines every framework shares (the gross carrying amount's), as
+        #: compacted for the loan table once: line -> (the shared array, its compacted copy)
+        self.compacted: dict[str, tuple[np.ndarray, np.ndarray]] = {}
 
     def _parts(self) -> list[RunLoans]:
         """The runs whose ids take part in the join, in the order their loans are numbered."""
