@@ -71,6 +71,10 @@ def _lines(data: np.ndarray, offsets: np.ndarray, first: np.ndarray, codes: np.n
                 out[pos] = _COMMA
                 pos += 1
             c = cents[i, j]
+            if c == 0:  # most lines of most loans: no digits to work out
+                out[pos] = _ZERO
+                pos += 1
+                continue
             if c < 0:
                 out[pos] = _MINUS
                 pos += 1
