@@ -280,7 +280,9 @@ def run(
     label
         A name for the run, kept in the run record.
     sensitivities
-        Also rerun with each scenario alone at 100 % weight, restaged (``Result.sensitivity``).
+        Also each scenario alone at 100 % weight (``Result.sensitivity``): computed in the same
+        pass through the loop, equal to a rerun with that scenario alone
+        (:func:`allowance.engine.run`'s ``alone``).
     map
         An executor-style map the engine hands its chunks to (``ProcessPoolExecutor().map``);
         the builtin ``map`` when None. A Parquet tape is then read and validated part by part
@@ -289,7 +291,7 @@ def run(
         Loans per chunk (default :data:`allowance.engine.CHUNK_SIZE`).
     progress
         Called as ``progress(phase, done, total)``: ``"read"`` (the tape), ``"loans"`` (loans
-        computed, of all loans), ``"sensitivities"`` (scenarios rerun), ``"what-if"`` and
+        computed, of all loans), ``"sensitivities"`` (scenarios tabled alone), ``"what-if"`` and
         ``"prior"`` (the extra runs, 0 of 1 then 1 of 1).
     invocation
         How the run was asked for, kept in the run record's ``arguments`` beside this
@@ -369,19 +371,20 @@ def run(
     base_config = _config(assumptions) if overlays else None
     reweighted = ([base_config] if base_config is not None and not _same_model(base_config, config)
                   and engine.only_weights_differ(base_config, config) else [])
-    result = compute(taken.accepted, config, **({"reweighted": reweighted} if reweighted else {}))
+    # the one-scenario sensitivities: each scenario alone at weight 1, weighted again in the same
+    # pass (the loop's per-scenario losses and the stages do not depend on the weights)
+    names = list(config.assumptions.scenarios)
+    alone = names if sensitivities and len(names) > 1 else []
+    result = compute(taken.accepted, config, **({"reweighted": reweighted} if reweighted else {}),
+                     **({"alone": alone} if alone else {}))
     inputs = list(config.inputs)
 
     sensitivity = pd.DataFrame()
-    names = list(config.assumptions.scenarios)
-    if sensitivities and len(names) > 1:
-        alone = {}
-        for i, name in enumerate(names):
-            told("sensitivities", i, len(names))
-            alone[name] = compute(taken.accepted, reconcile.single_scenario(config, name), schedule_sample=0,
-                                  progress=None).loans
+    if alone:
+        told("sensitivities", 0, len(names))
+        sensitivity = reconcile.sensitivity_table(result.loans, result.alone, config)
         told("sensitivities", len(names), len(names))
-        sensitivity = reconcile.sensitivity_table(result.loans, alone, config)
+        result = dataclasses.replace(result, alone={})  # the per-scenario loan figures go once tabled
     # the months the engine's tables cover (a second tape_months costs seconds on a large book)
     months = result.months if result.months is not None else engine.tape_months(taken.accepted, config)
     macro_paths = macro.macro_path_table(config.assumptions, months)

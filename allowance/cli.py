@@ -419,7 +419,7 @@ def run(
     parquet: Annotated[bool, typer.Option("--parquet", help="Also write loans.parquet.")] = False,
     sensitivities: Annotated[
         bool, typer.Option("--sensitivities/--no-sensitivities",
-                           help="Also rerun with each scenario alone at 100 % weight (restaged).")
+                           help="Also each scenario alone at 100 % weight, restaged (in the same pass).")
     ] = True,
     engine: Annotated[
         Engine, typer.Option("--engine", help="Where the loans are computed: this process, or a Dask cluster (same answer).")

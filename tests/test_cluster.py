@@ -31,8 +31,10 @@ def test_run_on_a_cluster_writes_the_in_process_loan_detail_byte_for_byte(tmp_pa
     lines = DEMO_TAPE.read_text(encoding="utf-8").splitlines()
     tape = tmp_path / "tape.csv"
     tape.write_text("\n".join(lines[:301]) + "\n", encoding="utf-8")  # 300 loans, six chunks of 50
-    args = [str(tape), "-a", str(DEMO_ASSUMPTIONS), "--accept-ledger-difference", "--no-sensitivities"]
-    alone = api.run(tape, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False, chunk_size=50)
+    # with the one-scenario sensitivities: each chunk also sends back its loans' modelled ECL
+    # under each scenario alone
+    args = [str(tape), "-a", str(DEMO_ASSUMPTIONS), "--accept-ledger-difference"]
+    alone = api.run(tape, DEMO_ASSUMPTIONS, accept_ledger_difference=True, chunk_size=50)
     alone.write(tmp_path / "alone")
     with distributed.LocalCluster(processes=False, n_workers=2, threads_per_worker=1, dashboard_address=None,
                                   protocol="tcp://", host="127.0.0.1") as cluster:
@@ -43,7 +45,8 @@ def test_run_on_a_cluster_writes_the_in_process_loan_detail_byte_for_byte(tmp_pa
         assert done.returncode == 0, done.stderr
         # the chunks ran on the cluster: its scheduler has seen tasks of the chunk function
         assert "run_chunk" in cluster.scheduler.task_prefixes
-    assert (tmp_path / "spread" / "loans.csv").read_bytes() == (tmp_path / "alone" / "loans.csv").read_bytes()
+    for name in ("loans.csv", "sensitivity.csv"):
+        assert (tmp_path / "spread" / name).read_bytes() == (tmp_path / "alone" / name).read_bytes()
 
 
 def test_results_come_back_in_the_chunks_order_with_shared_arguments_sent_once():

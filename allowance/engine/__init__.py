@@ -94,6 +94,9 @@ class EngineResult:
     months: int | None = None  # the months the book's tables cover (tape_months), None when not computed here
     #: the same book under the other configurations :func:`run` was asked for (``reweighted``), in order
     reweighted: tuple[EngineResult, ...] = ()
+    #: scenario name -> the loans with that scenario alone at weight 1 (:func:`run`'s ``alone``):
+    #: ``ecl_<fw>_modelled``, ``overlay_<fw>``, ``ecl_<fw>``, ``poci`` and (IFRS 9) ``stage``
+    alone: dict[str, pd.DataFrame] = field(default_factory=dict)
 
 
 # --------------------------------------------------------------------------------------
@@ -171,6 +174,7 @@ def run(
     map: Map = builtins.map,  # the executor's word for it
     progress: Progress | None = None,
     reweighted: Iterable[RunConfig] = (),
+    alone: Iterable[str] = (),
 ) -> EngineResult:
     """Compute the allowance for an accepted tape.
 
@@ -196,6 +200,16 @@ def run(
         same pass, the loop run once (:func:`~allowance.engine.chunk.run_chunk`), and comes
         back in ``EngineResult.reweighted`` (without schedule samples; the book-level tables
         are this run's, which the weights do not enter). Each equals ``run(tape, other)``.
+    alone : scenario names
+        Scenarios whose one-scenario sensitivity is computed in the same pass: the book with
+        that scenario alone at weight 1 and this run's overlays, in ``EngineResult.alone``
+        (only what a sensitivity table reads: the modelled ECL, overlays and ECL per
+        framework, the stages). The loop runs once and each scenario's figures are weighted
+        again with one-hot weights (1 for it, 0 for the others), which give its own losses to
+        the bit; the stages, horizons and every scenario's losses do not depend on the
+        weights, and a POCI loan's benchmark is weighted again (IFRS 9 5.5.17(a), B5.5.42,
+        5.5.13; ASC 326-20-30-9). Each equals ``run(tape, single_scenario(config, name))``'s
+        columns to the cent (:func:`allowance.reconcile.single_scenario`).
 
     Notes
     -----
@@ -211,16 +225,21 @@ def run(
             raise ValueError("engine.run: a reweighted configuration differs from the run's in more than "
                              "the scenario weights and the overlays")
     weights = tuple(np.asarray(other.assumptions.weights, float) for other in others)
-    work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}))
+    singles = _one_hot(config, alone)
+    work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}),
+                             **({"alone": tuple(singles.values())} if singles else {}))
 
     chunks = list(_chunks(tape, chunk_size))
     columns: list[list[dict[str, Any]]] = [[] for _ in range(1 + len(others))]  # this run's, then each other's
+    alone_columns: list[list[dict[str, Any]]] = [[] for _ in singles]  # each scenario alone's modelled ECL
     findings: list[pd.DataFrame] = []
     done = 0
     for chunk, part in zip(chunks, map(work, chunks)):
         # rounded as each chunk comes back (rounding is per loan): its unrounded money goes at once
         for i, one in enumerate((part.columns, *part.reweighted)):
             columns[i].append(_round_money(one))
+        for i, one in enumerate(part.alone):
+            alone_columns[i].append(_round_money(one))
         findings.append(part.findings)
         done += len(chunk)
         if progress is not None:
@@ -239,6 +258,9 @@ def run(
             overlay_warnings=tuple(applied.warnings), months=prep.months,
         ))
     main, rest = results[0], results[1:]
+    main = dataclasses.replace(main, alone={name: _alone(pieces, main.loans, config)
+                                            for name, pieces in zip(singles, alone_columns)})
+    alone_columns = []
     tables = {"term_structures": term_structure_table(prep), "roll_rates": roll_rate_table(config),
               "reversion": reversion_view(prep), "pd_paths": pd_path_view(tape, prep)}
     return dataclasses.replace(
@@ -248,6 +270,36 @@ def run(
                                    main.loans, prep, schedule_sample),
         reweighted=tuple(dataclasses.replace(r, **tables) for r in rest),
     )
+
+
+def _one_hot(config: RunConfig, names: Iterable[str]) -> dict[str, np.ndarray]:
+    """Scenario name -> weights of 1 on it and 0 on the run's other scenarios, in their order."""
+    listed = list(config.assumptions.scenarios)
+    out = {}
+    for name in names:
+        if name not in listed:
+            raise KeyError(f"no scenario {name!r}")
+        out[name] = (np.arange(len(listed)) == listed.index(name)).astype(float)
+    return out
+
+
+def _alone(pieces: list[dict[str, Any]], loans: pd.DataFrame, config: RunConfig) -> pd.DataFrame:
+    """A scenario alone's loans from its chunks' rounded modelled ECL: this run's overlays
+    applied to them as :func:`_book` applies them (a percentage scales with the scenario's
+    modelled figure; an amount is allocated pro rata to it), beside the run's stages, which
+    the scenario weights do not enter (:func:`allowance.staging.assign_stages`)."""
+    modelled = {name: _joined([c.pop(name) for c in pieces]) for name in (list(pieces[0]) if pieces else [])}
+    shared = [c for c in ("segment", "stage") if c in loans.columns]
+    scratch = pd.DataFrame({**{c: loans[c] for c in shared}, **modelled}, copy=False)
+    applied = overlays.apply_overlays(scratch, list(config.assumptions.overlays), config.as_of, list(config.frameworks))
+    out: dict[str, Any] = {}
+    for fw in config.frameworks:
+        adj = np.asarray(applied.adjustments[fw], float)
+        out[f"ecl_{fw}_modelled"] = scratch[f"ecl_{fw}_modelled"]
+        out[f"overlay_{fw}"] = adj
+        out[f"ecl_{fw}"] = np.round(modelled[f"ecl_{fw}_modelled"] + adj, CENT_DECIMALS)
+    out.update({c: loans[c] for c in ("stage", "poci") if c in loans.columns})
+    return pd.DataFrame(out, copy=False)
 
 
 def same_stages(one: RunConfig, other: RunConfig) -> bool:

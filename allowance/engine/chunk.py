@@ -282,12 +282,15 @@ class ChunkResult:
               intake findings' columns
     reweighted  the ``columns`` under each of the other scenario weights asked for (see
               :func:`run_chunk`), in the same order
+    alone     ``ecl_<framework>_modelled`` (unrounded) under each of the ``alone`` weights
+              asked for (:func:`run_chunk`), in the same order: nothing else
     """
 
     columns: dict[str, np.ndarray | pd.api.extensions.ExtensionArray]
     index: pd.Index
     findings: pd.DataFrame
     reweighted: tuple[dict[str, np.ndarray | pd.api.extensions.ExtensionArray], ...] = ()
+    alone: tuple[dict[str, np.ndarray], ...] = ()
 
     @property
     def loans(self) -> pd.DataFrame:
@@ -705,8 +708,9 @@ def chunk_inputs(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | Non
     return ChunkInputs(terms, stages, fw, _kernel_inputs(terms, fw, prep))
 
 
-def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray, ...] = ()) -> ChunkResult:
-    """Modelled results (unrounded) for a chunk of accepted loans, and the engine's findings.
+def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray, ...] = (),
+              alone: tuple[np.ndarray, ...] = ()) -> ChunkResult:
+    r"""Modelled results (unrounded) for a chunk of accepted loans, and the engine's findings.
 
     A pure function of its arguments: the same chunk and tables give the same result in any
     process, so an executor's ``map`` may run chunks anywhere (:func:`allowance.engine.run`).
@@ -717,20 +721,33 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
     weights apply to the scenarios' losses), so the loop runs once and only the weighted
     figures are made again; a POCI loan's benchmark is a weighted ECL, so its per-scenario
     allowance follows it (:func:`_purchase_views`).
+
+    ``alone``: more scenario weights, whose modelled ECL per framework alone comes back in
+    ``ChunkResult.alone`` (what a sensitivity reads; the other columns are the run's). With
+    one-hot weights (1 for a scenario, 0 for the rest) it is that scenario's figure at
+    weight 1, to the bit: :math:`1 \cdot x + 0 \cdot y = x` in floating point for finite
+    :math:`y`, and the loop checks every scenario's losses finite.
     """
     c = chunk_inputs(chunk, prep)
     terms, stages, fw = c.terms, c.stages, c.frameworks
     weights = (prep.weights, *reweighted)
-    k, purchases = _losses(chunk, prep, c, weights)
+    k, purchases = _losses(chunk, prep, c, (*weights, *alone))
     drawn = _drawn_only(chunk, prep, c, k)
     loans = [_loan_results(chunk, terms, stages, k, prep if i == 0 else dataclasses.replace(prep, weights=w),
                            purchase, fw, drawn) for i, (w, purchase) in enumerate(zip(weights, purchases))]
+    alone_columns = ()
+    if alone:
+        stage, poci_flag = _stage_and_poci(chunk, c.stages)
+        _, replaced = _individual_measurement(chunk, terms, prep)
+        alone_columns = tuple(_modelled(k, prep, stage, poci_flag, purchase, replaced, w)
+                              for w, purchase in zip(alone, purchases[len(weights):]))
     return ChunkResult(
         columns=loans[0],
         index=chunk.index,
         findings=pd.concat([_payment_findings(chunk, terms.balance, terms.rate, terms.remaining, terms.payment),
                             _refinance_findings(chunk, terms)], ignore_index=True),
         reweighted=tuple(loans[1:]),
+        alone=alone_columns,
     )
 
 
@@ -760,18 +777,33 @@ def modelled_chunk(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | N
     """
     c = chunk_inputs(chunk, prep, stages)
     k, (purchase,) = _losses(chunk, prep, c, (prep.weights,))
-    n = len(chunk)
-    if c.stages is not None:  # as _loan_results reads them
-        stage, poci_flag = c.stages["stage"].to_numpy(), c.stages["poci"].to_numpy()
-    else:
-        stage, poci_flag = np.ones(n, dtype=np.int64), chunk["credit_impaired_at_purchase"].to_numpy(bool)
+    stage, poci_flag = _stage_and_poci(chunk, c.stages)
     _, replaced = _individual_measurement(chunk, c.terms, prep)
-    out: dict[str, object] = {"loan_id": chunk["loan_id"].array}
+    out = _modelled(k, prep, stage, poci_flag, purchase, replaced, prep.weights)
+    return pd.DataFrame({"loan_id": chunk["loan_id"].array, **out}, index=chunk.index)
+
+
+def _stage_and_poci(chunk: pd.DataFrame, stages: pd.DataFrame | None) -> tuple[np.ndarray, np.ndarray]:
+    """Each loan's stage and POCI flag as :func:`_loan_results` reads them (stage 1 throughout
+    where no framework stages)."""
+    if stages is not None:
+        return stages["stage"].to_numpy(), stages["poci"].to_numpy()
+    return np.ones(len(chunk), dtype=np.int64), chunk["credit_impaired_at_purchase"].to_numpy(bool)
+
+
+def _modelled(k: KernelResult, prep: Prepared, stage: np.ndarray, poci_flag: np.ndarray, purchase: _Purchase | None,
+              replaced: np.ndarray, weights: np.ndarray) -> dict[str, np.ndarray]:
+    """``ecl_<framework>_modelled`` under ``weights``: each framework's allowance per scenario
+    (:func:`_allowance`, the POCI loans' against ``purchase``, the benchmark weighted by the
+    same weights) weighted on the losses (IFRS 9 5.5.17(a), B5.5.42), as :func:`_loan_results`
+    computes the column."""
+    n = len(stage)
+    out: dict[str, np.ndarray] = {}
     for f, rules in enumerate(prep.rules):
         carried = purchase.carried[:, f] if purchase is not None else np.full(n, np.nan)
         per_scenario, _ = _allowance(k, f, rules, stage, poci_flag, carried, replaced[f])
-        out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, prep.weights)
-    return pd.DataFrame(out, index=chunk.index)
+        out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, weights)
+    return out
 
 
 @dataclass(frozen=True)

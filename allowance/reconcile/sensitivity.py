@@ -8,6 +8,12 @@ modelled figure. (The PD-ratio test compares each loan's own PD now with its PD 
 origination, both from the tape, so a scenario alone moves no loan on that test.) This differs from the per-scenario columns of ``loans.csv``, which keep the stages
 of the weighted run.
 
+A run computes them without a rerun: the weights apply to each scenario's losses, never to
+the PDs, stages or horizons (IFRS 9 5.5.17(a), B5.5.42; ASC 326-20-30-9), so the engine
+weights its one pass's per-scenario losses again with weights 1 and 0, which give a rerun's
+figures to the cent (:func:`allowance.engine.run`'s ``alone``). :func:`single_scenario` is
+the rerun's configuration, the reference the tests hold it to.
+
 Implements
 ----------
 single_scenario     the run configuration with one scenario alone at weight 1
@@ -93,8 +99,10 @@ def sensitivity_table(weighted: pd.DataFrame, alone: Mapping[str, pd.DataFrame],
     weighted : DataFrame
         Loan results of the probability-weighted run.
     alone : mapping
-        Scenario name -> loan results of the run with that scenario alone
-        (:func:`single_scenario`).
+        Scenario name -> loan results with that scenario alone: a run's ``EngineResult.alone``
+        (:func:`allowance.engine.run` with ``alone``), or a rerun's loans
+        (:func:`single_scenario`); only ``ecl_<fw>_modelled``, ``overlay_<fw>``, ``ecl_<fw>``,
+        ``stage`` and ``poci`` are read.
     config : RunConfig
         The weighted run's configuration (frameworks, scenario weights).
 

@@ -21,6 +21,8 @@ run --prior            the plain run                              1.5 x
 compare                the plain run                              1.5 x
 what-if (weights)      the plain run                              0.5 x extra
 what-if (overlay only) the plain run                              0.5 x extra
+run, sensitivities     the plain run (--no-sensitivities)         0.25 x extra
+  (the default: each scenario alone at 100 %, in the same pass)
 first run, demo        the warm demo run (empty compile cache)    2 x
 check, 1 % bad rows    pandas.read_csv of the same file           2.5 x
 check, Parquet tape    pyarrow.parquet.read_table of the file     2.5 x
@@ -197,6 +199,9 @@ def main() -> None:
         s, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--overlay", str(overlay),
                         "--out", str(work / "overlaid")], env, args.repeat)
         row("what-if (overlay), extra", s - plain, mb, "run", plain, "<= 0.5")
+        s, mb = _timed([*allowance, "run", str(tape), *q3, "--accept-ledger-difference", "--out", str(work / "sens")],
+                       env, args.repeat)
+        row("run, sensitivities, extra", s - plain, mb, "run", plain, "<= 0.25")
 
         demo = [*allowance, "run", str(DEMO / "tape_2026q3.csv"), *q3, "--no-sensitivities", "--out", str(work / "d")]
         cold, _ = _timed(demo, {**env, "NUMBA_CACHE_DIR": str(work / "cold-cache")})
