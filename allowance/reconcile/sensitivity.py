@@ -68,10 +68,14 @@ def single_scenario(config: RunConfig, name: str) -> RunConfig:
     return config.model_copy(update={"assumptions": a.model_copy(update={"scenarios": {name: scenario}})})
 
 
-def _cents(frame: pd.DataFrame, column: str) -> int:
+def _cents(frame: pd.DataFrame, column: str, rows: np.ndarray | None = None) -> int:
+    """The column's cents summed (over ``rows``, a mask, where given): the column alone is
+    read, never the frame's other columns (a frame of a million loans sliced by stage copied
+    them all)."""
     if column not in frame.columns:
         return 0
-    return int(np.rint(frame[column].to_numpy(dtype=np.float64) * 100).astype(np.int64).sum())
+    values = frame[column].to_numpy(dtype=np.float64)
+    return int(np.rint((values if rows is None else values[rows]) * 100).astype(np.int64).sum())
 
 
 def _row(frame: pd.DataFrame, framework: str, scenario: str, weight: float) -> dict:
@@ -84,8 +88,8 @@ def _row(frame: pd.DataFrame, framework: str, scenario: str, weight: float) -> d
     poci = frame["poci"].astype(bool).to_numpy() if staged and "poci" in frame.columns else np.zeros(len(frame), bool)
     for s in (1, 2, 3):
         mask = (frame["stage"].to_numpy() == s) & ~poci if staged else None
-        row[f"stage_{s}"] = _cents(frame[mask], f"ecl_{framework}") if staged else np.nan
-    row["poci"] = _cents(frame[poci], f"ecl_{framework}") if staged else np.nan
+        row[f"stage_{s}"] = _cents(frame, f"ecl_{framework}", mask) if staged else np.nan
+    row["poci"] = _cents(frame, f"ecl_{framework}", poci) if staged else np.nan
     row["loans_stage_2"] = int(((frame["stage"] == 2).to_numpy() & ~poci).sum()) if staged else np.nan
     row["loans_stage_3"] = int(((frame["stage"] == 3).to_numpy() & ~poci).sum()) if staged else np.nan
     return row
