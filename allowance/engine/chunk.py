@@ -739,8 +739,7 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
     if alone:
         stage, poci_flag = _stage_and_poci(chunk, c.stages)
         _, replaced = _individual_measurement(chunk, terms, prep)
-        alone_columns = tuple(_modelled(k, prep, stage, poci_flag, purchase, replaced, w)
-                              for w, purchase in zip(alone, purchases[len(weights):]))
+        alone_columns = _modelled_under(k, prep, stage, poci_flag, purchases[len(weights):], replaced, alone)
     return ChunkResult(
         columns=loans[0],
         index=chunk.index,
@@ -781,6 +780,36 @@ def modelled_chunk(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | N
     _, replaced = _individual_measurement(chunk, c.terms, prep)
     out = _modelled(k, prep, stage, poci_flag, purchase, replaced, prep.weights)
     return pd.DataFrame({"loan_id": chunk["loan_id"].array, **out}, index=chunk.index)
+
+
+def _modelled_under(k: KernelResult, prep: Prepared, stage: np.ndarray, poci_flag: np.ndarray,
+                    purchases: tuple[_Purchase | None, ...], replaced: np.ndarray,
+                    weights: tuple[np.ndarray, ...]) -> tuple[dict[str, np.ndarray], ...]:
+    """:func:`_modelled` under each of ``weights`` (``purchases`` weighted by each in turn).
+
+    Each framework's allowance per scenario is made once: only a POCI loan's depends on the
+    weights (its benchmark, :func:`_purchase_views`), so only those loans' are made again
+    under each weight set. Every loan's figure is a weighting of its own row, as
+    :func:`_modelled` makes it."""
+    n = len(stage)
+    rows = np.flatnonzero(poci_flag)
+    bought = _rows(k, rows)
+    out: tuple[dict[str, np.ndarray], ...] = tuple({} for _ in weights)
+    for f, rules in enumerate(prep.rules):
+        per_scenario, _ = _allowance(k, f, rules, stage, poci_flag, np.full(n, np.nan), replaced[f])
+        for j, (w, purchase) in enumerate(zip(weights, purchases)):
+            modelled = scenarios.weighted(per_scenario, w)
+            if purchase is not None and rows.size:
+                again, _ = _allowance(bought, f, rules, stage[rows], poci_flag[rows], purchase.carried[rows, f],
+                                      replaced[f][rows])
+                modelled[rows] = scenarios.weighted(again, w)
+            out[j][f"ecl_{rules.name}_modelled"] = modelled
+    return out
+
+
+def _rows(k: KernelResult, rows: np.ndarray) -> KernelResult:
+    """The loop's results of some loans (what :func:`_allowance` reads)."""
+    return dataclasses.replace(k, ecl_12m=k.ecl_12m[rows], ecl_lifetime=k.ecl_lifetime[rows])
 
 
 def _stage_and_poci(chunk: pd.DataFrame, stages: pd.DataFrame | None) -> tuple[np.ndarray, np.ndarray]:
