@@ -50,10 +50,19 @@ __all__ = ["Demo", "Schedule", "check", "compare", "copy_demo_inputs", "copy_tem
 
 Tape = str | os.PathLike | pd.DataFrame
 Source = str | os.PathLike | Mapping[str, Any]
+#: the assumptions as a file, a mapping, or an object :func:`allowance.intake.load_assumptions` made
+AssumptionsSource = Source | Assumptions | RunConfig
 Progress = Callable[[str, int, int], Any]
 
 
-def _config(assumptions: Source, overlays: Sequence[Source] = ()) -> RunConfig:
+def _config(assumptions: AssumptionsSource, overlays: Sequence[Source] = ()) -> RunConfig:
+    if isinstance(assumptions, RunConfig):
+        assumptions = assumptions.assumptions
+    if isinstance(assumptions, Assumptions):  # validated already: its fields as given, checked again
+        assumptions = assumptions.model_dump(mode="json", by_alias=True, exclude_unset=True)
+    if not isinstance(assumptions, (Mapping, str, os.PathLike)):
+        raise TypeError(f"assumptions: a path to a TOML file, a mapping in its shape, or an Assumptions or "
+                        f"RunConfig object (allowance.intake.load_assumptions), not {type(assumptions).__name__}")
     source = assumptions if isinstance(assumptions, Mapping) else Path(assumptions)
     return intake.load_assumptions(source, [o if isinstance(o, Mapping) else Path(o) for o in overlays])
 
@@ -128,7 +137,7 @@ def _same_model(one: RunConfig, other: RunConfig) -> bool:
     return one.assumptions.model_dump(exclude={"overlays"}) == other.assumptions.model_dump(exclude={"overlays"})
 
 
-def check(tape: Tape, assumptions: Source, *, overlays: Sequence[Source] = (),
+def check(tape: Tape, assumptions: AssumptionsSource, *, overlays: Sequence[Source] = (),
           ledger_balance: float | None = None) -> CheckResult:
     """Validate a tape against the assumptions without computing anything.
 
@@ -141,7 +150,8 @@ def check(tape: Tape, assumptions: Source, *, overlays: Sequence[Source] = (),
     tape
         A path (CSV, XLSX, Parquet, or a folder of Parquet files) or a DataFrame with the tape's columns.
     assumptions
-        A path (TOML) or a mapping in the assumptions file's shape.
+        A path (TOML), a mapping in the assumptions file's shape, or the ``Assumptions`` /
+        ``RunConfig`` that :func:`allowance.intake.load_assumptions` returns.
     overlays
         Overlay files or mappings merged over the assumptions.
     ledger_balance
@@ -241,7 +251,7 @@ def _charge_offs(charge_offs: str | os.PathLike | pd.DataFrame | None) -> tuple[
 
 def run(
     tape: Tape,
-    assumptions: Source,
+    assumptions: AssumptionsSource,
     *,
     overlays: Sequence[Source] = (),
     prior: str | os.PathLike | Result | None = None,
@@ -263,7 +273,9 @@ def run(
     tape
         A path (CSV, XLSX, Parquet, or a folder of Parquet files) or a DataFrame with the tape's columns.
     assumptions
-        A path (TOML) or a mapping in the assumptions file's shape.
+        A path (TOML), a mapping in the assumptions file's shape, or the ``Assumptions`` /
+        ``RunConfig`` that :func:`allowance.intake.load_assumptions` returns (checked again,
+        and fingerprinted as a mapping).
     overlays
         What-if files or mappings merged over the assumptions; the base run (without them) is
         computed too and compared (``Result.what_if``).
@@ -531,7 +543,7 @@ class Schedule:
         return write_table_csv(Path(path), self.table)
 
 
-def schedule(tape: Tape, assumptions: Source, loan: str, *, framework: Framework | None = None,
+def schedule(tape: Tape, assumptions: AssumptionsSource, loan: str, *, framework: Framework | None = None,
              scenario: str | None = None) -> Schedule:
     """One loan's projected schedule, contractual and expected, on the engine's own terms.
 
@@ -569,7 +581,7 @@ def schedule(tape: Tape, assumptions: Source, loan: str, *, framework: Framework
     return Schedule(loan=row.iloc[0], table=table)
 
 
-def roll_rates(assumptions: Source, *, segment: str | None = None) -> pd.DataFrame:
+def roll_rates(assumptions: AssumptionsSource, *, segment: str | None = None) -> pd.DataFrame:
     """What each roll-rate matrix implies from every delinquency bucket: 12-month and lifetime
     PD (absorption into charge-off) and expected months to charge-off (empty without matrices)."""
     from allowance import engine
@@ -583,7 +595,7 @@ def roll_rates(assumptions: Source, *, segment: str | None = None) -> pd.DataFra
     return table
 
 
-def roll_forecast(tape: Tape, assumptions: Source, *, segment: str | None = None,
+def roll_forecast(tape: Tape, assumptions: AssumptionsSource, *, segment: str | None = None,
                   months: int = 12) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The tape's delinquency-bucket balances rolled forward through each roll-rate matrix.
 

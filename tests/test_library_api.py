@@ -65,6 +65,20 @@ def test_frames_and_mappings_give_the_files_result(from_files):
     assert {i["path"] for i in from_frames.record["inputs"]} >= {"<DataFrame>", "<assumptions mapping>"}
 
 
+@pytest.mark.slow
+def test_assumptions_as_the_object_load_assumptions_returns(from_files):
+    """A notebook user who loaded (and perhaps edited) the assumptions passes the object itself:
+    the same figures as the file, checked again on the way in; anything else is named."""
+    config = allowance.intake.load_assumptions(books.DEMO_ASSUMPTIONS)
+    for given in (config, config.assumptions):
+        again = allowance.run(books.DEMO_TAPE, given, sensitivities=False)
+        assert again.totals.equals(from_files.totals)
+    edited = config.assumptions.model_copy(update={"run": config.assumptions.run.model_copy(update={"label": "edited"})})
+    assert allowance.check(books.DEMO_TAPE, edited).intake.rows_accepted == from_files.report.intake.rows_accepted
+    with pytest.raises(TypeError, match="a path to a TOML file, a mapping in its shape, or an Assumptions"):
+        allowance.run(books.DEMO_TAPE, 42)
+
+
 def test_totals_by_framework_stage_and_segment(from_files):
     totals = from_files.totals
     loans = from_files.loans
