@@ -108,17 +108,15 @@ def _csv(frame: pd.DataFrame, path: Path) -> None:
     header)."""
     dated = _date_columns(frame)
     schema = _arrow_schema(frame, dated)
-
-    def part(start: int) -> pa.Table:
-        table = pa.Table.from_pandas(_arrow_ready(frame.iloc[start:start + _CSV_SLICE_ROWS], dated), schema=schema,
-                                     preserve_index=False)
-        return neutralise_table(table.replace_schema_metadata(None))
-
     if schema is not None:
         try:
-            _write_slices(path, part, len(frame))
+            # the frame's columns as Arrow's without a copy (numbers, flags and Arrow-backed text
+            # are shared; only dates are made), neutralised once, written slice by slice
+            table = pa.Table.from_pandas(_arrow_ready(frame, dated), schema=schema, preserve_index=False)
+            table = neutralise_table(table.replace_schema_metadata(None))
+            _write_slices(path, lambda start: table.slice(start, _CSV_SLICE_ROWS), len(frame))
             return
-        except _ARROW_ERRORS:  # a slice Arrow cannot type after all: pandas writes the whole file
+        except _ARROW_ERRORS:  # a column Arrow cannot type after all: pandas writes the whole file
             pass
     neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
 

@@ -412,9 +412,8 @@ def _segment_stage(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger)
     segments = _segments(loans)
     classes = _classes(loans) if has_stage else [("", None, [])]
     for segment in segments:
-        seg_mask = refs.mask([("segment", "", segment)])
         for label, stage_cell, class_crit in classes:
-            if label == "POCI" and not (seg_mask & refs.mask(class_crit)).any():
+            if label == "POCI" and not refs.count([("segment", "", segment)] + class_crit).value:
                 continue  # no POCI loans in this segment: no empty row
             sheet.label(r, 1, str(segment))
             crit = [("segment", f"$A{r}", segment)] + _with_ref(class_crit, "stage", f"$B{r}")
