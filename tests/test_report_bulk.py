@@ -69,3 +69,13 @@ def test_widths_fit_the_widest_value(tmp_path):
             values = [v for v in frame[name].dropna().tolist() if np.isfinite(v)]
             widest = max(value_width(v, bulk.column_kinds[j - 1]) for v in values)
             assert sheet.fit[j] >= widest, (name, sheet.fit[j], widest)
+
+
+def test_the_xml_escape_is_the_standard_librarys():
+    """Source: ``xml.sax.saxutils.escape`` (Python standard library): ``&``, ``<``, ``>`` only."""
+    from xml.sax.saxutils import escape as standard
+
+    from allowance.report.bulk import escape
+
+    for text in ("plain", "a<b & c>d", "&amp;", "<<&&>>", "'\"quotes\"'", "", "é & ü"):
+        assert escape(text) == standard(text)

@@ -88,3 +88,15 @@ def test_a_criterion_on_another_column_is_matched_loan_by_loan():
     crit = [("loan_id", "", "L3"), ("segment", "", loans.loc[3, "segment"])]
     expected = 0.0 if pd.isna(loans.loc[3, "ecl_ifrs9"]) else loans.loc[3, "ecl_ifrs9"]
     assert refs.total("ecl_ifrs9", crit).value == (expected if pd.notna(loans.loc[3, "segment"]) else 0.0)
+
+
+@pytest.mark.parametrize("text_dtype", ["str", "object"])
+def test_labels_are_those_pandas_finds(text_dtype):
+    """Source: pandas ``Series.dropna().unique()`` and ``Series.isna().any()``."""
+    loans = _book(text_dtype)
+    refs = LoanRefs(loans, live=False)
+    for column in ("segment", "measurement", "loan_id"):
+        labels, missing = refs.labels(column)
+        assert labels == list(loans[column].dropna().unique())
+        assert missing == bool(loans[column].isna().any())
+    assert LoanRefs(loans.iloc[:0], live=False).labels("segment") == ([], False)

@@ -31,7 +31,6 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 from typing import Any
-from xml.sax.saxutils import escape
 
 import numpy as np
 import pandas as pd
@@ -47,6 +46,16 @@ __all__ = ["BULK_HEADER_ROW", "BulkSheet", "save"]
 #: is not printed by default, row 4 is the header, the data start on row 5.
 BULK_HEADER_ROW = 4
 _EXCEL_EPOCH = np.datetime64("1899-12-30", "s")
+
+
+def escape(text: str) -> str:
+    """``&``, ``<`` and ``>`` as XML entities (what ``xml.sax.saxutils.escape`` does; that module
+    imports ``urllib.request``, and with it ``http.client`` and ``ssl``, at every start).
+
+    >>> escape("a<b & c>d")
+    'a&lt;b &amp; c&gt;d'
+    """
+    return text.replace("&", "&amp;").replace(">", "&gt;").replace("<", "&lt;")
 
 
 #: text that :func:`clean_text` or the XML escape would change (a would-be formula, ``& < >``,

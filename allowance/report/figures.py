@@ -217,6 +217,12 @@ class LoanRefs:
         code = lookup.get(value)
         return codes == code if code is not None else np.zeros(len(series), dtype=bool)
 
+    def labels(self, column: str) -> tuple[list[Any], bool]:
+        """The distinct labels of ``column`` (what ``Series.dropna().unique()`` gives, in order
+        of first appearance) and whether any loan has none, from the codes kept for the figures."""
+        codes, lookup = self._codes(column)
+        return list(lookup), bool(len(codes)) and int(codes.min()) < 0
+
     def labels_where(self, column: str, where: np.ndarray) -> set[Any]:
         """The labels of ``column`` on the loans where ``where`` is True (through integer codes)."""
         codes, lookup = self._codes(column)

@@ -68,7 +68,8 @@ def gross_net_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.Dat
     r += 1
     first, loss_rate = r, False
     gross_in = {f: _with_gross(loans, refs, f) for f in frameworks}
-    for segment in sorted(pd.unique(loans["segment"]), key=str):
+    labels, missing = refs.labels("segment")
+    for segment in sorted(pd.unique(loans["segment"]) if missing else labels, key=str):
         sheet.label(r, 1, str(segment))
         crit = [("segment", f"$A{r}", segment)]
         for j, f in enumerate(frameworks):
@@ -102,7 +103,10 @@ def measurement_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.D
                         led: Ledger) -> int:
     """Write the allowance by measurement from row ``r`` (only when some loan is measured one by
     one); return the next free row. Each line is a COUNTIFS / SUMIFS over ``measurement``."""
-    if "measurement" not in loans or (loans["measurement"] == "model").all():
+    if "measurement" not in loans:
+        return r
+    labels, missing = refs.labels("measurement")
+    if not missing and set(labels) <= {"model"}:  # every loan measured by the model
         return r
     r = sheet.section(r, "Allowance by measurement (loans measured one by one)")
     r = sheet.note(r, "Collateral-dependent loans: amortised cost less the collateral's fair value less costs to "
@@ -116,7 +120,7 @@ def measurement_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.D
         kinds += ["money", "money"]
     sheet.header(r, 1, cols, kinds)
     r += 1
-    present = set(pd.unique(loans["measurement"]))
+    present = set(labels)
     for code, line in MEASUREMENT_LINES.items():
         if code not in present:
             continue

@@ -19,6 +19,8 @@ column it ties to.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -126,8 +128,9 @@ def _with_ref(crit: list[tuple[str, str, Any]], column: str, ref: str) -> list[t
     return [(c, ref if c == column else r, v) for c, r, v in crit]
 
 
-def _segments(loans: pd.DataFrame) -> list[Any]:
-    return sorted(loans["segment"].dropna().unique(), key=str) if "segment" in loans.columns else []
+def _segments(refs: LoanRefs) -> list[Any]:
+    """The segments of the loans (none missing), in order of their text."""
+    return sorted(refs.labels("segment")[0], key=str) if refs.has("segment") else []
 
 
 # --------------------------------------------------------------------------------------
@@ -244,7 +247,7 @@ def _summary(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger, *, fu
     for f in report.frameworks:
         positions[f] = c
         c += 4 if f in prior else 2
-    for segment in _segments(loans):
+    for segment in _segments(refs):
         sheet.label(r, 1, str(segment))
         crit = [("segment", f"$A{r}", segment)]
         led.put(sheet, r, 2, refs.count(crit), "count")
@@ -409,7 +412,7 @@ def _segment_stage(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger)
     sheet.header(head, 1, names, kinds)
     sheet.repeat_to = head
     r = head + 1
-    segments = _segments(loans)
+    segments = _segments(refs)
     classes = _classes(loans) if has_stage else [("", None, [])]
     for segment in segments:
         for label, stage_cell, class_crit in classes:
@@ -723,6 +726,15 @@ class Shared:
 
 
 def _build(path: Path, report: RunReport, *, full: bool, shared: Shared | None = None) -> Ledger:
+    saving, led = _laid_out(path, report, full=full, shared=shared)
+    saving()
+    return led
+
+
+def _laid_out(path: Path, report: RunReport, *, full: bool,
+              shared: Shared | None = None) -> tuple[Callable[[], None], Ledger]:
+    """Every sheet of a workbook laid out; returns what saves it to ``path`` (the long sheets'
+    rows made and the file compressed then) and the ledger of its figures."""
     shared = Shared.of(report) if shared is None else shared
     loans = report.loans.reset_index(drop=True)
     limit = min(report.config.assumptions.run.loan_detail_sheet_limit, EXCEL_MAX_ROWS - BULK_HEADER_ROW)
@@ -768,8 +780,8 @@ def _build(path: Path, report: RunReport, *, full: bool, shared: Shared | None =
     record_sheet(book.sheet("Run record", title="Run record (run.json)"), report)
     if full:
         _loans_sheet(book, loans, live, limit, bulks)
-    save(book, path, bulks, created=_created(report), title=f"{what} as of {report.config.as_of.isoformat()}")
-    return led
+    created, title = _created(report), f"{what} as of {report.config.as_of.isoformat()}"
+    return (lambda: save(book, path, bulks, created=created, title=title)), led
 
 
 def _chosen(schedules: pd.DataFrame) -> str:
@@ -827,7 +839,16 @@ def write_summary_workbook(path: Path, report: RunReport) -> Ledger:
 
 def write_workbooks(reserve: Path, summary: Path, report: RunReport) -> tuple[Ledger, Ledger]:
     """Write ``reserve.xlsx`` and ``summary.xlsx`` (:func:`write_workbook`,
-    :func:`write_summary_workbook`), building what both show (:class:`Shared`) once."""
+    :func:`write_summary_workbook`), building what both show (:class:`Shared`) once.
+
+    The reserve workbook is saved on a thread of its own while the summary's sheets are laid
+    out: its long sheets' rows are made by Arrow and compressed by zlib, both outside the GIL,
+    so that work overlaps the summary's Python on a second core. Each file's bytes are those
+    of writing one after the other (nothing the two share is changed by either)."""
     shared = Shared.of(report)
-    return _build(Path(reserve), report, full=True, shared=shared), _build(Path(summary), report, full=False,
-                                                                           shared=shared)
+    save_reserve, reserve_ledger = _laid_out(Path(reserve), report, full=True, shared=shared)
+    with ThreadPoolExecutor(1, thread_name_prefix="allowance-reserve") as pool:
+        saving = pool.submit(save_reserve)  # on an error below the block still waits for it
+        summary_ledger = _build(Path(summary), report, full=False, shared=shared)
+    saving.result()
+    return reserve_ledger, summary_ledger
