@@ -329,7 +329,9 @@ def run(
         A file cannot be read, the assumptions are invalid, or the tape does not tie to the
         ledger (:class:`TieOutError`) and the difference was not accepted.
     """
-    from allowance import disclosure, engine, macro, reconcile, report
+    # reconcile (the sensitivities, the what-if and the movement) is imported where it is used:
+    # a plain run has none of them and does not load it
+    from allowance import disclosure, engine, macro, report
     from allowance.memory import give_back
     from allowance.report import clock
     started = time.perf_counter()
@@ -393,6 +395,8 @@ def run(
 
     sensitivity = pd.DataFrame()
     if alone:
+        from allowance import reconcile
+
         told("sensitivities", 0, len(names))
         sensitivity = reconcile.sensitivity_table(result.loans, result.alone, config)
         told("sensitivities", len(names), len(names))
@@ -407,6 +411,8 @@ def run(
     what_if = None
     what_if_paths = pd.DataFrame()
     if overlays:
+        from allowance import reconcile
+
         told("what-if", 0, 1)
         if _same_model(base_config, config):  # only [[overlays]] differ: the loop's figures are the same
             base = engine.overlaid(result, base_config)
@@ -423,6 +429,8 @@ def run(
     prior_loans = None  # the prior run's loans the vintage disclosure reads (with charge-offs)
     cos = None
     if prior is not None:
+        from allowance import reconcile
+
         told("prior", 0, 1)
         previous, prior_inputs = (reading_prior.result() if reading_prior is not None
                                   else _prior(prior, vintages=charge_offs is not None))
