@@ -287,6 +287,7 @@ def _movement(book: Book, framework: Framework, months: int | None,
             f"(written off before the prior run, or opened and closed within the period); the roll-forward shows "
             f"them under {where}"
         )
+    write_offs = write_off_bridge(loans, framework)  # before the loan table's copy is made (memory)
     return Movement(
         framework=framework,
         allowance=tables["allowance"][0],
@@ -295,10 +296,10 @@ def _movement(book: Book, framework: Framework, months: int | None,
         gross_detail=tables["gross"][1],
         rollforward=roll,
         journal=journal(roll, framework, _presented(book, framework)),
-        _loan_rows=_LoanRows.of(loans, book.compacted),
+        _loan_rows=_LoanRows.of(loans, book.compacted, release=True),  # last to read the bridge
         assumptions_isolated=book.rerun is not None,
         notes=tuple(notes),
-        write_offs=write_off_bridge(loans, framework),
+        write_offs=write_offs,
         not_isolated=_not_isolated(framework, book.rerun is not None, method_changes is not None, has_rates, months,
                                    book.current.has("modified")),
     )
@@ -393,14 +394,17 @@ class _LoanRows:
     cents: dict[str, np.ndarray]
 
     @classmethod
-    def of(cls, bridge: Bridge, compacted: dict[str, tuple[np.ndarray, np.ndarray]] | None = None) -> _LoanRows:
+    def of(cls, bridge: Bridge, compacted: dict[str, tuple[np.ndarray, np.ndarray]] | None = None, *,
+           release: bool = False) -> _LoanRows:
         """``compacted``: line -> (the bridge's array, its compacted copy) made for another
         framework; a line whose array is that same array (the gross carrying amount's lines,
-        shared by every framework's bridge) takes the copy made, so one is kept for all."""
+        shared by every framework's bridge) takes the copy made, so one is kept for all.
+        ``release``: the bridge is not read again, each line is taken out of it as it is
+        compacted (its int64 array goes while the next is made)."""
         compacted = {} if compacted is None else compacted
 
         def compact(line: str) -> np.ndarray:
-            values = bridge.amounts[line]
+            values = bridge.amounts.pop(line) if release else bridge.amounts[line]
             made = compacted.get(line)
             if made is not None and made[0] is values:
                 return made[1]
