@@ -179,6 +179,8 @@ def main() -> None:
     ap.add_argument("--sample", type=int, default=2_000, help="loans for the per-loan numpy_financial loop")
     ap.add_argument("--repeat", type=int, default=7)
     ap.add_argument("--engine-run", action="store_true", help="also time engine.run on the whole tape")
+    ap.add_argument("--loop-only", action="store_true",
+                    help="stop after the loop against the materialising pass (bench_scale.py's line)")
     args = ap.parse_args()
 
     print(f"numba {numba.__version__}, {numba.get_num_threads()} threads, loans {args.loans:,}")
@@ -226,6 +228,8 @@ def main() -> None:
               f"{sec / best['cells']:.2f} x the materialise pass; CPU {cpu[key]:.3f} s over all threads")
     print(f"both frameworks against materialising their {lm_both * n_sc:,} cells: "
           f"{best['both'] / (best['cells'] * lm_both / lm_one):.2f} x")
+    if args.loop_only:
+        return
 
     # the straightforward per-loan loop over numpy_financial (the test suite's reference)
     from tests.test_ecl import reference
