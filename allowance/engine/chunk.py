@@ -592,9 +592,13 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
         out[f"gross_loss_{rules.name}"] = scenarios.weighted(gross, w)
         out[f"ecl_{rules.name}_modelled"] = scenarios.weighted(per_scenario, w)
         # the ECL of the undrawn commitment: the whole less the drawn exposure's (the POCI shift cancels)
-        on_drawn = rules.allowance(drawn.ecl_12m[:, f, :], drawn.ecl_lifetime[:, f, :], stage, poci_flag, carried)
-        undrawn = np.where(one_by_one | (fw.undrawn_add[f] <= 0.0)[:, None], 0.0,
-                           np.maximum(per_scenario - on_drawn, 0.0))
+        # (loans without an add-on in any framework have none: not measured again)
+        at = drawn.rows
+        on_drawn = rules.allowance(drawn.ecl_12m[:, f, :], drawn.ecl_lifetime[:, f, :], stage[at], poci_flag[at],
+                                   carried[at])
+        undrawn = np.zeros(per_scenario.shape)
+        undrawn[at] = np.where(one_by_one[at] | (fw.undrawn_add[f, at] <= 0.0)[:, None], 0.0,
+                               np.maximum(per_scenario[at] - on_drawn, 0.0))
         out[f"ecl_{rules.name}_undrawn"] = scenarios.weighted(undrawn, w)
         # the annual rate that discounted the allowance (0: undiscounted), for the unwind line
         out[f"discount_rate_{rules.name}"] = terms.eir if rules.discounted(a) else np.zeros(n)
@@ -732,12 +736,12 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
     terms, stages, fw = c.terms, c.stages, c.frameworks
     weights = (prep.weights, *reweighted)
     k, purchases = _losses(chunk, prep, c, (*weights, *alone))
-    drawn = _drawn_only(chunk, prep, c, k)
+    stage, poci_flag = _stage_and_poci(chunk, c.stages)
+    drawn = _drawn_only(chunk, prep, c, stage, poci_flag)
     loans = [_loan_results(chunk, terms, stages, k, prep if i == 0 else dataclasses.replace(prep, weights=w),
                            purchase, fw, drawn) for i, (w, purchase) in enumerate(zip(weights, purchases))]
     alone_columns = ()
     if alone:
-        stage, poci_flag = _stage_and_poci(chunk, c.stages)
         _, replaced = _individual_measurement(chunk, terms, prep)
         alone_columns = _modelled_under(k, prep, stage, poci_flag, purchases[len(weights):], replaced, alone)
     return ChunkResult(
@@ -837,34 +841,61 @@ def _modelled(k: KernelResult, prep: Prepared, stage: np.ndarray, poci_flag: np.
 
 @dataclass(frozen=True)
 class _DrawnOnly:
-    """The ECL measured without the undrawn add-on, ``[n, F, S]`` (12-month and lifetime): the
-    whole ECL where a loan has no undrawn exposure."""
+    """The ECL measured without the undrawn add-on, ``[m, F, S]`` (12-month and lifetime), of
+    the loans at ``rows`` (those with an add-on in some framework; the others have no undrawn
+    part). Only what the undrawn split reads is measured: nothing in a framework where the
+    loan has no add-on, and no month past the horizon its allowance takes (12 in IFRS 9
+    stage 1), so the other figures of those loans are not their ECL."""
 
+    rows: np.ndarray
     ecl_12m: np.ndarray
     ecl_lifetime: np.ndarray
 
 
-def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, k: KernelResult) -> _DrawnOnly:
+def _drawn_horizon(prep: Prepared, c: ChunkInputs, rows: np.ndarray, stage: np.ndarray,
+                   poci_flag: np.ndarray) -> np.ndarray:
+    """The months of the drawn-only pass ``[F, m]`` at ``rows``: the framework's horizon for
+    the allowance (:attr:`~allowance.frameworks.FrameworkRules.horizon`; a POCI loan's whole
+    life), 0 where the framework puts no add-on on the loan (its split is nil, not read).
+
+    The loop's 12-month sums are taken at month 12 whatever the horizon beyond it, so a
+    horizon cut to 12 months gives the same 12-month figures, to the bit."""
+    fw = c.frameworks
+    life = fw.horizon[:, rows]
+    out = np.zeros_like(life)
+    for f, rules in enumerate(prep.rules):
+        measured = np.where(poci_flag[rows], life[f], rules.horizon(stage[rows], life[f]))
+        out[f] = np.where(fw.undrawn_add[f, rows] > 0.0, np.minimum(measured, life[f]), 0)
+    return out
+
+
+def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, stage: np.ndarray,
+                poci_flag: np.ndarray) -> _DrawnOnly:
     """The loop again, for the loans with an undrawn add-on, on their drawn exposure alone.
 
     The ECL of the undrawn commitment is the whole ECL less this (an incremental split): with
     a flat LGD the loss is linear in EAD_t = drawn_t + CCF × undrawn, so the split is the
     add-on's share of each month's exposure exactly; with a collateral LGD the collateral
-    covers the drawn balance first. Loans without an add-on keep the first pass's figures.
+    covers the drawn balance first. Loans without an add-on have no undrawn part and are not
+    measured again; ``stage`` and ``poci_flag`` (per loan) set the horizon each allowance takes
+    (:func:`_drawn_horizon`).
     """
     fw = c.frameworks
-    ecl_12m, ecl_lifetime = k.ecl_12m.copy(), k.ecl_lifetime.copy()
     rows = np.flatnonzero((fw.undrawn_add > 0.0).any(axis=0))
+    n_fw, n_sc = len(prep.rules), prep.pd.shape[3]
     if not rows.size:
-        return _DrawnOnly(ecl_12m, ecl_lifetime)
+        return _DrawnOnly(rows, np.zeros((0, n_fw, n_sc)), np.zeros((0, n_fw, n_sc)))
     drawn_add = fw.ead_add - fw.undrawn_add
-    d = expected_losses(_subset(c.kernel, rows, ead_add=drawn_add[:, rows]))
-    ecl_12m[rows], ecl_lifetime[rows] = d.ecl_12m, d.ecl_lifetime
+    d = expected_losses(_subset(c.kernel, rows, ead_add=drawn_add[:, rows],
+                                horizon=_drawn_horizon(prep, c, rows, stage, poci_flag)))
+    ecl_12m, ecl_lifetime = d.ecl_12m, d.ecl_lifetime
     lines = chunk["segment"].iloc[rows].to_numpy()  # these loans' only
     if prep.loss_rates is not None and np.isin(lines, list(prep.loss_rates.method)).any():
         for part, lr in _loss_rate_loans(chunk, prep, c.terms, dataclasses.replace(fw, ead_add=drawn_add, undrawn_add=np.zeros_like(drawn_add))) or ():
-            ecl_12m[part], ecl_lifetime[part] = lr.ecl_12m, lr.ecl_lifetime
-    return _DrawnOnly(ecl_12m, ecl_lifetime)
+            at = np.searchsorted(rows, part).clip(max=rows.size - 1)
+            mine = rows[at] == part  # the loss-rate loans among ``rows``
+            ecl_12m[at[mine]], ecl_lifetime[at[mine]] = lr.ecl_12m[mine], lr.ecl_lifetime[mine]
+    return _DrawnOnly(rows, ecl_12m, ecl_lifetime)
 
 
 def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: _Frameworks):
