@@ -300,7 +300,8 @@ def run(
         the builtin ``map`` when None. A Parquet tape is then read and validated part by part
         (row group by row group) through it too (:func:`allowance.intake.read_parts`).
     chunk_size
-        Loans per chunk (default :data:`allowance.engine.CHUNK_SIZE`).
+        Loans per chunk (default :data:`allowance.engine.CHUNK_SIZE`; without a ``map``
+        :data:`allowance.engine.IN_PROCESS_CHUNK_SIZE`, two chunks computed at a time).
     progress
         Called as ``progress(phase, done, total)``: ``"read"`` (the tape), ``"loans"`` (loans
         computed, of all loans), ``"sensitivities"`` (scenarios tabled alone), ``"what-if"`` and

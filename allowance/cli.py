@@ -434,7 +434,8 @@ def run(
     ] = None,
     chunk_size: Annotated[
         int | None, typer.Option("--chunk-size", min=1, metavar="LOANS",
-                                 help="Loans per unit of work (default 250,000); smaller spreads a book over more workers.")
+                                 help="Loans per unit of work (default 250,000; in this process 125,000, two at a time); "
+                                      "smaller spreads a book over more workers.")
     ] = None,
     loans_parquet: Annotated[
         Path | None, typer.Option("--loans-parquet", metavar="DIR",

@@ -31,9 +31,11 @@ Progress      the progress callback: ``progress(phase, done, total)``
 from __future__ import annotations
 
 import builtins
+import collections
 import dataclasses
 import functools
 from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
@@ -56,12 +58,15 @@ from allowance.money import CENT_DECIMALS
 from allowance.schemas import LoanRecord, RunConfig
 
 __all__ = [
-    "CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
+    "CHUNK_SIZE", "IN_PROCESS_CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
     "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
-    "max_age", "modelled", "only_weights_differ", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
+    "max_age", "modelled", "two_at_a_time", "only_weights_differ", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
+#: Loans per chunk when no ``map`` is given: this process then computes two chunks at a time
+#: (:func:`two_at_a_time`), which hold about what one chunk of :data:`CHUNK_SIZE` held.
+IN_PROCESS_CHUNK_SIZE = CHUNK_SIZE // 2
 
 #: an executor-style map: ``map(function, chunks)`` yields the results in the chunks' order
 Map = Callable[[Callable[[pd.DataFrame], ChunkResult], Iterable[pd.DataFrame]], Iterable[ChunkResult]]
@@ -152,6 +157,39 @@ def _chunks(tape: pd.DataFrame, chunk_size: int) -> Iterator[pd.DataFrame]:
         yield tape.iloc[start: start + chunk_size]
 
 
+def two_at_a_time(work: Callable[[pd.DataFrame], ChunkResult], chunks: Iterable[pd.DataFrame]) -> Iterator[ChunkResult]:
+    """The map of a run in this process: ``work`` over the chunks, the results in the chunks'
+    order, the next chunk computed on a second thread while this one is computed or taken.
+
+    A chunk's own Python and pandas steps (loan terms, stages, loan results) hold the GIL; its
+    compiled loop does not (:func:`allowance.jit.in_threads`). Two chunks in flight keep both
+    cores busy: one chunk's steps run beside the other's loop. Each chunk is computed by the
+    same code on its own, so the results are the builtin ``map``'s to the bit. At most two
+    chunks are in flight (a third waits until the first is taken), and the memory their
+    threads freed is handed back as each is taken (:func:`allowance.memory.give_back`): the
+    C heap keeps a thread's freed blocks, which would otherwise add up over the chunks.
+    """
+    import numba
+
+    threads = numba.get_num_threads()  # the caller's setting (numba's is per thread), in both threads
+    if threads <= 1:  # one core: nothing to run beside the loop
+        yield from builtins.map(work, chunks)
+        return
+    pool = ThreadPoolExecutor(2, thread_name_prefix="allowance-chunk", initializer=numba.set_num_threads,
+                              initargs=(threads,))
+    pending: collections.deque[Future] = collections.deque()
+    try:
+        for chunk in chunks:
+            pending.append(pool.submit(work, chunk))
+            if len(pending) == 2:
+                yield pending.popleft().result()
+                give_back()
+        while pending:
+            yield pending.popleft().result()
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)  # a chunk that failed: the other one is let finish
+
+
 def only_weights_differ(one: RunConfig, other: RunConfig) -> bool:
     """Whether two configurations give the loop the same inputs: their assumptions are equal
     but for the scenarios' weights and the overlays (both applied after the loop), with the
@@ -169,9 +207,9 @@ def run(
     tape: pd.DataFrame,
     config: RunConfig,
     *,
-    chunk_size: int = CHUNK_SIZE,
+    chunk_size: int | None = None,
     schedule_sample: int = 2,
-    map: Map = builtins.map,  # the executor's word for it
+    map: Map | None = None,  # the executor's word for it
     progress: Progress | None = None,
     reweighted: Iterable[RunConfig] = (),
     alone: Iterable[str] = (),
@@ -184,14 +222,16 @@ def run(
         The accepted tape, as intake hands it over.
     config : RunConfig
         The validated assumptions.
-    chunk_size : int
-        Loans per chunk (the unit of work a ``map`` hands out).
+    chunk_size : int, optional
+        Loans per chunk (the unit of work a ``map`` hands out): :data:`CHUNK_SIZE` by
+        default, :data:`IN_PROCESS_CHUNK_SIZE` when no ``map`` is given.
     schedule_sample : int
         Performing loans per segment whose schedules the workbook shows.
-    map : callable
-        Runs :func:`run_chunk` over the chunks: the builtin ``map`` (in-process, the
-        default), ``concurrent.futures.ProcessPoolExecutor(...).map`` or any map with the
-        same contract (results in the chunks' order).
+    map : callable, optional
+        Runs :func:`run_chunk` over the chunks: ``concurrent.futures.ProcessPoolExecutor(...).map``,
+        the builtin ``map`` (one chunk after another) or any map with the same contract
+        (results in the chunks' order). None (the default): in this process, two chunks at a
+        time (:func:`two_at_a_time`), the same results.
     progress : callable, optional
         ``progress("loans", done, total)`` after each chunk.
     reweighted : configurations
@@ -229,7 +269,9 @@ def run(
     work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}),
                              **({"alone": tuple(singles.values())} if singles else {}))
 
-    chunks = list(_chunks(tape, chunk_size))
+    if map is None:
+        map, chunk_size = two_at_a_time, chunk_size or IN_PROCESS_CHUNK_SIZE
+    chunks = list(_chunks(tape, chunk_size or CHUNK_SIZE))
     columns: list[list[dict[str, Any]]] = [[] for _ in range(1 + len(others))]  # this run's, then each other's
     alone_columns: list[list[dict[str, Any]]] = [[] for _ in singles]  # each scenario alone's modelled ECL
     findings: list[pd.DataFrame] = []
