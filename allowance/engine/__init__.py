@@ -188,6 +188,7 @@ def two_at_a_time(work: Callable[[pd.DataFrame], ChunkResult], chunks: Iterable[
             yield pending.popleft().result()
     finally:
         pool.shutdown(wait=True, cancel_futures=True)  # a chunk that failed: the other one is let finish
+        give_back()  # what the threads freed, before the book is built from the chunks
 
 
 def only_weights_differ(one: RunConfig, other: RunConfig) -> bool:
