@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import difflib
 from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Literal
 
@@ -709,5 +710,9 @@ ROW_RULES: tuple[Rule, ...] = (
 
 
 def apply_rules(cols: TapeColumns) -> list[Findings]:
-    """Every finding of every rule on the tape."""
-    return [finding for rule in ROW_RULES for finding in rule(cols)]
+    """Every finding of every rule on the tape, in the rules' order.
+
+    The rules read the columns and write nothing, so they run on two threads (their Arrow
+    and numpy passes let go of the GIL): the same findings in the same order."""
+    with ThreadPoolExecutor(2, thread_name_prefix="allowance-rules") as pool:
+        return [finding for found in pool.map(lambda rule: list(rule(cols)), ROW_RULES) for finding in found]

@@ -146,17 +146,18 @@ def _parse(raw: RawTape, colmap: ColumnMap, config: RunConfig, file: str) -> Tap
     }
     parsed: dict[str, Parsed] = {}
     text: dict[str, pa.ChunkedArray] = {}
-    for name, column in held.items():
-        typed = None if pa.types.is_string(column.type) else parse_arrow(column, FIELDS[name])
-        if typed is None:
-            text[name] = as_text(column)
-        else:
-            parsed[name] = typed
-    dates = {n: c for n, c in text.items() if FIELDS[n].kind == "date"}
-    rest = [name for name in FIELDS if name not in parsed and name not in dates]
     # the columns parse apart on two threads: Arrow's casts and numpy's passes over a column
     # let go of the GIL, so the second core takes a share (the same values: each column alone)
     with ThreadPoolExecutor(2, thread_name_prefix="allowance-parse") as pool:
+        typed = pool.map(lambda item: None if pa.types.is_string(item[1].type) else parse_arrow(item[1], FIELDS[item[0]]),
+                         held.items())
+        for (name, column), done in zip(held.items(), typed):
+            if done is None:
+                text[name] = as_text(column)
+            else:
+                parsed[name] = done
+        dates = {n: c for n, c in text.items() if FIELDS[n].kind == "date"}
+        rest = [name for name in FIELDS if name not in parsed and name not in dates]
         dated = pool.submit(parse_dates, dates, config.assumptions.tape.date_format, file, raw.source_row)
         others = pool.map(lambda name: PARSERS[FIELDS[name].kind](text[name], FIELDS[name]), rest)
         parsed.update(dated.result())  # a file-wide date error first, as when parsed in turn
