@@ -304,6 +304,7 @@ def run(
     main = dataclasses.replace(main, alone={name: _alone(pieces, main.loans, config)
                                             for name, pieces in zip(singles, alone_columns)})
     alone_columns = []
+    give_back()  # the chunks' pieces the book was joined from (those made on the chunk threads stay in their heaps)
     tables = {"term_structures": term_structure_table(prep), "roll_rates": roll_rate_table(config),
               "reversion": reversion_view(prep), "pd_paths": pd_path_view(tape, prep)}
     return dataclasses.replace(
