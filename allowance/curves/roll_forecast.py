@@ -249,8 +249,10 @@ def segment_roll_forecasts(tape: pd.DataFrame, segments: dict, loans: pd.DataFra
         forecast = roll_forecast(opening, seg.transition_matrix, seg.charge_off_dpd, months, name)
         by_month.append(forecast.by_month.assign(segment=name)[["segment", *forecast.by_month.columns]])
         if loans is not None:
-            theirs = loans[loans["segment"] == name]
-            twelve, life = float(theirs["ecl_12m"].sum()), float(theirs["ecl_lifetime"].sum())
+            # the segment's two columns only (a row filter of the whole frame copies every column);
+            # blanks skipped as a Series sum skips them
+            theirs = (loans["segment"] == name).to_numpy(dtype=bool, na_value=False)
+            twelve, life = (float(np.nansum(loans[c].to_numpy(dtype=float)[theirs])) for c in ("ecl_12m", "ecl_lifetime"))
         else:
             twelve = life = 0.0
         checks.append(roll_forecast_check(forecast, float(seg.lgd), twelve, life, name))
