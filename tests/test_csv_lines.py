@@ -89,3 +89,57 @@ def test_movement_loans_compiled_gives_the_bytes_of_arrow(tmp_path, monkeypatch,
     assert (tmp_path / "compiled.csv").read_bytes() == arrow
     assert b"\"'=L0\"" in arrow and b"\"'+mortgage\"" in arrow and b'"L""11"' in arrow
     assert (b"2e+10" in arrow) == (huge_at is not None)
+
+
+def _writer(table: pa.Table) -> bytes:
+    """pyarrow's CSV writer (the reference): the rows of ``table``, no header."""
+    sink = pa.BufferOutputStream()
+    pa_csv.write_csv(table, sink, write_options=pa_csv.WriteOptions(quoting_style="needed", include_header=False))
+    return sink.getvalue().to_pybytes()
+
+
+def _mixed(n: int, seed: int) -> pd.DataFrame:
+    """A loan frame's kinds of columns in a loan frame's order, blanks in each."""
+    rng = np.random.default_rng(seed)
+    cents = _cents(rng, n - 19)
+    money = cents / 100.0
+    blanked = money.copy()
+    blanked[::7] = np.nan
+    rates = rng.random(n) * 10.0 ** rng.integers(-9, 3, n)
+    rates[::11] = np.nan
+    labels = np.array(["plain", "", 'say "hi"', "a,b", "two\nlines", "é ü 日本", None, "'=x"], dtype=object)
+    return pd.DataFrame({
+        "loan_id": pd.array([f"L-{i}" for i in range(n)], dtype="str"),
+        "segment": pd.array(labels[rng.integers(0, len(labels), n)], dtype="str"),
+        "days": rng.integers(-5, 400, n), "stage": rng.integers(1, 4, n).astype(np.int8),
+        "poci": rng.random(n) < 0.2, "balance": money, "pd": rates, "ecl": blanked,
+        "zeros": np.where(rng.random(n) < 0.5, 0.0, money),  # whole cents, many zeros
+        "beyond": np.where(np.arange(n) == 3, 1e12, money),  # one amount written in exponent form
+        "negative_zero": np.where(np.arange(n) == 5, -0.0, money),  # Arrow writes '-0'
+        "count": pd.array([i if i % 5 else None for i in range(n)], dtype="Int64"),
+    })
+
+
+@pytest.mark.parametrize("seed", [1, 2])
+def test_a_table_is_written_as_arrow_writes_it(seed):
+    """Text quoted, whole-cent columns from their cents, the rest as Arrow casts them, blanks
+    empty: byte for byte the writer's rows, whole and sliced."""
+    from allowance.report.csv_lines import table_lines
+
+    table = pa.Table.from_pandas(_mixed(3000, seed), preserve_index=False).replace_schema_metadata(None)
+    assert bytes(table_lines(table)) == _writer(table)
+    part = table.slice(1234, 500)
+    assert bytes(table_lines(part)) == _writer(part)
+    assert bytes(table_lines(table.slice(0, 0))) == _writer(table.slice(0, 0))
+    assert table_lines(pa.table({"when": pa.array([0, 1], pa.timestamp("s"))})) is None  # left to Arrow
+
+
+def test_a_large_loan_file_gives_the_bytes_of_arrow(tmp_path, monkeypatch):
+    """loans.csv from a table past the compiled threshold: the bytes of Arrow's writer (the
+    threshold lowered so a small frame takes that path, slices of 1,000 rows)."""
+    frame = _mixed(4000, 3)
+    files._csv(frame, tmp_path / "arrow.csv")
+    monkeypatch.setattr(files, "_COMPILED_FROM_ROWS", 100)
+    monkeypatch.setattr(files, "_CSV_SLICE_ROWS", 1000)
+    files._csv(frame, tmp_path / "compiled.csv")
+    assert (tmp_path / "compiled.csv").read_bytes() == (tmp_path / "arrow.csv").read_bytes()

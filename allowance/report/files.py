@@ -114,11 +114,32 @@ def _csv(frame: pd.DataFrame, path: Path) -> None:
             # are shared; only dates are made), neutralised once, written slice by slice
             table = pa.Table.from_pandas(_arrow_ready(frame, dated), schema=schema, preserve_index=False)
             table = neutralise_table(table.replace_schema_metadata(None))
-            _write_slices(path, lambda start: table.slice(start, _CSV_SLICE_ROWS), len(frame))
+            if len(frame) < _COMPILED_FROM_ROWS:
+                _write_slices(path, lambda start: table.slice(start, _CSV_SLICE_ROWS), len(frame))
+                return
+            _compiled_csv(path, table)
             return
         except _ARROW_ERRORS:  # a column Arrow cannot type after all: pandas writes the whole file
             pass
     neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
+
+
+def _compiled_csv(path: Path, table: pa.Table) -> None:
+    """A large table written slice by slice, each slice's rows formatted by a compiled loop
+    (:func:`allowance.report.csv_lines.table_lines`: Arrow's bytes; the amounts in whole cents,
+    most of a loan's figures, from their cents rather than Arrow's shortest-float search, which
+    was most of the time of writing a million loans' detail); a slice the loop does not take,
+    and the header, as Arrow writes them."""
+    from allowance.report.csv_lines import table_lines  # here: a small table does not compile the loop
+
+    def text(start: int | None) -> object:
+        if start is None:  # the header, as Arrow writes it with the first slice
+            return _arrow_text(table.slice(0, 0), header=True)
+        part = table.slice(start, _CSV_SLICE_ROWS)
+        made = table_lines(part)
+        return _arrow_text(part, header=False) if made is None else made
+
+    _write_texts(path, text, [None, *range(0, table.num_rows, _CSV_SLICE_ROWS)])
 
 
 def _write_slices(path: Path, part: Callable[[int], pa.Table], rows: int) -> None:
