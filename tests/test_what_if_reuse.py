@@ -169,6 +169,8 @@ def test_the_modelled_pass_gives_the_full_runs_modelled_figures(auto):
     assert alone.columns.tolist() == columns
     assert (full.loc[[5, 17], "ecl_cecl_modelled"] == [1234.5, 0.0]).all()
     pd.testing.assert_frame_equal(alone, full[columns])
+    # one chunk after another (the builtin map) gives the same figures as two at a time
+    pd.testing.assert_frame_equal(engine.modelled(tape, config, chunk_size=70, map=map), alone)
 
 
 def test_the_modelled_pass_takes_the_runs_stages_only_where_they_are_staged_alike(monkeypatch):

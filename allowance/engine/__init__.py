@@ -368,7 +368,7 @@ def _modelled_part(part: tuple[pd.DataFrame, pd.DataFrame | None], prep: Prepare
     return modelled_chunk(part[0], prep, part[1])
 
 
-def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_SIZE, map: Map = builtins.map,
+def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int | None = None, map: Map | None = None,
              stages_from: tuple[RunConfig, pd.DataFrame] | None = None) -> pd.DataFrame:
     """Each loan's modelled ECL per framework, rounded to cents: ``loan_id,
     ecl_<framework>_modelled`` in tape order, the figures :func:`run` gives those columns.
@@ -378,8 +378,12 @@ def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int = CHUNK_S
     quarter's assumptions (the change in the modelled allowance that the assumptions made).
     ``stages_from``: a configuration and the loans (``stage``, ``poci`` in tape order) a run of
     this tape under it gave; where it stages alike (:func:`same_stages`), the stages are
-    taken from those loans instead of being assigned again.
+    taken from those loans instead of being assigned again. ``map`` and ``chunk_size`` as for
+    :func:`run` (no map: two chunks at a time in this process, :func:`two_at_a_time`).
     """
+    if map is None:
+        map, chunk_size = two_at_a_time, chunk_size or IN_PROCESS_CHUNK_SIZE
+    chunk_size = chunk_size or CHUNK_SIZE
     prep = prepare(config, tape_months(tape, config), max_age(tape, config))
     chunks = list(_chunks(tape, chunk_size))
     given = [None] * len(chunks)
