@@ -62,7 +62,10 @@ def _sorted_codes(codes, labels) -> tuple[np.ndarray, list[str]]:
     if not len(names):
         return np.full(len(codes), -1, dtype=np.int64), []
     distinct, where = np.unique(names.astype(str), return_inverse=True)
-    return np.where(codes >= 0, where.reshape(-1)[np.maximum(codes, 0)], -1), distinct.tolist()
+    if len(codes) and codes.min() < -1:
+        codes = np.maximum(codes, -1)
+    # one look-up per loan: code -1 (none) takes the appended last entry, -1
+    return np.append(where.reshape(-1), -1)[codes], distinct.tolist()
 
 
 def sorted_categorical(codes, labels) -> pd.Categorical:
@@ -116,6 +119,10 @@ def _cents(values) -> np.ndarray:
 
 def _concat(parts: list[Coded]) -> Coded:
     """Coded columns of several frames, one after the other (labels joined, codes shifted)."""
+    if len(parts) == 1:  # one frame (no write-offs): its codes as they are, not copied twice
+        c, lab = parts[0]
+        c = np.asarray(c, dtype=np.int64)
+        return (c if not len(c) or c.min() >= -1 else np.maximum(c, -1)), np.asarray(lab)
     codes, labels, offset = [], [], 0
     for c, lab in parts:
         codes.append(np.where(c >= 0, c + offset, -1))
@@ -139,8 +146,13 @@ def _sum_cents(keys: dict[str, Coded], across: Coded, columns: list[str], cents:
     kept = column >= 0
     for codes, _ in coded:
         kept &= codes >= 0
+    every = bool(kept.all())  # no loan left out (the usual book): the arrays as they are, not masked
+
+    def of(values):
+        return values if every else values[kept]
+
     dims = [max(len(names), 1) for _, names in coded]
-    combo = np.ravel_multi_index([codes[kept] for codes, _ in coded], dims) if coded else np.zeros(kept.sum(), np.int64)
+    combo = np.ravel_multi_index([of(codes) for codes, _ in coded], dims) if coded else np.zeros(kept.sum(), np.int64)
     space = int(np.prod(dims, dtype=np.int64))
     if space <= 1 << 22:  # the combinations present counted over every possible one: no sort of the loans
         present = np.flatnonzero(np.bincount(combo, minlength=space))
@@ -149,8 +161,8 @@ def _sum_cents(keys: dict[str, Coded], across: Coded, columns: list[str], cents:
         row = where[combo]
     else:
         present, row = np.unique(combo, return_inverse=True)
-    cell = row.reshape(-1) * len(columns) + column[kept]
-    grid = np.array(cents_by_group(np.asarray(cents, dtype=np.int64)[kept], cell, len(present) * len(columns)),
+    cell = row.reshape(-1) * len(columns) + of(column)
+    grid = np.array(cents_by_group(of(np.asarray(cents, dtype=np.int64)), cell, len(present) * len(columns)),
                     dtype=np.int64)
     levels = np.unravel_index(present, dims) if coded else []
     index = pd.MultiIndex.from_arrays(

@@ -9,6 +9,7 @@ from datetime import date
 
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -119,3 +120,31 @@ def test_disclosures_are_written_as_csv_and_a_workbook_sheet(tmp_path):
     assert cents(written.loc[written["segment"] == "Total", "total"]) == cents(report.loans["balance"])
     assert (tmp_path / "out" / "disclosure_asc326_vintage.csv").is_file()
     assert "Disclosures" in openpyxl.load_workbook(tmp_path / "out" / "reserve.xlsx", read_only=True).sheetnames
+
+
+@pytest.mark.parametrize("missing", [0.0, 0.05])
+def test_the_grid_is_a_pivot_with_blank_odd_and_missing_labels(missing):
+    # pandas' pivot_table over the labels is the reference: blank, padded, non-ASCII and
+    # digit segment names sort as text; a loan without a segment is left out of the grid (as
+    # the pivot leaves it), and with none missing every loan is in it
+    rng = np.random.default_rng(11)
+    n = 3_000
+    book = _book(11, n)
+    names = np.array(["auto", "", " card", "Zeta", "ärger", "10", "9", "auto "], dtype=object)
+    segment = pd.Series(names[rng.integers(0, len(names), n)], dtype="str")
+    segment[rng.random(n) < missing] = None
+    book["segment"] = segment
+    book["grade"] = pd.Series(np.array(["A", "", " B", None], dtype=object)[rng.integers(0, 4, n)], dtype="str")
+    quality = credit_quality(book)
+    plain = pd.DataFrame({"segment": book["segment"], "credit_quality": quality["credit_quality"],
+                          "basis": quality["basis"], "cents": np.rint(book["balance"] * 100).astype(np.int64),
+                          "class": np.where(book["poci"], "POCI", "stage " + book["stage"].astype(str))})
+    expected = plain.pivot_table(index=["segment", "credit_quality", "basis"], columns="class", values="cents",
+                                 aggfunc="sum", fill_value=0)
+    got = ifrs7_35m(book)
+    got = got[(got["credit_quality"] != "Total") & (got["segment"] != "Total")]
+    assert got[["segment", "credit_quality", "basis"]].values.tolist() == [list(k) for k in expected.index]
+    for column in expected.columns:
+        assert (np.rint(got[column].to_numpy() * 100).astype(np.int64) == expected[column].to_numpy()).all()
+    vintage = asc326_vintage(book, date(2026, 9, 30))
+    assert cents(vintage["total"]) == cents(book.loc[book["segment"].notna(), "balance"])
