@@ -73,3 +73,19 @@ def test_the_booked_columns_sit_beside_the_schedule_as_a_merge_puts_them():
                                "ead": rng.random(len(booked_months)), "survival": rng.random(len(booked_months))})
         pd.testing.assert_frame_equal(pd.DataFrame(_beside(frame, booked)), frame.merge(booked, on="month", how="left"),
                                       check_exact=True)
+
+
+def test_average_ranks_are_pandas_ranks_counted_or_sorted():
+    # pandas' Series.rank() (average ties) is the reference, for whole months in a short
+    # range (counted), a range too long to count, fractions, negatives, -0.0 and one value
+    import numpy as np
+
+    from allowance.engine.views import _average_ranks
+
+    rng = np.random.default_rng(5)
+    cases = [rng.integers(0, 361, 20_000).astype(float), rng.integers(0, 3, 500).astype(float),
+             np.array([0.0, -0.0, 0.0, 7.0]), np.array([12.0]), np.array([5.0, 1e9, 5.0, 3.0]),
+             rng.integers(-5, 5, 300).astype(float), np.round(rng.random(1_000) * 50, 1),
+             rng.integers(0, 100, 2_000).astype(float) + 0.5]
+    for values in cases:
+        assert _average_ranks(values).tolist() == pd.Series(values).rank().tolist()

@@ -171,6 +171,11 @@ def _average_ranks(values: np.ndarray) -> np.ndarray:
     values = np.asarray(values, dtype=np.float64)
     if np.isnan(values).any():
         return pd.Series(values).rank().to_numpy()
+    if len(values) and values.min() >= 0 and values.max() <= 4 * len(values) + 1024:
+        whole = values.astype(np.int64)
+        if (whole == values).all():  # whole numbers in a short range (months): counted, not sorted
+            count = np.bincount(whole)
+            return (np.cumsum(count) - count)[whole] + (count[whole] + 1) / 2
     order = np.argsort(values)
     ordered = values[order]
     first = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
