@@ -102,6 +102,8 @@ def test_defaulted_secured_loans_and_the_framework_list():
     book["loan_id"] = ["D-1", "C-1"]
     loans = engine.run(book, cfg).loans
     assert loans["measurement"].tolist() == ["collateral_dependent_defaulted", "model"]
+    # the column's type is the one a frame gives Python text (as loans.csv and the parts read it)
+    assert loans["measurement"].dtype == pd.DataFrame({"m": np.array(["model"], dtype=object)})["m"].dtype
     assert loans["ecl_cecl"].iloc[0] == 67_500.00
     assert loans["ecl_ifrs9"].iloc[0] != 67_500.00 and loans["ecl_ifrs9"].iloc[0] > 0
 

@@ -569,7 +569,9 @@ def _loan_results(chunk: pd.DataFrame, terms: LoanTerms, stages: pd.DataFrame | 
     a = prep.config.assumptions
     none = np.full(n, np.nan)
     method, replaced = _individual_measurement(chunk, terms, prep)
-    out["measurement"] = np.array(list(individual.MEASUREMENTS), dtype=object)[method]
+    # Arrow text taken from the few labels: a Python string per loan became Arrow text again in
+    # each frame built from the column (0.1 s a frame at a million loans)
+    out["measurement"] = pd.array(list(individual.MEASUREMENTS), dtype="str").take(method)
     assessed = (method == individual.INDIVIDUAL)[:, None]
     for f, rules in enumerate(prep.rules):
         # the purchase-date lifetime ECL carried to today (NaN for loans not POCI)
