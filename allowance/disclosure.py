@@ -177,11 +177,18 @@ def _classes(loans: pd.DataFrame) -> Coded:
     return stage_class_codes(loans["stage"].to_numpy(), poci), np.array(STAGE_CLASSES, dtype=object)
 
 
-def ifrs7_35m(loans: pd.DataFrame) -> pd.DataFrame:
+def _loan_codes(loans: pd.DataFrame) -> tuple[Coded, tuple[Coded, Coded]]:
+    """The loans' segment codes and their credit quality and basis codes (:func:`_quality`):
+    made once by :func:`disclosure_tables` for both its tables."""
+    return _coded(loans["segment"]), _quality(loans)
+
+
+def ifrs7_35m(loans: pd.DataFrame, *, coded: tuple[Coded, tuple[Coded, Coded]] | None = None) -> pd.DataFrame:
     """IFRS 7 35M: gross carrying amount by segment, credit grade and stage (POCI apart).
 
     Columns ``segment, credit_quality, basis, stage 1, stage 2, stage 3, POCI, total``;
-    a ``Total`` row per segment and one for the book.
+    a ``Total`` row per segment and one for the book. ``coded``: the loans' segment, credit
+    quality and basis codes when already made (:func:`disclosure_tables`, once for both tables).
 
     Examples
     --------
@@ -190,8 +197,8 @@ def ifrs7_35m(loans: pd.DataFrame) -> pd.DataFrame:
     >>> ifrs7_35m(loans)[["segment", "credit_quality", "stage 1", "stage 2", "POCI", "total"]].values.tolist()
     [['auto', 'A', 100.0, 50.0, 0.0, 150.0], ['auto', 'B', 0.0, 0.0, 20.0, 20.0], ['auto', 'Total', 100.0, 50.0, 20.0, 170.0], ['Total', '', 100.0, 50.0, 20.0, 170.0]]
     """
-    quality, basis = _quality(loans)
-    grid = _sum_cents({"segment": _coded(loans["segment"]), "credit_quality": quality, "basis": basis},
+    segment, (quality, basis) = coded or _loan_codes(loans)
+    grid = _sum_cents({"segment": segment, "credit_quality": quality, "basis": basis},
                       _classes(loans), list(STAGE_CLASSES), _cents(loans["balance"]))
     grid["total"] = grid.sum(axis=1)
     parts = []
@@ -235,7 +242,8 @@ def _vintage(origination: pd.Series, revolving: np.ndarray, as_of: date) -> Code
     return np.where(revolving, len(names) - 1, where.reshape(-1)[codes]).astype(np.int64), names
 
 
-def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | None = None) -> pd.DataFrame:
+def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | None = None, *,
+                   coded: tuple[Coded, tuple[Coded, Coded]] | None = None) -> pd.DataFrame:
     """ASC 326-20-50-6: amortised cost by credit quality indicator and year of origination.
 
     Parameters
@@ -250,6 +258,9 @@ def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | 
         The period's gross write-offs: ``segment, gross_charge_off, origination_date`` and
         ``repayment`` (from the run the charged-off loan was last in); a write-off whose loan
         is in neither run is under ``unknown``.
+    coded : optional
+        The loans' segment, credit quality and basis codes when already made
+        (:func:`disclosure_tables` makes them once for both tables).
 
     Returns
     -------
@@ -267,9 +278,9 @@ def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | 
     [['A', 100.0, 30.0, 0.0, 130.0], ['B', 0.0, 0.0, 50.0, 50.0]]
     """
     columns = _vintage_columns(as_of)
-    quality, basis = _quality(loans)
+    segment, (quality, basis) = coded or _loan_codes(loans)
     n = len(loans)
-    keys = {"segment": [_coded(loans["segment"])], "row": [_constant("amortised cost", n)],
+    keys = {"segment": [segment], "row": [_constant("amortised cost", n)],
             "credit_quality": [quality], "basis": [basis]}
     vintage, cents = [_vintage(loans["origination_date"], _revolving(loans), as_of)], [_cents(loans["balance"])]
     if write_offs is not None and len(write_offs):
@@ -321,8 +332,11 @@ def disclosure_tables(loans: pd.DataFrame, as_of: date, frameworks, *, charge_of
     """
     rules = [rules_for(f) for f in frameworks]
     out: dict[str, pd.DataFrame] = {}
+    both = (any(r.staged for r in rules) and "stage" in loans.columns
+            and any(not r.staged for r in rules) and "origination_date" in loans.columns)
+    coded = _loan_codes(loans) if both else None  # the segments and grades coded once for both tables
     if any(r.staged for r in rules) and "stage" in loans.columns:
-        out["ifrs7_35m"] = ifrs7_35m(loans)
+        out["ifrs7_35m"] = ifrs7_35m(loans, coded=coded)
     if any(not r.staged for r in rules) and "origination_date" in loans.columns:
         write_offs = None
         if charge_offs is not None and len(charge_offs):
@@ -334,5 +348,5 @@ def disclosure_tables(loans: pd.DataFrame, as_of: date, frameworks, *, charge_of
                 write_offs = write_offs.astype({"loan_id": str}).merge(where, on="loan_id", how="left")
             else:
                 write_offs["origination_date"], write_offs["repayment"] = pd.NaT, ""
-        out["asc326_vintage"] = asc326_vintage(loans, as_of, write_offs)
+        out["asc326_vintage"] = asc326_vintage(loans, as_of, write_offs, coded=coded)
     return out

@@ -148,3 +148,15 @@ def test_the_grid_is_a_pivot_with_blank_odd_and_missing_labels(missing):
         assert (np.rint(got[column].to_numpy() * 100).astype(np.int64) == expected[column].to_numpy()).all()
     vintage = asc326_vintage(book, date(2026, 9, 30))
     assert cents(vintage["total"]) == cents(book.loc[book["segment"].notna(), "balance"])
+
+
+def test_both_tables_from_codes_made_once_are_the_tables_made_alone():
+    # disclosure_tables codes the segments and grades once for both tables; each must equal
+    # the table its own function makes (common practice, no source: the same computation)
+    rng = np.random.default_rng(3)
+    book = _book(3, 2_000)
+    book["segment"] = pd.Series(np.array(["auto", "", "Zeta", None], dtype=object)[rng.integers(0, 4, 2_000)], dtype="str")
+    book["grade"] = pd.Series(np.array(["A", "", " B", None], dtype=object)[rng.integers(0, 4, 2_000)], dtype="str")
+    tables = disclosure_tables(book, date(2026, 9, 30), ["ifrs9", "cecl"])
+    assert tables["ifrs7_35m"].equals(ifrs7_35m(book))
+    assert tables["asc326_vintage"].equals(asc326_vintage(book, date(2026, 9, 30)))
