@@ -106,7 +106,8 @@ def _timed(args: list[str], env: dict | None = None, repeat: int = 1) -> tuple[f
     best, peak = float("inf"), 0.0
     for _ in range(repeat):
         # the hundreds of MB the bench or the last command wrote go to disk first, not under the
-        # timed command (the plain run, timed just after the tapes are made, ran 15-25 % slower)
+        # timed command (without it the plain run, timed just after the tapes were made, measured
+        # slower than the run with sensitivities, which does more)
         os.sync()
         t = time.perf_counter()
         done = subprocess.run([PY, "-c", _PEAK, *args], capture_output=True, text=True,
