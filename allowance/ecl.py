@@ -39,6 +39,7 @@ KernelInputs     the per-loan arrays and the tables the loop reads
 KernelResult     per loan, framework and scenario: ecl and gross loss, 12-month and lifetime,
                  pd_12m, pd_lifetime; ead, lgd
 expected_losses  check the inputs and run the loop
+compile_loop     compile the loop (into the cache) on the smallest book
 MONTH_COLUMNS    the columns of loan_months
 loan_months      one loan's sum month by month (the schedule view of what the loop did)
 """
@@ -49,10 +50,9 @@ from dataclasses import dataclass, fields
 
 import numba
 import numpy as np
-
-from allowance import jit
 import pandas as pd
 
+from allowance import jit, jitcache
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, contractual_payments, path_terms
 from allowance.curves.lgd import collateral_lgd, loss_given_default
 from allowance.curves.refinance import refinance_default
@@ -433,6 +433,7 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
             a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], a["residual"], a["payment"]
         )
         head = (a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], levels, *args[7:], unit_path)
+        jitcache.wait_for_ahead()  # a second process compiling the loop into the cache: load it, not compile it
         jit.in_threads(lambda first, last: _kernel(*head, _BLOCK, first, last, sums, ead0, lgd0), n, _BLOCK)
         _defaulted_losses(a, sums)
         bad = ~np.isfinite(sums[ECL_LIFETIME]).all(axis=(1, 2))
@@ -445,6 +446,27 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
         ecl_12m=sums[ECL_12M], ecl_lifetime=sums[ECL_LIFETIME], pd_12m=sums[PD_12M], pd_lifetime=sums[PD_LIFETIME],
         ead=ead0, lgd=lgd0, gross_12m=sums[GROSS_12M], gross_lifetime=sums[GROSS_LIFETIME],
     )
+
+
+def compile_loop() -> None:
+    """Compile the loop, into the compile cache when there is one, by running one loan.
+
+    The signature is that of every run (:func:`_checked_arrays` makes the dtypes one set), so
+    a later :func:`expected_losses` in any process loads it from the cache. The command line
+    runs this in a second process while the first reads the tape (:mod:`allowance.jitcache`).
+    """
+    one = lambda v, dt=float: np.array([v], dtype=dt)  # noqa: E731
+    frame = lambda v, dt=float: np.full((1, 1), v, dtype=dt)  # noqa: E731
+    expected_losses(KernelInputs(
+        code=one(0, np.int64), balance=one(1.0), rate=one(0.0), months_left=one(1, np.int64),
+        io_left=one(0, np.int64), residual=one(0.0), payment=one(np.nan), curve=frame(0, np.int64),
+        prepay=one(0, np.int64), prepay_offset=one(0, np.int64), in_default=frame(False, np.bool_), lgd=one(0.5),
+        collateral=one(0.0), haircut=one(0.0), recovery_cost=one(0.0), lgd_floor=one(0.0),
+        recovery_discount=frame(1.0), cure=one(0.0), refinance_pd=one(0.0), horizon=frame(1, np.int64),
+        ead_add=frame(0.0), paydown=frame(0.0), discount=frame(1.0), interest=frame(0.0),
+        pd=np.full((1, 1, 1, 1), 0.01), smm=frame(0.0), lgd_multiplier=np.ones((1, 1, 1)),
+        collateral_index=np.ones((1, 1, 1, 1)),
+    ))
 
 
 def _defaulted_losses(a: dict[str, np.ndarray], sums: np.ndarray) -> None:

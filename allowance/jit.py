@@ -1,4 +1,4 @@
-"""Where the compiled kernels are cached: a user cache folder when writable, else nowhere.
+"""The compiled kernels' cache and how their loops run on all cores.
 
 Implements
 ----------
@@ -6,28 +6,20 @@ CACHE        whether ``numba.njit`` may cache compiled code (pass it as ``cache=
 cache_dir    the folder compiled code is cached in, or None when it is not cached
 in_threads   run a ``nogil`` kernel's blocks of loans on all cores
 
-numba caches compiled kernels beside the source (``__pycache__``) or in the user's home; on
-a shared, read-only install run by a user without a writable home neither exists, and
-``cache=True`` then fails at import ("cannot cache function ...: no locator available"), so
-every command, even ``allowance version``, would fail. Here the cache goes to the first
-writable of ``NUMBA_CACHE_DIR`` (when the user set it) and the user cache folder
-(``$XDG_CACHE_HOME/allowance/numba``, ``~/.cache/allowance/numba``; ``~/Library/Caches`` on
-macOS, ``%LOCALAPPDATA%`` on Windows); when neither is writable the kernels are compiled
-without caching (a few seconds at each start, the same results).
+The folder is chosen by :mod:`allowance.jitcache` (without numba: the command line asks it
+before loading numba); this module hands it to numba.
 """
 
 from __future__ import annotations
 
-import os
 import sys
-import tempfile
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
-from pathlib import Path
 
 import numba
 
 from allowance import jitable
+from allowance.jitcache import cache_dir
 
 __all__ = ["CACHE", "cache_dir", "in_threads"]
 
@@ -36,46 +28,7 @@ __all__ = ["CACHE", "cache_dir", "in_threads"]
 BLOCKS_PER_GRAB = 4
 
 
-def _user_cache_root() -> Path | None:
-    """The platform's per-user cache folder, or None when there is no home to put it in."""
-    xdg = os.environ.get("XDG_CACHE_HOME", "")
-    if xdg and os.path.isabs(xdg):
-        return Path(xdg)
-    if sys.platform == "win32" and os.environ.get("LOCALAPPDATA"):  # pragma: no cover
-        return Path(os.environ["LOCALAPPDATA"])
-    try:
-        home = Path.home()
-    except (RuntimeError, KeyError, OSError):  # no HOME and no password entry
-        return None
-    return home / "Library" / "Caches" if sys.platform == "darwin" else home / ".cache"
-
-
-def _writable(folder: Path) -> bool:
-    """Whether files can be made in ``folder`` (created when missing), tested as numba tests it."""
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        tempfile.TemporaryFile(dir=folder).close()
-    except OSError:
-        return False
-    return True
-
-
-def _choose() -> Path | None:
-    candidates = []
-    if os.environ.get("NUMBA_CACHE_DIR"):
-        candidates.append(Path(os.environ["NUMBA_CACHE_DIR"]))
-    root = _user_cache_root()
-    if root is not None:
-        candidates.append(root / "allowance" / "numba")
-    return next((c for c in candidates if _writable(c)), None)
-
-
-def cache_dir() -> Path | None:
-    """The folder compiled kernels are cached in (None: compiled at each start, not cached)."""
-    return _CACHE_DIR
-
-
-_CACHE_DIR = _choose()
+_CACHE_DIR = cache_dir()
 if _CACHE_DIR is not None:
     numba.config.CACHE_DIR = str(_CACHE_DIR)  # read by numba's cache locator at each decoration
 

@@ -15,7 +15,7 @@ from pathlib import Path
 import allowance
 
 LAYERS: list[tuple[str, ...]] = [
-    ("exceptions", "text", "money", "jit", "jitable", "memory"),  # leaves: the domain errors, text safety, cents,
+    ("exceptions", "text", "money", "jit", "jitable", "jitcache", "memory"),  # leaves: the domain errors, text safety, cents,
     # compile cache, the scalar maths compiled loops may call, freed memory handed back
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
     ("links", "discounting", "cashflows", "shortfall"),  # maths with no other concept beneath it
