@@ -43,12 +43,16 @@ from __future__ import annotations
 
 import math
 
+from typing import TYPE_CHECKING
+
 import numba
 import numpy as np
-import pandas as pd
 
 from allowance import jit
 from allowance.jitable import jitable
+
+if TYPE_CHECKING:  # pandas is loaded by the functions on dates: the compiled maths alone need not wait for it
+    import pandas as pd
 
 LEVEL, INTEREST_ONLY, BALLOON, REVOLVING, HELOC = 0, 1, 2, 3, 4
 REPAYMENT_CODES: dict[str, int] = {
@@ -68,10 +72,13 @@ def remaining_months(as_of: pd.Timestamp, maturity: pd.Series) -> np.ndarray:
 
     Examples
     --------
+    >>> import pandas as pd
     >>> m = pd.Series(pd.to_datetime(["2027-09-30", "2027-10-15", "2027-03-31", "2026-09-30"]))
     >>> remaining_months(pd.Timestamp("2026-09-30"), m).tolist()
     [12, 13, 6, 0]
     """
+    import pandas as pd
+
     mat = pd.to_datetime(maturity)
     valid = mat.notna().to_numpy()
     years = mat.dt.year.fillna(0).to_numpy(np.int64)
@@ -89,10 +96,13 @@ def age_months(origination: pd.Series, as_of: pd.Timestamp) -> np.ndarray:
 
     Examples
     --------
+    >>> import pandas as pd
     >>> o = pd.Series(pd.to_datetime(["2026-09-01", "2024-09-30", "2024-10-01", "2026-08-31"]))
     >>> age_months(o, pd.Timestamp("2026-09-30")).tolist()
     [0, 24, 23, 1]
     """
+    import pandas as pd
+
     orig = pd.to_datetime(origination)
     whole = (as_of.year - orig.dt.year.to_numpy(np.int64)) * 12 + (
         as_of.month - orig.dt.month.to_numpy(np.int64)
@@ -570,6 +580,8 @@ def schedule(
     1      2           803.97      8.04               399.99           403.99
     2      3           403.99      4.04               403.99             0.00
     """
+    import pandas as pd
+
     code = REPAYMENT_CODES[repayment]
     smm_path = np.broadcast_to(np.asarray(smm, float), (months,)).copy()
     pd_path = np.broadcast_to(np.asarray(marginal_pd, float), (months,)).copy()

@@ -44,12 +44,12 @@ def _from_interrupt(error: BaseException) -> bool:
 
 
 #: The commands whose first run compiles the ECL loop in a second process
-#: (:func:`allowance.jitcache.compile_ahead`): ``demo`` calibrates for seconds before its
-#: first run, so the compile is done by then (first demo on the project's 2-core machine,
-#: paired, loaded: 14.1 -> 12.1 s). Not ``run``: it reaches the loop about 1.4 s after start,
-#: less than the second process needs to load numba and pandas, and on a loaded machine the
-#: extra work made a first run slower (6.6 -> 8.2 s).
-_COMPUTING = frozenset({"demo"})
+#: (:func:`allowance.jitcache.compile_ahead`) while this one loads its libraries and reads the
+#: tape. First run of the demo tape on the project's 2-core machine, paired, empty compile
+#: cache: 6.8 -> 4.7 s quiet, 5.76 -> 5.74 s with another job on the machine; the demo
+#: command (which calibrates first) 14.1 -> 12.1 s. ``backtest`` reads a history and a tape
+#: before its first loop, as ``run`` does.
+_COMPUTING = frozenset({"run", "demo", "backtest"})
 
 
 def main() -> None:

@@ -47,10 +47,10 @@ loan_months      one loan's sum month by month (the schedule view of what the lo
 from __future__ import annotations
 
 from dataclasses import dataclass, fields
+from typing import TYPE_CHECKING
 
 import numba
 import numpy as np
-import pandas as pd
 
 from allowance import jit, jitcache
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, contractual_payments, path_terms
@@ -58,6 +58,9 @@ from allowance.curves.lgd import collateral_lgd, loss_given_default
 from allowance.curves.refinance import refinance_default
 from allowance.shortfall import default_loss
 from allowance.exceptions import InvalidInputError
+
+if TYPE_CHECKING:  # loaded by loan_months: compiling the loop alone (compile_loop) needs no pandas
+    import pandas as pd
 
 #: the LGD of a loan-month (:func:`allowance.curves.lgd.loss_given_default`), compiled into the loop
 _loss_given_default = numba.njit(cache=jit.CACHE)(loss_given_default)
@@ -534,6 +537,8 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
     >>> round(float(m["ecl"].sum()), 9) == round(float(expected_losses(k).ecl_lifetime[0, 0, 0]), 9)
     True
     """
+    import pandas as pd
+
     a = dict(zip(_FIELDS, _checked_arrays(inputs)))
     code, balance, rate = int(a["code"][i]), float(a["balance"][i]), float(a["rate"][i])
     months_left, io_left, k = int(a["months_left"][i]), int(a["io_left"][i]), int(a["curve"][f, i])

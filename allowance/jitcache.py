@@ -17,10 +17,14 @@ macOS, ``%LOCALAPPDATA%`` on Windows); when neither is writable the kernels are 
 without caching (a few seconds at each start, the same results).
 
 The first run after an install or an upgrade compiles the ECL loop (:func:`allowance.ecl.expected_losses`),
-some 3-4 s on a 2-core machine, all of it before a single loan is measured. ``allowance demo``
-therefore starts a second Python process at once that compiles the loop into the cache while
-the first calibrates the demo's assumptions from its history: on two cores the two overlap. The first call of the loop waits for that process and then loads the loop
-from the cache, as every later run does. Nothing about the figures changes: the cached code is
+some 3-4 s on a 2-core machine, all of it before a single loan is measured. The commands that
+run the loop therefore start a second Python process at once that compiles the loop into the
+cache while the first imports pandas and the schemas, reads and checks the tape and builds the
+tables (``allowance demo`` calibrates first): on two cores the two overlap. The second process
+loads only numpy, numba and the loop's own maths (``allowance.curves`` loads its submodules on
+first use, and the loop's modules load pandas only in the functions that use it). The first
+call of the loop waits for that process and then loads the loop from the cache, as every
+later run does. Nothing about the figures changes: the cached code is
 the code a compile in the first process would make (the same compiler, flags and signature),
 and when the second process fails or the cache is not writable the first compiles as before.
 Only the command line does this (:func:`compile_ahead` is called from ``allowance.console``);

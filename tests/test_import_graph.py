@@ -10,6 +10,8 @@ API and command line on top. A new top-level module must be placed here.
 from __future__ import annotations
 
 import ast
+import subprocess
+import sys
 from pathlib import Path
 
 import allowance
@@ -138,3 +140,16 @@ def test_check_loads_no_compiler_and_no_rich_formatting():
     exit_line, loaded = done.stdout.strip().splitlines()[-2:]
     assert exit_line == "exit 1"  # the bad demo tape has rejected rows: the check really ran
     assert loaded == "|pandas", loaded
+
+
+def test_the_curves_package_hands_out_each_name_of_its_submodules_loaded_on_first_use():
+    # allowance.curves loads a submodule when one of its names is first asked for, so the
+    # compiled loop's LGD maths loads without pandas; each name is the submodule's own object,
+    # roll_forecast the function (it also names its submodule), whatever was asked first
+    code = ("import sys, inspect\nimport allowance.curves.lgd\nprint('pandas' in sys.modules)\n"
+            "import allowance.curves as c\nfrom allowance.curves import segment_roll_forecasts\n"
+            "import importlib\nbad = [n for n in c.__all__ if getattr(c, n) is not getattr(importlib.import_module("
+            "'allowance.curves.' + c._WHERE[n]), n)]\nprint(bad, inspect.isfunction(c.roll_forecast))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split("\n")[:2] == ["False", "[] True"], done.stdout

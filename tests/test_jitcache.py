@@ -71,7 +71,7 @@ def test_the_loop_compiled_ahead_is_loaded_by_the_next_process_not_compiled_agai
     again = _child("from allowance import jitcache\nprint(jitcache.compile_ahead())", cache)
     assert again.stdout.split() == ["False"], again.stderr
     # numba's own record: the loop was a cache hit, with no compile, in the next process
-    used = _child("import allowance.ecl as e\ne.compile_loop()\ns = e._kernel.stats\n"
+    used = _child("import sys\nimport allowance.ecl as e\nassert 'pandas' not in sys.modules\ne.compile_loop()\ns = e._kernel.stats\n"
                   "print(sum(s.cache_hits.values()), sum(s.cache_misses.values()))", cache)
     assert used.returncode == 0, used.stderr
     assert used.stdout.split() == ["1", "0"]
@@ -93,9 +93,10 @@ def test_waiting_with_nothing_started_returns_at_once():
     assert time.perf_counter() - t < 1.0
 
 
-@pytest.mark.parametrize(("args", "ahead"), [(["demo", "--help"], True), (["run", "--help"], False),
-                                              (["check", "--help"], False), (["version"], False)])
-def test_the_command_line_compiles_ahead_for_the_demo_only(monkeypatch, capsys, args, ahead):
+@pytest.mark.parametrize(("args", "ahead"), [(["demo", "--help"], True), (["run", "--help"], True),
+                                              (["backtest", "--help"], True), (["check", "--help"], False),
+                                              (["compare", "--help"], False), (["version"], False)])
+def test_the_command_line_compiles_ahead_for_the_commands_that_run_the_loop(monkeypatch, capsys, args, ahead):
     asked = []
     monkeypatch.setattr(jitcache, "compile_ahead", lambda: asked.append(True) or False)
     monkeypatch.setattr(sys, "argv", ["allowance", *args])
