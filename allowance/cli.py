@@ -316,11 +316,10 @@ def _what_if_totals(result: Result) -> dict[str, dict[str, float]]:
 def _run_summary(result: Result, out: Path, files: list[Path], notes: list[str], seconds: float) -> dict[str, Any]:
     """The run as --json prints it (and as the text summary reads it)."""
     rec = result.record
-    totals = result.totals
-    by_stage = {}
-    for fw in rec["frameworks"]:
-        mine = totals[(totals["framework"] == fw) & (totals["segment"] == "Total") & (totals["stage"] != "Total")]
-        by_stage[fw] = {str(s): float(v) for s, v in zip(mine["stage"], mine["allowance"])}
+    # the allowance by stage as run.json records it ("stage 1" ... "POCI", the stages present):
+    # the rows of Result.totals over all segments, without summing a million loans again
+    by_stage = {fw: {str(s).removeprefix("stage "): float(v) for s, v in rec["totals"][fw].get("by_stage", {}).items()}
+                for fw in rec["frameworks"]}
     sens = result.sensitivity
     alone: dict[str, dict[str, float]] = {}
     if sens is not None and not sens.empty:

@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
+import allowance
 from allowance import api
 from allowance.cli import _demo_hint, _shown_path, app
 from allowance.progress import Display
@@ -146,6 +147,14 @@ def test_run_json_is_the_whole_summary(book):
     assert summary["command"] == "run" and summary["ok"] is True
     assert summary["allowance"] == record["total_allowance"] and summary["rows"]["read"] == 24
     assert sum(summary["by_stage"]["ifrs9"].values()) == pytest.approx(record["total_allowance"]["ifrs9"], abs=0.01)
+    # the stages as the library's totals table has them over all segments (tested against a
+    # sum over the loans in tests/test_library_api.py): labels, order and cents; CECL has no stages
+    totals = allowance.run(ws.tape, ws.toml, sensitivities=False).totals
+    over_all = totals[(totals["segment"] == "Total") & (totals["stage"] != "Total")]
+    for fw in ("ifrs9", "cecl"):
+        mine = over_all[over_all["framework"] == fw]
+        assert summary["by_stage"][fw] == dict(zip(mine["stage"], mine["allowance"].astype(float)))
+    assert summary["by_stage"]["ifrs9"] and summary["by_stage"]["cecl"] == {}
     assert "run.json" in summary["files"] and summary["out"] == str(ws.out)
     arguments = record["arguments"]
     assert arguments["command"] == "run" and arguments["as_json"] is True
