@@ -261,6 +261,19 @@ def test_movement_ties_to_the_cent(pair, framework):
     lines = ["opening", "new", "pcd_gross_up", "derecognised", "written_off", "unwind", "remeasurement",
              "modifications", "model_change", "assumptions", "overlays"]
     assert (cents(loans[lines]).sum(axis=1) == cents(loans["closing"])).all()
+    # ... to each loan's own figures in the runs: closing is the current run's allowance (0 for a
+    # loan not in it), opening the prior run's (module docstring: P, C)
+    now = loans["status"].isin(["continuing", "new"]).to_numpy()
+    mine = loans[now].set_index("loan_id")
+    assert (cents(mine.loc[current["loan_id"].astype(str), "closing"]) == cents(current[ecl])).all()
+    assert (cents(loans.loc[~now, "closing"]) == 0).all()
+    was = loans[loans["status"].isin(["continuing", "written off", "derecognised"]).to_numpy()]
+    assert cents(was["opening"]).sum() == cents(prior[ecl]).sum()
+    # the transfer out of a continuing loan's prior cell is P - W (the module docstring), none for the others
+    cont = (loans["status"] == "continuing").to_numpy()
+    assert (cents(loans.loc[cont, "transfer"]) == cents(loans.loc[cont, "opening"])
+            + cents(loans.loc[cont, "written_off"])).all()
+    assert (cents(loans.loc[~cont, "transfer"]) == 0).all()
 
 
 @pytest.mark.slow

@@ -54,7 +54,8 @@ import pyarrow as pa
 
 from allowance.frameworks import rules_for
 from allowance.exceptions import MovementError
-from allowance.reconcile.runs import STATUSES, Book, Bridge, RunLoans, bridge
+from allowance.reconcile.blocks import Blocks
+from allowance.reconcile.runs import STATUSES, Book, Bridge, LoanIds, RunLoans, bridge
 from allowance.reconcile.tables import (
     _ALLOWANCE_BODY, _GROSS_BODY, LEDGER, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
     check_movement, journal, rollforward, write_off_bridge,
@@ -287,7 +288,7 @@ def _movement(book: Book, framework: Framework, months: int | None,
             f"(written off before the prior run, or opened and closed within the period); the roll-forward shows "
             f"them under {where}"
         )
-    write_offs = write_off_bridge(loans, framework)  # before the loan table's copy is made (memory)
+    write_offs = write_off_bridge(loans, framework)
     return Movement(
         framework=framework,
         allowance=tables["allowance"][0],
@@ -296,7 +297,7 @@ def _movement(book: Book, framework: Framework, months: int | None,
         gross_detail=tables["gross"][1],
         rollforward=roll,
         journal=journal(roll, framework, _presented(book, framework)),
-        _loan_rows=_LoanRows.of(loans, book.compacted, release=True),  # last to read the bridge
+        _loan_rows=_LoanRows.of(loans, book.narrowed),
         assumptions_isolated=book.rerun is not None,
         notes=tuple(notes),
         write_offs=write_offs,
@@ -373,17 +374,34 @@ _LOAN_MONEY = {name: name for name in (
     "g_opening": "balance_prior", "g_closing": "balance", "gross_charge_off": "gross_charge_off",
     "recoveries": "recoveries"}
 
-#: the loan table's lines that are the same for every framework (the bridge's gross carrying amount)
-_SHARED_LINES = frozenset({"g_opening", "g_closing", "gross_charge_off", "recoveries"})
+
+#: the loan table's lines not kept but made again for each slice from the others (see the
+#: module docstring): the transfer out of a continuing loan's prior cell is its opening
+#: allowance less the allowance written off, and per loan the lines sum to closing less opening
+_MADE_AGAIN = ("transfer", "closing")
+_TO_CLOSING = ("opening", "new", "pcd_gross_up", "derecognised", "written_off", "unwind", "remeasurement",
+               "modifications", "model_change", "assumptions", "overlays")
+
+
+def _narrow(codes: np.ndarray) -> np.ndarray:
+    """Codes (-1 and up) in the fewest bytes that hold them."""
+    top = int(codes.max()) if len(codes) else 0
+    for kind in (np.int8, np.int16):
+        if top <= np.iinfo(kind).max:
+            return codes.astype(kind)
+    return codes
 
 
 @dataclass(frozen=True)
 class _LoanRows:
-    """What the loan table is made of: ids (Arrow text), status, segments and classes as codes
-    into their names (-1: not in that run), every money column in cents. The bridge's other
-    arrays are let go once the tables are made."""
+    """What the loan table is made of: ids (:class:`LoanIds`), status, segments and classes as
+    codes into their names (-1: not in that run; each in the fewest bytes), every money
+    column's cents as the bridge keeps them (:class:`Blocks`: the gross carrying amount's
+    shared by every framework), but for the lines made again from the others for each slice
+    (``transfer`` and ``closing``, of which only whether the whole line needs int64 is kept).
+    The bridge's other arrays are let go once the tables are made."""
 
-    loan_ids: pa.Array
+    loan_ids: LoanIds
     status: np.ndarray
     segment_prior: np.ndarray
     segment: np.ndarray
@@ -391,40 +409,41 @@ class _LoanRows:
     klass: np.ndarray
     segments: list[str]
     classes: list[str]
-    cents: dict[str, np.ndarray]
+    cents: dict[str, Blocks]
+    wide: dict[str, bool]  # the lines made again: whether each needs int64 (Blocks.wide)
 
     @classmethod
-    def of(cls, bridge: Bridge, compacted: dict[str, tuple[np.ndarray, np.ndarray]] | None = None, *,
-           release: bool = False) -> _LoanRows:
-        """``compacted``: line -> (the bridge's array, its compacted copy) made for another
-        framework; a line whose array is that same array (the gross carrying amount's lines,
-        shared by every framework's bridge) takes the copy made, so one is kept for all.
-        ``release``: the bridge is not read again, each line is taken out of it as it is
-        compacted (its int64 array goes while the next is made)."""
-        compacted = {} if compacted is None else compacted
+    def of(cls, bridge: Bridge, narrowed: dict[int, np.ndarray] | None = None) -> _LoanRows:
+        """``narrowed``: id of a bridge's code array -> its narrowed copy, made once for every
+        framework's bridge that shares the array (the segments); the array must stay alive
+        while the dictionary is used (the caller's bridges keep it)."""
+        narrowed = {} if narrowed is None else narrowed
 
-        def compact(line: str) -> np.ndarray:
-            values = bridge.amounts.pop(line) if release else bridge.amounts[line]
-            made = compacted.get(line)
-            if made is not None and made[0] is values:
-                return made[1]
-            small = _compact(values)
-            if line in _SHARED_LINES:
-                compacted[line] = (values, small)  # the book keeps the array alive: no id reused
-            return small
+        def narrow(codes: np.ndarray) -> np.ndarray:
+            if id(codes) not in narrowed:
+                narrowed[id(codes)] = _narrow(codes)
+            return narrowed[id(codes)]
 
-        small = lambda codes: codes.astype(np.int32, copy=False)  # noqa: E731  (a segment or class code: 4 bytes)
-        return cls(loan_ids=bridge.loan_ids, status=bridge.status, segment_prior=small(bridge.segment_prior),
-                   segment=small(bridge.segment), class_prior=small(bridge.class_prior), klass=small(bridge.klass),
-                   segments=bridge.segments, classes=bridge.classes,
-                   cents={line: compact(line) for line in _LOAN_MONEY})
+        return cls(loan_ids=bridge.loan_ids, status=bridge.status, segment_prior=narrow(bridge.segment_prior),
+                   segment=narrow(bridge.segment), class_prior=_narrow(bridge.class_prior),
+                   klass=_narrow(bridge.klass), segments=bridge.segments, classes=bridge.classes,
+                   cents={line: bridge.lines[line] for line in _LOAN_MONEY if line not in _MADE_AGAIN},
+                   wide={line: bridge.lines[line].wide for line in _MADE_AGAIN})
 
-
-def _compact(cents: np.ndarray) -> np.ndarray:
-    """Cents as int32 where every amount fits (most lines of most books: 4 bytes a loan, not 8)."""
-    if len(cents) and np.abs(cents).max() < 2**31 - 1:
-        return cents.astype(np.int32)
-    return cents
+    def compact(self, line: str, start: int = 0, stop: int | None = None) -> np.ndarray:
+        """A money line's cents of loans ``start:stop``, int32 where every amount of the whole
+        line fits (else int64), as the bridge made it."""
+        kept = self.cents.get(line)
+        if kept is not None:
+            return kept.compact(start, stop)
+        if line == "transfer":
+            values = self.cents["opening"].dense(start, stop) + self.cents["written_off"].dense(start, stop)
+            values[self.status[start:stop] != 0] = 0  # continuing loans only (STATUSES)
+        else:
+            values = self.cents["opening"].dense(start, stop)
+            for part in _TO_CLOSING[1:]:
+                values += self.cents[part].dense(start, stop)
+        return values if self.wide[line] else values.astype(np.int32)
 
 
 @dataclass(frozen=True)
@@ -443,13 +462,15 @@ class LoanColumns:
 
 def _loan_columns(rows: _LoanRows, start: int = 0, stop: int | None = None) -> LoanColumns:
     cut = slice(start, stop)
-    ids = rows.loan_ids[start:stop if stop is not None else len(rows.loan_ids)]
+    ids = rows.loan_ids[cut]
     text = {"loan_id": (ids, np.arange(len(ids), dtype=np.int64))}
     for name, labels, codes in (("status", STATUSES, rows.status), ("segment_prior", rows.segments, rows.segment_prior),
                                 ("segment", rows.segments, rows.segment), ("class_prior", rows.classes, rows.class_prior),
                                 ("class", rows.classes, rows.klass)):
-        text[name] = (pa.array(labels, pa.large_string()), codes[cut])
-    return LoanColumns(text=text, cents={name: rows.cents[line][cut] for line, name in _LOAN_MONEY.items()})
+        # a segment or class code read as 4 bytes (status as its one byte), whatever it is kept in
+        text[name] = (pa.array(labels, pa.large_string()), codes[cut] if name == "status" else codes[cut].astype(np.int32))
+    # each money column in cents, int32 where every amount of the whole column fits (else int64)
+    return LoanColumns(text=text, cents={name: rows.compact(line, start, stop) for line, name in _LOAN_MONEY.items()})
 
 
 def _loan_table(rows: _LoanRows | None, start: int = 0, stop: int | None = None) -> pd.DataFrame:

@@ -3,22 +3,27 @@
 Implements
 ----------
 RunLoans        one run's loan results (or the charge-off file) as the movement reads them: each
-                column converted once, whichever frameworks use it; ids and segments stay Arrow text
+                column checked once, whichever frameworks use it; ids and segments stay Arrow text
 Book            the prior run, the current run, the rerun at prior assumptions and the charge-offs,
                 joined once for every framework: each loan's place among the loans of any of them
                 (one hash pass over the ids), the segments factorised once
+LoanIds         the joined loans' ids, taken a slice at a time from the runs' own ids
 Bridge          one framework's movement loan by loan: arrays over the joined loans, segments and
-                classes as integer codes, every line's amount in cents
+                classes as integer codes, every line's amount in cents (kept as :class:`Blocks`)
 bridge          build it for one framework
 movement_columns    the columns of a run's loans.csv the movement (and the vintage disclosure) reads
 
 The join never walks text in Python: ids are neutralised and dictionary-encoded by Arrow, and
 every later step works on the codes (a million loans' ids as Python strings cost seconds
-each time they were converted, set-compared or grouped).
+each time they were converted, set-compared or grouped). The lines are made a block of
+joined loans at a time (:data:`allowance.reconcile.blocks.BLOCK`), each run's figures taken
+to cents for the block's loans only, and kept as :class:`Blocks`: the whole-book int64 arrays
+of every line and of every run's figures were most of the memory of a run with ``--prior``.
 """
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -29,10 +34,11 @@ import pyarrow.compute as pc
 
 from allowance.exceptions import MovementError
 from allowance.frameworks import rules_for
+from allowance.reconcile.blocks import BLOCK, Blocks
 from allowance.schemas import FRAMEWORKS, Framework
 from allowance.text import neutralise_table
 
-__all__ = ["UNASSIGNED_SEGMENT", "Book", "Bridge", "RunLoans", "bridge", "movement_columns"]
+__all__ = ["UNASSIGNED_SEGMENT", "Book", "Bridge", "LoanIds", "RunLoans", "bridge", "movement_columns"]
 
 
 #: the roll-forward segment of charge-offs for loans in neither run, when the file gives none
@@ -68,25 +74,38 @@ def _show(value: object) -> str:
     return repr(value) if isinstance(value, str) else str(value)
 
 
-def _text(values: pd.Series) -> pa.Array:
+def _text(values: pd.Series) -> pa.ChunkedArray:
     """A column as Arrow text, as ``astype(str)`` gives it (missing stays missing): pandas' own
-    Arrow-backed text is handed over without a copy."""
+    Arrow-backed text is handed over without a copy, its chunks as they are."""
     if not (isinstance(values.dtype, pd.StringDtype) and values.dtype.storage == "pyarrow"):
         values = values.astype(str)
     array = pa.array(values, from_pandas=True)
-    if isinstance(array, pa.ChunkedArray):
-        array = array.combine_chunks()
+    if isinstance(array, pa.Array):
+        array = pa.chunked_array([array])
     return array.cast(pa.large_string())
 
 
-def _neutralised(values: pa.Array) -> pa.Array:
+def _neutralised(values: pa.ChunkedArray) -> pa.ChunkedArray:
     """Ids as a spreadsheet-safe file carries them (``=x`` -> ``'=x``): the join key of both runs."""
-    return neutralise_table(pa.table({"id": values})).column(0).combine_chunks()
+    return neutralise_table(pa.table({"id": values})).column(0)
 
 
-def _codes(encoded: pa.Array) -> np.ndarray:
-    """The indices of a dictionary array as int64, a missing value -1."""
-    return pc.fill_null(encoded.indices, -1).to_numpy(zero_copy_only=False).astype(np.int64)
+def _first_null(values: pa.ChunkedArray) -> int:
+    """The place of the first missing value (there is one)."""
+    return int(np.flatnonzero(values.is_null().to_numpy())[0])
+
+
+def _codes(encoded: pa.ChunkedArray) -> np.ndarray:
+    """The indices of a dictionary-encoded column as int32, a missing value -1."""
+    if not encoded.num_chunks:
+        return np.zeros(0, dtype=np.int32)
+    return np.concatenate([pc.fill_null(chunk.indices, -1).to_numpy(zero_copy_only=False).astype(np.int32, copy=False)
+                           for chunk in encoded.chunks])
+
+
+def _dictionary(encoded: pa.ChunkedArray) -> pa.Array:
+    """The values a dictionary-encoded column's codes point to (shared by its chunks)."""
+    return encoded.chunk(0).dictionary if encoded.num_chunks else pa.array([], pa.large_string())
 
 
 def _add(codes: np.ndarray, values: np.ndarray, size: int) -> np.ndarray:
@@ -101,6 +120,31 @@ def _spread(rows: np.ndarray, values: np.ndarray, size: int, fill=0) -> np.ndarr
     out = np.full(size, fill, dtype=values.dtype)
     out[rows] = values
     return out
+
+
+def _places(rows: np.ndarray, size: int) -> np.ndarray:
+    """For each joined loan, its row in one run (int32; -1: not in that run)."""
+    out = np.full(size, -1, dtype=np.int32)
+    out[rows] = np.arange(len(rows), dtype=np.int32)
+    return out
+
+
+class Figures:
+    """One run's money column, checked, as the movement reads it: cents taken per block of
+    joined loans (:meth:`at`), ``rint(x * 100)`` of each loan's figure as the whole column's
+    conversion gave it, never a whole-book array of cents."""
+
+    __slots__ = ("values",)
+
+    def __init__(self, values: np.ndarray) -> None:
+        self.values = values  # float64, every value finite
+
+    def at(self, places: np.ndarray) -> np.ndarray:
+        """Cents (int64) of the loans at ``places`` in the run; 0 where a place is -1."""
+        out = np.zeros(len(places), dtype=np.int64)
+        there = places >= 0
+        out[there] = np.rint(self.values[places[there]] * 100.0).astype(np.int64)
+        return out
 
 
 class RunLoans:
@@ -126,12 +170,12 @@ class RunLoans:
         return self._converted[name]
 
     @property
-    def ids(self) -> pa.Array:
-        """``loan_id`` as text, as the run wrote it."""
+    def ids(self) -> pa.ChunkedArray:
+        """``loan_id`` as text, as the run wrote it (the frame's own Arrow chunks where it has them)."""
         return self._once("ids", lambda: _text(self.frame["loan_id"]))
 
     @property
-    def keys(self) -> pa.Array:
+    def keys(self) -> pa.ChunkedArray:
         """The join key: the id neutralised as a spreadsheet-safe file carries it (made when asked:
         the join takes it once, a message about one loan again)."""
         return _neutralised(self.ids)
@@ -140,15 +184,14 @@ class RunLoans:
         return self.ids[i].as_py()
 
     @property
-    def segment(self) -> pa.Array:
+    def segment(self) -> pa.ChunkedArray:
         """``segment`` as text (a missing one stays missing)."""
         return self._once("segment", lambda: _text(self.frame["segment"]))
 
     def require_segment(self) -> None:
         """Every loan of a run sits in a segment; a blank one is a named error."""
-        blank = self.segment.null_count
-        if blank:
-            i = int(np.flatnonzero(self.segment.is_null().to_numpy(zero_copy_only=False))[0])
+        if self.segment.null_count:
+            i = _first_null(self.segment)
             raise MovementError(f"loan {self.id_at(i)!r}: segment is blank", file=self.source, column="segment",
                                 hint="use the loans.csv the run wrote")
 
@@ -160,14 +203,30 @@ class RunLoans:
         kept = self._converted.get("cents:" + column)
         return kept if kept is not None else self._cents(self.frame[column], column)
 
+    def figures(self, column: str) -> Figures:
+        """A money column checked as :meth:`cents` checks it, its cents taken a block at a time."""
+        return self._once("figures:" + column, lambda: Figures(self._numbers(self.frame[column], column)))
+
+    def optional_figures(self, column: str) -> Figures | None:
+        """:meth:`figures` of a money column a run may not carry (older runs), blanks as 0; None
+        when absent (the figures :meth:`optional_cents` converts)."""
+        if not self.has(column):
+            return None
+        return Figures(self._numbers(pd.to_numeric(self.frame[column], errors="coerce").fillna(0.0), column))
+
     def optional_cents(self, column: str) -> np.ndarray | None:
         """A money column a run may not carry (older runs): cents, blanks as 0; None when absent."""
         if not self.has(column):
             return None
         return self._cents(pd.to_numeric(self.frame[column], errors="coerce").fillna(0.0), column)
 
-    def _cents(self, values: pd.Series, column: str) -> np.ndarray:
-        numbers = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    def _numbers(self, values: pd.Series, column: str) -> np.ndarray:
+        """The column as float64 (the frame's own array when it is one); a blank or non-number is
+        a named error."""
+        if values.dtype == np.float64:
+            numbers = values.to_numpy()  # NaN already where blank: no copy
+        else:
+            numbers = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
         bad = ~np.isfinite(numbers)
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
@@ -175,7 +234,10 @@ class RunLoans:
                 f"loan {self.id_at(i)!r}: {column} is blank or not a number ({_show(values.iloc[i])})",
                 file=self.source, column=column, hint="rerun that run so every loan carries its figures",
             )
-        return np.rint(numbers * 100.0).astype(np.int64)
+        return numbers
+
+    def _cents(self, values: pd.Series, column: str) -> np.ndarray:
+        return np.rint(self._numbers(values, column) * 100.0).astype(np.int64)
 
     def rate(self, column: str) -> np.ndarray:
         """A discount rate per loan, blanks as 0; NaN for every loan when the run has no such column."""
@@ -191,7 +253,7 @@ class RunLoans:
 
     @property
     def stage(self) -> np.ndarray:
-        """The IFRS 9 stage of every loan (int64); one that is not 1, 2 or 3 is a named error."""
+        """The IFRS 9 stage of every loan (int8); one that is not 1, 2 or 3 is a named error."""
         return self._once("stage", self._stage)
 
     def _stage(self) -> np.ndarray:
@@ -203,7 +265,7 @@ class RunLoans:
                 f"loan {self.id_at(i)!r}: stage {_show(self.frame['stage'].iloc[i])} is not 1, 2 or 3",
                 file=self.source, column="stage", hint="use the loans.csv the run wrote",
             )
-        return stage.astype(np.int64)
+        return stage.astype(np.int8)
 
 
 def _flags(values: pd.Series) -> np.ndarray:
@@ -231,9 +293,9 @@ class Book:
         empty = charge_offs is None or len(charge_offs) == 0
         self.charge_offs = None if empty else RunLoans(charge_offs, sources["charge_offs"])
         self.joined = None  # what every framework's bridge shares (made by the first)
-        #: the movement's loan lines every framework shares (the gross carrying amount's), as
-        #: compacted for the loan table once: line -> (the shared array, its compacted copy)
-        self.compacted: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+        #: the shared code arrays of the joined loans as the movements keep them (see
+        #: movement._LoanRows.of): made once for every framework
+        self.narrowed: dict[int, np.ndarray] = {}
 
     def _parts(self) -> list[RunLoans]:
         """The runs whose ids take part in the join, in the order their loans are numbered."""
@@ -242,13 +304,15 @@ class Book:
 
     @cached_property
     def _join(self) -> tuple[dict[int, np.ndarray], int, pa.Array]:
-        """Every run's rows among the joined loans, their number, and the keys of them all."""
+        """Every run's rows among the joined loans, their number, and the keys of the joined
+        loans in neither run (charged off only), in their order."""
         parts = self._parts()
         # the rerun of this quarter's tape gives the current run's ids in the current run's
         # order (it is the same tape): its rows are the current run's, not hashed again
         same = self.rerun in parts and self.current in parts and self.rerun.ids.equals(self.current.ids)
         hashed = [r for r in parts if not (same and r is self.rerun)]
-        keys = pa.chunked_array([r.keys for r in hashed], type=pa.large_string()).combine_chunks()
+        # the runs' keys hashed as their chunks come (one dictionary for all): no whole copy of them
+        keys = pa.chunked_array([chunk for r in hashed for chunk in r.keys.chunks], type=pa.large_string())
         if keys.null_count:
             self._blank_ids(hashed)
         encoded = keys.dictionary_encode()
@@ -262,12 +326,16 @@ class Book:
         # the rerun's ids come last: one it has beyond the two runs and the charge-offs is not joined
         joined = sum(len(r) for r in parts if r is not self.rerun)
         n = int(codes[:joined].max()) + 1 if joined else 0
-        return rows, n, encoded.dictionary
+        # codes count in order of first appearance: those of the two runs' loans come first
+        runs = sum(len(r) for r in hashed if r is self.prior or r is self.current)
+        in_runs = int(codes[:runs].max()) + 1 if runs else 0
+        orphans = _dictionary(encoded).take(pa.array(np.arange(in_runs, n))) if n > in_runs else pa.array([], pa.large_string())
+        return rows, n, orphans.cast(pa.large_string())
 
     def _blank_ids(self, parts: list[RunLoans]) -> None:
         for r in parts:
             if r.keys.null_count:
-                i = int(np.flatnonzero(r.keys.is_null().to_numpy(zero_copy_only=False))[0])
+                i = _first_null(r.keys)
                 raise MovementError(f"row {i + 1}: loan_id is blank", file=r.source, column="loan_id",
                                     hint="every loan of a run carries its id")
 
@@ -277,7 +345,7 @@ class Book:
         return self._join[1]
 
     def rows(self, run: RunLoans) -> np.ndarray:
-        """Each loan of ``run`` as its row among the joined loans."""
+        """Each loan of ``run`` as its row among the joined loans (int32)."""
         return self._join[0][id(run)]
 
     def require_unique(self, run: RunLoans) -> None:
@@ -290,54 +358,74 @@ class Book:
             raise MovementError(f"loan {run.keys[i].as_py()!r} appears more than once", file=run.source,
                                 column="loan_id", hint="each loan must appear once in a run")
 
-    def key_of(self, row: int) -> str:
-        return self._join[2][row].as_py()
-
     @cached_property
     def segments(self) -> tuple[list[str], dict[int, np.ndarray]]:
         """The segment names of every run (and of the charge-off file), factorised once, and each
-        run's loans as codes into them (-1: none given)."""
+        run's loans as codes into them (int32; -1: none given)."""
         parts = [self.prior, self.current]
         co = self.charge_offs if self.charge_offs is not None and self.charge_offs.has("segment") else None
         parts += [co] if co is not None else []
-        encoded = pa.chunked_array([r.segment for r in parts], type=pa.large_string()).combine_chunks().dictionary_encode()
+        encoded = pa.chunked_array([chunk for r in parts for chunk in r.segment.chunks],
+                                   type=pa.large_string()).dictionary_encode()
         codes = _codes(encoded)
         out, start = {}, 0
         for r in parts:
             out[id(r)] = codes[start:start + len(r)]
             start += len(r)
         if self.charge_offs is not None and co is None:
-            out[id(self.charge_offs)] = np.full(len(self.charge_offs), -1, dtype=np.int64)
-        return encoded.dictionary.to_pylist(), out
+            out[id(self.charge_offs)] = np.full(len(self.charge_offs), -1, dtype=np.int32)
+        return _dictionary(encoded).to_pylist(), out
 
     @cached_property
-    def loan_ids(self) -> pa.Array:
+    def loan_ids(self) -> LoanIds:
         """The id of each joined loan as the current run gives it, else the prior run, else the key."""
         n = self.size
-        in_c = _spread(self.rows(self.current), np.ones(len(self.current), dtype=bool), n, False)
-        in_p = _spread(self.rows(self.prior), np.ones(len(self.prior), dtype=bool), n, False)
-        at_c = _spread(self.rows(self.current), np.arange(len(self.current)), n, -1)
-        at_p = _spread(self.rows(self.prior), np.arange(len(self.prior)), n, -1)
-        neither = np.flatnonzero(~in_c & ~in_p)
-        orphans = self._join[2].take(pa.array(neither)) if len(neither) else pa.array([], pa.large_string())
-        at_o = np.full(n, -1)
-        at_o[neither] = np.arange(len(neither))
-        base_p, base_o = len(self.current), len(self.current) + len(self.prior)
-        where = np.where(in_c, at_c, np.where(in_p, base_p + at_p, base_o + at_o))
-        texts = pa.chunked_array([self.current.ids, self.prior.ids, orphans.cast(pa.large_string())],
-                                 type=pa.large_string()).combine_chunks()
-        return texts.take(pa.array(where))
+        rows_c, rows_p = self.rows(self.current), self.rows(self.prior)
+        at_c = _places(rows_c, n)
+        at_p = _places(rows_p, n)
+        # the prior run's loans not in the current run, in their joined order: their ids taken
+        # out of the prior run's (the current run's are the ones it has, not copied)
+        gone = np.flatnonzero((at_p >= 0) & (at_c < 0))
+        gone_ids = self.prior.ids.take(pa.array(at_p[gone])) if len(gone) else pa.chunked_array([], pa.large_string())
+        where = at_c.astype(np.int64)
+        where[gone] = len(self.current) + np.arange(len(gone))
+        neither = np.flatnonzero((at_c < 0) & (at_p < 0))
+        where[neither] = len(self.current) + len(gone) + np.arange(len(neither))
+        texts = pa.chunked_array([*self.current.ids.chunks, *gone_ids.chunks, self._join[2]], type=pa.large_string())
+        return LoanIds(texts, where.astype(np.int32) if n < 2**31 else where)
+
+
+class LoanIds:
+    """The ids of the joined loans (Arrow text), each taken when a slice of them is asked for
+    from the runs' own ids: ``texts`` (the current run's ids, the prior run's loans that left,
+    the charged-off loans in neither run) and each joined loan's place among them."""
+
+    __slots__ = ("texts", "where")
+
+    def __init__(self, texts: pa.ChunkedArray, where: np.ndarray) -> None:
+        self.texts, self.where = texts, where
+
+    def __len__(self) -> int:
+        return len(self.where)
+
+    def __getitem__(self, cut: slice) -> pa.Array:
+        """The ids of loans ``cut`` (a slice), as one Arrow array."""
+        picked = self.where[cut]
+        if not len(picked):
+            return pa.array([], pa.large_string())
+        return self.texts.take(pa.array(picked)).combine_chunks()
 
 
 @dataclass(frozen=True)
 class _Prepared:
-    """One run's figures for one framework, in cents, in the run's own row order."""
+    """One run's figures for one framework, checked, in the run's own row order (cents taken
+    per block of joined loans)."""
 
-    ecl: np.ndarray | None
-    mod: np.ndarray
-    gross_up: np.ndarray | None = None
+    ecl: Figures | None
+    mod: Figures
+    gross_up: Figures | None = None
     rate: np.ndarray | None = None
-    klass: np.ndarray | None = None  # codes into the framework's classes
+    klass: np.ndarray | None = None  # codes into the framework's classes (int8)
 
 
 def _class_names(framework: Framework) -> tuple[list[str], np.ndarray]:
@@ -351,7 +439,7 @@ def _class_names(framework: Framework) -> tuple[list[str], np.ndarray]:
 
 
 def _prepare(book: Book, run: RunLoans, framework: Framework, *, modelled_only: bool = False) -> _Prepared:
-    """The columns the movement needs from one run, in cents, each loan placed among the joined loans."""
+    """The columns the movement needs from one run, checked, in the run's own order."""
     rules = rules_for(framework)
     final = f"ecl_{framework}"
     modelled = f"ecl_{framework}_modelled"
@@ -368,29 +456,30 @@ def _prepare(book: Book, run: RunLoans, framework: Framework, *, modelled_only: 
         )
     book.require_unique(run)
     if modelled_only:
-        return _Prepared(ecl=None, mod=run.cents(modelled))
+        return _Prepared(ecl=None, mod=run.figures(modelled))
     run.require_segment()
-    ecl = run.cents(final)
-    mod = run.cents(modelled) if run.has(modelled) else ecl
-    run.cents("balance", keep=True)  # every framework's gross carrying amount (Book's _Joined)
+    ecl = run.figures(final)
+    mod = run.figures(modelled) if run.has(modelled) else ecl
+    run.figures("balance")  # every framework's gross carrying amount (Book's _Joined)
     # CECL: the allowance at purchase of a PCD asset bought in the period (a gross-up)
-    gross_up = run.optional_cents("pcd_gross_up")
+    gross_up = run.optional_figures("pcd_gross_up")
     rate = run.rate(f"discount_rate_{framework}")
     run.flags("modified")  # checked in turn, read by _Joined
     poci = run.flags("poci")
-    stage = run.stage if rules.staged else np.ones(len(run), dtype=np.int64)
+    stage = run.stage if rules.staged else np.ones(len(run), dtype=np.int8)
     _, of_pair = _class_names(framework)
     return _Prepared(ecl=ecl, mod=mod, gross_up=gross_up, rate=rate,
-                     klass=of_pair[2 * (stage - 1) + poci])
+                     klass=of_pair.astype(np.int8)[2 * (stage - 1) + poci])
 
 
-def _charge_off_sums(book: Book) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _charge_off_sums(book: Book) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None, np.ndarray]:
     """The period's charge-offs summed per joined loan: whether charged off, gross charge-off and
-    recoveries in cents, and the segment code the file gives (its first given; -1: none)."""
+    recoveries in cents (None for both when there are no charge-offs), and the segment code
+    the file gives (its first given; -1: none)."""
     n = book.size
     co = book.charge_offs
     if co is None:
-        return np.zeros(n, dtype=bool), np.zeros(n, dtype=np.int64), np.zeros(n, dtype=np.int64), np.full(n, -1)
+        return np.zeros(n, dtype=bool), None, None, np.full(n, -1, dtype=np.int32)
     missing = [c for c in ("loan_id", "gross_charge_off") if not co.has(c)]
     if missing:
         raise MovementError(
@@ -415,11 +504,31 @@ def _charge_off_sums(book: Book) -> tuple[np.ndarray, np.ndarray, np.ndarray, np
     in_co = np.bincount(rows, minlength=n)[:n] > 0
     seg_rows = book.segments[1][id(co)]
     given = np.flatnonzero(seg_rows >= 0)
-    segment = np.full(n, -1, dtype=np.int64)
+    segment = np.full(n, -1, dtype=np.int32)
     if len(given):
         _, first = np.unique(rows[given], return_index=True)  # each loan's first row that names a segment
         segment[rows[given[first]]] = seg_rows[given[first]]
     return in_co, _add(rows, gco, n), _add(rows, rec, n), segment
+
+
+class Lines(Mapping):
+    """Every line's cents over the joined loans (:class:`Blocks`), each read as a whole int64
+    array when asked for (``lines[name]``): a table takes one line at a time."""
+
+    def __init__(self, blocks: dict[str, Blocks]) -> None:
+        self.blocks = blocks
+
+    def __getitem__(self, line: str) -> np.ndarray:
+        return self.blocks[line].dense()
+
+    def __contains__(self, line: object) -> bool:
+        return line in self.blocks
+
+    def __iter__(self):
+        return iter(self.blocks)
+
+    def __len__(self) -> int:
+        return len(self.blocks)
 
 
 @dataclass(frozen=True)
@@ -428,7 +537,8 @@ class Bridge:
 
     ``segments`` and ``classes`` are the names the codes point into (-1: the loan is not in
     that run); ``amounts`` every line's amount in cents, zero wherever the line does not apply
-    (so a sum over any loans is that line's total over them); ``loan_ids`` the ids, Arrow text.
+    (so a sum over any loans is that line's total over them), each made whole when read from
+    ``lines`` (the :class:`Blocks` the line is kept in); ``loan_ids`` the ids (:class:`LoanIds`).
     """
 
     in_prior: np.ndarray
@@ -441,11 +551,15 @@ class Bridge:
     klass: np.ndarray
     segments: list[str]
     classes: list[str]
-    amounts: dict[str, np.ndarray]
-    loan_ids: pa.Array
+    lines: dict[str, Blocks]
+    loan_ids: LoanIds
 
     def __len__(self) -> int:
         return len(self.in_prior)
+
+    @property
+    def amounts(self) -> Lines:
+        return Lines(self.lines)
 
     def codes(self, dim: str, side: str) -> np.ndarray:
         """A dimension's codes (``segment`` or ``class``) on one side (``prior`` or ``current``)."""
@@ -462,17 +576,40 @@ class _Joined:
     """What every framework's bridge shares: who is where, the segments, and the gross carrying
     amount's lines (the balance moves the same whichever allowance is measured)."""
 
+    at_prior: np.ndarray  # each joined loan's row in the prior run (-1: not there)
+    at_current: np.ndarray
     in_prior: np.ndarray
     in_current: np.ndarray
     continuing: np.ndarray
     charged: np.ndarray  # the joined loans in the prior run with a charge-off, as row numbers
+    gross_charge_off: np.ndarray | None  # cents per joined loan (None: no charge-offs)
     status: np.ndarray
     segment_prior: np.ndarray
     segment: np.ndarray
     segment_any: np.ndarray
     segments: list[str]
     modified: np.ndarray  # continuing loans flagged modified
-    gross: dict[str, np.ndarray]
+    gross: dict[str, Blocks]
+
+
+def _blocks(n: int):
+    """The joined loans block by block: slices of :data:`BLOCK` loans."""
+    return (slice(lo, min(lo + BLOCK, n)) for lo in range(0, n, BLOCK))
+
+
+def _within(rows: np.ndarray, cut: slice) -> np.ndarray:
+    """The rows (sorted) that fall in the block ``cut``, as places in it."""
+    return rows[np.searchsorted(rows, cut.start): np.searchsorted(rows, cut.stop)] - cut.start
+
+
+def _made(n: int, names: tuple[str, ...], block) -> dict[str, Blocks]:
+    """Each of ``names``' lines as :class:`Blocks`, from ``block(cut) -> {name: int64 amounts}``
+    called once per block of joined loans."""
+    pieces: dict[str, list[np.ndarray]] = {name: [] for name in names}
+    for cut in _blocks(n):
+        for name, values in block(cut).items():
+            pieces[name].append(values)
+    return {name: Blocks.gather(pieces.pop(name)) for name in names}
 
 
 def _joined(book: Book) -> _Joined:
@@ -482,30 +619,40 @@ def _joined(book: Book) -> _Joined:
     in_co, gco, rec, seg_co = _charge_off_sums(book)
     n = book.size
     rows_p, rows_c = book.rows(book.prior), book.rows(book.current)
-    in_p = _spread(rows_p, np.ones(len(rows_p), dtype=bool), n, False)
-    in_c = _spread(rows_c, np.ones(len(rows_c), dtype=bool), n, False)
+    at_p, at_c = _places(rows_p, n), _places(rows_c, n)
+    in_p, in_c = at_p >= 0, at_c >= 0
     cont, new = in_p & in_c, in_c & ~in_p
     gone = in_p & ~in_c
     written, derec = gone & in_co, gone & ~in_co
     charged = np.flatnonzero(in_p & in_co)
-    Bp = _spread(rows_p, book.prior.cents("balance", keep=True), n)
-    Bc = _spread(rows_c, book.current.cents("balance", keep=True), n)
-    # the gross carrying amount written off: never more than the charge-off
-    wg = np.zeros(n, dtype=np.int64)
-    wg[charged] = np.minimum(Bp[charged], gco[charged])
-    g_new = np.where(new, Bc, 0)
-    g_derecognised = wg - Bp
-    g_derecognised[~gone] = 0
-    g_transfer = Bp - wg
-    g_other = Bc - g_transfer
-    g_transfer[~cont] = 0
-    g_other[~cont] = 0
+    balance_p, balance_c = book.prior.figures("balance"), book.current.figures("balance")
 
+    def block(cut: slice) -> dict[str, np.ndarray]:
+        Bp, Bc = balance_p.at(at_p[cut]), balance_c.at(at_c[cut])
+        # the gross carrying amount written off: never more than the charge-off
+        wg = np.zeros(len(Bp), dtype=np.int64)
+        if gco is not None:
+            there = _within(charged, cut)
+            wg[there] = np.minimum(Bp[there], gco[cut][there])
+        g_new = np.where(new[cut], Bc, 0)
+        g_derecognised = wg - Bp
+        g_derecognised[~gone[cut]] = 0
+        g_transfer = Bp - wg
+        g_other = Bc - g_transfer
+        g_transfer[~cont[cut]] = 0
+        g_other[~cont[cut]] = 0
+        zero = np.zeros(len(Bp), dtype=np.int64)
+        return {"g_opening": Bp, "g_new": g_new, "g_derecognised": g_derecognised, "g_written_off": -wg,
+                "g_transfer": g_transfer, "g_other_changes": g_other, "g_closing": Bc,
+                "gross_charge_off": zero if gco is None else gco[cut], "recoveries": zero if rec is None else rec[cut]}
+
+    gross = _made(n, ("g_opening", "g_new", "g_derecognised", "g_written_off", "g_transfer", "g_other_changes",
+                      "g_closing", "gross_charge_off", "recoveries"), block)
     segments, seg_codes = book.segments
     segments = list(segments)
-    seg_p = _spread(rows_p, seg_codes[id(book.prior)].astype(np.int32), n, -1)
-    seg_c = _spread(rows_c, seg_codes[id(book.current)].astype(np.int32), n, -1)
-    seg_any = np.where(in_p, seg_p, np.where(in_c, seg_c, seg_co.astype(np.int32)))
+    seg_p = _spread(rows_p, seg_codes[id(book.prior)], n, -1)
+    seg_c = _spread(rows_c, seg_codes[id(book.current)], n, -1)
+    seg_any = np.where(in_p, seg_p, np.where(in_c, seg_c, seg_co))
     # a loan opened and charged off within the period is in neither run: its segment comes
     # from the charge-off file when it has one, else it is shown apart
     orphan = seg_any < 0
@@ -514,15 +661,19 @@ def _joined(book: Book) -> _Joined:
             segments.append(UNASSIGNED_SEGMENT)
         seg_any[orphan] = segments.index(UNASSIGNED_SEGMENT)
     book.joined = _Joined(
-        in_prior=in_p, in_current=in_c, continuing=cont, charged=charged,
+        at_prior=at_p, at_current=at_c, in_prior=in_p, in_current=in_c, continuing=cont, charged=charged,
+        gross_charge_off=gco,
         status=np.select([cont, new, written, derec], [0, 1, 2, 3], 4).astype(np.int8),
         segment_prior=seg_p, segment=seg_c, segment_any=seg_any, segments=segments,
         modified=cont & _spread(rows_c, book.current.flags("modified"), n, False),
-        gross={"g_opening": Bp, "g_new": g_new, "g_derecognised": g_derecognised, "g_written_off": -wg,
-               "g_transfer": g_transfer, "g_other_changes": g_other, "g_closing": Bc,
-               "gross_charge_off": gco, "recoveries": rec},
+        gross=gross,
     )
     return book.joined
+
+
+#: the allowance's lines a bridge makes (the gross carrying amount's come from _Joined)
+_ALLOWANCE_LINES = ("opening", "new", "pcd_gross_up", "derecognised", "written_off", "transfer", "unwind",
+                    "remeasurement", "modifications", "model_change", "assumptions", "overlays", "closing")
 
 
 def bridge(book: Book, framework: Framework, *, months: int | None = None,
@@ -538,16 +689,13 @@ def bridge(book: Book, framework: Framework, *, months: int | None = None,
     a = None if book.rerun is None else _prepare(book, book.rerun, framework, modelled_only=True)
     j = _joined(book)
     n = book.size
-    rows_p, rows_c = book.rows(book.prior), book.rows(book.current)
-    cont, not_cont = j.continuing, ~j.continuing
-    new = j.in_current & ~j.in_prior
-
-    P, Pm = _spread(rows_p, p.ecl, n), _spread(rows_p, p.mod, n)
-    C, Cm = _spread(rows_c, c.ecl, n), _spread(rows_c, c.mod, n)
+    at_p, at_c = j.at_prior, j.at_current
+    at_a = None
     if a is not None:
         rows_a = book.rows(book.rerun)
         in_a = np.zeros(max(n, int(rows_a.max()) + 1 if len(rows_a) else 0), dtype=bool)
         in_a[rows_a] = True
+        rows_c = book.rows(book.current)
         lacking = np.flatnonzero(~in_a[rows_c])
         if len(lacking):
             # the first missing loan in the order of its key
@@ -558,79 +706,92 @@ def bridge(book: Book, framework: Framework, *, months: int | None = None,
                 "assumptions", file=book.sources["current_at_prior_assumptions"],
                 hint="rerun the whole current tape with the prior run's assumptions",
             )
-        inside = rows_a < n
-        A = _spread(rows_a[inside], a.mod[inside], n)
+        del in_a
+        # the rerun in the current run's order has the current run's rows (Book._join)
+        same = rows_a is rows_c
+        inside = np.flatnonzero(rows_a < n)
+        at_a = at_c if same else np.full(n, -1, dtype=np.int32)
+        if not same:
+            at_a[rows_a[inside]] = inside
+    class_prior = _spread(book.rows(book.prior), p.klass, n, -1)
+    klass = _spread(book.rows(book.current), c.klass, n, -1)
+    if "*" in method_changed or not method_changed:
+        changed = None
     else:
-        A = Cm
-    # each run's figures are placed among the joined loans here; their own arrays go before the
-    # lines are made (a million loans: some 60 MB less at the movement's peak)
-    class_prior = _spread(rows_p, p.klass.astype(np.int32), n, -1)
-    klass = _spread(rows_c, c.klass.astype(np.int32), n, -1)
-    rate = _spread(rows_p, p.rate, n, np.nan) if months is not None else None
-    bought = _spread(rows_c, c.gross_up, n) if gross_up and c.gross_up is not None else None
-    del p, c, a
-
-    # the allowance used by a charge-off: never more than the charge-off, never a negative
-    # allowance (a POCI gain is not "written off"); what is left of a leaving loan's
-    # allowance is released on derecognition
-    w = np.zeros(n, dtype=np.int64)
-    w[j.charged] = np.minimum(np.maximum(P[j.charged], 0), j.gross["gross_charge_off"][j.charged])
-    # CECL: a PCD asset bought in the period enters with its purchase-date allowance as a
-    # gross-up of amortised cost (ASC 326-20-30-13), not through the provision
-    G = np.zeros(n, dtype=np.int64)
-    if bought is not None:
-        G[new] = bought[new]
-        del bought
-    # unwind of the discount on the opening (modelled) allowance of continuing loans, at the
-    # rate that discounted it: P_m ((1 + r/12)^months - 1)
-    unwind = np.zeros(n, dtype=np.int64)
-    if rate is not None:
-        at = np.flatnonzero(cont & ~np.isnan(rate))
-        unwind[at] = np.rint(Pm[at] * np.expm1(np.log1p(rate[at] / 12.0) * months)).astype(np.int64)
-    del rate
-    # at prior assumptions (remeasurement, or modifications for a loan flagged modified)
-    rest = A - Pm
-    rest += w
-    rest -= unwind
-    rest[not_cont] = 0
-    modified = np.flatnonzero(j.modified)
-    modifications = np.zeros(n, dtype=np.int64)
-    modifications[modified] = rest[modified]
-    rest[modified] = 0
-    # the assumptions' effect: new loans are valued at the closing assumptions
-    change = Cm - A
-    change[not_cont] = 0
-    if "*" in method_changed:
-        model_change, assumptions = change, np.zeros(n, dtype=np.int64)
-    elif method_changed:
         changed = np.isin(j.segment, [i for i, s in enumerate(j.segments) if s in method_changed])
-        model_change, assumptions = np.where(changed, change, 0), np.where(changed, 0, change)
-    else:
-        model_change, assumptions = np.zeros(n, dtype=np.int64), change
-    overlays = C - Cm
-    overlays -= P
-    overlays += Pm
-    overlays[not_cont] = 0
-    del A, Cm, Pm
-    new_amount = C - G
-    new_amount[~new] = 0
-    derecognised = w - P
-    derecognised[cont | ~j.in_prior] = 0
-    transfer = P - w
-    transfer[not_cont] = 0
-    w = np.negative(w, out=w)
+    gco = j.gross_charge_off
+    bought = c.gross_up if gross_up else None
+
+    def block(cut: slice) -> dict[str, np.ndarray]:
+        cont = j.continuing[cut]
+        not_cont = ~cont
+        new = j.in_current[cut] & ~j.in_prior[cut]
+        pp, cc = at_p[cut], at_c[cut]
+        P, Pm = p.ecl.at(pp), (p.mod.at(pp) if p.mod is not p.ecl else None)
+        Pm = P if Pm is None else Pm
+        C = c.ecl.at(cc)
+        Cm = C if c.mod is c.ecl else c.mod.at(cc)
+        A = Cm if a is None else a.mod.at(at_a[cut])
+        # the allowance used by a charge-off: never more than the charge-off, never a negative
+        # allowance (a POCI gain is not "written off"); what is left of a leaving loan's
+        # allowance is released on derecognition
+        w = np.zeros(len(P), dtype=np.int64)
+        if gco is not None:
+            there = _within(j.charged, cut)
+            w[there] = np.minimum(np.maximum(P[there], 0), gco[cut][there])
+        # CECL: a PCD asset bought in the period enters with its purchase-date allowance as a
+        # gross-up of amortised cost (ASC 326-20-30-13), not through the provision
+        G = np.zeros(len(P), dtype=np.int64)
+        if bought is not None:
+            G[new] = bought.at(cc)[new]
+        # unwind of the discount on the opening (modelled) allowance of continuing loans, at the
+        # rate that discounted it: P_m ((1 + r/12)^months - 1)
+        unwind = np.zeros(len(P), dtype=np.int64)
+        if months is not None and p.rate is not None:
+            rate = np.full(len(P), np.nan)
+            rate[pp >= 0] = p.rate[pp[pp >= 0]]
+            at = np.flatnonzero(cont & ~np.isnan(rate))
+            unwind[at] = np.rint(Pm[at] * np.expm1(np.log1p(rate[at] / 12.0) * months)).astype(np.int64)
+        # at prior assumptions (remeasurement, or modifications for a loan flagged modified)
+        rest = A - Pm
+        rest += w
+        rest -= unwind
+        rest[not_cont] = 0
+        modified = np.flatnonzero(j.modified[cut])
+        modifications = np.zeros(len(P), dtype=np.int64)
+        modifications[modified] = rest[modified]
+        rest[modified] = 0
+        # the assumptions' effect: new loans are valued at the closing assumptions
+        change = Cm - A
+        change[not_cont] = 0
+        if "*" in method_changed:
+            model_change, assumptions = change, np.zeros(len(P), dtype=np.int64)
+        elif changed is not None:
+            model_change, assumptions = np.where(changed[cut], change, 0), np.where(changed[cut], 0, change)
+        else:
+            model_change, assumptions = np.zeros(len(P), dtype=np.int64), change
+        overlays = C - Cm
+        overlays -= P
+        overlays += Pm
+        overlays[not_cont] = 0
+        new_amount = C - G
+        new_amount[~new] = 0
+        derecognised = w - P
+        derecognised[cont | ~j.in_prior[cut]] = 0
+        transfer = P - w
+        transfer[not_cont] = 0
+        return {"opening": P, "new": new_amount, "pcd_gross_up": G, "derecognised": derecognised,
+                "written_off": -w, "transfer": transfer, "unwind": unwind, "remeasurement": rest,
+                "modifications": modifications, "model_change": model_change, "assumptions": assumptions,
+                "overlays": overlays, "closing": C}
+
+    lines = _made(n, _ALLOWANCE_LINES, block)
     classes, _ = _class_names(framework)
-    amounts = {
-        # allowance, cents
-        "opening": P, "new": new_amount, "pcd_gross_up": G, "derecognised": derecognised, "written_off": w,
-        "transfer": transfer, "unwind": unwind, "remeasurement": rest, "modifications": modifications,
-        "model_change": model_change, "assumptions": assumptions, "overlays": overlays, "closing": C,
-        # gross carrying amount, cents (the same for every framework)
-        **j.gross,
-    }
     return Bridge(
         in_prior=j.in_prior, in_current=j.in_current, status=j.status, segment_prior=j.segment_prior,
         segment=j.segment, segment_any=j.segment_any,
         class_prior=class_prior, klass=klass,
-        segments=j.segments, classes=classes, amounts=amounts, loan_ids=book.loan_ids,
+        segments=j.segments, classes=classes,
+        lines={**lines, **j.gross},  # the gross carrying amount's: the same Blocks for every framework
+        loan_ids=book.loan_ids,
     )
