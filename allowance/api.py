@@ -202,7 +202,7 @@ def _rerun_at_prior_assumptions(tape: pd.DataFrame, config: RunConfig, record: M
 
 @dataclass(frozen=True)
 class _Prior:
-    loans: pd.DataFrame
+    loans: pd.DataFrame | intake.LoanFigures
     record: Mapping
     source: str
 
@@ -210,17 +210,31 @@ class _Prior:
 def _prior(prior: str | os.PathLike | Result, role: str = "prior", *,
            vintages: bool = False, recorded: bool = True) -> tuple[_Prior, list]:
     """A finished run's loans and record: from a folder, only the loans.csv columns the movement
-    reads (and, with ``vintages``, those that date a write-off for the vintage disclosure), and
-    (``recorded``) the two files' records for the run record, each file hashed."""
+    reads, each kept as the movement reads it (:func:`allowance.intake.read_prior_figures`; a
+    frame of them when a value needs its message, or, with ``vintages``, with the columns
+    that date a write-off for the vintage disclosure), and (``recorded``) the two files'
+    records for the run record, each file hashed."""
     if isinstance(prior, Result):
         return _Prior(prior.loans, prior.record, f"the {role} result"), []
-    from allowance.reconcile import movement_columns
+    from allowance.reconcile import movement_columns, movement_kinds
 
     folder = Path(prior)
-    previous = intake.read_prior_run(folder, role, columns=movement_columns(vintages=vintages))
+    previous = (None if vintages else intake.read_prior_figures(folder, movement_kinds(), role)) or \
+        intake.read_prior_run(folder, role, columns=movement_columns(vintages=vintages))
     return _Prior(previous.loans, previous.record, str(folder / "loans.csv")), [
         intake.file_record(folder / "loans.csv", "prior"), intake.file_record(folder / "run.json", "prior")
     ] if recorded else []
+
+
+def _given_back(work: Callable[..., Any], *args, **kwargs) -> Any:
+    """``work(*args, **kwargs)`` on a thread of its own, then what it freed handed back: a
+    thread's C heap keeps its freed blocks, which no other thread reuses."""
+    from allowance.memory import give_back
+
+    try:
+        return work(*args, **kwargs)
+    finally:
+        give_back()
 
 
 def _record_as_of(record: Mapping[str, Any] | None) -> date | None:
@@ -373,7 +387,7 @@ def run(
     reading_prior = None
     if prior is not None and not isinstance(prior, Result):
         reader = ThreadPoolExecutor(1, thread_name_prefix="allowance-prior")
-        reading_prior = reader.submit(_prior, prior, vintages=charge_offs is not None)
+        reading_prior = reader.submit(_given_back, _prior, prior, vintages=charge_offs is not None)
         reader.shutdown(wait=False)  # the thread ends with its one task
     told("read", 0, 1)
     taken = _read_tape(source, config, map)
@@ -433,6 +447,9 @@ def run(
         from allowance import reconcile
 
         told("prior", 0, 1)
+        # what the steps since the engine freed stays in this thread's heap, where the second
+        # pass's chunk threads cannot reuse it: handed back before they make their own
+        give_back()
         previous, prior_inputs = (reading_prior.result() if reading_prior is not None
                                   else _prior(prior, vintages=charge_offs is not None))
         reading_prior = None

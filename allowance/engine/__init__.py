@@ -58,7 +58,7 @@ from allowance.money import CENT_DECIMALS
 from allowance.schemas import LoanRecord, RunConfig
 
 __all__ = [
-    "CHUNK_SIZE", "IN_PROCESS_CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
+    "CHUNK_SIZE", "IN_PROCESS_CHUNK_SIZE", "MODELLED_CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
     "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
     "max_age", "modelled", "two_at_a_time", "only_weights_differ", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
@@ -67,6 +67,8 @@ CHUNK_SIZE = 250_000
 #: Loans per chunk when no ``map`` is given: this process then computes two chunks at a time
 #: (:func:`two_at_a_time`), which hold about what one chunk of :data:`CHUNK_SIZE` held.
 IN_PROCESS_CHUNK_SIZE = CHUNK_SIZE // 2
+#: Loans per chunk of :func:`modelled` when no ``map`` is given (two at a time, as :func:`run`).
+MODELLED_CHUNK_SIZE = IN_PROCESS_CHUNK_SIZE // 2
 
 #: an executor-style map: ``map(function, chunks)`` yields the results in the chunks' order
 Map = Callable[[Callable[[pd.DataFrame], ChunkResult], Iterable[pd.DataFrame]], Iterable[ChunkResult]]
@@ -379,22 +381,34 @@ def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int | None = 
     ``stages_from``: a configuration and the loans (``stage``, ``poci`` in tape order) a run of
     this tape under it gave; where it stages alike (:func:`same_stages`), the stages are
     taken from those loans instead of being assigned again. ``map`` and ``chunk_size`` as for
-    :func:`run` (no map: two chunks at a time in this process, :func:`two_at_a_time`).
+    :func:`run` (no map: two chunks of :data:`MODELLED_CHUNK_SIZE` loans at a time in this
+    process, :func:`two_at_a_time`).
     """
     if map is None:
-        map, chunk_size = two_at_a_time, chunk_size or IN_PROCESS_CHUNK_SIZE
+        # half the first pass's chunks: this pass runs while that pass's loan results (and the
+        # prior run's) are held, so two chunks in flight of 62,500 loans, not of 125,000
+        map, chunk_size = two_at_a_time, chunk_size or MODELLED_CHUNK_SIZE
     chunk_size = chunk_size or CHUNK_SIZE
     prep = prepare(config, tape_months(tape, config), max_age(tape, config))
+    # what the whole-tape steps above freed stays in this thread's heap, where the chunk threads
+    # cannot reuse it: handed back before they make their own (a million loans: some 90 MB)
+    give_back()
     chunks = list(_chunks(tape, chunk_size))
     given = [None] * len(chunks)
     if stages_from is not None and prep.staged is not None and same_stages(stages_from[0], config):
         known = stages_from[1][["stage", "poci"]]
         given = [known.iloc[i * chunk_size: i * chunk_size + len(chunk)].set_axis(chunk.index)
                  for i, chunk in enumerate(chunks)]
-    frames = [part.assign(**{c: np.round(part[c].to_numpy(dtype=np.float64), CENT_DECIMALS)
-                             for c in part.columns if c != "loan_id"})
-              for part in map(functools.partial(_modelled_part, prep=prep), zip(chunks, given))]
-    return pd.concat(frames, ignore_index=True)
+    # each chunk's figures rounded into the book's columns as the chunk comes back, the ids
+    # the tape's own (the same text, not a copy): no list of chunk frames joined at the end
+    figures: dict[str, np.ndarray] = {}
+    start = 0
+    for part in map(functools.partial(_modelled_part, prep=prep), zip(chunks, given)):
+        for c in part.columns.drop("loan_id"):
+            into = figures.setdefault(c, np.empty(len(tape), dtype=np.float64))
+            np.round(part[c].to_numpy(dtype=np.float64), CENT_DECIMALS, out=into[start: start + len(part)])
+        start += len(part)
+    return pd.DataFrame({"loan_id": tape["loan_id"].array, **figures}, copy=False)
 
 
 @dataclass(frozen=True)

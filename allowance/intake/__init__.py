@@ -9,6 +9,7 @@ tie_out             accepted tape balance against the ledger control total -> Ti
 check_table         the counts ``allowance check`` prints
 read_charge_offs    the period's charge-off file
 read_prior_run      a previous run's loans.csv and run.json -> PriorRun
+read_prior_figures  the same, only the columns asked for, each kept compactly -> PriorFigures
 read_macro_history  a monthly or quarterly macro history file -> MacroHistory
 read_history        a monthly performance history (CSV / Parquet, streamed) -> HistoryIntake
 read_policy         a calibration policy file (TOML)
@@ -38,8 +39,11 @@ _EXPORTS: dict[str, str] = {
     "data_dictionary": "fields",
     "bundled_path": "files",
     "file_record": "files",
+    "LoanFigures": "history",
+    "PriorFigures": "history",
     "PriorRun": "history",
     "read_charge_offs": "history",
+    "read_prior_figures": "history",
     "read_prior_run": "history",
     "MacroHistory": "macro_series",
     "read_macro_history": "macro_series",
@@ -60,7 +64,9 @@ if TYPE_CHECKING:  # pragma: no cover
     from allowance.intake.assumptions import load_assumptions, read_transition_matrix
     from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
     from allowance.intake.files import bundled_path, file_record
-    from allowance.intake.history import PriorRun, read_charge_offs, read_prior_run
+    from allowance.intake.history import (
+        LoanFigures, PriorFigures, PriorRun, read_charge_offs, read_prior_figures, read_prior_run,
+    )
     from allowance.intake.macro_series import MacroHistory, read_macro_history
     from allowance.intake.parts import is_partitioned, read_parts
     from allowance.intake.performance import HistoryIntake, read_history
@@ -80,7 +86,9 @@ __all__ = [
     "FIELDS",
     "FieldSpec",
     "IntakeResult",
+    "LoanFigures",
     "MacroHistory",
+    "PriorFigures",
     "PriorRun",
     "TieOut",
     "bundled_path",
@@ -90,6 +98,7 @@ __all__ = [
     "load_assumptions",
     "read_charge_offs",
     "read_macro_history",
+    "read_prior_figures",
     "read_prior_run",
     "read_tape",
     "read_transition_matrix",

@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Collection
+from collections.abc import Collection, Mapping
 from dataclasses import dataclass
 from datetime import date
 from pathlib import Path
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -19,6 +19,9 @@ from allowance.intake.files import check_size, file_kind
 from allowance.intake.parse import NUMBER_PATTERN
 from allowance.intake.readers import read_raw
 from allowance.schemas import Framework
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pyarrow as pa
 
 CHARGE_OFF_COLUMNS = ("loan_id", "gross_charge_off", "recoveries")
 
@@ -186,6 +189,21 @@ _DATE_COLUMNS = {n for n, f in FIELDS.items() if f.kind == "date"}
 _FLAG_COLUMNS = {n for n, f in FIELDS.items() if f.kind == "boolean"} | {"poci"}
 
 
+def _prior_files(folder: Path, role: str) -> tuple[Path, dict]:
+    """A previous run's ``loans.csv`` (its path) and ``run.json`` (read and checked)."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputFileError(f"the {role} run folder was not found", file=folder,
+                             hint="give the --out folder of that run")
+    loans_path, record_path = folder / "loans.csv", folder / "run.json"
+    for needed in (loans_path, record_path):
+        if not needed.is_file():
+            raise InputFileError(
+                f"not found in the {role} run folder", file=needed, hint="give the --out folder of a completed run"
+            )
+    return loans_path, read_run_record(record_path)
+
+
 def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] | None = None) -> PriorRun:
     """Read ``loans.csv`` and ``run.json`` from a previous run's output folder.
 
@@ -201,17 +219,7 @@ def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] |
     InputFileError
         The folder or either file is missing or unreadable.
     """
-    folder = Path(folder)
-    if not folder.is_dir():
-        raise InputFileError(f"the {role} run folder was not found", file=folder,
-                             hint="give the --out folder of that run")
-    loans_path, record_path = folder / "loans.csv", folder / "run.json"
-    for needed in (loans_path, record_path):
-        if not needed.is_file():
-            raise InputFileError(
-                f"not found in the {role} run folder", file=needed, hint="give the --out folder of a completed run"
-            )
-    record = read_run_record(record_path)
+    loans_path, record = _prior_files(folder, role)
     try:
         header = _header(loans_path) if columns is not None else []
         if "loan_id" in header and len(set(header)) == len(header):
@@ -230,6 +238,189 @@ def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] |
         if pd.api.types.is_integer_dtype(loans[name]) or pd.api.types.is_float_dtype(loans[name]):
             loans[name] = loans[name].astype(np.float64)
     return PriorRun(loans=loans, record=record)
+
+
+#: how :func:`read_prior_figures` keeps a column: ``ids`` Arrow text as read; ``codes`` text as
+#: codes into its distinct values; ``cents`` money in whole cents, every value a number;
+#: ``cents_or_zero`` the same with blanks as 0; ``segment_sums`` that, summed per ``segment``;
+#: ``rate`` float64, blanks as 0; ``flag`` true/false, blanks false; ``stage`` 1, 2 or 3 (int8)
+FigureKind = Literal["ids", "codes", "cents", "cents_or_zero", "segment_sums", "rate", "flag", "stage"]
+
+
+@dataclass(frozen=True)
+class LoanFigures:
+    """The columns of a run's ``loans.csv`` a later step reads, each kept in what it needs
+    (:data:`FigureKind`): a million loans' figures as whole cents (int32 where every value
+    fits) and codes, not a frame of float64 and text, and never the file's whole table.
+
+    ``columns`` are those read, in the file's order; ``codes`` text column -> (its distinct
+    values in order of first appearance, a code per loan); ``sums`` column -> {segment: cents}
+    over the segments the loans are in.
+    """
+
+    rows: int
+    columns: tuple[str, ...]
+    ids: dict[str, pa.ChunkedArray]
+    codes: dict[str, tuple[list[str], np.ndarray]]
+    cents: dict[str, np.ndarray]
+    sums: dict[str, dict[str, int]]
+    rates: dict[str, np.ndarray]
+    flags: dict[str, np.ndarray]
+    stages: dict[str, np.ndarray]
+
+
+@dataclass(frozen=True)
+class PriorFigures:
+    """A previous run's output read for a later step: its loans as :class:`LoanFigures` and its run record."""
+
+    loans: LoanFigures
+    record: dict
+
+
+def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str = "prior") -> PriorFigures | None:
+    """:func:`read_prior_run` for the columns of ``kinds`` (those the file has; ``loan_id`` as
+    ``ids`` always), each kept as its kind says, the file read a block at a time.
+
+    None when a value is not what its kind takes (a blank figure or stage, a stage that is not
+    1, 2 or 3, a blank id or ``segment``, text where a number belongs) or the header is not one
+    this reads (no ``loan_id``, a name twice): :func:`read_prior_run` then reads the file, and
+    whoever reads its frame names the value.
+
+    Raises
+    ------
+    InputFileError
+        The folder or either file is missing, as :func:`read_prior_run`.
+    """
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    loans_path, record = _prior_files(folder, role)
+    try:
+        header = _header(loans_path)
+    except (OSError, ValueError, pa.ArrowException):
+        return None
+    if "loan_id" not in header or len(set(header)) != len(header):
+        return None
+    kinds = {**{c: k for c, k in kinds.items() if c in header}, "loan_id": "ids"}
+    names = [c for c in header if c in kinds]
+    typed = {c: pa.large_string() if kinds[c] in ("ids", "codes") else pa.bool_() if kinds[c] == "flag" else pa.float64()
+             for c in names}
+    options = pacsv.ConvertOptions(include_columns=names, column_types=typed, null_values=[""],
+                                   strings_can_be_null=True, quoted_strings_can_be_null=True,
+                                   true_values=["true", "True", "TRUE"], false_values=["false", "False", "FALSE"])
+    taken = _Taken(kinds)
+    try:
+        with pacsv.open_csv(loans_path, read_options=pacsv.ReadOptions(block_size=4 << 20),
+                            convert_options=options) as reader:
+            for batch in reader:
+                if not taken.add(batch):
+                    return None
+    except (OSError, ValueError, pa.ArrowException):
+        return None  # read_prior_run reads it again, and names what is wrong
+    return PriorFigures(loans=taken.figures(tuple(names)), record=record)
+
+
+class _Taken:
+    """The columns of :func:`read_prior_figures` as the blocks come: each block's values
+    converted and kept, the text codes numbered over the whole file."""
+
+    def __init__(self, kinds: Mapping[str, FigureKind]) -> None:
+        self.kinds = kinds
+        self.rows = 0
+        self.pieces: dict[str, list] = {c: [] for c in kinds}
+        self.distinct: dict[str, dict[str, int]] = {c: {} for c, k in kinds.items() if k == "codes"}
+        self.summed: dict[str, dict[str, int]] = {c: {} for c, k in kinds.items() if k == "segment_sums"}
+
+    def add(self, batch) -> bool:
+        """Keep one block; False when a value is not what its kind takes."""
+        import pyarrow.compute as pc
+
+        columns = dict(zip(batch.schema.names, batch.columns))
+        kept: dict[str, object] = {}
+        for name, values in columns.items():
+            kind = self.kinds[name]
+            if kind in ("ids", "codes"):
+                if values.null_count:
+                    return False
+                if kind == "ids":
+                    kept[name] = values
+                    continue
+                encoded = pc.dictionary_encode(values)
+                known = self.distinct[name]
+                where = np.array([known.setdefault(v, len(known)) for v in encoded.dictionary.to_pylist()] or [0],
+                                 dtype=np.int64)
+                kept[name] = where[encoded.indices.to_numpy(zero_copy_only=False)]
+            elif kind == "flag":
+                kept[name] = pc.fill_null(values, False).to_numpy(zero_copy_only=False)
+            else:
+                numbers = values.to_numpy(zero_copy_only=False)  # float64, NaN where blank
+                if kind == "rate":
+                    kept[name] = np.where(np.isnan(numbers), 0.0, numbers)
+                    continue
+                if kind in ("cents_or_zero", "segment_sums"):
+                    numbers = np.where(np.isnan(numbers), 0.0, numbers)
+                if kind == "stage":
+                    if not np.isin(numbers, (1.0, 2.0, 3.0)).all():
+                        return False
+                    kept[name] = numbers.astype(np.int8)
+                    continue
+                if not np.isfinite(numbers).all():
+                    return False
+                kept[name] = np.rint(numbers * 100.0).astype(np.int64)
+        for name, values in kept.items():
+            if self.kinds[name] != "segment_sums":
+                self.pieces[name].append(values)
+        for name in self.summed:  # per segment (the file's codes of this block): exact int64 sums
+            if "segment" not in kept or self.kinds.get("segment") != "codes":
+                return False
+            codes = kept["segment"]
+            sums = np.zeros(len(self.distinct["segment"]), dtype=np.int64)
+            np.add.at(sums, codes, kept[name])
+            counts = np.bincount(codes, minlength=len(sums))
+            into = self.summed[name]
+            for k, segment in enumerate(self.distinct["segment"]):
+                if counts[k]:
+                    into[segment] = into.get(segment, 0) + int(sums[k])
+        self.rows += batch.num_rows
+        return True
+
+    def figures(self, columns: tuple[str, ...]) -> LoanFigures:
+        import pyarrow as pa
+
+        def joined(name: str, kind=None) -> np.ndarray:
+            parts = self.pieces.pop(name)
+            return np.concatenate(parts) if parts else np.zeros(0, dtype=kind or np.int64)
+
+        out = {"ids": {}, "codes": {}, "cents": {}, "rates": {}, "flags": {}, "stages": {}}
+        for name, kind in self.kinds.items():
+            if name not in columns or kind == "segment_sums":
+                continue
+            if kind == "ids":
+                out["ids"][name] = pa.chunked_array(self.pieces.pop(name), type=pa.large_string())
+            elif kind == "codes":
+                names = list(self.distinct[name])
+                out["codes"][name] = (names, _narrowest(joined(name)))
+            elif kind in ("cents", "cents_or_zero"):
+                cents = joined(name)
+                fits = not len(cents) or np.abs(cents).max() < 2**31 - 1
+                out["cents"][name] = cents.astype(np.int32) if fits else cents
+            elif kind == "rate":
+                out["rates"][name] = joined(name, np.float64)
+            elif kind == "flag":
+                out["flags"][name] = joined(name, bool)
+            else:
+                out["stages"][name] = joined(name, np.int8)
+        return LoanFigures(rows=self.rows, columns=columns, sums={c: v for c, v in self.summed.items() if c in columns},
+                           **out)
+
+
+def _narrowest(codes: np.ndarray) -> np.ndarray:
+    """Codes (0 and up) in the fewest bytes that hold them."""
+    top = int(codes.max()) if len(codes) else 0
+    for kind in (np.int8, np.int16, np.int32):
+        if top <= np.iinfo(kind).max:
+            return codes.astype(kind)
+    return codes
 
 
 def _header(path: Path) -> list[str]:

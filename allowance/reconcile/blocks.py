@@ -67,13 +67,15 @@ class Blocks:
     @classmethod
     def gather(cls, pieces: Iterable[np.ndarray]) -> Blocks:
         """The line from its blocks' amounts (int64, :data:`BLOCK` loans each but the last), in order."""
-        parts, size, top = [], 0, 0
+        made = cls.building()
         for piece in pieces:
-            kept, most = _stored(piece)
-            parts.append(kept)
-            size += len(piece)
-            top = max(top, most)
-        return cls(size, parts, top)
+            made.add(piece)
+        return made.done()
+
+    @staticmethod
+    def building() -> _Building:
+        """A line made block by block: ``add`` each block's amounts as it is made, then ``done``."""
+        return _Building()
 
     def __len__(self) -> int:
         return self.size
@@ -111,6 +113,25 @@ class Blocks:
         """:meth:`dense` in the whole line's width: int32 unless :attr:`wide`."""
         values = self.dense(start, stop)
         return values if self.wide else values.astype(np.int32)
+
+
+class _Building:
+    """:meth:`Blocks.building`: each block kept as it comes (its int64 amounts let go)."""
+
+    __slots__ = ("parts", "size", "top")
+
+    def __init__(self) -> None:
+        self.parts: list = []
+        self.size = self.top = 0
+
+    def add(self, piece: np.ndarray) -> None:
+        kept, most = _stored(piece)
+        self.parts.append(kept)
+        self.size += len(piece)
+        self.top = max(self.top, most)
+
+    def done(self) -> Blocks:
+        return Blocks(self.size, self.parts, self.top)
 
 
 def blocks_of(values: np.ndarray) -> Blocks:

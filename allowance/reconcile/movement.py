@@ -54,6 +54,7 @@ import pyarrow as pa
 
 from allowance.frameworks import rules_for
 from allowance.exceptions import MovementError
+from allowance.memory import give_back
 from allowance.reconcile.blocks import Blocks
 from allowance.reconcile.runs import STATUSES, Book, Bridge, LoanIds, RunLoans, bridge
 from allowance.reconcile.tables import (
@@ -321,14 +322,8 @@ def _presented(book: Book, framework: Framework) -> pd.Series:
     names, codes = book.segments
 
     def by_segment(run: RunLoans) -> pd.Series:
-        if not run.has(column) or len(run) == 0:
-            return pd.Series(dtype=np.int64)
-        cents = np.rint(pd.to_numeric(run.frame[column]).fillna(0.0).to_numpy(np.float64) * 100.0).astype(np.int64)
-        segment = codes[id(run)]
-        present = np.flatnonzero(np.bincount(segment, minlength=len(names)))
-        sums = np.zeros(len(names), dtype=np.int64)
-        np.add.at(sums, segment, cents)
-        return pd.Series(sums[present], index=pd.Index([names[i] for i in present], dtype=object))
+        sums = run.segment_sums(column, names, codes[id(run)])
+        return pd.Series(dtype=np.int64) if sums is None else sums
 
     return by_segment(book.current).sub(by_segment(book.prior), fill_value=0).astype(np.int64)
 
@@ -526,4 +521,8 @@ def compare_runs(
     months = _period_months(prior_as_of, current_as_of, names)
     # the runs joined once: ids, segments, balances and flags converted once for every framework
     book = Book(prior_loans, current_loans, current_at_prior_assumptions, charge_offs, names)
-    return {f: _movement(book, f, months, method_changes) for f in frameworks}
+    out = {}
+    for f in frameworks:
+        out[f] = _movement(book, f, months, method_changes)
+        give_back()  # what making this framework's tables freed, before the next one's
+    return out

@@ -34,11 +34,14 @@ import pyarrow.compute as pc
 
 from allowance.exceptions import MovementError
 from allowance.frameworks import rules_for
+from allowance.intake.history import FigureKind, LoanFigures
+from allowance.memory import give_back
 from allowance.reconcile.blocks import BLOCK, Blocks
 from allowance.schemas import FRAMEWORKS, Framework
 from allowance.text import neutralise_table
 
-__all__ = ["UNASSIGNED_SEGMENT", "Book", "Bridge", "LoanIds", "RunLoans", "bridge", "movement_columns"]
+__all__ = ["UNASSIGNED_SEGMENT", "Book", "Bridge", "LoanIds", "RunLoans", "bridge", "movement_columns", "movement_kinds",
+           "run_loans"]
 
 
 #: the roll-forward segment of charge-offs for loans in neither run, when the file gives none
@@ -65,6 +68,23 @@ def movement_columns(frameworks: tuple[Framework, ...] | list[Framework] = FRAME
     if vintages:
         names |= {"origination_date", "repayment"}
     return frozenset(names)
+
+
+def movement_kinds(frameworks: tuple[Framework, ...] | list[Framework] = FRAMEWORKS) -> dict[str, FigureKind]:
+    """How the movement of ``frameworks`` reads each column of :func:`movement_columns` (without
+    the vintages'): what :func:`allowance.intake.read_prior_figures` keeps of a run's loans.
+
+    Examples
+    --------
+    >>> movement_kinds(["cecl"])["provision_cecl"], set(movement_kinds()) == movement_columns()
+    ('segment_sums', True)
+    """
+    kinds: dict[str, FigureKind] = {"loan_id": "ids", "segment": "codes", "balance": "cents", "stage": "stage",
+                                    "poci": "flag", "modified": "flag", "pcd_gross_up": "cents_or_zero"}
+    for f in frameworks:
+        kinds |= {f"ecl_{f}": "cents", f"ecl_{f}_modelled": "cents", f"discount_rate_{f}": "rate",
+                  f"provision_{f}": "segment_sums"}
+    return kinds
 
 
 def _show(value: object) -> str:
@@ -129,6 +149,22 @@ def _places(rows: np.ndarray, size: int) -> np.ndarray:
     return out
 
 
+class Cents:
+    """:class:`Figures` of a column already in whole cents (a run read as
+    :class:`~allowance.intake.LoanFigures`)."""
+
+    __slots__ = ("values",)
+
+    def __init__(self, values: np.ndarray) -> None:
+        self.values = values
+
+    def at(self, places: np.ndarray) -> np.ndarray:
+        out = np.zeros(len(places), dtype=np.int64)
+        there = places >= 0
+        out[there] = self.values[places[there]]
+        return out
+
+
 class Figures:
     """One run's money column, checked, as the movement reads it: cents taken per block of
     joined loans (:meth:`at`), ``rint(x * 100)`` of each loan's figure as the whole column's
@@ -188,6 +224,12 @@ class RunLoans:
         """``segment`` as text (a missing one stays missing)."""
         return self._once("segment", lambda: _text(self.frame["segment"]))
 
+    def segment_codes(self) -> tuple[list[str], np.ndarray]:
+        """The run's distinct segments in order of first appearance, and each loan's code into
+        them (-1: blank)."""
+        encoded = self.segment.dictionary_encode()
+        return _dictionary(encoded).to_pylist(), _codes(encoded)
+
     def require_segment(self) -> None:
         """Every loan of a run sits in a segment; a blank one is a named error."""
         if self.segment.null_count:
@@ -239,6 +281,18 @@ class RunLoans:
     def _cents(self, values: pd.Series, column: str) -> np.ndarray:
         return np.rint(self._numbers(values, column) * 100.0).astype(np.int64)
 
+    def segment_sums(self, column: str, names: list[str], codes: np.ndarray) -> pd.Series | None:
+        """A money column (blanks as 0) in integer cents summed per segment (labels as the index;
+        ``codes``: this run's loans' codes into ``names``), over the segments its loans are in;
+        None when the run has no such column."""
+        if not self.has(column) or len(self) == 0:
+            return None
+        cents = np.rint(pd.to_numeric(self.frame[column]).fillna(0.0).to_numpy(np.float64) * 100.0).astype(np.int64)
+        present = np.flatnonzero(np.bincount(codes, minlength=len(names)))
+        sums = np.zeros(len(names), dtype=np.int64)
+        np.add.at(sums, codes, cents)
+        return pd.Series(sums[present], index=pd.Index([names[i] for i in present], dtype=object))
+
     def rate(self, column: str) -> np.ndarray:
         """A discount rate per loan, blanks as 0; NaN for every loan when the run has no such column."""
         if not self.has(column):
@@ -275,6 +329,75 @@ def _flags(values: pd.Series) -> np.ndarray:
     return text.isin(["true", "1", "1.0", "y", "yes"]).to_numpy(dtype=bool, na_value=False)
 
 
+class FigureLoans(RunLoans):
+    """:class:`RunLoans` of a run read as :class:`~allowance.intake.LoanFigures` (its columns
+    already checked and converted as they were read): the same answers, from the figures."""
+
+    def __init__(self, figures: LoanFigures, source: str) -> None:
+        super().__init__(pd.DataFrame(), source)
+        self.figures_read = figures
+
+    def __len__(self) -> int:
+        return self.figures_read.rows
+
+    def has(self, column: str) -> bool:
+        return column in self.figures_read.columns
+
+    @property
+    def ids(self) -> pa.ChunkedArray:
+        return self.figures_read.ids["loan_id"]
+
+    @property
+    def segment(self) -> pa.ChunkedArray:
+        names, codes = self.figures_read.codes["segment"]
+        return self._once("segment", lambda: pa.chunked_array(
+            [pa.array(names, pa.large_string()).take(pa.array(codes))], type=pa.large_string()))
+
+    def segment_codes(self) -> tuple[list[str], np.ndarray]:
+        return self.figures_read.codes["segment"]
+
+    def require_segment(self) -> None:
+        pass  # a blank segment is not read as figures (the frame names it)
+
+    def figures(self, column: str) -> Cents:
+        return Cents(self.figures_read.cents[column])
+
+    def optional_figures(self, column: str) -> Cents | None:
+        return self.figures(column) if self.has(column) else None
+
+    def cents(self, column: str, *, keep: bool = False) -> np.ndarray:
+        return self.figures_read.cents[column].astype(np.int64)
+
+    def optional_cents(self, column: str) -> np.ndarray | None:
+        return self.cents(column) if self.has(column) else None
+
+    def segment_sums(self, column: str, names: list[str], codes: np.ndarray) -> pd.Series | None:
+        if not self.has(column) or len(self) == 0:
+            return None
+        sums = self.figures_read.sums[column]
+        present = [name for name in names if name in sums]  # the book's order of the segments
+        return pd.Series([sums[name] for name in present], index=pd.Index(present, dtype=object), dtype=np.int64)
+
+    def rate(self, column: str) -> np.ndarray:
+        if not self.has(column):
+            return np.full(len(self), np.nan)
+        return self.figures_read.rates[column]
+
+    def flags(self, column: str) -> np.ndarray:
+        if not self.has(column):
+            return np.zeros(len(self), dtype=bool)
+        return self.figures_read.flags[column]
+
+    @property
+    def stage(self) -> np.ndarray:
+        return self.figures_read.stages["stage"]
+
+
+def run_loans(loans: pd.DataFrame | LoanFigures, source: str) -> RunLoans:
+    """A run's loans as the movement reads them: a frame, or figures read compactly."""
+    return FigureLoans(loans, source) if isinstance(loans, LoanFigures) else RunLoans(loans, source)
+
+
 class Book:
     """The runs of one movement joined once, for every framework.
 
@@ -284,11 +407,12 @@ class Book:
     and the charge-offs: the prior run's loans, then the new ones, then loans only charged off.
     """
 
-    def __init__(self, prior: pd.DataFrame, current: pd.DataFrame, rerun: pd.DataFrame | None,
+    def __init__(self, prior: pd.DataFrame | LoanFigures, current: pd.DataFrame | LoanFigures,
+                 rerun: pd.DataFrame | None,
                  charge_offs: pd.DataFrame | None, sources: dict) -> None:
         self.sources = sources
-        self.prior = RunLoans(prior, sources["prior"])
-        self.current = RunLoans(current, sources["current"])
+        self.prior = run_loans(prior, sources["prior"])
+        self.current = run_loans(current, sources["current"])
         self.rerun = None if rerun is None else RunLoans(rerun, sources["current_at_prior_assumptions"])
         empty = charge_offs is None or len(charge_offs) == 0
         self.charge_offs = None if empty else RunLoans(charge_offs, sources["charge_offs"])
@@ -330,6 +454,8 @@ class Book:
         runs = sum(len(r) for r in hashed if r is self.prior or r is self.current)
         in_runs = int(codes[:runs].max()) + 1 if runs else 0
         orphans = _dictionary(encoded).take(pa.array(np.arange(in_runs, n))) if n > in_runs else pa.array([], pa.large_string())
+        del keys, encoded
+        give_back()  # the hash table and the dictionary: most of the join's memory, freed here
         return rows, n, orphans.cast(pa.large_string())
 
     def _blank_ids(self, parts: list[RunLoans]) -> None:
@@ -361,20 +487,21 @@ class Book:
     @cached_property
     def segments(self) -> tuple[list[str], dict[int, np.ndarray]]:
         """The segment names of every run (and of the charge-off file), factorised once, and each
-        run's loans as codes into them (int32; -1: none given)."""
+        run's loans as codes into them (int32; -1: none given). The names are numbered in order
+        of first appearance over the runs, as one factorisation of their segments in turn would:
+        each run's own distinct names, in its order, numbered where the earlier runs left off."""
         parts = [self.prior, self.current]
         co = self.charge_offs if self.charge_offs is not None and self.charge_offs.has("segment") else None
         parts += [co] if co is not None else []
-        encoded = pa.chunked_array([chunk for r in parts for chunk in r.segment.chunks],
-                                   type=pa.large_string()).dictionary_encode()
-        codes = _codes(encoded)
-        out, start = {}, 0
+        index: dict[str, int] = {}
+        out = {}
         for r in parts:
-            out[id(r)] = codes[start:start + len(r)]
-            start += len(r)
+            names, codes = r.segment_codes()
+            where = np.array([index.setdefault(name, len(index)) for name in names] + [-1], dtype=np.int32)
+            out[id(r)] = where[codes]  # -1 (none given) takes the last entry
         if self.charge_offs is not None and co is None:
             out[id(self.charge_offs)] = np.full(len(self.charge_offs), -1, dtype=np.int32)
-        return _dictionary(encoded).to_pylist(), out
+        return list(index), out
 
     @cached_property
     def loan_ids(self) -> LoanIds:
@@ -604,12 +731,12 @@ def _within(rows: np.ndarray, cut: slice) -> np.ndarray:
 
 def _made(n: int, names: tuple[str, ...], block) -> dict[str, Blocks]:
     """Each of ``names``' lines as :class:`Blocks`, from ``block(cut) -> {name: int64 amounts}``
-    called once per block of joined loans."""
-    pieces: dict[str, list[np.ndarray]] = {name: [] for name in names}
+    called once per block of joined loans, each block kept as it comes (never a whole line in int64)."""
+    made = {name: Blocks.building() for name in names}
     for cut in _blocks(n):
         for name, values in block(cut).items():
-            pieces[name].append(values)
-    return {name: Blocks.gather(pieces.pop(name)) for name in names}
+            made[name].add(values)
+    return {name: made[name].done() for name in names}
 
 
 def _joined(book: Book) -> _Joined:
