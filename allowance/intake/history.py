@@ -310,7 +310,10 @@ def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str 
                                    true_values=["true", "True", "TRUE"], false_values=["false", "False", "FALSE"])
     taken = _Taken(kinds)
     try:
-        with pacsv.open_csv(loans_path, read_options=pacsv.ReadOptions(block_size=4 << 20),
+        # one thread, 1 MB blocks: this runs beside the tape's reading and the engine, and the
+        # reader keeps several blocks ahead (4 MB blocks on Arrow's threads: some 100 MB more
+        # held while reading a million loans, and slower there)
+        with pacsv.open_csv(loans_path, read_options=pacsv.ReadOptions(block_size=1 << 20, use_threads=False),
                             convert_options=options) as reader:
             for batch in reader:
                 if not taken.add(batch):
@@ -366,7 +369,8 @@ class _Taken:
                     continue
                 if not np.isfinite(numbers).all():
                     return False
-                kept[name] = np.rint(numbers * 100.0).astype(np.int64)
+                cents = np.rint(numbers * 100.0).astype(np.int64)
+                kept[name] = cents if kind == "segment_sums" else _narrow_cents(cents)
         for name, values in kept.items():
             if self.kinds[name] != "segment_sums":
                 self.pieces[name].append(values)
@@ -401,9 +405,11 @@ class _Taken:
                 names = list(self.distinct[name])
                 out["codes"][name] = (names, _narrowest(joined(name)))
             elif kind in ("cents", "cents_or_zero"):
-                cents = joined(name)
-                fits = not len(cents) or np.abs(cents).max() < 2**31 - 1
-                out["cents"][name] = cents.astype(np.int32) if fits else cents
+                parts = self.pieces.pop(name)
+                if parts and all(p.dtype == np.int32 for p in parts):
+                    out["cents"][name] = np.concatenate(parts)  # every block fits: so does the column
+                else:  # int64 where any block needs it
+                    out["cents"][name] = np.concatenate(parts).astype(np.int64) if parts else np.zeros(0, np.int32)
             elif kind == "rate":
                 out["rates"][name] = joined(name, np.float64)
             elif kind == "flag":
@@ -412,6 +418,11 @@ class _Taken:
                 out["stages"][name] = joined(name, np.int8)
         return LoanFigures(rows=self.rows, columns=columns, sums={c: v for c, v in self.summed.items() if c in columns},
                            **out)
+
+
+def _narrow_cents(cents: np.ndarray) -> np.ndarray:
+    """Cents as int32 where every one fits (``|x| < 2**31 - 1``), else as they are (int64)."""
+    return cents.astype(np.int32) if not len(cents) or np.abs(cents).max() < 2**31 - 1 else cents
 
 
 def _narrowest(codes: np.ndarray) -> np.ndarray:

@@ -241,6 +241,7 @@ def _movement(book: Book, framework: Framework, months: int | None,
     has_rates = book.prior.has(f"discount_rate_{framework}")
     loans = bridge(book, framework, months=months if has_rates else None, method_changed=changed,
                    gross_up=LEDGER[framework].pcd_gross_up)
+    give_back()  # the blocks' working arrays, before the tables make theirs
 
     # the class dimension of the detail is the framework's class (IFRS 9: stage or POCI;
     # CECL: PCD or not); its main table is by class (IFRS 7 35H) or by segment (ASC 326-20-50-13)

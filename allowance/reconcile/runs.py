@@ -507,19 +507,21 @@ class Book:
     def loan_ids(self) -> LoanIds:
         """The id of each joined loan as the current run gives it, else the prior run, else the key."""
         n = self.size
-        rows_c, rows_p = self.rows(self.current), self.rows(self.prior)
-        at_c = _places(rows_c, n)
-        at_p = _places(rows_p, n)
+        if self.joined is not None:  # each joined loan's row in either run, made already
+            at_c, at_p = self.joined.at_current, self.joined.at_prior
+        else:
+            at_c, at_p = _places(self.rows(self.current), n), _places(self.rows(self.prior), n)
         # the prior run's loans not in the current run, in their joined order: their ids taken
         # out of the prior run's (the current run's are the ones it has, not copied)
         gone = np.flatnonzero((at_p >= 0) & (at_c < 0))
         gone_ids = self.prior.ids.take(pa.array(at_p[gone])) if len(gone) else pa.chunked_array([], pa.large_string())
-        where = at_c.astype(np.int64)
+        kind = np.int32 if len(self.current) + len(gone) + n < 2**31 else np.int64
+        where = at_c.astype(kind)
         where[gone] = len(self.current) + np.arange(len(gone))
         neither = np.flatnonzero((at_c < 0) & (at_p < 0))
         where[neither] = len(self.current) + len(gone) + np.arange(len(neither))
         texts = pa.chunked_array([*self.current.ids.chunks, *gone_ids.chunks, self._join[2]], type=pa.large_string())
-        return LoanIds(texts, where.astype(np.int32) if n < 2**31 else where)
+        return LoanIds(texts, where)
 
 
 class LoanIds:

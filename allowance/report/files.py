@@ -23,7 +23,7 @@ from __future__ import annotations
 import json
 import os
 from collections.abc import Callable, Iterable
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -295,8 +295,14 @@ def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
     return written
 
 
-def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[str], None]) -> None:
-    """Every output but loans.csv and run.json: the other tables, then the workbooks."""
+def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[str], None],
+                detail: ThreadPoolExecutor | None = None) -> Future | None:
+    """Every output but loans.csv and run.json: the other tables, then the workbooks.
+
+    ``detail``: the thread writing loans.csv; movement_loans.csv is queued on it (written
+    once loans.csv is, its future returned) rather than written here beside loans.csv: the
+    two large files' slices in flight at once, and the workbooks beside them, were the peak
+    of writing a run with a movement."""
     if parquet:
         # typed data, not a spreadsheet: text is kept exactly as the tape gave it
         report.loans.to_parquet(folder / "loans.parquet", index=False)
@@ -305,11 +311,15 @@ def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[
     done("rejected.csv")
     _csv(warnings_frame(report), folder / "warnings.csv")
     done("warnings.csv")
+    moving = None
     if report.movements:
         _csv(pd.concat([m.to_long() for m in report.movements], ignore_index=True), folder / "movement.csv")
         done("movement.csv")
-        _movement_loans_csv(report.movements, folder / "movement_loans.csv")
-        done("movement_loans.csv")
+        if detail is None:
+            _movement_loans_csv(report.movements, folder / "movement_loans.csv")
+            done("movement_loans.csv")
+        else:
+            moving = detail.submit(_given_back, _movement_loans_csv, report.movements, folder / "movement_loans.csv")
     if report.what_if_parts is not None:
         _csv(report.what_if_parts.summary, folder / "what_if.csv")
         done("what_if.csv")
@@ -336,6 +346,16 @@ def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[
     write_workbooks(folder / "reserve.xlsx", folder / "summary.xlsx", report)
     done("reserve.xlsx")
     done("summary.xlsx")
+    return moving
+
+
+def _given_back(work: Callable[..., object], *args) -> object:
+    """``work(*args)`` on a writer thread, then what it freed handed back: a thread's C heap
+    keeps its freed blocks, which no other thread reuses."""
+    try:
+        return work(*args)
+    finally:
+        give_back()
 
 
 def _write_all(folder: Path, report: RunReport, parquet: bool,
@@ -363,10 +383,14 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
     # other files and the workbooks (Python: one core) are made, so both cores work
     with ThreadPoolExecutor(1, thread_name_prefix="allowance-loans") as detail:
         # its own frame over the same columns: nothing the workbooks do to theirs reaches it
-        loans_csv = detail.submit(_csv, report.loans.copy(deep=False), folder / "loans.csv")
-        _write_rest(folder, report, parquet, done)  # on an error the block still waits for loans.csv
+        loans_csv = detail.submit(_given_back, _csv, report.loans.copy(deep=False), folder / "loans.csv")
+        # on an error the block still waits for loans.csv (and movement_loans.csv, queued after it)
+        moving = _write_rest(folder, report, parquet, done, detail)
     loans_csv.result()  # its own error, once the rest went through
     done("loans.csv")
+    if moving is not None:
+        moving.result()
+        done("movement_loans.csv")
     record = report.record or run_record(
         report.config, report.intake, report.loans, tie_out=report.tie_out, warnings=report.warnings,
         movements=report.movements,
