@@ -18,6 +18,7 @@ run                    Arrow floor: read the tape and write      2.5 x
                        own loans.csv, 52 columns, loaded
                        beforehand and not timed)
 run --prior            the plain run                              1.5 x
+run --prior, peak      the plain run's peak resident memory       1 x
 compare                the plain run                              1.5 x
 what-if (weights)      the plain run                              0.5 x extra
 what-if (overlay only) the plain run                              0.5 x extra
@@ -200,6 +201,7 @@ def main() -> None:
         _timed([*allowance, "run", str(prior_tape), "-a", str(DEMO / "assumptions_2026q2.toml"), *common,
                 "--out", str(work / "prior")], env)
         plain, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--out", str(work / "plain")], env, args.repeat)
+        plain_mb = mb
         floor = _floor(tape, work / "plain" / "loans.csv", "loans", work / "floor.csv", args.repeat)
         copy = _floor(tape, work / "plain" / "loans.csv", "tape", work / "floor.csv", args.repeat)
         print(f"{'Arrow floor':26s} {floor:8.1f} s   (read the tape, write loans.csv; "
@@ -208,6 +210,8 @@ def main() -> None:
         s, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--prior", str(work / "prior"),
                         "--out", str(work / "moved")], env, args.repeat)
         row("run --prior", s, mb, "run", plain, "<= 1.5")
+        print(f"{'run --prior, peak':26s} {mb:8,.0f} MB   {mb / plain_mb:5.2f} x the plain run's {plain_mb:,.0f} MB"
+              "  (target 1)", flush=True)
         s, mb = _timed([*allowance, "compare", str(work / "prior"), str(work / "plain")], env, args.repeat)
         row("compare", s, mb, "run", plain, "<= 1.5")
         s, mb = _timed([*allowance, "run", str(tape), *q3, *common, "--overlay", str(DEMO / "downside_only.toml"),
