@@ -24,6 +24,7 @@ mappings, merged over the assumptions in order.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import os
 import shutil
 import time
@@ -35,12 +36,13 @@ from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
 import pandas as pd
 
 from allowance import intake  # the rest is imported where used: a check needs only intake
 from allowance.exceptions import AllowanceError, AssumptionsError, InputFileError, TieOutError
 from allowance.result import CheckResult, Result
-from allowance.schemas import Assumptions, Framework, RunConfig
+from allowance.schemas import Assumptions, Framework, InputFile, RunConfig
 
 if TYPE_CHECKING:
     from allowance import engine, reconcile
@@ -235,6 +237,27 @@ def _given_back(work: Callable[..., Any], *args, **kwargs) -> Any:
         return work(*args, **kwargs)
     finally:
         give_back()
+
+
+def _read_again_when_asked(taken: intake.IntakeResult, source: Path, config: RunConfig) -> intake.IntakeResult:
+    """``taken`` with its accepted rows let go, read again from ``source`` the first time they
+    are asked for (:class:`allowance.intake.results.Later`); the row count and balance total
+    are kept. A run with a prior run holds the movement's loan lines through the writing, where
+    the accepted rows were held for nothing (a million loans: some 330 MB)."""
+    from allowance.intake.results import Later
+
+    accepted = taken.accepted
+    rows, balance = len(accepted), float(accepted["balance"].to_numpy(dtype=np.float64).sum())
+    return taken.replaced(accepted=Later(functools.partial(_accepted_again, source, config, taken.file), rows, balance))
+
+
+def _accepted_again(source: Path, config: RunConfig, file: InputFile) -> pd.DataFrame:
+    """The accepted rows of a tape read again: the same file (its SHA-256 and size), or an error."""
+    again = _read_tape(source, config)
+    if (again.file.sha256, again.file.bytes) != (file.sha256, file.bytes):
+        raise InputFileError("the tape has changed since the run read it, so its accepted rows cannot be read "
+                             "again", file=source, hint="keep the tape a run read, or rerun it")
+    return again.accepted
 
 
 def _record_as_of(record: Mapping[str, Any] | None) -> date | None:
@@ -459,6 +482,10 @@ def run(
                                                lambda frame, at: engine.modelled(
                                                    frame, at, stages_from=(config, result.loans),
                                                    **{k: v for k, v in options.items() if k != "progress"}))
+        if isinstance(source, Path):
+            # nothing after the second pass reads the tape's accepted rows: they go before the
+            # movement is made and the outputs are written, read again from the file if asked for
+            taken = _read_again_when_asked(taken, source, config)
         movements = reconcile.compare_runs(
             previous.loans, result.loans, charge_offs=cos,
             current_at_prior_assumptions=at_prior,
@@ -483,7 +510,7 @@ def run(
         warnings.append("the prior run's assumptions could not be applied to this tape; "
                         "assumption changes are included in remeasurement")
     findings = pd.concat([taken.findings, result.findings], ignore_index=True)
-    taken = dataclasses.replace(taken, findings=findings)
+    taken = taken.replaced(findings=findings)  # accepted rows let go (a prior run's) stay so
     record = report.run_record(config, taken, result.loans, tie_out=tie, warnings=warnings,
                                movements=tuple((movements or {}).values()), started=started_at,
                                extra={"arguments": arguments})

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -92,6 +93,11 @@ class IntakeResult:
     notes: tuple[str, ...] = ()
     accepted_rows: int | None = None
     extra_columns: tuple[str, ...] = ()
+
+    def replaced(self, **changes: Any) -> IntakeResult:
+        """:func:`dataclasses.replace`, an accepted frame not yet built (:class:`Later`) handed
+        over as it is, not built for the copy."""
+        return dataclasses.replace(self, **{"accepted": self.__dict__["_accepted_held"], **changes})
 
     @property
     def rows_accepted(self) -> int:
