@@ -60,7 +60,9 @@ def test_figures_are_the_file_as_pandas_reads_it(tmp_path_factory, pair):
         np.testing.assert_array_equal(got.cents[column], cents(ref[column]))
     np.testing.assert_array_equal(got.cents["pcd_gross_up"], cents(ref["pcd_gross_up"].fillna(0.0)))
     for f in ("ifrs9", "cecl"):
-        np.testing.assert_array_equal(got.rates[f"discount_rate_{f}"], ref[f"discount_rate_{f}"].fillna(0.0))
+        # bit for bit the float pandas reads (a rate kept as millionths reads back as the same float)
+        rate = ref[f"discount_rate_{f}"].fillna(0.0).to_numpy(np.float64)
+        np.testing.assert_array_equal(got.rate(f"discount_rate_{f}").view(np.int64), rate.view(np.int64))
         by_pandas = (ref.assign(c=cents(ref[f"provision_{f}"].fillna(0.0))).groupby("segment", sort=False)["c"].sum())
         assert got.sums[f"provision_{f}"] == {k: int(v) for k, v in by_pandas.items()}
     np.testing.assert_array_equal(got.flags["poci"], ref["poci"].to_numpy(bool))
@@ -83,6 +85,19 @@ def test_the_movement_from_figures_is_the_movement_from_the_frame(tmp_path_facto
         for table in ("allowance", "gross", "allowance_detail", "gross_detail", "rollforward", "journal", "write_offs",
                       "loans"):
             pd.testing.assert_frame_equal(getattr(a, table), getattr(b, table))
+
+
+def test_rates_of_more_than_six_decimals_are_kept_as_read(tmp_path):
+    # 0.1234567 is not a whole number of millionths: kept as the float pandas.read_csv gives
+    frame = pd.DataFrame({"loan_id": ["a", "b"], "segment": "auto", "balance": [1.0, 2.0], "ecl_ifrs9": [0.1, 0.2],
+                          "discount_rate_ifrs9": [0.1234567, 0.05], "discount_rate_cecl": [0.0525, -0.0]})
+    folder = _folder(tmp_path, frame)
+    got = read_prior_figures(folder, movement_kinds()).loans
+    ref = pd.read_csv(folder / "loans.csv")
+    assert got.rates["discount_rate_ifrs9"].dtype == np.float64
+    assert got.rates["discount_rate_cecl"].dtype == np.float64  # -0.0 is not the 0.0 that 0 / 1e6 gives
+    for column in ("discount_rate_ifrs9", "discount_rate_cecl"):
+        np.testing.assert_array_equal(got.rate(column).view(np.int64), ref[column].to_numpy(np.float64).view(np.int64))
 
 
 @pytest.mark.parametrize("spoil, why", [

@@ -254,8 +254,10 @@ class LoanFigures:
     fits) and codes, not a frame of float64 and text, and never the file's whole table.
 
     ``columns`` are those read, in the file's order; ``codes`` text column -> (its distinct
-    values in order of first appearance, a code per loan); ``sums`` column -> {segment: cents}
-    over the segments the loans are in.
+    values in order of first appearance, a code per loan); ``cents`` in the fewest bytes that
+    hold them; ``sums`` column -> {segment: cents} over the segments the loans are in;
+    ``rates`` float64 (:meth:`rate`), kept as millionths where every rate is a whole number of
+    them (a rate read back as ``k / 1e6`` is the same float, division being correctly rounded).
     """
 
     rows: int
@@ -267,6 +269,11 @@ class LoanFigures:
     rates: dict[str, np.ndarray]
     flags: dict[str, np.ndarray]
     stages: dict[str, np.ndarray]
+
+    def rate(self, column: str) -> np.ndarray:
+        """A ``rate`` column as float64 (blanks 0)."""
+        kept = self.rates[column]
+        return kept if kept.dtype == np.float64 else kept / 1e6
 
 
 @dataclass(frozen=True)
@@ -406,12 +413,13 @@ class _Taken:
                 out["codes"][name] = (names, _narrowest(joined(name)))
             elif kind in ("cents", "cents_or_zero"):
                 parts = self.pieces.pop(name)
-                if parts and all(p.dtype == np.int32 for p in parts):
-                    out["cents"][name] = np.concatenate(parts)  # every block fits: so does the column
-                else:  # int64 where any block needs it
-                    out["cents"][name] = np.concatenate(parts).astype(np.int64) if parts else np.zeros(0, np.int32)
+                out["cents"][name] = _narrowest(np.concatenate(parts)) if parts else np.zeros(0, np.int8)
             elif kind == "rate":
-                out["rates"][name] = joined(name, np.float64)
+                rates = joined(name, np.float64)
+                millionths = np.rint(rates * 1e6)
+                whole = (np.abs(millionths).max() < 2**31 if len(rates) else True) and \
+                    np.array_equal((millionths.astype(np.int64) / 1e6).view(np.int64), rates.view(np.int64))  # bit for bit
+                out["rates"][name] = _narrowest(millionths.astype(np.int64)) if whole else rates
             elif kind == "flag":
                 out["flags"][name] = joined(name, bool)
             else:
@@ -425,13 +433,15 @@ def _narrow_cents(cents: np.ndarray) -> np.ndarray:
     return cents.astype(np.int32) if not len(cents) or np.abs(cents).max() < 2**31 - 1 else cents
 
 
-def _narrowest(codes: np.ndarray) -> np.ndarray:
-    """Codes (0 and up) in the fewest bytes that hold them."""
-    top = int(codes.max()) if len(codes) else 0
+def _narrowest(values: np.ndarray) -> np.ndarray:
+    """Whole numbers in the fewest bytes that hold them."""
+    if not len(values):
+        return values.astype(np.int8)
+    low, high = int(values.min()), int(values.max())
     for kind in (np.int8, np.int16, np.int32):
-        if top <= np.iinfo(kind).max:
-            return codes.astype(kind)
-    return codes
+        if np.iinfo(kind).min <= low and high <= np.iinfo(kind).max:
+            return values.astype(kind)
+    return values
 
 
 def _header(path: Path) -> list[str]:

@@ -44,6 +44,7 @@ isolated from the inputs given (no rerun at prior assumptions, no discount rates
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from functools import cached_property
 from datetime import date
@@ -234,14 +235,24 @@ def _sources(sources: Mapping[str, str] | None) -> dict[str, str]:
     return names
 
 
+def _bridge(book: Book, framework: Framework, months: int | None,
+            method_changes: Mapping[str, Sequence[str]] | None) -> Bridge:
+    """The loan-by-loan bridge :func:`_movement` makes its tables from."""
+    has_rates = book.prior.has(f"discount_rate_{framework}")
+    made = bridge(book, framework, months=months if has_rates else None, method_changed=frozenset(method_changes or {}),
+                  gross_up=LEDGER[framework].pcd_gross_up)
+    give_back()  # the blocks' working arrays, before the tables make theirs
+    return made
+
+
 def _movement(book: Book, framework: Framework, months: int | None,
-              method_changes: Mapping[str, Sequence[str]] | None) -> Movement:
-    """:func:`movement` of one framework over runs already joined (shared by every framework)."""
+              method_changes: Mapping[str, Sequence[str]] | None, loans: Bridge | None = None) -> Movement:
+    """:func:`movement` of one framework over runs already joined (shared by every framework);
+    ``loans``: its bridge, when made already."""
     changed = frozenset(method_changes or {})
     has_rates = book.prior.has(f"discount_rate_{framework}")
-    loans = bridge(book, framework, months=months if has_rates else None, method_changed=changed,
-                   gross_up=LEDGER[framework].pcd_gross_up)
-    give_back()  # the blocks' working arrays, before the tables make theirs
+    if loans is None:
+        loans = _bridge(book, framework, months, method_changes)
 
     # the class dimension of the detail is the framework's class (IFRS 9: stage or POCI;
     # CECL: PCD or not); its main table is by class (IFRS 7 35H) or by segment (ASC 326-20-50-13)
@@ -522,8 +533,29 @@ def compare_runs(
     months = _period_months(prior_as_of, current_as_of, names)
     # the runs joined once: ids, segments, balances and flags converted once for every framework
     book = Book(prior_loans, current_loans, current_at_prior_assumptions, charge_offs, names)
-    out = {}
-    for f in frameworks:
-        out[f] = _movement(book, f, months, method_changes)
-        give_back()  # what making this framework's tables freed, before the next one's
+    if len(frameworks) < 2:
+        return {f: _movement(book, f, months, method_changes) for f in frameworks}
+    # the first framework's bridge joins the runs and checks them (its errors come first, as
+    # one framework after the other gave them); then the others are made on a second thread
+    # while its tables are made here: numpy lets go of the lock for each block's arithmetic,
+    # and this step otherwise left the second core idle. Each framework's figures are its own
+    # (the book's shared parts are made before the second thread starts and only read after).
+    first = frameworks[0]
+    loans = _bridge(book, first, months, method_changes)
+    with ThreadPoolExecutor(1, thread_name_prefix="allowance-movement") as pool:
+        others = [pool.submit(_given_back, _movement, book, f, months, method_changes) for f in frameworks[1:]]
+        out = {first: _movement(book, first, months, method_changes, loans)}
+        del loans
+        give_back()  # what making this framework's tables freed
+    for f, made in zip(frameworks[1:], others):
+        out[f] = made.result()  # a later framework's error, once the first one went through
     return out
+
+
+def _given_back(work, *args) -> object:
+    """``work(*args)`` on a thread of its own, then what it freed handed back (a thread's C heap
+    keeps its freed blocks, which no other thread reuses)."""
+    try:
+        return work(*args)
+    finally:
+        give_back()

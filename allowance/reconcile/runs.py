@@ -381,7 +381,7 @@ class FigureLoans(RunLoans):
     def rate(self, column: str) -> np.ndarray:
         if not self.has(column):
             return np.full(len(self), np.nan)
-        return self.figures_read.rates[column]
+        return self.figures_read.rate(column)
 
     def flags(self, column: str) -> np.ndarray:
         if not self.has(column):
