@@ -7,11 +7,14 @@ RunLoans        one run's loan results (or the charge-off file) as the movement 
 Book            the prior run, the current run, the rerun at prior assumptions and the charge-offs,
                 joined once for every framework: each loan's place among the loans of any of them
                 (one hash pass over the ids), the segments factorised once
+FigureLoans     :class:`RunLoans` of a run read as figures (:func:`allowance.intake.read_prior_figures`)
+run_loans       a frame or figures as :class:`RunLoans`
 LoanIds         the joined loans' ids, taken a slice at a time from the runs' own ids
 Bridge          one framework's movement loan by loan: arrays over the joined loans, segments and
                 classes as integer codes, every line's amount in cents (kept as :class:`Blocks`)
 bridge          build it for one framework
 movement_columns    the columns of a run's loans.csv the movement (and the vintage disclosure) reads
+movement_kinds  how the movement reads each of them (what a run read as figures keeps)
 
 The join never walks text in Python: ids are neutralised and dictionary-encoded by Arrow, and
 every later step works on the codes (a million loans' ids as Python strings cost seconds
