@@ -228,17 +228,6 @@ def _prior(prior: str | os.PathLike | Result, role: str = "prior", *,
     ] if recorded else []
 
 
-def _given_back(work: Callable[..., Any], *args, **kwargs) -> Any:
-    """``work(*args, **kwargs)`` on a thread of its own, then what it freed handed back: a
-    thread's C heap keeps its freed blocks, which no other thread reuses."""
-    from allowance.memory import give_back
-
-    try:
-        return work(*args, **kwargs)
-    finally:
-        give_back()
-
-
 def _read_again_when_asked(taken: intake.IntakeResult, source: Path, config: RunConfig) -> intake.IntakeResult:
     """``taken`` with its accepted rows let go, read again from ``source`` the first time they
     are asked for (:class:`allowance.intake.results.Later`); the row count and balance total
@@ -370,7 +359,7 @@ def run(
     # reconcile (the sensitivities, the what-if and the movement) is imported where it is used:
     # a plain run has none of them and does not load it
     from allowance import disclosure, engine, macro, report
-    from allowance.memory import give_back
+    from allowance.memory import give_back, given_back
     from allowance.report import clock
     started = time.perf_counter()
     started_at = clock.now()
@@ -410,7 +399,7 @@ def run(
     reading_prior = None
     if prior is not None and not isinstance(prior, Result):
         reader = ThreadPoolExecutor(1, thread_name_prefix="allowance-prior")
-        reading_prior = reader.submit(_given_back, _prior, prior, vintages=charge_offs is not None)
+        reading_prior = reader.submit(given_back, _prior, prior, vintages=charge_offs is not None)
         reader.shutdown(wait=False)  # the thread ends with its one task
     told("read", 0, 1)
     taken = _read_tape(source, config, map)

@@ -2,7 +2,8 @@
 
 Implements
 ----------
-give_back  return the memory Arrow's pool and the C heap keep after it was freed
+give_back   return the memory Arrow's pool and the C heap keep after it was freed
+given_back  run work (on a thread of its own), then give back what it freed
 
 Arrow's memory pool keeps the pages it freed for its next allocations, and the C allocator
 keeps freed small blocks on its heap; neither goes back to the system by itself. After
@@ -13,8 +14,10 @@ heap of freed per-chunk objects), that memory would otherwise sit under the peak
 from __future__ import annotations
 
 import ctypes
+from collections.abc import Callable
+from typing import Any
 
-__all__ = ["give_back"]
+__all__ = ["give_back", "given_back"]
 
 
 def give_back() -> None:
@@ -27,3 +30,13 @@ def give_back() -> None:
         ctypes.CDLL(None).malloc_trim(0)
     except (OSError, AttributeError):  # not glibc: the allocator keeps its own counsel
         pass
+
+
+def given_back(work: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
+    """``work(*args, **kwargs)``, then what it freed handed back (:func:`give_back`). For work
+    submitted to a thread: a thread's C heap keeps its freed blocks, which no other thread
+    reuses."""
+    try:
+        return work(*args, **kwargs)
+    finally:
+        give_back()

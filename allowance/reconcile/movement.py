@@ -55,7 +55,7 @@ import pyarrow as pa
 
 from allowance.frameworks import rules_for
 from allowance.exceptions import MovementError
-from allowance.memory import give_back
+from allowance.memory import give_back, given_back
 from allowance.reconcile.blocks import Blocks
 from allowance.reconcile.runs import STATUSES, Book, Bridge, LoanIds, RunLoans, bridge
 from allowance.reconcile.tables import (
@@ -543,19 +543,10 @@ def compare_runs(
     first = frameworks[0]
     loans = _bridge(book, first, months, method_changes)
     with ThreadPoolExecutor(1, thread_name_prefix="allowance-movement") as pool:
-        others = [pool.submit(_given_back, _movement, book, f, months, method_changes) for f in frameworks[1:]]
+        others = [pool.submit(given_back, _movement, book, f, months, method_changes) for f in frameworks[1:]]
         out = {first: _movement(book, first, months, method_changes, loans)}
         del loans
         give_back()  # what making this framework's tables freed
     for f, made in zip(frameworks[1:], others):
         out[f] = made.result()  # a later framework's error, once the first one went through
     return out
-
-
-def _given_back(work, *args) -> object:
-    """``work(*args)`` on a thread of its own, then what it freed handed back (a thread's C heap
-    keeps its freed blocks, which no other thread reuses)."""
-    try:
-        return work(*args)
-    finally:
-        give_back()

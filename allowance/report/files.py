@@ -33,7 +33,7 @@ import pyarrow.csv as pa_csv
 
 from allowance.exceptions import OutputError
 from allowance.intake import IntakeResult
-from allowance.memory import give_back
+from allowance.memory import give_back, given_back
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
@@ -319,7 +319,7 @@ def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[
             _movement_loans_csv(report.movements, folder / "movement_loans.csv")
             done("movement_loans.csv")
         else:
-            moving = detail.submit(_given_back, _movement_loans_csv, report.movements, folder / "movement_loans.csv")
+            moving = detail.submit(given_back, _movement_loans_csv, report.movements, folder / "movement_loans.csv")
     if report.what_if_parts is not None:
         _csv(report.what_if_parts.summary, folder / "what_if.csv")
         done("what_if.csv")
@@ -349,15 +349,6 @@ def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[
     return moving
 
 
-def _given_back(work: Callable[..., object], *args) -> object:
-    """``work(*args)`` on a writer thread, then what it freed handed back: a thread's C heap
-    keeps its freed blocks, which no other thread reuses."""
-    try:
-        return work(*args)
-    finally:
-        give_back()
-
-
 def _write_all(folder: Path, report: RunReport, parquet: bool,
                progress: Callable[[str, int, int], object] | None = None) -> list[str]:
     written: list[str] = []
@@ -383,7 +374,7 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
     # other files and the workbooks (Python: one core) are made, so both cores work
     with ThreadPoolExecutor(1, thread_name_prefix="allowance-loans") as detail:
         # its own frame over the same columns: nothing the workbooks do to theirs reaches it
-        loans_csv = detail.submit(_given_back, _csv, report.loans.copy(deep=False), folder / "loans.csv")
+        loans_csv = detail.submit(given_back, _csv, report.loans.copy(deep=False), folder / "loans.csv")
         # on an error the block still waits for loans.csv (and movement_loans.csv, queued after it)
         moving = _write_rest(folder, report, parquet, done, detail)
     loans_csv.result()  # its own error, once the rest went through
