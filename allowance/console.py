@@ -71,6 +71,14 @@ def main() -> None:
         if done.code == 130 and _from_interrupt(done):
             interrupted()  # Typer exits 130 silently on Ctrl-C: say what happened
         raise
+    except Exception as error:
+        # A Ctrl-C can arrive inside code whose errors Python wraps: a ``__set_name__`` that a
+        # class statement calls (pydantic's field descriptors, as the models load) turns it into
+        # "RuntimeError: Error calling __set_name__", caused by the KeyboardInterrupt. Still an
+        # interruption, not a fault of ours.
+        if _from_interrupt(error):
+            interrupted()
+        raise
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -270,3 +270,42 @@ def test_compare_json_equals_the_run_records(demo_out):
     for fw, lines in summary["movement"].items():
         by_line = {row["line"]: row["total"] for row in lines}
         assert by_line["closing"] == pytest.approx(record["total_allowance"][fw], abs=0.01)
+
+
+_WRAPPED_INTERRUPT = """
+import sys
+
+class Interrupting:
+    # a descriptor whose __set_name__ is interrupted, as pydantic's are when Ctrl-C lands
+    # while the models' class statements run: Python wraps it in a RuntimeError (3.11)
+    def __set_name__(self, owner, name):
+        raise KeyboardInterrupt
+
+class InterruptWhenLoading:
+    def find_spec(self, name, path=None, target=None):
+        if name == "allowance.cli":
+            sys.meta_path.remove(self)
+            type("Model", (), {"field": Interrupting()})
+        return None
+
+sys.meta_path.insert(0, InterruptWhenLoading())
+from allowance.console import main
+sys.argv = ["allowance", "version"]
+main()
+"""
+
+
+def test_ctrl_c_wrapped_by_a_class_statement_is_still_an_interruption():
+    """A KeyboardInterrupt that Python re-raises as another error (its cause) exits 130 with one line.
+
+    Seen in CI: Ctrl-C while pydantic built a model gave "RuntimeError: Error calling
+    __set_name__" and exit 1 with a traceback. Exit 130 for SIGINT is the shell's convention
+    (128 + signal 2; common practice, no source).
+    """
+    import subprocess
+    import sys
+
+    child = subprocess.run([sys.executable, "-c", _WRAPPED_INTERRUPT], capture_output=True, text=True, timeout=120)
+    assert child.returncode == 130, child.stderr
+    assert "Traceback" not in child.stderr and child.stderr.strip().startswith("interrupted")
+    assert child.stdout == ""
