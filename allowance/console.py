@@ -58,6 +58,9 @@ def main() -> None:
         from allowance import jitable
 
         jitable.COMMAND_LINE = True  # numba may skip its BLAS probe here (allowance.jit)
+        from allowance import aside
+
+        aside.ALLOWED = True  # a workbook may be written by a forked copy (allowance.aside)
         if sys.argv[1:2] and sys.argv[1] in _COMPUTING:
             from allowance import jitcache
 

@@ -17,8 +17,9 @@ from pathlib import Path
 import allowance
 
 LAYERS: list[tuple[str, ...]] = [
-    ("exceptions", "text", "money", "jit", "jitable", "jitcache", "memory"),  # leaves: the domain errors, text safety, cents,
-    # compile cache, the scalar maths compiled loops may call, freed memory handed back
+    ("exceptions", "text", "money", "jit", "jitable", "jitcache", "memory", "aside"),  # leaves: the domain errors, text safety,
+    # cents, compile cache, the scalar maths compiled loops may call, freed memory handed back,
+    # work forked beside the command line's process
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
     ("links", "discounting", "cashflows", "shortfall"),  # maths with no other concept beneath it
     # term structures, stages, POCI, macro links and their fit, individually measured loans

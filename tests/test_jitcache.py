@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 
 import allowance
-from allowance import console, jitcache
+from allowance import aside, console, jitable, jitcache
 
 ECL = Path(os.path.abspath(Path(allowance.__file__).with_name("ecl.py")))
 TAG = f"py{sys.version_info.major}{sys.version_info.minor}"
@@ -99,6 +99,9 @@ def test_waiting_with_nothing_started_returns_at_once():
 def test_the_command_line_compiles_ahead_for_the_commands_that_run_the_loop(monkeypatch, capsys, args, ahead):
     asked = []
     monkeypatch.setattr(jitcache, "compile_ahead", lambda: asked.append(True) or False)
+    # console.main sets these for its own process; this one must get them back as they were
+    monkeypatch.setattr(jitable, "COMMAND_LINE", jitable.COMMAND_LINE)
+    monkeypatch.setattr(aside, "ALLOWED", aside.ALLOWED)
     monkeypatch.setattr(sys, "argv", ["allowance", *args])
     with pytest.raises(SystemExit) as done:
         console.main()

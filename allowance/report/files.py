@@ -23,6 +23,7 @@ from __future__ import annotations
 import json
 import os
 from collections.abc import Callable, Iterable
+from contextlib import nullcontext
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
@@ -33,11 +34,13 @@ import pyarrow.csv as pa_csv
 
 from allowance.exceptions import OutputError
 from allowance.intake import IntakeResult
+from allowance import aside
+from allowance.aside import Aside
 from allowance.memory import give_back, given_back
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
 from allowance.report.swap import replace_folder
-from allowance.report.workbook import write_workbooks
+from allowance.report.workbook import write_summary_workbook, write_workbook, write_workbooks
 from allowance.text import neutralise_frame, neutralise_table
 
 __all__ = [
@@ -296,8 +299,9 @@ def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
 
 
 def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[str], None],
-                detail: ThreadPoolExecutor | None = None) -> Future | None:
-    """Every output but loans.csv and run.json: the other tables, then the workbooks.
+                detail: ThreadPoolExecutor | None = None, *, reserve: bool = True) -> Future | None:
+    """Every output but loans.csv and run.json: the other tables, then the workbooks
+    (``reserve=False``: the summary alone, the reserve workbook being made elsewhere).
 
     ``detail``: the thread writing loans.csv; movement_loans.csv is queued on it (written
     once loans.csv is, its future returned) rather than written here beside loans.csv: the
@@ -343,8 +347,11 @@ def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[
     if report.roll_forecast is not None and not report.roll_forecast.empty:  # roll-rate segments only
         _csv(report.roll_forecast, folder / "roll_forecast.csv")
         done("roll_forecast.csv")
-    write_workbooks(folder / "reserve.xlsx", folder / "summary.xlsx", report)
-    done("reserve.xlsx")
+    if reserve:
+        write_workbooks(folder / "reserve.xlsx", folder / "summary.xlsx", report)
+        done("reserve.xlsx")
+    else:
+        write_summary_workbook(folder / "summary.xlsx", report)
     done("summary.xlsx")
     return moving
 
@@ -370,14 +377,22 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
     # what computing the run freed goes back to the system before writing takes its own: the
     # peak of a run is in writing, over the tape and the loan frame
     give_back()
-    # loans.csv is formatted by Arrow outside the GIL: written on a thread of its own while the
-    # other files and the workbooks (Python: one core) are made, so both cores work
-    with ThreadPoolExecutor(1, thread_name_prefix="allowance-loans") as detail:
-        # its own frame over the same columns: nothing the workbooks do to theirs reaches it
-        loans_csv = detail.submit(given_back, _csv, report.loans.copy(deep=False), folder / "loans.csv")
-        # on an error the block still waits for loans.csv (and movement_loans.csv, queued after it)
-        moving = _write_rest(folder, report, parquet, done, detail)
-    loans_csv.result()  # its own error, once the rest went through
+    # The reserve workbook, laid out in Python like the summary, is made by a forked copy of
+    # this process where the command line allows it (allowance.aside): forked first,
+    # while no thread of this process is busy. Demo quarter on the project's 2-core machine:
+    # writing every output 0.95 -> 0.6 s.
+    with (Aside(write_workbook, folder / "reserve.xlsx", report) if aside.usable() else nullcontext()) as apart:
+        # loans.csv is formatted by Arrow outside the GIL: written on a thread of its own while the
+        # other files and the workbooks (Python: one core) are made, so both cores work
+        with ThreadPoolExecutor(1, thread_name_prefix="allowance-loans") as detail:
+            # its own frame over the same columns: nothing the workbooks do to theirs reaches it
+            loans_csv = detail.submit(given_back, _csv, report.loans.copy(deep=False), folder / "loans.csv")
+            # on an error the block still waits for loans.csv (and movement_loans.csv, queued after it)
+            moving = _write_rest(folder, report, parquet, done, detail, reserve=apart is None)
+        loans_csv.result()  # its own error, once the rest went through
+        if apart is not None:
+            apart.result()
+            done("reserve.xlsx")
     done("loans.csv")
     if moving is not None:
         moving.result()
