@@ -21,6 +21,7 @@ in this process as before.
 
 from __future__ import annotations
 
+import gc
 import os
 import pickle
 import signal
@@ -55,9 +56,19 @@ class Aside:
     def __init__(self, work: Callable[..., Any], *args: Any) -> None:
         read, write = os.pipe()
         self._done = False
-        self.pid = os.fork()
+        # the child's garbage collector would write to every object this process holds (their
+        # GC headers), copying the pages the two share: the objects made so far are set aside
+        gc.freeze()
+        try:
+            self.pid = os.fork()
+        except BaseException:
+            gc.unfreeze()
+            os.close(read)
+            os.close(write)
+            raise
         if self.pid == 0:  # pragma: no cover - the child; its effects are tested from the parent
             _child(read, write, work, args)
+        gc.unfreeze()
         os.close(write)
         self._read = read
 
