@@ -5,6 +5,7 @@ Implements
 ALLOWED   set by the console entry point: the command line's own process may fork
 usable    whether :class:`Aside` forks here (else the caller does the work itself)
 Aside     ``work(*args)`` started in a child process; ``result()`` waits and re-raises
+start     an :class:`Aside` where usable and the system allows the fork, else ``None``
 
 Laying out a workbook is Python, one core under the GIL; a run writes two of them plus its
 CSV files, and the machine has more cores. A forked child starts with the run already in
@@ -27,10 +28,11 @@ import pickle
 import signal
 import sys
 import traceback
+import warnings
 from collections.abc import Callable
 from typing import Any
 
-__all__ = ["ALLOWED", "Aside", "usable"]
+__all__ = ["ALLOWED", "Aside", "start", "usable"]
 
 #: Set by :func:`allowance.console.main`: this process is the command line's, whose threads
 #: are all this package's (idle when a fork is made) and whose output is a terminal or a file.
@@ -60,7 +62,12 @@ class Aside:
         # GC headers), copying the pages the two share: the objects made so far are set aside
         gc.freeze()
         try:
-            self.pid = os.fork()
+            with warnings.catch_warnings():
+                # Python 3.12+ warns of forking with other threads alive: here those are idle
+                # pool threads (this package's, Arrow's, BLAS's), and Arrow and the allocators
+                # reset their state in the child with at-fork handlers of their own
+                warnings.simplefilter("ignore", DeprecationWarning)
+                self.pid = os.fork()
         except BaseException:
             gc.unfreeze()
             os.close(read)
@@ -112,6 +119,17 @@ class Aside:
     def __exit__(self, kind, error, trace) -> None:
         if kind is not None:
             self.stop()
+
+
+def start(work: Callable[..., Any], *args: Any) -> Aside | None:
+    """``Aside(work, *args)`` where :func:`usable`; ``None`` (the caller does the work) where
+    not, or where the system refuses the fork (no memory or process slots left)."""
+    if not usable():
+        return None
+    try:
+        return Aside(work, *args)
+    except OSError:
+        return None
 
 
 def _ending(code: int) -> str:

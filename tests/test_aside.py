@@ -113,9 +113,42 @@ def test_an_interrupted_wait_stops_the_child():
 
 def test_only_the_command_line_forks(monkeypatch):
     monkeypatch.setattr(aside, "ALLOWED", False)
-    assert not aside.usable()
+    assert not aside.usable() and aside.start(print, "never") is None
     monkeypatch.setattr(aside, "ALLOWED", True)
     assert aside.usable() == sys.platform.startswith("linux")
+
+
+def test_a_refused_fork_leaves_the_work_to_the_caller(monkeypatch):
+    def refused():
+        raise OSError(errno.EAGAIN, os.strerror(errno.EAGAIN))
+
+    monkeypatch.setattr(aside, "ALLOWED", True)
+    monkeypatch.setattr(os, "fork", refused)
+    assert aside.start(print, "never") is None
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="forks on Linux only")
+def test_the_warning_of_newer_pythons_about_forking_with_threads_is_not_an_error(monkeypatch, tmp_path):
+    """Python 3.12+ warns (DeprecationWarning) when a process with threads forks; with
+    warnings turned into errors (``-W error``) the run must still write its workbook."""
+    import warnings
+
+    real = os.fork
+
+    def warning_fork():
+        warnings.warn("This process is multi-threaded, use of fork() may lead to deadlocks", DeprecationWarning,
+                      stacklevel=2)
+        return real()
+
+    monkeypatch.setattr(aside, "ALLOWED", True)
+    monkeypatch.setattr(os, "fork", warning_fork)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        child = aside.start(_write, tmp_path / "w.txt", "forked")
+        assert child is not None
+        with child:
+            child.result()
+    assert (tmp_path / "w.txt").read_text(encoding="utf-8") == "forked"
 
 
 def _files(folder: Path) -> dict[str, bytes]:
