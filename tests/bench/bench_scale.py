@@ -98,14 +98,43 @@ def _copies(src: Path, dst: Path, n: int, bad_share: float = 0.0) -> int:
 
 
 _PEAK = """
-import resource, subprocess, sys
-code = subprocess.run(sys.argv[1:], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE).returncode
-print(code, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)
+import os, resource, subprocess, sys, time
+
+def tree(pid):
+    found = [pid]
+    try:
+        for task in os.listdir(f"/proc/{pid}/task"):
+            with open(f"/proc/{pid}/task/{task}/children") as f:
+                for child in f.read().split():
+                    found += tree(int(child))
+    except OSError:
+        pass
+    return found
+
+def pss(pid):
+    try:
+        with open(f"/proc/{pid}/smaps_rollup") as f:
+            return next((int(line.split()[1]) for line in f if line.startswith("Pss:")), 0)
+    except OSError:
+        return 0
+
+child = subprocess.Popen(sys.argv[1:], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+summed = 0
+while child.poll() is None:
+    summed = max(summed, sum(pss(p) for p in tree(child.pid)))
+    time.sleep(0.02)
+child.communicate()
+print(child.returncode, max(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss, summed))
 """
 
 
 def _timed(args: list[str], env: dict | None = None, repeat: int = 1) -> tuple[float, float]:
-    """Best wall time of ``repeat`` fresh processes and the largest peak RSS (MB) among them."""
+    """Best wall time of ``repeat`` fresh processes and the largest peak memory (MB) among them.
+
+    The peak is the larger of the largest single process's peak RSS and the summed PSS of the
+    command and its child processes, sampled every 20 ms (Linux): the command line writes the
+    reserve workbook in a forked child (``allowance.aside``), whose pages are partly shared
+    with the parent, so neither process's RSS alone is the run's memory."""
     best, peak = float("inf"), 0.0
     for _ in range(repeat):
         # the hundreds of MB the bench or the last command wrote go to disk first, not under the
