@@ -781,8 +781,13 @@ def modelled_chunk(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | N
     ``stages`` as for :func:`chunk_inputs`.
     """
     c = chunk_inputs(chunk, prep, stages)
-    k, (purchase,) = _losses(chunk, prep, c, (prep.weights,))
     stage, poci_flag = _stage_and_poci(chunk, c.stages)
+    # the loop walks only the months the allowance takes (12 in IFRS 9 stage 1, not the whole
+    # life the loan detail's lifetime column needs): the same 12-month and lifetime sums, to
+    # the bit (:func:`_allowance_horizon`), for a fraction of a long book's months
+    c = dataclasses.replace(c, kernel=dataclasses.replace(
+        c.kernel, horizon=_allowance_horizon(prep, c.frameworks.horizon, stage, poci_flag)))
+    k, (purchase,) = _losses(chunk, prep, c, (prep.weights,))
     _, replaced = _individual_measurement(chunk, c.terms, prep)
     out = _modelled(k, prep, stage, poci_flag, purchase, replaced, prep.weights)
     return pd.DataFrame({"loan_id": chunk["loan_id"].array, **out}, index=chunk.index)
@@ -854,21 +859,31 @@ class _DrawnOnly:
     ecl_lifetime: np.ndarray
 
 
+def _allowance_horizon(prep: Prepared, life: np.ndarray, stage: np.ndarray, poci_flag: np.ndarray) -> np.ndarray:
+    """The months ``[F, n]`` each framework's allowance takes of the loop's horizon ``life``
+    (``[F, n]``): the framework's horizon (:attr:`~allowance.frameworks.FrameworkRules.horizon`:
+    12 months in IFRS 9 stage 1, IFRS 9 5.5.5 and B5.5.38; else the life), a POCI loan's
+    whole life (IFRS 9 5.5.13), never past ``life``.
+
+    The loop's 12-month sums are taken at month 12 whatever the horizon beyond it (and the
+    month-by-month sums to month 12 are the same steps in the same order), so a horizon cut
+    to 12 months gives the same 12-month figures, to the bit; the lifetime sums of a loan
+    whose horizon is cut are then not its lifetime ECL, and are not read."""
+    out = np.empty_like(life)
+    for f, rules in enumerate(prep.rules):
+        measured = np.where(poci_flag, life[f], rules.horizon(stage, life[f]))
+        out[f] = np.minimum(measured, life[f])
+    return out
+
+
 def _drawn_horizon(prep: Prepared, c: ChunkInputs, rows: np.ndarray, stage: np.ndarray,
                    poci_flag: np.ndarray) -> np.ndarray:
-    """The months of the drawn-only pass ``[F, m]`` at ``rows``: the framework's horizon for
-    the allowance (:attr:`~allowance.frameworks.FrameworkRules.horizon`; a POCI loan's whole
-    life), 0 where the framework puts no add-on on the loan (its split is nil, not read).
-
-    The loop's 12-month sums are taken at month 12 whatever the horizon beyond it, so a
-    horizon cut to 12 months gives the same 12-month figures, to the bit."""
+    """The months of the drawn-only pass ``[F, m]`` at ``rows``: the horizon the allowance
+    takes (:func:`_allowance_horizon`), 0 where the framework puts no add-on on the loan (its
+    split is nil, not read)."""
     fw = c.frameworks
-    life = fw.horizon[:, rows]
-    out = np.zeros_like(life)
-    for f, rules in enumerate(prep.rules):
-        measured = np.where(poci_flag[rows], life[f], rules.horizon(stage[rows], life[f]))
-        out[f] = np.where(fw.undrawn_add[f, rows] > 0.0, np.minimum(measured, life[f]), 0)
-    return out
+    measured = _allowance_horizon(prep, fw.horizon[:, rows], stage[rows], poci_flag[rows])
+    return np.where(fw.undrawn_add[:, rows] > 0.0, measured, 0)
 
 
 def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, stage: np.ndarray,
