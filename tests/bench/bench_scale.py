@@ -98,7 +98,16 @@ def _copies(src: Path, dst: Path, n: int, bad_share: float = 0.0) -> int:
 
 
 _PEAK = """
-import os, resource, subprocess, sys, time
+import resource, subprocess, sys
+code = subprocess.run(sys.argv[1:], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE).returncode
+print(code, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)
+"""
+
+#: The summed PSS of a command's processes, sampled every 20 ms (Linux). Reading smaps_rollup
+#: walks the process's page tables under its memory lock: sampled beside a timed run it made a
+#: million-loan run 1.22 x slower (farm-bench, 3 pairs), so it is measured in a run of its own.
+_SUMMED = """
+import os, subprocess, sys, time
 
 def tree(pid):
     found = [pid]
@@ -119,22 +128,34 @@ def pss(pid):
         return 0
 
 child = subprocess.Popen(sys.argv[1:], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-summed = 0
+summed, most = 0, 1
 while child.poll() is None:
-    summed = max(summed, sum(pss(p) for p in tree(child.pid)))
+    pids = tree(child.pid)
+    total = sum(pss(p) for p in pids)
+    if total > summed:
+        summed, most = total, len(pids)
     time.sleep(0.02)
 child.communicate()
-print(child.returncode, max(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss, summed))
+print(child.returncode, summed, most)
 """
 
 
-def _timed(args: list[str], env: dict | None = None, repeat: int = 1) -> tuple[float, float]:
-    """Best wall time of ``repeat`` fresh processes and the largest peak memory (MB) among them.
+def _summed_pss(args: list[str], env: dict | None = None) -> tuple[float, int]:
+    """Peak summed PSS (MB) of one untimed run of the command and its child processes, and how
+    many processes were alive at that peak: the command line writes the reserve workbook in a
+    forked child (``allowance.aside``) whose pages are partly the parent's, so the largest
+    single process's RSS is not the whole of the run's memory."""
+    done = subprocess.run([PY, "-c", _SUMMED, *args], capture_output=True, text=True,
+                          env={**os.environ, **(env or {})})
+    code, kb, processes = done.stdout.split()
+    if int(code) != 0:
+        raise SystemExit(f"{' '.join(args)} failed ({code})")
+    return int(kb) / 1024, int(processes)
 
-    The peak is the larger of the largest single process's peak RSS and the summed PSS of the
-    command and its child processes, sampled every 20 ms (Linux): the command line writes the
-    reserve workbook in a forked child (``allowance.aside``), whose pages are partly shared
-    with the parent, so neither process's RSS alone is the run's memory."""
+
+def _timed(args: list[str], env: dict | None = None, repeat: int = 1) -> tuple[float, float]:
+    """Best wall time of ``repeat`` fresh processes and the largest peak RSS (MB) of a single
+    process among them (:func:`_summed_pss` for the sum over a run's processes)."""
     best, peak = float("inf"), 0.0
     for _ in range(repeat):
         # the hundreds of MB the bench or the last command wrote go to disk first, not under the
@@ -271,6 +292,10 @@ def main() -> None:
                                "--out", str(work / "sens")])
         row("run, sensitivities, extra", s - plain, mb, "run", plain, "<= 0.25")
         row(f"run (best of {len(plain_times)} tries)", plain, plain_mb, "Arrow floor", floor, "<= 2.5")
+        if sys.platform.startswith("linux"):
+            summed, processes = _summed_pss(plain_run, env)
+            print(f"{'run, summed PSS':26s} {summed:8,.0f} MB   over {processes} processes at the peak "
+                  f"(sampled, untimed run; target 1,536)", flush=True)
 
         demo = [*allowance, "run", str(DEMO / "tape_2026q3.csv"), *q3, "--no-sensitivities", "--out", str(work / "d")]
         cold, _ = _timed(demo, {**env, "NUMBA_CACHE_DIR": str(work / "cold-cache")})
