@@ -90,10 +90,7 @@ class Aside:
         except BaseException:  # interrupted while waiting (Ctrl-C): the child's work is not wanted
             self.stop()
             raise
-        os.close(self._read)
-        _, status = os.waitpid(self.pid, 0)
-        self._done = True
-        code = os.waitstatus_to_exitcode(status)
+        code = os.waitstatus_to_exitcode(self._reap())
         if code == 0:
             return
         if chunks:
@@ -109,9 +106,17 @@ class Aside:
             os.kill(self.pid, signal.SIGTERM)
         except ProcessLookupError:
             pass
-        os.close(self._read)
-        os.waitpid(self.pid, 0)
+        self._reap()
+
+    def _reap(self) -> int:
+        """Close the pipe (once) and wait for the child; its wait status. A wait cut short (a
+        Ctrl-C during it) leaves the child to :meth:`stop`, which waits again."""
+        if self._read >= 0:
+            os.close(self._read)
+            self._read = -1
+        _, status = os.waitpid(self.pid, 0)
         self._done = True
+        return status
 
     def __enter__(self) -> "Aside":
         return self

@@ -379,7 +379,8 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
     # The reserve workbook, laid out in Python like the summary, is made by a forked copy of
     # this process where the command line allows it (allowance.aside): forked first,
     # while no thread of this process is busy. A million loans on the project's 2-core
-    # machine: 17.2 -> 16.0 s a run (4 pairs, machine shared), the same bytes.
+    # machine: 10.77 -> 10.57 s a run quiet (4 pairs), 17.2 -> 16.0 s with another job on the
+    # machine; the demo quarter 3.51 -> 3.31 s (8 pairs); the same bytes.
     with aside.start(write_workbook, folder / "reserve.xlsx", report) or nullcontext() as apart:
         # loans.csv is formatted by Arrow outside the GIL: written on a thread of its own while the
         # other files and the workbooks (Python: one core) are made, so both cores work

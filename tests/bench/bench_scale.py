@@ -21,6 +21,7 @@ run                    Arrow floor: read the tape and write      2.5 x
                        beforehand and not timed)
 run --prior            the plain run                              1.5 x
 run --prior, peak      the plain run's peak resident memory       1 x
+run, summed PSS        (its processes together, untimed run)      1.5 GB
 compare                the plain run                              1.5 x
 what-if (weights)      the plain run                              0.5 x extra
 what-if (overlay only) the plain run                              0.5 x extra
