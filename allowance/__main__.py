@@ -1,7 +1,7 @@
 """``python -m allowance``: the command line, with Ctrl-C guarded from the first import."""
 
 try:
-    from allowance.console import main
+    from allowance.console import command
 except KeyboardInterrupt:  # the moment before the console module is loaded
     import os
     import sys
@@ -10,4 +10,4 @@ except KeyboardInterrupt:  # the moment before the console module is loaded
     sys.stderr.flush()
     os._exit(130)  # not SystemExit: see allowance.console.interrupted
 
-main()
+command()

@@ -7,8 +7,10 @@ any point prints one line and exits with 130 (128 + SIGINT, the shell convention
 
 from __future__ import annotations
 
+import atexit
 import os
 import sys
+import threading
 
 INTERRUPTED = "interrupted; the output folder holds a complete run or nothing new, never a mix"
 
@@ -84,5 +86,57 @@ def main() -> None:
         raise
 
 
+def command() -> None:
+    """The program (the ``allowance`` script, ``python -m allowance``): :func:`main`, then the
+    process ends at once (:func:`leave`). An error that escapes :func:`main` ends it as Python
+    ends any program, with its traceback."""
+    try:
+        main()
+    except SystemExit as done:
+        leave(done.code)
+    leave(0)
+
+
+def _status(code: object) -> int:
+    """The exit status Python gives ``SystemExit(code)``: None is 0, a number itself, anything
+    else is printed on standard error and is 1."""
+    if code is None:
+        return 0
+    if isinstance(code, int):
+        return code
+    sys.stderr.write(f"{code}\n")
+    return 1
+
+
+def leave(code: object) -> None:
+    """End the process as ``SystemExit(code)`` would, without the interpreter's teardown.
+
+    At exit Python clears every module and frees every object one by one: some 0.1 s once
+    pandas is loaded, 0.2 s with numba, 0.3-0.45 s after a run of the demo quarter, a sixth of
+    the whole run (measured on the project's 2-core machine; 3.08 -> 2.65 s the demo run,
+    median of 8 pairs). None of it is needed here: every output is written and closed by its
+    ``with`` block before a command returns, and the folder swap has finished. What an exit
+    must still do is done first: the ``atexit`` handlers run (they stop a compile process
+    not needed, flush logging), and standard output and error are flushed. Python's own exit
+    is taken instead when a thread it would wait for is still running, or when flushing
+    fails (a closed pipe: Python then reports it and exits 120, as it always has).
+    """
+    waiting = [t for t in threading.enumerate() if t is not threading.main_thread() and not t.daemon and t.is_alive()]
+    try:
+        sys.stdout.flush()
+        sys.stderr.flush()
+    except (OSError, ValueError):
+        waiting.append(threading.main_thread())
+    if waiting:
+        sys.exit(code)
+    status = _status(code)
+    atexit._run_exitfuncs()
+    try:  # what a handler printed
+        sys.stdout.flush()
+        sys.stderr.flush()
+    finally:
+        os._exit(status)
+
+
 if __name__ == "__main__":  # pragma: no cover
-    main()
+    command()

@@ -309,3 +309,77 @@ def test_ctrl_c_wrapped_by_a_class_statement_is_still_an_interruption():
     assert child.returncode == 130, child.stderr
     assert "Traceback" not in child.stderr and child.stderr.strip().startswith("interrupted")
     assert child.stdout == ""
+
+
+# ---- ending the process ------------------------------------------------------------------
+
+_LEAVING = r"""
+import atexit, sys, threading, time
+from allowance.console import leave
+
+class Torn:
+    def __del__(self):  # runs only when the interpreter tears its modules down
+        sys.stderr.write("torn down\n")
+
+kept = Torn()
+atexit.register(lambda: sys.stdout.write("atexit ran\n"))
+sys.stdout.write("unflushed")  # no newline: still in the buffer
+how = sys.argv[1]
+if how == "thread":  # a thread Python would wait for
+    threading.Thread(target=lambda: (time.sleep(0.3), sys.stdout.write("thread done\n"))).start()
+leave({"zero": 0, "three": 3, "none": None, "text": "no such file", "thread": 4}[how] if how != "python" else 0) \
+    if how != "python" else sys.exit(0)
+"""
+
+
+def _buffered() -> dict[str, str]:
+    """The environment with Python's standard streams buffered, as they are by default."""
+    import os
+
+    return {k: v for k, v in os.environ.items() if k != "PYTHONUNBUFFERED"}
+
+
+def _leaving(how: str):
+    import subprocess
+    import sys
+
+    return subprocess.run([sys.executable, "-c", _LEAVING, how], capture_output=True, text=True, timeout=120,
+                          env=_buffered())
+
+
+@pytest.mark.parametrize("how, status", [("zero", 0), ("three", 3), ("none", 0), ("text", 1)])
+def test_leave_exits_as_system_exit_would_without_the_teardown(how, status):
+    """``leave(code)`` gives ``SystemExit(code)``'s status (None 0, a number itself, a text
+    printed and 1: the Python documentation of SystemExit), flushes what was written, runs the
+    atexit handlers, and skips the teardown (no module object is finalised)."""
+    done = _leaving(how)
+    assert done.returncode == status, done.stderr
+    assert done.stdout == "unflushedatexit ran\n"
+    assert "torn down" not in done.stderr
+    assert done.stderr == ("no such file\n" if how == "text" else "")
+
+
+def test_python_s_own_exit_tears_down():
+    """The contrast that makes the test above meaningful: an ordinary exit finalises the object."""
+    done = _leaving("python")
+    assert done.returncode == 0 and "torn down" in done.stderr
+
+
+def test_leave_takes_python_s_exit_while_a_thread_runs():
+    """A thread Python waits for at exit is waited for: its output is there, with the status."""
+    done = _leaving("thread")
+    assert done.returncode == 4, done.stderr
+    assert "thread done" in done.stdout and "atexit ran" in done.stdout
+
+
+def test_leave_onto_a_closed_pipe_exits_as_python_does():
+    """Flushing into a pipe nobody reads fails; Python reports that and exits 120 (its documented
+    status when flushing the standard streams at exit fails), and so does ``leave``."""
+    import subprocess
+    import sys
+
+    child = subprocess.Popen([sys.executable, "-c", _LEAVING, "zero"], stdout=subprocess.PIPE,
+                             stderr=subprocess.PIPE, env=_buffered())
+    child.stdout.close()  # before the child can write: its flush meets a broken pipe
+    _, err = child.communicate(timeout=120)
+    assert child.returncode == 120, err
