@@ -48,7 +48,12 @@ __all__ = ["cache_dir", "compile_ahead", "loop_cached", "wait_for_ahead"]
 
 #: The second process: the smallest book through the loop, which compiles (and caches) the
 #: one signature every run uses (``allowance.ecl._checked_arrays`` makes the dtypes one set).
-_CHILD = "from allowance import jitable; jitable.COMMAND_LINE = True; import allowance.ecl as e; e.compile_loop()"
+#: It ends at once when the cache is written (numba writes its files as it compiles, each
+#: closed): the interpreter's teardown of numba and numpy, some 0.2-0.3 s, would otherwise be
+#: waited for by the first run (:func:`allowance.console.leave` says more). An error ends it
+#: as usual, with its status, and the first process compiles the loop itself.
+_CHILD = ("from allowance import jitable; jitable.COMMAND_LINE = True; import allowance.ecl as e; e.compile_loop(); "
+          "import os; os._exit(0)")
 
 #: Longest wait for the second process before the first compiles the loop itself.
 _PATIENCE_SECONDS = 600.0
