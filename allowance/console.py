@@ -108,6 +108,14 @@ def _status(code: object) -> int:
     return 1
 
 
+def _watched() -> bool:
+    """Whether a profiler, tracer or monitoring tool (``sys.monitoring``, Python 3.12+) is set."""
+    if sys.getprofile() is not None or sys.gettrace() is not None:
+        return True
+    monitoring = getattr(sys, "monitoring", None)
+    return monitoring is not None and any(monitoring.get_tool(tool) is not None for tool in range(6))
+
+
 def leave(code: object) -> None:
     """End the process as ``SystemExit(code)`` would, without the interpreter's teardown.
 
@@ -118,10 +126,13 @@ def leave(code: object) -> None:
     ``with`` block before a command returns, and the folder swap has finished. What an exit
     must still do is done first: the ``atexit`` handlers run (they stop a compile process
     not needed, flush logging), and standard output and error are flushed. Python's own exit
-    is taken instead when a thread it would wait for is still running, or when flushing
-    fails (a closed pipe: Python then reports it and exits 120, as it always has).
+    is taken instead when a thread it would wait for is still running, when flushing fails (a
+    closed pipe: Python then reports it and exits 120, as it always has), or when a profiler,
+    a debugger or a coverage tool watches the process (they report as Python exits).
     """
     waiting = [t for t in threading.enumerate() if t is not threading.main_thread() and not t.daemon and t.is_alive()]
+    if _watched():
+        waiting.append(threading.main_thread())
     try:
         sys.stdout.flush()
         sys.stderr.flush()

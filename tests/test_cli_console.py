@@ -365,6 +365,19 @@ def test_python_s_own_exit_tears_down():
     assert done.returncode == 0 and "torn down" in done.stderr
 
 
+def test_leave_takes_python_s_exit_under_a_profiler():
+    """A profiler writes its report as Python exits (``python -m cProfile -m allowance ...``):
+    under one the interpreter's own exit is taken, teardown included."""
+    import subprocess
+    import sys
+
+    done = subprocess.run([sys.executable, "-c", "import cProfile, sys; sys.argv = ['x', 'three']; "
+                           f"cProfile.run({_LEAVING!r})"], capture_output=True, text=True, timeout=120, env=_buffered())
+    # cProfile.run takes the SystemExit itself to print its report (its status is then 0)
+    assert done.returncode == 0, done.stderr
+    assert "torn down" in done.stderr and "function calls" in done.stdout and "atexit ran" in done.stdout
+
+
 def test_leave_takes_python_s_exit_while_a_thread_runs():
     """A thread Python waits for at exit is waited for: its output is there, with the status."""
     done = _leaving("thread")
