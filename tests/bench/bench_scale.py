@@ -299,8 +299,13 @@ def main() -> None:
                   f"(sampled, untimed run; target 1,536)", flush=True)
 
         demo = [*allowance, "run", str(DEMO / "tape_2026q3.csv"), *q3, "--no-sensitivities", "--out", str(work / "d")]
-        cold, _ = _timed(demo, {**env, "NUMBA_CACHE_DIR": str(work / "cold-cache")})
-        warm, _ = _timed(demo, {**env, "NUMBA_CACHE_DIR": str(work / "cold-cache")}, args.repeat)
+        # a few seconds each, and the machine's bursts last seconds: each first run with a cache
+        # of its own, emptied, then warm runs on it; best of --repeat (at least 3) of each
+        cold = warm = float("inf")
+        for attempt in range(max(args.repeat, 3)):
+            cache = {**env, "NUMBA_CACHE_DIR": str(work / f"cold-cache-{attempt}")}
+            cold = min(cold, _timed(demo, cache)[0])
+            warm = min(warm, _timed(demo, cache, 2)[0])
         print(f"{'demo run, warm':26s} {warm:8.1f} s   (target well under 2 s)", flush=True)
         row("demo run, empty cache", cold, 0.0, "warm", warm, "<= 2")
 
