@@ -90,11 +90,15 @@ def command() -> None:
     """The program (the ``allowance`` script, ``python -m allowance``): :func:`main`, then the
     process ends at once (:func:`leave`). An error that escapes :func:`main` ends it as Python
     ends any program, with its traceback."""
+    code: object = 0
     try:
         main()
     except SystemExit as done:
-        leave(done.code)
-    leave(0)
+        code = done.code
+    try:
+        leave(code)
+    except KeyboardInterrupt:  # a Ctrl-C as the process ends: the outputs are already complete
+        interrupted()
 
 
 def _status(code: object) -> int:
