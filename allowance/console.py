@@ -143,6 +143,8 @@ def leave(code: object) -> None:
     if ordinary:
         sys.exit(code)
     status = _status(code)
+    # the handlers Python would run at exit, in its order (atexit's own runner: underscored,
+    # but in CPython's atexit module since Python 2)
     atexit._run_exitfuncs()
     try:  # what a handler printed
         _flush()
