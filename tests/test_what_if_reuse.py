@@ -29,8 +29,11 @@ def test_overlaid_equals_a_fresh_run_with_the_other_overlays():
     tape = engine_tape(n=200)
     plain, uplifted = engine_config(), engine_config(overlays=_OVERLAYS)
     fresh = engine.run(tape, uplifted)
-    reused = engine.overlaid(engine.run(tape, plain), uplifted)
+    base = engine.run(tape, plain)
+    kept = base.loans.copy(deep=True)
+    reused = engine.overlaid(base, uplifted)
     pd.testing.assert_frame_equal(reused.loans, fresh.loans)
+    pd.testing.assert_frame_equal(base.loans, kept)  # the base keeps its own figures (not shared)
     pd.testing.assert_frame_equal(reused.overlays, fresh.overlays)
     pd.testing.assert_frame_equal(reused.scenarios, fresh.scenarios)
     assert reused.warnings == fresh.warnings

@@ -499,7 +499,9 @@ def overlaid(result: EngineResult, config: RunConfig) -> EngineResult:
     changes only overlays (or its base run) needs no second pass through the loop. The
     result equals ``run(tape, config)`` (tested column for column).
     """
-    loans = result.loans.copy()
+    # a shallow copy: under pandas' copy-on-write the columns set here are this frame's own and
+    # ``result`` keeps its figures (a deep copy of a million loans' columns took 1.4 s)
+    loans = result.loans.copy(deep=False)
     applied = _apply_overlays(loans, config)
     model_warnings = [w for w in result.warnings if w not in result.overlay_warnings]
     return dataclasses.replace(
