@@ -550,3 +550,8 @@ def test_what_if_matches_loans_by_id_in_any_order():
     for other in (alt.iloc[:3], alt.assign(loan_id=["a", "=b", "c", "e"]), pd.concat([alt.iloc[:3], alt.iloc[:1]])):
         with pytest.raises(MovementError, match="same loans"):
             what_if_comparison(base, other, ["ifrs9"])
+    # the same ids in the same order on both sides, but one repeated or missing: not each loan once
+    for ids in (["a", "b", "a", "d"], ["a", "b", None, "d"]):
+        twice = base.assign(loan_id=pd.array(ids, dtype="str"))
+        with pytest.raises(MovementError, match="same loans"):
+            what_if_comparison(twice, twice.copy(), ["ifrs9"])
