@@ -123,6 +123,12 @@ def test_reweighted_equals_a_fresh_run_at_the_other_weights():
     poci = ~plain
     assert not np.array_equal(one.loc[poci, "purchase_ecl_carried_ifrs9"].to_numpy(),
                               other.loc[poci, "purchase_ecl_carried_ifrs9"].to_numpy())
+    # what the weights leave as it is is held once: the two books share those columns' memory
+    # (a million loans: the what-if with other weights peaked at 1,626 MiB holding copies, 1,508 sharing)
+    for same in ("balance", "stage", "ead", "remaining_months", "lgd", "ecl_cecl_base", "ecl_cecl_down"):
+        assert np.shares_memory(one[same].to_numpy(), other[same].to_numpy()), same
+    for moved in ("ecl_ifrs9_modelled", "ecl_cecl_modelled", "ecl_ifrs9"):
+        assert not np.shares_memory(one[moved].to_numpy(), other[moved].to_numpy()), moved
 
 
 def dataclasses_free(result: engine.EngineResult) -> engine.EngineResult:

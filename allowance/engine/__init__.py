@@ -281,8 +281,12 @@ def run(
     done = 0
     for chunk, part in zip(chunks, map(work, chunks)):
         # rounded as each chunk comes back (rounding is per loan): its unrounded money goes at once
-        for i, one in enumerate((part.columns, *part.reweighted)):
-            columns[i].append(_round_money(one))
+        own = _round_money(part.columns)
+        columns[0].append(own)
+        for i, one in enumerate(part.reweighted, start=1):
+            # a column the weights leave as it is (ids, stages, balances, each scenario's ECL) is
+            # this run's own object: the other book shares it, not a copy (_book)
+            columns[i].append(_as_own(_round_money(one), own))
         for i, one in enumerate(part.alone):
             alone_columns[i].append(_round_money(one))
         findings.append(part.findings)
@@ -293,8 +297,9 @@ def run(
     findings = pd.concat(findings, ignore_index=True) if findings else pd.DataFrame()
     model_warnings = staging.pd_ratio_warnings(tape) if prep.staged is not None else []
     results = []
+    joined: dict[str, tuple[tuple[int, ...], Any]] = {}  # this run's columns as joined, by their pieces
     for i, one in enumerate((config, *others)):
-        loans, applied = _book(columns[i], tape, prep, one)
+        loans, applied = _book(columns[i], tape, prep, one, joined=joined if others else None)
         columns[i] = []
         results.append(EngineResult(
             loans=loans, overlays=applied.table, scenarios=scenario_summary(loans, one),
@@ -302,6 +307,7 @@ def run(
             schedules=pd.DataFrame(), findings=findings, warnings=model_warnings + list(applied.warnings),
             overlay_warnings=tuple(applied.warnings), months=prep.months,
         ))
+    joined = {}
     main, rest = results[0], results[1:]
     main = dataclasses.replace(main, alone={name: _alone(pieces, main.loans, config)
                                             for name, pieces in zip(singles, alone_columns)})
@@ -510,8 +516,30 @@ def overlaid(result: EngineResult, config: RunConfig) -> EngineResult:
     )
 
 
+def _same_bits(one: Any, other: Any) -> bool:
+    """Whether two columns hold the same values to the bit (NaN where NaN, -0.0 apart from 0.0)."""
+    if one is other:
+        return True
+    if isinstance(one, np.ndarray) and isinstance(other, np.ndarray):
+        if one.dtype != other.dtype or one.shape != other.shape:
+            return False
+        if one.dtype.kind == "f":
+            return bool(np.array_equal(one.view(f"u{one.dtype.itemsize}"), other.view(f"u{other.dtype.itemsize}")))
+        return one.dtype.kind in "biu" and bool(np.array_equal(one, other))
+    if isinstance(one, pd.api.extensions.ExtensionArray) and isinstance(other, pd.api.extensions.ExtensionArray):
+        return one.dtype == other.dtype and bool(one.equals(other))
+    return False
+
+
+def _as_own(piece: dict[str, Any], own: dict[str, Any]) -> dict[str, Any]:
+    """A chunk's columns under other weights, each that equals this run's own (to the bit)
+    replaced by that column's object."""
+    return {name: own[name] if name in own and _same_bits(values, own[name]) else values
+            for name, values in piece.items()}
+
+
 def _book(columns: list[dict[str, Any]], tape: pd.DataFrame, prep: Prepared, config: RunConfig | None = None, *,
-          wait: bool = False):
+          wait: bool = False, joined: dict[str, tuple[tuple[int, ...], Any]] | None = None):
     """The book's loan frame, built once from its chunks' rounded columns, and the overlays applied.
 
     Each column is joined from its chunks' pieces (and the pieces let go) as it is needed; the
@@ -523,7 +551,18 @@ def _book(columns: list[dict[str, Any]], tape: pd.DataFrame, prep: Prepared, con
     the modelled figures as final and the part's amount weights.
     """
     config = config or prep.config
-    loans = {name: _joined([c.pop(name) for c in columns]) for name in (list(columns[0]) if columns else [])}
+    loans = {}
+    for name in list(columns[0]) if columns else []:
+        pieces = [c.pop(name) for c in columns]
+        ids = tuple(map(id, pieces))  # the pieces are alive (held here): their ids are theirs
+        made = joined.get(name) if joined is not None else None
+        if made is not None and made[0] == ids:  # every piece another book's: its joined column, shared
+            loans[name] = made[1]
+        else:
+            loans[name] = _joined(pieces)
+            if joined is not None and name not in joined:
+                joined[name] = (ids, loans[name])
+        del pieces
     if not loans:
         applied = _apply_overlays(frame := pd.DataFrame(), config)
         return _order_columns(frame, tape, prep), applied
