@@ -549,6 +549,11 @@ def _book(columns: list[dict[str, Any]], tape: pd.DataFrame, prep: Prepared, con
     by default; a reweighted one's, which differs only in weights and overlays), or with
     ``wait`` (a part of a book with an ``amount`` overlay, :func:`run_part`) the frame with
     the modelled figures as final and the part's amount weights.
+
+    ``joined``: kept by :func:`run` across the books of one pass. The first book records each
+    joined column under the ids of its pieces; a later book whose pieces of a column are all
+    the first's (:func:`_as_own`) takes that column instead of joining a copy. The ids are
+    sound: every piece of every book was alive at once, when the chunks came back.
     """
     config = config or prep.config
     loans = {}
