@@ -27,8 +27,7 @@ def interrupted() -> None:
     """
     try:
         sys.stderr.write(INTERRUPTED + "\n")
-        sys.stdout.flush()
-        sys.stderr.flush()
+        _flush()
     finally:
         os._exit(130)
 

@@ -386,8 +386,9 @@ def test_leave_takes_python_s_exit_while_a_thread_runs():
 
 
 def test_leave_onto_a_closed_pipe_exits_as_python_does():
-    """Flushing into a pipe nobody reads fails; Python reports that and exits 120 (its documented
-    status when flushing the standard streams at exit fails), and so does ``leave``."""
+    """Flushing into a pipe nobody reads fails; Python reports that and exits 120 (its status
+    when flushing the standard streams at exit fails: "What's New In Python 3.6", from
+    memory), and so does ``leave``."""
     import subprocess
     import sys
 
