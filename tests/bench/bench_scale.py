@@ -312,7 +312,7 @@ def main() -> None:
         # of its own, emptied, then warm runs on it (best of two) right after; the ratio is the
         # median over the tries (at least 5) of each first run over its own warm run, as the
         # commands above are paired with the plain run (best against best read 2.14 x in one
-        # bench while 8 pairs of the same commands gave a median of 1.97 x)
+        # bench while 5 farm-bench pairs of the same commands gave a median of 1.97 x)
         colds, warms = [], []
         for attempt in range(max(args.repeat, 5)):
             cache = {**env, "NUMBA_CACHE_DIR": str(work / f"cold-cache-{attempt}")}
