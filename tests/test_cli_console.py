@@ -327,8 +327,9 @@ sys.stdout.write("unflushed")  # no newline: still in the buffer
 how = sys.argv[1]
 if how == "thread":  # a thread Python would wait for
     threading.Thread(target=lambda: (time.sleep(0.3), sys.stdout.write("thread done\n"))).start()
-leave({"zero": 0, "three": 3, "none": None, "text": "no such file", "thread": 4}[how] if how != "python" else 0) \
-    if how != "python" else sys.exit(0)
+if how == "python":  # Python's own exit, the contrast
+    sys.exit(0)
+leave({"zero": 0, "three": 3, "none": None, "text": "no such file", "thread": 4}[how])
 """
 
 

@@ -307,7 +307,7 @@ def run(
             schedules=pd.DataFrame(), findings=findings, warnings=model_warnings + list(applied.warnings),
             overlay_warnings=tuple(applied.warnings), months=prep.months,
         ))
-    joined = {}
+    joined = {}  # its hold on the first book's joined columns goes now, not when run returns
     main, rest = results[0], results[1:]
     main = dataclasses.replace(main, alone={name: _alone(pieces, main.loans, config)
                                             for name, pieces in zip(singles, alone_columns)})

@@ -238,10 +238,7 @@ def main() -> None:
     # PYTHONDONTWRITEBYTECODE would compile every module's source at each start (0.2 s of the demo)
     subprocess.run([PY, "-c", "import compileall, pathlib, allowance; "
                     "compileall.compile_dir(pathlib.Path(allowance.__file__).parent, quiet=1)"], check=True)
-    rows: list[tuple[str, float, float, str, float, float]] = []
-
     def row(name, seconds, mb, yard_name, ratio, target):
-        rows.append((name, seconds, mb, yard_name, ratio, target))
         print(f"{name:26s} {seconds:8.1f} s  {mb:8,.0f} MB   {ratio:5.2f} x {yard_name}  (target {target})",
               flush=True)
 
