@@ -2,7 +2,7 @@
 
 The maths is written once, as small scalar functions that numba compiles into the loops
 (:mod:`allowance.jitable`; :func:`path_terms` and :func:`balance_on_path` are compiled on their
-own too). Both the fused ECL loop (:mod:`allowance.ecl`, through :func:`contractual_payments`,
+own by :mod:`allowance.ecl_compiled`). Both the fused ECL loop (:mod:`allowance.ecl`, through :func:`contractual_payments`,
 the same payment for every loan at once in numpy) and the schedule view (:func:`schedule`,
 plain Python) take a loan's level payment from :func:`contractual_payment`, bit for bit the
 same figure; the schedule then steps month by month
@@ -45,10 +45,8 @@ import math
 
 from typing import TYPE_CHECKING
 
-import numba
 import numpy as np
 
-from allowance import jit
 from allowance.jitable import jitable
 
 if TYPE_CHECKING:  # pandas is loaded by the functions on dates: the compiled maths alone need not wait for it
@@ -340,7 +338,6 @@ def principal_step(
     return min(balance, max(level - balance * rate, 0.0))
 
 
-@numba.njit(cache=jit.CACHE)
 def path_terms(code: int, balance: float, rate: float, level: float, paydown: float) -> tuple[float, float]:
     """Growth factor g and payment P of a loan's closed-form balance path.
 
@@ -358,11 +355,6 @@ def path_terms(code: int, balance: float, rate: float, level: float, paydown: fl
     return 1.0 + rate, max(level, balance * rate)
 
 
-# fastmath as the fused loop compiles it, whoever calls it first: numba compiles a function once
-# per signature with the flags of its first caller (a fastmath loop passes its flags down), so
-# without this a call from Python (the schedule view) got B x - P s with or without a fused
-# multiply-add depending on which run filled the compile cache, a last-digit difference
-@numba.njit(cache=jit.CACHE, fastmath=True)
 def balance_on_path(balance: float, growth_power: float, annuity_factor: float, payment: float) -> float:
     r"""Scheduled balance after t amortizing months, in closed form.
 

@@ -44,13 +44,22 @@ def _from_interrupt(error: BaseException) -> bool:
     return False
 
 
-#: The commands whose first run compiles the ECL loop in a second process
+#: The command whose first run may compile the ECL loop: in a second process
 #: (:func:`allowance.jitcache.compile_ahead`) while this one loads its libraries and reads the
-#: tape. First run of the demo tape on the project's 2-core machine, paired, empty compile
-#: cache: 6.8 -> 4.7 s quiet, 5.76 -> 5.74 s with another job on the machine; the demo
-#: command (which calibrates first) 14.1 -> 12.1 s. ``backtest`` reads a history and a tape
-#: before its first loop, as ``run`` does.
-_COMPUTING = frozenset({"run", "demo", "backtest"})
+#: tape, when the tape holds more loans than are computed in numpy (or its size is unknown).
+#: A first run of a million loans then pays the compile beside its start-up, not after it.
+#: ``demo`` computes small books, and ``backtest`` and ``compare`` read finished runs: none
+#: of them needs the compiled loop.
+_COMPUTING = frozenset({"run"})
+
+
+def _large_book(args: list[str]) -> bool:
+    """Whether the tape the command line names (its first argument after the command) may
+    hold more loans than numpy computes (:data:`allowance.jitcache.ARRAYS_UP_TO`)."""
+    from allowance import jitcache
+
+    loans = jitcache.tape_loans(args[0]) if args and not args[0].startswith("-") else None
+    return loans is None or loans > jitcache.ARRAYS_UP_TO
 
 
 def main() -> None:
@@ -62,7 +71,7 @@ def main() -> None:
         from allowance import aside
 
         aside.ALLOWED = True  # a workbook may be written by a forked copy (allowance.aside)
-        if sys.argv[1:2] and sys.argv[1] in _COMPUTING:
+        if sys.argv[1:2] and sys.argv[1] in _COMPUTING and _large_book(sys.argv[2:3]):
             from allowance import jitcache
 
             jitcache.compile_ahead()  # on a first run, the loop compiles beside the start-up

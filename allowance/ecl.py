@@ -1,14 +1,13 @@
 r"""The expected-credit-loss sum, per loan, per framework and scenario, 12-month and lifetime.
 
-One fused compiled loop over loans (in parallel) and months: it walks each loan's balance
-path once, and for every framework and scenario accumulates
+Each loan's balance path is walked once, and for every framework and scenario the sum
 
 .. math::
 
     ECL = \sum_{t=1}^{H} S_{t-1}\; pd_t\; LGD_t\; EAD_t\; DF_t, \qquad
     S_t = \prod_{k \le t} (1 - pd_k)(1 - smm_k)
 
-where :math:`pd_t` is the marginal PD conditional on survival, :math:`EAD_t` the balance at the
+is accumulated, where :math:`pd_t` is the marginal PD conditional on survival, :math:`EAD_t` the balance at the
 start of month t, :math:`DF_t = (1 + EIR/12)^{-t}` (1 where the framework does not discount)
 and :math:`smm_t` the prepayment rate (competing risk). The 12-month ECL sums t ≤ 12. A loan
 in default takes PD = 1 now: ECL = LGD · EAD_0. The expected gross credit loss is the same sum
@@ -17,15 +16,15 @@ balloon or interest-only loan adds the refinance risk at its maturity month T wh
 reaches it: :math:`S_T\, q\; LGD_T\, EAD_T\, DF_T` (:mod:`allowance.curves.refinance`). The formulas live in the concept modules
 (:mod:`~allowance.cashflows` for the balance path, :func:`~allowance.curves.lgd.loss_given_default`
 for LGD_t, :func:`~allowance.discounting.monthly_discount` for the v of DF_t = v^t); this module
-compiles and composes them, and never allocates a loans × months array.
+composes them, and never allocates a loans × months array.
 
-How the loop is made fast (``tests/bench/bench_engine.py`` measures it): the level payment
-is computed once per loan (:func:`~allowance.cashflows.contractual_payment`) and the balance
-follows its closed form (:func:`~allowance.cashflows.balance_on_path`), so no month waits on
-the last; DF_t is a running product; up to four scenarios ride in scalars side by side; a
-flat LGD on a unit multiplier path is one number per loan; loans run in blocks of 256 on all
-cores with dynamic scheduling, with no allocation per loan; the inputs are checked finite
-first, which lets the loop compile with fast-math.
+Two ways, the same sums: a large book runs the fused loop compiled with numba
+(:mod:`allowance.ecl_compiled`: loans on all cores, months in registers; some 3-4 s to
+compile once, 0.7-0.9 s to load in each process); a small book runs it in numpy, the months
+one after another and every loan at once (:func:`_sums_in_arrays`), with no compiler loaded.
+``expected_losses(inputs, loop)`` takes either; the engine chooses once per book
+(:func:`allowance.engine.tables.choose_loop`). They agree to rounding: ``tests/test_ecl.py``
+holds both to a per-loan reference and to each other.
 
 References
 ----------
@@ -35,10 +34,11 @@ References
 
 Implements
 ----------
-KernelInputs     the per-loan arrays and the tables the loop reads
+KernelInputs     the per-loan arrays and the tables the sum reads
 KernelResult     per loan, framework and scenario: ecl and gross loss, 12-month and lifetime,
                  pd_12m, pd_lifetime; ead, lgd
-expected_losses  check the inputs and run the loop
+LOOPS            the two ways to compute it: "compiled" and "arrays"
+expected_losses  check the inputs and compute the sums
 compile_loop     compile the loop (into the cache) on the smallest book
 MONTH_COLUMNS    the columns of loan_months
 loan_months      one loan's sum month by month (the schedule view of what the loop did)
@@ -49,37 +49,16 @@ from __future__ import annotations
 from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING
 
-import numba
 import numpy as np
 
-from allowance import jit, jitcache
 from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, contractual_payments, path_terms
-from allowance.curves.lgd import collateral_lgd, loss_given_default
+from allowance.curves.lgd import TINY_EAD, collateral_lgd, loss_given_default, loss_given_default_array
 from allowance.curves.refinance import refinance_default
 from allowance.shortfall import default_loss
 from allowance.exceptions import InvalidInputError
 
 if TYPE_CHECKING:  # loaded by loan_months: compiling the loop alone (compile_loop) needs no pandas
     import pandas as pd
-
-#: the LGD of a loan-month (:func:`allowance.curves.lgd.loss_given_default`), compiled into the loop
-_loss_given_default = numba.njit(cache=jit.CACHE)(loss_given_default)
-#: the loss of a default in the month (:func:`allowance.shortfall.default_loss`), compiled into the loop
-_default_loss = numba.njit(cache=jit.CACHE)(default_loss)
-#: the share failing to repay at maturity (:func:`allowance.curves.refinance.refinance_default`)
-_refinance_default = numba.njit(cache=jit.CACHE)(refinance_default)
-
-
-@numba.njit(cache=jit.CACHE)
-def _flat_lgd(lgd, multiplier):
-    """:func:`loss_given_default` of a loan without collateral (its collateral branch folds away)."""
-    return _loss_given_default(0.0, lgd, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, multiplier)
-
-
-#: Loans per block: large enough that scratch allocation vanishes, small enough that the
-#: threads share a chunk evenly (:func:`allowance.jit.in_threads` hands out a few at a time).
-_BLOCK = 256
-
 
 @dataclass(frozen=True)
 class KernelInputs:
@@ -167,232 +146,14 @@ class KernelResult:
 ECL_12M, ECL_LIFETIME, PD_12M, PD_LIFETIME, GROSS_12M, GROSS_LIFETIME = range(6)
 
 
-@numba.njit(cache=jit.CACHE)
-def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
-    """Write one loan, framework and scenario's six sums (rows as :data:`ECL_12M` ...)."""
-    sums[0, i, f, s], sums[1, i, f, s], sums[2, i, f, s] = ecl12, ecllife, pd12
-    sums[3, i, f, s], sums[4, i, f, s], sums[5, i, f, s] = pdlife, gross12, grosslife
+#: How :func:`expected_losses` computes: the compiled loop, or numpy with no compiler loaded.
+LOOPS: tuple[str, ...] = ("compiled", "arrays")
 
 
-@numba.njit(cache=jit.CACHE, fastmath=True)
-def _flat_lanes(
-    i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
-    io_left, level, paydown, add, add_months, add_after, v, horizon_i, interest, maturity, q, sums, sc,
-):
-    r"""One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
-
-    ``e`` sums the exposure-weighted default share :math:`\sum S_{t-1} pd_t EAD_t DF_t`,
-    the expected gross loss; ``l`` the net loss (on a unit LGD path, LGD × e). Under the
-    cash-shortfall measure each default also loses the month's interest (both times
-    ``1 + interest`` and ``LGD + interest``).
-
-    The four scenarios are carried in scalars (registers) rather than arrays, so their
-    survival recursions run side by side; a lane past the last scenario does no work and is
-    never written.
-    """
-    j1 = s0 + 1 if s0 + 1 < n_sc else s0
-    j2 = s0 + 2 if s0 + 2 < n_sc else s0
-    j3 = s0 + 3 if s0 + 3 < n_sc else s0
-    a0 = a1 = a2 = a3 = 1.0  # survival S_{t-1}
-    l0 = l1 = l2 = l3 = 0.0  # lifetime ECL so far
-    c0 = c1 = c2 = c3 = 0.0  # cumulative PD so far
-    y0 = y1 = y2 = y3 = 0.0  # 12-month ECL
-    q0 = q1 = q2 = q3 = 0.0  # 12-month PD
-    e0 = e1 = e2 = e3 = 0.0  # gross loss so far
-    u0 = u1 = u2 = u3 = 0.0  # 12-month gross loss
-    lgd_c = _flat_lgd(lgd_i, 1.0) + interest
-    growth, pay = path_terms(code, balance, rate, level, paydown)
-    x = 1.0  # g^t
-    annuity = 0.0  # sum of g^j, j < t
-    df = 1.0
-    two, three, four = j1 != s0, j2 != s0, j3 != s0
-    for t in range(horizon_i):
-        if t < io_left:
-            bal = balance
-        else:
-            bal = balance_on_path(balance, x, annuity, pay)
-            x *= growth
-            annuity = annuity * growth + 1.0
-        df *= v
-        keep = 1.0 - smm[p, off + t]
-        w = (bal + (add if t < add_months else add_after)) * df
-        if unit:
-            w0 = w1 = w2 = w3 = w * lgd_c
-        else:
-            w0 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, s0]), interest)
-            w1 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j1]), interest)
-            w2 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j2]), interest)
-            w3 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j3]), interest)
-        # S_t = (S_{t-1} - S_{t-1} pd_t)(1 - smm_t): the default share d is computed anyway
-        d0 = a0 * min(pd[f, k, t, s0] * sc, 1.0)
-        l0 += d0 * w0
-        e0 += d0 * w
-        c0 += d0
-        a0 = (a0 - d0) * keep
-        if two:  # lanes past the last scenario do no work
-            d1 = a1 * min(pd[f, k, t, j1] * sc, 1.0)
-            l1 += d1 * w1
-            e1 += d1 * w
-            c1 += d1
-            a1 = (a1 - d1) * keep
-        if three:
-            d2 = a2 * min(pd[f, k, t, j2] * sc, 1.0)
-            l2 += d2 * w2
-            e2 += d2 * w
-            c2 += d2
-            a2 = (a2 - d2) * keep
-        if four:
-            d3 = a3 * min(pd[f, k, t, j3] * sc, 1.0)
-            l3 += d3 * w3
-            e3 += d3 * w
-            c3 += d3
-            a3 = (a3 - d3) * keep
-        if t == maturity:  # refinance risk: of the loans still outstanding, S_T q cannot repay
-            r0 = _refinance_default(a0, q)
-            l0, e0, c0, a0 = l0 + r0 * w0, e0 + r0 * w, c0 + r0, a0 - r0
-            r1 = _refinance_default(a1, q)
-            l1, e1, c1, a1 = l1 + r1 * w1, e1 + r1 * w, c1 + r1, a1 - r1
-            r2 = _refinance_default(a2, q)
-            l2, e2, c2, a2 = l2 + r2 * w2, e2 + r2 * w, c2 + r2, a2 - r2
-            r3 = _refinance_default(a3, q)
-            l3, e3, c3, a3 = l3 + r3 * w3, e3 + r3 * w, c3 + r3, a3 - r3
-        if t == 11:  # end of month 12: the 12-month figures
-            y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
-            u0, u1, u2, u3 = e0, e1, e2, e3
-    if horizon_i < 12:
-        y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
-        u0, u1, u2, u3 = e0, e1, e2, e3
-    g = 1.0 + interest  # the gross loss of a default: its whole exposure (and the month's interest)
-    _store(sums, i, f, s0, y0, l0, q0, c0, u0 * g, e0 * g)
-    if j1 != s0:
-        _store(sums, i, f, j1, y1, l1, q1, c1, u1 * g, e1 * g)
-    if j2 != s0:
-        _store(sums, i, f, j2, y2, l2, q2, c2, u2 * g, e2 * g)
-    if j3 != s0:
-        _store(sums, i, f, j3, y3, l3, q3, c3, u3 * g, e3 * g)
-
-
-# fastmath: the inputs are checked finite first (so "no NaN, no inf" holds); it lets the
-# compiler reassociate and fuse the survival products (about 1.3 x faster here).
-# nogil, not parallel=True: the threads of :func:`allowance.jit.in_threads` run its blocks;
-# numba's parallel lowering compiled the loop 2.5 x longer on the first run.
-@numba.njit(cache=jit.CACHE, nogil=True, fastmath=True)
-def _kernel(
-    code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
-    in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure, refinance_pd,
-    horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, pd_scale, add_months,
-    add_after, unit_path, block, first, last,
-    sums, ead0, lgd0,
-):
-    n = balance.shape[0]
-    n_fw = pd.shape[0]
-    n_sc = pd.shape[3]
-    # blocks first..last-1 of ``block`` loans: the per-scenario state of the secured path is
-    # allocated once per block, not per loan (an allocation costs as much as a short loan's
-    # month loop)
-    for b in range(first, last):
-        survival = np.empty(n_sc)
-        cum_pd = np.empty(n_sc)
-        life = np.empty(n_sc)
-        twelve = np.empty(n_sc)
-        cum_12 = np.empty(n_sc)
-        gross = np.empty(n_sc)
-        gross_12 = np.empty(n_sc)
-        for i in range(b * block, min(n, (b + 1) * block)):
-            c, r, m_left, io, off = code[i], rate[i], months_left[i], io_left[i], prepay_offset[i]
-            level = level_payment[i]
-            sc = pd_scale[i]  # the loan's own PD level against its curve row
-            secured = collateral[i] > 0.0
-            lgd_i, coll_i, cut_i, cost_i = lgd[i], collateral[i], haircut[i], recovery_cost[i]
-            floor_i, cure_i = lgd_floor[i], cure[i]
-            for f in range(n_fw):
-                rec_i = recovery_discount[f, i]
-                k = curve[f, i]
-                add = ead_add[f, i]
-                p = prepay[f, i]
-                add_m, add_a = add_months[f, i], add_after[f, i]
-                ead = balance[i] + add
-                ead0[i, f] = ead
-                lgd0[i, f] = _loss_given_default(
-                    ead, lgd_i, coll_i, collateral_index[f, k, 0, 0], cut_i, cost_i, floor_i, rec_i, cure_i,
-                    lgd_multiplier[f, 0, 0],
-                )
-                if in_default[f, i]:
-                    for s in range(n_sc):
-                        loss = ead * _loss_given_default(
-                            ead, lgd_i, coll_i, collateral_index[f, k, 0, s], cut_i, cost_i, floor_i, rec_i,
-                            cure_i, lgd_multiplier[f, 0, s],
-                        )
-                        _store(sums, i, f, s, loss, loss, 1.0, 1.0, ead, ead)
-                    continue
-                # no exposure after maturity: a horizon past it adds nothing (nor to the PD)
-                horizon_i = horizon[f, i] if c == REVOLVING else min(horizon[f, i], m_left)
-                q_i = refinance_pd[i]
-                maturity = m_left - 1 if (q_i > 0.0 and c != REVOLVING) else -1  # the month of the test
-                v = discount[f, i]
-                down = paydown[f, i]
-                if not secured:
-                    for s0 in range(0, n_sc, 4):
-                        _flat_lanes(
-                            i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit_path[f], lgd_i,
-                            c, balance[i], r, io, level, down, add, add_m, add_a, v, horizon_i, interest[f, i], maturity, q_i,
-                            sums, sc,
-                        )
-                    continue
-                # secured: the collateral LGD moves with the balance and the collateral index
-                for s in range(n_sc):
-                    survival[s] = 1.0
-                    cum_pd[s] = 0.0
-                    life[s] = 0.0
-                    gross[s] = 0.0
-                growth, pay = path_terms(c, balance[i], r, level, down)
-                x = 1.0
-                annuity = 0.0
-                df = 1.0
-                for t in range(horizon_i):
-                    if t < io:
-                        bal = balance[i]
-                    else:
-                        bal = balance_on_path(balance[i], x, annuity, pay)
-                        x *= growth
-                        annuity = annuity * growth + 1.0
-                    ead = bal + (add if t < add_m else add_a)
-                    df *= v
-                    keep = 1.0 - smm[p, off + t]
-                    weight = ead * df
-                    for s in range(n_sc):
-                        h = min(pd[f, k, t, s] * sc, 1.0)
-                        loss_rate = _loss_given_default(
-                            ead, lgd_i, coll_i, collateral_index[f, k, t, s], cut_i, cost_i, floor_i,
-                            rec_i, cure_i, lgd_multiplier[f, t, s],
-                        )
-                        default_now = survival[s] * h
-                        life[s] += default_now * _default_loss(weight, loss_rate, interest[f, i])
-                        gross[s] += default_now * _default_loss(weight, 1.0, interest[f, i])
-                        cum_pd[s] += default_now
-                        survival[s] *= (1.0 - h) * keep
-                        if t == maturity:  # refinance risk at maturity: S_T q
-                            refi = _refinance_default(survival[s], q_i)
-                            life[s] += refi * _default_loss(weight, loss_rate, interest[f, i])
-                            gross[s] += refi * _default_loss(weight, 1.0, interest[f, i])
-                            cum_pd[s] += refi
-                            survival[s] -= refi
-                    if t == 11:  # end of month 12: the 12-month figures
-                        for s in range(n_sc):
-                            twelve[s] = life[s]
-                            cum_12[s] = cum_pd[s]
-                            gross_12[s] = gross[s]
-                if horizon_i < 12:
-                    for s in range(n_sc):
-                        twelve[s] = life[s]
-                        cum_12[s] = cum_pd[s]
-                        gross_12[s] = gross[s]
-                for s in range(n_sc):
-                    _store(sums, i, f, s, twelve[s], life[s], cum_12[s], cum_pd[s], gross_12[s], gross[s])
-
-
-def expected_losses(inputs: KernelInputs) -> KernelResult:
-    """Run the fused loop over every loan (all cores) and return the per-loan sums.
+def expected_losses(inputs: KernelInputs, loop: str = "compiled") -> KernelResult:
+    """Compute every loan's sums: ``loop="compiled"`` runs the fused compiled loop (all
+    cores; :mod:`allowance.ecl_compiled`), ``loop="arrays"`` the same recursion in numpy
+    (:func:`_sums_in_arrays`; numba is not loaded). The same figures to rounding.
 
     Raises
     ------
@@ -421,13 +182,17 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
     >>> r = expected_losses(k)
     >>> round(float(r.ecl_12m[0, 0, 0]), 6), round(float(r.gross_12m[0, 0, 0]), 6)
     (1250.0, 5000.0)
+    >>> r = expected_losses(k, "arrays")
+    >>> round(float(r.ecl_12m[0, 0, 0]), 6), round(float(r.gross_12m[0, 0, 0]), 6)
+    (1250.0, 5000.0)
     """
+    if loop not in LOOPS:
+        raise ValueError(f"loop must be one of {', '.join(LOOPS)}, not {loop!r}")
     args = _checked_arrays(inputs)
     n = inputs.balance.shape[0]
     n_fw, n_sc = inputs.pd.shape[0], inputs.pd.shape[3]
     sums = np.empty((6, n, n_fw, n_sc))  # rows ECL_12M ... GROSS_LIFETIME
     ead0, lgd0 = np.empty((n, n_fw)), np.empty((n, n_fw))
-    unit_path = np.array([bool(np.all(inputs.lgd_multiplier[f] == 1.0)) for f in range(n_fw)], dtype=np.bool_)
     if n:
         a = dict(zip(_FIELDS, args))
         # in numpy, not compiled: it tests the tape payment for NaN, which the loop's fast-math
@@ -435,9 +200,15 @@ def expected_losses(inputs: KernelInputs) -> KernelResult:
         levels = contractual_payments(
             a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], a["residual"], a["payment"]
         )
-        head = (a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], levels, *args[7:], unit_path)
-        jitcache.wait_for_ahead()  # a second process compiling the loop into the cache: load it, not compile it
-        jit.in_threads(lambda first, last: _kernel(*head, _BLOCK, first, last, sums, ead0, lgd0), n, _BLOCK)
+        if loop == "arrays":
+            _sums_in_arrays({**a, "level_payment": levels}, sums, ead0, lgd0)
+        else:
+            from allowance import ecl_compiled  # numba loads here, and only here
+
+            unit_path = np.array([bool(np.all(inputs.lgd_multiplier[f] == 1.0)) for f in range(n_fw)], dtype=np.bool_)
+            ecl_compiled.fused_sums(
+                (a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], levels, *args[7:], unit_path),
+                sums, ead0, lgd0)
         _defaulted_losses(a, sums)
         bad = ~np.isfinite(sums[ECL_LIFETIME]).all(axis=(1, 2))
         if bad.any():
@@ -470,6 +241,164 @@ def compile_loop() -> None:
         pd=np.full((1, 1, 1, 1), 0.01), smm=frame(0.0), lgd_multiplier=np.ones((1, 1, 1)),
         collateral_index=np.ones((1, 1, 1, 1)),
     ))
+
+
+def _sums_in_arrays(a: dict[str, np.ndarray], sums: np.ndarray, ead0: np.ndarray, lgd0: np.ndarray) -> None:
+    r"""The loop's sums in numpy: the months one after another, every loan and scenario at once.
+
+    The same recursion as the compiled loop, for each framework: in month t (from 0) a loan's
+    balance is its interest-only balance or :func:`~allowance.cashflows.balance_on_path`
+    (:math:`\max(B g^j - P s_j, 0)` with g and P from :func:`~allowance.cashflows.path_terms`),
+    its exposure that plus the add-on, :math:`w_t = EAD_t\, v^{t+1}`, and for each scenario
+
+    .. math::
+
+        d_t = S_{t-1} \min(c \cdot pd_t, 1), \qquad S_t = (S_{t-1} - d_t)(1 - smm_t),
+
+        E = \sum_t d_t w_t, \qquad N = \sum_t d_t w_t LGD_t, \qquad
+        ECL = N + i E, \qquad \text{gross} = (1 + i) E
+
+    (:func:`~allowance.shortfall.default_loss`: a default loses :math:`(LGD_t + i) EAD_t`),
+    plus the refinance failures :math:`S_T q` in the maturity month T. A loan without
+    collateral on a unit LGD path has :math:`N = \min(1, LGD) E`, so only E is summed for
+    it; the secured loans, whose LGD moves with the balance, are summed apart. The loans are
+    taken longest horizon first, so the loans still running in month t are the first ones:
+    each month works on one slice, and the work is the book's loan-months, not loans × the
+    longest horizon. A loan whose loss event is certain now takes PD 1 (its losses are set by
+    :func:`_defaulted_losses`). Memory: a few arrays of loans × scenarios.
+
+    It gives the compiled loop's figures to rounding (the two order a sum's terms apart:
+    last-bit differences; ``tests/test_ecl.py`` holds them to 1e-9).
+    """
+    n_fw = a["pd"].shape[0]
+    revolving = a["code"] == REVOLVING
+    secured = a["collateral"] > 0.0
+    work = []
+    for f in range(n_fw):
+        k, multiplier, index = a["curve"][f], a["lgd_multiplier"][f], a["collateral_index"][f]  # [T, S], [K, T, S]
+        ead = a["balance"] + a["ead_add"][f]
+        ead0[:, f] = ead
+        lgd0[:, f] = loss_given_default_array(
+            ead, a["lgd"], a["collateral"], index[k, 0, 0], a["haircut"], a["recovery_cost"], a["lgd_floor"],
+            a["recovery_discount"][f], a["cure"], multiplier[0, 0])
+        # no exposure after maturity: a horizon past it adds nothing (nor to the PD)
+        months = np.where(revolving, a["horizon"][f], np.minimum(a["horizon"][f], a["months_left"]))
+        months = np.where(a["in_default"][f], 0, months)
+        unit = bool((multiplier == 1.0).all())
+        for group in (~secured, secured):
+            rows = np.flatnonzero(group)
+            if rows.size:
+                work.append((f, rows[np.argsort(-months[rows], kind="stable")], months, unit))
+    # one thread: with these short arrays, two threads beside each other were slower (the GIL)
+    for one in work:
+        _months_in_arrays(a, *one, sums)
+    f, i = np.nonzero(a["in_default"])
+    sums[PD_12M, i, f, :] = sums[PD_LIFETIME, i, f, :] = 1.0
+
+
+def _months_in_arrays(a: dict[str, np.ndarray], f: int, rows: np.ndarray, months: np.ndarray, unit: bool,
+                      sums: np.ndarray) -> None:
+    """:func:`_sums_in_arrays` for the loans ``rows`` (longest horizon first), all secured or
+    none; their six sums go into ``sums[:, rows, f, :]``. Scenarios by loans (``[S, m]``), so
+    numpy's inner loops run along the loans."""
+    m_all, n_sc = rows.size, a["pd"].shape[3]
+    months = months[rows]
+    take = lambda name: a[name][rows]  # noqa: E731
+    taken = lambda name: a[name][f][rows]  # noqa: E731
+    balance, rate, io_left, lgd = take("balance"), take("rate"), take("io_left"), take("lgd")
+    revolving = take("code") == REVOLVING
+    growth = np.where(revolving, 1.0 - taken("paydown"), 1.0 + rate)
+    pay = np.where(revolving, 0.0, np.maximum(take("level_payment"), balance * rate))
+    add, add_months, add_after, v = taken("ead_add"), taken("add_months"), taken("add_after"), taken("discount")
+    key, prepay, offset, scale = taken("curve"), taken("prepay"), take("prepay_offset"), take("pd_scale")
+    q = take("refinance_pd")
+    maturity = np.where((q > 0.0) & ~revolving, take("months_left") - 1, -1)
+    secured = bool(take("collateral")[0] > 0.0)
+    if secured:  # the collateral's net proceeds today, before the index: C (1 - h)(1 - c) DF_m per loan
+        proceeds = take("collateral") * (1.0 - take("haircut")) * (1.0 - take("recovery_cost")) * taken("recovery_discount")
+        floor, kept = take("lgd_floor"), 1.0 - take("cure")
+    # the tables month-major, scenarios before keys: a month's rows for the loans are one gather
+    pd_t = np.ascontiguousarray(a["pd"][f].transpose(1, 2, 0))  # [T, S, K]
+    index_t = np.ascontiguousarray(a["collateral_index"][f].transpose(1, 2, 0)) if secured else None
+    multiplier = a["lgd_multiplier"][f][:, :, None]  # [T, S, 1]
+    smm = a["smm"].ravel()
+    smm_at = prepay * a["smm"].shape[1] + offset  # month t's SMM of a loan: smm[smm_at + t]
+    # the loans that reach their maturity month within their horizon, by that month
+    ends = np.flatnonzero((maturity >= 0) & (maturity < months))
+    due_in = {int(t): ends[maturity[ends] == t] for t in np.unique(maturity[ends])}
+    scaled = bool((scale != 1.0).any())
+    adds = bool((add != 0.0).any() or (add_after != 0.0).any())  # an exposure beyond the balance
+    x, annuity, df = np.ones(m_all), np.zeros(m_all), np.ones(m_all)
+    alive = np.ones((n_sc, m_all))
+    exposed, net, cum = np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all))
+    exposed_12, net_12, cum_12 = np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all))
+    share, part = np.empty((n_sc, m_all)), np.empty((n_sc, m_all))
+    running = m_all - np.searchsorted(months[::-1], np.arange(int(months[0])), side="right")
+    io_any = int(io_left.max())
+    for t, m in enumerate(running.tolist()):
+        b, g, ann, xm = balance[:m], growth[:m], annuity[:m], x[:m]
+        path = b * xm - pay[:m] * ann
+        np.maximum(path, 0.0, out=path)
+        if t < io_any:  # some loans still pay interest only: their balance and path wait
+            paying = t >= io_left[:m]
+            bal = np.where(paying, path, b)
+            x[:m] = np.where(paying, xm * g, xm)
+            annuity[:m] = np.where(paying, ann * g + 1.0, ann)
+        else:
+            bal = path
+            xm *= g
+            ann *= g
+            ann += 1.0
+        dfm = df[:m]
+        dfm *= v[:m]
+        exposure = bal + np.where(t < add_months[:m], add[:m], add_after[:m]) if adds else bal
+        weight = exposure * dfm
+        keep = 1.0 - smm.take(smm_at[:m] + t)
+        hazard = pd_t[t].take(key[:m], axis=1)
+        if scaled:
+            hazard *= scale[:m]
+            np.minimum(hazard, 1.0, out=hazard)
+        sh, pa, al = share[:, :m], part[:, :m], alive[:, :m]
+        np.multiply(al, hazard, out=sh)  # d_t = S_{t-1} pd_t
+        np.multiply(sh, weight, out=pa)  # d_t w_t
+        exposed[:, :m] += pa
+        cum[:, :m] += sh
+        al -= sh
+        al *= keep
+        if secured:  # collateral_lgd: min(1, max(floor, m (1 - cure)(1 - min(1, C_t (1 - h)(1 - c) DF_m / EAD_t))))
+            loss_rate = index_t[t].take(key[:m], axis=1)
+            loss_rate *= proceeds[:m] / np.maximum(exposure, TINY_EAD)
+            np.minimum(loss_rate, 1.0, out=loss_rate)
+            np.subtract(1.0, loss_rate, out=loss_rate)
+            loss_rate *= kept[:m]
+            loss_rate *= multiplier[t]
+            np.maximum(loss_rate, floor[:m], out=loss_rate)
+            np.minimum(loss_rate, 1.0, out=loss_rate)
+            pa *= loss_rate  # d_t w_t LGD_t (d_t w_t is in E already)
+            net[:, :m] += pa
+        elif not unit:
+            loss_rate = np.minimum(1.0, lgd[:m] * multiplier[t])
+            net[:, :m] += pa * loss_rate
+        due = due_in.get(t)
+        if due is not None:  # refinance risk: of the loans still outstanding, S_T q cannot repay
+            failed = refinance_default(alive[:, due], q[due])
+            exposed[:, due] += failed * weight[due]
+            cum[:, due] += failed
+            alive[:, due] -= failed
+            if secured or not unit:
+                net[:, due] += failed * weight[due] * loss_rate[:, due]
+        if t == 11:  # end of month 12: the 12-month figures
+            exposed_12[:, :m], net_12[:, :m], cum_12[:, :m] = exposed[:, :m], net[:, :m], cum[:, :m]
+    short = months < 12  # a horizon under 12 months: its 12-month figures are its lifetime ones
+    exposed_12[:, short], net_12[:, short], cum_12[:, short] = exposed[:, short], net[:, short], cum[:, short]
+    if not secured and unit:  # a flat LGD on a unit path: N = min(1, LGD) E
+        flat = np.minimum(1.0, lgd)
+        net, net_12 = flat * exposed, flat * exposed_12
+    interest = taken("interest")
+    for row, values in ((ECL_12M, net_12 + interest * exposed_12), (ECL_LIFETIME, net + interest * exposed),
+                        (PD_12M, cum_12), (PD_LIFETIME, cum), (GROSS_12M, (1.0 + interest) * exposed_12),
+                        (GROSS_LIFETIME, (1.0 + interest) * exposed)):
+        sums[row, rows, f, :] = values.T
 
 
 def _defaulted_losses(a: dict[str, np.ndarray], sums: np.ndarray) -> None:

@@ -16,8 +16,10 @@ writable of ``NUMBA_CACHE_DIR`` (when the user set it) and the user cache folder
 macOS, ``%LOCALAPPDATA%`` on Windows); when neither is writable the kernels are compiled
 without caching (a few seconds at each start, the same results).
 
-The first run after an install or an upgrade compiles the ECL loop (:func:`allowance.ecl.expected_losses`),
-some 3-4 s on a 2-core machine, all of it before a single loan is measured. The commands that
+The first run after an install or an upgrade that computes a large book compiles the ECL
+loop (:mod:`allowance.ecl_compiled`), some 3-4 s on a 2-core machine, all of it before a
+single loan is measured (a small book is computed in numpy and needs no compiled loop:
+:func:`allowance.engine.tables.choose_loop`). The commands that
 run the loop therefore start a second Python process at once that compiles the loop into the
 cache while the first imports pandas and the schemas, reads and checks the tape and builds the
 tables (``allowance demo`` calibrates first): on two cores the two overlap. The second process
@@ -44,7 +46,12 @@ import tempfile
 import threading
 from pathlib import Path
 
-__all__ = ["cache_dir", "compile_ahead", "loop_cached", "wait_for_ahead"]
+__all__ = ["ARRAYS_UP_TO", "cache_dir", "compile_ahead", "loop_cached", "tape_loans", "wait_for_ahead"]
+
+#: A book of at most this many loans is computed in numpy, with no compiled loop
+#: (:func:`allowance.engine.tables.choose_loop`): there, loading numba would cost more than
+#: the compiled loop saves (``tests/bench/bench_engine.py`` prints both).
+ARRAYS_UP_TO = 50_000
 
 #: The second process: the smallest book through the loop, which compiles (and caches) the
 #: one signature every run uses (``allowance.ecl._checked_arrays`` makes the dtypes one set).
@@ -103,7 +110,7 @@ def cache_dir() -> Path | None:
 
 def loop_cached(folder: Path | None = None) -> bool:
     """Whether ``folder`` (default :func:`cache_dir`) holds the ECL loop compiled from the
-    installed ``ecl.py``: numba's index of it exists and is not older than the source.
+    installed ``ecl_compiled.py``: numba's index of it exists and is not older than the source.
 
     numba files a function's cache under ``<folder>/<package>_<sha1 of the source's folder>/``
     as ``<module>.<function>-<line>.py<XY>.nbi`` and recompiles when the source's time stamp
@@ -114,14 +121,44 @@ def loop_cached(folder: Path | None = None) -> bool:
     folder = _CACHE_DIR if folder is None else folder
     if folder is None:
         return False
-    source = Path(os.path.abspath(Path(__file__).with_name("ecl.py")))  # as numba's locator names it
+    source = Path(os.path.abspath(Path(__file__).with_name("ecl_compiled.py")))  # as numba's locator names it
     sub = folder / f"{source.parent.name}_{hashlib.sha1(str(source.parent).encode()).hexdigest()}"
     try:
         stamp = source.stat().st_mtime
         tag = f"py{sys.version_info.major}{sys.version_info.minor}"
-        return any(index.stat().st_mtime >= stamp for index in sub.glob(f"ecl._kernel-*.{tag}.nbi"))
+        return any(index.stat().st_mtime >= stamp for index in sub.glob(f"ecl_compiled._kernel-*.{tag}.nbi"))
     except OSError:
         return False
+
+
+def tape_loans(path: str | os.PathLike) -> int | None:
+    """About how many loans the tape file at ``path`` holds, found cheaply; None when unknown.
+
+    A CSV file: its lines in the first 256 KiB, scaled to its size (exact when it is no
+    larger); a Parquet file: the row count in its footer. Anything else (a workbook, a
+    folder, a file that cannot be read): None. Only for deciding whether compiling the loop
+    ahead is worth it (:func:`compile_ahead`): a wrong guess costs time, never a figure.
+    """
+    sample = 256 * 1024
+    try:
+        size = os.path.getsize(path)
+        with open(path, "rb") as handle:
+            head = handle.read(sample)
+    except OSError:
+        return None
+    if head.startswith(b"PAR1"):
+        try:
+            import pyarrow.parquet as pq
+
+            return int(pq.read_metadata(path).num_rows)
+        except Exception:  # noqa: BLE001 - not a Parquet file after all: intake will say so
+            return None
+    if head.startswith(b"PK") or not head:  # a workbook (zip), or empty
+        return None
+    lines = head.count(b"\n") + (not head.endswith(b"\n"))
+    if size <= len(head):
+        return max(lines - 1, 0)  # less the header
+    return int(size * lines / len(head))
 
 
 _lock = threading.Lock()

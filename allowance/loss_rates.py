@@ -66,11 +66,9 @@ from __future__ import annotations
 from dataclasses import dataclass, fields
 from typing import Literal
 
-import numba
 import numpy as np
 
-from allowance import jit
-from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, path_terms
+from allowance.cashflows import REVOLVING
 from allowance.exceptions import InvalidInputError
 
 LossRateMethod = Literal["lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve"]
@@ -82,8 +80,6 @@ LOSS_RATE_METHODS: dict[LossRateMethod, int] = {
     "annual_loss_rate": WARM,
     "vintage_loss_curve": VINTAGE,
 }
-
-_BLOCK = 256
 
 
 # --------------------------------------------------------------------------------------
@@ -340,88 +336,6 @@ class LossRateResult:
     ead: np.ndarray
 
 
-@numba.njit(cache=jit.CACHE, inline="always")
-def _expected_balance(t, io, balance, x, annuity, pay):
-    return balance if t < io else balance_on_path(balance, x, annuity, pay)
-
-
-@numba.njit(cache=jit.CACHE, nogil=True)  # threads: allowance.jit.in_threads
-def _loop(
-    method, loss_rate, vintage, original_balance, age, default_lgd, code, balance, rate, months_left,
-    io_left, residual, payment, prepay, prepay_offset, in_default, horizon, ead_add, paydown, discount,
-    multiplier, lgd_multiplier, vintage_curve, smm, add_months, add_after, block, first, last, ecl12, ecllife, ead0,
-):
-    n = balance.shape[0]
-    n_fw = multiplier.shape[0]
-    n_sc = multiplier.shape[2]
-    last_age = vintage_curve.shape[1] - 1
-    for b in range(first, last):
-        life = np.empty(n_sc)
-        twelve = np.empty(n_sc)
-        for i in range(b * block, min(n, (b + 1) * block)):
-            c, m, b0, r, io = code[i], method[i], balance[i], rate[i], io_left[i]
-            level = contractual_payment(c, b0, r, months_left[i], io, residual[i], payment[i])
-            off, a = prepay_offset[i], age[i]
-            for f in range(n_fw):
-                p = prepay[f, i]  # a line a framework runs off takes no payoff SMM on top
-                add_m, add_a = add_months[f, i], add_after[f, i]
-                add = ead_add[f, i]
-                ead = b0 + add
-                ead0[i, f] = ead
-                if in_default[f, i] and default_lgd[i] == default_lgd[i]:  # an LGD is stated
-                    for s in range(n_sc):
-                        loss = ead * min(1.0, default_lgd[i] * lgd_multiplier[f, 0, s])
-                        ecl12[i, f, s] = loss
-                        ecllife[i, f, s] = loss
-                    continue
-                h = horizon[f, i] if c == REVOLVING else min(horizon[f, i], months_left[i])
-                growth, pay = path_terms(c, b0, r, level, paydown[f, i])
-                # pool: the lifetime loss L x EAD_0 is spread over the months in proportion to
-                # the expected balance, so a first pass sums the expected balance
-                scale = 0.0
-                if m == POOL:
-                    total = 0.0
-                    x, annuity, kept = 1.0, 0.0, 1.0
-                    for t in range(h):
-                        total += (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else add_a)) * kept
-                        if t >= io:
-                            x *= growth
-                            annuity = annuity * growth + 1.0
-                        kept *= 1.0 - smm[p, off + t]
-                    scale = loss_rate[i] * ead / total if total > 0.0 else 0.0
-                elif m == WARM:
-                    scale = loss_rate[i] / 12.0
-                for s in range(n_sc):
-                    life[s] = 0.0
-                    twelve[s] = 0.0
-                x, annuity, kept, df = 1.0, 0.0, 1.0, 1.0
-                v = discount[f, i]
-                for t in range(h):
-                    df *= v
-                    if m == VINTAGE:
-                        lo = min(a + t, last_age)
-                        hi = min(a + t + 1, last_age)
-                        loss = original_balance[i] * (vintage_curve[vintage[i], hi] - vintage_curve[vintage[i], lo])
-                    else:
-                        loss = scale * (_expected_balance(t, io, b0, x, annuity, pay) + (add if t < add_m else add_a)) * kept
-                        if t >= io:
-                            x *= growth
-                            annuity = annuity * growth + 1.0
-                        kept *= 1.0 - smm[p, off + t]
-                    w = loss * df
-                    for s in range(n_sc):
-                        life[s] += w * multiplier[f, t, s]
-                    if t == 11:
-                        for s in range(n_sc):
-                            twelve[s] = life[s]
-                if h < 12:
-                    for s in range(n_sc):
-                        twelve[s] = life[s]
-                for s in range(n_sc):
-                    ecl12[i, f, s] = twelve[s]
-                    ecllife[i, f, s] = life[s]
-
-
 _FIELDS = [f.name for f in fields(LossRateInputs)]
 _INTEGER = {"method", "vintage", "age", "code", "months_left", "io_left", "prepay", "prepay_offset", "horizon",
             "add_months"}
@@ -479,8 +393,94 @@ def _checked(inputs: LossRateInputs) -> dict[str, np.ndarray]:
     return a
 
 
-def loss_rate_losses(inputs: LossRateInputs) -> LossRateResult:
-    """Run the loss-rate loop over every loan (all cores) and return the per-loan sums.
+def _expected_balances(running, b0, io, growth, pay, add, add_months, add_after, smm, smm_at):
+    """E_t of the loans still running in each month (the first ``running[t]``, longest
+    horizon first): yields (t, how many, E_t)."""
+    x, annuity, kept = np.ones(b0.size), np.zeros(b0.size), np.ones(b0.size)
+    for t, m in enumerate(running.tolist()):
+        path = np.maximum(b0[:m] * x[:m] - pay[:m] * annuity[:m], 0.0)
+        paying = t >= io[:m]
+        exposure = np.where(paying, path, b0[:m]) + np.where(t < add_months[:m], add[:m], add_after[:m])
+        yield t, m, exposure * kept[:m]
+        x[:m] = np.where(paying, x[:m] * growth[:m], x[:m])
+        annuity[:m] = np.where(paying, annuity[:m] * growth[:m] + 1.0, annuity[:m])
+        kept[:m] *= 1.0 - smm.take(smm_at[:m] + t)
+
+
+def _losses_in_arrays(a: dict[str, np.ndarray], ecl12: np.ndarray, ecllife: np.ndarray, ead0: np.ndarray) -> None:
+    r"""The loss-rate loop's sums in numpy: the months one after another, every loan at once.
+
+    The recursion of the compiled loop (:mod:`allowance.loss_rates_compiled`): for each
+    framework, the expected balance :math:`E_t = (B_t + \text{add-on}_t)\prod_{k<t}(1 - smm_k)`
+    (:math:`B_t` the interest-only balance or :func:`~allowance.cashflows.balance_on_path`),
+    the month's loss :math:`\ell_t` of the loan's method (the module notes), and
+    :math:`ECL_s \mathrel{+}= \ell_t\, v^{t+1} m_{s,t}`; a pool loan's scale
+    :math:`L \cdot EAD_0 / \sum_t E_t` takes a first pass over its months. The loans are taken
+    longest horizon first, so each month works on one slice. The same figures as the compiled
+    loop to rounding (``tests/test_loss_rates.py``).
+    """
+    from allowance.cashflows import contractual_payments
+
+    n_fw, _, n_sc = a["multiplier"].shape
+    balance, rate, io_left, method = a["balance"], a["rate"], a["io_left"], a["method"]
+    revolving = a["code"] == REVOLVING
+    level = contractual_payments(a["code"], balance, rate, a["months_left"], io_left, a["residual"], a["payment"])
+    stated = a["default_lgd"] == a["default_lgd"]  # a loan in default with an LGD of its own
+    last_age = a["vintage_curve"].shape[1] - 1
+    for f in range(n_fw):
+        ead = balance + a["ead_add"][f]
+        ead0[:, f] = ead
+        lost = a["in_default"][f] & stated
+        loss = ead[lost, None] * np.minimum(1.0, a["default_lgd"][lost, None] * a["lgd_multiplier"][f, 0, :])
+        ecl12[lost, f, :] = ecllife[lost, f, :] = loss
+        months = np.where(revolving, a["horizon"][f], np.minimum(a["horizon"][f], a["months_left"]))
+        rows = np.flatnonzero(~lost)
+        rows = rows[np.argsort(-months[rows], kind="stable")]
+        if not rows.size:
+            continue
+        months = months[rows]
+        running = rows.size - np.searchsorted(months[::-1], np.arange(int(months[0])), side="right")
+        b0, io = balance[rows], io_left[rows]
+        growth = np.where(revolving[rows], 1.0 - a["paydown"][f][rows], 1.0 + rate[rows])
+        pay = np.where(revolving[rows], 0.0, np.maximum(level[rows], b0 * rate[rows]))
+        add, add_months, add_after = a["ead_add"][f][rows], a["add_months"][f][rows], a["add_after"][f][rows]
+        smm_at = a["prepay"][f][rows] * a["smm"].shape[1] + a["prepay_offset"][rows]
+        terms = (running, b0, io, growth, pay, add, add_months, add_after, a["smm"].ravel(), smm_at)
+        kind = method[rows]
+        scale = np.where(kind == WARM, a["loss_rate"][rows] / 12.0, 0.0)
+        pool = kind == POOL
+        if pool.any():  # the lifetime loss spread over the months in proportion to E_t
+            total = np.zeros(rows.size)
+            for _, m, e in _expected_balances(*terms):
+                total[:m] += e
+            with np.errstate(divide="ignore", invalid="ignore"):
+                spread = np.where(total > 0.0, a["loss_rate"][rows] * ead[rows] / total, 0.0)
+            scale = np.where(pool, spread, scale)
+        vintage = kind == VINTAGE
+        curve = a["vintage_curve"][a["vintage"][rows]] if vintage.any() else None  # [m, A]
+        original, age = a["original_balance"][rows], a["age"][rows]
+        v, multiplier = a["discount"][f][rows], a["multiplier"][f][:, :, None]  # [T, S, 1]
+        df = np.ones(rows.size)
+        life, twelve = np.zeros((n_sc, rows.size)), np.zeros((n_sc, rows.size))
+        for t, m, e in _expected_balances(*terms):
+            month_loss = scale[:m] * e
+            if curve is not None:
+                span = np.arange(m)
+                step = curve[span, np.minimum(age[:m] + t + 1, last_age)] - curve[span, np.minimum(age[:m] + t, last_age)]
+                month_loss = np.where(vintage[:m], original[:m] * step, month_loss)
+            df[:m] *= v[:m]
+            life[:, :m] += (month_loss * df[:m]) * multiplier[t]
+            if t == 11:
+                twelve[:, :m] = life[:, :m]
+        short = months < 12
+        twelve[:, short] = life[:, short]
+        ecl12[rows, f, :], ecllife[rows, f, :] = twelve.T, life.T
+
+
+def loss_rate_losses(inputs: LossRateInputs, loop: str = "compiled") -> LossRateResult:
+    """Run the loss-rate loop over every loan and return the per-loan sums: ``loop="compiled"``
+    on all cores (:mod:`allowance.loss_rates_compiled`), ``loop="arrays"`` in numpy with no
+    compiler loaded (:func:`_losses_in_arrays`), as :func:`allowance.ecl.expected_losses`.
 
     The balance path is the one the PD method's loop walks (the same
     :func:`~allowance.cashflows.contractual_payment`, :func:`~allowance.cashflows.path_terms`
@@ -512,12 +512,17 @@ def loss_rate_losses(inputs: LossRateInputs) -> LossRateResult:
     >>> round(float(loss_rate_losses(k).ecl_lifetime[0, 0, 0]), 6)
     12000.0
     """
+    if loop not in ("compiled", "arrays"):
+        raise ValueError(f"loop must be one of compiled, arrays, not {loop!r}")
     a = _checked(inputs)
     n = a["balance"].shape[0]
     n_fw, _, n_sc = a["multiplier"].shape
     ecl12, ecllife = np.zeros((n, n_fw, n_sc)), np.zeros((n, n_fw, n_sc))
     ead0 = np.zeros((n, n_fw))
-    if n:
-        head = tuple(a[name] for name in _FIELDS)
-        jit.in_threads(lambda first, last: _loop(*head, _BLOCK, first, last, ecl12, ecllife, ead0), n, _BLOCK)
+    if n and loop == "arrays":
+        _losses_in_arrays(a, ecl12, ecllife, ead0)
+    elif n:
+        from allowance import loss_rates_compiled  # numba loads here, and only here
+
+        loss_rates_compiled.fused_losses(tuple(a[name] for name in _FIELDS), ecl12, ecllife, ead0)
     return LossRateResult(ecl12, ecllife, ead0)

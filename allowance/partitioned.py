@@ -311,7 +311,8 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
     if check_tape is not None:
         check_tape(taken, balance)
     accepted = [f for f in facts if f.accepted_rows]
-    prep = engine.prepare(config, max(f.months for f in accepted), max(f.max_age for f in accepted))
+    prep = engine.prepare(config, max(f.months for f in accepted), max(f.max_age for f in accepted),
+                          loans=taken.accepted_rows)  # the book's size chooses the loop, as in one process
     _fresh_folder(folder)
     parts: list[PartSums] = []
     done = 0

@@ -18,7 +18,7 @@ from allowance.curves import (
     undrawn_exposure,
 )
 from allowance.curves.lgd import collateral_recovery, final_lgd
-from allowance.ecl import _loss_given_default
+from allowance.ecl_compiled import _loss_given_default
 
 
 def test_collateral_lgd_worked_example() -> None:

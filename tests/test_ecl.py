@@ -1,8 +1,12 @@
-"""The fused ECL loop against worked examples, a per-loan numpy reference and invariants."""
+"""The ECL sums, compiled and in numpy, against worked examples, a per-loan numpy reference,
+each other, and invariants."""
 
 from __future__ import annotations
 
 import dataclasses
+import subprocess
+import sys
+from pathlib import Path
 
 import numba
 import numpy as np
@@ -11,7 +15,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from allowance import ecl
+from allowance import ecl, ecl_compiled
 from allowance.ecl import PER_FRAMEWORK, KernelInputs, KernelResult, expected_losses
 from tests.strategies import random_kernel_book
 
@@ -38,34 +42,37 @@ def _hazard(pd_12m: float) -> float:
     return 1.0 - (1.0 - pd_12m) ** (1.0 / 12.0)
 
 
-def test_one_period_worked_example():
+@pytest.mark.parametrize("loop", ecl.LOOPS)
+def test_one_period_worked_example(loop):
     # 1,000,000 bullet exposure, 12-month PD 0.5 %, LGD 25 %, no prepayment, undiscounted:
     # 12-month ECL = PD x LGD x EAD = 1,250; gross loss PD x EAD = 5,000 (common practice, no source)
     pd_table = np.full((1, 1, 60, 1), _hazard(0.005))
-    net = expected_losses(_one_loan(pd=pd_table))
+    net = expected_losses(_one_loan(pd=pd_table), loop)
     assert net.ecl_12m[0, 0, 0] == pytest.approx(1_250.0, rel=1e-12)
     assert net.pd_12m[0, 0, 0] == pytest.approx(0.005, rel=1e-12)
     assert net.ead[0, 0] == 1e6 and net.lgd[0, 0] == 0.25
-    gross = expected_losses(_one_loan(pd=pd_table, lgd=np.array([1.0])))
+    gross = expected_losses(_one_loan(pd=pd_table, lgd=np.array([1.0])), loop)
     assert gross.ecl_12m[0, 0, 0] == pytest.approx(5_000.0, rel=1e-12)
     assert net.gross_12m[0, 0, 0] == pytest.approx(5_000.0, rel=1e-12)  # the same, from the loop's gross sum
     # and as one monthly period: PD 0.5 % in the only month
     one_month = _one_loan(pd=np.full((1, 1, 60, 1), 0.005), horizon=np.ones((1, 1), np.int64))
-    assert expected_losses(one_month).ecl_lifetime[0, 0, 0] == pytest.approx(1_250.0, rel=1e-12)
+    assert expected_losses(one_month, loop).ecl_lifetime[0, 0, 0] == pytest.approx(1_250.0, rel=1e-12)
 
 
-def test_defaulted_loan_takes_lgd_times_ead():
+@pytest.mark.parametrize("loop", ecl.LOOPS)
+def test_defaulted_loan_takes_lgd_times_ead(loop):
     k = _one_loan(in_default=np.ones((1, 1), np.bool_), pd=np.full((1, 1, 60, 1), 0.01), ead_add=np.full((1, 1), 5e4))
-    res = expected_losses(k)
+    res = expected_losses(k, loop)
     # PD = 1 now: ECL = LGD x EAD_0 (common practice, no source)
     assert res.ecl_12m[0, 0, 0] == res.ecl_lifetime[0, 0, 0] == pytest.approx(0.25 * 1.05e6)
     assert res.pd_12m[0, 0, 0] == res.pd_lifetime[0, 0, 0] == 1.0
 
 
-def test_discounting_from_the_end_of_the_default_month():
+@pytest.mark.parametrize("loop", ecl.LOOPS)
+def test_discounting_from_the_end_of_the_default_month(loop):
     v = 1 / 1.005
     k = _one_loan(pd=np.full((1, 1, 60, 1), 0.01), horizon=np.full((1, 1), 3, np.int64), discount=np.full((1, 1), v))
-    res = expected_losses(k)
+    res = expected_losses(k, loop)
     # sum over months t = 1..3 of S_{t-1} pd EAD LGD (1 + i)^-t (common practice, no source)
     expected = sum(0.99 ** (t - 1) * 0.01 * 1e6 * 0.25 * v**t for t in (1, 2, 3))
     assert res.ecl_lifetime[0, 0, 0] == pytest.approx(expected, rel=1e-12)
@@ -141,12 +148,13 @@ def reference(k: KernelInputs) -> KernelResult:
     return KernelResult(**out, ead=ead0, lgd=lgd0)
 
 
+@pytest.mark.parametrize("loop", ecl.LOOPS)
 @settings(max_examples=20)
 @given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.integers(1, 6), st.booleans())
-def test_loop_equals_the_numpy_reference(seed, frameworks, scenarios, secured):
+def test_loop_equals_the_numpy_reference(loop, seed, frameworks, scenarios, secured):
     k = random_kernel_book(seed, n=30, frameworks=frameworks, scenarios=scenarios, secured=secured,
                            multipliers=secured)
-    got, want = expected_losses(k), reference(k)
+    got, want = expected_losses(k, loop), reference(k)
     for name in ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime", "ead", "lgd", "gross_12m", "gross_lifetime"):
         np.testing.assert_allclose(getattr(got, name), getattr(want, name), rtol=1e-9, atol=1e-6, err_msg=name)
 
@@ -155,6 +163,41 @@ def test_many_scenarios_use_every_lane():
     """More scenarios than the loop carries at once (4): each group lands in its own column."""
     k = random_kernel_book(7, n=25, frameworks=1, scenarios=9, secured=False, multipliers=True)
     np.testing.assert_allclose(expected_losses(k).ecl_lifetime, reference(k).ecl_lifetime, rtol=1e-9, atol=1e-6)
+
+
+_SUMS = ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime", "ead", "lgd", "gross_12m", "gross_lifetime")
+
+
+@settings(max_examples=40)
+@given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.integers(1, 9), st.booleans(), st.booleans())
+def test_the_numpy_sums_equal_the_compiled_loop(seed, frameworks, scenarios, secured, multipliers):
+    """The two ways agree on what the reference does not cover too: a loan's own PD level
+    (pd_scale, capped at PD 1), an add-on for the first months only and another after them."""
+    k = random_kernel_book(seed, n=60, frameworks=frameworks, scenarios=scenarios, secured=secured,
+                           multipliers=multipliers)
+    rng = np.random.default_rng(seed)
+    n = len(k.balance)
+    k = dataclasses.replace(
+        k, pd_scale=np.where(rng.random(n) < 0.5, 1.0, rng.uniform(0.0, 60.0, n)),
+        add_months=rng.integers(0, 30, (frameworks, n)), add_after=np.where(rng.random((frameworks, n)) < 0.5, 0.0,
+                                                                            rng.uniform(0.0, 500.0, (frameworks, n))))
+    compiled, arrays = expected_losses(k, "compiled"), expected_losses(k, "arrays")
+    for name in _SUMS:
+        np.testing.assert_allclose(getattr(arrays, name), getattr(compiled, name), rtol=1e-12, atol=1e-9, err_msg=name)
+
+
+def test_the_numpy_sums_load_no_compiler():
+    code = ("import sys\nfrom tests.strategies import random_kernel_book\nfrom allowance.ecl import expected_losses\n"
+            "r = expected_losses(random_kernel_book(3), 'arrays')\nprint(r.ecl_lifetime.sum() > 0, 'numba' in sys.modules)")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120,
+                          cwd=Path(__file__).parents[1])
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["True", "False"]
+
+
+def test_an_unknown_loop_is_refused():
+    with pytest.raises(ValueError, match="loop must be one of compiled, arrays"):
+        expected_losses(_one_loan(), "fast")
 
 
 # --------------------------------------------------------------------------------------
@@ -236,7 +279,7 @@ def test_read_only_and_writable_inputs_share_one_compiled_loop():
     a, b = expected_losses(writable), expected_losses(frozen)
     np.testing.assert_array_equal(a.ecl_lifetime, b.ecl_lifetime)
     assert a.ecl_lifetime.sum() > 0
-    arrays = [t for sig in ecl._kernel.signatures for t in sig if isinstance(t, numba.types.Array)]
+    arrays = [t for sig in ecl_compiled._kernel.signatures for t in sig if isinstance(t, numba.types.Array)]
     assert arrays and all(t.mutable for t in arrays)
     assert not frozen.balance.flags.writeable  # the caller's array is left as it was
 

@@ -23,11 +23,11 @@ LAYERS: list[tuple[str, ...]] = [
     ("schemas",),  # the contracts: tape, assumptions, run configuration, run record
     ("links", "discounting", "cashflows", "shortfall"),  # maths with no other concept beneath it
     # term structures, stages, POCI, macro links and their fit, individually measured loans
-    ("macro", "satellite_fit", "curves", "staging", "poci", "loss_rates", "individual"),
+    ("macro", "satellite_fit", "curves", "staging", "poci", "loss_rates", "loss_rates_compiled", "individual"),
     ("scenarios",),  # scenario paths over the term structures
     ("frameworks",),  # what differs between IFRS 9 and CECL
     ("intake",),  # the reading edge: files into contracts, validated
-    ("ecl", "overlays", "backtest", "calibrate"),  # the fused loop, adjustments, back-testing, calibration
+    ("ecl", "ecl_compiled", "overlays", "backtest", "calibrate"),  # the ECL sums (numpy, compiled), adjustments, back-testing, calibration
     ("engine",),  # chunks of loans through the loop
     ("cluster",),  # the engine's chunks on a Dask cluster
     ("reconcile", "disclosure"),  # movement, what-if, sensitivities between runs; disclosure tables

@@ -19,16 +19,17 @@ import pytest
 
 import allowance
 from allowance import aside, console, jitable, jitcache
+from tests import books
 
-ECL = Path(os.path.abspath(Path(allowance.__file__).with_name("ecl.py")))
+ECL = Path(os.path.abspath(Path(allowance.__file__).with_name("ecl_compiled.py")))
 TAG = f"py{sys.version_info.major}{sys.version_info.minor}"
 
 
 def _index(folder: Path, age: float) -> Path:
-    """A stand-in for numba's index of the loop, ``age`` seconds older than ecl.py (negative: newer)."""
+    """A stand-in for numba's index of the loop, ``age`` seconds older than ecl_compiled.py (negative: newer)."""
     sub = folder / f"{ECL.parent.name}_{hashlib.sha1(str(ECL.parent).encode()).hexdigest()}"
     sub.mkdir(parents=True)
-    index = sub / f"ecl._kernel-999.{TAG}.nbi"
+    index = sub / f"ecl_compiled._kernel-999.{TAG}.nbi"
     index.write_bytes(b"")
     stamp = ECL.stat().st_mtime - age
     os.utime(index, (stamp, stamp))
@@ -51,7 +52,7 @@ def test_an_index_older_than_the_source_is_stale_and_a_newer_one_is_not(tmp_path
 
 def test_another_python_s_index_is_not_this_one_s(tmp_path):
     index = _index(tmp_path, age=-60.0)
-    index.rename(index.with_name("ecl._kernel-999.py27.nbi"))
+    index.rename(index.with_name("ecl_compiled._kernel-999.py27.nbi"))
     assert not jitcache.loop_cached(tmp_path)
 
 
@@ -71,7 +72,7 @@ def test_the_loop_compiled_ahead_is_loaded_by_the_next_process_not_compiled_agai
     again = _child("from allowance import jitcache\nprint(jitcache.compile_ahead())", cache)
     assert again.stdout.split() == ["False"], again.stderr
     # numba's own record: the loop was a cache hit, with no compile, in the next process
-    used = _child("import sys\nimport allowance.ecl as e\nassert 'pandas' not in sys.modules\ne.compile_loop()\ns = e._kernel.stats\n"
+    used = _child("import sys\nimport allowance.ecl as e\nassert 'pandas' not in sys.modules\ne.compile_loop()\nimport allowance.ecl_compiled as c\ns = c._kernel.stats\n"
                   "print(sum(s.cache_hits.values()), sum(s.cache_misses.values()))", cache)
     assert used.returncode == 0, used.stderr
     assert used.stdout.split() == ["1", "0"]
@@ -93,8 +94,13 @@ def test_waiting_with_nothing_started_returns_at_once():
     assert time.perf_counter() - t < 1.0
 
 
-@pytest.mark.parametrize(("args", "ahead"), [(["demo", "--help"], True), (["run", "--help"], True),
-                                              (["backtest", "--help"], True), (["check", "--help"], False),
+def _lines(path: Path, rows: int) -> Path:
+    path.write_text("loan_id,balance\n" + "".join(f"L{i:07d},100\n" for i in range(rows)))
+    return path
+
+
+@pytest.mark.parametrize(("args", "ahead"), [(["demo", "--help"], False), (["run", "--help"], True),
+                                              (["backtest", "--help"], False), (["check", "--help"], False),
                                               (["compare", "--help"], False), (["version"], False)])
 def test_the_command_line_compiles_ahead_for_the_commands_that_run_the_loop(monkeypatch, capsys, args, ahead):
     asked = []
@@ -107,3 +113,33 @@ def test_the_command_line_compiles_ahead_for_the_commands_that_run_the_loop(monk
         console.main()
     assert done.value.code in (0, None)
     assert asked == ([True] if ahead else [])
+
+
+def test_a_tape_within_the_numpy_bound_is_not_compiled_for_ahead(monkeypatch, tmp_path):
+    # the demo's 10,022 loans are computed in numpy (allowance.engine.tables.choose_loop): no
+    # second process compiles a loop the run will not load; a larger tape, or one whose size
+    # cannot be told, still gets one
+    assert not console._large_book([str(books.DEMO_TAPE)])
+    assert console._large_book([str(_lines(tmp_path / "big.csv", jitcache.ARRAYS_UP_TO + 1000))])
+    assert console._large_book([str(tmp_path / "missing.csv")]) and console._large_book([])
+    asked = []
+    monkeypatch.setattr(jitcache, "compile_ahead", lambda: asked.append(True) or False)
+    monkeypatch.setattr(jitable, "COMMAND_LINE", jitable.COMMAND_LINE)
+    monkeypatch.setattr(aside, "ALLOWED", aside.ALLOWED)
+    monkeypatch.setattr(sys, "argv", ["allowance", "run", str(books.DEMO_TAPE), "--help"])
+    with pytest.raises(SystemExit):
+        console.main()
+    assert asked == []
+
+
+def test_the_loans_of_a_tape_are_counted_or_estimated_cheaply(tmp_path):
+    assert jitcache.tape_loans(_lines(tmp_path / "small.csv", 1234)) == 1234  # read whole: exact
+    big = jitcache.tape_loans(_lines(tmp_path / "big.csv", 200_000))  # 2.6 MB: estimated from its first 256 KiB
+    assert abs(big - 200_000) < 0.02 * 200_000
+    demo = jitcache.tape_loans(books.DEMO_TAPE)
+    assert abs(demo - 10_022) < 0.1 * 10_022, demo  # its first rows run a little longer than the rest
+    pa, pq = pytest.importorskip("pyarrow"), pytest.importorskip("pyarrow.parquet")
+    pq.write_table(pa.table({"loan_id": [f"L{i}" for i in range(777)]}), tmp_path / "t.parquet")
+    assert jitcache.tape_loans(tmp_path / "t.parquet") == 777  # the footer's row count
+    (tmp_path / "empty.csv").write_bytes(b"")
+    assert jitcache.tape_loans(tmp_path / "empty.csv") is None and jitcache.tape_loans(tmp_path) is None

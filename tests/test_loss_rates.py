@@ -223,11 +223,12 @@ def reference(k: LossRateInputs):
     return ecl12, life
 
 
+@pytest.mark.parametrize("loop", ["compiled", "arrays"])
 @settings(max_examples=20, deadline=None, derandomize=True)
 @given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.integers(1, 5))
-def test_loop_equals_the_numpy_reference(seed, frameworks, n_scenarios):
+def test_loop_equals_the_numpy_reference(loop, seed, frameworks, n_scenarios):
     k = random_loss_rate_book(seed, n=30, frameworks=frameworks, scenarios=n_scenarios)
-    got = loss_rate_losses(k)
+    got = loss_rate_losses(k, loop)
     ecl12, life = reference(k)
     np.testing.assert_allclose(got.ecl_lifetime, life, rtol=1e-9, atol=1e-6)
     np.testing.assert_allclose(got.ecl_12m, ecl12, rtol=1e-9, atol=1e-6)
@@ -301,3 +302,30 @@ def test_bad_inputs_are_refused():
         loss_rate_losses(dataclasses.replace(k, loss_rate=np.full(5, np.nan)))
     with pytest.raises(ValueError, match="method code"):
         loss_rate_losses(dataclasses.replace(k, method=np.full(5, 7)))
+
+
+def test_the_compiled_loop_reads_the_same_method_codes():
+    from allowance import loss_rates, loss_rates_compiled
+
+    assert (loss_rates_compiled.POOL, loss_rates_compiled.WARM, loss_rates_compiled.VINTAGE) == (
+        loss_rates.POOL, loss_rates.WARM, loss_rates.VINTAGE)
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.integers(1, 6), st.booleans())
+def test_the_numpy_sums_equal_the_compiled_loop(seed, frameworks, n_scenarios, add_on_months):
+    # and where the reference does not go: an add-on for the first months only, another after them
+    k = random_loss_rate_book(seed, n=50, frameworks=frameworks, scenarios=n_scenarios)
+    if add_on_months:
+        rng = np.random.default_rng(seed)
+        n = len(k.balance)
+        k = dataclasses.replace(k, add_months=rng.integers(0, 30, (frameworks, n)),
+                                add_after=rng.uniform(0.0, 300.0, (frameworks, n)))
+    compiled, arrays = loss_rate_losses(k, "compiled"), loss_rate_losses(k, "arrays")
+    for name in ("ecl_12m", "ecl_lifetime", "ead"):
+        np.testing.assert_allclose(getattr(arrays, name), getattr(compiled, name), rtol=1e-12, atol=1e-9, err_msg=name)
+
+
+def test_an_unknown_loop_is_refused():
+    with pytest.raises(ValueError, match="loop must be one of compiled, arrays"):
+        loss_rate_losses(random_loss_rate_book(1, n=2), "fast")

@@ -15,7 +15,7 @@ roll_rates      delinquency buckets, bucket_index, validate_matrix, matrix_term_
 roll_forecast   bucket_balances, roll_forecast, roll_forecast_check, segment_roll_forecasts
                 (the balance roll-rate forecast)
 lgd             collateral_lgd, recovery_discount_factor, effective_lgd, loss_given_default,
-                undrawn_exposure, revolving_ead
+                loss_given_default_array, undrawn_exposure, revolving_ead
 ead             accrued_exposure, ccf_buckets, ccf_by_days_past_due (the CCF by delinquency bucket)
 """
 
@@ -44,6 +44,7 @@ _WHERE = {
     "hazard_from_pd_12m": "pd_sources",
     "loan_pd_scale": "term_structure",
     "loss_given_default": "lgd",
+    "loss_given_default_array": "lgd",
     "marginal_by_age": "pd_sources",
     "marginal_from_curve": "pd_sources",
     "matrix_term_structure": "roll_rates",
@@ -97,6 +98,7 @@ __all__ = [
     "expected_states",
     "hazard_from_pd_12m",
     "loss_given_default",
+    "loss_given_default_array",
     "marginal_by_age",
     "marginal_from_curve",
     "matrix_term_structure",

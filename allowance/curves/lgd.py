@@ -17,6 +17,7 @@ recovery_discount_factor   present value factor of a recovery months after defau
 effective_lgd              LGD after cures
 loss_given_default         a loan's LGD in one month and scenario: flat or collateral, cures,
                            the scenario's LGD multiplier (what the ECL loop calls)
+loss_given_default_array   the same for arrays of loans and scenarios (the loop's numpy form)
 undrawn_exposure           the CCF share of the undrawn limit (the EAD add-on of a line)
 revolving_ead              drawn balance plus the CCF share of the undrawn limit
 """
@@ -261,6 +262,26 @@ def loss_given_default(ead, flat_lgd, collateral, collateral_index, haircut, rec
         value = collateral * collateral_index
         return collateral_lgd(ead, value, haircut, recovery_cost, floor, recovery_discount, cure_rate, multiplier)
     return min(1.0, flat_lgd * multiplier)
+
+
+def loss_given_default_array(ead, flat_lgd, collateral, collateral_index, haircut, recovery_cost, floor,
+                             recovery_discount, cure_rate, multiplier):
+    r""":func:`loss_given_default` of many loans (and scenarios) at once: numpy arrays that broadcast.
+
+    The same two branches, chosen per element: :func:`collateral_lgd` where ``collateral > 0``,
+    else :math:`\min(1, m \cdot LGD_{flat})`.
+
+    Examples
+    --------
+    The two loans of :func:`loss_given_default`'s examples side by side:
+
+    >>> loss_given_default_array(np.array([100_000.0, 100_000.0]), 0.36, np.array([120_000.0, 0.0]), 1.0, 0.25,
+    ...                          0.1, 0.05, 1.0, 0.1, 1.0).round(6).tolist()
+    [0.171, 0.36]
+    """
+    secured = collateral_lgd(ead, collateral * collateral_index, haircut, recovery_cost, floor, recovery_discount,
+                             cure_rate, multiplier)
+    return np.where(collateral > 0.0, secured, np.minimum(1.0, flat_lgd * multiplier))
 
 
 @jitable

@@ -171,6 +171,10 @@ def two_at_a_time(work: Callable[[pd.DataFrame], ChunkResult], chunks: Iterable[
     threads freed is handed back as each is taken (:func:`allowance.memory.give_back`): the
     C heap keeps a thread's freed blocks, which would otherwise add up over the chunks.
     """
+    chunks = list(chunks)
+    if len(chunks) <= 1:  # nothing to run beside it (a small book: numba need not even load)
+        yield from builtins.map(work, chunks)
+        return
     import numba
 
     threads = numba.get_num_threads()  # the caller's setting (numba's is per thread), in both threads
@@ -216,6 +220,7 @@ def run(
     progress: Progress | None = None,
     reweighted: Iterable[RunConfig] = (),
     alone: Iterable[str] = (),
+    loop: str | None = None,
 ) -> EngineResult:
     """Compute the allowance for an accepted tape.
 
@@ -253,6 +258,10 @@ def run(
         weights, and a POCI loan's benchmark is weighted again (IFRS 9 5.5.17(a), B5.5.42,
         5.5.13; ASC 326-20-30-9). Each equals ``run(tape, single_scenario(config, name))``'s
         columns to the cent (:func:`allowance.reconcile.single_scenario`).
+    loop : {"arrays", "compiled"}, optional
+        How the ECL sums are computed (:func:`~allowance.engine.tables.choose_loop`): None
+        (the default) chooses by the book's size, numpy for a small book and the compiled
+        loop for a large one; the two give the same figures to rounding.
 
     Notes
     -----
@@ -261,7 +270,7 @@ def run(
     is rounded as it comes back; overlays and summaries are book-wide and run after the map.
     """
     give_back()  # what reading the tape freed, before the book's arrays are made
-    prep = prepare(config, tape_months(tape, config), max_age(tape, config))
+    prep = prepare(config, tape_months(tape, config), max_age(tape, config), loans=len(tape), loop=loop)
     others = tuple(reweighted)
     for other in others:
         if not only_weights_differ(config, other):
@@ -377,7 +386,7 @@ def _modelled_part(part: tuple[pd.DataFrame, pd.DataFrame | None], prep: Prepare
 
 
 def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int | None = None, map: Map | None = None,
-             stages_from: tuple[RunConfig, pd.DataFrame] | None = None) -> pd.DataFrame:
+             stages_from: tuple[RunConfig, pd.DataFrame] | None = None, loop: str | None = None) -> pd.DataFrame:
     """Each loan's modelled ECL per framework, rounded to cents: ``loan_id,
     ecl_<framework>_modelled`` in tape order, the figures :func:`run` gives those columns.
 
@@ -388,14 +397,14 @@ def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int | None = 
     this tape under it gave; where it stages alike (:func:`same_stages`), the stages are
     taken from those loans instead of being assigned again. ``map`` and ``chunk_size`` as for
     :func:`run` (no map: two chunks of :data:`MODELLED_CHUNK_SIZE` loans at a time in this
-    process, :func:`two_at_a_time`).
+    process, :func:`two_at_a_time`); ``loop`` as for :func:`run` (by the book's size).
     """
     if map is None:
         # half the first pass's chunks: this pass runs while that pass's loan results (and the
         # prior run's) are held, so two chunks in flight of 62,500 loans, not of 125,000
         map, chunk_size = two_at_a_time, chunk_size or MODELLED_CHUNK_SIZE
     chunk_size = chunk_size or CHUNK_SIZE
-    prep = prepare(config, tape_months(tape, config), max_age(tape, config))
+    prep = prepare(config, tape_months(tape, config), max_age(tape, config), loans=len(tape), loop=loop)
     # what the whole-tape steps above freed stays in this thread's heap, where the chunk threads
     # cannot reuse it: handed back before they make their own (a million loans: some 90 MB)
     give_back()

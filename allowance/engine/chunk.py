@@ -475,7 +475,7 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     scale = _pd_scale(prep, terms.curve[rows], _number(chunk, "pd_12m_at_origination")[rows])
     defaulted = fw.in_default[:, rows] & bought[None, :]
     lifetime = fw.horizon[:, rows].copy()  # the life (a line's run-off where a framework runs it off)
-    r = expected_losses(_subset(inputs, rows, in_default=defaulted, horizon=lifetime, pd_scale=scale))
+    r = expected_losses(_subset(inputs, rows, in_default=defaulted, horizon=lifetime, pd_scale=scale), prep.loop)
 
     age = terms.age[rows]
     code = terms.code[rows]
@@ -502,7 +502,7 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
         io_left=io_left.astype(np.int64), curve=curve, prepay_offset=np.zeros(rows.size, dtype=np.int64),
         in_default=defaulted, horizon=np.where(revolving[None, :], fw.horizon[:, rows], months[None, :]),
         ead_add=fw.ead_add[:, rows], pd_scale=scale,
-    ))
+    ), prep.loop)
     e0 = _number(chunk, "lifetime_ecl_at_purchase")[rows]
     in_period = np.zeros(n, dtype=bool)
     in_period[rows] = bought
@@ -761,7 +761,7 @@ def _losses(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs,
     """The loop's per-scenario losses for a chunk (loss-rate segments through their own loop),
     and the POCI loans' purchase views under each of ``weights``."""
     terms, fw = c.terms, c.frameworks
-    k = expected_losses(c.kernel)
+    k = expected_losses(c.kernel, prep.loop)
     purchases = _purchase_views(chunk, terms, fw, c.kernel, prep, weights) or (None,) * len(weights)
     # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
     for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
@@ -904,7 +904,7 @@ def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, stage: np.n
         return _DrawnOnly(rows, np.zeros((0, n_fw, n_sc)), np.zeros((0, n_fw, n_sc)))
     drawn_add = fw.ead_add - fw.undrawn_add
     d = expected_losses(_subset(c.kernel, rows, ead_add=drawn_add[:, rows],
-                                horizon=_drawn_horizon(prep, c, rows, stage, poci_flag)))
+                                horizon=_drawn_horizon(prep, c, rows, stage, poci_flag)), prep.loop)
     ecl_12m, ecl_lifetime = d.ecl_12m, d.ecl_lifetime
     lines = chunk["segment"].iloc[rows].to_numpy()  # these loans' only
     if prep.loss_rates is not None and np.isin(lines, list(prep.loss_rates.method)).any():
@@ -944,7 +944,7 @@ def _loss_rate_loans(chunk: pd.DataFrame, prep: Prepared, terms: LoanTerms, fw: 
             multiplier=tables.multiplier[name], lgd_multiplier=prep.lgd_multiplier, vintage_curve=tables.curve,
             smm=prep.smm, add_months=fw.add_months[:, rows], add_after=(fw.ead_add - fw.undrawn_add)[:, rows],
         )
-        parts.append((rows, loss_rates.loss_rate_losses(inputs)))
+        parts.append((rows, loss_rates.loss_rate_losses(inputs, prep.loop)))
     return parts or None
 
 

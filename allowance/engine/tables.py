@@ -18,6 +18,8 @@ import numpy as np
 import pandas as pd
 
 from allowance import cashflows, curves, loss_rates, scenarios, staging
+from allowance.ecl import LOOPS
+from allowance.jitcache import ARRAYS_UP_TO
 from allowance.exceptions import AssumptionsError
 from allowance.frameworks import FrameworkRules, Runoff, rules_for
 from allowance.schemas import MAX_MONTHS, OFF_BALANCE_FACILITIES, Framework, RunConfig, SegmentAssumptions
@@ -120,6 +122,10 @@ class Prepared:
     #: the row of ``smm`` that holds zeros: a line whose balance runs off at its payment rate
     #: takes it (the payment rate already holds the lines paid off: not counted twice)
     no_prepayment_row: int = 0
+    #: how the ECL sums are computed (:func:`allowance.ecl.expected_losses`): ``"compiled"``
+    #: (the compiled loop) or ``"arrays"`` (numpy, no compile): the same figures to rounding;
+    #: chosen once for the book (:func:`choose_loop`), so every chunk and pass of it agrees
+    loop: str = "compiled"
 
     @property
     def staged(self) -> FrameworkRules | None:
@@ -323,8 +329,27 @@ def _prepayment_row(seg: SegmentAssumptions, length: int) -> np.ndarray:
     return cashflows.smm_from_cpr(cpr)
 
 
-def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
-    """Build the term structures, prepayment curves and scenario paths for a book."""
+def choose_loop(loans: int | None, loop: str | None = None) -> str:
+    """How a book's ECL sums are computed: ``loop`` when given, else ``"arrays"`` for a book
+    of at most :data:`~allowance.jitcache.ARRAYS_UP_TO` loans and ``"compiled"`` for a larger
+    one (or an unknown size).
+
+    Loading the compiled loop costs a process 0.7-0.9 s (numba's import and its typing
+    context), and compiling it the first time 3-4 s; numpy needs neither and computes a
+    small book in a fraction of that (``tests/bench/bench_engine.py`` measures both). The two
+    give the same figures to rounding (``tests/test_ecl.py``).
+    """
+    if loop is not None:
+        if loop not in LOOPS:
+            raise ValueError(f"loop must be one of {', '.join(LOOPS)}, not {loop!r}")
+        return loop
+    return "arrays" if loans is not None and loans <= ARRAYS_UP_TO else "compiled"
+
+
+def prepare(config: RunConfig, months: int, max_age: int, *, loans: int | None = None,
+            loop: str | None = None) -> Prepared:
+    """Build the term structures, prepayment curves and scenario paths for a book of ``loans``
+    loans (how its sums are computed: :func:`choose_loop`)."""
     a = config.assumptions
     frameworks = tuple(a.run.frameworks)
     structures, key_offset, bases, key_smm = {}, {}, [], []
@@ -401,5 +426,5 @@ def prepare(config: RunConfig, months: int, max_age: int) -> Prepared:
         prepay_row=prepay_row,
         pd=pd_table, smm=smm, lgd_multiplier=lgd_mult, collateral_index=coll_idx, tables=tables,
         pd_first_year=pd_first_year, loss_rates=_loss_rate_tables(config, months, max_age, tables, structures, key_offset),
-        probation_key=probation_key, no_prepayment_row=no_prepayment_row,
+        probation_key=probation_key, no_prepayment_row=no_prepayment_row, loop=choose_loop(loans, loop),
     )
