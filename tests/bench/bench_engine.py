@@ -51,7 +51,7 @@ sys.path.insert(0, str(ROOT))
 import numba  # noqa: E402
 
 import allowance.engine.chunk as engine_chunk  # noqa: E402
-from allowance import cashflows, ecl, engine  # noqa: E402
+from allowance import cashflows, ecl, engine, jitcache  # noqa: E402
 from allowance.schemas import OPTIONAL_COLUMNS, Assumptions, LoanRecord, RunConfig  # noqa: E402
 
 AS_OF = "2026-09-30"
@@ -117,7 +117,7 @@ def kernel_inputs(book: pd.DataFrame, cfg: RunConfig) -> list[ecl.KernelInputs]:
     prep = engine.prepare(cfg, months, max_age)
     captured = []
 
-    def capture(inputs):
+    def capture(inputs, loop="compiled"):
         captured.append(inputs)
         n, f, s = len(inputs.balance), inputs.pd.shape[0], inputs.pd.shape[3]
         z = np.zeros((n, f, s))
@@ -262,7 +262,24 @@ def main() -> None:
         cold = fresh_process_first_call(cache)
         cached = fresh_process_first_call(cache)
     print(f"fresh process, empty numba cache (compile): first call {cold:.2f} s; "
-          f"fresh process, cache filled: first call {cached:.3f} s")
+          f"fresh process, cache filled: first call {cached:.3f} s (numba's import and the loop's load)")
+
+    # the numpy sums (loop="arrays"), which a book of up to jitcache.ARRAYS_UP_TO loans takes:
+    # no compile and no numba, at a cost per loan; where the two costs cross sets the bound
+    few = np.arange(min(10_000, n0))
+    pick = few  # what pick_loans cuts to, now: the first loans of the chunk
+    small = dataclasses.replace(k0, **{f.name: pick_loans(f.name, getattr(k0, f.name))
+                                       for f in dataclasses.fields(ecl.KernelInputs)})
+    timed = {}
+    for loop in ("compiled", "arrays") * 3:
+        t = time.perf_counter()
+        ecl.expected_losses(small, loop)
+        timed[loop] = min(timed.get(loop, np.inf), time.perf_counter() - t)
+    per_loan = (timed["arrays"] - timed["compiled"]) / len(few)
+    print(f"numpy sums (loop='arrays'), both frameworks, {len(few):,} loans: {timed['arrays']:.3f} s against the "
+          f"compiled loop's {timed['compiled']:.3f} s ({timed['arrays'] / timed['compiled']:.1f} x); they cost "
+          f"the same at about {cached / per_loan:,.0f} loans warm, {cold / per_loan:,.0f} on a first run "
+          f"(numpy below jitcache.ARRAYS_UP_TO = {jitcache.ARRAYS_UP_TO:,})")
 
     if args.engine_run:
         t = time.perf_counter()
