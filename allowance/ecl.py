@@ -472,6 +472,7 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
     add, v, interest = float(a["ead_add"][f, i]), float(a["discount"][f, i]), float(a["interest"][f, i])
     p, off, q = int(a["prepay"][f, i]), int(a["prepay_offset"][i]), float(a["refinance_pd"][i])
     add_months, add_after = int(a["add_months"][f, i]), float(a["add_after"][f, i])
+    scale = float(a["pd_scale"][i])
 
     def lgd_at(ead: float, t: int) -> float:
         return loss_given_default(
@@ -500,7 +501,7 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
             annuity = annuity * growth + 1.0
         ead, df = bal + (add if t < add_months else add_after), df * v
         lgd = lgd_at(ead, t)
-        start, marginal = alive, float(a["pd"][f, k, t, s])
+        start, marginal = alive, min(float(a["pd"][f, k, t, s]) * scale, 1.0)  # the loan's own PD level, as the loop
         share = alive * marginal
         alive = (alive - share) * (1.0 - float(a["smm"][p, off + t]))
         if t == maturity:

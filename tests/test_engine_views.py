@@ -89,3 +89,24 @@ def test_average_ranks_are_pandas_ranks_counted_or_sorted():
              rng.integers(0, 100, 2_000).astype(float) + 0.5]
     for values in cases:
         assert _average_ranks(values).tolist() == pd.Series(values).rank().tolist()
+
+
+def test_each_sample_schedule_sums_to_what_the_loan_booked_with_its_own_pd_level():
+    # the demo's auto and personal loans carry their own 12-month PD (pd_12m_current), which
+    # scales their curve row in the loop (ecl.KernelInputs.pd_scale): the schedule a reviewer
+    # checks by hand must read the same PDs, so its ecl column sums to the loan's booked
+    # ecl_<framework>_<scenario> before rounding (to the cent after it)
+    from allowance import api, engine
+    from tests.books import DEMO_ASSUMPTIONS, DEMO_TAPE
+
+    config = api._config(DEMO_ASSUMPTIONS)
+    tape = api._read_tape(api._tape(DEMO_TAPE), config).accepted
+    result = engine.run(tape, config)
+    loans = result.loans.set_index("loan_id")
+    sums = result.schedules.groupby(["loan_id", "framework", "scenario"], sort=False)["ecl"].sum()
+    assert len(sums) >= 12
+    scaled = 0
+    for (loan, fw, scenario), total in sums.items():
+        assert round(total, 2) == loans.loc[loan, f"ecl_{fw}_{scenario}"], (loan, fw, scenario)
+        scaled += tape.loc[tape["loan_id"] == loan, "pd_12m_current"].notna().any()
+    assert scaled >= 2  # the sample holds loans with their own PD (auto, personal)

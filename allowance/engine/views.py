@@ -257,7 +257,8 @@ def _schedule_of(rows: pd.DataFrame, i: int, inputs: ChunkInputs, measured: tupl
         repayment, float(t.balance[i]), float(rows["interest_rate"].iloc[i]), months,
         interest_only_months_left=int(t.io_left[i]), residual=float(t.residual[i]),
         payment=float(t.payment[i]), paydown=paydown, smm=prep.smm[inputs.frameworks.prepay[f, i], cols],
-        marginal_pd=prep.pd[f, inputs.kernel.curve[f, i], :months, scenario],
+        # the loan's own PD level against its curve row, as the loop reads it (ecl.KernelInputs.pd_scale)
+        marginal_pd=np.minimum(prep.pd[f, inputs.kernel.curve[f, i], :months, scenario] * _pd_scale(inputs, i), 1.0),
     )
     stage = inputs.stages["stage"].to_numpy()[i:i + 1] if inputs.stages is not None else np.ones(1, dtype=np.int64)
     horizon = int(prep.rules[f].horizon(stage, inputs.frameworks.horizon[f, i:i + 1])[0])
@@ -275,6 +276,12 @@ def _schedule_of(rows: pd.DataFrame, i: int, inputs: ChunkInputs, measured: tupl
     labels |= {"framework": fw, "scenario": prep.scenario_names[scenario], "month": columns.pop("month"),
                "measurement": measurement}
     return pd.DataFrame(labels | columns)
+
+
+def _pd_scale(inputs: ChunkInputs, i: int) -> float:
+    """The loan's own PD level against its curve row (1 when the loop reads the curve as it is)."""
+    scale = inputs.kernel.pd_scale
+    return 1.0 if scale is None else float(scale[i])
 
 
 def _beside(frame: pd.DataFrame, booked: pd.DataFrame) -> dict[str, np.ndarray]:
