@@ -291,6 +291,7 @@ def run(
     progress: Progress | None = None,
     invocation: Mapping[str, Any] | None = None,
     loans_parquet: str | os.PathLike | None = None,
+    loans_ready: Callable[[pd.DataFrame], object] | None = None,
 ) -> Result:
     """A whole reserve run: read, validate, tie out, compute, explain the movement and the what-if.
 
@@ -343,6 +344,11 @@ def run(
         ``loans`` is then not available (read the folder); ``summary``, ``totals``, the run
         record and the counts are exact. Not with ``prior`` or ``overlays`` (loan by loan
         comparisons), nor an ``amount`` overlay; no sensitivities and no workbook.
+    loans_ready
+        With ``prior``: called with the run's loan frame (``Result.loans``) once it is final,
+        before the movement is made, so that a caller may start writing it meanwhile (the
+        command line begins ``loans.csv``: :class:`allowance.report.files.OutputFolder`).
+        Not called without ``prior``.
 
     Returns
     -------
@@ -475,6 +481,8 @@ def run(
             # nothing after the second pass reads the tape's accepted rows: they go before the
             # movement is made and the outputs are written, read again from the file if asked for
             taken = _read_again_when_asked(taken, source, config)
+        if loans_ready is not None:  # the loans are final: their file may be written beside the movement
+            loans_ready(result.loans)
         movements = reconcile.compare_runs(
             previous.loans, result.loans, charge_offs=cos,
             current_at_prior_assumptions=at_prior,

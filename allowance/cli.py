@@ -376,11 +376,27 @@ def _executor(engine: str, workers: int | None, scheduler: str | None):
     return contextlib.nullcontext(None)
 
 
-def _write(result: Result, out: Path, shown, *, parquet: bool = False) -> tuple[list[Path], list[str]]:
-    """Write a run's outputs; return the files and the swap's notes (leftovers kept, where)."""
+def _early_folder(out: Path, prior: Path | None):
+    """For a run with a movement, its output folder opened before the run is computed
+    (:class:`allowance.report.files.OutputFolder`: locked, ``loans.csv`` begun while the
+    movement is made); otherwise nothing (the folder is written once the run is done)."""
+    if prior is None:
+        return contextlib.nullcontext(None)
+    from allowance.report.files import OutputFolder
+
+    return OutputFolder(out)
+
+
+def _write(result: Result, out, shown, *, parquet: bool = False) -> tuple[list[Path], list[str]]:
+    """Write a run's outputs (into ``out``, a folder path or an open
+    :class:`~allowance.report.files.OutputFolder`); return the files and the swap's notes
+    (leftovers kept, where)."""
     shown("write", 0, 1)
     with _phase("write"):
-        files = result.write(out, parquet=parquet, progress=shown)
+        if isinstance(out, Path):
+            files = result.write(out, parquet=parquet, progress=shown)
+        else:
+            files = out.write(result.report, parquet=parquet, progress=shown)
     return list(files), list(getattr(files, "notes", ()))
 
 
@@ -462,15 +478,16 @@ def run(
     _check_out(out, tape, assumptions, *(overlay or ()), charge_offs, prior / "loans.csv" if prior else None)
     started = time.perf_counter()
     try:
-        with _out.display() as shown:
+        with _out.display() as shown, _early_folder(out, prior) as folder:
             with _phase("compute"), _executor(engine, workers, scheduler) as chunk_map:
                 result = api.run(
                     tape, assumptions, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
                     ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,
                     label=label, sensitivities=sensitivities, map=chunk_map, chunk_size=chunk_size,
                     progress=shown, invocation=_invocation(ctx), loans_parquet=loans_parquet,
+                    loans_ready=None if folder is None else folder.begin_loans,
                 )
-            files, notes = _write(result, out, shown, parquet=parquet)
+            files, notes = _write(result, folder or out, shown, parquet=parquet)
     except AllowanceError as err:
         _fail(err)
     _print_summary(result, out, time.perf_counter() - started, files, notes)

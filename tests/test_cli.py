@@ -375,3 +375,20 @@ def test_the_command_line_loads_numba_without_scipy_linalg_and_a_library_process
         lines = done.stdout.split("\n")
         assert lines[0] == expected, (flag, done.stdout)
         assert lines[1] == "6.0"  # det of diag(2, 3): once loaded, scipy.linalg is whole
+
+
+@pytest.mark.slow
+def test_run_with_a_prior_writes_the_same_loan_detail_begun_while_the_movement_is_made(tmp_path):
+    # run --prior opens its output folder first and begins loans.csv once the loans are final,
+    # beside the movement (allowance.report.files.OutputFolder): the file is the one a run
+    # without a movement writes, byte for byte, and nothing is left beside the folder
+    prior = tmp_path / "q2"
+    q2 = DEMO / MANIFEST["prior"]["tape"], DEMO / MANIFEST["prior"]["assumptions"]
+    assert invoke("run", q2[0], "-a", q2[1], "--out", prior, "--no-sensitivities", "--quiet").exit_code == 0
+    moved, plain = tmp_path / "moved", tmp_path / "plain"
+    done = invoke("run", TAPE, "-a", ASSUMPTIONS, "--prior", prior, "--out", moved, "--no-sensitivities", "--quiet")
+    assert done.exit_code == 0, done.output
+    assert invoke("run", TAPE, "-a", ASSUMPTIONS, "--out", plain, "--no-sensitivities", "--quiet").exit_code == 0
+    assert (moved / "loans.csv").read_bytes() == (plain / "loans.csv").read_bytes()
+    assert (moved / "movement.csv").exists() and (moved / "movement_loans.csv").exists()
+    assert not [p.name for p in tmp_path.iterdir() if p.name.startswith(".")]  # no partial folder, no lock

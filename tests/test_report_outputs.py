@@ -189,3 +189,65 @@ def test_a_long_table_is_written_slice_by_slice_to_the_same_bytes(tmp_path, monk
     whole = (tmp_path / "whole.csv").read_bytes()
     assert (tmp_path / "sliced.csv").read_bytes() == whole
     assert b"'=cmd" in whole and b"2026-02-03," in whole and b"10:30" in whole
+
+
+# ---- an output folder opened before the run is finished (run --prior) -------------------
+
+
+def _report_with_movement(n: int = 60):
+    loans = example_loans(n, seed=5)
+    return example_report(loans=loans, movement=compare_runs(example_loans(n, seed=6), loans))
+
+
+def test_an_output_folder_opened_early_writes_what_write_outputs_writes(tmp_path):
+    report = _report_with_movement()
+    once = write_outputs(tmp_path / "once", report)
+    with files.OutputFolder(tmp_path / "early") as folder:
+        assert not (tmp_path / "early").exists()  # nothing is in place until the swap
+        folder.begin_loans(report.loans)
+        early = folder.write(report)
+    assert [p.name for p in early] == [p.name for p in once]
+    for name in ("loans.csv", "rejected.csv", "warnings.csv", "movement.csv", "movement_loans.csv"):
+        assert (tmp_path / "early" / name).read_bytes() == (tmp_path / "once" / name).read_bytes(), name
+    assert _no_partials(tmp_path)
+
+
+def test_an_early_output_folder_left_unwritten_keeps_the_previous_outputs(tmp_path):
+    out = tmp_path / "out"
+    write_outputs(out, example_report(10))
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    with pytest.raises(RuntimeError, match="the movement failed"):
+        with files.OutputFolder(out) as folder:
+            folder.begin_loans(example_loans(30, seed=3))  # begun, then the run fails
+            raise RuntimeError("the movement failed")
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before and _no_partials(tmp_path)
+
+
+def test_an_early_loans_csv_that_fails_is_reported_when_the_outputs_are_written(tmp_path, monkeypatch):
+    out = tmp_path / "out"
+    write_outputs(out, example_report(10))
+    before = (out / "run.json").read_text()
+    real = files._csv
+
+    def full(frame, path, *args, **kwargs):
+        if path.name == "loans.csv":
+            raise OSError(28, "No space left on device", str(path))
+        return real(frame, path, *args, **kwargs)
+
+    monkeypatch.setattr(files, "_csv", full)
+    report = _report_with_movement()
+    with files.OutputFolder(out) as folder:
+        folder.begin_loans(report.loans)
+        with pytest.raises(OutputError, match="No space left"):
+            folder.write(report)
+    assert (out / "run.json").read_text() == before and _no_partials(tmp_path)
+
+
+def test_a_second_run_on_an_open_output_folder_is_refused_at_once(tmp_path):
+    with files.OutputFolder(tmp_path / "out"):
+        with pytest.raises(OutputError, match="another run is writing"):
+            with files.OutputFolder(tmp_path / "out"):
+                pass
+    with files.OutputFolder(tmp_path / "out"):  # free again once the first is left
+        pass
+    assert _no_partials(tmp_path) and not (tmp_path / "out").exists()

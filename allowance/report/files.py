@@ -5,6 +5,7 @@ Implements
 OUTPUT_FILES       the files a run can write, in the order they are listed
 OutputPaths        the files written, and notes about leftovers that could not be cleaned
 write_outputs      write every output into a sibling folder, then swap it into place
+OutputFolder       the same, opened before the run is finished (loans.csv begun early)
 write_check_outputs  what ``allowance check --out`` writes: rejected.csv and warnings.csv
 check_output_path  refuse an output folder that would overwrite or move an input
 write_table_csv    one table to one CSV file (``allowance schedule --csv``), through a temporary file
@@ -38,7 +39,7 @@ from allowance import aside
 from allowance.memory import give_back, given_back
 from allowance.report.record import RunReport, run_record
 from allowance.report.sheets import warnings_frame
-from allowance.report.swap import replace_folder
+from allowance.report.swap import FolderSwap, replace_folder
 from allowance.report.workbook import write_summary_workbook, write_workbook, write_workbooks
 from allowance.text import neutralise_frame, neutralise_table
 
@@ -104,10 +105,10 @@ def _arrow_schema(frame: pd.DataFrame, dated: list[int]) -> pa.Schema | None:
     return schema
 
 
-def _csv(frame: pd.DataFrame, path: Path) -> None:
+def _csv(frame: pd.DataFrame, path: Path, threads: int = 4) -> None:
     """Text neutralised; written by Arrow (fast) slice by slice, or by pandas for columns Arrow
     cannot type. The bytes do not depend on the slicing (Arrow's writer has no state but the
-    header)."""
+    header) nor on the ``threads`` formatting the slices (at most 4)."""
     dated = _date_columns(frame)
     schema = _arrow_schema(frame, dated)
     if schema is not None:
@@ -117,16 +118,16 @@ def _csv(frame: pd.DataFrame, path: Path) -> None:
             table = pa.Table.from_pandas(_arrow_ready(frame, dated), schema=schema, preserve_index=False)
             table = neutralise_table(table.replace_schema_metadata(None))
             if len(frame) < _COMPILED_FROM_ROWS:
-                _write_slices(path, lambda start: table.slice(start, _CSV_SLICE_ROWS), len(frame))
+                _write_slices(path, lambda start: table.slice(start, _CSV_SLICE_ROWS), len(frame), threads)
                 return
-            _compiled_csv(path, table)
+            _compiled_csv(path, table, threads)
             return
         except _ARROW_ERRORS:  # a column Arrow cannot type after all: pandas writes the whole file
             pass
     neutralise_frame(frame).to_csv(path, index=False, lineterminator="\n")
 
 
-def _compiled_csv(path: Path, table: pa.Table) -> None:
+def _compiled_csv(path: Path, table: pa.Table, threads: int = 4) -> None:
     """A large table written slice by slice, each slice's rows formatted by a compiled loop
     (:func:`allowance.report.csv_lines.table_lines`: Arrow's bytes; the amounts in whole cents,
     most of a loan's figures, from their cents rather than Arrow's shortest-float search, which
@@ -141,10 +142,10 @@ def _compiled_csv(path: Path, table: pa.Table) -> None:
         made = table_lines(part)
         return _arrow_text(part, header=False) if made is None else made
 
-    _write_texts(path, text, [None, *range(0, table.num_rows, _CSV_SLICE_ROWS)])
+    _write_texts(path, text, [None, *range(0, table.num_rows, _CSV_SLICE_ROWS)], threads)
 
 
-def _write_slices(path: Path, part: Callable[[int], pa.Table], rows: int) -> None:
+def _write_slices(path: Path, part: Callable[[int], pa.Table], rows: int, threads: int = 4) -> None:
     """Slices ``part(start)`` as CSV text, formatted on up to four threads (Arrow formats
     outside the GIL; a million loans' detail took 4-5 s on one core), written in order, at
     most two slices a thread in memory. The bytes are those of one pass: Arrow's writer
@@ -152,7 +153,7 @@ def _write_slices(path: Path, part: Callable[[int], pa.Table], rows: int) -> Non
     def text(start: int) -> pa.Buffer:
         return _arrow_text(part(start), header=start == 0)
 
-    _write_texts(path, text, list(range(0, max(rows, 1), _CSV_SLICE_ROWS)))
+    _write_texts(path, text, list(range(0, max(rows, 1), _CSV_SLICE_ROWS)), threads)
 
 
 def _arrow_text(table: pa.Table, *, header: bool) -> pa.Buffer:
@@ -161,10 +162,10 @@ def _arrow_text(table: pa.Table, *, header: bool) -> pa.Buffer:
     return sink.getvalue()
 
 
-def _write_texts(path: Path, text: Callable[[object], object], slices: list) -> None:
-    """``text(s)`` of every slice ``s``, made on up to four threads, written in order (at most
-    two slices a thread in memory)."""
-    threads = max(1, min(os.cpu_count() or 1, 4, len(slices)))
+def _write_texts(path: Path, text: Callable[[object], object], slices: list, threads: int = 4) -> None:
+    """``text(s)`` of every slice ``s``, made on up to ``threads`` (at most four) threads,
+    written in order (at most two slices a thread in memory)."""
+    threads = max(1, min(os.cpu_count() or 1, threads, 4, len(slices)))
     with open(path, "wb") as out, ThreadPoolExecutor(threads, thread_name_prefix="allowance-csv") as pool:
         pending = [pool.submit(text, s) for s in slices[: 2 * threads]]
         for following in slices[2 * threads:] + [None] * min(len(slices), 2 * threads):
@@ -356,7 +357,10 @@ def _write_rest(folder: Path, report: RunReport, parquet: bool, done: Callable[[
 
 
 def _write_all(folder: Path, report: RunReport, parquet: bool,
-               progress: Callable[[str, int, int], object] | None = None) -> list[str]:
+               progress: Callable[[str, int, int], object] | None = None,
+               loans: Future | None = None) -> list[str]:
+    """Every output into ``folder``; ``loans``: loans.csv already being written there
+    (:meth:`OutputFolder.begin_loans`), waited for first."""
     written: list[str] = []
     # the bar counts files; the workbooks are most of the time, so they count for more
     weight = {"reserve.xlsx": 6, "summary.xlsx": 2, "loans.csv": 2}
@@ -373,6 +377,10 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
 
     if report.loan_detail is not None:  # the loan detail is in its Parquet folder, written part by part
         return _write_book(folder, report, done, progress, total)
+    if loans is not None:
+        # begun while the run was finished: done before the reserve workbook's process is
+        # forked, since a process forked while a thread writes can inherit a lock it holds
+        loans.result()
     # what computing the run freed goes back to the system before writing takes its own: the
     # peak of a run is in writing, over the tape and the loan frame
     give_back()
@@ -386,7 +394,7 @@ def _write_all(folder: Path, report: RunReport, parquet: bool,
         # other files and the workbooks (Python: one core) are made, so both cores work
         with ThreadPoolExecutor(1, thread_name_prefix="allowance-loans") as detail:
             # its own frame over the same columns: nothing the workbooks do to theirs reaches it
-            loans_csv = detail.submit(given_back, _csv, report.loans.copy(deep=False), folder / "loans.csv")
+            loans_csv = loans or detail.submit(given_back, _csv, report.loans.copy(deep=False), folder / "loans.csv")
             # on an error the block still waits for loans.csv (and movement_loans.csv, queued after it)
             moving = _write_rest(folder, report, parquet, done, detail, reserve=apart is None)
         loans_csv.result()  # its own error, once the rest went through
@@ -458,6 +466,67 @@ def write_movement(out_dir: Path, movements) -> list[Path]:
     except OSError as err:
         raise OutputError(f"cannot be written ({err.strerror or err})", file=out_dir) from err
     return paths
+
+
+class OutputFolder:
+    """A run's output folder opened before the run is finished, so that its loan detail can be
+    written while the rest of the run is computed.
+
+    ``with OutputFolder(out) as folder:`` locks ``out`` and makes the fresh partial folder
+    (:class:`~allowance.report.swap.FolderSwap`); :meth:`begin_loans` starts writing
+    ``loans.csv`` there on a thread of its own once the loan frame is final;
+    :meth:`write` writes the rest as :func:`write_outputs` does and swaps the folder in.
+    Leaving the block without :meth:`write` (an error, Ctrl-C) waits for that thread and
+    discards the partial folder: the previous outputs stay as they were.
+
+    The command line opens one for a run with a movement (``run --prior``), where the
+    second pass and the movement leave a core partly idle that ``loans.csv`` can use.
+    """
+
+    def __init__(self, out_dir: Path) -> None:
+        self.out_dir = Path(out_dir)
+        self._swap = FolderSwap(self.out_dir, OUTPUT_FILES)
+        self._pool: ThreadPoolExecutor | None = None
+        self._loans: Future | None = None
+
+    def __enter__(self) -> OutputFolder:
+        self._swap.open()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        try:
+            self._settle()
+        finally:
+            self._swap.close()
+
+    def _settle(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True)
+            self._pool = None
+
+    def begin_loans(self, loans: pd.DataFrame) -> None:
+        """Start writing ``loans.csv`` from ``loans`` (the run's final loan frame; its own
+        frame over the same columns is written, so nothing done to ``loans`` later reaches it)."""
+        if self._loans is not None or self._swap.partial is None:
+            return
+        self._pool = ThreadPoolExecutor(1, thread_name_prefix="allowance-loans")
+        # two formatting threads, not four: beside the movement (its core partly idle) four
+        # were no faster, and held eight slices in memory with the movement's (a million loans:
+        # the peak 1,341-1,345 MiB against 1,311-1,312 before; two threads 1,337 against 1,326)
+        self._loans = self._pool.submit(given_back, _csv, loans.copy(deep=False), self._swap.partial / "loans.csv", 2)
+
+    def write(self, report: RunReport, *, parquet: bool = False,
+              progress: Callable[[str, int, int], object] | None = None) -> OutputPaths:
+        """Write every other output of ``report`` and swap the folder in; as :func:`write_outputs`."""
+        check_output_path(self.out_dir, [i.path for i in report.config.inputs])
+        loans = self._loans
+        if loans is not None and report.loan_detail is not None:  # pragma: no cover - the CLI never asks
+            raise ValueError("OutputFolder.write: loans.csv was begun for a run whose loans are written part by part")
+        try:
+            names = self._swap.fill(lambda folder: _write_all(folder, report, parquet, progress, loans=loans))
+        finally:
+            self._settle()
+        return OutputPaths([self.out_dir / name for name in names], self._swap.notes)
 
 
 def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False,

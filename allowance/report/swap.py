@@ -3,6 +3,7 @@
 Implements
 ----------
 replace_folder  write a new folder beside the old one and swap them with renames
+FolderSwap      the same in steps: open (lock, partial folder), fill (files, swap), close
 recover         finish off what a killed run left beside an output folder
 FolderLock      one writer per output folder at a time
 
@@ -45,7 +46,7 @@ try:  # POSIX; elsewhere runs are trusted not to write one folder at once
 except ImportError:  # pragma: no cover
     fcntl = None  # type: ignore[assignment]
 
-__all__ = ["FolderLock", "recover", "replace_folder"]
+__all__ = ["FolderLock", "FolderSwap", "recover", "replace_folder"]
 
 _PARTIAL = ".partial-"
 _BACKUP = ".backup-"
@@ -260,6 +261,98 @@ def _cannot(what: str, err: OSError, where: Path, hint: str) -> OutputError:
     return OutputError(f"cannot {what} ({err.strerror or err})", file=err.filename or where, hint=hint)
 
 
+class FolderSwap:
+    """:func:`replace_folder` in three steps, for a caller that starts writing before it knows
+    every file: :meth:`open` (the lock, clean-up, a fresh partial folder), :meth:`fill` (the
+    files, then the swap) and :meth:`close` (the lock released; a folder never filled is
+    discarded). A context manager: ``with FolderSwap(out, owned) as partial: ...``.
+
+    Between :meth:`open` and :meth:`close` the output folder is locked (another run writing
+    it is refused) and the previous outputs are untouched.
+    """
+
+    def __init__(self, out_dir: Path, owned: Collection[str]) -> None:
+        out_dir = Path(out_dir)
+        if out_dir.is_symlink() and out_dir.is_dir():
+            out_dir = out_dir.resolve()
+        self.out_dir = out_dir.absolute()
+        self.owned = owned
+        self.partial: Path | None = None
+        self.notes: list[str] = []
+        self._lock: FolderLock | None = None
+        self._filled = False
+
+    def open(self) -> Path:
+        """Lock the folder, clean up after killed runs, and make the partial folder (returned).
+
+        Raises
+        ------
+        OutputError
+            The folder cannot be created or locked (another run is writing it).
+        """
+        create = "check the path and that you may write there"
+        try:
+            self.out_dir.parent.mkdir(parents=True, exist_ok=True)
+            lock = FolderLock(self.out_dir)
+            lock.acquire()
+        except OSError as err:
+            raise _cannot("create the output folder", err, self.out_dir, create) from err
+        self._lock = lock
+        try:
+            self.notes = recover(self.out_dir, self.owned)
+            self.partial = _make_partial(self.out_dir)
+        except BaseException as err:
+            self.close()
+            if isinstance(err, OSError):
+                raise _cannot("create the output folder", err, self.out_dir, create) from err
+            raise
+        return self.partial
+
+    def fill(self, write: Callable[[Path], object]) -> object:
+        """``write(partial)``, then the swap; returns what ``write`` returned. On any error the
+        partial folder is discarded and the previous outputs are as they were.
+
+        Raises
+        ------
+        OutputError
+            A file cannot be written or the folders cannot be swapped (an :class:`OSError`).
+        """
+        if self.partial is None or self._filled:
+            raise RuntimeError("FolderSwap.fill: open it first, and fill it once")
+        try:
+            done = write(self.partial)
+            self.notes += _swap(self.partial, self.out_dir, self.owned)
+        except BaseException as err:
+            self._discard()
+            if isinstance(err, OSError):
+                raise _cannot("write the outputs", err, self.out_dir,
+                              "check free space and permissions; the previous outputs are unchanged") from err
+            raise
+        self._filled = True
+        return done
+
+    def _discard(self) -> None:
+        if self.partial is not None and not self._filled:
+            if not _discard(self.partial, self.out_dir, self.owned):
+                recover(self.out_dir, self.owned)  # the swap was cut between its two renames: roll it back
+            self.partial = None
+
+    def close(self) -> None:
+        """Discard the partial folder if it was never filled, and release the lock."""
+        try:
+            self._discard()
+        finally:
+            if self._lock is not None:
+                self._lock.release()
+                self._lock = None
+
+    def __enter__(self) -> Path:
+        return self.open()
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
 def replace_folder(out_dir: Path, write: Callable[[Path], object], owned: Collection[str]) -> list[str]:
     """Write a run's files with ``write(folder)`` and put the folder in place of ``out_dir``.
 
@@ -283,33 +376,10 @@ def replace_folder(out_dir: Path, write: Callable[[Path], object], owned: Collec
     OutputError
         The folder cannot be created, written or swapped; the previous outputs are intact.
     """
-    out_dir = Path(out_dir)
-    if out_dir.is_symlink() and out_dir.is_dir():
-        out_dir = out_dir.resolve()
-    out_dir = out_dir.absolute()
-    create = "check the path and that you may write there"
+    swap = FolderSwap(out_dir, owned)
+    swap.open()
     try:
-        out_dir.parent.mkdir(parents=True, exist_ok=True)
-        lock = FolderLock(out_dir)
-        lock.acquire()
-    except OSError as err:
-        raise _cannot("create the output folder", err, out_dir, create) from err
-    try:
-        try:
-            notes = recover(out_dir, owned)
-            partial = _make_partial(out_dir)
-        except OSError as err:
-            raise _cannot("create the output folder", err, out_dir, create) from err
-        try:
-            write(partial)
-            notes += _swap(partial, out_dir, owned)
-        except BaseException as err:
-            if not _discard(partial, out_dir, owned):
-                recover(out_dir, owned)  # the swap was cut between its two renames: roll it back
-            if isinstance(err, OSError):
-                raise _cannot("write the outputs", err, out_dir,
-                              "check free space and permissions; the previous outputs are unchanged") from err
-            raise
-        return notes
+        swap.fill(write)
+        return swap.notes
     finally:
-        lock.release()
+        swap.close()
