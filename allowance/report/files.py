@@ -522,8 +522,15 @@ class OutputFolder:
         loans = self._loans
         if loans is not None and report.loan_detail is not None:  # pragma: no cover - the CLI never asks
             raise ValueError("OutputFolder.write: loans.csv was begun for a run whose loans are written part by part")
+        def write(folder: Path) -> list[str]:
+            try:
+                return _write_all(folder, report, parquet, progress, loans=loans)
+            except BaseException:
+                self._settle()  # the loans thread is done with the folder before it is discarded
+                raise
+
         try:
-            names = self._swap.fill(lambda folder: _write_all(folder, report, parquet, progress, loans=loans))
+            names = self._swap.fill(write)
         finally:
             self._settle()
         return OutputPaths([self.out_dir / name for name in names], self._swap.notes)
