@@ -24,6 +24,8 @@ contractual_payments the same for every loan at once, in numpy
 principal_step       one month's scheduled principal given that payment (the schedule's form)
 path_terms           growth and payment of the closed-form balance path
 balance_on_path      the scheduled balance after t months in closed form (the loop's form)
+path_terms_array     path_terms of many loans at once
+balances_by_month    many loans' scheduled balances month after month (the numpy form of the loop's path)
 balloon_residual     the amount left at maturity of a balloon loan
 months_without_payment  months a delinquent loan pays nothing on its way to its loss event
 runoff_months        months a revolving line's measured balance takes to run off at its payment rate
@@ -380,6 +382,67 @@ def balance_on_path(balance: float, growth_power: float, annuity_factor: float, 
     """
     left = balance * growth_power - payment * annuity_factor
     return left if left > 0.0 else 0.0  # a compare, not max(): one instruction in the loop
+
+
+def path_terms_array(code, balance, rate, level, paydown):
+    """:func:`path_terms` of many loans at once (numpy arrays): growth factors g and payments P.
+
+    Examples
+    --------
+    >>> g, p = path_terms_array(np.array([LEVEL, REVOLVING]), np.array([100_000.0, 1_000.0]),
+    ...                         np.array([0.005, 0.01]), np.array([599.55, 0.0]), np.array([0.0, 0.05]))
+    >>> g.tolist(), p.tolist()
+    ([1.005, 0.95], [599.55, 0.0])
+    """
+    revolving = np.asarray(code) == REVOLVING
+    return (np.where(revolving, 1.0 - paydown, 1.0 + rate),
+            np.where(revolving, 0.0, np.maximum(level, balance * rate)))
+
+
+def balances_by_month(balance, growth, payment, io_left, months):
+    r"""Many loans' scheduled balances, month after month, each for as long as it runs.
+
+    The loans come longest first (``months`` not increasing), so the loans still running in
+    month t (from 0) are the first m: yields ``(t, m, B_t)`` with :math:`B_t` the opening
+    balance of each of them, ``balance`` while interest-only months last (``io_left``), then
+    :func:`balance_on_path`'s :math:`\max(B x - P s, 0)`, its :math:`x = g^j` and
+    :math:`s = \sum_{i<j} g^i` carried month to month as the compiled loop carries them
+    (g and P from :func:`path_terms_array`). The numpy form of the loop's balance path, for
+    the ECL and loss-rate sums of a small book (:mod:`allowance.ecl`, :mod:`allowance.loss_rates`).
+
+    Examples
+    --------
+    Twelve payments of 100 retire 1,200 at a zero rate; a loan with 2 interest-only months
+    and 3 to run waits, then pays (by hand, common practice, no source):
+
+    >>> for t, m, b in balances_by_month(np.array([1_200.0, 300.0]), np.ones(2), np.array([100.0, 100.0]),
+    ...                                  np.array([0, 2]), np.array([4, 3])):
+    ...     print(t, m, b.tolist())
+    0 2 [1200.0, 300.0]
+    1 2 [1100.0, 300.0]
+    2 2 [1000.0, 300.0]
+    3 1 [900.0]
+    """
+    n = len(balance)
+    if not n:
+        return
+    x, annuity = np.ones(n), np.zeros(n)
+    running = n - np.searchsorted(months[::-1], np.arange(int(months[0])), side="right")
+    io_any = int(io_left.max())
+    for t, m in enumerate(running.tolist()):
+        b, g, ann, xm = balance[:m], growth[:m], annuity[:m], x[:m]
+        path = b * xm - payment[:m] * ann
+        np.maximum(path, 0.0, out=path)
+        if t < io_any:  # some loans still pay interest only: their balance and path wait
+            paying = t >= io_left[:m]
+            path = np.where(paying, path, b)
+            x[:m] = np.where(paying, xm * g, xm)
+            annuity[:m] = np.where(paying, ann * g + 1.0, ann)
+        else:
+            xm *= g
+            ann *= g
+            ann += 1.0
+        yield t, m, path
 
 
 def months_without_payment(days_past_due, loss_event_dpd):

@@ -37,7 +37,7 @@ Implements
 KernelInputs     the per-loan arrays and the tables the sum reads
 KernelResult     per loan, framework and scenario: ecl and gross loss, 12-month and lifetime,
                  pd_12m, pd_lifetime; ead, lgd
-LOOPS            the two ways to compute it: "compiled" and "arrays"
+LOOPS            the two ways to compute it, "compiled" and "arrays" (allowance.jitcache)
 expected_losses  check the inputs and compute the sums
 compile_loop     compile the loop (into the cache) on the smallest book
 MONTH_COLUMNS    the columns of loan_months
@@ -51,11 +51,15 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from allowance.cashflows import REVOLVING, balance_on_path, contractual_payment, contractual_payments, path_terms
-from allowance.curves.lgd import TINY_EAD, collateral_lgd, loss_given_default, loss_given_default_array
+from allowance.cashflows import (
+    REVOLVING, balance_on_path, balances_by_month, contractual_payment, contractual_payments, path_terms,
+    path_terms_array,
+)
+from allowance.curves.lgd import collateral_lgd, loss_given_default, loss_given_default_array
 from allowance.curves.refinance import refinance_default
 from allowance.shortfall import default_loss
 from allowance.exceptions import InvalidInputError
+from allowance.jitcache import LOOPS
 
 if TYPE_CHECKING:  # loaded by loan_months: compiling the loop alone (compile_loop) needs no pandas
     import pandas as pd
@@ -146,8 +150,6 @@ class KernelResult:
 ECL_12M, ECL_LIFETIME, PD_12M, PD_LIFETIME, GROSS_12M, GROSS_LIFETIME = range(6)
 
 
-#: How :func:`expected_losses` computes: the compiled loop, or numpy with no compiler loaded.
-LOOPS: tuple[str, ...] = ("compiled", "arrays")
 
 
 def expected_losses(inputs: KernelInputs, loop: str = "compiled") -> KernelResult:
@@ -303,18 +305,16 @@ def _months_in_arrays(a: dict[str, np.ndarray], f: int, rows: np.ndarray, months
     months = months[rows]
     take = lambda name: a[name][rows]  # noqa: E731
     taken = lambda name: a[name][f][rows]  # noqa: E731
-    balance, rate, io_left, lgd = take("balance"), take("rate"), take("io_left"), take("lgd")
-    revolving = take("code") == REVOLVING
-    growth = np.where(revolving, 1.0 - taken("paydown"), 1.0 + rate)
-    pay = np.where(revolving, 0.0, np.maximum(take("level_payment"), balance * rate))
+    balance, lgd, code = take("balance"), take("lgd"), take("code")
+    growth, pay = path_terms_array(code, balance, take("rate"), take("level_payment"), taken("paydown"))
     add, add_months, add_after, v = taken("ead_add"), taken("add_months"), taken("add_after"), taken("discount")
     key, prepay, offset, scale = taken("curve"), taken("prepay"), take("prepay_offset"), take("pd_scale")
     q = take("refinance_pd")
-    maturity = np.where((q > 0.0) & ~revolving, take("months_left") - 1, -1)
-    secured = bool(take("collateral")[0] > 0.0)
-    if secured:  # the collateral's net proceeds today, before the index: C (1 - h)(1 - c) DF_m per loan
-        proceeds = take("collateral") * (1.0 - take("haircut")) * (1.0 - take("recovery_cost")) * taken("recovery_discount")
-        floor, kept = take("lgd_floor"), 1.0 - take("cure")
+    maturity = np.where((q > 0.0) & (code != REVOLVING), take("months_left") - 1, -1)
+    collateral = take("collateral")
+    secured = bool(collateral[0] > 0.0)
+    if secured:
+        terms = (take("haircut"), take("recovery_cost"), take("lgd_floor"), taken("recovery_discount"), take("cure"))
     # the tables month-major, scenarios before keys: a month's rows for the loans are one gather
     pd_t = np.ascontiguousarray(a["pd"][f].transpose(1, 2, 0))  # [T, S, K]
     index_t = np.ascontiguousarray(a["collateral_index"][f].transpose(1, 2, 0)) if secured else None
@@ -326,27 +326,12 @@ def _months_in_arrays(a: dict[str, np.ndarray], f: int, rows: np.ndarray, months
     due_in = {int(t): ends[maturity[ends] == t] for t in np.unique(maturity[ends])}
     scaled = bool((scale != 1.0).any())
     adds = bool((add != 0.0).any() or (add_after != 0.0).any())  # an exposure beyond the balance
-    x, annuity, df = np.ones(m_all), np.zeros(m_all), np.ones(m_all)
+    df = np.ones(m_all)
     alive = np.ones((n_sc, m_all))
     exposed, net, cum = np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all))
     exposed_12, net_12, cum_12 = np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all)), np.zeros((n_sc, m_all))
     share, part = np.empty((n_sc, m_all)), np.empty((n_sc, m_all))
-    running = m_all - np.searchsorted(months[::-1], np.arange(int(months[0])), side="right")
-    io_any = int(io_left.max())
-    for t, m in enumerate(running.tolist()):
-        b, g, ann, xm = balance[:m], growth[:m], annuity[:m], x[:m]
-        path = b * xm - pay[:m] * ann
-        np.maximum(path, 0.0, out=path)
-        if t < io_any:  # some loans still pay interest only: their balance and path wait
-            paying = t >= io_left[:m]
-            bal = np.where(paying, path, b)
-            x[:m] = np.where(paying, xm * g, xm)
-            annuity[:m] = np.where(paying, ann * g + 1.0, ann)
-        else:
-            bal = path
-            xm *= g
-            ann *= g
-            ann += 1.0
+    for t, m, bal in balances_by_month(balance, growth, pay, take("io_left"), months):
         dfm = df[:m]
         dfm *= v[:m]
         exposure = bal + np.where(t < add_months[:m], add[:m], add_after[:m]) if adds else bal
@@ -363,15 +348,11 @@ def _months_in_arrays(a: dict[str, np.ndarray], f: int, rows: np.ndarray, months
         cum[:, :m] += sh
         al -= sh
         al *= keep
-        if secured:  # collateral_lgd: min(1, max(floor, m (1 - cure)(1 - min(1, C_t (1 - h)(1 - c) DF_m / EAD_t))))
-            loss_rate = index_t[t].take(key[:m], axis=1)
-            loss_rate *= proceeds[:m] / np.maximum(exposure, TINY_EAD)
-            np.minimum(loss_rate, 1.0, out=loss_rate)
-            np.subtract(1.0, loss_rate, out=loss_rate)
-            loss_rate *= kept[:m]
-            loss_rate *= multiplier[t]
-            np.maximum(loss_rate, floor[:m], out=loss_rate)
-            np.minimum(loss_rate, 1.0, out=loss_rate)
+        if secured:  # the collateral at the month's index, as loss_given_default takes it
+            haircut, cost, floor, recovery, cure = (term[:m] for term in terms)
+            value = index_t[t].take(key[:m], axis=1)
+            value *= collateral[:m]
+            loss_rate = collateral_lgd(exposure, value, haircut, cost, floor, recovery, cure, multiplier[t])
             pa *= loss_rate  # d_t w_t LGD_t (d_t w_t is in E already)
             net[:, :m] += pa
         elif not unit:

@@ -46,7 +46,11 @@ import tempfile
 import threading
 from pathlib import Path
 
-__all__ = ["ARRAYS_UP_TO", "cache_dir", "compile_ahead", "loop_cached", "tape_loans", "wait_for_ahead"]
+__all__ = ["ARRAYS_UP_TO", "LOOPS", "cache_dir", "compile_ahead", "loop_cached", "tape_loans", "wait_for_ahead"]
+
+#: How a book's sums can be computed: the compiled loop, or numpy with no compiler loaded
+#: (:func:`allowance.ecl.expected_losses`, :func:`allowance.loss_rates.loss_rate_losses`).
+LOOPS: tuple[str, ...] = ("compiled", "arrays")
 
 #: A book of at most this many loans is computed in numpy, with no compiled loop
 #: (:func:`allowance.engine.tables.choose_loop`): there, loading numba would cost more than
@@ -146,6 +150,8 @@ def tape_loans(path: str | os.PathLike) -> int | None:
             head = handle.read(sample)
     except OSError:
         return None
+    # the first bytes as intake.files.file_kind tells them apart (that module loads numpy and
+    # the schemas; this one runs before either is imported)
     if head.startswith(b"PAR1"):
         try:
             import pyarrow.parquet as pq

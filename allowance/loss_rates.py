@@ -68,8 +68,9 @@ from typing import Literal
 
 import numpy as np
 
-from allowance.cashflows import REVOLVING
+from allowance.cashflows import REVOLVING, balances_by_month, contractual_payments, path_terms_array
 from allowance.exceptions import InvalidInputError
+from allowance.jitcache import LOOPS
 
 LossRateMethod = Literal["lifetime_loss_rate", "annual_loss_rate", "vintage_loss_curve"]
 
@@ -393,17 +394,13 @@ def _checked(inputs: LossRateInputs) -> dict[str, np.ndarray]:
     return a
 
 
-def _expected_balances(running, b0, io, growth, pay, add, add_months, add_after, smm, smm_at):
-    """E_t of the loans still running in each month (the first ``running[t]``, longest
-    horizon first): yields (t, how many, E_t)."""
-    x, annuity, kept = np.ones(b0.size), np.zeros(b0.size), np.ones(b0.size)
-    for t, m in enumerate(running.tolist()):
-        path = np.maximum(b0[:m] * x[:m] - pay[:m] * annuity[:m], 0.0)
-        paying = t >= io[:m]
-        exposure = np.where(paying, path, b0[:m]) + np.where(t < add_months[:m], add[:m], add_after[:m])
-        yield t, m, exposure * kept[:m]
-        x[:m] = np.where(paying, x[:m] * growth[:m], x[:m])
-        annuity[:m] = np.where(paying, annuity[:m] * growth[:m] + 1.0, annuity[:m])
+def _expected_balances(balance, growth, pay, io_left, months, add, add_months, add_after, smm, smm_at):
+    """E_t of the loans still running in each month (longest horizon first): the scheduled
+    balance (:func:`~allowance.cashflows.balances_by_month`) plus the add-on, times the share
+    not prepaid by then. Yields (t, how many, E_t)."""
+    kept = np.ones(balance.size)
+    for t, m, bal in balances_by_month(balance, growth, pay, io_left, months):
+        yield t, m, (bal + np.where(t < add_months[:m], add[:m], add_after[:m])) * kept[:m]
         kept[:m] *= 1.0 - smm.take(smm_at[:m] + t)
 
 
@@ -419,8 +416,6 @@ def _losses_in_arrays(a: dict[str, np.ndarray], ecl12: np.ndarray, ecllife: np.n
     longest horizon first, so each month works on one slice. The same figures as the compiled
     loop to rounding (``tests/test_loss_rates.py``).
     """
-    from allowance.cashflows import contractual_payments
-
     n_fw, _, n_sc = a["multiplier"].shape
     balance, rate, io_left, method = a["balance"], a["rate"], a["io_left"], a["method"]
     revolving = a["code"] == REVOLVING
@@ -439,13 +434,11 @@ def _losses_in_arrays(a: dict[str, np.ndarray], ecl12: np.ndarray, ecllife: np.n
         if not rows.size:
             continue
         months = months[rows]
-        running = rows.size - np.searchsorted(months[::-1], np.arange(int(months[0])), side="right")
-        b0, io = balance[rows], io_left[rows]
-        growth = np.where(revolving[rows], 1.0 - a["paydown"][f][rows], 1.0 + rate[rows])
-        pay = np.where(revolving[rows], 0.0, np.maximum(level[rows], b0 * rate[rows]))
+        b0 = balance[rows]
+        growth, pay = path_terms_array(a["code"][rows], b0, rate[rows], level[rows], a["paydown"][f][rows])
         add, add_months, add_after = a["ead_add"][f][rows], a["add_months"][f][rows], a["add_after"][f][rows]
         smm_at = a["prepay"][f][rows] * a["smm"].shape[1] + a["prepay_offset"][rows]
-        terms = (running, b0, io, growth, pay, add, add_months, add_after, a["smm"].ravel(), smm_at)
+        terms = (b0, growth, pay, io_left[rows], months, add, add_months, add_after, a["smm"].ravel(), smm_at)
         kind = method[rows]
         scale = np.where(kind == WARM, a["loss_rate"][rows] / 12.0, 0.0)
         pool = kind == POOL
@@ -512,8 +505,8 @@ def loss_rate_losses(inputs: LossRateInputs, loop: str = "compiled") -> LossRate
     >>> round(float(loss_rate_losses(k).ecl_lifetime[0, 0, 0]), 6)
     12000.0
     """
-    if loop not in ("compiled", "arrays"):
-        raise ValueError(f"loop must be one of compiled, arrays, not {loop!r}")
+    if loop not in LOOPS:
+        raise ValueError(f"loop must be one of {', '.join(LOOPS)}, not {loop!r}")
     a = _checked(inputs)
     n = a["balance"].shape[0]
     n_fw, _, n_sc = a["multiplier"].shape

@@ -18,8 +18,7 @@ import numpy as np
 import pandas as pd
 
 from allowance import cashflows, curves, loss_rates, scenarios, staging
-from allowance.ecl import LOOPS
-from allowance.jitcache import ARRAYS_UP_TO
+from allowance.jitcache import ARRAYS_UP_TO, LOOPS
 from allowance.exceptions import AssumptionsError
 from allowance.frameworks import FrameworkRules, Runoff, rules_for
 from allowance.schemas import MAX_MONTHS, OFF_BALANCE_FACILITIES, Framework, RunConfig, SegmentAssumptions

@@ -570,14 +570,9 @@ def write_outputs(out_dir: Path, report: RunReport, *, parquet: bool = False,
     (:func:`~allowance.text.neutralise_text`).
     """
     out_dir = Path(out_dir)
-    check_output_path(out_dir, [i.path for i in report.config.inputs])
-    names: list[str] = []
-
-    def write(folder: Path) -> None:
-        names.extend(_write_all(folder, report, parquet, progress))
-
-    notes = replace_folder(out_dir, write, OUTPUT_FILES)
-    return OutputPaths([out_dir / name for name in names], notes)
+    check_output_path(out_dir, [i.path for i in report.config.inputs])  # refused before the folder is locked
+    with OutputFolder(out_dir) as folder:
+        return folder.write(report, parquet=parquet, progress=progress)
 
 
 def write_check_outputs(out_dir: Path, intake: IntakeResult) -> OutputPaths:
