@@ -79,3 +79,20 @@ def test_the_xml_escape_is_the_standard_librarys():
 
     for text in ("plain", "a<b & c>d", "&amp;", "<<&&>>", "'\"quotes\"'", "", "é & ü"):
         assert escape(text) == standard(text)
+
+
+def test_the_default_chunks_give_the_bytes_of_one_chunk(tmp_path):
+    """A sheet of a few thousand rows is made in several chunks by default (so compressing one
+    runs beside making the next) and the file is byte for byte that of one chunk."""
+    rows = 4_500
+    frame = pd.concat([_frame()] * (rows // 11 + 1), ignore_index=True).head(rows)
+    saved = {}
+    for label, chunk_rows in (("default", None), ("one", rows)):
+        book = Book(Context(as_of="2026-09-30", currency="USD", label=None))
+        bulk = BulkSheet(book.sheet("Long", printed=False), frame, note="A test.", chunk_rows=chunk_rows)
+        if label == "default":
+            assert len(list(bulk.rows_xml([0] * len(frame.columns)))) == 4  # 1,125 rows each
+        path = tmp_path / f"{label}.xlsx"
+        save(book, path, [bulk], created=datetime(2026, 10, 1), title="t")
+        saved[label] = path.read_bytes()
+    assert saved["default"] == saved["one"]
