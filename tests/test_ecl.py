@@ -186,6 +186,51 @@ def test_the_numpy_sums_equal_the_compiled_loop(seed, frameworks, scenarios, sec
         np.testing.assert_allclose(getattr(arrays, name), getattr(compiled, name), rtol=1e-12, atol=1e-9, err_msg=name)
 
 
+def _some_loans(k: KernelInputs, rows: np.ndarray, **changes) -> KernelInputs:
+    """``k``'s loans at ``rows`` (its tables whole, the same objects), with ``changes``."""
+    out = {}
+    for f in dataclasses.fields(k):
+        value = getattr(k, f.name)
+        if f.name in ("pd", "smm", "lgd_multiplier", "collateral_index") or value is None:
+            out[f.name] = value
+        else:
+            out[f.name] = value[:, rows] if np.ndim(value) == 2 else value[rows]
+    return KernelInputs(**(out | changes))
+
+
+@settings(max_examples=25)
+@given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.integers(1, 5), st.booleans())
+def test_sets_summed_together_give_the_bits_of_one_call_each(seed, frameworks, scenarios, secured):
+    """Several sets of inputs over the same tables (a chunk, and extra passes of some of its
+    loans at other terms, as the engine makes for POCI loans and drawn exposures): summed in
+    one numpy pass, each loan's figures are those of its own call to the bit."""
+    k = random_kernel_book(seed, n=50, frameworks=frameworks, scenarios=scenarios, secured=secured,
+                           multipliers=secured)
+    rng = np.random.default_rng(seed)
+    rows = np.sort(rng.choice(50, 12, replace=False))
+    other = _some_loans(k, rows, pd_scale=rng.uniform(0.0, 5.0, 12), horizon=np.minimum(k.horizon[:, rows], 12),
+                        prepay=np.broadcast_to(k.prepay[rows], (frameworks, 12)).copy())
+    few = _some_loans(k, rows[:3], ead_add=np.zeros((frameworks, 3)))
+    batch = [k, None, other, few]
+    together = ecl.expected_losses_together(batch, "arrays")
+    assert together[1] is None
+    for inputs, got in zip(batch, together):
+        if inputs is None:
+            continue
+        alone = expected_losses(inputs, "arrays")
+        for name in _SUMS:
+            np.testing.assert_array_equal(getattr(got, name), getattr(alone, name), err_msg=name)
+
+
+def test_sets_over_other_tables_are_summed_one_by_one():
+    k = random_kernel_book(5, n=20)
+    other = dataclasses.replace(k, pd=k.pd * 0.5)  # another table: not one pass
+    a, b = ecl.expected_losses_together([k, other], "arrays")
+    np.testing.assert_array_equal(a.ecl_lifetime, expected_losses(k, "arrays").ecl_lifetime)
+    np.testing.assert_array_equal(b.ecl_lifetime, expected_losses(other, "arrays").ecl_lifetime)
+    assert (b.ecl_lifetime <= a.ecl_lifetime + 1e-9).all()
+
+
 def test_the_numpy_sums_load_no_compiler():
     code = ("import sys\nfrom tests.strategies import random_kernel_book\nfrom allowance.ecl import expected_losses\n"
             "r = expected_losses(random_kernel_book(3), 'arrays')\nprint(r.ecl_lifetime.sum() > 0, 'numba' in sys.modules)")

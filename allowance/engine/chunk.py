@@ -33,7 +33,7 @@ from allowance import cashflows, curves, individual, loss_rates, poci, scenarios
 from allowance.curves.ead import accrued_exposure
 from allowance.curves.refinance import maturity_ltv, refinance_pd
 from allowance.discounting import monthly_rate
-from allowance.ecl import KernelInputs, KernelResult, expected_losses
+from allowance.ecl import KernelInputs, KernelResult, expected_losses_together
 from allowance.engine.tables import (
     Prepared, age_months, commitment_months, months_held, off_balance, remaining_life, revolving_parameter, runoff_horizon,
 )
@@ -448,10 +448,22 @@ class _Purchase:
     in_period: np.ndarray
 
 
-def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inputs: KernelInputs,
-                    prep: Prepared, weights: tuple[np.ndarray, ...]) -> tuple[_Purchase, ...] | None:
+@dataclass(frozen=True)
+class _PurchasePasses:
+    """The inputs of the two purchase-date passes (``today``: R, ``then``: Q) of a chunk's POCI
+    loans at ``rows``, and what weighting their results needs (:func:`_purchase_views`)."""
+
+    rows: np.ndarray
+    today: KernelInputs
+    then: KernelInputs
+    given: np.ndarray
+    in_period: np.ndarray
+
+
+def _purchase_passes(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inputs: KernelInputs,
+                     prep: Prepared) -> _PurchasePasses | None:
     """The two purchase-date passes of the loop for the chunk's POCI loans (:mod:`allowance.poci`),
-    weighted by each of ``weights`` in turn (one :class:`_Purchase` each; None: no POCI loans).
+    as inputs (None: no POCI loans); :func:`_purchase_views` weights their results.
 
     R: today's balance, remaining term and scenario paths at the loan's PD at purchase
     (``pd_12m_at_origination``). Q: the purchase date (the tape's ``origination_date`` of a
@@ -465,7 +477,7 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     """
     flags = _flag(chunk, "credit_impaired_at_purchase")
     rows = np.flatnonzero(flags)
-    n, n_fw = len(chunk), len(prep.rules)
+    n = len(chunk)
     if not rows.size:
         return None
     a = prep.config.assumptions
@@ -475,7 +487,7 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
     scale = _pd_scale(prep, terms.curve[rows], _number(chunk, "pd_12m_at_origination")[rows])
     defaulted = fw.in_default[:, rows] & bought[None, :]
     lifetime = fw.horizon[:, rows].copy()  # the life (a line's run-off where a framework runs it off)
-    r = expected_losses(_subset(inputs, rows, in_default=defaulted, horizon=lifetime, pd_scale=scale), prep.loop)
+    today = _subset(inputs, rows, in_default=defaulted, horizon=lifetime, pd_scale=scale)
 
     age = terms.age[rows]
     code = terms.code[rows]
@@ -497,15 +509,27 @@ def _purchase_views(chunk: pd.DataFrame, terms: LoanTerms, fw: _Frameworks, inpu
         if ts.source == "pd_curve_by_age":
             curve[:, segment == name] = prep.key_offset[name]
     revolving = code == cashflows.REVOLVING
-    q = expected_losses(_subset(
+    then = _subset(
         inputs, rows, balance=balance, months_left=np.where(revolving, terms.remaining[rows], months),
         io_left=io_left.astype(np.int64), curve=curve, prepay_offset=np.zeros(rows.size, dtype=np.int64),
         in_default=defaulted, horizon=np.where(revolving[None, :], fw.horizon[:, rows], months[None, :]),
         ead_add=fw.ead_add[:, rows], pd_scale=scale,
-    ), prep.loop)
-    e0 = _number(chunk, "lifetime_ecl_at_purchase")[rows]
+    )
     in_period = np.zeros(n, dtype=bool)
     in_period[rows] = bought
+    return _PurchasePasses(rows, today, then, _number(chunk, "lifetime_ecl_at_purchase")[rows], in_period)
+
+
+def _purchase_views(passes: _PurchasePasses | None, r: KernelResult | None, q: KernelResult | None,
+                    weights: tuple[np.ndarray, ...]) -> tuple[_Purchase | None, ...]:
+    """The POCI loans' purchase views from the results ``r`` and ``q`` of their two passes
+    (:func:`_purchase_passes`), weighted by each of ``weights`` in turn (one :class:`_Purchase`
+    each; None each where the chunk has no POCI loans): the benchmark carried, B = E0 R / Q
+    with R and Q probability-weighted (IFRS 9 5.5.13-5.5.14, B5.5.42)."""
+    if passes is None or r is None or q is None:
+        return (None,) * len(weights)
+    rows, e0, in_period = passes.rows, passes.given, passes.in_period
+    n, n_fw = len(in_period), r.ecl_lifetime.shape[1]
     views = []
     for w in weights:
         carried = np.full((n, n_fw), np.nan)
@@ -737,9 +761,8 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
     c = chunk_inputs(chunk, prep)
     terms, stages, fw = c.terms, c.stages, c.frameworks
     weights = (prep.weights, *reweighted)
-    k, purchases = _losses(chunk, prep, c, (*weights, *alone))
     stage, poci_flag = _stage_and_poci(chunk, c.stages)
-    drawn = _drawn_only(chunk, prep, c, stage, poci_flag)
+    k, purchases, drawn = _losses(chunk, prep, c, (*weights, *alone), (stage, poci_flag))
     loans = [_loan_results(chunk, terms, stages, k, prep if i == 0 else dataclasses.replace(prep, weights=w),
                            purchase, fw, drawn) for i, (w, purchase) in enumerate(zip(weights, purchases))]
     alone_columns = ()
@@ -756,20 +779,28 @@ def run_chunk(chunk: pd.DataFrame, prep: Prepared, reweighted: tuple[np.ndarray,
     )
 
 
-def _losses(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs,
-            weights: tuple[np.ndarray, ...]) -> tuple[KernelResult, tuple[_Purchase | None, ...]]:
+def _losses(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, weights: tuple[np.ndarray, ...],
+            drawn: tuple[np.ndarray, np.ndarray] | None = None,
+            ) -> tuple[KernelResult, tuple[_Purchase | None, ...], _DrawnOnly | None]:
     """The loop's per-scenario losses for a chunk (loss-rate segments through their own loop),
-    and the POCI loans' purchase views under each of ``weights``."""
+    the POCI loans' purchase views under each of ``weights``, and, given ``drawn`` (each
+    loan's stage and POCI flag), the drawn-only pass (:func:`_drawn_pass`; else None).
+
+    The chunk's loans and the extra passes of some of them go to the loop together
+    (:func:`allowance.ecl.expected_losses_together`: one pass in numpy, the same bits)."""
     terms, fw = c.terms, c.frameworks
-    k = expected_losses(c.kernel, prep.loop)
-    purchases = _purchase_views(chunk, terms, fw, c.kernel, prep, weights) or (None,) * len(weights)
+    passes = _purchase_passes(chunk, terms, fw, c.kernel, prep)
+    drawn_rows, drawn_inputs = _drawn_pass(prep, c, *drawn) if drawn is not None else (None, None)
+    today, then = (None, None) if passes is None else (passes.today, passes.then)
+    k, r, q, d = expected_losses_together([c.kernel, today, then, drawn_inputs], prep.loop)
+    purchases = _purchase_views(passes, r, q, weights)
     # loss-rate segments: their own loop on the same terms (a loss rate has no PD or LGD)
     for rows, lr in _loss_rate_loans(chunk, prep, terms, fw) or ():
         k.ecl_12m[rows], k.ecl_lifetime[rows] = lr.ecl_12m, lr.ecl_lifetime
         k.pd_12m[rows] = k.pd_lifetime[rows] = np.nan
         k.gross_12m[rows] = k.gross_lifetime[rows] = np.nan  # a loss rate is net of recoveries
         k.lgd[rows] = np.nan
-    return k, purchases
+    return k, purchases, None if drawn is None else _drawn_only(chunk, prep, c, drawn_rows, d)
 
 
 def modelled_chunk(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | None = None) -> pd.DataFrame:
@@ -787,7 +818,7 @@ def modelled_chunk(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | N
     # the bit (:func:`_allowance_horizon`), for a fraction of a long book's months
     c = dataclasses.replace(c, kernel=dataclasses.replace(
         c.kernel, horizon=_allowance_horizon(prep, c.frameworks.horizon, stage, poci_flag)))
-    k, (purchase,) = _losses(chunk, prep, c, (prep.weights,))
+    k, (purchase,), _ = _losses(chunk, prep, c, (prep.weights,))
     _, replaced = _individual_measurement(chunk, c.terms, prep)
     out = _modelled(k, prep, stage, poci_flag, purchase, replaced, prep.weights)
     return pd.DataFrame({"loan_id": chunk["loan_id"].array, **out}, index=chunk.index)
@@ -886,9 +917,10 @@ def _drawn_horizon(prep: Prepared, c: ChunkInputs, rows: np.ndarray, stage: np.n
     return np.where(fw.undrawn_add[:, rows] > 0.0, measured, 0)
 
 
-def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, stage: np.ndarray,
-                poci_flag: np.ndarray) -> _DrawnOnly:
-    """The loop again, for the loans with an undrawn add-on, on their drawn exposure alone.
+def _drawn_pass(prep: Prepared, c: ChunkInputs, stage: np.ndarray,
+                poci_flag: np.ndarray) -> tuple[np.ndarray, KernelInputs | None]:
+    """The loans with an undrawn add-on (their rows) and the inputs of the loop again for them on
+    their drawn exposure alone (None: no such loan); :func:`_drawn_only` reads its results.
 
     The ECL of the undrawn commitment is the whole ECL less this (an incremental split): with
     a flat LGD the loss is linear in EAD_t = drawn_t + CCF × undrawn, so the split is the
@@ -899,12 +931,22 @@ def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, stage: np.n
     """
     fw = c.frameworks
     rows = np.flatnonzero((fw.undrawn_add > 0.0).any(axis=0))
-    n_fw, n_sc = len(prep.rules), prep.pd.shape[3]
     if not rows.size:
+        return rows, None
+    drawn_add = fw.ead_add - fw.undrawn_add
+    return rows, _subset(c.kernel, rows, ead_add=drawn_add[:, rows],
+                         horizon=_drawn_horizon(prep, c, rows, stage, poci_flag))
+
+
+def _drawn_only(chunk: pd.DataFrame, prep: Prepared, c: ChunkInputs, rows: np.ndarray,
+                d: KernelResult | None) -> _DrawnOnly:
+    """The drawn-only ECL of the loans at ``rows`` (:func:`_drawn_pass`) from the loop's results
+    ``d`` for them, the loss-rate segments' through their own loop."""
+    fw = c.frameworks
+    n_fw, n_sc = len(prep.rules), prep.pd.shape[3]
+    if d is None:
         return _DrawnOnly(rows, np.zeros((0, n_fw, n_sc)), np.zeros((0, n_fw, n_sc)))
     drawn_add = fw.ead_add - fw.undrawn_add
-    d = expected_losses(_subset(c.kernel, rows, ead_add=drawn_add[:, rows],
-                                horizon=_drawn_horizon(prep, c, rows, stage, poci_flag)), prep.loop)
     ecl_12m, ecl_lifetime = d.ecl_12m, d.ecl_lifetime
     lines = chunk["segment"].iloc[rows].to_numpy()  # these loans' only
     if prep.loss_rates is not None and np.isin(lines, list(prep.loss_rates.method)).any():
