@@ -483,8 +483,6 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
     >>> round(float(m["ecl"].sum()), 9) == round(float(expected_losses(k).ecl_lifetime[0, 0, 0]), 9)
     True
     """
-    import pandas as pd
-
     a = dict(zip(_FIELDS, _checked_arrays(inputs)))
     code, balance, rate = int(a["code"][i]), float(a["balance"][i]), float(a["rate"][i])
     months_left, io_left, k = int(a["months_left"][i]), int(a["io_left"][i]), int(a["curve"][f, i])
@@ -503,8 +501,7 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
     if a["in_default"][f, i]:
         ead = balance + add
         lgd = lgd_at(ead, 0)
-        row = [0, ead, 1.0, 1.0, 0.0, 1.0, lgd, 1.0, ead, ead * lgd]
-        return pd.DataFrame([row], columns=list(MONTH_COLUMNS)).astype({"month": np.int64})
+        return _month_frame([[0, ead, 1.0, 1.0, 0.0, 1.0, lgd, 1.0, ead, ead * lgd]])
     level = contractual_payment(code, balance, rate, months_left, io_left, float(a["residual"][i]),
                                 float(a["payment"][i]))
     growth, pay = path_terms(code, balance, rate, level, float(a["paydown"][f, i]))
@@ -528,7 +525,18 @@ def loan_months(inputs: KernelInputs, i: int, f: int, s: int, horizon: int | Non
             share, alive = share + failed, alive - failed
         rows.append([t + 1, ead, start, marginal, q if t == maturity else 0.0, share, lgd, df,
                      share * default_loss(ead, 1.0, interest) * df, share * default_loss(ead, lgd, interest) * df])
-    return pd.DataFrame(rows, columns=list(MONTH_COLUMNS)).astype({"month": np.int64})
+    return _month_frame(rows)
+
+
+def _month_frame(rows: list[list[float]]) -> "pd.DataFrame":
+    """:func:`loan_months`' rows as its frame, built from columns (a frame made from the rows and
+    then cast took 2-3 ms a loan, most of the schedule sample's time)."""
+    import pandas as pd
+
+    values = np.array(rows, dtype=np.float64).reshape(len(rows), len(MONTH_COLUMNS))
+    columns = {name: values[:, j] for j, name in enumerate(MONTH_COLUMNS)}
+    columns["month"] = values[:, 0].astype(np.int64)
+    return pd.DataFrame(columns)
 
 
 _FIELDS = [f.name for f in fields(KernelInputs)]
