@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from allowance import cashflows, curves, ecl, individual, macro
 from allowance.engine.chunk import ChunkInputs, _curve_keys, _individual_measurement, chunk_inputs
@@ -81,15 +82,27 @@ def term_structure_table(prep: Prepared) -> pd.DataFrame:
             # one frame per segment and framework, built column-wise (a frame per key and
             # scenario cost seconds for segments with many keys)
             frames.append(pd.DataFrame({
-                "segment": np.full(rows, name, dtype=object),
-                "key": np.repeat(np.asarray([ts.keys[k] for k in shown], dtype=object), n_sc * len(months)),
-                "framework": np.full(rows, fw, dtype=object),
-                "scenario": np.tile(np.repeat(np.asarray(prep.scenario_names, dtype=object), len(months)), len(shown)),
+                "segment": _repeated_text([name], np.zeros(rows, dtype=np.int64)),
+                "key": _repeated_text([str(ts.keys[k]) for k in shown], np.repeat(np.arange(len(shown)), n_sc * len(months))),
+                "framework": _repeated_text([fw], np.zeros(rows, dtype=np.int64)),
+                "scenario": _repeated_text(list(prep.scenario_names),
+                                           np.tile(np.repeat(np.arange(n_sc), len(months)), len(shown))),
                 "month": np.tile(months, len(shown) * n_sc),
                 "marginal_pd": marg.reshape(-1),
                 "cumulative_pd": cum.reshape(-1),
             }))
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+
+
+def _repeated_text(texts: list[str], codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
+    """``texts[codes]`` as a text column (pandas' ``str``), made by Arrow: the same column as
+    from an array of Python strings, which pandas converts one element at a time (19 ms for the
+    demo's 105,840 term-structure rows a column, against 1.6 ms)."""
+    return pd.array(pa.array(texts, type=pa.string()).take(pa.array(codes)), dtype=_TEXT)
+
+
+#: pandas' text dtype, as it infers it for Python strings
+_TEXT = pd.Series(["text"]).dtype
 
 
 def pd_path_view(tape: pd.DataFrame, prep: Prepared) -> pd.DataFrame:
