@@ -301,18 +301,22 @@ def _sums_in_arrays(a: dict[str, np.ndarray], sums: np.ndarray, ead0: np.ndarray
     (:func:`~allowance.shortfall.default_loss`: a default loses :math:`(LGD_t + i) EAD_t`),
     plus the refinance failures :math:`S_T q` in the maturity month T. A loan without
     collateral on a unit LGD path has :math:`N = \min(1, LGD) E`, so only E is summed for
-    it; the secured loans, whose LGD moves with the balance, are summed apart. The loans are
-    taken longest horizon first, so the loans still running in month t are the first ones:
-    each month works on one slice, and the work is the book's loan-months, not loans × the
-    longest horizon. A loan whose loss event is certain now takes PD 1 (its losses are set by
-    :func:`_defaulted_losses`). Memory: a few arrays of loans × scenarios.
+    it; the secured loans, whose LGD moves with the balance, are summed apart. Every
+    framework's loans go through one month loop as (framework, loan) pairs, so each numpy
+    call of a month serves all frameworks. The pairs are taken longest horizon first, so the
+    pairs still running in month t are the first ones: each month works on one slice, and the
+    work is the book's loan-months, not loans × the longest horizon. A loan whose loss event
+    is certain now takes PD 1 (its losses are set by :func:`_defaulted_losses`). Memory: a
+    few arrays of frameworks × loans × scenarios.
 
     It gives the compiled loop's figures to rounding (the two order a sum's terms apart:
     last-bit differences; ``tests/test_ecl.py`` holds them to 1e-12).
     """
-    n_fw = a["pd"].shape[0]
+    n_fw, n = a["pd"].shape[0], a["balance"].shape[0]
     revolving = a["code"] == REVOLVING
     secured = a["collateral"] > 0.0
+    months = np.empty((n_fw, n), dtype=np.int64)
+    unit = np.empty(n_fw, dtype=bool)
     for f in range(n_fw):
         k, multiplier, index = a["curve"][f], a["lgd_multiplier"][f], a["collateral_index"][f]  # [T, S], [K, T, S]
         ead = a["balance"] + a["ead_add"][f]
@@ -321,42 +325,53 @@ def _sums_in_arrays(a: dict[str, np.ndarray], sums: np.ndarray, ead0: np.ndarray
             ead, a["lgd"], a["collateral"], index[k, 0, 0], a["haircut"], a["recovery_cost"], a["lgd_floor"],
             a["recovery_discount"][f], a["cure"], multiplier[0, 0])
         # no exposure after maturity: a horizon past it adds nothing (nor to the PD)
-        months = np.where(revolving, a["horizon"][f], np.minimum(a["horizon"][f], a["months_left"]))
-        months = np.where(a["in_default"][f], 0, months)
-        unit = bool((multiplier == 1.0).all())
-        # one thread: with these short arrays, the groups on two threads were slower (the GIL)
-        for group in (~secured, secured):
-            rows = np.flatnonzero(group)
-            if rows.size:
-                _months_in_arrays(a, f, rows[np.argsort(-months[rows], kind="stable")], months, unit, sums)
+        life = np.where(revolving, a["horizon"][f], np.minimum(a["horizon"][f], a["months_left"]))
+        months[f] = np.where(a["in_default"][f], 0, life)
+        unit[f] = bool((multiplier == 1.0).all())
+    # the (framework, loan) pairs, the frameworks side by side in one month loop (each numpy
+    # call of a month then serves both: half the calls of a loop per framework), apart where
+    # the sums take another path: secured or not, a unit LGD path or not. One thread: with
+    # these short arrays, the groups on two threads were slower (the GIL).
+    fw_of, loan_of = np.divmod(np.arange(n_fw * n), n)
+    for group in (~secured[loan_of] & unit[fw_of], ~secured[loan_of] & ~unit[fw_of], secured[loan_of]):
+        pairs = np.flatnonzero(group)
+        if pairs.size:
+            pairs = pairs[np.argsort(-months[fw_of[pairs], loan_of[pairs]], kind="stable")]
+            _months_in_arrays(a, fw_of[pairs], loan_of[pairs], months, bool(unit[fw_of[pairs]].all()), sums)
     # after the months: a loan in default was summed over none of them
     f, i = np.nonzero(a["in_default"])
     sums[PD_12M, i, f, :] = sums[PD_LIFETIME, i, f, :] = 1.0
 
 
-def _months_in_arrays(a: dict[str, np.ndarray], f: int, rows: np.ndarray, months: np.ndarray, unit: bool,
+def _months_in_arrays(a: dict[str, np.ndarray], fw: np.ndarray, rows: np.ndarray, months: np.ndarray, unit: bool,
                       sums: np.ndarray) -> None:
-    """:func:`_sums_in_arrays` for the loans ``rows`` (longest horizon first), all secured or
-    none; their six sums go into ``sums[:, rows, f, :]``. Scenarios by loans (``[S, m]``), so
-    numpy's inner loops run along the loans."""
-    m_all, n_sc = rows.size, a["pd"].shape[3]
-    months = months[rows]
+    """:func:`_sums_in_arrays` for the (framework, loan) pairs ``(fw, rows)`` (longest horizon
+    first, ``months[fw, rows]``), all secured or none; their six sums go into
+    ``sums[:, rows, fw, :]``. Scenarios by pairs (``[S, m]``), so numpy's inner loops run
+    along the pairs; a framework's curve row k is row ``f K + k`` of the frameworks' tables
+    side by side."""
+    m_all, (n_fw, n_keys, n_months, n_sc) = rows.size, a["pd"].shape
+    months = months[fw, rows]
     take = lambda name: a[name][rows]  # noqa: E731
-    taken = lambda name: a[name][f][rows]  # noqa: E731
+    taken = lambda name: a[name][fw, rows]  # noqa: E731
     balance, lgd, code = take("balance"), take("lgd"), take("code")
     growth, pay = path_terms_array(code, balance, take("rate"), take("level_payment"), taken("paydown"))
     add, add_months, add_after, v = taken("ead_add"), taken("add_months"), taken("add_after"), taken("discount")
-    key, prepay, offset, scale = taken("curve"), taken("prepay"), take("prepay_offset"), take("pd_scale")
+    key, prepay, offset, scale = fw * n_keys + taken("curve"), taken("prepay"), take("prepay_offset"), take("pd_scale")
     q = take("refinance_pd")
     maturity = np.where((q > 0.0) & (code != REVOLVING), take("months_left") - 1, -1)
     collateral = take("collateral")
     secured = bool(collateral[0] > 0.0)
     if secured:
         terms = (take("haircut"), take("recovery_cost"), take("lgd_floor"), taken("recovery_discount"), take("cure"))
-    # the tables month-major, scenarios before keys: a month's rows for the loans are one gather
-    pd_t = np.ascontiguousarray(a["pd"][f].transpose(1, 2, 0))  # [T, S, K]
-    index_t = np.ascontiguousarray(a["collateral_index"][f].transpose(1, 2, 0)) if secured else None
-    multiplier = a["lgd_multiplier"][f][:, :, None]  # [T, S, 1]
+    # the tables month-major, scenarios before the frameworks' keys: a month's rows for the
+    # pairs are one gather
+    pd_t = np.ascontiguousarray(a["pd"].transpose(2, 3, 0, 1).reshape(n_months, n_sc, n_fw * n_keys))  # [T, S, F K]
+    index_t = np.ascontiguousarray(a["collateral_index"].transpose(2, 3, 0, 1).reshape(
+        n_months, n_sc, n_fw * n_keys)) if secured else None
+    one = bool((fw == fw[0]).all())  # one framework: its multipliers broadcast along the pairs
+    multiplier = a["lgd_multiplier"][fw[0]][:, :, None] if one else \
+        np.ascontiguousarray(a["lgd_multiplier"].transpose(1, 2, 0))  # [T, S, 1] or [T, S, F]
     smm = a["smm"].ravel()
     smm_at = prepay * a["smm"].shape[1] + offset  # month t's SMM of a loan: smm[smm_at + t]
     # the loans that reach their maturity month within their horizon, by that month
@@ -390,11 +405,12 @@ def _months_in_arrays(a: dict[str, np.ndarray], f: int, rows: np.ndarray, months
             haircut, cost, floor, recovery, cure = (term[:m] for term in terms)
             value = index_t[t].take(key[:m], axis=1)
             value *= collateral[:m]
-            loss_rate = collateral_lgd(exposure, value, haircut, cost, floor, recovery, cure, multiplier[t])
+            loss_rate = collateral_lgd(exposure, value, haircut, cost, floor, recovery, cure,
+                                       multiplier[t] if one else multiplier[t].take(fw[:m], axis=1))
             pa *= loss_rate  # d_t w_t LGD_t (d_t w_t is in E already)
             net[:, :m] += pa
         elif not unit:
-            loss_rate = np.minimum(1.0, lgd[:m] * multiplier[t])
+            loss_rate = np.minimum(1.0, lgd[:m] * (multiplier[t] if one else multiplier[t].take(fw[:m], axis=1)))
             net[:, :m] += pa * loss_rate
         due = due_in.get(t)
         if due is not None:  # refinance risk: of the loans still outstanding, S_T q cannot repay
@@ -415,7 +431,7 @@ def _months_in_arrays(a: dict[str, np.ndarray], f: int, rows: np.ndarray, months
     for row, values in ((ECL_12M, net_12 + interest * exposed_12), (ECL_LIFETIME, net + interest * exposed),
                         (PD_12M, cum_12), (PD_LIFETIME, cum), (GROSS_12M, (1.0 + interest) * exposed_12),
                         (GROSS_LIFETIME, (1.0 + interest) * exposed)):
-        sums[row, rows, f, :] = values.T
+        sums[row, rows, fw, :] = values.T
 
 
 def _defaulted_losses(a: dict[str, np.ndarray], sums: np.ndarray) -> None:

@@ -222,6 +222,32 @@ def test_sets_summed_together_give_the_bits_of_one_call_each(seed, frameworks, s
             np.testing.assert_array_equal(getattr(got, name), getattr(alone, name), err_msg=name)
 
 
+def _framework(k: KernelInputs, f: int) -> KernelInputs:
+    """``k`` with framework ``f`` alone."""
+    return dataclasses.replace(k, **{name: getattr(k, name)[f:f + 1] for name in (*PER_FRAMEWORK, "pd",
+                                                                                 "lgd_multiplier", "collateral_index")
+                                     if getattr(k, name) is not None and np.ndim(getattr(k, name)) > 1})
+
+
+@settings(max_examples=25)
+@given(st.integers(0, 2**32 - 1), st.integers(1, 4), st.booleans(), st.sampled_from(["both", "first", "none"]))
+def test_frameworks_summed_side_by_side_give_each_frameworks_own_bits(seed, scenarios, secured, paths):
+    """The numpy sums take the frameworks' (framework, loan) pairs in one month loop; each
+    framework's figures are those of a run of that framework alone, to the bit, whether both,
+    one or neither framework has an LGD path other than 1 (the unit path takes a shortcut)."""
+    k = random_kernel_book(seed, n=40, frameworks=2, scenarios=scenarios, secured=secured, multipliers=True)
+    if paths != "both":
+        multiplier = k.lgd_multiplier.copy()
+        multiplier[1 if paths == "first" else slice(None)] = 1.0  # "first": only the first has a path
+        k = dataclasses.replace(k, lgd_multiplier=multiplier)
+    both = expected_losses(k, "arrays")
+    for f in range(2):
+        alone = expected_losses(_framework(k, f), "arrays")
+        for name in _SUMS:
+            got = getattr(both, name)[:, f]
+            np.testing.assert_array_equal(got, getattr(alone, name)[:, 0], err_msg=f"{name}, framework {f}")
+
+
 def test_sets_over_other_tables_are_summed_one_by_one():
     k = random_kernel_book(5, n=20)
     other = dataclasses.replace(k, pd=k.pd * 0.5)  # another table: not one pass
