@@ -55,8 +55,8 @@ LOOPS: tuple[str, ...] = ("compiled", "arrays")
 #: A book of at most this many loans is computed in numpy, with no compiled loop
 #: (:func:`allowance.engine.tables.choose_loop`): there, loading numba would cost more than
 #: the compiled loop saves (``tests/bench/bench_engine.py`` prints both). On the demo's book
-#: copied the warm costs meet near 60,000 loans (README, "Large books"); a first run, which
-#: would compile the loop, favours numpy further, so the bound errs low only for warm runs.
+#: copied the warm costs meet near 60,000 loans (README, "Large books"), a first run's (which
+#: would compile the loop) far above that; the bound sits a little under both.
 ARRAYS_UP_TO = 50_000
 
 #: The second process: the smallest book through the loop, which compiles (and caches) the
