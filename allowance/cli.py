@@ -815,16 +815,52 @@ def check(
                  else "write them all to a file with --out DIR")
         _say(f"{len(rejected):,} row(s) rejected; {where}")
         shown = rejected if _out.mode == "verbose" else rejected.head(SHOWN_ROWS)
-        named = "source_file" in shown.columns  # a folder of Parquet files: the row's file, its row in the tape
+        kind = _tape_kind(tape)
         for row in shown.itertuples(index=False):
-            where = f"{tape / row.source_file}: row {row.source_row}" if named else f"{tape}: line {row.source_row}"
-            _say(f"  {where}: {row.reasons}")
+            _say(f"  {_where(tape, kind, row)}: {row.reasons}")
         if len(rejected) > len(shown):
             _say(f"  ... and {len(rejected) - len(shown):,} more")
     for path in files:
         _out.detail(f"wrote {path}")
     if not checked.ok:
         raise typer.Exit(1)
+
+
+def _tape_kind(tape: Path) -> str:
+    """``"folder"``, or the tape file's kind (``csv``, ``xlsx``, ``parquet``) for naming its rows."""
+    from allowance.intake.files import file_kind
+
+    if tape.is_dir():
+        return "folder"
+    try:
+        return file_kind(tape)
+    except (OSError, ValueError):  # a tape that was read cannot fail here; if it does, say line
+        return "csv"
+
+
+def _where(tape: Path, kind: str, row: Any) -> str:
+    """Where a rejected row is, in its file's own terms (``source_row`` counts a header as line 1):
+    a CSV's line; an XLSX sheet's row (the same number); a Parquet file's n-th row
+    (``source_row`` n + 1); in a folder of Parquet files, the file and its row there, and the
+    row in the whole tape.
+
+    >>> from types import SimpleNamespace as R
+    >>> _where(Path("t.csv"), "csv", R(source_row=7))
+    't.csv: line 7'
+    >>> _where(Path("t.parquet"), "parquet", R(source_row=7))
+    't.parquet: row 6 (source_row 7 in rejected.csv)'
+    >>> _where(Path("tapes"), "folder", R(source_row=202, source_file="b.parquet", file_row=51))
+    'tapes/b.parquet: row 51 (row 201 of the tape, source_row 202 in rejected.csv)'
+    """
+    line = int(row.source_row)
+    if kind == "folder":
+        return (f"{tape / row.source_file}: row {int(row.file_row)} "
+                f"(row {line - 1} of the tape, source_row {line} in rejected.csv)")
+    if kind == "parquet":
+        return f"{tape}: row {line - 1} (source_row {line} in rejected.csv)"
+    if kind == "xlsx":
+        return f"{tape}: row {line}"
+    return f"{tape}: line {line}"
 
 
 @app.command()

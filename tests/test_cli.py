@@ -219,6 +219,28 @@ def test_segment_without_assumptions_is_rejected_by_row(tmp_path):
     assert "boats" in result.output and "line 2" in result.output
 
 
+def test_a_rejected_row_is_named_in_its_files_own_terms(tmp_path):
+    """The same bad row (the demo's third loan, data row 3) as each format names it: a CSV's
+    line 4 (the header is line 1), an XLSX sheet's row 4, a Parquet file's row 3 with
+    ``source_row`` 4 (counted by hand)."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    tape = pd.read_csv(TAPE, dtype=str, keep_default_na=False, nrows=40)
+    tape.loc[2, "balance"] = "-5"
+    tape.to_csv(tmp_path / "tape.csv", index=False)
+    tape.to_excel(tmp_path / "tape.xlsx", index=False)
+    pq.write_table(pa.Table.from_pandas(tape, preserve_index=False), tmp_path / "tape.parquet")
+    said = {}
+    for name in ("tape.csv", "tape.xlsx", "tape.parquet"):
+        result = invoke("check", tmp_path / name, "--assumptions", ASSUMPTIONS)
+        assert result.exit_code == 1
+        said[name] = [line.strip() for line in result.output.splitlines() if "balance '-5'" in line]
+    assert said["tape.csv"][0].startswith(f"{tmp_path / 'tape.csv'}: line 4: ")
+    assert said["tape.xlsx"][0].startswith(f"{tmp_path / 'tape.xlsx'}: row 4: ")
+    assert said["tape.parquet"][0].startswith(f"{tmp_path / 'tape.parquet'}: row 3 (source_row 4 in rejected.csv): ")
+
+
 def test_check_passes_the_demo_and_fails_the_bad_tape():
     good = invoke("check", TAPE, "--assumptions", ASSUMPTIONS)
     assert good.exit_code == 0, good.output

@@ -42,15 +42,16 @@ def test_parts_read_as_the_whole_tape(tmp_path_factory, row_group, cut, spoiled,
         parts = intake.read_parts(source, CONFIG)
         assert parts.rows_read == parts.rows_accepted + parts.rows_rejected == ROWS
         pd.testing.assert_frame_equal(parts.accepted, whole.accepted)
-        named = [c for c in ("source_file",) if c in parts.rejected.columns]
+        named = [c for c in ("source_file", "file_row") if c in parts.rejected.columns]
         pd.testing.assert_frame_equal(parts.rejected.drop(columns=named), whole.rejected)
         pd.testing.assert_frame_equal(parts.findings.drop(columns=named), whole.findings)
 
 
 @pytest.mark.slow
 def test_check_names_a_bad_row_of_a_folder_by_its_file_and_its_row_in_the_tape(tmp_path):
-    """``allowance check FOLDER``: exit 1, each rejected row named by its file and its row in the
-    whole tape, and rejected.csv with ``source_file``."""
+    """``allowance check FOLDER``: exit 1, each rejected row named by its file, its row in that
+    file and its row in the whole tape, and rejected.csv with ``source_file`` and ``file_row``.
+    The row is data row 101 of the tape (index 100), the 41st of b.parquet (60 rows in a.parquet)."""
     frame = FRAME.copy()
     frame.loc[100, "balance"] = "n/a"
     table = pa.Table.from_pandas(frame, preserve_index=False)
@@ -61,6 +62,7 @@ def test_check_names_a_bad_row_of_a_folder_by_its_file_and_its_row_in_the_tape(t
                            str(DEMO_ASSUMPTIONS), "--out", str(tmp_path / "out")],
                           capture_output=True, text=True, timeout=600)
     assert done.returncode == 1, done.stderr
-    assert f"{tmp_path / 'tape' / 'b.parquet'}: row 102: balance 'n/a' is not a number" in done.stdout
+    assert (f"{tmp_path / 'tape' / 'b.parquet'}: row 41 (row 101 of the tape, source_row 102 in rejected.csv): "
+            "balance 'n/a' is not a number") in done.stdout
     rejected = pd.read_csv(tmp_path / "out" / "rejected.csv")
-    assert rejected[["source_row", "source_file"]].values.tolist() == [[102, "b.parquet"]]
+    assert rejected[["source_row", "source_file", "file_row"]].values.tolist() == [[102, "b.parquet", 41]]

@@ -232,13 +232,19 @@ def _date_formats(parts: Sequence[IntakeResult], path: str) -> dict[str, str]:
     return out
 
 
-def _naming_file(result: IntakeResult, folder: str) -> IntakeResult:
-    """A part's rejected rows and findings with ``source_file`` after ``source_row``."""
+def _naming_file(result: IntakeResult, folder: str, file_first_row: int) -> IntakeResult:
+    """A part's rejected rows and findings with ``source_file`` and ``file_row`` after
+    ``source_row``: the file (relative to the folder) and the row's number in that file (its
+    first data row is 1), where ``source_row`` numbers the row in the whole tape + 1.
+    ``file_first_row`` rows of the tape come before the file."""
     name = Path(result.file.path).relative_to(folder).as_posix()
 
     def named(frame: pd.DataFrame) -> pd.DataFrame:
         frame = frame.copy()
         frame.insert(1, "source_file", pd.Series([name] * len(frame), index=frame.index, dtype=object))
+        if "source_row" in frame.columns:
+            rows = pd.to_numeric(frame["source_row"], errors="coerce") - 1 - file_first_row
+            frame.insert(2, "file_row", rows.astype("Int64"))
         return frame
 
     return dataclasses.replace(result, rejected=named(result.rejected), findings=named(result.findings))
@@ -258,8 +264,11 @@ def combine(layout: TapeLayout, parts: Sequence[Validated], config: RunConfig) -
     for p in parts:
         evidence = evidence | p.dates
     check_as_of_leaves_loans(evidence, config.assumptions.run.as_of, layout.path)
-    if Path(layout.path).is_dir():  # a folder: each row also names its file (relative to the folder)
-        results = [_naming_file(r, layout.path) for r in results]
+    if Path(layout.path).is_dir():  # a folder: each row also names its file and its row there
+        first_of_file: dict[str, int] = {}
+        for part in layout.parts:
+            first_of_file.setdefault(part.file, part.first_row)
+        results = [_naming_file(r, layout.path, first_of_file[part.file]) for r, part in zip(results, layout.parts)]
     findings = [r.findings for r in results if len(r.findings)]
     return IntakeResult(
         accepted=pd.concat([r.accepted for r in results], ignore_index=True),
