@@ -37,6 +37,8 @@ if TYPE_CHECKING:
 
 #: rows of a list printed on the console before "and N more" (the files hold them all)
 SHOWN_ROWS = 20
+#: rejected rows a run or a calibration names on screen (``check`` names SHOWN_ROWS)
+SHOWN_AFTER_RUN = 3
 
 
 def _usual_help_labels() -> None:
@@ -336,12 +338,21 @@ def _run_summary(result: Result, out: Path, files: list[Path], notes: list[str],
     }
 
 
+def _input_path(record: Mapping[str, Any], role: str) -> Path | None:
+    """The path of a run's input of ``role`` (as its run record names it), if it is a file or folder."""
+    for item in record.get("inputs", []):
+        if item.get("role") == role and item.get("path") and not str(item["path"]).startswith("<"):
+            return Path(item["path"])
+    return None
+
+
 def _print_summary(result: Result, out: Path, seconds: float, files: list[Path] = (), notes: list[str] = ()) -> None:
     summary = _run_summary(result, out, list(files), list(notes), seconds)
     _out.data(summary)
     rows = summary["rows"]
     _say(f"as of {summary['as_of']}  ({', '.join(summary['frameworks'])}, {summary['currency']})")
     _say(f"rows read {rows['read']:,}  accepted {rows['accepted']:,}  rejected {rows['rejected']:,}")
+    _say_rejected(_input_path(result.record, "tape"), result.rejected, out)
     _say(f"balance {_money(summary['balance'])}")
     for fw in summary["frameworks"]:
         line = f"allowance {fw.upper():6s} {summary['allowance'][fw]:>18,.2f}"
@@ -627,6 +638,7 @@ class Calibrated:
     calibration: object
     files: list[Path]
     seconds: float
+    history: Path | None = None
 
 
 def _calibrate_and_write(history: Path, out: Path, *, policy: Path | None = None,
@@ -637,7 +649,7 @@ def _calibrate_and_write(history: Path, out: Path, *, policy: Path | None = None
     started = time.perf_counter()
     cal = run_calibration(history, settings or {}, policy, macro=macro)
     files = write_calibration(out, cal)
-    return Calibrated(out=out, calibration=cal, files=files, seconds=time.perf_counter() - started)
+    return Calibrated(out=out, calibration=cal, files=files, seconds=time.perf_counter() - started, history=Path(history))
 
 
 def _print_calibration(done: Calibrated) -> None:
@@ -649,6 +661,7 @@ def _print_calibration(done: Calibrated) -> None:
     intake = cal.intake
     _say(f"rows read {intake.rows_read:,}  accepted {intake.rows_accepted:,}  rejected {intake.rows_rejected:,}"
          + (f"  (after the as-of month, not used: {cal.rows_after_as_of:,})" if cal.rows_after_as_of else ""))
+    _say_rejected(done.history, intake.rejected, done.out)
     start, end = cal.frame.window
     _say(f"as of {end}; window {start} to {end}; history {intake.first_month} to {intake.last_month}")
     table = segment_summary(cal)[["segment", "pd_source", "pd_detail", "lgd", "ccf", "payment_rate", "prepayment"]]
@@ -815,15 +828,30 @@ def check(
                  else "write them all to a file with --out DIR")
         _say(f"{len(rejected):,} row(s) rejected; {where}")
         shown = rejected if _out.mode == "verbose" else rejected.head(SHOWN_ROWS)
-        kind = _tape_kind(tape)
-        for row in shown.itertuples(index=False):
-            _say(f"  {_where(tape, kind, row)}: {row.reasons}")
-        if len(rejected) > len(shown):
-            _say(f"  ... and {len(rejected) - len(shown):,} more")
+        _name_rejected(tape, shown, len(rejected))
     for path in files:
         _out.detail(f"wrote {path}")
     if not checked.ok:
         raise typer.Exit(1)
+
+
+def _name_rejected(source: Path, shown: Any, total: int) -> None:
+    """Say each row of ``shown`` (rejected rows) with where it is and why, then how many more."""
+    kind = _tape_kind(source)
+    for row in shown.itertuples(index=False):
+        _say(f"  {_where(source, kind, row)}: {row.reasons}")
+    if total > len(shown):
+        _say(f"  ... and {total - len(shown):,} more")
+
+
+def _say_rejected(source: Path | None, rejected: Any, folder: Path) -> None:
+    """After a run or a calibration: how many rows were rejected, the file that holds every one
+    of them with its reasons, and the first few (all with --verbose)."""
+    if rejected is None or not len(rejected) or source is None:
+        return
+    _say(f"{len(rejected):,} row(s) rejected; all of them, with every reason, are in {folder / 'rejected.csv'}")
+    shown = rejected if _out.mode == "verbose" else rejected.head(SHOWN_AFTER_RUN)
+    _name_rejected(source, shown, len(rejected))
 
 
 def _tape_kind(tape: Path) -> str:

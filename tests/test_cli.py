@@ -257,6 +257,11 @@ def test_bad_tape_run_keeps_every_row(tmp_path):
     assert result.exit_code == 0, result.output
     read = len(pd.read_csv(bad_tape, dtype=str))
     assert len(pd.read_csv(out / "loans.csv")) + len(pd.read_csv(out / "rejected.csv")) == read
+    # the run says where the rejected rows are and names the first ones (lines 3 and 4 of the
+    # file share a loan id: read by hand)
+    assert f"10 row(s) rejected; all of them, with every reason, are in {out / 'rejected.csv'}" in result.output
+    assert f"{bad_tape}: line 3: loan_id 'MTG-100718' is also on row 4" in result.output
+    assert "  ... and 7 more" in result.output
 
 
 def test_init_copies_the_templates(tmp_path):

@@ -113,6 +113,28 @@ def test_a_history_without_a_required_column_is_one_line_and_exit_1(tmp_path):
     assert not (tmp_path / "out").exists()
 
 
+def test_a_rejected_history_row_is_named_with_its_line_and_reason(tmp_path):
+    """rows read = accepted + rejected, and the one bad row (line 17: a negative balance, counted
+    by hand) is named on screen with the file that holds every rejected row."""
+    rows = ["loan_id,segment,month,balance,days_past_due,credit_limit,charge_off,paid_off"]
+    dpd = [0, 15, 45, 75, 105, 135, 165]
+    for i, d in enumerate(dpd):
+        rows.append(f"C1,cards,2025-{i + 1:02d},900,{d},1000,,")
+        rows.append(f"C2,cards,2025-{i + 1:02d},{'0' if i == 6 else '500'},0,1000,,{'true' if i == 6 else ''}")
+    rows.append("C1,cards,2025-08,0,195,1000,980,")
+    rows.append("C3,cards,2025-01,-5,0,1000,,")
+    path = tmp_path / "h.csv"
+    path.write_text("\n".join(rows) + "\n")
+    policy = tmp_path / "policy.toml"
+    policy.write_text("[segments.cards]\nccf = 0.5\n\n[calibration]\nlgd_workout_months = 1\n")
+    result = invoke("calibrate", path, "--policy", policy, "--out", tmp_path / "out")
+    assert result.exit_code == 0, result.output
+    assert "rows read 16  accepted 15  rejected 1" in result.output
+    assert f"1 row(s) rejected; all of them, with every reason, are in {tmp_path / 'out' / 'rejected.csv'}" in result.output
+    assert f"{path}: line 17: balance '-5' is outside its range" in result.output
+    assert pd.read_csv(tmp_path / "out" / "rejected.csv")["source_row"].tolist() == [17]
+
+
 def test_a_bad_as_of_is_a_usage_error(tmp_path):
     result = invoke("calibrate", HISTORY, "--out", tmp_path / "out", "--as-of", "Sept 2026")
     assert result.exit_code == 2
