@@ -32,7 +32,7 @@ class AllowanceError(Exception):
     ...               hint="add the column or map it in [tape.columns]"))
     "tape.csv: missing required column 'balance' (fix: add the column or map it in [tape.columns])"
     >>> str(AssumptionsError("weights sum to 0.9, not 1", file="a.toml", column="scenarios"))
-    'a.toml: column scenarios: weights sum to 0.9, not 1'
+    'a.toml: key scenarios: weights sum to 0.9, not 1'
     >>> str(InputFileError("cannot be opened (entity 'lol'" + chr(10) + "  forbidden)", file="t.xlsx"))
     "t.xlsx: cannot be opened (entity 'lol' forbidden)"
     """
@@ -53,12 +53,15 @@ class AllowanceError(Exception):
         self.hint = hint
         super().__init__(str(self))
 
+    def _column_word(self) -> str:
+        return "column"
+
     def __str__(self) -> str:
         where = []
         if self.row is not None:
             where.append(f"row {self.row}")
         if self.column is not None:
-            where.append(f"column {self.column}")
+            where.append(f"{self._column_word()} {self.column}")
         text = ", ".join(where) + ": " + self.reason if where else self.reason
         if self.file is not None:
             text = f"{self.file}: {text}"
@@ -83,8 +86,17 @@ class HistoryError(AllowanceError):
 class AssumptionsError(AllowanceError):
     """The assumptions file, an overlay file or a file they name is malformed.
 
-    ``column`` carries the dotted key path (``segments.auto.lgd``) where one applies.
+    ``column`` carries the dotted key path (``segments.auto.lgd``) where one applies: named a
+    key in a TOML file (or where no file is named), a column in a CSV or workbook it names.
+
+    >>> str(AssumptionsError("unknown key 'lgdd'", file="a.toml", column="segments.auto.lgdd"))
+    "a.toml: key segments.auto.lgdd: unknown key 'lgdd'"
+    >>> str(AssumptionsError("'x' is not a probability", file="rolls.csv", row=2, column="current"))
+    "rolls.csv: row 2, column current: 'x' is not a probability"
     """
+
+    def _column_word(self) -> str:
+        return "column" if self.file is not None and not self.file.lower().endswith(".toml") else "key"
 
 
 class TieOutError(AllowanceError):

@@ -956,7 +956,7 @@ CASES: list[Case] = [
     Case("HELOC draw period not a whole number", "draw_period_months 12.5", "check", 1,
          ("draw_period_months",), (24, 23, 1), tape=heloc("150000", "12.5"), toml=heloc_segment),
     Case("HELOC segment without a CCF", "a HELOC in its draw period; [segments.heloc] states no ccf", "check", 1,
-         ("column segments.heloc.ccf", "holds 1 row(s) with undrawn amounts (tape lines 14)"),
+         ("key segments.heloc.ccf", "holds 1 row(s) with undrawn amounts (tape lines 14)"),
          tape=heloc("150000", "120")),
     Case("--charge-offs without --prior", "--charge-offs given, no --prior", "run", 2,
          ("--charge-offs", "needs --prior"),

@@ -251,7 +251,7 @@ def test_constant_hazard_returns_the_12_month_pd(pd_12m: float) -> None:
 
 
 def test_falling_cumulative_curve_names_the_year() -> None:
-    with pytest.raises(AssumptionsError, match=r"column segments\.auto\.pd_curve year 3: cumulative PD 0\.04 is below"):
+    with pytest.raises(AssumptionsError, match=r"key segments\.auto\.pd_curve year 3: cumulative PD 0\.04 is below"):
         pd_term_structure("auto", SegmentAssumptions(pd_curve=[0.02, 0.05, 0.04], lgd=0.4), 36)
     segment = SegmentAssumptions(pd_curve_by_grade={"A": [0.01, 0.02], "B": [0.06, 0.05]}, lgd=0.4)
     with pytest.raises(AssumptionsError, match=r"segments\.auto\.pd_curve_by_grade\.B year 2"):
@@ -261,7 +261,7 @@ def test_falling_cumulative_curve_names_the_year() -> None:
 def test_pd_outside_zero_one_names_the_cell() -> None:
     # pydantic bounds these at load time; the curves check again for models built in code
     bad = SegmentAssumptions.model_construct(pd_12m=1.5, lgd=0.4)
-    with pytest.raises(AssumptionsError, match=r"column segments\.auto\.pd_12m: 12-month PD 1\.5 is not a probability"):
+    with pytest.raises(AssumptionsError, match=r"key segments\.auto\.pd_12m: 12-month PD 1\.5 is not a probability"):
         pd_term_structure("auto", bad, 12)
     bad = SegmentAssumptions.model_construct(pd_12m_by_grade={"A": 0.01, "B": float("nan")}, lgd=0.4)
     with pytest.raises(AssumptionsError, match=r"segments\.auto\.pd_12m_by_grade\.B"):

@@ -67,7 +67,7 @@ def test_a_whole_file_error_after_an_overlay_says_so(tmp_path):
 def test_an_overlay_file_may_not_name_an_entry_twice(tmp_path):
     base = write(tmp_path, "a.toml", INTAKE_ASSUMPTIONS)
     overlay = write(tmp_path, "o.toml", OVERLAY_ENTRY.format(name="x", value=0.1) + OVERLAY_ENTRY.format(name="x", value=0.2))
-    with pytest.raises(AssumptionsError, match=r"o\.toml: column overlays: overlay names must be unique within a file: 'x'"):
+    with pytest.raises(AssumptionsError, match=r"o\.toml: key overlays: overlay names must be unique within a file: 'x'"):
         load_assumptions(base, [overlay])
 
 
@@ -83,10 +83,10 @@ def test_unknown_key_names_file_key_and_suggestion(tmp_path):
     with pytest.raises(AssumptionsError) as err:
         load_assumptions(path)
     assert err.value.column == "segments.retail.lgdd"
-    assert str(err.value).startswith(f"{path}: column segments.retail.lgdd: unknown key 'lgdd' (did you mean 'lgd'?)")
+    assert str(err.value).startswith(f"{path}: key segments.retail.lgdd: unknown key 'lgdd' (did you mean 'lgd'?)")
     # lgd is optional for a loss-rate segment, so its absence shows once the typo is gone
     path = write(tmp_path, "b.toml", INTAKE_ASSUMPTIONS.replace("lgd = 0.4\n", ""))
-    with pytest.raises(AssumptionsError, match=r"column segments\.retail: pd_\w+ needs lgd") as err:
+    with pytest.raises(AssumptionsError, match=r"key segments\.retail: pd_\w+ needs lgd") as err:
         load_assumptions(path)
 
 

@@ -118,7 +118,7 @@ def validate_matrix(name: str, matrix: TransitionMatrix, charge_off_dpd: int) ->
     >>> validate_matrix("auto", TransitionMatrix(states=states, probabilities=rows), 120)
     Traceback (most recent call last):
     ...
-    allowance.exceptions.AssumptionsError: column segments.auto.transition_matrix row dpd_30_59: \
+    allowance.exceptions.AssumptionsError: key segments.auto.transition_matrix row dpd_30_59: \
 the row sums to 1.1, not 1 (fix: make each row's probabilities add up to 1 within 1e-09)
     """
     if charge_off_dpd not in DELINQUENCY_BUCKETS:
