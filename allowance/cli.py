@@ -163,8 +163,8 @@ TapeArgument = Annotated[
 ]
 QuietOption = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
 VerboseOption = Annotated[
-    bool, typer.Option("--verbose", "-v", help="Also print each input file's SHA-256, the time of each phase "
-                                               "and every file written.")
+    bool, typer.Option("--verbose", "-v", help="Also print each input file's SHA-256, the time of each phase, "
+                                               "every file written and every rejected row.")
 ]
 JsonOption = Annotated[
     bool, typer.Option("--json", help="Print one machine-readable summary (JSON) on standard output, nothing else.")
