@@ -20,7 +20,7 @@ import json
 import shlex
 import sys
 import time
-from collections.abc import Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -171,6 +171,26 @@ JsonOption = Annotated[
 ]
 Framework = Literal["ifrs9", "cecl"]
 Engine = Literal["in-process", "dask"]  # where the chunks run (allowance.cluster)
+
+
+def _one_of(*choices: str) -> Callable[[str | None], str | None]:
+    """An option's check: one of ``choices``, else a usage error that names them (the
+    command line's own wording, not a validation library's).
+
+    >>> _one_of("binomial", "jeffreys")("jeffreys")
+    'jeffreys'
+    >>> try:
+    ...     _one_of("binomial", "jeffreys")("exact")
+    ... except typer.BadParameter as err:
+    ...     print(err)
+    'exact' is not one of binomial, jeffreys
+    """
+    def check(value: str | None) -> str | None:
+        if value is not None and value not in choices:
+            raise typer.BadParameter(f"{value!r} is not one of {', '.join(choices)}")
+        return value
+
+    return check
 Mode = Literal["normal", "quiet", "verbose", "json"]
 
 
@@ -448,7 +468,8 @@ def run(
                            help="Also each scenario alone at 100 % weight, restaged (in the same pass).")
     ] = True,
     engine: Annotated[
-        Engine, typer.Option("--engine", help="Where the loans are computed: this process, or a Dask cluster (same answer).")
+        str, typer.Option("--engine", metavar="in-process|dask", callback=_one_of("in-process", "dask"),
+                          help="Where the loans are computed: this process, or a Dask cluster (same answer).")
     ] = "in-process",
     workers: Annotated[
         int | None, typer.Option("--workers", min=1, metavar="N",
@@ -913,7 +934,8 @@ def schedule(
     assumptions: AssumptionsOption,
     loan: Annotated[str, typer.Option("--loan", metavar="LOAN_ID", help="The loan_id to schedule.")],
     framework: Annotated[
-        Framework | None, typer.Option("--framework", help="The framework (default: the first listed).")
+        str | None, typer.Option("--framework", metavar="ifrs9|cecl", callback=_one_of("ifrs9", "cecl"),
+                                 help="The framework (default: the first listed).")
     ] = None,
     scenario: Annotated[
         str | None, typer.Option("--scenario", metavar="NAME", help="Scenario whose PDs are shown (default: the first).")
@@ -1055,7 +1077,8 @@ def backtest(
     confidence: Annotated[float, typer.Option(metavar="LEVEL", help="Two-sided confidence of the default-rate intervals.")] = 0.95,
     yellow_p: Annotated[float, typer.Option(metavar="P", help="Yellow light below this p-value.")] = 0.05,
     red_p: Annotated[float, typer.Option(metavar="P", help="Red light below this p-value.")] = 0.001,
-    test: Annotated[str, typer.Option(metavar="binomial|jeffreys", help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
+    test: Annotated[str, typer.Option(metavar="binomial|jeffreys", callback=_one_of("binomial", "jeffreys"),
+                                      help="Test behind a grade's light: binomial or jeffreys.")] = "binomial",
     quiet: QuietOption = False,
     verbose: VerboseOption = False,
     as_json: JsonOption = False,
@@ -1072,9 +1095,12 @@ def backtest(
 
     try:
         options = BacktestOptions(confidence=confidence, yellow_p=yellow_p, red_p=red_p, test=test)
-    except ValidationError as err:
-        typer.echo(f"usage: {err.errors()[0]['msg']}", err=True)
-        raise typer.Exit(2) from err
+    except ValidationError as err:  # a value out of its range, or the two p-values out of order
+        first = err.errors()[0]
+        name = str(first["loc"][0]) if first.get("loc") else ""
+        reason = str(first["msg"]).removeprefix("Value error, ")
+        hint = f"'--{name.replace('_', '-')}'" if name else "'--yellow-p' / '--red-p'"
+        raise typer.BadParameter(f"{reason}, not {first['input']!r}" if name else reason, param_hint=hint) from None
     try:
         result, record = backtest_files(run_dir, history, options)
         written = write_backtest(out, result, record)

@@ -241,6 +241,27 @@ def test_a_rejected_row_is_named_in_its_files_own_terms(tmp_path):
     assert said["tape.parquet"][0].startswith(f"{tmp_path / 'tape.parquet'}: row 3 (source_row 4 in rejected.csv): ")
 
 
+@pytest.mark.parametrize("args, said", [
+    (("run", TAPE, "--assumptions", ASSUMPTIONS, "--out", "o", "--engine", "threads"),
+     "Invalid value for '--engine': 'threads' is not one of in-process, dask"),
+    (("schedule", TAPE, "--assumptions", ASSUMPTIONS, "--loan", "X", "--framework", "ifrs17"),
+     "Invalid value for '--framework': 'ifrs17' is not one of ifrs9, cecl"),
+    (("backtest", "run", "history.csv", "--out", "o", "--test", "exact"),
+     "Invalid value for '--test': 'exact' is not one of binomial, jeffreys"),
+    (("backtest", "run", "history.csv", "--out", "o", "--confidence", "1.5"),
+     "Invalid value for '--confidence': Input should be less than 1, not 1.5"),
+    (("backtest", "run", "history.csv", "--out", "o", "--red-p", "0.1"),
+     "Invalid value for '--yellow-p' / '--red-p': red_p must be below yellow_p"),
+])
+def test_an_option_out_of_its_choices_is_a_usage_error_naming_it(tmp_path, args, said):
+    """Exit 2 with the option and its choices or range in the command line's own words (no
+    validation library's prefix), before any file is read."""
+    result = runner.invoke(app, [str(a) for a in args])
+    assert result.exit_code == 2
+    assert said in " ".join(result.output.split())
+    assert "Value error" not in result.output and "Traceback" not in result.output
+
+
 def test_check_passes_the_demo_and_fails_the_bad_tape():
     good = invoke("check", TAPE, "--assumptions", ASSUMPTIONS)
     assert good.exit_code == 0, good.output
