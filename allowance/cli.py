@@ -169,8 +169,6 @@ VerboseOption = Annotated[
 JsonOption = Annotated[
     bool, typer.Option("--json", help="Print one machine-readable summary (JSON) on standard output, nothing else.")
 ]
-Framework = Literal["ifrs9", "cecl"]
-Engine = Literal["in-process", "dask"]  # where the chunks run (allowance.cluster)
 
 
 def _one_of(*choices: str) -> Callable[[str | None], str | None]:
