@@ -518,6 +518,15 @@ def test_the_lines_that_cannot_be_isolated_are_named_with_the_reason():
     text = " | ".join(m.not_isolated)
     assert "not rerun at the prior run's assumptions" in text
     assert "no discount_rate_ifrs9" in text and "no modified flag" in text
+    # the line says on its face what it holds, in the summary and the detail tables alike
+    said = "Remeasurement (incl. assumption and model changes, the discount unwind and modifications: not isolated)"
+    for table in (m.allowance, m.allowance_detail):
+        assert set(table.loc[table["line"] == "remeasurement", "label"]) == {said}
+    # with everything isolated (a rerun at prior assumptions, the rates, the two dates, the flag)
+    rerun = pd.DataFrame({"loan_id": ["a", "b", "p"], "ecl_ifrs9_modelled": [104.0, 52.0, 140.0]})
+    whole = movement(prior, current, rerun, None, "ifrs9", prior_as_of=date(2026, 6, 30), current_as_of=date(2026, 9, 30))
+    assert set(whole.allowance.loc[whole.allowance["line"] == "remeasurement", "label"]) == {
+        "Remeasurement at prior assumptions"}
 
 
 def test_model_changes_have_their_own_line():

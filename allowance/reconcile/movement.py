@@ -60,11 +60,11 @@ from allowance.reconcile.blocks import Blocks
 from allowance.reconcile.runs import STATUSES, Book, Bridge, LoanIds, RunLoans, bridge
 from allowance.reconcile.tables import (
     _ALLOWANCE_BODY, _GROSS_BODY, LEDGER, _check_long, _ledger, _line_order, _long, _slug, _transfer_lines, _wide,
-    check_movement, journal, rollforward, write_off_bridge,
+    MOVEMENT_LINES, check_movement, journal, rollforward, write_off_bridge,
 )
 from allowance.schemas import FRAMEWORKS, Framework
 
-__all__ = ["LoanColumns", "Movement", "compare_runs", "movement"]
+__all__ = ["LoanColumns", "Movement", "compare_runs", "movement", "remeasurement_label"]
 
 
 @dataclass(frozen=True)
@@ -282,6 +282,10 @@ def _movement(book: Book, framework: Framework, months: int | None,
         _check_long(detail, detail_order, f"{framework} {kind} movement by segment and class")
         tables[kind] = (wide, detail)
 
+    rerun, modified = book.rerun is not None, book.current.has("modified")
+    label = remeasurement_label(rerun, has_rates and months is not None, modified)
+    if label != MOVEMENT_LINES["remeasurement"]:  # what the line holds, on the line itself
+        tables["allowance"] = tuple(_relabelled(t, "remeasurement", label) for t in tables["allowance"])
     opening_total, closing_total = int(loans.amounts["opening"].sum()), int(loans.amounts["closing"].sum())
     allowance = tables["allowance"][0].set_index("line")["total"]
     if round(allowance["opening"] * 100) != opening_total or round(allowance["closing"] * 100) != closing_total:
@@ -314,9 +318,41 @@ def _movement(book: Book, framework: Framework, months: int | None,
         assumptions_isolated=book.rerun is not None,
         notes=tuple(notes),
         write_offs=write_offs,
-        not_isolated=_not_isolated(framework, book.rerun is not None, method_changes is not None, has_rates, months,
-                                   book.current.has("modified")),
+        not_isolated=_not_isolated(framework, rerun, method_changes is not None, has_rates, months, modified),
     )
+
+
+def remeasurement_label(rerun: bool, unwind: bool, modified: bool) -> str:
+    """The remeasurement line's label, naming what the inputs could not take out of it.
+
+    With a rerun of the current tape at the prior run's assumptions, the unwind of the
+    discount and the ``modified`` flag, remeasurement is the change at prior assumptions
+    (IFRS 7 35H-35I and ASC 326-20-50-13 ask for the changes by cause); each one missing
+    leaves its amount in the line, and the label says so (the notes say why).
+
+    >>> remeasurement_label(True, True, True)
+    'Remeasurement at prior assumptions'
+    >>> remeasurement_label(False, True, True)
+    'Remeasurement (incl. assumption and model changes: not isolated)'
+    >>> remeasurement_label(True, False, False)
+    'Remeasurement at prior assumptions (incl. the discount unwind and modifications: not isolated)'
+    """
+    held = ([] if rerun else ["assumption and model changes"]) + ([] if unwind else ["the discount unwind"]) + \
+        ([] if modified else ["modifications"])
+    base = MOVEMENT_LINES["remeasurement"] if rerun else "Remeasurement"
+    if not held:
+        return base
+    listed = held[0] if len(held) == 1 else ", ".join(held[:-1]) + " and " + held[-1]
+    return f"{base} (incl. {listed}: not isolated)"
+
+
+def _relabelled(table: pd.DataFrame, line: str, label: str) -> pd.DataFrame:
+    """``table`` with ``line``'s label replaced (a movement table's ``label`` column)."""
+    if "label" not in table.columns:
+        return table
+    table = table.copy()
+    table.loc[table["line"] == line, "label"] = label
+    return table
 
 
 def _present(names: list[str], *codes: np.ndarray) -> set[str]:
