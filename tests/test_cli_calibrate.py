@@ -135,6 +135,16 @@ def test_a_rejected_history_row_is_named_with_its_line_and_reason(tmp_path):
     assert pd.read_csv(tmp_path / "out" / "rejected.csv")["source_row"].tolist() == [17]
 
 
+def test_a_history_separated_by_semicolons_is_one_line_saying_so(tmp_path):
+    path = tmp_path / "h.csv"
+    path.write_text("loan_id;segment;month;balance;days_past_due\nA;auto;2026-01;5;0\n")
+    result = invoke("calibrate", path, "--out", tmp_path / "out")
+    assert result.exit_code == 1
+    assert "joined by semicolons: the file is separated by semicolons, not commas" in result.output
+    assert "or as Parquet" in result.output and "missing required" not in result.output
+    assert not (tmp_path / "out").exists()
+
+
 def test_a_bad_as_of_is_a_usage_error(tmp_path):
     result = invoke("calibrate", HISTORY, "--out", tmp_path / "out", "--as-of", "Sept 2026")
     assert result.exit_code == 2

@@ -8,12 +8,13 @@ import importlib.resources
 import zipfile
 from dataclasses import dataclass
 from pathlib import Path
+from collections.abc import Callable, Collection
 from typing import Literal
 
 import numpy as np
 
 import allowance
-from allowance.exceptions import InputFileError
+from allowance.exceptions import AllowanceError, InputFileError
 from allowance.schemas import InputFile
 
 FileKind = Literal["csv", "xlsx", "parquet"]
@@ -325,3 +326,34 @@ def bundled_path(kind: Literal["demo", "templates"]) -> Path:
         file=str(beside),
         hint="reinstall the package",
     )
+
+
+#: separators other than the comma a spreadsheet's CSV export may use (a locale with decimal commas)
+_OTHER_SEPARATORS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
+
+
+def refuse_other_separators(headers: list[str], known: Collection[str], norm: Callable[[str], str], file: str | Path,
+                            error: type[AllowanceError] = InputFileError, what: str = "file",
+                            instead: str = "XLSX") -> None:
+    """Raise ``error`` when a header holds two or more of the ``known`` column names (as
+    ``norm`` matches them) joined by ``;``, a tab or ``|``: a file separated by something other
+    than commas. One clear error, rather than every required column reported missing;
+    ``instead`` names the other format the reader takes.
+
+    >>> refuse_other_separators(["loan_id;segment;balance"], {"loan_id", "segment"}, str.strip, "t.csv", what="tape")
+    Traceback (most recent call last):
+    ...
+    allowance.exceptions.InputFileError: t.csv: the header 'loan_id;segment;balance' holds the column names joined by semicolons: the file is separated by semicolons, not commas (fix: save the tape as CSV with commas between values (in a spreadsheet: CSV, comma delimited), or as XLSX)
+    >>> refuse_other_separators(["loan_id", "segment"], {"loan_id", "segment"}, str.strip, "t.csv")
+    """
+    for header in headers:
+        for mark, word in _OTHER_SEPARATORS.items():
+            names = [norm(part) for part in header.split(mark)]
+            if len(names) > 1 and sum(n in known for n in names) >= 2:
+                shown = header if len(header) <= 60 else header[:57] + "..."
+                raise error(
+                    f"the header {shown!r} holds the column names joined by {word}: the file is separated by "
+                    f"{word}, not commas", file=file,
+                    hint=f"save the {what} as CSV with commas between values (in a spreadsheet: CSV, comma "
+                         f"delimited), or as {instead}",
+                )

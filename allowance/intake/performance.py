@@ -29,7 +29,7 @@ import pyarrow.compute as pc
 
 from allowance.exceptions import HistoryError
 from allowance.intake.fields import FieldSpec, _spec
-from allowance.intake.files import check_size
+from allowance.intake.files import check_size, refuse_other_separators
 from allowance.intake.panel import (
     CASH_IN,
     NO_MONTH,
@@ -169,6 +169,8 @@ def map_history_columns(headers: list[str], mapping: dict[str, str], file: str |
             near = f" (close: {', '.join(repr(headers[positions[c][0]]) for c in close)})" if close else ""
             missing.append(f"{name!r}{near}")
     if missing:
+        refuse_other_separators(headers, {_norm(mapping.get(name, name)) for name in HISTORY_FIELDS}, _norm, file,
+                                HistoryError, "history", "Parquet")
         raise HistoryError(
             f"missing required column{'s' if len(missing) > 1 else ''}: {', '.join(missing)}",
             file=file,

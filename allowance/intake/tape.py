@@ -25,7 +25,7 @@ import pyarrow.compute as pc
 
 from allowance.exceptions import TapeError
 from allowance.intake.fields import FIELDS, INT_COLUMNS
-from allowance.intake.files import check_size, file_kind
+from allowance.intake.files import check_size, file_kind, refuse_other_separators
 from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_arrow, parse_dates
 from allowance.intake.readers import Malformed, RawTape, as_text, read_frame, read_raw
 from allowance.intake.results import IntakeResult, Later, extra_columns_note
@@ -119,6 +119,8 @@ def map_columns(headers: list[str], mapping: dict[str, str], file: str | Path) -
             near = f" (close: {', '.join(map(repr, originals))})" if originals else ""
             missing.append(f"{name!r}{mapped}{near}")
     if missing:
+        refuse_other_separators(headers, {_norm(mapping.get(name, name)) for name in FIELDS}, _norm, file,
+                                TapeError, "tape")
         plural = "s" if len(missing) > 1 else ""
         raise TapeError(
             f"missing required column{plural}: {', '.join(missing)}",
