@@ -67,3 +67,20 @@ def test_every_problem_names_its_row_and_column(tmp_path, text, row, column, mes
         read_macro_history(path)
     err = info.value
     assert err.row == row and err.column == column and str(path) in str(err)
+
+
+def test_a_file_separated_by_semicolons_says_so(tmp_path):
+    """A decimal-comma locale's CSV export: one error naming the separator, not 'no period column'."""
+    path = tmp_path / "macro.csv"
+    path.write_text("quarter;unemployment_rate\n2026Q1;4.1\n2026Q2;4.3\n")
+    with pytest.raises(InputFileError, match="joined by semicolons: the file is separated by semicolons, not commas"):
+        read_macro_history(path)
+
+
+def test_a_charge_off_file_separated_by_tabs_says_so(tmp_path):
+    from allowance.intake.history import read_charge_offs
+
+    path = tmp_path / "charge_offs.csv"
+    path.write_text("loan_id\tgross_charge_off\trecoveries\nA-1\t100.00\t0.00\n")
+    with pytest.raises(InputFileError, match="joined by tabs: the file is separated by tabs, not commas"):
+        read_charge_offs(path)

@@ -334,8 +334,8 @@ _OTHER_SEPARATORS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
 
 def refuse_other_separators(headers: list[str], known: Collection[str], norm: Callable[[str], str], file: str | Path,
                             error: type[AllowanceError] = InputFileError, what: str = "file",
-                            instead: str = "XLSX") -> None:
-    """Raise ``error`` when a header holds two or more of the ``known`` column names (as
+                            instead: str = "XLSX", least: int = 2) -> None:
+    """Raise ``error`` when a header holds ``least`` or more of the ``known`` column names (as
     ``norm`` matches them) joined by ``;``, a tab or ``|``: a file separated by something other
     than commas. One clear error, rather than every required column reported missing;
     ``instead`` names the other format the reader takes.
@@ -349,7 +349,7 @@ def refuse_other_separators(headers: list[str], known: Collection[str], norm: Ca
     for header in headers:
         for mark, word in _OTHER_SEPARATORS.items():
             names = [norm(part) for part in header.split(mark)]
-            if len(names) > 1 and sum(n in known for n in names) >= 2:
+            if len(names) > 1 and sum(n in known for n in names) >= least:
                 shown = header if len(header) <= 60 else header[:57] + "..."
                 raise error(
                     f"the header {shown!r} holds the column names joined by {word}: the file is separated by "

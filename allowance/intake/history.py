@@ -15,7 +15,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 
 from allowance.exceptions import InputFileError
 from allowance.intake.fields import FIELDS
-from allowance.intake.files import check_size, file_kind
+from allowance.intake.files import check_size, file_kind, refuse_other_separators
 from allowance.intake.parse import NUMBER_PATTERN
 from allowance.intake.readers import read_raw
 from allowance.schemas import Framework
@@ -58,6 +58,8 @@ def read_charge_offs(path: Path, max_mb: float = 2048.0) -> pd.DataFrame:
     where = {h.strip().casefold(): i for i, h in enumerate(raw.headers)}
     missing = [c for c in CHARGE_OFF_COLUMNS if c not in where]
     if missing:
+        refuse_other_separators(list(raw.headers), {*CHARGE_OFF_COLUMNS, "segment"}, lambda h: h.strip().casefold(),
+                                path, what="charge-off file", instead="XLSX or Parquet")
         raise InputFileError(
             f"missing column{'s' if len(missing) > 1 else ''}: {', '.join(missing)}",
             file=path,

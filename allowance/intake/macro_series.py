@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 
 from allowance.exceptions import InputFileError
-from allowance.intake.files import check_size, file_kind
+from allowance.intake.files import check_size, file_kind, refuse_other_separators
 from allowance.intake.parse import NUMBER_PATTERN
 from allowance.intake.readers import read_raw
 from allowance.schemas import Interpolation
@@ -141,6 +141,8 @@ def read_macro_history(path: Path, max_mb: float = 2048.0) -> MacroHistory:
     headers = [h.strip() for h in raw.headers]
     found = [h for h in headers if h.casefold() in _PERIOD_COLUMNS]
     if len(found) != 1:
+        refuse_other_separators(headers, set(_PERIOD_COLUMNS), str.casefold, path, what="macro history",
+                                instead="XLSX or Parquet", least=1)
         raise InputFileError(
             "needs exactly one period column, 'month' or 'quarter'" + (f" (found {', '.join(found)})" if found else ""),
             file=path, row=1, hint="e.g. the header month,unemployment_rate,house_price_index",
