@@ -183,6 +183,41 @@ def _prior_frameworks(record: Mapping) -> list[str]:
     return list(record.get("frameworks") or record.get("assumptions", {}).get("run", {}).get("frameworks", []))
 
 
+def _record_currency(record: Mapping | None) -> str | None:
+    record = record or {}
+    return record.get("currency") or record.get("assumptions", {}).get("run", {}).get("currency")
+
+
+def _early_record(folder: Path) -> dict | None:
+    """A prior run's record read before the run computes, to refuse a mismatch at once; None
+    when it cannot be read (the prior run is read again later, and its errors are raised there)."""
+    from allowance.intake.history import read_run_record
+
+    try:
+        return read_run_record(folder / "run.json")
+    except (AllowanceError, OSError, ValueError):
+        return None
+
+
+def _same_currency(prior: Mapping | None, current: str | None, source: str) -> None:
+    """Refuse a movement between runs in two currencies: the opening and closing allowance would
+    be added in different units (a run records its currency; an older record without it passes).
+
+    >>> _same_currency({"currency": "USD"}, "USD", "q2")
+    >>> _same_currency({"currency": "EUR"}, "USD", "q2")
+    Traceback (most recent call last):
+    ...
+    allowance.exceptions.MovementError: q2: the prior run's amounts are in EUR and this run's in USD: a movement needs both in one currency (fix: run the prior quarter again in USD, or this one in EUR)
+    """
+    from allowance.exceptions import MovementError
+
+    before = _record_currency(prior)
+    if before and current and before != current:
+        raise MovementError(f"the prior run's amounts are in {before} and this run's in {current}: a movement needs "
+                            "both in one currency", file=source,
+                            hint=f"run the prior quarter again in {current}, or this one in {before}")
+
+
 def _rerun_at_prior_assumptions(tape: pd.DataFrame, config: RunConfig, record: Mapping,
                                 compute: Callable[..., pd.DataFrame]) -> pd.DataFrame | None:
     """This quarter's tape under last quarter's assumptions: isolates assumption changes. Only
@@ -404,6 +439,7 @@ def run(
     # the core the single-threaded steps leave idle. Its errors are raised where it is used.
     reading_prior = None
     if prior is not None and not isinstance(prior, Result):
+        _same_currency(_early_record(Path(prior)), config.assumptions.run.currency, str(Path(prior) / "run.json"))
         reader = ThreadPoolExecutor(1, thread_name_prefix="allowance-prior")
         reading_prior = reader.submit(given_back, _prior, prior, vintages=charge_offs is not None)
         reader.shutdown(wait=False)  # the thread ends with its one task
@@ -471,6 +507,9 @@ def run(
         previous, prior_inputs = (reading_prior.result() if reading_prior is not None
                                   else _prior(prior, vintages=charge_offs is not None))
         reading_prior = None
+        _same_currency(previous.record, config.assumptions.run.currency,
+                       str(Path(prior) / "run.json") if not isinstance(prior, Result) else previous.source)
+        prior_frameworks = _prior_frameworks(previous.record)
         cos, co_inputs, co_source = _charge_offs(charge_offs)
         inputs += co_inputs + prior_inputs
         at_prior = _rerun_at_prior_assumptions(taken.accepted, config, previous.record,
@@ -486,7 +525,7 @@ def run(
         movements = reconcile.compare_runs(
             previous.loans, result.loans, charge_offs=cos,
             current_at_prior_assumptions=at_prior,
-            frameworks=[fw for fw in config.frameworks if fw in _prior_frameworks(previous.record)],
+            frameworks=[fw for fw in config.frameworks if fw in prior_frameworks],
             sources={"prior": previous.source, "current": "this run", **({"charge_offs": co_source} if co_source else {})},
             prior_as_of=_record_as_of(previous.record), current_as_of=config.as_of,
             method_changes=_method_changes(previous.record, config.assumptions.model_dump(mode="json")),
@@ -503,6 +542,14 @@ def run(
 
     config = config.model_copy(update={"inputs": inputs})
     warnings = [*taken.notes, *result.warnings]  # tape-level notes: renamed columns, lines in values
+    if movements is not None:
+        unmatched = [fw for fw in config.frameworks if fw not in movements]
+        if unmatched:
+            from allowance.frameworks import FRAMEWORK_RULES
+
+            warnings.append(f"no {' or '.join(FRAMEWORK_RULES[fw].label for fw in unmatched)} movement: the "
+                            f"prior run did not compute {' or '.join(unmatched)} (it computed "
+                            f"{', '.join(prior_frameworks) or 'no framework it records'})")
     if movements is not None and not rerun:
         warnings.append("the prior run's assumptions could not be applied to this tape; "
                         "assumption changes are included in remeasurement")
@@ -674,6 +721,8 @@ def compare(prior: str | os.PathLike | Result, current: str | os.PathLike | Resu
     before, _ = _prior(prior, recorded=False)  # no run record is written: the files are not hashed
     after, _ = _prior(current, "current", recorded=False)
     cos, _, _ = _charge_offs(charge_offs)
+    _same_currency(before.record, _record_currency(after.record),
+                   str(Path(prior) / "run.json") if not isinstance(prior, Result) else "the prior result")
     frameworks = [fw for fw in _prior_frameworks(after.record) if fw in _prior_frameworks(before.record)]
     return reconcile.compare_runs(before.loans, after.loans, charge_offs=cos, frameworks=frameworks,
                                   sources={"prior": str(prior) if not isinstance(prior, Result) else "prior",

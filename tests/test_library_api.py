@@ -229,3 +229,27 @@ def test_totals_table_equals_a_group_by_on_the_labels(stage_dtype):
         mine = table[table["framework"] == fw]
         got = list(zip(mine["stage"], mine["segment"], mine["loans"], mine["balance"], mine["allowance"]))
         assert got == _totals_by_pandas(loans, fw, staged)
+
+
+def test_a_movement_between_two_currencies_is_refused_and_a_framework_the_prior_lacks_is_said(tmp_path):
+    """Opening and closing in different currencies would be added as one number: refused (the
+    prior folder's run.json is read before the run computes); a framework the prior run did not
+    compute has no movement, and the run says so (common practice, no source)."""
+    part = _tape_frame().head(200)
+    euros = _assumptions_mapping()
+    euros["run"] = {**euros["run"], "currency": "EUR", "frameworks": ["ifrs9"]}
+    before = allowance.run(part, euros, sensitivities=False, accept_ledger_difference=True)
+    before.write(tmp_path / "prior")
+    with pytest.raises(allowance.AllowanceError, match=r"prior run's amounts are in EUR and this run's in USD") as info:
+        allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, accept_ledger_difference=True,
+                      prior=tmp_path / "prior")
+    assert str(tmp_path / "prior" / "run.json") in str(info.value)
+    now = allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, accept_ledger_difference=True)
+    with pytest.raises(allowance.AllowanceError, match="a movement needs both in one currency"):
+        allowance.compare(tmp_path / "prior", now)
+    dollars = _assumptions_mapping()
+    dollars["run"] = {**dollars["run"], "frameworks": ["ifrs9"]}
+    then = allowance.run(part, dollars, sensitivities=False, accept_ledger_difference=True)
+    moved = allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, accept_ledger_difference=True, prior=then)
+    assert list(moved.movement) == ["ifrs9"]
+    assert any(w.startswith("no CECL movement: the prior run did not compute cecl") for w in moved.warnings)
