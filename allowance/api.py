@@ -190,7 +190,8 @@ def _record_currency(record: Mapping | None) -> str | None:
 
 def _early_record(folder: Path) -> dict | None:
     """A prior run's record read before the run computes, to refuse a mismatch at once; None
-    when it cannot be read (the prior run is read again later, and its errors are raised there)."""
+    when it cannot be read (the prior run is read again later by the same reader,
+    :func:`allowance.intake.history.read_run_record`, and its errors are raised there)."""
     from allowance.intake.history import read_run_record
 
     try:
@@ -438,7 +439,9 @@ def run(
     # own while the tape is read and computed: Arrow parses and hashlib hashes outside the GIL, on
     # the core the single-threaded steps leave idle. Its errors are raised where it is used.
     reading_prior = None
-    if prior is not None and not isinstance(prior, Result):
+    if isinstance(prior, Result):  # refused before anything is computed
+        _same_currency(prior.record, config.assumptions.run.currency, "the prior result")
+    elif prior is not None:
         _same_currency(_early_record(Path(prior)), config.assumptions.run.currency, str(Path(prior) / "run.json"))
         reader = ThreadPoolExecutor(1, thread_name_prefix="allowance-prior")
         reading_prior = reader.submit(given_back, _prior, prior, vintages=charge_offs is not None)
@@ -507,8 +510,6 @@ def run(
         previous, prior_inputs = (reading_prior.result() if reading_prior is not None
                                   else _prior(prior, vintages=charge_offs is not None))
         reading_prior = None
-        _same_currency(previous.record, config.assumptions.run.currency,
-                       str(Path(prior) / "run.json") if not isinstance(prior, Result) else previous.source)
         prior_frameworks = _prior_frameworks(previous.record)
         cos, co_inputs, co_source = _charge_offs(charge_offs)
         inputs += co_inputs + prior_inputs

@@ -113,20 +113,25 @@ def test_a_history_without_a_required_column_is_one_line_and_exit_1(tmp_path):
     assert not (tmp_path / "out").exists()
 
 
-def test_a_rejected_history_row_is_named_with_its_line_and_reason(tmp_path):
-    """rows read = accepted + rejected, and the one bad row (line 17: a negative balance, counted
-    by hand) is named on screen with the file that holds every rejected row."""
+def _two_cards(tmp_path, *more_rows: str):
+    """A small history of our own (16 lines with the header): two cards, one rolls to
+    charge-off, one pays off, then ``more_rows``; and a policy for it. Returns both paths."""
     rows = ["loan_id,segment,month,balance,days_past_due,credit_limit,charge_off,paid_off"]
-    dpd = [0, 15, 45, 75, 105, 135, 165]
-    for i, d in enumerate(dpd):
+    for i, d in enumerate([0, 15, 45, 75, 105, 135, 165]):
         rows.append(f"C1,cards,2025-{i + 1:02d},900,{d},1000,,")
         rows.append(f"C2,cards,2025-{i + 1:02d},{'0' if i == 6 else '500'},0,1000,,{'true' if i == 6 else ''}")
-    rows.append("C1,cards,2025-08,0,195,1000,980,")
-    rows.append("C3,cards,2025-01,-5,0,1000,,")
+    rows += ["C1,cards,2025-08,0,195,1000,980,", *more_rows]
     path = tmp_path / "h.csv"
     path.write_text("\n".join(rows) + "\n")
     policy = tmp_path / "policy.toml"
     policy.write_text("[segments.cards]\nccf = 0.5\n\n[calibration]\nlgd_workout_months = 1\n")
+    return path, policy
+
+
+def test_a_rejected_history_row_is_named_with_its_line_and_reason(tmp_path):
+    """rows read = accepted + rejected, and the one bad row (line 17: a negative balance, counted
+    by hand) is named on screen with the file that holds every rejected row."""
+    path, policy = _two_cards(tmp_path, "C3,cards,2025-01,-5,0,1000,,")
     result = invoke("calibrate", path, "--policy", policy, "--out", tmp_path / "out")
     assert result.exit_code == 0, result.output
     assert "rows read 16  accepted 15  rejected 1" in result.output
@@ -151,17 +156,7 @@ def test_a_bad_as_of_is_a_usage_error(tmp_path):
 
 
 def test_rows_of_the_rolls_file_sum_to_one(tmp_path):
-    # a small history of our own: two cards, one rolls to charge-off, one pays off
-    rows = ["loan_id,segment,month,balance,days_past_due,credit_limit,charge_off,paid_off"]
-    dpd = [0, 15, 45, 75, 105, 135, 165]
-    for i, d in enumerate(dpd):
-        rows.append(f"C1,cards,2025-{i + 1:02d},900,{d},1000,,")
-        rows.append(f"C2,cards,2025-{i + 1:02d},{'0' if i == 6 else '500'},0,1000,,{'true' if i == 6 else ''}")
-    rows.append("C1,cards,2025-08,0,195,1000,980,")
-    path = tmp_path / "h.csv"
-    path.write_text("\n".join(rows) + "\n")
-    policy = tmp_path / "policy.toml"
-    policy.write_text("[segments.cards]\nccf = 0.5\n\n[calibration]\nlgd_workout_months = 1\n")
+    path, policy = _two_cards(tmp_path)
     result = invoke("calibrate", path, "--policy", policy, "--out", tmp_path / "out")
     assert result.exit_code == 0, result.output
     matrix = pd.read_csv(tmp_path / "out" / "rolls_cards.csv", index_col="from")

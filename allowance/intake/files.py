@@ -6,9 +6,9 @@ import codecs
 import hashlib
 import importlib.resources
 import zipfile
+from collections.abc import Callable, Collection
 from dataclasses import dataclass
 from pathlib import Path
-from collections.abc import Callable, Collection
 from typing import Literal
 
 import numpy as np

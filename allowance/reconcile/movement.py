@@ -266,7 +266,10 @@ def _movement(book: Book, framework: Framework, months: int | None,
     else:
         main_dim = "segment"
         main_cols = sorted(_present(loans.segments, loans.segment_prior, loans.segment), key=str)
-    labels = {f"transfer_to_{_slug(k)}": k for k in classes}
+    rerun, modified = book.rerun is not None, book.current.has("modified")
+    # what the inputs could not isolate stays in remeasurement, and its label says so
+    labels = {f"transfer_to_{_slug(k)}": k for k in classes} | {
+        "remeasurement": remeasurement_label(rerun, has_rates and months is not None, modified)}
 
     main_lines = _transfer_lines(loans, (main_dim,), "class" if by_class else None)
     detail_lines = _transfer_lines(loans, detail_dims, "class")
@@ -282,10 +285,6 @@ def _movement(book: Book, framework: Framework, months: int | None,
         _check_long(detail, detail_order, f"{framework} {kind} movement by segment and class")
         tables[kind] = (wide, detail)
 
-    rerun, modified = book.rerun is not None, book.current.has("modified")
-    label = remeasurement_label(rerun, has_rates and months is not None, modified)
-    if label != MOVEMENT_LINES["remeasurement"]:  # what the line holds, on the line itself
-        tables["allowance"] = tuple(_relabelled(t, "remeasurement", label) for t in tables["allowance"])
     opening_total, closing_total = int(loans.amounts["opening"].sum()), int(loans.amounts["closing"].sum())
     allowance = tables["allowance"][0].set_index("line")["total"]
     if round(allowance["opening"] * 100) != opening_total or round(allowance["closing"] * 100) != closing_total:
@@ -344,15 +343,6 @@ def remeasurement_label(rerun: bool, unwind: bool, modified: bool) -> str:
         return base
     listed = held[0] if len(held) == 1 else ", ".join(held[:-1]) + " and " + held[-1]
     return f"{base} (incl. {listed}: not isolated)"
-
-
-def _relabelled(table: pd.DataFrame, line: str, label: str) -> pd.DataFrame:
-    """``table`` with ``line``'s label replaced (a movement table's ``label`` column)."""
-    if "label" not in table.columns:
-        return table
-    table = table.copy()
-    table.loc[table["line"] == line, "label"] = label
-    return table
 
 
 def _present(names: list[str], *codes: np.ndarray) -> set[str]:

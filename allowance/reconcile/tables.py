@@ -142,10 +142,12 @@ def _transfer_lines(bridge: Bridge, dims: tuple[str, ...], class_dim: str | None
     return line, names
 
 
-def _label(line: str, classes: Mapping[str, str]) -> str:
+def _label(line: str, labels: Mapping[str, str]) -> str:
+    """A line's label: ``labels`` names each transfer's class and may restate any other line
+    (remeasurement that holds what the inputs could not isolate); else :data:`MOVEMENT_LINES`."""
     if line.startswith("transfer_to_"):
-        return f"Transfer to {classes.get(line, line[len('transfer_to_'):])}"
-    return MOVEMENT_LINES[line]
+        return f"Transfer to {labels.get(line, line[len('transfer_to_'):])}"
+    return labels.get(line, MOVEMENT_LINES[line])
 
 
 def _line_order(classes: list[str], body: tuple[str, ...], segment_moves: bool, gross_up: bool = False) -> list[str]:
