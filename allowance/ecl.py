@@ -208,8 +208,10 @@ def expected_losses(inputs: KernelInputs, loop: str = "compiled") -> KernelResul
         else:
             from allowance import ecl_compiled  # numba loads here, and only here
 
+            unit_path = np.array([bool(np.all(inputs.lgd_multiplier[f] == 1.0)) for f in range(n_fw)], dtype=np.bool_)
             ecl_compiled.fused_sums(
-                (a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], levels, *args[7:]), sums, ead0, lgd0)
+                (a["code"], a["balance"], a["rate"], a["months_left"], a["io_left"], levels, *args[7:], unit_path),
+                sums, ead0, lgd0)
         _defaulted_losses(a, sums)
         bad = ~np.isfinite(sums[ECL_LIFETIME]).all(axis=(1, 2))
         if bad.any():

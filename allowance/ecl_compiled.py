@@ -1,40 +1,29 @@
 """The fused ECL loop, compiled: the sums of :mod:`allowance.ecl` for a large book.
 
-Two compiled loops walk each loan's balance path once and for every framework and scenario
-accumulate the sums :mod:`allowance.ecl` states (the formulas live in the concept modules;
-this module compiles and composes them, and never allocates a loans × months array).
-:func:`allowance.ecl.expected_losses` calls them for a book computed with
-``loop="compiled"`` (:func:`allowance.engine.tables.choose_loop`); a small book is summed in
-numpy instead and numba is never loaded (:mod:`allowance.jit`).
+One compiled loop over loans (in parallel) and months walks each loan's balance path once
+and for every framework and scenario accumulates the sums :mod:`allowance.ecl` states
+(the formulas live in the concept modules; this module compiles and composes them, and
+never allocates a loans × months array). :func:`allowance.ecl.expected_losses` calls it
+for a book computed with ``loop="compiled"`` (:func:`allowance.engine.tables.choose_loop`);
+a small book is summed in numpy instead and numba is never loaded (:mod:`allowance.jit`).
 
-* Loans without collateral (the flat LGD, most of a book) run **side by side**: blocks of up
-  to 256 (framework, loan) pairs on one PD curve row, longest horizon first, month by month,
-  so that each month's step is a loop along the loans that the compiler turns into vector
-  instructions (eight loans at a time on AVX-512), with no month waiting on the one before
-  for the same loan. Pairs are taken in windows of the tape (:data:`_WINDOW` loans), so a
-  block reads and writes rows that lie close together.
-* Secured loans (the LGD moves with the balance and the collateral index) and loans in
-  default run one at a time, as before.
-
-How the loops are made fast (``tests/bench/bench_engine.py`` measures them): the level
-payment is computed once per loan (:func:`~allowance.cashflows.contractual_payment`) and the
-balance follows its closed form (:func:`~allowance.cashflows.balance_on_path`); DF_t is a
-running product; the inputs are checked finite first, which lets the loops compile with
-fast-math; the loops run in blocks on all cores with dynamic scheduling, with no allocation
-per loan. The side-by-side loop is compiled with numba's ``noalias`` flag (its arrays do not
-overlap: the outputs and the block's scratch are fresh arrays, the inputs are only read),
-without which the compiler cannot vectorise a loop that reads a table at a loan's own index.
+How the loop is made fast (``tests/bench/bench_engine.py`` measures it): the level payment
+is computed once per loan (:func:`~allowance.cashflows.contractual_payment`) and the balance
+follows its closed form (:func:`~allowance.cashflows.balance_on_path`), so no month waits on
+the last; DF_t is a running product; up to four scenarios ride in scalars side by side; a
+flat LGD on a unit multiplier path is one number per loan; loans run in blocks of 256 on all
+cores with dynamic scheduling, with no allocation per loan; the inputs are checked finite
+first, which lets the loop compile with fast-math.
 
 Implements
 ----------
-fused_sums   run the loops over checked inputs (all cores), into the caller's arrays
+fused_sums   run the loop over checked inputs (all cores), into the caller's arrays
 """
 
 from __future__ import annotations
 
 import numba
 import numpy as np
-from numba.core.compiler import Compiler, Flags
 
 from allowance import jit, jitcache
 from allowance.cashflows import REVOLVING, balance_on_path, path_terms
@@ -50,6 +39,12 @@ _loss_given_default = numba.njit(cache=jit.CACHE)(loss_given_default)
 _default_loss = numba.njit(cache=jit.CACHE)(default_loss)
 #: the share failing to repay at maturity (:func:`allowance.curves.refinance.refinance_default`)
 _refinance_default = numba.njit(cache=jit.CACHE)(refinance_default)
+
+
+@numba.njit(cache=jit.CACHE)
+def _flat_lgd(lgd, multiplier):
+    """:func:`loss_given_default` of a loan without collateral (its collateral branch folds away)."""
+    return _loss_given_default(0.0, lgd, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, multiplier)
 
 
 #: Loans per block: large enough that scratch allocation vanishes, small enough that the
@@ -74,6 +69,104 @@ def _store(sums, i, f, s, ecl12, ecllife, pd12, pdlife, gross12, grosslife):
     sums[3, i, f, s], sums[4, i, f, s], sums[5, i, f, s] = pdlife, gross12, grosslife
 
 
+@numba.njit(cache=jit.CACHE, fastmath=True)
+def _flat_lanes(
+    i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit, lgd_i, code, balance, rate,
+    io_left, level, paydown, add, add_months, add_after, v, horizon_i, interest, maturity, q, sums, sc,
+):
+    r"""One loan and framework, scenarios s0..s0+3, flat LGD: the hot path.
+
+    ``e`` sums the exposure-weighted default share :math:`\sum S_{t-1} pd_t EAD_t DF_t`,
+    the expected gross loss; ``l`` the net loss (on a unit LGD path, LGD × e). Under the
+    cash-shortfall measure each default also loses the month's interest (both times
+    ``1 + interest`` and ``LGD + interest``).
+
+    The four scenarios are carried in scalars (registers) rather than arrays, so their
+    survival recursions run side by side; a lane past the last scenario does no work and is
+    never written.
+    """
+    j1 = s0 + 1 if s0 + 1 < n_sc else s0
+    j2 = s0 + 2 if s0 + 2 < n_sc else s0
+    j3 = s0 + 3 if s0 + 3 < n_sc else s0
+    a0 = a1 = a2 = a3 = 1.0  # survival S_{t-1}
+    l0 = l1 = l2 = l3 = 0.0  # lifetime ECL so far
+    c0 = c1 = c2 = c3 = 0.0  # cumulative PD so far
+    y0 = y1 = y2 = y3 = 0.0  # 12-month ECL
+    q0 = q1 = q2 = q3 = 0.0  # 12-month PD
+    e0 = e1 = e2 = e3 = 0.0  # gross loss so far
+    u0 = u1 = u2 = u3 = 0.0  # 12-month gross loss
+    lgd_c = _flat_lgd(lgd_i, 1.0) + interest
+    growth, pay = _path_terms(code, balance, rate, level, paydown)
+    x = 1.0  # g^t
+    annuity = 0.0  # sum of g^j, j < t
+    df = 1.0
+    two, three, four = j1 != s0, j2 != s0, j3 != s0
+    for t in range(horizon_i):
+        if t < io_left:
+            bal = balance
+        else:
+            bal = _balance_on_path(balance, x, annuity, pay)
+            x *= growth
+            annuity = annuity * growth + 1.0
+        df *= v
+        keep = 1.0 - smm[p, off + t]
+        w = (bal + (add if t < add_months else add_after)) * df
+        if unit:
+            w0 = w1 = w2 = w3 = w * lgd_c
+        else:
+            w0 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, s0]), interest)
+            w1 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j1]), interest)
+            w2 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j2]), interest)
+            w3 = _default_loss(w, _flat_lgd(lgd_i, lgd_multiplier[f, t, j3]), interest)
+        # S_t = (S_{t-1} - S_{t-1} pd_t)(1 - smm_t): the default share d is computed anyway
+        d0 = a0 * min(pd[f, k, t, s0] * sc, 1.0)
+        l0 += d0 * w0
+        e0 += d0 * w
+        c0 += d0
+        a0 = (a0 - d0) * keep
+        if two:  # lanes past the last scenario do no work
+            d1 = a1 * min(pd[f, k, t, j1] * sc, 1.0)
+            l1 += d1 * w1
+            e1 += d1 * w
+            c1 += d1
+            a1 = (a1 - d1) * keep
+        if three:
+            d2 = a2 * min(pd[f, k, t, j2] * sc, 1.0)
+            l2 += d2 * w2
+            e2 += d2 * w
+            c2 += d2
+            a2 = (a2 - d2) * keep
+        if four:
+            d3 = a3 * min(pd[f, k, t, j3] * sc, 1.0)
+            l3 += d3 * w3
+            e3 += d3 * w
+            c3 += d3
+            a3 = (a3 - d3) * keep
+        if t == maturity:  # refinance risk: of the loans still outstanding, S_T q cannot repay
+            r0 = _refinance_default(a0, q)
+            l0, e0, c0, a0 = l0 + r0 * w0, e0 + r0 * w, c0 + r0, a0 - r0
+            r1 = _refinance_default(a1, q)
+            l1, e1, c1, a1 = l1 + r1 * w1, e1 + r1 * w, c1 + r1, a1 - r1
+            r2 = _refinance_default(a2, q)
+            l2, e2, c2, a2 = l2 + r2 * w2, e2 + r2 * w, c2 + r2, a2 - r2
+            r3 = _refinance_default(a3, q)
+            l3, e3, c3, a3 = l3 + r3 * w3, e3 + r3 * w, c3 + r3, a3 - r3
+        if t == 11:  # end of month 12: the 12-month figures
+            y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
+            u0, u1, u2, u3 = e0, e1, e2, e3
+    if horizon_i < 12:
+        y0, y1, y2, y3, q0, q1, q2, q3 = l0, l1, l2, l3, c0, c1, c2, c3
+        u0, u1, u2, u3 = e0, e1, e2, e3
+    g = 1.0 + interest  # the gross loss of a default: its whole exposure (and the month's interest)
+    _store(sums, i, f, s0, y0, l0, q0, c0, u0 * g, e0 * g)
+    if j1 != s0:
+        _store(sums, i, f, j1, y1, l1, q1, c1, u1 * g, e1 * g)
+    if j2 != s0:
+        _store(sums, i, f, j2, y2, l2, q2, c2, u2 * g, e2 * g)
+    if j3 != s0:
+        _store(sums, i, f, j3, y3, l3, q3, c3, u3 * g, e3 * g)
+
+
 # fastmath: the inputs are checked finite first (so "no NaN, no inf" holds); it lets the
 # compiler reassociate and fuse the survival products (about 1.3 x faster here).
 # nogil, not parallel=True: the threads of :func:`allowance.jit.in_threads` run its blocks;
@@ -83,7 +176,7 @@ def _kernel(
     code, balance, rate, months_left, io_left, level_payment, curve, prepay, prepay_offset,
     in_default, lgd, collateral, haircut, recovery_cost, lgd_floor, recovery_discount, cure, refinance_pd,
     horizon, ead_add, paydown, discount, interest, pd, smm, lgd_multiplier, collateral_index, pd_scale, add_months,
-    add_after, block, first, last,
+    add_after, unit_path, block, first, last,
     sums, ead0, lgd0,
 ):
     n = balance.shape[0]
@@ -119,8 +212,6 @@ def _kernel(
                     ead, lgd_i, coll_i, collateral_index[f, k, 0, 0], cut_i, cost_i, floor_i, rec_i, cure_i,
                     lgd_multiplier[f, 0, 0],
                 )
-                if not (in_default[f, i] or secured):  # summed side by side with the others (_flat_blocks)
-                    continue
                 if in_default[f, i]:
                     for s in range(n_sc):
                         loss = ead * _loss_given_default(
@@ -135,6 +226,14 @@ def _kernel(
                 maturity = m_left - 1 if (q_i > 0.0 and c != REVOLVING) else -1  # the month of the test
                 v = discount[f, i]
                 down = paydown[f, i]
+                if not secured:
+                    for s0 in range(0, n_sc, 4):
+                        _flat_lanes(
+                            i, f, s0, n_sc, pd, k, smm, p, off, lgd_multiplier, unit_path[f], lgd_i,
+                            c, balance[i], r, io, level, down, add, add_m, add_a, v, horizon_i, interest[f, i], maturity, q_i,
+                            sums, sc,
+                        )
+                    continue
                 # secured: the collateral LGD moves with the balance and the collateral index
                 for s in range(n_sc):
                     survival[s] = 1.0
@@ -187,269 +286,11 @@ def _kernel(
                     _store(sums, i, f, s, twelve[s], life[s], cum_12[s], cum_pd[s], gross_12[s], gross[s])
 
 
-#: Pairs per block of the side-by-side loop: enough for the vector loops to run long, few
-#: enough that a block's scratch stays in the core's caches.
-_SIDE = 256
-#: Tape rows per window: a block's pairs come from one window, so the rows it reads (and the
-#: sums it writes) lie within some 16,000 loans of each other, not across the whole chunk.
-_WINDOW = 16_384
-
-
-class _Unaliased(Compiler):
-    """numba's compiler with its ``noalias`` flag: each array argument's memory is reached
-    through that argument alone. It lets the compiler vectorise a loop that reads a table at
-    each loan's own index (otherwise any store in the loop might change the table). True of
-    :func:`_flat_block`'s arguments: it writes only ``sums`` and its scratch, fresh arrays
-    that no input shares."""
-
-    def __init__(self, *args, **kwargs):
-        super().__init__(*args, **kwargs)
-        self.state.flags.noalias = True
-
-
-# numba's compiler keeps its flags in a class of its own; were the flag ever gone, the loop
-# compiles as any other (the same figures, not vectorised)
-_UNALIASED = {"pipeline_class": _Unaliased} if "noalias" in dir(Flags) else {}
-
-
-@numba.njit(cache=jit.CACHE, nogil=True, fastmath=True, **_UNALIASED)
-def _flat_block(
-    lo, m, f, order, mu_max, key, code, balance, rate, months_left, io_left, level_payment, paydown,
-    horizon, refinance_pd, pd_t, smm, smm_width, prepay, prepay_offset, pd_scale, ead_add, add_months, add_after,
-    discount, interest, lgd, multiplier_t, sums,
-    row, months, io, amort_from, growth, pay, x, annuity, df, v, smm_at, scale, add, add_m, add_a, w, keep,
-    flat, it, maturity, q, hazard, alive, net, cum, gross, net_12, cum_12, gross_12,
-):
-    r"""The pairs ``order[lo:lo+m]`` of framework ``f`` (loans without collateral, not in
-    default, one curve row ``key``, longest horizon first) side by side, into ``sums``.
-
-    The recursion of :func:`allowance.ecl._sums_in_arrays` (month t from 0): the balance
-    :math:`B_t` (:func:`~allowance.cashflows.balance_on_path`, held while interest-only), the
-    weight :math:`w_t = (B_t + add_t)\,v^{t+1}`, and for each scenario
-
-    .. math::
-
-        d_t = S_{t-1} \min(c\, pd_t, 1), \qquad S_t = (S_{t-1} - d_t)(1 - smm_t),
-
-        E = \sum_t d_t w_t, \qquad
-        N = \sum_t d_t w_t \,(\min(1, LGD\, m_t) + i) \quad
-        (:func:`~allowance.shortfall.default_loss`),
-
-    and the refinance failures :math:`S_T q` in the maturity month T, the pair's last. The
-    pairs still running in month t are the first ones, so each month is a loop along them.
-    In a scenario where :math:`LGD\, m_t \le 1` in every month for every pair of the block
-    (``mu_max[s]`` is the scenario's largest multiplier; :func:`_side_by_side` gives loans
-    blocks of their own by the scenarios in which the cap can bind), the cap never binds and
-    :math:`N = LGD \sum_t d_t w_t m_t + i E`: the loop reads no per-loan LGD or interest. The
-    12-month figures are the sums after month 12 (all of them for a shorter horizon); gross
-    is :math:`(1 + i) E`.
-    """
-    n_sc = pd_t.shape[1]
-    waits = adds = scaled = False
-    lgd_max = 0.0
-    for j in range(m):
-        i = order[lo + j]
-        row[j] = i
-        c = code[i]
-        # no exposure after maturity: a horizon past it adds nothing (nor to the PD)
-        months[j] = horizon[f, i] if c == REVOLVING else min(horizon[f, i], months_left[i])
-        amort_from[j] = balance[i]
-        growth[j], pay[j] = _path_terms(c, balance[i], rate[i], level_payment[i], paydown[f, i])
-        io[j] = io_left[i]
-        x[j], annuity[j], df[j], v[j] = 1.0, 0.0, 1.0, discount[f, i]
-        smm_at[j] = prepay[f, i] * smm_width + prepay_offset[i]  # month t's SMM: smm[smm_at + t]
-        scale[j] = pd_scale[i]  # the loan's own PD level against its curve row
-        add[j], add_m[j], add_a[j] = ead_add[f, i], add_months[f, i], add_after[f, i]
-        flat[j], it[j], q[j] = lgd[i], interest[f, i], refinance_pd[i]
-        maturity[j] = months_left[i] - 1 if (refinance_pd[i] > 0.0 and c != REVOLVING) else -1
-        waits |= io_left[i] > 0
-        adds |= add[j] != 0.0 or add_a[j] != 0.0
-        scaled |= pd_scale[i] != 1.0
-        lgd_max = max(lgd_max, lgd[i])
-        for s in range(n_sc):
-            alive[s, j], net[s, j], cum[s, j], gross[s, j] = 1.0, 0.0, 0.0, 0.0
-    run = m
-    for t in range(months[0] if m else 0):
-        while run > 0 and months[run - 1] <= t:  # the pairs whose horizon ends here drop off the end
-            run -= 1
-        # the month's balance, discount factor, survival to prepayment and weight of each pair;
-        # without interest-only months or add-ons the simpler loop (no selects)
-        if waits or adds:
-            for j in range(run):
-                held = t < io[j]
-                xj, sj, gj = x[j], annuity[j], growth[j]
-                bal = _balance_on_path(amort_from[j], xj, sj, pay[j])
-                bal = amort_from[j] if held else bal
-                x[j] = xj if held else xj * gj
-                annuity[j] = sj if held else sj * gj + 1.0
-                d = df[j] * v[j]
-                df[j] = d
-                keep[j] = 1.0 - smm[smm_at[j] + t]
-                w[j] = (bal + (add[j] if t < add_m[j] else add_a[j])) * d
-        else:
-            for j in range(run):
-                xj, sj, gj = x[j], annuity[j], growth[j]
-                bal = _balance_on_path(amort_from[j], xj, sj, pay[j])
-                x[j] = xj * gj
-                annuity[j] = sj * gj + 1.0
-                d = df[j] * v[j]
-                df[j] = d
-                keep[j] = 1.0 - smm[smm_at[j] + t]
-                w[j] = bal * d
-        for s in range(n_sc):
-            h = pd_t[t, s, key]  # one curve row for the block: one number a month and scenario
-            mu = multiplier_t[t, s, f]
-            hc = min(h, 1.0)
-            if scaled:  # each loan's own PD level against the row
-                for j in range(run):
-                    hazard[j] = min(h * scale[j], 1.0)
-            else:
-                for j in range(run):
-                    hazard[j] = hc
-            # d = S min(c pd, 1), E += d w, S = (S - d)(1 - smm), and the net loss: one loop for
-            # each form, without a test inside it (so that each is vectorised)
-            alive_s, gross_s, cum_s, net_s = alive[s], gross[s], cum[s], net[s]
-            if lgd_max * mu_max[s] <= 1.0:  # the cap never binds (this scenario's largest multiplier)
-                for j in range(run):
-                    d = alive_s[j] * hazard[j]
-                    dw = d * w[j]
-                    gross_s[j] += dw
-                    net_s[j] += dw * mu
-                    cum_s[j] += d
-                    alive_s[j] = (alive_s[j] - d) * keep[j]
-            else:
-                for j in range(run):
-                    d = alive_s[j] * hazard[j]
-                    dw = d * w[j]
-                    gross_s[j] += dw
-                    net_s[j] += _default_loss(dw, min(1.0, flat[j] * mu), it[j])
-                    cum_s[j] += d
-                    alive_s[j] = (alive_s[j] - d) * keep[j]
-        if t == 11:  # end of month 12: the 12-month figures
-            for s in range(n_sc):
-                for j in range(run):
-                    net_12[s, j], cum_12[s, j], gross_12[s, j] = net[s, j], cum[s, j], gross[s, j]
-    for j in range(m):
-        last = maturity[j]
-        if 0 <= last < months[j]:  # refinance risk in the last month: S_T q cannot repay
-            for s in range(n_sc):
-                failed = _refinance_default(alive[s, j], q[j])
-                fw_ = failed * w[j]  # w holds the last month's weight
-                mu = multiplier_t[last, s, f]
-                more = fw_ * mu if lgd_max * mu_max[s] <= 1.0 else fw_ * (min(1.0, flat[j] * mu) + it[j])
-                gross[s, j] += fw_
-                cum[s, j] += failed
-                net[s, j] += more
-                if last == 11:  # within the first 12 months
-                    gross_12[s, j] += fw_
-                    cum_12[s, j] += failed
-                    net_12[s, j] += more
-        short = months[j] < 12  # a horizon under 12 months: its 12-month figures are its lifetime ones
-        i, lgd_j, i_j = row[j], flat[j], it[j]
-        for s in range(n_sc):
-            g, g12 = gross[s, j], (gross[s, j] if short else gross_12[s, j])
-            n_, n12 = net[s, j], (net[s, j] if short else net_12[s, j])
-            if lgd_max * mu_max[s] <= 1.0:
-                n_, n12 = lgd_j * n_ + i_j * g, lgd_j * n12 + i_j * g12
-            _store(sums, i, f, s, n12, n_, cum[s, j] if short else cum_12[s, j], cum[s, j],
-                   g12 * (1.0 + i_j), g * (1.0 + i_j))
-
-
-@numba.njit(cache=jit.CACHE, nogil=True)
-def _flat_blocks(
-    starts, block_f, block_key, order, mu_max, code, balance, rate, months_left, io_left, level_payment,
-    paydown, horizon, refinance_pd, pd_t, smm, smm_width, prepay, prepay_offset, pd_scale, ead_add, add_months,
-    add_after, discount, interest, lgd, multiplier_t, sums, first, last,
-):
-    """Blocks ``first..last-1`` of :func:`_flat_block`, each pair ``order[starts[b]:starts[b+1]]``;
-    the block's scratch allocated once for them all."""
-    n_sc = pd_t.shape[1]
-    row, months, io, add_m = np.empty(_SIDE, np.int64), np.empty(_SIDE, np.int64), np.empty(_SIDE, np.int64), np.empty(_SIDE, np.int64)
-    maturity, smm_at = np.empty(_SIDE, np.int64), np.empty(_SIDE, np.int64)
-    amort_from, growth, pay, x = np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE)
-    annuity, df, v, scale = np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE)
-    add, add_a, w, keep = np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE)
-    flat, it, q, hazard = np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE), np.empty(_SIDE)
-    alive, net, cum, gross = np.empty((n_sc, _SIDE)), np.empty((n_sc, _SIDE)), np.empty((n_sc, _SIDE)), np.empty((n_sc, _SIDE))
-    net_12, cum_12, gross_12 = np.empty((n_sc, _SIDE)), np.empty((n_sc, _SIDE)), np.empty((n_sc, _SIDE))
-    for b in range(first, last):
-        f = block_f[b]
-        _flat_block(
-            starts[b], starts[b + 1] - starts[b], f, order, mu_max[f], block_key[b], code, balance, rate,
-            months_left, io_left, level_payment, paydown, horizon, refinance_pd, pd_t, smm, smm_width, prepay,
-            prepay_offset, pd_scale, ead_add, add_months, add_after, discount, interest, lgd, multiplier_t, sums,
-            row, months, io, amort_from, growth, pay, x, annuity, df, v, smm_at, scale, add, add_m, add_a, w, keep,
-            flat, it, maturity, q, hazard, alive, net, cum, gross, net_12, cum_12, gross_12,
-        )
-
-
-def _side_by_side(a: dict, mu_max: np.ndarray) -> tuple:
-    """The blocks of :func:`_flat_blocks`: every (framework, loan) pair without collateral and
-    not in default, by framework, tape window, net-loss forms, curve row and horizon (longest
-    first), cut into blocks of at most :data:`_SIDE` pairs that never span two groups.
-
-    The net-loss form of each scenario (:func:`_flat_block`: the cap on LGD x multiplier can
-    bind or not) is a loan's own, set by its LGD and that scenario's multipliers alone, so
-    that a loan's figures never depend on which other loans share its block (a chunk of
-    another size, a partition of the tape on a cluster) or on the other scenarios (a
-    scenario run alone, as the sensitivities run it): the same bits. Returns ``(starts, block_f, block_key, order)``, ``order`` the
-    loans' rows and ``block_key`` the row of ``pd_t``'s last axis."""
-    n_fw, n_keys, n_sc = a["pd"].shape[0], a["pd"].shape[1], a["pd"].shape[3]
-    flat = ~(a["collateral"] > 0.0)
-    revolving = a["code"] == REVOLVING
-    windows = a["balance"].shape[0] // _WINDOW + 1
-    orders, groups, keys, fws = [], [], [], []
-    for f in range(n_fw):
-        rows = np.flatnonzero(flat & ~a["in_default"][f])
-        k = a["curve"][f, rows]
-        months = np.where(revolving[rows], a["horizon"][f, rows], np.minimum(a["horizon"][f, rows], a["months_left"][rows]))
-        capped = (a["lgd"][rows, None] * mu_max[f] > 1.0).sum(axis=1)  # the scenarios where the cap can bind
-        group = ((f * windows + rows // _WINDOW) * (n_sc + 1) + capped) * n_keys + k  # no two frameworks share one
-        top = int(months.max(initial=0)) + 1
-        rank = np.argsort(group * top + (top - 1 - months), kind="stable")
-        orders.append(rows[rank])
-        groups.append(group[rank])
-        keys.append(f * n_keys + k[rank])
-        fws.append(np.full(rows.size, f, np.int64))
-    order, group = np.concatenate(orders), np.concatenate(groups)
-    first = np.flatnonzero(np.r_[True, group[1:] != group[:-1]]) if order.size else np.zeros(0, np.int64)
-    sizes = np.diff(np.r_[first, order.size])
-    per = -(-sizes // _SIDE)  # blocks in each group
-    starts = np.repeat(first, per) + (np.arange(per.sum()) - np.repeat(np.cumsum(per) - per, per)) * _SIDE
-    return (np.r_[starts, order.size].astype(np.int64), np.concatenate(fws)[starts], np.concatenate(keys)[starts],
-            order)
-
-
 def fused_sums(head: tuple, sums, ead0, lgd0) -> None:
-    """Run the loops over every loan of ``head`` (the checked inputs in
+    """Run :func:`_kernel` over every loan of ``head`` (the checked inputs in
     :class:`allowance.ecl.KernelInputs` order, the level payments in place of the tape's
-    payment and residual) on all cores, into ``sums`` ``[6, n, F, S]``, ``ead0`` and ``lgd0``
-    ``[n, F]``: :func:`_kernel` for every loan's exposure and LGD today and the secured and
-    defaulted loans' sums, :func:`_flat_blocks` for the rest."""
+    payment and residual, the unit-path flags last) on all cores, into ``sums``
+    ``[6, n, F, S]``, ``ead0`` and ``lgd0`` ``[n, F]``."""
     n = head[1].shape[0]
-    jitcache.wait_for_ahead()  # a second process compiling the loops into the cache: load them, not compile them
+    jitcache.wait_for_ahead()  # a second process compiling the loop into the cache: load it, not compile it
     jit.in_threads(lambda first, last: _kernel(*head, _BLOCK, first, last, sums, ead0, lgd0), n, _BLOCK)
-    a = dict(zip(_KERNEL_INPUTS, head))
-    n_fw, n_keys, n_months, n_sc = a["pd"].shape
-    mu_max = np.ascontiguousarray(a["lgd_multiplier"].max(axis=1))  # [F, S]: each scenario's largest
-    starts, block_f, block_key, order = _side_by_side(a, mu_max)
-    if not order.size:
-        return
-    # the tables month-major, the frameworks' curve rows side by side: a block's month is one row
-    pd_t = np.ascontiguousarray(a["pd"].transpose(2, 3, 0, 1).reshape(n_months, n_sc, n_fw * n_keys))
-    multiplier_t = np.ascontiguousarray(a["lgd_multiplier"].transpose(1, 2, 0))  # [T, S, F]
-    smm = a["smm"]
-    jit.in_threads(lambda first, last: _flat_blocks(
-        starts, block_f, block_key, order, mu_max, a["code"], a["balance"], a["rate"], a["months_left"],
-        a["io_left"], a["level_payment"], a["paydown"], a["horizon"], a["refinance_pd"], pd_t, np.ravel(smm),
-        smm.shape[1], a["prepay"], a["prepay_offset"], a["pd_scale"], a["ead_add"], a["add_months"], a["add_after"],
-        a["discount"], a["interest"], a["lgd"], multiplier_t, sums, first, last), starts.size - 1, 1)
-
-
-#: :func:`_kernel`'s inputs, the order of ``fused_sums``' ``head``
-_KERNEL_INPUTS = (
-    "code", "balance", "rate", "months_left", "io_left", "level_payment", "curve", "prepay", "prepay_offset",
-    "in_default", "lgd", "collateral", "haircut", "recovery_cost", "lgd_floor", "recovery_discount", "cure",
-    "refinance_pd", "horizon", "ead_add", "paydown", "discount", "interest", "pd", "smm", "lgd_multiplier",
-    "collateral_index", "pd_scale", "add_months", "add_after",
-)

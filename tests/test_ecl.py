@@ -186,29 +186,28 @@ def test_the_numpy_sums_equal_the_compiled_loop(seed, frameworks, scenarios, sec
         np.testing.assert_allclose(getattr(arrays, name), getattr(compiled, name), rtol=1e-12, atol=1e-9, err_msg=name)
 
 
-def _long_blocks(seed: int, frameworks: int, lgd_high: float, multipliers: bool) -> KernelInputs:
-    """A random book of 700 loans on one curve row per framework (so that the compiled loop's
-    blocks of loans side by side run full, 256 pairs, and end part-full), a third of them
-    with a PD level of their own, some ending in month 12 with a refinance test."""
+def _wide_book(seed: int, frameworks: int, lgd_high: float, multipliers: bool) -> KernelInputs:
+    """A random book of 700 loans on two curve rows per framework (the compiled loop's blocks
+    of loans run full and end part-full), a third of them with a PD level of their own, some
+    ending in month 12 with a refinance test."""
     k = random_kernel_book(seed, n=700, frameworks=frameworks, scenarios=3, secured=False, multipliers=multipliers)
     rng = np.random.default_rng(seed)
     n = 700
     months_left = np.where(rng.random(n) < 0.2, 12, k.months_left)
     return dataclasses.replace(
-        k, curve=np.zeros_like(k.curve), lgd=rng.uniform(0.05, lgd_high, n), months_left=months_left,
+        k, curve=rng.integers(0, 2, k.curve.shape), lgd=rng.uniform(0.05, lgd_high, n), months_left=months_left,
         io_left=np.minimum(k.io_left, months_left), horizon=np.where(rng.random((frameworks, n)) < 0.5, months_left, k.horizon),
         pd_scale=np.where(rng.random(n) < 0.3, rng.uniform(0.0, 3.0, n), 1.0))
 
 
 @settings(max_examples=10)
 @given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.sampled_from([(0.6, True), (0.95, True), (0.9, False)]))
-def test_loans_side_by_side_equal_the_numpy_sums(seed, frameworks, case):
-    """The compiled loop's loans without collateral, eight at a time in vector instructions,
-    on each of its net-loss forms: LGD x multiplier never above 1 (summed linearly, the LGD
-    applied after), sometimes above 1 (capped month by month), a unit path. Against the
-    numpy sums, which take every month's cap (to rounding, 1e-12)."""
+def test_the_compiled_loop_equals_the_numpy_sums_on_each_net_loss_form(seed, frameworks, case):
+    """Loans without collateral under each net-loss form: LGD x multiplier never above 1,
+    sometimes above 1 (the cap binds in some months), a unit LGD path; the compiled loop
+    against the numpy sums (to rounding, 1e-12)."""
     lgd_high, multipliers = case
-    k = _long_blocks(seed, frameworks, lgd_high, multipliers)
+    k = _wide_book(seed, frameworks, lgd_high, multipliers)
     compiled, arrays = expected_losses(k, "compiled"), expected_losses(k, "arrays")
     for name in _SUMS:
         np.testing.assert_allclose(getattr(compiled, name), getattr(arrays, name), rtol=1e-12, atol=1e-9, err_msg=name)
@@ -217,16 +216,15 @@ def test_loans_side_by_side_equal_the_numpy_sums(seed, frameworks, case):
 @settings(max_examples=10)
 @given(st.integers(0, 2**32 - 1), st.integers(1, 2), st.booleans())
 def test_a_loans_compiled_figures_do_not_depend_on_the_other_loans(seed, frameworks, secured):
-    """The compiled loop sums loans side by side in blocks; a loan's figures are the same
-    bits whichever loans share its block or its chunk (the tape in another order, a part
-    of it, as a cluster's partition holds), so that a run's loan detail never depends on
-    how the book was cut."""
-    k = _long_blocks(seed, frameworks, 0.95, True)
+    """A loan's compiled figures are the same bits whichever loans share its chunk (the tape
+    in another order, a part of it, as a cluster's partition holds), so that a run's loan
+    detail never depends on how the book was cut."""
+    k = _wide_book(seed, frameworks, 0.95, True)
     if secured:
         k = dataclasses.replace(k, collateral=np.where(np.arange(700) % 5 == 0, k.balance * 1.2, 0.0))
     whole = expected_losses(k, "compiled")
     rng = np.random.default_rng(seed)
-    low = np.flatnonzero(k.lgd * k.lgd_multiplier.max() <= 1.0)  # apart, these could take the linear form alone
+    low = np.flatnonzero(k.lgd * k.lgd_multiplier.max() <= 1.0)  # the cap never binds for these
     for rows in (rng.permutation(700), np.sort(rng.choice(700, 300, replace=False)), np.arange(699, -1, -1)[::3], low):
         part = expected_losses(_some_loans(k, rows), "compiled")
         for name in _SUMS:
@@ -237,10 +235,11 @@ def test_a_loans_compiled_figures_do_not_depend_on_the_other_loans(seed, framewo
 @given(st.integers(0, 2**32 - 1), st.integers(1, 2))
 def test_a_scenario_alone_gives_its_column_of_the_compiled_run_to_the_bit(seed, frameworks):
     """The sensitivities rerun each scenario alone and report it beside the weighted run;
-    the compiled loop gives a loan without collateral the same bits for a scenario whether
-    the other scenarios run beside it or not (its net-loss form is set by that scenario's
-    multipliers alone)."""
-    k = _long_blocks(seed, frameworks, 0.95, True)
+    the compiled loop gives a loan the same bits for a scenario whether the other scenarios
+    run beside it or not, secured or not, its horizon short or long (so a large book's
+    scenario alone gives the cents of its column, as the numpy sums do for a small one)."""
+    k = _wide_book(seed, frameworks, 0.95, True)
+    k = dataclasses.replace(k, collateral=np.where(np.arange(700) % 4 == 0, k.balance * 1.1, 0.0))
     together = expected_losses(k, "compiled")
     for s in range(k.pd.shape[3]):
         alone = expected_losses(dataclasses.replace(
@@ -249,12 +248,6 @@ def test_a_scenario_alone_gives_its_column_of_the_compiled_run_to_the_bit(seed, 
         for name in ("ecl_12m", "ecl_lifetime", "pd_12m", "pd_lifetime", "gross_12m", "gross_lifetime"):
             np.testing.assert_array_equal(getattr(alone, name)[..., 0], getattr(together, name)[..., s],
                                           err_msg=f"{name}, scenario {s}")
-
-
-def test_the_loop_of_loans_side_by_side_is_compiled_unaliased():
-    """The vector loop needs numba's ``noalias`` flag (without it the loop is correct but
-    runs a loan at a time); this fails if an upgrade of numba took the flag away."""
-    assert ecl_compiled._UNALIASED, "numba's compiler no longer has its noalias flag"
 
 
 def _some_loans(k: KernelInputs, rows: np.ndarray, **changes) -> KernelInputs:
