@@ -222,12 +222,14 @@ def test_segment_without_assumptions_is_rejected_by_row(tmp_path):
 def test_a_rejected_row_is_named_in_its_files_own_terms(tmp_path):
     """The same bad row (the demo's third loan, data row 3) as each format names it: a CSV's
     line 4 (the header is line 1), an XLSX sheet's row 4, a Parquet file's row 3 with
-    ``source_row`` 4 (counted by hand)."""
+    ``source_row`` 4 (counted by hand); and the other copy of a repeated id (data rows 5 and
+    9) likewise, the Parquet file's by ``source_row``."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
     tape = pd.read_csv(TAPE, dtype=str, keep_default_na=False, nrows=40)
     tape.loc[2, "balance"] = "-5"
+    tape.loc[8, "loan_id"] = tape.loc[4, "loan_id"]
     tape.to_csv(tmp_path / "tape.csv", index=False)
     tape.to_excel(tmp_path / "tape.xlsx", index=False)
     pq.write_table(pa.Table.from_pandas(tape, preserve_index=False), tmp_path / "tape.parquet")
@@ -235,10 +237,15 @@ def test_a_rejected_row_is_named_in_its_files_own_terms(tmp_path):
     for name in ("tape.csv", "tape.xlsx", "tape.parquet"):
         result = invoke("check", tmp_path / name, "--assumptions", ASSUMPTIONS)
         assert result.exit_code == 1
-        said[name] = [line.strip() for line in result.output.splitlines() if "balance '-5'" in line]
+        said[name] = [line.strip() for line in result.output.splitlines() if "balance '-5'" in line or "is also" in line]
+    repeated = tape.loc[4, "loan_id"]
     assert said["tape.csv"][0].startswith(f"{tmp_path / 'tape.csv'}: line 4: ")
+    assert said["tape.csv"][1] == f"{tmp_path / 'tape.csv'}: line 6: loan_id {repeated!r} is also on row 10"
     assert said["tape.xlsx"][0].startswith(f"{tmp_path / 'tape.xlsx'}: row 4: ")
+    assert said["tape.xlsx"][1] == f"{tmp_path / 'tape.xlsx'}: row 6: loan_id {repeated!r} is also on row 10"
     assert said["tape.parquet"][0].startswith(f"{tmp_path / 'tape.parquet'}: row 3 (source_row 4 in rejected.csv): ")
+    assert said["tape.parquet"][1] == (f"{tmp_path / 'tape.parquet'}: row 5 (source_row 6 in rejected.csv): "
+                                       f"loan_id {repeated!r} is also at source_row 10")
 
 
 @pytest.mark.parametrize("args, said", [

@@ -161,7 +161,8 @@ def test_a_bad_row_in_one_part_is_named_by_file_row_column_and_reason_and_the_co
     bad = by_parts.findings.set_index("source_row")
     assert (bad.loc[202, "column"], bad.loc[202, "code"]) == ("balance", "bad_number")
     assert "'12,5O0.00' is not a number" in bad.loc[202, "message"]
-    assert bad.loc[5, "message"].endswith("is also on row 252")
+    # a Parquet file's rows are named by source_row, as rejected.csv holds them (its row 251 is source_row 252)
+    assert bad.loc[5, "message"].endswith("is also at source_row 252")
     assert bad.loc[252, "source_file"] == "part-1.parquet"
     counts = by_parts.intake
     assert (counts.rows_read, counts.rows_accepted, counts.rows_rejected) == (300, 297, 3)

@@ -95,6 +95,10 @@ class TapeColumns:
     source_row: np.ndarray
     #: a part of a tape read part by part: the ids the whole tape repeats -> their rows (found beforehand)
     repeated: Mapping[str, Sequence[int]] | None = None
+    #: how a message names another row: "row" (a CSV's line, an XLSX sheet's row: the same
+    #: number as ``source_row``) or "source_row" (a Parquet file's n-th row is source_row
+    #: n + 1, so the number is given as the column of rejected.csv holds it)
+    row_word: str = "row"
 
     @property
     def rows(self) -> int:
@@ -271,6 +275,21 @@ def _maybe_repeated(ids: pa.ChunkedArray) -> np.ndarray:
     return repeated
 
 
+def _also_on(cols: TapeColumns, loan_id: str, others: Sequence[int]) -> str:
+    """The message of a repeated id: its other rows, named as the tape's file names them
+    (:attr:`TapeColumns.row_word`), the first ten and how many more.
+
+    >>> _also_on(TapeColumns({}, {}, frozenset(), None, np.zeros(0)), "L1", [4, 5])
+    "loan_id 'L1' is also on rows 4, 5"
+    >>> _also_on(TapeColumns({}, {}, frozenset(), None, np.zeros(0), row_word="source_row"), "L1", [4])
+    "loan_id 'L1' is also at source_row 4"
+    """
+    shown = ", ".join(str(x) for x in others[:10]) + (f" and {len(others) - 10} more" if len(others) > 10 else "")
+    if cols.row_word == "source_row":
+        return f"loan_id {loan_id!r} is also at source_row {shown}"
+    return f"loan_id {loan_id!r} is also on row{'s' if len(others) > 1 else ''} {shown}"
+
+
 def _repeated_elsewhere(cols: TapeColumns) -> Iterator[Findings]:
     """A part of a tape read part by part: every row whose id the whole tape repeats
     (``cols.repeated``, found before the parts are read), naming the id's other rows."""
@@ -281,9 +300,7 @@ def _repeated_elsewhere(cols: TapeColumns) -> Iterator[Findings]:
         return
     messages = []
     for loan_id, line in zip(pc.take(ids, pa.array(rows, pa.int64())).to_pylist(), cols.source_row[rows]):
-        others = [str(x) for x in cols.repeated[loan_id] if x != line]
-        shown = ", ".join(others[:10]) + (f" and {len(others) - 10} more" if len(others) > 10 else "")
-        messages.append(f"loan_id {loan_id!r} is also on row{'s' if len(others) > 1 else ''} {shown}")
+        messages.append(_also_on(cols, loan_id, [x for x in cols.repeated[loan_id] if x != line]))
     yield _findings(rows, "loan_id", "duplicate_loan_id", messages)
 
 
@@ -306,9 +323,7 @@ def duplicate_ids(cols: TapeColumns) -> Iterator[Findings]:
     lines_by_id = frame.groupby("id", sort=False)["line"].agg(list).to_dict()
     messages = []
     for loan_id, line in zip(frame["id"], frame["line"]):
-        others = [str(x) for x in lines_by_id[loan_id] if x != line]
-        shown = ", ".join(others[:10]) + (f" and {len(others) - 10} more" if len(others) > 10 else "")
-        messages.append(f"loan_id {loan_id!r} is also on row{'s' if len(others) > 1 else ''} {shown}")
+        messages.append(_also_on(cols, loan_id, [x for x in lines_by_id[loan_id] if x != line]))
     yield _findings(rows, "loan_id", "duplicate_loan_id", messages)
 
 
