@@ -95,6 +95,20 @@ def test_a_parquet_column_with_no_value_at_all_reads_as_blank(tmp_path, config):
     assert result.rows_accepted and result.accepted["credit_limit"].isna().all()
 
 
+def test_a_parquet_column_of_lists_is_refused_naming_file_and_column(tmp_path, config):
+    """A type no tape column can hold (a list per row) is one error naming the file, the
+    column and the type, with the fix, not a failure inside the parsers."""
+    table = pq.read_table(write_parquet(tmp_path / "t.parquet"))
+    listed = table.set_column(COLUMNS.index("balance"), "balance", pa.array([[1.0]] * table.num_rows))
+    pq.write_table(listed, tmp_path / "l.parquet")
+    with pytest.raises(TapeError) as err:
+        read_tape(tmp_path / "l.parquet", config)
+    said = str(err.value)
+    assert str(tmp_path / "l.parquet") in said and "column balance" in said
+    assert "holds list<element: double> values, which a tape cannot" in said
+    assert said.count("balance") == 1  # named once
+
+
 def test_xlsx_takes_the_first_sheet_by_default_and_numbers_rows_by_sheet_row(tmp_path, config):
     path = tmp_path / "t.xlsx"
     book = openpyxl.Workbook()

@@ -403,7 +403,7 @@ def supported_column(column: pa.ChunkedArray, name: str, path: Path) -> pa.Chunk
             or pa.types.is_time(kind)):
         return column
     raise TapeError(
-        f"column {name!r} holds {kind} values, which a tape cannot",
+        f"holds {kind} values, which a tape cannot",  # the error names the file and the column
         file=path,
         column=name,
         hint="store it as text, numbers or dates",
