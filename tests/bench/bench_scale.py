@@ -38,8 +38,8 @@ check, 10,000 columns  pandas.read_csv of the same file           2.5 x
   (1,000 loans, every extra column unknown to the data dictionary)
 fused ECL loop         a numpy pass writing one float64 per          2 x
   (both frameworks;    loan-month-scenario in chunks of 1,000
-  bench_engine.py,     loans (in the caches), same horizons
-  200,000 loans)
+  bench_engine.py,     loans (in the caches), same horizons; and
+  a million loans)     in chunks of 10,000 (past the caches)
 =====================  ========================================  ======
 
 The machine is shared and noisy: read the ratios, not the seconds.
@@ -340,12 +340,14 @@ def main() -> None:
         row("check, 10,000 columns", s, mb, "read_csv", s / read, "<= 2.5")
 
     # the loop on its own, in a process of its own (tests/bench/bench_engine.py prints the detail)
-    loans = 50_000 if args.quick else 200_000
+    loans = 50_000 if args.quick else 1_000_000
     out = subprocess.run([PY, str(ROOT / "tests" / "bench" / "bench_engine.py"), "--loans", str(loans),
                           "--repeat", "3", "--loop-only"], capture_output=True, text=True, check=True).stdout
-    ratio = float(re.search(r"both frameworks against materialising .*: ([0-9.]+) x", out).group(1))
-    print(f"{'fused ECL loop':26s} {ratio:5.2f} x the materialising pass, both frameworks "
+    strict = float(re.search(r"both frameworks against materialising their [0-9,]+ cells: ([0-9.]+) x", out).group(1))
+    spilled = float(re.search(r"materialising their cells past the caches: ([0-9.]+) x", out).group(1))
+    print(f"{'fused ECL loop':26s} {strict:5.2f} x the materialising pass in the caches, both frameworks "
           f"({loans:,} loans; target <= 2)", flush=True)
+    print(f"{'':26s} {spilled:5.2f} x the materialising pass past the caches (10,000-loan chunks)", flush=True)
 
 
 if __name__ == "__main__":
