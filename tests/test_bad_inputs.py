@@ -654,6 +654,20 @@ def another_writer(tmp_path: Path, case: Case) -> None:
     assert not ws.out.exists()
 
 
+def saved_in(encoding: str) -> Callable[[Path, Case], None]:
+    """The tape saved in another encoding than UTF-8, a segment name with an accent on data row 2."""
+    def case_run(tmp_path: Path, case: Case) -> None:
+        ws = workspace(tmp_path / "ws")
+        lines = ws.tape.read_text(encoding="utf-8").splitlines()
+        lines = cell(lines, 2, "segment", "caf\u00e9")
+        ws.tape.write_bytes(("\n".join(lines) + "\n").encode(encoding))
+        code, output = invoke(["check", ws.tape, "-a", ws.toml])
+        text = " ".join(output.split())
+        assert code == case.exit and all(w in text for w in case.words), output
+        assert "Traceback" not in output
+    return case_run
+
+
 _INTERRUPTED_AT_START = textwrap.dedent(
     """
     import os, signal, sys
@@ -963,6 +977,11 @@ CASES: list[Case] = [
          tape=lambda t: [line.replace(",", ";") for line in t], then=no_output),
     Case("tape separated by tabs", "the tape saved with tabs between values", "run", 1,
          ("joined by tabs", "not commas"), tape=lambda t: [line.replace(",", "\t") for line in t], then=no_output),
+    Case("tape saved as Latin-1", "a CSV saved in Windows-1252 / Latin-1 with an accented segment name", "custom",
+         1, ("is not UTF-8 text", "(line 3, column segment, 'é' in Windows-1252)", "save the file as UTF-8 CSV"),
+         custom=saved_in("latin-1")),
+    Case("tape saved as UTF-16", "a spreadsheet's 'Unicode text' export (UTF-16 with its byte-order mark)", "custom",
+         1, ("is UTF-16 text, not UTF-8", "save the file as UTF-8 CSV"), custom=saved_in("utf-16")),
     Case("--charge-offs without --prior", "--charge-offs given, no --prior", "run", 2,
          ("--charge-offs", "needs --prior"),
          args=lambda ws: ["run", ws.tape, "-a", ws.toml, "--charge-offs", charge_offs(ws), "--out", ws.out]),

@@ -133,8 +133,9 @@ def test_missing_and_non_utf8_files(tmp_path):
         load_assumptions(tmp_path / "none.toml")
     path = tmp_path / "latin.toml"
     path.write_bytes(b"[run]\nlabel = \"caf\xe9\"\n")
-    with pytest.raises(AssumptionsError, match="byte offset 18 holds 0xe9"):
+    with pytest.raises(AssumptionsError, match="byte offset 18 holds 0xe9") as err:
         load_assumptions(path)
+    assert "(line 2, 'é' in Windows-1252)" in str(err.value)  # the label's line; 0xE9 is 'é' (Python's cp1252)
     base = write(tmp_path, "a.toml", INTAKE_ASSUMPTIONS)
     with pytest.raises(AssumptionsError, match="o.toml: file not found"):
         load_assumptions(base, [tmp_path / "o.toml"])

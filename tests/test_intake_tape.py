@@ -329,8 +329,20 @@ def test_other_encodings_name_the_byte_offset(tmp_path, config):
     data = text.encode("utf-8") + "L3,caf\u00e9,level,2024-01-15,2030-01-15,1,0.05,0,,\n".encode("latin-1")
     path.write_bytes(data)
     offset = data.index(bytes([0xE9]))
-    with pytest.raises(InputFileError, match=rf"byte offset {offset} holds 0xe9"):
+    with pytest.raises(InputFileError, match=rf"byte offset {offset} holds 0xe9") as err:
         read_tape(path, config)
+    # where a person finds it: line 4 of the file, the segment column, and what the byte is in
+    # the usual other encoding (0xE9 is 'é' in Windows-1252: from memory, checked with Python's codec)
+    assert "(line 4, column segment, 'é' in Windows-1252)" in str(err.value)
+
+
+def test_a_utf16_tape_is_named_as_such(tmp_path, config):
+    """A spreadsheet's "Unicode text" export is UTF-16 with a byte-order mark: said so, with the fix."""
+    path = tmp_path / "wide.csv"
+    path.write_bytes("\n".join([HEADER, GOOD]).encode("utf-16"))
+    with pytest.raises(InputFileError, match="is UTF-16 text, not UTF-8") as err:
+        read_tape(path, config)
+    assert "save the file as UTF-8 CSV" in str(err.value.hint)
 
 
 def test_far_bad_byte_is_found_beyond_the_first_block(tmp_path, config):
@@ -338,8 +350,11 @@ def test_far_bad_byte_is_found_beyond_the_first_block(tmp_path, config):
     body = "\n".join(GOOD.replace("L1", f"L{i}") for i in range(60_000)) + "\n"
     data = (HEADER + "\n" + body).encode() + b"L0x,retail,level,2024-01-15,2030-01-15,1,0.05,0,,\xff\n"
     path.write_bytes(data)
-    with pytest.raises(InputFileError, match=rf"byte offset {len(data) - 2} holds 0xff"):
+    with pytest.raises(InputFileError, match=rf"byte offset {len(data) - 2} holds 0xff") as err:
         read_tape(path, config)
+    # the header, 60,000 good rows, then the bad row: line 60,002, its tenth field; 0xFF is
+    # 'ÿ' in Windows-1252 (Python's cp1252 codec)
+    assert f"(line 60002, column {HEADER.split(',')[9]}, 'ÿ' in Windows-1252)" in str(err.value)
 
 
 def test_bom_is_allowed(tmp_path, config):

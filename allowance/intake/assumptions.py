@@ -78,8 +78,14 @@ def _read_toml(path: Path) -> dict[str, Any]:
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as err:
+        byte, line = data[err.start], data.count(b"\n", 0, err.start) + 1
+        where = [f"line {line}"]
+        try:  # what the byte is in the usual other encoding
+            where.append(f"{bytes([byte]).decode('cp1252')!r} in Windows-1252")
+        except UnicodeDecodeError:
+            pass
         raise AssumptionsError(
-            f"is not UTF-8 text: byte offset {err.start} holds 0x{data[err.start]:02x}",
+            f"is not UTF-8 text: byte offset {err.start} holds 0x{byte:02x} ({', '.join(where)})",
             file=path,
             hint="save it as UTF-8",
         ) from err

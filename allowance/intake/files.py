@@ -274,12 +274,73 @@ def check_text_block(block: bytes, path: Path) -> None:
         )
 
 
+#: The byte-order marks of UTF-16 and UTF-32 (a spreadsheet's "Unicode text" export).
+_WIDE_MARKS = {b"\xff\xfe\x00\x00": "UTF-32", b"\x00\x00\xfe\xff": "UTF-32", b"\xff\xfe": "UTF-16",
+               b"\xfe\xff": "UTF-16"}
+
+
 def _not_utf8(path: Path, offset: int, byte: int) -> InputFileError:
-    return InputFileError(
-        f"is not UTF-8 text: byte offset {offset} holds 0x{byte:02x}",
-        file=path,
-        hint="save the file as UTF-8 CSV (e.g. 'CSV UTF-8' in a spreadsheet program)",
-    )
+    """The error for the first byte that is not UTF-8, saying where it is as a person finds it:
+    the file's line and, for a CSV line read as far as that byte, the column; and the
+    character the byte is in Windows-1252 (the usual other encoding of a spreadsheet's CSV).
+    A UTF-16 or UTF-32 file (its byte-order mark first) is named as such."""
+    hint = "save the file as UTF-8 CSV (e.g. 'CSV UTF-8' in a spreadsheet program)"
+    try:
+        with Path(path).open("rb") as handle:
+            head = handle.read(4)
+            if offset < 4:
+                for mark, name in _WIDE_MARKS.items():
+                    if head.startswith(mark):
+                        return InputFileError(f"is {name} text, not UTF-8 (it begins with a {name} byte-order mark)",
+                                              file=path, hint=hint)
+            line, before, header = _line_of(handle, offset)
+    except OSError:
+        return InputFileError(f"is not UTF-8 text: byte offset {offset} holds 0x{byte:02x}", file=path, hint=hint)
+    where = [f"line {line}"]
+    column = _column_at(header, before)
+    if column:
+        where.append(f"column {column}")
+    try:
+        seen = bytes([byte]).decode("cp1252")
+        where.append(f"{seen!r} in Windows-1252")
+    except UnicodeDecodeError:
+        pass
+    return InputFileError(f"is not UTF-8 text: byte offset {offset} holds 0x{byte:02x} ({', '.join(where)})",
+                          file=path, hint=hint)
+
+
+def _line_of(handle, offset: int) -> tuple[int, bytes, bytes]:
+    """The 1-based line holding byte ``offset``, the bytes of that line before it, and the
+    file's first line (its header), read from the start of ``handle``."""
+    handle.seek(0)
+    line, start, done, header = 1, 0, 0, b""
+    while done < offset:
+        block = handle.read(min(_CHUNK, offset - done))
+        if not block:
+            break
+        if line == 1 and not header:
+            header = block.split(b"\n", 1)[0] if b"\n" in block else b""
+        breaks = block.count(b"\n")
+        if breaks:
+            line += breaks
+            start = done + block.rindex(b"\n") + 1
+        done += len(block)
+    handle.seek(start)
+    before = handle.read(offset - start)
+    if line == 1:
+        header = b""
+    return line, before, header
+
+
+def _column_at(header: bytes, before: bytes) -> str | None:
+    """The header's name of the CSV field that ``before`` (a line's bytes up to a byte) ends
+    in, when both read as plain comma-separated fields (no quotes: a quoted field may hold
+    commas or span lines, and then no column is named)."""
+    if not header or b'"' in header or b'"' in before:
+        return None
+    names = header.decode("utf-8-sig", errors="replace").rstrip("\r").split(",")
+    index = before.count(b",")
+    return names[index] if index < len(names) else None
 
 
 def check_text(path: Path) -> None:
