@@ -343,6 +343,10 @@ def test_a_utf16_tape_is_named_as_such(tmp_path, config):
     with pytest.raises(InputFileError, match="is UTF-16 text, not UTF-8") as err:
         read_tape(path, config)
     assert "save the file as UTF-8 CSV" in str(err.value.hint)
+    for order in ("utf-16-le", "utf-16-be"):  # without the mark: every other byte is NUL
+        path.write_bytes("\n".join([HEADER, GOOD]).encode(order))
+        with pytest.raises(InputFileError, match="is UTF-16 text, not UTF-8 \\(every other byte is NUL"):
+            read_tape(path, config)
 
 
 def test_far_bad_byte_is_found_beyond_the_first_block(tmp_path, config):

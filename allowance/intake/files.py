@@ -267,6 +267,15 @@ def check_text_block(block: bytes, path: Path) -> None:
         raise _not_utf8(path, err.start, block[err.start]) from err
     nul = block.find(b"\x00")
     if nul >= 0:
+        head = block[:400]
+        # every other byte NUL: UTF-16 text without its byte-order mark (ASCII letters, each
+        # followed or preceded by a zero byte)
+        if len(head) >= 8 and (head[1::2].count(0) >= 0.9 * len(head[1::2]) or head[0::2].count(0) >= 0.9 * len(head[0::2])):
+            raise InputFileError(
+                f"is UTF-16 text, not UTF-8 (every other byte is NUL, from byte offset {nul})",
+                file=path,
+                hint="save the file as UTF-8 CSV (e.g. 'CSV UTF-8' in a spreadsheet program)",
+            )
         raise InputFileError(
             f"is not a text file (a NUL byte at byte offset {nul})",
             file=path,
