@@ -327,8 +327,8 @@ def _line_of(handle, offset: int) -> tuple[int, bytes, bytes]:
         block = handle.read(min(_CHUNK, offset - done))
         if not block:
             break
-        if line == 1 and not header:
-            header = block.split(b"\n", 1)[0] if b"\n" in block else b""
+        if done == 0 and b"\n" in block:  # the header: the first line, when the first block holds it whole
+            header = block.split(b"\n", 1)[0]
         breaks = block.count(b"\n")
         if breaks:
             line += breaks
