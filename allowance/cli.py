@@ -875,14 +875,9 @@ def _say_rejected(source: Path | None, rejected: Any, folder: Path) -> None:
 
 def _tape_kind(tape: Path) -> str:
     """``"folder"``, or the tape file's kind (``csv``, ``xlsx``, ``parquet``) for naming its rows."""
-    from allowance.intake.files import file_kind
+    from allowance.intake.files import kind_or_csv
 
-    if tape.is_dir():
-        return "folder"
-    try:
-        return file_kind(tape)
-    except (OSError, ValueError):  # a tape that was read cannot fail here; if it does, say line
-        return "csv"
+    return "folder" if tape.is_dir() else kind_or_csv(tape)
 
 
 def _where(tape: Path, kind: str, row: Any) -> str:

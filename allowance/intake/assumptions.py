@@ -29,7 +29,7 @@ from pydantic import BaseModel, ValidationError
 from allowance import curves, scenarios
 from allowance.exceptions import AssumptionsError
 from allowance.intake.fields import FIELDS, lower_first
-from allowance.intake.files import file_record
+from allowance.intake.files import file_record, in_windows_1252
 from allowance.schemas import Assumptions, InputFile, RunConfig
 
 Key = tuple[str | int, ...]
@@ -79,11 +79,7 @@ def _read_toml(path: Path) -> dict[str, Any]:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as err:
         byte, line = data[err.start], data.count(b"\n", 0, err.start) + 1
-        where = [f"line {line}"]
-        try:  # what the byte is in the usual other encoding
-            where.append(f"{bytes([byte]).decode('cp1252')!r} in Windows-1252")
-        except UnicodeDecodeError:
-            pass
+        where = [f"line {line}"] + ([seen] if (seen := in_windows_1252(byte)) else [])
         raise AssumptionsError(
             f"is not UTF-8 text: byte offset {err.start} holds 0x{byte:02x} ({', '.join(where)})",
             file=path,

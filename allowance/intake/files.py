@@ -274,7 +274,7 @@ def check_text_block(block: bytes, path: Path) -> None:
             raise InputFileError(
                 f"is UTF-16 text, not UTF-8 (every other byte is NUL, from byte offset {nul})",
                 file=path,
-                hint="save the file as UTF-8 CSV (e.g. 'CSV UTF-8' in a spreadsheet program)",
+                hint=_SAVE_AS_UTF8,
             )
         raise InputFileError(
             f"is not a text file (a NUL byte at byte offset {nul})",
@@ -282,6 +282,9 @@ def check_text_block(block: bytes, path: Path) -> None:
             hint="give a CSV, XLSX or Parquet tape",
         )
 
+
+#: The fix every "not UTF-8" error of a CSV gives.
+_SAVE_AS_UTF8 = "save the file as UTF-8 CSV (e.g. 'CSV UTF-8' in a spreadsheet program)"
 
 #: The byte-order marks of UTF-16 and UTF-32 (a spreadsheet's "Unicode text" export).
 _WIDE_MARKS = {b"\xff\xfe\x00\x00": "UTF-32", b"\x00\x00\xfe\xff": "UTF-32", b"\xff\xfe": "UTF-16",
@@ -293,7 +296,7 @@ def _not_utf8(path: Path, offset: int, byte: int) -> InputFileError:
     the file's line and, for a CSV line read as far as that byte, the column; and the
     character the byte is in Windows-1252 (the usual other encoding of a spreadsheet's CSV).
     A UTF-16 or UTF-32 file (its byte-order mark first) is named as such."""
-    hint = "save the file as UTF-8 CSV (e.g. 'CSV UTF-8' in a spreadsheet program)"
+    hint = _SAVE_AS_UTF8
     try:
         with Path(path).open("rb") as handle:
             head = handle.read(4)
@@ -309,13 +312,33 @@ def _not_utf8(path: Path, offset: int, byte: int) -> InputFileError:
     column = _column_at(header, before)
     if column:
         where.append(f"column {column}")
-    try:
-        seen = bytes([byte]).decode("cp1252")
-        where.append(f"{seen!r} in Windows-1252")
-    except UnicodeDecodeError:
-        pass
+    where += [seen] if (seen := in_windows_1252(byte)) else []
     return InputFileError(f"is not UTF-8 text: byte offset {offset} holds 0x{byte:02x} ({', '.join(where)})",
                           file=path, hint=hint)
+
+
+def in_windows_1252(byte: int) -> str | None:
+    """What a byte that is not UTF-8 reads as in Windows-1252, the usual other encoding of a
+    spreadsheet's export (``"'é' in Windows-1252"``), or None where that code page has no
+    character for it.
+
+    >>> in_windows_1252(0xE9), in_windows_1252(0x81)
+    ("'é' in Windows-1252", None)
+    """
+    try:
+        return f"{bytes([byte]).decode('cp1252')!r} in Windows-1252"
+    except UnicodeDecodeError:
+        return None
+
+
+def kind_or_csv(path: Path) -> FileKind:
+    """:func:`file_kind`, or ``"csv"`` when it cannot be told (the file gone or unreadable, or
+    its content not what its suffix says): for naming a file's rows in a message, never for
+    choosing its reader."""
+    try:
+        return file_kind(path)
+    except (OSError, AllowanceError):
+        return "csv"
 
 
 def _line_of(handle, offset: int) -> tuple[int, bytes, bytes]:
@@ -370,7 +393,7 @@ def check_text(path: Path) -> None:
         raise InputFileError(
             f"is not UTF-8 text: the file ends inside a character (byte offset {offset - 1})",
             file=path,
-            hint="save the file as UTF-8 CSV",
+            hint=_SAVE_AS_UTF8,
         ) from err
 
 

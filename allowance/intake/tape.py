@@ -23,9 +23,9 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from allowance.exceptions import InputFileError, TapeError
+from allowance.exceptions import TapeError
 from allowance.intake.fields import FIELDS, INT_COLUMNS
-from allowance.intake.files import check_size, file_kind, refuse_other_separators
+from allowance.intake.files import check_size, file_kind, kind_or_csv, refuse_other_separators
 from allowance.intake.parse import NO_DAY, PARSERS, Parsed, parse_arrow, parse_dates
 from allowance.intake.readers import Malformed, RawTape, as_text, read_frame, read_raw
 from allowance.intake.results import IntakeResult, Later, extra_columns_note
@@ -389,14 +389,6 @@ class Validated:
     dates: DateEvidence
 
 
-def _kind_of(path: Path) -> str:
-    """The tape file's kind (:func:`~allowance.intake.files.file_kind`), ``"csv"`` when it cannot be told."""
-    try:
-        return file_kind(path)
-    except (OSError, ValueError, InputFileError):
-        return "csv"
-
-
 def validate(raw: RawTape, path: Path, config: RunConfig, *,
              repeated: Mapping[str, Sequence[int]] | None = None, later: bool = False) -> Validated:
     """Apply every row rule to a tape as read: the one validation path of :func:`read_tape` and
@@ -412,7 +404,7 @@ def validate(raw: RawTape, path: Path, config: RunConfig, *,
     cols = _parse(raw, colmap, config, str(path))
     if repeated is not None:
         cols = dataclasses.replace(cols, repeated=repeated)
-    if _kind_of(path) == "parquet":  # its n-th row is source_row n + 1: messages name source_row
+    if kind_or_csv(path) == "parquet":  # its n-th row is source_row n + 1: messages name source_row
         cols = dataclasses.replace(cols, row_word="source_row")
     # a segment the rows need a key of: one error naming the key (the fix is in the assumptions)
     paydown = [fw for fw in config.frameworks if rules_for(fw).revolving_paydown]
