@@ -576,7 +576,7 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
               chunk_size: int | None, progress: Progress | None, ledger_balance: float | None, accept: bool,
               sensitivities: bool, arguments: dict, started: tuple[float, Any]) -> Result:
     """:func:`run` for a Parquet tape computed part by part, its loan detail written to ``folder``."""
-    from allowance import engine, macro, partitioned, report
+    from allowance import disclosure, engine, macro, partitioned, report
 
     if isinstance(source, pd.DataFrame) or not intake.is_partitioned(source):
         raise InputFileError("the Parquet loan detail is written part by part from a Parquet tape",
@@ -592,8 +592,9 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
                                 **({"map": map} if map is not None else {}),
                                 **({"chunk_size": chunk_size} if chunk_size is not None else {}))
     warnings = [*book.intake.notes, *book.warnings,
-                f"the loan detail is in {folder} (Parquet, one file per part of the tape); no reserve.xlsx is "
-                "written for a book computed part by part: the totals by framework, stage and segment are in run.json"]
+                f"the loan detail is in {folder} (Parquet, one file per part of the tape); summary.xlsx is made "
+                "from the sums the parts sent back, and no reserve.xlsx is written for a book computed part by part "
+                "(its loan sheet and schedules need the loans themselves)"]
     if sensitivities and len(config.assumptions.scenarios) > 1:
         warnings.append("the one-scenario sensitivities are not computed for a book computed part by part")
     taken = dataclasses.replace(book.intake, findings=pd.concat([book.intake.findings, book.findings], ignore_index=True))
@@ -604,7 +605,7 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
     prep = book.prep
     run_report = report.RunReport(
         config=config, intake=taken, tie_out=ties[0], loans=book.loans, overlays=book.overlays,
-        scenarios=engine.scenario_summary(book.loans, config), term_structures=engine.views.term_structure_table(prep),
+        disclosures=disclosure.tables_from_cents(book.disclosures), scenarios=engine.scenario_summary(book.loans, config), term_structures=engine.views.term_structure_table(prep),
         roll_rates=engine.roll_rate_table(config), reversion=engine.reversion_view(prep),
         macro_paths=macro.macro_path_table(config.assumptions, prep.months), pd_paths=book.pd_paths, record=record,
         warnings=warnings, loan_detail=str(folder),

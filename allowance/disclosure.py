@@ -7,10 +7,16 @@ ifrs7_35m         gross carrying amount by credit grade and stage (stage 1/2/3, 
 asc326_vintage    amortised cost by credit quality indicator and year of origination, with the
                   period's gross write-offs by year of origination (ASU 2022-02)
 disclosure_tables the tables a run's frameworks ask for, by name (``ifrs7_35m``, ``asc326_vintage``)
+disclosure_cents  the same tables' cells in whole cents, before their totals (a part of a book's)
+add_cents         the cells of several parts of a book added up
+tables_from_cents the tables from their cells
 sorted_categorical codes over labels as a categorical sorted by the labels' text (grouping, here and in the totals)
 
 Both are sums of the rounded loan figures in whole cents, so each foots to the run's total
-balance. The gross carrying amount and the amortised cost are the tape's outstanding
+balance. Each is made in two steps: its cells (cents by label, :func:`disclosure_cents`),
+then its totals and layout (:func:`tables_from_cents`); the cells of the parts of a book
+computed part by part add up to the whole book's (:func:`add_cents`), so its tables are
+those of the book read at once. The gross carrying amount and the amortised cost are the tape's outstanding
 principal (``balance``); deferred fees, premiums and accrued interest are not on the tape.
 Where a segment carries no grade, the credit quality indicator is delinquency (IFRS 7 B8I
 allows a past-due analysis where that is the only borrower-specific information; ASC
@@ -35,7 +41,8 @@ from allowance.frameworks import rules_for
 from allowance.money import cents_by_group
 from allowance.staging import STAGE_CLASSES, stage_class_codes
 
-__all__ = ["DPD_BANDS", "asc326_vintage", "credit_quality", "disclosure_tables", "ifrs7_35m", "sorted_categorical"]
+__all__ = ["DPD_BANDS", "add_cents", "asc326_vintage", "credit_quality", "disclosure_cents", "disclosure_tables",
+           "ifrs7_35m", "sorted_categorical", "tables_from_cents"]
 
 #: Days-past-due bands used as the credit quality indicator where there is no grade.
 DPD_BANDS: tuple[tuple[int, str], ...] = (
@@ -197,9 +204,20 @@ def ifrs7_35m(loans: pd.DataFrame, *, coded: tuple[Coded, tuple[Coded, Coded]] |
     >>> ifrs7_35m(loans)[["segment", "credit_quality", "stage 1", "stage 2", "POCI", "total"]].values.tolist()
     [['auto', 'A', 100.0, 50.0, 0.0, 150.0], ['auto', 'B', 0.0, 0.0, 20.0, 20.0], ['auto', 'Total', 100.0, 50.0, 20.0, 170.0], ['Total', '', 100.0, 50.0, 20.0, 170.0]]
     """
+    return _ifrs7_35m_table(_ifrs7_35m_cells(loans, coded=coded))
+
+
+def _ifrs7_35m_cells(loans: pd.DataFrame, *, coded: tuple[Coded, tuple[Coded, Coded]] | None = None) -> pd.DataFrame:
+    """IFRS 7 35M's cells: the gross carrying amount in whole cents by segment, credit quality
+    and basis (the index, sorted) and class (the columns, :data:`STAGE_CLASSES`)."""
     segment, (quality, basis) = coded or _loan_codes(loans)
-    grid = _sum_cents({"segment": segment, "credit_quality": quality, "basis": basis},
+    return _sum_cents({"segment": segment, "credit_quality": quality, "basis": basis},
                       _classes(loans), list(STAGE_CLASSES), _cents(loans["balance"]))
+
+
+def _ifrs7_35m_table(grid: pd.DataFrame) -> pd.DataFrame:
+    """:func:`ifrs7_35m` from its cells: a total per segment and for the book, money in units."""
+    grid = grid.copy()
     grid["total"] = grid.sum(axis=1)
     parts = []
     for segment, block in grid.groupby(level="segment", sort=True):
@@ -277,6 +295,14 @@ def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | 
     >>> table[["credit_quality", "2026", "2023", "prior", "total"]].values.tolist()
     [['A', 100.0, 30.0, 0.0, 130.0], ['B', 0.0, 0.0, 50.0, 50.0]]
     """
+    return _vintage_table(_vintage_cells(loans, as_of, write_offs, coded=coded))
+
+
+def _vintage_cells(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | None = None, *,
+                   coded: tuple[Coded, tuple[Coded, Coded]] | None = None) -> pd.DataFrame:
+    """ASC 326-20-50-6's cells: amortised cost (and gross write-offs) in whole cents by segment,
+    row, credit quality and basis (the index, sorted) and vintage (the columns, ``unknown``
+    last when a loan's year is not known)."""
     columns = _vintage_columns(as_of)
     segment, (quality, basis) = coded or _loan_codes(loans)
     n = len(loans)
@@ -294,7 +320,13 @@ def asc326_vintage(loans: pd.DataFrame, as_of: date, write_offs: pd.DataFrame | 
     vintage = _concat(vintage)
     if (vintage[1][np.unique(vintage[0])] == "unknown").any():
         columns = columns + ["unknown"]
-    grid = _sum_cents({k: _concat(v) for k, v in keys.items()}, vintage, columns, np.concatenate(cents))
+    return _sum_cents({k: _concat(v) for k, v in keys.items()}, vintage, columns, np.concatenate(cents))
+
+
+def _vintage_table(grid: pd.DataFrame) -> pd.DataFrame:
+    """:func:`asc326_vintage` from its cells: a total per row, money in units."""
+    columns = list(grid.columns)
+    grid = grid.copy()
     grid["total"] = grid.sum(axis=1)
     out = grid.reset_index()
     out.columns.name = None
@@ -330,13 +362,22 @@ def disclosure_tables(loans: pd.DataFrame, as_of: date, frameworks, *, charge_of
     >>> sorted(disclosure_tables(loans, date(2026, 9, 30), ["ifrs9", "cecl"]))
     ['asc326_vintage', 'ifrs7_35m']
     """
+    return tables_from_cents(disclosure_cents(loans, as_of, frameworks, charge_offs=charge_offs,
+                                              prior_loans=prior_loans))
+
+
+def disclosure_cents(loans: pd.DataFrame, as_of: date, frameworks, *, charge_offs: pd.DataFrame | None = None,
+                     prior_loans: pd.DataFrame | None = None) -> dict[str, pd.DataFrame]:
+    """The cells of :func:`disclosure_tables` (same arguments): each table's whole cents by its
+    labels (a sorted index) and its columns, before any total. Added over the parts of a book
+    (:func:`add_cents`) they are the whole book's cells, exactly."""
     rules = [rules_for(f) for f in frameworks]
     out: dict[str, pd.DataFrame] = {}
     both = (any(r.staged for r in rules) and "stage" in loans.columns
             and any(not r.staged for r in rules) and "origination_date" in loans.columns)
     coded = _loan_codes(loans) if both else None  # the segments and grades coded once for both tables
     if any(r.staged for r in rules) and "stage" in loans.columns:
-        out["ifrs7_35m"] = ifrs7_35m(loans, coded=coded)
+        out["ifrs7_35m"] = _ifrs7_35m_cells(loans, coded=coded)
     if any(not r.staged for r in rules) and "origination_date" in loans.columns:
         write_offs = None
         if charge_offs is not None and len(charge_offs):
@@ -348,5 +389,37 @@ def disclosure_tables(loans: pd.DataFrame, as_of: date, frameworks, *, charge_of
                 write_offs = write_offs.astype({"loan_id": str}).merge(where, on="loan_id", how="left")
             else:
                 write_offs["origination_date"], write_offs["repayment"] = pd.NaT, ""
-        out["asc326_vintage"] = asc326_vintage(loans, as_of, write_offs, coded=coded)
+        out["asc326_vintage"] = _vintage_cells(loans, as_of, write_offs, coded=coded)
     return out
+
+
+def add_cents(parts: list[dict[str, pd.DataFrame]]) -> dict[str, pd.DataFrame]:
+    """The cells of several parts of a book (:func:`disclosure_cents`) added up, table by table:
+    the labels of every part (sorted, as one part's are), each column in its place (a column
+    only some parts have, ``unknown``, last and 0 elsewhere), exact in whole cents.
+
+    Examples
+    --------
+    >>> a = disclosure_cents(pd.DataFrame({"segment": "auto", "grade": ["A"], "stage": [1], "poci": False,
+    ...                                    "balance": [100.0]}), date(2026, 9, 30), ["ifrs9"])
+    >>> b = disclosure_cents(pd.DataFrame({"segment": "auto", "grade": ["A", "B"], "stage": [2, 1], "poci": False,
+    ...                                    "balance": [50.0, 20.0]}), date(2026, 9, 30), ["ifrs9"])
+    >>> add_cents([a, b])["ifrs7_35m"].reset_index().values.tolist()
+    [['auto', 'A', 'grade', 10000, 5000, 0, 0], ['auto', 'B', 'grade', 2000, 0, 0, 0]]
+    """
+    out: dict[str, pd.DataFrame] = {}
+    for name in dict.fromkeys(n for part in parts for n in part):
+        grids = [part[name] for part in parts if name in part]
+        columns = list(dict.fromkeys(c for g in grids for c in g.columns))
+        columns = [c for c in columns if c != "unknown"] + (["unknown"] if "unknown" in columns else [])
+        grids = [g.reindex(columns=columns, fill_value=0) for g in grids]
+        levels = list(grids[0].index.names)
+        summed = pd.concat(grids).groupby(level=levels, sort=True).sum() if any(len(g) for g in grids) else grids[0]
+        out[name] = summed.astype(np.int64)
+    return out
+
+
+def tables_from_cents(cells: dict[str, pd.DataFrame]) -> dict[str, pd.DataFrame]:
+    """The disclosure tables from their cells (:func:`disclosure_cents`, :func:`add_cents`)."""
+    finish = {"ifrs7_35m": _ifrs7_35m_table, "asc326_vintage": _vintage_table}
+    return {name: finish[name](grid) for name, grid in cells.items()}

@@ -10,8 +10,9 @@ whichever worker the ``map`` sends it to; what comes back is small and additive:
 2. each part's intake (rejected rows, findings, counts), the balance it accepted, its
    longest horizon and oldest loan (the book-level tables cover every loan of the book:
    :func:`allowance.engine.prepare` runs once, here, on those maxima);
-3. each part's sums in whole cents by segment, stage and POCI flag, its overlays' effects,
-   its findings and its balance on each PD curve key (the PD paths' weights).
+3. each part's sums in whole cents by segment, stage, POCI flag and measurement, its
+   overlays' effects, its findings, its balance on each PD curve key (the PD paths' weights)
+   and the cells of its disclosure tables.
 
 Each loan's figures are those of a run of the whole book in one process, to the cent: the
 chunks are pure functions of their loans and the book's tables, and money is rounded per
@@ -23,14 +24,14 @@ An overlay of an ``amount`` is allocated over every loan in its scope at once: t
 send its weights (8 bytes per loan in scope and framework), it is allocated here as over
 a whole book, and each part, written with its modelled figures, is finished with its
 share (:func:`finish_part`). What needs the whole loan frame at once is not done here, and
-the run says so: the workbook (the run record carries the totals by framework, stage and
-segment), the movement from a prior run, a what-if, the one-scenario sensitivities, the
-disclosure tables and the schedules sample.
+the run says so: the reserve workbook (its loan sheet; the summary workbook is made from
+the sums), the movement from a prior run, a what-if, the one-scenario sensitivities and the
+schedules sample.
 
 Implements
 ----------
 BOOK_KEYS       the columns the loan sums are grouped by
-loan_sums       a loan frame's money in whole cents by segment, stage and POCI flag
+loan_sums       a loan frame's money in whole cents by segment, stage, POCI flag and measurement
 PartFacts       what a part tells before the book's tables are built
 PartSums        what a computed part sends back
 part_facts      read and validate a part -> PartFacts
@@ -54,12 +55,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from allowance import engine, intake, overlays, staging
+from allowance import disclosure, engine, intake, overlays, staging
 from allowance.exceptions import OutputError
 from allowance.intake.parts import TapeLayout, TapePart, combine, read_part, repeated_ids, tape_layout
 from allowance.engine.views import pd_path_from, pd_path_weights
 from allowance.intake.tape import Validated
-from allowance.schemas import RunConfig
+from allowance.schemas import LOAN_COUNT, RunConfig
 
 __all__ = ["BOOK_KEYS", "BookRun", "PartFacts", "PartSums", "compute_part", "finish_part", "loan_sums", "part_facts",
            "run_book"]
@@ -67,9 +68,9 @@ __all__ = ["BOOK_KEYS", "BookRun", "PartFacts", "PartSums", "compute_part", "fin
 Map = Callable[[Callable, Iterable], Iterable]
 
 #: the loan sums' grouping: every table of the run is a sum over these groups
-BOOK_KEYS = ("segment", "stage", "stage_class", "poci")
+BOOK_KEYS = ("segment", "stage", "stage_class", "poci", "measurement")
 #: the count of loans in a group of :func:`loan_sums`
-COUNT = "loan_count"
+COUNT = LOAN_COUNT
 
 
 def _money_columns(loans: pd.DataFrame) -> list[str]:
@@ -148,6 +149,8 @@ class PartSums:
     pd_path_weights: np.ndarray | None = None  # balance on each curve key (engine.views.pd_path_weights)
     waiting: str | None = None  # written before the book's amount overlays were allocated
     weights: dict[tuple[int, str], np.ndarray] = dataclasses.field(default_factory=dict)
+    #: the disclosure tables' cells of its loans (:func:`allowance.disclosure.disclosure_cents`)
+    disclosures: dict[str, pd.DataFrame] = dataclasses.field(default_factory=dict)
 
 
 def part_facts(part: TapePart, *, config: RunConfig, repeated: dict[str, list[int]],
@@ -189,16 +192,18 @@ def compute_part(part: TapePart, *, prep: engine.Prepared, repeated: dict[str, l
     target = Path(folder) / f"part-{part.first_row:012d}.parquet"
     coverage = staging.pd_ratio_coverage(accepted) if prep.staged is not None else pd.DataFrame()
     weights = pd_path_weights(accepted, prep) if len(accepted) else np.zeros(prep.pd.shape[1])
+    # by balance, stage and labels, none of which an overlay changes: made before the overlays
+    cells = disclosure.disclosure_cents(done.loans, prep.config.as_of, prep.config.frameworks)
     if done.overlays is None:
         waiting = target.with_name(f".{target.stem}.modelled.parquet")
         _write(done.loans, waiting)
         return PartSums(sums=pd.DataFrame(), overlays=pd.DataFrame(), overlay_warnings=(), findings=done.findings,
                         coverage=coverage, file=str(target), pd_path_weights=weights, waiting=str(waiting),
-                        weights=done.weights)
+                        weights=done.weights, disclosures=cells)
     _write(done.loans, target)
     return PartSums(sums=loan_sums(done.loans), overlays=done.overlays.table,
                     overlay_warnings=tuple(done.overlays.warnings), findings=done.findings, coverage=coverage,
-                    file=str(target), pd_path_weights=weights)
+                    file=str(target), pd_path_weights=weights, disclosures=cells)
 
 
 def finish_part(computed: PartSums, *, config: RunConfig) -> PartSums:
@@ -258,8 +263,9 @@ def _overlay_table(parts: Sequence[PartSums]) -> tuple[pd.DataFrame, list[str]]:
 @dataclass(frozen=True)
 class BookRun:
     """A book computed part by part: the tape's intake (no accepted rows kept), the tie-out
-    inputs, the book's tables, the loan sums (``loans``: one row per segment, stage and POCI
-    flag, money in units, ``loan_count``), the overlays and the findings."""
+    inputs, the book's tables, the loan sums (``loans``: one row per segment, stage, POCI flag
+    and measurement, money in units, ``loan_count``), the overlays, the findings and the
+    disclosure tables' cells."""
 
     layout: TapeLayout
     intake: intake.IntakeResult
@@ -271,6 +277,8 @@ class BookRun:
     warnings: list[str]
     files: tuple[str, ...]
     pd_paths: pd.DataFrame = dataclasses.field(default_factory=pd.DataFrame)
+    #: the disclosure tables' cells of the whole book (:func:`allowance.disclosure.add_cents`)
+    disclosures: dict[str, pd.DataFrame] = dataclasses.field(default_factory=dict)
 
 
 def _fresh_folder(folder: Path, create: bool = True) -> None:
@@ -337,6 +345,7 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
     return BookRun(layout=layout, intake=taken, accepted_balance=balance, prep=prep,
                    loans=_book_frame([p.sums for p in parts]), overlays=overlays,
                    findings=pd.concat(findings, ignore_index=True) if findings else pd.DataFrame(),
-                   warnings=warnings, files=tuple(p.file for p in parts), pd_paths=pd_paths)
+                   warnings=warnings, files=tuple(p.file for p in parts), pd_paths=pd_paths,
+                   disclosures=disclosure.add_cents([p.disclosures for p in parts]))
 
 

@@ -23,6 +23,7 @@ from allowance.exceptions import AllowanceError
 from allowance.frameworks import rules_for
 from allowance.intake import IntakeResult, TieOut, check_table
 from allowance.money import cents_by_group, money_total
+from allowance.schemas import LOAN_COUNT
 
 if TYPE_CHECKING:  # the writers are imported where they write: a check that writes nothing needs none
     from allowance.report import RunReport
@@ -33,7 +34,6 @@ if TYPE_CHECKING:  # the writers are imported where they write: a check that wri
 __all__ = ["CheckResult", "Result", "totals_table"]
 
 TOTAL = "Total"
-LOAN_COUNT = "loan_count"  # the loans in a row of a book's loan sums (allowance.partitioned.COUNT)
 
 
 def totals_table(loans: pd.DataFrame, frameworks: list[str], counts: str | None = None) -> pd.DataFrame:
@@ -259,7 +259,9 @@ class Result:
         return write_outputs(Path(out_dir), self.report, parquet=parquet, progress=progress)
 
     def workbook(self, path: str | Path) -> Path:
-        """Write the reserve workbook alone to ``path`` (its folder must exist); return the path."""
+        """Write the reserve workbook alone to ``path`` (its folder must exist); return the path.
+        A book computed part by part has no reserve workbook (an :class:`AllowanceError` says
+        so): :meth:`write` makes its ``summary.xlsx`` from the sums."""
         path = Path(path)
         from allowance.report import write_workbook
 

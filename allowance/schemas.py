@@ -248,6 +248,11 @@ RESULT_PREFIXES: tuple[str, ...] = (
 )
 
 
+#: The loans a row of a book's loan sums stands for (a book computed part by part sends back
+#: its loans summed by group: :func:`allowance.partitioned.loan_sums`)
+LOAN_COUNT = "loan_count"
+
+
 def is_result_column(name: str) -> bool:
     """Whether ``name`` (lower case) is, or could be, a computed loan-result column.
 

@@ -203,12 +203,16 @@ def test_the_loan_detail_written_by_the_workers_is_the_in_process_loan_frame_to_
     assert book.totals.equals(alone.totals)
     assert book.report.scenarios.equals(alone.report.scenarios)
     assert book.report.overlays.equals(alone.report.overlays)
+    assert list(book.report.disclosures) == list(alone.report.disclosures) == ["ifrs7_35m", "asc326_vintage"]
+    for name, table in alone.report.disclosures.items():  # the parts' cells added up on the driver
+        pd.testing.assert_frame_equal(book.report.disclosures[name], table)
     pd.testing.assert_frame_equal(book.report.pd_paths, alone.report.pd_paths, rtol=1e-12)  # balance sums: float order
     book.write(tmp_path / "out")
     written, reference = (json.loads((tmp_path / d / "run.json").read_text()) for d in ("out", "alone"))
     for key in ("rows", "loans", "total_balance", "total_allowance", "totals", "tie_out"):
         assert written[key] == reference[key], key
     assert not (tmp_path / "out" / "loans.csv").exists() and not (tmp_path / "out" / "reserve.xlsx").exists()
+    assert (tmp_path / "out" / "summary.xlsx").exists()  # made from the sums (tests/test_book_workbook.py)
     with pytest.raises(AllowanceError, match="part by part"):
         _ = book.loans
 
@@ -247,3 +251,4 @@ def test_run_loans_parquet_on_a_cluster_through_the_command_line(tmp_path):
     assert record["total_allowance"] == {fw: float(alone.summary.set_index("framework").loc[label, "allowance"])
                                          for fw, label in (("ifrs9", "IFRS 9"), ("cecl", "CECL"))}
     assert record["loans"] == 300 and record["loan_detail"] == str(tmp_path / "detail")
+    assert (tmp_path / "out" / "summary.xlsx").exists() and (tmp_path / "out" / "disclosure_ifrs7_35m.csv").exists()

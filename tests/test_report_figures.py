@@ -14,6 +14,8 @@ import itertools
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from allowance.report import figures
 from allowance.report.figures import LoanRefs
@@ -100,3 +102,32 @@ def test_labels_are_those_pandas_finds(text_dtype):
         assert labels == list(loans[column].dropna().unique())
         assert missing == bool(loans[column].isna().any())
     assert LoanRefs(loans.iloc[:0], live=False).labels("segment") == ([], False)
+
+
+@settings(max_examples=25, deadline=None, derandomize=True)
+@given(cuts=st.lists(st.integers(0, 400), max_size=6), text_dtype=st.sampled_from(["str", "object"]))
+def test_a_book_summed_part_by_part_gives_the_figures_of_its_loans(cuts, text_dtype):
+    """The loans cut into parts anywhere, each part summed by group as a part of a book
+    computed part by part sends it back (:func:`allowance.partitioned.loan_sums`), the parts
+    added up (``_book_frame``) and read with their loan counts: every count and money figure
+    is the one the loans give, over any criteria (reference: the loans themselves, through
+    the same figures and through a pandas group-by in the tests above)."""
+    from allowance.partitioned import COUNT, _book_frame, loan_sums
+
+    loans = _book(text_dtype)
+    edges = [0, *sorted(cuts), len(loans)]
+    parts = [loans.iloc[a:b] for a, b in zip(edges, edges[1:])]
+    sums = _book_frame([loan_sums(p) for p in parts])
+    assert int(sums[COUNT].sum()) == len(loans)
+    by_loan, by_sum = LoanRefs(loans, live=True), LoanRefs(sums, live=True, count=COUNT)
+    assert not by_sum.live  # rows that stand for many loans are never a loan sheet: values, not formulas
+    for segment, stage, poci, measurement in itertools.product(["auto", "", "Auto", "<5", "zzz"], [1, 2, 3, 9],
+                                                               [False, True], ["model", "individual"]):
+        for crit in ([("segment", "", segment)], [("segment", "", segment), ("stage", "", stage)],
+                     [("stage", "", stage), ("poci", "", poci)], [("measurement", "", measurement)],
+                     [("segment", "", segment), ("stage", "", stage), ("poci", "", poci),
+                      ("measurement", "", measurement)], []):
+            assert by_sum.count(crit).value == by_loan.count(crit).value, crit
+            for column in ("balance", "ecl_ifrs9"):
+                assert by_sum.total(column, crit).value == by_loan.total(column, crit).value, (crit, column)
+    assert sorted(by_sum.labels("segment")[0]) == sorted(by_loan.labels("segment")[0])

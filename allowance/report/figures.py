@@ -20,6 +20,12 @@ codes its criteria select. A workbook's figures thus cost one pass over the book
 not one a figure (at a million loans, hundreds of passes). Criteria on other columns are
 matched loan by loan.
 
+A book computed part by part (:mod:`allowance.partitioned`) has no loan frame: its loans
+come as their sums by segment, stage, POCI flag and measurement, each row counting
+``loan_count`` loans. ``LoanRefs(sums, count="loan_count")`` takes such a frame: money is
+summed as for loans (the rows' cents are the loans' cents added up) and a count adds up the
+rows' counts, so every figure over those labels is the loan frame's, exactly.
+
 Why exact matching
 ------------------
 A SUMIFS / COUNTIFS criterion is not plain text: a leading ``<``, ``>`` or ``=`` is a
@@ -97,9 +103,12 @@ class LoanRefs:
     """
 
     def __init__(self, loans: pd.DataFrame, *, live: bool, sheet: str = "Loans", first_row: int = 2,
-                 like: "LoanRefs | None" = None) -> None:
+                 like: "LoanRefs | None" = None, count: str | None = None) -> None:
         self.loans = loans
-        self.live = live and len(loans) > 0
+        # ``count``: a column of how many loans each row stands for (sums by group, not loans);
+        # such rows are never a loan sheet, so their figures are values
+        self.counts = None if count is None else loans[count].to_numpy(dtype=np.int64)
+        self.live = live and len(loans) > 0 and count is None
         self.sheet = quote_sheet(sheet)
         self.first_row = first_row
         self.last_row = first_row + len(loans) - 1
@@ -124,7 +133,9 @@ class LoanRefs:
                 self._values[key] = grouped
                 return grouped
             mask = self.mask(criteria) if criteria else None
-            if column is None:
+            if column is None and self.counts is not None:
+                self._values[key] = float(int(self.counts.sum() if mask is None else self.counts.sum(where=mask)))
+            elif column is None:
                 self._values[key] = float(len(self.loans) if mask is None else np.count_nonzero(mask))
             else:
                 cents = self._money(column)
@@ -148,8 +159,11 @@ class LoanRefs:
                     combo += codes
                     combo += 1
                 combo = combo.astype(np.intp)
+                size = int(np.prod(dims, dtype=np.int64))
+                counts = np.bincount(combo, minlength=size) if self.counts is None else \
+                    np.rint(np.bincount(combo, weights=self.counts, minlength=size)).astype(np.int64)
                 grouping = {"columns": columns, "labels": [labels for _, labels in axes], "dims": dims,
-                            "combo": combo, "counts": np.bincount(combo, minlength=int(np.prod(dims, dtype=np.int64)))}
+                            "combo": combo, "counts": counts}
             self._grouped_by["grouping"] = grouping
         return self._grouped_by["grouping"]
 

@@ -273,8 +273,11 @@ class OutputPaths(list):
 def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
                 progress: Callable[[str, int, int], object] | None, total: int) -> list[str]:
     """A book computed part by part: its loan detail is already in ``report.loan_detail``; here
-    the rejected rows, warnings, the macro paths and the run record (whose totals by framework,
-    stage and segment are the loan sums'). No workbook: its sheets read the loan frame."""
+    the rejected rows, warnings, the disclosure tables, the macro paths, the summary workbook
+    and the run record (whose totals by framework, stage and segment are the loan sums').
+    The summary's figures are the loan sums' (``report.loans``: one row per segment, stage,
+    POCI flag and measurement, with its loan count), the same as the loans give; there is no
+    reserve workbook, whose loan sheet and schedules need the loans themselves."""
     written: list[str] = []
 
     def did(name: str) -> None:
@@ -285,12 +288,17 @@ def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
     did("rejected.csv")
     _csv(warnings_frame(report), folder / "warnings.csv")
     did("warnings.csv")
+    for name, table in (report.disclosures or {}).items():
+        _csv(table, folder / f"disclosure_{name}.csv")
+        did(f"disclosure_{name}.csv")
     if report.macro_paths is not None and not report.macro_paths.empty:
         _csv(report.macro_paths, folder / "macro_paths.csv")
         did("macro_paths.csv")
         if report.pd_paths is not None and not report.pd_paths.empty:
             _csv(report.pd_paths, folder / "pd_paths.csv")
             did("pd_paths.csv")
+    write_summary_workbook(folder / "summary.xlsx", report)
+    did("summary.xlsx")
     (folder / "run.json").write_text(json.dumps(report.record, indent=2, allow_nan=False) + "\n", encoding="utf-8")
     did("run.json")
     if progress is not None:

@@ -100,9 +100,10 @@ def gross_net_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.Dat
 
 
 def measurement_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.DataFrame, refs: LoanRefs,
-                        led: Ledger) -> int:
+                        led: Ledger, detail: str = "loans.csv") -> int:
     """Write the allowance by measurement from row ``r`` (only when some loan is measured one by
-    one); return the next free row. Each line is a COUNTIFS / SUMIFS over ``measurement``."""
+    one); return the next free row. Each line is a COUNTIFS / SUMIFS over ``measurement``;
+    ``detail`` names where each loan's measurement is."""
     if "measurement" not in loans:
         return r
     labels, missing = refs.labels("measurement")
@@ -112,7 +113,7 @@ def measurement_section(sheet: Sheet, r: int, frameworks: list[str], loans: pd.D
     r = sheet.note(r, "Collateral-dependent loans: amortised cost less the collateral's fair value less costs to "
                       "sell, floored at 0, the same in every scenario, in the frameworks the segment lists (the model "
                       "measures them in the others). Individually assessed loans take the tape's individual_ecl in "
-                      "every framework. The measurement column of loans.csv names each loan's.")
+                      f"every framework. The measurement column of {detail} names each loan's.")
     cols, kinds = ["Measurement", "Code", "Loans", "Balance"], ["text", "text", "count", "money"]
     for f in frameworks:
         label = FRAMEWORK_RULES[f].label

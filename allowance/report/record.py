@@ -27,7 +27,7 @@ from allowance.intake import IntakeResult, TieOut
 from allowance.money import money_total, money_totals
 from allowance.report import clock
 from allowance.report.environment import environment
-from allowance.schemas import Framework, InputFile, RunConfig, RunRecord
+from allowance.schemas import LOAN_COUNT, Framework, InputFile, RunConfig, RunRecord
 from allowance.staging import STAGE_CLASSES, stage_class_codes
 
 if TYPE_CHECKING:
@@ -79,7 +79,7 @@ class RunReport:
     record: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
     #: the folder of the loan detail written part by part (:mod:`allowance.partitioned`); then
-    #: ``loans`` holds the loan sums by segment, stage and POCI flag (``loan_count`` loans each)
+    #: ``loans`` holds the loan sums by segment, stage, POCI flag and measurement (``loan_count`` loans each)
     loan_detail: str | None = None
 
     @property
@@ -97,6 +97,12 @@ class RunReport:
     @property
     def frameworks(self) -> list[Framework]:
         return self.config.frameworks
+
+    @property
+    def loan_counts(self) -> str | None:
+        """The column of ``loans`` counting the loans of each row: ``loan_count`` for a book
+        computed part by part (its rows are sums by group), None when a row is a loan."""
+        return LOAN_COUNT if self.loan_detail is not None else None
 
     @property
     def what_if_parts(self) -> "WhatIf | None":

@@ -28,6 +28,7 @@ from typing import Any
 
 import pandas as pd
 
+from allowance.exceptions import AllowanceError
 from allowance.frameworks import FRAMEWORK_RULES
 from allowance.report import clock
 from allowance.report.bulk import BULK_HEADER_ROW, BulkSheet, save
@@ -104,6 +105,16 @@ def _tie_note(sheet: Sheet, row: int, refs: LoanRefs, what: str) -> int:
     if refs.live:
         return row
     return sheet.note(row, f"Values, not formulas: the loan detail is not in this workbook. {what}")
+
+
+def _detail(report: RunReport) -> str:
+    """Where the loan detail is: loans.csv, or the Parquet files of a book computed part by part
+    (whose figures here are the sums its parts sent back)."""
+    return "loans.csv" if report.loan_detail is None else f"the loan detail (the Parquet files in {report.loan_detail})"
+
+
+def _detail_column(report: RunReport) -> str:
+    return "loans.csv column" if report.loan_detail is None else f"column of {_detail(report)}"
 
 
 def _classes(loans: pd.DataFrame) -> list[tuple[str, Any, list[tuple[str, str, Any]]]]:
@@ -183,7 +194,8 @@ def _summary(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger, *, fu
                          + (", ".join(files) if files else "overlay files")
                          + " merged over them, compared with the base run on the What-if sheet.", style="caution")
         row += 1
-    row = _tie_note(sheet, row, refs, "Each total is the sum of the named loans.csv column (over the rows named).")
+    row = _tie_note(sheet, row, refs, f"Each total is the sum of the named {_detail_column(report)} (over the rows "
+                    "named).")
     prior_heads = ["Prior quarter", "Change", "Change %"]
     prior_kinds = ["money", "money", "rate"]
 
@@ -274,7 +286,7 @@ def _summary(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger, *, fu
                     "money", total=True)
     r += 2
     r = gross_net_section(sheet, r, list(report.frameworks), loans, refs, led)
-    r = measurement_section(sheet, r, list(report.frameworks), loans, refs, led)
+    r = measurement_section(sheet, r, list(report.frameworks), loans, refs, led, detail=_detail(report))
 
     if report.movements:
         r = sheet.section(r, "Movement since the prior quarter (details on the Movement and Journal sheets)")
@@ -367,6 +379,9 @@ def _contents(report: RunReport, *, full: bool) -> list[tuple[str, str, bool]]:
     if report.movements:
         rows += [("Movement", "Opening to closing allowance and gross carrying amount; roll-forward.", True),
                  ("Journal", "The entries that book the period's provision.", True)]
+    if report.disclosures:
+        rows += [("Disclosures", "Gross carrying amount by credit quality and stage; amortised cost by year of "
+                                 "origination.", True)]
     if report.what_if_parts is not None:
         rows += [("What-if", "Base against what-if by segment, stage and scenario.", True)]
         if full:
@@ -386,7 +401,8 @@ def _contents(report: RunReport, *, full: bool) -> list[tuple[str, str, bool]]:
     if full:
         rows += [("Loans", "One row per loan, as loans.csv.", False)]
     else:
-        rows += [("(loan detail)", "Not in this file: see reserve.xlsx and loans.csv.", True)]
+        rows += [("(loan detail)", "Not in this file: see reserve.xlsx and loans.csv." if report.loan_detail is None
+                  else f"Not in this file: {_detail(report)}.", True)]
     return rows
 
 
@@ -399,8 +415,8 @@ def _segment_stage(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger)
     loans = report.loans
     fws = report.frameworks
     has_stage = "stage" in loans.columns
-    row = _tie_note(sheet, _TOP, refs, "Each figure is the sum of the named loans.csv column for the segment "
-                    "and stage.")
+    row = _tie_note(sheet, _TOP, refs, f"Each figure is the sum of the named {_detail_column(report)} for the "
+                    "segment and stage.")
     money = [("balance", "Balance"), ("ead", "EAD")]
     for f in fws:
         money += [(f"ecl_{f}_modelled", f"{FW_LABEL[f]} modelled"), (f"overlay_{f}", f"{FW_LABEL[f]} overlays"),
@@ -495,7 +511,7 @@ _SERIES_COLOURS = ("#2E4A62", "#5B8DB8", "#C9853A", "#8C5E8F", "#6E9A5B", "#A35B
 
 def _scenarios(sheet: Sheet, report: RunReport, refs: LoanRefs, led: Ledger) -> None:
     scenarios = report.config.assumptions.scenarios
-    row = _tie_note(sheet, _TOP, refs, "Each scenario figure is the sum of loans.csv column "
+    row = _tie_note(sheet, _TOP, refs, f"Each scenario figure is the sum of the {_detail_column(report)} "
                     "ecl_<framework>_<scenario>.")
     at_100: dict[str, dict[str, str]] = {}
     weighted_ref: dict[str, str] = {}
@@ -722,7 +738,8 @@ class Shared:
 
     @classmethod
     def of(cls, report: RunReport) -> "Shared":
-        return cls(curves=curve_grid(report), refs=LoanRefs(report.loans.reset_index(drop=True), live=False))
+        return cls(curves=curve_grid(report), refs=LoanRefs(report.loans.reset_index(drop=True), live=False,
+                                                            count=report.loan_counts))
 
 
 def _build(path: Path, report: RunReport, *, full: bool, shared: Shared | None = None) -> Ledger:
@@ -739,7 +756,7 @@ def _laid_out(path: Path, report: RunReport, *, full: bool,
     loans = report.loans.reset_index(drop=True)
     limit = min(report.config.assumptions.run.loan_detail_sheet_limit, EXCEL_MAX_ROWS - BULK_HEADER_ROW)
     live = full and 0 < len(loans) <= limit
-    refs = LoanRefs(loans, live=live, first_row=BULK_HEADER_ROW + 1, like=shared.refs)
+    refs = LoanRefs(loans, live=live, first_row=BULK_HEADER_ROW + 1, like=shared.refs, count=report.loan_counts)
     led = Ledger()
     book = Book(_context(report))
     bulks: list[BulkSheet] = []
@@ -824,7 +841,18 @@ def write_workbook(path: Path, report: RunReport) -> Ledger:
         ``values``: every figure written as ``"Sheet!B7" -> value`` (what Python computed,
         also cached in the cell), ``formulas``: those that are formulas. A recalculation of
         the workbook must give the same values.
+
+    Raises
+    ------
+    AllowanceError
+        For a book computed part by part (``report.loan_detail``): its loan sheet and
+        schedules need the loans, which are in the Parquet folder; its summary workbook is
+        :func:`write_summary_workbook`.
     """
+    if report.loan_detail is not None:
+        raise AllowanceError("the reserve workbook needs the loans, and this book was computed part by part",
+                             file=report.loan_detail, hint="write its summary workbook (summary.xlsx) instead; the "
+                             "loan detail is the Parquet files in this folder")
     return _build(Path(path), report, full=True)
 
 

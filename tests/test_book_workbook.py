@@ -1,0 +1,79 @@
+"""A book computed part by part still hands finance its summary workbook and disclosure tables.
+
+Reference: the in-process run of the same rows read whole (``allowance run`` without
+``--loans-parquet``). The parts send back sums by segment, stage, POCI flag and measurement,
+and the disclosure tables' cells; every figure of ``summary.xlsx`` and every disclosure table
+made from those sums must be the one the loans give, to the cent.
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+from openpyxl import load_workbook
+from typer.testing import CliRunner
+
+from allowance import api
+from allowance.cli import app
+from allowance.report.workbook import write_summary_workbook
+from tests.books import DEMO_ASSUMPTIONS, DEMO_TAPE
+
+
+@pytest.fixture(scope="module")
+def book(tmp_path_factory):
+    """Every third loan of the demo (all its segments, POCI, individually assessed and revolving
+    loans among them) as a Parquet tape of text columns in row groups of 400: nine parts."""
+    folder = tmp_path_factory.mktemp("book")
+    frame = pd.read_csv(DEMO_TAPE, dtype=str, keep_default_na=False).iloc[::3]
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), folder / "tape.parquet", row_group_size=400)
+    alone = api.run(folder / "tape.parquet", DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False)
+    alone.write(folder / "alone")
+    ledger = write_summary_workbook(folder / "alone-summary.xlsx", alone.report)
+    done = CliRunner().invoke(app, ["run", str(folder / "tape.parquet"), "-a", str(DEMO_ASSUMPTIONS),
+                                    "--accept-ledger-difference", "--no-sensitivities", "--out", str(folder / "out"),
+                                    "--loans-parquet", str(folder / "detail")], catch_exceptions=False)
+    assert done.exit_code == 0, done.output
+    return folder, alone, ledger
+
+
+def test_the_summary_workbook_of_a_book_computed_part_by_part_is_the_in_process_one(book):
+    folder, alone, ledger = book
+    assert len(list((folder / "detail").iterdir())) == 9
+    assert not (folder / "out" / "reserve.xlsx").exists() and not (folder / "out" / "loans.csv").exists()
+    made = load_workbook(folder / "out" / "summary.xlsx", data_only=True)
+    reference = load_workbook(folder / "alone" / "summary.xlsx", data_only=True)
+    assert made.sheetnames == reference.sheetnames
+    assert "Disclosures" in made.sheetnames and "By segment and stage" in made.sheetnames
+    assert alone.report.loans["measurement"].nunique() > 1 and alone.report.loans["poci"].any()
+    for ref, value in ledger.values.items():  # every figure the workbook holds, as written
+        sheet, cell = ref.split("!")
+        assert made[sheet.strip("'")][cell].value == value, ref
+    assert len(ledger.values) > 500
+    # the notes name where the loan detail is, not a loans.csv the run did not write
+    notes = [c.value for row in made["By segment and stage"].iter_rows(max_row=8) for c in row if isinstance(c.value, str)]
+    assert any(str(folder / "detail") in n for n in notes), notes
+
+
+def test_the_disclosure_tables_of_a_book_computed_part_by_part_are_the_in_process_ones(book):
+    folder, _, _ = book
+    names = sorted(p.name for p in (folder / "alone").glob("disclosure_*.csv"))
+    assert names == ["disclosure_asc326_vintage.csv", "disclosure_ifrs7_35m.csv"]
+    for name in names:
+        assert (folder / "out" / name).read_bytes() == (folder / "alone" / name).read_bytes(), name
+
+
+def test_the_reserve_workbook_of_a_book_computed_part_by_part_is_refused_by_name(tmp_path):
+    """Its rows are sums by group, not loans: a loan sheet of them would be wrong, so the API
+    says why and what to write instead."""
+    from allowance.exceptions import AllowanceError
+
+    tape = tmp_path / "tape.parquet"
+    frame = pd.read_csv(DEMO_TAPE, dtype=str, keep_default_na=False, nrows=60)
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), tape, row_group_size=25)
+    book = api.run(tape, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False,
+                   loans_parquet=tmp_path / "detail")
+    with pytest.raises(AllowanceError, match="reserve workbook needs the loans") as err:
+        book.workbook(tmp_path / "reserve.xlsx")
+    assert "summary.xlsx" in str(err.value.hint) and not (tmp_path / "reserve.xlsx").exists()
