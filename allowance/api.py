@@ -219,23 +219,41 @@ def _same_currency(prior: Mapping | None, current: str | None, source: str) -> N
                             hint=f"run the prior quarter again in {current}, or this one in {before}")
 
 
-def _rerun_at_prior_assumptions(tape: pd.DataFrame, config: RunConfig, record: Mapping,
-                                compute: Callable[..., pd.DataFrame]) -> pd.DataFrame | None:
-    """This quarter's tape under last quarter's assumptions: isolates assumption changes. Only
-    the modelled ECL per framework is computed (:func:`allowance.engine.modelled`): the
-    movement's remeasurement reads nothing else of it."""
-    data = record.get("assumptions")
+def _prior_config(record: Mapping | None, config: RunConfig) -> RunConfig | None:
+    """Last quarter's assumptions (from its run record) at this quarter's date, for the
+    frameworks both runs compute; None when the record has none or they no longer validate."""
+    data = (record or {}).get("assumptions")
     if not data:
         return None
     try:
         data = dict(data)
         data["run"] = {**data["run"], "as_of": config.as_of.isoformat(),
                        "frameworks": [fw for fw in config.frameworks if fw in data["run"]["frameworks"]]}
-        prior_config = RunConfig(assumptions=Assumptions.model_validate(data), base_dir=config.base_dir)
-        return compute(tape, prior_config)
+        return RunConfig(assumptions=Assumptions.model_validate(data), base_dir=config.base_dir)
     except (AllowanceError, ValueError):
         # pydantic's ValidationError is a ValueError: the prior assumptions no longer validate
         return None
+
+
+def _rerun_at_prior_assumptions(tape: pd.DataFrame, prior_config: RunConfig | None,
+                                compute: Callable[..., pd.DataFrame]) -> pd.DataFrame | None:
+    """This quarter's tape under last quarter's assumptions (:func:`_prior_config`): isolates
+    assumption changes. Only the modelled ECL per framework is computed
+    (:func:`allowance.engine.modelled`): the movement's remeasurement reads nothing else of it."""
+    if prior_config is None:
+        return None
+    try:
+        return compute(tape, prior_config)
+    except (AllowanceError, ValueError):
+        return None
+
+
+def _modelled_of(loans: pd.DataFrame, frameworks: Sequence[str]) -> pd.DataFrame:
+    """The columns :func:`allowance.engine.modelled` gives (``loan_id, ecl_<framework>_modelled``),
+    taken from a run whose configuration gives the loop the same inputs (the columns shared,
+    not copied)."""
+    return pd.DataFrame({"loan_id": loans["loan_id"].array,
+                         **{f"ecl_{fw}_modelled": loans[f"ecl_{fw}_modelled"].array for fw in frameworks}}, copy=False)
 
 
 @dataclass(frozen=True)
@@ -439,10 +457,13 @@ def run(
     # own while the tape is read and computed: Arrow parses and hashlib hashes outside the GIL, on
     # the core the single-threaded steps leave idle. Its errors are raised where it is used.
     reading_prior = None
+    early = None  # the prior run's record, read before anything is computed
     if isinstance(prior, Result):  # refused before anything is computed
-        _same_currency(prior.record, config.assumptions.run.currency, "the prior result")
+        early = prior.record
+        _same_currency(early, config.assumptions.run.currency, "the prior result")
     elif prior is not None:
-        _same_currency(_early_record(Path(prior)), config.assumptions.run.currency, str(Path(prior) / "run.json"))
+        early = _early_record(Path(prior))
+        _same_currency(early, config.assumptions.run.currency, str(Path(prior) / "run.json"))
         reader = ThreadPoolExecutor(1, thread_name_prefix="allowance-prior")
         reading_prior = reader.submit(given_back, _prior, prior, vintages=charge_offs is not None)
         reader.shutdown(wait=False)  # the thread ends with its one task
@@ -457,12 +478,23 @@ def run(
     base_config = _config(assumptions) if overlays else None
     reweighted = ([base_config] if base_config is not None and not _same_model(base_config, config)
                   and engine.only_weights_differ(base_config, config) else [])
+    # this tape at the prior run's assumptions (the movement's remeasurement): a second pass,
+    # unless they give the loop this run's inputs ("run": its own modelled figures) or those
+    # but for the scenario weights ("weights": its modelled figures weighted again in this pass)
+    prior_config = _prior_config(early, config) if early is not None else None
+    prior_model = None
+    if prior_config is not None and prior_config.frameworks == config.frameworks:
+        if engine.same_model(prior_config, config):
+            prior_model = "run"
+        elif engine.only_weights_differ(prior_config, config):
+            prior_model = "weights"
     # the one-scenario sensitivities: each scenario alone at weight 1, weighted again in the same
     # pass (the loop's per-scenario losses and the stages do not depend on the weights)
     names = list(config.assumptions.scenarios)
     alone = names if sensitivities and len(names) > 1 else []
     result = compute(taken.accepted, config, **({"reweighted": reweighted} if reweighted else {}),
-                     **({"alone": alone} if alone else {}))
+                     **({"alone": alone} if alone else {}),
+                     **({"modelled_under": [prior_config]} if prior_model == "weights" else {}))
     inputs = list(config.inputs)
 
     sensitivity = pd.DataFrame()
@@ -513,10 +545,16 @@ def run(
         prior_frameworks = _prior_frameworks(previous.record)
         cos, co_inputs, co_source = _charge_offs(charge_offs)
         inputs += co_inputs + prior_inputs
-        at_prior = _rerun_at_prior_assumptions(taken.accepted, config, previous.record,
-                                               lambda frame, at: engine.modelled(
-                                                   frame, at, stages_from=(config, result.loans),
-                                                   **{k: v for k, v in options.items() if k != "progress"}))
+        if prior_model is None:
+            # the record read again with the loans (an early read that failed gives no config)
+            at_prior = _rerun_at_prior_assumptions(taken.accepted, _prior_config(previous.record, config),
+                                                   lambda frame, at: engine.modelled(
+                                                       frame, at, stages_from=(config, result.loans),
+                                                       **{k: v for k, v in options.items() if k != "progress"}))
+        elif prior_model == "run":  # the figures a second pass would give, without it
+            at_prior = _modelled_of(result.loans, prior_config.frameworks)
+        else:  # weighted again in this run's pass
+            at_prior, result = result.modelled_under[0], dataclasses.replace(result, modelled_under=())
         if isinstance(source, Path):
             # nothing after the second pass reads the tape's accepted rows: they go before the
             # movement is made and the outputs are written, read again from the file if asked for
@@ -556,9 +594,15 @@ def run(
                         "assumption changes are included in remeasurement")
     findings = pd.concat([taken.findings, result.findings], ignore_index=True)
     taken = taken.replaced(findings=findings)  # accepted rows let go (a prior run's) stay so
+    # how the movement's figures at the prior assumptions were made, for whoever reviews it
+    how = None if not rerun else ("a second pass at the prior run's assumptions" if prior_model is None else
+                                  "this run's own modelled figures: the prior run's assumptions differ from this "
+                                  "run's only in what reaches no modelled figure" if prior_model == "run" else
+                                  "this run's pass weighted again: the prior run's assumptions differ from this "
+                                  "run's only in the scenario weights and what reaches no modelled figure")
     record = report.run_record(config, taken, result.loans, tie_out=tie, warnings=warnings,
                                movements=tuple((movements or {}).values()), started=started_at,
-                               extra={"arguments": arguments})
+                               extra={"arguments": arguments, **({"at_prior_assumptions": how} if how else {})})
     disclosures = disclosure.disclosure_tables(result.loans, config.as_of, config.frameworks, charge_offs=cos,
                                                prior_loans=prior_loans)
     run_report = report.RunReport(

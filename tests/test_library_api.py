@@ -6,6 +6,7 @@ command line's figures to the cent (common practice, no source: the same computa
 
 from __future__ import annotations
 
+from collections.abc import Callable
 import json
 import tomllib
 
@@ -253,3 +254,94 @@ def test_a_movement_between_two_currencies_is_refused_and_a_framework_the_prior_
     moved = allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, accept_ledger_difference=True, prior=then)
     assert list(moved.movement) == ["ifrs9"]
     assert any(w.startswith("no CECL movement: the prior run did not compute cecl") for w in moved.warnings)
+
+
+def _prior_under(change: Callable[[dict], None] | None, part: pd.DataFrame) -> allowance.Result:
+    """Last quarter's demo loans run under this quarter's assumptions at last quarter's date,
+    with its own label and ledger balance, then ``change`` applied to them."""
+    m = books.MANIFEST
+    data = _assumptions_mapping()
+    data["run"] = {**data["run"], "as_of": "2026-06-30", "label": "the quarter before", "ledger_balance": 1.0}
+    if change is not None:
+        change(data)
+    prior_tape = pd.read_csv(books.DEMO / m["prior"]["tape"], dtype=str, keep_default_na=False)
+    return allowance.run(prior_tape[prior_tape["loan_id"].isin(part["loan_id"])], data, sensitivities=False,
+                         accept_ledger_difference=True)
+
+
+def _reweigh(data: dict) -> None:
+    names = list(data["scenarios"])
+    data["scenarios"][names[0]]["weight"] += 0.1
+    data["scenarios"][names[-1]]["weight"] -= 0.1
+
+
+def _relgd(data: dict) -> None:
+    data["segments"]["personal"]["lgd"] = 0.5
+
+
+@pytest.mark.parametrize("change, second_pass", [(None, False), (_reweigh, False), (_relgd, True)],
+                         ids=["same model", "other weights", "other LGD"])
+def test_the_movement_at_prior_assumptions_that_give_the_loop_this_runs_inputs_needs_no_second_pass(
+        change, second_pass, monkeypatch):
+    """The movement's split between remeasurement and assumption changes needs this tape at the
+    prior run's assumptions. When those differ from this run's only in what reaches no
+    modelled figure (label, ledger balance) the figures are this run's own; when only in the
+    scenario weights, they are weighted again in the same pass. Reference: the same run with
+    the second pass forced (engine.modelled), whose movement must be the same to the cent,
+    loan by loan; the second pass runs only where the model differs."""
+    from allowance import engine
+
+    part = _tape_frame().iloc[::5]
+    before = _prior_under(change, part)
+    calls = []
+    real = engine.modelled
+    monkeypatch.setattr(engine, "modelled", lambda *a, **k: calls.append(1) or real(*a, **k))
+    now = allowance.run(part, books.DEMO_ASSUMPTIONS, prior=before, sensitivities=False, accept_ledger_difference=True)
+    assert len(calls) == int(second_pass)
+    monkeypatch.setattr(engine, "same_model", lambda *a: False)
+    monkeypatch.setattr(engine, "only_weights_differ", lambda *a: False)
+    forced = allowance.run(part, books.DEMO_ASSUMPTIONS, prior=before, sensitivities=False,
+                           accept_ledger_difference=True)
+    assert len(calls) == int(second_pass) + 1
+    assert list(now.movement) == list(forced.movement) == ["ifrs9", "cecl"]
+    for fw, moved in now.movement.items():
+        pd.testing.assert_frame_equal(moved.to_long(), forced.movement[fw].to_long())
+        pd.testing.assert_frame_equal(moved.loans, forced.movement[fw].loans)
+    assert not any("could not be applied" in w for w in now.warnings)
+    pd.testing.assert_frame_equal(now.loans, forced.loans)
+    assert now.record["at_prior_assumptions"].startswith(  # the run record says how they were made
+        "a second pass" if second_pass else "this run's own" if change is None else "this run's pass weighted again")
+    assert forced.record["at_prior_assumptions"].startswith("a second pass")
+    lines = now.movement["cecl"].to_long()
+    changed = lines.loc[lines["line"].str.contains("assumption", case=False), "amount"].abs().sum()
+    assert (changed > 0) == (change is not None)  # the same model moves nothing by its assumptions
+
+
+@pytest.mark.parametrize("what_if", ["[scenarios.base]\nweight = 0.0\n[scenarios.upside]\nweight = 0.0\n"
+                                     "[scenarios.downside]\nweight = 1.0\n",
+                                     "[segments.personal]\nlgd = 0.5\n"], ids=["other weights", "other LGD"])
+def test_a_what_if_and_a_prior_at_other_weights_each_get_their_own_figures(what_if, tmp_path, monkeypatch):
+    """A what-if beside a prior run whose model differs from the what-if's only in its weights
+    (weighted again in this run's pass): the what-if's base is weighted again in the same pass
+    too (other weights) or computed again (other LGD). Each must get its own figures: the
+    what-if's comparison that of a run without a prior, the movement that of the second pass
+    forced."""
+    from allowance import engine
+
+    (tmp_path / "what_if.toml").write_text(what_if, encoding="utf-8")
+    part = _tape_frame().iloc[::7]
+    before = _prior_under(_reweigh if "weight" in what_if else (lambda d: (_reweigh(d), _relgd(d))), part)
+    both = allowance.run(part, books.DEMO_ASSUMPTIONS, overlays=[tmp_path / "what_if.toml"], prior=before,
+                         sensitivities=False, accept_ledger_difference=True)
+    what_if_alone = allowance.run(part, books.DEMO_ASSUMPTIONS, overlays=[tmp_path / "what_if.toml"],
+                                  sensitivities=False, accept_ledger_difference=True)
+    pd.testing.assert_frame_equal(both.report.what_if_parts.summary, what_if_alone.report.what_if_parts.summary)
+    monkeypatch.setattr(engine, "same_model", lambda *a: False)
+    real = engine.only_weights_differ
+    # the prior's shortcut only is switched off (its configuration carries the prior run's label)
+    monkeypatch.setattr(engine, "only_weights_differ",
+                        lambda one, other: real(one, other) and one.assumptions.run.label != "the quarter before")
+    forced = allowance.run(part, books.DEMO_ASSUMPTIONS, overlays=[tmp_path / "what_if.toml"], prior=before,
+                           sensitivities=False, accept_ledger_difference=True)
+    for fw, moved in both.movement.items():
+        pd.testing.assert_frame_equal(moved.loans, forced.movement[fw].loans)

@@ -210,3 +210,54 @@ def test_the_modelled_pass_takes_the_runs_stages_only_where_they_are_staged_alik
     assert len(calls) == 4  # one per chunk
     pd.testing.assert_frame_equal(again, fresh["stricter"])
     assert not again.equals(engine.modelled(tape, stricter, stages_from=(stricter, run)))  # other stages, other figures
+
+
+def test_what_reaches_no_modelled_figure_leaves_the_model_the_same():
+    """The run's label, ledger balance and limits, how the tape is read, the journal's
+    accounts, the overlays and where a matrix or macro paths come from change no modelled
+    figure (they are read before the loop or applied after it): the same model; a weight
+    changes the weighted figures but not the loop's inputs; an LGD changes the loop's inputs
+    (common practice, no source: what each assumption feeds)."""
+    plain = intake.load_assumptions(DEMO_ASSUMPTIONS)
+    data = plain.assumptions.model_dump()
+    data["run"] |= {"label": "another name", "ledger_balance": 1.0, "ledger_tolerance": 5.0, "max_input_mb": 10.0,
+                    "loan_detail_sheet_limit": 7}
+    data["tape"] = {"date_format": "day_first"}
+    data["gl_accounts"] = {}
+    data["overlays"] = []
+    data["segments"]["cards"]["transition_matrix"]["source"] = "typed in by hand"
+    same = plain.model_copy(update={"assumptions": type(plain.assumptions).model_validate(data)})
+    assert engine.same_model(plain, same) and engine.only_weights_differ(plain, same)
+    weights = dict(data, scenarios={n: dict(s, weight=w) for (n, s), w in
+                                    zip(data["scenarios"].items(), (0.2, 0.3, 0.5))})
+    reweighted = plain.model_copy(update={"assumptions": type(plain.assumptions).model_validate(weights)})
+    assert not engine.same_model(plain, reweighted) and engine.only_weights_differ(plain, reweighted)
+    data["segments"]["personal"]["lgd"] = 0.5
+    other = plain.model_copy(update={"assumptions": type(plain.assumptions).model_validate(data)})
+    assert not engine.same_model(plain, other) and not engine.only_weights_differ(plain, other)
+
+
+@pytest.mark.parametrize("loop", ["arrays", "compiled"])
+def test_the_modelled_figures_under_other_weights_in_the_same_pass_are_a_second_passs(loop):
+    """``run(..., modelled_under=[other])``: the modelled ECL under another configuration's
+    weights, weighted again in this run's pass, equals the second pass :func:`engine.modelled`
+    makes under it (this run's stages), to the bit; a configuration that changes the loop is
+    refused. Reference: the second pass itself."""
+    tape = engine_tape(n=120)
+    config = engine_config()
+    data = config.assumptions.model_dump()
+    names = list(data["scenarios"])
+    data["scenarios"][names[0]]["weight"] += 0.25
+    data["scenarios"][names[-1]]["weight"] -= 0.25
+    other = config.model_copy(update={"assumptions": type(config.assumptions).model_validate(data)})
+    assert engine.only_weights_differ(config, other) and not engine.same_model(config, other)
+    result = engine.run(tape, config, modelled_under=[other], loop=loop, schedule_sample=0)
+    second = engine.modelled(tape, other, stages_from=(config, result.loans), loop=loop)
+    pd.testing.assert_frame_equal(result.modelled_under[0], second, check_index_type=False)
+    plain = engine.run(tape, config, loop=loop, schedule_sample=0)
+    pd.testing.assert_frame_equal(result.loans, plain.loans)  # this run's own figures are untouched
+    assert not result.modelled_under[0]["ecl_cecl_modelled"].equals(plain.loans["ecl_cecl_modelled"])
+    changed = engine_config(scenarios={"base": {"weight": 0.6, "pd_multiplier": [1.0, 1.0, 1.0]},
+                                       "down": {"weight": 0.4, "pd_multiplier": [3.0, 1.5, 1.2]}})
+    with pytest.raises(ValueError, match="modelled_under configuration differs"):
+        engine.run(tape, config, modelled_under=[changed])

@@ -25,6 +25,8 @@ run_part      a part of a book: chunks, rounding, its overlays (or its amount ov
 overlay_part  a part's overlays once the book's amount overlays are allocated
 book_wide_overlays  the overlays that need the whole book at once (an amount to allocate)
 overlaid      a result with other overlays (no second pass through the loop)
+only_weights_differ, same_model  whether two configurations give the loop the same inputs
+              (but the weights; weights too): then no second pass is needed
 Progress      the progress callback: ``progress(phase, done, total)``
 """
 
@@ -60,7 +62,7 @@ from allowance.schemas import LoanRecord, RunConfig
 __all__ = [
     "CHUNK_SIZE", "IN_PROCESS_CHUNK_SIZE", "MODELLED_CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
     "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
-    "max_age", "modelled", "two_at_a_time", "only_weights_differ", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
+    "max_age", "modelled", "two_at_a_time", "only_weights_differ", "same_model", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
@@ -104,6 +106,9 @@ class EngineResult:
     #: scenario name -> the loans with that scenario alone at weight 1 (:func:`run`'s ``alone``):
     #: ``ecl_<fw>_modelled``, ``overlay_<fw>``, ``ecl_<fw>``, ``poci`` and (IFRS 9) ``stage``
     alone: dict[str, pd.DataFrame] = field(default_factory=dict)
+    #: the modelled ECL under each configuration :func:`run` was asked for (``modelled_under``),
+    #: in order: ``loan_id, ecl_<fw>_modelled``, as :func:`modelled` gives them
+    modelled_under: tuple[pd.DataFrame, ...] = ()
 
 
 # --------------------------------------------------------------------------------------
@@ -197,17 +202,46 @@ def two_at_a_time(work: Callable[[pd.DataFrame], ChunkResult], chunks: Iterable[
         give_back()  # what the threads freed, before the book is built from the chunks
 
 
+#: assumptions that reach neither the loop nor the stages: the overlays (applied to the rounded
+#: modelled figures), how the tape is read ([tape]) and tied to the ledger, the run's name,
+#: the limits of reading and of the workbook, the journal's account codes
+_AFTER_THE_MODEL = {"overlays": True, "tape": True, "gl_accounts": True,
+                    "run": {"label", "ledger_balance", "ledger_tolerance", "max_input_mb", "loan_detail_sheet_limit"}}
+
+
+def _model(config: RunConfig, *, weights: bool) -> dict:
+    """What of a configuration the modelled figures depend on (the scenarios in order, with or
+    without their weights)."""
+    a = config.assumptions
+    dumped = a.model_dump(exclude={**_AFTER_THE_MODEL, "scenarios": True})
+    dumped["scenarios"] = [(name, s.model_dump(exclude=None if weights else {"weight"})) for name, s in a.scenarios.items()]
+    return _without_sources(dumped)
+
+
+def _without_sources(value: Any) -> Any:
+    """``value`` without its ``source`` entries: where a roll-rate matrix was read from, where a
+    satellite model's coefficients or the macro paths come from, text that names the values
+    without changing them (the same matrix from a file or a mapping is the same model)."""
+    if isinstance(value, dict):
+        return {k: _without_sources(v) for k, v in value.items() if k != "source"}
+    if isinstance(value, (list, tuple)):
+        return [_without_sources(v) for v in value]
+    return value
+
+
 def only_weights_differ(one: RunConfig, other: RunConfig) -> bool:
     """Whether two configurations give the loop the same inputs: their assumptions are equal
-    but for the scenarios' weights and the overlays (both applied after the loop), with the
-    same scenarios in the same order."""
-    def model(config: RunConfig) -> dict:
-        a = config.assumptions
-        dumped = a.model_dump(exclude={"overlays": True, "scenarios": True, "run": {"label"}})
-        dumped["scenarios"] = [(name, s.model_dump(exclude={"weight"})) for name, s in a.scenarios.items()]
-        return dumped
+    but for the scenarios' weights and what reaches no modelled figure (the overlays, applied
+    after the loop; the [tape] section, the ledger balance and the run's label and limits),
+    with the same scenarios in the same order."""
+    return _model(one, weights=False) == _model(other, weights=False)
 
-    return model(one) == model(other)
+
+def same_model(one: RunConfig, other: RunConfig) -> bool:
+    """Whether two configurations give every loan the same modelled figures: as
+    :func:`only_weights_differ`, the weights equal too. A tape computed under one has, under
+    the other, the modelled ECL it already has (no second pass is needed)."""
+    return _model(one, weights=True) == _model(other, weights=True)
 
 
 def run(
@@ -220,6 +254,7 @@ def run(
     progress: Progress | None = None,
     reweighted: Iterable[RunConfig] = (),
     alone: Iterable[str] = (),
+    modelled_under: Iterable[RunConfig] = (),
     loop: str | None = None,
 ) -> EngineResult:
     """Compute the allowance for an accepted tape.
@@ -258,6 +293,13 @@ def run(
         weights, and a POCI loan's benchmark is weighted again (IFRS 9 5.5.17(a), B5.5.42,
         5.5.13; ASC 326-20-30-9). Each equals ``run(tape, single_scenario(config, name))``'s
         columns to the cent (:func:`allowance.reconcile.single_scenario`).
+    modelled_under : configurations
+        Other configurations that differ from ``config`` only in the scenario weights and
+        what reaches no modelled figure (:func:`only_weights_differ`), whose modelled ECL per
+        framework alone comes back in ``EngineResult.modelled_under``: weighted again in the
+        same pass as ``alone`` is, the figures :func:`modelled` gives under each (what the
+        movement's remeasurement reads of this tape at the prior run's assumptions), at 8
+        bytes per loan and framework, not a second book.
     loop : {"arrays", "compiled"}, optional
         How the ECL sums are computed (:func:`~allowance.engine.tables.choose_loop`): None
         (the default) chooses by the book's size, numpy for a small book and the compiled
@@ -278,14 +320,21 @@ def run(
                              "the scenario weights and the overlays")
     weights = tuple(np.asarray(other.assumptions.weights, float) for other in others)
     singles = _one_hot(config, alone)
+    under = tuple(modelled_under)
+    for other in under:
+        if not only_weights_differ(config, other):
+            raise ValueError("engine.run: a modelled_under configuration differs from the run's in more than "
+                             "the scenario weights and what reaches no modelled figure")
+    # the one-hot weights of the sensitivities, then those of each modelled_under configuration
+    extra = (*singles.values(), *(np.asarray(other.assumptions.weights, float) for other in under))
     work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}),
-                             **({"alone": tuple(singles.values())} if singles else {}))
+                             **({"alone": extra} if extra else {}))
 
     if map is None:
         map, chunk_size = two_at_a_time, chunk_size or IN_PROCESS_CHUNK_SIZE
     chunks = list(_chunks(tape, chunk_size or CHUNK_SIZE))
     columns: list[list[dict[str, Any]]] = [[] for _ in range(1 + len(others))]  # this run's, then each other's
-    alone_columns: list[list[dict[str, Any]]] = [[] for _ in singles]  # each scenario alone's modelled ECL
+    alone_columns: list[list[dict[str, Any]]] = [[] for _ in extra]  # each weight set's modelled ECL
     findings: list[pd.DataFrame] = []
     done = 0
     for chunk, part in zip(chunks, map(work, chunks)):
@@ -318,8 +367,9 @@ def run(
         ))
     joined = {}  # its hold on the first book's joined columns goes now, not when run returns
     main, rest = results[0], results[1:]
-    main = dataclasses.replace(main, alone={name: _alone(pieces, main.loans, config)
-                                            for name, pieces in zip(singles, alone_columns)})
+    main = dataclasses.replace(
+        main, alone={name: _alone(pieces, main.loans, config) for name, pieces in zip(singles, alone_columns)},
+        modelled_under=tuple(_modelled_frame(pieces, tape) for pieces in alone_columns[len(singles):]))
     alone_columns = []
     give_back()  # the chunks' pieces the book was joined from (those made on the chunk threads stay in their heaps)
     tables = {"term_structures": term_structure_table(prep), "roll_rates": roll_rate_table(config),
@@ -342,6 +392,12 @@ def _one_hot(config: RunConfig, names: Iterable[str]) -> dict[str, np.ndarray]:
             raise KeyError(f"no scenario {name!r}")
         out[name] = (np.arange(len(listed)) == listed.index(name)).astype(float)
     return out
+
+
+def _modelled_frame(pieces: list[dict[str, Any]], tape: pd.DataFrame) -> pd.DataFrame:
+    """``loan_id, ecl_<fw>_modelled`` in tape order from the chunks' rounded pieces (as :func:`modelled`)."""
+    columns = {c: np.concatenate([p[c] for p in pieces]) if pieces else np.empty(0) for c in (pieces or [{}])[0]}
+    return pd.DataFrame({"loan_id": tape["loan_id"].array, **columns}, copy=False)
 
 
 def _alone(pieces: list[dict[str, Any]], loans: pd.DataFrame, config: RunConfig) -> pd.DataFrame:

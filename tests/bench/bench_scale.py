@@ -23,6 +23,9 @@ run                    Arrow floor: read the tape and write      2.5 x
                        beforehand and not timed)
 run --prior            the plain run                              1.5 x
 run --prior, peak      the plain run's peak resident memory       1 x
+run --prior, the prior (its assumptions this quarter's but its date, label and ledger
+  run under this        balance: no second pass; then other scenario weights too: weighted
+  quarter's model)      again in the same pass), printed beside the line above
 run, summed PSS        (its processes together, untimed run)      1.5 GB
 compare                the plain run                              1.5 x
 what-if (weights)      the plain run                              0.5 x extra
@@ -80,6 +83,30 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "demo"
 PY = sys.executable
+
+
+def _at_prior_date(folder: Path, weights: bool) -> Path:
+    """The demo's folder copied to ``folder`` with this quarter's assumptions dated at the prior
+    quarter's end, its own label and no ledger balance (what reaches no modelled figure), and
+    with ``weights`` the first scenario's weight moved 0.1 to the last one's."""
+    import shutil
+    import tomllib
+
+    shutil.copytree(DEMO, folder)
+    path = folder / "assumptions_2026q3.toml"
+    text = path.read_text(encoding="utf-8")
+    text = re.sub(r"(?m)^as_of = 2026-09-30$", "as_of = 2026-06-30", text)
+    text = re.sub(r"(?m)^label = .*$", 'label = "the prior quarter under this quarter\'s model"', text)
+    text = re.sub(r"(?m)^ledger_balance = .*$", "", text)
+    if weights:
+        scenarios = tomllib.loads(text)["scenarios"]
+        names = list(scenarios)
+        for name, shift in ((names[0], -0.1), (names[-1], 0.1)):
+            weight = repr(round(scenarios[name]["weight"] + shift, 10))
+            text = re.sub(rf"(\[scenarios\.{re.escape(name)}\][^\[]*?weight = )[0-9.]+",
+                          lambda m, w=weight: m.group(1) + w, text, count=1)
+    path.write_text(text, encoding="utf-8")
+    return path
 
 
 def _copies(src: Path, dst: Path, n: int, bad_share: float = 0.0) -> int:
@@ -283,6 +310,13 @@ def main() -> None:
         row("run --prior", s, mb, "run, paired", ratio, "<= 1.5")
         print(f"{'run --prior, peak':26s} {mb:8,.0f} MB   {mb / plain_mb:5.2f} x the plain run's {plain_mb:,.0f} MB"
               "  (target 1)", flush=True)
+        for label, weights in (("same model", False), ("other weights", True)):
+            assumptions = _at_prior_date(work / f"demo-{int(weights)}", weights)
+            _timed([*allowance, "run", str(prior_tape), "-a", str(assumptions), *common,
+                    "--out", str(work / f"prior-{int(weights)}")], env)
+            s, mb, ratio, _ = paired([*allowance, "run", str(tape), *q3, *common, "--prior",
+                                      str(work / f"prior-{int(weights)}"), "--out", str(work / "moved")])
+            row(f"run --prior, {label}", s, mb, "run, paired", ratio, f"<= 1.5; peak {mb / plain_mb:.2f} x")
         s, mb, ratio, _ = paired([*allowance, "compare", str(work / "prior"), str(work / "plain")])
         row("compare", s, mb, "run, paired", ratio, "<= 1.5")
         s, mb, ratio, extra = paired([*allowance, "run", str(tape), *q3, *common, "--overlay",
