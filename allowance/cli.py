@@ -485,7 +485,8 @@ def run(
     loans_parquet: Annotated[
         Path | None, typer.Option("--loans-parquet", metavar="DIR",
                                   help="Parquet tape: compute it part by part and write the loan detail to DIR "
-                                       "(absent or empty) from where each part runs; no loans.csv or workbook.")
+                                       "(absent or empty) from where each part runs; summary.xlsx from the parts' sums, no "
+                                       "loans.csv or reserve.xlsx.")
     ] = None,
     quiet: QuietOption = False,
     verbose: VerboseOption = False,
