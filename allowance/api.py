@@ -277,8 +277,11 @@ def _prior(prior: str | os.PathLike | Result, role: str = "prior", *,
     folder = Path(prior)
     previous = (None if vintages else intake.read_prior_figures(folder, movement_kinds(), role)) or \
         intake.read_prior_run(folder, role, columns=movement_columns(vintages=vintages))
-    return _Prior(previous.loans, previous.record, str(folder / "loans.csv")), [
-        intake.file_record(folder / "loans.csv", "prior"), intake.file_record(folder / "run.json", "prior")
+    # a book computed part by part: its loan detail is the Parquet folder its run.json names
+    detail = previous.source if previous.source is not None and previous.source.is_dir() else None
+    loans = intake.detail_files(detail) if detail is not None else [folder / "loans.csv"]
+    return _Prior(previous.loans, previous.record, str(detail or folder / "loans.csv")), [
+        *(intake.file_record(p, "prior") for p in loans), intake.file_record(folder / "run.json", "prior")
     ] if recorded else []
 
 

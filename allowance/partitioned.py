@@ -26,7 +26,8 @@ a whole book, and each part, written with its modelled figures, is finished with
 share (:func:`finish_part`). What needs the whole loan frame at once is not done here, and
 the run says so: the reserve workbook (its loan sheet; the summary workbook is made from
 the sums), the movement from a prior run, a what-if, the one-scenario sensitivities and the
-schedules sample.
+schedules sample. As next quarter's prior run, the folder's run.json names the loan detail,
+which the movement reads part after part (:func:`allowance.intake.read_prior_figures`).
 
 Implements
 ----------

@@ -10,6 +10,8 @@ check_table         the counts ``allowance check`` prints
 read_charge_offs    the period's charge-off file
 read_prior_run      a previous run's loans.csv and run.json -> PriorRun
 read_prior_figures  the same, only the columns asked for, each kept compactly -> PriorFigures
+                    (a book computed part by part: its Parquet loan detail, which run.json names)
+detail_files        the Parquet files of such a book's loan detail, in tape order
 read_macro_history  a monthly or quarterly macro history file -> MacroHistory
 read_history        a monthly performance history (CSV / Parquet, streamed) -> HistoryIntake
 read_policy         a calibration policy file (TOML)
@@ -45,6 +47,7 @@ _EXPORTS: dict[str, str] = {
     "read_charge_offs": "history",
     "read_prior_figures": "history",
     "read_prior_run": "history",
+    "detail_files": "history",
     "MacroHistory": "macro_series",
     "read_macro_history": "macro_series",
     "is_partitioned": "parts",
@@ -65,7 +68,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
     from allowance.intake.files import bundled_path, file_record
     from allowance.intake.history import (
-        LoanFigures, PriorFigures, PriorRun, read_charge_offs, read_prior_figures, read_prior_run,
+        LoanFigures, PriorFigures, PriorRun, detail_files, read_charge_offs, read_prior_figures, read_prior_run,
     )
     from allowance.intake.macro_series import MacroHistory, read_macro_history
     from allowance.intake.parts import is_partitioned, read_parts
@@ -94,6 +97,7 @@ __all__ = [
     "bundled_path",
     "check_table",
     "data_dictionary",
+    "detail_files",
     "file_record",
     "load_assumptions",
     "read_charge_offs",

@@ -106,10 +106,12 @@ def read_charge_offs(path: Path, max_mb: float = 2048.0) -> pd.DataFrame:
 
 @dataclass(frozen=True)
 class PriorRun:
-    """A previous run's output: its loan results and its run record (checked by :class:`PriorRecord`)."""
+    """A previous run's output: its loan results and its run record (checked by :class:`PriorRecord`);
+    ``source`` the loan detail read (``loans.csv``, or the Parquet folder of a book computed part by part)."""
 
     loans: pd.DataFrame
     record: dict
+    source: Path | None = None
 
 
 #: The largest run.json read, in bytes. A run record holds the assumptions and a few counts;
@@ -192,18 +194,47 @@ _FLAG_COLUMNS = {n for n, f in FIELDS.items() if f.kind == "boolean"} | {"poci"}
 
 
 def _prior_files(folder: Path, role: str) -> tuple[Path, dict]:
-    """A previous run's ``loans.csv`` (its path) and ``run.json`` (read and checked)."""
+    """A previous run's loan detail (the path of its ``loans.csv``, or of the folder of Parquet
+    files a book computed part by part wrote, which its ``run.json`` names) and its
+    ``run.json`` (read and checked)."""
     folder = Path(folder)
     if not folder.is_dir():
         raise InputFileError(f"the {role} run folder was not found", file=folder,
                              hint="give the --out folder of that run")
     loans_path, record_path = folder / "loans.csv", folder / "run.json"
+    if not loans_path.is_file() and record_path.is_file():
+        record = read_run_record(record_path)
+        if record.get("loan_detail"):
+            return _loan_detail(str(record["loan_detail"]), folder, role), record
     for needed in (loans_path, record_path):
         if not needed.is_file():
             raise InputFileError(
                 f"not found in the {role} run folder", file=needed, hint="give the --out folder of a completed run"
             )
     return loans_path, read_run_record(record_path)
+
+
+def _loan_detail(named: str, folder: Path, role: str) -> Path:
+    """The Parquet folder of a book computed part by part, as its run.json names it (a relative
+    path from where this command runs, else from the run's folder)."""
+    path = Path(named)
+    for candidate in ([path] if path.is_absolute() else [path, folder / path]):
+        if candidate.is_dir() and detail_files(candidate):
+            return candidate
+    raise InputFileError(f"the loan detail of the {role} run (a book computed part by part) was not found", file=path,
+                         hint="its run.json names this folder of Parquet files: keep it there, or give a run "
+                              "with a loans.csv")
+
+
+def detail_files(folder: Path) -> list[Path]:
+    """The Parquet files of a book's loan detail, in tape order (``part-<first row>.parquet``)."""
+    return sorted(folder.glob("part-*.parquet"))
+
+
+def _detail_dataset(folder: Path):
+    import pyarrow.dataset as ds
+
+    return ds.dataset([str(f) for f in detail_files(folder)], format="parquet")
 
 
 def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] | None = None) -> PriorRun:
@@ -222,6 +253,8 @@ def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] |
         The folder or either file is missing or unreadable.
     """
     loans_path, record = _prior_files(folder, role)
+    if loans_path.is_dir():
+        return PriorRun(loans=_detail_frame(loans_path, columns), record=record, source=loans_path)
     try:
         header = _header(loans_path) if columns is not None else []
         if "loan_id" in header and len(set(header)) == len(header):
@@ -239,7 +272,30 @@ def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] |
     for name in loans.columns:
         if pd.api.types.is_integer_dtype(loans[name]) or pd.api.types.is_float_dtype(loans[name]):
             loans[name] = loans[name].astype(np.float64)
-    return PriorRun(loans=loans, record=record)
+    return PriorRun(loans=loans, record=record, source=loans_path)
+
+
+def _detail_frame(folder: Path, columns: Collection[str] | None) -> pd.DataFrame:
+    """A book's Parquet loan detail as :func:`read_prior_run` reads ``loans.csv``: ``columns``
+    (those it has, ``loan_id`` always; None: all), numbers as float64, dates as ISO text."""
+    import pyarrow as pa
+
+    try:
+        dataset = _detail_dataset(folder)
+        names = [c for c in dataset.schema.names if columns is None or c in set(columns) | {"loan_id"}]
+        table = dataset.to_table(columns=names)
+    except (OSError, ValueError, pa.ArrowException) as err:
+        raise InputFileError(f"cannot be read as Parquet ({err})", file=folder) from err
+    if "loan_id" not in table.column_names:
+        raise InputFileError("has no loan_id column", file=folder)
+    # text as the CSV gives it: dates as their ISO text, as a loans.csv holds them
+    table = pa.table({c: table[c].cast(pa.large_string()) if pa.types.is_temporal(table[c].type) else table[c]
+                      for c in table.column_names})
+    loans = table.to_pandas()
+    for name in loans.columns:
+        if pd.api.types.is_integer_dtype(loans[name]) or pd.api.types.is_float_dtype(loans[name]):
+            loans[name] = loans[name].astype(np.float64)
+    return loans
 
 
 #: how :func:`read_prior_figures` keeps a column: ``ids`` Arrow text as read; ``codes`` text as
@@ -284,6 +340,7 @@ class PriorFigures:
 
     loans: LoanFigures
     record: dict
+    source: Path | None = None  # as PriorRun's
 
 
 def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str = "prior") -> PriorFigures | None:
@@ -304,6 +361,8 @@ def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str 
     import pyarrow.csv as pacsv
 
     loans_path, record = _prior_files(folder, role)
+    if loans_path.is_dir():
+        return _detail_figures(loans_path, kinds, record)
     try:
         header = _header(loans_path)
     except (OSError, ValueError, pa.ArrowException):
@@ -329,7 +388,33 @@ def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str 
                     return None
     except (OSError, ValueError, pa.ArrowException):
         return None  # read_prior_run reads it again, and names what is wrong
-    return PriorFigures(loans=taken.figures(tuple(names)), record=record)
+    return PriorFigures(loans=taken.figures(tuple(names)), record=record, source=loans_path)
+
+
+def _detail_figures(folder: Path, kinds: Mapping[str, FigureKind], record: dict) -> PriorFigures | None:
+    """:func:`read_prior_figures` of a book's Parquet loan detail: its row groups in tape order,
+    each column cast to what the CSV reader types it as, then kept by its kind alike."""
+    import pyarrow as pa
+
+    try:
+        dataset = _detail_dataset(folder)
+        header = dataset.schema.names
+    except (OSError, ValueError, pa.ArrowException):
+        return None
+    if "loan_id" not in header or len(set(header)) != len(header):
+        return None
+    kinds = {**{c: k for c, k in kinds.items() if c in header}, "loan_id": "ids"}
+    names = [c for c in header if c in kinds]
+    typed = {c: pa.large_string() if kinds[c] in ("ids", "codes") else pa.bool_() if kinds[c] == "flag" else pa.float64()
+             for c in names}
+    taken = _Taken(kinds)
+    try:
+        for batch in dataset.to_batches(columns=names, use_threads=False):
+            if not taken.add(pa.record_batch([batch.column(c).cast(typed[c]) for c in names], names=names)):
+                return None
+    except (OSError, ValueError, pa.ArrowException):
+        return None
+    return PriorFigures(loans=taken.figures(tuple(names)), record=record, source=folder)
 
 
 class _Taken:

@@ -1,9 +1,12 @@
-"""A book computed part by part still hands finance its summary workbook and disclosure tables.
+"""A book computed part by part still hands finance its summary workbook and disclosure tables,
+and is a prior run for next quarter's movement.
 
 Reference: the in-process run of the same rows read whole (``allowance run`` without
 ``--loans-parquet``). The parts send back sums by segment, stage, POCI flag and measurement,
 and the disclosure tables' cells; every figure of ``summary.xlsx`` and every disclosure table
-made from those sums must be the one the loans give, to the cent.
+made from those sums must be the one the loans give, to the cent. As a prior run (``run
+--prior``, ``allowance compare``) its loan detail is read from the Parquet folder its
+run.json names, and the movement must be the one the same run with a loans.csv gives.
 """
 
 from __future__ import annotations
@@ -77,3 +80,61 @@ def test_the_reserve_workbook_of_a_book_computed_part_by_part_is_refused_by_name
     with pytest.raises(AllowanceError, match="reserve workbook needs the loans") as err:
         book.workbook(tmp_path / "reserve.xlsx")
     assert "summary.xlsx" in str(err.value.hint) and not (tmp_path / "reserve.xlsx").exists()
+
+
+@pytest.fixture(scope="module")
+def prior_book(tmp_path_factory):
+    """The demo's prior quarter as a Parquet tape computed part by part (four parts), and the
+    same rows run in one process (with a loans.csv): two prior runs of the same loans."""
+    from tests.books import DEMO, MANIFEST
+
+    folder = tmp_path_factory.mktemp("prior")
+    frame = pd.read_csv(DEMO / MANIFEST["prior"]["tape"], dtype=str, keep_default_na=False)
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), folder / "tape.parquet", row_group_size=3000)
+    assumptions = DEMO / MANIFEST["prior"]["assumptions"]
+    for name, more in (("book", {"loans_parquet": folder / "detail"}), ("alone", {})):
+        api.run(folder / "tape.parquet", assumptions, accept_ledger_difference=True, sensitivities=False,
+                **more).write(folder / name)
+    assert not (folder / "book" / "loans.csv").exists()
+    return folder
+
+
+def test_a_book_computed_part_by_part_is_a_prior_run_for_the_movement(prior_book):
+    """``run --prior BOOK`` and ``allowance compare BOOK CURRENT``: the same movement, loan by
+    loan, as with the same prior quarter run in one process; the run record hashes the
+    Parquet files read (the loan detail of the prior run) beside its run.json."""
+    from tests.books import DEMO, MANIFEST
+
+    charge_offs = DEMO / MANIFEST["current"]["charge_offs"]
+    runs = {name: api.run(DEMO_TAPE, DEMO_ASSUMPTIONS, sensitivities=False, prior=prior_book / name,
+                          charge_offs=charge_offs) for name in ("book", "alone")}
+    for fw, moved in runs["alone"].movement.items():
+        pd.testing.assert_frame_equal(runs["book"].movement[fw].to_long(), moved.to_long())
+        pd.testing.assert_frame_equal(runs["book"].movement[fw].loans, moved.loans)
+    for name, table in runs["alone"].report.disclosures.items():  # write-offs by vintage: the prior's dates
+        pd.testing.assert_frame_equal(runs["book"].report.disclosures[name], table)
+    read = [i["path"] for i in runs["book"].record["inputs"] if i["role"] == "prior"]
+    assert read == [*(str(p) for p in sorted((prior_book / "detail").glob("part-*.parquet"))),
+                    str(prior_book / "book" / "run.json")] and len(read) == 5
+    runs["alone"].write(prior_book / "now")
+    done = CliRunner().invoke(app, ["compare", str(prior_book / "book"), str(prior_book / "now"),
+                                    "--out", str(prior_book / "moved-book")], catch_exceptions=False)
+    assert done.exit_code == 0, done.output
+    CliRunner().invoke(app, ["compare", str(prior_book / "alone"), str(prior_book / "now"),
+                             "--out", str(prior_book / "moved-alone")], catch_exceptions=False)
+    for name in sorted(p.name for p in (prior_book / "moved-alone").glob("*.csv")):
+        assert (prior_book / "moved-book" / name).read_bytes() == (prior_book / "moved-alone" / name).read_bytes(), name
+
+
+def test_a_book_whose_loan_detail_has_moved_is_named_with_its_folder(prior_book, tmp_path):
+    import shutil
+
+    from allowance.exceptions import InputFileError
+
+    shutil.copytree(prior_book / "book", tmp_path / "book")
+    record = (tmp_path / "book" / "run.json").read_text(encoding="utf-8")
+    (tmp_path / "book" / "run.json").write_text(record.replace(str(prior_book / "detail"), str(tmp_path / "gone")),
+                                                encoding="utf-8")
+    with pytest.raises(InputFileError, match="loan detail of the prior run .* was not found") as err:
+        api.run(DEMO_TAPE, DEMO_ASSUMPTIONS, sensitivities=False, prior=tmp_path / "book")
+    assert str(tmp_path / "gone") in str(err.value) and "run.json names this folder" in str(err.value.hint)
