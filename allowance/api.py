@@ -646,8 +646,10 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
         warnings.append("the one-scenario sensitivities are not computed for a book computed part by part")
     taken = dataclasses.replace(book.intake, findings=pd.concat([book.intake.findings, book.findings], ignore_index=True))
     count = int(book.loans[partitioned.COUNT].sum())
+    # the folder as an absolute path: a later run reads the detail from wherever it runs (run --prior, compare)
+    detail = os.path.abspath(folder)
     record = report.run_record(config, taken, book.loans, tie_out=ties[0], warnings=warnings, started=started[1],
-                               extra={"arguments": arguments, "loans": count, "loan_detail": str(folder),
+                               extra={"arguments": arguments, "loans": count, "loan_detail": detail,
                                       "loan_detail_files": len(book.files)})
     prep = book.prep
     run_report = report.RunReport(
@@ -655,7 +657,7 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
         disclosures=disclosure.tables_from_cents(book.disclosures), scenarios=engine.scenario_summary(book.loans, config), term_structures=engine.views.term_structure_table(prep),
         roll_rates=engine.roll_rate_table(config), reversion=engine.reversion_view(prep),
         macro_paths=macro.macro_path_table(config.assumptions, prep.months), pd_paths=book.pd_paths, record=record,
-        warnings=warnings, loan_detail=str(folder),
+        warnings=warnings, loan_detail=detail,
     )
     return Result(report=run_report, seconds=time.perf_counter() - started[0])
 

@@ -215,8 +215,9 @@ def _prior_files(folder: Path, role: str) -> tuple[Path, dict]:
 
 
 def _loan_detail(named: str, folder: Path, role: str) -> Path:
-    """The Parquet folder of a book computed part by part, as its run.json names it (a relative
-    path from where this command runs, else from the run's folder)."""
+    """The Parquet folder of a book computed part by part, as its run.json names it (absolute
+    since it is written so; a relative name, from an older record or a moved pair of folders,
+    from where this command runs, else from the run's folder)."""
     path = Path(named)
     for candidate in ([path] if path.is_absolute() else [path, folder / path]):
         if candidate.is_dir() and detail_files(candidate):
