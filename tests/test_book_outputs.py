@@ -138,3 +138,32 @@ def test_a_book_whose_loan_detail_has_moved_is_named_with_its_folder(prior_book,
     with pytest.raises(InputFileError, match="loan detail of the prior run .* was not found") as err:
         api.run(DEMO_TAPE, DEMO_ASSUMPTIONS, sensitivities=False, prior=tmp_path / "book")
     assert str(tmp_path / "gone") in str(err.value) and "run.json names this folder" in str(err.value.hint)
+
+
+@pytest.mark.parametrize("harm", ["a part deleted", "a part spoilt", "another run's part added"])
+def test_a_book_whose_loan_detail_is_not_whole_is_refused_naming_the_file(prior_book, tmp_path, harm):
+    """Nothing is silently dropped: the Parquet files of a prior book are checked against its
+    run record (as many files and loans as it wrote) before the movement reads them, and a
+    file that is not Parquet is named (common practice, no source)."""
+    import shutil
+
+    from allowance.exceptions import InputFileError
+
+    shutil.copytree(prior_book / "book", tmp_path / "book")
+    shutil.copytree(prior_book / "detail", tmp_path / "detail")
+    record = (tmp_path / "book" / "run.json").read_text(encoding="utf-8")
+    (tmp_path / "book" / "run.json").write_text(record.replace(str(prior_book / "detail"), str(tmp_path / "detail")),
+                                                encoding="utf-8")
+    parts = sorted((tmp_path / "detail").glob("part-*.parquet"))
+    if harm == "a part deleted":
+        parts[1].unlink()
+        match, named = "holds 3 files and [0-9,]+ loans; the run wrote 4 files and 9,826 loans", tmp_path / "detail"
+    elif harm == "a part spoilt":
+        parts[2].write_bytes(b"not parquet")
+        match, named = "cannot be read as Parquet", parts[2]
+    else:
+        shutil.copy(parts[0], tmp_path / "detail" / "part-000000999999.parquet")
+        match, named = "holds 5 files", tmp_path / "detail"
+    with pytest.raises(InputFileError, match=match) as err:
+        api.compare(tmp_path / "book", prior_book / "alone")
+    assert err.value.file == str(named) or str(named) in str(err.value)

@@ -205,7 +205,7 @@ def _prior_files(folder: Path, role: str) -> tuple[Path, dict]:
     if not loans_path.is_file() and record_path.is_file():
         record = read_run_record(record_path)
         if record.get("loan_detail"):
-            return _loan_detail(str(record["loan_detail"]), folder, role), record
+            return _loan_detail(str(record["loan_detail"]), folder, role, record), record
     for needed in (loans_path, record_path):
         if not needed.is_file():
             raise InputFileError(
@@ -214,17 +214,37 @@ def _prior_files(folder: Path, role: str) -> tuple[Path, dict]:
     return loans_path, read_run_record(record_path)
 
 
-def _loan_detail(named: str, folder: Path, role: str) -> Path:
+def _loan_detail(named: str, folder: Path, role: str, record: Mapping) -> Path:
     """The Parquet folder of a book computed part by part, as its run.json names it (absolute
     since it is written so; a relative name, from an older record or a moved pair of folders,
-    from where this command runs, else from the run's folder)."""
+    from where this command runs, else from the run's folder), checked whole against its
+    record: as many files as the run wrote, as many loans (every file's footer read), so that
+    no part is silently missing from the movement."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
     path = Path(named)
-    for candidate in ([path] if path.is_absolute() else [path, folder / path]):
-        if candidate.is_dir() and detail_files(candidate):
-            return candidate
-    raise InputFileError(f"the loan detail of the {role} run (a book computed part by part) was not found", file=path,
-                         hint="its run.json names this folder of Parquet files: keep it there, or give a run "
-                              "with a loans.csv")
+    found = next((c for c in ([path] if path.is_absolute() else [path, folder / path])
+                  if c.is_dir() and detail_files(c)), None)
+    if found is None:
+        raise InputFileError(f"the loan detail of the {role} run (a book computed part by part) was not found",
+                             file=path, hint="its run.json names this folder of Parquet files: keep it there, or give "
+                                             "a run with a loans.csv")
+    files = detail_files(found)
+    rows = 0
+    for part in files:
+        try:
+            rows += pq.ParquetFile(part).metadata.num_rows
+        except (OSError, ValueError, pa.ArrowException) as err:
+            raise InputFileError(f"cannot be read as Parquet ({err})", file=part,
+                                 hint=f"a file of the {role} run's loan detail: run that quarter again") from err
+    wrote, loans = record.get("loan_detail_files"), record.get("loans")
+    if (wrote is not None and len(files) != wrote) or (loans is not None and rows != loans):
+        wrote_text = " and ".join(f"{n:,} {what}" for n, what in ((wrote, "files"), (loans, "loans")) if n is not None)
+        raise InputFileError(f"the loan detail of the {role} run holds {len(files):,} files and {rows:,} loans; the "
+                             f"run wrote {wrote_text}", file=found,
+                             hint="a part is missing or another run's is mixed in: run that quarter again")
+    return found
 
 
 def detail_files(folder: Path) -> list[Path]:
