@@ -248,6 +248,20 @@ def _rerun_at_prior_assumptions(tape: pd.DataFrame, prior_config: RunConfig | No
         return None
 
 
+def _same_model_recorded(prior: Mapping | None, current: Mapping | None) -> bool:
+    """Whether two finished runs' records hold assumptions that give the loop the same inputs,
+    weights included (:func:`allowance.engine.same_model`), for the same frameworks."""
+    from allowance import engine
+
+    try:
+        data = (current or {}).get("assumptions")
+        config = RunConfig(assumptions=Assumptions.model_validate(data)) if data else None
+    except (AllowanceError, ValueError):
+        return False
+    before = _prior_config(prior, config) if config is not None else None
+    return before is not None and before.frameworks == config.frameworks and engine.same_model(before, config)
+
+
 def _modelled_of(loans: pd.DataFrame, frameworks: Sequence[str]) -> pd.DataFrame:
     """The columns :func:`allowance.engine.modelled` gives (``loan_id, ecl_<framework>_modelled``),
     taken from a run whose configuration gives the loop the same inputs (the columns shared,
@@ -775,7 +789,11 @@ def compare(prior: str | os.PathLike | Result, current: str | os.PathLike | Resu
     _same_currency(before.record, _record_currency(after.record),
                    str(Path(prior) / "run.json") if not isinstance(prior, Result) else "the prior result")
     frameworks = [fw for fw in _prior_frameworks(after.record) if fw in _prior_frameworks(before.record)]
+    # the current run's own modelled figures are its tape at the prior assumptions when the
+    # prior run's model is this one's (engine.same_model): the assumption lines are isolated then
+    at_prior = after.loans if _same_model_recorded(before.record, after.record) else None
     return reconcile.compare_runs(before.loans, after.loans, charge_offs=cos, frameworks=frameworks,
+                                  current_at_prior_assumptions=at_prior,
                                   sources={"prior": str(prior) if not isinstance(prior, Result) else "prior",
                                            "current": str(current) if not isinstance(current, Result) else "current"},
                                   prior_as_of=_record_as_of(before.record), current_as_of=_record_as_of(after.record),

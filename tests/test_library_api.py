@@ -345,3 +345,25 @@ def test_a_what_if_and_a_prior_at_other_weights_each_get_their_own_figures(what_
                            sensitivities=False, accept_ledger_difference=True)
     for fw, moved in both.movement.items():
         pd.testing.assert_frame_equal(moved.loans, forced.movement[fw].loans)
+
+
+@pytest.mark.parametrize("change", [None, _relgd], ids=["same model", "other LGD"])
+def test_compare_isolates_the_assumption_lines_when_the_prior_model_is_the_current_one(change):
+    """``compare`` has no tape to rerun at the prior assumptions, so it puts assumption changes
+    into remeasurement and says so. When the two runs' records hold the same model (weights
+    included) the current run's own modelled figures are that rerun: the lines are isolated,
+    and the movement is the one ``run --prior`` gives, loan by loan (reference: run --prior,
+    whose shortcut the test above holds to the second pass). With another LGD nothing changes."""
+    part = _tape_frame().iloc[::9]
+    before = _prior_under(change, part)
+    moved = allowance.run(part, books.DEMO_ASSUMPTIONS, prior=before, sensitivities=False,
+                          accept_ledger_difference=True)
+    now = allowance.run(part, books.DEMO_ASSUMPTIONS, sensitivities=False, accept_ledger_difference=True)
+    compared = allowance.compare(before, now)
+    for fw, movement in compared.items():
+        labels = movement.to_long()["label"].drop_duplicates().tolist()
+        if change is None:
+            pd.testing.assert_frame_equal(movement.loans, moved.movement[fw].loans)
+            assert not any("not isolated" in str(label) for label in labels)
+        else:
+            assert any("not isolated" in str(label) for label in labels)

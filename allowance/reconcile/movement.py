@@ -167,7 +167,8 @@ def movement(
         (required for IFRS 9) and ``poci``.
     current_at_prior_assumptions : DataFrame or None
         The current tape rerun with the prior run's assumptions (``loan_id`` and
-        ``ecl_<framework>_modelled``). None puts all of the change into remeasurement.
+        ``ecl_<framework>_modelled``; ``current`` itself when the prior model is the current
+        one's). None puts all of the change into remeasurement.
     charge_offs : DataFrame or None
         The period's charge-offs: ``loan_id, gross_charge_off`` and optionally
         ``recoveries`` and ``segment`` (several rows per loan are summed).

@@ -411,12 +411,14 @@ class Book:
     """
 
     def __init__(self, prior: pd.DataFrame | LoanFigures, current: pd.DataFrame | LoanFigures,
-                 rerun: pd.DataFrame | None,
+                 rerun: pd.DataFrame | LoanFigures | None,
                  charge_offs: pd.DataFrame | None, sources: dict) -> None:
         self.sources = sources
         self.prior = run_loans(prior, sources["prior"])
         self.current = run_loans(current, sources["current"])
-        self.rerun = None if rerun is None else RunLoans(rerun, sources["current_at_prior_assumptions"])
+        # the rerun may be the current run's own figures (the prior model is this run's): read
+        # as the current run is, its rows the current run's (the same ids, in the same order)
+        self.rerun = None if rerun is None else run_loans(rerun, sources["current_at_prior_assumptions"])
         empty = charge_offs is None or len(charge_offs) == 0
         self.charge_offs = None if empty else RunLoans(charge_offs, sources["charge_offs"])
         self.joined = None  # what every framework's bridge shares (made by the first)
