@@ -462,14 +462,14 @@ def run(
         config = _relabel(config, label)
     source = _tape(tape)
     if loans_parquet is not None:
-        for given, option, why in ((prior, "a prior run", "the movement is explained loan by loan"),
-                                   (overlays or None, "a what-if overlay", "the base run is compared loan by loan")):
-            if given is not None:
-                raise AllowanceError(f"{option} needs the whole loan frame in one process ({why}); "
-                                     "run it without the Parquet loan detail")
+        if overlays:
+            raise AllowanceError("a what-if overlay needs the whole loan frame in one process (the base run is "
+                                 "compared loan by loan); run it without the Parquet loan detail")
+        if charge_offs is not None and prior is None:
+            raise AllowanceError("a charge-off file is read with a prior run (the movement's write-offs); give --prior")
         return _run_book(source, config, Path(loans_parquet), map=map, chunk_size=chunk_size, progress=progress,
                          ledger_balance=ledger_balance, accept=accept_ledger_difference, sensitivities=sensitivities,
-                         arguments=arguments, started=(started, started_at))
+                         arguments=arguments, started=(started, started_at), prior=prior, charge_offs=charge_offs)
     # the prior run's folder is read (its loans.csv parsed, its files hashed) on a thread of its
     # own while the tape is read and computed: Arrow parses and hashlib hashes outside the GIL, on
     # the core the single-threaded steps leave idle. Its errors are raised where it is used.
@@ -635,14 +635,28 @@ def run(
 
 def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, map: Callable | None,
               chunk_size: int | None, progress: Progress | None, ledger_balance: float | None, accept: bool,
-              sensitivities: bool, arguments: dict, started: tuple[float, Any]) -> Result:
-    """:func:`run` for a Parquet tape computed part by part, its loan detail written to ``folder``."""
+              sensitivities: bool, arguments: dict, started: tuple[float, Any],
+              prior: str | os.PathLike | Result | None = None,
+              charge_offs: str | os.PathLike | pd.DataFrame | None = None) -> Result:
+    """:func:`run` for a Parquet tape computed part by part, its loan detail written to ``folder``.
+
+    With a ``prior`` run, the movement is made here, in this process, once the parts are
+    written: this run's loans read back from its Parquet detail (only the movement's columns,
+    as a prior run's are read), the prior run's from its folder. The tape is not computed again
+    at the prior run's assumptions: when they give the loop this run's inputs
+    (:func:`allowance.engine.same_model`) this run's own modelled figures are that rerun;
+    otherwise assumption changes stay in remeasurement, and the run says so."""
     from allowance import disclosure, engine, macro, partitioned, report
 
     if isinstance(source, pd.DataFrame) or not intake.is_partitioned(source):
         raise InputFileError("the Parquet loan detail is written part by part from a Parquet tape",
                              file=str(source) if not isinstance(source, pd.DataFrame) else "<DataFrame>",
                              hint="give a Parquet file or a folder of Parquet files")
+    if isinstance(prior, Result):
+        _same_currency(prior.record, config.assumptions.run.currency, "the prior result")
+    elif prior is not None:  # the prior run's folder checked before any part is computed
+        _, early = intake.locate_prior_run(Path(prior))
+        _same_currency(early, config.assumptions.run.currency, str(Path(prior) / "run.json"))
     ties: list[intake.TieOut] = []
 
     def tied(taken: intake.IntakeResult, balance: float) -> None:
@@ -658,22 +672,66 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
                 "(its loan sheet and schedules need the loans themselves)"]
     if sensitivities and len(config.assumptions.scenarios) > 1:
         warnings.append("the one-scenario sensitivities are not computed for a book computed part by part")
+    movements, inputs, how = None, list(config.inputs), None
+    if prior is not None:
+        movements, more, how = _book_movement(folder, config, prior, charge_offs, warnings, progress)
+        inputs += more
+        config = config.model_copy(update={"inputs": inputs})
     taken = dataclasses.replace(book.intake, findings=pd.concat([book.intake.findings, book.findings], ignore_index=True))
     count = int(book.loans[partitioned.COUNT].sum())
     # the folder as an absolute path: a later run reads the detail from wherever it runs (run --prior, compare)
     detail = os.path.abspath(folder)
     record = report.run_record(config, taken, book.loans, tie_out=ties[0], warnings=warnings, started=started[1],
+                               movements=tuple((movements or {}).values()),
                                extra={"arguments": arguments, "loans": count, "loan_detail": detail,
-                                      "loan_detail_files": len(book.files)})
+                                      "loan_detail_files": len(book.files),
+                                      **({"at_prior_assumptions": how} if how else {})})
     prep = book.prep
     run_report = report.RunReport(
         config=config, intake=taken, tie_out=ties[0], loans=book.loans, overlays=book.overlays,
         disclosures=disclosure.tables_from_cents(book.disclosures), scenarios=engine.scenario_summary(book.loans, config), term_structures=engine.views.term_structure_table(prep),
         roll_rates=engine.roll_rate_table(config), reversion=engine.reversion_view(prep),
         macro_paths=macro.macro_path_table(config.assumptions, prep.months), pd_paths=book.pd_paths, record=record,
-        warnings=warnings, loan_detail=detail,
+        warnings=warnings, loan_detail=detail, movement=movements,
     )
     return Result(report=run_report, seconds=time.perf_counter() - started[0])
+
+
+def _book_movement(folder: Path, config: RunConfig, prior: str | os.PathLike | Result,
+                   charge_offs: str | os.PathLike | pd.DataFrame | None, warnings: list[str],
+                   progress: Progress | None) -> tuple[dict, list, str | None]:
+    """The movement of a book computed part by part from a prior run (:func:`_run_book`): the
+    movements, the input records read for it, and how its figures at the prior assumptions
+    were made (None: not made; ``warnings`` says so)."""
+    from allowance import engine, reconcile
+    from allowance.reconcile import movement_kinds
+
+    told = progress or (lambda phase, done, total: None)
+    told("prior", 0, 1)
+    previous, prior_inputs = _prior(prior)
+    cos, co_inputs, co_source = _charge_offs(charge_offs)
+    current = intake.read_detail_figures(folder, movement_kinds())
+    prior_config = _prior_config(previous.record, config)
+    same = (prior_config is not None and prior_config.frameworks == config.frameworks
+            and engine.same_model(prior_config, config))
+    prior_frameworks = _prior_frameworks(previous.record)
+    movements = reconcile.compare_runs(
+        previous.loans, current, charge_offs=cos, current_at_prior_assumptions=current if same else None,
+        frameworks=[fw for fw in config.frameworks if fw in prior_frameworks],
+        sources={"prior": previous.source, "current": str(folder), **({"charge_offs": co_source} if co_source else {})},
+        prior_as_of=_record_as_of(previous.record), current_as_of=config.as_of,
+        method_changes=_method_changes(previous.record, config.assumptions.model_dump(mode="json")),
+    )
+    if not same:
+        warnings.append("a book computed part by part is not computed again at the prior run's assumptions, which "
+                        "differ from this run's model: assumption changes are included in remeasurement")
+    if cos is not None:
+        warnings.append("the period's write-offs are in the movement but not in the vintage disclosure of a book "
+                        "computed part by part (their origination dates are in the loan detail)")
+    told("prior", 1, 1)
+    return movements, co_inputs + prior_inputs, ("this run's own modelled figures: the prior run's assumptions "
+                                                 "differ from this run's only in what reaches no modelled figure"
+                                                 if same else None)
 
 
 # --------------------------------------------------------------------------------------

@@ -485,8 +485,8 @@ def run(
     loans_parquet: Annotated[
         Path | None, typer.Option("--loans-parquet", metavar="DIR",
                                   help="Parquet tape: compute it part by part and write the loan detail to DIR "
-                                       "(absent or empty) from where each part runs; summary.xlsx from the parts' sums, no "
-                                       "loans.csv or reserve.xlsx.")
+                                       "(absent or empty) from where each part runs; summary.xlsx from the parts' sums (and "
+                                       "the movement, with --prior), no loans.csv or reserve.xlsx.")
     ] = None,
     quiet: QuietOption = False,
     verbose: VerboseOption = False,
@@ -503,9 +503,9 @@ def run(
     if charge_offs is not None and prior is None:
         raise typer.BadParameter("needs --prior: the write-offs explain the movement from the prior run",
                                  param_hint="'--charge-offs'")
-    if loans_parquet is not None and (prior is not None or overlay or parquet):
-        raise typer.BadParameter("the loan detail written part by part is compared with nothing: not with --prior, "
-                                 "--overlay or --parquet", param_hint="'--loans-parquet'")
+    if loans_parquet is not None and (overlay or parquet):
+        raise typer.BadParameter("the loan detail written part by part is not compared with a what-if (--overlay) "
+                                 "nor written again (--parquet)", param_hint="'--loans-parquet'")
     _check_out(out, tape, assumptions, *(overlay or ()), charge_offs, prior / "loans.csv" if prior else None)
     started = time.perf_counter()
     try:

@@ -25,9 +25,10 @@ send its weights (8 bytes per loan in scope and framework), it is allocated here
 a whole book, and each part, written with its modelled figures, is finished with its
 share (:func:`finish_part`). What needs the whole loan frame at once is not done here, and
 the run says so: the reserve workbook (its loan sheet; the summary workbook is made from
-the sums), the movement from a prior run, a what-if, the one-scenario sensitivities and the
-schedules sample. As next quarter's prior run, the folder's run.json names the loan detail,
-which the movement reads part after part (:func:`allowance.intake.read_prior_figures`).
+the sums), a what-if, the one-scenario sensitivities and the schedules sample. The movement
+from a prior run is made after the parts, from the loan detail read back a column at a time
+(:func:`allowance.intake.read_detail_figures`, in the API); as next quarter's prior run, the
+folder's run.json names the loan detail (:func:`allowance.intake.read_prior_figures`).
 
 Implements
 ----------

@@ -167,3 +167,61 @@ def test_a_book_whose_loan_detail_is_not_whole_is_refused_naming_the_file(prior_
     with pytest.raises(InputFileError, match=match) as err:
         api.compare(tmp_path / "book", prior_book / "alone")
     assert err.value.file == str(named) or str(named) in str(err.value)
+
+
+def test_a_book_computed_part_by_part_with_a_prior_run_explains_its_movement(book, prior_book):
+    """``run TAPE.parquet --loans-parquet DIR --prior PRIOR``: the movement is made once the
+    parts are written, this run's loans read back from its Parquet detail. The tape is not
+    computed again at the prior assumptions, so its movement is the one ``compare`` gives
+    between the prior run and the same quarter run in one process (assumption changes in
+    remeasurement, said so), loan by loan; the summary workbook carries the movement and the
+    journal, and movement.csv is written (reference: allowance.compare of the in-process runs)."""
+    from tests.books import DEMO, MANIFEST
+
+    folder, alone, _ = book
+    charge_offs = DEMO / MANIFEST["current"]["charge_offs"]
+    done = CliRunner().invoke(app, ["run", str(folder / "tape.parquet"), "-a", str(DEMO_ASSUMPTIONS),
+                                    "--accept-ledger-difference", "--no-sensitivities", "--out", str(folder / "moved"),
+                                    "--loans-parquet", str(folder / "moved-detail"), "--prior", str(prior_book / "alone"),
+                                    "--charge-offs", str(charge_offs)], catch_exceptions=False)
+    assert done.exit_code == 0, done.output
+    assert "not computed again at the prior run's assumptions" in done.output
+    done = CliRunner().invoke(app, ["compare", str(prior_book / "alone"), str(folder / "alone"), "--charge-offs",
+                                    str(charge_offs), "--out", str(folder / "compared")], catch_exceptions=False)
+    assert done.exit_code == 0, done.output
+    for name in ("movement.csv", "movement_loans.csv"):
+        assert (folder / "moved" / name).read_bytes() == (folder / "compared" / name).read_bytes(), name
+    lines = pd.read_csv(folder / "moved" / "movement_loans.csv")
+    assert len(lines) >= len(alone.loans) and set(lines["framework"]) == {"ifrs9", "cecl"}
+    sheets = load_workbook(folder / "moved" / "summary.xlsx", read_only=True).sheetnames
+    assert "Movement" in sheets and "Journal" in sheets
+
+
+def test_a_book_whose_prior_run_has_its_model_isolates_the_assumption_lines(book, tmp_path):
+    """When the prior run's assumptions are this run's model (here: this quarter's file at last
+    quarter's date, another label), the book's own modelled figures are its tape at the prior
+    assumptions: the movement is the one the same quarter run in one process with ``--prior``
+    gives, loan by loan, assumption lines isolated (reference: that in-process run)."""
+    import tomllib
+
+    from tests.books import DEMO, MANIFEST
+
+    folder, _, _ = book
+    data = tomllib.loads(DEMO_ASSUMPTIONS.read_text(encoding="utf-8"))
+    data["run"] |= {"as_of": "2026-06-30", "label": "the quarter before, this quarter's model"}
+    data["run"].pop("ledger_balance", None)
+    for segment in data["segments"].values():  # the roll-rate matrix's file, from the demo's folder
+        if "transition_matrix" in segment:
+            segment["transition_matrix"] = str(DEMO / segment["transition_matrix"])
+    prior_tape = pd.read_csv(DEMO / MANIFEST["prior"]["tape"], dtype=str, keep_default_na=False).iloc[::3]
+    api.run(prior_tape, data, accept_ledger_difference=True, sensitivities=False).write(tmp_path / "prior")
+    in_process = api.run(folder / "tape.parquet", DEMO_ASSUMPTIONS, accept_ledger_difference=True,
+                         sensitivities=False, prior=tmp_path / "prior")
+    by_parts = api.run(folder / "tape.parquet", DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False,
+                       prior=tmp_path / "prior", loans_parquet=tmp_path / "detail")
+    assert in_process.record["at_prior_assumptions"].startswith("this run's own")
+    assert by_parts.record["at_prior_assumptions"].startswith("this run's own")
+    assert not any("not computed again" in w for w in by_parts.warnings)
+    for fw, moved in in_process.movement.items():
+        pd.testing.assert_frame_equal(by_parts.movement[fw].loans, moved.loans)
+        pd.testing.assert_frame_equal(by_parts.movement[fw].to_long(), moved.to_long())

@@ -218,9 +218,19 @@ def test_the_loan_detail_written_by_the_workers_is_the_in_process_loan_frame_to_
 
 
 def test_the_loan_detail_part_by_part_refuses_what_needs_the_whole_loan_frame(tmp_path):
+    from tests.books import DEMO, DEMO_WHAT_IF, MANIFEST
+
     whole, _ = _parquet_book(tmp_path / "book", rows=40)
-    with pytest.raises(AllowanceError, match="prior run needs the whole loan frame"):
-        api.run(whole, DEMO_ASSUMPTIONS, prior=tmp_path, loans_parquet=tmp_path / "detail")
+    with pytest.raises(AllowanceError, match="what-if overlay needs the whole loan frame"):
+        api.run(whole, DEMO_ASSUMPTIONS, overlays=[DEMO_WHAT_IF], loans_parquet=tmp_path / "detail")
+    with pytest.raises(AllowanceError, match="charge-off file is read with a prior run"):
+        api.run(whole, DEMO_ASSUMPTIONS, charge_offs=DEMO / MANIFEST["current"]["charge_offs"],
+                loans_parquet=tmp_path / "detail")
+    # a prior folder that is not a run's is named before any part is computed
+    with pytest.raises(AllowanceError, match="not found in the prior run folder"):
+        api.run(whole, DEMO_ASSUMPTIONS, accept_ledger_difference=True, prior=tmp_path / "book",
+                loans_parquet=tmp_path / "detail")
+    assert not (tmp_path / "detail").exists()
     with pytest.raises(AllowanceError, match="from a Parquet tape"):
         api.run(DEMO_TAPE, DEMO_ASSUMPTIONS, loans_parquet=tmp_path / "detail")
     (tmp_path / "used").mkdir()

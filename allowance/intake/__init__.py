@@ -48,6 +48,8 @@ _EXPORTS: dict[str, str] = {
     "read_prior_figures": "history",
     "read_prior_run": "history",
     "detail_files": "history",
+    "read_detail_figures": "history",
+    "locate_prior_run": "history",
     "MacroHistory": "macro_series",
     "read_macro_history": "macro_series",
     "is_partitioned": "parts",
@@ -68,7 +70,8 @@ if TYPE_CHECKING:  # pragma: no cover
     from allowance.intake.fields import FIELDS, FieldSpec, data_dictionary
     from allowance.intake.files import bundled_path, file_record
     from allowance.intake.history import (
-        LoanFigures, PriorFigures, PriorRun, detail_files, read_charge_offs, read_prior_figures, read_prior_run,
+        LoanFigures, PriorFigures, PriorRun, detail_files, locate_prior_run, read_charge_offs, read_detail_figures,
+        read_prior_figures, read_prior_run,
     )
     from allowance.intake.macro_series import MacroHistory, read_macro_history
     from allowance.intake.parts import is_partitioned, read_parts
@@ -100,7 +103,9 @@ __all__ = [
     "detail_files",
     "file_record",
     "load_assumptions",
+    "locate_prior_run",
     "read_charge_offs",
+    "read_detail_figures",
     "read_macro_history",
     "read_prior_figures",
     "read_prior_run",

@@ -214,6 +214,13 @@ def _prior_files(folder: Path, role: str) -> tuple[Path, dict]:
     return loans_path, read_run_record(record_path)
 
 
+def locate_prior_run(folder: Path, role: str = "prior") -> tuple[Path, dict]:
+    """A previous run's loan detail (``loans.csv``, or a book's Parquet folder, checked whole)
+    and its record, without reading the loans: the errors :func:`read_prior_run` would give
+    about the folder, given before anything is computed."""
+    return _prior_files(folder, role)
+
+
 def _loan_detail(named: str, folder: Path, role: str, record: Mapping) -> Path:
     """The Parquet folder of a book computed part by part, as its run.json names it (absolute
     since it is written so; a relative name, from an older record or a moved pair of folders,
@@ -410,6 +417,14 @@ def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str 
     except (OSError, ValueError, pa.ArrowException):
         return None  # read_prior_run reads it again, and names what is wrong
     return PriorFigures(loans=taken.figures(tuple(names)), record=record, source=loans_path)
+
+
+def read_detail_figures(folder: Path, kinds: Mapping[str, FigureKind]) -> LoanFigures | pd.DataFrame:
+    """A book's Parquet loan detail (this run's own, just written) as the movement reads a run:
+    :class:`LoanFigures` of the columns of ``kinds``, or, when a value is not what its kind
+    takes, the frame of those columns (whoever reads it names the value)."""
+    figures = _detail_figures(folder, kinds, {})
+    return figures.loans if figures is not None else _detail_frame(folder, list(kinds))
 
 
 def _detail_figures(folder: Path, kinds: Mapping[str, FigureKind], record: dict) -> PriorFigures | None:

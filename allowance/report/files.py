@@ -291,6 +291,11 @@ def _write_book(folder: Path, report: RunReport, done: Callable[[str], None],
     for name, table in (report.disclosures or {}).items():
         _csv(table, folder / f"disclosure_{name}.csv")
         did(f"disclosure_{name}.csv")
+    if report.movements:  # made from the loan detail read back (allowance.api._book_movement)
+        _csv(pd.concat([m.to_long() for m in report.movements], ignore_index=True), folder / "movement.csv")
+        did("movement.csv")
+        _movement_loans_csv(report.movements, folder / "movement_loans.csv")
+        did("movement_loans.csv")
     if report.macro_paths is not None and not report.macro_paths.empty:
         _csv(report.macro_paths, folder / "macro_paths.csv")
         did("macro_paths.csv")
