@@ -266,7 +266,8 @@ def _detail_dataset(folder: Path):
 
 
 def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] | None = None) -> PriorRun:
-    """Read ``loans.csv`` and ``run.json`` from a previous run's output folder.
+    """Read ``loans.csv`` and ``run.json`` from a previous run's output folder (for a book
+    computed part by part, the Parquet loan detail its run.json names, in place of loans.csv).
 
     ``role`` names the folder in messages (``prior``, or ``current`` for the later run of
     ``allowance compare``). ``columns``: read only those of them the file has (``loan_id``
