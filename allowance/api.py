@@ -642,28 +642,36 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
 
     With a ``prior`` run, the movement is made here, in this process, once the parts are
     written: this run's loans read back from its Parquet detail (only the movement's columns,
-    as a prior run's are read), the prior run's from its folder. The tape is not computed again
-    at the prior run's assumptions: when they give the loop this run's inputs
-    (:func:`allowance.engine.same_model`) this run's own modelled figures are that rerun;
-    otherwise assumption changes stay in remeasurement, and the run says so."""
+    as a prior run's are read), the prior run's from its folder. This tape at the prior run's
+    assumptions: when they give the loop this run's inputs (:func:`allowance.engine.same_model`)
+    this run's own modelled figures; otherwise each part computed at them too where it is
+    computed (:func:`allowance.partitioned.compute_part`), 8 bytes a loan and framework back."""
     from allowance import disclosure, engine, macro, partitioned, report
 
     if isinstance(source, pd.DataFrame) or not intake.is_partitioned(source):
         raise InputFileError("the Parquet loan detail is written part by part from a Parquet tape",
                              file=str(source) if not isinstance(source, pd.DataFrame) else "<DataFrame>",
                              hint="give a Parquet file or a folder of Parquet files")
+    early = None  # the prior run's record
     if isinstance(prior, Result):
-        _same_currency(prior.record, config.assumptions.run.currency, "the prior result")
+        early = prior.record
+        _same_currency(early, config.assumptions.run.currency, "the prior result")
     elif prior is not None:  # the prior run's folder checked before any part is computed
         _, early = intake.locate_prior_run(Path(prior))
         _same_currency(early, config.assumptions.run.currency, str(Path(prior) / "run.json"))
+    # the book at the prior run's assumptions, once its parts are written, unless those are this
+    # run's model (then its own modelled figures are that rerun)
+    prior_config = _prior_config(early, config) if early is not None else None
+    if prior_config is not None and (prior_config.frameworks != config.frameworks
+                                     or engine.same_model(prior_config, config)):
+        prior_config = None
     ties: list[intake.TieOut] = []
 
     def tied(taken: intake.IntakeResult, balance: float) -> None:
         ties.append(_tie_out(taken, config, ledger_balance, accept, accepted_balance=balance))
         _require_tie(ties[0], taken)
 
-    book = partitioned.run_book(source, config, folder, check_tape=tied, progress=progress,
+    book = partitioned.run_book(source, config, folder, check_tape=tied, progress=progress, prior_config=prior_config,
                                 **({"map": map} if map is not None else {}),
                                 **({"chunk_size": chunk_size} if chunk_size is not None else {}))
     warnings = [*book.intake.notes, *book.warnings,
@@ -674,7 +682,7 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
         warnings.append("the one-scenario sensitivities are not computed for a book computed part by part")
     movements, inputs, how = None, list(config.inputs), None
     if prior is not None:
-        movements, more, how = _book_movement(folder, config, prior, charge_offs, warnings, progress)
+        movements, more, how = _book_movement(folder, config, prior, charge_offs, warnings, progress, book.at_prior)
         inputs += more
         config = config.model_copy(update={"inputs": inputs})
     taken = dataclasses.replace(book.intake, findings=pd.concat([book.intake.findings, book.findings], ignore_index=True))
@@ -699,10 +707,12 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
 
 def _book_movement(folder: Path, config: RunConfig, prior: str | os.PathLike | Result,
                    charge_offs: str | os.PathLike | pd.DataFrame | None, warnings: list[str],
-                   progress: Progress | None) -> tuple[dict, list, str | None]:
+                   progress: Progress | None, at_prior: Mapping[str, np.ndarray]) -> tuple[dict, list, str | None]:
     """The movement of a book computed part by part from a prior run (:func:`_run_book`): the
     movements, the input records read for it, and how its figures at the prior assumptions
-    were made (None: not made; ``warnings`` says so)."""
+    were made (None: not made; ``warnings`` says so). ``at_prior``: the book's modelled ECL per
+    framework at the prior assumptions, in tape order, when its parts were computed at them
+    too (:func:`allowance.partitioned.compute_part`)."""
     from allowance import engine, reconcile
     from allowance.reconcile import movement_kinds
 
@@ -714,24 +724,30 @@ def _book_movement(folder: Path, config: RunConfig, prior: str | os.PathLike | R
     prior_config = _prior_config(previous.record, config)
     same = (prior_config is not None and prior_config.frameworks == config.frameworks
             and engine.same_model(prior_config, config))
+    rerun = current if same else None
+    if at_prior:  # the parts computed again: their figures beside this run's ids, in the same order
+        ids = current.ids["loan_id"] if isinstance(current, intake.LoanFigures) else current["loan_id"].array
+        rerun = pd.DataFrame({"loan_id": pd.array(ids, dtype=pd.ArrowDtype(ids.type)) if hasattr(ids, "type") else ids,
+                              **at_prior}, copy=False)
     prior_frameworks = _prior_frameworks(previous.record)
     movements = reconcile.compare_runs(
-        previous.loans, current, charge_offs=cos, current_at_prior_assumptions=current if same else None,
+        previous.loans, current, charge_offs=cos, current_at_prior_assumptions=rerun,
         frameworks=[fw for fw in config.frameworks if fw in prior_frameworks],
         sources={"prior": previous.source, "current": str(folder), **({"charge_offs": co_source} if co_source else {})},
         prior_as_of=_record_as_of(previous.record), current_as_of=config.as_of,
         method_changes=_method_changes(previous.record, config.assumptions.model_dump(mode="json")),
     )
-    if not same:
-        warnings.append("a book computed part by part is not computed again at the prior run's assumptions, which "
-                        "differ from this run's model: assumption changes are included in remeasurement")
+    if rerun is None:
+        warnings.append("the prior run's assumptions could not be applied to this book: assumption changes are "
+                        "included in remeasurement")
     if cos is not None:
         warnings.append("the period's write-offs are in the movement but not in the vintage disclosure of a book "
                         "computed part by part (their origination dates are in the loan detail)")
     told("prior", 1, 1)
-    return movements, co_inputs + prior_inputs, ("this run's own modelled figures: the prior run's assumptions "
-                                                 "differ from this run's only in what reaches no modelled figure"
-                                                 if same else None)
+    how = ("this run's own modelled figures: the prior run's assumptions differ from this run's only in what "
+           "reaches no modelled figure" if same else
+           "each part of the book computed at the prior run's assumptions too" if rerun is not None else None)
+    return movements, co_inputs + prior_inputs, how
 
 
 # --------------------------------------------------------------------------------------

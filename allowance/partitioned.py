@@ -134,6 +134,7 @@ class PartFacts:
     accepted_balance: float
     months: int
     max_age: int
+    prior_months: int = 0  # the months its loans need under the prior run's assumptions (run --prior)
 
 
 @dataclass(frozen=True)
@@ -153,21 +154,26 @@ class PartSums:
     weights: dict[tuple[int, str], np.ndarray] = dataclasses.field(default_factory=dict)
     #: the disclosure tables' cells of its loans (:func:`allowance.disclosure.disclosure_cents`)
     disclosures: dict[str, pd.DataFrame] = dataclasses.field(default_factory=dict)
+    #: its loans' modelled ECL per framework at the prior run's assumptions (compute_part's ``prior``)
+    at_prior: dict[str, np.ndarray] = dataclasses.field(default_factory=dict)
 
 
 def part_facts(part: TapePart, *, config: RunConfig, repeated: dict[str, list[int]],
-               headers: Sequence[str]) -> PartFacts:
-    """Read and validate a part; keep only what the book's tables and the tie-out need."""
+               headers: Sequence[str], prior_config: RunConfig | None = None) -> PartFacts:
+    """Read and validate a part; keep only what the book's tables and the tie-out need (and,
+    given the prior run's configuration, what its tables need)."""
     validated = read_part(part, config, repeated, headers=headers)
     accepted = validated.intake.accepted
     balance = math.fsum(accepted["balance"].to_numpy(dtype=np.float64)) if len(accepted) else 0.0
     months = engine.tape_months(accepted, config) if len(accepted) else 12
+    prior_months = engine.tape_months(accepted, prior_config) if prior_config is not None and len(accepted) else 12
     # a copy: an empty slice is a view that keeps the part's whole frame alive wherever the
     # result is held (a Dask worker keeps it until the caller has it: 2 GB per worker at 10M loans)
     empty = pd.DataFrame({c: pd.Series([], dtype=t) for c, t in accepted.dtypes.items()})  # new, empty arrays
     slim = dataclasses.replace(validated.intake, accepted=empty)
     return PartFacts(validated=dataclasses.replace(validated, intake=slim), accepted_rows=len(accepted),
-                     accepted_balance=balance, months=months, max_age=engine.max_age(accepted, config))
+                     accepted_balance=balance, months=months, max_age=engine.max_age(accepted, config),
+                     prior_months=prior_months)
 
 
 def _write(frame: pd.DataFrame, target: Path) -> None:
@@ -181,16 +187,25 @@ def _write(frame: pd.DataFrame, target: Path) -> None:
 
 
 def compute_part(part: TapePart, *, prep: engine.Prepared, repeated: dict[str, list[int]], headers: Sequence[str],
-                 folder: str, chunk_size: int) -> PartSums:
+                 folder: str, chunk_size: int, prior: engine.Prepared | None = None) -> PartSums:
     """Read, validate and compute a part; write its loan detail to ``folder`` as
     ``part-<first row, 12 digits>.parquet`` (names sort in tape order); return its sums.
 
     With an ``amount`` overlay the part is written as ``.part-<...>.modelled.parquet`` and
     returns its weights; :func:`finish_part` applies the book's allocation to it.
+    ``prior``: the book's tables at the prior run's assumptions: the part's loans are computed
+    at them too (:func:`allowance.engine.modelled_with`, staged as this run staged them where
+    the two stage alike), the second pass a movement isolates assumption changes with, and
+    their modelled ECL per framework comes back in ``at_prior`` (8 bytes a loan and framework).
     """
     validated = read_part(part, prep.config, repeated, headers=headers)
     accepted = validated.intake.accepted
     done = engine.run_part(accepted, prep, chunk_size=chunk_size)
+    at_prior: dict[str, np.ndarray] = {}
+    if prior is not None and len(accepted):
+        stages = done.loans[["stage", "poci"]] if engine.same_stages(prep.config, prior.config) and \
+            "stage" in done.loans.columns else None
+        at_prior = engine.modelled_with(accepted, prior, stages, chunk_size=chunk_size)
     target = Path(folder) / f"part-{part.first_row:012d}.parquet"
     coverage = staging.pd_ratio_coverage(accepted) if prep.staged is not None else pd.DataFrame()
     weights = pd_path_weights(accepted, prep) if len(accepted) else np.zeros(prep.pd.shape[1])
@@ -201,11 +216,11 @@ def compute_part(part: TapePart, *, prep: engine.Prepared, repeated: dict[str, l
         _write(done.loans, waiting)
         return PartSums(sums=pd.DataFrame(), overlays=pd.DataFrame(), overlay_warnings=(), findings=done.findings,
                         coverage=coverage, file=str(target), pd_path_weights=weights, waiting=str(waiting),
-                        weights=done.weights, disclosures=cells)
+                        weights=done.weights, disclosures=cells, at_prior=at_prior)
     _write(done.loans, target)
     return PartSums(sums=loan_sums(done.loans), overlays=done.overlays.table,
                     overlay_warnings=tuple(done.overlays.warnings), findings=done.findings, coverage=coverage,
-                    file=str(target), pd_path_weights=weights, disclosures=cells)
+                    file=str(target), pd_path_weights=weights, disclosures=cells, at_prior=at_prior)
 
 
 def finish_part(computed: PartSums, *, config: RunConfig) -> PartSums:
@@ -281,6 +296,9 @@ class BookRun:
     pd_paths: pd.DataFrame = dataclasses.field(default_factory=pd.DataFrame)
     #: the disclosure tables' cells of the whole book (:func:`allowance.disclosure.add_cents`)
     disclosures: dict[str, pd.DataFrame] = dataclasses.field(default_factory=dict)
+    #: the book's modelled ECL per framework at the prior run's assumptions, in tape order
+    #: (:func:`compute_part`'s ``prior``; empty when not asked for)
+    at_prior: dict[str, np.ndarray] = dataclasses.field(default_factory=dict)
 
 
 def _fresh_folder(folder: Path, create: bool = True) -> None:
@@ -298,12 +316,15 @@ def _fresh_folder(folder: Path, create: bool = True) -> None:
 def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLike, *,
              map: Map = builtins.map, chunk_size: int = engine.CHUNK_SIZE,
              check_tape: Callable[[intake.IntakeResult, float], None] | None = None,
-             progress: Callable[[str, int, int], object] | None = None) -> BookRun:
+             progress: Callable[[str, int, int], object] | None = None,
+             prior_config: RunConfig | None = None) -> BookRun:
     """Read, validate and compute a Parquet tape part by part through ``map``; the loan detail
     goes to ``folder`` (absent or empty; reachable at this path from every worker).
 
     ``check_tape(intake, accepted_balance)`` runs once the tape is validated and before any
     loan is computed (the API's tie-out to the ledger, which may stop the run).
+    ``prior_config``: the prior run's configuration, at which each part is computed too where
+    it is computed (:func:`compute_part`'s ``prior``), into ``at_prior``.
     """
     told = progress or (lambda phase, done, total: None)
     folder = Path(folder)
@@ -311,8 +332,8 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
     told("read", 0, 1)
     layout = tape_layout(path, config.assumptions.run.max_input_mb)
     repeated = repeated_ids(layout, config, map)
-    facts = list(map(functools.partial(part_facts, config=config, repeated=repeated, headers=layout.headers),
-                     layout.parts))
+    facts = list(map(functools.partial(part_facts, config=config, repeated=repeated, headers=layout.headers,
+                                       prior_config=prior_config), layout.parts))
     taken = dataclasses.replace(combine(layout, [f.validated for f in facts], config),
                                 accepted_rows=sum(f.accepted_rows for f in facts))
     taken.require_accepted()
@@ -323,11 +344,14 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
     accepted = [f for f in facts if f.accepted_rows]
     prep = engine.prepare(config, max(f.months for f in accepted), max(f.max_age for f in accepted),
                           loans=taken.accepted_rows)  # the book's size chooses the loop, as in one process
+    # the book's tables at the prior assumptions, as a rerun of the whole tape would make them
+    prior = None if prior_config is None else engine.prepare(
+        prior_config, max(f.prior_months for f in accepted), max(f.max_age for f in accepted), loans=taken.accepted_rows)
     _fresh_folder(folder)
     parts: list[PartSums] = []
     done = 0
     work = functools.partial(compute_part, prep=prep, repeated=repeated, headers=layout.headers, folder=str(folder),
-                             chunk_size=chunk_size)
+                             chunk_size=chunk_size, prior=prior)
     for part, result in zip(layout.parts, map(work, layout.parts)):
         parts.append(result)
         done += part.rows
@@ -344,10 +368,12 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
             warnings = staging.pd_ratio_lines(cover) + warnings
     findings = [p.findings for p in parts if len(p.findings)]
     pd_paths = pd_path_from(np.sum([p.pd_path_weights for p in parts], axis=0), prep)
+    pieces = [p.at_prior for p in parts if p.at_prior]
+    at_prior = {c: np.concatenate([p[c] for p in pieces]) for c in (pieces[0] if pieces else {})}
     return BookRun(layout=layout, intake=taken, accepted_balance=balance, prep=prep,
                    loans=_book_frame([p.sums for p in parts]), overlays=overlays,
                    findings=pd.concat(findings, ignore_index=True) if findings else pd.DataFrame(),
                    warnings=warnings, files=tuple(p.file for p in parts), pd_paths=pd_paths,
-                   disclosures=disclosure.add_cents([p.disclosures for p in parts]))
+                   disclosures=disclosure.add_cents([p.disclosures for p in parts]), at_prior=at_prior)
 
 

@@ -171,30 +171,34 @@ def test_a_book_whose_loan_detail_is_not_whole_is_refused_naming_the_file(prior_
 
 def test_a_book_computed_part_by_part_with_a_prior_run_explains_its_movement(book, prior_book):
     """``run TAPE.parquet --loans-parquet DIR --prior PRIOR``: the movement is made once the
-    parts are written, this run's loans read back from its Parquet detail. The tape is not
-    computed again at the prior assumptions, so its movement is the one ``compare`` gives
-    between the prior run and the same quarter run in one process (assumption changes in
-    remeasurement, said so), loan by loan; the summary workbook carries the movement and the
-    journal, and movement.csv is written (reference: allowance.compare of the in-process runs)."""
+    parts are written, this run's loans read back from its Parquet detail, each part computed at
+    the prior run's assumptions too (the demo's last quarter: another model). Its
+    ``movement.csv`` and ``movement_loans.csv`` are those of the same tape run in one process
+    with ``--prior``, byte for byte, assumption changes isolated (reference: that run); the
+    summary workbook carries the movement and the journal."""
     from tests.books import DEMO, MANIFEST
 
     folder, alone, _ = book
     charge_offs = DEMO / MANIFEST["current"]["charge_offs"]
-    done = CliRunner().invoke(app, ["run", str(folder / "tape.parquet"), "-a", str(DEMO_ASSUMPTIONS),
-                                    "--accept-ledger-difference", "--no-sensitivities", "--out", str(folder / "moved"),
-                                    "--loans-parquet", str(folder / "moved-detail"), "--prior", str(prior_book / "alone"),
-                                    "--charge-offs", str(charge_offs)], catch_exceptions=False)
-    assert done.exit_code == 0, done.output
-    assert "not computed again at the prior run's assumptions" in done.output
-    done = CliRunner().invoke(app, ["compare", str(prior_book / "alone"), str(folder / "alone"), "--charge-offs",
-                                    str(charge_offs), "--out", str(folder / "compared")], catch_exceptions=False)
-    assert done.exit_code == 0, done.output
+    common = ["-a", str(DEMO_ASSUMPTIONS), "--accept-ledger-difference", "--no-sensitivities",
+              "--prior", str(prior_book / "alone"), "--charge-offs", str(charge_offs)]
+    for out, more in (("moved", ["--loans-parquet", str(folder / "moved-detail")]), ("in-process", [])):
+        done = CliRunner().invoke(app, ["run", str(folder / "tape.parquet"), *common, "--out", str(folder / out),
+                                        *more], catch_exceptions=False)
+        assert done.exit_code == 0, done.output
+    assert "could not be applied" not in done.output
     for name in ("movement.csv", "movement_loans.csv"):
-        assert (folder / "moved" / name).read_bytes() == (folder / "compared" / name).read_bytes(), name
+        assert (folder / "moved" / name).read_bytes() == (folder / "in-process" / name).read_bytes(), name
     lines = pd.read_csv(folder / "moved" / "movement_loans.csv")
     assert len(lines) >= len(alone.loans) and set(lines["framework"]) == {"ifrs9", "cecl"}
+    moved = pd.read_csv(folder / "moved" / "movement.csv")
+    assert moved.loc[moved["line"] == "assumptions", "amount"].abs().sum() > 0  # isolated, and not nothing
     sheets = load_workbook(folder / "moved" / "summary.xlsx", read_only=True).sheetnames
     assert "Movement" in sheets and "Journal" in sheets
+    import json
+
+    record = json.loads((folder / "moved" / "run.json").read_text(encoding="utf-8"))
+    assert record["at_prior_assumptions"].startswith("each part of the book computed at the prior run's")
 
 
 def test_a_book_whose_prior_run_has_its_model_isolates_the_assumption_lines(book, tmp_path):

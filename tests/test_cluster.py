@@ -262,3 +262,26 @@ def test_run_loans_parquet_on_a_cluster_through_the_command_line(tmp_path):
                                          for fw, label in (("ifrs9", "IFRS 9"), ("cecl", "CECL"))}
     assert record["loans"] == 300 and record["loan_detail"] == str(tmp_path / "detail")
     assert (tmp_path / "out" / "summary.xlsx").exists() and (tmp_path / "out" / "disclosure_ifrs7_35m.csv").exists()
+
+
+def test_a_book_with_a_prior_run_computes_its_parts_at_the_prior_assumptions_on_the_workers(tmp_path):
+    """``--loans-parquet`` with ``--prior`` on a local cluster: the parts are computed at the
+    prior run's assumptions too where they are computed (the demo's last quarter, another model),
+    and the movement is the in-process run's with ``--prior``, loan by loan (reference: that
+    run)."""
+    import pandas as pd
+
+    from tests.books import DEMO, MANIFEST
+
+    api.run(DEMO / MANIFEST["prior"]["tape"], DEMO / MANIFEST["prior"]["assumptions"],
+            sensitivities=False).write(tmp_path / "prior")
+    whole, _ = _parquet_book(tmp_path / "book")
+    alone = api.run(whole, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False,
+                    prior=tmp_path / "prior")
+    with distributed.Client(processes=False, n_workers=2, threads_per_worker=1, dashboard_address=None) as client:
+        book = api.run(whole, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False,
+                       prior=tmp_path / "prior", map=DaskMap(client), loans_parquet=tmp_path / "detail")
+        assert "compute_part" in client.cluster.scheduler.task_prefixes
+    assert list(book.movement) == list(alone.movement) == ["ifrs9", "cecl"]
+    for fw, moved in alone.movement.items():
+        pd.testing.assert_frame_equal(book.movement[fw].loans, moved.loans)

@@ -62,7 +62,7 @@ from allowance.schemas import LoanRecord, RunConfig
 __all__ = [
     "CHUNK_SIZE", "IN_PROCESS_CHUNK_SIZE", "MODELLED_CHUNK_SIZE", "ChunkResult", "EngineResult", "LoanTerms", "Map", "PartResult", "Prepared", "Progress",
     "SegmentTable", "book_wide_overlays", "loan_schedule", "loan_terms", "overlaid", "prepare", "roll_rate_table",
-    "max_age", "modelled", "two_at_a_time", "only_weights_differ", "same_model", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
+    "max_age", "modelled", "modelled_with", "two_at_a_time", "only_weights_differ", "same_model", "same_stages", "overlay_part", "reversion_view", "run", "run_chunk", "run_part", "scenario_summary", "segment_table", "tape_months",
 ]
 
 CHUNK_SIZE = 250_000
@@ -464,10 +464,20 @@ def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int | None = 
     # what the whole-tape steps above freed stays in this thread's heap, where the chunk threads
     # cannot reuse it: handed back before they make their own (a million loans: some 90 MB)
     give_back()
+    known = stages_from[1] if stages_from is not None and same_stages(stages_from[0], config) else None
+    return pd.DataFrame({"loan_id": tape["loan_id"].array, **modelled_with(tape, prep, known, chunk_size=chunk_size,
+                                                                          map=map)}, copy=False)
+
+
+def modelled_with(tape: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | None = None, *,
+                  chunk_size: int = MODELLED_CHUNK_SIZE, map: Map = builtins.map) -> dict[str, np.ndarray]:
+    """:func:`modelled`'s figures from tables already prepared (a part of a book computed part
+    by part, with the book's tables): ``ecl_<framework>_modelled`` rounded to cents, in tape
+    order; ``stages`` (``stage``, ``poci`` in tape order) taken instead of staging again."""
     chunks = list(_chunks(tape, chunk_size))
     given = [None] * len(chunks)
-    if stages_from is not None and prep.staged is not None and same_stages(stages_from[0], config):
-        known = stages_from[1][["stage", "poci"]]
+    if stages is not None and prep.staged is not None:
+        known = stages[["stage", "poci"]]
         given = [known.iloc[i * chunk_size: i * chunk_size + len(chunk)].set_axis(chunk.index)
                  for i, chunk in enumerate(chunks)]
     # each chunk's figures rounded into the book's columns as the chunk comes back, the ids
@@ -479,7 +489,7 @@ def modelled(tape: pd.DataFrame, config: RunConfig, *, chunk_size: int | None = 
             into = figures.setdefault(c, np.empty(len(tape), dtype=np.float64))
             np.round(part[c].to_numpy(dtype=np.float64), CENT_DECIMALS, out=into[start: start + len(part)])
         start += len(part)
-    return pd.DataFrame({"loan_id": tape["loan_id"].array, **figures}, copy=False)
+    return figures
 
 
 @dataclass(frozen=True)
