@@ -51,6 +51,23 @@ def _from_interrupt(error: BaseException) -> bool:
 #: ``demo`` computes small books, and ``backtest`` and ``compare`` read finished runs: none
 #: of them needs the compiled loop.
 _COMPUTING = frozenset({"run"})
+#: The commands that read no file with Arrow (and load no numpy): the others leave Ctrl-C to
+#: this module, not to Arrow (:func:`_ctrl_c_is_ours`).
+_NO_ARROW = frozenset({"init", "version"})
+
+
+def _ctrl_c_is_ours() -> None:
+    """Switch off Arrow's own Ctrl-C handling, so that an interruption reaches :func:`main`.
+
+    Arrow sets a signal handler of its own for the length of a long read and stops the read
+    from a helper thread; a Ctrl-C that arrived as such a read began now and then left the
+    process waiting for ever (the tests' Ctrl-C at start-up hung about once in 60 tries on a
+    loaded machine, a thread of the process blocked on Arrow's signal pipe). Without it the
+    signal is Python's: the read in progress finishes (a block of a streamed file, a row
+    group) and the interruption is raised then, one line and exit 130."""
+    import pyarrow.lib
+
+    pyarrow.lib.enable_signal_handlers(False)
 
 
 def _large_book(args: list[str]) -> bool:
@@ -71,6 +88,8 @@ def main() -> None:
         from allowance import aside
 
         aside.ALLOWED = True  # a workbook may be written by a forked copy (allowance.aside)
+        if sys.argv[1:2] and sys.argv[1] not in _NO_ARROW and not sys.argv[1].startswith("-"):
+            _ctrl_c_is_ours()
         if sys.argv[1:2] and sys.argv[1] in _COMPUTING and _large_book(sys.argv[2:3]):
             from allowance import jitcache
 
