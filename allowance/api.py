@@ -674,7 +674,13 @@ def _run_book(source: Path | pd.DataFrame, config: RunConfig, folder: Path, *, m
     book = partitioned.run_book(source, config, folder, check_tape=tied, progress=progress, prior_config=prior_config,
                                 **({"map": map} if map is not None else {}),
                                 **({"chunk_size": chunk_size} if chunk_size is not None else {}))
-    warnings = [*book.intake.notes, *book.warnings,
+    # the columns the data dictionary does not know go to the Parquet detail, not to a loans.csv
+    from allowance.intake.results import extra_columns_note
+
+    extra = extra_columns_note(book.intake.extra_columns) if book.intake.extra_columns else None
+    notes = [extra_columns_note(book.intake.extra_columns, into="the loan detail's Parquet files")
+             if note == extra else note for note in book.intake.notes]
+    warnings = [*notes, *book.warnings,
                 f"the loan detail is in {folder} (Parquet, one file per part of the tape); summary.xlsx is made "
                 "from the sums the parts sent back, and no reserve.xlsx is written for a book computed part by part "
                 "(its loan sheet and schedules need the loans themselves)"]

@@ -186,6 +186,9 @@ def test_a_book_computed_part_by_part_with_a_prior_run_explains_its_movement(boo
         done = CliRunner().invoke(app, ["run", str(folder / "tape.parquet"), *common, "--out", str(folder / out),
                                         *more], catch_exceptions=False)
         assert done.exit_code == 0, done.output
+        # the tape's columns the data dictionary does not know: said to go where they go
+        into = "the loan detail's Parquet files" if more else "loans.csv"
+        assert f"carried through to {into} untouched: 'original_amount', 'branch'" in done.output
     assert "could not be applied" not in done.output
     for name in ("movement.csv", "movement_loans.csv"):
         assert (folder / "moved" / name).read_bytes() == (folder / "in-process" / name).read_bytes(), name

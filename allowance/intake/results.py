@@ -156,8 +156,9 @@ class TieOut:
     explanation: str
 
 
-def extra_columns_note(columns: tuple[str, ...], shown: int = 10) -> str:
-    """One line naming the columns that are not in the data dictionary (the first ``shown``).
+def extra_columns_note(columns: tuple[str, ...], shown: int = 10, into: str = "loans.csv") -> str:
+    """One line naming the columns that are not in the data dictionary (the first ``shown``),
+    carried through ``into`` the loan detail (a book computed part by part: its Parquet files).
 
     Examples
     --------
@@ -170,7 +171,7 @@ def extra_columns_note(columns: tuple[str, ...], shown: int = 10) -> str:
     names = column_list(columns, shown)
     verb = "is" if count == 1 else "are"
     return (f"{count:,} column{'s' if count > 1 else ''} {verb} not in the data dictionary and {verb} carried "
-            f"through to loans.csv untouched: {names}")
+            f"through to {into} untouched: {names}")
 
 
 def column_list(columns: tuple[str, ...], shown: int = 10) -> str:
