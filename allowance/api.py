@@ -732,9 +732,9 @@ def _book_movement(folder: Path, config: RunConfig, prior: str | os.PathLike | R
             and engine.same_model(prior_config, config))
     rerun = current if same else None
     if at_prior:  # the parts computed again: their figures beside this run's ids, in the same order
-        ids = current.ids["loan_id"] if isinstance(current, intake.LoanFigures) else current["loan_id"].array
-        rerun = pd.DataFrame({"loan_id": pd.array(ids, dtype=pd.ArrowDtype(ids.type)) if hasattr(ids, "type") else ids,
-                              **at_prior}, copy=False)
+        ids = (pd.arrays.ArrowExtensionArray(current.ids["loan_id"]) if isinstance(current, intake.LoanFigures)
+               else current["loan_id"].array)
+        rerun = pd.DataFrame({"loan_id": ids, **at_prior}, copy=False)
     prior_frameworks = _prior_frameworks(previous.record)
     movements = reconcile.compare_runs(
         previous.loans, current, charge_offs=cos, current_at_prior_assumptions=rerun,

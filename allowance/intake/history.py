@@ -298,10 +298,15 @@ def read_prior_run(folder: Path, role: str = "prior", columns: Collection[str] |
         raise InputFileError(f"cannot be read as CSV ({err})", file=loans_path) from err
     if "loan_id" not in loans.columns:
         raise InputFileError("has no loan_id column", file=loans_path)
+    return PriorRun(loans=_numbers_as_float(loans), record=record, source=loans_path)
+
+
+def _numbers_as_float(loans: pd.DataFrame) -> pd.DataFrame:
+    """Every numeric column of a run's loans as float64 (in place), as :func:`read_prior_run` gives them."""
     for name in loans.columns:
         if pd.api.types.is_integer_dtype(loans[name]) or pd.api.types.is_float_dtype(loans[name]):
             loans[name] = loans[name].astype(np.float64)
-    return PriorRun(loans=loans, record=record, source=loans_path)
+    return loans
 
 
 def _detail_frame(folder: Path, columns: Collection[str] | None) -> pd.DataFrame:
@@ -320,11 +325,7 @@ def _detail_frame(folder: Path, columns: Collection[str] | None) -> pd.DataFrame
     # text as the CSV gives it: dates as their ISO text, as a loans.csv holds them
     table = pa.table({c: table[c].cast(pa.large_string()) if pa.types.is_temporal(table[c].type) else table[c]
                       for c in table.column_names})
-    loans = table.to_pandas()
-    for name in loans.columns:
-        if pd.api.types.is_integer_dtype(loans[name]) or pd.api.types.is_float_dtype(loans[name]):
-            loans[name] = loans[name].astype(np.float64)
-    return loans
+    return _numbers_as_float(table.to_pandas())
 
 
 #: how :func:`read_prior_figures` keeps a column: ``ids`` Arrow text as read; ``codes`` text as
@@ -396,12 +397,10 @@ def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str 
         header = _header(loans_path)
     except (OSError, ValueError, pa.ArrowException):
         return None
-    if "loan_id" not in header or len(set(header)) != len(header):
+    columns = _figure_columns(header, kinds)
+    if columns is None:
         return None
-    kinds = {**{c: k for c, k in kinds.items() if c in header}, "loan_id": "ids"}
-    names = [c for c in header if c in kinds]
-    typed = {c: pa.large_string() if kinds[c] in ("ids", "codes") else pa.bool_() if kinds[c] == "flag" else pa.float64()
-             for c in names}
+    kinds, names, typed = columns
     options = pacsv.ConvertOptions(include_columns=names, column_types=typed, null_values=[""],
                                    strings_can_be_null=True, quoted_strings_can_be_null=True,
                                    true_values=["true", "True", "TRUE"], false_values=["false", "False", "FALSE"])
@@ -418,6 +417,22 @@ def read_prior_figures(folder: Path, kinds: Mapping[str, FigureKind], role: str 
     except (OSError, ValueError, pa.ArrowException):
         return None  # read_prior_run reads it again, and names what is wrong
     return PriorFigures(loans=taken.figures(tuple(names)), record=record, source=loans_path)
+
+
+def _figure_columns(header: list[str], kinds: Mapping[str, FigureKind]) -> tuple[dict, list[str], dict] | None:
+    """The columns of ``kinds`` a run's loans have (``loan_id`` always, as ``ids``), in the
+    file's order, and the Arrow type each is read as (text for ids and codes, booleans for
+    flags, float64 for the rest); None when the header is not one this reads (no
+    ``loan_id``, a name twice)."""
+    import pyarrow as pa
+
+    if "loan_id" not in header or len(set(header)) != len(header):
+        return None
+    kinds = {**{c: k for c, k in kinds.items() if c in header}, "loan_id": "ids"}
+    names = [c for c in header if c in kinds]
+    typed = {c: pa.large_string() if kinds[c] in ("ids", "codes") else pa.bool_() if kinds[c] == "flag" else pa.float64()
+             for c in names}
+    return kinds, names, typed
 
 
 def read_detail_figures(folder: Path, kinds: Mapping[str, FigureKind]) -> LoanFigures | pd.DataFrame:
@@ -438,12 +453,10 @@ def _detail_figures(folder: Path, kinds: Mapping[str, FigureKind], record: dict)
         header = dataset.schema.names
     except (OSError, ValueError, pa.ArrowException):
         return None
-    if "loan_id" not in header or len(set(header)) != len(header):
+    columns = _figure_columns(header, kinds)
+    if columns is None:
         return None
-    kinds = {**{c: k for c, k in kinds.items() if c in header}, "loan_id": "ids"}
-    names = [c for c in header if c in kinds]
-    typed = {c: pa.large_string() if kinds[c] in ("ids", "codes") else pa.bool_() if kinds[c] == "flag" else pa.float64()
-             for c in names}
+    kinds, names, typed = columns
     taken = _Taken(kinds)
     try:
         for batch in dataset.to_batches(columns=names, use_threads=False):
