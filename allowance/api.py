@@ -235,6 +235,14 @@ def _prior_config(record: Mapping | None, config: RunConfig) -> RunConfig | None
         return None
 
 
+#: With a prior run whose model differs from this run's, this tape at the prior assumptions is
+#: computed in the run's own pass (each chunk at the prior tables right after it:
+#: :func:`allowance.engine.run`'s ``modelled_under``) rather than in a second pass over the
+#: tape (:func:`allowance.engine.modelled`); the same figures to the bit. False: the second
+#: pass (the tests' reference).
+_PRIOR_IN_THE_SAME_PASS = True
+
+
 def _rerun_at_prior_assumptions(tape: pd.DataFrame, prior_config: RunConfig | None,
                                 compute: Callable[..., pd.DataFrame]) -> pd.DataFrame | None:
     """This quarter's tape under last quarter's assumptions (:func:`_prior_config`): isolates
@@ -505,13 +513,15 @@ def run(
             prior_model = "run"
         elif engine.only_weights_differ(prior_config, config):
             prior_model = "weights"
+    if prior_config is not None and prior_model is None and _PRIOR_IN_THE_SAME_PASS:
+        prior_model = "beside"  # each chunk computed at the prior tables too, right after it
     # the one-scenario sensitivities: each scenario alone at weight 1, weighted again in the same
     # pass (the loop's per-scenario losses and the stages do not depend on the weights)
     names = list(config.assumptions.scenarios)
     alone = names if sensitivities and len(names) > 1 else []
     result = compute(taken.accepted, config, **({"reweighted": reweighted} if reweighted else {}),
                      **({"alone": alone} if alone else {}),
-                     **({"modelled_under": [prior_config]} if prior_model == "weights" else {}))
+                     **({"modelled_under": [prior_config]} if prior_model in ("weights", "beside") else {}))
     inputs = list(config.inputs)
 
     sensitivity = pd.DataFrame()
@@ -547,6 +557,7 @@ def run(
 
     movements = None
     rerun = False  # whether this tape was rerun at the prior run's assumptions
+    rerun_why = ""  # why not, when the engine said
     prior_loans = None  # the prior run's loans the vintage disclosure reads (with charge-offs)
     cos = None
     if prior is not None:
@@ -570,8 +581,9 @@ def run(
                                                        **{k: v for k, v in options.items() if k != "progress"}))
         elif prior_model == "run":  # the figures a second pass would give, without it
             at_prior = _modelled_of(result.loans, prior_config.frameworks)
-        else:  # weighted again in this run's pass
-            at_prior, result = result.modelled_under[0], dataclasses.replace(result, modelled_under=())
+        else:  # weighted again in this run's pass, or computed in it at the prior tables
+            at_prior, rerun_why = result.modelled_under[0], result.modelled_under_why[0]
+            result = dataclasses.replace(result, modelled_under=(), modelled_under_why=())
         if isinstance(source, Path):
             # nothing after the second pass reads the tape's accepted rows: they go before the
             # movement is made and the outputs are written, read again from the file if asked for
@@ -607,12 +619,16 @@ def run(
                             f"prior run did not compute {' or '.join(unmatched)} (it computed "
                             f"{', '.join(prior_frameworks) or 'no framework it records'})")
     if movements is not None and not rerun:
-        warnings.append("the prior run's assumptions could not be applied to this tape; "
+        because = f" ({rerun_why})" if rerun_why else ""
+        warnings.append(f"the prior run's assumptions could not be applied to this tape{because}; "
                         "assumption changes are included in remeasurement")
     findings = pd.concat([taken.findings, result.findings], ignore_index=True)
     taken = taken.replaced(findings=findings)  # accepted rows let go (a prior run's) stay so
     # how the movement's figures at the prior assumptions were made, for whoever reviews it
     how = None if not rerun else ("a second pass at the prior run's assumptions" if prior_model is None else
+                                  "this run's pass, each chunk computed at the prior run's assumptions too (their "
+                                  "own tables; this run's stages where the staging rules are the same)"
+                                  if prior_model == "beside" else
                                   "this run's own modelled figures: the prior run's assumptions differ from this "
                                   "run's only in what reaches no modelled figure" if prior_model == "run" else
                                   "this run's pass weighted again: the prior run's assumptions differ from this "

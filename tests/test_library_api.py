@@ -279,17 +279,18 @@ def _relgd(data: dict) -> None:
     data["segments"]["personal"]["lgd"] = 0.5
 
 
-@pytest.mark.parametrize("change, second_pass", [(None, False), (_reweigh, False), (_relgd, True)],
+@pytest.mark.parametrize("change, how", [(None, "this run's own"), (_reweigh, "this run's pass weighted again"),
+                                         (_relgd, "this run's pass, each chunk computed at the prior")],
                          ids=["same model", "other weights", "other LGD"])
-def test_the_movement_at_prior_assumptions_that_give_the_loop_this_runs_inputs_needs_no_second_pass(
-        change, second_pass, monkeypatch):
+def test_the_movement_at_prior_assumptions_needs_no_second_pass(change, how, monkeypatch):
     """The movement's split between remeasurement and assumption changes needs this tape at the
     prior run's assumptions. When those differ from this run's only in what reaches no
     modelled figure (label, ledger balance) the figures are this run's own; when only in the
-    scenario weights, they are weighted again in the same pass. Reference: the same run with
-    the second pass forced (engine.modelled), whose movement must be the same to the cent,
-    loan by loan; the second pass runs only where the model differs."""
-    from allowance import engine
+    scenario weights, they are weighted again in the same pass; otherwise each chunk of the
+    pass is computed at the prior tables too. Reference: the same run with the second pass
+    forced (engine.modelled), whose movement must be the same to the cent, loan by loan; no
+    run but the forced one makes a second pass."""
+    from allowance import api, engine
 
     part = _tape_frame().iloc[::5]
     before = _prior_under(change, part)
@@ -297,20 +298,20 @@ def test_the_movement_at_prior_assumptions_that_give_the_loop_this_runs_inputs_n
     real = engine.modelled
     monkeypatch.setattr(engine, "modelled", lambda *a, **k: calls.append(1) or real(*a, **k))
     now = allowance.run(part, books.DEMO_ASSUMPTIONS, prior=before, sensitivities=False, accept_ledger_difference=True)
-    assert len(calls) == int(second_pass)
+    assert not calls
     monkeypatch.setattr(engine, "same_model", lambda *a: False)
     monkeypatch.setattr(engine, "only_weights_differ", lambda *a: False)
+    monkeypatch.setattr(api, "_PRIOR_IN_THE_SAME_PASS", False)
     forced = allowance.run(part, books.DEMO_ASSUMPTIONS, prior=before, sensitivities=False,
                            accept_ledger_difference=True)
-    assert len(calls) == int(second_pass) + 1
+    assert len(calls) == 1
     assert list(now.movement) == list(forced.movement) == ["ifrs9", "cecl"]
     for fw, moved in now.movement.items():
         pd.testing.assert_frame_equal(moved.to_long(), forced.movement[fw].to_long())
         pd.testing.assert_frame_equal(moved.loans, forced.movement[fw].loans)
     assert not any("could not be applied" in w for w in now.warnings)
     pd.testing.assert_frame_equal(now.loans, forced.loans)
-    assert now.record["at_prior_assumptions"].startswith(  # the run record says how they were made
-        "a second pass" if second_pass else "this run's own" if change is None else "this run's pass weighted again")
+    assert now.record["at_prior_assumptions"].startswith(how)  # the run record says how they were made
     assert forced.record["at_prior_assumptions"].startswith("a second pass")
     lines = now.movement["cecl"].to_long()
     changed = lines.loc[lines["line"].str.contains("assumption", case=False), "amount"].abs().sum()
@@ -326,7 +327,7 @@ def test_a_what_if_and_a_prior_at_other_weights_each_get_their_own_figures(what_
     too (other weights) or computed again (other LGD). Each must get its own figures: the
     what-if's comparison that of a run without a prior, the movement that of the second pass
     forced."""
-    from allowance import engine
+    from allowance import api, engine
 
     (tmp_path / "what_if.toml").write_text(what_if, encoding="utf-8")
     part = _tape_frame().iloc[::7]
@@ -341,6 +342,7 @@ def test_a_what_if_and_a_prior_at_other_weights_each_get_their_own_figures(what_
     # the prior's shortcut only is switched off (its configuration carries the prior run's label)
     monkeypatch.setattr(engine, "only_weights_differ",
                         lambda one, other: real(one, other) and one.assumptions.run.label != "the quarter before")
+    monkeypatch.setattr(api, "_PRIOR_IN_THE_SAME_PASS", False)
     forced = allowance.run(part, books.DEMO_ASSUMPTIONS, overlays=[tmp_path / "what_if.toml"], prior=before,
                            sensitivities=False, accept_ledger_difference=True)
     for fw, moved in both.movement.items():

@@ -241,8 +241,7 @@ def test_what_reaches_no_modelled_figure_leaves_the_model_the_same():
 def test_the_modelled_figures_under_other_weights_in_the_same_pass_are_a_second_passs(loop):
     """``run(..., modelled_under=[other])``: the modelled ECL under another configuration's
     weights, weighted again in this run's pass, equals the second pass :func:`engine.modelled`
-    makes under it (this run's stages), to the bit; a configuration that changes the loop is
-    refused. Reference: the second pass itself."""
+    makes under it (this run's stages), to the bit. Reference: the second pass itself."""
     tape = engine_tape(n=120)
     config = engine_config()
     data = config.assumptions.model_dump()
@@ -257,7 +256,51 @@ def test_the_modelled_figures_under_other_weights_in_the_same_pass_are_a_second_
     plain = engine.run(tape, config, loop=loop, schedule_sample=0)
     pd.testing.assert_frame_equal(result.loans, plain.loans)  # this run's own figures are untouched
     assert not result.modelled_under[0]["ecl_cecl_modelled"].equals(plain.loans["ecl_cecl_modelled"])
-    changed = engine_config(scenarios={"base": {"weight": 0.6, "pd_multiplier": [1.0, 1.0, 1.0]},
-                                       "down": {"weight": 0.4, "pd_multiplier": [3.0, 1.5, 1.2]}})
-    with pytest.raises(ValueError, match="modelled_under configuration differs"):
-        engine.run(tape, config, modelled_under=[changed])
+    assert result.modelled_under_why == ("",)
+
+
+def _other_model(config, **changes):
+    """``config`` with assumptions changed as ``changes`` says (dotted keys)."""
+    data = config.assumptions.model_dump()
+    for key, value in changes.items():
+        *path, last = key.split(".")
+        target = data
+        for part in path:
+            target = target[part]
+        target[last] = value
+    return config.model_copy(update={"assumptions": type(config.assumptions).model_validate(data)})
+
+
+@pytest.mark.parametrize("loop", ["arrays", "compiled"])
+def test_the_modelled_figures_under_another_model_in_the_same_pass_are_a_second_passs(loop):
+    """``run(..., modelled_under=[...])`` with configurations whose model differs (another
+    scenario path and LGD; stricter staging, so the stages are its own; one whose assumptions
+    do not cover the tape's segments): each chunk is computed at each configuration's own
+    tables right after it, and the figures equal the second pass :func:`engine.modelled`
+    makes under each (this run's stages where it stages alike), to the bit, chunk size and
+    map whatever they are; the one that cannot be applied gives None and its reason, and
+    this run's own figures are untouched. Reference: the second pass itself."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    tape = engine_tape(n=150)
+    config = engine_config()
+    model = _other_model(config, **{"scenarios.down.pd_multiplier": [3.0, 1.5, 1.2], "segments.auto.lgd": 0.5})
+    stricter = _other_model(config, **{"ifrs9.sicr_backstop_dpd": 10})
+    narrower = _other_model(config, segments={k: v for k, v in config.assumptions.model_dump()["segments"].items()
+                                              if k != "cards"})
+    assert not engine.only_weights_differ(config, model) and engine.same_stages(config, model)
+    assert not engine.same_stages(config, stricter)
+    plain = engine.run(tape, config, loop=loop, schedule_sample=0)
+    with ThreadPoolExecutor(2) as pool:
+        for chunk_size, chunk_map in ((None, None), (40, None), (40, pool.map)):
+            result = engine.run(tape, config, modelled_under=[model, stricter, narrower], loop=loop, schedule_sample=0,
+                                chunk_size=chunk_size, map=chunk_map)
+            pd.testing.assert_frame_equal(result.loans, plain.loans)
+            for other, got in zip((model, stricter), result.modelled_under):
+                second = engine.modelled(tape, other, stages_from=(config, result.loans), loop=loop)
+                pd.testing.assert_frame_equal(got, second, check_index_type=False)
+            assert result.modelled_under[2] is None and "cards" in result.modelled_under_why[2]
+            assert result.modelled_under_why[:2] == ("", "")
+    # the figures move with the model and with the stages
+    assert not result.modelled_under[0]["ecl_ifrs9_modelled"].equals(plain.loans["ecl_ifrs9_modelled"])
+    assert not result.modelled_under[1]["ecl_ifrs9_modelled"].equals(plain.loans["ecl_ifrs9_modelled"])

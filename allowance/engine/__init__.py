@@ -46,7 +46,7 @@ import pandas as pd
 
 from allowance import overlays, scenarios, staging
 from allowance.memory import give_back
-from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, modelled_chunk, run_chunk
+from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, modelled_chunk, modelled_columns, run_chunk
 from allowance.engine.tables import Prepared, SegmentTable, age_months, prepare, segment_table, tape_months
 from allowance.engine.views import (
     loan_schedule,
@@ -57,6 +57,7 @@ from allowance.engine.views import (
 )
 from allowance.engine.views import schedule_sample as _schedule_sample
 from allowance.money import CENT_DECIMALS
+from allowance.exceptions import AllowanceError
 from allowance.schemas import LoanRecord, RunConfig
 
 __all__ = [
@@ -107,8 +108,11 @@ class EngineResult:
     #: ``ecl_<fw>_modelled``, ``overlay_<fw>``, ``ecl_<fw>``, ``poci`` and (IFRS 9) ``stage``
     alone: dict[str, pd.DataFrame] = field(default_factory=dict)
     #: the modelled ECL under each configuration :func:`run` was asked for (``modelled_under``),
-    #: in order: ``loan_id, ecl_<fw>_modelled``, as :func:`modelled` gives them
-    modelled_under: tuple[pd.DataFrame, ...] = ()
+    #: in order: ``loan_id, ecl_<fw>_modelled``, as :func:`modelled` gives them; None where
+    #: that configuration's assumptions could not be applied to the tape
+    modelled_under: tuple[pd.DataFrame | None, ...] = ()
+    #: why, for each None in ``modelled_under`` (the error its assumptions gave); "" elsewhere
+    modelled_under_why: tuple[str, ...] = ()
 
 
 # --------------------------------------------------------------------------------------
@@ -294,12 +298,18 @@ def run(
         5.5.13; ASC 326-20-30-9). Each equals ``run(tape, single_scenario(config, name))``'s
         columns to the cent (:func:`allowance.reconcile.single_scenario`).
     modelled_under : configurations
-        Other configurations that differ from ``config`` only in the scenario weights and
-        what reaches no modelled figure (:func:`only_weights_differ`), whose modelled ECL per
-        framework alone comes back in ``EngineResult.modelled_under``: weighted again in the
-        same pass as ``alone`` is, the figures :func:`modelled` gives under each (what the
-        movement's remeasurement reads of this tape at the prior run's assumptions), at 8
-        bytes per loan and framework, not a second book.
+        Other configurations whose modelled ECL per framework alone comes back in
+        ``EngineResult.modelled_under``: the figures :func:`modelled` gives under each, this
+        run's stages taken where it stages alike (:func:`same_stages`; what the movement's
+        remeasurement reads of this tape at the prior run's assumptions), at 8 bytes per loan
+        and framework, not a second book. One that differs from ``config`` only in the
+        scenario weights and what reaches no modelled figure (:func:`only_weights_differ`) is
+        weighted again in the same pass, as ``alone`` is; any other is computed in the same
+        pass too, each chunk at its own tables right after the chunk itself (no second pass
+        over the tape: its chunks, their slicing and the pass's start and end are shared).
+        Where its assumptions cannot be applied to the tape (an error of the assumptions or
+        of a value), its entry is None and ``EngineResult.modelled_under_why`` says why; this
+        run's own figures are made all the same.
     loop : {"arrays", "compiled"}, optional
         How the ECL sums are computed (:func:`~allowance.engine.tables.choose_loop`): None
         (the default) chooses by the book's size, numpy for a small book and the compiled
@@ -321,20 +331,35 @@ def run(
     weights = tuple(np.asarray(other.assumptions.weights, float) for other in others)
     singles = _one_hot(config, alone)
     under = tuple(modelled_under)
-    for other in under:
-        if not only_weights_differ(config, other):
-            raise ValueError("engine.run: a modelled_under configuration differs from the run's in more than "
-                             "the scenario weights and what reaches no modelled figure")
+    # those weighted again in this pass, and those computed at their own tables beside it
+    # (prepared here, as a second pass would: their errors are theirs, not this run's)
+    again = [i for i, other in enumerate(under) if only_weights_differ(config, other)]
+    apart: list[int] = []
+    beside: list[_Beside] = []
+    why = [""] * len(under)
+    for i, other in enumerate(under):
+        if i in again:
+            continue
+        try:
+            beside.append(_Beside(prepare(other, tape_months(tape, other), max_age(tape, other), loans=len(tape),
+                                          loop=prep.loop), same_stages(config, other)))
+            apart.append(i)
+        except (AllowanceError, ValueError) as error:
+            why[i] = str(error)
     # the one-hot weights of the sensitivities, then those of each modelled_under configuration
-    extra = (*singles.values(), *(np.asarray(other.assumptions.weights, float) for other in under))
+    # weighted again
+    extra = (*singles.values(), *(np.asarray(under[i].assumptions.weights, float) for i in again))
     work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}),
                              **({"alone": extra} if extra else {}))
+    if beside:
+        work = functools.partial(_with_beside, work=work, beside=tuple(beside))
 
     if map is None:
         map, chunk_size = two_at_a_time, chunk_size or IN_PROCESS_CHUNK_SIZE
     chunks = list(_chunks(tape, chunk_size or CHUNK_SIZE))
     columns: list[list[dict[str, Any]]] = [[] for _ in range(1 + len(others))]  # this run's, then each other's
     alone_columns: list[list[dict[str, Any]]] = [[] for _ in extra]  # each weight set's modelled ECL
+    beside_columns: list[list[dict[str, Any]]] = [[] for _ in beside]  # each configuration's beside it
     findings: list[pd.DataFrame] = []
     done = 0
     for chunk, part in zip(chunks, map(work, chunks)):
@@ -347,6 +372,11 @@ def run(
             columns[i].append(_as_own(_round_money(one), own))
         for i, one in enumerate(part.alone):
             alone_columns[i].append(_round_money(one))
+        for i, one in enumerate(part.under):
+            if isinstance(one, str):  # its assumptions failed on this chunk: the configuration has no figures
+                why[apart[i]] = why[apart[i]] or one
+            elif not why[apart[i]]:
+                beside_columns[i].append(_round_money(one))
         findings.append(part.findings)
         done += len(chunk)
         if progress is not None:
@@ -367,10 +397,15 @@ def run(
         ))
     joined = {}  # its hold on the first book's joined columns goes now, not when run returns
     main, rest = results[0], results[1:]
+    made: list[pd.DataFrame | None] = [None] * len(under)
+    for i, pieces in zip(again, alone_columns[len(singles):]):
+        made[i] = _modelled_frame(pieces, tape)
+    for i, pieces in zip(apart, beside_columns):
+        made[i] = None if why[i] else _modelled_frame(pieces, tape)
     main = dataclasses.replace(
         main, alone={name: _alone(pieces, main.loans, config) for name, pieces in zip(singles, alone_columns)},
-        modelled_under=tuple(_modelled_frame(pieces, tape) for pieces in alone_columns[len(singles):]))
-    alone_columns = []
+        modelled_under=tuple(made), modelled_under_why=tuple(why))
+    alone_columns = beside_columns = made = []
     give_back()  # the chunks' pieces the book was joined from (those made on the chunk threads stay in their heaps)
     tables = {"term_structures": term_structure_table(prep), "roll_rates": roll_rate_table(config),
               "reversion": reversion_view(prep), "pd_paths": pd_path_view(tape, prep)}
@@ -381,6 +416,43 @@ def run(
                                    main.loans, prep, schedule_sample),
         reweighted=tuple(dataclasses.replace(r, **tables) for r in rest),
     )
+
+
+@dataclass(frozen=True)
+class _Beside:
+    """A configuration each chunk is also computed under (:func:`run`'s ``modelled_under``):
+    its own tables, and whether this run's stages are its stages (:func:`same_stages`)."""
+
+    prep: Prepared
+    stages: bool
+
+
+def _with_beside(chunk: pd.DataFrame, work: Callable[[pd.DataFrame], ChunkResult],
+                 beside: tuple[_Beside, ...]) -> ChunkResult:
+    """``work(chunk)``, then the chunk's modelled ECL under each configuration of ``beside``
+    (:func:`~allowance.engine.chunk.modelled_columns`, this chunk's stages where they are
+    that configuration's) into ``ChunkResult.under``: what a second pass would compute of
+    these loans, computed while they are at hand. An error of those assumptions on these
+    loans is kept as its text (the run's own figures stand; :func:`run` says why)."""
+    part = work(chunk)
+    stages = None
+    if "stage" in part.columns and any(b.stages for b in beside):
+        stages = pd.DataFrame({"stage": part.columns["stage"], "poci": part.columns["poci"]}, index=chunk.index,
+                              copy=False)
+    under: list[dict[str, np.ndarray] | str] = []
+    # in slices of MODELLED_CHUNK_SIZE loans, as a second pass takes them: the chunk's own
+    # results are held meanwhile, and a slice's working arrays are a fraction of the chunk's
+    starts = range(0, len(chunk), MODELLED_CHUNK_SIZE)
+    for b in beside:
+        try:
+            pieces = [modelled_columns(chunk.iloc[i: i + MODELLED_CHUNK_SIZE], b.prep,
+                                       stages.iloc[i: i + MODELLED_CHUNK_SIZE] if b.stages and stages is not None
+                                       else None) for i in starts]
+            under.append({c: np.concatenate([p[c] for p in pieces]) for c in pieces[0]} if len(pieces) > 1
+                         else pieces[0])
+        except (AllowanceError, ValueError) as error:
+            under.append(str(error))
+    return dataclasses.replace(part, under=tuple(under))
 
 
 def _one_hot(config: RunConfig, names: Iterable[str]) -> dict[str, np.ndarray]:
