@@ -9,6 +9,7 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 
@@ -46,6 +47,40 @@ def test_run_on_a_cluster_writes_the_in_process_loan_detail_byte_for_byte(tmp_pa
         # the chunks ran on the cluster: its scheduler has seen tasks of the chunk function
         assert "run_chunk" in cluster.scheduler.task_prefixes
     for name in ("loans.csv", "sensitivity.csv"):
+        assert (tmp_path / "spread" / name).read_bytes() == (tmp_path / "alone" / name).read_bytes()
+
+
+@pytest.mark.slow
+def test_run_prior_on_a_cluster_computes_the_prior_assumptions_in_the_same_chunks(tmp_path):
+    """``allowance run --prior --engine dask`` with last quarter's run under another model (the
+    demo's quarters): each chunk is computed at the prior run's assumptions too, on the worker
+    that computes it, and the movement files are the in-process run's byte for byte
+    (reference: the library's run in this process)."""
+    from tests.books import DEMO, MANIFEST
+
+    def head(name: str) -> Path:
+        lines = (DEMO / name).read_text(encoding="utf-8").splitlines()
+        path = tmp_path / name
+        path.write_text("\n".join(lines[:241]) + "\n", encoding="utf-8")  # 240 loans, chunks of 60
+        return path
+
+    api.run(head(MANIFEST["prior"]["tape"]), DEMO / MANIFEST["prior"]["assumptions"], sensitivities=False,
+            accept_ledger_difference=True).write(tmp_path / "prior")
+    tape = head(DEMO_TAPE.name)
+    alone = api.run(tape, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False, chunk_size=60,
+                    prior=tmp_path / "prior")
+    assert alone.record["at_prior_assumptions"].startswith("this run's pass, each chunk computed at the prior")
+    alone.write(tmp_path / "alone")
+    with distributed.LocalCluster(processes=False, n_workers=2, threads_per_worker=1, dashboard_address=None,
+                                  protocol="tcp://", host="127.0.0.1") as cluster:
+        done = subprocess.run([sys.executable, "-m", "allowance", "run", str(tape), "-a", str(DEMO_ASSUMPTIONS),
+                               "--accept-ledger-difference", "--no-sensitivities", "--prior", str(tmp_path / "prior"),
+                               "--out", str(tmp_path / "spread"), "--engine", "dask", "--scheduler",
+                               cluster.scheduler_address, "--chunk-size", "60"],
+                              capture_output=True, text=True, timeout=600, env={**os.environ, "SOURCE_DATE_EPOCH": "0"})
+        assert done.returncode == 0, done.stderr
+        assert "run_chunk_under" in cluster.scheduler.task_prefixes  # the chunks and their prior figures ran there
+    for name in ("loans.csv", "movement.csv", "movement_loans.csv"):
         assert (tmp_path / "spread" / name).read_bytes() == (tmp_path / "alone" / name).read_bytes()
 
 

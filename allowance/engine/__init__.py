@@ -352,7 +352,7 @@ def run(
     work = functools.partial(run_chunk, prep=prep, **({"reweighted": weights} if weights else {}),
                              **({"alone": extra} if extra else {}))
     if beside:
-        work = functools.partial(_with_beside, work=work, beside=tuple(beside))
+        work = functools.partial(_run_chunk_under, work=work, beside=tuple(beside))
 
     if map is None:
         map, chunk_size = two_at_a_time, chunk_size or IN_PROCESS_CHUNK_SIZE
@@ -427,7 +427,7 @@ class _Beside:
     stages: bool
 
 
-def _with_beside(chunk: pd.DataFrame, work: Callable[[pd.DataFrame], ChunkResult],
+def _run_chunk_under(chunk: pd.DataFrame, work: Callable[[pd.DataFrame], ChunkResult],
                  beside: tuple[_Beside, ...]) -> ChunkResult:
     """``work(chunk)``, then the chunk's modelled ECL under each configuration of ``beside``
     (:func:`~allowance.engine.chunk.modelled_columns`, this chunk's stages where they are
