@@ -195,7 +195,7 @@ def compute_part(part: TapePart, *, prep: engine.Prepared, repeated: dict[str, l
     returns its weights; :func:`finish_part` applies the book's allocation to it.
     ``prior``: the book's tables at the prior run's assumptions: the part's loans are computed
     at them too (:func:`allowance.engine.modelled_with`, staged as this run staged them where
-    the two stage alike), the second pass a movement isolates assumption changes with, and
+    the two stage alike): what a movement isolates assumption changes with, and
     their modelled ECL per framework comes back in ``at_prior`` (8 bytes a loan and framework).
     """
     validated = read_part(part, prep.config, repeated, headers=headers)

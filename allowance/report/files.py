@@ -493,7 +493,7 @@ class OutputFolder:
     discards the partial folder: the previous outputs stay as they were.
 
     The command line opens one for a run with a movement (``run --prior``), where the
-    second pass and the movement leave a core partly idle that ``loans.csv`` can use.
+    movement leaves a core partly idle that ``loans.csv`` can use.
     """
 
     def __init__(self, out_dir: Path) -> None:

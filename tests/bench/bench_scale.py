@@ -24,8 +24,8 @@ run                    Arrow floor: read the tape and write      2.5 x
 run --prior            the plain run                              1.5 x
 run --prior, peak      the plain run's peak resident memory       1 x
 run --prior, the prior (its assumptions this quarter's but its date, label and ledger
-  run under this        balance: no second pass; then other scenario weights too: weighted
-  quarter's model)      again in the same pass), printed beside the line above
+  run under this        balance: nothing computed at them; then other scenario weights
+  quarter's model)      too: weighted again in the pass), printed beside the line above
 run, summed PSS        (its processes together, untimed run)      1.5 GB
 compare                the plain run                              1.5 x
 what-if (weights)      the plain run                              0.5 x extra
