@@ -447,3 +447,39 @@ def test_run_with_a_prior_writes_the_same_loan_detail_begun_while_the_movement_i
     assert (moved / "loans.csv").read_bytes() == (plain / "loans.csv").read_bytes()
     assert (moved / "movement.csv").exists() and (moved / "movement_loans.csv").exists()
     assert not [p.name for p in tmp_path.iterdir() if p.name.startswith(".")]  # no partial folder, no lock
+
+
+@pytest.mark.slow
+def test_a_prior_run_whose_assumptions_do_not_cover_this_tape_says_why(tmp_path):
+    """``run --prior`` where last quarter's assumptions lack a segment this quarter's tape holds
+    (the demo's quarters, last quarter without its commercial real estate loans and their
+    segment): the run goes on, its movement puts the assumption changes in remeasurement, and
+    the warning says why, naming the segment and the tape's row (common practice, no source:
+    an assumption change that cannot be isolated is disclosed as such, not dropped)."""
+    import allowance
+
+    prior_tape = pd.read_csv(DEMO / MANIFEST["prior"]["tape"], dtype=str)
+    prior_tape = prior_tape[prior_tape["segment"] != "cre"].iloc[::20]
+    shutil.copytree(DEMO, tmp_path / "demo")  # the assumptions name their matrix files beside them
+    lines, keep = [], True
+    for line in (DEMO / MANIFEST["prior"]["assumptions"]).read_text(encoding="utf-8").splitlines():
+        if line.startswith("["):
+            keep = not line.startswith("[segments.cre")
+        if keep:
+            lines.append(line)
+    blocks = "\n".join(lines).split("[[overlays]]")  # and the overlay on that segment
+    text = blocks[0] + "".join("[[overlays]]" + b for b in blocks[1:] if 'segment = "cre"' not in b)
+    data = tmp_path / "demo" / "without_cre.toml"
+    data.write_text(text + "\n", encoding="utf-8")
+    allowance.run(prior_tape, data, sensitivities=False, accept_ledger_difference=True).write(tmp_path / "prior")
+    tape = pd.read_csv(TAPE, dtype=str)
+    tape = tape[tape["loan_id"].isin(prior_tape["loan_id"]) | (tape["segment"] == "cre")].iloc[:400]
+    assert (tape["segment"] == "cre").any()
+    tape.to_csv(tmp_path / "tape.csv", index=False)
+    result = invoke("run", tmp_path / "tape.csv", "--assumptions", ASSUMPTIONS, "--prior", tmp_path / "prior",
+                    "--no-sensitivities", "--accept-ledger-difference", "--out", tmp_path / "now")
+    assert result.exit_code == 0, result.output
+    assert "the prior run's assumptions could not be applied to this tape (" in result.output
+    assert "segment 'cre'" in result.output and "assumption changes are included in remeasurement" in result.output
+    record = json.loads((tmp_path / "now" / "run.json").read_text())
+    assert "at_prior_assumptions" not in record and record["movement"]
