@@ -304,3 +304,5 @@ def test_the_modelled_figures_under_another_model_in_the_same_pass_are_a_second_
     # the figures move with the model and with the stages
     assert not result.modelled_under[0]["ecl_ifrs9_modelled"].equals(plain.loans["ecl_ifrs9_modelled"])
     assert not result.modelled_under[1]["ecl_ifrs9_modelled"].equals(plain.loans["ecl_ifrs9_modelled"])
+    empty = engine.run(tape.iloc[:0], config, modelled_under=[model], loop=loop, schedule_sample=0)
+    assert empty.modelled_under[0].empty and list(empty.modelled_under[0].columns) == list(second.columns)

@@ -428,7 +428,7 @@ class _Beside:
 
 
 def _run_chunk_under(chunk: pd.DataFrame, work: Callable[[pd.DataFrame], ChunkResult],
-                 beside: tuple[_Beside, ...]) -> ChunkResult:
+                     beside: tuple[_Beside, ...]) -> ChunkResult:
     """``work(chunk)``, then the chunk's modelled ECL under each configuration of ``beside``
     (:func:`~allowance.engine.chunk.modelled_columns`, this chunk's stages where they are
     that configuration's) into ``ChunkResult.under``: what a second pass would compute of
@@ -442,7 +442,7 @@ def _run_chunk_under(chunk: pd.DataFrame, work: Callable[[pd.DataFrame], ChunkRe
     under: list[dict[str, np.ndarray] | str] = []
     # in slices of MODELLED_CHUNK_SIZE loans, as a second pass takes them: the chunk's own
     # results are held meanwhile, and a slice's working arrays are a fraction of the chunk's
-    starts = range(0, len(chunk), MODELLED_CHUNK_SIZE)
+    starts = range(0, max(len(chunk), 1), MODELLED_CHUNK_SIZE)  # an empty chunk: one empty slice
     for b in beside:
         try:
             pieces = [modelled_columns(chunk.iloc[i: i + MODELLED_CHUNK_SIZE], b.prep,
