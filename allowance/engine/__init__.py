@@ -46,7 +46,7 @@ import pandas as pd
 
 from allowance import overlays, scenarios, staging
 from allowance.memory import give_back
-from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, modelled_chunk, modelled_columns, run_chunk
+from allowance.engine.chunk import ChunkResult, LoanTerms, loan_terms, modelled_chunk, run_chunk
 from allowance.engine.tables import Prepared, SegmentTable, age_months, prepare, segment_table, tape_months
 from allowance.engine.views import (
     loan_schedule,
@@ -376,7 +376,7 @@ def run(
             if isinstance(one, str):  # its assumptions failed on this chunk: the configuration has no figures
                 why[apart[i]] = why[apart[i]] or one
             elif not why[apart[i]]:
-                beside_columns[i].append(_round_money(one))
+                beside_columns[i].append(one)  # rounded to cents already (modelled_with)
         findings.append(part.findings)
         done += len(chunk)
         if progress is not None:
@@ -430,26 +430,20 @@ class _Beside:
 def _run_chunk_under(chunk: pd.DataFrame, work: Callable[[pd.DataFrame], ChunkResult],
                      beside: tuple[_Beside, ...]) -> ChunkResult:
     """``work(chunk)``, then the chunk's modelled ECL under each configuration of ``beside``
-    (:func:`~allowance.engine.chunk.modelled_columns`, this chunk's stages where they are
-    that configuration's) into ``ChunkResult.under``: what a second pass would compute of
-    these loans, computed while they are at hand. An error of those assumptions on these
-    loans is kept as its text (the run's own figures stand; :func:`run` says why)."""
+    (:func:`modelled_with`: in slices of MODELLED_CHUNK_SIZE loans as a second pass takes
+    them, rounded to cents, this chunk's stages where they are that configuration's) into
+    ``ChunkResult.under``: what a second pass would compute of these loans, computed while
+    they are at hand. An error of those assumptions on these loans is kept as its text (the
+    run's own figures stand; :func:`run` says why)."""
     part = work(chunk)
     stages = None
     if "stage" in part.columns and any(b.stages for b in beside):
         stages = pd.DataFrame({"stage": part.columns["stage"], "poci": part.columns["poci"]}, index=chunk.index,
                               copy=False)
     under: list[dict[str, np.ndarray] | str] = []
-    # in slices of MODELLED_CHUNK_SIZE loans, as a second pass takes them: the chunk's own
-    # results are held meanwhile, and a slice's working arrays are a fraction of the chunk's
-    starts = range(0, max(len(chunk), 1), MODELLED_CHUNK_SIZE)  # an empty chunk: one empty slice
     for b in beside:
         try:
-            pieces = [modelled_columns(chunk.iloc[i: i + MODELLED_CHUNK_SIZE], b.prep,
-                                       stages.iloc[i: i + MODELLED_CHUNK_SIZE] if b.stages and stages is not None
-                                       else None) for i in starts]
-            under.append({c: np.concatenate([p[c] for p in pieces]) for c in pieces[0]} if len(pieces) > 1
-                         else pieces[0])
+            under.append(modelled_with(chunk, b.prep, stages if b.stages else None))
         except (AllowanceError, ValueError) as error:
             under.append(str(error))
     return dataclasses.replace(part, under=tuple(under))

@@ -284,9 +284,9 @@ class ChunkResult:
               :func:`run_chunk`), in the same order
     alone     ``ecl_<framework>_modelled`` (unrounded) under each of the ``alone`` weights
               asked for (:func:`run_chunk`), in the same order: nothing else
-    under     ``ecl_<framework>_modelled`` (unrounded) under each other configuration's own
-              tables asked for (:func:`allowance.engine.run`'s ``modelled_under``), in the same
-              order; where those assumptions could not be applied to these loans, the reason
+    under     ``ecl_<framework>_modelled`` (rounded to cents) under each other configuration's
+              own tables asked for (:func:`allowance.engine.run`'s ``modelled_under``), in the
+              same order; where those assumptions could not be applied to these loans, the reason
     """
 
     columns: dict[str, np.ndarray | pd.api.extensions.ExtensionArray]
@@ -815,11 +815,6 @@ def modelled_chunk(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | N
     columns. What a second pass at other assumptions needs for the movement's remeasurement.
     ``stages`` as for :func:`chunk_inputs`.
     """
-    return pd.DataFrame({"loan_id": chunk["loan_id"].array, **modelled_columns(chunk, prep, stages)}, index=chunk.index)
-
-
-def modelled_columns(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame | None = None) -> dict[str, np.ndarray]:
-    """:func:`modelled_chunk`'s figures as arrays: ``ecl_<framework>_modelled``, unrounded."""
     c = chunk_inputs(chunk, prep, stages)
     stage, poci_flag = _stage_and_poci(chunk, c.stages)
     # the loop walks only the months the allowance takes (12 in IFRS 9 stage 1, not the whole
@@ -829,7 +824,8 @@ def modelled_columns(chunk: pd.DataFrame, prep: Prepared, stages: pd.DataFrame |
         c.kernel, horizon=_allowance_horizon(prep, c.frameworks.horizon, stage, poci_flag)))
     k, (purchase,), _ = _losses(chunk, prep, c, (prep.weights,))
     _, replaced = _individual_measurement(chunk, c.terms, prep)
-    return _modelled(k, prep, stage, poci_flag, purchase, replaced, prep.weights)
+    out = _modelled(k, prep, stage, poci_flag, purchase, replaced, prep.weights)
+    return pd.DataFrame({"loan_id": chunk["loan_id"].array, **out}, index=chunk.index)
 
 
 def _modelled_under(k: KernelResult, prep: Prepared, stage: np.ndarray, poci_flag: np.ndarray,
