@@ -327,7 +327,9 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
     it is computed (:func:`compute_part`'s ``prior``), into ``at_prior``.
     """
     told = progress or (lambda phase, done, total: None)
-    folder = Path(folder)
+    # absolute: the parts are written where they are computed, by workers whose working
+    # folder is their own
+    folder = Path(os.path.abspath(folder))
     _fresh_folder(folder, create=False)  # before the tape is read: refused early
     told("read", 0, 1)
     layout = tape_layout(path, config.assumptions.run.max_input_mb)

@@ -299,6 +299,31 @@ def test_run_loans_parquet_on_a_cluster_through_the_command_line(tmp_path):
     assert (tmp_path / "out" / "summary.xlsx").exists() and (tmp_path / "out" / "disclosure_ifrs7_35m.csv").exists()
 
 
+
+@pytest.mark.slow
+def test_relative_paths_reach_workers_whose_working_folder_is_another(tmp_path):
+    """A Parquet tape and a loan-detail folder given relative to where the command runs: the
+    workers (here threads of this test's process, whose working folder is not the command's)
+    read the parts and write the detail at the command's paths. Found by hand on a cluster
+    started apart (``dask scheduler``, ``dask worker``): the workers looked for
+    ``tape.parquet`` in their own folder and the run stopped. Reference: the in-process run of
+    the same rows."""
+    import pandas as pd
+
+    whole, folder = _parquet_book(tmp_path / "book")
+    alone = api.run(whole, DEMO_ASSUMPTIONS, accept_ledger_difference=True, sensitivities=False)
+    assert Path.cwd() != tmp_path
+    with distributed.LocalCluster(processes=False, n_workers=2, threads_per_worker=1, dashboard_address=None,
+                                  protocol="tcp://", host="127.0.0.1") as cluster:
+        done = subprocess.run([sys.executable, "-m", "allowance", "run", "book/tape", "-a", str(DEMO_ASSUMPTIONS),
+                               "--accept-ledger-difference", "--out", "out", "--engine", "dask",
+                               "--scheduler", cluster.scheduler_address, "--loans-parquet", "detail"],
+                              capture_output=True, text=True, timeout=600, cwd=tmp_path,
+                              env={**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[1])})
+        assert done.returncode == 0, done.stderr
+    pd.testing.assert_frame_equal(pd.read_parquet(tmp_path / "detail"), alone.loans, check_dtype=False)
+    assert not (Path.cwd() / "detail").exists()  # nothing written where the workers stand
+
 def test_a_book_with_a_prior_run_computes_its_parts_at_the_prior_assumptions_on_the_workers(tmp_path):
     """``--loans-parquet`` with ``--prior`` on a local cluster: the parts are computed at the
     prior run's assumptions too where they are computed (the demo's last quarter, another model),

@@ -35,6 +35,7 @@ import builtins
 import dataclasses
 import functools
 import hashlib
+import os
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -68,7 +69,11 @@ Map = Callable[[Callable, Iterable], Iterable]
 
 @dataclass(frozen=True)
 class TapePart:
-    """One row group of one Parquet file; ``first_row`` rows of the whole tape come before it."""
+    """One row group of one Parquet file; ``first_row`` rows of the whole tape come before it.
+
+    ``file`` is an absolute path: a part may be read by a worker of a cluster, whose working
+    folder is its own (a tape given as ``tape.parquet`` would be looked for there).
+    """
 
     file: str
     row_group: int
@@ -138,7 +143,7 @@ def tape_layout(path: str | Path, max_mb: float) -> TapeLayout:
         for group in range(meta.num_row_groups):
             n = meta.row_group(group).num_rows
             if n:
-                parts.append(TapePart(file=str(file), row_group=group, first_row=rows, rows=n))
+                parts.append(TapePart(file=os.path.abspath(file), row_group=group, first_row=rows, rows=n))
                 rows += n
         hashes.append((str(file.relative_to(path)) if path.is_dir() else file.name, scan(file, "tape")))
     if rows == 0:
@@ -237,7 +242,7 @@ def _naming_file(result: IntakeResult, folder: str, file_first_row: int) -> Inta
     ``source_row``: the file (relative to the folder) and the row's number in that file (its
     first data row is 1), where ``source_row`` numbers the row in the whole tape + 1.
     ``file_first_row`` rows of the tape come before the file."""
-    name = Path(result.file.path).relative_to(folder).as_posix()
+    name = Path(result.file.path).relative_to(os.path.abspath(folder)).as_posix()
 
     def named(frame: pd.DataFrame) -> pd.DataFrame:
         frame = frame.copy()
