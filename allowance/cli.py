@@ -499,6 +499,12 @@ def run(
 
     if engine != "dask" and (workers is not None or scheduler is not None):
         raise typer.BadParameter("needs --engine dask", param_hint="'--workers' / '--scheduler'")
+    if scheduler is not None:
+        from allowance.cluster import scheduler_address_problem
+
+        problem = scheduler_address_problem(scheduler)
+        if problem is not None:
+            raise typer.BadParameter(problem, param_hint="'--scheduler'")
 
     if charge_offs is not None and prior is None:
         raise typer.BadParameter("needs --prior: the write-offs explain the movement from the prior run",

@@ -88,6 +88,38 @@ def _distributed():
     return distributed
 
 
+def scheduler_address_problem(address: str) -> str | None:
+    """Why ``address`` cannot be a Dask scheduler's address (``tcp://HOST:PORT`` and the other
+    schemes ``distributed`` knows), or None; None too where ``distributed`` is not installed
+    (:func:`dask_map` then says which extra to install).
+
+    >>> scheduler_address_problem("tcp://10.0.0.5:8786") is None
+    True
+    >>> scheduler_address_problem("10.0.0.5")
+    "no port in '10.0.0.5': give the address as the scheduler prints it, e.g. tcp://10.0.0.5:8786"
+    """
+    try:
+        from distributed.comm.addressing import parse_address, parse_host_port
+        from distributed.comm.registry import get_backend
+    except ImportError:
+        return None
+    example = "give the address as the scheduler prints it, e.g. tcp://10.0.0.5:8786"
+    try:
+        protocol, location = parse_address(address)
+        get_backend(protocol)
+    except ValueError as bad:
+        return f"{bad}; {example}"
+    if protocol in ("tcp", "tls"):
+        try:
+            host, _ = parse_host_port(location)
+        except ValueError as bad:
+            missing = "missing port" in str(bad)
+            return f"no port in {address!r}: {example}" if missing else f"{address!r} is not HOST:PORT: {example}"
+        if not host:
+            return f"no host in {address!r}: {example}"
+    return None
+
+
 @contextlib.contextmanager
 def dask_map(workers: int | None = None, scheduler: str | None = None) -> Iterator[DaskMap]:
     """A :class:`DaskMap` on a local cluster of ``workers`` processes, or on ``scheduler``.
@@ -107,6 +139,9 @@ def dask_map(workers: int | None = None, scheduler: str | None = None) -> Iterat
     if workers is not None and workers < 1:
         raise AllowanceError(f"--workers must be at least 1, got {workers}")
     if scheduler is not None:
+        problem = scheduler_address_problem(scheduler)
+        if problem is not None:
+            raise AllowanceError(f"--scheduler: {problem}")
         try:
             client = distributed.Client(scheduler, timeout="30s")
         except (OSError, TimeoutError) as failed:

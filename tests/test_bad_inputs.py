@@ -13,6 +13,7 @@ error, 130 interrupted (128 + SIGINT, the shell convention).
 from __future__ import annotations
 
 import hashlib
+import importlib.util
 import json
 import os
 import re
@@ -982,6 +983,11 @@ CASES: list[Case] = [
          custom=saved_in("latin-1")),
     Case("tape saved as UTF-16", "a spreadsheet's 'Unicode text' export (UTF-16 with its byte-order mark)", "custom",
          1, ("is UTF-16 text, not UTF-8", "save the file as UTF-8 CSV"), custom=saved_in("utf-16")),
+    Case("a scheduler address that is not one", "--engine dask --scheduler nonsense (no port)", "run", 2,
+         ("--scheduler", "no port", "tcp://10.0.0.5:8786"),
+         args=lambda ws: ["run", ws.tape, "-a", ws.toml, "--engine", "dask", "--scheduler", "nonsense", "--out", ws.out],
+         then=no_output, marks=(pytest.mark.skipif(importlib.util.find_spec("distributed") is None,
+                                                   reason="the dask extra is not installed"),)),
     Case("--charge-offs without --prior", "--charge-offs given, no --prior", "run", 2,
          ("--charge-offs", "needs --prior"),
          args=lambda ws: ["run", ws.tape, "-a", ws.toml, "--charge-offs", charge_offs(ws), "--out", ws.out]),

@@ -125,6 +125,36 @@ def test_workers_and_scheduler_together_are_refused():
             pass
 
 
+
+@pytest.mark.parametrize("address, says", [
+    ("nonsense", "no port in 'nonsense'"),
+    ("tcp://scheduler-host", "no port in 'tcp://scheduler-host'"),
+    ("tcp://:8786", "no host in 'tcp://:8786'"),
+    ("tcp://host:port", "'tcp://host:port' is not HOST:PORT"),
+    ("xyz://host:8786", "unknown address scheme 'xyz'"),
+])
+def test_a_scheduler_address_that_cannot_be_one_is_named_before_any_connection(address, says):
+    """Found by hand: ``--scheduler nonsense`` ended in a traceback from inside distributed's
+    connect. The address's form is checked first (distributed's own parser; the addresses
+    ``dask scheduler`` prints pass, common practice, no source), by the library and by the
+    command line, which exits 2 (a usage error) naming the option."""
+    from typer.testing import CliRunner
+
+    from allowance.cli import app
+    from allowance.cluster import scheduler_address_problem
+
+    assert says in scheduler_address_problem(address)
+    assert scheduler_address_problem("tcp://10.0.0.5:8786") is None and scheduler_address_problem("tls://h:1") is None
+    with pytest.raises(AllowanceError, match="--scheduler: " + says.replace("(", r"\(")):
+        with dask_map(scheduler=address):
+            pass
+    result = CliRunner().invoke(app, ["run", str(DEMO_TAPE), "-a", str(DEMO_ASSUMPTIONS), "--engine", "dask",
+                                      "--scheduler", address, "--out", "unused"])
+    assert result.exit_code == 2, result.output
+    said = " ".join(result.output.translate({ord(c): " " for c in "│╭╮╰╯─"}).split())  # a framed, wrapped message
+    assert "--scheduler" in said and says in said
+    assert not Path("unused").exists()
+
 # --------------------------------------------------------------------------------------
 # A Parquet tape read part by part where it is computed
 # --------------------------------------------------------------------------------------
