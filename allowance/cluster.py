@@ -120,6 +120,10 @@ def scheduler_address_problem(address: str) -> str | None:
     return None
 
 
+#: Seconds a run waits for a joined cluster's first worker (one starting up takes a few).
+_WORKER_WAIT = 30.0
+
+
 @contextlib.contextmanager
 def dask_map(workers: int | None = None, scheduler: str | None = None) -> Iterator[DaskMap]:
     """A :class:`DaskMap` on a local cluster of ``workers`` processes, or on ``scheduler``.
@@ -147,6 +151,13 @@ def dask_map(workers: int | None = None, scheduler: str | None = None) -> Iterat
         except (OSError, TimeoutError) as failed:
             raise AllowanceError(f"cannot reach the Dask scheduler at {scheduler}: {failed}") from failed
         with client:
+            # a scheduler with no worker would take the chunks and hold them: say so instead
+            try:
+                client.wait_for_workers(1, timeout=_WORKER_WAIT)
+            except TimeoutError as none:
+                raise AllowanceError(f"the Dask scheduler at {scheduler} has no workers (waited {_WORKER_WAIT:.0f} s)",
+                                     hint=f"start some on the machines that share the tape: dask worker {scheduler} "
+                                          "--nthreads 1") from none
             yield DaskMap(client)
         return
     # one thread per worker: the kernel holds its core; the cluster's own chatter (e.g. a

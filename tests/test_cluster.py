@@ -155,6 +155,21 @@ def test_a_scheduler_address_that_cannot_be_one_is_named_before_any_connection(a
     assert "--scheduler" in said and says in said
     assert not Path("unused").exists()
 
+
+def test_a_scheduler_with_no_workers_is_named_not_waited_on_forever(monkeypatch):
+    """Found by hand against ``dask scheduler`` with no ``dask worker``: the run ended in a
+    traceback from inside distributed ("No valid workers found"). The run waits a bounded
+    time for a first worker, then names the scheduler and how to start one."""
+    import allowance.cluster as cluster_module
+
+    monkeypatch.setattr(cluster_module, "_WORKER_WAIT", 0.5)
+    with distributed.LocalCluster(n_workers=0, processes=False, dashboard_address=None, protocol="tcp://",
+                                  host="127.0.0.1") as empty:
+        with pytest.raises(AllowanceError, match="has no workers") as refused:
+            with dask_map(scheduler=empty.scheduler_address):
+                pass
+    assert f"dask worker {empty.scheduler_address}" in str(refused.value)
+
 # --------------------------------------------------------------------------------------
 # A Parquet tape read part by part where it is computed
 # --------------------------------------------------------------------------------------
