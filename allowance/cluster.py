@@ -60,10 +60,21 @@ class DaskMap:
         waiting for it then fails with "lost dependencies" (seen once in the test suite, a
         Parquet folder's id pass, whose partial's arguments were let go as ``__call__`` returned).
         """
+        killed = _distributed().KilledWorker
         for i in range(len(futures)):
             future, futures[i] = futures[i], None
-            yield future.result()
-            del future
+            try:
+                result = future.result()
+            except killed as died:
+                # a worker process that dies (out of memory, most often) takes its task with it;
+                # the scheduler retries it elsewhere a few times, then gives up with this
+                raise AllowanceError(
+                    f"the cluster's workers died computing part {i + 1} of {len(futures)} "
+                    f"({' '.join(str(died).split())[:300]})",
+                    hint="give each worker more memory, or spread the book more finely (--chunk-size; for a "
+                         "Parquet tape, smaller row groups)") from died
+            yield result
+            del future, result
         del keep
 
     def _shared(self, value: Any) -> Any:

@@ -170,6 +170,26 @@ def test_a_scheduler_with_no_workers_is_named_not_waited_on_forever(monkeypatch)
                 pass
     assert f"dask worker {empty.scheduler_address}" in str(refused.value)
 
+
+def _die(chunk):  # a task that takes its worker process down with it (as running out of memory does)
+    os._exit(9)
+
+
+@pytest.mark.slow
+def test_a_task_whose_workers_die_is_named_with_what_to_change():
+    """A worker that dies (killed for its memory, most often) takes its task along; once the
+    scheduler gives up on it, distributed raised ``KilledWorker`` through the run. The run's
+    error names the part and what to change. No retry here (distributed allows 3 by default),
+    so the test takes seconds."""
+    import dask
+
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}), \
+            distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None,
+                                     silence_logs=50) as cluster, distributed.Client(cluster) as client:
+        with pytest.raises(AllowanceError, match="workers died computing part 1 of 2") as died:
+            list(DaskMap(client)(_die, [1, 2]))
+    assert "--chunk-size" in str(died.value)
+
 # --------------------------------------------------------------------------------------
 # A Parquet tape read part by part where it is computed
 # --------------------------------------------------------------------------------------
