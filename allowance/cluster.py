@@ -18,8 +18,9 @@ extra includes it): everything else runs without them.
 from __future__ import annotations
 
 import contextlib
-import logging
 import functools
+import logging
+import warnings
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
 from typing import Any
@@ -46,8 +47,12 @@ class DaskMap:
             func = fn.func
             args = tuple(self._shared(a) for a in fn.args)
             kwargs = {k: self._shared(v) for k, v in fn.keywords.items()}
-        # pure=False: two chunks with equal loans are still two tasks, placed by position
-        futures = [self.client.submit(func, *args, item, pure=False, **kwargs) for item in items]
+        # pure=False: two chunks with equal loans are still two tasks, placed by position. A
+        # chunk of a tape read here travels with its task (tens of MB): distributed's advice to
+        # load such data on the workers instead is what a Parquet tape does, not a problem here
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message="Sending large graph", category=UserWarning)
+            futures = [self.client.submit(func, *args, item, pure=False, **kwargs) for item in items]
         return self._in_order(futures, keep=(args, kwargs))
 
     @staticmethod
@@ -60,7 +65,11 @@ class DaskMap:
         waiting for it then fails with "lost dependencies" (seen once in the test suite, a
         Parquet folder's id pass, whose partial's arguments were let go as ``__call__`` returned).
         """
-        killed = _distributed().KilledWorker
+        distributed = _distributed()
+        killed = distributed.KilledWorker
+        # the scheduler stopped, or the network between it and this process broke: the futures
+        # are cancelled, or the fetch of a result finds its connection closed
+        lost = (distributed.client.FutureCancelledError, distributed.comm.CommClosedError)
         for i in range(len(futures)):
             future, futures[i] = futures[i], None
             try:
@@ -73,6 +82,11 @@ class DaskMap:
                     f"({' '.join(str(died).split())[:300]})",
                     hint="give each worker more memory, or spread the book more finely (--chunk-size; for a "
                          "Parquet tape, smaller row groups)") from died
+            except lost as cut:
+                raise AllowanceError(
+                    f"lost the Dask cluster while computing part {i + 1} of {len(futures)} "
+                    f"({' '.join(str(cut).split())[:300]})",
+                    hint="check that the scheduler still runs and this machine reaches it, then run again") from cut
             yield result
             del future, result
         del keep
@@ -161,7 +175,14 @@ def dask_map(workers: int | None = None, scheduler: str | None = None) -> Iterat
             client = distributed.Client(scheduler, timeout="30s")
         except (OSError, TimeoutError) as failed:
             raise AllowanceError(f"cannot reach the Dask scheduler at {scheduler}: {failed}") from failed
-        with client:
+        # the client's own log of a lost scheduler (tracebacks from its reconnection attempts)
+        # is not the user's business: the run's error says what happened
+        quiet = logging.getLogger("distributed.client")
+        level = quiet.level
+        quiet.setLevel(logging.CRITICAL)
+        with contextlib.ExitStack() as restore:
+            restore.callback(quiet.setLevel, level)
+            restore.enter_context(client)
             # a scheduler with no worker would take the chunks and hold them: say so instead
             try:
                 client.wait_for_workers(1, timeout=_WORKER_WAIT)

@@ -190,6 +190,46 @@ def test_a_task_whose_workers_die_is_named_with_what_to_change():
             list(DaskMap(client)(_die, [1, 2]))
     assert "--chunk-size" in str(died.value)
 
+
+def _slow(chunk):
+    import time
+
+    time.sleep(3)
+    return chunk
+
+
+@pytest.mark.slow
+def test_a_cluster_lost_mid_run_is_named_with_the_part_it_was_computing():
+    """Found by hand: a scheduler stopped while a run waited for its chunks ended the run in
+    distributed's traceback (a cancelled future, or a closed connection while fetching a
+    result), with its client's reconnection tracebacks logged besides. The run's error names
+    the part and what to check."""
+    import threading
+
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None,
+                                  protocol="tcp://", host="127.0.0.1", silence_logs=50) as cluster:
+        with dask_map(scheduler=cluster.scheduler_address) as chunk_map:
+            threading.Timer(1.0, cluster.close).start()  # the scheduler goes while part 1 runs
+            with pytest.raises(AllowanceError, match="lost the Dask cluster while computing part 1 of 2"):
+                list(chunk_map(_slow, [1, 2]))
+
+
+def test_a_large_chunk_travels_with_its_task_without_a_warning_to_the_user():
+    """A CSV tape's chunks are read here and sent with their tasks: a chunk of 250,000 loans
+    is some 70 MB, over distributed's 10 MB mark, and every run on a joined cluster printed
+    its "Sending large graph" advice (found by hand). The chunk arrives whole."""
+    import warnings
+
+    import numpy as np
+
+    chunk = np.arange(2_000_000, dtype=np.float64)  # 16 MB
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None,
+                                  protocol="tcp://", host="127.0.0.1") as cluster, \
+            distributed.Client(cluster) as client, warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        assert list(DaskMap(client)(np.sum, [chunk])) == [chunk.sum()]
+    assert not [w for w in seen if "large graph" in str(w.message)], [str(w.message) for w in seen]
+
 # --------------------------------------------------------------------------------------
 # A Parquet tape read part by part where it is computed
 # --------------------------------------------------------------------------------------
