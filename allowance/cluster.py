@@ -198,5 +198,11 @@ def dask_map(workers: int | None = None, scheduler: str | None = None) -> Iterat
                                "silence_logs": logging.ERROR}
     if workers is not None:
         options["n_workers"] = workers
-    with distributed.LocalCluster(**options) as cluster, distributed.Client(cluster) as client:
+    with contextlib.ExitStack() as stack:
+        with warnings.catch_warnings():
+            # the scheduler's HTTP server (kept for its health checks with the dashboard off) takes
+            # another port when another Dask process holds the usual one, and says so: not news
+            warnings.filterwarnings("ignore", message="Port .* is already in use", category=UserWarning)
+            cluster = stack.enter_context(distributed.LocalCluster(**options))
+        client = stack.enter_context(distributed.Client(cluster))
         yield DaskMap(client)

@@ -230,6 +230,30 @@ def test_a_large_chunk_travels_with_its_task_without_a_warning_to_the_user():
         assert list(DaskMap(client)(np.sum, [chunk])) == [chunk.sum()]
     assert not [w for w in seen if "large graph" in str(w.message)], [str(w.message) for w in seen]
 
+
+@pytest.mark.slow
+def test_a_local_cluster_beside_another_dask_process_starts_without_a_warning():
+    """A scheduler keeps an HTTP server (health checks) with the dashboard off, on port 8787
+    by default; with another Dask process holding that port, every ``--workers`` run printed
+    distributed's "Port 8787 is already in use" (found by hand beside a ``dask scheduler``)."""
+    import socket
+    import warnings
+
+    holder = socket.socket()
+    try:
+        holder.bind(("", 8787))
+        holder.listen()
+    except OSError:
+        pass  # another process holds it already: the case itself
+    try:
+        with warnings.catch_warnings(record=True) as seen:
+            warnings.simplefilter("always")
+            with dask_map(workers=1) as chunk_map:
+                assert list(chunk_map(abs, [-1, -2])) == [1, 2]
+    finally:
+        holder.close()
+    assert not [w for w in seen if "already in use" in str(w.message)], [str(w.message) for w in seen]
+
 # --------------------------------------------------------------------------------------
 # A Parquet tape read part by part where it is computed
 # --------------------------------------------------------------------------------------
