@@ -66,3 +66,38 @@ def test_check_names_a_bad_row_of_a_folder_by_its_file_and_its_row_in_the_tape(t
             "balance 'n/a' is not a number") in done.stdout
     rejected = pd.read_csv(tmp_path / "out" / "rejected.csv")
     assert rejected[["source_row", "source_file", "file_row"]].values.tolist() == [[102, "b.parquet", 41]]
+
+
+def test_a_dataset_partitioned_into_column_folders_reads_as_the_tape_with_that_column(tmp_path):
+    """A tape written partitioned by a column (pandas ``to_parquet(partition_cols=...)``, Arrow's
+    and Spark's ``segment=auto/`` folders) keeps that column in the folder names, not in the
+    files: read part by part, every row has it again, and the tape is the tape read whole,
+    row for row (in the dataset's order), its counts and its rejected row (named by its file
+    in the folder). Before, the run stopped with "missing required column: 'segment'" (found
+    by hand). Folder names as pandas/Arrow write them: common practice, no source."""
+    from allowance.exceptions import TapeError
+
+    frame = FRAME.copy()
+    frame.loc[7, "days_past_due"] = "-3"
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), tmp_path / "whole.parquet")
+    frame.to_parquet(tmp_path / "by_segment", partition_cols=["segment"], index=False)
+    whole = intake.read_tape(tmp_path / "whole.parquet", CONFIG)
+    parts = intake.read_parts(tmp_path / "by_segment", CONFIG)
+    assert (parts.rows_read, parts.rows_accepted, parts.rows_rejected) == (ROWS, whole.rows_accepted, 1)
+
+    def by_id(accepted):
+        return accepted.drop(columns="source_row").sort_values("loan_id").reset_index(drop=True)
+
+    pd.testing.assert_frame_equal(by_id(parts.accepted)[list(by_id(whole.accepted).columns)], by_id(whole.accepted))
+    bad = parts.rejected.iloc[0]
+    assert bad["loan_id"] == FRAME.loc[7, "loan_id"] and "days_past_due" in bad["reasons"]
+    assert bad["source_file"].startswith(f"segment={FRAME.loc[7, 'segment']}/")
+
+    # the column both in a file and in its folder's name, or files partitioned unlike each other: refused, named
+    frame.iloc[:10].to_parquet(tmp_path / "by_segment" / "segment=auto" / "extra.parquet", index=False)
+    with pytest.raises(TapeError, match="named like a folder"):
+        intake.read_parts(tmp_path / "by_segment", CONFIG)
+    (tmp_path / "by_segment" / "segment=auto" / "extra.parquet").unlink()
+    frame.drop(columns="segment").iloc[:10].to_parquet(tmp_path / "by_segment" / "loose.parquet", index=False)
+    with pytest.raises(TapeError, match="partitioned by the same columns"):
+        intake.read_parts(tmp_path / "by_segment", CONFIG)

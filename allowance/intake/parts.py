@@ -21,6 +21,7 @@ the book.
 Implements
 ----------
 TapePart     one row group of one file, and the number of its first row in the whole tape
+partition_values  the columns a dataset partitioned into ``column=value`` folders keeps in their names
 TapeLayout   a tape's parts, headers and fingerprint, from the footers alone
 tape_layout  a Parquet file or a folder of Parquet files -> TapeLayout
 repeated_ids the ids on more than one row of the whole tape -> their rows
@@ -73,12 +74,15 @@ class TapePart:
 
     ``file`` is an absolute path: a part may be read by a worker of a cluster, whose working
     folder is its own (a tape given as ``tape.parquet`` would be looked for there).
+    ``partition``: the ``(column, value)`` pairs of the folders the file is in, for a folder
+    written partitioned (``segment=auto/...``): columns of every row of the file, after its own.
     """
 
     file: str
     row_group: int
     first_row: int
     rows: int
+    partition: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -112,6 +116,27 @@ def _files(path: Path) -> list[Path]:
     return [path]
 
 
+def partition_values(file: Path, folder: Path) -> tuple[tuple[str, str], ...]:
+    """The ``(column, value)`` pairs of the ``column=value`` folders between ``folder`` and
+    ``file``: how pandas (``to_parquet(partition_cols=...)``), Arrow and Spark
+    (``partitionBy``) write a dataset partitioned by a column, which then lives in the folder
+    names and not in the files. Values are unquoted as those writers quote them (``%20``).
+
+    >>> partition_values(Path("tapes/segment=auto/grade=B%201/part-0.parquet"), Path("tapes"))
+    (('segment', 'auto'), ('grade', 'B 1'))
+    >>> partition_values(Path("tapes/2026/part-0.parquet"), Path("tapes"))
+    ()
+    """
+    from urllib.parse import unquote
+
+    pairs = []
+    for name in file.relative_to(folder).parts[:-1]:
+        key, sep, value = name.partition("=")
+        if sep and key:
+            pairs.append((unquote(key), unquote(value)))
+    return tuple(pairs)
+
+
 def tape_layout(path: str | Path, max_mb: float) -> TapeLayout:
     """The parts of a Parquet tape (a file, or a folder of files read in name order).
 
@@ -134,16 +159,24 @@ def tape_layout(path: str | Path, max_mb: float) -> TapeLayout:
             meta = pq.ParquetFile(file).metadata
         except (pa.ArrowException, OSError) as err:
             raise InputFileError(f"cannot be read as Parquet ({err})", file=file) from err
-        names = list(meta.schema.to_arrow_schema().names)
+        partition = partition_values(file, path) if path.is_dir() else ()
+        own = list(meta.schema.to_arrow_schema().names)
+        if any(key in own for key, _ in partition):
+            raise TapeError(f"has a column named like a folder it is in ({', '.join(k for k, _ in partition)}=...)",
+                            file=file, hint="keep the column in the files or in the folder names, not both")
+        names = own + [key for key, _ in partition]
         if headers is None:
             headers = names
         elif names != headers:
-            raise TapeError(f"has the columns {names} but {_files(path)[0].name} has {headers}", file=file,
-                            hint="write every file of the tape with the same columns in the same order")
+            raise TapeError(f"has the columns {names} (its own, then those of its folders' names) but "
+                            f"{_files(path)[0].relative_to(path)} has {headers}", file=file,
+                            hint="write every file of the tape with the same columns in the same order, "
+                                 "partitioned by the same columns")
         for group in range(meta.num_row_groups):
             n = meta.row_group(group).num_rows
             if n:
-                parts.append(TapePart(file=os.path.abspath(file), row_group=group, first_row=rows, rows=n))
+                parts.append(TapePart(file=os.path.abspath(file), row_group=group, first_row=rows, rows=n,
+                                      partition=partition))
                 rows += n
         hashes.append((str(file.relative_to(path)) if path.is_dir() else file.name, scan(file, "tape")))
     if rows == 0:
@@ -158,12 +191,19 @@ def tape_layout(path: str | Path, max_mb: float) -> TapeLayout:
 
 
 def _read(part: TapePart, columns: Sequence[str] | None = None) -> pa.Table:
+    """The part's rows (``columns`` of them, in that order, or all): the file's own columns,
+    then the columns of its folders' names (:func:`partition_values`), as text on every row."""
     import pyarrow.parquet as pq
 
+    given = dict(part.partition)
+    own = None if columns is None else [c for c in columns if c not in given]
     try:
-        return pq.ParquetFile(part.file).read_row_group(part.row_group, columns=columns)
+        table = pq.ParquetFile(part.file).read_row_group(part.row_group, columns=own)
     except (pa.ArrowException, OSError) as err:
         raise InputFileError(f"row group {part.row_group} cannot be read as Parquet ({err})", file=part.file) from err
+    for key, value in part.partition:
+        table = table.append_column(key, pa.array([value] * table.num_rows, pa.string()))
+    return table if columns is None or not given else table.select(list(columns))
 
 
 def _ids(part: TapePart, header: str) -> pa.ChunkedArray:
