@@ -93,10 +93,16 @@ class AssumptionsError(AllowanceError):
     "a.toml: key segments.auto.lgdd: unknown key 'lgdd'"
     >>> str(AssumptionsError("'x' is not a probability", file="rolls.csv", row=2, column="current"))
     "rolls.csv: row 2, column current: 'x' is not a probability"
+
+    Assumptions given as a mapping (from Python) are labelled ``<assumptions mapping>``: keys too.
+
+    >>> str(AssumptionsError("required key 'segments' is missing", file="<assumptions mapping>", column="segments"))
+    "<assumptions mapping>: key segments: required key 'segments' is missing"
     """
 
     def _column_word(self) -> str:
-        return "column" if self.file is not None and not self.file.lower().endswith(".toml") else "key"
+        in_a_table = self.file is not None and not self.file.lower().endswith((".toml", " mapping>"))
+        return "column" if in_a_table else "key"
 
 
 class TieOutError(AllowanceError):

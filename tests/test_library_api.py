@@ -369,3 +369,15 @@ def test_compare_isolates_the_assumption_lines_when_the_prior_model_is_the_curre
             assert not any("not isolated" in str(label) for label in labels)
         else:
             assert any("not isolated" in str(label) for label in labels)
+
+
+def test_assumptions_given_as_a_mapping_name_their_keys_as_keys():
+    """An assumptions mapping missing keys is named by its keys, as a TOML file's are (found by
+    hand: the message said "column run.frameworks", the word for a CSV's columns)."""
+    from allowance.exceptions import AssumptionsError
+
+    with pytest.raises(AssumptionsError) as missing:
+        allowance.run(books.DEMO_TAPE, {"run": {"as_of": "2026-09-30"}})
+    said = str(missing.value)
+    assert said.startswith("<assumptions mapping>: key run.frameworks: required key 'frameworks' is missing")
+    assert "column" not in said
