@@ -145,8 +145,9 @@ def scheduler_address_problem(address: str) -> str | None:
     return None
 
 
-#: Seconds a run waits for a joined cluster's first worker (one starting up takes a few).
-_WORKER_WAIT = 30.0
+#: Seconds a run waits for a scheduler to answer (a busy one can be slow to accept), then
+#: for a joined cluster's first worker (one starting up takes a few).
+_CONNECT_WAIT = _WORKER_WAIT = 30.0
 
 
 @contextlib.contextmanager
@@ -172,7 +173,7 @@ def dask_map(workers: int | None = None, scheduler: str | None = None) -> Iterat
         if problem is not None:
             raise AllowanceError(f"--scheduler: {problem}")
         try:
-            client = distributed.Client(scheduler, timeout="30s")
+            client = distributed.Client(scheduler, timeout=_CONNECT_WAIT)
         except (OSError, TimeoutError) as failed:
             raise AllowanceError(f"cannot reach the Dask scheduler at {scheduler}: {failed}") from failed
         # the client's own log of a lost scheduler (tracebacks from its reconnection attempts)

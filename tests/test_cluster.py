@@ -156,6 +156,21 @@ def test_a_scheduler_address_that_cannot_be_one_is_named_before_any_connection(a
     assert not Path("unused").exists()
 
 
+def test_an_address_nobody_answers_at_is_named_after_the_wait(monkeypatch):
+    """A scheduler address where nothing listens: the run stops after the connection wait
+    (30 s; 1 s here), naming the address."""
+    import socket
+
+    import allowance.cluster as cluster_module
+
+    monkeypatch.setattr(cluster_module, "_CONNECT_WAIT", 1.0)
+    with socket.socket() as probe:  # a port that was free a moment ago, so nobody answers there
+        probe.bind(("127.0.0.1", 0))
+        port = probe.getsockname()[1]
+    with pytest.raises(AllowanceError, match=f"cannot reach the Dask scheduler at tcp://127.0.0.1:{port}"):
+        with dask_map(scheduler=f"tcp://127.0.0.1:{port}"):
+            pass
+
 def test_a_scheduler_with_no_workers_is_named_not_waited_on_forever(monkeypatch):
     """Found by hand against ``dask scheduler`` with no ``dask worker``: the run ended in a
     traceback from inside distributed ("No valid workers found"). The run waits a bounded
