@@ -396,13 +396,22 @@ def _print_summary(result: Result, out: Path, seconds: float, files: list[Path] 
     _say(f"wrote {out}  ({seconds:.1f} s)")
 
 
-def _executor(engine: str, workers: int | None, scheduler: str | None):
-    """The chunk map for ``--engine``: None (the engine's own loop) or a Dask cluster's."""
-    if engine == "dask":
-        from allowance.cluster import dask_map
+@contextlib.contextmanager
+def _executor(engine: str, workers: int | None, scheduler: str | None, shown=None):
+    """The chunk map for ``--engine``: None (the engine's own loop) or a Dask cluster's; the
+    display (``shown``) says the cluster is being started or joined, which takes seconds (up
+    to 30 waiting for a joined scheduler's first worker)."""
+    if engine != "dask":
+        yield None
+        return
+    from allowance.cluster import dask_map
 
-        return dask_map(workers=workers, scheduler=scheduler)
-    return contextlib.nullcontext(None)
+    if shown is not None:
+        shown("cluster", 0, 1)
+    with dask_map(workers=workers, scheduler=scheduler) as chunk_map:
+        if shown is not None:
+            shown("cluster", 1, 1)
+        yield chunk_map
 
 
 def _early_folder(out: Path, prior: Path | None):
@@ -516,7 +525,7 @@ def run(
     started = time.perf_counter()
     try:
         with _out.display() as shown, _early_folder(out, prior) as folder:
-            with _phase("compute"), _executor(engine, workers, scheduler) as chunk_map:
+            with _phase("compute"), _executor(engine, workers, scheduler, shown) as chunk_map:
                 result = api.run(
                     tape, assumptions, overlays=tuple(overlay or ()), prior=prior, charge_offs=charge_offs,
                     ledger_balance=ledger_balance, accept_ledger_difference=accept_ledger_difference,

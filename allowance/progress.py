@@ -18,6 +18,7 @@ from typing import IO, Any
 
 #: what each phase of a run is called on the screen (the API's phase names)
 PHASES: dict[str, str] = {
+    "cluster": "starting or joining the Dask cluster",
     "read": "reading the tape",
     "loans": "computing the allowance",
     "sensitivities": "each scenario at 100 % weight",

@@ -489,3 +489,17 @@ def test_a_book_with_a_prior_run_computes_its_parts_at_the_prior_assumptions_on_
     assert list(book.movement) == list(alone.movement) == ["ifrs9", "cecl"]
     for fw, moved in alone.movement.items():
         pd.testing.assert_frame_equal(book.movement[fw].loans, moved.loans)
+
+
+@pytest.mark.slow
+def test_the_display_says_the_cluster_is_being_started_or_joined():
+    """Starting a local cluster takes seconds and joining one can wait 30 s for a worker: the
+    command's display shows that phase (found by hand: a blank terminal meanwhile)."""
+    from allowance.cli import _executor
+    from allowance.progress import PHASES, Display
+
+    with Display(enabled=False) as shown, _executor("dask", 1, None, shown) as chunk_map:
+        assert shown.seen == ["cluster"] and list(chunk_map(abs, [-3])) == [3]
+    assert PHASES["cluster"] == "starting or joining the Dask cluster"
+    with Display(enabled=False) as shown, _executor("in-process", None, None, shown) as chunk_map:
+        assert chunk_map is None and shown.seen == []
