@@ -101,3 +101,28 @@ def test_a_dataset_partitioned_into_column_folders_reads_as_the_tape_with_that_c
     frame.drop(columns="segment").iloc[:10].to_parquet(tmp_path / "by_segment" / "loose.parquet", index=False)
     with pytest.raises(TapeError, match="partitioned by the same columns"):
         intake.read_parts(tmp_path / "by_segment", CONFIG)
+
+
+@pytest.mark.parametrize("part_rows", [7, 50, 64])
+def test_a_row_group_longer_than_a_part_is_read_as_several_the_same_rows(part_rows, tmp_path, monkeypatch):
+    """pandas and pyarrow write up to 1,048,576 rows in one row group: such a group is read as
+    parts of ``PART_ROWS`` rows (here a few, the tape's row groups 50 long), so that a cluster
+    spreads it and a worker holds a part. Found by hand: a million loans in one row group were
+    computed by one of two workers (1.6 GB peak; the other idle). The parts read the tape read
+    whole, row for row, with the rows numbered in the tape."""
+    from allowance.intake import parts as parts_module
+
+    monkeypatch.setattr(parts_module, "PART_ROWS", part_rows)
+    frame = FRAME.copy()
+    frame.loc[57, "days_past_due"] = "-3"
+    path = tmp_path / "tape.parquet"
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), path, row_group_size=50)
+    layout = parts_module.tape_layout(path, 100)
+    expected = [r for g in (50, 50, 20) for r in [part_rows] * (g // part_rows) + ([g % part_rows] if g % part_rows else [])]
+    assert [p.rows for p in layout.parts] == expected
+    assert [p.first_row for p in layout.parts] == [sum(expected[:i]) for i in range(len(expected))]
+    whole = intake.read_tape(path, CONFIG)
+    parts = intake.read_parts(path, CONFIG)
+    assert (parts.rows_read, parts.rows_rejected) == (ROWS, 1)
+    pd.testing.assert_frame_equal(parts.accepted, whole.accepted)
+    pd.testing.assert_frame_equal(parts.rejected, whole.rejected)

@@ -40,6 +40,7 @@ import os
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -62,6 +63,9 @@ from allowance.intake.tape import (
 )
 from allowance.schemas import InputFile, RunConfig
 
+if TYPE_CHECKING:  # loaded where a part is read
+    import pyarrow.parquet as pq
+
 __all__ = ["TapeLayout", "TapePart", "combine", "is_partitioned", "read_part", "read_parts", "repeated_ids",
            "tape_layout"]
 
@@ -83,6 +87,9 @@ class TapePart:
     first_row: int
     rows: int
     partition: tuple[tuple[str, str], ...] = ()
+    #: rows of the row group before this part: a row group longer than :data:`PART_ROWS` is
+    #: read as several parts (``rows`` of it from ``offset``)
+    offset: int = 0
 
 
 @dataclass(frozen=True)
@@ -116,6 +123,13 @@ def _files(path: Path) -> list[Path]:
     return [path]
 
 
+#: The most rows a part holds: a longer row group (pandas and pyarrow write up to 1,048,576
+#: rows in one, Spark about 128 MB) is read as parts of this size, so that a cluster spreads
+#: it over its workers and a worker holds a part, not the row group, while computing. The
+#: engine's chunk (:data:`allowance.engine.CHUNK_SIZE`) is the same size.
+PART_ROWS = 250_000
+
+
 def partition_values(file: Path, folder: Path) -> tuple[tuple[str, str], ...]:
     """The ``(column, value)`` pairs of the ``column=value`` folders between ``folder`` and
     ``file``: how pandas (``to_parquet(partition_cols=...)``), Arrow and Spark
@@ -137,18 +151,20 @@ def partition_values(file: Path, folder: Path) -> tuple[tuple[str, str], ...]:
     return tuple(pairs)
 
 
-def tape_layout(path: str | Path, max_mb: float) -> TapeLayout:
+def tape_layout(path: str | Path, max_mb: float, part_rows: int | None = None) -> TapeLayout:
     """The parts of a Parquet tape (a file, or a folder of files read in name order).
 
     Every file must have the same columns in the same order; each is at most ``max_mb``
     MiB (``[run] max_input_mb`` applies per file). Files are fingerprinted as they are (a
-    streamed SHA-256), never loaded.
+    streamed SHA-256), never loaded. A part is a row group, or ``part_rows`` rows of a longer
+    one (default :data:`PART_ROWS`).
     """
     import pyarrow.parquet as pq
 
     path = Path(path)
     if not path.exists():
         raise InputFileError("file not found", file=path, hint="check the path")
+    part_rows = part_rows or PART_ROWS
     parts: list[TapePart] = []
     headers: list[str] | None = None
     rows = 0
@@ -174,10 +190,11 @@ def tape_layout(path: str | Path, max_mb: float) -> TapeLayout:
                                  "partitioned by the same columns")
         for group in range(meta.num_row_groups):
             n = meta.row_group(group).num_rows
-            if n:
-                parts.append(TapePart(file=os.path.abspath(file), row_group=group, first_row=rows, rows=n,
-                                      partition=partition))
-                rows += n
+            for offset in range(0, n, part_rows):
+                taken = min(part_rows, n - offset)
+                parts.append(TapePart(file=os.path.abspath(file), row_group=group, first_row=rows, rows=taken,
+                                      partition=partition, offset=offset))
+                rows += taken
         hashes.append((str(file.relative_to(path)) if path.is_dir() else file.name, scan(file, "tape")))
     if rows == 0:
         raise TapeError("has a header but no data rows", file=path, hint="export the tape again with its loans")
@@ -198,12 +215,33 @@ def _read(part: TapePart, columns: Sequence[str] | None = None) -> pa.Table:
     given = dict(part.partition)
     own = None if columns is None else [c for c in columns if c not in given]
     try:
-        table = pq.ParquetFile(part.file).read_row_group(part.row_group, columns=own)
+        source = pq.ParquetFile(part.file)
+        if part.offset == 0 and part.rows == source.metadata.row_group(part.row_group).num_rows:
+            table = source.read_row_group(part.row_group, columns=own)
+        else:  # a slice of a long row group: its batches streamed, the part's rows kept
+            table = _rows_of(source, part, own)
     except (pa.ArrowException, OSError) as err:
         raise InputFileError(f"row group {part.row_group} cannot be read as Parquet ({err})", file=part.file) from err
     for key, value in part.partition:
         table = table.append_column(key, pa.array([value] * table.num_rows, pa.string()))
     return table if columns is None or not given else table.select(list(columns))
+
+
+def _rows_of(source: "pq.ParquetFile", part: TapePart, columns: Sequence[str] | None) -> pa.Table:
+    """Rows ``offset .. offset + rows`` of the part's row group, read batch by batch (the rows
+    before are decoded and let go: a part never holds the whole row group)."""
+    kept, seen = [], 0
+    stop = part.offset + part.rows
+    for batch in source.iter_batches(batch_size=65_536, row_groups=[part.row_group], columns=columns,
+                                     use_threads=False):
+        start, end = seen, seen + batch.num_rows
+        seen = end
+        if end <= part.offset:
+            continue
+        kept.append(batch.slice(max(part.offset - start, 0), min(end, stop) - max(start, part.offset)))
+        if end >= stop:
+            break
+    return pa.Table.from_batches(kept)
 
 
 def _ids(part: TapePart, header: str) -> pa.ChunkedArray:
