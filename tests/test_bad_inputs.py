@@ -355,6 +355,10 @@ def no_output(ws: Workspace, output: str) -> None:
     assert not ws.out.exists()
 
 
+def _nothing_named_like_a_scheme(ws: Workspace) -> None:
+    assert not Path("s3:").exists() and not (ws.folder / "s3:").exists()
+
+
 def rejected_reason(code: str) -> Callable[[Workspace, str], None]:
     def then(ws: Workspace, output: str) -> None:
         rejected = pd.read_csv(ws.out / "rejected.csv", dtype=str)
@@ -983,6 +987,13 @@ CASES: list[Case] = [
          custom=saved_in("latin-1")),
     Case("tape saved as UTF-16", "a spreadsheet's 'Unicode text' export (UTF-16 with its byte-order mark)", "custom",
          1, ("is UTF-16 text, not UTF-8", "save the file as UTF-8 CSV"), custom=saved_in("utf-16")),
+    Case("a tape given as a URL", "the tape as s3://bucket/q3/tape.parquet (parsed as a path: s3:/bucket/...)", "run", 1,
+         ("s3://bucket/q3/tape.parquet", "a URL", "file system"),
+         args=lambda ws: ["run", "s3://bucket/q3/tape.parquet", "-a", ws.toml, "--out", ws.out], then=no_output),
+    Case("--out given as a URL", "--out s3://bucket/q3-out (it would be a local folder 's3:')", "run", 2,
+         ("--out", "s3://bucket/q3-out", "is a URL"),
+         args=lambda ws: ["run", ws.tape, "-a", ws.toml, "--out", "s3://bucket/q3-out"],
+         then=lambda ws, output: _nothing_named_like_a_scheme(ws)),
     Case("a scheduler address that is not one", "--engine dask --scheduler nonsense (no port)", "run", 2,
          ("--scheduler", "no port", "tcp://10.0.0.5:8786"),
          args=lambda ws: ["run", ws.tape, "-a", ws.toml, "--engine", "dask", "--scheduler", "nonsense", "--out", ws.out],

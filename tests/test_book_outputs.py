@@ -232,3 +232,18 @@ def test_a_book_whose_prior_run_has_its_model_isolates_the_assumption_lines(book
     for fw, moved in in_process.movement.items():
         pd.testing.assert_frame_equal(by_parts.movement[fw].loans, moved.loans)
         pd.testing.assert_frame_equal(by_parts.movement[fw].to_long(), moved.to_long())
+
+
+def test_a_loan_detail_folder_given_as_a_url_is_refused_not_made_here(tmp_path, monkeypatch):
+    """``--loans-parquet s3://bucket/detail`` parsed as a path is a folder ``s3:`` in the
+    working folder: the run wrote the detail there and said nothing (found by hand). Refused
+    now, naming the URL, before anything is read or written."""
+    from allowance.exceptions import OutputError
+
+    monkeypatch.chdir(tmp_path)
+    frame = pd.read_csv(DEMO_TAPE, dtype=str, keep_default_na=False, nrows=20)
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), tmp_path / "tape.parquet")
+    with pytest.raises(OutputError, match="s3://bucket/detail: is a URL"):
+        api.run(tmp_path / "tape.parquet", DEMO_ASSUMPTIONS, loans_parquet="s3://bucket/detail",
+                accept_ledger_difference=True)
+    assert not (tmp_path / "s3:").exists()

@@ -5,6 +5,7 @@ from __future__ import annotations
 import codecs
 import hashlib
 import importlib.resources
+import re
 import zipfile
 from collections.abc import Callable, Collection
 from dataclasses import dataclass
@@ -53,6 +54,36 @@ class Scan:
         return self.newlines + (0 if self.ends_with_newline or self.record.bytes == 0 else 1)
 
 
+_SCHEME = re.compile(r"[A-Za-z][A-Za-z0-9+.-]+:")
+
+
+def url_given(path: str | Path) -> str | None:
+    """The URL a path was given as, or None: ``s3://bucket/tape.parquet`` parsed as a path is
+    ``s3:/bucket/tape.parquet`` (a folder ``s3:`` here), so a run would look for it, or write
+    its outputs, on this machine. This tool reads and writes files on a file system (a
+    cluster's workers mount the same one), never an object store's URL.
+
+    >>> url_given("s3://bucket/q3/tape.parquet"), url_given(Path("gs://b/detail"))
+    ('s3://bucket/q3/tape.parquet', 'gs://b/detail')
+    >>> url_given("tapes/q3.parquet") is None and url_given("/data/s3:/x") is None
+    True
+    """
+    parts = Path(path).parts
+    if not parts or not _SCHEME.fullmatch(parts[0]):
+        return None
+    return parts[0] + "//" + "/".join(parts[1:])
+
+
+def not_found(path: str | Path, what: str = "file") -> InputFileError:
+    """The error of a missing input: "check the path", or, for a path given as a URL, what to do."""
+    url = url_given(path)
+    if url is not None:
+        return InputFileError(f"{what} not found: a URL, and inputs are read from a file system",
+                              file=url, hint="copy it to a local or mounted folder, or mount the bucket, "
+                                             "and give that path")
+    return InputFileError(f"{what} not found", file=path, hint="check the path")
+
+
 def _count(block: np.ndarray, byte: int) -> int:
     return int(np.count_nonzero(block == byte))
 
@@ -97,7 +128,7 @@ def scan(path: Path, role: str, *, text: bool = False, utf8: bool = False) -> Sc
             if decoder is not None and decoder.getstate()[0]:
                 check_text(path)  # the file ends inside a character
     except FileNotFoundError as err:
-        raise InputFileError("file not found", file=path, hint="check the path") from err
+        raise not_found(path) from err
     except IsADirectoryError as err:
         raise InputFileError("is a folder, not a file", file=path, hint="give the file inside it") from err
     except OSError as err:
@@ -139,7 +170,7 @@ def check_size(path: Path, max_mb: float) -> int:
     """Return the file's size in bytes; raise :class:`InputFileError` if missing or above ``max_mb`` MiB."""
     path = Path(path)
     if not path.exists():
-        raise InputFileError("file not found", file=path, hint="check the path")
+        raise not_found(path)
     if not path.is_file():
         raise InputFileError("is not a file", file=path, hint="give the path of the file itself")
     size = path.stat().st_size

@@ -49,7 +49,7 @@ import pyarrow.compute as pc
 
 from allowance.exceptions import InputFileError, TapeError
 from allowance.intake.fields import FIELDS
-from allowance.intake.files import Scan, check_size, scan
+from allowance.intake.files import Scan, check_size, not_found, scan
 from allowance.intake.parse import PARSERS
 from allowance.intake.readers import arrow_tape, as_text, supported_column
 from allowance.intake.results import IntakeResult
@@ -163,7 +163,7 @@ def tape_layout(path: str | Path, max_mb: float, part_rows: int | None = None) -
 
     path = Path(path)
     if not path.exists():
-        raise InputFileError("file not found", file=path, hint="check the path")
+        raise not_found(path)
     part_rows = part_rows or PART_ROWS
     parts: list[TapePart] = []
     headers: list[str] | None = None
