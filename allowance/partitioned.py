@@ -59,7 +59,7 @@ import pandas as pd
 
 from allowance import disclosure, engine, intake, overlays, staging
 from allowance.exceptions import OutputError
-from allowance.intake.files import url_given
+from allowance.intake.files import refuse_url_output
 from allowance.intake.parts import TapeLayout, TapePart, combine, read_part, repeated_ids, tape_layout
 from allowance.engine.views import pd_path_from, pd_path_weights
 from allowance.intake.tape import Validated
@@ -328,9 +328,7 @@ def run_book(path: str | os.PathLike, config: RunConfig, folder: str | os.PathLi
     it is computed (:func:`compute_part`'s ``prior``), into ``at_prior``.
     """
     told = progress or (lambda phase, done, total: None)
-    if (url := url_given(folder)) is not None:  # parsed as a path, it is a folder "s3:" here
-        raise OutputError("is a URL, and the loan detail is written to a folder on a file system every worker "
-                          "mounts", file=url, hint="give a local or mounted folder")
+    refuse_url_output(folder, "the loan detail (every worker mounts it)")
     # absolute: the parts are written where they are computed, by workers whose working
     # folder is their own
     folder = Path(os.path.abspath(folder))

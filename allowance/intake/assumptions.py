@@ -29,7 +29,7 @@ from pydantic import BaseModel, ValidationError
 from allowance import curves, scenarios
 from allowance.exceptions import AssumptionsError
 from allowance.intake.fields import FIELDS, lower_first
-from allowance.intake.files import file_record, in_windows_1252, not_found, url_given
+from allowance.intake.files import file_record, in_windows_1252, not_found
 from allowance.schemas import Assumptions, InputFile, RunConfig
 
 Key = tuple[str | int, ...]
@@ -72,9 +72,7 @@ def _read_toml(path: Path) -> dict[str, Any]:
     try:
         data = _read_capped(path, MAX_ASSUMPTIONS_BYTES)
     except FileNotFoundError as err:
-        if url_given(path) is not None:
-            raise not_found(path) from err
-        raise AssumptionsError("file not found", file=path, hint="check the path") from err
+        raise not_found(path, error=AssumptionsError) from err
     except OSError as err:
         raise AssumptionsError(f"cannot be read ({err.strerror or err})", file=path) from err
     try:

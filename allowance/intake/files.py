@@ -15,7 +15,7 @@ from typing import Literal
 import numpy as np
 
 import allowance
-from allowance.exceptions import AllowanceError, InputFileError
+from allowance.exceptions import AllowanceError, InputFileError, OutputError
 from allowance.schemas import InputFile
 
 FileKind = Literal["csv", "xlsx", "parquet"]
@@ -74,14 +74,24 @@ def url_given(path: str | Path) -> str | None:
     return parts[0] + "//" + "/".join(parts[1:])
 
 
-def not_found(path: str | Path, what: str = "file") -> InputFileError:
-    """The error of a missing input: "check the path", or, for a path given as a URL, what to do."""
+def not_found(path: str | Path, reason: str = "file not found", *, hint: str = "check the path",
+              error: type[AllowanceError] = InputFileError) -> AllowanceError:
+    """The error of a missing input (``error(reason, file=path, hint=hint)``), or, for a path
+    given as a URL (:func:`url_given`), one that names the URL and says what to do."""
     url = url_given(path)
     if url is not None:
-        return InputFileError(f"{what} not found: a URL, and inputs are read from a file system",
-                              file=url, hint="copy it to a local or mounted folder, or mount the bucket, "
-                                             "and give that path")
-    return InputFileError(f"{what} not found", file=path, hint="check the path")
+        return error(f"{reason}: a URL, and inputs are read from a file system", file=url,
+                     hint="copy it to a local or mounted folder, or mount the bucket, and give that path")
+    return error(reason, file=path, hint=hint)
+
+
+def refuse_url_output(path: str | Path, what: str) -> None:
+    """Raise :class:`OutputError` when an output folder was given as a URL: parsed as a path it
+    is a folder ``s3:`` on this machine, where ``what`` would be written without a word."""
+    url = url_given(path)
+    if url is not None:
+        raise OutputError(f"is a URL, and {what} is written to a folder on a file system", file=url,
+                          hint="give a local or mounted folder")
 
 
 def _count(block: np.ndarray, byte: int) -> int:

@@ -15,7 +15,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 
 from allowance.exceptions import InputFileError
 from allowance.intake.fields import FIELDS
-from allowance.intake.files import check_size, file_kind, not_found, refuse_other_separators, url_given
+from allowance.intake.files import check_size, file_kind, not_found, refuse_other_separators
 from allowance.intake.parse import NUMBER_PATTERN
 from allowance.intake.readers import read_raw
 from allowance.schemas import Framework
@@ -199,10 +199,7 @@ def _prior_files(folder: Path, role: str) -> tuple[Path, dict]:
     ``run.json`` (read and checked)."""
     folder = Path(folder)
     if not folder.is_dir():
-        if url_given(folder) is not None:
-            raise not_found(folder, f"{role} run folder")
-        raise InputFileError(f"the {role} run folder was not found", file=folder,
-                             hint="give the --out folder of that run")
+        raise not_found(folder, f"the {role} run folder was not found", hint="give the --out folder of that run")
     loans_path, record_path = folder / "loans.csv", folder / "run.json"
     if not loans_path.is_file() and record_path.is_file():
         record = read_run_record(record_path)

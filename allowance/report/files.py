@@ -35,7 +35,7 @@ import pyarrow.csv as pa_csv
 
 from allowance.exceptions import OutputError
 from allowance.intake import IntakeResult
-from allowance.intake.files import url_given
+from allowance.intake.files import refuse_url_output
 from allowance import aside
 from allowance.memory import give_back, given_back
 from allowance.report.record import RunReport, run_record
@@ -446,9 +446,7 @@ def check_output_path(out_dir: Path, inputs: Iterable[str | Path] = ()) -> None:
     out_dir = Path(out_dir)
     if str(out_dir).strip() == "":
         raise OutputError("the output folder is empty text", hint="give --out a folder name, e.g. --out q3-out")
-    if (url := url_given(out_dir)) is not None:  # parsed as a path, it is a folder "s3:" here
-        raise OutputError("is a URL, and the outputs are written to a folder on a file system", file=url,
-                          hint="give a local or mounted folder, and copy the outputs from there")
+    refuse_url_output(out_dir, "the run's output")
     if out_dir.exists() and not out_dir.is_dir():
         raise OutputError("the output path exists and is not a folder", file=out_dir,
                           hint="choose a folder name for --out")
